@@ -21,9 +21,9 @@ func TestNTPToUnixUs(t *testing.T) {
 		{"one fraction unit", uint64(2208988800)<<32 | 1, 0},
 		// 0xFFFFFFFF/2^32 s = 999999.99977 us rounds up into the next second.
 		{"fraction rounds into next second", uint64(2208988800)<<32 | 0xFFFFFFFF, 1_000_000},
-		{"2023-11-14T22:13:20Z", uint64(0xE8FE6F80) << 32, 1_700_000_000_000_000},
+		{"2023-11-14T22:13:20Z (date -u -d @1700000000)", uint64(0xE8FE6F80) << 32, 1_700_000_000_000_000},
 		// RFC 4330 section 3: seconds with MSB 0 lie in era 1; NTP second 0 of era 1 is
-		// 2036-02-07T06:28:16Z = 2^32 - 2 208 988 800 = 2 085 978 496 s Unix.
+		// 2036-02-07T06:28:16Z = 2^32 - 2 208 988 800 = 2 085 978 496 s Unix (`date -u -d @2085978496`).
 		{"era 1 start", 0, 2_085_978_496_000_000},
 		{"era 1 plus 10 s", uint64(10) << 32, 2_085_978_506_000_000},
 	}
