@@ -1,0 +1,320 @@
+package predictor
+
+import (
+	"errors"
+	"math"
+	"testing"
+
+	"stopgap/predictor/internal/cvref"
+)
+
+// testCameras are made-up but plausible mounts with non-zero pitch, roll and
+// offsets so that every term of the geometry is exercised.
+func testCameras() map[string]Camera {
+	return map[string]Camera{
+		"hd-pitch-roll": {Width: 1280, Height: 720, Fx: 1000, Fy: 1010, Cx: 640.5, Cy: 360.2,
+			HeightM: 1.4, PitchDeg: 6, RollDeg: 2.5, XOffsetM: 1.8, YOffsetM: 0.3},
+		"vga-up-negroll": {Width: 640, Height: 480, Fx: 520, Fy: 530, Cx: 318, Cy: 245,
+			HeightM: 2.1, PitchDeg: -3, RollDeg: -4, XOffsetM: -0.5, YOffsetM: -0.4},
+		"level": {Width: 320, Height: 240, Fx: 300, Fy: 300, Cx: 160, Cy: 120,
+			HeightM: 1.2, XOffsetM: 1.0},
+	}
+}
+
+func TestCameraValidate(t *testing.T) {
+	good := testCameras()["hd-pitch-roll"]
+	if err := good.Validate(); err != nil {
+		t.Fatalf("good camera rejected: %v", err)
+	}
+	cases := []struct {
+		name  string
+		mod   func(*Camera)
+		field string
+	}{
+		{"zero width", func(c *Camera) { c.Width = 0 }, "Width"},
+		{"huge height", func(c *Camera) { c.Height = MaxImageSide + 1 }, "Height"},
+		{"zero fx", func(c *Camera) { c.Fx = 0 }, "Fx"},
+		{"negative fy", func(c *Camera) { c.Fy = -5 }, "Fy"},
+		{"nan cx", func(c *Camera) { c.Cx = math.NaN() }, "Cx"},
+		{"inf k1", func(c *Camera) { c.K1 = math.Inf(1) }, "K1"},
+		{"cx outside", func(c *Camera) { c.Cx = 2000 }, "Cx"},
+		{"cy negative", func(c *Camera) { c.Cy = -1 }, "Cy"},
+		{"height zero", func(c *Camera) { c.HeightM = 0 }, "HeightM"},
+		{"height negative", func(c *Camera) { c.HeightM = -1 }, "HeightM"},
+		{"pitch 90", func(c *Camera) { c.PitchDeg = 90 }, "PitchDeg"},
+		{"roll 60", func(c *Camera) { c.RollDeg = -60 }, "RollDeg"},
+		{"nan offset", func(c *Camera) { c.YOffsetM = math.NaN() }, "YOffsetM"},
+	}
+	for _, tc := range cases {
+		t.Run(tc.name, func(t *testing.T) {
+			c := good
+			tc.mod(&c)
+			err := c.Validate()
+			var ce *CameraError
+			if !errors.As(err, &ce) || !errors.Is(err, ErrInvalidCamera) {
+				t.Fatalf("got %v, want *CameraError wrapping ErrInvalidCamera", err)
+			}
+			if ce.Field != tc.field {
+				t.Fatalf("field %q, want %q (%v)", ce.Field, tc.field, err)
+			}
+		})
+	}
+}
+
+// TestRotationIsOrthonormal: R_cv must be a proper rotation (det +1, RᵀR = I).
+func TestRotationIsOrthonormal(t *testing.T) {
+	for name, c := range testCameras() {
+		r := c.RotationVehicleToCamera()
+		p := mul33(r, transpose3(r))
+		for i := 0; i < 3; i++ {
+			for j := 0; j < 3; j++ {
+				want := 0.0
+				if i == j {
+					want = 1
+				}
+				if math.Abs(p[i][j]-want) > 1e-12 {
+					t.Fatalf("%s: R Rᵀ[%d][%d] = %g", name, i, j, p[i][j])
+				}
+			}
+		}
+		if d := det3(r); math.Abs(d-1) > 1e-12 {
+			t.Fatalf("%s: det = %g", name, d)
+		}
+	}
+}
+
+// TestProjectClosedForm checks the extrinsic sign conventions with worked
+// values from elementary trigonometry (no roll): a road point straight ahead of
+// the camera at horizontal distance L is seen at depression angle
+// α = atan(h/L) below the horizontal; a camera pitched down by θ sees it
+// α - θ below its optical axis, so v = Cy + Fy·tan(α - θ) and u = Cx.
+func TestProjectClosedForm(t *testing.T) {
+	c := Camera{Width: 640, Height: 480, Fx: 500, Fy: 510, Cx: 320, Cy: 240,
+		HeightM: 1.5, PitchDeg: 8, XOffsetM: 2, YOffsetM: -0.7}
+	for _, l := range []float64{4, 10, 35} {
+		u, v, err := c.ProjectVehiclePoint([3]float64{c.XOffsetM + l, c.YOffsetM, 0})
+		if err != nil {
+			t.Fatal(err)
+		}
+		alpha := math.Atan(c.HeightM / l)
+		wantV := c.Cy + c.Fy*math.Tan(alpha-c.PitchDeg*math.Pi/180)
+		if math.Abs(u-c.Cx) > 1e-9 || math.Abs(v-wantV) > 1e-9 {
+			t.Errorf("L=%g: got (%g,%g) want (%g,%g)", l, u, v, c.Cx, wantV)
+		}
+	}
+	// A point to the left (vehicle +y) appears left of centre (u < Cx).
+	u, _, err := c.ProjectVehiclePoint([3]float64{c.XOffsetM + 10, c.YOffsetM + 1, 0})
+	if err != nil || !(u < c.Cx) {
+		t.Errorf("left point at u=%g (err %v), want u < Cx", u, err)
+	}
+	// Points behind the camera have no pixel.
+	if _, _, err := c.ProjectVehiclePoint([3]float64{c.XOffsetM - 1, 0, 0}); !errors.Is(err, ErrBehindCamera) {
+		t.Errorf("behind camera: got %v", err)
+	}
+}
+
+// TestProjectMatchesOpenCV compares our projection (with distortion) with
+// cv::projectPoints (OpenCV 4.6 calib3d, the reference implementation of the
+// model we document), using our extrinsics as rvec/tvec. Tolerance 1e-6 px.
+func TestProjectMatchesOpenCV(t *testing.T) {
+	dists := [][5]float64{{}, {-0.28, 0.09, 0.0012, -0.0007, -0.012}, {0.1, -0.05, -0.002, 0.001, 0.01}}
+	pts := [][3]float64{{5, 0, 0}, {12, 3, 0}, {25, -6, 0.5}, {8, 1.5, 2.5}, {40, -2, 4}, {6.5, -2.2, 0.3}}
+	for name, c := range testCameras() {
+		for di, d := range dists {
+			c.K1, c.K2, c.P1, c.P2, c.K3 = d[0], d[1], d[2], d[3], d[4]
+			r, tv := c.Extrinsics()
+			rvec, err := cvref.Rodrigues(r)
+			if err != nil {
+				t.Fatal(err)
+			}
+			ref, err := cvref.ProjectPoints(pts, rvec, tv, c.K(), d)
+			if err != nil {
+				t.Fatal(err)
+			}
+			for i, p := range pts {
+				u, v, err := c.ProjectVehiclePoint(p)
+				if err != nil {
+					t.Fatalf("%s dist %d point %v: %v", name, di, p, err)
+				}
+				if math.Abs(u-ref[i][0]) > 1e-6 || math.Abs(v-ref[i][1]) > 1e-6 {
+					t.Errorf("%s dist %d point %v: ours (%.9f,%.9f) OpenCV (%.9f,%.9f)", name, di, p, u, v, ref[i][0], ref[i][1])
+				}
+			}
+		}
+	}
+}
+
+// TestHorizon: far road points (10 km) lie on the horizon line; near road
+// points are on its positive side and points well above the road on the
+// negative side. With RollDeg > 0 the horizon rises to the right.
+func TestHorizon(t *testing.T) {
+	for name, c := range testCameras() {
+		h := c.Horizon()
+		if math.Abs(math.Hypot(h.A, h.B)-1) > 1e-12 {
+			t.Fatalf("%s: not normalised", name)
+		}
+		for _, y := range []float64{-3000, 0, 2500} {
+			u, v, err := c.ProjectVehiclePointPinhole([3]float64{1e4, y, 0})
+			if err != nil {
+				t.Fatal(err)
+			}
+			// The far point is 1.4-2.1 m below the camera at 10 km: about
+			// Fy*h/1e4 ≈ 0.1 px below the true horizon.
+			if d := h.SignedDistance(u, v); d < 0 || d > 0.2 {
+				t.Errorf("%s: far point %v at distance %g px from horizon", name, y, d)
+			}
+		}
+		u, v, _ := c.ProjectVehiclePointPinhole([3]float64{c.XOffsetM + 6, 0, 0})
+		if h.SignedDistance(u, v) <= 0 {
+			t.Errorf("%s: near road point not below horizon", name)
+		}
+		u, v, _ = c.ProjectVehiclePointPinhole([3]float64{c.XOffsetM + 30, 0, c.HeightM + 5})
+		if h.SignedDistance(u, v) >= 0 {
+			t.Errorf("%s: elevated point not above horizon", name)
+		}
+	}
+	c := testCameras()["hd-pitch-roll"]
+	left, _ := c.Horizon().RowAt(0)
+	right, _ := c.Horizon().RowAt(float64(c.Width))
+	if !(right < left) {
+		t.Errorf("RollDeg > 0: horizon row left %g right %g, want rising to the right", left, right)
+	}
+	// Level camera: horizon is the row through the principal point.
+	lv := testCameras()["level"]
+	if v, _ := lv.Horizon().RowAt(17); math.Abs(v-lv.Cy) > 1e-12 {
+		t.Errorf("level camera horizon at %g want %g", v, lv.Cy)
+	}
+}
+
+type planar struct{ dx, dy, yaw float64 }
+
+func testMotions() map[string]planar {
+	return map[string]planar{
+		"still":      {0, 0, 0},
+		"straight":   {2.5, 0, 0},
+		"left-turn":  {3, 0.4, 0.15},
+		"right-turn": {1.2, -0.2, -0.3},
+		"reverse":    {-1.5, 0.1, 0.05},
+		"sidestep":   {0.2, 0.8, -0.02},
+	}
+}
+
+// TestGroundHomographyMatchesOpenCV: for road points P (vehicle frame at T0),
+// cv::projectPoints with the T0 camera pose gives p0 and with the T1 camera
+// pose gives p1 (both poses built from our R_cv via cv::Rodrigues, T1 pose
+// composed directly as world->vehicle(T1)->camera). Our ground homography must
+// map p0 to p1 to 1e-6 px.
+func TestGroundHomographyMatchesOpenCV(t *testing.T) {
+	var pts [][3]float64
+	for _, x := range []float64{7, 11, 18, 30} {
+		for _, y := range []float64{-4, -1, 0.5, 3} {
+			pts = append(pts, [3]float64{x, y, 0})
+		}
+	}
+	for cname, c := range testCameras() {
+		rcv := c.RotationVehicleToCamera()
+		rv0, _ := cvref.Rodrigues(rcv)
+		_, t0 := c.Extrinsics()
+		p0, err := cvref.ProjectPoints(pts, rv0, t0, c.K(), [5]float64{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		for mname, m := range testMotions() {
+			t.Run(cname+"/"+mname, func(t *testing.T) {
+				// World (vehicle at T0) -> vehicle at T1: P1 = Rzᵀ (P - D).
+				// -> camera: R_cv (P1 - C) = (R_cv Rzᵀ) P - R_cv (Rzᵀ D + C).
+				r1 := mul33(rcv, transpose3(rotZ(m.yaw)))
+				rd := mul3v(transpose3(rotZ(m.yaw)), vec3{m.dx, m.dy, 0})
+				q := mul3v(rcv, vec3{rd[0] + c.XOffsetM, rd[1] + c.YOffsetM, rd[2] + c.HeightM})
+				rv1, _ := cvref.Rodrigues(r1)
+				p1, err := cvref.ProjectPoints(pts, rv1, vec3{-q[0], -q[1], -q[2]}, c.K(), [5]float64{})
+				if err != nil {
+					t.Fatal(err)
+				}
+				h := c.GroundHomographyPlanar(m.dx, m.dy, m.yaw)
+				for i := range pts {
+					u, v, ok := h.Apply(p0[i][0], p0[i][1])
+					if !ok || math.Abs(u-p1[i][0]) > 1e-6 || math.Abs(v-p1[i][1]) > 1e-6 {
+						t.Errorf("point %v: H gives (%.9f,%.9f,%v), OpenCV (%.9f,%.9f)", pts[i], u, v, ok, p1[i][0], p1[i][1])
+					}
+				}
+			})
+		}
+	}
+}
+
+// TestRotationHomographyFarPoints: for points 100 km away the parallax of a
+// few metres is below 0.1 px, so K R K^-1 must agree with cv::projectPoints at
+// T1 there (and, by construction, for any point when the translation is zero).
+func TestRotationHomographyFarPoints(t *testing.T) {
+	pts := [][3]float64{{1e5, 0, 0}, {1e5, 2e4, 3e3}, {1e5, -3e4, 1e3}}
+	for cname, c := range testCameras() {
+		rcv := c.RotationVehicleToCamera()
+		rv0, _ := cvref.Rodrigues(rcv)
+		_, t0 := c.Extrinsics()
+		p0, _ := cvref.ProjectPoints(pts, rv0, t0, c.K(), [5]float64{})
+		for mname, m := range testMotions() {
+			r1 := mul33(rcv, transpose3(rotZ(m.yaw)))
+			rd := mul3v(transpose3(rotZ(m.yaw)), vec3{m.dx, m.dy, 0})
+			q := mul3v(rcv, vec3{rd[0] + c.XOffsetM, rd[1] + c.YOffsetM, rd[2] + c.HeightM})
+			rv1, _ := cvref.Rodrigues(r1)
+			p1, _ := cvref.ProjectPoints(pts, rv1, vec3{-q[0], -q[1], -q[2]}, c.K(), [5]float64{})
+			h := c.RotationHomographyPlanar(m.dx, m.dy, m.yaw)
+			for i := range pts {
+				u, v, ok := h.Apply(p0[i][0], p0[i][1])
+				if !ok || math.Abs(u-p1[i][0]) > 0.1 || math.Abs(v-p1[i][1]) > 0.1 {
+					t.Errorf("%s/%s point %v: H (%.4f,%.4f) OpenCV (%.4f,%.4f)", cname, mname, pts[i], u, v, p1[i][0], p1[i][1])
+				}
+			}
+		}
+	}
+}
+
+// TestZeroMotionIdentity: no motion gives identity homographies.
+func TestZeroMotionIdentity(t *testing.T) {
+	for name, c := range testCameras() {
+		for _, h := range []Homography{c.GroundHomographyPlanar(0, 0, 0), c.RotationHomographyPlanar(0, 0, 0)} {
+			for i := 0; i < 3; i++ {
+				for j := 0; j < 3; j++ {
+					if math.Abs(h[i][j]-Identity[i][j]) > 1e-12 {
+						t.Fatalf("%s: %v is not identity", name, h)
+					}
+				}
+			}
+		}
+	}
+}
+
+// TestHorizonInvariant: the ground homography maps the horizon to itself
+// (the camera keeps its height and attitude relative to the road).
+func TestHorizonInvariant(t *testing.T) {
+	c := testCameras()["hd-pitch-roll"]
+	hz := c.Horizon()
+	h := c.GroundHomographyPlanar(3, 0.4, 0.15)
+	for _, u := range []float64{100, 640, 1200} {
+		v, _ := hz.RowAt(u)
+		x, y, ok := h.Apply(u, v)
+		if !ok || math.Abs(hz.SignedDistance(x, y)) > 1e-6 {
+			t.Errorf("horizon point (%g,%g) -> (%g,%g) ok=%v, distance %g", u, v, x, y, ok, hz.SignedDistance(x, y))
+		}
+	}
+}
+
+func TestHomographyInverse(t *testing.T) {
+	h := testCameras()["vga-up-negroll"].GroundHomographyPlanar(1.2, -0.2, -0.3)
+	hi, err := h.Inverse()
+	if err != nil {
+		t.Fatal(err)
+	}
+	x, y, _ := h.Apply(300, 400)
+	u, v, ok := hi.Apply(x, y)
+	if !ok || math.Abs(u-300) > 1e-9 || math.Abs(v-400) > 1e-9 {
+		t.Fatalf("round trip gave (%g,%g,%v)", u, v, ok)
+	}
+	if _, err := (Homography{}).Inverse(); !errors.Is(err, ErrSingular) {
+		t.Fatalf("zero matrix: got %v", err)
+	}
+	if _, err := (Homography{{math.NaN(), 0, 0}, {0, 1, 0}, {0, 0, 1}}).Inverse(); !errors.Is(err, ErrSingular) {
+		t.Fatalf("NaN matrix: got %v", err)
+	}
+}
