@@ -133,9 +133,12 @@ func decodeTelemetry(file string, data []byte) ([]TelemetryRow, []string, bool, 
 }
 
 // decodeArrivals parses an arrivals file. nFrames < 0 skips the check
-// against the frames and makes an incomplete last line an error; otherwise an index >= nFrames is an error, or, when
-// tolerateBeyond is set (frames.csv was cut short), dropped with a warning.
-func decodeArrivals(file string, data []byte, nFrames int, tolerateBeyond bool) ([]Arrival, []string, bool, error) {
+// against the frames and makes an incomplete last line an error. Otherwise
+// an index >= nFrames is an error, except, when tolerateTail is set, in a
+// trailing run of such rows at the end of the file: that is what a writer
+// leaves when frames.csv lost its last lines, and those rows are dropped
+// with a warning.
+func decodeArrivals(file string, data []byte, nFrames int, tolerateTail bool) ([]Arrival, []string, bool, error) {
 	t, err := splitTable(file, data, []string{colIndex, colArrivalUs}, nil)
 	if err != nil {
 		return nil, nil, false, err
@@ -143,19 +146,28 @@ func decodeArrivals(file string, data []byte, nFrames int, tolerateBeyond bool) 
 	t.strictTail = nFrames < 0
 	out := []Arrival{}
 	seen := map[int64]int{} // index -> line
-	beyond := 0
+	beyond, firstBeyondLine, firstBeyondIdx := 0, 0, int64(0)
 	warns, dropped, err := eachRow(t, func(rr *rowReader) {
 		idx := rr.int64(colIndex)
 		us, ok := rr.optInt64(colArrivalUs, false)
 		if rr.err != nil {
 			return
 		}
+		unknown := func(idx int64, line int) {
+			rr.r.line = line
+			rr.fail(rr.colOf(colIndex), fmt.Errorf("%w: index %d, but frames.csv has frames 0..%d; remove the row or use the arrivals file of this recording", ErrUnknownIndex, idx, nFrames-1))
+		}
 		switch {
 		case idx < 0:
 			rr.fail(rr.colOf(colIndex), fmt.Errorf("%w: index %d is negative", ErrUnknownIndex, idx))
 			return
-		case nFrames >= 0 && idx >= int64(nFrames) && !tolerateBeyond:
-			rr.fail(rr.colOf(colIndex), fmt.Errorf("%w: index %d, but frames.csv has frames 0..%d; remove the row or use the arrivals file of this recording", ErrUnknownIndex, idx, nFrames-1))
+		case nFrames >= 0 && idx >= int64(nFrames) && !tolerateTail:
+			unknown(idx, rr.r.line)
+			return
+		case beyond > 0 && idx < int64(nFrames):
+			// A known frame after an unknown one: the unknown row was not
+			// a crash trace but a wrong index.
+			unknown(firstBeyondIdx, firstBeyondLine)
 			return
 		}
 		if line, dup := seen[idx]; dup {
@@ -164,6 +176,9 @@ func decodeArrivals(file string, data []byte, nFrames int, tolerateBeyond bool) 
 		}
 		seen[idx] = rr.r.line
 		if nFrames >= 0 && idx >= int64(nFrames) {
+			if beyond == 0 {
+				firstBeyondLine, firstBeyondIdx = rr.r.line, idx
+			}
 			beyond++
 			return
 		}
@@ -173,14 +188,15 @@ func decodeArrivals(file string, data []byte, nFrames int, tolerateBeyond bool) 
 		return nil, nil, false, err
 	}
 	if beyond > 0 {
-		warns = append(warns, fmt.Sprintf("%s: dropped %d arrivals for frames after the last complete frame", file, beyond))
+		warns = append(warns, fmt.Sprintf("%s: dropped %d arrivals at the end of the file for frames after the last frame (the writer was probably stopped)", file, beyond))
 	}
 	return out, warns, dropped, nil
 }
 
 // decodeTruth parses truth.csv against the frames: indices 0, 1, 2, ...
-// with the frames' capture times. Rows for frames beyond the last frame are
-// an error unless tolerateBeyond (frames.csv was cut short).
+// with the frames' capture times. Rows for frames beyond the last frame
+// (necessarily a trailing run) are an error unless tolerateBeyond, when they
+// are dropped with a warning.
 func decodeTruth(file string, data []byte, frames []Frame, tolerateBeyond bool) ([]Truth, []string, bool, error) {
 	t, err := splitTable(file, data, []string{colIndex, colCaptureUs, colX, colY, colYaw, colSpeed, colYawRate}, nil)
 	if err != nil {

@@ -42,9 +42,11 @@
 // The one exception is the trace a killed [Writer] leaves: if the last line
 // of a CSV file has no trailing newline AND fails to parse, it is dropped and
 // a warning is recorded in [Recording.Warnings]. A last line without a
-// newline that does parse is kept. Arrival rows for frames after the last
-// frame are dropped with a warning when (and only when) frames.csv itself
-// ended in such a dropped line. Telemetry after the last frame is normal.
+// newline that does parse is kept. Rows of arrivals.csv and truth.csv for
+// frames after the last frame are dropped with a warning when they form a
+// trailing run at the end of the file (frames.csv lost its last lines); an
+// unknown index followed by a known one is an error. Telemetry after the
+// last frame is normal.
 //
 // The [Writer] makes this trace small: each frame image is written to a
 // temporary name, synced and renamed into place before its CSV line is

@@ -134,7 +134,7 @@ func Open(dir string) (*Recording, error) {
 	if b, err = read(ArrivalsFile, false); err != nil {
 		return nil, err
 	} else if b != nil {
-		arr, warns, dropped, err := decodeArrivals(path(ArrivalsFile), b, len(r.Frames), fr.dropped)
+		arr, warns, dropped, err := decodeArrivals(path(ArrivalsFile), b, len(r.Frames), true)
 		if err != nil {
 			return nil, err
 		}
@@ -145,7 +145,7 @@ func Open(dir string) (*Recording, error) {
 	if b, err = read(TruthFile, false); err != nil {
 		return nil, err
 	} else if b != nil {
-		tr, warns, dropped, err := decodeTruth(path(TruthFile), b, r.Frames, fr.dropped)
+		tr, warns, dropped, err := decodeTruth(path(TruthFile), b, r.Frames, true)
 		if err != nil {
 			return nil, err
 		}

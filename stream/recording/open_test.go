@@ -176,6 +176,20 @@ func TestOpenTolerated(t *testing.T) {
 			},
 		},
 		{
+			name: "trailing arrivals and truth beyond the last frame dropped",
+			files: map[string]string{
+				ArrivalsFile: "index,t_arrival_us\n0,1\n2,5\n1,3\n3,7\n4,\n",
+				TruthFile: "index,t_capture_us,x_m,y_m,yaw_rad,speed_mps,yaw_rate_rps\n0,1000000,0,0,0,10,0\n" +
+					"1,1033333,0,0,0,10,0\n2,1066667,0,0,0,10,0\n3,1100000,0,0,0,10,0\n",
+			},
+			check: func(t *testing.T, r *Recording) {
+				if len(r.Arrivals) != 3 || len(r.Truth) != 3 {
+					t.Errorf("arrivals %+v truth %+v", r.Arrivals, r.Truth)
+				}
+			},
+			wantWarns: 2,
+		},
+		{
 			name:  "header only: no frames",
 			files: map[string]string{FramesFile: "index,t_capture_us,file\n"},
 			check: func(t *testing.T, r *Recording) {
@@ -274,14 +288,13 @@ func TestOpenErrors(t *testing.T) {
 		{"telemetry time decreasing", map[string]string{TelemetryFile: tel("5,10,0,\n4,10,0,\n")}, ErrNotIncreasing, TelemetryFile, 3, 1},
 		{"telemetry time fractional", map[string]string{TelemetryFile: tel("5.5,10,0,\n")}, ErrSyntax, TelemetryFile, 2, 1},
 
-		{"arrivals unknown index", map[string]string{ArrivalsFile: arr("0,1\n3,2\n")}, ErrUnknownIndex, ArrivalsFile, 3, 1},
+		{"arrivals unknown index before known", map[string]string{ArrivalsFile: arr("0,1\n5,2\n1,3\n")}, ErrUnknownIndex, ArrivalsFile, 3, 1},
 		{"arrivals negative index", map[string]string{ArrivalsFile: arr("-1,1\n")}, ErrUnknownIndex, ArrivalsFile, 2, 1},
 		{"arrivals duplicate", map[string]string{ArrivalsFile: arr("0,1\n1,2\n0,3\n")}, ErrIndex, ArrivalsFile, 4, 1},
 		{"arrivals malformed", map[string]string{ArrivalsFile: arr("0,1.5\n")}, ErrSyntax, ArrivalsFile, 2, 2},
 		{"arrivals missing column", map[string]string{ArrivalsFile: "index\n0\n"}, ErrMissingColumn, ArrivalsFile, 1, 0},
 
 		{"truth time mismatch", map[string]string{TruthFile: truth("0,1000000,0,0,0,10,0\n1,1033334,0,0,0,10,0\n")}, ErrMismatch, TruthFile, 3, 2},
-		{"truth beyond frames", map[string]string{TruthFile: truth("0,1000000,0,0,0,10,0\n1,1033333,0,0,0,10,0\n2,1066667,0,0,0,10,0\n3,1100000,0,0,0,10,0\n")}, ErrUnknownIndex, TruthFile, 5, 1},
 		{"truth gap", map[string]string{TruthFile: truth("0,1000000,0,0,0,10,0\n2,1066667,0,0,0,10,0\n")}, ErrIndex, TruthFile, 3, 1},
 		{"truth NaN", map[string]string{TruthFile: truth("0,1000000,0,nan,0,10,0\n")}, ErrNotFinite, TruthFile, 2, 4},
 	}

@@ -1,0 +1,104 @@
+package recording
+
+import (
+	"errors"
+	"math"
+	"strings"
+	"testing"
+)
+
+// FuzzOpenFrames feeds arbitrary bytes as frames.csv. It must never panic;
+// on success the frames obey the format's invariants, and on failure the
+// error is a *ParseError naming the file.
+func FuzzOpenFrames(f *testing.F) {
+	f.Add([]byte(validFrames))
+	f.Add([]byte("index,t_capture_us\n0,0\n1,33333\n"))
+	f.Add([]byte("file,t_capture_us,index\r\nframes/a.jpg,-5,0\r\nframes/b.jpg,7,1"))
+	f.Add([]byte("\ufeffindex,t_capture_us,file\n0,1,../x\n"))
+	f.Add([]byte("index,t_capture_us,file\n0,9223372036854775807,frames/a.jpg\n1,-9223372036854775808,frames/b.jpg\n"))
+	f.Add([]byte("index,index\n"))
+	f.Add([]byte(""))
+	f.Add([]byte("index,t_capture_us,file\n\n"))
+	f.Fuzz(func(t *testing.T, data []byte) {
+		// Pretend every local file under frames/ exists.
+		check := func(rel string) error {
+			if strings.HasPrefix(rel, "frames/") {
+				return nil
+			}
+			return errors.New("file does not exist")
+		}
+		res, err := decodeFrames("frames.csv", data, check)
+		if err != nil {
+			var pe *ParseError
+			if !errors.As(err, &pe) || pe.File != "frames.csv" || pe.Line < 1 {
+				t.Fatalf("error %v is not a *ParseError with a line", err)
+			}
+			return
+		}
+		for i, fr := range res.frames {
+			if fr.Index != i {
+				t.Fatalf("frame %d has index %d", i, fr.Index)
+			}
+			if i > 0 && fr.CaptureUs <= res.frames[i-1].CaptureUs {
+				t.Fatalf("capture times not increasing at %d", i)
+			}
+			if res.hasFiles != (fr.File != "") {
+				t.Fatalf("file %q with hasFiles %v", fr.File, res.hasFiles)
+			}
+		}
+	})
+}
+
+// FuzzTelemetryCSV feeds arbitrary bytes as telemetry.csv. It must never
+// panic; accepted rows are finite and strictly increasing in time.
+func FuzzTelemetryCSV(f *testing.F) {
+	f.Add([]byte(validTelemetry))
+	f.Add([]byte("t_us,speed_mps,yaw_rate_rps,accel_mps2,steer_rad,t_arrival_us\n1,2,0,,,\n2,2,0,0.1,0.02,77\n"))
+	f.Add([]byte("t_us,speed_mps,yaw_rate_rps\n1,NaN,0\n"))
+	f.Add([]byte("t_us,speed_mps,yaw_rate_rps\n1,1e999,0\n2,0x1p-2,0"))
+	f.Add([]byte("yaw_rate_rps,t_us,speed_mps,extra\n0,1,2,x\n"))
+	f.Add([]byte("t_us,speed_mps,yaw_rate_rps\n1,2,\"3\"\n"))
+	f.Fuzz(func(t *testing.T, data []byte) {
+		rows, _, _, err := decodeTelemetry("telemetry.csv", data)
+		if err != nil {
+			var pe *ParseError
+			if !errors.As(err, &pe) || pe.Line < 1 {
+				t.Fatalf("error %v is not a *ParseError with a line", err)
+			}
+			return
+		}
+		for i, r := range rows {
+			for _, v := range []float64{r.SpeedMps, r.YawRateRps, r.AccelMps2, r.SteerRad} {
+				if math.IsNaN(v) || math.IsInf(v, 0) {
+					t.Fatalf("row %d has a non-finite value: %+v", i, r)
+				}
+			}
+			if i > 0 && r.TimeUs <= rows[i-1].TimeUs {
+				t.Fatalf("times not increasing at row %d", i)
+			}
+		}
+	})
+}
+
+// FuzzCameraJSON feeds arbitrary bytes as camera.json: never panics, and an
+// accepted camera validates.
+func FuzzCameraJSON(f *testing.F) {
+	f.Add([]byte(validCamera))
+	f.Add([]byte(`{"width":1,"height":1,"fx":1e-300,"fy":1,"cx":0,"cy":1}`))
+	f.Add([]byte(`{"width":1,"height":1,"fx":1,"fy":1,"cx":0,"cy":1,"fx":0}`))
+	f.Add([]byte(`[]`))
+	f.Add([]byte(`{"width":1e3}`))
+	f.Fuzz(func(t *testing.T, data []byte) {
+		cam, err := decodeCamera("camera.json", data)
+		if err != nil {
+			var pe *ParseError
+			if !errors.As(err, &pe) {
+				t.Fatalf("error %v is not a *ParseError", err)
+			}
+			return
+		}
+		if err := cam.Validate(); err != nil {
+			t.Fatalf("accepted camera does not validate: %v", err)
+		}
+	})
+}
