@@ -1,0 +1,89 @@
+// Package filter tracks planar vehicle motion from telemetry with an
+// extended Kalman filter and answers "how did the vehicle move between two
+// times, and how sure are we" for the frame predictor.
+//
+// # Units and axes
+//
+// SI units throughout; names carry them (TimeUs in microseconds on the
+// vehicle clock, SpeedMps, YawRateRps, AccelMps2, SteerRad, WheelbaseM).
+// Axes follow ISO 8855: x forward, y left, z up; yaw is counter-clockwise
+// seen from above, so a positive yaw rate turns left. The vehicle reference
+// point is the rotation centre on the ground (the rear-axle centre for the
+// bicycle model).
+//
+// Poses from Predict are in an odometry frame: the vehicle frame at the
+// first sample of the current track (after New, Reset or a gap longer than
+// Config.MaxGapUs). Its absolute pose is dead reckoning and its covariance
+// grows without bound; use Relative for motion over a gap, which does not
+// depend on that frame.
+//
+// # Models
+//
+// Both models have a five-element state. The first four are x_m, y_m,
+// yaw_rad, speed_mps. The fifth (IdxTurn) is
+//
+//	ModelCTRV:    yawrate_rps ω (constant turn rate and velocity)
+//	ModelBicycle: steer_rad δ, with ω = v·tan(δ)/L, L = Config.WheelbaseM
+//
+// Over a step of dt seconds, with a = the acceleration of the sample that
+// starts the step (0 without one), v_m = v + a·dt/2 and θ = ω·dt (ω from
+// v_m for the bicycle):
+//
+//	x'   = x + v_m·dt·sinc(θ/2)·cos(yaw + θ/2)
+//	y'   = y + v_m·dt·sinc(θ/2)·sin(yaw + θ/2)
+//	yaw' = yaw + θ
+//	v'   = v + a·dt
+//	ω' = ω (CTRV),  δ' = δ (bicycle)
+//
+// with sinc(u) = sin(u)/u. For constant v this is exactly the closed form
+// x' = x + (v/ω)(sin(yaw+θ) − sin yaw), y' = y + (v/ω)(cos yaw − cos(yaw+θ))
+// of the CTRV model, written so that it is finite and continuous at ω = 0,
+// where it is the straight line x' = x + v·dt·cos yaw. sinc and its
+// derivative switch to their Taylor series for |θ/2| < 1e-2; the two
+// branches agree to rounding error. With an acceleration the speed change is
+// exact and the pose uses the mean speed over the step (exact for yaw in the
+// bicycle model, second-order accurate for position).
+//
+// The acceleration of a sample is a control input held from that sample to
+// the next one (and, for Predict and Relative beyond the newest sample, to
+// the requested time). Acceleration is not estimated: without a measured
+// value the speed follows a random walk.
+//
+// Process noise is two white inputs, each constant over a step:
+// longitudinal acceleration ν_a (Config.AccelNoiseMps2, or
+// Config.AccelInputNoiseMps2 when an acceleration is applied as control) and
+// ν_t, a yaw acceleration for CTRV (Config.YawAccelNoiseRps2) or a steer
+// rate for the bicycle (Config.SteerRateNoiseRps). Q = G·diag(σ_a², σ_t²)·Gᵀ
+// with the first-order gain
+//
+//	G = [ dt²/2·cos(yaw+θ/2)  0
+//	      dt²/2·sin(yaw+θ/2)  0
+//	      0 | dt²/2·tanδ/L    dt²/2 | dt²/2·v_m·sec²δ/L   (CTRV | bicycle)
+//	      dt                  0
+//	      0                   dt ].
+//
+// # Measurements
+//
+// Every sample measures speed (h = v) and yaw rate: h = ω for CTRV,
+// h = v·tan(δ)/L for the bicycle (variance YawRateNoiseRps² +
+// KinematicNoiseRps², the second term covering tyre slip). A steering angle
+// is measured directly in the bicycle model (h = δ). In CTRV it becomes a
+// pseudo-measurement of yaw rate z = v_s·tan(δ_s)/L built from the sample's
+// own speed and steer, if Config.WheelbaseM is set (ignored otherwise), with
+// its variance propagated from both inputs plus KinematicNoiseRps² and its
+// covariance with the speed measurement. Updates use the Joseph form.
+// After each bicycle update the steer estimate is clamped to ±1.4 rad so
+// that tan(δ) stays finite.
+//
+// # Time
+//
+// Samples may arrive late or out of order. The filter keeps the samples and
+// posteriors of the last Config.HistoryUs; a late sample is inserted in time
+// order and everything after it is re-filtered from the checkpoint before
+// it. Older samples, invalid values and duplicates are rejected with a
+// *RejectError and counted (Filter.Rejected); a rejected sample never
+// changes the state.
+//
+// The generic Kalman core (Kalman) is exported so that plain linear filters
+// can use the same, tested equations.
+package filter

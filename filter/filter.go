@@ -1,0 +1,695 @@
+package filter
+
+import (
+	"fmt"
+	"math"
+	"sync"
+
+	"gonum.org/v1/gonum/mat"
+)
+
+// Sample is one telemetry sample from the vehicle.
+type Sample struct {
+	// TimeUs is the measurement time on the vehicle clock, in microseconds.
+	TimeUs int64
+	// SpeedMps is the longitudinal speed (of the rear-axle centre for the
+	// bicycle model), negative when reversing.
+	SpeedMps float64
+	// YawRateRps is the yaw rate, positive turning left (ISO 8855).
+	YawRateRps float64
+	// AccelMps2 is the longitudinal acceleration; used only if HasAccel.
+	AccelMps2 float64
+	HasAccel  bool
+	// SteerRad is the front road-wheel angle, positive to the left; used
+	// only if HasSteer.
+	SteerRad float64
+	HasSteer bool
+}
+
+// Config configures a Filter. Zero numeric fields take the documented
+// defaults; negative or non-finite values are rejected by New. Noise values
+// are one standard deviation. The defaults are common-practice values for
+// a passenger car with CAN wheel-speed, gyro and steering-angle signals.
+type Config struct {
+	// Model selects the motion model; required.
+	Model Model
+	// WheelbaseM is the distance from rear to front axle. Required (> 0)
+	// for ModelBicycle. For ModelCTRV it is optional; when set, a sample's
+	// steering angle becomes a pseudo-measurement of yaw rate
+	// SpeedMps·tan(SteerRad)/WheelbaseM, otherwise steering is ignored.
+	WheelbaseM float64
+
+	// HistoryUs is how far back (before the newest sample) late samples are
+	// still accepted and Predict/Relative may start. Default 2 s.
+	HistoryUs int64
+	// MaxGapUs bounds extrapolation: Predict and Relative refuse times more
+	// than MaxGapUs after the newest sample, and a sample arriving more than
+	// MaxGapUs after the newest one restarts the filter from that sample
+	// (the old track is too stale to carry on). Default 5 s.
+	MaxGapUs int64
+	// MaxHistorySamples caps the kept history (memory bound at high sample
+	// rates). Default 4096. If the cap bites, samples older than the oldest
+	// kept one are rejected as too old even within HistoryUs.
+	MaxHistorySamples int
+
+	// SpeedNoiseMps is the speed measurement noise. Default 0.1 m/s.
+	SpeedNoiseMps float64
+	// YawRateNoiseRps is the gyro yaw-rate noise. Default 0.01 rad/s.
+	YawRateNoiseRps float64
+	// SteerNoiseRad is the road-wheel angle noise. Default 0.01 rad.
+	SteerNoiseRad float64
+	// KinematicNoiseRps is the error of the no-slip relation
+	// yaw rate = speed·tan(steer)/wheelbase (tyre slip, understeer); added
+	// to the bicycle model's yaw-rate measurement and to the CTRV steering
+	// pseudo-measurement. Default 0.05 rad/s.
+	KinematicNoiseRps float64
+
+	// AccelNoiseMps2 is the process noise of speed: a random longitudinal
+	// acceleration, piecewise constant over each prediction step, used when
+	// the sample that starts the step has no acceleration. Default 2 m/s².
+	AccelNoiseMps2 float64
+	// AccelInputNoiseMps2 replaces AccelNoiseMps2 when the sample starting
+	// the step has an acceleration, which is then applied as a known control
+	// input (sensor noise, bias, and road slope). Default 0.5 m/s².
+	AccelInputNoiseMps2 float64
+	// YawAccelNoiseRps2 is the CTRV process noise of yaw rate: a random yaw
+	// acceleration, piecewise constant over each step. Default 1 rad/s².
+	YawAccelNoiseRps2 float64
+	// SteerRateNoiseRps is the bicycle process noise of steer: a random
+	// steer rate, piecewise constant over each step. Default 0.3 rad/s.
+	SteerRateNoiseRps float64
+}
+
+// Defaults used for zero Config fields.
+const (
+	DefaultHistoryUs           = 2_000_000
+	DefaultMaxGapUs            = 5_000_000
+	DefaultMaxHistorySamples   = 4096
+	DefaultSpeedNoiseMps       = 0.1
+	DefaultYawRateNoiseRps     = 0.01
+	DefaultSteerNoiseRad       = 0.01
+	DefaultKinematicNoiseRps   = 0.05
+	DefaultAccelNoiseMps2      = 2.0
+	DefaultAccelInputNoiseMps2 = 0.5
+	DefaultYawAccelNoiseRps2   = 1.0
+	DefaultSteerRateNoiseRps   = 0.3
+)
+
+// maxWindowUs bounds HistoryUs and MaxGapUs (60 s) so that step lengths stay
+// in a numerically sane range.
+const maxWindowUs = 60_000_000
+
+// initSteerSigmaRad is the prior standard deviation of the bicycle steer
+// angle when the first sample has no steering angle and steer is derived
+// from yaw rate and speed.
+const initSteerSigmaRad = 0.2
+
+// withDefaults returns c with zero fields replaced by defaults, or an error.
+func (c Config) withDefaults() (Config, error) {
+	switch c.Model {
+	case ModelCTRV, ModelBicycle:
+	default:
+		return c, fmt.Errorf("%w: Model is %v; set Config.Model to ModelCTRV or ModelBicycle", ErrConfig, c.Model)
+	}
+	floats := []struct {
+		name string
+		v    *float64
+		def  float64
+	}{
+		{"WheelbaseM", &c.WheelbaseM, 0},
+		{"SpeedNoiseMps", &c.SpeedNoiseMps, DefaultSpeedNoiseMps},
+		{"YawRateNoiseRps", &c.YawRateNoiseRps, DefaultYawRateNoiseRps},
+		{"SteerNoiseRad", &c.SteerNoiseRad, DefaultSteerNoiseRad},
+		{"KinematicNoiseRps", &c.KinematicNoiseRps, DefaultKinematicNoiseRps},
+		{"AccelNoiseMps2", &c.AccelNoiseMps2, DefaultAccelNoiseMps2},
+		{"AccelInputNoiseMps2", &c.AccelInputNoiseMps2, DefaultAccelInputNoiseMps2},
+		{"YawAccelNoiseRps2", &c.YawAccelNoiseRps2, DefaultYawAccelNoiseRps2},
+		{"SteerRateNoiseRps", &c.SteerRateNoiseRps, DefaultSteerRateNoiseRps},
+	}
+	for _, f := range floats {
+		if math.IsNaN(*f.v) || math.IsInf(*f.v, 0) || *f.v < 0 || *f.v > 1e6 {
+			return c, fmt.Errorf("%w: %s = %v; use a finite value in [0, 1e6] (0 means default)", ErrConfig, f.name, *f.v)
+		}
+		if *f.v == 0 {
+			*f.v = f.def
+		}
+	}
+	if c.Model == ModelBicycle && c.WheelbaseM < 0.1 {
+		return c, fmt.Errorf("%w: ModelBicycle needs WheelbaseM >= 0.1 m, got %v", ErrConfig, c.WheelbaseM)
+	}
+	if c.WheelbaseM != 0 && c.WheelbaseM < 0.1 {
+		return c, fmt.Errorf("%w: WheelbaseM = %v m is implausibly small; use >= 0.1 m or 0 (CTRV without steering)", ErrConfig, c.WheelbaseM)
+	}
+	ints := []struct {
+		name string
+		v    *int64
+		def  int64
+	}{
+		{"HistoryUs", &c.HistoryUs, DefaultHistoryUs},
+		{"MaxGapUs", &c.MaxGapUs, DefaultMaxGapUs},
+	}
+	for _, f := range ints {
+		if *f.v < 0 || *f.v > maxWindowUs {
+			return c, fmt.Errorf("%w: %s = %d; use 0 (default) or 1..%d", ErrConfig, f.name, *f.v, maxWindowUs)
+		}
+		if *f.v == 0 {
+			*f.v = f.def
+		}
+	}
+	if c.MaxHistorySamples < 0 {
+		return c, fmt.Errorf("%w: MaxHistorySamples = %d; use 0 (default) or a positive count", ErrConfig, c.MaxHistorySamples)
+	}
+	if c.MaxHistorySamples == 0 {
+		c.MaxHistorySamples = DefaultMaxHistorySamples
+	}
+	return c, nil
+}
+
+// State is the estimate at one time.
+type State struct {
+	// TimeUs is the time of the estimate on the vehicle clock.
+	TimeUs int64
+	// Model says how to read Vec: [x_m, y_m, yaw_rad, speed_mps, X] with X
+	// yawrate_rps for ModelCTRV and steer_rad for ModelBicycle. The pose is
+	// in the odometry frame (see the package doc); yaw is in [-π, π].
+	Model Model
+	Vec   [StateDim]float64
+	// Cov is the covariance of Vec.
+	Cov [StateDim][StateDim]float64
+	// YawRateRps is the yaw rate: Vec[IdxTurn] for CTRV,
+	// Vec[IdxSpeed]·tan(Vec[IdxTurn])/WheelbaseM for the bicycle.
+	YawRateRps float64
+}
+
+// Motion is the rigid motion of the vehicle from T0Us to T1Us, expressed in
+// the vehicle frame at T0Us (ISO 8855: x forward, y left, yaw
+// counter-clockwise). A point fixed on the ground at p in the T0 frame is at
+// R(−DyawRad)·(p − (DxM, DyM)) in the T1 frame.
+type Motion struct {
+	T0Us, T1Us int64
+	DxM, DyM   float64
+	DyawRad    float64
+	// Cov is the covariance of (DxM, DyM, DyawRad); zero when T1Us == T0Us.
+	Cov [3][3]float64
+	// SpeedMps and YawRateRps are the estimates at T1Us.
+	SpeedMps, YawRateRps float64
+}
+
+// Filter is an extended Kalman filter over planar vehicle motion fed with
+// telemetry samples that may arrive late or out of order. Create it with
+// New. Its methods are safe for concurrent use.
+//
+// Add, Predict and Relative do not allocate in steady state (the history
+// buffer grows to fit the sample rate during the first HistoryUs).
+type Filter struct {
+	mu     sync.Mutex
+	cfg    Config
+	kin    kinematics
+	noise  measNoise
+	kf     *Kalman
+	hist   ring
+	base   entry // posterior of the newest sample dropped from hist
+	hasBas bool
+	counts [numReasons]uint64
+
+	// Scratch, owned by the Filter.
+	fx    *mat.VecDense
+	fm    *mat.Dense
+	qm    *mat.Dense
+	meas  measurement
+	mz    [maxMeas + 1]*mat.VecDense // indexed by m
+	mhx   [maxMeas + 1]*mat.VecDense
+	mh    [maxMeas + 1]*mat.Dense
+	mr    [maxMeas + 1]*mat.Dense
+	scrat entry
+}
+
+// New returns a Filter for cfg, with zero fields set to their defaults.
+func New(cfg Config) (*Filter, error) {
+	c, err := cfg.withDefaults()
+	if err != nil {
+		return nil, err
+	}
+	kf, err := NewKalman(StateDim)
+	if err != nil {
+		return nil, err
+	}
+	f := &Filter{
+		cfg: c,
+		kin: kinematics{
+			model:         c.Model,
+			wheelbaseM:    c.WheelbaseM,
+			accelNoise:    c.AccelNoiseMps2,
+			accelCtlNoise: c.AccelInputNoiseMps2,
+		},
+		noise: measNoise{
+			speed:     c.SpeedNoiseMps,
+			yawRate:   c.YawRateNoiseRps,
+			steer:     c.SteerNoiseRad,
+			kinematic: c.KinematicNoiseRps,
+		},
+		kf: kf,
+		fx: mat.NewVecDense(StateDim, nil),
+		fm: mat.NewDense(StateDim, StateDim, nil),
+		qm: mat.NewDense(StateDim, StateDim, nil),
+	}
+	if c.Model == ModelBicycle {
+		f.kin.turnNoise = c.SteerRateNoiseRps
+	} else {
+		f.kin.turnNoise = c.YawAccelNoiseRps2
+	}
+	for m := 1; m <= maxMeas; m++ {
+		f.mz[m] = mat.NewVecDense(m, nil)
+		f.mhx[m] = mat.NewVecDense(m, nil)
+		f.mh[m] = mat.NewDense(m, StateDim, nil)
+		f.mr[m] = mat.NewDense(m, m, nil)
+	}
+	return f, nil
+}
+
+// Config returns the effective configuration (defaults filled in).
+func (f *Filter) Config() Config { return f.cfg }
+
+// Rejected returns how many samples Add has rejected, per reason, since New.
+func (f *Filter) Rejected() Counts {
+	f.mu.Lock()
+	defer f.mu.Unlock()
+	return Counts{
+		NotFinite:  f.counts[ReasonNotFinite],
+		OutOfRange: f.counts[ReasonOutOfRange],
+		TooOld:     f.counts[ReasonTooOld],
+		Duplicate:  f.counts[ReasonDuplicate],
+	}
+}
+
+// Reset forgets all samples (for example after the vehicle clock
+// restarted); the next accepted sample starts a new track. Rejection counts
+// are kept.
+func (f *Filter) Reset() {
+	f.mu.Lock()
+	defer f.mu.Unlock()
+	f.hist.clear()
+	f.hasBas = false
+}
+
+// Add feeds one sample.
+//
+// The sample is rejected with a *RejectError, counted in Rejected and
+// leaves the filter unchanged if any field is NaN or ±Inf (even one whose
+// Has flag is false), if a value exceeds MaxSpeedMps, MaxYawRateRps,
+// MaxAccelMps2 or MaxSteerRad in magnitude, if it is more than
+// Config.HistoryUs older than the newest sample (or not newer than the
+// oldest kept checkpoint), or if an identical sample is already kept.
+//
+// A sample older than the newest one but within the history is inserted in
+// time order and the samples after it are re-filtered from the checkpoint
+// before it, so the result does not depend on arrival order. Samples with
+// equal TimeUs but different values are all used, in a canonical order. A
+// sample more than Config.MaxGapUs after the newest one restarts the track.
+// The first sample of a track initialises the state: pose zero, speed and
+// turn state from the sample.
+func (f *Filter) Add(s Sample) error {
+	f.mu.Lock()
+	defer f.mu.Unlock()
+	if r, detail := validate(&s); r != ReasonInvalid {
+		return f.reject(r, s, detail)
+	}
+	if f.hist.len() == 0 {
+		f.start(&s)
+		return nil
+	}
+	newest := f.hist.last().s.TimeUs
+	if diffUs(s.TimeUs, newest) > f.cfg.MaxGapUs {
+		f.hist.clear()
+		f.hasBas = false
+		f.start(&s)
+		return nil
+	}
+	if age := diffUs(newest, s.TimeUs); age > f.cfg.HistoryUs {
+		return f.reject(ReasonTooOld, s, fmt.Sprintf(
+			"%d us older than the newest sample (t_us=%d), history is %d us; raise Config.HistoryUs or fix ordering upstream (after a vehicle clock restart call Reset)",
+			age, newest, f.cfg.HistoryUs))
+	}
+	if f.hasBas && s.TimeUs <= f.base.s.TimeUs {
+		return f.reject(ReasonTooOld, s, fmt.Sprintf(
+			"not newer than the oldest kept checkpoint (t_us=%d); the history holds at most %d samples (Config.MaxHistorySamples)",
+			f.base.s.TimeUs, f.cfg.MaxHistorySamples))
+	}
+	i := f.upperBound(&s)
+	if i > 0 && sampleEqual(&f.hist.at(i-1).s, &s) {
+		return f.reject(ReasonDuplicate, s, "identical to a sample already kept; dropped so it is not counted twice")
+	}
+	f.scrat = entry{s: s}
+	f.hist.insert(i, &f.scrat)
+	f.refilter(i)
+	f.evict()
+	return nil
+}
+
+// Predict returns the estimate at tUs: the posterior of the newest sample
+// at or before tUs, predicted forward to tUs (with that sample's
+// acceleration, if any, held as a control input). tUs may be in the past
+// back to the oldest checkpoint (at least Config.HistoryUs before the newest
+// sample) or in the future up to Config.MaxGapUs after the newest sample.
+func (f *Filter) Predict(tUs int64) (State, error) {
+	f.mu.Lock()
+	defer f.mu.Unlock()
+	if _, err := f.loadAt(tUs, true); err != nil {
+		return State{}, err
+	}
+	x := f.kf.x.RawVector().Data
+	p := f.kf.p.RawMatrix().Data
+	st := State{TimeUs: tUs, Model: f.cfg.Model}
+	copy(st.Vec[:], x)
+	for i := range StateDim {
+		copy(st.Cov[i][:], p[i*StateDim:(i+1)*StateDim])
+	}
+	st.YawRateRps = f.kin.yawRate(&st.Vec)
+	return st, nil
+}
+
+// Relative returns the motion of the vehicle from t0Us to t1Us in the
+// vehicle frame at t0Us. It starts from the estimate at t0Us (as Predict)
+// with the pose and every covariance term involving the pose set to zero,
+// keeping the speed and turn-state covariance; re-applies the kept samples
+// with t0Us < TimeUs ≤ t1Us; and predicts to t1Us. The uncertainty of the
+// result is therefore zero for t1Us == t0Us and grows with the interval.
+//
+// It fails with ErrNoData before the first sample, ErrTimeOrder if
+// t1Us < t0Us, ErrTooOld if t0Us is before the oldest checkpoint, and
+// ErrHorizon if t1Us is more than Config.MaxGapUs after the newest sample.
+func (f *Filter) Relative(t0Us, t1Us int64) (Motion, error) {
+	f.mu.Lock()
+	defer f.mu.Unlock()
+	if t1Us < t0Us {
+		return Motion{}, fmt.Errorf("%w: t1_us=%d < t0_us=%d; pass the gap start first", ErrTimeOrder, t1Us, t0Us)
+	}
+	if f.hist.len() > 0 {
+		if err := f.checkHorizon(t1Us); err != nil {
+			return Motion{}, err
+		}
+	}
+	idx, err := f.loadAt(t0Us, false)
+	if err != nil {
+		return Motion{}, err
+	}
+	x := f.kf.x.RawVector().Data
+	p := f.kf.p.RawMatrix().Data
+	for i := range 3 {
+		x[i] = 0
+		for j := range StateDim {
+			p[i*StateDim+j] = 0
+			p[j*StateDim+i] = 0
+		}
+	}
+	ctl := f.sampleAt(idx)
+	cur := t0Us
+	for j := idx + 1; j < f.hist.len(); j++ {
+		e := f.hist.at(j)
+		if e.s.TimeUs > t1Us {
+			break
+		}
+		f.step(diffUs(e.s.TimeUs, cur), ctl, false)
+		f.update(&e.s)
+		cur, ctl = e.s.TimeUs, &e.s
+	}
+	f.step(diffUs(t1Us, cur), ctl, false)
+
+	var st [StateDim]float64
+	copy(st[:], x)
+	m := Motion{
+		T0Us: t0Us, T1Us: t1Us,
+		DxM: st[IdxX], DyM: st[IdxY], DyawRad: st[IdxYaw],
+		SpeedMps:   st[IdxSpeed],
+		YawRateRps: f.kin.yawRate(&st),
+	}
+	for i := range 3 {
+		for j := range 3 {
+			m.Cov[i][j] = p[i*StateDim+j]
+		}
+	}
+	return m, nil
+}
+
+// validate checks s for non-finite and impossible values.
+func validate(s *Sample) (Reason, string) {
+	fields := [...]struct {
+		name string
+		v    float64
+		max  float64
+	}{
+		{"speed_mps", s.SpeedMps, MaxSpeedMps},
+		{"yaw_rate_rps", s.YawRateRps, MaxYawRateRps},
+		{"accel_mps2", s.AccelMps2, MaxAccelMps2},
+		{"steer_rad", s.SteerRad, MaxSteerRad},
+	}
+	for _, fl := range fields {
+		if math.IsNaN(fl.v) || math.IsInf(fl.v, 0) {
+			return ReasonNotFinite, fmt.Sprintf("%s = %v; check the telemetry decoder", fl.name, fl.v)
+		}
+	}
+	for _, fl := range fields {
+		if math.Abs(fl.v) > fl.max {
+			return ReasonOutOfRange, fmt.Sprintf("|%s| = %v exceeds %v; check units and scaling upstream", fl.name, math.Abs(fl.v), fl.max)
+		}
+	}
+	return ReasonInvalid, ""
+}
+
+func (f *Filter) reject(r Reason, s Sample, detail string) error {
+	f.counts[r]++
+	return &RejectError{Reason: r, Sample: s, Detail: detail}
+}
+
+// start clears nothing and makes s the first entry of a new track.
+func (f *Filter) start(s *Sample) {
+	f.scrat = entry{s: *s}
+	f.initEntry(&f.scrat)
+	f.hist.insert(0, &f.scrat)
+}
+
+// initEntry fills e's posterior from its sample alone.
+func (f *Filter) initEntry(e *entry) {
+	s := &e.s
+	e.x = [StateDim]float64{}
+	e.p = [StateDim * StateDim]float64{}
+	e.nis, e.m = 0, 0
+	e.x[IdxSpeed] = s.SpeedMps
+	e.p[IdxSpeed*StateDim+IdxSpeed] = f.noise.speed * f.noise.speed
+	switch f.cfg.Model {
+	case ModelBicycle:
+		var d, sd float64
+		switch {
+		case s.HasSteer:
+			d, sd = s.SteerRad, f.noise.steer
+		case math.Abs(s.SpeedMps) >= 1:
+			d = math.Atan(s.YawRateRps * f.cfg.WheelbaseM / s.SpeedMps)
+			d = math.Max(-MaxSteerRad, math.Min(MaxSteerRad, d))
+			sd = initSteerSigmaRad
+		default:
+			d, sd = 0, initSteerSigmaRad
+		}
+		e.x[IdxTurn] = d
+		e.p[IdxTurn*StateDim+IdxTurn] = sd * sd
+	default:
+		e.x[IdxTurn] = s.YawRateRps
+		e.p[IdxTurn*StateDim+IdxTurn] = f.noise.yawRate * f.noise.yawRate
+	}
+}
+
+// refilter recomputes the posteriors of entries i.. from the checkpoint
+// before entry i.
+func (f *Filter) refilter(i int) {
+	var prev *Sample
+	switch {
+	case i > 0:
+		e := f.hist.at(i - 1)
+		f.load(e)
+		prev = &e.s
+	case f.hasBas:
+		f.load(&f.base)
+		prev = &f.base.s
+	default:
+		e := f.hist.at(0)
+		f.initEntry(e)
+		f.load(e)
+		prev = &e.s
+		i = 1
+	}
+	for j := i; j < f.hist.len(); j++ {
+		e := f.hist.at(j)
+		f.step(diffUs(e.s.TimeUs, prev.TimeUs), prev, true)
+		e.nis, e.m = f.update(&e.s)
+		f.store(e)
+		prev = &e.s
+	}
+}
+
+// evict drops entries older than HistoryUs before the newest sample (and
+// beyond MaxHistorySamples), keeping the newest dropped one as checkpoint.
+func (f *Filter) evict() {
+	newest := f.hist.last().s.TimeUs
+	for f.hist.len() > 1 {
+		old := f.hist.at(0).s.TimeUs
+		if diffUs(newest, old) <= f.cfg.HistoryUs && f.hist.len() <= f.cfg.MaxHistorySamples {
+			break
+		}
+		f.hist.popFront(&f.base)
+		f.hasBas = true
+	}
+}
+
+// upperBound returns the first index whose sample is after s in canonical
+// order.
+func (f *Filter) upperBound(s *Sample) int {
+	lo, hi := 0, f.hist.len()
+	for lo < hi {
+		mid := int(uint(lo+hi) >> 1)
+		if sampleLess(s, &f.hist.at(mid).s) {
+			hi = mid
+		} else {
+			lo = mid + 1
+		}
+	}
+	return lo
+}
+
+// lastAtOrBefore returns the index of the newest entry with TimeUs ≤ t, or -1.
+func (f *Filter) lastAtOrBefore(t int64) int {
+	lo, hi := 0, f.hist.len()
+	for lo < hi {
+		mid := int(uint(lo+hi) >> 1)
+		if t < f.hist.at(mid).s.TimeUs {
+			hi = mid
+		} else {
+			lo = mid + 1
+		}
+	}
+	return lo - 1
+}
+
+func (f *Filter) checkHorizon(t int64) error {
+	newest := f.hist.last().s.TimeUs
+	if d := diffUs(t, newest); d > f.cfg.MaxGapUs {
+		return fmt.Errorf("%w: t_us=%d is %d us after the newest sample (t_us=%d), limit Config.MaxGapUs=%d",
+			ErrHorizon, t, d, newest, f.cfg.MaxGapUs)
+	}
+	return nil
+}
+
+// loadAt puts the estimate at t into f.kf and returns the index of the
+// entry it started from (-1 for the checkpoint).
+func (f *Filter) loadAt(t int64, wrap bool) (int, error) {
+	if f.hist.len() == 0 {
+		return 0, fmt.Errorf("%w: add a telemetry sample first", ErrNoData)
+	}
+	if err := f.checkHorizon(t); err != nil {
+		return 0, err
+	}
+	idx := f.lastAtOrBefore(t)
+	var e *entry
+	switch {
+	case idx >= 0:
+		e = f.hist.at(idx)
+	case f.hasBas && t >= f.base.s.TimeUs:
+		e = &f.base
+	default:
+		oldest := f.hist.at(0).s.TimeUs
+		if f.hasBas {
+			oldest = f.base.s.TimeUs
+		}
+		return 0, fmt.Errorf("%w: t_us=%d is before the oldest kept estimate (t_us=%d); raise Config.HistoryUs",
+			ErrTooOld, t, oldest)
+	}
+	f.load(e)
+	f.step(diffUs(t, e.s.TimeUs), &e.s, wrap)
+	return idx, nil
+}
+
+// sampleAt returns the sample of entry idx, or of the checkpoint for -1.
+func (f *Filter) sampleAt(idx int) *Sample {
+	if idx < 0 {
+		return &f.base.s
+	}
+	return &f.hist.at(idx).s
+}
+
+func (f *Filter) load(e *entry) {
+	copy(f.kf.x.RawVector().Data, e.x[:])
+	copy(f.kf.p.RawMatrix().Data, e.p[:])
+}
+
+func (f *Filter) store(e *entry) {
+	copy(e.x[:], f.kf.x.RawVector().Data)
+	copy(e.p[:], f.kf.p.RawMatrix().Data)
+}
+
+// step predicts f.kf forward by dtUs with the control of sample ctl.
+func (f *Filter) step(dtUs int64, ctl *Sample, wrap bool) {
+	if dtUs <= 0 {
+		return
+	}
+	dt := float64(dtUs) * 1e-6
+	var x, xn [StateDim]float64
+	var fj, q [StateDim][StateDim]float64
+	var g [StateDim][2]float64
+	copy(x[:], f.kf.x.RawVector().Data)
+	accel, sa := 0.0, f.kin.accelNoise
+	if ctl.HasAccel {
+		accel, sa = ctl.AccelMps2, f.kin.accelCtlNoise
+	}
+	f.kin.transition(&x, dt, accel, &xn, &fj, &g)
+	processNoise(&g, sa, f.kin.turnNoise, &q)
+	if wrap {
+		xn[IdxYaw] = math.Remainder(xn[IdxYaw], 2*math.Pi)
+	}
+	copy(f.fx.RawVector().Data, xn[:])
+	fd, qd := f.fm.RawMatrix().Data, f.qm.RawMatrix().Data
+	for i := range StateDim {
+		copy(fd[i*StateDim:(i+1)*StateDim], fj[i][:])
+		copy(qd[i*StateDim:(i+1)*StateDim], q[i][:])
+	}
+	// A failure leaves f.kf unchanged (the step is skipped); with validated
+	// samples and bounded step lengths it does not happen in practice.
+	_ = f.kf.PredictNonlinear(f.fx, f.fm, f.qm)
+}
+
+// update applies the measurements of s to f.kf and returns the NIS and the
+// number of scalar measurements (0, 0 if the update failed numerically and
+// was skipped).
+func (f *Filter) update(s *Sample) (float64, int) {
+	var x [StateDim]float64
+	copy(x[:], f.kf.x.RawVector().Data)
+	ms := &f.meas
+	f.kin.measure(s, &x, &f.noise, ms)
+	m := ms.m
+	z, hx, h, r := f.mz[m], f.mhx[m], f.mh[m], f.mr[m]
+	hd, rd := h.RawMatrix().Data, r.RawMatrix().Data
+	for i := range m {
+		z.SetVec(i, ms.z[i])
+		hx.SetVec(i, ms.hx[i])
+		copy(hd[i*StateDim:(i+1)*StateDim], ms.h[i][:])
+		copy(rd[i*m:(i+1)*m], ms.r[i][:m])
+	}
+	nis, err := f.kf.UpdateNonlinear(z, hx, h, r)
+	if err != nil {
+		return 0, 0
+	}
+	if f.cfg.Model == ModelBicycle {
+		xd := f.kf.x.RawVector().Data
+		xd[IdxTurn] = math.Max(-steerClampRad, math.Min(steerClampRad, xd[IdxTurn]))
+	}
+	return nis, m
+}
+
+// diffUs returns a − b, saturated to the int64 range instead of wrapping.
+func diffUs(a, b int64) int64 {
+	d := a - b
+	if (a >= 0) != (b >= 0) && (d >= 0) != (a >= 0) {
+		if a >= 0 {
+			return math.MaxInt64
+		}
+		return math.MinInt64
+	}
+	return d
+}
