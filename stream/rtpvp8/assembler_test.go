@@ -27,8 +27,8 @@ func TestAssembler(t *testing.T) {
 
 	wrap := cat(frame(65533, 90000, 3, true, 0), frame(0, 93000, 2, false, 33), frame(2, 96000, 2, false, 66))
 
-	bigKey := frame(100, 0, 100, true, 0)        // 100 packets: 100..199
-	afterBig := frame(200, 3000, 2, false, 33)   // 200..201
+	bigKey := frame(100, 0, 100, true, 0)      // 100 packets: 100..199
+	afterBig := frame(200, 3000, 2, false, 33) // 200..201
 	garbage := []tp{
 		{seq: 101, raw: []byte{0x80}},             // X=1 but no extension octet
 		{seq: 101, raw: []byte{0x90, 0x80}},       // I=1 but no PictureID
