@@ -1,0 +1,419 @@
+package whip
+
+import (
+	"context"
+	"errors"
+	"io"
+	"log/slog"
+	"strings"
+	"sync"
+	"sync/atomic"
+	"time"
+
+	"github.com/pion/rtcp"
+	"github.com/pion/rtp"
+	"github.com/pion/webrtc/v4"
+)
+
+// TelemetryBytes is one telemetry message as it arrived on the data channel: raw bytes (the relay decodes
+// them) and the receiver-clock arrival time. Data is owned by the receiver of the value.
+type TelemetryBytes struct {
+	Data    []byte
+	Arrival time.Time
+}
+
+// SessionStats are the counters of one session. Loss and jitter follow RFC 3550 appendix A for the video
+// stream, computed from the packets as they leave the WebRTC stack (after NACK-driven retransmissions).
+type SessionStats struct {
+	// PacketsReceived counts RTP packets read from the track, including retransmissions and padding-only ones.
+	PacketsReceived uint64
+	// BytesReceived counts RTP payload octets (no headers, no padding), like the RTCP SR octet count.
+	BytesReceived uint64
+	// PaddingPackets counts packets with an empty payload. They are delivered too, so the consumer sees
+	// every sequence number; they carry no media.
+	PaddingPackets uint64
+	// PacketsLost is the cumulative loss of RFC 3550 A.3 (expected - received); duplicates can make it
+	// negative. A sequence number wrap is not loss.
+	PacketsLost int64
+	// HighestSeq is the extended highest sequence number received (RFC 3550 A.1).
+	HighestSeq uint32
+	// JitterRTP is the interarrival jitter of RFC 3550 A.8 in RTP timestamp units (90 kHz); Jitter is the
+	// same as a duration.
+	JitterRTP float64
+	Jitter    time.Duration
+	// PacketsDropped counts packets discarded because the RTP queue was full (the consumer fell behind).
+	PacketsDropped uint64
+	// ReadErrors counts packets the stack could not parse as RTP.
+	ReadErrors uint64
+	// NACKPackets counts RTCP NACK packets sent; NACKedPackets the sequence numbers they requested.
+	NACKPackets, NACKedPackets uint64
+	// PLIsSent counts RTCP PLIs written; PLIsSuppressed keyframe requests refused by MinKeyframeInterval.
+	PLIsSent, PLIsSuppressed uint64
+	// SenderReports counts RTCP sender reports received.
+	SenderReports uint64
+	// TelemetryMessages counts delivered telemetry messages; TelemetryDropped those discarded because the
+	// queue was full or the message exceeded MaxTelemetryBytes.
+	TelemetryMessages, TelemetryDropped uint64
+	// OtherDataChannels counts data channels with a label other than TelemetryLabel (closed on arrival).
+	OtherDataChannels uint64
+	// RTT is the latest STUN round-trip time of the selected ICE candidate pair (ICE consent checks, every
+	// few seconds); HasRTT is false until one was measured. The receive-only session cannot measure RTT
+	// from RTCP (that would need XR DLRR from the sender).
+	RTT    time.Duration
+	HasRTT bool
+}
+
+// rtpArrival is one queued packet.
+type rtpArrival struct {
+	pkt     *rtp.Packet
+	arrival time.Time
+}
+
+// Session is one vehicle's ingest session: one VP8 video track and one telemetry data channel.
+// All methods are safe for concurrent use.
+type Session struct {
+	id      string
+	remote  string
+	srv     *Server
+	pc      *webrtc.PeerConnection
+	counter *rtcpCounter
+	clock   Clock
+	log     *slog.Logger
+	cfg     *Config
+
+	rtpq chan rtpArrival
+	telq chan TelemetryBytes
+	done chan struct{}
+
+	connected  atomic.Bool
+	rtpDropped atomic.Uint64
+
+	mu           sync.Mutex
+	ended        EndReason
+	iceTimer     Stopper
+	hasTrack     bool
+	ssrc         uint32
+	lastPLI      time.Time
+	plisRefused  uint64
+	sr           SenderReport
+	srCount      uint64
+	hasSR        bool
+	rx           rxStats
+	readErrors   uint64
+	telMessages  uint64
+	telDropped   uint64
+	otherChannel uint64
+}
+
+// ID returns the session's resource identifier: 32 hex digits from crypto/rand (128 bits), the last path
+// segment of its Location URL. Logs show only its first 8 digits.
+func (s *Session) ID() string { return s.id }
+
+// RemoteAddr returns the HTTP remote address the offer came from.
+func (s *Session) RemoteAddr() string { return s.remote }
+
+// Done is closed when the session has ended; EndReason then says why.
+func (s *Session) Done() <-chan struct{} { return s.done }
+
+// EndReason returns why the session ended, or EndInvalid while it is running.
+func (s *Session) EndReason() EndReason {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.ended
+}
+
+// ReadRTP returns the next RTP packet of the video track with its receiver-clock arrival time, blocking
+// until one is queued, ctx ends, or the session ends (then packets still queued are returned first, after
+// which it returns ErrSessionClosed). The packet and its payload belong to the caller.
+//
+// Packets are queued by the session's reader goroutine, which never blocks the WebRTC stack: when the queue
+// (Config.RTPQueue) is full, the newly arrived packet is dropped and counted in SessionStats.PacketsDropped;
+// queued packets are never evicted. Order is arrival order: late retransmissions and reordered packets
+// come out as they arrived, so the consumer must reorder by sequence number (with wrap) itself.
+func (s *Session) ReadRTP(ctx context.Context) (*rtp.Packet, time.Time, error) {
+	select {
+	case a := <-s.rtpq:
+		return a.pkt, a.arrival, nil
+	default:
+	}
+	select {
+	case a := <-s.rtpq:
+		return a.pkt, a.arrival, nil
+	case <-ctx.Done():
+		return nil, time.Time{}, ctx.Err()
+	case <-s.done:
+		select {
+		case a := <-s.rtpq:
+			return a.pkt, a.arrival, nil
+		default:
+			return nil, time.Time{}, ErrSessionClosed
+		}
+	}
+}
+
+// Telemetry returns the channel of telemetry messages from the data channel labelled TelemetryLabel. It is
+// closed when the session ends. When it is full (Config.TelemetryQueue), new messages are dropped and
+// counted; the data channel is never blocked.
+func (s *Session) Telemetry() <-chan TelemetryBytes { return s.telq }
+
+// RequestKeyframe sends an RTCP Picture Loss Indication (RFC 4585 section 6.3.1) for the video track's SSRC
+// now. It returns ErrNoTrack before the first video packet, ErrKeyframeRateLimited if the previous PLI was
+// sent less than Config.MinKeyframeInterval ago (the request is dropped and counted), and ErrSessionClosed
+// after the end.
+func (s *Session) RequestKeyframe() error {
+	s.mu.Lock()
+	if s.ended != EndInvalid {
+		s.mu.Unlock()
+		return ErrSessionClosed
+	}
+	if !s.hasTrack {
+		s.mu.Unlock()
+		return ErrNoTrack
+	}
+	now := s.clock.Now()
+	if !s.lastPLI.IsZero() && now.Sub(s.lastPLI) < s.cfg.MinKeyframeInterval {
+		s.plisRefused++
+		s.mu.Unlock()
+		return ErrKeyframeRateLimited
+	}
+	s.lastPLI = now
+	ssrc := s.ssrc
+	s.mu.Unlock()
+	return s.pc.WriteRTCP([]rtcp.Packet{&rtcp.PictureLossIndication{MediaSSRC: ssrc}})
+}
+
+// SenderReport returns the latest RTCP sender report for the video stream (NTP <-> RTP timestamp mapping,
+// RFC 3550 section 6.4.1); ok is false until one arrived. Use SenderReport.SenderTimeUs with
+// VideoClockRateHz to map a packet's RTP timestamp to the vehicle's wall clock.
+//
+// With a pion sender (Publish), the report pairs the sender's clock with the timestamp of the latest packet
+// advanced by the time since that timestamp was first sent: mapped times are therefore send times of the
+// first packet of each frame, i.e. capture time plus the vehicle's encode and queueing delay.
+func (s *Session) SenderReport() (sr SenderReport, ok bool) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.sr, s.hasSR
+}
+
+// Stats returns the session's counters (see SessionStats). It queries the ICE agent for RTT, so call it at
+// a human rate (e.g. once per second), not per packet.
+func (s *Session) Stats() SessionStats {
+	s.mu.Lock()
+	st := SessionStats{
+		PacketsReceived:   s.rx.received,
+		BytesReceived:     s.rx.bytes,
+		PaddingPackets:    s.rx.padding,
+		PacketsLost:       s.rx.lost(),
+		HighestSeq:        s.rx.extendedMax(),
+		JitterRTP:         s.rx.jitter,
+		Jitter:            time.Duration(s.rx.jitter / VideoClockRateHz * float64(time.Second)),
+		ReadErrors:        s.readErrors,
+		PLIsSuppressed:    s.plisRefused,
+		SenderReports:     s.srCount,
+		TelemetryMessages: s.telMessages,
+		TelemetryDropped:  s.telDropped,
+		OtherDataChannels: s.otherChannel,
+	}
+	s.mu.Unlock()
+	st.PacketsDropped = s.rtpDropped.Load()
+	st.NACKPackets = s.counter.nackPackets.Load()
+	st.NACKedPackets = s.counter.nackedSeqs.Load()
+	st.PLIsSent = s.counter.plis.Load()
+	for _, v := range s.pc.GetStats() {
+		if p, ok := v.(webrtc.ICECandidatePairStats); ok && p.Nominated && p.CurrentRoundTripTime > 0 {
+			st.RTT = time.Duration(p.CurrentRoundTripTime * float64(time.Second))
+			st.HasRTT = true
+		}
+	}
+	return st
+}
+
+// Close ends the session from the relay side (EndClosed) and releases its WebRTC resources. The vehicle's
+// later DELETE gets 404. Close is idempotent.
+func (s *Session) Close() error {
+	s.end(EndClosed)
+	return nil
+}
+
+// end ends the session once: records the reason, closes Done and the telemetry channel, unregisters it from
+// the server and closes the PeerConnection.
+func (s *Session) end(reason EndReason) { s.endIf(reason, false) }
+
+// endIf is end, skipped when onlyUnconnected is set and the session has connected; the check and the
+// decision to end happen under one lock, so a connect racing the ICE timeout is never torn down.
+func (s *Session) endIf(reason EndReason, onlyUnconnected bool) {
+	s.mu.Lock()
+	if s.ended != EndInvalid || (onlyUnconnected && s.connected.Load()) {
+		s.mu.Unlock()
+		return
+	}
+	s.ended = reason
+	if s.iceTimer != nil {
+		s.iceTimer.Stop()
+	}
+	close(s.telq)
+	s.mu.Unlock()
+	close(s.done)
+	s.srv.unregister(s, reason)
+	if err := s.pc.Close(); err != nil {
+		s.log.Debug("close peer connection", "err", err)
+	}
+	s.log.Info("whip session ended", "reason", reason.String())
+}
+
+// onConnectionState reacts to PeerConnection state changes; it runs on the stack's callback goroutine, so
+// anything that closes the PeerConnection is moved to its own goroutine.
+func (s *Session) onConnectionState(st webrtc.PeerConnectionState) {
+	s.log.Debug("peer connection state", "state", st.String())
+	switch st {
+	case webrtc.PeerConnectionStateConnected:
+		s.mu.Lock()
+		if s.ended != EndInvalid || s.connected.Load() {
+			s.mu.Unlock()
+			return
+		}
+		s.connected.Store(true)
+		if s.iceTimer != nil {
+			s.iceTimer.Stop()
+		}
+		s.mu.Unlock()
+		s.log.Info("whip session connected")
+		if cb := s.cfg.OnSession; cb != nil {
+			go cb(s)
+		}
+	case webrtc.PeerConnectionStateFailed, webrtc.PeerConnectionStateClosed:
+		go s.end(EndFailed)
+	}
+}
+
+// onICETimeout drops a session that did not connect within Config.ICETimeout.
+func (s *Session) onICETimeout() {
+	if !s.connected.Load() {
+		s.log.Info("whip session did not connect in time", "timeout", s.cfg.ICETimeout)
+	}
+	s.endIf(EndICETimeout, true)
+}
+
+// onTrack runs the read loops of the video track. Only the first VP8 video track is used; the offer check
+// admits exactly one video m-line.
+func (s *Session) onTrack(track *webrtc.TrackRemote, recv *webrtc.RTPReceiver) {
+	if track.Kind() != webrtc.RTPCodecTypeVideo || !strings.EqualFold(track.Codec().MimeType, webrtc.MimeTypeVP8) {
+		s.log.Warn("ignoring track", "kind", track.Kind().String(), "codec", track.Codec().MimeType)
+		return
+	}
+	s.mu.Lock()
+	if s.hasTrack {
+		s.mu.Unlock()
+		s.log.Warn("ignoring second video track", "ssrc", uint32(track.SSRC()))
+		return
+	}
+	s.hasTrack = true
+	s.ssrc = uint32(track.SSRC())
+	s.rx.clockRateHz = float64(track.Codec().ClockRate)
+	s.mu.Unlock()
+	go s.readRTCP(recv)
+	s.readRTP(track)
+}
+
+// maxConsecutiveReadErrors ends the read loop if the track keeps failing without io.EOF.
+const maxConsecutiveReadErrors = 1000
+
+func (s *Session) readRTP(track *webrtc.TrackRemote) {
+	fails := 0
+	for {
+		pkt, _, err := track.ReadRTP()
+		if err != nil {
+			if errors.Is(err, io.EOF) || s.isDone() {
+				return
+			}
+			s.mu.Lock()
+			s.readErrors++
+			s.mu.Unlock()
+			if fails++; fails >= maxConsecutiveReadErrors {
+				s.log.Warn("video track keeps failing; stop reading", "err", err)
+				return
+			}
+			continue
+		}
+		fails = 0
+		now := s.clock.Now()
+		s.mu.Lock()
+		s.rx.add(pkt.SequenceNumber, pkt.Timestamp, len(pkt.Payload), now)
+		s.mu.Unlock()
+		select {
+		case s.rtpq <- rtpArrival{pkt: pkt, arrival: now}:
+		default:
+			s.rtpDropped.Add(1)
+		}
+	}
+}
+
+// readRTCP drains incoming RTCP for the video receiver. Reading is required for the interceptors to see
+// sender reports (the receiver-report interceptor needs them for LSR/DLSR); sender reports for the video
+// SSRC are also kept for SenderReport.
+func (s *Session) readRTCP(recv *webrtc.RTPReceiver) {
+	for {
+		pkts, _, err := recv.ReadRTCP()
+		if err != nil {
+			if errors.Is(err, io.EOF) || s.isDone() {
+				return
+			}
+			continue
+		}
+		now := s.clock.Now()
+		for _, p := range pkts {
+			sr, ok := p.(*rtcp.SenderReport)
+			if !ok {
+				continue
+			}
+			s.mu.Lock()
+			if sr.SSRC == s.ssrc {
+				s.sr = SenderReport{SSRC: sr.SSRC, NTPTime: sr.NTPTime, RTPTime: sr.RTPTime,
+					PacketCount: sr.PacketCount, OctetCount: sr.OctetCount, Arrival: now}
+				s.hasSR = true
+				s.srCount++
+			}
+			s.mu.Unlock()
+		}
+	}
+}
+
+// onDataChannel accepts the telemetry channel and closes any other.
+func (s *Session) onDataChannel(dc *webrtc.DataChannel) {
+	if dc.Label() != TelemetryLabel {
+		s.mu.Lock()
+		s.otherChannel++
+		s.mu.Unlock()
+		s.log.Warn("closing data channel with unexpected label", "label", dc.Label())
+		go dc.Close()
+		return
+	}
+	dc.OnMessage(func(msg webrtc.DataChannelMessage) {
+		now := s.clock.Now()
+		s.mu.Lock()
+		defer s.mu.Unlock()
+		if s.ended != EndInvalid {
+			return
+		}
+		if len(msg.Data) > s.cfg.MaxTelemetryBytes {
+			s.telDropped++
+			return
+		}
+		// msg.Data is a fresh copy made by the stack for each message, so it can be handed on.
+		select {
+		case s.telq <- TelemetryBytes{Data: msg.Data, Arrival: now}:
+			s.telMessages++
+		default:
+			s.telDropped++
+		}
+	})
+}
+
+func (s *Session) isDone() bool {
+	select {
+	case <-s.done:
+		return true
+	default:
+		return false
+	}
+}
