@@ -160,14 +160,14 @@ func (d *Decoder) Decode(frame []byte, dst *Image) error {
 func (d *Decoder) decode(frame []byte, dst *Image) error {
 	d.lastType = FrameTypeInvalid
 	if dst == nil {
-		return fmt.Errorf("vp8: decode: %w: pass an *Image to decode into", ErrNilImage)
+		return fmt.Errorf("%w: Decode needs an *Image to decode into", ErrNilImage)
 	}
 	if len(frame) > d.cfg.MaxFrameBytes {
-		return fmt.Errorf("vp8: decode: %w: %d bytes, limit %d (DecoderConfig.MaxFrameBytes)", ErrFrameTooLarge, len(frame), d.cfg.MaxFrameBytes)
+		return fmt.Errorf("%w: %d bytes, limit %d (DecoderConfig.MaxFrameBytes)", ErrFrameTooLarge, len(frame), d.cfg.MaxFrameBytes)
 	}
 	h, err := ParseHeader(frame)
 	if err != nil {
-		return fmt.Errorf("vp8: decode: %w", err)
+		return fmt.Errorf("%w; dropping inter frames until a keyframe decodes: request one (PLI)", err)
 	}
 	d.lastType = h.Type
 	key := h.Type == FrameTypeKey
@@ -189,17 +189,16 @@ func (d *Decoder) decode(frame []byte, dst *Image) error {
 		}
 	}
 
-	var corrupt C.int
-	var img *C.vpx_image_t
-	code := C.sg_dec_decode(d.c, (*C.uint8_t)(unsafe.Pointer(&frame[0])), C.size_t(len(frame)), &corrupt, &img)
+	code := C.sg_dec_decode(d.c, (*C.uint8_t)(unsafe.Pointer(&frame[0])), C.size_t(len(frame)))
 	if code != 0 {
 		d.dirty = true
 		return d.codecError(code, key, ErrCodec)
 	}
-	if corrupt != 0 {
+	if C.sg_dec_corrupt(d.c) != 0 {
 		d.dirty = true
 		return d.codecError(0, key, ErrCorrupt)
 	}
+	img := C.sg_dec_image(d.c)
 	if img == nil {
 		if !h.ShowFrame {
 			if key {
@@ -222,7 +221,7 @@ func (d *Decoder) decode(frame []byte, dst *Image) error {
 	}
 	if view.Width != wantW || view.Height != wantH {
 		d.dirty = true
-		return fmt.Errorf("vp8: decode: %w: libvpx returned %dx%d, stream is %dx%d", ErrImageSize, view.Width, view.Height, wantW, wantH)
+		return fmt.Errorf("%w: libvpx returned %dx%d, stream is %dx%d", ErrImageSize, view.Width, view.Height, wantW, wantH)
 	}
 	if err := view.Validate(); err != nil {
 		d.dirty = true

@@ -208,7 +208,7 @@ func (e *Encoder) SetBitrate(bps int) error {
 // keyframe, so a receiver never depends on a frame that was not produced.
 func (e *Encoder) Encode(dst []byte, src *Image, ptsUs int64) (frame []byte, keyframe bool, err error) {
 	if err := src.Validate(); err != nil {
-		return dst[:0], false, fmt.Errorf("vp8: encode: %w", err)
+		return dst[:0], false, fmt.Errorf("%w (encoder input)", err)
 	}
 	e.mu.Lock()
 	defer e.mu.Unlock()
@@ -216,7 +216,7 @@ func (e *Encoder) Encode(dst []byte, src *Image, ptsUs int64) (frame []byte, key
 		return dst[:0], false, ErrClosed
 	}
 	if src.Width != e.cfg.Width || src.Height != e.cfg.Height {
-		return dst[:0], false, fmt.Errorf("vp8: encode: %w: picture is %dx%d, encoder is %dx%d", ErrImageSize, src.Width, src.Height, e.cfg.Width, e.cfg.Height)
+		return dst[:0], false, fmt.Errorf("%w: picture is %dx%d, encoder is %dx%d", ErrImageSize, src.Width, src.Height, e.cfg.Width, e.cfg.Height)
 	}
 	view := e.inputView()
 	copyImage(&view, src)
@@ -233,7 +233,7 @@ func (e *Encoder) EncodeBGR(dst []byte, bgr []byte, ptsUs int64) (frame []byte, 
 		return dst[:0], false, ErrClosed
 	}
 	if n := e.cfg.Width * e.cfg.Height * 3; len(bgr) != n {
-		return dst[:0], false, fmt.Errorf("vp8: encode: %w: BGR buffer has %d bytes, %dx%d needs %d", ErrImageSize, len(bgr), e.cfg.Width, e.cfg.Height, n)
+		return dst[:0], false, fmt.Errorf("%w: BGR buffer has %d bytes, %dx%d needs %d", ErrImageSize, len(bgr), e.cfg.Width, e.cfg.Height, n)
 	}
 	view := e.inputView()
 	bgrToI420(&view, bgr)
@@ -249,7 +249,7 @@ func (e *Encoder) inputView() Image {
 func (e *Encoder) encode(dst []byte, ptsUs int64) ([]byte, bool, error) {
 	dst = dst[:0]
 	if e.started && ptsUs <= e.lastUs {
-		return dst, false, fmt.Errorf("vp8: encode: %w: pts %d us after %d us: pass a monotonic clock", ErrTimestamp, ptsUs, e.lastUs)
+		return dst, false, fmt.Errorf("%w: pts %d us after %d us: pass a monotonic clock", ErrTimestamp, ptsUs, e.lastUs)
 	}
 	var ms, dur int64
 	if !e.started {
@@ -277,17 +277,17 @@ func (e *Encoder) encode(dst []byte, ptsUs int64) ([]byte, bool, error) {
 	e.started, e.lastUs, e.lastMs = true, ptsUs, ms
 	key := false
 	n := 0
-	var buf unsafe.Pointer
-	var size C.size_t
-	var isKey C.int
-	for C.sg_enc_next(e.c, &buf, &size, &isKey) == 1 {
+	for C.sg_enc_next(e.c) == 1 {
 		n++
 		if n > 1 {
 			e.forceKey.Store(true)
 			return dst[:0], false, &CodecError{Op: "encode", Message: "several frames", Detail: "libvpx produced more than one frame for one picture", Err: ErrCodec}
 		}
-		dst = append(dst, unsafe.Slice((*byte)(buf), int(size))...)
-		key = isKey != 0
+		size := int(C.sg_enc_out_size(e.c))
+		if size > 0 {
+			dst = append(dst, unsafe.Slice((*byte)(C.sg_enc_out_buf(e.c)), size)...)
+		}
+		key = C.sg_enc_out_key(e.c) != 0
 	}
 	return dst, key, nil
 }

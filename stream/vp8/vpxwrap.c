@@ -19,11 +19,15 @@ struct sg_dec {
   unsigned threads;
   uint8_t *buf;
   size_t cap;
+  int corrupt;
+  vpx_image_t *img;
 };
 
 static const char *safe_str(const char *s) { return s ? s : ""; }
 
 int sg_dec_reset(sg_dec *d) {
+  d->img = NULL;
+  d->corrupt = 0;
   if (d->inited) {
     vpx_codec_destroy(&d->ctx);
     d->inited = 0;
@@ -53,10 +57,9 @@ sg_dec *sg_dec_new(unsigned threads, int *res) {
   return d;
 }
 
-int sg_dec_decode(sg_dec *d, const uint8_t *data, size_t n, int *corrupt,
-                  vpx_image_t **img) {
-  *corrupt = 0;
-  *img = NULL;
+int sg_dec_decode(sg_dec *d, const uint8_t *data, size_t n) {
+  d->corrupt = 0;
+  d->img = NULL;
   if (!d->inited) return VPX_CODEC_ERROR;
   if (n == 0 || n > 0x7fffffff) return VPX_CODEC_INVALID_PARAM;
   if (n + SG_PAD > d->cap) {
@@ -73,11 +76,14 @@ int sg_dec_decode(sg_dec *d, const uint8_t *data, size_t n, int *corrupt,
   int c = 0;
   e = vpx_codec_control(&d->ctx, VP8D_GET_FRAME_CORRUPTED, &c);
   if (e != VPX_CODEC_OK) return (int)e;
-  *corrupt = c;
+  d->corrupt = c;
   vpx_codec_iter_t it = NULL;
-  *img = vpx_codec_get_frame(&d->ctx, &it);
+  d->img = vpx_codec_get_frame(&d->ctx, &it);
   return VPX_CODEC_OK;
 }
+
+int sg_dec_corrupt(const sg_dec *d) { return d->corrupt; }
+vpx_image_t *sg_dec_image(const sg_dec *d) { return d->img; }
 
 // After a failed (re)initialisation libvpx may leave err_detail pointing at
 // freed memory, so the strings are only read from a live context.
@@ -103,6 +109,9 @@ struct sg_enc {
   vpx_image_t *img;
   vpx_codec_iter_t iter;
   int inited;
+  const void *out_buf;
+  size_t out_size;
+  int out_key;
 };
 
 sg_enc *sg_enc_new(const sg_enc_params *p, int *res, const char **detail) {
@@ -189,17 +198,24 @@ int sg_enc_encode(sg_enc *e, int64_t pts, unsigned long duration, int force_kf) 
   return (int)vpx_codec_encode(&e->ctx, e->img, pts, duration, flags, VPX_DL_REALTIME);
 }
 
-int sg_enc_next(sg_enc *e, const void **buf, size_t *size, int *is_key) {
+int sg_enc_next(sg_enc *e) {
   const vpx_codec_cx_pkt_t *pkt;
+  e->out_buf = NULL;
+  e->out_size = 0;
+  e->out_key = 0;
   while ((pkt = vpx_codec_get_cx_data(&e->ctx, &e->iter)) != NULL) {
     if (pkt->kind != VPX_CODEC_CX_FRAME_PKT) continue;
-    *buf = pkt->data.frame.buf;
-    *size = pkt->data.frame.sz;
-    *is_key = (pkt->data.frame.flags & VPX_FRAME_IS_KEY) != 0;
+    e->out_buf = pkt->data.frame.buf;
+    e->out_size = pkt->data.frame.sz;
+    e->out_key = (pkt->data.frame.flags & VPX_FRAME_IS_KEY) != 0;
     return 1;
   }
   return 0;
 }
+
+const void *sg_enc_out_buf(const sg_enc *e) { return e->out_buf; }
+size_t sg_enc_out_size(const sg_enc *e) { return e->out_size; }
+int sg_enc_out_key(const sg_enc *e) { return e->out_key; }
 
 int sg_enc_set_bitrate(sg_enc *e, unsigned kbps) {
   e->cfg.rc_target_bitrate = kbps;

@@ -24,10 +24,18 @@ int sg_dec_reset(sg_dec *d);
 
 // sg_dec_decode copies n bytes from data into the decoder's own buffer
 // (followed by zero padding), decodes them, asks VP8D_GET_FRAME_CORRUPTED and
-// fetches the output picture, if any, into *img (owned by libvpx, valid until
-// the next call). Returns a vpx_codec_err_t.
-int sg_dec_decode(sg_dec *d, const uint8_t *data, size_t n, int *corrupt,
-                  vpx_image_t **img);
+// fetches the output picture, if any. Returns a vpx_codec_err_t. The results
+// are read with sg_dec_corrupt and sg_dec_image (kept in C memory so the
+// per-frame call passes no Go pointers that would escape to the heap).
+int sg_dec_decode(sg_dec *d, const uint8_t *data, size_t n);
+
+// sg_dec_corrupt returns the VP8D_GET_FRAME_CORRUPTED flag of the last
+// successful sg_dec_decode.
+int sg_dec_corrupt(const sg_dec *d);
+
+// sg_dec_image returns the picture of the last sg_dec_decode, or NULL (owned
+// by libvpx, valid until the next decode, reset or free).
+vpx_image_t *sg_dec_image(const sg_dec *d);
 
 // sg_dec_error and sg_dec_error_detail return libvpx's last error strings
 // (never NULL; owned by libvpx).
@@ -65,10 +73,14 @@ vpx_image_t *sg_enc_image(sg_enc *e);
 // vpx_codec_err_t. Output packets are then read with sg_enc_next.
 int sg_enc_encode(sg_enc *e, int64_t pts, unsigned long duration, int force_kf);
 
-// sg_enc_next returns 1 and fills buf/size/is_key for the next compressed
-// frame packet of the last sg_enc_encode, or 0 when there are no more. The
-// buffer is owned by libvpx and valid until the next encode call.
-int sg_enc_next(sg_enc *e, const void **buf, size_t *size, int *is_key);
+// sg_enc_next moves to the next compressed frame packet of the last
+// sg_enc_encode and returns 1, or returns 0 when there are no more. The
+// packet is read with sg_enc_out_buf, sg_enc_out_size and sg_enc_out_key;
+// its buffer is owned by libvpx and valid until the next encode call.
+int sg_enc_next(sg_enc *e);
+const void *sg_enc_out_buf(const sg_enc *e);
+size_t sg_enc_out_size(const sg_enc *e);
+int sg_enc_out_key(const sg_enc *e);
 
 // sg_enc_set_bitrate changes the target bitrate. Returns a vpx_codec_err_t.
 int sg_enc_set_bitrate(sg_enc *e, unsigned kbps);
