@@ -1,0 +1,457 @@
+package predictor
+
+import (
+	"fmt"
+	"image"
+	"image/color"
+	"math"
+
+	"gocv.io/x/gocv"
+)
+
+// DefaultBandPx is the default width, in pixels, of the band across the
+// horizon in which the ground and far warps are blended linearly. A design
+// choice: wide enough to hide the seam between the two warps at 720p, narrow
+// enough that little ground is mixed with sky.
+const DefaultBandPx = 24
+
+// NeutralGrey is the value (all three channels) written to output pixels
+// that have no source pixel.
+const NeutralGrey = 128
+
+// FillTolerancePx is the slack e of the "has a source pixel" test: half of
+// the 1/32 px sub-pixel step to which cv::warpPerspective rounds source
+// coordinates (INTER_BITS = 5 in OpenCV's imgproc, from memory). It keeps
+// identity-like maps, whose edge pixels land within rounding error of the
+// source border, from counting as unfilled.
+const FillTolerancePx = 1.0 / 64
+
+var neutralFill = color.RGBA{R: NeutralGrey, G: NeutralGrey, B: NeutralGrey}
+
+// SynthOptions configures a Synthesizer. The zero value uses the defaults.
+type SynthOptions struct {
+	// BandPx is the blend band width across the horizon, pixels. 0 means
+	// DefaultBandPx; otherwise it must be in 2..1024.
+	BandPx int
+}
+
+// Synthesis describes one synthesized frame.
+type Synthesis struct {
+	// Ground and Far are the forward homographies used (source pixels at T0
+	// to destination pixels at T1). Equal for a rotation-only warp.
+	Ground, Far Homography
+	// UnfilledPixels counts output pixels with no source pixel, filled with
+	// NeutralGrey. A pixel on or below the horizon line is judged by the
+	// ground map, one above it by the far map; it is unfilled when the inverse
+	// map sends its centre outside [-e, W-1+e] x [-e, H-1+e] of the source
+	// (e = FillTolerancePx) or behind the source camera. Counted exactly, row
+	// by row.
+	UnfilledPixels int
+	// UnfilledFraction is UnfilledPixels / (Width·Height).
+	UnfilledFraction float64
+}
+
+// Synthesizer warps a frame from one camera pose to another: the road
+// (below the horizon) with a ground-plane homography and the far scene
+// (above it) with a rotation homography, blended linearly across a band of
+// BandPx centred on the horizon of the destination image.
+//
+// Each output row is warped once, straight into the caller's destination
+// through a row-range view and the homography composed with that row offset;
+// only the band rows are warped twice (into owned buffers) and blended. With
+// bilinear interpolation and no distortion the cost is about (H + band rows)
+// / H of one full warp.
+//
+// If the camera has distortion, each source frame is first undistorted with
+// precomputed maps (cv::remap, bilinear), and the output is in undistorted
+// (pinhole) geometry with the same K. Predicted frames are then not pixel-
+// compatible with the raw distorted frames.
+//
+// A Synthesizer owns its buffers (Close frees them) and is not safe for
+// concurrent use; use one per goroutine.
+type Synthesizer struct {
+	cam     Camera
+	bandPx  int
+	horizon Line
+	rowA    int // rows [0, rowA) are far scene only
+	rowB    int // rows [rowA, rowB) are blended; [rowB, H) are ground only
+
+	weights []uint16 // ground weight 0..256 per band pixel, row-major, (rowB-rowA)*W
+	bandG   gocv.Mat // ground warp of the band rows
+	bandF   gocv.Mat // far warp of the band rows
+	mat     gocv.Mat // 3x3 CV_64F inverse map handed to OpenCV
+
+	undistort  bool
+	map1, map2 gocv.Mat // undistortion maps (CV_16SC2 + CV_16UC1)
+	undist     gocv.Mat // undistorted source
+
+	closed bool
+}
+
+// NewSynthesizer validates cam and opts and allocates the buffers.
+func NewSynthesizer(cam Camera, opts SynthOptions) (*Synthesizer, error) {
+	if err := cam.Validate(); err != nil {
+		return nil, err
+	}
+	band := opts.BandPx
+	if band == 0 {
+		band = DefaultBandPx
+	}
+	if band < 2 || band > 1024 {
+		return nil, fmt.Errorf("BandPx = %d, want 2..1024 (0 for the default %d): %w", opts.BandPx, DefaultBandPx, ErrInvalidConfig)
+	}
+	s := &Synthesizer{cam: cam, bandPx: band, horizon: cam.Horizon()}
+	s.layoutBand()
+	if n := s.rowB - s.rowA; n > 0 {
+		s.bandG = gocv.NewMatWithSize(n, cam.Width, gocv.MatTypeCV8UC3)
+		s.bandF = gocv.NewMatWithSize(n, cam.Width, gocv.MatTypeCV8UC3)
+	} else {
+		s.bandG, s.bandF = gocv.NewMat(), gocv.NewMat()
+	}
+	s.mat = gocv.NewMatWithSize(3, 3, gocv.MatTypeCV64F)
+	s.map1, s.map2, s.undist = gocv.NewMat(), gocv.NewMat(), gocv.NewMat()
+	if cam.HasDistortion() {
+		s.undistort = true
+		k := gocv.NewMatWithSize(3, 3, gocv.MatTypeCV64F)
+		defer k.Close()
+		if err := setMat3(&k, Homography(cam.K())); err != nil {
+			s.Close()
+			return nil, err
+		}
+		d := gocv.NewMatWithSize(1, 5, gocv.MatTypeCV64F)
+		defer d.Close()
+		for i, v := range cam.Distortion() {
+			d.SetDoubleAt(0, i, v)
+		}
+		r := gocv.NewMat()
+		defer r.Close()
+		gocv.InitUndistortRectifyMap(k, d, r, k, image.Pt(cam.Width, cam.Height), int(gocv.MatTypeCV16SC2), s.map1, s.map2)
+		s.undist = gocv.NewMatWithSize(cam.Height, cam.Width, gocv.MatTypeCV8UC3)
+	}
+	return s, nil
+}
+
+// layoutBand finds the band rows and precomputes the per-pixel ground
+// weights w = clamp((s + b) / 2b, 0, 1), s the signed distance to the
+// horizon (positive below), b = BandPx/2.
+func (s *Synthesizer) layoutBand() {
+	w, h := s.cam.Width, s.cam.Height
+	b := float64(s.bandPx) / 2
+	hz := s.horizon
+	minMax := func(v int) (lo, hi float64) {
+		a := hz.SignedDistance(0, float64(v))
+		c := hz.SignedDistance(float64(w-1), float64(v))
+		return math.Min(a, c), math.Max(a, c)
+	}
+	s.rowA = h
+	for v := 0; v < h; v++ {
+		if _, hi := minMax(v); hi > -b {
+			s.rowA = v
+			break
+		}
+	}
+	s.rowB = h
+	for v := s.rowA; v < h; v++ {
+		if lo, _ := minMax(v); lo >= b {
+			s.rowB = v
+			break
+		}
+	}
+	n := s.rowB - s.rowA
+	s.weights = make([]uint16, n*w)
+	for r := 0; r < n; r++ {
+		for u := 0; u < w; u++ {
+			d := hz.SignedDistance(float64(u), float64(s.rowA+r))
+			f := (d + b) / (2 * b)
+			s.weights[r*w+u] = uint16(math.Round(256 * math.Min(1, math.Max(0, f))))
+		}
+	}
+}
+
+// Close frees the buffers. It is safe to call more than once.
+func (s *Synthesizer) Close() error {
+	if s.closed {
+		return nil
+	}
+	s.closed = true
+	for _, m := range []*gocv.Mat{&s.bandG, &s.bandF, &s.mat, &s.map1, &s.map2, &s.undist} {
+		if matUsable(m) {
+			m.Close()
+		}
+	}
+	return nil
+}
+
+// Camera returns the camera the Synthesizer was built for.
+func (s *Synthesizer) Camera() Camera { return s.cam }
+
+// BandRows returns the blended rows [first, end) of the output; rows above
+// are warped with the far map only and rows from end on with the ground map
+// only. first == end when the horizon band is outside the image.
+func (s *Synthesizer) BandRows() (first, end int) { return s.rowA, s.rowB }
+
+// Warp writes into dst the source frame src warped with the forward
+// homographies ground (for road pixels, on and below the horizon) and far
+// (above it), blended across the band. Both map source pixels to destination
+// pixels in undistorted geometry. If ground == far the frame is warped once.
+//
+// src must be a CV_8UC3 image of the camera size. dst is owned by the caller;
+// it is (re)allocated only if its size or type differ, so pass the same dst
+// every time for an allocation-free path. dst must not share memory with src.
+func (s *Synthesizer) Warp(src gocv.Mat, ground, far Homography, dst *gocv.Mat) (Synthesis, error) {
+	out := Synthesis{Ground: ground, Far: far}
+	if s.closed {
+		return out, ErrClosed
+	}
+	if err := checkFrame("source frame", &src, s.cam.Width, s.cam.Height); err != nil {
+		return out, err
+	}
+	gi, err := ground.Inverse()
+	if err != nil {
+		return out, fmt.Errorf("ground homography: %w", err)
+	}
+	fi, err := far.Inverse()
+	if err != nil {
+		return out, fmt.Errorf("far homography: %w", err)
+	}
+	if err := ensureLike(dst, src); err != nil {
+		return out, err
+	}
+	if s.undistort {
+		gocv.Remap(src, &s.undist, &s.map1, &s.map2, gocv.InterpolationLinear, gocv.BorderConstant, neutralFill)
+		src = s.undist
+	}
+	w, h := s.cam.Width, s.cam.Height
+	if ground == far {
+		if err := s.warpRows(src, dst, fi, 0, h); err != nil {
+			return out, err
+		}
+		for v := 0; v < h; v++ {
+			out.UnfilledPixels += w - validCount(fi, v, 0, w-1, w, h)
+		}
+	} else {
+		if s.rowA > 0 {
+			roi := dst.Region(rowRect(w, 0, s.rowA))
+			err := s.warpRows(src, &roi, fi, 0, s.rowA)
+			roi.Close()
+			if err != nil {
+				return out, err
+			}
+		}
+		if s.rowB > s.rowA {
+			if err := s.warpRows(src, &s.bandG, gi, s.rowA, s.rowB); err != nil {
+				return out, err
+			}
+			if err := s.warpRows(src, &s.bandF, fi, s.rowA, s.rowB); err != nil {
+				return out, err
+			}
+			if err := s.blendBand(); err != nil {
+				return out, err
+			}
+			roi := dst.Region(rowRect(w, s.rowA, s.rowB))
+			s.bandG.CopyTo(&roi)
+			roi.Close()
+		}
+		if s.rowB < h {
+			roi := dst.Region(rowRect(w, s.rowB, h))
+			err := s.warpRows(src, &roi, gi, s.rowB, h)
+			roi.Close()
+			if err != nil {
+				return out, err
+			}
+		}
+		out.UnfilledPixels = s.countSplit(gi, fi)
+	}
+	out.UnfilledFraction = float64(out.UnfilledPixels) / float64(w*h)
+	return out, nil
+}
+
+// warpRows warps rows [r0, r1) of the destination image into target, a
+// view or buffer of exactly those rows. inv maps full-image destination
+// pixels to source pixels. Pixels whose ray points behind the source camera
+// (w <= 0, which OpenCV would fill from a mirrored position) are then painted
+// NeutralGrey.
+func (s *Synthesizer) warpRows(src gocv.Mat, target *gocv.Mat, inv Homography, r0, r1 int) error {
+	if err := setMat3(&s.mat, inv.shiftRows(r0)); err != nil {
+		return err
+	}
+	gocv.WarpPerspectiveWithParams(src, target, s.mat, image.Pt(s.cam.Width, r1-r0),
+		gocv.InterpolationLinear|gocv.WarpInverseMap, gocv.BorderConstant, neutralFill)
+	s.paintBehind(target, inv, r0, r1)
+	return nil
+}
+
+// paintBehind paints NeutralGrey where inv has w <= 0 in rows [r0, r1);
+// target holds exactly those rows. w is affine in (u, v), so when it is
+// positive at the four corners nothing needs painting.
+func (s *Synthesizer) paintBehind(target *gocv.Mat, inv Homography, r0, r1 int) {
+	wd := s.cam.Width
+	wAt := func(u, v float64) float64 { return inv[2][0]*u + inv[2][1]*v + inv[2][2] }
+	x1, y0, y1 := float64(wd-1), float64(r0), float64(r1-1)
+	if wAt(0, y0) > 0 && wAt(x1, y0) > 0 && wAt(0, y1) > 0 && wAt(x1, y1) > 0 {
+		return
+	}
+	for v := r0; v < r1; v++ {
+		lo, hi := behindInterval(inv, v, wd)
+		if lo > hi {
+			continue
+		}
+		seg := target.Region(image.Rect(lo, v-r0, hi+1, v-r0+1))
+		seg.SetTo(gocv.NewScalar(NeutralGrey, NeutralGrey, NeutralGrey, 0))
+		seg.Close()
+	}
+}
+
+// behindInterval returns the integer columns [lo, hi] of row v where
+// inv's w <= 0 (lo > hi if none).
+func behindInterval(inv Homography, v, width int) (lo, hi int) {
+	a := inv[2][0]
+	c := inv[2][1]*float64(v) + inv[2][2]
+	// want a*u + c <= 0  <=>  -a*u - c >= 0
+	return halfLine(-a, -c, 0, width-1)
+}
+
+// halfLine returns the integers u in [lo, hi] with a*u + c >= 0, which form
+// an interval because the condition is monotone in u. The float bound is
+// refined by evaluating the condition itself at the boundary, so the result
+// agrees exactly with a per-pixel test of a*u + c >= 0.
+func halfLine(a, c float64, lo, hi int) (int, int) {
+	ok := func(u int) bool { return a*float64(u)+c >= 0 }
+	switch {
+	case a == 0:
+		if c >= 0 {
+			return lo, hi
+		}
+		return lo, lo - 1
+	case a > 0: // u >= -c/a
+		b := -c / a
+		if !(b > float64(lo)) { // also NaN-safe
+			b = float64(lo)
+		}
+		if b > float64(hi)+1 {
+			return lo, lo - 1
+		}
+		u := int(math.Ceil(b))
+		for u > lo && ok(u-1) {
+			u--
+		}
+		for u <= hi && !ok(u) {
+			u++
+		}
+		return u, hi
+	default: // u <= -c/a
+		b := -c / a
+		if !(b < float64(hi)) {
+			b = float64(hi)
+		}
+		if b < float64(lo)-1 {
+			return lo, lo - 1
+		}
+		u := int(math.Floor(b))
+		for u < hi && ok(u+1) {
+			u++
+		}
+		for u >= lo && !ok(u) {
+			u--
+		}
+		return lo, u
+	}
+}
+
+// validCount counts the integer columns u in [x0, x1] of row v whose centre
+// inv maps into the source rectangle [-e, sw-1+e] x [-e, sh-1+e] with w > 0
+// (e = FillTolerancePx). In homogeneous form every condition is linear in u:
+//
+//	w > 0, X + e w >= 0, X <= (sw-1+e) w, Y + e w >= 0, Y <= (sh-1+e) w
+//
+// with (X, Y, w) = inv (u, v, 1), so the valid columns form one interval.
+func validCount(inv Homography, v, x0, x1, sw, sh int) int {
+	if x0 > x1 {
+		return 0
+	}
+	fv := float64(v)
+	wa, wc := inv[2][0], inv[2][1]*fv+inv[2][2]
+	xa, xc := inv[0][0], inv[0][1]*fv+inv[0][2]
+	ya, yc := inv[1][0], inv[1][1]*fv+inv[1][2]
+	const e = FillTolerancePx
+	mw, mh := float64(sw-1)+e, float64(sh-1)+e
+	lo, hi := x0, x1
+	cons := [...][2]float64{
+		{xa + e*wa, xc + e*wc},
+		{mw*wa - xa, mw*wc - xc},
+		{ya + e*wa, yc + e*wc},
+		{mh*wa - ya, mh*wc - yc},
+	}
+	for _, k := range cons {
+		lo, hi = halfLine(k[0], k[1], lo, hi)
+		if lo > hi {
+			return 0
+		}
+	}
+	// w > 0 strictly: remove the columns with w <= 0.
+	blo, bhi := halfLine(-wa, -wc, lo, hi)
+	n := hi - lo + 1
+	if blo <= bhi {
+		n -= bhi - blo + 1
+	}
+	return n
+}
+
+// countSplit counts unfilled pixels when the frame is split at the horizon:
+// columns with signed distance >= 0 use the ground map gi, the others the
+// far map fi (both inverse maps).
+func (s *Synthesizer) countSplit(gi, fi Homography) int {
+	w, h := s.cam.Width, s.cam.Height
+	hz := s.horizon
+	unfilled := 0
+	for v := 0; v < h; v++ {
+		// Ground columns: A u + B v + C >= 0.
+		glo, ghi := halfLine(hz.A, hz.B*float64(v)+hz.C, 0, w-1)
+		if glo > ghi {
+			unfilled += w - validCount(fi, v, 0, w-1, w, h)
+			continue
+		}
+		unfilled += (ghi - glo + 1) - validCount(gi, v, glo, ghi, w, h)
+		// Far columns are the rest of the row: [0, glo) and (ghi, w-1].
+		if glo > 0 {
+			unfilled += glo - validCount(fi, v, 0, glo-1, w, h)
+		}
+		if ghi < w-1 {
+			unfilled += (w - 1 - ghi) - validCount(fi, v, ghi+1, w-1, w, h)
+		}
+	}
+	return unfilled
+}
+
+// blendBand blends bandF into bandG in place with the precomputed weights:
+// out = (g·w + f·(256-w) + 128) >> 8.
+func (s *Synthesizer) blendBand() error {
+	g, err := s.bandG.DataPtrUint8()
+	if err != nil {
+		return fmt.Errorf("band buffer: %w", err)
+	}
+	f, err := s.bandF.DataPtrUint8()
+	if err != nil {
+		return fmt.Errorf("band buffer: %w", err)
+	}
+	wts := s.weights
+	if len(g) < 3*len(wts) || len(f) < 3*len(wts) {
+		return fmt.Errorf("band buffers are %d/%d bytes, want %d: %w", len(g), len(f), 3*len(wts), ErrFrameFormat)
+	}
+	for i, wt := range wts {
+		switch wt {
+		case 256:
+			continue
+		case 0:
+			j := 3 * i
+			g[j], g[j+1], g[j+2] = f[j], f[j+1], f[j+2]
+		default:
+			j := 3 * i
+			a, b := uint32(wt), uint32(256-wt)
+			g[j] = byte((uint32(g[j])*a + uint32(f[j])*b + 128) >> 8)
+			g[j+1] = byte((uint32(g[j+1])*a + uint32(f[j+1])*b + 128) >> 8)
+			g[j+2] = byte((uint32(g[j+2])*a + uint32(f[j+2])*b + 128) >> 8)
+		}
+	}
+	return nil
+}
