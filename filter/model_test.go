@@ -179,7 +179,8 @@ func TestTransitionAccelControl(t *testing.T) {
 }
 
 // TestTransitionJacobian compares the analytic Jacobian with central finite
-// differences (step 1e-6, truncation error ~1e-12·f”').
+// differences (step 1e-6, truncation error ~1e-12 times the third
+// derivative).
 func TestTransitionJacobian(t *testing.T) {
 	models := []*kinematics{{model: ModelCTRV}, {model: ModelBicycle, wheelbaseM: 2.9}}
 	states := [][5]float64{
