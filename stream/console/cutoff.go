@@ -1,0 +1,325 @@
+package console
+
+import (
+	"bytes"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"io/fs"
+	"log/slog"
+	"math"
+	"os"
+	"path/filepath"
+	"sort"
+	"strings"
+	"sync"
+	"sync/atomic"
+)
+
+// ControlState is the operator control state returned by GET /api/state and
+// POST /api/cutoff.
+type ControlState struct {
+	Profile  string    `json:"profile"`  // profile in use
+	Cutoff   float64   `json:"cutoff"`   // its cutoff, in Limits
+	Limits   Limits    `json:"limits"`   // administrator's limits
+	Profiles []Profile `json:"profiles"` // all profiles, sorted by name
+	Viewers  int       `json:"viewers"`  // connected viewers
+}
+
+// CutoffRequest is the body of POST /api/cutoff. At least one field must be
+// set:
+//   - Profile only: switch to that existing profile;
+//   - Cutoff only: change the cutoff of the profile in use;
+//   - both: set that profile's cutoff (creating it if new) and switch to it.
+type CutoffRequest struct {
+	Profile *string  `json:"profile,omitempty"`
+	Cutoff  *float64 `json:"cutoff,omitempty"`
+}
+
+// parseCutoffRequest decodes one JSON object with only known fields.
+func parseCutoffRequest(data []byte) (CutoffRequest, error) {
+	var req CutoffRequest
+	dec := json.NewDecoder(bytes.NewReader(data))
+	dec.DisallowUnknownFields()
+	if err := dec.Decode(&req); err != nil {
+		return CutoffRequest{}, fmt.Errorf("%w: body must be one JSON object {\"profile\": string, \"cutoff\": number}: %v", ErrBadRequest, err)
+	}
+	if _, err := dec.Token(); err != io.EOF {
+		return CutoffRequest{}, fmt.Errorf("%w: extra data after the JSON object", ErrBadRequest)
+	}
+	if req.Profile == nil && req.Cutoff == nil {
+		return CutoffRequest{}, fmt.Errorf("%w: give \"profile\", \"cutoff\" or both", ErrBadRequest)
+	}
+	return req, nil
+}
+
+// validProfileName checks the profile name rules (see ErrBadProfileName).
+func validProfileName(name string) error {
+	if name == "" || len(name) > MaxProfileNameLen {
+		return fmt.Errorf("%w: %q must be 1 to %d bytes", ErrBadProfileName, name, MaxProfileNameLen)
+	}
+	for _, r := range name {
+		ok := r >= 'a' && r <= 'z' || r >= 'A' && r <= 'Z' || r >= '0' && r <= '9' ||
+			r == ' ' || r == '-' || r == '_' || r == '.'
+		if !ok {
+			return fmt.Errorf("%w: %q; use letters, digits, space, '-', '_' or '.'", ErrBadProfileName, name)
+		}
+	}
+	return nil
+}
+
+// cutoffStore holds the profiles; all methods are safe for concurrent use.
+type cutoffStore struct {
+	mu       sync.Mutex
+	limits   Limits
+	profiles []Profile // sorted by name
+	active   int       // index into profiles
+	path     string    // profiles file, "" for none
+	bits     atomic.Uint64
+	nameVal  atomic.Pointer[string]
+	onChange func(profile string, cutoff float64)
+	log      *slog.Logger
+}
+
+// profilesFile is the on-disk form of Config.ProfilesPath.
+type profilesFile struct {
+	Active   string    `json:"active"`
+	Profiles []Profile `json:"profiles"`
+}
+
+func newCutoffStore(c Config) (*cutoffStore, error) {
+	s := &cutoffStore{limits: c.Limits, path: c.ProfilesPath, onChange: c.OnCutoffChange, log: c.Logger}
+	if err := s.limits.validate(); err != nil {
+		return nil, err
+	}
+	profiles, active := c.Profiles, c.ActiveProfile
+	fromFile := false
+	if s.path != "" {
+		f, err := loadProfilesFile(s.path)
+		switch {
+		case errors.Is(err, fs.ErrNotExist):
+		case err != nil:
+			return nil, err
+		default:
+			profiles, active, fromFile = f.Profiles, f.Active, true
+		}
+	}
+	if len(profiles) == 0 {
+		profiles = []Profile{{Name: "default", Cutoff: s.limits.clamp(DefaultCutoff)}}
+	}
+	if len(profiles) > MaxProfiles {
+		return nil, fmt.Errorf("%w: %d profiles, at most %d", ErrBadConfig, len(profiles), MaxProfiles)
+	}
+	s.profiles = make([]Profile, 0, MaxProfiles)
+	for _, p := range profiles {
+		if err := validProfileName(p.Name); err != nil {
+			return nil, fmt.Errorf("%w: %w", ErrBadConfig, err)
+		}
+		if s.find(p.Name) >= 0 {
+			return nil, fmt.Errorf("%w: profile %q given twice", ErrBadConfig, p.Name)
+		}
+		if math.IsNaN(p.Cutoff) || !s.limits.Contains(p.Cutoff) {
+			if !fromFile || math.IsNaN(p.Cutoff) {
+				return nil, fmt.Errorf("%w: profile %q: %w", ErrBadConfig, p.Name, &LimitError{Cutoff: p.Cutoff, Limits: s.limits})
+			}
+			clamped := s.limits.clamp(p.Cutoff)
+			s.log.Warn("console: profile cutoff outside the administrator's limits; clamped",
+				"profile", p.Name, "cutoff", p.Cutoff, "clamped", clamped, "file", s.path)
+			p.Cutoff = clamped
+		}
+		s.profiles = append(s.profiles, p)
+	}
+	sort.Slice(s.profiles, func(i, j int) bool { return s.profiles[i].Name < s.profiles[j].Name })
+	if active == "" {
+		active = profiles[0].Name
+	}
+	if s.active = s.find(active); s.active < 0 {
+		return nil, fmt.Errorf("%w: active profile %q: %w", ErrBadConfig, active, ErrUnknownProfile)
+	}
+	s.publish()
+	return s, nil
+}
+
+// find returns the index of the named profile or -1. Caller holds mu (or
+// owns s exclusively).
+func (s *cutoffStore) find(name string) int {
+	for i, p := range s.profiles {
+		if p.Name == name {
+			return i
+		}
+	}
+	return -1
+}
+
+// publish makes the active profile visible to the lock-free getters.
+func (s *cutoffStore) publish() {
+	p := s.profiles[s.active]
+	s.bits.Store(math.Float64bits(p.Cutoff))
+	name := p.Name
+	s.nameVal.Store(&name)
+}
+
+func (s *cutoffStore) cutoff() float64 { return math.Float64frombits(s.bits.Load()) }
+func (s *cutoffStore) profile() string { return *s.nameVal.Load() }
+
+// state returns a snapshot (viewers left 0 for the caller to fill).
+func (s *cutoffStore) state() ControlState {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return ControlState{
+		Profile:  s.profiles[s.active].Name,
+		Cutoff:   s.profiles[s.active].Cutoff,
+		Limits:   s.limits,
+		Profiles: append([]Profile(nil), s.profiles...),
+	}
+}
+
+// apply carries out req (see CutoffRequest). On error nothing changes. The
+// profiles file, if any, is written before the change takes effect. The
+// change callback runs after the lock is released; with concurrent requests
+// callbacks may arrive out of order, Cutoff() is the authority.
+func (s *cutoffStore) apply(req CutoffRequest) (ControlState, error) {
+	st, err := s.applyLocked(req)
+	if err == nil && s.onChange != nil {
+		s.onChange(st.Profile, st.Cutoff)
+	}
+	return st, err
+}
+
+func (s *cutoffStore) applyLocked(req CutoffRequest) (ControlState, error) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	next := append(make([]Profile, 0, MaxProfiles), s.profiles...)
+	active := s.active
+	if req.Profile != nil {
+		name := *req.Profile
+		if err := validProfileName(name); err != nil {
+			return ControlState{}, err
+		}
+		if active = s.find(name); active < 0 {
+			if req.Cutoff == nil {
+				names := make([]string, len(s.profiles))
+				for i, p := range s.profiles {
+					names[i] = p.Name
+				}
+				return ControlState{}, fmt.Errorf("%w %q; known profiles: %s (give a cutoff too to create it)",
+					ErrUnknownProfile, name, strings.Join(names, ", "))
+			}
+			if len(next) >= MaxProfiles {
+				return ControlState{}, fmt.Errorf("%w: at most %d; reuse an existing one", ErrTooManyProfiles, MaxProfiles)
+			}
+			next = append(next, Profile{Name: name})
+			sort.Slice(next, func(i, j int) bool { return next[i].Name < next[j].Name })
+			for i := range next {
+				if next[i].Name == name {
+					active = i
+				}
+			}
+		}
+	}
+	if req.Cutoff != nil {
+		c := *req.Cutoff
+		if math.IsNaN(c) || math.IsInf(c, 0) || !s.limits.Contains(c) {
+			return ControlState{}, &LimitError{Cutoff: c, Limits: s.limits}
+		}
+		next[active].Cutoff = c
+	}
+	if s.path != "" {
+		if err := writeProfilesFile(s.path, profilesFile{Active: next[active].Name, Profiles: next}); err != nil {
+			return ControlState{}, err
+		}
+	}
+	s.profiles, s.active = next, active
+	s.publish()
+	return ControlState{Profile: next[active].Name, Cutoff: next[active].Cutoff, Limits: s.limits,
+		Profiles: append([]Profile(nil), next...)}, nil
+}
+
+// loadProfilesFile reads and strictly decodes a profiles file.
+func loadProfilesFile(path string) (profilesFile, error) {
+	data, err := os.ReadFile(path)
+	if err != nil {
+		if errors.Is(err, fs.ErrNotExist) {
+			return profilesFile{}, err
+		}
+		return profilesFile{}, &ProfilesFileError{Path: path, Err: err}
+	}
+	return parseProfilesFile(path, data)
+}
+
+// parseProfilesFile decodes data; errors carry path and line.
+func parseProfilesFile(path string, data []byte) (profilesFile, error) {
+	var f profilesFile
+	dec := json.NewDecoder(bytes.NewReader(data))
+	dec.DisallowUnknownFields()
+	if err := dec.Decode(&f); err != nil {
+		return profilesFile{}, &ProfilesFileError{Path: path, Line: lineOf(data, dec.InputOffset(), err), Err: err}
+	}
+	if _, err := dec.Token(); err != io.EOF {
+		return profilesFile{}, &ProfilesFileError{Path: path, Line: lineOf(data, dec.InputOffset(), nil),
+			Err: errors.New("extra data after the JSON object")}
+	}
+	if len(f.Profiles) == 0 {
+		return profilesFile{}, &ProfilesFileError{Path: path, Err: errors.New("no profiles")}
+	}
+	return f, nil
+}
+
+// lineOf returns the 1-based line of the error position: the syntax or type
+// error offset when err has one, else off.
+func lineOf(data []byte, off int64, err error) int {
+	var se *json.SyntaxError
+	var te *json.UnmarshalTypeError
+	switch {
+	case errors.As(err, &se):
+		off = se.Offset
+	case errors.As(err, &te):
+		off = te.Offset
+	}
+	if off > int64(len(data)) {
+		off = int64(len(data))
+	}
+	if off < 0 {
+		off = 0
+	}
+	return 1 + bytes.Count(data[:off], []byte{'\n'})
+}
+
+// writeProfilesFile writes f to path atomically: a temporary file in the
+// same directory, fsync, rename over path, fsync of the directory.
+func writeProfilesFile(path string, f profilesFile) (err error) {
+	data, err := json.MarshalIndent(f, "", "  ")
+	if err != nil {
+		return &ProfilesFileError{Path: path, Err: err}
+	}
+	data = append(data, '\n')
+	dir := filepath.Dir(path)
+	tmp, err := os.CreateTemp(dir, "."+filepath.Base(path)+".tmp-*")
+	if err != nil {
+		return &ProfilesFileError{Path: path, Err: fmt.Errorf("create temporary file: %w", err)}
+	}
+	defer func() {
+		if err != nil {
+			tmp.Close()
+			os.Remove(tmp.Name())
+		}
+	}()
+	if _, err = tmp.Write(data); err != nil {
+		return &ProfilesFileError{Path: path, Err: fmt.Errorf("write: %w", err)}
+	}
+	if err = tmp.Sync(); err != nil {
+		return &ProfilesFileError{Path: path, Err: fmt.Errorf("sync: %w", err)}
+	}
+	if err = tmp.Close(); err != nil {
+		return &ProfilesFileError{Path: path, Err: fmt.Errorf("close: %w", err)}
+	}
+	if err = os.Rename(tmp.Name(), path); err != nil {
+		return &ProfilesFileError{Path: path, Err: fmt.Errorf("rename: %w", err)}
+	}
+	if d, derr := os.Open(dir); derr == nil {
+		d.Sync() // best effort: some file systems refuse fsync on directories
+		d.Close()
+	}
+	return nil
+}

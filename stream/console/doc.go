@@ -1,0 +1,62 @@
+// Package console is the operator-facing egress of the stopgap relay: an
+// http.Handler that serves the operator page, lets a browser receive the
+// relay's output over WebRTC, and holds the operator's prediction cutoff.
+//
+// # What the operator receives
+//
+// Per display tick the relay produces one output frame whose state is LIVE
+// (a real frame), PREDICTED (a synthetic frame: the last real frame warped to
+// where the camera should be now) or STALE (too uncertain to predict: the old
+// frame, desaturated). The relay hands each encoded frame to
+// [Console.WriteFrame] and a description of it to [Console.WriteMeta]. Every
+// connected viewer gets:
+//
+//   - one VP8 video track (RTP clock 90 kHz), and
+//   - a data channel labelled "meta" carrying one JSON text message per output
+//     frame (see [Meta] for the fields and units).
+//
+// The "meta" channel is pre-negotiated: both sides create it with
+// negotiated=true, id=0, ordered=false, maxRetransmits=0, so the offer must
+// contain an SCTP application section. It is unordered and unreliable on
+// purpose: a late status message is worthless, and silence must show up as
+// silence. Receivers drop messages whose seq is not newer than the last one.
+//
+// # HTTP API (same conventions as WHIP, RFC 9725, but receive-only)
+//
+//	GET    /                 the operator page (no token: it holds no secrets)
+//	GET    /console.js, /console.css
+//	POST   /api/view         body: SDP offer (Content-Type application/sdp)
+//	                         201 Created, body: SDP answer, Location: /api/view/{id}
+//	DELETE /api/view/{id}    ends that viewer session (200)
+//	GET    /api/state        profile, cutoff, administrator limits, profiles (JSON)
+//	POST   /api/cutoff       {"profile": "...", "cutoff": 0.6}  (JSON) -> new state
+//	GET    /api/meta         the last meta message (JSON), 204 if none yet
+//
+// Every /api/ request needs "Authorization: Bearer <token>" (RFC 6750); the
+// token is compared in constant time and never logged. The page reads the
+// token from the URL fragment (http://127.0.0.1:PORT/#token=...), which
+// browsers never send to the server, keeps it in sessionStorage and removes it
+// from the address bar. Session ids are 128 bits from crypto/rand. Request
+// bodies are size-limited; the number of sessions (including half-open ones
+// that have not finished ICE/DTLS) is capped and excess offers get 503 with
+// Retry-After. There is no trickle ICE: the answer carries all candidates.
+// No CORS headers are sent: the page and the API share one origin.
+//
+// # Cutoff
+//
+// The relay shows a PREDICTED frame only while its confidence is at or above
+// the cutoff; below it the frame is STALE. The operator picks a named
+// [Profile] and may change its cutoff, always within the administrator's
+// [Limits]; [Console.Cutoff] is the thread-safe getter for the relay and
+// Config.OnCutoffChange tells it about changes.
+//
+// # Safety
+//
+// Predicted frames move the static scene only; anything that moved during the
+// gap (a pedestrian, a braking car) is not in them. The page says so
+// permanently, frames each state unmistakably, and shows NO SIGNAL / UNKNOWN
+// when the meta channel is silent for more than 500 ms or the picture stops
+// changing, so a frozen picture never looks live.
+//
+// This package uses no cgo: frames arrive already VP8-encoded.
+package console

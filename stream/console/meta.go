@@ -1,0 +1,136 @@
+package console
+
+import (
+	"fmt"
+	"math"
+	"strconv"
+	"unicode/utf8"
+)
+
+// Meta describes one output frame. It is sent as one JSON text message on the
+// "meta" data channel, for example:
+//
+//	{"seq":812,"t_us":27066666,"state":"PREDICTED","age_ms":133,"confidence":0.81,
+//	 "cutoff":0.6,"profile":"city","link":{"loss_pct":4.2,"jitter_ms":11,
+//	 "delay_ms":84,"keyframe_requests":3,"frames_in":790}}
+type Meta struct {
+	// Seq numbers output frames, +1 per display tick; receivers ignore a
+	// message whose Seq is not newer than the last one seen.
+	Seq uint64 `json:"seq"`
+	// TimeUs is the display tick time on the vehicle clock, microseconds.
+	TimeUs int64 `json:"t_us"`
+	// State of the frame: LIVE, PREDICTED or STALE.
+	State State `json:"state"`
+	// AgeMs is how old the newest real picture content is, milliseconds
+	// (display tick time minus capture time of the last real frame).
+	AgeMs float64 `json:"age_ms"`
+	// Confidence of the prediction in [0, 1] (1 for LIVE).
+	Confidence float64 `json:"confidence"`
+	// Cutoff is the confidence cutoff the relay applied to this frame.
+	Cutoff float64 `json:"cutoff"`
+	// Profile is the name of the operator profile the cutoff came from.
+	Profile string `json:"profile"`
+	// Link holds ingest link statistics at this tick.
+	Link LinkStats `json:"link"`
+}
+
+// LinkStats are statistics of the vehicle-to-relay link as the ingest sees
+// them.
+type LinkStats struct {
+	LossPct          float64 `json:"loss_pct"`          // RTP packet loss over the recent window, percent
+	JitterMs         float64 `json:"jitter_ms"`         // RFC 3550 interarrival jitter, milliseconds
+	DelayMs          float64 `json:"delay_ms"`          // estimated one-way capture-to-arrival delay, milliseconds
+	KeyframeRequests uint64  `json:"keyframe_requests"` // keyframe requests (PLI/FIR) sent to the vehicle so far
+	FramesIn         uint64  `json:"frames_in"`         // complete frames received from the vehicle so far
+}
+
+// Validate reports ErrBadMeta for an invalid State or a NaN/Inf number.
+func (m *Meta) Validate() error {
+	if !m.State.Valid() {
+		return fmt.Errorf("%w: state %d is not LIVE, PREDICTED or STALE", ErrBadMeta, int(m.State))
+	}
+	for _, f := range [...]struct {
+		name string
+		v    float64
+	}{
+		{"age_ms", m.AgeMs}, {"confidence", m.Confidence}, {"cutoff", m.Cutoff},
+		{"link.loss_pct", m.Link.LossPct}, {"link.jitter_ms", m.Link.JitterMs}, {"link.delay_ms", m.Link.DelayMs},
+	} {
+		if math.IsNaN(f.v) || math.IsInf(f.v, 0) {
+			return fmt.Errorf("%w: %s is %v; send a finite number", ErrBadMeta, f.name, f.v)
+		}
+	}
+	return nil
+}
+
+// AppendJSON appends m as one JSON object to dst and returns the extended
+// slice. It allocates nothing when dst has room; the result decodes with
+// encoding/json into an equal Meta.
+func (m *Meta) AppendJSON(dst []byte) ([]byte, error) {
+	if err := m.Validate(); err != nil {
+		return dst, err
+	}
+	dst = append(dst, `{"seq":`...)
+	dst = strconv.AppendUint(dst, m.Seq, 10)
+	dst = append(dst, `,"t_us":`...)
+	dst = strconv.AppendInt(dst, m.TimeUs, 10)
+	dst = append(dst, `,"state":"`...)
+	dst = append(dst, m.State.String()...)
+	dst = append(dst, `","age_ms":`...)
+	dst = appendFloat(dst, m.AgeMs)
+	dst = append(dst, `,"confidence":`...)
+	dst = appendFloat(dst, m.Confidence)
+	dst = append(dst, `,"cutoff":`...)
+	dst = appendFloat(dst, m.Cutoff)
+	dst = append(dst, `,"profile":`...)
+	dst = appendJSONString(dst, m.Profile)
+	dst = append(dst, `,"link":{"loss_pct":`...)
+	dst = appendFloat(dst, m.Link.LossPct)
+	dst = append(dst, `,"jitter_ms":`...)
+	dst = appendFloat(dst, m.Link.JitterMs)
+	dst = append(dst, `,"delay_ms":`...)
+	dst = appendFloat(dst, m.Link.DelayMs)
+	dst = append(dst, `,"keyframe_requests":`...)
+	dst = strconv.AppendUint(dst, m.Link.KeyframeRequests, 10)
+	dst = append(dst, `,"frames_in":`...)
+	dst = strconv.AppendUint(dst, m.Link.FramesIn, 10)
+	dst = append(dst, "}}"...)
+	return dst, nil
+}
+
+// appendFloat writes a finite float in the shortest form that round-trips;
+// 'g' may use an exponent, which JSON allows.
+func appendFloat(dst []byte, v float64) []byte {
+	return strconv.AppendFloat(dst, v, 'g', -1, 64)
+}
+
+const hexDigits = "0123456789abcdef"
+
+// appendJSONString appends s as a JSON string (RFC 8259 section 7): quotes,
+// backslash and control characters escaped, invalid UTF-8 replaced by U+FFFD.
+func appendJSONString(dst []byte, s string) []byte {
+	dst = append(dst, '"')
+	for i := 0; i < len(s); {
+		c := s[i]
+		if c < utf8.RuneSelf {
+			switch {
+			case c == '"' || c == '\\':
+				dst = append(dst, '\\', c)
+			case c < 0x20:
+				dst = append(dst, '\\', 'u', '0', '0', hexDigits[c>>4], hexDigits[c&0xF])
+			default:
+				dst = append(dst, c)
+			}
+			i++
+			continue
+		}
+		r, size := utf8.DecodeRuneInString(s[i:])
+		if r == utf8.RuneError && size == 1 {
+			dst = append(dst, `\ufffd`...)
+		} else {
+			dst = append(dst, s[i:i+size]...)
+		}
+		i += size
+	}
+	return append(dst, '"')
+}

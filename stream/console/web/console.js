@@ -1,0 +1,340 @@
+// stopgap operator console page.
+//
+// Receives the relay's output over WebRTC (one VP8 video track, one
+// pre-negotiated data channel "meta", id 0, unordered, no retransmissions)
+// and mirrors each frame's state in a banner and a coloured frame. It shows
+// NO SIGNAL / UNKNOWN itself when status messages stop for more than
+// META_SILENCE_MS or the picture stops changing for more than
+// VIDEO_FREEZE_MS, so a frozen picture never looks live.
+//
+// The bearer token comes from the URL fragment (#token=...), is kept in
+// sessionStorage and removed from the address bar.
+//
+// For tests: <body data-state="LIVE|PREDICTED|STALE|NOSIGNAL" data-reason=...>
+// and window.__stateLog, one {state, reason, t_ms} entry per change of the
+// displayed state.
+"use strict";
+(() => {
+  const META_SILENCE_MS = 500;
+  const VIDEO_FREEZE_MS = 500;
+  const WATCH_MS = 50;
+  const RECONNECT_MS = 2000;
+  const STATES = ["LIVE", "PREDICTED", "STALE"];
+
+  const $ = (id) => document.getElementById(id);
+  const body = document.body;
+  const video = $("video");
+
+  const stateLog = [];
+  window.__stateLog = stateLog;
+  window.__console = { meta: null };
+
+  let token = takeToken();
+  let shown = "";
+  let last = null;
+  let lastSeq = -1;
+  let lastMetaAt = -Infinity;
+  let videoFrames = 0;
+  let lastVideoAt = -Infinity;
+  let limits = { min_cutoff: 0, max_cutoff: 1 };
+  let pc = null;
+  let resourceURL = null;
+  let reconnectTimer = 0;
+  let stopped = false;
+
+  function takeToken() {
+    let tok = "";
+    const m = /(?:^#|&)token=([^&]*)/.exec(location.hash);
+    if (m) {
+      tok = decodeURIComponent(m[1]);
+      try { sessionStorage.setItem("stopgap.token", tok); } catch (e) { /* storage off: keep in memory */ }
+      history.replaceState(null, "", location.pathname + location.search);
+    } else {
+      try { tok = sessionStorage.getItem("stopgap.token") || ""; } catch (e) { tok = ""; }
+    }
+    return tok;
+  }
+
+  function api(path, opts) {
+    opts = opts || {};
+    const headers = Object.assign({ "Authorization": "Bearer " + token }, opts.headers || {});
+    return fetch(path, Object.assign({}, opts, { headers: headers, cache: "no-store" }));
+  }
+
+  async function errorText(res) {
+    try { const j = await res.json(); if (j && j.error) return j.error; } catch (e) { /* not JSON */ }
+    return "HTTP " + res.status;
+  }
+
+  function setText(id, text) {
+    const el = $(id);
+    if (el.textContent !== text) el.textContent = text;
+  }
+
+  function setConn(state, detail) {
+    body.dataset.conn = state;
+    setText("conn", "relay: " + state + (detail ? " (" + detail + ")" : ""));
+  }
+
+  const fix = (v, d) => (typeof v === "number" && isFinite(v)) ? v.toFixed(d) : "—";
+  const int = (v) => (typeof v === "number" && isFinite(v)) ? String(Math.round(v)) : "—";
+
+  // ---- state display ----
+
+  function evaluate() {
+    const now = performance.now();
+    const metaAge = now - lastMetaAt;
+    let state = "NOSIGNAL";
+    let reason = "";
+    if (!last) {
+      reason = (pc && pc.connectionState === "connected") ? "no-status" : "connecting";
+    } else if (metaAge > META_SILENCE_MS) {
+      reason = "meta-silent";
+    } else if (videoFrames > 0 && now - lastVideoAt > VIDEO_FREEZE_MS) {
+      reason = "video-frozen";
+    } else if (STATES.includes(last.state)) {
+      state = last.state;
+    } else {
+      reason = "bad-state";
+    }
+    show(state, reason, now, metaAge);
+  }
+
+  function show(state, reason, now, metaAge) {
+    if (state !== shown) {
+      shown = state;
+      stateLog.push({ state: state, reason: reason, t_ms: Math.round(now) });
+      body.dataset.state = state;
+    }
+    if (body.dataset.reason !== reason) body.dataset.reason = reason;
+    if (body.dataset.videoFrames !== String(videoFrames)) body.dataset.videoFrames = String(videoFrames);
+    const age = last ? int(last.age_ms) : "—";
+    let title, detail;
+    switch (state) {
+      case "LIVE":
+        title = "LIVE";
+        detail = "real picture, " + age + " ms old" + (videoFrames === 0 ? " (no picture decoded yet)" : "");
+        break;
+      case "PREDICTED":
+        title = "PREDICTED";
+        detail = "— synthetic image, " + age + " ms since last real frame";
+        break;
+      case "STALE":
+        title = "STALE";
+        detail = "— picture is " + age + " ms old, do not rely on it";
+        break;
+      default:
+        title = "NO SIGNAL / UNKNOWN";
+        switch (reason) {
+          case "meta-silent":
+            detail = "— no status from the relay for " + int(metaAge) + " ms; treat the picture as unknown";
+            break;
+          case "video-frozen":
+            detail = "— the picture stopped changing " + int(now - lastVideoAt) + " ms ago; treat it as unknown";
+            break;
+          case "bad-state":
+            detail = "— the relay sent a state this page does not know";
+            break;
+          case "no-status":
+            detail = "— connected, waiting for the first status message";
+            break;
+          default:
+            detail = "— connecting to the relay; treat any picture as unknown";
+        }
+    }
+    setText("banner-title", title);
+    setText("banner-detail", detail);
+    setText("v-state", state === "NOSIGNAL" ? "NO SIGNAL" : state);
+    setText("v-msgage", isFinite(metaAge) ? int(metaAge) : "—");
+  }
+
+  function onMeta(data) {
+    if (typeof data !== "string") data = new TextDecoder().decode(data);
+    let m;
+    try { m = JSON.parse(data); } catch (e) { return; }
+    if (!m || typeof m !== "object" || typeof m.seq !== "number") return;
+    // unordered channel: keep only newer messages (a big step back is a relay restart)
+    if (lastSeq >= 0 && m.seq <= lastSeq && lastSeq - m.seq < 1000) return;
+    lastSeq = m.seq;
+    last = m;
+    lastMetaAt = performance.now();
+    window.__console.meta = m;
+    setText("v-age", int(m.age_ms));
+    setText("v-conf", fix(m.confidence, 2));
+    setText("v-cutoff", fix(m.cutoff, 2));
+    setText("v-profile", typeof m.profile === "string" ? m.profile : "—");
+    const l = m.link || {};
+    setText("l-loss", fix(l.loss_pct, 1));
+    setText("l-jitter", int(l.jitter_ms));
+    setText("l-delay", int(l.delay_ms));
+    setText("l-kf", int(l.keyframe_requests));
+    setText("l-frames", int(l.frames_in));
+    evaluate();
+  }
+
+  function onVideoFrame() {
+    videoFrames++;
+    lastVideoAt = performance.now();
+    video.requestVideoFrameCallback(onVideoFrame);
+  }
+  if ("requestVideoFrameCallback" in HTMLVideoElement.prototype) {
+    video.requestVideoFrameCallback(onVideoFrame);
+  } else {
+    let seen = 0;
+    setInterval(() => {
+      const q = video.getVideoPlaybackQuality ? video.getVideoPlaybackQuality().totalVideoFrames : 0;
+      if (q !== seen) { seen = q; videoFrames = q; lastVideoAt = performance.now(); }
+    }, WATCH_MS);
+  }
+
+  // ---- WebRTC ----
+
+  function gatheringDone(p, ms) {
+    return new Promise((resolve) => {
+      if (p.iceGatheringState === "complete") return resolve();
+      const t = setTimeout(resolve, ms);
+      p.addEventListener("icegatheringstatechange", () => {
+        if (p.iceGatheringState === "complete") { clearTimeout(t); resolve(); }
+      });
+    });
+  }
+
+  function hangUp() {
+    if (resourceURL) {
+      api(resourceURL, { method: "DELETE", keepalive: true }).catch(() => {});
+      resourceURL = null;
+    }
+    if (pc) { pc.close(); pc = null; }
+  }
+
+  function scheduleReconnect() {
+    if (stopped) return;
+    clearTimeout(reconnectTimer);
+    reconnectTimer = setTimeout(connect, RECONNECT_MS);
+  }
+
+  async function connect() {
+    hangUp();
+    if (!token) {
+      setConn("error", "no token: open the console with the URL that ends in #token=…");
+      return;
+    }
+    setConn("connecting");
+    const p = new RTCPeerConnection({ iceServers: [] });
+    pc = p;
+    p.addTransceiver("video", { direction: "recvonly" });
+    const dc = p.createDataChannel("meta", { negotiated: true, id: 0, ordered: false, maxRetransmits: 0 });
+    dc.onmessage = (ev) => onMeta(ev.data);
+    p.ontrack = (ev) => {
+      video.srcObject = ev.streams[0] || new MediaStream([ev.track]);
+      video.play().catch(() => {});
+    };
+    p.onconnectionstatechange = () => {
+      if (p !== pc) return;
+      setConn(p.connectionState);
+      if (p.connectionState === "failed" || p.connectionState === "closed") scheduleReconnect();
+    };
+    try {
+      await p.setLocalDescription(await p.createOffer());
+      await gatheringDone(p, 2000);
+      const res = await api("/api/view", {
+        method: "POST", headers: { "Content-Type": "application/sdp" }, body: p.localDescription.sdp,
+      });
+      if (res.status === 401) {
+        stopped = true;
+        throw new Error(await errorText(res));
+      }
+      if (res.status !== 201) throw new Error(await errorText(res));
+      resourceURL = res.headers.get("Location");
+      await p.setRemoteDescription({ type: "answer", sdp: await res.text() });
+    } catch (e) {
+      setConn("error", e.message);
+      if (p === pc) { p.close(); pc = null; }
+      scheduleReconnect();
+    }
+  }
+
+  // ---- cutoff control ----
+
+  const range = $("cutoff-range");
+  const number = $("cutoff-number");
+  const select = $("profile");
+
+  function cutoffMessage(text, isError) {
+    setText("cutoff-msg", text);
+    if (isError) body.dataset.cutoffError = text; else delete body.dataset.cutoffError;
+  }
+
+  function applyControlState(st) {
+    limits = st.limits;
+    for (const el of [range, number]) {
+      el.min = String(limits.min_cutoff);
+      el.max = String(limits.max_cutoff);
+    }
+    range.value = String(st.cutoff);
+    number.value = st.cutoff.toFixed(2);
+    select.replaceChildren(...st.profiles.map((p) => {
+      const o = document.createElement("option");
+      o.value = p.name;
+      o.textContent = p.name + " (" + p.cutoff.toFixed(2) + ")";
+      o.selected = p.name === st.profile;
+      return o;
+    }));
+    setText("limits", "administrator limits: " + limits.min_cutoff.toFixed(2) + " – " + limits.max_cutoff.toFixed(2));
+    body.dataset.cutoff = String(st.cutoff);
+    body.dataset.profile = st.profile;
+    body.dataset.minCutoff = String(limits.min_cutoff);
+    body.dataset.maxCutoff = String(limits.max_cutoff);
+  }
+
+  async function loadState() {
+    if (!token) return;
+    try {
+      const res = await api("/api/state");
+      if (!res.ok) { cutoffMessage(await errorText(res), true); return; }
+      applyControlState(await res.json());
+    } catch (e) {
+      cutoffMessage("cannot read the control state: " + e.message, true);
+    }
+  }
+
+  async function postCutoff(req) {
+    try {
+      const res = await api("/api/cutoff", {
+        method: "POST", headers: { "Content-Type": "application/json" }, body: JSON.stringify(req),
+      });
+      if (!res.ok) { cutoffMessage(await errorText(res), true); return; }
+      const st = await res.json();
+      applyControlState(st);
+      cutoffMessage("profile " + st.profile + " in use, cutoff " + st.cutoff.toFixed(2), false);
+    } catch (e) {
+      cutoffMessage("not applied: " + e.message, true);
+    }
+  }
+
+  range.addEventListener("input", () => { number.value = Number(range.value).toFixed(2); });
+  number.addEventListener("input", () => {
+    const v = Number(number.value);
+    if (number.value !== "" && v >= limits.min_cutoff && v <= limits.max_cutoff) range.value = String(v);
+  });
+  select.addEventListener("change", () => postCutoff({ profile: select.value }));
+  $("cutoff-apply").addEventListener("click", () => {
+    const text = number.value.trim();
+    const v = Number(text);
+    if (text === "" || !isFinite(v)) {
+      cutoffMessage("enter a number between " + limits.min_cutoff.toFixed(2) + " and " + limits.max_cutoff.toFixed(2), true);
+    } else if (v < limits.min_cutoff) {
+      cutoffMessage(text + " is below the administrator's minimum " + limits.min_cutoff.toFixed(2) + "; not applied", true);
+    } else if (v > limits.max_cutoff) {
+      cutoffMessage(text + " is above the administrator's maximum " + limits.max_cutoff.toFixed(2) + "; not applied", true);
+    } else {
+      postCutoff({ profile: select.value, cutoff: v });
+    }
+  });
+
+  window.addEventListener("pagehide", () => { stopped = true; hangUp(); });
+  setInterval(evaluate, WATCH_MS);
+  evaluate();
+  loadState();
+  connect();
+})();
