@@ -18,10 +18,14 @@ import (
 func noiseFrame(t testing.TB, w, h int, seed uint64) gocv.Mat {
 	t.Helper()
 	r := rand.New(rand.NewPCG(seed, 7))
-	b := make([]byte, w*h*3)
-	for i := range b {
-		b[i] = byte(r.IntN(256))
+	b := make([]byte, w*h*3+8)
+	for i := 0; i < w*h*3; i += 8 {
+		v := r.Uint64()
+		for k := 0; k < 8; k++ {
+			b[i+k] = byte(v >> (8 * k))
+		}
 	}
+	b = b[:w*h*3]
 	m, err := gocv.NewMatFromBytes(h, w, gocv.MatTypeCV8UC3, b)
 	if err != nil {
 		t.Fatal(err)

@@ -1,0 +1,262 @@
+package predictor
+
+import (
+	"fmt"
+
+	"time"
+
+	"gocv.io/x/gocv"
+
+	"stopgap/filter"
+)
+
+// FillerConfig configures a Filler.
+type FillerConfig struct {
+	// Camera of the video; frames must be Width x Height CV_8UC3 (BGR).
+	Camera Camera
+	// Policy decides PREDICTED versus STALE. Its zero value never predicts;
+	// use DefaultPolicy() for the documented defaults.
+	Policy Policy
+	// Motion gives the vehicle motion over a gap (usually *filter.Filter).
+	// Required.
+	Motion MotionSource
+	// Confidence turns motion covariance into confidence; zero = defaults.
+	Confidence ConfidenceModel
+	// Synth configures the warp; zero = defaults.
+	Synth SynthOptions
+}
+
+// Tick reports what the Filler put on screen for one display tick.
+type Tick struct {
+	State  State
+	Method Method
+	// TargetUs is the vehicle-clock time the displayed frame stands for;
+	// CaptureUs the capture time of the real frame it was made from.
+	TargetUs, CaptureUs int64
+	// AgeMs = (TargetUs - CaptureUs) / 1000: how old the real picture is.
+	AgeMs float64
+	// Confidence in [0, 1] and the worst 1-sigma pixel error behind it
+	// (ConfidenceModel). 1 and 0 for LIVE; 0 when the motion was unusable.
+	Confidence, SigmaPx float64
+	// UnfilledFraction of the output pixels had no source (PREDICTED only).
+	UnfilledFraction float64
+	// LabelFraction of the output pixels was overwritten by the label
+	// (border and text box; 0 for LIVE).
+	LabelFraction float64
+	// SynthDuration is the time spent producing the output image (warp or
+	// desaturation, label, copies), measured with Filler.Now.
+	SynthDuration time.Duration
+	// Motion is the motion from CaptureUs to TargetUs used for the tick.
+	Motion filter.Motion
+	// MotionErr is why no usable motion was available, if so; the tick is
+	// then STALE with confidence 0 (not a failure of the call).
+	MotionErr error
+}
+
+// Filler is the per-tick gap filler shared by the offline replay and the
+// live relay. It keeps a copy of the last real frame and, for each display
+// tick, either passes a real frame through unlabelled (LIVE) or fills the gap
+// with a labelled PREDICTED or STALE frame.
+//
+// Buffers: the Filler owns the copy of the last real frame and its scratch
+// images (Close frees them). Every dst and Unlabelled is owned by the caller;
+// they are allocated only when their size or type differ from the camera's,
+// so reusing them makes the per-tick path allocation-free in OpenCV. Not safe
+// for concurrent use.
+type Filler struct {
+	// Now is the clock for Tick.SynthDuration; nil means time.Now.
+	Now func() time.Time
+	// Unlabelled, when non-nil, receives on every successful tick the image
+	// before labelling and desaturation: the real frame (LIVE), the
+	// synthesized frame (PREDICTED) or the held frame unmoved (STALE). It is
+	// not written before the first real frame. Used for scoring.
+	Unlabelled *gocv.Mat
+
+	cfg    FillerConfig
+	synth  *Synthesizer
+	label  *Labeler
+	last   gocv.Mat
+	lastUs int64
+	have   bool
+	gray   gocv.Mat
+	closed bool
+}
+
+// NewFiller validates cfg and allocates the buffers.
+func NewFiller(cfg FillerConfig) (*Filler, error) {
+	if cfg.Motion == nil {
+		return nil, fmt.Errorf("FillerConfig.Motion is nil; pass the *filter.Filter fed with telemetry: %w", ErrInvalidConfig)
+	}
+	if err := cfg.Policy.Validate(); err != nil {
+		return nil, err
+	}
+	if err := cfg.Confidence.Validate(); err != nil {
+		return nil, err
+	}
+	s, err := NewSynthesizer(cfg.Camera, cfg.Synth)
+	if err != nil {
+		return nil, err
+	}
+	l, err := NewLabeler(cfg.Camera.Width, cfg.Camera.Height)
+	if err != nil {
+		s.Close()
+		return nil, err
+	}
+	return &Filler{
+		cfg:   cfg,
+		synth: s,
+		label: l,
+		last:  gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8UC3),
+		gray:  gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8U),
+	}, nil
+}
+
+// Close frees the Filler's buffers. Safe to call more than once.
+func (f *Filler) Close() error {
+	if f.closed {
+		return nil
+	}
+	f.closed = true
+	f.synth.Close()
+	f.label.Close()
+	f.last.Close()
+	f.gray.Close()
+	return nil
+}
+
+// LastCaptureUs returns the capture time of the held real frame; ok is false
+// before the first one.
+func (f *Filler) LastCaptureUs() (us int64, ok bool) { return f.lastUs, f.have }
+
+func (f *Filler) now() time.Time {
+	if f.Now != nil {
+		return f.Now()
+	}
+	return time.Now()
+}
+
+// Live handles a real frame that arrived and is due: dst receives a copy,
+// unlabelled, and the frame is remembered for later gaps unless it is older
+// than the one already held (a late frame is shown but not kept).
+func (f *Filler) Live(frame gocv.Mat, captureUs int64, dst *gocv.Mat) (Tick, error) {
+	tick := Tick{State: StateLive, TargetUs: captureUs, CaptureUs: captureUs, Confidence: 1}
+	if f.closed {
+		return tick, ErrClosed
+	}
+	c := f.cfg.Camera
+	if err := checkFrame("live frame", &frame, c.Width, c.Height); err != nil {
+		return tick, err
+	}
+	if !matUsable(dst) {
+		return tick, fmt.Errorf("destination is nil or a zero gocv.Mat; create it with gocv.NewMat(): %w", ErrFrameFormat)
+	}
+	start := f.now()
+	if !f.have || captureUs >= f.lastUs {
+		frame.CopyTo(&f.last)
+		f.lastUs, f.have = captureUs, true
+	}
+	frame.CopyTo(dst)
+	if f.Unlabelled != nil {
+		if !matUsable(f.Unlabelled) {
+			return tick, fmt.Errorf("Filler.Unlabelled is a zero gocv.Mat; create it with gocv.NewMat(): %w", ErrFrameFormat)
+		}
+		frame.CopyTo(f.Unlabelled)
+	}
+	tick.SynthDuration = f.now().Sub(start)
+	return tick, nil
+}
+
+// Missing fills a tick with no real frame using MethodGround. See MissingWith.
+func (f *Filler) Missing(targetUs int64, dst *gocv.Mat) (Tick, error) {
+	return f.MissingWith(MethodGround, targetUs, dst)
+}
+
+// MissingWith fills a display tick at vehicle time targetUs for which no real
+// frame is due-and-here:
+//
+//  1. age = targetUs - capture time of the held frame;
+//  2. motion = Motion.Relative(capture, targetUs); confidence from its
+//     covariance (a failing or invalid motion gives confidence 0 and sets
+//     Tick.MotionErr);
+//  3. Policy.Decide; MethodHold never yields PREDICTED;
+//  4. PREDICTED: dst = held frame warped by method, labelled;
+//     STALE: dst = held frame desaturated, dimmed and labelled.
+//
+// Before the first real frame dst receives a labelled "no picture" frame, the
+// tick is STALE, and the error is ErrNoFrame. A targetUs before the held
+// frame's capture time returns ErrTargetBeforeFrame and leaves dst untouched.
+func (f *Filler) MissingWith(method Method, targetUs int64, dst *gocv.Mat) (Tick, error) {
+	tick := Tick{Method: method, TargetUs: targetUs, CaptureUs: f.lastUs}
+	if f.closed {
+		return tick, ErrClosed
+	}
+	if method != MethodGround && method != MethodRotation && method != MethodHold {
+		return tick, fmt.Errorf("method %d: %w", int(method), ErrInvalidMethod)
+	}
+	if !matUsable(dst) {
+		return tick, fmt.Errorf("destination is nil or a zero gocv.Mat; create it with gocv.NewMat(): %w", ErrFrameFormat)
+	}
+	if f.Unlabelled != nil && !matUsable(f.Unlabelled) {
+		return tick, fmt.Errorf("Filler.Unlabelled is a zero gocv.Mat; create it with gocv.NewMat(): %w", ErrFrameFormat)
+	}
+	if !f.have {
+		start := f.now()
+		f.last.CopyTo(dst) // only to give dst the camera's size and type
+		frac, err := f.label.DrawNoPicture(dst)
+		if err != nil {
+			return tick, err
+		}
+		tick.State, tick.LabelFraction = StateStale, frac
+		tick.SynthDuration = f.now().Sub(start)
+		return tick, fmt.Errorf("gap tick at %d us: %w", targetUs, ErrNoFrame)
+	}
+	if targetUs < f.lastUs {
+		return tick, fmt.Errorf("gap tick at %d us, held frame captured at %d us: %w", targetUs, f.lastUs, ErrTargetBeforeFrame)
+	}
+	tick.AgeMs = float64(targetUs-f.lastUs) / 1000
+	m, err := f.cfg.Motion.Relative(f.lastUs, targetUs)
+	if err == nil {
+		tick.Motion = m
+		tick.Confidence, tick.SigmaPx, err = f.cfg.Confidence.Confidence(f.cfg.Camera, m)
+	}
+	if err != nil {
+		tick.MotionErr = fmt.Errorf("motion %d..%d us: %w", f.lastUs, targetUs, err)
+		tick.Confidence, tick.SigmaPx = 0, 0
+	}
+	tick.State = f.cfg.Policy.Decide(false, tick.Confidence, tick.AgeMs)
+	if method == MethodHold && tick.State == StatePredicted {
+		tick.State = StateStale
+	}
+
+	start := f.now()
+	if tick.State == StatePredicted {
+		var syn Synthesis
+		if method == MethodRotation {
+			syn, err = f.synth.SynthesizeRotation(f.last, tick.Motion, dst)
+		} else {
+			syn, err = f.synth.Synthesize(f.last, tick.Motion, dst)
+		}
+		if err != nil {
+			return tick, err
+		}
+		tick.UnfilledFraction = syn.UnfilledFraction
+		if f.Unlabelled != nil {
+			dst.CopyTo(f.Unlabelled)
+		}
+	} else {
+		if f.Unlabelled != nil {
+			f.last.CopyTo(f.Unlabelled)
+		}
+		f.desaturate(dst)
+	}
+	tick.LabelFraction, err = f.label.Draw(dst, tick.State, tick.AgeMs, tick.Confidence)
+	tick.SynthDuration = f.now().Sub(start)
+	return tick, err
+}
+
+// desaturate writes the held frame to dst in grey at half brightness.
+func (f *Filler) desaturate(dst *gocv.Mat) {
+	gocv.CvtColor(f.last, &f.gray, gocv.ColorBGRToGray)
+	f.gray.ConvertToWithParams(&f.gray, gocv.MatTypeCV8U, 0.5, 0)
+	gocv.CvtColor(f.gray, dst, gocv.ColorGrayToBGR)
+}
