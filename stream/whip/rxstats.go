@@ -17,8 +17,8 @@ type rxStats struct {
 	clockRateHz float64
 	haveTransit bool
 	firstArr    time.Time // origin for arrival times in RTP units
-	transit     float64 // previous relative transit time in RTP units
-	jitter      float64 // RFC 3550 A.8 estimate, RTP timestamp units
+	transit     float64   // previous relative transit time in RTP units
+	jitter      float64   // RFC 3550 A.8 estimate, RTP timestamp units
 }
 
 // add records one packet: its sequence number, RTP timestamp, payload length and arrival time.
