@@ -883,14 +883,14 @@ func fmtFloat(v Float, digits int) string {
 // package keeps no mutable state).
 func newReportTemplate() (*template.Template, error) {
 	return template.New("report").Funcs(template.FuncMap{
-	"f": fmtFloat,
-	"pct": func(v Float) string {
-		if math.IsNaN(float64(v)) {
-			return "n/a"
-		}
-		return strconv.FormatFloat(100*float64(v), 'f', 1, 64) + " %"
-	},
-}).Parse(`<!DOCTYPE html>
+		"f": fmtFloat,
+		"pct": func(v Float) string {
+			if math.IsNaN(float64(v)) {
+				return "n/a"
+			}
+			return strconv.FormatFloat(100*float64(v), 'f', 1, 64) + " %"
+		},
+	}).Parse(`<!DOCTYPE html>
 <html lang="en">
 <head>
 <meta charset="utf-8">
