@@ -66,8 +66,8 @@ type quad struct {
 	ua       vec3
 	wM, hM   float64
 	levels   []gocv.Mat
-	texW0    float64 // level-0 texture width in texels
-	texH0    float64 // level-0 texture height in texels
+	texW0    float64   // level-0 texture width in texels
+	texH0    float64   // level-0 texture height in texels
 	offs     []float64 // per level: level-0 texel offset of the view's column 0 from the quad's left edge
 	centre   vec3
 	isMarker bool // test hook: not used by the generator
