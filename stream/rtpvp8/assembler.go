@@ -497,11 +497,12 @@ func (a *Assembler) Push(pkt *rtp.Packet, arrival time.Time) error {
 			// before the first one seen moves the start back.
 			a.head = ext
 		} else {
-			a.stats.TooOld++
 			a.oldStreak++
 			if a.oldStreak < a.cfg.ResyncPackets {
+				a.stats.TooOld++
 				return nil
 			}
+			// This packet starts the new sequence and is accepted below.
 			a.resync(seq, arrival)
 			ext = a.unwrap(seq)
 		}
@@ -524,7 +525,8 @@ func (a *Assembler) Push(pkt *rtp.Packet, arrival time.Time) error {
 	s.ts = pkt.Timestamp
 	s.desc = d
 	s.arrival = arrival
-	s.data = append(s.data[:0], pkt.Payload[n:]...)
+	s.data = grow(s.data, len(pkt.Payload)-n, a.cfg.MaxPayloadBytes)
+	copy(s.data, pkt.Payload[n:])
 	if ext > a.newest {
 		a.newest = ext
 	}
@@ -846,6 +848,11 @@ func (a *Assembler) skipTo(end int64, reason LossReason, now time.Time) {
 // deliver assembles and delivers the frame from head to last.
 func (a *Assembler) deliver(last int64, noMarker bool, now time.Time) {
 	first := a.at(a.head)
+	size := 0
+	for e := a.head; e <= last; e++ {
+		size += len(a.at(e).data)
+	}
+	a.frame = grow(a.frame, size, a.cfg.MaxFrameBytes)
 	buf := a.frame[:0]
 	f := Frame{
 		RTPTimestamp:  first.ts,
@@ -872,7 +879,6 @@ func (a *Assembler) deliver(last int64, noMarker bool, now time.Time) {
 			f.ArrivalLast = p.arrival
 		}
 	}
-	a.frame = buf
 	h, err := ParseFrameHeader(buf)
 	if err != nil {
 		a.skipTo(last+1, LossBadFrame, now)
@@ -899,4 +905,26 @@ func (a *Assembler) deliver(last int64, noMarker bool, now time.Time) {
 	}
 	a.stats.Frames++
 	a.sink.OnFrame(f)
+}
+
+// grow returns b resized to n octets, reusing its array when it is large
+// enough; a new array has capacity min(max(n, 2*cap(b), 256), limit) (n is
+// never above limit), so capacities never exceed the configured limits.
+func grow(b []byte, n, limit int) []byte {
+	if n <= cap(b) {
+		return b[:n]
+	}
+	c := max(n, 2*cap(b), 256)
+	c = min(c, limit)
+	return make([]byte, n, max(c, n))
+}
+
+// memBytes returns the capacity of all buffers holding packet and frame
+// data, for tests of the memory bound.
+func (a *Assembler) memBytes() int {
+	n := cap(a.frame)
+	for i := range a.slots {
+		n += cap(a.slots[i].data)
+	}
+	return n
 }
