@@ -45,6 +45,8 @@ type Labeler struct {
 	text     [128]byte
 	scale    float64
 	thick    int
+	lineH    int // text line height including the descender
+	capH     int // height above the baseline
 	closed   bool
 }
 
@@ -60,6 +62,11 @@ func NewLabeler(width, height int) (*Labeler, error) {
 	l := &Labeler{w: width, h: height, bw: bw}
 	l.scale = math.Max(0.3, 0.8*float64(height)/720)
 	l.thick = max(1, int(math.Round(2*float64(height)/720)))
+	// OpenCV's text height depends on font and scale only, not on the
+	// string, so it is measured once here; per label only widths are asked
+	// (GetTextSizeWithBaseline would heap-allocate its out parameter).
+	sz, base := gocv.GetTextSizeWithBaseline("Ag", gocv.FontHersheySimplex, l.scale, l.thick)
+	l.capH, l.lineH = sz.Y, sz.Y+base
 	l.pattern = gocv.NewMatWithSize(height, width, gocv.MatTypeCV8UC3)
 	p, err := l.pattern.DataPtrUint8()
 	if err != nil {
@@ -173,9 +180,8 @@ func (l *Labeler) solidBorder(img *gocv.Mat, c color.RGBA) {
 // returns the box area in pixels.
 func (l *Labeler) box(img *gocv.Mat, centred bool, bg, fg color.RGBA, line1, line2 string) int {
 	font := gocv.FontHersheySimplex
-	s1, base1 := gocv.GetTextSizeWithBaseline(line1, font, l.scale, l.thick)
-	lineH := s1.Y + base1
-	tw, th := s1.X, lineH
+	lineH := l.lineH
+	tw, th := gocv.GetTextSize(line1, font, l.scale, l.thick).X, lineH
 	if line2 != "" {
 		s2 := gocv.GetTextSize(line2, font, l.scale, l.thick)
 		tw = max(tw, s2.X)
@@ -199,9 +205,9 @@ func (l *Labeler) box(img *gocv.Mat, centred bool, bg, fg color.RGBA, line1, lin
 	roi := img.Region(r)
 	defer roi.Close()
 	roi.SetTo(gocv.NewScalar(float64(bg.B), float64(bg.G), float64(bg.R), 0))
-	gocv.PutTextWithParams(&roi, line1, image.Pt(pad, pad+s1.Y), font, l.scale, fg, l.thick, gocv.LineAA, false)
+	gocv.PutTextWithParams(&roi, line1, image.Pt(pad, pad+l.capH), font, l.scale, fg, l.thick, gocv.LineAA, false)
 	if line2 != "" {
-		gocv.PutTextWithParams(&roi, line2, image.Pt(pad, pad+s1.Y+lineH+lineH/2), font, l.scale, fg, l.thick, gocv.LineAA, false)
+		gocv.PutTextWithParams(&roi, line2, image.Pt(pad, pad+l.capH+lineH+lineH/2), font, l.scale, fg, l.thick, gocv.LineAA, false)
 	}
 	return r.Dx() * r.Dy()
 }
