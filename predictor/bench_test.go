@@ -7,8 +7,6 @@ import (
 	"time"
 
 	"gocv.io/x/gocv"
-
-	"stopgap/predictor/internal/cvref"
 )
 
 // benchCam is a 1280x720 forward camera without roll (the horizon band is
@@ -20,8 +18,8 @@ func benchCam() Camera {
 
 // pinOneThread sets OpenCV to one thread for the benchmark and restores it.
 func pinOneThread(b *testing.B) {
-	prev := cvref.SetNumThreads(1)
-	b.Cleanup(func() { cvref.SetNumThreads(prev) })
+	prev := SetOpenCVThreads(1)
+	b.Cleanup(func() { SetOpenCVThreads(prev) })
 }
 
 // BenchmarkWarpPerspectiveBare1280x720 is the reference cost: one bilinear
