@@ -135,46 +135,71 @@ func BGRToI420(dst *Image, bgr []byte, width, height int) error {
 
 // bgrToI420 converts bgr (validated, exactly dst's size) into dst's planes,
 // which may have any valid strides (the encoder passes a view of C memory).
+// Full 2x2 blocks take a fast path; the odd last column and row reuse the
+// general block code. Both compute the same formulas.
 func bgrToI420(dst *Image, bgr []byte) {
 	w, h := dst.Width, dst.Height
 	rowBytes := w * 3
+	cw := (w + 1) / 2
 	for y := 0; y < h; y += 2 {
 		r0 := bgr[y*rowBytes : y*rowBytes+rowBytes]
-		r1 := r0
-		rows := 1
-		if y+1 < h {
-			r1 = bgr[(y+1)*rowBytes : (y+1)*rowBytes+rowBytes]
-			rows = 2
-		}
 		y0 := dst.Y[y*dst.YStride : y*dst.YStride+w]
-		y1 := y0
-		if rows == 2 {
-			y1 = dst.Y[(y+1)*dst.YStride : (y+1)*dst.YStride+w]
-		}
 		cy := y / 2
-		cw := (w + 1) / 2
 		uRow := dst.U[cy*dst.UVStride : cy*dst.UVStride+cw]
 		vRow := dst.V[cy*dst.UVStride : cy*dst.UVStride+cw]
-		for cx := 0; cx < cw; cx++ {
-			x := cx * 2
-			var sb, sg, sr, n int32
-			for dx := 0; dx < 2 && x+dx < w; dx++ {
-				i := (x + dx) * 3
-				b, g, r := int32(r0[i]), int32(r0[i+1]), int32(r0[i+2])
-				y0[x+dx] = uint8((yR*r + yG*g + yB*b + 16<<fixShift + fixHalf) >> fixShift)
-				sb, sg, sr, n = sb+b, sg+g, sr+r, n+1
-				if rows == 2 {
-					b, g, r = int32(r1[i]), int32(r1[i+1]), int32(r1[i+2])
-					y1[x+dx] = uint8((yR*r + yG*g + yB*b + 16<<fixShift + fixHalf) >> fixShift)
-					sb, sg, sr, n = sb+b, sg+g, sr+r, n+1
-				}
+		if y+1 >= h {
+			for cx := 0; cx < cw; cx++ {
+				bgrBlock(r0, r0, y0, y0, 1, uRow, vRow, cx, w)
 			}
-			// Divide the sums by n with rounding inside the fixed point.
-			den := n << fixShift
-			uRow[cx] = uint8(divRound(uR*sr+uG*sg+uB*sb, den) + 128)
-			vRow[cx] = uint8(divRound(vR*sr+vG*sg+vB*sb, den) + 128)
+			continue
+		}
+		r1 := bgr[(y+1)*rowBytes : (y+1)*rowBytes+rowBytes]
+		y1 := dst.Y[(y+1)*dst.YStride : (y+1)*dst.YStride+w]
+		full := w / 2
+		for cx := 0; cx < full; cx++ {
+			x := cx * 2
+			i := x * 3
+			p := r0[i : i+6 : i+6]
+			q := r1[i : i+6 : i+6]
+			b0, g0, rr0 := int32(p[0]), int32(p[1]), int32(p[2])
+			b1, g1, rr1 := int32(p[3]), int32(p[4]), int32(p[5])
+			b2, g2, rr2 := int32(q[0]), int32(q[1]), int32(q[2])
+			b3, g3, rr3 := int32(q[3]), int32(q[4]), int32(q[5])
+			ya := y0[x : x+2 : x+2]
+			yb := y1[x : x+2 : x+2]
+			ya[0] = uint8((yR*rr0 + yG*g0 + yB*b0 + 16<<fixShift + fixHalf) >> fixShift)
+			ya[1] = uint8((yR*rr1 + yG*g1 + yB*b1 + 16<<fixShift + fixHalf) >> fixShift)
+			yb[0] = uint8((yR*rr2 + yG*g2 + yB*b2 + 16<<fixShift + fixHalf) >> fixShift)
+			yb[1] = uint8((yR*rr3 + yG*g3 + yB*b3 + 16<<fixShift + fixHalf) >> fixShift)
+			sb, sg, sr := b0+b1+b2+b3, g0+g1+g2+g3, rr0+rr1+rr2+rr3
+			uRow[cx] = uint8(divRound(uR*sr+uG*sg+uB*sb, 4<<fixShift) + 128)
+			vRow[cx] = uint8(divRound(vR*sr+vG*sg+vB*sb, 4<<fixShift) + 128)
+		}
+		if full < cw {
+			bgrBlock(r0, r1, y0, y1, 2, uRow, vRow, full, w)
 		}
 	}
+}
+
+// bgrBlock converts the (up to) 2x2 block at chroma column cx from rows r0
+// and r1 (rows = 1 or 2) of a picture w pixels wide.
+func bgrBlock(r0, r1, y0, y1 []byte, rows int, uRow, vRow []byte, cx, w int) {
+	x := cx * 2
+	var sb, sg, sr, n int32
+	for dx := 0; dx < 2 && x+dx < w; dx++ {
+		i := (x + dx) * 3
+		b, g, r := int32(r0[i]), int32(r0[i+1]), int32(r0[i+2])
+		y0[x+dx] = uint8((yR*r + yG*g + yB*b + 16<<fixShift + fixHalf) >> fixShift)
+		sb, sg, sr, n = sb+b, sg+g, sr+r, n+1
+		if rows == 2 {
+			b, g, r = int32(r1[i]), int32(r1[i+1]), int32(r1[i+2])
+			y1[x+dx] = uint8((yR*r + yG*g + yB*b + 16<<fixShift + fixHalf) >> fixShift)
+			sb, sg, sr, n = sb+b, sg+g, sr+r, n+1
+		}
+	}
+	den := n << fixShift
+	uRow[cx] = uint8(divRound(uR*sr+uG*sg+uB*sb, den) + 128)
+	vRow[cx] = uint8(divRound(vR*sr+vG*sg+vB*sb, den) + 128)
 }
 
 // divRound returns num/den rounded to nearest (den > 0).
@@ -199,16 +224,36 @@ func I420ToBGR(dst []byte, src *Image) error {
 		return fmt.Errorf("%w: BGR buffer has %d bytes, %dx%d needs %d", ErrImageSize, len(dst), w, h, w*h*3)
 	}
 	cw := src.ChromaWidth()
+	full := w / 2
 	for y := 0; y < h; y++ {
 		yRow := src.Y[y*src.YStride : y*src.YStride+w]
 		cy := y / 2
 		uRow := src.U[cy*src.UVStride : cy*src.UVStride+cw]
 		vRow := src.V[cy*src.UVStride : cy*src.UVStride+cw]
 		out := dst[y*w*3 : y*w*3+w*3]
-		for x := 0; x < w; x++ {
+		for cx := 0; cx < full; cx++ {
+			d := int32(uRow[cx]) - 128
+			e := int32(vRow[cx]) - 128
+			rd := crV*e + fixHalf
+			gd := -cgU*d - cgV*e + fixHalf
+			bd := cbU*d + fixHalf
+			x := cx * 2
+			yy := yRow[x : x+2 : x+2]
+			o := out[x*3 : x*3+6 : x*3+6]
+			c := (int32(yy[0]) - 16) * cY
+			o[0] = clamp8((c + bd) >> fixShift)
+			o[1] = clamp8((c + gd) >> fixShift)
+			o[2] = clamp8((c + rd) >> fixShift)
+			c = (int32(yy[1]) - 16) * cY
+			o[3] = clamp8((c + bd) >> fixShift)
+			o[4] = clamp8((c + gd) >> fixShift)
+			o[5] = clamp8((c + rd) >> fixShift)
+		}
+		if full < cw { // odd width: last column
+			x := w - 1
+			d := int32(uRow[cw-1]) - 128
+			e := int32(vRow[cw-1]) - 128
 			c := (int32(yRow[x]) - 16) * cY
-			d := int32(uRow[x>>1]) - 128
-			e := int32(vRow[x>>1]) - 128
 			o := out[x*3 : x*3+3 : x*3+3]
 			o[0] = clamp8((c + cbU*d + fixHalf) >> fixShift)
 			o[1] = clamp8((c - cgU*d - cgV*e + fixHalf) >> fixShift)

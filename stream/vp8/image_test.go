@@ -1,7 +1,10 @@
 package vp8
 
 import (
+	"bytes"
 	"errors"
+	"fmt"
+	"math/rand/v2"
 	"testing"
 )
 
@@ -126,5 +129,82 @@ func TestImageResizeReuses(t *testing.T) {
 	}
 	if &m.Y[0] != y {
 		t.Error("Resize to same size replaced the Y plane")
+	}
+}
+
+// refBGRToI420 and refI420ToBGR are the plain per-pixel forms of the
+// conversion formulas, to check the optimised loops against.
+func refBGRToI420(m *Image, bgr []byte) {
+	w, h := m.Width, m.Height
+	for cy := 0; cy < m.ChromaHeight(); cy++ {
+		for cx := 0; cx < m.ChromaWidth(); cx++ {
+			var sb, sg, sr, n int32
+			for dy := 0; dy < 2; dy++ {
+				for dx := 0; dx < 2; dx++ {
+					x, y := 2*cx+dx, 2*cy+dy
+					if x >= w || y >= h {
+						continue
+					}
+					i := (y*w + x) * 3
+					b, g, r := int32(bgr[i]), int32(bgr[i+1]), int32(bgr[i+2])
+					m.Y[y*m.YStride+x] = uint8((yR*r + yG*g + yB*b + 16<<fixShift + fixHalf) >> fixShift)
+					sb, sg, sr, n = sb+b, sg+g, sr+r, n+1
+				}
+			}
+			m.U[cy*m.UVStride+cx] = uint8(divRound(uR*sr+uG*sg+uB*sb, n<<fixShift) + 128)
+			m.V[cy*m.UVStride+cx] = uint8(divRound(vR*sr+vG*sg+vB*sb, n<<fixShift) + 128)
+		}
+	}
+}
+
+func refI420ToBGR(out []byte, m *Image) {
+	for y := 0; y < m.Height; y++ {
+		for x := 0; x < m.Width; x++ {
+			c := (int32(m.Y[y*m.YStride+x]) - 16) * cY
+			d := int32(m.U[y/2*m.UVStride+x/2]) - 128
+			e := int32(m.V[y/2*m.UVStride+x/2]) - 128
+			i := (y*m.Width + x) * 3
+			out[i] = clamp8((c + cbU*d + fixHalf) >> fixShift)
+			out[i+1] = clamp8((c - cgU*d - cgV*e + fixHalf) >> fixShift)
+			out[i+2] = clamp8((c + crV*e + fixHalf) >> fixShift)
+		}
+	}
+}
+
+func TestConversionsMatchReference(t *testing.T) {
+	rng := rand.New(rand.NewPCG(3, 4))
+	for _, sz := range [][2]int{{1, 1}, {2, 2}, {3, 1}, {1, 3}, {5, 3}, {16, 9}, {17, 11}} {
+		w, h := sz[0], sz[1]
+		t.Run(fmt.Sprintf("%dx%d", w, h), func(t *testing.T) {
+			bgr := make([]byte, w*h*3)
+			for i := range bgr {
+				bgr[i] = byte(rng.Uint32())
+			}
+			var got Image
+			if err := BGRToI420(&got, bgr, w, h); err != nil {
+				t.Fatal(err)
+			}
+			want, _ := NewImage(w, h)
+			refBGRToI420(want, bgr)
+			if !bytes.Equal(got.Y, want.Y) || !bytes.Equal(got.U, want.U) || !bytes.Equal(got.V, want.V) {
+				t.Fatal("BGRToI420 differs from the reference")
+			}
+			// Random planes (including values outside studio range) for
+			// the inverse, so clamping is exercised.
+			for i := range got.Y {
+				got.Y[i] = byte(rng.Uint32())
+			}
+			for i := range got.U {
+				got.U[i], got.V[i] = byte(rng.Uint32()), byte(rng.Uint32())
+			}
+			a, b := make([]byte, w*h*3), make([]byte, w*h*3)
+			if err := I420ToBGR(a, &got); err != nil {
+				t.Fatal(err)
+			}
+			refI420ToBGR(b, &got)
+			if !bytes.Equal(a, b) {
+				t.Fatal("I420ToBGR differs from the reference")
+			}
+		})
 	}
 }
