@@ -172,3 +172,5 @@ func FuzzMetaProfile(f *testing.F) {
 		}
 	})
 }
+
+func jsonUnmarshal(s string, v any) error { return json.Unmarshal([]byte(s), v) }

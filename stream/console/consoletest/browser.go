@@ -212,12 +212,13 @@ func (b *Browser) Open(url string, timeout time.Duration) error {
 	return nil
 }
 
-// Eval evaluates a JavaScript expression and decodes its JSON value into out
-// (a pointer), or ignores the value when out is nil.
+// Eval evaluates a JavaScript expression (awaiting it if it is a promise)
+// and decodes its JSON value into out (a pointer), or ignores the value when
+// out is nil.
 func (b *Browser) Eval(expr string, out any) error {
 	ctx, cancel := context.WithTimeout(b.ctx, 5*time.Second)
 	defer cancel()
-	raw, err := chromedp.Run(ctx, chromedp.Evaluate[json.RawMessage](expr))
+	raw, err := chromedp.Run(ctx, chromedp.Evaluate[json.RawMessage](expr, chromedp.EvalAwaitPromise))
 	if err != nil && !errors.Is(err, chromedp.ErrJSUndefined) {
 		return fmt.Errorf("consoletest: eval %q: %w", expr, err)
 	}

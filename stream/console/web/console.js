@@ -27,7 +27,7 @@
 
   const stateLog = [];
   window.__stateLog = stateLog;
-  window.__console = { meta: null };
+  window.__console = { meta: null, lastMetaMs: null };
 
   let token = takeToken();
   let shown = "";
@@ -145,6 +145,10 @@
     setText("banner-title", title);
     setText("banner-detail", detail);
     setText("v-state", state === "NOSIGNAL" ? "NO SIGNAL" : state);
+    if (last) {
+      // Without current status the real picture is at least this old.
+      setText("v-age", reason === "meta-silent" ? "≥ " + int(last.age_ms + metaAge) : int(last.age_ms));
+    }
     setText("v-msgage", isFinite(metaAge) ? int(metaAge) : "—");
   }
 
@@ -159,7 +163,7 @@
     last = m;
     lastMetaAt = performance.now();
     window.__console.meta = m;
-    setText("v-age", int(m.age_ms));
+    window.__console.lastMetaMs = lastMetaAt;
     setText("v-conf", fix(m.confidence, 2));
     setText("v-cutoff", fix(m.cutoff, 2));
     setText("v-profile", typeof m.profile === "string" ? m.profile : "—");

@@ -1,0 +1,355 @@
+package console_test
+
+import (
+	"context"
+	"encoding/binary"
+	"fmt"
+	"io"
+	"log/slog"
+	"net"
+	"net/http"
+	"os"
+	"path/filepath"
+	"regexp"
+	"slices"
+	"strings"
+	"sync"
+	"sync/atomic"
+	"testing"
+	"time"
+
+	"stopgap/stream/console"
+	"stopgap/stream/console/consoletest"
+)
+
+// readIVF returns the frames of an IVF file (32-byte file header, then per
+// frame a 12-byte header: 4-byte little-endian size, 8-byte timestamp).
+func readIVF(path string) ([][]byte, error) {
+	data, err := os.ReadFile(path)
+	if err != nil {
+		return nil, err
+	}
+	if len(data) < 32 || string(data[:4]) != "DKIF" || string(data[8:12]) != "VP80" {
+		return nil, fmt.Errorf("%s: not a VP8 IVF file", path)
+	}
+	var frames [][]byte
+	for off := 32; off < len(data); {
+		if off+12 > len(data) {
+			return nil, fmt.Errorf("%s: truncated frame header at byte %d", path, off)
+		}
+		n := int(binary.LittleEndian.Uint32(data[off:]))
+		off += 12
+		if n == 0 || off+n > len(data) {
+			return nil, fmt.Errorf("%s: bad frame size %d at byte %d", path, n, off-12)
+		}
+		frames = append(frames, data[off:off+n])
+		off += n
+	}
+	return frames, nil
+}
+
+// pump plays the clip in a loop at 30 fps and sends one meta message per
+// frame with the state the test sets. Keyframe requests restart the clip at
+// its next keyframe (every 10th frame).
+type pump struct {
+	c       *console.Console
+	frames  [][]byte
+	state   atomic.Int32 // console.State
+	video   atomic.Bool
+	meta    atomic.Bool
+	wantKey atomic.Bool
+	stop    chan struct{}
+	done    chan struct{}
+	errs    atomic.Int64
+}
+
+func (p *pump) run() {
+	defer close(p.done)
+	const period = time.Second / 30
+	tk := time.NewTicker(period)
+	defer tk.Stop()
+	idx, seq := 0, uint64(0)
+	lastState, ticksInState := console.StateInvalid, 0
+	for {
+		select {
+		case <-p.stop:
+			return
+		case <-tk.C:
+		}
+		if p.wantKey.Swap(false) && idx%10 != 0 {
+			idx = (idx/10 + 1) * 10 % len(p.frames)
+		}
+		if p.video.Load() {
+			if err := p.c.WriteFrame(p.frames[idx], period); err != nil {
+				p.errs.Add(1)
+			}
+			idx = (idx + 1) % len(p.frames)
+		}
+		st := console.State(p.state.Load())
+		if st != lastState {
+			lastState, ticksInState = st, 0
+		}
+		ticksInState++
+		age, conf := 35.0, 1.0
+		switch st {
+		case console.StatePredicted:
+			age, conf = 100+33.3*float64(ticksInState), 0.82
+		case console.StateStale:
+			age, conf = 600+33.3*float64(ticksInState), 0.31
+		}
+		seq++
+		if p.meta.Load() {
+			err := p.c.WriteMeta(console.Meta{
+				Seq: seq, TimeUs: int64(seq) * 33333, State: st, AgeMs: age, Confidence: conf,
+				Cutoff: p.c.Cutoff(), Profile: p.c.Profile(),
+				Link: console.LinkStats{LossPct: 7.5, JitterMs: 14, DelayMs: 92, KeyframeRequests: 4, FramesIn: seq},
+			})
+			if err != nil {
+				p.errs.Add(1)
+			}
+		}
+	}
+}
+
+// TestBrowserConsole drives the real page in headless Chromium over
+// WebRTC on loopback: state sequence, banners, caution, silence and frozen
+// picture detection, cutoff limits, screenshots.
+func TestBrowserConsole(t *testing.T) {
+	exe := consoletest.RequireChromium(t)
+	frames, err := readIVF("testdata/drive320.ivf")
+	if err != nil {
+		t.Fatal(err)
+	}
+	var changes []console.Profile
+	var changesMu sync.Mutex
+	p := &pump{frames: frames, stop: make(chan struct{}), done: make(chan struct{})}
+	c, err := console.New(console.Config{
+		Token:          "browser-test-token-0123456789",
+		Limits:         console.Limits{MinCutoff: 0.3, MaxCutoff: 0.9},
+		Profiles:       []console.Profile{{Name: "city", Cutoff: 0.6}, {Name: "highway", Cutoff: 0.8}},
+		KeyframeNeeded: func(console.KeyframeReason) { p.wantKey.Store(true) },
+		OnCutoffChange: func(name string, v float64) {
+			changesMu.Lock()
+			changes = append(changes, console.Profile{Name: name, Cutoff: v})
+			changesMu.Unlock()
+		},
+		Logger: slog.New(slog.NewTextHandler(io.Discard, nil)),
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer c.Close()
+	p.c = c
+	ln, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	srv := &http.Server{Handler: c, ReadHeaderTimeout: 5 * time.Second}
+	go srv.Serve(ln)
+	defer srv.Close()
+
+	ctx, cancel := context.WithTimeout(context.Background(), 60*time.Second)
+	defer cancel()
+	b, err := consoletest.Launch(ctx, consoletest.Options{ExecPath: exe})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer b.Close()
+	defer func() {
+		if t.Failed() {
+			for _, l := range b.ConsoleLog() {
+				t.Log("page:", l)
+			}
+		}
+	}()
+	dir := consoletest.ArtifactDir(t)
+	shot := func(name string) {
+		t.Helper()
+		path := filepath.Join(dir, name)
+		if err := b.Screenshot(path); err != nil {
+			t.Error(err)
+			return
+		}
+		t.Logf("screenshot: %s", path)
+	}
+	must := func(err error) {
+		t.Helper()
+		if err != nil {
+			t.Fatal(err)
+		}
+	}
+
+	p.state.Store(int32(console.StateLive))
+	p.video.Store(true)
+	p.meta.Store(true)
+	go p.run()
+	defer func() { close(p.stop); <-p.done }()
+
+	must(b.Open(c.PageURL("http://"+ln.Addr().String()), 10*time.Second))
+	var href string
+	must(b.Eval("location.href", &href))
+	if strings.Contains(href, "token") {
+		t.Errorf("token still in the address bar: %s", href)
+	}
+	must(b.WaitAttr("data-conn", "connected", 10*time.Second))
+	must(b.WaitState("LIVE", 5*time.Second))
+	// the video really decodes: frames presented at the clip's size
+	must(b.WaitFunc(func() (bool, string, error) {
+		var v struct{ W, N int }
+		err := b.Eval(`({W: document.getElementById("video").videoWidth, N: +document.body.dataset.videoFrames})`, &v)
+		return v.W == 320 && v.N >= 10, fmt.Sprintf("%+v", v), err
+	}, "decoded video 320 px wide, 10 frames presented", 10*time.Second))
+	must(b.CheckCautionVisible())
+	banner, _ := b.BannerText()
+	if !regexp.MustCompile(`^LIVE real picture, \d+ ms old$`).MatchString(banner) {
+		t.Errorf("LIVE banner %q", banner)
+	}
+	time.Sleep(300 * time.Millisecond)
+	shot("console-live.png")
+
+	// LIVE -> PREDICTED -> STALE -> LIVE
+	wantBanner := map[string]*regexp.Regexp{
+		"PREDICTED": regexp.MustCompile(`^PREDICTED — synthetic image, \d+ ms since last real frame$`),
+		"STALE":     regexp.MustCompile(`^STALE — picture is \d+ ms old, do not rely on it$`),
+		"LIVE":      regexp.MustCompile(`^LIVE real picture, \d+ ms old$`),
+	}
+	for _, st := range []console.State{console.StatePredicted, console.StateStale, console.StateLive} {
+		p.state.Store(int32(st))
+		must(b.WaitState(st.String(), 3*time.Second))
+		time.Sleep(400 * time.Millisecond)
+		if got, _ := b.State(); got != st.String() {
+			t.Errorf("state %s did not hold: now %s", st, got)
+		}
+		if err := b.CheckCautionVisible(); err != nil {
+			t.Errorf("in %s: %v", st, err)
+		}
+		banner, _ := b.BannerText()
+		if !wantBanner[st.String()].MatchString(banner) {
+			t.Errorf("%s banner %q", st, banner)
+		}
+		if st != console.StateLive {
+			shot("console-" + strings.ToLower(st.String()) + ".png")
+		}
+	}
+	log, err := b.StateLog()
+	must(err)
+	if got, want := consoletest.States(log), []string{"NOSIGNAL", "LIVE", "PREDICTED", "STALE", "LIVE"}; !slices.Equal(got, want) {
+		t.Fatalf("state log %v, want exactly %v (%+v)", got, want, log)
+	}
+
+	// Meta silence: the page itself must say NO SIGNAL after 500 ms.
+	p.meta.Store(false)
+	n0 := len(log)
+	must(b.WaitState("NOSIGNAL", 3*time.Second))
+	if r, _ := b.Attr("data-reason"); r != "meta-silent" {
+		t.Errorf("reason %q, want meta-silent", r)
+	}
+	log, _ = b.StateLog()
+	if len(log) != n0+1 {
+		t.Fatalf("state log after silence %v", consoletest.States(log))
+	}
+	// on the page's own clock: not before 500 ms of silence, and promptly
+	// after (the watchdog runs every 50 ms; 1 s leaves room for a loaded CI)
+	var lastMetaMs float64
+	must(b.Eval("window.__console.lastMetaMs", &lastMetaMs))
+	if d := log[n0].TMs - lastMetaMs; d < 500 || d > 1000 {
+		t.Errorf("NO SIGNAL shown %.0f ms after the last status message, want 500..1000", d)
+	} else {
+		t.Logf("NO SIGNAL shown %.0f ms after the last status message", d)
+	}
+	banner, _ = b.BannerText()
+	if !regexp.MustCompile(`^NO SIGNAL / UNKNOWN — no status from the relay for \d+ ms; treat the picture as unknown$`).MatchString(banner) {
+		t.Errorf("NO SIGNAL banner %q", banner)
+	}
+	must(b.CheckCautionVisible())
+	time.Sleep(200 * time.Millisecond)
+	shot("console-nosignal.png")
+
+	// Back to LIVE, then freeze only the picture: NO SIGNAL again.
+	p.meta.Store(true)
+	must(b.WaitState("LIVE", 3*time.Second))
+	p.video.Store(false)
+	must(b.WaitState("NOSIGNAL", 3*time.Second))
+	if r, _ := b.Attr("data-reason"); r != "video-frozen" {
+		t.Errorf("reason %q, want video-frozen", r)
+	}
+	p.video.Store(true)
+	p.wantKey.Store(true)
+	must(b.WaitState("LIVE", 5*time.Second))
+	log, _ = b.StateLog()
+	if got, want := consoletest.States(log), []string{"NOSIGNAL", "LIVE", "PREDICTED", "STALE", "LIVE", "NOSIGNAL", "LIVE", "NOSIGNAL", "LIVE"}; !slices.Equal(got, want) {
+		t.Errorf("full state log %v, want %v", got, want)
+	}
+
+	// Cutoff control: bounded by the administrator's limits.
+	var bounds struct{ RMin, RMax, NMin, NMax, Profile string }
+	must(b.Eval(`({RMin: document.getElementById("cutoff-range").min, RMax: document.getElementById("cutoff-range").max,
+		NMin: document.getElementById("cutoff-number").min, NMax: document.getElementById("cutoff-number").max,
+		Profile: document.getElementById("profile").value})`, &bounds))
+	if bounds.RMin != "0.3" || bounds.RMax != "0.9" || bounds.NMin != "0.3" || bounds.NMax != "0.9" || bounds.Profile != "city" {
+		t.Errorf("control bounds %+v, want 0.3..0.9 and profile city", bounds)
+	}
+	setAndApply := func(v string) {
+		t.Helper()
+		must(b.Eval(`(() => { const n = document.getElementById("cutoff-number"); n.value = `+"`"+v+"`"+`;
+			n.dispatchEvent(new Event("input")); document.getElementById("cutoff-apply").click(); })()`, nil))
+	}
+	setAndApply("0.95")
+	must(b.WaitFunc(func() (bool, string, error) {
+		v, err := b.Attr("data-cutoff-error")
+		return strings.Contains(v, "above the administrator's maximum 0.90"), v, err
+	}, "page refuses 0.95", 3*time.Second))
+	if c.Cutoff() != 0.6 {
+		t.Errorf("cutoff changed to %v by an out-of-limits request", c.Cutoff())
+	}
+	// the server refuses too, whatever the page does
+	var status struct {
+		Code int
+		Body string
+	}
+	must(b.Eval(`(async () => { const r = await fetch("/api/cutoff", {method: "POST",
+		headers: {"Content-Type": "application/json", "Authorization": "Bearer " + sessionStorage.getItem("stopgap.token")},
+		body: JSON.stringify({cutoff: 0.1})}); return {Code: r.status, Body: await r.text()}; })()`, &status))
+	if status.Code != 400 || !strings.Contains(status.Body, "outside the administrator's limits [0.3, 0.9]") {
+		t.Errorf("server answer to cutoff 0.1: %d %s", status.Code, status.Body)
+	}
+	setAndApply("0.75")
+	must(b.WaitAttr("data-cutoff", "0.75", 3*time.Second))
+	if c.Cutoff() != 0.75 || c.Profile() != "city" {
+		t.Errorf("after Apply 0.75: %v %q", c.Cutoff(), c.Profile())
+	}
+	changesMu.Lock()
+	if len(changes) != 1 || changes[0] != (console.Profile{Name: "city", Cutoff: 0.75}) {
+		t.Errorf("OnCutoffChange calls %v", changes)
+	}
+	changesMu.Unlock()
+	// the meta messages now carry the new cutoff and the page shows it
+	must(b.WaitFunc(func() (bool, string, error) {
+		var s string
+		err := b.Eval(`document.getElementById("v-cutoff").textContent`, &s)
+		return s == "0.75", s, err
+	}, "cutoff 0.75 shown from meta", 3*time.Second))
+	shot("console-cutoff.png")
+
+	if n := p.errs.Load(); n != 0 {
+		t.Errorf("%d WriteFrame/WriteMeta errors", n)
+	}
+	st := c.Stats()
+	t.Logf("egress stats: %+v", st)
+	if st.Viewers != 1 || st.FramesSent == 0 || st.MetaSent == 0 {
+		t.Errorf("stats %+v", st)
+	}
+	if errs := pageErrors(b.ConsoleLog()); len(errs) > 0 {
+		t.Errorf("page errors: %v", errs)
+	}
+}
+
+func pageErrors(lines []string) []string {
+	var out []string
+	for _, l := range lines {
+		if strings.HasPrefix(l, "exception") || strings.HasPrefix(l, "console.error") {
+			out = append(out, l)
+		}
+	}
+	return out
+}
