@@ -323,8 +323,10 @@ type Sink interface {
 // SinkFuncs adapts two functions to a [Sink]. A nil function ignores its
 // events.
 type SinkFuncs struct {
+	// Frame receives frames (see [Sink.OnFrame]).
 	Frame func(Frame)
-	Loss  func(Loss)
+	// Loss receives losses (see [Sink.OnLoss]).
+	Loss func(Loss)
 }
 
 // OnFrame calls s.Frame if it is set.
@@ -374,6 +376,14 @@ type slot struct {
 // resumes at the next frame start: one lost packet never stalls the stream.
 // Any loss makes [Assembler.NeedKeyframe] true until a keyframe is
 // delivered.
+//
+// Policy: a complete later frame ends the wait for an earlier one at once,
+// because on a live view a fresh frame is worth more than an old one, and
+// the frames are delivered in order. So reordering is tolerated inside a
+// frame and across a frame border only while the later frame is still
+// incomplete; a packet overtaken by a whole later frame (at 30 fps, by some
+// 33 ms) arrives too late and is counted as too old. A retransmission (NACK)
+// that arrives after its frame was given up is counted the same way.
 //
 // Packets with an empty payload (RTP padding only) fill their sequence
 // number and are otherwise ignored: they never advance the window, force
