@@ -297,7 +297,7 @@ func (f *Filter) Reset() {
 // The sample is rejected with a *RejectError, counted in Rejected and
 // leaves the filter unchanged if any field is NaN or ±Inf (even one whose
 // Has flag is false), if a value exceeds MaxSpeedMps, MaxYawRateRps,
-// MaxAccelMps2 or MaxSteerRad in magnitude, if it is more than
+// MaxAccelMps2, MaxSteerRad or MaxAbsTimeUs in magnitude, if it is more than
 // Config.HistoryUs older than the newest sample (or not newer than the
 // oldest kept checkpoint), or if an identical sample is already kept.
 //
@@ -447,6 +447,9 @@ func validate(s *Sample) (Reason, string) {
 		if math.IsNaN(fl.v) || math.IsInf(fl.v, 0) {
 			return ReasonNotFinite, fmt.Sprintf("%s = %v; check the telemetry decoder", fl.name, fl.v)
 		}
+	}
+	if s.TimeUs > MaxAbsTimeUs || s.TimeUs < -MaxAbsTimeUs {
+		return ReasonOutOfRange, fmt.Sprintf("t_us = %d is outside ±%d; the timestamp is corrupted", s.TimeUs, MaxAbsTimeUs)
 	}
 	for _, fl := range fields {
 		if math.Abs(fl.v) > fl.max {

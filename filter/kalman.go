@@ -15,7 +15,8 @@ import (
 //
 // Update uses the Joseph form P⁺ = (I−KH)P(I−KH)ᵀ + KRKᵀ and both steps
 // re-symmetrise P, so P stays symmetric positive semi-definite in floating
-// point. After its first use with a given measurement size, each method is
+// point; entries below 1e-200 in magnitude are set to zero so that no
+// subnormal numbers build up. After its first use with a given measurement size, each method is
 // allocation-free: Kalman owns all scratch buffers. Inputs are only read
 // during the call. When a method returns an error, x and P are unchanged.
 //
@@ -322,12 +323,25 @@ func transposeInto(dst *mat.Dense, a mat.Matrix) {
 	}
 }
 
-// symmetrize replaces the square matrix a by (a + aᵀ)/2.
+// flushBelow is the magnitude under which covariance entries are set to
+// zero. Such values carry no information, and subnormal numbers make
+// arithmetic slow and trip some LAPACK routines (gonum v0.17.0 EigenSym
+// panics on a 3×3 matrix with subnormal entries).
+const flushBelow = 1e-200
+
+// symmetrize replaces the square matrix a by (a + aᵀ)/2 and sets entries
+// smaller than flushBelow in magnitude to zero.
 func symmetrize(a *mat.Dense) {
 	raw := a.RawMatrix()
 	for i := 0; i < raw.Rows; i++ {
+		if v := raw.Data[i*raw.Stride+i]; math.Abs(v) < flushBelow {
+			raw.Data[i*raw.Stride+i] = 0
+		}
 		for j := i + 1; j < raw.Cols; j++ {
 			v := 0.5 * (raw.Data[i*raw.Stride+j] + raw.Data[j*raw.Stride+i])
+			if math.Abs(v) < flushBelow {
+				v = 0
+			}
 			raw.Data[i*raw.Stride+j] = v
 			raw.Data[j*raw.Stride+i] = v
 		}

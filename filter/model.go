@@ -63,7 +63,11 @@ const (
 // corrupted or mis-scaled values are rejected: 120 m/s is 432 km/h, 6 rad/s
 // is about 344 deg/s, 30 m/s^2 is about 3 g, 1.2 rad is about 69 deg of
 // road-wheel angle.
+//
+// MaxAbsTimeUs (about 146 000 years) only catches corrupted timestamps and
+// keeps time arithmetic far from int64 overflow.
 const (
+	MaxAbsTimeUs  = int64(1) << 62
 	MaxSpeedMps   = 120.0
 	MaxYawRateRps = 6.0
 	MaxAccelMps2  = 30.0
