@@ -142,8 +142,22 @@ type Summary struct {
 	Cutoff float64 `json:"cutoff"`
 	// MaxAgeMs is the policy's maximum gap age for PREDICTED frames.
 	MaxAgeMs float64 `json:"max_age_ms"`
-	// Loss is the simulated link.
+	// Loss is the simulated link; its zero value (model "invalid") when
+	// the arrivals came from a recorded file instead (see ArrivalsFile).
 	Loss LossConfig `json:"loss"`
+	// ArrivalsFile is the recorded arrivals file used instead of a
+	// simulated link, or "".
+	ArrivalsFile string `json:"arrivals_file"`
+	// AllowanceMs is the display clock's jitter allowance: how long after
+	// its nominal arrival a frame may still be shown as LIVE.
+	AllowanceMs float64 `json:"allowance_ms"`
+	// LatencyMs is the display latency behind capture used by the replay
+	// schedule.
+	LatencyMs float64 `json:"latency_ms"`
+	// FilterModel names the motion model of the filter (e.g. "ctrv").
+	FilterModel string `json:"filter_model"`
+	// TelemetryRejected counts telemetry samples the filter rejected.
+	TelemetryRejected int `json:"telemetry_rejected"`
 
 	TicksTotal     int `json:"ticks_total"`     // display ticks replayed
 	TicksMissing   int `json:"ticks_missing"`   // ticks without a real frame (PREDICTED + STALE)
@@ -921,7 +935,11 @@ figcaption { font-size: 0.9em; }
 <tr><th class="l">drive</th><td class="l">{{.S.Drive}}</td></tr>
 <tr><th class="l">confidence cutoff</th><td>{{printf "%.3g" .S.Cutoff}}</td></tr>
 <tr><th class="l">max gap age for PREDICTED</th><td>{{printf "%.0f" .S.MaxAgeMs}} ms</td></tr>
-<tr><th class="l">loss model</th><td class="l">{{.S.Loss.Model}}, loss rate {{printf "%.3g" .S.Loss.LossRate}}, mean burst {{printf "%.0f" .S.Loss.BurstMs}} ms, extra delay {{printf "%.0f" .S.Loss.ExtraDelayMs}} ms, jitter {{printf "%.0f" .S.Loss.JitterMs}} ms, seed {{.S.Loss.Seed}}</td></tr>
+{{if .S.ArrivalsFile}}<tr><th class="l">frame arrivals</th><td class="l">recorded, from {{.S.ArrivalsFile}}</td></tr>
+{{else}}<tr><th class="l">simulated link</th><td class="l">{{.S.Loss.Model}}, loss rate {{printf "%.3g" .S.Loss.LossRate}}, mean burst {{printf "%.0f" .S.Loss.BurstMs}} ms, extra delay {{printf "%.0f" .S.Loss.ExtraDelayMs}} ms, jitter {{printf "%.0f" .S.Loss.JitterMs}} ms, seed {{.S.Loss.Seed}}</td></tr>
+{{end}}<tr><th class="l">display latency / jitter allowance</th><td>{{printf "%.0f" .S.LatencyMs}} ms / {{printf "%.0f" .S.AllowanceMs}} ms</td></tr>
+<tr><th class="l">filter model</th><td class="l">{{.S.FilterModel}}</td></tr>
+<tr><th class="l">telemetry samples rejected</th><td>{{.S.TelemetryRejected}}</td></tr>
 <tr><th class="l">ticks</th><td>{{.S.TicksTotal}}</td></tr>
 <tr><th class="l">ticks without a real frame</th><td>{{.S.TicksMissing}}</td></tr>
 <tr><th class="l">LIVE / PREDICTED / STALE ticks</th><td>{{.S.LiveTicks}} / {{.S.PredictedTicks}} / {{.S.StaleTicks}}</td></tr>

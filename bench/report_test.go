@@ -193,7 +193,7 @@ func exampleFrames(t *testing.T) (truth, hold, pred gocv.Mat) {
 // documentedSummaryKeys lists the summary.json keys the report promises.
 var documentedSummaryKeys = []string{"ticks_total", "ticks_missing", "predicted_ticks", "stale_ticks", "live_ticks",
 	"synth_ms_p50", "synth_ms_p99", "synth_ms_mean", "label_pixel_share_mean", "unfilled_share_mean",
-	"cutoff", "drive", "loss", "methods"}
+	"cutoff", "drive", "loss", "methods", "arrivals_file", "allowance_ms", "latency_ms", "filter_model", "telemetry_rejected"}
 
 func TestWriteReport(t *testing.T) {
 	ticks := syntheticTicks(400)
@@ -203,6 +203,7 @@ func TestWriteReport(t *testing.T) {
 	}
 	s.Drive, s.Cutoff, s.MaxAgeMs = "synthetic-loop", 0.6, 800
 	s.Loss = LossConfig{Model: LossModelGilbertElliott, LossRate: 0.2, BurstMs: 300, Seed: 1}
+	s.FilterModel, s.LatencyMs, s.AllowanceMs, s.TelemetryRejected = "ctrv", 100, 20, 3
 	truth, hold, pred := exampleFrames(t)
 	defer truth.Close()
 	defer hold.Close()
@@ -287,7 +288,8 @@ func TestWriteReport(t *testing.T) {
 		}
 		page := string(raw)
 		for _, want := range []string{"SAFETY CAUTION", "static scene only", "licensed procedures", "local regulations",
-			`src="psnr_vs_age.png"`, `src="ssim_vs_age.png"`, "PREDICTED: synthetic frame", "synthetic-loop"} {
+			`src="psnr_vs_age.png"`, `src="ssim_vs_age.png"`, "PREDICTED: synthetic frame", "synthetic-loop",
+			"gilbert-elliott, loss rate 0.2", "ctrv"} {
 			if !strings.Contains(page, want) {
 				t.Errorf("page lacks %q", want)
 			}
