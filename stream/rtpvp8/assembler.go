@@ -37,7 +37,8 @@ const (
 type AssemblerConfig struct {
 	// ReorderPackets is how many sequence numbers the newest packet may be
 	// ahead of a missing one before the missing packet is declared lost.
-	// Zero means [DefaultReorderPackets]. Must be below MaxPackets.
+	// Zero means [DefaultReorderPackets], or half of MaxPackets if that is
+	// less. Must be below MaxPackets.
 	ReorderPackets int
 	// ReorderDelay is how long a missing packet is waited for, counted from
 	// the earliest arrival of a packet after it. Zero means
@@ -65,14 +66,14 @@ type AssemblerConfig struct {
 // withDefaults returns c with zero fields replaced by defaults, or an error
 // wrapping ErrInvalidConfig.
 func (c AssemblerConfig) withDefaults() (AssemblerConfig, error) {
+	if c.MaxPackets == 0 {
+		c.MaxPackets = DefaultMaxPackets
+	}
 	if c.ReorderPackets == 0 {
-		c.ReorderPackets = DefaultReorderPackets
+		c.ReorderPackets = min(DefaultReorderPackets, max(1, c.MaxPackets/2))
 	}
 	if c.ReorderDelay == 0 {
 		c.ReorderDelay = DefaultReorderDelay
-	}
-	if c.MaxPackets == 0 {
-		c.MaxPackets = DefaultMaxPackets
 	}
 	if c.MaxPayloadBytes == 0 {
 		c.MaxPayloadBytes = DefaultMaxPayloadBytes

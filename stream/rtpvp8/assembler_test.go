@@ -5,6 +5,8 @@ import (
 	"slices"
 	"testing"
 	"time"
+
+	"github.com/pion/rtp"
 )
 
 // Streams used by several cases: a 3-packet keyframe, then single- and
@@ -75,6 +77,18 @@ func TestAssembler(t *testing.T) {
 			// the first packet of the next frame.
 			steps: swap(base, 2, 3),
 			want:  []ev{kf, p1, p2},
+		},
+		{
+			name: "packet overtaken by a whole later frame is given up (policy: fresh frames first)",
+			// 105 (the marker of 103..105) arrives after the complete frame 106..107.
+			steps: cat(base[:5], base[6:], []tp{{seq: 105, ts: 3000, marker: true, atMs: 70}}),
+			want:  []ev{kf, lo(LossNewerFrame, 103, 105, 1, 2, 3000), p2lost},
+			wantStats: func(t *testing.T, s Stats) {
+				if s.TooOld != 1 {
+					t.Errorf("TooOld=%d, want 1", s.TooOld)
+				}
+			},
+			needKey: true,
 		},
 		{
 			name:  "duplicated packets, before and after delivery",
@@ -406,5 +420,40 @@ func TestReasonStrings(t *testing.T) {
 	}
 	if LossDeadline.String() != "deadline" || DropTooOld.String() != "too-old" || LossReason(200).String() != "LossReason(200)" {
 		t.Error("unexpected reason names")
+	}
+}
+
+// TestPushDoesNotAllocate checks that once every slot of the ring has held a
+// packet, Push allocates nothing per frame.
+func TestPushDoesNotAllocate(t *testing.T) {
+	a, err := NewAssembler(AssemblerConfig{MaxPackets: 64}, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	pkts := make([]*rtp.Packet, 0, 5)
+	for _, s := range frame(0, 0, 5, true, 0) {
+		pkts = append(pkts, s.packet())
+	}
+	var seq uint16
+	var ts uint32
+	push := func() {
+		for _, p := range pkts {
+			p.SequenceNumber = seq
+			p.Timestamp = ts
+			seq++
+			if err := a.Push(p, t0); err != nil {
+				t.Fatal(err)
+			}
+		}
+		ts += 3000
+	}
+	for i := 0; i < 40; i++ { // 200 packets: every slot used
+		push()
+	}
+	if n := testing.AllocsPerRun(100, push); n != 0 {
+		t.Errorf("Push allocates %v times per 5-packet frame after warm-up", n)
+	}
+	if s := a.Stats(); s.Losses != 0 || s.Frames != 40+101 {
+		t.Errorf("%d frames, %d losses", s.Frames, s.Losses)
 	}
 }

@@ -57,13 +57,16 @@ type Message struct {
 	// AccelMps2 is the longitudinal acceleration; meaningful only if
 	// HasAccel.
 	AccelMps2 float64
-	HasAccel  bool
+	// HasAccel tells whether accel_mps2 is present.
+	HasAccel bool
 	// SteerRad is the front road-wheel angle, positive to the left;
 	// meaningful only if HasSteer.
 	SteerRad float64
+	// HasSteer tells whether steer_rad is present.
 	HasSteer bool
 	// Seq is the sender's message counter; meaningful only if HasSeq.
-	Seq    uint32
+	Seq uint32
+	// HasSeq tells whether seq is present.
 	HasSeq bool
 }
 
