@@ -52,12 +52,17 @@
 // the requested time). Acceleration is not estimated: without a measured
 // value the speed follows a random walk.
 //
-// Process noise is two white inputs, each constant over a step:
-// longitudinal acceleration ν_a (Config.AccelNoiseMps2, or
-// Config.AccelInputNoiseMps2 when an acceleration is applied as control) and
-// ν_t, a yaw acceleration for CTRV (Config.YawAccelNoiseRps2) or a steer
-// rate for the bicycle (Config.SteerRateNoiseRps). Q = G·diag(σ_a², σ_t²)·Gᵀ
-// with the first-order gain
+// Process noise is two random inputs, independent between steps and
+// constant within a step (the discrete white noise model): longitudinal
+// acceleration ν_a (Config.AccelNoiseMps2, or Config.AccelInputNoiseMps2
+// when an acceleration is applied as control) and ν_t, a yaw acceleration
+// for CTRV (Config.YawAccelNoiseRps2) or a steer rate for the bicycle
+// (Config.SteerRateNoiseRps). Q = G·diag(σ_a², σ_t²)·Gᵀ with the
+// first-order gain G below. A prediction from the newest sample to a later
+// time is one step, so over a gap the unknown acceleration is taken as
+// constant for the whole gap (speed-change variance σ_a²·T²), which suits
+// the short gaps this package is for. The flip side of this model is that
+// the noise injected between samples depends on the sample period.
 //
 //	G = [ dt²/2·cos(yaw+θ/2)  0
 //	      dt²/2·sin(yaw+θ/2)  0

@@ -73,7 +73,7 @@ type Config struct {
 	// input (sensor noise, bias, and road slope). Default 0.5 m/s².
 	AccelInputNoiseMps2 float64
 	// YawAccelNoiseRps2 is the CTRV process noise of yaw rate: a random yaw
-	// acceleration, piecewise constant over each step. Default 1 rad/s².
+	// acceleration, piecewise constant over each step. Default 0.5 rad/s².
 	YawAccelNoiseRps2 float64
 	// SteerRateNoiseRps is the bicycle process noise of steer: a random
 	// steer rate, piecewise constant over each step. Default 0.3 rad/s.
@@ -91,7 +91,7 @@ const (
 	DefaultKinematicNoiseRps   = 0.05
 	DefaultAccelNoiseMps2      = 2.0
 	DefaultAccelInputNoiseMps2 = 0.5
-	DefaultYawAccelNoiseRps2   = 1.0
+	DefaultYawAccelNoiseRps2   = 0.5
 	DefaultSteerRateNoiseRps   = 0.3
 )
 
