@@ -276,7 +276,7 @@ func TestZeroMotionIdentity(t *testing.T) {
 		for _, h := range []Homography{c.GroundHomographyPlanar(0, 0, 0), c.RotationHomographyPlanar(0, 0, 0)} {
 			for i := 0; i < 3; i++ {
 				for j := 0; j < 3; j++ {
-					if math.Abs(h[i][j]-Identity[i][j]) > 1e-12 {
+					if math.Abs(h[i][j]-IdentityHomography()[i][j]) > 1e-12 {
 						t.Fatalf("%s: %v is not identity", name, h)
 					}
 				}

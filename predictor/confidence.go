@@ -11,14 +11,15 @@ import (
 // 1280 px wide image.
 const DefaultConfidenceScalePx = 8.0
 
-// defaultReferenceDistancesM are the default ConfidenceModel reference
+// defaultReferenceDistancesM returns the default ConfidenceModel reference
 // distances: near, middle and far road points an operator looks at.
-var defaultReferenceDistancesM = [...]float64{5, 10, 20}
+func defaultReferenceDistancesM() [3]float64 { return [3]float64{5, 10, 20} }
 
-// DefaultReferenceDistancesM returns a copy of the default reference
-// distances, metres ahead of the camera: 5, 10 and 20.
+// DefaultReferenceDistancesM returns the default reference distances,
+// metres ahead of the camera: 5, 10 and 20.
 func DefaultReferenceDistancesM() []float64 {
-	return append([]float64(nil), defaultReferenceDistancesM[:]...)
+	d := defaultReferenceDistancesM()
+	return d[:]
 }
 
 // ConfidenceModel turns the covariance of a relative motion into a
@@ -72,13 +73,6 @@ func (cm ConfidenceModel) scale() float64 {
 	return cm.ScalePx
 }
 
-func (cm ConfidenceModel) distances() []float64 {
-	if cm.ReferenceDistancesM == nil {
-		return defaultReferenceDistancesM[:]
-	}
-	return cm.ReferenceDistancesM
-}
-
 // FromSigma maps a 1-sigma pixel error to confidence
 // exp(-0.5 (sigmaPx/ScalePx)²). NaN or negative input gives 0.
 func (cm ConfidenceModel) FromSigma(sigmaPx float64) float64 {
@@ -122,7 +116,12 @@ func (cm ConfidenceModel) sigmaPlanar(c Camera, dx, dy, yaw float64, cov [3][3]f
 	rzT := transpose3(rotZ(yaw))
 	cv := c.CentreVehicle()
 	worst := math.Inf(-1)
-	for _, d := range cm.distances() {
+	def := defaultReferenceDistancesM()
+	ds := cm.ReferenceDistancesM
+	if ds == nil {
+		ds = def[:]
+	}
+	for _, d := range ds {
 		p1 := vec3{c.XOffsetM + d, c.YOffsetM, 0}
 		x := mul3v(rcv, sub3(p1, cv))
 		if !(x[2] > 0) {

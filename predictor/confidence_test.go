@@ -23,7 +23,7 @@ func TestConfidenceJacobianNumeric(t *testing.T) {
 					t.Fatal(err)
 				}
 				want := 0.0
-				for _, d := range defaultReferenceDistancesM {
+				for _, d := range DefaultReferenceDistancesM() {
 					p1 := vec3{c.XOffsetM + d, c.YOffsetM, 0}
 					// World point fixed at its T0 position for the nominal motion.
 					rz := rotZ(m.yaw)

@@ -7,8 +7,8 @@ import "fmt"
 // It is a plain value; nothing allocates.
 type Homography [3][3]float64
 
-// Identity is the identity homography.
-var Identity = Homography{{1, 0, 0}, {0, 1, 0}, {0, 0, 1}}
+// IdentityHomography returns the identity map.
+func IdentityHomography() Homography { return Homography{{1, 0, 0}, {0, 1, 0}, {0, 0, 1}} }
 
 // Apply maps (u, v). ok is false if the point maps to infinity or behind the
 // camera (w' <= 0): for the homographies of this package a non-positive w'

@@ -22,7 +22,7 @@ import (
 //   - No picture yet: dark grey frame, red border, "NO PICTURE YET".
 //
 // The border is BorderPx(height) wide: 1/40 of the image height, at least 3
-// px (18 px at 720p).
+// px (18 px at 720p). The colour values below are read-only.
 var (
 	amberBGR   = [3]byte{0, 176, 255}
 	stripeDark = [3]byte{0, 0, 0}

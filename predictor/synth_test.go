@@ -78,7 +78,7 @@ func TestZeroMotionReproducesSource(t *testing.T) {
 	g, f := c.GroundHomographyPlanar(0, 0, 0), c.RotationHomographyPlanar(0, 0, 0)
 	far2 := f
 	far2[0][2] += 1e-9 // forces the split path; moves pixels by 1e-9 px
-	for name, pair := range map[string][2]Homography{"single": {Identity, Identity}, "split": {g, far2}} {
+	for name, pair := range map[string][2]Homography{"single": {IdentityHomography(), IdentityHomography()}, "split": {g, far2}} {
 		syn, err := s.Warp(src, pair[0], pair[1], &dst)
 		if err != nil {
 			t.Fatal(err)
@@ -269,23 +269,23 @@ func TestSynthesizerBadInput(t *testing.T) {
 	defer wrong.Close()
 	dst := gocv.NewMat()
 	defer dst.Close()
-	if _, err := s.Warp(wrong, Identity, Identity, &dst); !errors.Is(err, ErrFrameFormat) {
+	if _, err := s.Warp(wrong, IdentityHomography(), IdentityHomography(), &dst); !errors.Is(err, ErrFrameFormat) {
 		t.Errorf("wrong size: %v", err)
 	}
-	if _, err := s.Warp(gocv.Mat{}, Identity, Identity, &dst); !errors.Is(err, ErrFrameFormat) {
+	if _, err := s.Warp(gocv.Mat{}, IdentityHomography(), IdentityHomography(), &dst); !errors.Is(err, ErrFrameFormat) {
 		t.Errorf("zero Mat: %v", err)
 	}
 	src := constFrame(160, 120, 0)
 	defer src.Close()
-	if _, err := s.Warp(src, Homography{}, Identity, &dst); !errors.Is(err, ErrSingular) {
+	if _, err := s.Warp(src, Homography{}, IdentityHomography(), &dst); !errors.Is(err, ErrSingular) {
 		t.Errorf("singular: %v", err)
 	}
-	if _, err := s.Warp(src, Identity, Identity, nil); !errors.Is(err, ErrFrameFormat) {
+	if _, err := s.Warp(src, IdentityHomography(), IdentityHomography(), nil); !errors.Is(err, ErrFrameFormat) {
 		t.Errorf("nil dst: %v", err)
 	}
 	s.Close()
 	s.Close()
-	if _, err := s.Warp(src, Identity, Identity, &dst); !errors.Is(err, ErrClosed) {
+	if _, err := s.Warp(src, IdentityHomography(), IdentityHomography(), &dst); !errors.Is(err, ErrClosed) {
 		t.Errorf("after close: %v", err)
 	}
 }
