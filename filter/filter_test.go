@@ -608,3 +608,27 @@ func TestRelativeCovarianceLinearised(t *testing.T) {
 		t.Errorf("motion (%v, %v), closed form (%v, %v)", m.DxM, m.DyM, ref[0], ref[1])
 	}
 }
+
+// TestConcurrentUse exercises Add from one goroutine while another calls
+// Predict, Relative and Rejected (meaningful under -race).
+func TestConcurrentUse(t *testing.T) {
+	f := mustNew(t, Config{Model: ModelCTRV})
+	mustAdd(t, f, Sample{TimeUs: 0, SpeedMps: 5})
+	done := make(chan struct{})
+	go func() {
+		defer close(done)
+		for i := 1; i <= 300; i++ {
+			_ = f.Add(Sample{TimeUs: int64(i) * 10_000, SpeedMps: 5, YawRateRps: 0.01})
+		}
+	}()
+	for i := 0; i < 300; i++ {
+		if _, err := f.Predict(int64(i) * 10_000); err != nil && !errors.Is(err, ErrHorizon) && !errors.Is(err, ErrTooOld) {
+			t.Error(err)
+		}
+		if _, err := f.Relative(int64(i)*5_000, int64(i)*10_000); err != nil && !errors.Is(err, ErrHorizon) && !errors.Is(err, ErrTooOld) {
+			t.Error(err)
+		}
+		_ = f.Rejected()
+	}
+	<-done
+}
