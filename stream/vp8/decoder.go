@@ -14,7 +14,8 @@ import (
 const (
 	// DefaultMaxWidth and DefaultMaxHeight bound the picture size a
 	// keyframe may declare, so a corrupt or hostile 16383x16383 keyframe
-	// cannot make libvpx allocate ~1.6 GB of frame buffers.
+	// cannot make libvpx allocate about 1.6 GB of frame buffers
+	// (estimate: 4 buffers of 16383 x 16383 x 1.5 bytes).
 	DefaultMaxWidth  = 4096
 	DefaultMaxHeight = 4096
 	// DefaultMaxFrameBytes bounds the size of one compressed frame.
@@ -141,9 +142,10 @@ func (d *Decoder) Size() (width, height int) {
 // before libvpx sees it. dst is owned by the caller; the decoder keeps no
 // reference to it.
 //
-// On error dst may hold partial data and must not be shown. The errors are
-// described in errors.go; all but ErrClosed and ErrNotShown leave the
-// decoder waiting for a keyframe.
+// On any error dst is left unchanged (it is written only after every check
+// passed), so the caller can keep showing, or predicting from, the last
+// good picture. The errors are described in errors.go; all but ErrClosed
+// and ErrNotShown leave the decoder waiting for a keyframe.
 func (d *Decoder) Decode(frame []byte, dst *Image) error {
 	d.mu.Lock()
 	defer d.mu.Unlock()

@@ -168,7 +168,11 @@ func TestDecoderBadInput(t *testing.T) {
 					t.Fatal(err)
 				}
 			}
+			before := append([]byte(nil), out.Y...)
 			err := d.Decode(c.in, out)
+			if err != nil && !bytes.Equal(before, out.Y) {
+				t.Error("failed Decode changed dst")
+			}
 			if err == nil {
 				if !c.mayPass {
 					t.Fatalf("no error")
