@@ -348,3 +348,17 @@ func ExampleLossConfig() {
 	fmt.Printf("period %d us, p_GB %.4f, p_BG %.4f, base delay %d us\n", r.PeriodUs, r.PGoodBad, r.PBadGood, r.BaseDelayUs)
 	// Output: period 33333 us, p_GB 0.0370, p_BG 0.3333, base delay 60000 us
 }
+
+// BenchmarkSimulate measures one hour of 30 fps frames through the
+// Gilbert-Elliott link with jitter, reusing the destination slice.
+func BenchmarkSimulate(b *testing.B) {
+	caps := frameTimes(30*3600, 0, 33_333)
+	cfg := LossConfig{Model: LossModelGilbertElliott, LossRate: 0.1, BurstMs: 100, JitterMs: 10, Seed: 1}
+	dst := make([]int64, len(caps))
+	b.ReportAllocs()
+	for b.Loop() {
+		if _, err := cfg.Simulate(dst, caps); err != nil {
+			b.Fatal(err)
+		}
+	}
+}

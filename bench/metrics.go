@@ -341,9 +341,8 @@ func lumaInto(dst, src gocv.Mat, tmp *gocv.Mat, hasTmp *bool) error {
 		}
 	case gocv.MatTypeCV8UC3:
 		in = in[:3*n]
-		for i := range out {
-			p := in[3*i : 3*i+3 : 3*i+3]
-			out[i] = lumaB*float32(p[0]) + lumaG*float32(p[1]) + lumaR*float32(p[2])
+		for i, j := 0, 0; i < len(out) && j+2 < len(in); i, j = i+1, j+3 {
+			out[i] = lumaB*float32(in[j]) + lumaG*float32(in[j+1]) + lumaR*float32(in[j+2])
 		}
 	case gocv.MatTypeCV8UC4:
 		in = in[:4*n]

@@ -101,7 +101,7 @@ func constImage(rows, cols int, bgr [3]float64) gocv.Mat {
 // TestMetricsClosedForm checks values that follow from the definitions by
 // hand: for two flat images all variances are zero, so SSIM reduces to
 // the luminance term (2 m1 m2 + C1)/(m1^2 + m2^2 + C1) (Wang et al. 2004,
-// eq. 13 with sigma = 0); PSNR of a 1-level difference is
+// eq. 13 (equation number from memory) with sigma = 0); PSNR of a 1-level difference is
 // 20 log10(255) = 48.1308 dB.
 func TestMetricsClosedForm(t *testing.T) {
 	c1 := math.Pow(0.01*255, 2)

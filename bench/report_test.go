@@ -4,6 +4,7 @@ import (
 	"encoding/csv"
 	"encoding/json"
 	"errors"
+	"fmt"
 	"image"
 	_ "image/jpeg"
 	_ "image/png"
@@ -410,4 +411,42 @@ func FuzzSummaryJSON(f *testing.F) {
 			t.Fatalf("accepted summary does not encode: %v", err)
 		}
 	})
+}
+
+// BenchmarkAccumulatorAdd measures validating and adding one tick.
+func BenchmarkAccumulatorAdd(b *testing.B) {
+	rows := syntheticTicks(4000)
+	b.ReportAllocs()
+	for b.Loop() {
+		var a Accumulator
+		for i := range rows {
+			if err := a.Add(rows[i]); err != nil {
+				b.Fatal(err)
+			}
+		}
+	}
+}
+
+// ExampleSummarize builds the statistics of three ticks: one live, two
+// filled, one of which is scored.
+func ExampleSummarize() {
+	live := NewTickRow(0, 0, TickLive, 0)
+	gap := NewTickRow(1, 33_333, TickPredicted, 33.3)
+	gap.Hold = Scores{PSNRdB: 24, SSIM: 0.80, MAE: 6}
+	gap.Rotation = Scores{PSNRdB: 25, SSIM: 0.82, MAE: 5.5}
+	gap.Predicted = Scores{PSNRdB: 28, SSIM: 0.90, MAE: 4}
+	gap.SynthMs = 6.5
+	stale := NewTickRow(2, 66_666, TickStale, 66.7)
+	s, err := Summarize([]TickRow{live, gap, stale})
+	if err != nil {
+		fmt.Println(err)
+		return
+	}
+	fmt.Printf("ticks %d, missing %d, predicted %d, stale %d\n", s.TicksTotal, s.TicksMissing, s.PredictedTicks, s.StaleTicks)
+	fmt.Printf("predicted: %d frame(s), PSNR %.1f dB, SSIM %.2f; in bucket %s: %d\n",
+		s.Methods.Predicted.Frames, s.Methods.Predicted.PSNRdBMean, s.Methods.Predicted.SSIMMean,
+		s.Methods.Predicted.Buckets[0].Bucket, s.Methods.Predicted.Buckets[0].Frames)
+	// Output:
+	// ticks 3, missing 2, predicted 1, stale 1
+	// predicted: 1 frame(s), PSNR 28.0 dB, SSIM 0.90; in bucket 0-100: 1
 }
