@@ -75,7 +75,7 @@ func newPinhole(c recording.Camera) pinhole {
 }
 
 // extrinsics returns R, t with camera = R*world + t for the vehicle at p.
-func (cam pinhole) extrinsics(p Pose) (mat3, vec3) {
+func (cam pinhole) extrinsics(p pose) (mat3, vec3) {
 	rWV := rotZ(p.YawRad) // vehicle -> world
 	r := cam.rVC.mul(rWV.transpose())
 	centreW := vec3{p.XM, p.YM, 0}.add(rWV.mulVec(cam.centreV))
@@ -106,7 +106,7 @@ func (cam pinhole) projectCam(pc vec3) (u, v float64) {
 
 // project maps a world point seen from vehicle pose p to pixels; ok is
 // false if the point is not in front of the camera.
-func (cam pinhole) project(p Pose, w vec3) (u, v float64, ok bool) {
+func (cam pinhole) project(p pose, w vec3) (u, v float64, ok bool) {
 	r, t := cam.extrinsics(p)
 	pc := toCamera(r, t, w)
 	if pc[2] <= 1e-9 {

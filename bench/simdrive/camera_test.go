@@ -22,7 +22,7 @@ func TestProjectionMatchesOpenCV(t *testing.T) {
 		{"rolled offset", recording.Camera{Width: 640, Height: 480, Fx: 500, Fy: 510, Cx: 318.5, Cy: 242, HeightM: 1.2, PitchDeg: -3, RollDeg: 4, XOffsetM: 2, YOffsetM: -0.3}},
 		{"distorted", recording.Camera{Width: 1280, Height: 720, Fx: 700, Fy: 700, Cx: 650, Cy: 350, K1: -0.12, K2: 0.03, P1: 0.001, P2: -0.0015, K3: -0.002, HeightM: 1.5, PitchDeg: 8, RollDeg: -2, XOffsetM: 1}},
 	}
-	poses := []Pose{{0, 0, 0}, {12.5, -3.25, 0.7}, {-40, 80, -2.9}}
+	poses := []pose{{0, 0, 0}, {12.5, -3.25, 0.7}, {-40, 80, -2.9}}
 	rng := rand.New(rand.NewPCG(1, 2))
 	for _, c := range cams {
 		t.Run(c.name, func(t *testing.T) {
@@ -71,7 +71,7 @@ func TestProjectionMatchesOpenCV(t *testing.T) {
 func TestCameraConventions(t *testing.T) {
 	c := recording.Camera{Width: 1280, Height: 720, Fx: 640, Fy: 640, Cx: 640, Cy: 360, HeightM: 1.4, PitchDeg: 5, XOffsetM: 1.5}
 	cam := newPinhole(c)
-	p := Pose{}
+	p := pose{}
 	// 1000 m ahead at camera height: direction horizontal, so v = cy - fy tan(5°) = 360 - 55.993 = 304.007.
 	u, v, ok := cam.project(p, vec3{1001.5, 0, 1.4})
 	wantV := 360 - 640*math.Tan(5*math.Pi/180)
@@ -86,8 +86,8 @@ func TestCameraConventions(t *testing.T) {
 		t.Errorf("left point at u=%v, want < 640", u)
 	}
 	// Turning left (+yaw) moves a fixed world point to the right in the image.
-	u0, _, _ := cam.project(Pose{}, vec3{20, 0, 0})
-	u1, _, _ := cam.project(Pose{YawRad: 0.1}, vec3{20, 0, 0})
+	u0, _, _ := cam.project(pose{}, vec3{20, 0, 0})
+	u1, _, _ := cam.project(pose{YawRad: 0.1}, vec3{20, 0, 0})
 	if u1 <= u0 {
 		t.Errorf("after a left turn the point moved from u=%v to %v, want right", u0, u1)
 	}

@@ -9,7 +9,6 @@ import (
 	"math/rand/v2"
 	"os"
 	"path/filepath"
-	"strconv"
 
 	"gocv.io/x/gocv"
 
@@ -150,7 +149,7 @@ func writeTelemetry(w *recording.Writer, cfg Config, tr *trajectory) error {
 			HasSteer:   true,
 		}
 		if err := w.WriteTelemetry(row); err != nil {
-			return fmt.Errorf("simdrive: telemetry sample %s: %w", strconv.Itoa(k), err)
+			return fmt.Errorf("simdrive: telemetry sample %d: %w", k, err)
 		}
 	}
 }

@@ -111,7 +111,7 @@ func TestTruthConsistentWithMotion(t *testing.T) {
 	n := cfg.frameCount()
 	x, y, yaw := 0.0, 0.0, 0.0
 	prev := tr.PoseAt(0)
-	if prev != (Pose{}) {
+	if prev != (pose{}) {
 		t.Fatalf("pose at 0 = %+v, want origin", prev)
 	}
 	for i := 1; i < n; i++ {

@@ -24,9 +24,12 @@ type renderer struct {
 	mask   gocv.Mat   // 8UC1 scratch for quad masks
 	hm     gocv.Mat   // 3x3 CV_64F homography scratch
 	order  []drawItem // per-frame draw list, reused
-	bands  []band     // ground rows per pyramid level, fixed for a mounting
-	ground bool       // draw the ground (tests switch parts off)
-	quads  bool       // draw posts and facades
+	poly   []vec3     // clipped quad polygon, reused
+	proj   [][2]float64
+	pts    []image.Point
+	bands  []band // ground rows per pyramid level, fixed for a mounting
+	ground bool   // draw the ground (tests switch parts off)
+	quads  bool   // draw posts and facades
 }
 
 // drawItem is a quad to draw and its distance from the camera.
@@ -109,7 +112,7 @@ func (r *renderer) groundBands() []band {
 }
 
 // render draws the view from pose p into r.frame.
-func (r *renderer) render(p Pose) {
+func (r *renderer) render(p pose) {
 	rot, t := r.cam.extrinsics(p)
 	if r.ground {
 		r.renderGround(p, rot, t)
@@ -127,7 +130,7 @@ func (r *renderer) render(p Pose) {
 // map texel coordinates and their pixels under our projection, passed to
 // gocv.GetPerspectiveTransform2f. Each band then uses H·diag(2^L, 2^L, 1)
 // for its pyramid level and a row shift for its ROI.
-func (r *renderer) renderGround(p Pose, rot mat3, t vec3) {
+func (r *renderer) renderGround(p pose, rot mat3, t vec3) {
 	g := &r.sc.ground
 	c, s := math.Cos(p.YawRad), math.Sin(p.YawRad)
 	ahead := r.cam.centreV[0]
@@ -244,16 +247,18 @@ func (r *renderer) drawQuad(q *quad, rot mat3, t vec3) {
 	if inFront == 0 {
 		return
 	}
-	poly := clipNear(cc[:], nearZM)
+	r.poly = clipNear(r.poly[:0], cc[:], nearZM)
+	poly := r.poly
 	if len(poly) < 3 {
 		return
 	}
 	minX, minY, maxX, maxY := math.Inf(1), math.Inf(1), math.Inf(-1), math.Inf(-1)
-	pts := make([]image.Point, len(poly))
-	proj := make([][2]float64, len(poly))
-	for k, pc := range poly {
+	r.pts = r.pts[:0]
+	r.proj = r.proj[:0]
+	for _, pc := range poly {
 		u, v := r.cam.projectCam(pc)
-		proj[k] = [2]float64{u, v}
+		r.proj = append(r.proj, [2]float64{u, v})
+		r.pts = append(r.pts, image.Point{})
 		minX, maxX = math.Min(minX, u), math.Max(maxX, u)
 		minY, maxY = math.Min(minY, v), math.Max(maxY, v)
 	}
@@ -262,6 +267,7 @@ func (r *renderer) drawQuad(q *quad, rot mat3, t vec3) {
 	if rect.Empty() {
 		return
 	}
+	proj, pts := r.proj, r.pts
 	for k, pr := range proj {
 		pts[k] = image.Pt(int(math.Round((pr[0]-float64(rect.Min.X))*16)), int(math.Round((pr[1]-float64(rect.Min.Y))*16)))
 	}
@@ -311,10 +317,9 @@ func (r *renderer) drawQuad(q *quad, rot mat3, t vec3) {
 	tmp.Close()
 }
 
-// clipNear clips a convex polygon (camera coordinates) to z >= zn
-// (Sutherland-Hodgman against one plane).
-func clipNear(poly []vec3, zn float64) []vec3 {
-	out := make([]vec3, 0, len(poly)+1)
+// clipNear appends to out the convex polygon poly (camera coordinates)
+// clipped to z >= zn (Sutherland-Hodgman against one plane).
+func clipNear(out, poly []vec3, zn float64) []vec3 {
 	for i := range poly {
 		a, b := poly[i], poly[(i+1)%len(poly)]
 		ina, inb := a[2] >= zn, b[2] >= zn

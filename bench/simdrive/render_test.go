@@ -166,7 +166,7 @@ func TestRenderDeterministic(t *testing.T) {
 func TestFramesReactToMotion(t *testing.T) {
 	cfg := Config{Width: 320, Height: 180, DurationS: 2, GroundTexelM: 0.05}
 	tr, _, _, rd := testWorld(t, cfg)
-	grab := func(p Pose) gocv.Mat {
+	grab := func(p pose) gocv.Mat {
 		rd.render(p)
 		g := gocv.NewMat()
 		gocv.CvtColor(rd.frame, &g, gocv.ColorBGRToGray)

@@ -12,8 +12,8 @@ const (
 	leadS          = 15.0        // trajectory integrated beyond the drive, for the road ahead
 )
 
-// Pose is a planar vehicle pose in the world frame (ISO 8855 axes).
-type Pose struct {
+// pose is a planar vehicle pose in the world frame (ISO 8855 axes).
+type pose struct {
 	XM, YM float64 // vehicle origin, metres
 	YawRad float64 // heading, counter-clockwise from world +x
 }
@@ -22,14 +22,14 @@ type Pose struct {
 // integrated on a fixed 1 ms grid.
 type trajectory struct {
 	meanSpeedMps float64
-	grid         []Pose // grid[k] is the pose at k*integStepUs
+	grid         []pose // grid[k] is the pose at k*integStepUs
 }
 
 // newTrajectory integrates the profile from t = 0 to durationS + leadS.
 func newTrajectory(meanSpeedMps, durationS float64) *trajectory {
 	tr := &trajectory{meanSpeedMps: meanSpeedMps}
 	n := int(math.Ceil((durationS+leadS)*1e6/float64(integStepUs))) + 1
-	tr.grid = make([]Pose, n)
+	tr.grid = make([]pose, n)
 	for k := 1; k < n; k++ {
 		tr.grid[k] = tr.step(tr.grid[k-1], float64(int64(k-1)*integStepUs)*1e-6, float64(integStepUs)*1e-6)
 	}
@@ -55,21 +55,21 @@ func (tr *trajectory) CurvaturePM(t float64) float64 {
 func (tr *trajectory) YawRateRps(t float64) float64 { return tr.SpeedMps(t) * tr.CurvaturePM(t) }
 
 // deriv is the kinematic model: d/dt (x, y, yaw).
-func (tr *trajectory) deriv(p Pose, t float64) Pose {
+func (tr *trajectory) deriv(p pose, t float64) pose {
 	v := tr.SpeedMps(t)
-	return Pose{v * math.Cos(p.YawRad), v * math.Sin(p.YawRad), v * tr.CurvaturePM(t)}
+	return pose{v * math.Cos(p.YawRad), v * math.Sin(p.YawRad), v * tr.CurvaturePM(t)}
 }
 
 // step advances p from t by h seconds with classical Runge-Kutta (RK4).
-func (tr *trajectory) step(p Pose, t, h float64) Pose {
-	add := func(a, d Pose, s float64) Pose {
-		return Pose{a.XM + s*d.XM, a.YM + s*d.YM, a.YawRad + s*d.YawRad}
+func (tr *trajectory) step(p pose, t, h float64) pose {
+	add := func(a, d pose, s float64) pose {
+		return pose{a.XM + s*d.XM, a.YM + s*d.YM, a.YawRad + s*d.YawRad}
 	}
 	k1 := tr.deriv(p, t)
 	k2 := tr.deriv(add(p, k1, h/2), t+h/2)
 	k3 := tr.deriv(add(p, k2, h/2), t+h/2)
 	k4 := tr.deriv(add(p, k3, h), t+h)
-	return Pose{
+	return pose{
 		p.XM + h/6*(k1.XM+2*k2.XM+2*k3.XM+k4.XM),
 		p.YM + h/6*(k1.YM+2*k2.YM+2*k3.YM+k4.YM),
 		p.YawRad + h/6*(k1.YawRad+2*k2.YawRad+2*k3.YawRad+k4.YawRad),
@@ -78,7 +78,7 @@ func (tr *trajectory) step(p Pose, t, h float64) Pose {
 
 // PoseAt returns the pose at tUs microseconds: the grid pose at or before
 // tUs advanced by one partial RK4 step. tUs is clamped to the integrated span.
-func (tr *trajectory) PoseAt(tUs int64) Pose {
+func (tr *trajectory) PoseAt(tUs int64) pose {
 	if tUs <= 0 {
 		return tr.grid[0]
 	}
