@@ -172,7 +172,11 @@ func kbps(bps int) int {
 }
 
 // Config returns the settings in use, defaults filled in.
-func (e *Encoder) Config() EncoderConfig { return e.cfg }
+func (e *Encoder) Config() EncoderConfig {
+	e.mu.Lock()
+	defer e.mu.Unlock()
+	return e.cfg
+}
 
 // ForceKeyframe makes the next Encode produce a keyframe, as a response to
 // a keyframe request (RTCP PLI or FIR). Safe to call from any goroutine.

@@ -156,3 +156,39 @@ func TestNoCLeak(t *testing.T) {
 		t.Errorf("C heap grew by %d bytes over %d codec lifetimes: leak", grew, n)
 	}
 }
+
+// TestConcurrentControl calls ForceKeyframe, SetBitrate, Lost and
+// NeedKeyframe from other goroutines while frames flow, as the relay's RTCP
+// reader does; run with -race.
+func TestConcurrentControl(t *testing.T) {
+	s := smallStream(t)
+	e, err := NewEncoder(EncoderConfig{Width: 64, Height: 48})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer e.Close()
+	d := newTestDecoder(t, DecoderConfig{})
+	done := make(chan struct{})
+	go func() {
+		defer close(done)
+		for i := 0; i < 20; i++ {
+			e.ForceKeyframe()
+			_ = e.SetBitrate(100_000 + i*1000)
+			d.Lost()
+			_ = d.NeedKeyframe()
+			_ = e.Config()
+		}
+	}()
+	out := &Image{}
+	var buf []byte
+	for i := 0; i < 20; i++ {
+		var err error
+		if buf, _, err = e.Encode(buf, s.src[i%len(s.src)], int64(i)*33_333); err != nil {
+			t.Fatal(err)
+		}
+		if err := d.Decode(buf, out); err != nil && err != ErrNeedKeyframe {
+			t.Fatal(err)
+		}
+	}
+	<-done
+}
