@@ -1,0 +1,538 @@
+package bench
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"log/slog"
+	"math"
+	"os"
+	"path/filepath"
+	"sort"
+	"time"
+
+	"gocv.io/x/gocv"
+
+	"stopgap/filter"
+	"stopgap/predictor"
+	"stopgap/stream/recording"
+)
+
+// DefaultAllowanceMs is the default jitter allowance of the display clock:
+// how long after its nominal arrival a frame may still come and be shown as
+// LIVE. A design choice of this project, about two thirds of a frame period
+// at 30 fps; tune it to the link's measured jitter.
+const DefaultAllowanceMs = 20
+
+// DefaultExamples is how many side-by-side example ticks a report shows.
+const DefaultExamples = 4
+
+// ReplayConfig configures Replay. Zero values take the documented defaults
+// where one is given; Drive and Out are required.
+type ReplayConfig struct {
+	// Drive is the recording directory (see package stopgap/stream/recording).
+	Drive string
+	// Out is the report directory to create (see ReportWriter).
+	Out string
+	// Overwrite allows replacing an existing non-empty Out.
+	Overwrite bool
+
+	// ArrivalsFile, if set, gives the recorded arrival time of each frame
+	// (index,t_arrival_us; blank = never arrived) and Loss is ignored.
+	ArrivalsFile string
+	// Loss is the simulated link used when ArrivalsFile is empty. Its zero
+	// value is invalid: set at least Model.
+	Loss LossConfig
+
+	// Policy decides PREDICTED versus STALE (cutoff and age cap).
+	Policy predictor.Policy
+	// Filter configures the motion filter; a zero Model means CTRV.
+	Filter filter.Config
+	// AllowanceMs is the display clock's jitter allowance past a frame's
+	// nominal arrival; 0 means DefaultAllowanceMs, negative is an error.
+	AllowanceMs float64
+
+	// Examples is how many example ticks the report shows side by side;
+	// 0 means DefaultExamples, negative means none.
+	Examples int
+	// Progress, if set, is called after each tick with the number of ticks
+	// done and the total.
+	Progress func(done, total int)
+	// Logger receives warnings (tolerated input, rejected telemetry);
+	// nil means slog.Default().
+	Logger *slog.Logger
+	// Now is the clock for synthesis times; nil means time.Now.
+	Now func() time.Time
+}
+
+// Schedule is the display schedule of a replay: when each tick falls and
+// which real frame, if any, is due and here at it. All times are on the
+// receiver clock unless said otherwise.
+//
+// The display shows tick k at DeadlineUs[k] = capture_k + LatencyUs +
+// allowance, where LatencyUs is the median (arrival - capture) over the
+// frames that arrived. Frame k is LIVE at tick k if it arrived by then (it is
+// shown as soon as it arrives, so the allowance adds no latency to LIVE
+// frames). Otherwise tick k is missing, and the newest frame that has
+// arrived by DeadlineUs[k] is the one a prediction is built from.
+type Schedule struct {
+	// CaptureUs is each frame's capture time on the vehicle clock.
+	CaptureUs []int64
+	// ArrivalUs is each frame's arrival on the receiver clock, or
+	// NeverArrivesUs.
+	ArrivalUs []int64
+	// LatencyUs is the nominal capture-to-arrival latency (receiver clock
+	// minus vehicle clock, so it includes any clock offset).
+	LatencyUs int64
+	// AllowanceUs is the jitter allowance.
+	AllowanceUs int64
+}
+
+// NewSchedule builds the schedule for frames captured at captureUs that
+// arrived at arrivalUs (NeverArrivesUs for lost ones). It fails if no frame
+// arrived at all, since then there is nothing to show.
+func NewSchedule(captureUs, arrivalUs []int64, allowanceUs int64) (Schedule, error) {
+	if len(captureUs) != len(arrivalUs) {
+		return Schedule{}, fmt.Errorf("schedule: %d capture times but %d arrival times: %w", len(captureUs), len(arrivalUs), ErrReplayInput)
+	}
+	var lat []int64
+	for i, a := range arrivalUs {
+		if a != NeverArrivesUs {
+			lat = append(lat, a-captureUs[i])
+		}
+	}
+	if len(lat) == 0 {
+		return Schedule{}, fmt.Errorf("schedule: no frame arrived, nothing to replay; check the arrivals file or lower --loss-rate: %w", ErrReplayInput)
+	}
+	sort.Slice(lat, func(i, j int) bool { return lat[i] < lat[j] })
+	return Schedule{CaptureUs: captureUs, ArrivalUs: arrivalUs, LatencyUs: lat[len(lat)/2], AllowanceUs: allowanceUs}, nil
+}
+
+// DeadlineUs returns the receiver time of tick k.
+func (s Schedule) DeadlineUs(k int) int64 {
+	return s.CaptureUs[k] + s.LatencyUs + s.AllowanceUs
+}
+
+// Live reports whether frame k arrived in time for tick k.
+func (s Schedule) Live(k int) bool {
+	return s.ArrivalUs[k] != NeverArrivesUs && s.ArrivalUs[k] <= s.DeadlineUs(k)
+}
+
+// Held returns the newest frame j <= k that has arrived by tick k's
+// deadline, or -1 if none has.
+func (s Schedule) Held(k int) int {
+	d := s.DeadlineUs(k)
+	for j := k; j >= 0; j-- {
+		if s.ArrivalUs[j] != NeverArrivesUs && s.ArrivalUs[j] <= d {
+			return j
+		}
+	}
+	return -1
+}
+
+// telemetryArrivals returns, for each telemetry row, the receiver time at
+// which it reached the filter, or NeverArrivesUs.
+//
+// A row that recorded its own arrival (t_arrival_us, written by the live
+// relay) uses it. Otherwise telemetry shares the fate of the video: a sample
+// taken while frame i was the newest capture arrives with frame i's delay if
+// frame i arrived, and is lost with it if not. This is the conservative
+// choice: during a video outage the filter learns nothing new either.
+func telemetryArrivals(rows []recording.TelemetryRow, s Schedule) []int64 {
+	out := make([]int64, len(rows))
+	for r, row := range rows {
+		if row.HasArrival {
+			out[r] = row.ArrivalUs
+			continue
+		}
+		i := sort.Search(len(s.CaptureUs), func(i int) bool { return s.CaptureUs[i] > row.TimeUs }) - 1
+		switch {
+		case i < 0: // before the first frame: delivered with the nominal latency
+			out[r] = row.TimeUs + s.LatencyUs
+		case s.ArrivalUs[i] == NeverArrivesUs:
+			out[r] = NeverArrivesUs
+		default:
+			out[r] = row.TimeUs + (s.ArrivalUs[i] - s.CaptureUs[i])
+		}
+	}
+	return out
+}
+
+// CameraFromRecording converts camera.json's content to the predictor's
+// camera model.
+func CameraFromRecording(c recording.Camera) predictor.Camera {
+	return predictor.Camera{
+		Width: c.Width, Height: c.Height,
+		Fx: c.Fx, Fy: c.Fy, Cx: c.Cx, Cy: c.Cy,
+		K1: c.K1, K2: c.K2, P1: c.P1, P2: c.P2, K3: c.K3,
+		HeightM: c.HeightM, PitchDeg: c.PitchDeg, RollDeg: c.RollDeg,
+		XOffsetM: c.XOffsetM, YOffsetM: c.YOffsetM,
+	}
+}
+
+// SampleFromRow converts one telemetry row to a filter sample.
+func SampleFromRow(r recording.TelemetryRow) filter.Sample {
+	return filter.Sample{
+		TimeUs: r.TimeUs, SpeedMps: r.SpeedMps, YawRateRps: r.YawRateRps,
+		AccelMps2: r.AccelMps2, HasAccel: r.HasAccel,
+		SteerRad: r.SteerRad, HasSteer: r.HasSteer,
+	}
+}
+
+// Replay replays a recorded drive on a virtual display clock and scores, for
+// every tick whose real frame the operator would not have had, what each
+// method shows against the frame that really happened: hold (the last real
+// frame), rotation (rotation-only warp) and predicted (what stopgap shows:
+// a predicted frame above the cutoff, the held frame when STALE). Images are
+// scored before labels and desaturation. It writes the report to cfg.Out and
+// returns its summary.
+//
+// Nothing is written to cfg.Out unless the whole replay succeeds.
+func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
+	log := cfg.Logger
+	if log == nil {
+		log = slog.Default()
+	}
+	now := cfg.Now
+	if now == nil {
+		now = time.Now
+	}
+	if cfg.Drive == "" || cfg.Out == "" {
+		return Summary{}, fmt.Errorf("replay: both a drive directory and an output directory are needed: %w", ErrReplayInput)
+	}
+	if err := cfg.Policy.Validate(); err != nil {
+		return Summary{}, fmt.Errorf("replay: %w", err)
+	}
+	if cfg.AllowanceMs < 0 || math.IsNaN(cfg.AllowanceMs) || math.IsInf(cfg.AllowanceMs, 0) {
+		return Summary{}, fmt.Errorf("replay: jitter allowance %v ms must be a finite number >= 0: %w", cfg.AllowanceMs, ErrReplayInput)
+	}
+	allowanceMs := cfg.AllowanceMs
+	if allowanceMs == 0 {
+		allowanceMs = DefaultAllowanceMs
+	}
+	nExamples := cfg.Examples
+	if nExamples == 0 {
+		nExamples = DefaultExamples
+	}
+	if !cfg.Overwrite {
+		if err := checkFreshOut(cfg.Out); err != nil {
+			return Summary{}, err
+		}
+	}
+
+	rec, err := recording.Open(cfg.Drive)
+	if err != nil {
+		return Summary{}, fmt.Errorf("replay: %w", err)
+	}
+	for _, w := range rec.Warnings {
+		log.Warn("recording tolerated", "drive", cfg.Drive, "warning", w)
+	}
+	if len(rec.Frames) == 0 {
+		return Summary{}, fmt.Errorf("replay: %s has no frames: %w", filepath.Join(cfg.Drive, "frames.csv"), ErrReplayInput)
+	}
+	cam := CameraFromRecording(rec.Camera)
+	if err := cam.Validate(); err != nil {
+		return Summary{}, fmt.Errorf("replay: %s: %w", filepath.Join(cfg.Drive, "camera.json"), err)
+	}
+
+	captureUs := make([]int64, len(rec.Frames))
+	for i, f := range rec.Frames {
+		captureUs[i] = f.CaptureUs
+	}
+	arrivalUs, err := replayArrivals(cfg, rec, captureUs)
+	if err != nil {
+		return Summary{}, err
+	}
+	sched, err := NewSchedule(captureUs, arrivalUs, int64(math.Round(allowanceMs*1000)))
+	if err != nil {
+		return Summary{}, fmt.Errorf("replay: %w", err)
+	}
+
+	fcfg := cfg.Filter
+	if fcfg.Model == filter.ModelInvalid {
+		fcfg.Model = filter.ModelCTRV
+	}
+	flt, err := filter.New(fcfg)
+	if err != nil {
+		return Summary{}, fmt.Errorf("replay: filter: %w", err)
+	}
+	telArr := telemetryArrivals(rec.Telemetry, sched)
+	telOrder := make([]int, 0, len(telArr))
+	for i, a := range telArr {
+		if a != NeverArrivesUs {
+			telOrder = append(telOrder, i)
+		}
+	}
+	sort.SliceStable(telOrder, func(a, b int) bool { return telArr[telOrder[a]] < telArr[telOrder[b]] })
+
+	frames, err := newFrameSource(rec, cam.Width, cam.Height)
+	if err != nil {
+		return Summary{}, fmt.Errorf("replay: %w", err)
+	}
+	defer frames.Close()
+
+	r, err := newReplayer(cam, cfg.Policy, flt, now)
+	if err != nil {
+		return Summary{}, fmt.Errorf("replay: %w", err)
+	}
+	defer r.Close()
+
+	var acc Accumulator
+	rows := make([]TickRow, 0, len(captureUs))
+	var examples []Example
+	defer func() {
+		for _, e := range examples {
+			closeExample(e)
+		}
+	}()
+	exampleBuckets := map[string]bool{}
+	nextTel := 0
+	total := len(captureUs)
+	for k := 0; k < total; k++ {
+		if err := ctx.Err(); err != nil {
+			return Summary{}, fmt.Errorf("replay: stopped at tick %d of %d: %w", k, total, err)
+		}
+		deadline := sched.DeadlineUs(k)
+		for ; nextTel < len(telOrder) && telArr[telOrder[nextTel]] <= deadline; nextTel++ {
+			row := rec.Telemetry[telOrder[nextTel]]
+			if err := flt.Add(SampleFromRow(row)); err != nil {
+				log.Debug("telemetry sample rejected", "t_us", row.TimeUs, "err", err)
+			}
+		}
+
+		var row TickRow
+		if sched.Live(k) {
+			row = NewTickRow(k, captureUs[k], TickLive, 0)
+			row.Confidence = 1
+			// The real frame is loaded lazily, only when a later gap
+			// needs it (see below); LIVE ticks cost nothing to replay.
+			r.pending = k
+		} else {
+			row, err = r.missing(k, sched, frames, rec)
+			if err != nil {
+				return Summary{}, fmt.Errorf("replay: tick %d (frame %d, t_capture_us %d): %w", k, k, captureUs[k], err)
+			}
+			if b := bucketLabel(row.AgeMs) + "/" + row.State; len(examples) < nExamples && !exampleBuckets[b] && row.State != TickLive {
+				exampleBuckets[b] = true
+				examples = append(examples, r.example(row))
+			}
+		}
+		if err := acc.Add(row); err != nil {
+			return Summary{}, fmt.Errorf("replay: tick %d: %w", k, err)
+		}
+		rows = append(rows, row)
+		if cfg.Progress != nil {
+			cfg.Progress(k+1, total)
+		}
+	}
+
+	sum := acc.Summary()
+	sum.Drive = cfg.Drive
+	sum.Cutoff = cfg.Policy.CutoffConfidence
+	sum.MaxAgeMs = cfg.Policy.MaxAgeMs
+	if cfg.ArrivalsFile == "" {
+		sum.Loss = cfg.Loss
+	}
+	sum.ArrivalsFile = cfg.ArrivalsFile
+	sum.AllowanceMs = allowanceMs
+	sum.LatencyMs = float64(sched.LatencyUs) / 1000
+	sum.FilterModel = fcfg.Model.String()
+	sum.TelemetryRejected = int(flt.Rejected().Total())
+	if err := (ReportWriter{Overwrite: cfg.Overwrite}).Write(cfg.Out, sum, rows, examples); err != nil {
+		return Summary{}, fmt.Errorf("replay: writing the report: %w", err)
+	}
+	return sum, nil
+}
+
+// replayArrivals returns each frame's arrival time: recorded (cfg.ArrivalsFile)
+// or simulated (cfg.Loss).
+func replayArrivals(cfg ReplayConfig, rec *recording.Recording, captureUs []int64) ([]int64, error) {
+	if cfg.ArrivalsFile != "" {
+		if err := rec.LoadArrivals(cfg.ArrivalsFile); err != nil {
+			return nil, fmt.Errorf("replay: %w", err)
+		}
+		out := make([]int64, len(captureUs))
+		for i := range out {
+			out[i] = NeverArrivesUs
+		}
+		for _, a := range rec.Arrivals {
+			if a.Arrived {
+				out[a.Index] = a.ArrivalUs
+			}
+		}
+		return out, nil
+	}
+	if err := cfg.Loss.Validate(); err != nil {
+		return nil, fmt.Errorf("replay: loss model: %w", err)
+	}
+	arr, err := cfg.Loss.Simulate(nil, captureUs)
+	if err != nil {
+		return nil, fmt.Errorf("replay: loss model: %w", err)
+	}
+	return arr.ArrivalUs, nil
+}
+
+// checkFreshOut fails early, before any work, if out exists and is not empty.
+func checkFreshOut(out string) error {
+	entries, err := os.ReadDir(out)
+	if errors.Is(err, os.ErrNotExist) {
+		return nil
+	}
+	if err != nil {
+		return fmt.Errorf("replay: output %s: %w", out, err)
+	}
+	if len(entries) > 0 {
+		return fmt.Errorf("replay: output %s exists and is not empty; choose another --out or pass --overwrite: %w", out, ErrDestExists)
+	}
+	return nil
+}
+
+func bucketLabel(ageMs float64) string {
+	b := AgeBuckets()
+	if i := BucketIndex(ageMs); i >= 0 && i < len(b) {
+		return b[i].Label
+	}
+	return "?"
+}
+
+func closeExample(e Example) {
+	for _, m := range []gocv.Mat{e.True, e.Hold, e.Rotation, e.Predicted} {
+		if m.Ptr() != nil {
+			m.Close()
+		}
+	}
+}
+
+// replayer holds the per-tick machinery and its buffers.
+type replayer struct {
+	filler  *predictor.Filler
+	synth   *predictor.Synthesizer
+	scorer  *Scorer
+	now     func() time.Time
+	held    int // frame index the filler holds, -1 if none
+	pending int // newest LIVE frame not yet loaded into the filler, -1 if none
+
+	shown, unlabelled, rotation, scratch gocv.Mat
+
+	// truthImg and heldImg are the images of the tick just scored, borrowed
+	// from the frame source until its next Get.
+	truthImg, heldImg gocv.Mat
+}
+
+func newReplayer(cam predictor.Camera, pol predictor.Policy, flt *filter.Filter, now func() time.Time) (*replayer, error) {
+	filler, err := predictor.NewFiller(predictor.FillerConfig{Camera: cam, Policy: pol, Motion: flt})
+	if err != nil {
+		return nil, err
+	}
+	synth, err := predictor.NewSynthesizer(cam, predictor.SynthOptions{})
+	if err != nil {
+		filler.Close()
+		return nil, err
+	}
+	r := &replayer{
+		filler: filler, synth: synth, scorer: NewScorer(), now: now, held: -1, pending: -1,
+		shown: gocv.NewMat(), unlabelled: gocv.NewMat(), rotation: gocv.NewMat(), scratch: gocv.NewMat(),
+	}
+	filler.Now = now
+	filler.Unlabelled = &r.unlabelled
+	// Warm up: OpenCV initialises its warp tables and thread pool on the
+	// first call, which would otherwise show up as one slow synthesis in
+	// the timing statistics of every replay.
+	warm := gocv.NewMatWithSizeFromScalar(gocv.NewScalar(128, 128, 128, 0), cam.Height, cam.Width, gocv.MatTypeCV8UC3)
+	defer warm.Close()
+	if _, err := synth.Synthesize(warm, filter.Motion{DxM: 1}, &r.scratch); err != nil {
+		r.Close()
+		return nil, fmt.Errorf("warming up the synthesizer: %w", err)
+	}
+	return r, nil
+}
+
+func (r *replayer) Close() {
+	r.filler.Close()
+	r.synth.Close()
+	r.scorer.Close()
+	for _, m := range []gocv.Mat{r.shown, r.unlabelled, r.rotation, r.scratch} {
+		m.Close()
+	}
+}
+
+// missing fills and scores tick k, whose frame is not due-and-here.
+func (r *replayer) missing(k int, s Schedule, frames *frameSource, rec *recording.Recording) (TickRow, error) {
+	// The held frame: the newest one that has arrived by this tick, which
+	// may be a LIVE frame not yet loaded or a frame that came late.
+	if j := s.Held(k); j >= 0 && j != r.held {
+		img, err := frames.Get(j)
+		if err != nil {
+			return TickRow{}, err
+		}
+		if _, err := r.filler.Live(img, s.CaptureUs[j], &r.scratch); err != nil {
+			return TickRow{}, fmt.Errorf("holding frame %d: %w", j, err)
+		}
+		r.held = j
+	}
+	truth, err := frames.Get(k)
+	if err != nil {
+		return TickRow{}, err
+	}
+	tick, err := r.filler.MissingWith(predictor.MethodGround, s.CaptureUs[k], &r.shown)
+	if errors.Is(err, predictor.ErrNoFrame) {
+		// No real frame yet: the operator sees a "no picture" frame;
+		// nothing to score.
+		row := NewTickRow(k, s.CaptureUs[k], TickStale, 0)
+		row.Confidence = 0
+		return row, nil
+	}
+	if err != nil {
+		return TickRow{}, err
+	}
+	row := NewTickRow(k, s.CaptureUs[k], tick.State.String(), tick.AgeMs)
+	row.Confidence = tick.Confidence
+	row.LabelShare = tick.LabelFraction
+	if tick.State == predictor.StatePredicted {
+		row.SynthMs = float64(tick.SynthDuration) / float64(time.Millisecond)
+		row.UnfilledShare = tick.UnfilledFraction
+	}
+	held, err := frames.Get(r.held)
+	if err != nil {
+		return TickRow{}, err
+	}
+	r.truthImg, r.heldImg = truth, held
+	if row.Hold, err = r.scorer.Score(held, truth); err != nil {
+		return TickRow{}, fmt.Errorf("scoring hold: %w", err)
+	}
+	// What stopgap shows, before label and desaturation.
+	if row.Predicted, err = r.scorer.Score(r.unlabelled, truth); err != nil {
+		return TickRow{}, fmt.Errorf("scoring predicted: %w", err)
+	}
+	// The rotation-only baseline always warps (it has no cutoff); without
+	// a usable motion it can only hold.
+	if tick.MotionErr == nil {
+		if _, err := r.synth.SynthesizeRotation(held, tick.Motion, &r.rotation); err != nil {
+			return TickRow{}, fmt.Errorf("rotation baseline: %w", err)
+		}
+	} else {
+		held.CopyTo(&r.rotation)
+	}
+	if row.Rotation, err = r.scorer.Score(r.rotation, truth); err != nil {
+		return TickRow{}, fmt.Errorf("scoring rotation: %w", err)
+	}
+	return row, nil
+}
+
+// example copies the images of the tick just scored for the report.
+func (r *replayer) example(row TickRow) Example {
+	e := Example{Tick: row.Tick, AgeMs: row.AgeMs, State: row.State, Confidence: row.Confidence}
+	e.True = gocv.NewMat()
+	e.Hold = gocv.NewMat()
+	e.Rotation = gocv.NewMat()
+	e.Predicted = gocv.NewMat()
+	r.truthImg.CopyTo(&e.True)
+	r.heldImg.CopyTo(&e.Hold)
+	r.rotation.CopyTo(&e.Rotation)
+	r.shown.CopyTo(&e.Predicted)
+	return e
+}
+
+// ErrReplayInput means the recording or the replay settings cannot be
+// replayed as given; the wrapping error names the file, line or setting.
+var ErrReplayInput = errors.New("bench: replay input unusable")

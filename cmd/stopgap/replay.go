@@ -1,0 +1,173 @@
+package main
+
+import (
+	"context"
+	"flag"
+	"fmt"
+	"io"
+	"log/slog"
+	"path/filepath"
+
+	"stopgap/bench"
+	"stopgap/bench/simdrive"
+	"stopgap/filter"
+	"stopgap/predictor"
+)
+
+// replayFlags are the flags shared by "replay" and the offline demo.
+type replayFlags struct {
+	arrivals             string
+	lossRate, burstMs    float64
+	seed                 uint64
+	delayMs, jitterMs    float64
+	cutoff, maxAgeMs     float64
+	allowanceMs          float64
+	model                string
+	wheelbaseM           float64
+	examples             int
+	overwrite, quiet     bool
+	logJSON, verboseLogs bool
+}
+
+func (f *replayFlags) register(fs *flag.FlagSet) {
+	pol := predictor.DefaultPolicy()
+	fs.StringVar(&f.arrivals, "arrivals", "", "recorded arrivals `file` (index,t_arrival_us; blank = never arrived); overrides the loss model")
+	fs.Float64Var(&f.lossRate, "loss-rate", 0.1, "long-run fraction of frames lost by the Gilbert-Elliott model, [0,1)")
+	fs.Float64Var(&f.burstMs, "burst-ms", 200, "mean duration of a loss burst, ms")
+	fs.Uint64Var(&f.seed, "seed", 1, "seed of the loss model")
+	fs.Float64Var(&f.delayMs, "delay-ms", 0, "fixed extra one-way delay of every frame, ms")
+	fs.Float64Var(&f.jitterMs, "jitter-ms", 0, "uniform extra delay of each frame in [0, jitter), ms")
+	fs.Float64Var(&f.cutoff, "cutoff", pol.CutoffConfidence, "confidence cutoff in [0,1]: below it a missing frame is shown STALE, not PREDICTED")
+	fs.Float64Var(&f.maxAgeMs, "max-age-ms", pol.MaxAgeMs, "hard cap on the age of a predicted frame, ms")
+	fs.Float64Var(&f.allowanceMs, "allowance-ms", bench.DefaultAllowanceMs, "display clock jitter allowance: how late a frame may arrive and still be LIVE, ms")
+	fs.StringVar(&f.model, "model", "ctrv", "motion model of the filter: ctrv or bicycle")
+	fs.Float64Var(&f.wheelbaseM, "wheelbase-m", 2.7, "wheelbase for the bicycle model and steering telemetry, m")
+	fs.IntVar(&f.examples, "examples", bench.DefaultExamples, "how many example ticks the report shows side by side")
+	fs.BoolVar(&f.overwrite, "overwrite", false, "replace an existing non-empty --out directory")
+	fs.BoolVar(&f.quiet, "quiet", false, "no progress bar")
+	fs.BoolVar(&f.logJSON, "log-json", false, "write logs as JSON")
+	fs.BoolVar(&f.verboseLogs, "v", false, "verbose logs (every rejected telemetry sample)")
+}
+
+func (f *replayFlags) config(drive, out string, stderr io.Writer) (bench.ReplayConfig, error) {
+	model, err := filter.ParseModel(f.model)
+	if err != nil {
+		return bench.ReplayConfig{}, fmt.Errorf("--model: %w", err)
+	}
+	level := slog.LevelInfo
+	if f.verboseLogs {
+		level = slog.LevelDebug
+	}
+	cfg := bench.ReplayConfig{
+		Drive: drive, Out: out, Overwrite: f.overwrite,
+		ArrivalsFile: f.arrivals,
+		Loss: bench.LossConfig{
+			Model: bench.LossModelGilbertElliott, LossRate: f.lossRate, BurstMs: f.burstMs,
+			ExtraDelayMs: f.delayMs, JitterMs: f.jitterMs, Seed: f.seed,
+		},
+		Policy:      predictor.Policy{CutoffConfidence: f.cutoff, MaxAgeMs: f.maxAgeMs},
+		Filter:      filter.Config{Model: model, WheelbaseM: f.wheelbaseM},
+		AllowanceMs: f.allowanceMs,
+		Examples:    f.examples,
+		Logger:      newLogger(stderr, f.logJSON, level),
+	}
+	if f.lossRate == 0 {
+		cfg.Loss = bench.LossConfig{Model: bench.LossModelNone, ExtraDelayMs: f.delayMs, JitterMs: f.jitterMs, Seed: f.seed}
+	}
+	if f.examples == 0 {
+		cfg.Examples = -1
+	}
+	if !f.quiet {
+		cfg.Progress = progressBar(stderr, "replay")
+	}
+	return cfg, nil
+}
+
+func runReplay(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	fs := flag.NewFlagSet("replay", flag.ContinueOnError)
+	fs.SetOutput(stderr)
+	var drive, out string
+	fs.StringVar(&drive, "drive", "", "recording `directory` to replay (required)")
+	fs.StringVar(&out, "out", "", "report `directory` to create (required)")
+	var rf replayFlags
+	rf.register(fs)
+	fs.Usage = func() {
+		fmt.Fprintln(stderr, "usage: stopgap replay --drive DIR --out DIR [flags]")
+		fmt.Fprintln(stderr, "\nReplays a recording on a virtual display clock, with drops from --arrivals or")
+		fmt.Fprintln(stderr, "from a Gilbert-Elliott loss model, and scores hold, rotation and predicted")
+		fmt.Fprintln(stderr, "against the true frame of every tick the operator would have missed.")
+		fmt.Fprintln(stderr)
+		fs.PrintDefaults()
+	}
+	if err := parse(fs, args); err != nil {
+		return err
+	}
+	if drive == "" || out == "" {
+		fmt.Fprintln(stderr, "stopgap replay: --drive and --out are required")
+		fs.Usage()
+		return errUsage
+	}
+	cfg, err := rf.config(drive, out, stderr)
+	if err != nil {
+		return err
+	}
+	fmt.Fprintln(stderr, safetyCaution)
+	sum, err := bench.Replay(ctx, cfg)
+	if err != nil {
+		return err
+	}
+	printSummary(stdout, sum, out)
+	return nil
+}
+
+func printSummary(w io.Writer, s bench.Summary, out string) {
+	fmt.Fprintf(w, "ticks %d: live %d, missing %d (predicted %d, stale %d)\n",
+		s.TicksTotal, s.LiveTicks, s.TicksMissing, s.PredictedTicks, s.StaleTicks)
+	fmt.Fprintf(w, "synthesis per predicted frame: p50 %.2f ms, p99 %.2f ms\n", float64(s.SynthMsP50), float64(s.SynthMsP99))
+	fmt.Fprintf(w, "%-10s %7s %10s %9s %9s\n", "method", "frames", "PSNR dB", "SSIM", "MAE")
+	for _, m := range bench.Methods() {
+		st := s.Methods.Get(m)
+		fmt.Fprintf(w, "%-10s %7d %10.2f %9.4f %9.2f\n", m, st.Frames, float64(st.PSNRdBMean), float64(st.SSIMMean), float64(st.MAEMean))
+	}
+	fmt.Fprintf(w, "report: %s\n", filepath.Join(out, "report.html"))
+}
+
+func runSimdrive(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	fs := flag.NewFlagSet("simdrive", flag.ContinueOnError)
+	fs.SetOutput(stderr)
+	var out string
+	var quiet bool
+	var cfg simdrive.Config
+	fs.StringVar(&out, "out", "", "recording `directory` to create; must not exist (required)")
+	fs.IntVar(&cfg.Width, "width", 1280, "image width, px")
+	fs.IntVar(&cfg.Height, "height", 720, "image height, px")
+	fs.Float64Var(&cfg.FPS, "fps", 30, "frame rate, frames per second")
+	fs.Float64Var(&cfg.DurationS, "duration-s", 20, "drive length, s")
+	fs.Float64Var(&cfg.SpeedMps, "speed-mps", 10, "mean speed, m/s")
+	fs.Int64Var(&cfg.Seed, "seed", 1, "seed of the scene, trajectory and telemetry noise")
+	fs.BoolVar(&quiet, "quiet", false, "no progress bar")
+	fs.Usage = func() {
+		fmt.Fprintln(stderr, "usage: stopgap simdrive --out DIR [flags]")
+		fmt.Fprintln(stderr, "\nRenders a synthetic drive of our own street scene and writes it as a recording")
+		fmt.Fprintln(stderr, "(camera.json, frames.csv + JPEG frames, telemetry.csv, truth.csv).")
+		fmt.Fprintln(stderr)
+		fs.PrintDefaults()
+	}
+	if err := parse(fs, args); err != nil {
+		return err
+	}
+	if out == "" {
+		fmt.Fprintln(stderr, "stopgap simdrive: --out is required")
+		fs.Usage()
+		return errUsage
+	}
+	var progress func(int, int)
+	if !quiet {
+		progress = progressBar(stderr, "simdrive")
+	}
+	if err := simdrive.Generate(ctx, cfg, out, progress); err != nil {
+		return err
+	}
+	fmt.Fprintf(stdout, "recording written: %s\n", out)
+	return nil
+}
