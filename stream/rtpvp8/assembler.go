@@ -221,6 +221,12 @@ type Loss struct {
 	// FirstRTPTimestamp and LastRTPTimestamp are the RTP timestamps of the
 	// first and last dropped packet in sequence order.
 	FirstRTPTimestamp, LastRTPTimestamp uint32
+	// HasPrev tells whether a frame was delivered before the loss (since
+	// the start or the last resync), so that PrevRTPTimestamp is known.
+	HasPrev bool
+	// PrevRTPTimestamp is the RTP timestamp of the last frame delivered
+	// before the loss: the lost frames were captured after it.
+	PrevRTPTimestamp uint32
 	// Declared is the time the loss was declared: the arrival time passed
 	// to [Assembler.Push] or the time passed to [Assembler.Expire] or
 	// [Assembler.Flush].
@@ -410,6 +416,8 @@ type Assembler struct {
 	needKey bool
 	lostTS  uint32 // timestamp of the last frame reported lost
 	lostOK  bool
+	prevTS  uint32 // timestamp of the last frame delivered
+	prevOK  bool
 
 	// Scan cache for the frame at head: positions before scanPos are
 	// present and checked, their VP8 data totals scanSize octets.
@@ -569,6 +577,7 @@ func (a *Assembler) start(seq uint16) {
 	a.started = true
 	a.committed = false
 	a.lostOK = false
+	a.prevOK = false
 	a.newest = 1<<32 + int64(seq)
 	a.head = a.newest
 	a.scanHead = -1
@@ -819,7 +828,8 @@ func (a *Assembler) skipTo(end int64, reason LossReason, now time.Time) {
 	if end <= a.head {
 		return
 	}
-	l := Loss{Reason: reason, FirstSeq: uint16(a.head), LastSeq: uint16(end - 1), Declared: now}
+	l := Loss{Reason: reason, FirstSeq: uint16(a.head), LastSeq: uint16(end - 1), Declared: now,
+		HasPrev: a.prevOK, PrevRTPTimestamp: a.prevTS}
 	last := end - 1
 	if last > a.newest {
 		l.Missing += int(last - a.newest)
@@ -901,6 +911,7 @@ func (a *Assembler) deliver(last int64, noMarker bool, now time.Time) {
 	a.head = last + 1
 	a.committed = true
 	a.lostOK = false
+	a.prevTS, a.prevOK = f.RTPTimestamp, true
 	f.Data = buf
 	f.Keyframe = h.Keyframe
 	f.ShowFrame = h.ShowFrame

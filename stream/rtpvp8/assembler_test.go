@@ -412,6 +412,24 @@ func TestAssemblerFrameFields(t *testing.T) {
 	}
 }
 
+func TestLossPrevTimestamp(t *testing.T) {
+	var losses []Loss
+	a, err := NewAssembler(AssemblerConfig{}, SinkFuncs{Loss: func(l Loss) { losses = append(losses, l) }})
+	if err != nil {
+		t.Fatal(err)
+	}
+	// Joined mid-frame: no frame before the first loss. Then frame 6000 is
+	// lost whole after frame 3000 was delivered.
+	for _, s := range cat(frame(10, 0, 3, true, 0)[1:], frame(13, 3000, 1, true, 33), frame(15, 9000, 1, false, 99)) {
+		if err := a.Push(s.packet(), t0.Add(time.Duration(s.atMs)*time.Millisecond)); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if len(losses) != 2 || losses[0].HasPrev || !losses[1].HasPrev || losses[1].PrevRTPTimestamp != 3000 || losses[1].HasTimestamp {
+		t.Errorf("losses %+v", losses)
+	}
+}
+
 func TestReasonStrings(t *testing.T) {
 	for r := LossInvalid; r <= lossReasonCount; r++ {
 		if r.String() == "" {
