@@ -126,8 +126,10 @@ func (c *Console) PageURL(base string) string {
 // it after the call. A viewer whose queue is full loses the frame (counted in
 // Stats.FramesDropped) and then receives nothing until the next keyframe,
 // which is requested through Config.KeyframeNeeded; a new viewer likewise
-// starts at a keyframe. Frames written while nobody watches only advance the
-// RTP clock. Errors: ErrEmptyFrame, ErrBadDuration, ErrClosed.
+// starts at a keyframe. RTP timestamps advance by the durations given, not
+// by wall time, so call it once per display tick; frames written while
+// nobody watches only advance that clock. Errors: ErrEmptyFrame,
+// ErrBadDuration, ErrClosed.
 func (c *Console) WriteFrame(frame []byte, duration time.Duration) error {
 	return c.eg.writeFrame(frame, duration)
 }

@@ -41,10 +41,10 @@ func TestVP8IsKeyframe(t *testing.T) {
 
 // fakeSink records what a viewer sent; block makes sendVideo wait.
 type fakeSink struct {
-	mu     sync.Mutex
-	frames [][]byte
-	starts []int64
-	metas  []string
+	mu      sync.Mutex
+	frames  [][]byte
+	starts  []int64
+	metas   []string
 	block   chan struct{} // if set, sendVideo waits for it to close
 	entered chan struct{} // if set, signalled when sendVideo starts
 	got     chan struct{}

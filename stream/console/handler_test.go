@@ -41,7 +41,9 @@ func do(c http.Handler, method, path, ctype, body string, hdr map[string][]strin
 	return w
 }
 
-func bearer(tok string) map[string][]string { return map[string][]string{"Authorization": {"Bearer " + tok}} }
+func bearer(tok string) map[string][]string {
+	return map[string][]string{"Authorization": {"Bearer " + tok}}
+}
 
 // TestAuthRequired: every /api/ endpoint answers 401 with WWW-Authenticate
 // (RFC 6750 section 3) unless exactly one correct bearer token is sent.
