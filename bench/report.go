@@ -329,7 +329,7 @@ func (r *TickRow) Validate() error {
 	if !math.IsNaN(r.SynthMs) && !(r.SynthMs >= 0 && !math.IsInf(r.SynthMs, 0)) {
 		return bad("synth time %g ms, want a finite value >= 0", r.SynthMs)
 	}
-	for _, m := range Methods() {
+	for m := MethodHold; m <= MethodPredicted; m++ { // no allocation per tick
 		if _, err := checkScores(r.MethodScores(m)); err != nil {
 			return bad("%s: %v", m, err)
 		}
@@ -402,7 +402,8 @@ func (a *Accumulator) Add(r TickRow) error {
 	a.label.add(r.LabelShare)
 	a.unfilled.add(r.UnfilledShare)
 	b := BucketIndex(r.AgeMs)
-	for i, m := range Methods() {
+	for m := MethodHold; m <= MethodPredicted; m++ { // no allocation per tick
+		i := int(m - MethodHold)
 		s := r.MethodScores(m)
 		if ok, _ := checkScores(s); !ok {
 			continue
