@@ -62,7 +62,7 @@ var (
 // A ParseError is returned for a problem in a recording file. It is modelled
 // on encoding/csv.ParseError: File is the path as opened, Line is 1-based
 // (0 if the problem concerns the whole file), Column is the 1-based field
-// number in a CSV row or the 1-based character column in camera.json (0 if
+// number in a CSV row or the 1-based byte column in camera.json (0 if
 // the problem concerns the whole line). Err wraps one of the Err* values.
 type ParseError struct {
 	File   string // path of the file

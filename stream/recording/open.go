@@ -165,7 +165,9 @@ func (r *Recording) addWarnings(w []string, dropped bool) {
 
 // ReadArrivals reads a standalone arrivals file (header index,t_arrival_us;
 // blank t_arrival_us = never arrived). Indices are not checked against any
-// recording; use [Recording.LoadArrivals] for that.
+// recording; use [Recording.LoadArrivals] for that. Having no warnings
+// channel, it treats an incomplete last line as an error rather than
+// dropping it.
 func ReadArrivals(path string) ([]Arrival, error) {
 	b, err := os.ReadFile(path)
 	if err != nil {
