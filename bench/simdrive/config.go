@@ -92,7 +92,7 @@ func (c Config) withDefaults() (Config, error) {
 		{c.Width >= 16 && c.Width <= 8192, "Width must be 16..8192 pixels"},
 		{c.Height >= 16 && c.Height <= 8192, "Height must be 16..8192 pixels"},
 		{finite(c.FPS) && c.FPS > 0 && c.FPS <= 1000, "FPS must be in (0, 1000]"},
-		{finite(c.DurationS) && c.DurationS > 0 && c.DurationS <= 600, "DurationS must be in (0, 600] seconds"},
+		{finite(c.DurationS) && c.DurationS > 0 && c.DurationS <= 120, "DurationS must be in (0, 120] seconds (one ground map covers the drive)"},
 		{finite(c.SpeedMps) && c.SpeedMps > 0 && c.SpeedMps <= 40, "SpeedMps must be in (0, 40] m/s"},
 		{finite(c.TelemetryHz) && c.TelemetryHz > 0 && c.TelemetryHz <= 10000, "TelemetryHz must be in (0, 10000]"},
 		{finite(c.SpeedSigmaMps) && finite(c.YawRateSigmaRps) && finite(c.AccelSigmaMps2) && finite(c.SteerSigmaRad), "noise sigmas must be finite"},
