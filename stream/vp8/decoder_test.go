@@ -72,6 +72,9 @@ func TestDecoderLossWaitsForKeyframe(t *testing.T) {
 		if err := d.Decode(s.frames[i], out); err != ErrNeedKeyframe {
 			t.Fatalf("frame %d after loss: %v, want ErrNeedKeyframe", i, err)
 		}
+		if got := d.LastFrameType(); got != FrameTypeInter {
+			t.Errorf("LastFrameType = %v, want inter", got)
+		}
 	}
 	for i := 6; i < 10; i++ {
 		if err := d.Decode(s.frames[i], out); err != nil {
@@ -83,6 +86,9 @@ func TestDecoderLossWaitsForKeyframe(t *testing.T) {
 	}
 	if d.NeedKeyframe() {
 		t.Error("still waiting after the keyframe at 6")
+	}
+	if err := d.Decode([]byte{1}, out); err == nil || d.LastFrameType() != FrameTypeInvalid {
+		t.Errorf("1-byte frame: err %v, LastFrameType %v", err, d.LastFrameType())
 	}
 	if w, h := d.Size(); w != 64 || h != 48 {
 		t.Errorf("Size = %dx%d", w, h)
