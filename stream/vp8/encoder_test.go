@@ -192,3 +192,38 @@ func TestConcurrentControl(t *testing.T) {
 	}
 	<-done
 }
+
+// TestSetBitrateTakesEffect: after lowering the target tenfold, frames must
+// get clearly smaller (CBR follows the target within a second or so).
+func TestSetBitrateTakesEffect(t *testing.T) {
+	const w, h = 160, 120
+	e, err := NewEncoder(EncoderConfig{Width: w, Height: h, BitrateBps: 1_000_000, KeyframeInterval: 1000})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer e.Close()
+	bgr := make([]byte, w*h*3)
+	sizes := func(from, n int) int {
+		total := 0
+		for i := from; i < from+n; i++ {
+			synthBGR(bgr, w, h, i, 8, 5)
+			f, _, err := e.EncodeBGR(nil, bgr, int64(i)*33_333)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if i >= from+n/2 { // second half: rate control has settled
+				total += len(f)
+			}
+		}
+		return total
+	}
+	high := sizes(0, 60)
+	if err := e.SetBitrate(100_000); err != nil {
+		t.Fatal(err)
+	}
+	low := sizes(60, 60)
+	t.Logf("bytes over 30 frames: %d at 1 Mbit/s, %d at 100 kbit/s", high, low)
+	if low*3 > high {
+		t.Errorf("SetBitrate(100k) left frames at %d bytes vs %d before: no clear drop", low, high)
+	}
+}
