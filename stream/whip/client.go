@@ -271,19 +271,18 @@ func httpError(resp *http.Response, body []byte) *HTTPError {
 // readRTCP drains RTCP for the video sender (needed for the NACK responder) and turns PLI and FIR into
 // keyframe requests.
 func (p *Publisher) readRTCP(sender *webrtc.RTPSender) {
+	fails := 0
 	for {
 		pkts, _, err := sender.ReadRTCP()
 		if err != nil {
-			if errors.Is(err, io.EOF) || errors.Is(err, io.ErrClosedPipe) {
+			if errors.Is(err, io.EOF) || errors.Is(err, io.ErrClosedPipe) || p.closed() ||
+				fails >= maxConsecutiveReadErrors {
 				return
 			}
-			select {
-			case <-p.done:
-				return
-			default:
-				continue
-			}
+			fails++
+			continue
 		}
+		fails = 0
 		for _, pk := range pkts {
 			switch pk.(type) {
 			case *rtcp.PictureLossIndication, *rtcp.FullIntraRequest:
@@ -326,7 +325,7 @@ func (p *Publisher) SendTelemetry(b []byte) error {
 }
 
 // KeyframeRequests delivers the receive time of each PLI or FIR from the server: the sender should encode
-// its next frame as a keyframe.
+// its next frame as a keyframe. The channel is never closed; select on Done as well.
 func (p *Publisher) KeyframeRequests() <-chan time.Time { return p.keyframes }
 
 // Done is closed when the PeerConnection failed or was closed.

@@ -6,11 +6,13 @@ import (
 	"errors"
 	"fmt"
 	"net/http"
+	"strings"
 	"sync/atomic"
 	"testing"
 	"time"
 
 	"github.com/pion/rtp"
+	"github.com/pion/webrtc/v4"
 )
 
 // connect starts a loopback server and publishes to it, returning both ends once the server session is
@@ -288,4 +290,85 @@ func TestPublishErrors(t *testing.T) {
 	if srv.Stats().Active != 1 {
 		t.Errorf("active %d", srv.Stats().Active)
 	}
+}
+
+// TestTelemetryLimits: oversized messages and messages arriving at a full queue are dropped and counted.
+func TestTelemetryLimits(t *testing.T) {
+	_, sess, pub := connect(t, Config{MaxTelemetryBytes: 8, TelemetryQueue: 2}, PublishConfig{TelemetryReliable: true})
+	if err := pub.SendTelemetry([]byte("123456789")); err != nil { // 9 bytes > 8
+		t.Fatal(err)
+	}
+	for i := 0; i < 4; i++ {
+		if err := pub.SendTelemetry([]byte{byte('a' + i)}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	waitFor(t, 3*time.Second, "5 telemetry messages accounted", func() bool {
+		st := sess.Stats()
+		return st.TelemetryMessages+st.TelemetryDropped == 5
+	})
+	if st := sess.Stats(); st.TelemetryMessages != 2 || st.TelemetryDropped != 3 {
+		t.Fatalf("messages %d dropped %d, want 2 and 3", st.TelemetryMessages, st.TelemetryDropped)
+	}
+	for _, want := range []string{"a", "b"} { // reliable and ordered: the first two small ones were kept
+		if m := <-sess.Telemetry(); string(m.Data) != want {
+			t.Errorf("got %q, want %q", m.Data, want)
+		}
+	}
+}
+
+// TestConcurrentPostsRespectMaxSessions fires more simultaneous offers than slots: exactly MaxSessions win.
+func TestConcurrentPostsRespectMaxSessions(t *testing.T) {
+	srv, hs := newTestServer(t, Config{MaxSessions: 2})
+	const n = 6
+	offers := make([]string, n)
+	for i := range offers {
+		offers[i] = makeOffer(t)
+	}
+	codes := make(chan int, n)
+	for i := 0; i < n; i++ {
+		go func(offer string) {
+			req, _ := http.NewRequest(http.MethodPost, hs.URL+"/whip", strings.NewReader(offer))
+			req.Header.Set("Authorization", "Bearer "+testToken)
+			req.Header.Set("Content-Type", "application/sdp")
+			resp, err := http.DefaultClient.Do(req)
+			if err != nil {
+				codes <- 0
+				return
+			}
+			resp.Body.Close()
+			codes <- resp.StatusCode
+		}(offers[i])
+	}
+	count := map[int]int{}
+	for i := 0; i < n; i++ {
+		count[<-codes]++
+	}
+	if count[http.StatusCreated] != 2 || count[http.StatusServiceUnavailable] != n-2 {
+		t.Fatalf("status counts %v, want 2x201 and %dx503", count, n-2)
+	}
+	if a := srv.Stats().Active; a != 2 {
+		t.Errorf("active %d", a)
+	}
+}
+
+// TestOtherDataChannelClosed: a data channel with a label other than TelemetryLabel is closed and counted.
+func TestOtherDataChannelClosed(t *testing.T) {
+	sessions := make(chan *Session, 1)
+	_, hs := newTestServer(t, Config{OnSession: func(s *Session) { sessions <- s }})
+	pc, offer := makeOfferPC(t, "camera-control")
+	resp, answer := post(t, hs.URL, offer)
+	if resp.StatusCode != http.StatusCreated {
+		t.Fatalf("POST: %d %s", resp.StatusCode, answer)
+	}
+	if err := pc.SetRemoteDescription(webrtc.SessionDescription{Type: webrtc.SDPTypeAnswer, SDP: answer}); err != nil {
+		t.Fatal(err)
+	}
+	var sess *Session
+	select {
+	case sess = <-sessions:
+	case <-time.After(5 * time.Second):
+		t.Fatal("no session")
+	}
+	waitFor(t, 3*time.Second, "the extra channel to be refused", func() bool { return sess.Stats().OtherDataChannels == 1 })
 }

@@ -103,6 +103,14 @@ func newTestServer(t testing.TB, cfg Config) (*Server, *httptest.Server) {
 // offer can never connect unless the caller applies an answer.
 func makeOffer(t testing.TB) string {
 	t.Helper()
+	_, sdp := makeOfferPC(t)
+	return sdp
+}
+
+// makeOfferPC is makeOffer returning the PeerConnection too, so a test can apply the answer; extra data
+// channels with the given labels are added to the offer.
+func makeOfferPC(t testing.TB, extraLabels ...string) (*webrtc.PeerConnection, string) {
+	t.Helper()
 	me, err := newMediaEngine()
 	if err != nil {
 		t.Fatal(err)
@@ -121,8 +129,10 @@ func makeOffer(t testing.TB) string {
 	if _, err := pc.AddTransceiverFromTrack(track, webrtc.RTPTransceiverInit{Direction: webrtc.RTPTransceiverDirectionSendonly}); err != nil {
 		t.Fatal(err)
 	}
-	if _, err := pc.CreateDataChannel(TelemetryLabel, nil); err != nil {
-		t.Fatal(err)
+	for _, l := range append([]string{TelemetryLabel}, extraLabels...) {
+		if _, err := pc.CreateDataChannel(l, nil); err != nil {
+			t.Fatal(err)
+		}
 	}
 	offer, err := pc.CreateOffer(nil)
 	if err != nil {
@@ -137,7 +147,7 @@ func makeOffer(t testing.TB) string {
 	case <-time.After(5 * time.Second):
 		t.Fatal("gathering timed out")
 	}
-	return pc.LocalDescription().SDP
+	return pc, pc.LocalDescription().SDP
 }
 
 // do sends one request and returns the response with its body read.

@@ -55,6 +55,7 @@ type Server struct {
 	mu       sync.Mutex
 	closed   bool
 	sessions map[string]*Session
+	pending  int // slots held by POSTs still building their PeerConnection
 	accepted uint64
 	ended    uint64
 	rejected [numRejectReasons]uint64
@@ -78,7 +79,8 @@ func NewServer(cfg Config) (*Server, error) {
 type ServerStats struct {
 	// Active is the number of sessions that exist now, connected or still connecting.
 	Active int
-	// Accepted counts 201 responses; Ended counts sessions that ended for any reason.
+	// Accepted counts 201 responses; Ended counts sessions that ended for any reason, including offers the
+	// WebRTC stack refused after a session had been set up for them.
 	Accepted, Ended uint64
 	// Rejections counts refused requests and dropped half-open sessions per reason (only non-zero entries).
 	Rejections map[RejectReason]uint64
@@ -303,8 +305,9 @@ func newID() (string, error) {
 	return hex.EncodeToString(b[:]), nil
 }
 
-// reserve creates and registers a session (counting toward MaxSessions) with its PeerConnection, or fails
-// when the server is full or closed.
+// reserve creates a session with its PeerConnection and registers it, or fails when the server is full or
+// closed. A slot is held (pending) while the PeerConnection is built, so concurrent POSTs cannot overshoot
+// MaxSessions, and only complete sessions are ever visible in the map.
 func (s *Server) reserve(remote string) (*Session, error) {
 	id, err := newID()
 	if err != nil {
@@ -315,10 +318,13 @@ func (s *Server) reserve(remote string) (*Session, error) {
 		s.mu.Unlock()
 		return nil, ErrServerClosed
 	}
-	if len(s.sessions) >= s.cfg.MaxSessions {
+	if len(s.sessions)+s.pending >= s.cfg.MaxSessions {
 		s.mu.Unlock()
 		return nil, fmt.Errorf("server busy: %d sessions (the maximum); retry later", s.cfg.MaxSessions)
 	}
+	s.pending++
+	s.mu.Unlock()
+
 	sess := &Session{
 		id: id, remote: remote, srv: s, clock: s.cfg.Clock, cfg: &s.cfg,
 		log:     s.cfg.Logger.With("session", id[:8]),
@@ -327,17 +333,23 @@ func (s *Server) reserve(remote string) (*Session, error) {
 		telq:    make(chan TelemetryBytes, s.cfg.TelemetryQueue),
 		done:    make(chan struct{}),
 	}
-	s.sessions[id] = sess
-	s.mu.Unlock()
-
 	pc, err := s.newPeerConnection(sess.counter)
+	s.mu.Lock()
+	s.pending--
+	if err == nil && s.closed {
+		err = ErrServerClosed
+	}
 	if err != nil {
-		s.mu.Lock()
-		delete(s.sessions, id)
 		s.mu.Unlock()
+		if pc != nil {
+			_ = pc.Close()
+		}
 		return nil, err
 	}
 	sess.pc = pc
+	s.sessions[id] = sess
+	s.mu.Unlock()
+
 	sess.mu.Lock()
 	sess.iceTimer = s.cfg.Clock.AfterFunc(s.cfg.ICETimeout, sess.onICETimeout)
 	sess.mu.Unlock()

@@ -352,14 +352,18 @@ func (s *Session) readRTP(track *webrtc.TrackRemote) {
 // sender reports (the receiver-report interceptor needs them for LSR/DLSR); sender reports for the video
 // SSRC are also kept for SenderReport.
 func (s *Session) readRTCP(recv *webrtc.RTPReceiver) {
+	fails := 0
 	for {
 		pkts, _, err := recv.ReadRTCP()
 		if err != nil {
-			if errors.Is(err, io.EOF) || s.isDone() {
+			// Undecodable RTCP is skipped; a reader that only fails is abandoned.
+			if errors.Is(err, io.EOF) || s.isDone() || fails >= maxConsecutiveReadErrors {
 				return
 			}
+			fails++
 			continue
 		}
+		fails = 0
 		now := s.clock.Now()
 		for _, p := range pkts {
 			sr, ok := p.(*rtcp.SenderReport)
