@@ -33,8 +33,7 @@ type session struct {
 	dc  *webrtc.DataChannel
 	v   *viewer
 
-	sinkMu sync.Mutex // sink is used by the video goroutine only; the lock documents that
-	sink   rtpSink
+	sink rtpSink // used only by the viewer's video goroutine
 
 	connectTimer *time.Timer
 
@@ -51,8 +50,6 @@ func (s *session) isAttached() bool {
 }
 
 func (s *session) sendVideo(frame []byte, startNs, durNs int64) error {
-	s.sinkMu.Lock()
-	defer s.sinkMu.Unlock()
 	return s.sink.writeFrame(frame, startNs, durNs)
 }
 
@@ -134,6 +131,12 @@ func (c *Console) newSession(ctx context.Context, offer string) (*session, strin
 	answer, err := c.setupSession(ctx, s, offer)
 	if err != nil {
 		c.endSession(s, "setup failed")
+		c.mu.Lock()
+		closed := c.closed
+		c.mu.Unlock()
+		if closed { // the failure came from Close tearing the session down
+			err = fmt.Errorf("%w (during setup: %v)", ErrClosed, err)
+		}
 		return nil, "", err
 	}
 	return s, answer, nil
@@ -144,7 +147,14 @@ func (c *Console) setupSession(ctx context.Context, s *session, offer string) (s
 	if err != nil {
 		return "", fmt.Errorf("console: new peer connection: %w", err)
 	}
+	s.mu.Lock()
+	if s.ended { // Close ran meanwhile
+		s.mu.Unlock()
+		pc.Close()
+		return "", ErrClosed
+	}
 	s.pc = pc
+	s.mu.Unlock()
 	track, err := webrtc.NewTrackLocalStaticRTP(vp8Codec, "video", "stopgap")
 	if err != nil {
 		return "", fmt.Errorf("console: new track: %w", err)
@@ -197,14 +207,18 @@ func (c *Console) setupSession(ctx context.Context, s *session, offer string) (s
 	case <-ctx.Done():
 		return "", fmt.Errorf("console: offer request ended: %w", ctx.Err())
 	}
+	answerSDP := pc.LocalDescription().SDP
 	s.mu.Lock()
+	defer s.mu.Unlock()
+	if s.ended {
+		return "", ErrClosed
+	}
 	s.connectTimer = time.AfterFunc(c.cfg.ConnectTimeout, func() {
 		if !s.isAttached() {
 			c.endSession(s, "not connected within "+c.cfg.ConnectTimeout.String())
 		}
 	})
-	s.mu.Unlock()
-	return pc.LocalDescription().SDP, nil
+	return answerSDP, nil
 }
 
 // readRTCP reads the sender's RTCP (needed for the NACK responder) and turns
@@ -256,7 +270,7 @@ func (c *Console) endSession(s *session, why string) {
 		return
 	}
 	s.ended = true
-	wasAttached := s.attached
+	wasAttached, pc := s.attached, s.pc
 	if s.connectTimer != nil {
 		s.connectTimer.Stop()
 	}
@@ -264,8 +278,8 @@ func (c *Console) endSession(s *session, why string) {
 	c.mu.Lock()
 	delete(c.sessions, s.id)
 	c.mu.Unlock()
-	if s.pc != nil {
-		if err := s.pc.Close(); err != nil {
+	if pc != nil {
+		if err := pc.Close(); err != nil {
 			c.log.Warn("console: close peer connection", "viewer", s.num, "err", err)
 		}
 	}

@@ -260,3 +260,33 @@ func TestSessionLimitsAndTimeout(t *testing.T) {
 		t.Errorf("WriteFrame after Close: %v", err)
 	}
 }
+
+// TestCloseDuringOffers: Close racing with offers leaves no session behind
+// (run with -race).
+func TestCloseDuringOffers(t *testing.T) {
+	c := newTestConsole(t, Config{})
+	srv := httptest.NewServer(c)
+	defer srv.Close()
+	offers := make([]string, 3)
+	for i := range offers {
+		offers[i] = newGoViewer(t).offer(t)
+	}
+	var wg sync.WaitGroup
+	for _, o := range offers {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			res := postOffer(t, srv.URL, o)
+			res.Body.Close()
+			if res.StatusCode != http.StatusCreated && res.StatusCode != http.StatusServiceUnavailable {
+				t.Errorf("offer during Close: %d", res.StatusCode)
+			}
+		}()
+	}
+	time.Sleep(5 * time.Millisecond)
+	c.Close()
+	wg.Wait()
+	if n := c.Stats().Sessions; n != 0 {
+		t.Errorf("%d sessions left after Close", n)
+	}
+}

@@ -219,6 +219,9 @@
 
   async function connect() {
     hangUp();
+    // a new connection may reach a restarted relay whose seq starts again
+    last = null;
+    lastSeq = -1;
     if (!token) {
       setConn("error", "no token: open the console with the URL that ends in #token=…");
       return;
