@@ -86,6 +86,10 @@ type Schedule struct {
 	LatencyUs int64
 	// AllowanceUs is the jitter allowance.
 	AllowanceUs int64
+	// RecordedDeadlineUs, if not nil, holds each tick's deadline as the
+	// live relay recorded it (arrivals.csv t_deadline_us); it replaces the
+	// estimate so a replay reproduces the live schedule exactly.
+	RecordedDeadlineUs []int64
 }
 
 // NewSchedule builds the schedule for frames captured at captureUs that
@@ -110,6 +114,9 @@ func NewSchedule(captureUs, arrivalUs []int64, allowanceUs int64) (Schedule, err
 
 // DeadlineUs returns the receiver time of tick k.
 func (s Schedule) DeadlineUs(k int) int64 {
+	if s.RecordedDeadlineUs != nil {
+		return s.RecordedDeadlineUs[k]
+	}
 	return s.CaptureUs[k] + s.LatencyUs + s.AllowanceUs
 }
 
@@ -239,7 +246,7 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 	for i, f := range rec.Frames {
 		captureUs[i] = f.CaptureUs
 	}
-	arrivalUs, err := replayArrivals(cfg, rec, captureUs)
+	arrivalUs, deadlineUs, err := replayArrivals(cfg, rec, captureUs)
 	if err != nil {
 		return Summary{}, err
 	}
@@ -247,6 +254,7 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 	if err != nil {
 		return Summary{}, fmt.Errorf("replay: %w", err)
 	}
+	sched.RecordedDeadlineUs = deadlineUs
 
 	fcfg := cfg.Filter
 	if fcfg.Model == filter.ModelInvalid {
@@ -312,7 +320,7 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 			if err != nil {
 				return Summary{}, fmt.Errorf("replay: tick %d (frame %d, t_capture_us %d): %w", k, k, captureUs[k], err)
 			}
-			if b := bucketLabel(row.AgeMs) + "/" + row.State; len(examples) < nExamples && !exampleBuckets[b] && row.State != TickLive {
+			if b := bucketLabel(row.AgeMs) + "/" + row.State; len(examples) < nExamples && !exampleBuckets[b] && r.truthImg.Ptr() != nil {
 				exampleBuckets[b] = true
 				examples = append(examples, r.example(row))
 			}
@@ -345,31 +353,51 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 }
 
 // replayArrivals returns each frame's arrival time: recorded (cfg.ArrivalsFile)
-// or simulated (cfg.Loss).
-func replayArrivals(cfg ReplayConfig, rec *recording.Recording, captureUs []int64) ([]int64, error) {
+// or simulated (cfg.Loss). If every recorded row carries its tick's deadline
+// (t_deadline_us, as the live relay writes), the deadlines are returned too.
+// A frame recorded without an image must not be marked as arrived.
+func replayArrivals(cfg ReplayConfig, rec *recording.Recording, captureUs []int64) (arrivals, deadlines []int64, err error) {
 	if cfg.ArrivalsFile != "" {
 		if err := rec.LoadArrivals(cfg.ArrivalsFile); err != nil {
-			return nil, fmt.Errorf("replay: %w", err)
+			return nil, nil, fmt.Errorf("replay: %w", err)
 		}
-		out := make([]int64, len(captureUs))
-		for i := range out {
-			out[i] = NeverArrivesUs
+		arrivals = make([]int64, len(captureUs))
+		for i := range arrivals {
+			arrivals[i] = NeverArrivesUs
 		}
+		withDeadline := 0
+		deadlines = make([]int64, len(captureUs))
 		for _, a := range rec.Arrivals {
 			if a.Arrived {
-				out[a.Index] = a.ArrivalUs
+				if rec.Frames[a.Index].NoImage {
+					return nil, nil, fmt.Errorf("replay: %s: frame %d arrived at %d us but frames.csv has no image for it: %w", cfg.ArrivalsFile, a.Index, a.ArrivalUs, ErrReplayInput)
+				}
+				arrivals[a.Index] = a.ArrivalUs
+			}
+			if a.HasDeadline {
+				deadlines[a.Index] = a.DeadlineUs
+				withDeadline++
 			}
 		}
-		return out, nil
+		if withDeadline != len(captureUs) {
+			deadlines = nil
+		}
+		return arrivals, deadlines, nil
+	}
+	for _, f := range rec.Frames {
+		if f.NoImage {
+			return nil, nil, fmt.Errorf("replay: frame %d of %s has no image (lost on the live link); replay it with its recorded arrivals (--arrivals %s): %w",
+				f.Index, cfg.Drive, filepath.Join(cfg.Drive, recording.ArrivalsFile), ErrReplayInput)
+		}
 	}
 	if err := cfg.Loss.Validate(); err != nil {
-		return nil, fmt.Errorf("replay: loss model: %w", err)
+		return nil, nil, fmt.Errorf("replay: loss model: %w", err)
 	}
 	arr, err := cfg.Loss.Simulate(nil, captureUs)
 	if err != nil {
-		return nil, fmt.Errorf("replay: loss model: %w", err)
+		return nil, nil, fmt.Errorf("replay: loss model: %w", err)
 	}
-	return arr.ArrivalUs, nil
+	return arr.ArrivalUs, nil, nil
 }
 
 // checkFreshOut fails early, before any work, if out exists and is not empty.
@@ -458,6 +486,7 @@ func (r *replayer) Close() {
 
 // missing fills and scores tick k, whose frame is not due-and-here.
 func (r *replayer) missing(k int, s Schedule, frames *frameSource, rec *recording.Recording) (TickRow, error) {
+	r.truthImg, r.heldImg = gocv.Mat{}, gocv.Mat{}
 	// The held frame: the newest one that has arrived by this tick, which
 	// may be a LIVE frame not yet loaded or a frame that came late.
 	if j := s.Held(k); j >= 0 && j != r.held {
@@ -469,10 +498,6 @@ func (r *replayer) missing(k int, s Schedule, frames *frameSource, rec *recordin
 			return TickRow{}, fmt.Errorf("holding frame %d: %w", j, err)
 		}
 		r.held = j
-	}
-	truth, err := frames.Get(k)
-	if err != nil {
-		return TickRow{}, err
 	}
 	tick, err := r.filler.MissingWith(predictor.MethodGround, s.CaptureUs[k], &r.shown)
 	if errors.Is(err, predictor.ErrNoFrame) {
@@ -491,6 +516,15 @@ func (r *replayer) missing(k int, s Schedule, frames *frameSource, rec *recordin
 	if tick.State == predictor.StatePredicted {
 		row.SynthMs = float64(tick.SynthDuration) / float64(time.Millisecond)
 		row.UnfilledShare = tick.UnfilledFraction
+	}
+	if rec.Frames[k].NoImage {
+		// Lost on the live link: the state is replayed, but there is no
+		// true frame to score against.
+		return row, nil
+	}
+	truth, err := frames.Get(k)
+	if err != nil {
+		return TickRow{}, err
 	}
 	held, err := frames.Get(r.held)
 	if err != nil {

@@ -8,18 +8,19 @@ import (
 
 // Column names of the format.
 const (
-	colIndex     = "index"
-	colCaptureUs = "t_capture_us"
-	colFile      = "file"
-	colTimeUs    = "t_us"
-	colSpeed     = "speed_mps"
-	colYawRate   = "yaw_rate_rps"
-	colAccel     = "accel_mps2"
-	colSteer     = "steer_rad"
-	colArrivalUs = "t_arrival_us"
-	colX         = "x_m"
-	colY         = "y_m"
-	colYaw       = "yaw_rad"
+	colIndex      = "index"
+	colCaptureUs  = "t_capture_us"
+	colFile       = "file"
+	colTimeUs     = "t_us"
+	colSpeed      = "speed_mps"
+	colYawRate    = "yaw_rate_rps"
+	colAccel      = "accel_mps2"
+	colSteer      = "steer_rad"
+	colArrivalUs  = "t_arrival_us"
+	colDeadlineUs = "t_deadline_us"
+	colX          = "x_m"
+	colY          = "y_m"
+	colYaw        = "yaw_rad"
 )
 
 // eachRow runs fn on every row. fn must only commit its result when rr.err
@@ -83,8 +84,14 @@ func decodeFrames(file string, data []byte, checkFile func(rel string) error) (f
 		if res.hasFiles && rr.err == nil {
 			name, col, _ := rr.field(colFile)
 			switch {
+			case name == "" && !rr.r.terminated:
+				// "3,99999," cut before its file name by a crash looks
+				// like a lost frame; an unterminated last line is
+				// never taken as one.
+				rr.fail(col, fmt.Errorf("%w: file is blank on an incomplete last line", ErrFrameFile))
 			case name == "":
-				rr.fail(col, fmt.Errorf("%w: file is blank", ErrFrameFile))
+				// A frame that never reached the recorder.
+				f.NoImage = true
 			case !filepath.IsLocal(filepath.FromSlash(name)) || strings.ContainsRune(name, '\\'):
 				rr.fail(col, fmt.Errorf("%w: %q must be a relative path inside the recording directory, using '/'", ErrFrameFile, name))
 			default:
@@ -139,7 +146,7 @@ func decodeTelemetry(file string, data []byte) ([]TelemetryRow, []string, bool, 
 // leaves when frames.csv lost its last lines, and those rows are dropped
 // with a warning.
 func decodeArrivals(file string, data []byte, nFrames int, tolerateTail bool) ([]Arrival, []string, bool, error) {
-	t, err := splitTable(file, data, []string{colIndex, colArrivalUs}, nil)
+	t, err := splitTable(file, data, []string{colIndex, colArrivalUs}, []string{colDeadlineUs})
 	if err != nil {
 		return nil, nil, false, err
 	}
@@ -150,6 +157,7 @@ func decodeArrivals(file string, data []byte, nFrames int, tolerateTail bool) ([
 	warns, dropped, err := eachRow(t, func(rr *rowReader) {
 		idx := rr.int64(colIndex)
 		us, ok := rr.optInt64(colArrivalUs, false)
+		dl, hasDl := rr.optInt64(colDeadlineUs, false)
 		if rr.err != nil {
 			return
 		}
@@ -182,7 +190,7 @@ func decodeArrivals(file string, data []byte, nFrames int, tolerateTail bool) ([
 			beyond++
 			return
 		}
-		out = append(out, Arrival{Index: int(idx), ArrivalUs: us, Arrived: ok})
+		out = append(out, Arrival{Index: int(idx), ArrivalUs: us, Arrived: ok, DeadlineUs: dl, HasDeadline: hasDl})
 	})
 	if err != nil {
 		return nil, nil, false, err

@@ -49,6 +49,9 @@ var (
 	// ErrNoFrames reports a [Recording.FramePath] call on a video recording
 	// or with an index out of range.
 	ErrNoFrames = errors.New("no such frame file")
+	// ErrNoImage reports a [Recording.FramePath] call on a frame recorded
+	// without an image because it never arrived (blank file field).
+	ErrNoImage = errors.New("frame has no image")
 	// ErrExists reports that [Create] found an existing recording in the directory.
 	ErrExists = errors.New("directory already holds a recording; choose a new directory")
 	// ErrClosed reports a write to a closed [Writer].

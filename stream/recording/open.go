@@ -24,6 +24,10 @@ type Frame struct {
 	Index     int    // 0, 1, 2, ... in capture order
 	CaptureUs int64  // capture time on the vehicle clock, microseconds, strictly increasing
 	File      string // image file relative to the recording directory, '/'-separated; "" for a video recording
+	// NoImage is true for a frame that was expected but never reached the
+	// recorder (blank file field, written by the live relay for lost
+	// frames): its tick can be replayed, but not scored.
+	NoImage bool
 }
 
 // TelemetryRow is one row of telemetry.csv. The Has* flags tell whether an
@@ -45,6 +49,12 @@ type Arrival struct {
 	Index     int   // frame index
 	ArrivalUs int64 // arrival time on the receiver clock, microseconds, valid if Arrived
 	Arrived   bool  // false: the frame never arrived (blank t_arrival_us)
+	// DeadlineUs is the receiver-clock time of the frame's display tick
+	// (optional column t_deadline_us, written by the live relay), valid if
+	// HasDeadline. A replay uses it instead of estimating the schedule, so
+	// it reproduces the live LIVE/missing decisions exactly.
+	DeadlineUs  int64
+	HasDeadline bool
 }
 
 // Truth is one row of truth.csv: the exact vehicle state at a frame's
@@ -200,6 +210,9 @@ func (r *Recording) LoadArrivals(path string) error {
 func (r *Recording) FramePath(i int) (string, error) {
 	if i < 0 || i >= len(r.Frames) {
 		return "", fmt.Errorf("recording: frame %d: %w (the recording has %d frames)", i, ErrNoFrames, len(r.Frames))
+	}
+	if r.Frames[i].NoImage {
+		return "", fmt.Errorf("recording: frame %d: %w (it never reached the recorder)", i, ErrNoImage)
 	}
 	if r.Frames[i].File == "" {
 		return "", fmt.Errorf("recording: frame %d: %w (frames are in %s)", i, ErrNoFrames, r.VideoFile)

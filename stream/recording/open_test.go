@@ -82,7 +82,7 @@ func TestOpenValid(t *testing.T) {
 	if r.Camera != wantCam {
 		t.Errorf("camera = %+v, want %+v", r.Camera, wantCam)
 	}
-	wantFrames := []Frame{{0, 1000000, "frames/000000.jpg"}, {1, 1033333, "frames/000001.jpg"}, {2, 1066667, "frames/000002.jpg"}}
+	wantFrames := []Frame{{Index: 0, CaptureUs: 1000000, File: "frames/000000.jpg"}, {Index: 1, CaptureUs: 1033333, File: "frames/000001.jpg"}, {Index: 2, CaptureUs: 1066667, File: "frames/000002.jpg"}}
 	if !reflect.DeepEqual(r.Frames, wantFrames) {
 		t.Errorf("frames = %+v", r.Frames)
 	}
@@ -94,7 +94,7 @@ func TestOpenValid(t *testing.T) {
 	if !reflect.DeepEqual(r.Telemetry, wantTel) {
 		t.Errorf("telemetry = %+v", r.Telemetry)
 	}
-	wantArr := []Arrival{{1, 5000, true}, {0, 4000, true}, {2, 0, false}}
+	wantArr := []Arrival{{Index: 1, ArrivalUs: 5000, Arrived: true}, {Index: 0, ArrivalUs: 4000, Arrived: true}, {Index: 2, ArrivalUs: 0, Arrived: false}}
 	if !reflect.DeepEqual(r.Arrivals, wantArr) {
 		t.Errorf("arrivals = %+v", r.Arrivals)
 	}
@@ -270,7 +270,6 @@ func TestOpenErrors(t *testing.T) {
 		{"frames file empty", map[string]string{"frames/000002.jpg": ""}, ErrFrameFile, FramesFile, 4, 3},
 		{"frames file outside", map[string]string{FramesFile: fr("0,1,../camera.json\n")}, ErrFrameFile, FramesFile, 2, 3},
 		{"frames file absolute", map[string]string{FramesFile: fr("0,1,/etc/passwd\n")}, ErrFrameFile, FramesFile, 2, 3},
-		{"frames file blank", map[string]string{FramesFile: fr("0,1,\n")}, ErrFrameFile, FramesFile, 2, 3},
 		{"frames field count", map[string]string{FramesFile: fr("0,1000000\n")}, ErrFieldCount, FramesFile, 2, 0},
 		{"frames empty line", map[string]string{FramesFile: fr("0,1000000,frames/000000.jpg\n\n1,1033333,frames/000001.jpg\n")}, ErrEmptyLine, FramesFile, 3, 0},
 		{"frames quote", map[string]string{FramesFile: fr("0,1000000,\"frames/000000.jpg\"\n")}, ErrQuote, FramesFile, 2, 3},
@@ -336,7 +335,7 @@ func TestReadArrivals(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if want := []Arrival{{0, 100, true}, {7, 0, false}}; !reflect.DeepEqual(got, want) {
+	if want := []Arrival{{Index: 0, ArrivalUs: 100, Arrived: true}, {Index: 7, ArrivalUs: 0, Arrived: false}}; !reflect.DeepEqual(got, want) {
 		t.Errorf("got %+v, want %+v", got, want)
 	}
 	// The same file against a 3-frame recording: index 7 is unknown.

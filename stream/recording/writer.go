@@ -16,7 +16,7 @@ import (
 const (
 	framesHeader    = "index,t_capture_us,file\n"
 	telemetryHeader = "t_us,speed_mps,yaw_rate_rps,accel_mps2,steer_rad,t_arrival_us\n"
-	arrivalsHeader  = "index,t_arrival_us\n"
+	arrivalsHeader  = "index,t_arrival_us,t_deadline_us\n"
 	truthHeader     = "index,t_capture_us,x_m,y_m,yaw_rad,speed_mps,yaw_rate_rps\n"
 )
 
@@ -148,6 +148,36 @@ func (w *Writer) WriteFrame(index int, captureUs int64, encodedImage []byte, ext
 	return nil
 }
 
+// WriteMissingFrame records frame index, expected at captureUs, as one that
+// never reached the recorder: a frames.csv row with a blank file field, so a
+// replay keeps the tick (and its state) but cannot score it.
+func (w *Writer) WriteMissingFrame(index int, captureUs int64) error {
+	w.mu.Lock()
+	defer w.mu.Unlock()
+	if w.closed {
+		return ErrClosed
+	}
+	n := len(w.captureUs)
+	if index != n {
+		return fmt.Errorf("recording: frame %d: %w: the next frame index is %d", index, ErrOrder, n)
+	}
+	if n > 0 && captureUs <= w.captureUs[n-1] {
+		return fmt.Errorf("recording: frame %d: %w: capture time %d us is not after the previous %d us", index, ErrOrder, captureUs, w.captureUs[n-1])
+	}
+	b := w.line[:0]
+	b = strconv.AppendInt(b, int64(index), 10)
+	b = append(b, ',')
+	b = strconv.AppendInt(b, captureUs, 10)
+	b = append(b, ',', '\n')
+	w.line = b
+	if err := appendLine(w.frames, b); err != nil {
+		return fmt.Errorf("recording: frame %d: %w", index, err)
+	}
+	w.captureUs = append(w.captureUs, captureUs)
+	w.arrived = append(w.arrived, false)
+	return nil
+}
+
 // WriteTelemetry appends one telemetry row. TimeUs must exceed the previous
 // row's ([ErrOrder]) and every float must be finite ([ErrValue]); fields
 // whose Has* flag is false are written blank.
@@ -197,6 +227,17 @@ func (w *Writer) WriteTelemetry(s TelemetryRow) error {
 // arrived=false records that the frame never reached the receiver and
 // leaves t_arrival_us blank.
 func (w *Writer) WriteArrival(index int, arrivalUs int64, arrived bool) error {
+	return w.writeArrival(index, arrivalUs, arrived, 0, false)
+}
+
+// WriteArrivalDeadline is WriteArrival plus the receiver-clock deadline of
+// the frame's display tick (column t_deadline_us), which lets a replay
+// reproduce the live schedule exactly.
+func (w *Writer) WriteArrivalDeadline(index int, arrivalUs int64, arrived bool, deadlineUs int64) error {
+	return w.writeArrival(index, arrivalUs, arrived, deadlineUs, true)
+}
+
+func (w *Writer) writeArrival(index int, arrivalUs int64, arrived bool, deadlineUs int64, hasDeadline bool) error {
 	w.mu.Lock()
 	defer w.mu.Unlock()
 	if w.closed {
@@ -220,6 +261,10 @@ func (w *Writer) WriteArrival(index int, arrivalUs int64, arrived bool) error {
 	b = append(b, ',')
 	if arrived {
 		b = strconv.AppendInt(b, arrivalUs, 10)
+	}
+	b = append(b, ',')
+	if hasDeadline {
+		b = strconv.AppendInt(b, deadlineUs, 10)
 	}
 	b = append(b, '\n')
 	w.line = b

@@ -230,8 +230,8 @@ func TestWriterErrors(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	want := &Recording{Dir: dir, Camera: testCam, Frames: []Frame{{0, 100, "frames/000000.png"}},
-		Telemetry: []TelemetryRow{{TimeUs: 5}}, Arrivals: []Arrival{{0, 7, true}}}
+	want := &Recording{Dir: dir, Camera: testCam, Frames: []Frame{{Index: 0, CaptureUs: 100, File: "frames/000000.png"}},
+		Telemetry: []TelemetryRow{{TimeUs: 5}}, Arrivals: []Arrival{{Index: 0, ArrivalUs: 7, Arrived: true}}}
 	if !reflect.DeepEqual(r, want) {
 		t.Errorf("got %+v\nwant %+v", r, want)
 	}
