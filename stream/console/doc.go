@@ -42,6 +42,11 @@
 // Retry-After. There is no trickle ICE: the answer carries all candidates.
 // No CORS headers are sent: the page and the API share one origin.
 //
+// The caller owns the listener: bind to 127.0.0.1 (DefaultAddr) unless the
+// operator is remote, then serve over TLS, and set http.Server timeouts
+// (ReadHeaderTimeout, ReadTimeout, IdleTimeout) so slow clients cannot hold
+// connections; the handler itself bounds bodies, sessions and ICE gathering.
+//
 // # Cutoff
 //
 // The relay shows a PREDICTED frame only while its confidence is at or above
@@ -59,4 +64,7 @@
 // changing, so a frozen picture never looks live.
 //
 // This package uses no cgo: frames arrive already VP8-encoded.
+//
+// Package consoletest (stream/console/consoletest) drives this page in a real
+// headless Chromium for tests; the relay's end-to-end test can reuse it.
 package console
