@@ -41,7 +41,10 @@
 //
 // [Network] selects where ICE candidates are gathered. LoopbackOnly restricts both ends to 127.0.0.1 over
 // UDP/IPv4 (tests, demos, the simulated vehicle); multicast DNS candidates are always off; Network.UDPMux
-// puts every session on one UDP port. No STUN or TURN is used.
+// puts every session on one UDP port. No STUN or TURN is used. A vehicle that vanishes without DELETE is
+// noticed by ICE consent checks: with pion's defaults (keepalive 2 s) the connection turns disconnected after
+// 5 s and failed after 25 s, and a failed connection ends the session (EndFailed). The relay should not wait
+// for that: missing video is its own, faster signal.
 //
 // # Clocks
 //
