@@ -28,6 +28,13 @@ type Config struct {
 	CameraPitchDeg   float64 // default 5 (down); use a tiny value such as 1e-9 for a level camera
 	CameraXOffsetM   float64 // camera ahead of the vehicle origin; default 1.5 m
 	HorizontalFOVDeg float64 // default 90; fx = fy = (Width/2) / tan(FOV/2)
+
+	// FacadeSetbackM is the least distance of building fronts behind the
+	// sidewalk (each front adds a random 0-6 m); default 8 m, a suburban
+	// street with front gardens. Predicted frames move the ground and the
+	// far scene only, so nearby vertical structures are what they get
+	// wrong: use a small value (e.g. 1) for a narrow city street.
+	FacadeSetbackM float64
 }
 
 // Defaults.
@@ -49,6 +56,7 @@ const (
 	DefaultPitchDeg      = 5
 	DefaultXOffsetM      = 1.5
 	DefaultHFOVDeg       = 90
+	DefaultSetbackM      = 8
 )
 
 // withDefaults returns c with zero fields replaced by defaults and checks
@@ -84,6 +92,7 @@ func (c Config) withDefaults() (Config, error) {
 	setF(&c.CameraPitchDeg, DefaultPitchDeg)
 	setF(&c.CameraXOffsetM, DefaultXOffsetM)
 	setF(&c.HorizontalFOVDeg, DefaultHFOVDeg)
+	setF(&c.FacadeSetbackM, DefaultSetbackM)
 
 	checks := []struct {
 		ok   bool
@@ -103,6 +112,7 @@ func (c Config) withDefaults() (Config, error) {
 		{finite(c.CameraPitchDeg) && c.CameraPitchDeg > -30 && c.CameraPitchDeg < 60, "CameraPitchDeg must be in (-30, 60)"},
 		{finite(c.CameraXOffsetM) && math.Abs(c.CameraXOffsetM) <= 10, "CameraXOffsetM must be within ±10 m"},
 		{finite(c.HorizontalFOVDeg) && c.HorizontalFOVDeg >= 20 && c.HorizontalFOVDeg <= 150, "HorizontalFOVDeg must be in [20, 150]"},
+		{finite(c.FacadeSetbackM) && c.FacadeSetbackM >= 0 && c.FacadeSetbackM <= 30, "FacadeSetbackM must be in [0, 30] m"},
 	}
 	for _, ch := range checks {
 		if !ch.ok {

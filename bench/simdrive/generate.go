@@ -84,7 +84,7 @@ func Generate(ctx context.Context, cfg Config, outDir string, progress func(done
 		return err
 	}
 	ph := newPinhole(cam)
-	sc, err := buildScene(tr, cfg.GroundTexelM, cfg.Width, cfg.Height, ph, cfg.Seed)
+	sc, err := buildScene(tr, cfg.GroundTexelM, cfg.Width, cfg.Height, ph, cfg.Seed, cfg.FacadeSetbackM)
 	if err != nil {
 		return err
 	}

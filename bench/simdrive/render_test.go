@@ -19,7 +19,7 @@ func testWorld(t testing.TB, cfg Config) (*trajectory, pinhole, *scene, *rendere
 	}
 	tr := newTrajectory(cfg.SpeedMps, cfg.DurationS)
 	cam := newPinhole(cfg.camera())
-	sc, err := buildScene(tr, cfg.GroundTexelM, cfg.Width, cfg.Height, cam, cfg.Seed)
+	sc, err := buildScene(tr, cfg.GroundTexelM, cfg.Width, cfg.Height, cam, cfg.Seed, cfg.FacadeSetbackM)
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -131,7 +131,7 @@ func samplePath(tr *trajectory, stepM float64) []pathSample {
 
 // buildScene rasterises the ground map and places posts and facades along
 // the trajectory. Deterministic for seed.
-func buildScene(tr *trajectory, texelM float64, width, height int, cam pinhole, seed int64) (*scene, error) {
+func buildScene(tr *trajectory, texelM float64, width, height int, cam pinhole, seed int64, setbackM float64) (*scene, error) {
 	rng := rand.New(rand.NewPCG(uint64(seed), 0x5ce7e))
 	path := samplePath(tr, 0.5)
 	sc := &scene{}
@@ -140,7 +140,7 @@ func buildScene(tr *trajectory, texelM float64, width, height int, cam pinhole, 
 		return nil, err
 	}
 	sc.placePosts(path)
-	sc.placeFacades(path, rng)
+	sc.placeFacades(path, setbackM, rng)
 	sc.sky = makeSky(width, height, cam)
 	return sc, nil
 }
@@ -330,10 +330,11 @@ func (sc *scene) placePosts(path []pathSample) {
 }
 
 // placeFacades lines both sides with building fronts of random length,
-// height and setback, separated by random gaps; each is split into pieces
+// height and setback (setbackM plus 0-6 m behind the sidewalk), separated by
+// random gaps; each is split into pieces
 // at most maxSubQuadM wide so that painter's order and texture level suit
 // long facades.
-func (sc *scene) placeFacades(path []pathSample, rng *rand.Rand) {
+func (sc *scene) placeFacades(path []pathSample, setbackM float64, rng *rand.Rand) {
 	end := path[len(path)-1].s
 	for side := 0; side < 2; side++ {
 		s := path[0].s + rng.Float64()*5
@@ -343,7 +344,7 @@ func (sc *scene) placeFacades(path []pathSample, rng *rand.Rand) {
 				break
 			}
 			height := 5 + 9*rng.Float64()
-			setback := 1 + 3*rng.Float64()
+			setback := setbackM + 6*rng.Float64()
 			var off float64
 			if side == 0 {
 				off = roadRightM - kerbM - sidewalkM - setback

@@ -145,6 +145,7 @@ func runSimdrive(ctx context.Context, args []string, stdout, stderr io.Writer) e
 	fs.Float64Var(&cfg.DurationS, "duration-s", 20, "drive length, s")
 	fs.Float64Var(&cfg.SpeedMps, "speed-mps", 10, "mean speed, m/s")
 	fs.Int64Var(&cfg.Seed, "seed", 1, "seed of the scene, trajectory and telemetry noise")
+	fs.Float64Var(&cfg.FacadeSetbackM, "facade-setback-m", simdrive.DefaultSetbackM, "least distance of building fronts behind the sidewalk, m (1 = narrow city street)")
 	fs.BoolVar(&quiet, "quiet", false, "no progress bar")
 	fs.Usage = func() {
 		fmt.Fprintln(stderr, "usage: stopgap simdrive --out DIR [flags]")
