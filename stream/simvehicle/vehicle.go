@@ -1,0 +1,451 @@
+package simvehicle
+
+import (
+	"context"
+	"crypto/rand"
+	"encoding/binary"
+	"errors"
+	"fmt"
+	"io"
+	"log/slog"
+	"sync"
+	"sync/atomic"
+	"time"
+
+	"github.com/pion/rtp"
+
+	"stopgap/stream/recording"
+	"stopgap/stream/rtpvp8"
+	"stopgap/stream/telemetry"
+	"stopgap/stream/vp8"
+	"stopgap/stream/whip"
+)
+
+// PayloadTypeVP8 is the RTP payload type the packetiser writes; the
+// Publisher replaces it with the negotiated one.
+const PayloadTypeVP8 = 96
+
+// Config configures a Vehicle. Recording is required; zero values of the
+// other fields select the documented defaults.
+type Config struct {
+	// Recording is the drive to play (recording.Open). Its frames must be
+	// image files (JPEG or PNG) of the camera.json size.
+	Recording *recording.Recording
+	// Link is the emulated link; nil means a perfect link on Clock.
+	Link *Link
+	// Loop restarts the drive from its first frame when it ends (see the
+	// package documentation on the loop seam); otherwise Run returns after
+	// the last frame and telemetry row left the link.
+	Loop bool
+	// BitrateBps, KeyframeInterval, CPUUsed and Threads configure the VP8
+	// encoder (vp8.EncoderConfig; 0 = its defaults).
+	BitrateBps, KeyframeInterval, CPUUsed, Threads int
+	// MTU is the largest RTP packet in octets (0 = rtpvp8.DefaultMTU).
+	MTU int
+	// CacheFrames decodes every frame once in New and keeps the I420
+	// pictures in memory (width*height*1.5 bytes per frame), so playback
+	// costs only the encoder's CPU. Otherwise each frame is decoded from its
+	// file just before it is due.
+	CacheFrames bool
+	// Clock is the vehicle clock (default SystemClock). It must be the
+	// Link's clock too.
+	Clock Clock
+	// Logger receives warnings (late frames, sink errors); default: discard.
+	Logger *slog.Logger
+	// OnFrame, if set, is called after each frame was encoded and handed
+	// to the link, on the playback goroutine: keep it quick.
+	OnFrame func(FrameInfo)
+}
+
+// FrameInfo describes one played frame.
+type FrameInfo struct {
+	// Index is the frame index in the recording; Loop counts completed
+	// loops before this frame.
+	Index, Loop int
+	// CaptureUs is the capture time on the vehicle clock in Unix
+	// microseconds (the clock telemetry t_us uses); Capture is the same
+	// instant as a time.Time on the vehicle Clock.
+	CaptureUs int64
+	Capture   time.Time
+	// RTPTimestamp is the frame's RTP timestamp (90 kHz).
+	RTPTimestamp uint32
+	// FirstSeq is the sequence number of its first packet; Packets the
+	// number of packets; Bytes the compressed size in octets.
+	FirstSeq      uint16
+	Packets       int
+	Bytes         int
+	Keyframe      bool
+	EncodeDur     time.Duration
+	PacketsQueued int // packets the link accepted (the rest: delay line full)
+}
+
+// Stats are a Vehicle's counters.
+type Stats struct {
+	// FramesEncoded counts frames encoded and handed to the link;
+	// FramesSkipped frames not encoded because playback was more than one
+	// frame period late (a real camera drops them too).
+	FramesEncoded, FramesSkipped uint64
+	// Keyframes counts keyframes sent; KeyframeRequests the PLI/FIR
+	// requests received from the relay.
+	Keyframes, KeyframeRequests uint64
+	// TelemetryRows counts telemetry rows encoded and handed to the link.
+	TelemetryRows uint64
+	// Loops counts completed loops of the drive.
+	Loops uint64
+	// EncodeTotal is the wall time spent in the VP8 encoder.
+	EncodeTotal time.Duration
+	// Link are the link's counters.
+	Link LinkStats
+}
+
+// Publisher is what Run publishes to; *whip.Publisher implements it.
+type Publisher interface {
+	Sink
+	KeyframeRequests() <-chan time.Time
+}
+
+// Vehicle plays a recording in real time through a Link to a Publisher.
+// Create it with New; Run it once.
+type Vehicle struct {
+	cfg       Config
+	rec       *recording.Recording
+	link      *Link
+	clock     Clock
+	log       *slog.Logger
+	cache     []*vp8.Image
+	t0Us      int64 // earliest recording time
+	loopUs    int64 // loop length in recording microseconds
+	periodUs  int64 // median frame interval
+	rtpBase   uint32
+	firstSeq  uint16
+	ssrc      uint32
+	startOnce sync.Once
+	start     time.Time
+	startCh   chan struct{}
+
+	frames, skipped, keyframes, kfRequests, telemetryRows, loops atomic.Uint64
+	encodeNs                                                     atomic.Int64
+}
+
+// New checks cfg and prepares the vehicle (and with CacheFrames decodes
+// every frame).
+func New(cfg Config) (*Vehicle, error) {
+	rec := cfg.Recording
+	if rec == nil {
+		return nil, fmt.Errorf("%w: Recording is nil; open one with recording.Open", ErrConfig)
+	}
+	if len(rec.Frames) < 2 {
+		return nil, fmt.Errorf("%w: %s has %d frames; need at least 2", ErrRecording, rec.Dir, len(rec.Frames))
+	}
+	if rec.VideoFile != "" {
+		return nil, fmt.Errorf("%w: %s stores frames in %s; the simulated vehicle plays image-file recordings only (e.g. from stopgap simdrive)",
+			ErrRecording, rec.Dir, rec.VideoFile)
+	}
+	if cfg.Clock == nil {
+		cfg.Clock = SystemClock{}
+	}
+	if cfg.Logger == nil {
+		cfg.Logger = slog.New(slog.NewTextHandler(io.Discard, nil))
+	}
+	if cfg.Link == nil {
+		l, err := NewLink(LinkConfig{}, cfg.Clock)
+		if err != nil {
+			return nil, err
+		}
+		cfg.Link = l
+	}
+	v := &Vehicle{cfg: cfg, rec: rec, link: cfg.Link, clock: cfg.Clock, log: cfg.Logger, startCh: make(chan struct{})}
+	first, last := rec.Frames[0].CaptureUs, rec.Frames[len(rec.Frames)-1].CaptureUs
+	v.t0Us = first
+	if len(rec.Telemetry) > 0 {
+		v.t0Us = min(v.t0Us, rec.Telemetry[0].TimeUs)
+		last = max(last, rec.Telemetry[len(rec.Telemetry)-1].TimeUs)
+	}
+	v.periodUs = medianFramePeriodUs(rec.Frames)
+	v.loopUs = last - v.t0Us + v.periodUs
+	var rnd [10]byte
+	if _, err := rand.Read(rnd[:]); err != nil {
+		return nil, fmt.Errorf("simvehicle: random RTP start values: %w", err)
+	}
+	// RFC 3550 section 5.1: random initial timestamp and sequence number, random SSRC.
+	v.rtpBase = binary.BigEndian.Uint32(rnd[0:4])
+	v.ssrc = binary.BigEndian.Uint32(rnd[4:8])
+	v.firstSeq = binary.BigEndian.Uint16(rnd[8:10])
+	if cfg.CacheFrames {
+		ld := newFrameLoader(rec.Camera.Width, rec.Camera.Height)
+		v.cache = make([]*vp8.Image, len(rec.Frames))
+		for i := range rec.Frames {
+			p, err := rec.FramePath(i)
+			if err != nil {
+				return nil, fmt.Errorf("%w: %w", ErrRecording, err)
+			}
+			v.cache[i] = &vp8.Image{}
+			if err := ld.load(v.cache[i], p); err != nil {
+				return nil, err
+			}
+		}
+	}
+	return v, nil
+}
+
+func medianFramePeriodUs(fr []recording.Frame) int64 {
+	d := make([]int64, len(fr)-1)
+	for i := range d {
+		d[i] = fr[i+1].CaptureUs - fr[i].CaptureUs
+	}
+	// small insertion sort: frame counts are modest and this runs once
+	for i := 1; i < len(d); i++ {
+		for j := i; j > 0 && d[j] < d[j-1]; j-- {
+			d[j], d[j-1] = d[j-1], d[j]
+		}
+	}
+	return d[len(d)/2]
+}
+
+// Link returns the vehicle's link.
+func (v *Vehicle) Link() *Link { return v.link }
+
+// FramePeriod returns the median interval between the recording's frames.
+func (v *Vehicle) FramePeriod() time.Duration { return time.Duration(v.periodUs) * time.Microsecond }
+
+// Started returns a channel closed when playback started, and StartTime
+// the vehicle time it started at (zero before).
+func (v *Vehicle) Started() <-chan struct{} { return v.startCh }
+
+// StartTime returns the vehicle-clock time playback started (the link's
+// outage epoch), or the zero time before Run started.
+func (v *Vehicle) StartTime() time.Time {
+	select {
+	case <-v.startCh:
+		return v.start
+	default:
+		return time.Time{}
+	}
+}
+
+// Stats returns a snapshot of the counters.
+func (v *Vehicle) Stats() Stats {
+	return Stats{
+		FramesEncoded: v.frames.Load(), FramesSkipped: v.skipped.Load(),
+		Keyframes: v.keyframes.Load(), KeyframeRequests: v.kfRequests.Load(),
+		TelemetryRows: v.telemetryRows.Load(), Loops: v.loops.Load(),
+		EncodeTotal: time.Duration(v.encodeNs.Load()), Link: v.link.Stats(),
+	}
+}
+
+// Publish connects to the WHIP endpoint with token (whip.Publish, with
+// pc.WireFilter set to the link's wire filter), plays the drive, and closes
+// the session when Run returns.
+func (v *Vehicle) Publish(ctx context.Context, endpoint, token string, pc whip.PublishConfig) error {
+	pc.WireFilter = v.link.Keep
+	pub, err := whip.Publish(ctx, endpoint, token, pc)
+	if err != nil {
+		return err
+	}
+	runCtx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	go func() {
+		select {
+		case <-pub.Done():
+			cancel()
+		case <-runCtx.Done():
+		}
+	}()
+	err = v.Run(runCtx, pub)
+	if cerr := pub.Close(); cerr != nil && err == nil {
+		err = cerr
+	}
+	select {
+	case <-pub.Done():
+		if ctx.Err() == nil && errors.Is(err, context.Canceled) {
+			err = fmt.Errorf("%w: the peer connection closed", ErrStopped)
+		}
+	default:
+	}
+	return err
+}
+
+// Run plays the drive into pub until it ends (without Loop) or ctx ends.
+// It returns nil when the drive was played completely, ctx.Err() when ctx
+// ended first, or an error wrapping ErrStopped / ErrRecording. Run may be
+// called once.
+func (v *Vehicle) Run(ctx context.Context, pub Publisher) error {
+	first := false
+	v.startOnce.Do(func() { first = true })
+	if !first {
+		return fmt.Errorf("%w: Run called twice", ErrConfig)
+	}
+	enc, err := vp8.NewEncoder(vp8.EncoderConfig{
+		Width: v.rec.Camera.Width, Height: v.rec.Camera.Height, BitrateBps: v.cfg.BitrateBps,
+		FrameRateHz: 1e6 / float64(v.periodUs), KeyframeInterval: v.cfg.KeyframeInterval,
+		CPUUsed: v.cfg.CPUUsed, Threads: v.cfg.Threads,
+	})
+	if err != nil {
+		return fmt.Errorf("simvehicle: %w", err)
+	}
+	defer enc.Close()
+	pk, err := rtpvp8.NewPacketizer(rtpvp8.PacketizerConfig{MTU: v.cfg.MTU, PayloadType: PayloadTypeVP8, SSRC: v.ssrc, FirstSeq: v.firstSeq})
+	if err != nil {
+		return fmt.Errorf("simvehicle: %w", err)
+	}
+
+	ctx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	v.start = v.clock.Now()
+	v.link.SetEpoch(v.start)
+	close(v.startCh)
+
+	var wg sync.WaitGroup
+	linkErr := make(chan error, 1)
+	wg.Add(3)
+	go func() {
+		defer wg.Done()
+		linkErr <- v.link.Run(ctx, pub)
+		cancel()
+	}()
+	go func() {
+		defer wg.Done()
+		for {
+			select {
+			case <-ctx.Done():
+				return
+			case <-pub.KeyframeRequests():
+				v.kfRequests.Add(1)
+				enc.ForceKeyframe()
+			}
+		}
+	}()
+	telErr := make(chan error, 1)
+	go func() {
+		defer wg.Done()
+		telErr <- v.playTelemetry(ctx)
+	}()
+	ferr := v.playFrames(ctx, enc, pk)
+	terr := <-telErr
+	if ferr == nil && terr == nil {
+		// let the delay line drain before stopping the link
+		v.link.mu.Lock()
+		last := v.link.lastRelease
+		v.link.mu.Unlock()
+		_ = v.clock.WaitUntil(ctx, last.Add(time.Millisecond))
+	}
+	cancel()
+	wg.Wait()
+	lerr := <-linkErr
+	switch {
+	case errors.Is(lerr, ErrStopped):
+		return lerr
+	case ferr != nil:
+		return ferr
+	case terr != nil:
+		return terr
+	}
+	return nil
+}
+
+// relUs returns the playback time (microseconds since the start) of
+// recording time tUs in loop n.
+func (v *Vehicle) relUs(tUs int64, n int) int64 { return tUs - v.t0Us + int64(n)*v.loopUs }
+
+func (v *Vehicle) at(rel int64) time.Time { return v.start.Add(time.Duration(rel) * time.Microsecond) }
+
+func (v *Vehicle) playFrames(ctx context.Context, enc *vp8.Encoder, pk *rtpvp8.Packetizer) error {
+	ld := newFrameLoader(v.rec.Camera.Width, v.rec.Camera.Height)
+	img := &vp8.Image{}
+	var out []byte
+	pkts := make([]rtp.Packet, 0, 64)
+	startUnixUs := v.start.UnixMicro()
+	for n := 0; ; n++ {
+		for i, fr := range v.rec.Frames {
+			rel := v.relUs(fr.CaptureUs, n)
+			due := v.at(rel)
+			if late := v.clock.Now().Sub(due); late > time.Duration(v.periodUs)*time.Microsecond {
+				v.skipped.Add(1)
+				continue
+			}
+			src := img
+			if v.cache != nil {
+				src = v.cache[i]
+			} else {
+				p, err := v.rec.FramePath(i)
+				if err != nil {
+					return fmt.Errorf("%w: %w", ErrRecording, err)
+				}
+				if err := ld.load(img, p); err != nil {
+					return err
+				}
+			}
+			if err := v.clock.WaitUntil(ctx, due); err != nil {
+				return err
+			}
+			t0 := time.Now()
+			var key bool
+			var err error
+			out, key, err = enc.Encode(out, src, rel)
+			dur := time.Since(t0)
+			v.encodeNs.Add(int64(dur))
+			if err != nil {
+				v.log.Warn("encode failed; the next frame will be a keyframe", "frame", i, "err", err)
+				continue
+			}
+			ts := v.rtpBase + uint32(rel*9/100) // 90 kHz: us * 90000 / 1e6
+			seq := pk.NextSeq()
+			pkts, err = pk.Packetize(pkts[:0], out, ts)
+			if err != nil {
+				v.log.Warn("packetize failed", "frame", i, "err", err)
+				continue
+			}
+			queued := 0
+			for j := range pkts {
+				if v.link.SendRTP(&pkts[j]) {
+					queued++
+				}
+			}
+			v.frames.Add(1)
+			if key {
+				v.keyframes.Add(1)
+			}
+			if v.cfg.OnFrame != nil {
+				v.cfg.OnFrame(FrameInfo{Index: i, Loop: n, CaptureUs: startUnixUs + rel, Capture: due,
+					RTPTimestamp: ts, FirstSeq: seq, Packets: len(pkts), Bytes: len(out), Keyframe: key,
+					EncodeDur: dur, PacketsQueued: queued})
+			}
+		}
+		if !v.cfg.Loop {
+			return nil
+		}
+		v.loops.Add(1)
+	}
+}
+
+func (v *Vehicle) playTelemetry(ctx context.Context) error {
+	rows := v.rec.Telemetry
+	if len(rows) == 0 {
+		return nil
+	}
+	startUnixUs := v.start.UnixMicro()
+	buf := make([]byte, 0, telemetry.MaxMessageBytes)
+	var seq uint32
+	for n := 0; ; n++ {
+		for _, r := range rows {
+			rel := v.relUs(r.TimeUs, n)
+			if err := v.clock.WaitUntil(ctx, v.at(rel)); err != nil {
+				return err
+			}
+			m := telemetry.Message{TimeUs: startUnixUs + rel, SpeedMps: r.SpeedMps, YawRateRps: r.YawRateRps,
+				AccelMps2: r.AccelMps2, HasAccel: r.HasAccel, SteerRad: r.SteerRad, HasSteer: r.HasSteer,
+				Seq: seq, HasSeq: true}
+			seq++
+			var err error
+			if buf, err = m.Append(buf[:0]); err != nil {
+				v.log.Warn("telemetry row not encodable; skipped", "t_us", r.TimeUs, "err", err)
+				continue
+			}
+			v.link.SendTelemetry(buf)
+			v.telemetryRows.Add(1)
+		}
+		if !v.cfg.Loop {
+			return nil
+		}
+	}
+}
