@@ -43,6 +43,7 @@ func commands() []command {
 		{"demo", "run the built-in demo (no arguments needed)", runDemo},
 		{"simdrive", "write a synthetic drive recording with exact ground truth", runSimdrive},
 		{"replay", "replay a recording with recorded or modelled drops and score every gap", runReplay},
+		{"relay", "run the live relay between the vehicle and the operator console", runRelay},
 	}
 }
 

@@ -1,0 +1,198 @@
+package main
+
+import (
+	"context"
+	"crypto/tls"
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"log/slog"
+	"net"
+	"net/http"
+	"os"
+	"strings"
+	"time"
+
+	"stopgap/filter"
+	"stopgap/predictor"
+	"stopgap/stream/console"
+	"stopgap/stream/relay"
+)
+
+func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	fs := flag.NewFlagSet("relay", flag.ContinueOnError)
+	fs.SetOutput(stderr)
+	pol := predictor.DefaultPolicy()
+	var (
+		listen, certFile, keyFile, tokenFile, consoleTokenFile string
+		cameraFile, recordDir, model                           string
+		fps, cutoff, minCutoff, maxCutoff, maxAgeMs            float64
+		allowanceMs, latencyMs, wheelbaseM                     float64
+		logJSON, verbose                                       bool
+	)
+	fs.StringVar(&listen, "listen", "127.0.0.1:8443", "`address` to serve WHIP ingest, the console, /healthz and /metrics on")
+	fs.StringVar(&certFile, "tls-cert", "", "TLS certificate `file` (PEM); with --tls-key serves HTTPS (required off loopback)")
+	fs.StringVar(&keyFile, "tls-key", "", "TLS private key `file` (PEM)")
+	fs.StringVar(&tokenFile, "token-file", "", "`file` holding the vehicle's WHIP bearer token (else env STOPGAP_TOKEN, else a random one is generated)")
+	fs.StringVar(&consoleTokenFile, "console-token-file", "", "`file` holding the console bearer token (else env STOPGAP_CONSOLE_TOKEN, else random)")
+	fs.StringVar(&cameraFile, "camera", "", "camera.json `file` of the vehicle camera (required)")
+	fs.StringVar(&recordDir, "record", "", "record the drive into this new `directory` (frames, telemetry, arrivals, ticks.csv)")
+	fs.Float64Var(&fps, "fps", relay.DefaultFPS, "vehicle camera frame rate, frames per second")
+	fs.Float64Var(&cutoff, "cutoff", pol.CutoffConfidence, "initial confidence cutoff in [0,1]: below it a missing frame is shown STALE")
+	fs.Float64Var(&minCutoff, "min-cutoff", 0, "administrator's lowest cutoff the operator may choose")
+	fs.Float64Var(&maxCutoff, "max-cutoff", 1, "administrator's highest cutoff the operator may choose")
+	fs.Float64Var(&maxAgeMs, "max-age-ms", pol.MaxAgeMs, "hard cap on the age of a predicted frame, ms")
+	fs.Float64Var(&allowanceMs, "allowance-ms", relay.DefaultAllowanceMs, "how late after its nominal arrival a frame may come and still be LIVE, ms")
+	fs.Float64Var(&latencyMs, "latency-ms", 0, "nominal capture-to-arrival latency, ms (0 = estimate over the first frames of each session)")
+	fs.StringVar(&model, "model", "ctrv", "motion model of the filter: ctrv or bicycle")
+	fs.Float64Var(&wheelbaseM, "wheelbase-m", 2.7, "wheelbase for the bicycle model and steering telemetry, m")
+	fs.BoolVar(&logJSON, "log-json", true, "write logs as JSON")
+	fs.BoolVar(&verbose, "v", false, "verbose logs")
+	fs.Usage = func() {
+		fmt.Fprintln(stderr, "usage: stopgap relay --camera camera.json [flags]")
+		fmt.Fprintln(stderr, "\nLive relay: the vehicle publishes video and telemetry with WHIP to /whip; the")
+		fmt.Fprintln(stderr, "operator opens the console URL printed at start. Logs go to stderr.")
+		fmt.Fprintln(stderr)
+		fs.PrintDefaults()
+	}
+	if err := parse(fs, args); err != nil {
+		return err
+	}
+	if cameraFile == "" {
+		fmt.Fprintln(stderr, "stopgap relay: --camera is required (the vehicle camera's camera.json)")
+		return errUsage
+	}
+	if (certFile == "") != (keyFile == "") {
+		fmt.Fprintln(stderr, "stopgap relay: give both --tls-cert and --tls-key, or neither")
+		return errUsage
+	}
+	useTLS := certFile != ""
+	host, _, err := net.SplitHostPort(listen)
+	if err != nil {
+		return fmt.Errorf("--listen %q: %w", listen, err)
+	}
+	if !useTLS && !isLoopback(host) {
+		return fmt.Errorf("--listen %s is not a loopback address: bearer tokens would cross the network in clear text; give --tls-cert and --tls-key", listen)
+	}
+	fmt.Fprintln(stderr, safetyCaution)
+
+	level := slog.LevelInfo
+	if verbose {
+		level = slog.LevelDebug
+	}
+	log := newLogger(stderr, logJSON, level)
+	cam, err := relay.ReadCameraFile(cameraFile)
+	if err != nil {
+		return err
+	}
+	m, err := filter.ParseModel(model)
+	if err != nil {
+		return fmt.Errorf("--model: %w", err)
+	}
+	ingestTok, ingestGen, err := loadToken(tokenFile, "STOPGAP_TOKEN")
+	if err != nil {
+		return fmt.Errorf("--token-file: %w", err)
+	}
+	consoleTok, consoleGen, err := loadToken(consoleTokenFile, "STOPGAP_CONSOLE_TOKEN")
+	if err != nil {
+		return fmt.Errorf("--console-token-file: %w", err)
+	}
+	cc := console.Config{Addr: listen, Limits: console.Limits{MinCutoff: minCutoff, MaxCutoff: maxCutoff},
+		Profiles: []console.Profile{{Name: "default", Cutoff: cutoff}}}
+	r, err := relay.New(relay.Config{
+		FPS: fps, AllowanceMs: allowanceMs, LatencyMs: latencyMs,
+		Camera: cam, Policy: predictor.Policy{MaxAgeMs: maxAgeMs},
+		Filter:    filter.Config{Model: m, WheelbaseM: wheelbaseM},
+		RecordDir: recordDir, IngestToken: ingestTok, ConsoleToken: consoleTok,
+		Console: cc, Logger: log,
+	})
+	if err != nil {
+		return err
+	}
+	ln, err := net.Listen("tcp", listen)
+	if err != nil {
+		return fmt.Errorf("--listen: %w", err)
+	}
+	scheme := "http"
+	if useTLS {
+		scheme = "https"
+	}
+	base := scheme + "://" + ln.Addr().String()
+	srv := &http.Server{Handler: r.Handler(), ReadHeaderTimeout: 10 * time.Second,
+		TLSConfig: &tls.Config{MinVersion: tls.VersionTLS12}, ErrorLog: slog.NewLogLogger(log.Handler(), slog.LevelWarn)}
+	serveErr := make(chan error, 1)
+	go func() {
+		if useTLS {
+			serveErr <- srv.ServeTLS(ln, certFile, keyFile)
+		} else {
+			serveErr <- srv.Serve(ln)
+		}
+	}()
+	// Secrets go to stdout once, never to the logs.
+	fmt.Fprintf(stdout, "WHIP endpoint: %s/whip\n", base)
+	if ingestGen {
+		fmt.Fprintf(stdout, "WHIP bearer token (generated): %s\n", ingestTok)
+	}
+	if consoleGen {
+		fmt.Fprintln(stdout, "console token generated")
+	}
+	fmt.Fprintf(stdout, "operator console: %s\n", r.ConsoleURL(base))
+	log.Info("relay listening", "addr", ln.Addr().String(), "tls", useTLS, "record", recordDir)
+
+	rctx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	runErr := make(chan error, 1)
+	go func() { runErr <- r.Run(rctx) }()
+	var result error
+	select {
+	case <-ctx.Done():
+	case err := <-serveErr:
+		if !errors.Is(err, http.ErrServerClosed) {
+			result = fmt.Errorf("http server: %w", err)
+		}
+	}
+	cancel()
+	if err := <-runErr; err != nil && result == nil {
+		result = fmt.Errorf("finishing the recording: %w", err)
+	}
+	sctx, scancel := context.WithTimeout(context.Background(), 3*time.Second)
+	defer scancel()
+	srv.Shutdown(sctx)
+	st := r.Stats()
+	log.Info("relay finished", "frames_in", st.FramesIn, "ticks_live", st.TicksLive, "ticks_predicted", st.TicksPredicted, "ticks_stale", st.TicksStale)
+	return result
+}
+
+// loadToken reads a bearer token from file, else env, else generates one
+// (generated = true).
+func loadToken(file, env string) (tok string, generated bool, err error) {
+	switch {
+	case file != "":
+		b, err := os.ReadFile(file)
+		if err != nil {
+			return "", false, err
+		}
+		tok = strings.TrimSpace(string(b))
+		if len(tok) < console.MinTokenLen {
+			return "", false, fmt.Errorf("token in %s is shorter than %d characters", file, console.MinTokenLen)
+		}
+		return tok, false, nil
+	case os.Getenv(env) != "":
+		tok = strings.TrimSpace(os.Getenv(env))
+		if len(tok) < console.MinTokenLen {
+			return "", false, fmt.Errorf("token in $%s is shorter than %d characters", env, console.MinTokenLen)
+		}
+		return tok, false, nil
+	}
+	tok, err = console.NewToken()
+	return tok, true, err
+}
+
+func isLoopback(host string) bool {
+	if host == "localhost" {
+		return true
+	}
+	ip := net.ParseIP(host)
+	return ip != nil && ip.IsLoopback()
+}

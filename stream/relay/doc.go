@@ -1,0 +1,59 @@
+// Package relay is the live core of stopgap: it takes one vehicle's video and
+// telemetry from the WHIP ingest (package stopgap/stream/whip), decodes the
+// video, keeps the motion filter up to date, and sends the operator console
+// (package stopgap/stream/console) one labelled frame per display tick:
+// LIVE when the real frame is here, otherwise PREDICTED or STALE from the
+// gap filler (package stopgap/predictor).
+//
+// # Display schedule
+//
+// The relay uses the same display semantics as the offline replay
+// (stopgap/bench, type Schedule). Tick k stands for frame k, captured at c_k on
+// the vehicle clock. Its deadline on the receiver clock is
+//
+//	d_k = c_k + L + allowance
+//
+// where L is the nominal capture-to-arrival latency (receiver clock minus
+// vehicle clock, so it includes the clock offset). Frame k is LIVE if it
+// arrived and decoded by d_k, and it is shown as soon as it is decoded (no
+// waiting for the deadline). Otherwise, at d_k, the tick is missing and the
+// Filler fills it (target c_k) from the newest frame that arrived by d_k. A
+// frame that arrives after its deadline becomes the held frame for later
+// gaps but is not shown. Telemetry samples go to the filter as they arrive.
+//
+// L is Config.LatencyMs, or, when that is 0, the median of (arrival -
+// capture) over the first LatencyFrames frames of a session, frozen for the
+// rest of the session and logged. Until it is frozen, frames are shown on
+// arrival and no tick is declared missing.
+//
+// # Capture times
+//
+// The capture time of a frame is its RTP timestamp mapped through the latest
+// RTCP sender report (RFC 3550 section 6.4.1; the vehicle's sender report NTP
+// time is the vehicle clock). Before the first sender report the first frame's
+// RTP timestamp is anchored to its arrival time (logged); when the first report
+// arrives the session's timeline is shifted onto the vehicle clock (logged),
+// and the held frame is dropped because its capture time is on the old
+// timeline. Tick index k = round((c - c_0) / period).
+//
+// # Losses
+//
+// A Loss from the RTP assembler or a decode error makes the frame missing:
+// the decoder is told (Lost) and a keyframe request (RTCP PLI) is sent at once
+// and repeated every KeyframeRetry (200 ms, common receiver practice) while the
+// decoder waits for a keyframe. The WebRTC read loop is never blocked: the
+// ingest queues are bounded and drop and count.
+//
+// # Safety
+//
+// Every missing tick produces a PREDICTED or STALE frame, labelled in the
+// pixels by the predictor: the console never shows an unlabelled frozen
+// picture. Predicted frames move the static scene only; anything that moved
+// during the gap is not in them.
+//
+// # Operations
+//
+// Relay.Handler serves the WHIP ingest at /whip, the operator console at /,
+// /healthz (JSON, no token: it reveals only liveness counters) and /metrics
+// (Prometheus text exposition format, bearer token of the console required).
+package relay

@@ -1,0 +1,248 @@
+package relay
+
+import (
+	"context"
+	"errors"
+	"sync"
+	"time"
+
+	"gocv.io/x/gocv"
+
+	"stopgap/stream/rtpvp8"
+	"stopgap/stream/telemetry"
+	"stopgap/stream/vp8"
+	"stopgap/stream/whip"
+	"stopgap/filter"
+)
+
+// frameEvent is one decoded frame handed from the ingest to the display loop.
+// mat belongs to the pipeline's pool; the display loop returns it.
+type frameEvent struct {
+	mat        *gocv.Mat
+	captureUs  int64 // vehicle clock (or anchored, see vehicleClock)
+	readyUs    int64 // receiver clock: decoded and converted
+	lastPktUs  int64 // receiver clock: arrival of the frame's last packet
+	readyAt    time.Time
+	lastPktAt  time.Time
+	decodeDur  time.Duration
+	shiftUs    int64 // first frame on the vehicle clock: add to the session timeline
+	hasShift   bool
+	vehicleClk bool // captureUs is on the vehicle clock (a sender report was used)
+}
+
+// telEvent is one decoded telemetry sample.
+type telEvent struct {
+	sample    filter.Sample
+	arrivalUs int64
+}
+
+// ingest turns the session's RTP packets into decoded frames. It runs on its
+// own goroutine; only the mutex-guarded parts are touched from the expiry timer.
+type ingest struct {
+	p   *pipeline
+	mu  sync.Mutex // guards asm, dec, lastKeyReq, anchor state
+	asm *rtpvp8.Assembler
+	dec *vp8.Decoder
+	img vp8.Image
+
+	lastKeyReq  time.Time
+	haveAnchor  bool
+	anchorTS    uint32
+	anchorUs    int64
+	onVehicle   bool
+}
+
+func newIngest(p *pipeline) (*ingest, error) {
+	in := &ingest{p: p}
+	dec, err := vp8.NewDecoderConfig(vp8.DecoderConfig{MaxWidth: p.cfg.Camera.Width, MaxHeight: p.cfg.Camera.Height})
+	if err != nil {
+		return nil, err
+	}
+	in.dec = dec
+	in.asm, err = rtpvp8.NewAssembler(rtpvp8.AssemblerConfig{}, rtpvp8.SinkFuncs{Frame: in.onFrame, Loss: in.onLoss})
+	if err != nil {
+		dec.Close()
+		return nil, err
+	}
+	return in, nil
+}
+
+func (in *ingest) close() { in.dec.Close() }
+
+// runRTP reads packets until the session or ctx ends.
+func (in *ingest) runRTP(ctx context.Context) error {
+	for {
+		pkt, arrival, err := in.p.sess.ReadRTP(ctx)
+		if err != nil {
+			if errors.Is(err, whip.ErrSessionClosed) {
+				return nil
+			}
+			return err
+		}
+		in.mu.Lock()
+		if err := in.asm.Push(pkt, arrival); err != nil {
+			var pe *rtpvp8.PacketError
+			reason := "malformed"
+			if errors.As(err, &pe) {
+				reason = pe.Reason.String()
+			}
+			in.p.r.met.rtpDropped.inc(reason)
+		}
+		in.mu.Unlock()
+	}
+}
+
+// runTimers expires missing packets and repeats keyframe requests.
+func (in *ingest) runTimers(ctx context.Context) {
+	const every = 20 * time.Millisecond
+	t := in.p.cfg.NewTimer(every)
+	defer t.Stop()
+	for {
+		select {
+		case <-ctx.Done():
+			return
+		case <-in.p.sess.Done():
+			return
+		case <-t.C():
+		}
+		now := in.p.cfg.Now()
+		in.mu.Lock()
+		in.asm.Expire(now)
+		if in.dec.NeedKeyframe() && now.Sub(in.lastKeyReq) >= in.p.cfg.KeyframeRetry {
+			in.requestKeyframeLocked(now, "retry")
+		}
+		in.mu.Unlock()
+		t.Reset(every)
+	}
+}
+
+// requestKeyframeLocked sends a PLI now. in.mu is held.
+func (in *ingest) requestKeyframeLocked(now time.Time, why string) {
+	in.lastKeyReq = now
+	if err := in.p.sess.RequestKeyframe(); err != nil {
+		in.p.r.met.keyframeRequestsFailed.Add(1)
+		in.p.log.Debug("keyframe request not sent", "why", why, "err", err)
+		return
+	}
+	in.p.r.met.keyframeRequests.Add(1)
+}
+
+// onLoss is called by the assembler (in.mu held).
+func (in *ingest) onLoss(l rtpvp8.Loss) {
+	in.p.r.met.losses.Add(1)
+	in.dec.Lost()
+	in.p.log.Debug("frame loss", "reason", l.Reason.String(), "missing_packets", l.Missing)
+	in.requestKeyframeLocked(in.p.cfg.Now(), "loss")
+}
+
+// onFrame decodes a complete frame (in.mu held) and hands it to the display.
+func (in *ingest) onFrame(f rtpvp8.Frame) {
+	p := in.p
+	t0 := p.cfg.Now()
+	if err := in.dec.Decode(f.Data, &in.img); err != nil {
+		if errors.Is(err, vp8.ErrNotShown) {
+			return
+		}
+		p.r.met.decodeErrors.Add(1)
+		p.r.met.losses.Add(1)
+		if !errors.Is(err, vp8.ErrNeedKeyframe) {
+			p.log.Debug("decode error", "err", err)
+		}
+		// A rejected inter frame while waiting needs no new request unless
+		// the last one is old; a real decode error asks at once.
+		if !errors.Is(err, vp8.ErrNeedKeyframe) || t0.Sub(in.lastKeyReq) >= p.cfg.KeyframeRetry {
+			in.requestKeyframeLocked(t0, "decode")
+		}
+		return
+	}
+	if in.img.Width != p.cfg.Camera.Width || in.img.Height != p.cfg.Camera.Height {
+		p.r.met.decodeErrors.Add(1)
+		p.log.Warn("decoded picture size differs from the camera; check camera.json", "width", in.img.Width, "height", in.img.Height, "err", ErrFrameSize)
+		return
+	}
+	var mat *gocv.Mat
+	select {
+	case mat = <-p.free:
+	default:
+		p.r.met.framesDropped.Add(1)
+		return
+	}
+	buf, err := mat.DataPtrUint8()
+	if err == nil {
+		err = vp8.I420ToBGR(buf, &in.img)
+	}
+	if err != nil {
+		p.free <- mat
+		p.r.met.decodeErrors.Add(1)
+		p.log.Warn("converting a decoded frame failed", "err", err)
+		return
+	}
+	ready := p.cfg.Now()
+	ev := frameEvent{mat: mat, readyAt: ready, readyUs: ready.UnixMicro(), lastPktAt: f.ArrivalLast,
+		lastPktUs: f.ArrivalLast.UnixMicro(), decodeDur: ready.Sub(t0)}
+	in.captureTime(f, &ev)
+	p.r.met.framesIn.Add(1)
+	p.r.met.decode.observe(ev.decodeDur)
+	p.frames <- ev // never blocks: at most len(pool) mats exist
+}
+
+// captureTime maps the frame's RTP timestamp to the vehicle clock.
+func (in *ingest) captureTime(f rtpvp8.Frame, ev *frameEvent) {
+	p := in.p
+	if !in.haveAnchor {
+		in.haveAnchor = true
+		in.anchorTS = f.RTPTimestamp
+		in.anchorUs = f.ArrivalLast.UnixMicro()
+	}
+	anchored := in.anchorUs + rtpDeltaUs(f.RTPTimestamp, in.anchorTS)
+	sr, ok := p.sess.SenderReport()
+	if !ok {
+		if !in.onVehicle && anchored == in.anchorUs {
+			p.log.Info("no RTCP sender report yet: capture times are anchored to the first frame's arrival until one arrives")
+		}
+		ev.captureUs = anchored
+		return
+	}
+	ev.captureUs = sr.SenderTimeUs(f.RTPTimestamp, whip.VideoClockRateHz)
+	ev.vehicleClk = true
+	if !in.onVehicle {
+		in.onVehicle = true
+		ev.hasShift = true
+		ev.shiftUs = ev.captureUs - anchored
+		p.log.Info("first RTCP sender report: capture times are now on the vehicle clock", "shift_ms", float64(ev.shiftUs)/1000)
+	}
+}
+
+// rtpDeltaUs returns (ts - ref) as a signed 32-bit RTP distance at 90 kHz, in µs.
+func rtpDeltaUs(ts, ref uint32) int64 {
+	d := int64(int32(ts - ref))
+	if d >= 0 {
+		return (d*100 + 4) / 9
+	}
+	return -((-d*100 + 4) / 9)
+}
+
+// runTelemetry decodes telemetry messages and queues samples for the display.
+func (p *pipeline) runTelemetry(ctx context.Context) {
+	ch := p.sess.Telemetry()
+	for {
+		select {
+		case <-ctx.Done():
+			return
+		case tb, ok := <-ch:
+			if !ok {
+				return
+			}
+			m, err := telemetry.Decode(tb.Data)
+			if err != nil {
+				p.r.met.telemetryRejected.inc("decode_" + telemetry.ReasonOf(err).String())
+				continue
+			}
+			select {
+			case p.tel <- telEvent{sample: m.ToSample(), arrivalUs: tb.Arrival.UnixMicro()}:
+			default:
+				p.r.met.telemetryRejected.inc("queue_full")
+			}
+		}
+	}
+}

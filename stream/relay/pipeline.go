@@ -1,0 +1,453 @@
+package relay
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"log/slog"
+	"math"
+	"sort"
+	"sync"
+	"time"
+
+	"gocv.io/x/gocv"
+
+	"stopgap/filter"
+	"stopgap/predictor"
+	"stopgap/stream/console"
+)
+
+// pipeline is the per-session state: ingest goroutines feed the display loop,
+// which owns the filter, the filler and the output buffers.
+type pipeline struct {
+	r    *Relay
+	cfg  Config
+	log  *slog.Logger
+	sess IngestSession
+	in   *ingest
+
+	pool   []gocv.Mat
+	free   chan *gocv.Mat
+	frames chan frameEvent
+	tel    chan telEvent
+
+	flt    *filter.Filter
+	filler *predictor.Filler
+	out    gocv.Mat // labelled output frame
+	held   gocv.Mat // scratch for late frames
+	encBuf []byte
+	meta   console.Meta
+
+	// Session timeline (receiver and vehicle clocks in µs).
+	haveC0       bool
+	c0Us         int64
+	next         int // lowest tick whose deadline has not been handled
+	latUs        int64
+	latKnown     bool
+	latSamples   []int64
+	vehicleClock bool
+	recBase      int // recording index of tick 0, -1 until recording starts
+
+	lastDelayMs float64
+	link        console.LinkStats
+	lastStatsAt time.Time
+	prevLost    int64
+	prevHighest uint32
+}
+
+func newPipeline(r *Relay, s IngestSession) (*pipeline, error) {
+	cfg := r.cfg
+	p := &pipeline{r: r, cfg: cfg, sess: s, log: r.log.With("session", short(s.ID())), recBase: -1}
+	var err error
+	p.flt, err = filter.New(cfg.Filter)
+	if err != nil {
+		return nil, fmt.Errorf("relay: filter: %w: %w", ErrBadConfig, err)
+	}
+	if err := p.newFiller(); err != nil {
+		return nil, err
+	}
+	p.out, p.held = gocv.NewMat(), gocv.NewMat()
+	p.pool = make([]gocv.Mat, cfg.FrameQueue)
+	p.free = make(chan *gocv.Mat, cfg.FrameQueue)
+	p.frames = make(chan frameEvent, cfg.FrameQueue)
+	for i := range p.pool {
+		p.pool[i] = gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8UC3)
+		p.free <- &p.pool[i]
+	}
+	p.tel = make(chan telEvent, cfg.TelemetryQueue)
+	if cfg.LatencyMs != 0 {
+		p.latUs, p.latKnown = int64(math.Round(cfg.LatencyMs*1000)), true
+		r.setLatency(p.latUs, true)
+	}
+	p.in, err = newIngest(p)
+	if err != nil {
+		p.close()
+		return nil, fmt.Errorf("relay: %w", err)
+	}
+	return p, nil
+}
+
+func (p *pipeline) newFiller() error {
+	if p.filler != nil {
+		p.filler.Close()
+	}
+	pol := p.cfg.Policy
+	pol.CutoffConfidence = 0 // applied per tick in missing
+	f, err := predictor.NewFiller(predictor.FillerConfig{Camera: p.cfg.Camera, Policy: pol, Motion: p.flt})
+	if err != nil {
+		return fmt.Errorf("relay: gap filler: %w", err)
+	}
+	f.Now = p.cfg.Now
+	p.filler = f
+	return nil
+}
+
+func (p *pipeline) close() {
+	if p.in != nil {
+		p.in.close()
+	}
+	if p.filler != nil {
+		p.filler.Close()
+	}
+	p.out.Close()
+	p.held.Close()
+	for i := range p.pool {
+		p.pool[i].Close()
+	}
+}
+
+// run starts the ingest goroutines and runs the display loop until the session
+// or ctx ends.
+func (p *pipeline) run(ctx context.Context) error {
+	ctx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	var wg sync.WaitGroup
+	rtpErr := make(chan error, 1)
+	wg.Add(3)
+	go func() { defer wg.Done(); rtpErr <- p.in.runRTP(ctx) }()
+	go func() { defer wg.Done(); p.in.runTimers(ctx) }()
+	go func() { defer wg.Done(); p.runTelemetry(ctx) }()
+	p.log.Info("ingest session started")
+
+	timer := p.cfg.NewTimer(time.Hour)
+	defer timer.Stop()
+	var err error
+loop:
+	for {
+		p.armTimer(timer)
+		select {
+		case <-ctx.Done():
+			err = ctx.Err()
+			break loop
+		case e := <-rtpErr:
+			// The RTP reader ended: the session is over. Show what is queued.
+			err = e
+			p.drain()
+			break loop
+		case ev := <-p.frames:
+			p.onFrame(ev)
+		case te := <-p.tel:
+			p.onTelemetry(te)
+		case <-timer.C():
+			p.drain()
+			p.advance(p.cfg.Now().UnixMicro())
+		}
+	}
+	cancel()
+	p.sess.Close()
+	wg.Wait()
+	// Return mats still queued.
+	for {
+		select {
+		case ev := <-p.frames:
+			p.free <- ev.mat
+			continue
+		default:
+		}
+		break
+	}
+	if p.r.rec != nil {
+		p.r.rec.endSession()
+	}
+	p.log.Info("ingest session ended", "frames_in", p.r.met.framesIn.Load())
+	if errors.Is(err, context.Canceled) {
+		return nil
+	}
+	return err
+}
+
+// drain processes every queued frame and telemetry event in time order.
+func (p *pipeline) drain() {
+	type item struct {
+		ts int64
+		f  *frameEvent
+		t  *telEvent
+	}
+	var items []item
+	for {
+		select {
+		case ev := <-p.frames:
+			items = append(items, item{ts: ev.readyUs, f: &ev})
+			continue
+		case te := <-p.tel:
+			items = append(items, item{ts: te.arrivalUs, t: &te})
+			continue
+		default:
+		}
+		break
+	}
+	sort.SliceStable(items, func(i, j int) bool { return items[i].ts < items[j].ts })
+	for _, it := range items {
+		if it.f != nil {
+			p.onFrame(*it.f)
+		} else {
+			p.onTelemetry(*it.t)
+		}
+	}
+}
+
+// armTimer sets the timer to the deadline of the next unresolved tick.
+func (p *pipeline) armTimer(t Timer) {
+	t.Stop()
+	if !p.haveC0 {
+		t.Reset(time.Hour)
+		return
+	}
+	d := time.Duration(p.deadlineUs(p.next)-p.cfg.Now().UnixMicro()) * time.Microsecond
+	if d < 0 {
+		d = 0
+	}
+	t.Reset(d)
+}
+
+func (p *pipeline) nominalCaptureUs(k int) int64 {
+	return p.c0Us + int64(math.Round(float64(k)*p.cfg.periodUs()))
+}
+
+func (p *pipeline) deadlineUs(k int) int64 {
+	return p.nominalCaptureUs(k) + p.latUs + int64(math.Round(p.cfg.AllowanceMs*1000))
+}
+
+// onTelemetry feeds one sample to the filter (and the recording).
+func (p *pipeline) onTelemetry(te telEvent) {
+	if err := p.flt.Add(te.sample); err != nil {
+		var re *filter.RejectError
+		reason := "other"
+		if errors.As(err, &re) {
+			reason = re.Reason.String()
+		}
+		p.r.met.telemetryRejected.inc("filter_" + reason)
+		return
+	}
+	p.r.met.telemetryIn.Add(1)
+	if p.r.rec != nil {
+		p.r.rec.telemetry(te)
+	}
+}
+
+// advance handles every tick whose deadline is at or before nowUs: the frame
+// did not come in time, so the tick is filled.
+func (p *pipeline) advance(nowUs int64) {
+	if !p.haveC0 {
+		return
+	}
+	for p.deadlineUs(p.next) <= nowUs {
+		p.missing(p.next)
+		p.next++
+	}
+}
+
+// onFrame handles one decoded frame.
+func (p *pipeline) onFrame(ev frameEvent) {
+	defer func() { p.free <- ev.mat }()
+	if ev.hasShift {
+		p.shift(ev.shiftUs)
+	}
+	if ev.vehicleClk && !p.vehicleClock {
+		p.vehicleClock = true
+	}
+	if !p.haveC0 {
+		p.haveC0, p.c0Us, p.next = true, ev.captureUs, 0
+	}
+	p.lastDelayMs = float64(ev.readyUs-ev.captureUs) / 1000
+	if !p.latKnown {
+		p.latSamples = append(p.latSamples, ev.readyUs-ev.captureUs)
+		s := append([]int64(nil), p.latSamples...)
+		sort.Slice(s, func(i, j int) bool { return s[i] < s[j] })
+		p.latUs = s[len(s)/2]
+		if len(s) >= LatencyFrames {
+			p.latKnown = true
+			p.log.Info("nominal latency estimated and frozen for this session", "latency_ms", float64(p.latUs)/1000, "frames", len(s))
+		}
+		p.r.setLatency(p.latUs, p.latKnown)
+	}
+	k := int(math.Round(float64(ev.captureUs-p.c0Us) / p.cfg.periodUs()))
+	// Deadlines that passed before this frame was ready.
+	p.advance(ev.readyUs)
+	if k < p.next {
+		// Late: it becomes the held frame for later gaps, but is not shown.
+		p.r.met.lateFrames.Add(1)
+		if _, err := p.filler.Live(*ev.mat, ev.captureUs, &p.held); err != nil {
+			p.log.Warn("holding a late frame failed", "err", err)
+		}
+		p.record(func(rc *recorder) { rc.frame(p.recIndex(k), ev.captureUs, ev.readyUs, *ev.mat) })
+		return
+	}
+	// Earlier ticks whose frames can no longer come (frames arrive in order).
+	for p.next < k {
+		p.missing(p.next)
+		p.next++
+	}
+	tick, err := p.filler.Live(*ev.mat, ev.captureUs, &p.out)
+	if err != nil {
+		p.log.Warn("showing a live frame failed", "err", err)
+		return
+	}
+	p.next = k + 1
+	p.emit(k, ev.captureUs, tick, &ev)
+	p.record(func(rc *recorder) { rc.frame(p.recIndex(k), ev.captureUs, ev.readyUs, *ev.mat) })
+}
+
+// missing fills tick k at its deadline.
+func (p *pipeline) missing(k int) {
+	cutoff := p.r.console.Cutoff()
+	c := p.nominalCaptureUs(k)
+	// The filler's policy has cutoff 0 and enforces only the age cap; the
+	// operator's cutoff, which may change at any tick, is applied here by
+	// choosing the method: below it the held frame is shown STALE.
+	method := predictor.MethodHold
+	if last, ok := p.filler.LastCaptureUs(); ok && c >= last {
+		if m, err := p.flt.Relative(last, c); err == nil {
+			if conf, _, err := (predictor.ConfidenceModel{}).Confidence(p.cfg.Camera, m); err == nil && conf >= cutoff {
+				method = predictor.MethodGround
+			}
+		}
+	}
+	tick, err := p.filler.MissingWith(method, c, &p.out)
+	switch {
+	case errors.Is(err, predictor.ErrNoFrame):
+		tick.State = predictor.StateStale // labelled "no picture" frame
+	case errors.Is(err, predictor.ErrTargetBeforeFrame):
+		// A newer frame was already shown (a frame arrived early): showing
+		// an older tick now would go back in time. Record it only.
+		p.record(func(rc *recorder) { rc.tick(p.recIndex(k), c, p.deadlineUs(k), "SKIPPED", 0, 0, cutoff) })
+		return
+	case err != nil:
+		p.log.Warn("filling a missing tick failed", "tick", k, "err", err)
+		return
+	}
+	p.r.met.synth.observe(tick.SynthDuration)
+	p.emit(k, c, tick, nil)
+}
+
+// emit encodes the output frame and sends it with its meta to the console.
+func (p *pipeline) emit(k int, captureUs int64, tick predictor.Tick, ev *frameEvent) {
+	buf, err := p.out.DataPtrUint8()
+	if err != nil {
+		p.log.Warn("output frame unusable", "err", err)
+		return
+	}
+	t0 := p.cfg.Now()
+	frame, _, err := p.r.enc.EncodeBGR(p.encBuf[:0], buf, captureUs)
+	encDur := p.cfg.Now().Sub(t0)
+	if err != nil {
+		p.log.Warn("encoding the output frame failed", "err", err)
+		return
+	}
+	p.encBuf = frame
+	p.r.met.encode.observe(encDur)
+	period := time.Duration(p.cfg.periodUs() * float64(time.Microsecond))
+	if err := p.r.console.WriteFrame(frame, period); err != nil && !errors.Is(err, console.ErrClosed) {
+		p.log.Warn("console write failed", "err", err)
+	}
+	if ev != nil {
+		p.r.met.addedLatency.observe(p.cfg.Now().Sub(ev.lastPktAt) - ev.decodeDur - encDur)
+	}
+	cutoff := p.r.console.Cutoff()
+	var st console.State
+	switch tick.State {
+	case predictor.StateLive:
+		st = console.StateLive
+		p.r.met.ticksLive.Add(1)
+	case predictor.StatePredicted:
+		st = console.StatePredicted
+		p.r.met.ticksPredicted.Add(1)
+	default:
+		st = console.StateStale
+		p.r.met.ticksStale.Add(1)
+	}
+	p.refreshLink()
+	conf, age := finite(tick.Confidence), finite(tick.AgeMs)
+	p.meta = console.Meta{Seq: p.meta.Seq + 1, TimeUs: captureUs, State: st, AgeMs: age, Confidence: conf,
+		Cutoff: cutoff, Profile: p.r.console.Profile(), Link: p.link}
+	if err := p.r.console.WriteMeta(p.meta); err != nil && !errors.Is(err, console.ErrClosed) {
+		p.log.Warn("console meta failed", "err", err)
+	}
+	p.record(func(rc *recorder) { rc.tick(p.recIndex(k), captureUs, p.deadlineUs(k), st.String(), age, conf, cutoff) })
+}
+
+// refreshLink updates the link statistics about once per second.
+func (p *pipeline) refreshLink() {
+	now := p.cfg.Now()
+	p.link.KeyframeRequests = p.r.met.keyframeRequests.Load()
+	p.link.FramesIn = p.r.met.framesIn.Load()
+	p.link.DelayMs = finite(p.lastDelayMs)
+	if !p.lastStatsAt.IsZero() && now.Sub(p.lastStatsAt) < time.Second {
+		return
+	}
+	p.lastStatsAt = now
+	st := p.sess.Stats()
+	expected := int64(st.HighestSeq) - int64(p.prevHighest)
+	lost := st.PacketsLost - p.prevLost
+	if expected > 0 && lost >= 0 {
+		p.link.LossPct = 100 * float64(lost) / float64(expected)
+	} else {
+		p.link.LossPct = 0
+	}
+	p.prevLost, p.prevHighest = st.PacketsLost, st.HighestSeq
+	p.link.JitterMs = float64(st.Jitter) / float64(time.Millisecond)
+}
+
+// shift moves the session timeline by d µs when capture times switch from
+// the arrival anchor to the vehicle clock. The held frame's capture time is on
+// the old timeline, so the filler starts over.
+func (p *pipeline) shift(d int64) {
+	if p.haveC0 {
+		p.c0Us += d
+	}
+	p.latUs -= d
+	for i := range p.latSamples {
+		p.latSamples[i] -= d
+	}
+	if err := p.newFiller(); err != nil {
+		p.log.Error("recreating the gap filler failed", "err", err)
+	}
+}
+
+// recIndex returns the recording index of tick k, starting the recording's
+// session block at the first tick on the vehicle clock.
+func (p *pipeline) recIndex(k int) int {
+	if p.r.rec == nil || !p.vehicleClock {
+		return -1
+	}
+	if p.recBase < 0 {
+		p.recBase = p.r.rec.nextIndex() - k
+	}
+	return p.recBase + k
+}
+
+// record runs fn on the recorder if recording is on and the session is on the
+// vehicle clock.
+func (p *pipeline) record(fn func(*recorder)) {
+	if p.r.rec == nil || !p.vehicleClock {
+		return
+	}
+	fn(p.r.rec)
+}
+
+func finite(x float64) float64 {
+	if math.IsNaN(x) || math.IsInf(x, 0) {
+		return 0
+	}
+	return x
+}

@@ -1,0 +1,379 @@
+package relay
+
+import (
+	"context"
+	"crypto/sha256"
+	"crypto/subtle"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"log/slog"
+	"net/http"
+	"strings"
+	"sync"
+	"time"
+
+	"github.com/pion/rtp"
+
+	"stopgap/predictor"
+	"stopgap/stream/console"
+	"stopgap/stream/recording"
+	"stopgap/stream/vp8"
+	"stopgap/stream/whip"
+)
+
+// IngestSession is the part of one vehicle session the relay consumes.
+// *whip.Session implements it; tests use a fake.
+type IngestSession interface {
+	// ReadRTP returns the next video RTP packet and its receiver-clock
+	// arrival time; whip.ErrSessionClosed (or any error) ends the session.
+	ReadRTP(ctx context.Context) (*rtp.Packet, time.Time, error)
+	// Telemetry delivers raw telemetry messages; closed when the session ends.
+	Telemetry() <-chan whip.TelemetryBytes
+	// RequestKeyframe sends a picture loss indication (RTCP PLI).
+	RequestKeyframe() error
+	// SenderReport returns the latest RTCP sender report, ok false before one.
+	SenderReport() (whip.SenderReport, bool)
+	// Stats returns link statistics (called about once per second).
+	Stats() whip.SessionStats
+	// Done is closed when the session ended.
+	Done() <-chan struct{}
+	// Close ends the session.
+	Close() error
+	// ID identifies the session (logs show its first 8 characters).
+	ID() string
+}
+
+var _ IngestSession = (*whip.Session)(nil)
+
+// Stats are the relay's counters since New.
+type Stats struct {
+	// Sessions counts ingest sessions served; Active tells whether one is
+	// being served now.
+	Sessions uint64
+	Active   bool
+	// FramesIn counts frames received complete and decoded.
+	FramesIn uint64
+	// TicksLive, TicksPredicted and TicksStale count display ticks sent to
+	// the console by state.
+	TicksLive, TicksPredicted, TicksStale uint64
+	// Losses counts assembler loss events and decode errors; KeyframeRequests
+	// the PLIs sent (including retries).
+	Losses, KeyframeRequests uint64
+	// LateFrames counts frames decoded after their deadline (held, not
+	// shown); FramesDropped frames dropped because the display loop was
+	// behind.
+	LateFrames, FramesDropped uint64
+	// TelemetryIn counts samples accepted by the filter; TelemetryRejected
+	// those rejected by the decoder, the filter or a full queue.
+	TelemetryIn, TelemetryRejected uint64
+	// RecordErrors counts failed recording writes.
+	RecordErrors uint64
+	// LatencyMs is the nominal latency L in use and LatencyKnown whether it
+	// is frozen (configured, or estimated over LatencyFrames frames).
+	LatencyMs    float64
+	LatencyKnown bool
+	// AddedLatencyP50Ms and AddedLatencyP99Ms are bucket upper bounds of the
+	// relay's added latency for LIVE frames (see /metrics), ms.
+	AddedLatencyP50Ms, AddedLatencyP99Ms float64
+}
+
+// Relay is the live relay between one vehicle (WHIP ingest) and the operator
+// console. Create it with New, mount Handler on an HTTP server and call Run.
+type Relay struct {
+	cfg     Config
+	log     *slog.Logger
+	whip    *whip.Server
+	console *console.Console
+	enc     *vp8.Encoder
+	rec     *recorder
+	met     *metrics
+	mux     *http.ServeMux
+	metricsTokenSum [32]byte
+
+	incoming chan IngestSession
+
+	mu          sync.Mutex
+	active      bool
+	latencyUs   int64
+	latencyKnow bool
+	closed      bool
+}
+
+// New validates cfg, creates the WHIP server, the console, the egress encoder
+// and, if cfg.RecordDir is set, the recording (which must not exist yet).
+// Call Run to serve; Run releases everything when it returns.
+func New(cfg Config) (*Relay, error) {
+	cfg, err := cfg.withDefaults()
+	if err != nil {
+		return nil, err
+	}
+	r := &Relay{cfg: cfg, log: cfg.Logger, met: newMetrics(), incoming: make(chan IngestSession, 1)}
+	r.metricsTokenSum = sha256.Sum256([]byte(cfg.ConsoleToken))
+
+	r.enc, err = vp8.NewEncoder(cfg.Encoder)
+	if err != nil {
+		return nil, fmt.Errorf("relay: egress encoder: %w", err)
+	}
+	cc := cfg.Console
+	cc.Token = cfg.ConsoleToken
+	cc.Logger = cfg.Logger.With("component", "console")
+	if cc.Now == nil {
+		cc.Now = cfg.Now
+	}
+	enc := r.enc
+	cc.KeyframeNeeded = func(console.KeyframeReason) { enc.ForceKeyframe() }
+	r.console, err = console.New(cc)
+	if err != nil {
+		r.enc.Close()
+		return nil, fmt.Errorf("relay: console: %w", err)
+	}
+	wc := cfg.Whip
+	wc.Token = cfg.IngestToken
+	wc.Logger = cfg.Logger.With("component", "whip")
+	wc.OnSession = r.offer
+	r.whip, err = whip.NewServer(wc)
+	if err != nil {
+		r.console.Close()
+		r.enc.Close()
+		return nil, fmt.Errorf("relay: ingest: %w", err)
+	}
+	if cfg.RecordDir != "" {
+		r.rec, err = newRecorder(cfg, r.met)
+		if err != nil {
+			r.whip.Close()
+			r.console.Close()
+			r.enc.Close()
+			return nil, err
+		}
+	}
+	r.mux = http.NewServeMux()
+	r.mux.Handle("/whip", r.whip)
+	r.mux.Handle("/whip/", r.whip)
+	r.mux.HandleFunc("/healthz", r.healthz)
+	r.mux.HandleFunc("/metrics", r.metrics)
+	r.mux.Handle("/", r.console)
+	return r, nil
+}
+
+// offer hands a connected WHIP session to Run. A newer session replaces the
+// one being served (a vehicle that lost its path publishes again).
+func (r *Relay) offer(s *whip.Session) { r.Offer(s) }
+
+// Offer hands an ingest session to Run, which serves one session at a time:
+// the newest replaces the current one, which is closed. Sessions offered after
+// Run returned are closed at once.
+func (r *Relay) Offer(s IngestSession) {
+	r.mu.Lock()
+	closed := r.closed
+	r.mu.Unlock()
+	if closed {
+		s.Close()
+		return
+	}
+	for {
+		select {
+		case r.incoming <- s:
+			return
+		default:
+		}
+		select { // replace a queued, not yet served session
+		case old := <-r.incoming:
+			old.Close()
+		default:
+		}
+	}
+}
+
+// Handler returns the HTTP handler: the WHIP ingest at /whip (bearer
+// IngestToken), /healthz (no token; liveness JSON only), /metrics (bearer
+// ConsoleToken) and the operator console at / (its API needs ConsoleToken).
+func (r *Relay) Handler() http.Handler { return r.mux }
+
+// ConsoleURL returns the operator page URL under base (e.g.
+// "https://127.0.0.1:8443") with the console token in the URL fragment, which
+// browsers never send to a server. Show it to the operator only; never log it.
+func (r *Relay) ConsoleURL(base string) string { return r.console.PageURL(base) }
+
+// Console returns the operator console (for its cutoff and stats).
+func (r *Relay) Console() *console.Console { return r.console }
+
+// Stats returns a snapshot of the relay's counters.
+func (r *Relay) Stats() Stats {
+	r.mu.Lock()
+	active, lat, known := r.active, r.latencyUs, r.latencyKnow
+	r.mu.Unlock()
+	m := r.met
+	return Stats{
+		Sessions: m.sessions.Load(), Active: active,
+		FramesIn: m.framesIn.Load(),
+		TicksLive: m.ticksLive.Load(), TicksPredicted: m.ticksPredicted.Load(), TicksStale: m.ticksStale.Load(),
+		Losses: m.losses.Load(), KeyframeRequests: m.keyframeRequests.Load(),
+		LateFrames: m.lateFrames.Load(), FramesDropped: m.framesDropped.Load(),
+		TelemetryIn: m.telemetryIn.Load(), TelemetryRejected: m.telemetryRejected.total(),
+		RecordErrors: m.recordErrors.Load(),
+		LatencyMs: float64(lat) / 1000, LatencyKnown: known,
+		AddedLatencyP50Ms: m.addedLatency.quantile(0.5) * 1000, AddedLatencyP99Ms: m.addedLatency.quantile(0.99) * 1000,
+	}
+}
+
+// Run serves offered sessions one at a time until ctx ends, then closes the
+// current session, the ingest server, the console, the encoder and the
+// recording. It returns nil after a cancelled ctx, or the first error
+// closing the recording. Run may be called once.
+func (r *Relay) Run(ctx context.Context) error {
+	r.mu.Lock()
+	if r.closed {
+		r.mu.Unlock()
+		return ErrClosed
+	}
+	r.mu.Unlock()
+	var next IngestSession
+	for {
+		if next == nil {
+			select {
+			case <-ctx.Done():
+			case next = <-r.incoming:
+			}
+		}
+		if ctx.Err() != nil {
+			if next != nil {
+				next.Close()
+			}
+			break
+		}
+		s := next
+		next = nil
+		sctx, cancel := context.WithCancel(ctx)
+		done := make(chan error, 1)
+		go func() { done <- r.Serve(sctx, s) }()
+		select {
+		case err := <-done:
+			cancel()
+			if err != nil && !errors.Is(err, context.Canceled) {
+				r.log.Warn("session ended with an error", "session", short(s.ID()), "err", err)
+			}
+		case next = <-r.incoming:
+			r.log.Info("a new ingest session replaces the current one", "old", short(s.ID()), "new", short(next.ID()))
+			cancel()
+			<-done
+		case <-ctx.Done():
+			cancel()
+			<-done
+		}
+	}
+	return r.shutdown()
+}
+
+func (r *Relay) shutdown() error {
+	r.mu.Lock()
+	r.closed = true
+	r.mu.Unlock()
+	for {
+		select {
+		case s := <-r.incoming:
+			s.Close()
+			continue
+		default:
+		}
+		break
+	}
+	r.whip.Close()
+	r.console.Close()
+	var err error
+	if r.rec != nil {
+		err = r.rec.close()
+	}
+	r.enc.Close()
+	r.log.Info("relay stopped", "frames_in", r.met.framesIn.Load(), "ticks_live", r.met.ticksLive.Load(),
+		"ticks_predicted", r.met.ticksPredicted.Load(), "ticks_stale", r.met.ticksStale.Load())
+	return err
+}
+
+// Serve runs the pipeline for one session until it ends or ctx is cancelled,
+// then closes it. Run calls it for every offered session; call it directly
+// only when not using Run (tests, custom ingest). Sessions must not be served
+// concurrently: the egress encoder and the recording are shared.
+func (r *Relay) Serve(ctx context.Context, s IngestSession) error {
+	r.met.sessions.Add(1)
+	r.setActive(true)
+	defer r.setActive(false)
+	defer s.Close()
+	p, err := newPipeline(r, s)
+	if err != nil {
+		return err
+	}
+	defer p.close()
+	return p.run(ctx)
+}
+
+func (r *Relay) setActive(a bool) {
+	r.mu.Lock()
+	r.active = a
+	if !a {
+		r.latencyKnow = false
+	}
+	r.mu.Unlock()
+}
+
+func (r *Relay) setLatency(us int64, known bool) {
+	r.mu.Lock()
+	r.latencyUs, r.latencyKnow = us, known
+	r.mu.Unlock()
+}
+
+func (r *Relay) healthz(w http.ResponseWriter, req *http.Request) {
+	st := r.Stats()
+	w.Header().Set("Content-Type", "application/json")
+	w.Header().Set("Cache-Control", "no-store")
+	json.NewEncoder(w).Encode(map[string]any{
+		"status": "ok", "active_session": st.Active, "frames_in": st.FramesIn,
+		"ticks_live": st.TicksLive, "ticks_predicted": st.TicksPredicted, "ticks_stale": st.TicksStale,
+	})
+}
+
+func (r *Relay) metrics(w http.ResponseWriter, req *http.Request) {
+	tok, ok := strings.CutPrefix(req.Header.Get("Authorization"), "Bearer ")
+	sum := sha256.Sum256([]byte(tok))
+	if !ok || subtle.ConstantTimeCompare(sum[:], r.metricsTokenSum[:]) != 1 {
+		w.Header().Set("WWW-Authenticate", `Bearer realm="stopgap"`)
+		http.Error(w, "missing or wrong bearer token (use the console token)", http.StatusUnauthorized)
+		return
+	}
+	w.Header().Set("Content-Type", "text/plain; version=0.0.4; charset=utf-8")
+	active := 0
+	if r.Stats().Active {
+		active = 1
+	}
+	r.met.writeText(w, active)
+}
+
+// CameraFromRecording converts camera.json's content to the predictor's
+// camera model.
+func CameraFromRecording(c recording.Camera) predictor.Camera {
+	return predictor.Camera{
+		Width: c.Width, Height: c.Height,
+		Fx: c.Fx, Fy: c.Fy, Cx: c.Cx, Cy: c.Cy,
+		K1: c.K1, K2: c.K2, P1: c.P1, P2: c.P2, K3: c.K3,
+		HeightM: c.HeightM, PitchDeg: c.PitchDeg, RollDeg: c.RollDeg,
+		XOffsetM: c.XOffsetM, YOffsetM: c.YOffsetM,
+	}
+}
+
+// cameraToRecording is the inverse of CameraFromRecording.
+func cameraToRecording(c predictor.Camera) recording.Camera {
+	return recording.Camera{
+		Width: c.Width, Height: c.Height,
+		Fx: c.Fx, Fy: c.Fy, Cx: c.Cx, Cy: c.Cy,
+		K1: c.K1, K2: c.K2, P1: c.P1, P2: c.P2, K3: c.K3,
+		HeightM: c.HeightM, PitchDeg: c.PitchDeg, RollDeg: c.RollDeg,
+		XOffsetM: c.XOffsetM, YOffsetM: c.YOffsetM,
+	}
+}
+
+func short(id string) string {
+	if len(id) > 8 {
+		return id[:8]
+	}
+	return id
+}
