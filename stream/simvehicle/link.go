@@ -216,6 +216,7 @@ type Link struct {
 	queue chan *item
 
 	mu          sync.Mutex
+	outages     []Outage
 	epoch       time.Time
 	lossRng     *rand.Rand
 	jitRng      *rand.Rand
@@ -262,6 +263,7 @@ func NewLink(cfg LinkConfig, clock Clock) (*Link, error) {
 		queue:   make(chan *item, cfg.QueuePackets),
 		lossRng: rand.New(rand.NewPCG(cfg.Loss.Seed, lossStream)),
 		jitRng:  rand.New(rand.NewPCG(cfg.Loss.Seed, jitterStream)),
+		outages: append([]Outage(nil), cfg.Outages...),
 	}
 	if cfg.Loss.Model == bench.LossModelGilbertElliott {
 		l.ge = true
@@ -290,16 +292,41 @@ func (l *Link) SetEpoch(t time.Time) {
 	l.mu.Unlock()
 }
 
+// OutageNow adds an outage that starts at the current time and lasts d,
+// for tests and interactive use. It returns the outage as added (relative to
+// the epoch), or an error wrapping ErrConfig when d <= 0 or the epoch is not
+// set yet.
+func (l *Link) OutageNow(d time.Duration) (Outage, error) {
+	now := l.clock.Now()
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	if l.epoch.IsZero() {
+		return Outage{}, fmt.Errorf("%w: OutageNow before the link's epoch was set (start the vehicle first)", ErrConfig)
+	}
+	o := Outage{At: max(now.Sub(l.epoch), 0), Duration: d}
+	if err := o.validate(); err != nil {
+		return Outage{}, err
+	}
+	l.outages = append(l.outages, o)
+	return o, nil
+}
+
+// Epoch returns the origin of the outage times (zero before SetEpoch).
+func (l *Link) Epoch() time.Time {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	return l.epoch
+}
+
 // InOutage reports whether t falls in a scripted outage.
 func (l *Link) InOutage(t time.Time) bool {
 	l.mu.Lock()
-	epoch := l.epoch
-	l.mu.Unlock()
-	if epoch.IsZero() {
+	defer l.mu.Unlock()
+	if l.epoch.IsZero() {
 		return false
 	}
-	el := t.Sub(epoch)
-	for _, o := range l.cfg.Outages {
+	el := t.Sub(l.epoch)
+	for _, o := range l.outages {
 		if o.covers(el) {
 			return true
 		}

@@ -283,3 +283,30 @@ func TestRangeLUT(t *testing.T) {
 		}
 	}
 }
+
+func TestOutageNow(t *testing.T) {
+	clk := newVirtualClock()
+	l, err := NewLink(LinkConfig{}, clk)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := l.OutageNow(time.Second); !errors.Is(err, ErrConfig) {
+		t.Errorf("OutageNow before the epoch: %v, want ErrConfig", err)
+	}
+	l.SetEpoch(clk.Now())
+	clk.Advance(3 * time.Second)
+	o, err := l.OutageNow(200 * time.Millisecond)
+	if err != nil || o.At != 3*time.Second {
+		t.Fatalf("OutageNow: %+v, %v", o, err)
+	}
+	if l.Keep(nil, nil) {
+		t.Error("kept a packet at the start of the outage")
+	}
+	clk.Advance(200 * time.Millisecond)
+	if !l.Keep(nil, nil) {
+		t.Error("dropped a packet after the outage")
+	}
+	if _, err := l.OutageNow(0); !errors.Is(err, ErrConfig) {
+		t.Errorf("OutageNow(0): %v, want ErrConfig", err)
+	}
+}
