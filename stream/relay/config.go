@@ -119,7 +119,7 @@ type Timer interface {
 
 type stdTimer struct{ t *time.Timer }
 
-func (s stdTimer) C() <-chan time.Time    { return s.t.C }
+func (s stdTimer) C() <-chan time.Time   { return s.t.C }
 func (s stdTimer) Reset(d time.Duration) { s.t.Reset(d) }
 func (s stdTimer) Stop() bool            { return s.t.Stop() }
 

@@ -8,11 +8,11 @@ import (
 
 	"gocv.io/x/gocv"
 
+	"stopgap/filter"
 	"stopgap/stream/rtpvp8"
 	"stopgap/stream/telemetry"
 	"stopgap/stream/vp8"
 	"stopgap/stream/whip"
-	"stopgap/filter"
 )
 
 // frameEvent is one decoded frame handed from the ingest to the display loop.
@@ -45,11 +45,12 @@ type ingest struct {
 	dec *vp8.Decoder
 	img vp8.Image
 
-	lastKeyReq  time.Time
-	haveAnchor  bool
-	anchorTS    uint32
-	anchorUs    int64
-	onVehicle   bool
+	lastKeyReq     time.Time
+	haveAnchor     bool
+	anchorTS       uint32
+	anchorUs       int64
+	onVehicle      bool
+	anchoredFrames int
 }
 
 func newIngest(p *pipeline) (*ingest, error) {
@@ -144,8 +145,10 @@ func (in *ingest) onFrame(f rtpvp8.Frame) {
 			return
 		}
 		p.r.met.decodeErrors.Add(1)
-		p.r.met.losses.Add(1)
 		if !errors.Is(err, vp8.ErrNeedKeyframe) {
+			// A real decode failure is a loss; an inter frame rejected while
+			// waiting for a keyframe is a consequence of an earlier one.
+			p.r.met.losses.Add(1)
 			p.log.Debug("decode error", "err", err)
 		}
 		// A rejected inter frame while waiting needs no new request unless
@@ -197,9 +200,10 @@ func (in *ingest) captureTime(f rtpvp8.Frame, ev *frameEvent) {
 	anchored := in.anchorUs + rtpDeltaUs(f.RTPTimestamp, in.anchorTS)
 	sr, ok := p.sess.SenderReport()
 	if !ok {
-		if !in.onVehicle && anchored == in.anchorUs {
+		if in.anchoredFrames == 0 {
 			p.log.Info("no RTCP sender report yet: capture times are anchored to the first frame's arrival until one arrives")
 		}
+		in.anchoredFrames++
 		ev.captureUs = anchored
 		return
 	}
@@ -207,9 +211,11 @@ func (in *ingest) captureTime(f rtpvp8.Frame, ev *frameEvent) {
 	ev.vehicleClk = true
 	if !in.onVehicle {
 		in.onVehicle = true
-		ev.hasShift = true
-		ev.shiftUs = ev.captureUs - anchored
-		p.log.Info("first RTCP sender report: capture times are now on the vehicle clock", "shift_ms", float64(ev.shiftUs)/1000)
+		if in.anchoredFrames > 0 {
+			ev.hasShift = true
+			ev.shiftUs = ev.captureUs - anchored
+			p.log.Info("first RTCP sender report: capture times are now on the vehicle clock", "shift_ms", float64(ev.shiftUs)/1000)
+		}
 	}
 }
 

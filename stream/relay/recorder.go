@@ -3,6 +3,7 @@ package relay
 import (
 	"fmt"
 	"log/slog"
+	"math"
 	"os"
 	"path/filepath"
 	"strconv"
@@ -22,9 +23,10 @@ const TicksFile = "ticks.csv"
 
 const ticksHeader = "tick,state,age_ms,confidence,cutoff\n"
 
-// maxRecordMats bounds the frame copies waiting for JPEG encoding; beyond it a
-// frame is recorded as arrived but without an image (counted).
-const maxRecordMats = 8
+// A recorder keeps at most one second of frame copies (FPS frames, at least
+// 8) waiting for JPEG encoding; beyond that the recording has fallen behind
+// and a frame is recorded as never arrived (counted in record_errors and
+// logged), so the recording stays replayable.
 
 // recMsg is one instruction to the recorder goroutine.
 type recMsg struct {
@@ -71,16 +73,17 @@ type recorder struct {
 
 	assigned atomic.Int64 // next recording index to hand out
 	mats     atomic.Int64 // frame copies in flight
+	maxMats  int64
 
 	// recorder goroutine state
-	pending    map[int]*pendingRow
-	nextWrite  int
-	maxFrame   int
-	latestUs   int64
-	lastTelUs  int64
-	haveTel    bool
-	lastCapUs  int64
-	line       []byte
+	pending   map[int]*pendingRow
+	nextWrite int
+	maxFrame  int
+	latestUs  int64
+	lastTelUs int64
+	haveTel   bool
+	lastCapUs int64
+	line      []byte
 }
 
 func newRecorder(cfg Config, met *metrics) (*recorder, error) {
@@ -100,6 +103,7 @@ func newRecorder(cfg Config, met *metrics) (*recorder, error) {
 	}
 	rc := &recorder{cfg: cfg, log: cfg.Logger.With("component", "recording"), met: met, w: w, ticks: f,
 		ch: make(chan recMsg, 1024), done: make(chan struct{}), pending: map[int]*pendingRow{}, maxFrame: -1}
+	rc.maxMats = max(8, int64(math.Ceil(cfg.FPS)))
 	go rc.loop()
 	return rc, nil
 }
@@ -133,7 +137,7 @@ func (rc *recorder) frame(index int, captureUs, arrivalUs int64, img gocv.Mat) {
 		return
 	}
 	m := recMsg{kind: recFrame, index: index, captureUs: captureUs, arrivalUs: arrivalUs}
-	if rc.mats.Add(1) <= maxRecordMats {
+	if rc.mats.Add(1) <= rc.maxMats {
 		c := img.Clone()
 		m.mat = &c
 	} else {
@@ -243,16 +247,20 @@ func (rc *recorder) onFrame(m recMsg) {
 		return // its row was written as never arrived; too late to record
 	}
 	p := rc.row(m.index)
-	p.arrived, p.arrivalUs, p.captureUs = true, m.arrivalUs, m.captureUs
-	if m.mat != nil {
-		buf, err := gocv.IMEncodeWithParams(gocv.JPEGFileExt, *m.mat, []int{gocv.IMWriteJpegQuality, rc.cfg.RecordQuality})
-		if err != nil {
-			rc.fail("frame image", err)
-		} else {
-			p.jpeg = append([]byte(nil), buf.GetBytes()...)
-			buf.Close()
-		}
+	if m.mat == nil {
+		rc.log.Warn("recording fell behind: frame recorded as never arrived", "index", m.index)
+		rc.flush(false)
+		return
 	}
+	buf, err := gocv.IMEncodeWithParams(gocv.JPEGFileExt, *m.mat, []int{gocv.IMWriteJpegQuality, rc.cfg.RecordQuality})
+	if err != nil {
+		rc.fail("frame image", err)
+		rc.flush(false)
+		return
+	}
+	p.jpeg = append([]byte(nil), buf.GetBytes()...)
+	buf.Close()
+	p.arrived, p.arrivalUs, p.captureUs = true, m.arrivalUs, m.captureUs
 	rc.flush(false)
 }
 

@@ -81,14 +81,14 @@ type Stats struct {
 // Relay is the live relay between one vehicle (WHIP ingest) and the operator
 // console. Create it with New, mount Handler on an HTTP server and call Run.
 type Relay struct {
-	cfg     Config
-	log     *slog.Logger
-	whip    *whip.Server
-	console *console.Console
-	enc     *vp8.Encoder
-	rec     *recorder
-	met     *metrics
-	mux     *http.ServeMux
+	cfg             Config
+	log             *slog.Logger
+	whip            *whip.Server
+	console         *console.Console
+	enc             *vp8.Encoder
+	rec             *recorder
+	met             *metrics
+	mux             *http.ServeMux
 	metricsTokenSum [32]byte
 
 	incoming chan IngestSession
@@ -206,13 +206,13 @@ func (r *Relay) Stats() Stats {
 	m := r.met
 	return Stats{
 		Sessions: m.sessions.Load(), Active: active,
-		FramesIn: m.framesIn.Load(),
+		FramesIn:  m.framesIn.Load(),
 		TicksLive: m.ticksLive.Load(), TicksPredicted: m.ticksPredicted.Load(), TicksStale: m.ticksStale.Load(),
 		Losses: m.losses.Load(), KeyframeRequests: m.keyframeRequests.Load(),
 		LateFrames: m.lateFrames.Load(), FramesDropped: m.framesDropped.Load(),
 		TelemetryIn: m.telemetryIn.Load(), TelemetryRejected: m.telemetryRejected.total(),
 		RecordErrors: m.recordErrors.Load(),
-		LatencyMs: float64(lat) / 1000, LatencyKnown: known,
+		LatencyMs:    float64(lat) / 1000, LatencyKnown: known,
 		AddedLatencyP50Ms: m.addedLatency.quantile(0.5) * 1000, AddedLatencyP99Ms: m.addedLatency.quantile(0.99) * 1000,
 	}
 }
