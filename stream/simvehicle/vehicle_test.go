@@ -110,7 +110,7 @@ func TestPublishLoopback(t *testing.T) {
 	var srMaxErrUs int64
 	srChecked := 0
 	for {
-		rctx, rcancel := context.WithTimeout(ctx, 300*time.Millisecond)
+		rctx, rcancel := context.WithTimeout(ctx, 2*time.Second) // ends at the DELETE after the drive
 		pkt, arr, err := sess.ReadRTP(rctx)
 		rcancel()
 		if err != nil {
