@@ -59,6 +59,8 @@ type fakeVehicle struct {
 	frames int
 	drop   func(i int) bool
 	noSR   bool
+	// extraUs, if set, adds a delay to frame i on the link.
+	extraUs func(i int) int64
 
 	enc  *vp8.Encoder
 	pkz  *rtpvp8.Packetizer
@@ -133,6 +135,9 @@ func (v *fakeVehicle) generate(i int) {
 		return
 	}
 	arrival := captureUs(i) + testLatencyUs
+	if v.extraUs != nil {
+		arrival += v.extraUs(i)
+	}
 	if v.drop != nil && v.drop(i) {
 		return
 	}

@@ -12,6 +12,7 @@ import (
 
 	"stopgap/bench"
 	"stopgap/predictor"
+	"stopgap/stream/console"
 	"stopgap/stream/recording"
 )
 
@@ -129,5 +130,109 @@ func TestOutage(t *testing.T) {
 	if sum.TicksTotal != frames || sum.PredictedTicks != int(st.TicksPredicted) || sum.StaleTicks != int(st.TicksStale) {
 		t.Errorf("replay: total %d predicted %d stale %d; relay: predicted %d stale %d",
 			sum.TicksTotal, sum.PredictedTicks, sum.StaleTicks, st.TicksPredicted, st.TicksStale)
+	}
+}
+
+// replayMatches replays the recording in dir with its recorded arrivals and
+// checks that the replay makes the relay's tick decisions.
+func replayMatches(t *testing.T, dir string, st Stats, cutoff float64) {
+	t.Helper()
+	pol := predictor.DefaultPolicy()
+	pol.CutoffConfidence = cutoff
+	sum, err := bench.Replay(context.Background(), bench.ReplayConfig{
+		Drive: dir, Out: filepath.Join(t.TempDir(), "report"), ArrivalsFile: filepath.Join(dir, recording.ArrivalsFile),
+		Policy: pol, Examples: -1, Logger: quietLogger(),
+	})
+	if err != nil {
+		t.Fatalf("replay: %v", err)
+	}
+	if sum.PredictedTicks != int(st.TicksPredicted) || sum.StaleTicks != int(st.TicksStale) ||
+		sum.TicksTotal != int(st.TicksLive+st.TicksPredicted+st.TicksStale) {
+		t.Errorf("replay: total %d predicted %d stale %d; relay: live %d predicted %d stale %d",
+			sum.TicksTotal, sum.PredictedTicks, sum.StaleTicks, st.TicksLive, st.TicksPredicted, st.TicksStale)
+	}
+}
+
+// TestCutoffFromConsole sets the operator's cutoff to 1: no gap can be
+// predicted with full confidence, so every outage tick is STALE.
+func TestCutoffFromConsole(t *testing.T) {
+	clock := &fakeClock{}
+	dir := filepath.Join(t.TempDir(), "rec")
+	r := testRelay(t, clock, dir)
+	one := 1.0
+	if _, err := r.Console().SetCutoff(console.CutoffRequest{Cutoff: &one}); err != nil {
+		t.Fatal(err)
+	}
+	v := newFakeVehicle(t, clock, 30, func(i int) bool { return i >= 10 && i <= 12 })
+	runSession(t, r, v)
+	states := readTicks(t, dir)
+	for k := 10; k <= 13; k++ {
+		if states[k] != "STALE" {
+			t.Errorf("tick %d is %s at cutoff 1, want STALE", k, states[k])
+		}
+	}
+	st := r.Stats()
+	if st.TicksPredicted != 0 || st.TicksStale != 4 {
+		t.Errorf("stats %+v", st)
+	}
+	replayMatches(t, dir, st, 1)
+}
+
+// TestLateFrames delays frames 20-22 by 30 ms: past their deadlines (latency
+// 50 ms + allowance 20 ms), so their ticks are filled, and each late frame
+// becomes the held frame without being shown. No keyframe is requested.
+func TestLateFrames(t *testing.T) {
+	clock := &fakeClock{}
+	dir := filepath.Join(t.TempDir(), "rec")
+	r := testRelay(t, clock, dir)
+	v := newFakeVehicle(t, clock, 35, nil)
+	v.extraUs = func(i int) int64 {
+		if i >= 20 && i <= 22 {
+			return 30_000
+		}
+		return 0
+	}
+	runSession(t, r, v)
+	states := readTicks(t, dir)
+	t.Logf("ticks: %v", states)
+	for k, s := range states {
+		late := k >= 20 && k <= 22
+		if late == (s == "LIVE") {
+			t.Errorf("tick %d is %s (late frame: %v)", k, s, late)
+		}
+	}
+	st := r.Stats()
+	if st.LateFrames != 3 || st.KeyframeRequests != 0 || st.Losses != 0 {
+		t.Errorf("stats %+v", st)
+	}
+	rec, err := recording.Open(dir)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, a := range rec.Arrivals {
+		if !a.Arrived {
+			t.Errorf("frame %d recorded as never arrived", a.Index)
+		}
+	}
+	replayMatches(t, dir, st, predictor.DefaultCutoffConfidence)
+}
+
+// TestNoSenderReport: without RTCP sender reports capture times are anchored
+// to the first arrival; the schedule works the same, but nothing is recorded
+// (the recording needs vehicle-clock times).
+func TestNoSenderReport(t *testing.T) {
+	clock := &fakeClock{}
+	dir := filepath.Join(t.TempDir(), "rec")
+	r := testRelay(t, clock, dir)
+	v := newFakeVehicle(t, clock, 30, func(i int) bool { return i == 10 })
+	v.noSR = true
+	runSession(t, r, v)
+	st := r.Stats()
+	// Tick 10 lost, tick 11 an inter frame without references.
+	if st.TicksLive != 28 || st.TicksPredicted+st.TicksStale != 2 {
+		t.Errorf("stats %+v", st)
+	}
+	if got := readTicks(t, dir); len(got) != 0 {
+		t.Errorf("recorded %d ticks without vehicle clock", len(got))
 	}
 }
