@@ -1,0 +1,157 @@
+package e2e
+
+import (
+	"context"
+	"fmt"
+	"path/filepath"
+	"strings"
+	"testing"
+	"time"
+
+	"stopgap/stream/console/consoletest"
+)
+
+// TestBrowserOutage is the product's end-to-end check: relay and simulated
+// vehicle over loopback WebRTC, the operator page in real headless Chromium,
+// and a 1.5 s link outage. The page must show LIVE, then PREDICTED, then
+// STALE, then LIVE again, in that order, with the safety caution visible.
+func TestBrowserOutage(t *testing.T) {
+	exe := consoletest.RequireChromium(t)
+	if testing.Short() {
+		t.Skip("browser end-to-end run takes about 15 s")
+	}
+	r := startRig(t, rigOptions{width: 320, height: 180, driveS: 8})
+	waitFor(t, "the relay to show LIVE ticks", 10*time.Second, func() bool { return r.relay.Stats().TicksLive > 10 })
+
+	ctx, cancel := context.WithTimeout(context.Background(), 45*time.Second)
+	defer cancel()
+	b, err := consoletest.Launch(ctx, consoletest.Options{ExecPath: exe})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer b.Close()
+	defer func() {
+		if t.Failed() {
+			for _, l := range b.ConsoleLog() {
+				t.Log("page:", l)
+			}
+		}
+	}()
+	must := func(err error) {
+		t.Helper()
+		if err != nil {
+			t.Fatal(err)
+		}
+	}
+	dir := consoletest.ArtifactDir(t)
+	shot := func(name string) {
+		t.Helper()
+		path := filepath.Join(dir, name)
+		if err := b.Screenshot(path); err != nil {
+			t.Error(err)
+			return
+		}
+		t.Logf("screenshot: %s", path)
+	}
+
+	must(b.Open(r.relay.ConsoleURL(r.base), 10*time.Second))
+	must(b.WaitState("LIVE", 15*time.Second))
+	must(b.CheckCautionVisible())
+	time.Sleep(time.Second) // a stretch of LIVE before the cut
+	shot("e2e-live.png")
+
+	const outage = 1500 * time.Millisecond
+	var cutMs float64 // page clock (performance.now) when the link was cut
+	must(b.Eval("performance.now()", &cutMs))
+	o, err := r.link.OutageNow(outage)
+	must(err)
+	t.Logf("outage %v from page time %.0f ms", o, cutMs)
+	must(b.WaitState("PREDICTED", 2*time.Second))
+	shot("e2e-predicted.png")
+	must(b.WaitState("STALE", 3*time.Second))
+	must(b.CheckCautionVisible())
+	shot("e2e-stale.png")
+	must(b.WaitState("LIVE", 10*time.Second))
+
+	log, err := b.StateLog()
+	must(err)
+	t.Logf("page state log: %v", log)
+	checkOutageStates(t, log, cutMs, float64(outage.Milliseconds()))
+	st := r.relay.Stats()
+	t.Logf("relay %+v", st)
+	t.Logf("vehicle %+v", r.veh.Stats())
+	fmt.Fprintln(testWriter{t}, "artefacts in", dir)
+}
+
+type testWriter struct{ t *testing.T }
+
+func (w testWriter) Write(p []byte) (int, error) { w.t.Log(strings.TrimSpace(string(p))); return len(p), nil }
+
+// checkOutageStates checks the page's state log around a link cut at cutMs
+// (page clock) lasting outageMs: LIVE before the cut; then PREDICTED before
+// STALE; STALE during the outage; LIVE again after it; and never LIVE from
+// 150 ms after the cut (frames in flight and the 20 ms allowance are over by
+// then) to the end of the outage. NOSIGNAL entries caused by stalls of a
+// loaded machine are removed first (consoletest.WithoutStalls) and counted.
+func checkOutageStates(t *testing.T, log []consoletest.StateChange, cutMs, outageMs float64) {
+	t.Helper()
+	var clean []consoletest.StateChange
+	stalls := 0
+	for i, c := range log {
+		if c.State == "NOSIGNAL" && i > 0 && (c.Reason == "meta-silent" || c.Reason == "video-frozen") {
+			stalls++
+			continue
+		}
+		clean = append(clean, c)
+	}
+	if stalls > 2 {
+		t.Errorf("%d NO SIGNAL stalls in one short run", stalls)
+	}
+	stateAt := func(ms float64) string {
+		s := ""
+		for _, c := range clean {
+			if c.TMs <= ms {
+				s = c.State
+			}
+		}
+		return s
+	}
+	if s := stateAt(cutMs); s != "LIVE" && s != "PREDICTED" {
+		t.Errorf("state at the cut %q, want LIVE (or PREDICTED from a late frame)", s)
+	}
+	sawLiveBefore := false
+	for _, c := range clean {
+		if c.TMs < cutMs && c.State == "LIVE" {
+			sawLiveBefore = true
+		}
+	}
+	if !sawLiveBefore {
+		t.Error("no LIVE before the cut")
+	}
+	// order after the cut: PREDICTED (or already PREDICTED at the cut), then STALE, then LIVE
+	seq := []string{stateAt(cutMs)}
+	for _, c := range clean {
+		if c.TMs > cutMs && c.State != seq[len(seq)-1] {
+			seq = append(seq, c.State)
+		}
+	}
+	want := []string{"PREDICTED", "STALE", "LIVE"}
+	j := 0
+	for _, s := range seq {
+		if j < len(want) && s == want[j] {
+			j++
+		}
+	}
+	if j < len(want) {
+		t.Errorf("states from the cut on %v do not contain PREDICTED, STALE, LIVE in that order", seq)
+	}
+	if s := stateAt(cutMs + 150); s == "LIVE" {
+		t.Errorf("still LIVE 150 ms into the outage: a frozen picture passed as live")
+	}
+	for _, c := range clean {
+		if c.State == "LIVE" && c.TMs > cutMs+150 && c.TMs < cutMs+outageMs {
+			t.Errorf("LIVE at page time %.0f ms, inside the outage (%.0f..%.0f ms)", c.TMs, cutMs, cutMs+outageMs)
+		}
+	}
+	t.Logf("states from the cut on: %v (stalls removed: %d)", seq, stalls)
+}
