@@ -128,8 +128,14 @@ func (s Schedule) Live(k int) bool {
 // Held returns the newest frame j <= k that has arrived by tick k's
 // deadline, or -1 if none has.
 func (s Schedule) Held(k int) int {
+	return s.arrivedBefore(k, k+1)
+}
+
+// arrivedBefore returns the newest frame j < before that has arrived by tick
+// k's deadline, or -1.
+func (s Schedule) arrivedBefore(k, before int) int {
 	d := s.DeadlineUs(k)
-	for j := k; j >= 0; j-- {
+	for j := before - 1; j >= 0; j-- {
 		if s.ArrivalUs[j] != NeverArrivesUs && s.ArrivalUs[j] <= d {
 			return j
 		}
@@ -490,14 +496,16 @@ func (r *replayer) missing(k int, s Schedule, frames *frameSource, rec *recordin
 	// The held frame: the newest one that has arrived by this tick, which
 	// may be a LIVE frame not yet loaded or a frame that came late.
 	if j := s.Held(k); j >= 0 && j != r.held {
-		img, err := frames.Get(j)
-		if err != nil {
+		// The filler also wants the real frame before the held one, as
+		// the live relay would have shown it, for its far-scene depth.
+		if p := s.arrivedBefore(k, j); p >= 0 && p != r.held {
+			if err := r.hold(frames, p, s.CaptureUs[p]); err != nil {
+				return TickRow{}, err
+			}
+		}
+		if err := r.hold(frames, j, s.CaptureUs[j]); err != nil {
 			return TickRow{}, err
 		}
-		if _, err := r.filler.Live(img, s.CaptureUs[j], &r.scratch); err != nil {
-			return TickRow{}, fmt.Errorf("holding frame %d: %w", j, err)
-		}
-		r.held = j
 	}
 	tick, err := r.filler.MissingWith(predictor.MethodGround, s.CaptureUs[k], &r.shown)
 	if errors.Is(err, predictor.ErrNoFrame) {
@@ -551,6 +559,19 @@ func (r *replayer) missing(k int, s Schedule, frames *frameSource, rec *recordin
 		return TickRow{}, fmt.Errorf("scoring rotation: %w", err)
 	}
 	return row, nil
+}
+
+// hold hands real frame j to the filler as the newest one it has.
+func (r *replayer) hold(frames *frameSource, j int, captureUs int64) error {
+	img, err := frames.Get(j)
+	if err != nil {
+		return err
+	}
+	if _, err := r.filler.Live(img, captureUs, &r.scratch); err != nil {
+		return fmt.Errorf("holding frame %d: %w", j, err)
+	}
+	r.held = j
+	return nil
 }
 
 // example copies the images of the tick just scored for the report.

@@ -5,11 +5,14 @@ import (
 	"math"
 )
 
-// DefaultConfidenceScalePx is the default ConfidenceModel.ScalePx: a design
-// choice of this project (not a published value). At the default cutoff 0.5
-// it allows a worst 1-sigma error of sqrt(2 ln 2)·8 ≈ 9.4 px, under 1% of a
-// 1280 px wide image.
-const DefaultConfidenceScalePx = 8.0
+// DefaultConfidenceScaleMrad is the default ConfidenceModel.ScaleMrad, an
+// angle so that confidence does not depend on the image resolution: 25 mrad
+// is the width of a pedestrian (0.5 m) seen from 20 m. It is a design choice
+// of this project, not a published value: at the default cutoff 0.5 a
+// prediction is shown while the worst 1-sigma error of the reference road
+// points stays under sqrt(2 ln 2)·25 ≈ 29 mrad (1.7°), about one pedestrian
+// width at 20 m; 19 px for a 1280 px wide image with a 90° field of view.
+const DefaultConfidenceScaleMrad = 25.0
 
 // defaultReferenceDistancesM returns the default ConfidenceModel reference
 // distances: near, middle and far road points an operator looks at.
@@ -37,16 +40,17 @@ func DefaultReferenceDistancesM() []float64 {
 // Σ_px = J Cov Jᵀ; the point's 1-sigma error is the square root of the larger
 // eigenvalue of Σ_px. sigma_px is the worst over the reference points, and
 //
-//	confidence = exp(-0.5 · (sigma_px / ScalePx)²)
+//	confidence = exp(-0.5 · (sigma_px / scale_px)²),  scale_px = ScaleMrad/1000 · Fx
 //
 // so confidence is 1 for a perfectly known motion, 0.5 at
-// sigma_px ≈ 1.18 ScalePx, and never increases when the covariance grows (in
+// sigma_px ≈ 1.18 scale_px, and never increases when the covariance grows (in
 // the positive semi-definite order). Points on or behind the camera plane are
 // skipped; if all are, the confidence is 0 with ErrBehindCamera.
 type ConfidenceModel struct {
-	// ScalePx is the pixel error at which confidence has fallen to
-	// exp(-0.5) ≈ 0.61. Zero means DefaultConfidenceScalePx.
-	ScalePx float64
+	// ScaleMrad is the angular error, milliradians, at which confidence
+	// has fallen to exp(-0.5) ≈ 0.61; in pixels it is ScaleMrad/1000 · Fx.
+	// Zero means DefaultConfidenceScaleMrad.
+	ScaleMrad float64
 	// ReferenceDistancesM are the distances ahead of the camera of the
 	// reference road points, metres (> 0). Nil means 5, 10 and 20 m.
 	ReferenceDistancesM []float64
@@ -55,8 +59,8 @@ type ConfidenceModel struct {
 // Validate reports a negative or non-finite scale or a non-positive or
 // non-finite reference distance, wrapping ErrInvalidConfig.
 func (cm ConfidenceModel) Validate() error {
-	if !finite(cm.ScalePx) || cm.ScalePx < 0 {
-		return fmt.Errorf("confidence ScalePx = %g, want a finite value > 0 (0 for the default %g): %w", cm.ScalePx, DefaultConfidenceScalePx, ErrInvalidConfig)
+	if !finite(cm.ScaleMrad) || cm.ScaleMrad < 0 {
+		return fmt.Errorf("confidence ScaleMrad = %g, want a finite value > 0 (0 for the default %g): %w", cm.ScaleMrad, DefaultConfidenceScaleMrad, ErrInvalidConfig)
 	}
 	for i, d := range cm.ReferenceDistancesM {
 		if !finite(d) || d <= 0 {
@@ -66,20 +70,24 @@ func (cm ConfidenceModel) Validate() error {
 	return nil
 }
 
-func (cm ConfidenceModel) scale() float64 {
-	if cm.ScalePx == 0 {
-		return DefaultConfidenceScalePx
+// ScalePx returns the confidence scale in pixels for a focal length of fxPx
+// pixels: ScaleMrad/1000 · fxPx.
+func (cm ConfidenceModel) ScalePx(fxPx float64) float64 {
+	s := cm.ScaleMrad
+	if s == 0 {
+		s = DefaultConfidenceScaleMrad
 	}
-	return cm.ScalePx
+	return s / 1000 * fxPx
 }
 
-// FromSigma maps a 1-sigma pixel error to confidence
-// exp(-0.5 (sigmaPx/ScalePx)²). NaN or negative input gives 0.
-func (cm ConfidenceModel) FromSigma(sigmaPx float64) float64 {
-	if !(sigmaPx >= 0) {
+// FromSigma maps a 1-sigma pixel error, for a camera of focal length fxPx
+// pixels, to confidence exp(-0.5 (sigmaPx/ScalePx(fxPx))²). NaN or negative
+// input gives 0.
+func (cm ConfidenceModel) FromSigma(sigmaPx, fxPx float64) float64 {
+	if !(sigmaPx >= 0) || !(fxPx > 0) {
 		return 0
 	}
-	r := sigmaPx / cm.scale()
+	r := sigmaPx / cm.ScalePx(fxPx)
 	return math.Exp(-0.5 * r * r)
 }
 

@@ -62,8 +62,8 @@ func TestConfidenceMonotone(t *testing.T) {
 	cm := ConfidenceModel{}
 	base := [3][3]float64{{0.01, 0.001, 0}, {0.001, 0.004, 0.0002}, {0, 0.0002, 0.0001}}
 	s0, err := cm.sigmaPlanar(c, 2, 0.1, 0.05, [3][3]float64{})
-	if err != nil || s0 != 0 || cm.FromSigma(s0) != 1 {
-		t.Fatalf("zero covariance: sigma %g conf %g err %v", s0, cm.FromSigma(s0), err)
+	if err != nil || s0 != 0 || cm.FromSigma(s0, c.Fx) != 1 {
+		t.Fatalf("zero covariance: sigma %g conf %g err %v", s0, cm.FromSigma(s0, c.Fx), err)
 	}
 	prev := 1.0
 	for _, k := range []float64{0.01, 0.1, 0.5, 1, 2, 5, 20, 100} {
@@ -77,7 +77,7 @@ func TestConfidenceMonotone(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		conf := cm.FromSigma(s)
+		conf := cm.FromSigma(s, c.Fx)
 		if conf > prev || conf < 0 || conf > 1 {
 			t.Fatalf("scale %g: confidence %g after %g", k, conf, prev)
 		}
@@ -104,17 +104,22 @@ func TestConfidenceMonotone(t *testing.T) {
 
 // TestConfidenceFromSigmaWorked: exp(-0.5 (σ/s)²) at σ = s is exp(-0.5) =
 // 0.6065306597126334 (value of e^-0.5, from memory, recomputed by math.Exp).
+// With ScaleMrad 4 and Fx 1000 px the scale is 4 px.
 func TestConfidenceFromSigmaWorked(t *testing.T) {
-	cm := ConfidenceModel{ScalePx: 4}
-	if got := cm.FromSigma(4); math.Abs(got-0.6065306597126334) > 1e-15 {
+	cm := ConfidenceModel{ScaleMrad: 4}
+	if got := cm.FromSigma(4, 1000); math.Abs(got-0.6065306597126334) > 1e-15 {
 		t.Fatalf("got %v", got)
 	}
 	half := 4 * math.Sqrt(2*math.Ln2)
-	if got := cm.FromSigma(half); math.Abs(got-0.5) > 1e-12 {
+	if got := cm.FromSigma(half, 1000); math.Abs(got-0.5) > 1e-12 {
 		t.Fatalf("got %v at sqrt(2 ln 2) scale", got)
 	}
-	if cm.FromSigma(math.NaN()) != 0 || cm.FromSigma(-1) != 0 {
-		t.Fatal("bad sigma must give 0")
+	// Twice the resolution, twice the pixel error: the same confidence.
+	if a, b := cm.FromSigma(3, 1000), cm.FromSigma(6, 2000); math.Abs(a-b) > 1e-15 {
+		t.Fatalf("resolution dependent: %v vs %v", a, b)
+	}
+	if cm.FromSigma(math.NaN(), 1000) != 0 || cm.FromSigma(-1, 1000) != 0 || cm.FromSigma(1, 0) != 0 {
+		t.Fatal("bad sigma or focal length must give 0")
 	}
 }
 
@@ -134,7 +139,7 @@ func TestConfidenceBadInput(t *testing.T) {
 			t.Errorf("%s: got %v", tc.name, err)
 		}
 	}
-	if err := (ConfidenceModel{ScalePx: -1}).Validate(); !errors.Is(err, ErrInvalidConfig) {
+	if err := (ConfidenceModel{ScaleMrad: -1}).Validate(); !errors.Is(err, ErrInvalidConfig) {
 		t.Errorf("negative scale: %v", err)
 	}
 	if err := (ConfidenceModel{ReferenceDistancesM: []float64{5, 0}}).Validate(); !errors.Is(err, ErrInvalidConfig) {

@@ -2,6 +2,7 @@ package predictor
 
 import (
 	"fmt"
+	"math"
 
 	"time"
 
@@ -24,6 +25,10 @@ type FillerConfig struct {
 	Confidence ConfidenceModel
 	// Synth configures the warp; zero = defaults.
 	Synth SynthOptions
+	// FarDepth configures the far-scene depth estimate from the two newest
+	// real frames (see FarDepthEstimator); zero = defaults, Off = the far
+	// scene is always at infinity (rotation only).
+	FarDepth FarDepthOptions
 }
 
 // Tick reports what the Filler put on screen for one display tick.
@@ -51,6 +56,10 @@ type Tick struct {
 	// MotionErr is why no usable motion was available, if so; the tick is
 	// then STALE with confidence 0 (not a failure of the call).
 	MotionErr error
+	// FarDepthM is the far-scene depth a PREDICTED ground-method frame was
+	// made with, metres; +Inf for rotation only (also when no estimate
+	// could be made), 0 when not applicable.
+	FarDepthM float64
 }
 
 // Filler is the per-tick gap filler shared by the offline replay and the
@@ -80,6 +89,16 @@ type Filler struct {
 	have   bool
 	gray   gocv.Mat
 	closed bool
+
+	// The real frame before last, for the far-depth estimate, and the
+	// estimate made for the held frame (valid while farFor == lastUs).
+	prev     gocv.Mat
+	prevUs   int64
+	havePrev bool
+	depth    *FarDepthEstimator
+	farDepth float64
+	farFor   int64
+	farKnown bool
 }
 
 // NewFiller validates cfg and allocates the buffers.
@@ -102,11 +121,19 @@ func NewFiller(cfg FillerConfig) (*Filler, error) {
 		s.Close()
 		return nil, err
 	}
+	d, err := NewFarDepthEstimator(cfg.FarDepth)
+	if err != nil {
+		s.Close()
+		l.Close()
+		return nil, err
+	}
 	return &Filler{
 		cfg:   cfg,
 		synth: s,
 		label: l,
+		depth: d,
 		last:  gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8UC3),
+		prev:  gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8UC3),
 		gray:  gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8U),
 	}, nil
 }
@@ -119,7 +146,9 @@ func (f *Filler) Close() error {
 	f.closed = true
 	f.synth.Close()
 	f.label.Close()
+	f.depth.Close()
 	f.last.Close()
+	f.prev.Close()
 	f.gray.Close()
 	return nil
 }
@@ -152,6 +181,12 @@ func (f *Filler) Live(frame gocv.Mat, captureUs int64, dst *gocv.Mat) (Tick, err
 	}
 	start := f.now()
 	if !f.have || captureUs >= f.lastUs {
+		if f.have && captureUs > f.lastUs {
+			// Keep the previous real frame for the far-depth estimate:
+			// swap the buffers, so this costs no extra copy.
+			f.prev, f.last = f.last, f.prev
+			f.prevUs, f.havePrev = f.lastUs, true
+		}
 		frame.CopyTo(&f.last)
 		f.lastUs, f.have = captureUs, true
 	}
@@ -234,7 +269,8 @@ func (f *Filler) MissingWith(method Method, targetUs int64, dst *gocv.Mat) (Tick
 		if method == MethodRotation {
 			syn, err = f.synth.SynthesizeRotation(f.last, tick.Motion, dst)
 		} else {
-			syn, err = f.synth.Synthesize(f.last, tick.Motion, dst)
+			tick.FarDepthM = f.farDepthFor()
+			syn, err = f.synth.SynthesizeFar(f.last, tick.Motion, tick.FarDepthM, dst)
 		}
 		if err != nil {
 			return tick, err
@@ -252,6 +288,26 @@ func (f *Filler) MissingWith(method Method, targetUs int64, dst *gocv.Mat) (Tick
 	tick.LabelFraction, err = f.label.Draw(dst, tick.State, tick.AgeMs, tick.Confidence)
 	tick.SynthDuration = f.now().Sub(start)
 	return tick, err
+}
+
+// farDepthFor returns the far-scene depth for the held frame, estimating it
+// once per held frame from the frame before it (see FarDepthEstimator).
+// Without a previous frame, a usable motion between the two, or with the
+// estimate switched off, the far scene is at infinity.
+func (f *Filler) farDepthFor() float64 {
+	if f.farKnown && f.farFor == f.lastUs {
+		return f.farDepth
+	}
+	d := math.Inf(1)
+	if !f.cfg.FarDepth.Off && f.havePrev {
+		if m, err := f.cfg.Motion.Relative(f.prevUs, f.lastUs); err == nil {
+			if est, err := f.depth.Estimate(f.prev, f.last, f.cfg.Camera, m); err == nil {
+				d = est
+			}
+		}
+	}
+	f.farDepth, f.farFor, f.farKnown = d, f.lastUs, true
+	return d
 }
 
 // desaturate writes the held frame to dst in grey at half brightness.

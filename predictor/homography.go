@@ -1,5 +1,7 @@
 package predictor
 
+import "math"
+
 import "fmt"
 
 // Homography is a 3x3 projective map of pixel coordinates, row-major:
@@ -103,6 +105,24 @@ func (c Camera) GroundHomographyPlanar(dxM, dyM, dyawRad float64) Homography {
 		}
 	}
 	return Homography(mul33(mul33(c.K(), a), c.kInv())).normalised()
+}
+
+// FarHomographyPlanar is the map for the far scene (above the horizon) when
+// it is modelled as a plane facing the camera at T0, depthM metres ahead
+// along the optical axis (n = (0, 0, 1), n·X = depthM in the T0 camera
+// frame): K (R + t nᵀ/depthM) K^-1, with R, t from RelativePose (X1 = R X0 +
+// t). An infinite or non-positive depthM gives the rotation-only map
+// K R K^-1. Plane-induced homography: Hartley and Zisserman, "Multiple View
+// Geometry", 2nd ed., result 13.1 (section number from memory).
+func (c Camera) FarHomographyPlanar(dxM, dyM, dyawRad, depthM float64) Homography {
+	if !(depthM > 0) || math.IsInf(depthM, 1) {
+		return c.RotationHomographyPlanar(dxM, dyM, dyawRad)
+	}
+	r, t := c.RelativePose(dxM, dyM, dyawRad)
+	for i := 0; i < 3; i++ {
+		r[i][2] += t[i] / depthM
+	}
+	return Homography(mul33(mul33(c.K(), r), c.kInv())).normalised()
 }
 
 // RotationHomographyPlanar is RotationHomography for a planar motion given as

@@ -2,6 +2,7 @@ package predictor
 
 import (
 	"fmt"
+	"math"
 
 	"gocv.io/x/gocv"
 
@@ -63,20 +64,31 @@ func (cm ConfidenceModel) Confidence(cam Camera, m filter.Motion) (confidence, s
 	if err != nil {
 		return 0, 0, err
 	}
-	return cm.FromSigma(s), s, nil
+	return cm.FromSigma(s, cam.Fx), s, nil
 }
 
 // Synthesize predicts the frame at m.T1Us from src captured at m.T0Us: the
 // ground homography below the horizon, the rotation homography above it,
 // blended across the band. dst is owned by the caller (see Warp).
 func (s *Synthesizer) Synthesize(src gocv.Mat, m filter.Motion, dst *gocv.Mat) (Synthesis, error) {
+	return s.SynthesizeFar(src, m, math.Inf(1), dst)
+}
+
+// SynthesizeFar is Synthesize with the far scene modelled as a plane facing
+// the camera farDepthM metres ahead (FarHomographyPlanar) instead of at
+// infinity; +Inf gives Synthesize. See FarDepthEstimator for where a depth
+// comes from.
+func (s *Synthesizer) SynthesizeFar(src gocv.Mat, m filter.Motion, farDepthM float64, dst *gocv.Mat) (Synthesis, error) {
 	g, err := GroundHomography(s.cam, m)
 	if err != nil {
 		return Synthesis{}, err
 	}
-	f, err := RotationHomography(s.cam, m)
-	if err != nil {
+	if _, err := RotationHomography(s.cam, m); err != nil { // validates m
 		return Synthesis{}, err
+	}
+	f := s.cam.FarHomographyPlanar(m.DxM, m.DyM, m.DyawRad, farDepthM)
+	if !f.IsFinite() {
+		return Synthesis{}, fmt.Errorf("far-scene homography at depth %g m is not finite: %w", farDepthM, ErrSingular)
 	}
 	return s.Warp(src, g, f, dst)
 }

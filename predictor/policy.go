@@ -37,7 +37,8 @@ func (s State) String() string {
 
 // Defaults for Policy. They are design choices for this project (not
 // published values): half confidence is where the 1-sigma error of the
-// reference points reaches about 1.18 ScalePx (see ConfidenceModel), and
+// reference points reaches about 1.18 times the confidence scale (see
+// ConfidenceModel), and
 // 800 ms is about 24 frames at 30 fps, after which even a good motion estimate
 // leaves moving traffic too far from where the picture shows it.
 const (
