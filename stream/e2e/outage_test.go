@@ -1,0 +1,207 @@
+package e2e
+
+import (
+	"context"
+	"encoding/csv"
+	"fmt"
+	"os"
+	"path/filepath"
+	"strconv"
+	"testing"
+	"time"
+
+	"stopgap/bench"
+	"stopgap/predictor"
+	"stopgap/stream/recording"
+	"stopgap/stream/relay"
+)
+
+// readTicks reads a ticks.csv (the relay's or bench's: both have "tick" and
+// "state" columns) into tick -> state.
+func readTicks(t *testing.T, path string) map[int]string {
+	t.Helper()
+	f, err := os.Open(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	rows, err := csv.NewReader(f).ReadAll()
+	if err != nil {
+		t.Fatalf("%s: %v", path, err)
+	}
+	if len(rows) < 2 {
+		t.Fatalf("%s: no rows", path)
+	}
+	ti, si := -1, -1
+	for i, h := range rows[0] {
+		switch h {
+		case "tick":
+			ti = i
+		case "state":
+			si = i
+		}
+	}
+	if ti < 0 || si < 0 {
+		t.Fatalf("%s: header %v lacks tick or state", path, rows[0])
+	}
+	out := map[int]string{}
+	for n, r := range rows[1:] {
+		k, err := strconv.Atoi(r[ti])
+		if err != nil {
+			t.Fatalf("%s line %d: tick %q: %v", path, n+2, r[ti], err)
+		}
+		out[k] = r[si]
+	}
+	return out
+}
+
+// TestOutage500ms cuts the link for 500 ms while the relay records, then
+// checks (1) every tick whose frame was lost in the cut is PREDICTED or
+// STALE, never LIVE; (2) the relay asks for a keyframe within one frame
+// period of the first packet after the cut (loopback RTT is well under a
+// millisecond, so this bounds the relay's reaction); (3) replaying the relay's
+// recording with bench.Replay and the recorded arrivals reproduces the live
+// per-tick states.
+func TestOutage500ms(t *testing.T) {
+	if testing.Short() {
+		t.Skip("WebRTC loopback run of about 6 s")
+	}
+	r := startRig(t, rigOptions{width: 320, height: 180, driveS: 8, record: true})
+	waitFor(t, "LIVE ticks", 10*time.Second, func() bool { return r.relay.Stats().TicksLive > 45 })
+	const outage = 500 * time.Millisecond
+	cutAt := time.Now()
+	if _, err := r.link.OutageNow(outage); err != nil {
+		t.Fatal(err)
+	}
+	endAt := cutAt.Add(outage)
+	live0 := r.relay.Stats().TicksLive
+	time.Sleep(outage + 300*time.Millisecond)
+	waitFor(t, "LIVE again after the cut", 5*time.Second, func() bool { return r.relay.Stats().TicksLive > live0+15 })
+	cutoff := r.relay.Console().Cutoff()
+	st := r.relay.Stats()
+	r.stop() // closes the recording
+	t.Logf("relay %+v", st)
+	period := r.veh.FramePeriod()
+
+	rec, err := recording.Open(r.recordDir)
+	if err != nil {
+		t.Fatalf("relay recording: %v", err)
+	}
+	ticks := readTicks(t, filepath.Join(r.recordDir, relay.TicksFile))
+
+	t.Run("labelled", func(t *testing.T) {
+		// Frames captured in [cut + 5 ms, end - 15 ms] certainly had all their packets
+		// dropped (they go on the wire a few ms after capture); their ticks must be labelled.
+		lo, hi := cutAt.Add(5*time.Millisecond).UnixMicro(), endAt.Add(-15*time.Millisecond).UnixMicro()
+		n := 0
+		for _, f := range rec.Frames {
+			if f.CaptureUs < lo || f.CaptureUs > hi {
+				continue
+			}
+			n++
+			switch s := ticks[f.Index]; s {
+			case "PREDICTED", "STALE":
+			case "":
+				t.Errorf("tick %d (capture %d us, in the cut) has no ticks.csv row", f.Index, f.CaptureUs)
+			default:
+				t.Errorf("tick %d (capture %d us, in the cut) was %s", f.Index, f.CaptureUs, s)
+			}
+		}
+		want := int((outage - 20*time.Millisecond) / period)
+		if n < want-1 {
+			t.Errorf("found %d ticks in the cut, want about %d: the recording's capture times do not match the vehicle's", n, want)
+		}
+		t.Logf("%d ticks inside the 500 ms cut, all labelled PREDICTED or STALE", n)
+	})
+
+	t.Run("keyframe request", func(t *testing.T) {
+		r.mu.Lock()
+		defer r.mu.Unlock()
+		var resume time.Time
+		for _, w := range r.wire {
+			if w.kept && !w.at.Before(endAt) {
+				resume = w.at
+				break
+			}
+		}
+		var pli time.Time
+		for _, p := range r.plis {
+			if p.After(cutAt) {
+				pli = p
+				break
+			}
+		}
+		if resume.IsZero() || pli.IsZero() {
+			t.Fatalf("no packet after the cut (%v) or no keyframe request after it (%v)", resume, pli)
+		}
+		d := pli.Sub(resume)
+		t.Logf("first packet after the cut on the wire -> keyframe request at the vehicle: %v (frame period %v)", d, period)
+		if d >= period {
+			t.Errorf("keyframe request %v after the first packet past the cut, want < one frame period %v", d, period)
+		}
+	})
+
+	t.Run("replay agreement", func(t *testing.T) {
+		out := filepath.Join(t.TempDir(), "replay")
+		pol := predictor.DefaultPolicy()
+		pol.CutoffConfidence = cutoff
+		_, err := bench.Replay(context.Background(), bench.ReplayConfig{
+			Drive: r.recordDir, Out: out, ArrivalsFile: filepath.Join(r.recordDir, "arrivals.csv"),
+			Policy: pol, AllowanceMs: relay.DefaultAllowanceMs, Examples: -1, Logger: quietLogger(),
+		})
+		if err != nil {
+			t.Fatalf("bench.Replay on the relay's recording: %v", err)
+		}
+		replayed := readTicks(t, filepath.Join(out, "ticks.csv"))
+		var both, same, liveSame, skipped int
+		var diffs []string
+		for k, ls := range ticks {
+			rs, ok := replayed[k]
+			if !ok {
+				continue
+			}
+			if ls == "SKIPPED" {
+				skipped++
+				continue
+			}
+			both++
+			if ls == rs {
+				same++
+			} else if len(diffs) < 10 {
+				diffs = append(diffs, fmt.Sprintf("tick %d live %s replay %s", k, ls, rs))
+			}
+			if (ls == "LIVE") == (rs == "LIVE") {
+				liveSame++
+			}
+		}
+		if both == 0 {
+			t.Fatal("no tick in both the live and the replayed ticks.csv")
+		}
+		agree, liveAgree := float64(same)/float64(both), float64(liveSame)/float64(both)
+		t.Logf("replay vs live over %d ticks (%d SKIPPED left out): state agreement %.1f%%, LIVE/not-LIVE agreement %.1f%%; first differences %v",
+			both, skipped, 100*agree, 100*liveAgree, diffs)
+		if t.Failed() || agree < 0.95 || liveAgree < 0.98 {
+			arr, err := recording.ReadArrivals(filepath.Join(r.recordDir, "arrivals.csv"))
+			if err == nil {
+				byIdx := map[int]recording.Arrival{}
+				for _, a := range arr {
+					byIdx[a.Index] = a
+				}
+				for k := range ticks {
+					if rs, ok := replayed[k]; ok && rs != ticks[k] {
+						a := byIdx[k]
+						t.Logf("tick %d: live %s, replay %s; capture %d, arrived %v at %+d us after deadline (deadline recorded %v)",
+							k, ticks[k], rs, rec.Frames[k].CaptureUs, a.Arrived, a.ArrivalUs-a.DeadlineUs, a.HasDeadline)
+					}
+				}
+			}
+			t.Logf("live ticks %d, replayed ticks %d, recorded frames %d", len(ticks), len(replayed), len(rec.Frames))
+		}
+		if liveAgree < 0.98 {
+			t.Errorf("LIVE/not-LIVE agreement %.1f%%, want >= 98%%", 100*liveAgree)
+		}
+		if agree < 0.95 {
+			t.Errorf("state agreement %.1f%%, want >= 95%%", 100*agree)
+		}
+	})
+}
