@@ -390,18 +390,19 @@ func replayArrivals(cfg ReplayConfig, rec *recording.Recording, captureUs []int6
 		}
 		return arrivals, deadlines, nil
 	}
-	for _, f := range rec.Frames {
-		if f.NoImage {
-			return nil, nil, fmt.Errorf("replay: frame %d of %s has no image (lost on the live link); replay it with its recorded arrivals (--arrivals %s): %w",
-				f.Index, cfg.Drive, filepath.Join(cfg.Drive, recording.ArrivalsFile), ErrReplayInput)
-		}
-	}
 	if err := cfg.Loss.Validate(); err != nil {
 		return nil, nil, fmt.Errorf("replay: loss model: %w", err)
 	}
 	arr, err := cfg.Loss.Simulate(nil, captureUs)
 	if err != nil {
 		return nil, nil, fmt.Errorf("replay: loss model: %w", err)
+	}
+	// A frame the recorder never got (a live recording's lost frame) is
+	// lost on the modelled link too: the model's drops come on top.
+	for i, f := range rec.Frames {
+		if f.NoImage {
+			arr.ArrivalUs[i] = NeverArrivesUs
+		}
 	}
 	return arr.ArrivalUs, nil, nil
 }

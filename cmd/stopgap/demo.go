@@ -13,8 +13,23 @@ import (
 	"stopgap/bench/simdrive"
 )
 
+// runDemo runs the live demo (runDemoLive), or with --offline as the first
+// flag the offline loop: render the simulated drive, replay it, report.
 func runDemo(ctx context.Context, args []string, stdout, stderr io.Writer) error {
-	fs := flag.NewFlagSet("demo", flag.ContinueOnError)
+	if len(args) > 0 && (args[0] == "--offline" || args[0] == "-offline") {
+		return runDemoOffline(ctx, args[1:], stdout, stderr)
+	}
+	for _, a := range args {
+		if a == "--offline" || a == "-offline" {
+			fmt.Fprintln(stderr, "stopgap demo: --offline must be the first flag")
+			return errUsage
+		}
+	}
+	return runDemoLive(ctx, args, stdout, stderr)
+}
+
+func runDemoOffline(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	fs := flag.NewFlagSet("demo --offline", flag.ContinueOnError)
 	fs.SetOutput(stderr)
 	var dir string
 	var sim simdrive.Config
@@ -23,7 +38,7 @@ func runDemo(ctx context.Context, args []string, stdout, stderr io.Writer) error
 	var rf replayFlags
 	rf.register(fs)
 	fs.Usage = func() {
-		fmt.Fprintln(stderr, "usage: stopgap demo [flags]")
+		fmt.Fprintln(stderr, "usage: stopgap demo --offline [flags]")
 		fmt.Fprintln(stderr, "\nOffline demo: renders the built-in simulated drive (once; it is reused) into")
 		fmt.Fprintln(stderr, "DIR/drive, replays it over a bursty lossy link and writes DIR/report/report.html.")
 		fmt.Fprintln(stderr)

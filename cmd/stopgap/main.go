@@ -40,7 +40,7 @@ type command struct {
 
 func commands() []command {
 	return []command{
-		{"demo", "run the built-in demo (no arguments needed)", runDemo},
+		{"demo", "run the built-in demo: live relay and simulated vehicle (--offline: replay and report)", runDemo},
 		{"simdrive", "write a synthetic drive recording with exact ground truth", runSimdrive},
 		{"replay", "replay a recording with recorded or modelled drops and score every gap", runReplay},
 		{"relay", "run the live relay between the vehicle and the operator console", runRelay},
