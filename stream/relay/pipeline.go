@@ -348,7 +348,12 @@ func (p *pipeline) emit(k int, captureUs int64, tick predictor.Tick, ev *frameEv
 		return
 	}
 	t0 := p.cfg.Now()
-	frame, _, err := p.r.enc.EncodeBGR(p.encBuf[:0], buf, captureUs)
+	// The encoder's timestamps only steer its rate control and must
+	// increase: one tick period per output frame, across sessions too
+	// (capture times can step back when a session moves onto the vehicle
+	// clock or a new session starts).
+	p.r.encPtsUs += int64(math.Round(p.cfg.periodUs()))
+	frame, _, err := p.r.enc.EncodeBGR(p.encBuf[:0], buf, p.r.encPtsUs)
 	encDur := p.cfg.Now().Sub(t0)
 	if err != nil {
 		p.log.Warn("encoding the output frame failed", "err", err)
@@ -415,7 +420,12 @@ func (p *pipeline) shift(d int64) {
 	if p.haveC0 {
 		p.c0Us += d
 	}
-	p.latUs -= d
+	if p.cfg.LatencyMs != 0 {
+		// A configured latency is relative to the vehicle clock already.
+		p.latUs = int64(math.Round(p.cfg.LatencyMs * 1000))
+	} else {
+		p.latUs -= d
+	}
 	for i := range p.latSamples {
 		p.latSamples[i] -= d
 	}

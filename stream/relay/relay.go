@@ -92,6 +92,7 @@ type Relay struct {
 	metricsTokenSum [32]byte
 
 	incoming chan IngestSession
+	encPtsUs int64 // last encoder timestamp; used only by the serving goroutine
 
 	mu          sync.Mutex
 	active      bool
