@@ -44,6 +44,23 @@
 // decoder waits for a keyframe. The WebRTC read loop is never blocked: the
 // ingest queues are bounded and drop and count.
 //
+// # Recording
+//
+// With Config.RecordDir the relay writes a recording directory (package
+// stopgap/stream/recording): camera.json; one frames.csv row per display tick
+// with t_capture_us = c_k and the JPEG image if the frame arrived (also when
+// it came late), a blank file field if it never did; arrivals.csv rows
+// index,t_arrival_us,t_deadline_us (arrival = decoded, receiver clock; blank =
+// never arrived); telemetry.csv with t_arrival_us; and TicksFile (ticks.csv)
+// with what the relay showed. Rows are written by a separate goroutine so JPEG
+// encoding and fsyncs never delay the display. Recording starts at the first
+// tick whose capture time is on the vehicle clock (after the first sender
+// report); ticks before it are shown but not recorded. Replaying the directory
+// with its arrivals (stopgap replay --arrivals DIR/arrivals.csv) makes the
+// same LIVE/PREDICTED/STALE decisions when the latency is constant; the replay
+// takes the median latency over the whole drive, the relay over the first
+// LatencyFrames frames.
+//
 // # Safety
 //
 // Every missing tick produces a PREDICTED or STALE frame, labelled in the

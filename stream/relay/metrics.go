@@ -82,12 +82,14 @@ type labelled struct {
 	m  map[string]uint64
 }
 
-func (l *labelled) inc(v string) {
+func (l *labelled) inc(v string) { l.add(v, 1) }
+
+func (l *labelled) add(v string, n uint64) {
 	l.mu.Lock()
 	if l.m == nil {
 		l.m = map[string]uint64{}
 	}
-	l.m[v]++
+	l.m[v] += n
 	l.mu.Unlock()
 }
 

@@ -15,6 +15,7 @@ import (
 	"stopgap/filter"
 	"stopgap/predictor"
 	"stopgap/stream/console"
+	"stopgap/stream/whip"
 )
 
 // pipeline is the per-session state: ingest goroutines feed the display loop,
@@ -53,6 +54,7 @@ type pipeline struct {
 	lastStatsAt time.Time
 	prevLost    int64
 	prevHighest uint32
+	prevDrops   [3]uint64 // ingest queue full, duplicate, too old
 }
 
 func newPipeline(r *Relay, s IngestSession) (*pipeline, error) {
@@ -410,6 +412,7 @@ func (p *pipeline) refreshLink() {
 		p.link.LossPct = 0
 	}
 	p.prevLost, p.prevHighest = st.PacketsLost, st.HighestSeq
+	p.countDrops(st)
 	p.link.JitterMs = float64(st.Jitter) / float64(time.Millisecond)
 }
 
@@ -460,4 +463,20 @@ func finite(x float64) float64 {
 		return 0
 	}
 	return x
+}
+
+// countDrops adds to rtp_dropped the packets dropped outside Push's errors:
+// by the ingest queue (whip) and as duplicates or too late (assembler).
+func (p *pipeline) countDrops(st whip.SessionStats) {
+	p.in.mu.Lock()
+	as := p.in.asm.Stats()
+	p.in.mu.Unlock()
+	now := [3]uint64{st.PacketsDropped, as.Duplicate, as.TooOld}
+	names := [3]string{"ingest_queue_full", "duplicate", "too_old"}
+	for i := range now {
+		if now[i] > p.prevDrops[i] {
+			p.r.met.rtpDropped.add(names[i], now[i]-p.prevDrops[i])
+		}
+	}
+	p.prevDrops = now
 }
