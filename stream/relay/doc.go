@@ -23,8 +23,8 @@
 //
 // L is Config.LatencyMs, or, when that is 0, the median of (arrival -
 // capture) over the first LatencyFrames frames of a session, frozen for the
-// rest of the session and logged. Until it is frozen, frames are shown on
-// arrival and no tick is declared missing.
+// rest of the session and logged. Until it is frozen the median of the frames
+// so far is used.
 //
 // # Capture times
 //
