@@ -12,6 +12,7 @@ import (
 
 	"stopgap/bench"
 	"stopgap/predictor"
+	"stopgap/stream/console/consoletest"
 	"stopgap/stream/recording"
 	"stopgap/stream/relay"
 )
@@ -196,6 +197,17 @@ func TestOutage500ms(t *testing.T) {
 				}
 			}
 			t.Logf("live ticks %d, replayed ticks %d, recorded frames %d", len(ticks), len(replayed), len(rec.Frames))
+			keep := filepath.Join(consoletest.ArtifactDir(t), "e2e-outage-recording")
+			_ = os.MkdirAll(keep, 0o755)
+			for _, name := range []string{"arrivals.csv", "frames.csv", relay.TicksFile, "telemetry.csv"} {
+				if data, err := os.ReadFile(filepath.Join(r.recordDir, name)); err == nil {
+					_ = os.WriteFile(filepath.Join(keep, name), data, 0o644)
+				}
+			}
+			if data, err := os.ReadFile(filepath.Join(out, "ticks.csv")); err == nil {
+				_ = os.WriteFile(filepath.Join(keep, "replay-ticks.csv"), data, 0o644)
+			}
+			t.Logf("relay recording CSVs and the replay's ticks.csv kept in %s", keep)
 		}
 		if liveAgree < 0.98 {
 			t.Errorf("LIVE/not-LIVE agreement %.1f%%, want >= 98%%", 100*liveAgree)
