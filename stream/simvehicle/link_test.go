@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"math"
+	"sync"
 	"testing"
 	"time"
 
@@ -178,6 +179,7 @@ func TestNewLinkRejects(t *testing.T) {
 
 // recordingSink records what leaves the delay line and when.
 type recordingSink struct {
+	mu    sync.Mutex
 	clk   Clock
 	seqs  []uint16
 	times []time.Time
@@ -185,12 +187,16 @@ type recordingSink struct {
 }
 
 func (s *recordingSink) WriteRTP(p *rtp.Packet) error {
+	s.mu.Lock()
+	defer s.mu.Unlock()
 	s.seqs = append(s.seqs, p.SequenceNumber)
 	s.times = append(s.times, s.clk.Now())
 	return nil
 }
 
 func (s *recordingSink) SendTelemetry(b []byte) error {
+	s.mu.Lock()
+	defer s.mu.Unlock()
 	s.tel = append(s.tel, string(b))
 	return nil
 }
@@ -229,9 +235,9 @@ func TestDelayLine(t *testing.T) {
 	go func() { done <- l.Run(ctx, sink) }()
 	deadline := time.Now().Add(5 * time.Second)
 	for {
-		l.mu.Lock()
+		sink.mu.Lock()
 		n := len(sink.seqs)
-		l.mu.Unlock()
+		sink.mu.Unlock()
 		if n == 64 || time.Now().After(deadline) {
 			break
 		}
