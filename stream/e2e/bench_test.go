@@ -125,17 +125,25 @@ func BenchmarkLoopback1280x720(b *testing.B) {
 		}
 		r.mu.Unlock()
 
-		// LIVE ticks: match each meta to the vehicle frame of nearest capture time.
-		var e2e []float64
-		unmatched, live := 0, 0
+		// LIVE ticks: a meta's t_us is the relay's tick time, the capture time
+		// mapped through the sender reports (= capture + vehicle encode, plus
+		// any timeline shift). Find that constant offset as the most common
+		// difference to the vehicle's capture times, then match each LIVE
+		// meta to the vehicle frame at t_us - offset.
+		var liveMetas []metaEvent
 		for _, me := range metas[len(metas0):] {
-			if me.meta.State != console.StateLive {
-				continue
+			if me.meta.State == console.StateLive {
+				liveMetas = append(liveMetas, me)
 			}
-			live++
+		}
+		live := len(liveMetas)
+		offsetUs := modeOffsetUs(liveMetas, vframes)
+		var e2e []float64
+		unmatched := 0
+		for _, me := range liveMetas {
 			best, bestD := -1, int64(math.MaxInt64)
 			for i, f := range vframes {
-				d := me.meta.TimeUs - f.captureUs
+				d := me.meta.TimeUs - offsetUs - f.captureUs
 				if d < 0 {
 					d = -d
 				}
@@ -143,7 +151,7 @@ func BenchmarkLoopback1280x720(b *testing.B) {
 					best, bestD = i, d
 				}
 			}
-			if best < 0 || bestD > period.Microseconds()/2 {
+			if best < 0 || bestD > period.Microseconds()/4 {
 				unmatched++
 				continue
 			}
@@ -176,9 +184,9 @@ func BenchmarkLoopback1280x720(b *testing.B) {
 		b.ReportMetric(float64(cpu1-cpu0)/float64(wall1.Sub(wall0)), "cpu-cores")
 		b.ReportMetric(framesOut/max(framesIn, 1), "kept-up")
 		b.ReportMetric(float64(live)/max(float64(len(metas)-len(metas0)), 1), "live-share")
-		b.Logf("window %v: vehicle frames %v, viewer frames %v, metas %d (LIVE %d, matched %d, unmatched %d), vehicle skipped %d",
+		b.Logf("window %v: vehicle frames %v, viewer frames %v, metas %d (LIVE %d, matched %d, unmatched %d), vehicle skipped %d, tick time - capture time %.1f ms",
 			wall1.Sub(wall0).Round(time.Millisecond), framesIn, framesOut, len(metas)-len(metas0), live, len(e2e), unmatched,
-			vs1.FramesSkipped-vs0.FramesSkipped)
+			vs1.FramesSkipped-vs0.FramesSkipped, float64(offsetUs)/1000)
 		b.Logf("relay %+v", r.relay.Stats())
 	}
 }
@@ -194,4 +202,46 @@ func toSimFrames(fi []simvehicle.FrameInfo) []simFrame {
 		out[i] = simFrame{captureUs: f.CaptureUs, ts: f.RTPTimestamp}
 	}
 	return out
+}
+
+// modeOffsetUs returns the most common difference (1 ms bins, within
+// +-200 ms) between the LIVE metas' tick times and the vehicle's capture
+// times, refined to the median of the differences in that bin and its
+// neighbours.
+func modeOffsetUs(metas []metaEvent, frames []simFrame) int64 {
+	bins := map[int64]int{}
+	for _, me := range metas {
+		for _, f := range frames {
+			if d := me.meta.TimeUs - f.captureUs; d > -200_000 && d < 200_000 {
+				bins[d/1000]++
+			}
+		}
+	}
+	var best int64
+	bestN := -1
+	for k, n := range bins {
+		if n > bestN || (n == bestN && abs64(k) < abs64(best)) {
+			best, bestN = k, n
+		}
+	}
+	var near []int64
+	for _, me := range metas {
+		for _, f := range frames {
+			if d := me.meta.TimeUs - f.captureUs; abs64(d/1000-best) <= 1 {
+				near = append(near, d)
+			}
+		}
+	}
+	if len(near) == 0 {
+		return 0
+	}
+	slices.Sort(near)
+	return near[len(near)/2]
+}
+
+func abs64(v int64) int64 {
+	if v < 0 {
+		return -v
+	}
+	return v
 }

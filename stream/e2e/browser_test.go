@@ -85,7 +85,10 @@ func TestBrowserOutage(t *testing.T) {
 
 type testWriter struct{ t *testing.T }
 
-func (w testWriter) Write(p []byte) (int, error) { w.t.Log(strings.TrimSpace(string(p))); return len(p), nil }
+func (w testWriter) Write(p []byte) (int, error) {
+	w.t.Log(strings.TrimSpace(string(p)))
+	return len(p), nil
+}
 
 // checkOutageStates checks the page's state log around a link cut at cutMs
 // (page clock) lasting outageMs: LIVE before the cut; then PREDICTED before
