@@ -45,10 +45,15 @@ type ingest struct {
 	dec *vp8.Decoder
 	img vp8.Image
 
-	lastKeyReq     time.Time
+	lastKeyReq time.Time
+	// The capture timeline: RTP timestamp refTS was captured at refUs
+	// (arrival-anchored until the first sender report, then on the
+	// vehicle clock); later timestamps are unwrapped from it.
 	haveAnchor     bool
-	anchorTS       uint32
-	anchorUs       int64
+	refTS          uint32
+	refUs          int64
+	lastTS         uint32 // newest RTP timestamp seen
+	lastExt        int64  // its distance from refTS in 90 kHz ticks, unwrapped
 	onVehicle      bool
 	anchoredFrames int
 }
@@ -190,42 +195,56 @@ func (in *ingest) onFrame(f rtpvp8.Frame) {
 }
 
 // captureTime maps the frame's RTP timestamp to the vehicle clock.
+//
+// The first RTCP sender report places the RTP timeline on the vehicle clock
+// once; after that, capture times follow the RTP timestamps alone (90 kHz,
+// unwrapped frame to frame). Later reports are not re-applied: a sender's
+// report pairs its clock with the RTP time of the moment it SENDS, so each
+// one carries that moment's encode and pacing delay, and re-mapping every
+// frame through the newest report made capture times jump by tens of
+// milliseconds and frames land on the wrong display tick. Drift between the
+// vehicle's media clock and its wall clock is parts per million: negligible
+// over a session.
 func (in *ingest) captureTime(f rtpvp8.Frame, ev *frameEvent) {
 	p := in.p
 	if !in.haveAnchor {
 		in.haveAnchor = true
-		in.anchorTS = f.RTPTimestamp
-		in.anchorUs = f.ArrivalLast.UnixMicro()
+		in.refTS, in.lastTS, in.lastExt = f.RTPTimestamp, f.RTPTimestamp, 0
+		in.refUs = f.ArrivalLast.UnixMicro()
 	}
-	anchored := in.anchorUs + rtpDeltaUs(f.RTPTimestamp, in.anchorTS)
-	sr, ok := p.sess.SenderReport()
-	if !ok {
-		if in.anchoredFrames == 0 {
-			p.log.Info("no RTCP sender report yet: capture times are anchored to the first frame's arrival until one arrives")
-		}
-		in.anchoredFrames++
-		ev.captureUs = anchored
-		return
-	}
-	ev.captureUs = sr.SenderTimeUs(f.RTPTimestamp, whip.VideoClockRateHz)
-	ev.vehicleClk = true
 	if !in.onVehicle {
-		in.onVehicle = true
-		if in.anchoredFrames > 0 {
-			ev.hasShift = true
-			ev.shiftUs = ev.captureUs - anchored
-			p.log.Info("first RTCP sender report: capture times are now on the vehicle clock", "shift_ms", float64(ev.shiftUs)/1000)
+		if sr, ok := p.sess.SenderReport(); ok {
+			in.onVehicle = true
+			veh := sr.SenderTimeUs(in.refTS, whip.VideoClockRateHz)
+			if in.anchoredFrames > 0 {
+				ev.hasShift = true
+				ev.shiftUs = veh - in.refUs
+				p.log.Info("first RTCP sender report: capture times are now on the vehicle clock", "shift_ms", float64(ev.shiftUs)/1000)
+			}
+			in.refUs = veh
+		} else {
+			if in.anchoredFrames == 0 {
+				p.log.Info("no RTCP sender report yet: capture times are anchored to the first frame's arrival until one arrives")
+			}
+			in.anchoredFrames++
 		}
 	}
+	// Unwrap: the step from the newest timestamp is a signed 32-bit RTP
+	// distance, so the timeline survives the 32-bit wrap (13 h at 90 kHz).
+	ext := in.lastExt + int64(int32(f.RTPTimestamp-in.lastTS))
+	if ext > in.lastExt {
+		in.lastTS, in.lastExt = f.RTPTimestamp, ext
+	}
+	ev.captureUs = in.refUs + ticksToUs(ext)
+	ev.vehicleClk = in.onVehicle
 }
 
-// rtpDeltaUs returns (ts - ref) as a signed 32-bit RTP distance at 90 kHz, in µs.
-func rtpDeltaUs(ts, ref uint32) int64 {
-	d := int64(int32(ts - ref))
-	if d >= 0 {
-		return (d*100 + 4) / 9
+// ticksToUs converts 90 kHz ticks to microseconds, rounding to nearest.
+func ticksToUs(t int64) int64 {
+	if t >= 0 {
+		return (t*100 + 4) / 9
 	}
-	return -((-d*100 + 4) / 9)
+	return -((-t*100 + 4) / 9)
 }
 
 // runTelemetry decodes telemetry messages and queues samples for the display.
