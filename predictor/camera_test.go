@@ -5,7 +5,7 @@ import (
 	"math"
 	"testing"
 
-	"stopgap/predictor/internal/cvref"
+	"stopgap/internal/cvref"
 )
 
 // testCameras are made-up but plausible mounts with non-zero pitch, roll and

@@ -10,7 +10,7 @@ import (
 	"gocv.io/x/gocv"
 
 	"stopgap/filter"
-	"stopgap/predictor/internal/cvref"
+	"stopgap/internal/cvref"
 )
 
 // TestFarHomographyMatchesOpenCV: points on a plane facing the T0 camera at

@@ -1,6 +1,6 @@
 package predictor
 
-import "stopgap/predictor/internal/cvref"
+import "stopgap/internal/cvref"
 
 // SetOpenCVThreads sets the number of threads OpenCV may use for its own
 // parallel loops (cv::setNumThreads; gocv v0.31.0 does not wrap it) and

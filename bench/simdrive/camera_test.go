@@ -5,7 +5,7 @@ import (
 	"math/rand/v2"
 	"testing"
 
-	"stopgap/bench/simdrive/internal/cvref"
+	"stopgap/internal/cvref"
 	"stopgap/stream/recording"
 )
 
@@ -47,8 +47,12 @@ func TestProjectionMatchesOpenCV(t *testing.T) {
 					pts = append(pts, w)
 					want = append(want, [2]float64{u, vv})
 				}
-				got, err := cvref.ProjectPoints(pts, r, tr, c.cam.Fx, c.cam.Fy, c.cam.Cx, c.cam.Cy,
-					[5]float64{c.cam.K1, c.cam.K2, c.cam.P1, c.cam.P2, c.cam.K3})
+				rvec, err := cvref.Rodrigues(r)
+				if err != nil {
+					t.Fatal(err)
+				}
+				k := [3][3]float64{{c.cam.Fx, 0, c.cam.Cx}, {0, c.cam.Fy, c.cam.Cy}, {0, 0, 1}}
+				got, err := cvref.ProjectPoints(pts, rvec, tr, k, [5]float64{c.cam.K1, c.cam.K2, c.cam.P1, c.cam.P2, c.cam.K3})
 				if err != nil {
 					t.Fatal(err)
 				}

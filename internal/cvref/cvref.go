@@ -1,6 +1,6 @@
-// Package cvref gives predictor a few OpenCV 4.6 calls that gocv v0.31.0 does
-// not wrap: cv::projectPoints and cv::Rodrigues (used by the tests as the
-// reference for our camera geometry) and cv::setNumThreads /
+// Package cvref gives our tests and benchmarks a few OpenCV 4.6 calls that
+// gocv v0.31.0 does not wrap: cv::projectPoints and cv::Rodrigues (used by the
+// tests of predictor and simdrive as the reference for our camera geometry) and cv::setNumThreads /
 // cv::getNumThreads (used by benchmarks to pin OpenCV to one thread).
 //
 // It links the same system OpenCV as gocv (pkg-config opencv4), so the thread
