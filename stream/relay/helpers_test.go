@@ -59,6 +59,9 @@ type fakeVehicle struct {
 	frames int
 	drop   func(i int) bool
 	noSR   bool
+	// srFrom is the first frame delivered after the vehicle's first RTCP
+	// sender report: frames before it are anchored to their arrival.
+	srFrom int
 	// extraUs, if set, adds a delay to frame i on the link.
 	extraUs func(i int) int64
 
@@ -187,7 +190,10 @@ func (v *fakeVehicle) RequestKeyframe() error {
 // SenderReport maps RTP timestamps to the vehicle clock exactly (frame 0's
 // timestamp at its capture time).
 func (v *fakeVehicle) SenderReport() (whip.SenderReport, bool) {
-	if v.noSR {
+	v.mu.Lock()
+	before := v.delivering < v.srFrom
+	v.mu.Unlock()
+	if v.noSR || before {
 		return whip.SenderReport{}, false
 	}
 	return whip.SenderReport{SSRC: 0x1234, NTPTime: whip.UnixUsToNTP(captureUs(0)), RTPTime: rtpTS(0)}, true

@@ -47,7 +47,13 @@ type pipeline struct {
 	latKnown     bool
 	latSamples   []int64
 	vehicleClock bool
-	recBase      int // recording index of tick 0, -1 until recording starts
+	// Recording: tick k is row recBase+k; rows below recStart belong to
+	// ticks shown before the session reached the vehicle clock (or to an
+	// earlier session) and are not recorded. Both are fixed once, when the
+	// session switches to the vehicle clock (recording on).
+	recording bool
+	recBase   int
+	recStart  int
 
 	lastDelayMs float64
 	link        console.LinkStats
@@ -59,7 +65,7 @@ type pipeline struct {
 
 func newPipeline(r *Relay, s IngestSession) (*pipeline, error) {
 	cfg := r.cfg
-	p := &pipeline{r: r, cfg: cfg, sess: s, log: r.log.With("session", short(s.ID())), recBase: -1}
+	p := &pipeline{r: r, cfg: cfg, sess: s, log: r.log.With("session", short(s.ID()))}
 	var err error
 	p.flt, err = filter.New(cfg.Filter)
 	if err != nil {
@@ -215,7 +221,9 @@ func (p *pipeline) armTimer(t Timer) {
 		t.Reset(time.Hour)
 		return
 	}
-	d := time.Duration(p.deadlineUs(p.next)-p.cfg.Now().UnixMicro()) * time.Microsecond
+	// One microsecond after the deadline: advance fills ticks whose
+	// deadline has passed, and a frame ready at the deadline is in time.
+	d := time.Duration(p.deadlineUs(p.next)+1-p.cfg.Now().UnixMicro()) * time.Microsecond
 	if d < 0 {
 		d = 0
 	}
@@ -247,13 +255,15 @@ func (p *pipeline) onTelemetry(te telEvent) {
 	}
 }
 
-// advance handles every tick whose deadline is at or before nowUs: the frame
-// did not come in time, so the tick is filled.
+// advance handles every tick whose deadline is before nowUs: the frame did
+// not come in time, so the tick is filled. A frame ready exactly at its
+// deadline is LIVE, the replay's rule (bench.Schedule.Live: arrival <=
+// deadline).
 func (p *pipeline) advance(nowUs int64) {
 	if !p.haveC0 {
 		return
 	}
-	for p.deadlineUs(p.next) <= nowUs {
+	for p.deadlineUs(p.next) < nowUs {
 		p.missing(p.next)
 		p.next++
 	}
@@ -265,11 +275,11 @@ func (p *pipeline) onFrame(ev frameEvent) {
 	if ev.hasShift {
 		p.shift(ev.shiftUs)
 	}
-	if ev.vehicleClk && !p.vehicleClock {
-		p.vehicleClock = true
-	}
 	if !p.haveC0 {
 		p.haveC0, p.c0Us, p.next = true, ev.captureUs, 0
+	}
+	if ev.vehicleClk && !p.vehicleClock {
+		p.startRecording()
 	}
 	p.lastDelayMs = float64(ev.readyUs-ev.captureUs) / 1000
 	if !p.latKnown {
@@ -284,7 +294,8 @@ func (p *pipeline) onFrame(ev frameEvent) {
 		p.r.setLatency(p.latUs, p.latKnown)
 	}
 	k := int(math.Round(float64(ev.captureUs-p.c0Us) / p.cfg.periodUs()))
-	// Deadlines that passed before this frame was ready.
+	// Deadlines that passed before this frame was ready (a frame ready at
+	// its deadline is still in time, as in bench.Schedule.Live).
 	p.advance(ev.readyUs)
 	if k < p.next {
 		// Late: it becomes the held frame for later gaps, but is not shown.
@@ -332,10 +343,11 @@ func (p *pipeline) missing(k int) {
 	case errors.Is(err, predictor.ErrTargetBeforeFrame):
 		// A newer frame was already shown (a frame arrived early): showing
 		// an older tick now would go back in time. Record it only.
-		p.record(func(rc *recorder) { rc.tick(p.recIndex(k), c, p.deadlineUs(k), "SKIPPED", 0, 0, cutoff) })
+		p.recordSkipped(k, c)
 		return
 	case err != nil:
 		p.log.Warn("filling a missing tick failed", "tick", k, "err", err)
+		p.recordSkipped(k, c)
 		return
 	}
 	p.r.met.synth.observe(tick.SynthDuration)
@@ -347,6 +359,7 @@ func (p *pipeline) emit(k int, captureUs int64, tick predictor.Tick, ev *frameEv
 	buf, err := p.out.DataPtrUint8()
 	if err != nil {
 		p.log.Warn("output frame unusable", "err", err)
+		p.recordSkipped(k, captureUs)
 		return
 	}
 	t0 := p.cfg.Now()
@@ -359,6 +372,7 @@ func (p *pipeline) emit(k int, captureUs int64, tick predictor.Tick, ev *frameEv
 	encDur := p.cfg.Now().Sub(t0)
 	if err != nil {
 		p.log.Warn("encoding the output frame failed", "err", err)
+		p.recordSkipped(k, captureUs)
 		return
 	}
 	p.encBuf = frame
@@ -391,6 +405,14 @@ func (p *pipeline) emit(k int, captureUs int64, tick predictor.Tick, ev *frameEv
 		p.log.Warn("console meta failed", "err", err)
 	}
 	p.record(func(rc *recorder) { rc.tick(p.recIndex(k), captureUs, p.deadlineUs(k), st.String(), age, conf, cutoff) })
+}
+
+// recordSkipped records tick k as not shown. Every handled tick gets a
+// ticks.csv row: the recorder writes rows in index order and waits for each
+// row's tick.
+func (p *pipeline) recordSkipped(k int, captureUs int64) {
+	cutoff := p.r.console.Cutoff()
+	p.record(func(rc *recorder) { rc.tick(p.recIndex(k), captureUs, p.deadlineUs(k), "SKIPPED", 0, 0, cutoff) })
 }
 
 // refreshLink updates the link statistics about once per second.
@@ -437,22 +459,38 @@ func (p *pipeline) shift(d int64) {
 	}
 }
 
-// recIndex returns the recording index of tick k, starting the recording's
-// session block at the first tick on the vehicle clock.
-func (p *pipeline) recIndex(k int) int {
-	if p.r.rec == nil || !p.vehicleClock {
-		return -1
+// startRecording marks the session as on the vehicle clock and, if recording
+// is on, places its block of rows: the first tick not yet handled (p.next, on
+// the shifted timeline) becomes the recorder's next row. It is called once,
+// before any tick or frame of the vehicle-clock timeline is handled, so every
+// later tick k and the frame the display mapped to k share row recBase+k.
+func (p *pipeline) startRecording() {
+	p.vehicleClock = true
+	if p.r.rec == nil {
+		return
 	}
-	if p.recBase < 0 {
-		p.recBase = p.r.rec.nextIndex() - k
-	}
-	return p.recBase + k
+	p.recording = true
+	p.recStart = p.r.rec.nextIndex()
+	p.recBase = p.recStart - p.next
 }
 
-// record runs fn on the recorder if recording is on and the session is on the
-// vehicle clock.
+// recIndex returns the recording row of tick k, or -1 if tick k is not
+// recorded (recording off, not yet on the vehicle clock, or shown before the
+// recording started).
+func (p *pipeline) recIndex(k int) int {
+	if !p.recording {
+		return -1
+	}
+	i := p.recBase + k
+	if i < p.recStart {
+		return -1
+	}
+	return i
+}
+
+// record runs fn on the recorder if this session is being recorded.
 func (p *pipeline) record(fn func(*recorder)) {
-	if p.r.rec == nil || !p.vehicleClock {
+	if !p.recording {
 		return
 	}
 	fn(p.r.rec)

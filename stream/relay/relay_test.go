@@ -3,6 +3,8 @@ package relay
 import (
 	"bufio"
 	"context"
+	"encoding/csv"
+	"math"
 	"os"
 	"path/filepath"
 	"slices"
@@ -130,6 +132,146 @@ func TestOutage(t *testing.T) {
 	if sum.TicksTotal != frames || sum.PredictedTicks != int(st.TicksPredicted) || sum.StaleTicks != int(st.TicksStale) {
 		t.Errorf("replay: total %d predicted %d stale %d; relay: predicted %d stale %d",
 			sum.TicksTotal, sum.PredictedTicks, sum.StaleTicks, st.TicksPredicted, st.TicksStale)
+	}
+	recordingBelongsToTicks(t, dir, nil)
+	replayAgreesPerTick(t, dir, predictor.DefaultCutoffConfidence)
+}
+
+// TestRecordingMatchesReplay records sessions with losses and late frames
+// around the start of the session and around the switch from the
+// arrival-anchored timeline to the vehicle clock (first RTCP sender report),
+// and checks that every recorded row's image, arrival and deadline belong to
+// the tick of the same index and that the offline replay of the recording
+// shows the same state as the relay on every tick.
+func TestRecordingMatchesReplay(t *testing.T) {
+	const frames = 40
+	in := func(lo, hi int) func(int) bool { return func(i int) bool { return i >= lo && i <= hi } }
+	tests := []struct {
+		name   string
+		srFrom int              // first frame delivered after the first sender report
+		drop   func(i int) bool // frames lost on the link
+		lateUs map[int]int64    // extra link delay per frame
+	}{
+		{name: "report from the start, gap", srFrom: 0, drop: in(15, 20)},
+		{name: "report from the start, first frame lost", srFrom: 0, drop: in(0, 0)},
+		{name: "report from the start, late frames near the start", srFrom: 0, lateUs: map[int]int64{4: 30_000, 5: 30_000}},
+		{name: "report late, clean", srFrom: 6},
+		{name: "report late, gap at the switch", srFrom: 6, drop: in(6, 8)},
+		{name: "report late, gap before the switch", srFrom: 8, drop: in(4, 6)},
+		{name: "report late, gaps after the switch", srFrom: 4, drop: func(i int) bool { return (i >= 12 && i <= 14) || i == 25 }},
+		{name: "report late, first frame lost", srFrom: 3, drop: in(0, 0)},
+		{name: "report late, late frames at the switch", srFrom: 5, drop: in(10, 10), lateUs: map[int]int64{5: 30_000, 6: 30_000}},
+	}
+	for _, tc := range tests {
+		t.Run(tc.name, func(t *testing.T) {
+			clock := &fakeClock{}
+			dir := filepath.Join(t.TempDir(), "rec")
+			r := testRelay(t, clock, dir)
+			v := newFakeVehicle(t, clock, frames, tc.drop)
+			v.srFrom = tc.srFrom
+			v.extraUs = func(i int) int64 { return tc.lateUs[i] }
+			runSession(t, r, v)
+			recordingBelongsToTicks(t, dir, v.extraUs)
+			replayAgreesPerTick(t, dir, predictor.DefaultCutoffConfidence)
+		})
+	}
+}
+
+// recordingBelongsToTicks checks that every row of the recording in dir
+// belongs to one display tick of the fake vehicle's frames: the row's
+// capture time is that frame's, its deadline is the capture time plus the
+// link latency and the allowance, and its arrival, if any, is that frame's
+// arrival on the fake link (the arrival of its first packet plus at most a
+// few packets).
+func recordingBelongsToTicks(t *testing.T, dir string, extraUs func(int) int64) {
+	t.Helper()
+	rec, err := recording.Open(dir)
+	if err != nil {
+		t.Fatalf("recording.Open: %v", err)
+	}
+	if len(rec.Frames) == 0 || len(rec.Arrivals) != len(rec.Frames) {
+		t.Fatalf("recording: %d frames, %d arrivals", len(rec.Frames), len(rec.Arrivals))
+	}
+	if n := len(readTicks(t, dir)); n != len(rec.Frames) {
+		t.Fatalf("ticks.csv has %d rows, frames.csv %d", n, len(rec.Frames))
+	}
+	period := 1e6 / testFPS
+	first := int(math.Round(float64(rec.Frames[0].CaptureUs-testVehicleT0Us) / period))
+	for r, f := range rec.Frames {
+		i := first + r // the vehicle frame this row stands for
+		a := rec.Arrivals[r]
+		// Capture times of frames and nominal ticks agree to the µs
+		// (RTP 90 kHz and the NTP conversion round separately).
+		if d := f.CaptureUs - captureUs(i); d < -1 || d > 1 {
+			t.Errorf("row %d: t_capture_us %d, want frame %d's %d", r, f.CaptureUs, i, captureUs(i))
+		}
+		// The latency estimate is the median of decoded - capture (first
+		// packet plus a few packets, see fakeVehicle) until it is frozen.
+		if d := a.DeadlineUs - f.CaptureUs - testLatencyUs - DefaultAllowanceMs*1000; !a.HasDeadline || d < -1 || d >= 5_000 {
+			t.Errorf("row %d: t_deadline_us %d is capture + %d µs", r, a.DeadlineUs, a.DeadlineUs-f.CaptureUs)
+		}
+		if a.Arrived == f.NoImage {
+			t.Errorf("row %d: arrived %v but image %q", r, a.Arrived, f.File)
+		}
+		if !a.Arrived {
+			continue
+		}
+		want := captureUs(i) + testLatencyUs
+		if extraUs != nil {
+			want += extraUs(i)
+		}
+		if d := a.ArrivalUs - want; d < 0 || d >= 5_000 {
+			t.Errorf("row %d: t_arrival_us %d is %d µs after frame %d's first packet", r, a.ArrivalUs, d, i)
+		}
+	}
+}
+
+// replayAgreesPerTick replays the recording in dir with its recorded
+// arrivals (bench.Replay) and compares the state of every tick in the
+// replay's ticks.csv with what the relay recorded in its ticks.csv.
+func replayAgreesPerTick(t *testing.T, dir string, cutoff float64) {
+	t.Helper()
+	pol := predictor.DefaultPolicy()
+	pol.CutoffConfidence = cutoff
+	out := filepath.Join(t.TempDir(), "report")
+	if _, err := bench.Replay(context.Background(), bench.ReplayConfig{
+		Drive: dir, Out: out, ArrivalsFile: filepath.Join(dir, recording.ArrivalsFile),
+		Policy: pol, Examples: -1, Logger: quietLogger(),
+	}); err != nil {
+		t.Fatalf("replay: %v", err)
+	}
+	live := readTicks(t, dir)
+	f, err := os.Open(filepath.Join(out, bench.TicksFile))
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	rows, err := csv.NewReader(f).ReadAll()
+	if err != nil {
+		t.Fatalf("replay ticks.csv: %v", err)
+	}
+	if len(rows) == 0 || len(rows[0]) < 3 || rows[0][0] != "tick" || rows[0][2] != "state" {
+		t.Fatalf("replay ticks.csv header %v", rows)
+	}
+	replayed := make([]string, 0, len(rows)-1)
+	for n, row := range rows[1:] {
+		if row[0] != itoa(n) {
+			t.Fatalf("replay ticks.csv line %d: tick %q", n+2, row[0])
+		}
+		replayed = append(replayed, row[2])
+	}
+	if len(replayed) != len(live) {
+		t.Errorf("replay has %d ticks, the relay recorded %d", len(replayed), len(live))
+	}
+	var diff []string
+	for k := range min(len(live), len(replayed)) {
+		if live[k] != replayed[k] {
+			diff = append(diff, itoa(k)+":"+live[k]+"/"+replayed[k])
+		}
+	}
+	if len(diff) > 0 {
+		t.Errorf("replay disagrees with the relay on %d of %d ticks (tick:relay/replay): %v\nrelay:  %v\nreplay: %v",
+			len(diff), len(live), diff, live, replayed)
 	}
 }
 
