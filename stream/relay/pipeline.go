@@ -303,7 +303,17 @@ func (p *pipeline) onFrame(ev frameEvent) {
 		if _, err := p.filler.Live(*ev.mat, ev.captureUs, &p.held); err != nil {
 			p.log.Warn("holding a late frame failed", "err", err)
 		}
-		p.record(func(rc *recorder) { rc.frame(p.recIndex(k), ev.captureUs, ev.readyUs, *ev.mat) })
+		// A frame decoded by its deadline can still reach the display
+		// loop after the tick was filled (the ingest goroutine was not
+		// scheduled in between). The display had no frame until now, so
+		// the recording says it arrived after the deadline: the replay
+		// must decide as the display did.
+		arrivalUs := ev.readyUs
+		if d := p.deadlineUs(k); arrivalUs <= d {
+			p.log.Debug("frame decoded in time reached the display after its tick was filled", "tick", k, "ready_before_deadline_us", d-arrivalUs)
+			arrivalUs = d + 1
+		}
+		p.record(func(rc *recorder) { rc.frame(p.recIndex(k), ev.captureUs, arrivalUs, *ev.mat) })
 		return
 	}
 	// Earlier ticks whose frames can no longer come (frames arrive in order).
