@@ -110,6 +110,8 @@ type Session struct {
 	rx           rxStats
 	sr           whip.SenderReport
 	hasSR        bool
+	pendingSR    whip.SenderReport // latest SR seen before the SSRC was locked
+	hasPending   bool
 	lastActivity time.Time
 	lastPLI      time.Time
 	lastRR       time.Time
@@ -447,6 +449,10 @@ func (s *Session) handleRTP(b []byte, from netip.AddrPort, now time.Time) {
 			return
 		}
 		s.locked, s.ssrc = true, pkt.SSRC
+		if s.hasPending && s.pendingSR.SSRC == pkt.SSRC && !s.hasSR {
+			s.sr, s.hasSR = s.pendingSR, true // a report that came before the first packet
+			s.cnt.SenderReports++
+		}
 		s.log.Info("rtp source locked", "ssrc", pkt.SSRC, "from", from.String())
 	} else if pkt.SSRC != s.ssrc {
 		s.cnt.WrongSSRC++
@@ -487,13 +493,19 @@ func (s *Session) handleRTCP(b []byte, from netip.AddrPort, now time.Time) {
 	for _, p := range pkts {
 		switch p := p.(type) {
 		case *rtcp.SenderReport:
-			if !known || p.SSRC != want {
+			sr := whip.SenderReport{SSRC: p.SSRC, NTPTime: p.NTPTime, RTPTime: p.RTPTime,
+				PacketCount: p.PacketCount, OctetCount: p.OctetCount, Arrival: now}
+			if !known {
+				// Kept until the first RTP packet tells which SSRC to lock onto.
+				s.pendingSR, s.hasPending = sr, true
 				s.cnt.OtherRTCP++
 				continue
 			}
-			s.sr = whip.SenderReport{SSRC: p.SSRC, NTPTime: p.NTPTime, RTPTime: p.RTPTime,
-				PacketCount: p.PacketCount, OctetCount: p.OctetCount, Arrival: now}
-			s.hasSR = true
+			if p.SSRC != want {
+				s.cnt.OtherRTCP++
+				continue
+			}
+			s.sr, s.hasSR = sr, true
 			s.cnt.SenderReports++
 			s.lastActivity = now
 			if !s.havePeer || !s.locked {
