@@ -18,6 +18,7 @@ import (
 	"stopgap/predictor"
 	"stopgap/stream/console"
 	"stopgap/stream/relay"
+	"stopgap/stream/rtpudp"
 )
 
 func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) error {
@@ -30,6 +31,7 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		fps, cutoff, minCutoff, maxCutoff, maxAgeMs            float64
 		allowanceMs, latencyMs, wheelbaseM                     float64
 		logJSON, verbose                                       bool
+		rtpListen, telemetryListen, rtpAllow                   string
 	)
 	fs.StringVar(&listen, "listen", "127.0.0.1:8443", "`address` to serve WHIP ingest, the console, /healthz and /metrics on")
 	fs.StringVar(&certFile, "tls-cert", "", "TLS certificate `file` (PEM); with --tls-key serves HTTPS (required off loopback)")
@@ -47,12 +49,19 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	fs.Float64Var(&latencyMs, "latency-ms", 0, "nominal capture-to-arrival latency, ms (0 = estimate over the first frames of each session)")
 	fs.StringVar(&model, "model", "ctrv", "motion model of the filter: ctrv or bicycle")
 	fs.Float64Var(&wheelbaseM, "wheelbase-m", 2.7, "wheelbase for the bicycle model and steering telemetry, m")
+	fs.StringVar(&rtpListen, "rtp-listen", "", "UDP `address` (e.g. 127.0.0.1:5004) to receive VP8 over plain RTP with RTCP on the same port; empty = off")
+	fs.StringVar(&telemetryListen, "telemetry-listen", "", "UDP `address` for telemetry datagrams (JSON, one per datagram) that go with --rtp-listen")
+	fs.StringVar(&rtpAllow, "rtp-allow", "", "comma-separated source `IPs or IP:ports` admitted by --rtp-listen and --telemetry-listen (required off loopback: plain RTP is unauthenticated)")
 	fs.BoolVar(&logJSON, "log-json", true, "write logs as JSON")
 	fs.BoolVar(&verbose, "v", false, "verbose logs")
 	fs.Usage = func() {
 		fmt.Fprintln(stderr, "usage: stopgap relay --camera camera.json [flags]")
 		fmt.Fprintln(stderr, "\nLive relay: the vehicle publishes video and telemetry with WHIP to /whip; the")
 		fmt.Fprintln(stderr, "operator opens the console URL printed at start. Logs go to stderr.")
+		fmt.Fprintln(stderr, "A camera without WebRTC may instead send VP8 over plain RTP/UDP to --rtp-listen")
+		fmt.Fprintln(stderr, "(payload type 96, RTCP on the same port) and telemetry datagrams to")
+		fmt.Fprintln(stderr, "--telemetry-listen. Plain RTP has no authentication or encryption: off loopback")
+		fmt.Fprintln(stderr, "--rtp-allow must list the camera's addresses; use it on a trusted link only.")
 		fmt.Fprintln(stderr)
 		fs.PrintDefaults()
 	}
@@ -144,6 +153,25 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	defer cancel()
 	runErr := make(chan error, 1)
 	go func() { runErr <- r.Run(rctx) }()
+	rtpDone := make(chan struct{})
+	if rtpListen == "" {
+		if telemetryListen != "" {
+			log.Warn("--telemetry-listen is ignored without --rtp-listen")
+		}
+		close(rtpDone)
+	} else {
+		uc := rtpudp.Config{RTPAddr: rtpListen, TelemetryAddr: telemetryListen,
+			AllowedSources: splitList(rtpAllow), Logger: log.With("component", "rtpudp")}
+		first, err := rtpudp.Listen(rctx, uc)
+		if err != nil {
+			cancel()
+			<-runErr
+			srv.Close()
+			return fmt.Errorf("--rtp-listen: %w", err)
+		}
+		fmt.Fprintf(stdout, "RTP/UDP ingest: %s\n", first.RTPAddr())
+		go func() { defer close(rtpDone); serveRTPIngest(rctx, r, uc, first, log) }()
+	}
 	var result error
 	select {
 	case <-ctx.Done():
@@ -153,6 +181,7 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		}
 	}
 	cancel()
+	<-rtpDone
 	if err := <-runErr; err != nil && result == nil {
 		result = fmt.Errorf("finishing the recording: %w", err)
 	}
@@ -162,6 +191,50 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	st := r.Stats()
 	log.Info("relay finished", "frames_in", st.FramesIn, "ticks_live", st.TicksLive, "ticks_predicted", st.TicksPredicted, "ticks_stale", st.TicksStale)
 	return result
+}
+
+// serveRTPIngest hands s to the relay once its first RTP packet arrived and,
+// after each session ends, listens again with cfg, until ctx ends.
+func serveRTPIngest(ctx context.Context, r *relay.Relay, cfg rtpudp.Config, s *rtpudp.Session, log *slog.Logger) {
+	for {
+		select {
+		case <-s.Started():
+			r.Offer(s)
+			select {
+			case <-s.Done():
+			case <-ctx.Done():
+			}
+		case <-s.Done():
+		case <-ctx.Done():
+		}
+		s.Close()
+		if ctx.Err() != nil {
+			return
+		}
+		for {
+			var err error
+			if s, err = rtpudp.Listen(ctx, cfg); err == nil {
+				break
+			}
+			log.Warn("rtp/udp ingest: listening again failed; retrying in 1 s", "err", err)
+			select {
+			case <-ctx.Done():
+				return
+			case <-time.After(time.Second):
+			}
+		}
+	}
+}
+
+// splitList splits a comma-separated flag value, dropping empty items.
+func splitList(v string) []string {
+	var out []string
+	for _, f := range strings.Split(v, ",") {
+		if f = strings.TrimSpace(f); f != "" {
+			out = append(out, f)
+		}
+	}
+	return out
 }
 
 // loadToken reads a bearer token from file, else env, else generates one
