@@ -171,18 +171,6 @@ func telemetryArrivals(rows []recording.TelemetryRow, s Schedule) []int64 {
 	return out
 }
 
-// CameraFromRecording converts camera.json's content to the predictor's
-// camera model.
-func CameraFromRecording(c recording.Camera) predictor.Camera {
-	return predictor.Camera{
-		Width: c.Width, Height: c.Height,
-		Fx: c.Fx, Fy: c.Fy, Cx: c.Cx, Cy: c.Cy,
-		K1: c.K1, K2: c.K2, P1: c.P1, P2: c.P2, K3: c.K3,
-		HeightM: c.HeightM, PitchDeg: c.PitchDeg, RollDeg: c.RollDeg,
-		XOffsetM: c.XOffsetM, YOffsetM: c.YOffsetM,
-	}
-}
-
 // SampleFromRow converts one telemetry row to a filter sample.
 func SampleFromRow(r recording.TelemetryRow) filter.Sample {
 	return filter.Sample{
@@ -243,7 +231,7 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 	if len(rec.Frames) == 0 {
 		return Summary{}, fmt.Errorf("replay: %s has no frames: %w", filepath.Join(cfg.Drive, "frames.csv"), ErrReplayInput)
 	}
-	cam := CameraFromRecording(rec.Camera)
+	cam := predictor.CameraFromRecording(rec.Camera)
 	if err := cam.Validate(); err != nil {
 		return Summary{}, fmt.Errorf("replay: %s: %w", filepath.Join(cfg.Drive, "camera.json"), err)
 	}

@@ -16,6 +16,7 @@ import (
 
 	"stopgap/bench"
 	"stopgap/bench/simdrive"
+	"stopgap/predictor"
 	"stopgap/stream/console"
 	"stopgap/stream/recording"
 	"stopgap/stream/relay"
@@ -144,7 +145,7 @@ func runDemoLive(ctx context.Context, args []string, stdout, stderr io.Writer) e
 	fps := 1e6 / float64(rec.Frames[1].CaptureUs-rec.Frames[0].CaptureUs)
 	rl, err := relay.New(relay.Config{
 		FPS:          fps,
-		Camera:       bench.CameraFromRecording(rec.Camera),
+		Camera:       predictor.CameraFromRecording(rec.Camera),
 		RecordDir:    record,
 		IngestToken:  ingestToken,
 		ConsoleToken: consoleToken,

@@ -15,8 +15,8 @@ import (
 
 	"github.com/pion/rtp"
 
-	"stopgap/bench"
 	"stopgap/bench/simdrive"
+	"stopgap/predictor"
 	"stopgap/stream/recording"
 	"stopgap/stream/relay"
 	"stopgap/stream/simvehicle"
@@ -109,7 +109,7 @@ func startRig(t testing.TB, o rigOptions) *rig {
 	r := &rig{t: t, rec: rec}
 	cfg := relay.Config{
 		FPS:          1e6 / float64(rec.Frames[1].CaptureUs-rec.Frames[0].CaptureUs),
-		Camera:       bench.CameraFromRecording(rec.Camera),
+		Camera:       predictor.CameraFromRecording(rec.Camera),
 		IngestToken:  ingestToken,
 		ConsoleToken: consoleToken,
 		Whip:         whip.Config{Network: whip.Network{LoopbackOnly: true}},

@@ -41,7 +41,7 @@ func ReadCameraFile(path string) (predictor.Camera, error) {
 	if err := c.Validate(); err != nil {
 		return predictor.Camera{}, fmt.Errorf("camera file %s: %w", path, err)
 	}
-	cam := CameraFromRecording(c)
+	cam := predictor.CameraFromRecording(c)
 	if err := cam.Validate(); err != nil {
 		return predictor.Camera{}, fmt.Errorf("camera file %s: %w", path, err)
 	}

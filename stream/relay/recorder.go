@@ -87,7 +87,7 @@ type recorder struct {
 }
 
 func newRecorder(cfg Config, met *metrics) (*recorder, error) {
-	w, err := recording.Create(cfg.RecordDir, cameraToRecording(cfg.Camera))
+	w, err := recording.Create(cfg.RecordDir, cfg.Camera.Recording())
 	if err != nil {
 		return nil, fmt.Errorf("relay: recording: %w", err)
 	}

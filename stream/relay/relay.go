@@ -15,9 +15,7 @@ import (
 
 	"github.com/pion/rtp"
 
-	"stopgap/predictor"
 	"stopgap/stream/console"
-	"stopgap/stream/recording"
 	"stopgap/stream/vp8"
 	"stopgap/stream/whip"
 )
@@ -347,29 +345,6 @@ func (r *Relay) metrics(w http.ResponseWriter, req *http.Request) {
 		active = 1
 	}
 	r.met.writeText(w, active)
-}
-
-// CameraFromRecording converts camera.json's content to the predictor's
-// camera model.
-func CameraFromRecording(c recording.Camera) predictor.Camera {
-	return predictor.Camera{
-		Width: c.Width, Height: c.Height,
-		Fx: c.Fx, Fy: c.Fy, Cx: c.Cx, Cy: c.Cy,
-		K1: c.K1, K2: c.K2, P1: c.P1, P2: c.P2, K3: c.K3,
-		HeightM: c.HeightM, PitchDeg: c.PitchDeg, RollDeg: c.RollDeg,
-		XOffsetM: c.XOffsetM, YOffsetM: c.YOffsetM,
-	}
-}
-
-// cameraToRecording is the inverse of CameraFromRecording.
-func cameraToRecording(c predictor.Camera) recording.Camera {
-	return recording.Camera{
-		Width: c.Width, Height: c.Height,
-		Fx: c.Fx, Fy: c.Fy, Cx: c.Cx, Cy: c.Cy,
-		K1: c.K1, K2: c.K2, P1: c.P1, P2: c.P2, K3: c.K3,
-		HeightM: c.HeightM, PitchDeg: c.PitchDeg, RollDeg: c.RollDeg,
-		XOffsetM: c.XOffsetM, YOffsetM: c.YOffsetM,
-	}
 }
 
 func short(id string) string {
