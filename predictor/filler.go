@@ -153,6 +153,17 @@ func (f *Filler) Close() error {
 	return nil
 }
 
+// SetPolicy replaces the policy for the following ticks, for example when
+// the operator moves the cutoff. An invalid policy is refused and the old one
+// kept.
+func (f *Filler) SetPolicy(p Policy) error {
+	if err := p.Validate(); err != nil {
+		return err
+	}
+	f.cfg.Policy = p
+	return nil
+}
+
 // LastCaptureUs returns the capture time of the held real frame; ok is false
 // before the first one.
 func (f *Filler) LastCaptureUs() (us int64, ok bool) { return f.lastUs, f.have }

@@ -300,3 +300,34 @@ func TestFillerWithKalmanFilter(t *testing.T) {
 		t.Errorf("state %v, want PREDICTED for a short gap on steady telemetry", tk.State)
 	}
 }
+
+// TestFillerSetPolicy: the operator's cutoff takes effect on the next tick;
+// an invalid policy is refused and the old one kept.
+func TestFillerSetPolicy(t *testing.T) {
+	c := smallCam()
+	f := newTestFiller(t, &fakeMotion{SpeedMps: 10, SigmaPerS: 0.05})
+	defer f.Close()
+	dst := gocv.NewMat()
+	defer dst.Close()
+	frame := noiseFrame(t, c.Width, c.Height, 5)
+	defer frame.Close()
+	if _, err := f.Live(frame, 1_000_000, &dst); err != nil {
+		t.Fatal(err)
+	}
+	tk, err := f.Missing(1_033_000, &dst)
+	if err != nil || tk.State != StatePredicted {
+		t.Fatalf("default policy: %v %v, want PREDICTED", tk.State, err)
+	}
+	if err := f.SetPolicy(Policy{CutoffConfidence: 1, MaxAgeMs: DefaultMaxAgeMs}); err != nil {
+		t.Fatal(err)
+	}
+	if tk, _ = f.Missing(1_066_000, &dst); tk.State != StateStale || tk.Confidence >= 1 {
+		t.Fatalf("cutoff 1 at confidence %v: %v, want STALE", tk.Confidence, tk.State)
+	}
+	if err := f.SetPolicy(Policy{CutoffConfidence: 2}); !errors.Is(err, ErrInvalidPolicy) {
+		t.Fatalf("cutoff 2: err %v, want ErrInvalidPolicy", err)
+	}
+	if tk, _ = f.Missing(1_099_000, &dst); tk.State != StateStale {
+		t.Fatalf("after a refused policy: %v, want the old cutoff (STALE)", tk.State)
+	}
+}

@@ -31,6 +31,9 @@ type pipeline struct {
 	free   chan *gocv.Mat
 	frames chan frameEvent
 	tel    chan telEvent
+	// pendTel holds telemetry that arrived but whose tick has not been
+	// handled yet (see onTelemetry).
+	pendTel []telEvent
 
 	flt    *filter.Filter
 	filler *predictor.Filler
@@ -100,7 +103,7 @@ func (p *pipeline) newFiller() error {
 		p.filler.Close()
 	}
 	pol := p.cfg.Policy
-	pol.CutoffConfidence = 0 // applied per tick in missing
+	pol.CutoffConfidence = p.r.console.Cutoff() // updated per tick in missing
 	f, err := predictor.NewFiller(predictor.FillerConfig{Camera: p.cfg.Camera, Policy: pol, Motion: p.flt})
 	if err != nil {
 		return fmt.Errorf("relay: gap filler: %w", err)
@@ -239,7 +242,40 @@ func (p *pipeline) deadlineUs(k int) int64 {
 }
 
 // onTelemetry feeds one sample to the filter (and the recording).
+//
+// Samples wait in pendTel until the tick whose deadline they arrived by is
+// handled (feedTelemetry), exactly as the offline replay feeds them, so the
+// filter sees the same samples at every tick in both and a recorded session
+// replays to the same PREDICTED/STALE decisions.
 func (p *pipeline) onTelemetry(te telEvent) {
+	if !p.haveC0 || len(p.pendTel) >= maxPendingTelemetry {
+		p.feed(te)
+		return
+	}
+	p.pendTel = append(p.pendTel, te)
+}
+
+// maxPendingTelemetry bounds the samples waiting for their tick (40 s of
+// 100 Hz telemetry); beyond it samples go to the filter at once.
+const maxPendingTelemetry = 4096
+
+// feedTelemetry gives the filter every waiting sample that arrived by
+// untilUs (receiver clock), in arrival order.
+func (p *pipeline) feedTelemetry(untilUs int64) {
+	n := 0
+	for _, te := range p.pendTel {
+		if te.arrivalUs <= untilUs {
+			p.feed(te)
+		} else {
+			p.pendTel[n] = te
+			n++
+		}
+	}
+	p.pendTel = p.pendTel[:n]
+}
+
+// feed adds one sample to the filter (and the recording).
+func (p *pipeline) feed(te telEvent) {
 	if err := p.flt.Add(te.sample); err != nil {
 		var re *filter.RejectError
 		reason := "other"
@@ -327,26 +363,21 @@ func (p *pipeline) onFrame(ev frameEvent) {
 		return
 	}
 	p.next = k + 1
+	p.feedTelemetry(p.deadlineUs(k))
 	p.emit(k, ev.captureUs, tick, &ev)
 	p.record(func(rc *recorder) { rc.frame(p.recIndex(k), ev.captureUs, ev.readyUs, *ev.mat) })
 }
 
 // missing fills tick k at its deadline.
 func (p *pipeline) missing(k int) {
-	cutoff := p.r.console.Cutoff()
+	p.feedTelemetry(p.deadlineUs(k))
 	c := p.nominalCaptureUs(k)
-	// The filler's policy has cutoff 0 and enforces only the age cap; the
-	// operator's cutoff, which may change at any tick, is applied here by
-	// choosing the method: below it the held frame is shown STALE.
-	method := predictor.MethodHold
-	if last, ok := p.filler.LastCaptureUs(); ok && c >= last {
-		if m, err := p.flt.Relative(last, c); err == nil {
-			if conf, _, err := (predictor.ConfidenceModel{}).Confidence(p.cfg.Camera, m); err == nil && conf >= cutoff {
-				method = predictor.MethodGround
-			}
-		}
+	// The operator's cutoff may change at any tick.
+	pol := predictor.Policy{CutoffConfidence: p.r.console.Cutoff(), MaxAgeMs: p.cfg.Policy.MaxAgeMs}
+	if err := p.filler.SetPolicy(pol); err != nil {
+		p.log.Warn("operator cutoff rejected; keeping the previous one", "cutoff", pol.CutoffConfidence, "err", err)
 	}
-	tick, err := p.filler.MissingWith(method, c, &p.out)
+	tick, err := p.filler.MissingWith(predictor.MethodGround, c, &p.out)
 	switch {
 	case errors.Is(err, predictor.ErrNoFrame):
 		tick.State = predictor.StateStale // labelled "no picture" frame
