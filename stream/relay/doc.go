@@ -58,9 +58,9 @@
 // tick whose capture time is on the vehicle clock (after the first sender
 // report); ticks before it are shown but not recorded. Replaying the directory
 // with its arrivals (stopgap replay --arrivals DIR/arrivals.csv) makes the
-// same LIVE/PREDICTED/STALE decisions when the latency is constant; the replay
-// takes the median latency over the whole drive, the relay over the first
-// LatencyFrames frames.
+// same LIVE/PREDICTED/STALE decisions: the replay uses each tick's recorded
+// deadline (t_deadline_us) rather than estimating the latency, and both give
+// the filter the telemetry that arrived by each tick's deadline.
 //
 // # Safety
 //
