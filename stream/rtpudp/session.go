@@ -23,12 +23,12 @@ type EndReason int
 
 // End reasons. The zero value is invalid (the session is still running).
 const (
-	EndInvalid   EndReason = iota
-	EndClosed              // Close was called
-	EndContext             // the context given to Listen ended
-	EndIdle                // nothing accepted for Config.IdleTimeout
-	EndBye                 // the source sent an RTCP BYE for its SSRC
-	EndReadError           // a socket read failed
+	EndInvalid   EndReason = iota // still running
+	EndClosed                     // Close was called
+	EndContext                    // the context given to Listen ended
+	EndIdle                       // nothing accepted for Config.IdleTimeout
+	EndBye                        // the source sent an RTCP BYE for its SSRC
+	EndReadError                  // a socket read failed
 )
 
 // String returns the reason in lower case words.
