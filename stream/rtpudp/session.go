@@ -16,6 +16,8 @@ import (
 	"github.com/pion/rtp"
 
 	"stopgap/stream/whip"
+
+	"stopgap/stream/rtpstats"
 )
 
 // EndReason tells why a session ended.
@@ -107,7 +109,7 @@ type Session struct {
 	ssrc         uint32
 	peer         netip.AddrPort
 	havePeer     bool
-	rx           rxStats
+	rx           rtpstats.Receiver
 	sr           whip.SenderReport
 	hasSR        bool
 	pendingSR    whip.SenderReport // latest SR seen before the SSRC was locked
@@ -362,13 +364,13 @@ func (s *Session) Stats() whip.SessionStats {
 	s.mu.Lock()
 	defer s.mu.Unlock()
 	return whip.SessionStats{
-		PacketsReceived:   s.rx.received,
-		BytesReceived:     s.rx.bytes,
-		PaddingPackets:    s.rx.padding,
-		PacketsLost:       s.rx.lost(),
-		HighestSeq:        s.rx.extendedMax(),
-		JitterRTP:         s.rx.jitter,
-		Jitter:            time.Duration(s.rx.jitter / clockRateHz * float64(time.Second)),
+		PacketsReceived:   s.rx.Received(),
+		BytesReceived:     s.rx.Bytes(),
+		PaddingPackets:    s.rx.Padding(),
+		PacketsLost:       s.rx.Lost(),
+		HighestSeq:        s.rx.ExtendedMax(),
+		JitterRTP:         s.rx.JitterRTP(),
+		Jitter:            time.Duration(s.rx.JitterRTP() / whip.VideoClockRateHz * float64(time.Second)),
 		PacketsDropped:    s.cnt.RTPQueueFull,
 		ReadErrors:        s.cnt.Malformed + s.cnt.Oversize,
 		PLIsSent:          s.cnt.PLIsSent,
@@ -459,8 +461,8 @@ func (s *Session) handleRTP(b []byte, from netip.AddrPort, now time.Time) {
 		s.mu.Unlock()
 		return
 	}
-	first := s.rx.received == 0
-	s.rx.add(pkt.SequenceNumber, pkt.Timestamp, len(pkt.Payload), now)
+	first := s.rx.Received() == 0
+	s.rx.Add(pkt.SequenceNumber, pkt.Timestamp, len(pkt.Payload), now)
 	s.peer, s.havePeer = from, true
 	s.lastActivity = now
 	select {
@@ -618,10 +620,10 @@ func (s *Session) housekeeping(ctx context.Context) {
 func (s *Session) receiverReportLocked(now time.Time) []byte {
 	rep := rtcp.ReceptionReport{
 		SSRC:               s.ssrc,
-		FractionLost:       s.rx.fractionLost(),
-		TotalLost:          s.rx.cumulativeLost24(),
-		LastSequenceNumber: s.rx.extendedMax(),
-		Jitter:             uint32(s.rx.jitter),
+		FractionLost:       s.rx.FractionLost(),
+		TotalLost:          s.rx.CumulativeLost24(),
+		LastSequenceNumber: s.rx.ExtendedMax(),
+		Jitter:             uint32(s.rx.JitterRTP()),
 	}
 	if s.hasSR {
 		// LSR: middle 32 bits of the SR's NTP timestamp; DLSR: delay since

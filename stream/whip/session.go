@@ -13,6 +13,8 @@ import (
 	"github.com/pion/rtcp"
 	"github.com/pion/rtp"
 	"github.com/pion/webrtc/v4"
+
+	"stopgap/stream/rtpstats"
 )
 
 // TelemetryBytes is one telemetry message as it arrived on the data channel: raw bytes (the relay decodes
@@ -98,7 +100,7 @@ type Session struct {
 	sr           SenderReport
 	srCount      uint64
 	hasSR        bool
-	rx           rxStats
+	rx           rtpstats.Receiver
 	readErrors   uint64
 	telMessages  uint64
 	telDropped   uint64
@@ -200,13 +202,13 @@ func (s *Session) SenderReport() (sr SenderReport, ok bool) {
 func (s *Session) Stats() SessionStats {
 	s.mu.Lock()
 	st := SessionStats{
-		PacketsReceived:   s.rx.received,
-		BytesReceived:     s.rx.bytes,
-		PaddingPackets:    s.rx.padding,
-		PacketsLost:       s.rx.lost(),
-		HighestSeq:        s.rx.extendedMax(),
-		JitterRTP:         s.rx.jitter,
-		Jitter:            time.Duration(s.rx.jitter / VideoClockRateHz * float64(time.Second)),
+		PacketsReceived:   s.rx.Received(),
+		BytesReceived:     s.rx.Bytes(),
+		PaddingPackets:    s.rx.Padding(),
+		PacketsLost:       s.rx.Lost(),
+		HighestSeq:        s.rx.ExtendedMax(),
+		JitterRTP:         s.rx.JitterRTP(),
+		Jitter:            time.Duration(s.rx.JitterRTP() / VideoClockRateHz * float64(time.Second)),
 		ReadErrors:        s.readErrors,
 		PLIsSuppressed:    s.plisRefused,
 		SenderReports:     s.srCount,
@@ -309,7 +311,7 @@ func (s *Session) onTrack(track *webrtc.TrackRemote, recv *webrtc.RTPReceiver) {
 	}
 	s.hasTrack = true
 	s.ssrc = uint32(track.SSRC())
-	s.rx.clockRateHz = float64(track.Codec().ClockRate)
+	s.rx.ClockRateHz = float64(track.Codec().ClockRate)
 	s.mu.Unlock()
 	go s.readRTCP(recv)
 	s.readRTP(track)
@@ -338,7 +340,7 @@ func (s *Session) readRTP(track *webrtc.TrackRemote) {
 		fails = 0
 		now := s.clock.Now()
 		s.mu.Lock()
-		s.rx.add(pkt.SequenceNumber, pkt.Timestamp, len(pkt.Payload), now)
+		s.rx.Add(pkt.SequenceNumber, pkt.Timestamp, len(pkt.Payload), now)
 		s.mu.Unlock()
 		select {
 		case s.rtpq <- rtpArrival{pkt: pkt, arrival: now}:

@@ -1,4 +1,4 @@
-package whip
+package rtpstats
 
 import (
 	"math"
@@ -28,14 +28,14 @@ func TestRxStatsLoss(t *testing.T) {
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
-			var s rxStats
+			var s Receiver
 			for _, q := range tc.seqs {
-				s.add(q, 0, 100, time.Unix(0, 0))
+				s.Add(q, 0, 100, time.Unix(0, 0))
 			}
-			if got := s.lost(); got != tc.wantLost {
+			if got := s.Lost(); got != tc.wantLost {
 				t.Errorf("lost = %d, want %d", got, tc.wantLost)
 			}
-			if got := s.extendedMax(); got != tc.wantMax {
+			if got := s.ExtendedMax(); got != tc.wantMax {
 				t.Errorf("extendedMax = %d, want %d", got, tc.wantMax)
 			}
 		})
@@ -47,22 +47,22 @@ func TestRxStatsLoss(t *testing.T) {
 // |D| per step = 90, 90, 90 ticks (1 ms = 90 ticks). J1 = 90/16 = 5.625; J2 = 5.625 + (90-5.625)/16 = 10.8984375;
 // J3 = 10.8984375 + (90-10.8984375)/16 = 15.842285...
 func TestRxStatsJitter(t *testing.T) {
-	s := rxStats{clockRateHz: 90000}
+	s := Receiver{ClockRateHz: 90000}
 	t0 := time.Unix(1000, 0)
 	dev := []time.Duration{0, time.Millisecond, 0, -time.Millisecond}
 	for i, d := range dev {
 		ts := uint32(0xFFFFF000) + uint32(i*3000) // crosses the 32-bit wrap on the second packet
 		// Nominal arrival follows the tick schedule exactly (3000 ticks = 33 333 333.3 ns, truncated to ns).
 		arr := t0.Add(time.Duration(float64(i)*3000/90000*1e9) + d)
-		s.add(uint16(i), ts, 1000, arr)
+		s.Add(uint16(i), ts, 1000, arr)
 	}
 	want := 15.842285156
 	if math.Abs(s.jitter-want) > 1e-3 {
 		t.Fatalf("jitter = %.6f ticks, want %.6f", s.jitter, want)
 	}
-	s2 := rxStats{clockRateHz: 90000}
+	s2 := Receiver{ClockRateHz: 90000}
 	for i := 0; i < 10; i++ {
-		s2.add(uint16(i), uint32(i*3000), 1000, t0.Add(time.Duration(float64(i)*3000/90000*1e9)))
+		s2.Add(uint16(i), uint32(i*3000), 1000, t0.Add(time.Duration(float64(i)*3000/90000*1e9)))
 	}
 	if s2.jitter > 0.01 {
 		t.Errorf("perfectly paced stream: jitter = %.4f ticks, want about 0", s2.jitter)
@@ -70,9 +70,9 @@ func TestRxStatsJitter(t *testing.T) {
 }
 
 func TestRxStatsPaddingAndBytes(t *testing.T) {
-	var s rxStats
-	s.add(1, 0, 1200, time.Time{})
-	s.add(2, 0, 0, time.Time{})
+	var s Receiver
+	s.Add(1, 0, 1200, time.Time{})
+	s.Add(2, 0, 0, time.Time{})
 	if s.bytes != 1200 || s.padding != 1 || s.received != 2 {
 		t.Fatalf("bytes=%d padding=%d received=%d", s.bytes, s.padding, s.received)
 	}

@@ -1,4 +1,4 @@
-package rtpudp
+package rtpstats
 
 import (
 	"math"
@@ -15,16 +15,16 @@ import (
 //	packet 3: S=6000, R=66.667 ms=6000 -> D = -600, J = 37.5 + (600-37.5)/16 = 72.65625
 func TestJitterWorkedValues(t *testing.T) {
 	t0 := time.Unix(1000, 0)
-	var s rxStats
-	s.add(1, 0, 10, t0)
+	var s Receiver
+	s.Add(1, 0, 10, t0)
 	if s.jitter != 0 {
 		t.Fatalf("jitter after one packet %v, want 0", s.jitter)
 	}
-	s.add(2, 3000, 10, t0.Add(40*time.Millisecond))
+	s.Add(2, 3000, 10, t0.Add(40*time.Millisecond))
 	if math.Abs(s.jitter-37.5) > 1e-9 {
 		t.Fatalf("jitter %v, want 37.5", s.jitter)
 	}
-	s.add(3, 6000, 10, t0.Add(time.Second/15)) // 66.666667 ms = 6000 ticks
+	s.Add(3, 6000, 10, t0.Add(time.Second/15)) // 66.666667 ms = 6000 ticks
 	if math.Abs(s.jitter-72.65625) > 1e-3 {
 		t.Fatalf("jitter %v, want 72.65625", s.jitter)
 	}
@@ -47,18 +47,18 @@ func TestLossAndWrap(t *testing.T) {
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
-			var s rxStats
+			var s Receiver
 			at := time.Unix(0, 0)
 			for i, q := range tc.seqs {
-				s.add(q, uint32(i*3000), 100, at.Add(time.Duration(i)*33*time.Millisecond))
+				s.Add(q, uint32(i*3000), 100, at.Add(time.Duration(i)*33*time.Millisecond))
 			}
-			if s.lost() != tc.lost || s.extendedMax() != tc.extMax {
-				t.Fatalf("lost %d extMax %d, want %d and %d", s.lost(), s.extendedMax(), tc.lost, tc.extMax)
+			if s.Lost() != tc.lost || s.ExtendedMax() != tc.extMax {
+				t.Fatalf("lost %d extMax %d, want %d and %d", s.Lost(), s.ExtendedMax(), tc.lost, tc.extMax)
 			}
-			if f := s.fractionLost(); f != tc.fractionLost {
+			if f := s.FractionLost(); f != tc.fractionLost {
 				t.Fatalf("fraction lost %d, want %d", f, tc.fractionLost)
 			}
-			if f := s.fractionLost(); f != 0 {
+			if f := s.FractionLost(); f != 0 {
 				t.Fatalf("fraction lost of an empty interval %d, want 0", f)
 			}
 		})
@@ -73,7 +73,7 @@ func TestCumulativeLost24(t *testing.T) {
 		{0, 0}, {5, 5}, {-1, 0xffffff}, {1 << 30, 0x7fffff}, {-(1 << 30), 0x800000},
 	}
 	for _, tc := range tests {
-		var s rxStats
+		var s Receiver
 		s.started = true
 		s.baseSeq = 0
 		s.maxSeq = 0
@@ -82,8 +82,8 @@ func TestCumulativeLost24(t *testing.T) {
 			s.received = 0
 			s.cycles = uint32(tc.lost - 1)
 		}
-		if got := s.cumulativeLost24(); got != tc.want {
-			t.Errorf("lost %d -> %#x, want %#x", s.lost(), got, tc.want)
+		if got := s.CumulativeLost24(); got != tc.want {
+			t.Errorf("lost %d -> %#x, want %#x", s.Lost(), got, tc.want)
 		}
 	}
 }
