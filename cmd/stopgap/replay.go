@@ -54,6 +54,12 @@ func (f *replayFlags) config(drive, out string, stderr io.Writer) (bench.ReplayC
 	if err != nil {
 		return bench.ReplayConfig{}, fmt.Errorf("--model: %w", err)
 	}
+	if f.cutoff < 0 || f.cutoff > 1 || f.cutoff != f.cutoff {
+		return bench.ReplayConfig{}, fmt.Errorf("--cutoff %v: want a confidence in [0, 1]", f.cutoff)
+	}
+	if f.maxAgeMs < 0 || f.maxAgeMs != f.maxAgeMs {
+		return bench.ReplayConfig{}, fmt.Errorf("--max-age-ms %v: want a duration >= 0", f.maxAgeMs)
+	}
 	level := slog.LevelInfo
 	if f.verboseLogs {
 		level = slog.LevelDebug

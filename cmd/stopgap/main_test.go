@@ -1,0 +1,57 @@
+package main
+
+import (
+	"bytes"
+	"context"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+)
+
+// TestRunExitCodes: usage mistakes exit 2, failures 1 with a message that
+// names the problem, success 0.
+func TestRunExitCodes(t *testing.T) {
+	dir := t.TempDir()
+	drive := filepath.Join(dir, "drive")
+	tests := []struct {
+		name     string
+		args     []string
+		wantCode int
+		wantErr  string // substring of stderr
+		wantOut  string // substring of stdout
+	}{
+		{"no command", nil, 2, "usage: stopgap COMMAND", ""},
+		{"unknown command", []string{"fly"}, 2, `unknown command "fly"`, ""},
+		{"help lists the caution", []string{"help"}, 0, "CAUTION", ""},
+		{"replay without flags", []string{"replay"}, 2, "--drive and --out are required", ""},
+		{"replay bad flag", []string{"replay", "--nope"}, 2, "flag provided but not defined", ""},
+		{"replay missing drive", []string{"replay", "--quiet", "--drive", filepath.Join(dir, "none"), "--out", filepath.Join(dir, "r0")}, 1, "camera.json", ""},
+		{"simdrive", []string{"simdrive", "--quiet", "--out", drive, "--width", "160", "--height", "90", "--duration-s", "2"}, 0, "", "recording written"},
+		{"simdrive refuses an existing directory", []string{"simdrive", "--quiet", "--out", drive, "--width", "160", "--height", "90", "--duration-s", "1"}, 1, drive, ""},
+		{"replay", []string{"replay", "--quiet", "--drive", drive, "--out", filepath.Join(dir, "r1"), "--loss-rate", "0.3", "--burst-ms", "100"}, 0, "CAUTION", "report: "},
+		{"replay bad cutoff", []string{"replay", "--quiet", "--drive", drive, "--out", filepath.Join(dir, "r2"), "--cutoff", "1.5"}, 1, "cutoff", ""},
+		{"demo --offline elsewhere", []string{"demo", "--dir", dir, "--offline"}, 2, "--offline must be the first flag", ""},
+	}
+	for _, tc := range tests {
+		t.Run(tc.name, func(t *testing.T) {
+			var out, errb bytes.Buffer
+			code := run(context.Background(), tc.args, &out, &errb)
+			if code != tc.wantCode {
+				t.Fatalf("exit %d, want %d\nstdout: %s\nstderr: %s", code, tc.wantCode, out.String(), errb.String())
+			}
+			if !strings.Contains(errb.String(), tc.wantErr) {
+				t.Errorf("stderr %q does not contain %q", errb.String(), tc.wantErr)
+			}
+			if !strings.Contains(out.String(), tc.wantOut) {
+				t.Errorf("stdout %q does not contain %q", out.String(), tc.wantOut)
+			}
+		})
+	}
+	if _, err := os.Stat(filepath.Join(dir, "r1", "report.html")); err != nil {
+		t.Errorf("replay wrote no report: %v", err)
+	}
+	if _, err := os.Stat(filepath.Join(dir, "r0")); !os.IsNotExist(err) {
+		t.Errorf("a failed replay left its output directory (stat: %v)", err)
+	}
+}
