@@ -137,8 +137,8 @@ func (e *FarDepthEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.M
 		w = cam.Width
 	}
 	s := float64(w) / float64(cam.Width)
-	h := int(math.Round(float64(cam.Height) * s))
-	// Rows above the horizon band of the newer frame, at the small scale.
+	// Only the rows above the horizon band of the newer frame are compared,
+	// so only they are scaled down: the frame's top part, rowsFull rows.
 	hz := cam.Horizon()
 	top := math.Inf(1)
 	for _, u := range []float64{0, float64(cam.Width - 1)} {
@@ -146,13 +146,12 @@ func (e *FarDepthEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.M
 			top = math.Min(top, v)
 		}
 	}
-	rows := int(math.Floor((top - float64(DefaultBandPx)) * s))
-	if rows > h {
-		rows = h
-	}
-	if rows < 8 {
+	rowsFull := int(math.Min(math.Floor(top-float64(DefaultBandPx)), float64(cam.Height)))
+	h := int(math.Round(float64(rowsFull) * s))
+	if h < 8 {
 		return math.Inf(1), nil
 	}
+	sy := float64(h) / float64(rowsFull)
 	if !e.allocated {
 		for _, p := range []*gocv.Mat{&e.a, &e.b, &e.warped, &e.mask, &e.validMask, &e.ones, &e.diff, &e.diffMasked, &e.tmpA, &e.tmpB} {
 			*p = gocv.NewMat()
@@ -160,29 +159,30 @@ func (e *FarDepthEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.M
 		e.allocated = true
 	}
 	size := image.Pt(w, h)
-	gocv.Resize(prev, &e.tmpA, size, 0, 0, gocv.InterpolationArea)
-	gocv.Resize(last, &e.tmpB, size, 0, 0, gocv.InterpolationArea)
+	crop := image.Rect(0, 0, cam.Width, rowsFull)
+	prevTop, lastTop := prev.Region(crop), last.Region(crop)
+	gocv.Resize(prevTop, &e.tmpA, size, 0, 0, gocv.InterpolationArea)
+	gocv.Resize(lastTop, &e.tmpB, size, 0, 0, gocv.InterpolationArea)
+	prevTop.Close()
+	lastTop.Close()
 	gocv.CvtColor(e.tmpA, &e.a, gocv.ColorBGRToGray)
 	gocv.CvtColor(e.tmpB, &e.b, gocv.ColorBGRToGray)
 	if e.ones.Rows() != h || e.ones.Cols() != w {
 		e.ones.Close()
 		e.ones = gocv.NewMatWithSizeFromScalar(gocv.NewScalar(255, 0, 0, 0), h, w, gocv.MatTypeCV8U)
 	}
-	region := image.Rect(0, 0, w, rows)
-	bRegion := e.b.Region(region)
-	defer bRegion.Close()
 	candidates := e.opts.CandidatesM
 	if candidates == nil {
 		candidates = DefaultFarDepthCandidatesM()
 	}
 	best, bestCost := math.Inf(1), math.Inf(1)
-	minValid := float64(w*rows) / 4
+	minValid := float64(w*h) / 4
 	for i := -1; i < len(candidates); i++ {
 		d := math.Inf(1)
 		if i >= 0 {
 			d = candidates[i]
 		}
-		hs := scaleHomography(cam.FarHomographyPlanar(m.DxM, m.DyM, m.DyawRad, d), s)
+		hs := scaleHomography(cam.FarHomographyPlanar(m.DxM, m.DyM, m.DyawRad, d), s, sy)
 		if !hs.IsFinite() {
 			continue
 		}
@@ -195,13 +195,11 @@ func (e *FarDepthEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.M
 		gocv.WarpPerspectiveWithParams(e.a, &e.warped, hm, size, gocv.InterpolationLinear, gocv.BorderConstant, color.RGBA{})
 		gocv.WarpPerspectiveWithParams(e.ones, &e.mask, hm, size, gocv.InterpolationNearestNeighbor, gocv.BorderConstant, color.RGBA{})
 		hm.Close()
-		wRegion := e.warped.Region(region)
-		mRegion := e.mask.Region(region)
-		valid := float64(gocv.CountNonZero(mRegion))
+		valid := float64(gocv.CountNonZero(e.mask))
 		if valid >= minValid {
-			gocv.AbsDiff(wRegion, bRegion, &e.diff)
+			gocv.AbsDiff(e.warped, e.b, &e.diff)
 			e.diffMasked.SetTo(gocv.NewScalar(0, 0, 0, 0))
-			e.diff.CopyToWithMask(&e.diffMasked, mRegion)
+			e.diff.CopyToWithMask(&e.diffMasked, e.mask)
 			cost := e.diffMasked.Sum().Val1 / valid
 			// Prefer the farther candidate on (near) ties: it is the
 			// model with less motion.
@@ -209,18 +207,18 @@ func (e *FarDepthEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.M
 				best, bestCost = d, cost
 			}
 		}
-		wRegion.Close()
-		mRegion.Close()
 	}
 	return best, nil
 }
 
-// scaleHomography returns S H S^-1 with S = diag(s, s, 1): the same map on
-// images scaled by s.
-func scaleHomography(h Homography, s float64) Homography {
-	h[0][2] *= s
-	h[1][2] *= s
-	h[2][0] /= s
-	h[2][1] /= s
+// scaleHomography returns S H S^-1 with S = diag(sx, sy, 1): the same map on
+// images scaled by sx across and sy down.
+func scaleHomography(h Homography, sx, sy float64) Homography {
+	h[0][1] *= sx / sy
+	h[1][0] *= sy / sx
+	h[0][2] *= sx
+	h[1][2] *= sy
+	h[2][0] /= sx
+	h[2][1] /= sy
 	return h
 }

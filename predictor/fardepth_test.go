@@ -63,7 +63,7 @@ func TestFarHomographyMatchesOpenCV(t *testing.T) {
 
 // texturedFrame returns a random blocky texture (seeded), blurred a little,
 // so that a warp of a few pixels changes it measurably.
-func texturedFrame(t *testing.T, w, h int, seed uint64) gocv.Mat {
+func texturedFrame(t testing.TB, w, h int, seed uint64) gocv.Mat {
 	t.Helper()
 	rng := rand.New(rand.NewPCG(seed, 1))
 	m := gocv.NewMatWithSize(h, w, gocv.MatTypeCV8UC3)
@@ -119,5 +119,31 @@ func TestFarDepthEstimateRecoversPlane(t *testing.T) {
 				t.Errorf("depth %v, want %v", got, tc.want)
 			}
 		})
+	}
+}
+
+// BenchmarkFarDepthEstimate1280x720 is the once-per-gap cost of the far-scene
+// depth sweep (downscale both frames, 14 small warps), to compare with one
+// synthesis (BenchmarkSynthVsBare1280x720).
+func BenchmarkFarDepthEstimate1280x720(b *testing.B) {
+	prevThreads := SetOpenCVThreads(1)
+	defer SetOpenCVThreads(prevThreads)
+	cam := Camera{Width: 1280, Height: 720, Fx: 640, Fy: 640, Cx: 640, Cy: 360, HeightM: 1.4, PitchDeg: 5, XOffsetM: 1.5}
+	prev := texturedFrame(b, cam.Width, cam.Height, 3)
+	defer prev.Close()
+	last := texturedFrame(b, cam.Width, cam.Height, 4)
+	defer last.Close()
+	est, err := NewFarDepthEstimator(FarDepthOptions{})
+	if err != nil {
+		b.Fatal(err)
+	}
+	defer est.Close()
+	m := filter.Motion{T1Us: 33333, DxM: 0.4, DyawRad: 0.005}
+	b.ReportAllocs()
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		if _, err := est.Estimate(prev, last, cam, m); err != nil {
+			b.Fatal(err)
+		}
 	}
 }
