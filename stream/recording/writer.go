@@ -107,15 +107,8 @@ func (w *Writer) Dir() string { return w.dir }
 func (w *Writer) WriteFrame(index int, captureUs int64, encodedImage []byte, ext string) error {
 	w.mu.Lock()
 	defer w.mu.Unlock()
-	if w.closed {
-		return ErrClosed
-	}
-	n := len(w.captureUs)
-	if index != n {
-		return fmt.Errorf("recording: frame %d: %w: the next frame index is %d", index, ErrOrder, n)
-	}
-	if n > 0 && captureUs <= w.captureUs[n-1] {
-		return fmt.Errorf("recording: frame %d: %w: capture time %d us is not after the previous %d us", index, ErrOrder, captureUs, w.captureUs[n-1])
+	if err := w.checkNextFrame(index, captureUs); err != nil {
+		return err
 	}
 	if len(encodedImage) == 0 {
 		return fmt.Errorf("recording: frame %d: %w: empty image", index, ErrValue)
@@ -130,22 +123,7 @@ func (w *Writer) WriteFrame(index int, captureUs int64, encodedImage []byte, ext
 	if err := writeFileAtomic(w.framesDir, name, encodedImage); err != nil {
 		return fmt.Errorf("recording: frame %d: %w", index, err)
 	}
-	b := w.line[:0]
-	b = strconv.AppendInt(b, int64(index), 10)
-	b = append(b, ',')
-	b = strconv.AppendInt(b, captureUs, 10)
-	b = append(b, ',')
-	b = append(b, FramesDir...)
-	b = append(b, '/')
-	b = append(b, name...)
-	b = append(b, '\n')
-	w.line = b
-	if err := appendLine(w.frames, b); err != nil {
-		return fmt.Errorf("recording: frame %d: %w", index, err)
-	}
-	w.captureUs = append(w.captureUs, captureUs)
-	w.arrived = append(w.arrived, false)
-	return nil
+	return w.appendFrameRow(index, captureUs, FramesDir+"/"+name)
 }
 
 // WriteMissingFrame records frame index, expected at captureUs, as one that
@@ -154,6 +132,15 @@ func (w *Writer) WriteFrame(index int, captureUs int64, encodedImage []byte, ext
 func (w *Writer) WriteMissingFrame(index int, captureUs int64) error {
 	w.mu.Lock()
 	defer w.mu.Unlock()
+	if err := w.checkNextFrame(index, captureUs); err != nil {
+		return err
+	}
+	return w.appendFrameRow(index, captureUs, "")
+}
+
+// checkNextFrame reports whether frame index at captureUs may come next.
+// The caller holds w.mu.
+func (w *Writer) checkNextFrame(index int, captureUs int64) error {
 	if w.closed {
 		return ErrClosed
 	}
@@ -164,11 +151,19 @@ func (w *Writer) WriteMissingFrame(index int, captureUs int64) error {
 	if n > 0 && captureUs <= w.captureUs[n-1] {
 		return fmt.Errorf("recording: frame %d: %w: capture time %d us is not after the previous %d us", index, ErrOrder, captureUs, w.captureUs[n-1])
 	}
+	return nil
+}
+
+// appendFrameRow appends one complete frames.csv line with a single write
+// (file may be blank) and notes the frame. The caller holds w.mu.
+func (w *Writer) appendFrameRow(index int, captureUs int64, file string) error {
 	b := w.line[:0]
 	b = strconv.AppendInt(b, int64(index), 10)
 	b = append(b, ',')
 	b = strconv.AppendInt(b, captureUs, 10)
-	b = append(b, ',', '\n')
+	b = append(b, ',')
+	b = append(b, file...)
+	b = append(b, '\n')
 	w.line = b
 	if err := appendLine(w.frames, b); err != nil {
 		return fmt.Errorf("recording: frame %d: %w", index, err)
