@@ -82,11 +82,15 @@ func (o FarDepthOptions) Validate() error {
 // An estimator owns scratch images (Close frees them) and is not safe for
 // concurrent use.
 type FarDepthEstimator struct {
-	opts                          FarDepthOptions
-	a, b, warped, mask, validMask gocv.Mat
-	ones                          gocv.Mat
-	diff, diffMasked, tmpA, tmpB  gocv.Mat
-	allocated                     bool
+	opts                         FarDepthOptions
+	a, b, warped, mask, ones, hm gocv.Mat
+	diff, diffMasked, tmpA, tmpB gocv.Mat
+	allocated                    bool
+}
+
+// scratch lists the estimator's scratch images.
+func (e *FarDepthEstimator) scratch() []*gocv.Mat {
+	return []*gocv.Mat{&e.a, &e.b, &e.warped, &e.mask, &e.ones, &e.hm, &e.diff, &e.diffMasked, &e.tmpA, &e.tmpB}
 }
 
 // NewFarDepthEstimator validates opts and returns an estimator.
@@ -100,7 +104,7 @@ func NewFarDepthEstimator(opts FarDepthOptions) (*FarDepthEstimator, error) {
 // Close frees the scratch images. Safe to call more than once.
 func (e *FarDepthEstimator) Close() error {
 	if e.allocated {
-		for _, m := range []*gocv.Mat{&e.a, &e.b, &e.warped, &e.mask, &e.validMask, &e.ones, &e.diff, &e.diffMasked, &e.tmpA, &e.tmpB} {
+		for _, m := range e.scratch() {
 			m.Close()
 		}
 		e.allocated = false
@@ -153,9 +157,11 @@ func (e *FarDepthEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.M
 	}
 	sy := float64(h) / float64(rowsFull)
 	if !e.allocated {
-		for _, p := range []*gocv.Mat{&e.a, &e.b, &e.warped, &e.mask, &e.validMask, &e.ones, &e.diff, &e.diffMasked, &e.tmpA, &e.tmpB} {
+		for _, p := range e.scratch() {
 			*p = gocv.NewMat()
 		}
+		e.hm.Close()
+		e.hm = gocv.NewMatWithSize(3, 3, gocv.MatTypeCV64F)
 		e.allocated = true
 	}
 	size := image.Pt(w, h)
@@ -186,15 +192,11 @@ func (e *FarDepthEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.M
 		if !hs.IsFinite() {
 			continue
 		}
-		hm := gocv.NewMatWithSize(3, 3, gocv.MatTypeCV64F)
-		for r := 0; r < 3; r++ {
-			for c := 0; c < 3; c++ {
-				hm.SetDoubleAt(r, c, hs[r][c])
-			}
+		if err := setMat3(&e.hm, hs); err != nil {
+			return math.Inf(1), err
 		}
-		gocv.WarpPerspectiveWithParams(e.a, &e.warped, hm, size, gocv.InterpolationLinear, gocv.BorderConstant, color.RGBA{})
-		gocv.WarpPerspectiveWithParams(e.ones, &e.mask, hm, size, gocv.InterpolationNearestNeighbor, gocv.BorderConstant, color.RGBA{})
-		hm.Close()
+		gocv.WarpPerspectiveWithParams(e.a, &e.warped, e.hm, size, gocv.InterpolationLinear, gocv.BorderConstant, color.RGBA{})
+		gocv.WarpPerspectiveWithParams(e.ones, &e.mask, e.hm, size, gocv.InterpolationNearestNeighbor, gocv.BorderConstant, color.RGBA{})
 		valid := float64(gocv.CountNonZero(e.mask))
 		if valid >= minValid {
 			gocv.AbsDiff(e.warped, e.b, &e.diff)

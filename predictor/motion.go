@@ -79,11 +79,8 @@ func (s *Synthesizer) Synthesize(src gocv.Mat, m filter.Motion, dst *gocv.Mat) (
 // infinity; +Inf gives Synthesize. See FarDepthEstimator for where a depth
 // comes from.
 func (s *Synthesizer) SynthesizeFar(src gocv.Mat, m filter.Motion, farDepthM float64, dst *gocv.Mat) (Synthesis, error) {
-	g, err := GroundHomography(s.cam, m)
+	g, err := GroundHomography(s.cam, m) // also validates m
 	if err != nil {
-		return Synthesis{}, err
-	}
-	if _, err := RotationHomography(s.cam, m); err != nil { // validates m
 		return Synthesis{}, err
 	}
 	f := s.cam.FarHomographyPlanar(m.DxM, m.DyM, m.DyawRad, farDepthM)

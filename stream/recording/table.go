@@ -160,6 +160,23 @@ func (rr *rowReader) field(name string) (string, int, bool) {
 	return rr.r.fields[i], i + 1, true
 }
 
+// value returns the text of a column and its 1-based position; ok is false
+// after an earlier error or when the field is blank or absent, which is an
+// ErrBlank failure if required.
+func (rr *rowReader) value(name string, required bool) (s string, col int, ok bool) {
+	if rr.err != nil {
+		return "", 0, false
+	}
+	s, col, present := rr.field(name)
+	if !present || s == "" {
+		if required {
+			rr.fail(col, fmt.Errorf("%w: %s", ErrBlank, name))
+		}
+		return "", col, false
+	}
+	return s, col, true
+}
+
 // int64 parses a required integer column.
 func (rr *rowReader) int64(name string) int64 {
 	v, _ := rr.optInt64(name, true)
@@ -169,14 +186,8 @@ func (rr *rowReader) int64(name string) int64 {
 // optInt64 parses an integer column; blank or absent gives ok=false unless
 // required.
 func (rr *rowReader) optInt64(name string, required bool) (int64, bool) {
-	if rr.err != nil {
-		return 0, false
-	}
-	s, col, present := rr.field(name)
-	if !present || s == "" {
-		if required {
-			rr.fail(col, fmt.Errorf("%w: %s", ErrBlank, name))
-		}
+	s, col, ok := rr.value(name, required)
+	if !ok {
 		return 0, false
 	}
 	v, err := strconv.ParseInt(s, 10, 64)
@@ -196,14 +207,8 @@ func (rr *rowReader) float(name string) float64 {
 // optFloat parses a float column; blank or absent gives ok=false unless
 // required. NaN and infinities are errors.
 func (rr *rowReader) optFloat(name string, required bool) (float64, bool) {
-	if rr.err != nil {
-		return 0, false
-	}
-	s, col, present := rr.field(name)
-	if !present || s == "" {
-		if required {
-			rr.fail(col, fmt.Errorf("%w: %s", ErrBlank, name))
-		}
+	s, col, ok := rr.value(name, required)
+	if !ok {
 		return 0, false
 	}
 	v, err := strconv.ParseFloat(s, 64)
