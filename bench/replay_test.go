@@ -172,9 +172,14 @@ func TestReplayCutoffOneIsAllStale(t *testing.T) {
 	if sum.TicksMissing == 0 {
 		t.Fatal("no missing ticks")
 	}
-	// The first tick of a gap may still be at zero age (confidence 1).
-	if sum.StaleTicks < sum.TicksMissing-sum.PredictedTicks || sum.PredictedTicks > sum.TicksMissing/2 {
-		t.Errorf("cutoff 1: %d predicted, %d stale of %d missing", sum.PredictedTicks, sum.StaleTicks, sum.TicksMissing)
+	// Every gap tick is at least one frame old, so its motion is uncertain
+	// and its confidence below 1.
+	if sum.PredictedTicks != 0 || sum.StaleTicks != sum.TicksMissing {
+		t.Errorf("cutoff 1: %d predicted, %d stale of %d missing; want all stale", sum.PredictedTicks, sum.StaleTicks, sum.TicksMissing)
+	}
+	// A STALE tick shows the held frame, so stopgap scores exactly as hold.
+	if h, p := sum.Methods.Hold, sum.Methods.Predicted; h.PSNRdBMean != p.PSNRdBMean || h.SSIMMean != p.SSIMMean {
+		t.Errorf("all stale but predicted (%v dB, %v) differs from hold (%v dB, %v)", p.PSNRdBMean, p.SSIMMean, h.PSNRdBMean, h.SSIMMean)
 	}
 }
 
@@ -231,7 +236,7 @@ func TestReplayBadInput(t *testing.T) {
 		break_ func(t *testing.T, dir string)
 		want   []string
 	}{
-		{"missing drive", func(t *testing.T, dir string) { os.RemoveAll(dir) }, []string{"drive"}},
+		{"missing drive", func(t *testing.T, dir string) { os.RemoveAll(dir) }, []string{"camera.json", "recording directory"}},
 		{"camera size disagrees with frames", func(t *testing.T, dir string) {
 			editFile(t, filepath.Join(dir, "camera.json"), `"width": 160`, `"width": 170`)
 		}, []string{"frame 0", "camera.json", "170x90"}},
