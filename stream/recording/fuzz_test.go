@@ -47,7 +47,7 @@ func FuzzOpenFrames(f *testing.F) {
 			if i > 0 && fr.CaptureUs <= res.frames[i-1].CaptureUs {
 				t.Fatalf("capture times not increasing at %d", i)
 			}
-			if res.hasFiles != (fr.File != "") {
+			if res.hasFiles != (fr.File != "" || fr.NoImage) || fr.NoImage && fr.File != "" {
 				t.Fatalf("file %q with hasFiles %v", fr.File, res.hasFiles)
 			}
 		}
