@@ -349,7 +349,7 @@ func (p *pipeline) onFrame(ev frameEvent) {
 			p.log.Debug("frame decoded in time reached the display after its tick was filled", "tick", k, "ready_before_deadline_us", d-arrivalUs)
 			arrivalUs = d + 1
 		}
-		p.record(func(rc *recorder) { rc.frame(p.recIndex(k), ev.captureUs, arrivalUs, *ev.mat) })
+		p.record(func(rc *recorder) { rc.frame(p.recIndex(k), ev.captureUs, arrivalUs, ev.rtpTS, *ev.mat) })
 		return
 	}
 	// Earlier ticks whose frames can no longer come (frames arrive in order).
@@ -365,7 +365,7 @@ func (p *pipeline) onFrame(ev frameEvent) {
 	p.next = k + 1
 	p.feedTelemetry(p.deadlineUs(k))
 	p.emit(k, ev.captureUs, tick, &ev)
-	p.record(func(rc *recorder) { rc.frame(p.recIndex(k), ev.captureUs, ev.readyUs, *ev.mat) })
+	p.record(func(rc *recorder) { rc.frame(p.recIndex(k), ev.captureUs, ev.readyUs, ev.rtpTS, *ev.mat) })
 }
 
 // missing fills tick k at its deadline.
