@@ -339,14 +339,16 @@ func (p *pipeline) onFrame(ev frameEvent) {
 		if _, err := p.filler.Live(*ev.mat, ev.captureUs, &p.held); err != nil {
 			p.log.Warn("holding a late frame failed", "err", err)
 		}
-		// A frame decoded by its deadline can still reach the display
-		// loop after the tick was filled (the ingest goroutine was not
-		// scheduled in between). The display had no frame until now, so
-		// the recording says it arrived after the deadline: the replay
-		// must decide as the display did.
+		// A frame decoded by a deadline can still reach the display loop
+		// after that tick was filled (the display loop or the ingest
+		// goroutine was not scheduled in between), and on a starved CPU
+		// several later ticks may have been filled without it too. The
+		// display had no frame until now, so the recording says it
+		// arrived after the deadline of the last tick filled: the replay
+		// must decide as the display did, on this tick and the later ones.
 		arrivalUs := ev.readyUs
-		if d := p.deadlineUs(k); arrivalUs <= d {
-			p.log.Debug("frame decoded in time reached the display after its tick was filled", "tick", k, "ready_before_deadline_us", d-arrivalUs)
+		if d := p.deadlineUs(p.next - 1); arrivalUs <= d {
+			p.log.Debug("frame decoded in time reached the display after its tick was filled", "tick", k, "last_filled_tick", p.next-1, "ready_before_deadline_us", d-arrivalUs)
 			arrivalUs = d + 1
 		}
 		p.record(func(rc *recorder) { rc.frame(p.recIndex(k), ev.captureUs, arrivalUs, ev.rtpTS, *ev.mat) })
