@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"io"
 	"log/slog"
+	"math"
 	"path/filepath"
 
 	"stopgap/bench"
@@ -131,7 +132,11 @@ func runReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 func printSummary(w io.Writer, s bench.Summary, out string) {
 	fmt.Fprintf(w, "ticks %d: live %d, missing %d (predicted %d, stale %d)\n",
 		s.TicksTotal, s.LiveTicks, s.TicksMissing, s.PredictedTicks, s.StaleTicks)
-	fmt.Fprintf(w, "synthesis per predicted frame: p50 %.2f ms, p99 %.2f ms\n", float64(s.SynthMsP50), float64(s.SynthMsP99))
+	if p50, p99 := float64(s.SynthMsP50), float64(s.SynthMsP99); math.IsNaN(p50) || math.IsNaN(p99) {
+		fmt.Fprintln(w, "synthesis per predicted frame: none synthesised")
+	} else {
+		fmt.Fprintf(w, "synthesis per predicted frame: p50 %.2f ms, p99 %.2f ms\n", p50, p99)
+	}
 	if p := s.Pairing; p != nil {
 		for _, l := range []string{p.Line, p.Decisions} {
 			if l != "" {
