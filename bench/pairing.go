@@ -8,6 +8,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"strings"
 
 	"gocv.io/x/gocv"
 
@@ -94,9 +95,10 @@ type replayInput struct {
 	pairing *PairingReport
 	// reference are the relay's recorded ticks by replay tick (nil: none).
 	reference map[int]recording.SessionTick
-	// unscoredWhy explains a tick without a true frame; howToScore says
-	// how to get such ticks scored.
-	unscoredWhy, howToScore string
+	// whyNoTruth explains why tick k has no true frame and says how to
+	// get such ticks scored ("" if nothing would help); ticks with the
+	// same explanation are counted together.
+	whyNoTruth func(k int) (why, how string)
 }
 
 // indexInput is the replay of one recording by itself: frame i is tick i.
@@ -115,12 +117,14 @@ func indexInput(cfg ReplayConfig, rec *recording.Recording, width, height int) (
 		return replayInput{}, fmt.Errorf("replay: %w", err)
 	}
 	in.frames = fs
-	in.unscoredWhy = "frames lost on the live link are missing from its recording too"
 	arr := cfg.ArrivalsFile
 	if arr == "" {
 		arr = "SESSION/" + recording.ArrivalsFile
 	}
-	in.howToScore = fmt.Sprintf("replay the vehicle's onboard recording of the drive against this session: stopgap replay --drive ONBOARD --arrivals %s --out REPORT", arr)
+	how := fmt.Sprintf("replay the vehicle's onboard recording of the drive against this session: stopgap replay --drive ONBOARD --arrivals %s --out REPORT", arr)
+	in.whyNoTruth = func(int) (string, string) {
+		return "lost on the live link, so missing from its recording too", how
+	}
 	if ticks := filepath.Join(rec.Dir, recording.TicksFile); cfg.ArrivalsFile != "" && fileExists(ticks) {
 		in.reference, err = readReference(ticks, nil, cfg.Logger)
 		if err != nil {
@@ -302,8 +306,18 @@ func pairedInput(cfg ReplayConfig, onboard, sess *recording.Recording, arrivals 
 		in.telLost = nil
 	}
 	rep.Line = "pairing: " + p.Summary()
-	in.unscoredWhy = "no onboard frame paired with them"
-	in.howToScore = "see the pairing line: record every frame on board and rtp_timestamp on both sides, or widen --pair-tolerance-ms if the clocks are known to agree"
+	in.whyNoTruth = func(k int) (string, string) {
+		switch h := p.How[k]; h {
+		case recording.UnpairedBefore:
+			return "captured before the onboard recording starts", "start the onboard recording before the session"
+		case recording.UnpairedAfter:
+			return "captured after the onboard recording ends: the session outlived it", "keep the onboard recording running until the session ends"
+		case recording.UnpairedNoFrame, recording.UnpairedRTP:
+			return "not in the onboard recording (" + h.String() + ")",
+				"record every frame on board with rtp_timestamp on both sides, or widen --pair-tolerance-ms if the clocks are known to agree"
+		}
+		return "the paired onboard frame has no image", "record every frame's image on board"
+	}
 	return in, nil
 }
 
@@ -369,23 +383,44 @@ func compareReference(ref map[int]recording.SessionTick, rows []TickRow, rep *Pa
 }
 
 // unscoredNote returns the one line that says how many missing ticks could
-// not be scored and how to get them scored, or "" if every one was.
-func unscoredNote(in replayInput, missing, noTruth, noFrameYet int) string {
-	if noTruth+noFrameYet == 0 {
+// not be scored, why, and how to get them scored, or "" if every one was.
+// noTruth lists the missing ticks without a true frame; noFrameYet counts
+// those before the first real frame.
+func unscoredNote(in replayInput, missing int, noTruth []int, noFrameYet int) string {
+	if len(noTruth)+noFrameYet == 0 {
 		return ""
 	}
-	s := fmt.Sprintf("%d of %d missing ticks could not be scored:", noTruth+noFrameYet, missing)
-	if noTruth > 0 {
-		s += fmt.Sprintf(" %d have no true frame (%s)", noTruth, in.unscoredWhy)
+	type group struct {
+		why, how string
+		n        int
+	}
+	var groups []*group
+	byWhy := map[string]*group{}
+	for _, k := range noTruth {
+		why, how := in.whyNoTruth(k)
+		g := byWhy[why]
+		if g == nil {
+			g = &group{why: why, how: how}
+			byWhy[why] = g
+			groups = append(groups, g)
+		}
+		g.n++
+	}
+	var parts, hows []string
+	seenHow := map[string]bool{}
+	for _, g := range groups {
+		parts = append(parts, fmt.Sprintf("%d %s", g.n, g.why))
+		if g.how != "" && !seenHow[g.how] {
+			seenHow[g.how] = true
+			hows = append(hows, g.how)
+		}
 	}
 	if noFrameYet > 0 {
-		if noTruth > 0 {
-			s += ";"
-		}
-		s += fmt.Sprintf(" %d came before the first real frame, with nothing to show", noFrameYet)
+		parts = append(parts, fmt.Sprintf("%d before the first real frame, with nothing to show", noFrameYet))
 	}
-	if noTruth > 0 {
-		s += "; to score them, " + in.howToScore
+	s := fmt.Sprintf("%d of %d missing ticks could not be scored: %s", len(noTruth)+noFrameYet, missing, strings.Join(parts, "; "))
+	if len(hows) > 0 {
+		s += ". To score them: " + strings.Join(hows, "; ")
 	}
 	return s
 }

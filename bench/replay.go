@@ -343,7 +343,7 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 	}
 
 	sum := acc.Summary()
-	sum.TicksUnscored = r.noTruth + r.noFrameYet
+	sum.TicksUnscored = len(r.noTruth) + r.noFrameYet
 	sum.UnscoredNote = unscoredNote(in, sum.TicksMissing, r.noTruth, r.noFrameYet)
 	if in.reference != nil {
 		if in.pairing == nil {
@@ -458,9 +458,10 @@ type replayer struct {
 	held    int // frame index the filler holds, -1 if none
 	pending int // newest LIVE frame not yet loaded into the filler, -1 if none
 
-	// noTruth counts missing ticks without a true frame to score against,
-	// noFrameYet those before any real frame.
-	noTruth, noFrameYet int
+	// noTruth lists the missing ticks without a true frame to score
+	// against; noFrameYet counts those before any real frame.
+	noTruth    []int
+	noFrameYet int
 
 	shown, unlabelled, rotation, scratch gocv.Mat
 
@@ -545,7 +546,7 @@ func (r *replayer) missing(k int, s Schedule, frames frameGetter, hasTruth []boo
 	if !hasTruth[k] {
 		// Lost on the live link (and not recorded on board): the state
 		// is replayed, but there is no true frame to score against.
-		r.noTruth++
+		r.noTruth = append(r.noTruth, k)
 		return row, nil
 	}
 	truth, err := frames.Get(k)

@@ -247,10 +247,20 @@ func (p *pipeline) deadlineUs(k int) int64 {
 // handled (feedTelemetry), exactly as the offline replay feeds them, so the
 // filter sees the same samples at every tick in both and a recorded session
 // replays to the same PREDICTED/STALE decisions.
+//
+// A sample that reaches the display loop after ticks it had arrived in time
+// for were filled without it (a starved CPU) is recorded as arriving just
+// after the last tick filled, as late frames are (onFrame): the replay must
+// give the filter the samples the display loop had.
 func (p *pipeline) onTelemetry(te telEvent) {
 	if !p.haveC0 || len(p.pendTel) >= maxPendingTelemetry {
 		p.feed(te)
 		return
+	}
+	if p.next > 0 {
+		if d := p.deadlineUs(p.next - 1); te.arrivalUs <= d {
+			te.arrivalUs = d + 1
+		}
 	}
 	p.pendTel = append(p.pendTel, te)
 }
