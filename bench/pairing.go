@@ -1,9 +1,7 @@
 package bench
 
 import (
-	"errors"
 	"fmt"
-	"io/fs"
 	"log/slog"
 	"math"
 	"os"
@@ -21,7 +19,8 @@ import (
 // the ones the relay recorded.
 type PairingReport struct {
 	// Session is the session's directory (or its arrivals file when it
-	// stands alone); Onboard the onboard recording.
+	// stands alone); Onboard the onboard recording ("" when the session
+	// was replayed by itself).
 	Session string `json:"session"`
 	Onboard string `json:"onboard"`
 	// ToleranceMs is the capture-time tolerance; OffsetMs the session's
@@ -473,7 +472,7 @@ func sameDir(a, b string) bool {
 		return filepath.Clean(a) == filepath.Clean(b)
 	}
 	sb, err := os.Stat(b)
-	if errors.Is(err, fs.ErrNotExist) || err != nil {
+	if err != nil {
 		return false
 	}
 	return os.SameFile(sa, sb)

@@ -347,7 +347,7 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 	sum.UnscoredNote = unscoredNote(in, sum.TicksMissing, r.noTruth, r.noFrameYet)
 	if in.reference != nil {
 		if in.pairing == nil {
-			in.pairing = &PairingReport{Session: filepath.Dir(cfg.ArrivalsFile), Onboard: cfg.Drive}
+			in.pairing = &PairingReport{Session: filepath.Dir(cfg.ArrivalsFile)}
 		}
 		compareReference(in.reference, rows, in.pairing)
 	}

@@ -963,7 +963,7 @@ figcaption { font-size: 0.9em; }
 {{end}}{{with .S.Pairing}}<h2>Session and onboard recording</h2>
 <table>
 <tr><th class="l">session</th><td class="l">{{.Session}}</td></tr>
-<tr><th class="l">onboard recording</th><td class="l">{{.Onboard}}</td></tr>
+{{if .Onboard}}<tr><th class="l">onboard recording</th><td class="l">{{.Onboard}}</td></tr>{{end}}
 {{if .Line}}<tr><th class="l">pairing</th><td class="l">{{.Line}}</td></tr>
 <tr><th class="l">telemetry rows on board / received by the session / only in the session / values differing</th><td>{{.TelemetryOnboard}} / {{.TelemetryPaired}} / {{.TelemetrySessionOnly}} / {{.TelemetryValueDiffs}}</td></tr>
 {{end}}{{if .Decisions}}<tr><th class="l">decisions</th><td class="l">{{.Decisions}}</td></tr>{{end}}
