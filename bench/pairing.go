@@ -264,6 +264,11 @@ func pairedInput(cfg ReplayConfig, onboard, sess *recording.Recording, arrivals 
 			pf.Close()
 		}
 	}()
+	if sess != nil && p.Count(recording.PairedTime) > 0 {
+		if err := checkPairingByImage(sess, onboard, rows, p, pf.onboard, width, height); err != nil {
+			return replayInput{}, err
+		}
+	}
 
 	// Telemetry: the vehicle's rows, each arriving when the session
 	// received it, lost if it never did.
@@ -318,6 +323,96 @@ func pairedInput(cfg ReplayConfig, onboard, sess *recording.Recording, arrivals 
 		return "the paired onboard frame has no image", "record every frame's image on board"
 	}
 	return in, nil
+}
+
+// Image check of a pairing made by capture time (see checkPairingByImage).
+const (
+	// pairCheckFrames is how many session frames are compared.
+	pairCheckFrames = 24
+	// pairCheckMinVotes is the fewest decisive comparisons needed to judge.
+	pairCheckMinVotes = 6
+	// pairCheckMarginGrey is how much closer (mean absolute difference,
+	// 8-bit grey levels) a neighbour must be to count against a pair: the
+	// session's copy went through the video codec and JPEG, the onboard one
+	// did not. A design choice, not a published figure.
+	pairCheckMarginGrey = 0.5
+)
+
+// checkPairingByImage guards against what capture times alone cannot see:
+// clocks that disagree by about a whole frame period pair every frame with a
+// neighbour. For up to pairCheckFrames session frames paired by capture time
+// that have an image in the session too, it compares the session's image
+// with the paired onboard frame and its two neighbours (mean absolute
+// difference over all channels). If, among the decisive comparisons, a
+// neighbour is closer more often than the paired frame, it fails naming the
+// first such frame.
+func checkPairingByImage(sess, onboard *recording.Recording, rows []recording.SessionFrame, p recording.FramePairing, on *frameSource, width, height int) error {
+	var cand []int
+	for k, h := range p.How {
+		if h == recording.PairedTime && rows[k].Index < len(sess.Frames) && !sess.Frames[rows[k].Index].NoImage {
+			cand = append(cand, k)
+		}
+	}
+	if len(cand) < pairCheckMinVotes {
+		return nil
+	}
+	src, err := newFrameSource(sess, width, height)
+	if err != nil {
+		return fmt.Errorf("replay: %w", err)
+	}
+	defer src.Close()
+	diff := gocv.NewMat()
+	defer diff.Close()
+	mad := func(a, b gocv.Mat) float64 {
+		gocv.AbsDiff(a, b, &diff)
+		m := diff.Mean()
+		return (m.Val1 + m.Val2 + m.Val3) / 3
+	}
+	step := max(1, len(cand)/pairCheckFrames)
+	votesFor, votesAgainst, firstBad, firstShift := 0, 0, -1, 0
+	for n := 0; n < len(cand); n += step {
+		k := cand[n]
+		j := p.Onboard[k]
+		simg, err := src.Get(rows[k].Index)
+		if err != nil {
+			return fmt.Errorf("replay: checking the pairing: %w", err)
+		}
+		img, err := on.Get(j)
+		if err != nil {
+			return fmt.Errorf("replay: checking the pairing: %w", err)
+		}
+		paired := mad(simg, img)
+		best, bestShift := paired, 0
+		for _, d := range []int{-1, 1} {
+			if j+d < 0 || j+d >= len(onboard.Frames) || onboard.Frames[j+d].NoImage {
+				continue
+			}
+			nb, err := on.Get(j + d)
+			if err != nil {
+				return fmt.Errorf("replay: checking the pairing: %w", err)
+			}
+			if v := mad(simg, nb); v < best {
+				best, bestShift = v, d
+			}
+		}
+		switch {
+		case bestShift == 0:
+			votesFor++
+		case paired-best > pairCheckMarginGrey:
+			votesAgainst++
+			if firstBad < 0 {
+				firstBad, firstShift = k, bestShift
+			}
+		}
+	}
+	if votesFor+votesAgainst < pairCheckMinVotes || votesAgainst <= votesFor {
+		return nil
+	}
+	s := rows[firstBad]
+	return fmt.Errorf("replay: pairing by capture time looks wrong: on %d of %d session frames checked, the session's own image matches an onboard frame next to the paired one better; "+
+		"the first, session frame %d (t_capture_us %d), matches onboard frame %d rather than %d. The two clocks disagree by about a frame period, "+
+		"which capture times cannot reveal: record rtp_timestamp on both sides or correct one clock: %w",
+		votesAgainst, votesFor+votesAgainst, s.Index, s.CaptureUs, p.Onboard[firstBad]+firstShift, p.Onboard[firstBad], recording.ErrPairing)
 }
 
 // readReference reads the relay's ticks.csv and keys it by replay tick

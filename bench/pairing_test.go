@@ -317,6 +317,15 @@ func TestReplayPairedClocksDisagree(t *testing.T) {
 	if _, err := os.Stat(out); !errors.Is(err, os.ErrNotExist) {
 		t.Errorf("a report appeared: %v", err)
 	}
+	// A whole frame period (plus 3 ms) apart: every frame finds a
+	// neighbour within the tolerance; the session's own images tell.
+	fx = newPairFixture(t, false, 33_333+3_000)
+	cfg = baseReplay(fx.onboard, filepath.Join(t.TempDir(), "one-off"))
+	cfg.ArrivalsFile = filepath.Join(fx.session, recording.ArrivalsFile)
+	_, err = Replay(context.Background(), cfg)
+	if !errors.Is(err, recording.ErrPairing) || !strings.Contains(err.Error(), "matches onboard frame") {
+		t.Errorf("one frame period apart: err %v, want the image check to reject the pairing", err)
+	}
 	// The same session with its clocks in agreement pairs by capture time.
 	fx = newPairFixture(t, false, 3_000)
 	cfg = baseReplay(fx.onboard, filepath.Join(t.TempDir(), "ok"))
