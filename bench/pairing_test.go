@@ -44,7 +44,19 @@ func (fx pairFixture) camFrame(row int) int { return sessionFirst + row }
 // offset from the onboard clock.
 func newPairFixture(t *testing.T, withRTP bool, offsetUs int64) pairFixture {
 	t.Helper()
-	drive := smallDrive(t, simdrive.Config{Width: 160, Height: 90, DurationS: 3.5, Seed: 3})
+	return newPairFixtureOn(t, pairDrive(t), withRTP, offsetUs)
+}
+
+// pairDrive renders the small drive the pairing fixtures record.
+func pairDrive(t *testing.T) string {
+	t.Helper()
+	return smallDrive(t, simdrive.Config{Width: 160, Height: 90, DurationS: 3.5, Seed: 3})
+}
+
+// newPairFixtureOn is newPairFixture on an already rendered drive (only
+// read, so several fixtures may share it).
+func newPairFixtureOn(t *testing.T, drive string, withRTP bool, offsetUs int64) pairFixture {
+	t.Helper()
 	rec, err := recording.Open(drive)
 	if err != nil {
 		t.Fatal(err)
@@ -300,7 +312,8 @@ func TestReplayPairedSessionKilled(t *testing.T) {
 // capture times are 15 ms off the onboard clock cannot be paired; the error
 // names the first unpaired frame and no report is written.
 func TestReplayPairedClocksDisagree(t *testing.T) {
-	fx := newPairFixture(t, false, 15_000)
+	drive := pairDrive(t)
+	fx := newPairFixtureOn(t, drive, false, 15_000)
 	out := filepath.Join(t.TempDir(), "off")
 	cfg := baseReplay(fx.onboard, out)
 	cfg.ArrivalsFile = filepath.Join(fx.session, recording.ArrivalsFile)
@@ -319,7 +332,7 @@ func TestReplayPairedClocksDisagree(t *testing.T) {
 	}
 	// A whole frame period (plus 3 ms) apart: every frame finds a
 	// neighbour within the tolerance; the session's own images tell.
-	fx = newPairFixture(t, false, 33_333+3_000)
+	fx = newPairFixtureOn(t, drive, false, 33_333+3_000)
 	cfg = baseReplay(fx.onboard, filepath.Join(t.TempDir(), "one-off"))
 	cfg.ArrivalsFile = filepath.Join(fx.session, recording.ArrivalsFile)
 	_, err = Replay(context.Background(), cfg)
@@ -327,7 +340,7 @@ func TestReplayPairedClocksDisagree(t *testing.T) {
 		t.Errorf("one frame period apart: err %v, want the image check to reject the pairing", err)
 	}
 	// The same session with its clocks in agreement pairs by capture time.
-	fx = newPairFixture(t, false, 3_000)
+	fx = newPairFixtureOn(t, drive, false, 3_000)
 	cfg = baseReplay(fx.onboard, filepath.Join(t.TempDir(), "ok"))
 	cfg.ArrivalsFile = filepath.Join(fx.session, recording.ArrivalsFile)
 	cfg.Examples = -1
