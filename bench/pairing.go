@@ -468,8 +468,12 @@ func compareReference(ref map[int]recording.SessionTick, rows []TickRow, rep *Pa
 	rep.Decisions = fmt.Sprintf("decisions: the replay agrees with the relay's recorded state on %d of %d ticks", rep.Agree, rep.ReferenceTicks)
 	if n := len(rep.Differences); n > 0 {
 		d := rep.Differences[0]
-		rep.Decisions += fmt.Sprintf("; %d differ (first: tick %d, relay %s at confidence %.4g with cutoff %.3g, replay %s; all listed in the report)",
-			n, d.Tick, d.Relay, d.RelayConfidence, d.RelayCutoff, d.Replay)
+		verb := "differ"
+		if n == 1 {
+			verb = "differs"
+		}
+		rep.Decisions += fmt.Sprintf("; %d %s (first: tick %d, relay %s at confidence %.4g with cutoff %.3g, replay %s; all listed in the report)",
+			n, verb, d.Tick, d.Relay, d.RelayConfidence, d.RelayCutoff, d.Replay)
 	}
 	if rep.ReferenceSkipped > 0 {
 		rep.Decisions += fmt.Sprintf("; %d ticks the relay skipped (never shown) not compared", rep.ReferenceSkipped)
