@@ -39,7 +39,14 @@ type ReplayConfig struct {
 
 	// ArrivalsFile, if set, gives the recorded arrival time of each frame
 	// (index,t_arrival_us; blank = never arrived) and Loss is ignored.
+	// When it belongs to another recording than Drive (a live session
+	// replayed on the vehicle's onboard recording), the session's frames
+	// are paired with Drive's by capture time or RTP timestamp
+	// (recording.PairFrames) and the replay runs on the session's ticks.
 	ArrivalsFile string
+	// PairToleranceMs is the capture-time tolerance of that pairing;
+	// 0 means recording.DefaultPairTolerance (a quarter frame period).
+	PairToleranceMs float64
 	// Loss is the simulated link used when ArrivalsFile is empty. Its zero
 	// value is invalid: set at least Model.
 	Loss LossConfig
@@ -236,19 +243,27 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 		return Summary{}, fmt.Errorf("replay: %s: %w", filepath.Join(cfg.Drive, "camera.json"), err)
 	}
 
-	captureUs := make([]int64, len(rec.Frames))
-	for i, f := range rec.Frames {
-		captureUs[i] = f.CaptureUs
+	if cfg.PairToleranceMs < 0 || math.IsNaN(cfg.PairToleranceMs) || math.IsInf(cfg.PairToleranceMs, 0) {
+		return Summary{}, fmt.Errorf("replay: pairing tolerance %v ms must be a finite number >= 0: %w", cfg.PairToleranceMs, ErrReplayInput)
 	}
-	arrivalUs, deadlineUs, err := replayArrivals(cfg, rec, captureUs)
-	if err != nil {
+	var in replayInput
+	if sess, arrivals, paired, err := pairedSession(cfg, log); err != nil {
+		return Summary{}, err
+	} else if paired {
+		if in, err = pairedInput(cfg, rec, sess, arrivals, cam.Width, cam.Height, log); err != nil {
+			return Summary{}, err
+		}
+	} else if in, err = indexInput(cfg, rec, cam.Width, cam.Height); err != nil {
 		return Summary{}, err
 	}
-	sched, err := NewSchedule(captureUs, arrivalUs, int64(math.Round(allowanceMs*1000)))
+	frames := in.frames
+	defer frames.Close()
+	captureUs := in.captureUs
+	sched, err := NewSchedule(captureUs, in.arrivalUs, int64(math.Round(allowanceMs*1000)))
 	if err != nil {
 		return Summary{}, fmt.Errorf("replay: %w", err)
 	}
-	sched.RecordedDeadlineUs = deadlineUs
+	sched.RecordedDeadlineUs = in.deadlineUs
 
 	fcfg := cfg.Filter
 	if fcfg.Model == filter.ModelInvalid {
@@ -258,7 +273,12 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 	if err != nil {
 		return Summary{}, fmt.Errorf("replay: filter: %w", err)
 	}
-	telArr := telemetryArrivals(rec.Telemetry, sched)
+	telArr := telemetryArrivals(in.telemetry, sched)
+	for i, lost := range in.telLost {
+		if lost {
+			telArr[i] = NeverArrivesUs
+		}
+	}
 	telOrder := make([]int, 0, len(telArr))
 	for i, a := range telArr {
 		if a != NeverArrivesUs {
@@ -266,12 +286,6 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 		}
 	}
 	sort.SliceStable(telOrder, func(a, b int) bool { return telArr[telOrder[a]] < telArr[telOrder[b]] })
-
-	frames, err := newFrameSource(rec, cam.Width, cam.Height)
-	if err != nil {
-		return Summary{}, fmt.Errorf("replay: %w", err)
-	}
-	defer frames.Close()
 
 	r, err := newReplayer(cam, cfg.Policy, flt, now)
 	if err != nil {
@@ -296,7 +310,7 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 		}
 		deadline := sched.DeadlineUs(k)
 		for ; nextTel < len(telOrder) && telArr[telOrder[nextTel]] <= deadline; nextTel++ {
-			row := rec.Telemetry[telOrder[nextTel]]
+			row := in.telemetry[telOrder[nextTel]]
 			if err := flt.Add(SampleFromRow(row)); err != nil {
 				log.Debug("telemetry sample rejected", "t_us", row.TimeUs, "err", err)
 			}
@@ -310,7 +324,7 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 			// needs it (see below); LIVE ticks cost nothing to replay.
 			r.pending = k
 		} else {
-			row, err = r.missing(k, sched, frames, rec)
+			row, err = r.missing(k, sched, frames, in.hasTruth)
 			if err != nil {
 				return Summary{}, fmt.Errorf("replay: tick %d (frame %d, t_capture_us %d): %w", k, k, captureUs[k], err)
 			}
@@ -329,6 +343,15 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 	}
 
 	sum := acc.Summary()
+	sum.TicksUnscored = len(r.noTruth) + r.noFrameYet
+	sum.UnscoredNote = unscoredNote(in, sum.TicksMissing, r.noTruth, r.noFrameYet)
+	if in.reference != nil {
+		if in.pairing == nil {
+			in.pairing = &PairingReport{Session: filepath.Dir(cfg.ArrivalsFile)}
+		}
+		compareReference(in.reference, rows, in.pairing)
+	}
+	sum.Pairing = in.pairing
 	sum.Drive = cfg.Drive
 	sum.Cutoff = cfg.Policy.CutoffConfidence
 	sum.MaxAgeMs = cfg.Policy.MaxAgeMs
@@ -435,6 +458,11 @@ type replayer struct {
 	held    int // frame index the filler holds, -1 if none
 	pending int // newest LIVE frame not yet loaded into the filler, -1 if none
 
+	// noTruth lists the missing ticks without a true frame to score
+	// against; noFrameYet counts those before any real frame.
+	noTruth    []int
+	noFrameYet int
+
 	shown, unlabelled, rotation, scratch gocv.Mat
 
 	// truthImg and heldImg are the images of the tick just scored, borrowed
@@ -480,7 +508,7 @@ func (r *replayer) Close() {
 }
 
 // missing fills and scores tick k, whose frame is not due-and-here.
-func (r *replayer) missing(k int, s Schedule, frames *frameSource, rec *recording.Recording) (TickRow, error) {
+func (r *replayer) missing(k int, s Schedule, frames frameGetter, hasTruth []bool) (TickRow, error) {
 	r.truthImg, r.heldImg = gocv.Mat{}, gocv.Mat{}
 	// The held frame: the newest one that has arrived by this tick, which
 	// may be a LIVE frame not yet loaded or a frame that came late.
@@ -502,6 +530,7 @@ func (r *replayer) missing(k int, s Schedule, frames *frameSource, rec *recordin
 		// nothing to score.
 		row := NewTickRow(k, s.CaptureUs[k], TickStale, 0)
 		row.Confidence = 0
+		r.noFrameYet++
 		return row, nil
 	}
 	if err != nil {
@@ -514,9 +543,10 @@ func (r *replayer) missing(k int, s Schedule, frames *frameSource, rec *recordin
 		row.SynthMs = float64(tick.SynthDuration) / float64(time.Millisecond)
 		row.UnfilledShare = tick.UnfilledFraction
 	}
-	if rec.Frames[k].NoImage {
-		// Lost on the live link: the state is replayed, but there is no
-		// true frame to score against.
+	if !hasTruth[k] {
+		// Lost on the live link (and not recorded on board): the state
+		// is replayed, but there is no true frame to score against.
+		r.noTruth = append(r.noTruth, k)
 		return row, nil
 	}
 	truth, err := frames.Get(k)
@@ -551,7 +581,7 @@ func (r *replayer) missing(k int, s Schedule, frames *frameSource, rec *recordin
 }
 
 // hold hands real frame j to the filler as the newest one it has.
-func (r *replayer) hold(frames *frameSource, j int, captureUs int64) error {
+func (r *replayer) hold(frames frameGetter, j int, captureUs int64) error {
 	img, err := frames.Get(j)
 	if err != nil {
 		return err

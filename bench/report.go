@@ -180,6 +180,16 @@ type Summary struct {
 
 	// Methods holds the per-method statistics.
 	Methods MethodSet `json:"methods"`
+
+	// TicksUnscored counts missing ticks that could not be scored (no
+	// true frame, or before the first real frame); UnscoredNote says so in
+	// one line with how to get them scored ("" when every one was).
+	TicksUnscored int    `json:"ticks_unscored"`
+	UnscoredNote  string `json:"unscored_note,omitempty"`
+	// Pairing describes the pairing of a live session with the onboard
+	// recording and the comparison with the relay's recorded decisions;
+	// nil when neither applies.
+	Pairing *PairingReport `json:"pairing,omitempty"`
 }
 
 // MethodSet holds one MethodStats per Method under fixed JSON keys.
@@ -949,6 +959,21 @@ figcaption { font-size: 0.9em; }
 <tr><th class="l">mean unfilled share</th><td>{{pct .S.UnfilledShareMean}}</td></tr>
 </table>
 
+{{if .S.UnscoredNote}}<p id="unscored"><b>{{.S.UnscoredNote}}</b></p>
+{{end}}{{with .S.Pairing}}<h2>Session and onboard recording</h2>
+<table>
+<tr><th class="l">session</th><td class="l">{{.Session}}</td></tr>
+{{if .Onboard}}<tr><th class="l">onboard recording</th><td class="l">{{.Onboard}}</td></tr>{{end}}
+{{if .Line}}<tr><th class="l">pairing</th><td class="l">{{.Line}}</td></tr>
+<tr><th class="l">telemetry rows on board / received by the session / only in the session / values differing</th><td>{{.TelemetryOnboard}} / {{.TelemetryPaired}} / {{.TelemetrySessionOnly}} / {{.TelemetryValueDiffs}}</td></tr>
+{{end}}{{if .Decisions}}<tr><th class="l">decisions</th><td class="l">{{.Decisions}}</td></tr>{{end}}
+</table>
+{{if .Differences}}<p>Ticks where the replay decided otherwise than the relay recorded (the relay's table is the reference):</p>
+<table id="differences">
+<tr><th>tick</th><th class="l">relay</th><th class="l">replay</th><th>relay confidence</th><th>replay confidence</th><th>relay cutoff</th><th>relay age ms</th><th>replay age ms</th></tr>
+{{range .Differences}}<tr><td>{{.Tick}}</td><td class="l">{{.Relay}}</td><td class="l">{{.Replay}}</td><td>{{printf "%.4f" .RelayConfidence}}</td><td>{{f .ReplayConfidence 4}}</td><td>{{printf "%.3f" .RelayCutoff}}</td><td>{{printf "%.1f" .RelayAgeMs}}</td><td>{{printf "%.1f" .ReplayAgeMs}}</td></tr>
+{{end}}</table>
+{{end}}{{end}}
 <h2>Scores against the true frames</h2>
 <p>Scores are computed on luma before any label is drawn, only on ticks where the real frame was missing
 and the recorded frame is available. PSNR is capped at {{printf "%g" .Cap}} dB per frame before averaging.

@@ -49,6 +49,10 @@ func (l *outageList) Set(v string) error {
 	return nil
 }
 
+// onboardDir is where, inside the demo's --record directory, the simulated
+// vehicle keeps its own recording.
+const onboardDir = "onboard"
+
 // runDemoLive is the live demo: relay + simulated vehicle over loopback
 // WebRTC through an emulated lossy link, with the operator console in a
 // browser.
@@ -66,7 +70,7 @@ func runDemoLive(ctx context.Context, args []string, stdout, stderr io.Writer) e
 	outages := outageList{}
 	fs.StringVar(&dir, "dir", "stopgap-demo", "working `directory`; the simulated drive is rendered into it once and reused")
 	fs.StringVar(&listen, "listen", "127.0.0.1:0", "HTTP `address` of the relay (ingest and console); port 0 picks a free one")
-	fs.StringVar(&record, "record", "", "if set, a new `directory` the relay records the session into (frames, telemetry, arrivals, ticks.csv)")
+	fs.StringVar(&record, "record", "", "if set, a new `directory` the relay records the session into (frames, telemetry, arrivals, ticks.csv),\nwith the simulated vehicle's own full-quality recording in DIR/onboard")
 	fs.Float64Var(&runS, "run-s", 0, "stop after this many seconds; 0 runs until Ctrl-C")
 	fs.Float64Var(&driveS, "drive-s", 20, "length of the simulated drive, s (it loops)")
 	fs.IntVar(&width, "width", 640, "camera width of the simulated drive, pixels")
@@ -182,7 +186,23 @@ func runDemoLive(ctx context.Context, args []string, stdout, stderr io.Writer) e
 	if err != nil {
 		return err
 	}
-	veh, err := simvehicle.New(simvehicle.Config{Recording: rec, Link: link, Loop: true,
+	var onboard *simvehicle.Onboard
+	if record != "" {
+		onboard, err = simvehicle.NewOnboard(filepath.Join(record, onboardDir), rec.Camera, 0, log.With("component", "onboard"))
+		if err != nil {
+			return err
+		}
+		defer func() {
+			if err := onboard.Close(); err != nil {
+				log.Warn("onboard recording", "err", err)
+			}
+			st := onboard.Stats()
+			fmt.Fprintf(stderr, "vehicle's onboard recording: %d frames, %d telemetry rows (%d dropped) in %s\n", st.Frames, st.Telemetry, st.Dropped, onboard.Dir())
+			fmt.Fprintf(stderr, "score the session's drops against it: stopgap replay --drive %s --arrivals %s --out REPORT\n",
+				onboard.Dir(), filepath.Join(record, recording.ArrivalsFile))
+		}()
+	}
+	veh, err := simvehicle.New(simvehicle.Config{Recording: rec, Link: link, Loop: true, Onboard: onboard,
 		BitrateBps: bitrateKbps * 1000, Logger: log.With("component", "vehicle")})
 	if err != nil {
 		return err

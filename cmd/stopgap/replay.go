@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"io"
 	"log/slog"
+	"math"
 	"path/filepath"
 
 	"stopgap/bench"
@@ -17,6 +18,7 @@ import (
 // replayFlags are the flags shared by "replay" and the offline demo.
 type replayFlags struct {
 	arrivals             string
+	pairToleranceMs      float64
 	lossRate, burstMs    float64
 	seed                 uint64
 	delayMs, jitterMs    float64
@@ -31,7 +33,8 @@ type replayFlags struct {
 
 func (f *replayFlags) register(fs *flag.FlagSet) {
 	pol := predictor.DefaultPolicy()
-	fs.StringVar(&f.arrivals, "arrivals", "", "recorded arrivals `file` (index,t_arrival_us; blank = never arrived); overrides the loss model")
+	fs.StringVar(&f.arrivals, "arrivals", "", "recorded arrivals `file` (index,t_arrival_us; blank = never arrived); overrides the loss model;\na live session's arrivals.csv with an onboard --drive replays the session on the vehicle's own frames")
+	fs.Float64Var(&f.pairToleranceMs, "pair-tolerance-ms", 0, "capture-time tolerance pairing a session with an onboard recording, ms (0 = a quarter frame period)")
 	fs.Float64Var(&f.lossRate, "loss-rate", 0.1, "long-run fraction of frames lost by the Gilbert-Elliott model, [0,1)")
 	fs.Float64Var(&f.burstMs, "burst-ms", 200, "mean duration of a loss burst, ms")
 	fs.Uint64Var(&f.seed, "seed", 1, "seed of the loss model")
@@ -66,7 +69,7 @@ func (f *replayFlags) config(drive, out string, stderr io.Writer) (bench.ReplayC
 	}
 	cfg := bench.ReplayConfig{
 		Drive: drive, Out: out, Overwrite: f.overwrite,
-		ArrivalsFile: f.arrivals,
+		ArrivalsFile: f.arrivals, PairToleranceMs: f.pairToleranceMs,
 		Loss: bench.LossConfig{
 			Model: bench.LossModelGilbertElliott, LossRate: f.lossRate, BurstMs: f.burstMs,
 			ExtraDelayMs: f.delayMs, JitterMs: f.jitterMs, Seed: f.seed,
@@ -129,11 +132,29 @@ func runReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 func printSummary(w io.Writer, s bench.Summary, out string) {
 	fmt.Fprintf(w, "ticks %d: live %d, missing %d (predicted %d, stale %d)\n",
 		s.TicksTotal, s.LiveTicks, s.TicksMissing, s.PredictedTicks, s.StaleTicks)
-	fmt.Fprintf(w, "synthesis per predicted frame: p50 %.2f ms, p99 %.2f ms\n", float64(s.SynthMsP50), float64(s.SynthMsP99))
+	if p50, p99 := float64(s.SynthMsP50), float64(s.SynthMsP99); math.IsNaN(p50) || math.IsNaN(p99) {
+		fmt.Fprintln(w, "synthesis per predicted frame: none synthesised")
+	} else {
+		fmt.Fprintf(w, "synthesis per predicted frame: p50 %.2f ms, p99 %.2f ms\n", p50, p99)
+	}
+	if p := s.Pairing; p != nil {
+		for _, l := range []string{p.Line, p.Decisions} {
+			if l != "" {
+				fmt.Fprintln(w, l)
+			}
+		}
+	}
 	fmt.Fprintf(w, "%-10s %7s %10s %9s %9s\n", "method", "frames", "PSNR dB", "SSIM", "MAE")
 	for _, m := range bench.Methods() {
 		st := s.Methods.Get(m)
+		if st.Frames == 0 {
+			fmt.Fprintf(w, "%-10s %7d %10s %9s %9s\n", m, 0, "-", "-", "-")
+			continue
+		}
 		fmt.Fprintf(w, "%-10s %7d %10.2f %9.4f %9.2f\n", m, st.Frames, float64(st.PSNRdBMean), float64(st.SSIMMean), float64(st.MAEMean))
+	}
+	if s.UnscoredNote != "" {
+		fmt.Fprintln(w, s.UnscoredNote)
 	}
 	fmt.Fprintf(w, "report: %s\n", filepath.Join(out, "report.html"))
 }

@@ -18,6 +18,7 @@ const (
 	colSteer      = "steer_rad"
 	colArrivalUs  = "t_arrival_us"
 	colDeadlineUs = "t_deadline_us"
+	colRTP        = "rtp_timestamp"
 	colX          = "x_m"
 	colY          = "y_m"
 	colYaw        = "yaw_rad"
@@ -57,7 +58,7 @@ type framesResult struct {
 // is called with each (slash-separated, local) file name and returns an
 // error if the file is unusable.
 func decodeFrames(file string, data []byte, checkFile func(rel string) error) (framesResult, error) {
-	t, err := splitTable(file, data, []string{colIndex, colCaptureUs}, []string{colFile})
+	t, err := splitTable(file, data, []string{colIndex, colCaptureUs}, []string{colFile, colRTP})
 	if err != nil {
 		return framesResult{}, err
 	}
@@ -66,6 +67,7 @@ func decodeFrames(file string, data []byte, checkFile func(rel string) error) (f
 	res.warns, res.dropped, err = eachRow(t, func(rr *rowReader) {
 		idx := rr.int64(colIndex)
 		us := rr.int64(colCaptureUs)
+		rtpTS, hasRTP := rr.optRTP(colRTP)
 		if rr.err != nil {
 			return
 		}
@@ -80,7 +82,7 @@ func decodeFrames(file string, data []byte, checkFile func(rel string) error) (f
 		case n > 0 && us <= prevUs:
 			rr.fail(rr.colOf(colCaptureUs), fmt.Errorf("%w: t_capture_us %d after %d on the previous line; sort rows by capture time, without repeats", ErrNotIncreasing, us, prevUs))
 		}
-		f := Frame{Index: int(idx), CaptureUs: us}
+		f := Frame{Index: int(idx), CaptureUs: us, RTPTimestamp: rtpTS, HasRTP: hasRTP}
 		if res.hasFiles && rr.err == nil {
 			name, col, _ := rr.field(colFile)
 			switch {
@@ -146,7 +148,7 @@ func decodeTelemetry(file string, data []byte) ([]TelemetryRow, []string, bool, 
 // leaves when frames.csv lost its last lines, and those rows are dropped
 // with a warning.
 func decodeArrivals(file string, data []byte, nFrames int, tolerateTail bool) ([]Arrival, []string, bool, error) {
-	t, err := splitTable(file, data, []string{colIndex, colArrivalUs}, []string{colDeadlineUs})
+	t, err := splitTable(file, data, []string{colIndex, colArrivalUs}, []string{colDeadlineUs, colCaptureUs, colRTP})
 	if err != nil {
 		return nil, nil, false, err
 	}
@@ -158,6 +160,8 @@ func decodeArrivals(file string, data []byte, nFrames int, tolerateTail bool) ([
 		idx := rr.int64(colIndex)
 		us, ok := rr.optInt64(colArrivalUs, false)
 		dl, hasDl := rr.optInt64(colDeadlineUs, false)
+		capUs, hasCap := rr.optInt64(colCaptureUs, false)
+		rtpTS, hasRTP := rr.optRTP(colRTP)
 		if rr.err != nil {
 			return
 		}
@@ -190,7 +194,12 @@ func decodeArrivals(file string, data []byte, nFrames int, tolerateTail bool) ([
 			beyond++
 			return
 		}
-		out = append(out, Arrival{Index: int(idx), ArrivalUs: us, Arrived: ok, DeadlineUs: dl, HasDeadline: hasDl})
+		if n := len(out); hasCap && n > 0 && out[n-1].HasCapture && capUs <= out[n-1].CaptureUs {
+			rr.fail(rr.colOf(colCaptureUs), fmt.Errorf("%w: t_capture_us %d after %d on the previous line; rows follow capture order", ErrNotIncreasing, capUs, out[n-1].CaptureUs))
+			return
+		}
+		out = append(out, Arrival{Index: int(idx), ArrivalUs: us, Arrived: ok, DeadlineUs: dl, HasDeadline: hasDl,
+			CaptureUs: capUs, HasCapture: hasCap, RTPTimestamp: rtpTS, HasRTP: hasRTP})
 	})
 	if err != nil {
 		return nil, nil, false, err

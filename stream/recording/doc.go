@@ -6,10 +6,12 @@
 // # Directory layout
 //
 //	camera.json     camera intrinsics and mounting (see [Camera])
-//	frames.csv      index,t_capture_us,file       one row per frame, file relative to the directory
+//	frames.csv      index,t_capture_us,file[,rtp_timestamp]   one row per frame, file relative to the directory
 //	                or index,t_capture_us          with a single video.<ext> file in the directory
 //	telemetry.csv   t_us,speed_mps,yaw_rate_rps[,accel_mps2][,steer_rad][,t_arrival_us]
-//	arrivals.csv    index,t_arrival_us            optional; blank t_arrival_us = never arrived
+//	arrivals.csv    index,t_arrival_us[,t_deadline_us][,t_capture_us][,rtp_timestamp]
+//	                optional; blank t_arrival_us = never arrived
+//	ticks.csv       tick,state,age_ms,confidence,cutoff   a live session's decisions (TicksFile)
 //	truth.csv       index,t_capture_us,x_m,y_m,yaw_rad,speed_mps,yaw_rate_rps   optional
 //
 // # Conventions
@@ -53,6 +55,13 @@
 // appended with a single write, so every complete frames.csv line refers to
 // a complete image. Image files without a CSV line (a kill between the two
 // steps) are simply not part of the recording.
+//
+// # Pairing a session with an onboard recording
+//
+// [PairFrames] pairs the rows of a live session (its arrivals) with the
+// frames of the vehicle's own recording of the same drive, by RTP timestamp
+// where both sides have one and otherwise by capture time on the vehicle
+// clock within a tolerance; [PairTelemetry] pairs telemetry rows by t_us.
 //
 // This package is pure Go (no cgo) and does not decode images or video.
 package recording

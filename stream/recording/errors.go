@@ -60,6 +60,9 @@ var (
 	ErrOrder = errors.New("out of order")
 	// ErrValue reports an invalid argument to a [Writer] method.
 	ErrValue = errors.New("invalid value")
+	// ErrPairing reports that a live session and an onboard recording
+	// cannot be paired frame by frame ([PairFrames], [*PairError]).
+	ErrPairing = errors.New("session and onboard recording cannot be paired")
 )
 
 // A ParseError is returned for a problem in a recording file. It is modelled

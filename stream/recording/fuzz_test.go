@@ -2,7 +2,9 @@ package recording
 
 import (
 	"errors"
+	"fmt"
 	"math"
+	"strconv"
 	"strings"
 	"testing"
 )
@@ -19,6 +21,9 @@ func FuzzOpenFrames(f *testing.F) {
 	f.Add([]byte("index,index\n"))
 	f.Add([]byte(""))
 	f.Add([]byte("index,t_capture_us,file\n\n"))
+	f.Add([]byte("index,t_capture_us,file,rtp_timestamp\n0,1,frames/a.jpg,4294967295\n1,2,frames/b.jpg,\n2,3,,0\n"))
+	f.Add([]byte("index,t_capture_us,file,rtp_timestamp\n0,1,frames/a.jpg,4294967296\n"))
+	f.Add([]byte("index,t_capture_us,file,rtp_timestamp\n0,1,frames/a.jpg,-1\n"))
 	f.Fuzz(func(t *testing.T, data []byte) {
 		// Pretend every local file under frames/ exists.
 		check := func(rel string) error {
@@ -42,7 +47,7 @@ func FuzzOpenFrames(f *testing.F) {
 			if i > 0 && fr.CaptureUs <= res.frames[i-1].CaptureUs {
 				t.Fatalf("capture times not increasing at %d", i)
 			}
-			if res.hasFiles != (fr.File != "") {
+			if res.hasFiles != (fr.File != "" || fr.NoImage) || fr.NoImage && fr.File != "" {
 				t.Fatalf("file %q with hasFiles %v", fr.File, res.hasFiles)
 			}
 		}
@@ -99,6 +104,46 @@ func FuzzCameraJSON(f *testing.F) {
 		}
 		if err := cam.Validate(); err != nil {
 			t.Fatalf("accepted camera does not validate: %v", err)
+		}
+	})
+}
+
+// FuzzArrivalsCSV feeds arbitrary bytes as an arrivals file: accepted rows,
+// written back with every column and read again, are the same.
+func FuzzArrivalsCSV(f *testing.F) {
+	f.Add([]byte("index,t_arrival_us,t_deadline_us,t_capture_us,rtp_timestamp\n0,5000,6000,1000,4294967295\n1,,39333,34333,\n"))
+	f.Add([]byte("index,t_arrival_us\n0,1\n2,\n1,7\n"))
+	f.Add([]byte("rtp_timestamp,index,t_arrival_us,t_capture_us\n12,0,1,5\n13,1,2,5\n"))
+	f.Add([]byte("index,t_arrival_us,rtp_timestamp\n0,1,4294967296\n"))
+	f.Fuzz(func(t *testing.T, data []byte) {
+		rows, _, _, err := decodeArrivals("arrivals.csv", data, -1, false)
+		if err != nil {
+			var pe *ParseError
+			if !errors.As(err, &pe) || pe.Line < 1 {
+				t.Fatalf("error %v is not a *ParseError with a line", err)
+			}
+			return
+		}
+		var b strings.Builder
+		b.WriteString(arrivalsHeader)
+		opt := func(v int64, ok bool) string {
+			if !ok {
+				return ""
+			}
+			return strconv.FormatInt(v, 10)
+		}
+		for _, a := range rows {
+			fmt.Fprintf(&b, "%d,%s,%s,%s,%s\n", a.Index, opt(a.ArrivalUs, a.Arrived), opt(a.DeadlineUs, a.HasDeadline),
+				opt(a.CaptureUs, a.HasCapture), opt(int64(a.RTPTimestamp), a.HasRTP))
+		}
+		again, _, _, err := decodeArrivals("arrivals.csv", []byte(b.String()), -1, false)
+		if err != nil || len(again) != len(rows) {
+			t.Fatalf("re-reading %q: %v", b.String(), err)
+		}
+		for i := range rows {
+			if again[i] != rows[i] {
+				t.Fatalf("row %d: %+v then %+v", i, rows[i], again[i])
+			}
 		}
 	})
 }

@@ -25,7 +25,7 @@ func TestMissingFramesAndDeadlinesRoundTrip(t *testing.T) {
 	must(w.WriteMissingFrame(1, 34333))
 	must(w.WriteArrivalDeadline(1, 0, false, 39333))
 	must(w.WriteFrame(2, 67667, []byte("img2"), "jpg"))
-	must(w.WriteArrival(2, 72000, true))
+	must(w.WriteArrivalRow(Arrival{Index: 2, ArrivalUs: 72000, Arrived: true, RTPTimestamp: 4294967295, HasRTP: true}))
 	must(w.WriteTelemetry(TelemetryRow{TimeUs: 5}))
 	must(w.Close())
 
@@ -40,9 +40,9 @@ func TestMissingFramesAndDeadlinesRoundTrip(t *testing.T) {
 		t.Errorf("FramePath(1) err %v, want ErrNoImage", err)
 	}
 	want := []Arrival{
-		{Index: 0, ArrivalUs: 5000, Arrived: true, DeadlineUs: 6000, HasDeadline: true},
-		{Index: 1, DeadlineUs: 39333, HasDeadline: true},
-		{Index: 2, ArrivalUs: 72000, Arrived: true},
+		{Index: 0, ArrivalUs: 5000, Arrived: true, DeadlineUs: 6000, HasDeadline: true, CaptureUs: 1000, HasCapture: true},
+		{Index: 1, DeadlineUs: 39333, HasDeadline: true, CaptureUs: 34333, HasCapture: true},
+		{Index: 2, ArrivalUs: 72000, Arrived: true, CaptureUs: 67667, HasCapture: true, RTPTimestamp: 4294967295, HasRTP: true},
 	}
 	for i, a := range r.Arrivals {
 		if a != want[i] {

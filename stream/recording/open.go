@@ -28,6 +28,12 @@ type Frame struct {
 	// recorder (blank file field, written by the live relay for lost
 	// frames): its tick can be replayed, but not scored.
 	NoImage bool
+	// RTPTimestamp is the RTP timestamp (RFC 3550, 90 kHz for video) the
+	// vehicle sent the frame with (optional column rtp_timestamp), valid if
+	// HasRTP. It pairs the frame exactly with a session's arrival row (see
+	// [PairFrames]).
+	RTPTimestamp uint32
+	HasRTP       bool
 }
 
 // TelemetryRow is one row of telemetry.csv. The Has* flags tell whether an
@@ -55,6 +61,18 @@ type Arrival struct {
 	// it reproduces the live LIVE/missing decisions exactly.
 	DeadlineUs  int64
 	HasDeadline bool
+	// CaptureUs is the capture time of the frame the row describes, on the
+	// vehicle clock (optional column t_capture_us, written by the live
+	// relay: for a frame that never arrived, the capture time its display
+	// tick expected), valid if HasCapture. It lets the arrivals be paired
+	// with another recording of the same drive ([PairFrames]).
+	CaptureUs  int64
+	HasCapture bool
+	// RTPTimestamp is the RTP timestamp the frame arrived with (optional
+	// column rtp_timestamp; blank for a frame that never arrived), valid if
+	// HasRTP.
+	RTPTimestamp uint32
+	HasRTP       bool
 }
 
 // Truth is one row of truth.csv: the exact vehicle state at a frame's

@@ -198,6 +198,21 @@ func (rr *rowReader) optInt64(name string, required bool) (int64, bool) {
 	return v, true
 }
 
+// optRTP parses an optional RTP timestamp column: a decimal integer in
+// [0, 2^32-1] (RFC 3550 section 5.1: 32 bits, 90 kHz for video).
+func (rr *rowReader) optRTP(name string) (uint32, bool) {
+	s, col, ok := rr.value(name, false)
+	if !ok {
+		return 0, false
+	}
+	v, err := strconv.ParseUint(s, 10, 32)
+	if err != nil {
+		rr.fail(col, fmt.Errorf("%w: %s %q is not an RTP timestamp (a whole number from 0 to 4294967295); leave it blank if unknown", ErrSyntax, name, s))
+		return 0, false
+	}
+	return uint32(v), true
+}
+
 // float parses a required float column.
 func (rr *rowReader) float(name string) float64 {
 	v, _ := rr.optFloat(name, true)

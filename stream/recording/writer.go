@@ -11,12 +11,12 @@ import (
 	"sync"
 )
 
-// Header lines written by the [Writer]. Telemetry always carries every
-// optional column; values not measured are left blank.
+// Header lines written by the [Writer]. Every file carries all its optional
+// columns; values not known are left blank.
 const (
-	framesHeader    = "index,t_capture_us,file\n"
+	framesHeader    = "index,t_capture_us,file,rtp_timestamp\n"
 	telemetryHeader = "t_us,speed_mps,yaw_rate_rps,accel_mps2,steer_rad,t_arrival_us\n"
-	arrivalsHeader  = "index,t_arrival_us,t_deadline_us\n"
+	arrivalsHeader  = "index,t_arrival_us,t_deadline_us,t_capture_us,rtp_timestamp\n"
 	truthHeader     = "index,t_capture_us,x_m,y_m,yaw_rad,speed_mps,yaw_rate_rps\n"
 )
 
@@ -105,6 +105,17 @@ func (w *Writer) Dir() string { return w.dir }
 // as "jpg" (a leading dot is ignored). The caller keeps ownership of
 // encodedImage.
 func (w *Writer) WriteFrame(index int, captureUs int64, encodedImage []byte, ext string) error {
+	return w.writeFrame(index, captureUs, 0, false, encodedImage, ext)
+}
+
+// WriteFrameRTP is WriteFrame plus the RTP timestamp (90 kHz) the frame
+// was sent with (column rtp_timestamp), as a vehicle's onboard recorder
+// knows it: it pairs the frame exactly with a session's arrival row.
+func (w *Writer) WriteFrameRTP(index int, captureUs int64, rtpTS uint32, encodedImage []byte, ext string) error {
+	return w.writeFrame(index, captureUs, rtpTS, true, encodedImage, ext)
+}
+
+func (w *Writer) writeFrame(index int, captureUs int64, rtpTS uint32, hasRTP bool, encodedImage []byte, ext string) error {
 	w.mu.Lock()
 	defer w.mu.Unlock()
 	if err := w.checkNextFrame(index, captureUs); err != nil {
@@ -123,7 +134,7 @@ func (w *Writer) WriteFrame(index int, captureUs int64, encodedImage []byte, ext
 	if err := writeFileAtomic(w.framesDir, name, encodedImage); err != nil {
 		return fmt.Errorf("recording: frame %d: %w", index, err)
 	}
-	return w.appendFrameRow(index, captureUs, FramesDir+"/"+name)
+	return w.appendFrameRow(index, captureUs, FramesDir+"/"+name, rtpTS, hasRTP)
 }
 
 // WriteMissingFrame records frame index, expected at captureUs, as one that
@@ -135,7 +146,7 @@ func (w *Writer) WriteMissingFrame(index int, captureUs int64) error {
 	if err := w.checkNextFrame(index, captureUs); err != nil {
 		return err
 	}
-	return w.appendFrameRow(index, captureUs, "")
+	return w.appendFrameRow(index, captureUs, "", 0, false)
 }
 
 // checkNextFrame reports whether frame index at captureUs may come next.
@@ -155,14 +166,19 @@ func (w *Writer) checkNextFrame(index int, captureUs int64) error {
 }
 
 // appendFrameRow appends one complete frames.csv line with a single write
-// (file may be blank) and notes the frame. The caller holds w.mu.
-func (w *Writer) appendFrameRow(index int, captureUs int64, file string) error {
+// (file and RTP timestamp may be blank) and notes the frame. The caller
+// holds w.mu.
+func (w *Writer) appendFrameRow(index int, captureUs int64, file string, rtpTS uint32, hasRTP bool) error {
 	b := w.line[:0]
 	b = strconv.AppendInt(b, int64(index), 10)
 	b = append(b, ',')
 	b = strconv.AppendInt(b, captureUs, 10)
 	b = append(b, ',')
 	b = append(b, file...)
+	b = append(b, ',')
+	if hasRTP {
+		b = strconv.AppendUint(b, uint64(rtpTS), 10)
+	}
 	b = append(b, '\n')
 	w.line = b
 	if err := appendLine(w.frames, b); err != nil {
@@ -222,17 +238,23 @@ func (w *Writer) WriteTelemetry(s TelemetryRow) error {
 // arrived=false records that the frame never reached the receiver and
 // leaves t_arrival_us blank.
 func (w *Writer) WriteArrival(index int, arrivalUs int64, arrived bool) error {
-	return w.writeArrival(index, arrivalUs, arrived, 0, false)
+	return w.WriteArrivalRow(Arrival{Index: index, ArrivalUs: arrivalUs, Arrived: arrived})
 }
 
 // WriteArrivalDeadline is WriteArrival plus the receiver-clock deadline of
 // the frame's display tick (column t_deadline_us), which lets a replay
 // reproduce the live schedule exactly.
 func (w *Writer) WriteArrivalDeadline(index int, arrivalUs int64, arrived bool, deadlineUs int64) error {
-	return w.writeArrival(index, arrivalUs, arrived, deadlineUs, true)
+	return w.WriteArrivalRow(Arrival{Index: index, ArrivalUs: arrivalUs, Arrived: arrived, DeadlineUs: deadlineUs, HasDeadline: true})
 }
 
-func (w *Writer) writeArrival(index int, arrivalUs int64, arrived bool, deadlineUs int64, hasDeadline bool) error {
+// WriteArrivalRow appends one arrivals.csv row with every column the
+// Arrival has: t_arrival_us (blank unless Arrived), t_deadline_us (if
+// HasDeadline), rtp_timestamp (if HasRTP) and t_capture_us, which is always
+// the written frame's capture time (a.CaptureUs is ignored). The same
+// order rules as WriteArrival apply.
+func (w *Writer) WriteArrivalRow(a Arrival) error {
+	index, arrivalUs, arrived := a.Index, a.ArrivalUs, a.Arrived
 	w.mu.Lock()
 	defer w.mu.Unlock()
 	if w.closed {
@@ -258,8 +280,14 @@ func (w *Writer) writeArrival(index int, arrivalUs int64, arrived bool, deadline
 		b = strconv.AppendInt(b, arrivalUs, 10)
 	}
 	b = append(b, ',')
-	if hasDeadline {
-		b = strconv.AppendInt(b, deadlineUs, 10)
+	if a.HasDeadline {
+		b = strconv.AppendInt(b, a.DeadlineUs, 10)
+	}
+	b = append(b, ',')
+	b = strconv.AppendInt(b, w.captureUs[index], 10)
+	b = append(b, ',')
+	if a.HasRTP {
+		b = strconv.AppendUint(b, uint64(a.RTPTimestamp), 10)
 	}
 	b = append(b, '\n')
 	w.line = b

@@ -77,7 +77,7 @@ func TestWriterRoundTrip(t *testing.T) {
 	if got := r.Telemetry[13]; got != wantRow {
 		t.Errorf("telemetry[13] = %+v, want %+v", got, wantRow)
 	}
-	if got := r.Arrivals[2]; got != (Arrival{Index: 2}) {
+	if got := r.Arrivals[2]; got != (Arrival{Index: 2, CaptureUs: 2 * 33333, HasCapture: true}) {
 		t.Errorf("arrival 2 = %+v, want never arrived", got)
 	}
 	if got := r.Truth[4]; got.YM != 1.0/3 || got.YawRateRps != math.Pi/100 {
@@ -231,7 +231,7 @@ func TestWriterErrors(t *testing.T) {
 		t.Fatal(err)
 	}
 	want := &Recording{Dir: dir, Camera: testCam, Frames: []Frame{{Index: 0, CaptureUs: 100, File: "frames/000000.png"}},
-		Telemetry: []TelemetryRow{{TimeUs: 5}}, Arrivals: []Arrival{{Index: 0, ArrivalUs: 7, Arrived: true}}}
+		Telemetry: []TelemetryRow{{TimeUs: 5}}, Arrivals: []Arrival{{Index: 0, ArrivalUs: 7, Arrived: true, CaptureUs: 100, HasCapture: true}}}
 	if !reflect.DeepEqual(r, want) {
 		t.Errorf("got %+v\nwant %+v", r, want)
 	}

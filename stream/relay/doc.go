@@ -52,7 +52,10 @@
 // it came late), a blank file field if it never did; arrivals.csv rows
 // index,t_arrival_us,t_deadline_us (arrival = decoded, receiver clock, or one
 // microsecond after the deadline for a frame decoded in time that reached the
-// display loop only after its tick was filled; blank = never arrived); telemetry.csv with t_arrival_us; and TicksFile (ticks.csv)
+// display loop only after its tick was filled; blank = never arrived), plus
+// t_capture_us (c_k again) and rtp_timestamp (the RTP timestamp the frame
+// arrived with, blank if it never did), which pair the session with the
+// vehicle's onboard recording; telemetry.csv with t_arrival_us; and TicksFile (ticks.csv)
 // with what the relay showed. Rows are written by a separate goroutine so JPEG
 // encoding and fsyncs never delay the display. Recording starts at the first
 // tick whose capture time is on the vehicle clock (after the first sender

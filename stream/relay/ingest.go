@@ -27,7 +27,8 @@ type frameEvent struct {
 	decodeDur  time.Duration
 	shiftUs    int64 // first frame on the vehicle clock: add to the session timeline
 	hasShift   bool
-	vehicleClk bool // captureUs is on the vehicle clock (a sender report was used)
+	vehicleClk bool   // captureUs is on the vehicle clock (a sender report was used)
+	rtpTS      uint32 // the frame's RTP timestamp (90 kHz), recorded for pairing
 }
 
 // telEvent is one decoded telemetry sample.
@@ -237,6 +238,7 @@ func (in *ingest) captureTime(f rtpvp8.Frame, ev *frameEvent) {
 	}
 	ev.captureUs = in.refUs + ticksToUs(ext)
 	ev.vehicleClk = in.onVehicle
+	ev.rtpTS = f.RTPTimestamp
 }
 
 // ticksToUs converts 90 kHz ticks to microseconds, rounding to nearest.

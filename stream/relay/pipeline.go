@@ -247,10 +247,20 @@ func (p *pipeline) deadlineUs(k int) int64 {
 // handled (feedTelemetry), exactly as the offline replay feeds them, so the
 // filter sees the same samples at every tick in both and a recorded session
 // replays to the same PREDICTED/STALE decisions.
+//
+// A sample that reaches the display loop after ticks it had arrived in time
+// for were filled without it (a starved CPU) is recorded as arriving just
+// after the last tick filled, as late frames are (onFrame): the replay must
+// give the filter the samples the display loop had.
 func (p *pipeline) onTelemetry(te telEvent) {
 	if !p.haveC0 || len(p.pendTel) >= maxPendingTelemetry {
 		p.feed(te)
 		return
+	}
+	if p.next > 0 {
+		if d := p.deadlineUs(p.next - 1); te.arrivalUs <= d {
+			te.arrivalUs = d + 1
+		}
 	}
 	p.pendTel = append(p.pendTel, te)
 }
@@ -339,17 +349,19 @@ func (p *pipeline) onFrame(ev frameEvent) {
 		if _, err := p.filler.Live(*ev.mat, ev.captureUs, &p.held); err != nil {
 			p.log.Warn("holding a late frame failed", "err", err)
 		}
-		// A frame decoded by its deadline can still reach the display
-		// loop after the tick was filled (the ingest goroutine was not
-		// scheduled in between). The display had no frame until now, so
-		// the recording says it arrived after the deadline: the replay
-		// must decide as the display did.
+		// A frame decoded by a deadline can still reach the display loop
+		// after that tick was filled (the display loop or the ingest
+		// goroutine was not scheduled in between), and on a starved CPU
+		// several later ticks may have been filled without it too. The
+		// display had no frame until now, so the recording says it
+		// arrived after the deadline of the last tick filled: the replay
+		// must decide as the display did, on this tick and the later ones.
 		arrivalUs := ev.readyUs
-		if d := p.deadlineUs(k); arrivalUs <= d {
-			p.log.Debug("frame decoded in time reached the display after its tick was filled", "tick", k, "ready_before_deadline_us", d-arrivalUs)
+		if d := p.deadlineUs(p.next - 1); arrivalUs <= d {
+			p.log.Debug("frame decoded in time reached the display after its tick was filled", "tick", k, "last_filled_tick", p.next-1, "ready_before_deadline_us", d-arrivalUs)
 			arrivalUs = d + 1
 		}
-		p.record(func(rc *recorder) { rc.frame(p.recIndex(k), ev.captureUs, arrivalUs, *ev.mat) })
+		p.record(func(rc *recorder) { rc.frame(p.recIndex(k), ev.captureUs, arrivalUs, ev.rtpTS, *ev.mat) })
 		return
 	}
 	// Earlier ticks whose frames can no longer come (frames arrive in order).
@@ -365,7 +377,7 @@ func (p *pipeline) onFrame(ev frameEvent) {
 	p.next = k + 1
 	p.feedTelemetry(p.deadlineUs(k))
 	p.emit(k, ev.captureUs, tick, &ev)
-	p.record(func(rc *recorder) { rc.frame(p.recIndex(k), ev.captureUs, ev.readyUs, *ev.mat) })
+	p.record(func(rc *recorder) { rc.frame(p.recIndex(k), ev.captureUs, ev.readyUs, ev.rtpTS, *ev.mat) })
 }
 
 // missing fills tick k at its deadline.

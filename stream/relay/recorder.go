@@ -19,7 +19,8 @@ import (
 // showed: one row per display tick, header "tick,state,age_ms,confidence,cutoff"
 // (tick = frames.csv index; state LIVE, PREDICTED, STALE, or SKIPPED for a
 // tick superseded by an earlier-arriving newer frame and not shown).
-const TicksFile = "ticks.csv"
+// recording.ReadSessionTicks reads it.
+const TicksFile = recording.TicksFile
 
 const ticksHeader = "tick,state,age_ms,confidence,cutoff\n"
 
@@ -35,6 +36,7 @@ type recMsg struct {
 	captureUs  int64
 	deadlineUs int64
 	arrivalUs  int64
+	rtpTS      uint32
 	state      string
 	ageMs      float64
 	confidence float64
@@ -56,6 +58,7 @@ type pendingRow struct {
 	deadlineUs int64
 	arrived    bool
 	arrivalUs  int64
+	rtpTS      uint32
 	jpeg       []byte
 }
 
@@ -132,11 +135,11 @@ func (rc *recorder) tick(index int, captureUs, deadlineUs int64, state string, a
 	rc.send(recMsg{kind: recTick, index: index, captureUs: captureUs, deadlineUs: deadlineUs, state: state, ageMs: ageMs, confidence: confidence, cutoff: cutoff})
 }
 
-func (rc *recorder) frame(index int, captureUs, arrivalUs int64, img gocv.Mat) {
+func (rc *recorder) frame(index int, captureUs, arrivalUs int64, rtpTS uint32, img gocv.Mat) {
 	if index < 0 {
 		return
 	}
-	m := recMsg{kind: recFrame, index: index, captureUs: captureUs, arrivalUs: arrivalUs}
+	m := recMsg{kind: recFrame, index: index, captureUs: captureUs, arrivalUs: arrivalUs, rtpTS: rtpTS}
 	if rc.mats.Add(1) <= rc.maxMats {
 		c := img.Clone()
 		m.mat = &c
@@ -260,7 +263,7 @@ func (rc *recorder) onFrame(m recMsg) {
 	}
 	p.jpeg = append([]byte(nil), buf.GetBytes()...)
 	buf.Close()
-	p.arrived, p.arrivalUs, p.captureUs = true, m.arrivalUs, m.captureUs
+	p.arrived, p.arrivalUs, p.captureUs, p.rtpTS = true, m.arrivalUs, m.captureUs, m.rtpTS
 	rc.flush(false)
 }
 
@@ -291,7 +294,8 @@ func (rc *recorder) flush(all bool) {
 			err = rc.w.WriteMissingFrame(i, c)
 		}
 		if err == nil {
-			err = rc.w.WriteArrivalDeadline(i, p.arrivalUs, p.arrived, p.deadlineUs)
+			err = rc.w.WriteArrivalRow(recording.Arrival{Index: i, ArrivalUs: p.arrivalUs, Arrived: p.arrived,
+				DeadlineUs: p.deadlineUs, HasDeadline: true, RTPTimestamp: p.rtpTS, HasRTP: p.arrived})
 		}
 		if err != nil {
 			rc.fail("frames.csv", err)

@@ -55,6 +55,11 @@ type Config struct {
 	// OnFrame, if set, is called after each frame was encoded and handed
 	// to the link, on the playback goroutine: keep it quick.
 	OnFrame func(FrameInfo)
+	// Onboard, if set, records every frame the camera captured (also the
+	// ones playback skipped or failed to encode) and every telemetry sample
+	// published, as the vehicle's own recording. The caller closes it
+	// after Run returns.
+	Onboard *Onboard
 }
 
 // FrameInfo describes one played frame.
@@ -361,6 +366,7 @@ func (v *Vehicle) playFrames(ctx context.Context, enc *vp8.Encoder, pk *rtpvp8.P
 			due := v.at(rel)
 			if late := v.clock.Now().Sub(due); late > time.Duration(v.periodUs)*time.Microsecond {
 				v.skipped.Add(1)
+				v.recordOnboard(i, startUnixUs+rel, 0, false)
 				continue
 			}
 			src := img
@@ -386,6 +392,7 @@ func (v *Vehicle) playFrames(ctx context.Context, enc *vp8.Encoder, pk *rtpvp8.P
 			v.encodeNs.Add(int64(dur))
 			if err != nil {
 				v.log.Warn("encode failed; the next frame will be a keyframe", "frame", i, "err", err)
+				v.recordOnboard(i, startUnixUs+rel, 0, false)
 				continue
 			}
 			ts := v.rtpBase + uint32(rel*9/100) // 90 kHz: us * 90000 / 1e6
@@ -393,8 +400,10 @@ func (v *Vehicle) playFrames(ctx context.Context, enc *vp8.Encoder, pk *rtpvp8.P
 			pkts, err = pk.Packetize(pkts[:0], out, ts)
 			if err != nil {
 				v.log.Warn("packetize failed", "frame", i, "err", err)
+				v.recordOnboard(i, startUnixUs+rel, 0, false)
 				continue
 			}
+			v.recordOnboard(i, startUnixUs+rel, ts, true)
 			queued := 0
 			for j := range pkts {
 				if v.link.SendRTP(&pkts[j]) {
@@ -416,6 +425,20 @@ func (v *Vehicle) playFrames(ctx context.Context, enc *vp8.Encoder, pk *rtpvp8.P
 		}
 		v.loops.Add(1)
 	}
+}
+
+// recordOnboard hands frame i of the drive, captured at captureUs (Unix µs),
+// to the onboard recorder, if any.
+func (v *Vehicle) recordOnboard(i int, captureUs int64, rtpTS uint32, sent bool) {
+	if v.cfg.Onboard == nil {
+		return
+	}
+	p, err := v.rec.FramePath(i)
+	if err != nil {
+		v.cfg.Onboard.fail("frame", err)
+		return
+	}
+	v.cfg.Onboard.frame(p, captureUs, rtpTS, sent)
 }
 
 func (v *Vehicle) playTelemetry(ctx context.Context) error {
@@ -443,6 +466,10 @@ func (v *Vehicle) playTelemetry(ctx context.Context) error {
 			}
 			v.link.SendTelemetry(buf)
 			v.telemetryRows.Add(1)
+			if v.cfg.Onboard != nil {
+				v.cfg.Onboard.sample(recording.TelemetryRow{TimeUs: m.TimeUs, SpeedMps: m.SpeedMps, YawRateRps: m.YawRateRps,
+					AccelMps2: m.AccelMps2, HasAccel: m.HasAccel, SteerRad: m.SteerRad, HasSteer: m.HasSteer})
+			}
 		}
 		if !v.cfg.Loop {
 			return nil

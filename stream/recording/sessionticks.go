@@ -1,0 +1,85 @@
+package recording
+
+import (
+	"fmt"
+	"os"
+)
+
+// TicksFile is the file in a live session's recording directory that lists
+// what the operator was shown, one row per display tick: header
+// "tick,state,age_ms,confidence,cutoff", tick = frames.csv index, state
+// LIVE, PREDICTED, STALE, or SKIPPED for a tick superseded by a newer frame
+// and not shown. The live relay writes it; a replay of the session compares
+// its own decisions with it.
+const TicksFile = "ticks.csv"
+
+// Column names of TicksFile.
+const (
+	colTick       = "tick"
+	colState      = "state"
+	colAgeMs      = "age_ms"
+	colConfidence = "confidence"
+	colCutoff     = "cutoff"
+)
+
+// SessionTick is one row of a session's TicksFile.
+type SessionTick struct {
+	Tick       int     // frames.csv index of the tick
+	State      string  // LIVE, PREDICTED, STALE or SKIPPED
+	AgeMs      float64 // age of the shown picture, ms
+	Confidence float64 // confidence in [0, 1]
+	Cutoff     float64 // the operator's cutoff at that tick
+}
+
+// sessionTickStates are the states a TicksFile row may carry.
+var sessionTickStates = map[string]bool{"LIVE": true, "PREDICTED": true, "STALE": true, "SKIPPED": true}
+
+// ReadSessionTicks reads a session's TicksFile strictly (a [*ParseError]
+// names file, line and column), except that an incomplete last line left by
+// a killed writer is dropped with a warning. Rows come out in file order;
+// a tick listed twice is an error.
+func ReadSessionTicks(path string) ([]SessionTick, []string, error) {
+	b, err := os.ReadFile(path)
+	if err != nil {
+		return nil, nil, fmt.Errorf("recording: reading the session's ticks: %w", err)
+	}
+	return decodeSessionTicks(path, b)
+}
+
+func decodeSessionTicks(file string, data []byte) ([]SessionTick, []string, error) {
+	t, err := splitTable(file, data, []string{colTick, colState}, []string{colAgeMs, colConfidence, colCutoff})
+	if err != nil {
+		return nil, nil, err
+	}
+	var out []SessionTick
+	seen := map[int64]int{}
+	warns, _, err := eachRow(t, func(rr *rowReader) {
+		k := rr.int64(colTick)
+		st, col, _ := rr.value(colState, true)
+		age, _ := rr.optFloat(colAgeMs, false)
+		conf, _ := rr.optFloat(colConfidence, false)
+		cut, _ := rr.optFloat(colCutoff, false)
+		if rr.err != nil {
+			return
+		}
+		switch {
+		case k < 0:
+			rr.fail(rr.colOf(colTick), fmt.Errorf("%w: tick %d is negative", ErrIndex, k))
+		case !sessionTickStates[st]:
+			rr.fail(col, fmt.Errorf("%w: state %q; want LIVE, PREDICTED, STALE or SKIPPED", ErrSyntax, st))
+		default:
+			if line, dup := seen[k]; dup {
+				rr.fail(rr.colOf(colTick), fmt.Errorf("%w: tick %d already listed on line %d", ErrIndex, k, line))
+			}
+		}
+		if rr.err != nil {
+			return
+		}
+		seen[k] = rr.r.line
+		out = append(out, SessionTick{Tick: int(k), State: st, AgeMs: age, Confidence: conf, Cutoff: cut})
+	})
+	if err != nil {
+		return nil, nil, err
+	}
+	return out, warns, nil
+}
