@@ -1,0 +1,57 @@
+package opfit
+
+import (
+	"math"
+	"math/rand/v2"
+	"strings"
+	"testing"
+)
+
+// TestRecommendKnownMinimum: gap costs drawn around a cost curve with its
+// minimum at 0.6 (independent of the fit: 10 (c - 0.6)² + 1 + 0.02 per tick, noise 0.3) give
+// 0.6, with an interval that contains it.
+func TestRecommendKnownMinimum(t *testing.T) {
+	rng := rand.New(rand.NewPCG(1, 2))
+	var gaps []GapCost
+	for _, c := range []float64{0.2, 0.4, 0.6, 0.8, 1} {
+		for range 60 {
+			ticks := 1 + rng.IntN(30)
+			cost := 10*(c-0.6)*(c-0.6) + 1 + 0.02*float64(ticks) + 0.3*rng.NormFloat64()
+			gaps = append(gaps, GapCost{Cutoff: c, CostRadS: cost, Ticks: ticks})
+		}
+	}
+	rec := Recommend(gaps, FitConfig{Seed: 1})
+	if !rec.OK || rec.Cutoff != 0.6 || rec.CILo > 0.6 || rec.CIHi < 0.6 {
+		t.Errorf("got %s", rec)
+	}
+}
+
+// TestRecommendTooLittleData: too few gaps, or a single cutoff tried,
+// recommends nothing and says so.
+func TestRecommendTooLittleData(t *testing.T) {
+	few := []GapCost{{Cutoff: 0.5, CostRadS: 1, Ticks: 3}, {Cutoff: 0.7, CostRadS: 2, Ticks: 3}}
+	var one []GapCost
+	for range 100 {
+		one = append(one, GapCost{Cutoff: 0.5, CostRadS: 1, Ticks: 3})
+	}
+	for name, gaps := range map[string][]GapCost{"few gaps": few, "one cutoff": one, "none": nil} {
+		rec := Recommend(gaps, FitConfig{})
+		if rec.OK || !math.IsNaN(rec.Cutoff) || !strings.Contains(rec.Reason, "too little data") {
+			t.Errorf("%s: %+v; want no recommendation, saying too little data", name, rec)
+		}
+		if !strings.Contains(rec.String(), "no recommendation") {
+			t.Errorf("%s: summary %q does not say there is no recommendation", name, rec.String())
+		}
+	}
+	// Two cutoffs that cannot be told apart: too uncertain.
+	rng := rand.New(rand.NewPCG(3, 4))
+	var flat []GapCost
+	for _, c := range []float64{0.2, 0.9} {
+		for range 40 {
+			flat = append(flat, GapCost{Cutoff: c, CostRadS: 1 + rng.NormFloat64(), Ticks: 4})
+		}
+	}
+	if rec := Recommend(flat, FitConfig{Seed: 5}); rec.OK || !strings.Contains(rec.Reason, "too uncertain") {
+		t.Errorf("indistinguishable cutoffs: %s", rec)
+	}
+}
