@@ -139,20 +139,20 @@ func (co *Course) Simulate(op SimOperator, cfg SimConfig) (SimResult, error) {
 	truth := make([]Pose, 0, nSteps+1)
 	truth = append(truth, Pose{})
 	var (
-		ticks             []Tick
-		depicted          []Pose // per tick: the pose the picture shows
-		controls          []Control
-		held              int
-		cmd               float64
-		lastSeen          = -1
-		z                 float64
-		sumDev, sumLat2   float64
-		hintRef, hintOp   int
-		hintLat           int
-		gapOpen           bool
-		stepIndexOfTick   = func(k int) int { return k * simStepsPerFr }
-		delayUs           = int64(op.DelayMs * 1000)
-		poseAt            = func(step int) Pose { return truth[min(step, len(truth)-1)] }
+		ticks           []Tick
+		depicted        []Pose // per tick: the pose the picture shows
+		controls        []Control
+		held            int
+		cmd             float64
+		lastSeen        = -1
+		z               float64
+		sumDev, sumLat2 float64
+		hintRef, hintOp int
+		hintLat         int
+		gapOpen         bool
+		stepIndexOfTick = func(k int) int { return k * simStepsPerFr }
+		delayUs         = int64(op.DelayMs * 1000)
+		poseAt          = func(step int) Pose { return truth[min(step, len(truth)-1)] }
 	)
 	for step := 0; step < nSteps; step++ {
 		t := int64(step) * simStepUs

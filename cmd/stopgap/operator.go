@@ -179,4 +179,3 @@ func loginName() string {
 	}
 	return ""
 }
-
