@@ -93,8 +93,13 @@ func TestRelayKeepsConsoleCutoffAcrossRestart(t *testing.T) {
 	store := filepath.Join(dir, "operators.json")
 	args := []string{"--camera", cam, "--listen", "127.0.0.1:0", "--policy", pol, "--operators", store,
 		"--console-token-file", tok, "--log-json=false"}
+	rec := filepath.Join(dir, "session1")
 
-	base, stop := startRelay(t, args...)
+	base, stop := startRelay(t, append([]string{"--record", rec}, args...)...)
+	// The operator station's controls are recorded beside the drive.
+	if code, body := consoleCall(t, "POST", base+"/api/controls", token, `{"t_us": 5, "steer_rad": 0.02, "throttle": 0.1, "brake": 0}`); code != 200 {
+		t.Errorf("POST /api/controls: %d %s", code, body)
+	}
 	if code, body := consoleCall(t, "POST", base+"/api/cutoff", token, `{"cutoff": 0.65}`); code != 200 {
 		t.Fatalf("console change: %d %s", code, body)
 	}
@@ -103,6 +108,9 @@ func TestRelayKeepsConsoleCutoffAcrossRestart(t *testing.T) {
 		t.Errorf("console change beyond the policy: %d %s; want 400 naming the limit and %s", code, body, pol)
 	}
 	stop()
+	if rows, err := operator.ReadControls(filepath.Join(rec, operator.ControlsFile)); err != nil || len(rows) != 1 || rows[0].SteerRad != 0.02 {
+		t.Errorf("recorded controls %+v, %v", rows, err)
+	}
 
 	snap, err := operator.NewStore(store).Load()
 	if err != nil {

@@ -156,7 +156,21 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		scheme = "https"
 	}
 	base := scheme + "://" + ln.Addr().String()
-	srv := &http.Server{Handler: r.Handler(), ReadHeaderTimeout: 10 * time.Second,
+	handler := r.Handler()
+	if recordDir != "" {
+		// The operator station's control inputs, recorded beside the drive
+		// (see operator.ControlsFile).
+		cw, err := operator.CreateControls(recordDir)
+		if err != nil {
+			return fmt.Errorf("--record: %w", err)
+		}
+		defer cw.Close()
+		mux := http.NewServeMux()
+		mux.Handle("/api/controls", operator.ControlsHandler(consoleTok, cw, time.Now))
+		mux.Handle("/", handler)
+		handler = mux
+	}
+	srv := &http.Server{Handler: handler, ReadHeaderTimeout: 10 * time.Second,
 		TLSConfig: &tls.Config{MinVersion: tls.VersionTLS12}, ErrorLog: slog.NewLogLogger(log.Handler(), slog.LevelWarn)}
 	serveErr := make(chan error, 1)
 	go func() {
