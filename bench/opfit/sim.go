@@ -9,6 +9,7 @@ import (
 	"stopgap/bench/simdrive"
 	"stopgap/filter"
 	"stopgap/predictor"
+	"stopgap/stream/recording"
 )
 
 // SimOperator is a simulated driver for tests: a pure pursuit path follower
@@ -40,6 +41,7 @@ type SimOperator struct {
 type Course struct {
 	path      Path
 	cam       predictor.Camera
+	rcam      recording.Camera
 	durationS float64
 	speedMps  float64
 }
@@ -62,7 +64,7 @@ func NewCourse(road simdrive.Config) (*Course, error) {
 	if err != nil {
 		return nil, err
 	}
-	return &Course{path: Path{XM: rx, YM: ry}, cam: predictor.CameraFromRecording(rcam), durationS: road.DurationS, speedMps: road.SpeedMps}, nil
+	return &Course{path: Path{XM: rx, YM: ry}, cam: predictor.CameraFromRecording(rcam), rcam: rcam, durationS: road.DurationS, speedMps: road.SpeedMps}, nil
 }
 
 // SimConfig describes a closed-loop simulated drive on a Course.
@@ -96,6 +98,8 @@ type SimResult struct {
 	// RMSLateralM is the RMS distance of the vehicle from the road's centre
 	// line.
 	RMSLateralM float64
+
+	latencyUs int64 // capture to display
 }
 
 // Simulate drives op along the road in closed loop through the filter, the
@@ -249,7 +253,7 @@ func (co *Course) Simulate(op SimOperator, cfg SimConfig) (SimResult, error) {
 		truth = append(truth, next)
 	}
 	n := float64(len(controls))
-	res := SimResult{MeanDeviationRad: sumDev / n, RMSLateralM: math.Sqrt(sumLat2 / n)}
+	res := SimResult{MeanDeviationRad: sumDev / n, RMSLateralM: math.Sqrt(sumLat2 / n), latencyUs: latUs}
 	res.Session = Session{Ticks: ticks, Controls: controls, Path: path, Truth: func(tUs int64) (Pose, bool) {
 		i := int(tUs / simStepUs)
 		if i < 0 || i >= len(truth) || tUs%simStepUs != 0 {

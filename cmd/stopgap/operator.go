@@ -20,6 +20,7 @@ var operatorSubcommands = []struct{ name, args, summary string }{
 	{"set", "NAME [--cutoff C] [--label-size S] [--notes T] [--activate]", "change a profile"},
 	{"remove", "NAME", "remove a profile and its history"},
 	{"apply", "NAME [--proposal N]", "apply a recorded proposal (the newest by default) as the cutoff"},
+	{"fit", "NAME --sessions DIR[,DIR...]", "fit the cutoff to the operator's recorded drives; record it as a proposal"},
 }
 
 func runOperator(ctx context.Context, args []string, stdout, stderr io.Writer) error {
@@ -66,6 +67,8 @@ func runOperator(ctx context.Context, args []string, stdout, stderr io.Writer) e
 		activate = fs.Bool("activate", false, "make it the profile the console uses")
 	case "apply":
 		proposal = fs.Int("proposal", 0, "history number of the proposal to apply (0 = the newest)")
+	case "fit":
+		return runOperatorFit(fs, rest, storePath, policyPath, stdout, stderr)
 	default:
 		fmt.Fprintf(stderr, "stopgap operator: unknown subcommand %q\n\n", sub)
 		usage()
