@@ -11,6 +11,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"slices"
 	"sort"
 	"strings"
 	"sync"
@@ -92,6 +93,8 @@ type cutoffStore struct {
 	active   int       // index into profiles
 	path     string    // profiles file, "" for none
 	backend  ProfileStore
+	loaded   []Profile // the backend's profiles as last adopted, unclamped
+	loadedAt string    // and its active profile
 	bits     atomic.Uint64
 	nameVal  atomic.Pointer[string]
 	onChange func(profile string, cutoff float64)
@@ -133,7 +136,11 @@ func newCutoffStore(c Config) (*cutoffStore, error) {
 	if len(profiles) == 0 {
 		profiles, active = []Profile{{Name: "default", Cutoff: s.limits.clamp(DefaultCutoff)}}, ""
 	}
-	if err := s.adopt(profiles, active, fromFile); err != nil {
+	adopt := s.adopt
+	if s.backend != nil {
+		adopt = func(p []Profile, a string, _ bool) error { return s.adoptStored(p, a) }
+	}
+	if err := adopt(profiles, active, fromFile); err != nil {
 		return nil, err
 	}
 	return s, nil
@@ -206,7 +213,20 @@ func (s *cutoffStore) reload() error {
 	if len(p) == 0 {
 		return nil // emptied by another writer: keep what we have
 	}
-	return s.adopt(p, a, true)
+	if a == s.loadedAt && slices.Equal(p, s.loaded) {
+		return nil // unchanged: no work, no repeated clamp warnings
+	}
+	return s.adoptStored(p, a)
+}
+
+// adoptStored adopts profiles read from the backend and remembers them.
+// Caller holds mu (or owns s exclusively).
+func (s *cutoffStore) adoptStored(p []Profile, active string) error {
+	if err := s.adopt(p, active, true); err != nil {
+		return err
+	}
+	s.loaded, s.loadedAt = append(s.loaded[:0], p...), active
+	return nil
 }
 
 // find returns the index of the named profile or -1. Caller holds mu (or
@@ -325,7 +345,7 @@ func (s *cutoffStore) applyBackend(req CutoffRequest) (ControlState, error) {
 	if err != nil {
 		return ControlState{}, err
 	}
-	if err := s.adopt(profiles, active, true); err != nil {
+	if err := s.adoptStored(profiles, active); err != nil {
 		return ControlState{}, err
 	}
 	return ControlState{Profile: s.profiles[s.active].Name, Cutoff: s.profiles[s.active].Cutoff, Limits: s.limits,

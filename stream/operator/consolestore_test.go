@@ -138,3 +138,26 @@ func TestConsolePermissions(t *testing.T) {
 		t.Errorf("profile %q, want zed", c2.Profile())
 	}
 }
+
+// TestConsoleClampsStoredCutoffToPolicy: a cutoff stored under a wider
+// policy is not used past a narrower one: the console clamps it (and warns)
+// without rewriting the store.
+func TestConsoleClampsStoredCutoffToPolicy(t *testing.T) {
+	s, _ := newTestStore(t) // alice at 0.6
+	pol, err := ParsePolicy("narrow.json", []byte(`{"min_cutoff": 0.7}`))
+	if err != nil {
+		t.Fatal(err)
+	}
+	c := newConsole(t, s, pol)
+	defer c.Close()
+	if c.Cutoff() != 0.7 {
+		t.Errorf("console cutoff %v, want 0.7 (the policy's min_cutoff)", c.Cutoff())
+	}
+	if err := c.ReloadProfiles(); err != nil || c.Cutoff() != 0.7 {
+		t.Errorf("after reload: %v, %v", c.Cutoff(), err)
+	}
+	snap, _ := s.Load()
+	if snap.Profiles[0].Cutoff != 0.6 {
+		t.Errorf("the store was rewritten: %v", snap.Profiles[0].Cutoff)
+	}
+}
