@@ -13,6 +13,7 @@ import (
 
 	"stopgap/stream/operator"
 	"stopgap/stream/recording"
+	"stopgap/stream/relay"
 )
 
 // PathFile, optional in a recording, is the reference route: CSV with the
@@ -50,13 +51,9 @@ func readPath(path string) (Path, error) {
 	return p, nil
 }
 
-// TicksFile is the relay's record of what the console showed (one row per
-// display tick: tick,state,age_ms,confidence,cutoff; see the relay's
-// package documentation).
-const TicksFile = "ticks.csv"
-
 // LoadSession reads one recorded drive for a fit: the recording (with
-// arrivals.csv holding the live display deadlines), the relay's TicksFile
+// arrivals.csv holding the live display deadlines), the relay's
+// relay.TicksFile
 // and the operator's control log (operator.ControlsFile).
 //
 //   - Display times: a LIVE tick at its frame's arrival (it is shown at
@@ -80,11 +77,11 @@ func LoadSession(dir string) (Session, error) {
 		return Session{}, err
 	}
 	if rec.Arrivals == nil {
-		if err := rec.LoadArrivals(filepath.Join(dir, "arrivals.csv")); err != nil {
+		if err := rec.LoadArrivals(filepath.Join(dir, recording.ArrivalsFile)); err != nil {
 			return Session{}, err
 		}
 	}
-	ticks, err := readTicks(filepath.Join(dir, TicksFile), rec)
+	ticks, err := readTicks(filepath.Join(dir, relay.TicksFile), rec)
 	if err != nil {
 		return Session{}, err
 	}

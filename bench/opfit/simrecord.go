@@ -9,6 +9,8 @@ import (
 	"strconv"
 
 	"stopgap/stream/operator"
+	"stopgap/stream/recording"
+	"stopgap/stream/relay"
 )
 
 // WriteRecording writes a simulated drive as the relay would have recorded
@@ -26,15 +28,15 @@ func (co *Course) WriteRecording(dir string, r SimResult) error {
 		return err
 	}
 	files := map[string]func(w *bufio.Writer) error{
-		"camera.json": func(w *bufio.Writer) error { _, err := w.Write(cam); return err },
-		"frames.csv": func(w *bufio.Writer) error {
+		recording.CameraFile: func(w *bufio.Writer) error { _, err := w.Write(cam); return err },
+		recording.FramesFile: func(w *bufio.Writer) error {
 			w.WriteString("index,t_capture_us,file\n")
 			for k, t := range r.Session.Ticks {
 				fmt.Fprintf(w, "%d,%d,\n", k, t.DisplayUs-r.latencyUs)
 			}
 			return nil
 		},
-		"truth.csv": func(w *bufio.Writer) error {
+		recording.TruthFile: func(w *bufio.Writer) error {
 			w.WriteString("index,t_capture_us,x_m,y_m,yaw_rad,speed_mps,yaw_rate_rps\n")
 			for k, t := range r.Session.Ticks {
 				c := t.DisplayUs - r.latencyUs
@@ -46,7 +48,7 @@ func (co *Course) WriteRecording(dir string, r SimResult) error {
 			}
 			return nil
 		},
-		"telemetry.csv": func(w *bufio.Writer) error {
+		recording.TelemetryFile: func(w *bufio.Writer) error {
 			w.WriteString("t_us,speed_mps,yaw_rate_rps\n")
 			var prev Pose
 			for k, t := range r.Session.Ticks {
@@ -61,7 +63,7 @@ func (co *Course) WriteRecording(dir string, r SimResult) error {
 			}
 			return nil
 		},
-		"arrivals.csv": func(w *bufio.Writer) error {
+		recording.ArrivalsFile: func(w *bufio.Writer) error {
 			w.WriteString("index,t_arrival_us,t_deadline_us\n")
 			for k, t := range r.Session.Ticks {
 				arr := ""
@@ -72,7 +74,7 @@ func (co *Course) WriteRecording(dir string, r SimResult) error {
 			}
 			return nil
 		},
-		TicksFile: func(w *bufio.Writer) error {
+		relay.TicksFile: func(w *bufio.Writer) error {
 			w.WriteString("tick,state,age_ms,confidence,cutoff\n")
 			for k, t := range r.Session.Ticks {
 				fmt.Fprintf(w, "%d,%s,0,%.4f,%.4f\n", k, t.Shown, t.Confidence, t.Cutoff)
