@@ -104,7 +104,7 @@ func TestRelayKeepsConsoleCutoffAcrossRestart(t *testing.T) {
 		t.Fatalf("console change: %d %s", code, body)
 	}
 	code, body := consoleCall(t, "POST", base+"/api/cutoff", token, `{"cutoff": 0.95}`)
-	if code != 400 || !strings.Contains(body, pol) || !strings.Contains(body, "0.9") {
+	if code != 400 || !strings.Contains(body, pol) || !strings.Contains(body, "max_cutoff") || !strings.Contains(body, "0.9") {
 		t.Errorf("console change beyond the policy: %d %s; want 400 naming the limit and %s", code, body, pol)
 	}
 	stop()

@@ -131,9 +131,9 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	if err := operator.EnsureProfile(store, adminPol, loginName(), cutoff, "created by the relay: the profile store was empty"); err != nil {
 		return fmt.Errorf("--operators %s: %w", storePath, err)
 	}
-	limitsSource := "the built-in default policy"
+	limitsSource := "min_cutoff and max_cutoff of the built-in default policy"
 	if adminPol.Path != "" {
-		limitsSource = "the policy file " + adminPol.Path
+		limitsSource = "min_cutoff and max_cutoff of the policy file " + adminPol.Path
 	}
 	cc := console.Config{Addr: listen, Limits: console.Limits{MinCutoff: adminPol.MinCutoff, MaxCutoff: adminPol.MaxCutoff},
 		LimitsSource: limitsSource, Store: operator.NewConsoleStore(store, adminPol)}
