@@ -18,10 +18,10 @@
 //
 // Recommend compares whole gaps rather than ticks because a predicted
 // picture that misleads costs most after it has left the screen: the
-// operator steers toward a misread position, and, when the picture turns
-// STALE, holds that command; the tests' easily misled operator does better
-// with PREDICTED than with STALE tick by tick at every confidence, yet its
-// least error is at the highest cutoff.
+// operator steers toward a misread position and, when the picture turns
+// STALE, holds that command; neither the ticks of drives at a low cutoff nor
+// those of drives at cutoff 1 contain that switch, so a tick-by-tick
+// comparison cannot see its cost.
 //
 // Course and SimOperator simulate operators for the tests: a path follower
 // with a perception delay, noise and a parameter for how much a predicted
