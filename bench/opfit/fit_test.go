@@ -55,3 +55,37 @@ func TestRecommendTooLittleData(t *testing.T) {
 		t.Errorf("indistinguishable cutoffs: %s", rec)
 	}
 }
+
+// TestSamplesAttribution: a control sample is attributed to the tick on
+// screen ReactionMs earlier, each gap is its own unit, and the deviation is
+// measured against the follower on the true pose (on a straight path with
+// the vehicle on it, the follower commands 0, so the deviation is |steer|).
+func TestSamplesAttribution(t *testing.T) {
+	var path Path
+	for i := 0; i <= 400; i++ {
+		path.XM, path.YM = append(path.XM, float64(i)*0.25), append(path.YM, 0)
+	}
+	shown := []Shown{ShownLive, ShownPredicted, ShownStale, ShownLive, ShownPredicted, ShownLive}
+	var s Session
+	for i, sh := range shown {
+		s.Ticks = append(s.Ticks, Tick{DisplayUs: int64(i) * 100_000, Shown: sh, Confidence: 0.1 * float64(i)})
+	}
+	for i := range 6 {
+		s.Controls = append(s.Controls, Control{TUs: 250_000 + int64(i)*100_000 + 50_000, SteerRad: -0.01 * float64(i)})
+	}
+	s.Path = path
+	s.Truth = func(tUs int64) (Pose, bool) { return Pose{XM: 10 * float64(tUs) / 1e6}, true }
+	got, err := Samples([]Session{s}, AttributionConfig{ReactionMs: 250, Follower: PurePursuit{LookaheadM: 5, WheelbaseM: 2.7}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(got) != 6 {
+		t.Fatalf("%d samples, want 6", len(got))
+	}
+	wantUnit := []int{-1, 1, 1, -1, 2, -1}
+	for i, g := range got {
+		if g.Shown != shown[i] || g.Unit != wantUnit[i] || math.Abs(g.DeviationRad-0.01*float64(i)) > 1e-12 || g.Confidence != 0.1*float64(i) {
+			t.Errorf("sample %d: %+v, want state %s unit %d deviation %g", i, g, shown[i], wantUnit[i], 0.01*float64(i))
+		}
+	}
+}

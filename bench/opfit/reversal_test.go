@@ -148,3 +148,43 @@ func TestPurePursuitCircle(t *testing.T) {
 		t.Errorf("offset case: δ = %g, want %g", got, want)
 	}
 }
+
+// TestReversalRates: the worked-case signal (4 reversals with a 2° gap)
+// under ticks that are all LIVE gives 4 reversals over the signal's
+// duration, per minute, and no rate for states never shown.
+func TestReversalRates(t *testing.T) {
+	extremesDeg := []float64{0, 3, 2.2, 4.5, -1, -0.3, 2.5}
+	const fs, ratio = 50.0, 16.0
+	per := int(2 * fs)
+	var s Session
+	add := func(v float64) {
+		n := len(s.Controls)
+		s.Controls = append(s.Controls, Control{TUs: int64(n) * 20_000, SteerRad: v / ratio * math.Pi / 180})
+	}
+	for i := 0; i < per; i++ {
+		add(extremesDeg[0])
+	}
+	for k := 1; k < len(extremesDeg); k++ {
+		a, b := extremesDeg[k-1], extremesDeg[k]
+		for i := 1; i <= per; i++ {
+			add(a + (b-a)*(0.5-0.5*math.Cos(math.Pi*float64(i)/float64(per))))
+		}
+	}
+	for i := 0; i < per; i++ {
+		add(extremesDeg[len(extremesDeg)-1])
+	}
+	for tUs := int64(-1_000_000); tUs < s.Controls[len(s.Controls)-1].TUs+1_000_000; tUs += 33_333 {
+		s.Ticks = append(s.Ticks, Tick{DisplayUs: tUs, Shown: ShownLive, Confidence: 1})
+	}
+	rates, err := ReversalRates([]Session{s}, 250, ReversalConfig{SteeringRatio: ratio})
+	if err != nil {
+		t.Fatal(err)
+	}
+	durS := float64(s.Controls[len(s.Controls)-1].TUs-s.Controls[0].TUs) / 1e6
+	if want := 4 / durS * 60; math.Abs(rates[ShownLive]-want) > 1e-9 {
+		t.Errorf("LIVE rate %g per minute, want %g (4 reversals in %g s)", rates[ShownLive], want, durS)
+	}
+	if !math.IsNaN(rates[ShownPredicted]) || !math.IsNaN(rates[ShownStale]) {
+		t.Errorf("rates for states never shown: %v, want NaN", rates)
+	}
+}
