@@ -89,3 +89,35 @@ func TestSamplesAttribution(t *testing.T) {
 		}
 	}
 }
+
+// TestGapCostsWindow: a gap shown from 100 to 300 ms, reaction 250 ms,
+// recovery 1000 ms: its window is [350, 1550) ms, so a constant steering
+// deviation of 0.01 rad costs 0.01 rad × 1.19 s (samples every 10 ms, the
+// last at 1540 ms). A gap still open at the end of the drive is dropped.
+func TestGapCostsWindow(t *testing.T) {
+	var path Path
+	for i := 0; i <= 400; i++ {
+		path.XM, path.YM = append(path.XM, float64(i)*0.25), append(path.YM, 0)
+	}
+	s := Session{Path: path, Truth: func(tUs int64) (Pose, bool) { return Pose{XM: 10 * float64(tUs) / 1e6}, true }}
+	for i := 0; i < 40; i++ {
+		sh := ShownLive
+		if i == 1 || i == 2 || i >= 38 {
+			sh = ShownPredicted
+		}
+		s.Ticks = append(s.Ticks, Tick{DisplayUs: int64(i) * 100_000, Shown: sh, Cutoff: 0.7})
+	}
+	for tUs := int64(0); tUs < 4_000_000; tUs += 10_000 {
+		s.Controls = append(s.Controls, Control{TUs: tUs, SteerRad: 0.01})
+	}
+	got, err := GapCosts([]Session{s}, AttributionConfig{ReactionMs: 250, RecoveryMs: 1000, Follower: PurePursuit{LookaheadM: 5, WheelbaseM: 2.7}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(got) != 1 {
+		t.Fatalf("%d gaps, want 1 (the open one dropped): %+v", len(got), got)
+	}
+	if g := got[0]; math.Abs(g.CostRadS-0.0119) > 1e-9 || g.Cutoff != 0.7 || g.Ticks != 2 || math.Abs(g.WindowS-1.2) > 1e-9 {
+		t.Errorf("got %+v, want cost 0.0119 rad·s over a 1.2 s window, 2 ticks, cutoff 0.7", g)
+	}
+}
