@@ -7,6 +7,7 @@
 //	stopgap simdrive --out DIR                write a synthetic drive recording
 //	stopgap replay --drive DIR --out DIR      replay a recording and score every gap
 //	stopgap relay  [flags]                    run the live relay (see stopgap relay -h)
+//	stopgap operator SUBCOMMAND [NAME]        operator profiles (see stopgap operator -h)
 //
 // Run "stopgap COMMAND -h" for a command's flags. This package only parses
 // flags and wires the packages together; the logic lives in filter,
@@ -44,6 +45,7 @@ func commands() []command {
 		{"simdrive", "write a synthetic drive recording with exact ground truth", runSimdrive},
 		{"replay", "replay a recording with recorded or modelled drops and score every gap", runReplay},
 		{"relay", "run the live relay between the vehicle and the operator console", runRelay},
+		{"operator", "operator profiles: list, show (with history), add, set, remove, apply", runOperator},
 	}
 }
 

@@ -17,6 +17,7 @@ import (
 	"stopgap/filter"
 	"stopgap/predictor"
 	"stopgap/stream/console"
+	"stopgap/stream/operator"
 	"stopgap/stream/relay"
 	"stopgap/stream/rtpudp"
 )
@@ -32,6 +33,7 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		allowanceMs, latencyMs, wheelbaseM                     float64
 		logJSON, verbose                                       bool
 		rtpListen, telemetryListen, rtpAllow                   string
+		storePath, policyPath                                  string
 	)
 	fs.StringVar(&listen, "listen", "127.0.0.1:8443", "`address` to serve WHIP ingest, the console, /healthz and /metrics on")
 	fs.StringVar(&certFile, "tls-cert", "", "TLS certificate `file` (PEM); with --tls-key serves HTTPS (required off loopback)")
@@ -41,10 +43,12 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	fs.StringVar(&cameraFile, "camera", "", "camera.json `file` of the vehicle camera (required)")
 	fs.StringVar(&recordDir, "record", "", "record the drive into this new `directory` (frames, telemetry, arrivals, ticks.csv)")
 	fs.Float64Var(&fps, "fps", relay.DefaultFPS, "vehicle camera frame rate, frames per second")
-	fs.Float64Var(&cutoff, "cutoff", pol.CutoffConfidence, "initial confidence cutoff in [0,1]: below it a missing frame is shown STALE")
-	fs.Float64Var(&minCutoff, "min-cutoff", 0, "administrator's lowest cutoff the operator may choose")
-	fs.Float64Var(&maxCutoff, "max-cutoff", 1, "administrator's highest cutoff the operator may choose")
-	fs.Float64Var(&maxAgeMs, "max-age-ms", pol.MaxAgeMs, "hard cap on the age of a predicted frame, ms")
+	fs.Float64Var(&cutoff, "cutoff", pol.CutoffConfidence, "cutoff in [0,1] of the profile \"default\" created when the profile store is empty: below it a missing frame is shown STALE")
+	fs.StringVar(&storePath, "operators", operator.DefaultStorePath(), "operator profile store `file` the console reads its profiles from and writes its changes to (also $"+operator.StoreEnv+")")
+	fs.StringVar(&policyPath, "policy", operator.DefaultPolicyPath, "administrator's policy `file`: cutoff limits, longest prediction horizon, who may change what (missing at the default path: built-in conservative defaults)")
+	fs.Float64Var(&minCutoff, "min-cutoff", -1, "no longer used: set min_cutoff in the policy file")
+	fs.Float64Var(&maxCutoff, "max-cutoff", -1, "no longer used: set max_cutoff in the policy file")
+	fs.Float64Var(&maxAgeMs, "max-age-ms", 0, "hard cap on the age of a predicted frame, ms (0 = the policy's max_horizon_ms; more is refused)")
 	fs.Float64Var(&allowanceMs, "allowance-ms", relay.DefaultAllowanceMs, "how late after its nominal arrival a frame may come and still be LIVE, ms")
 	fs.Float64Var(&latencyMs, "latency-ms", 0, "nominal capture-to-arrival latency, ms (0 = estimate over the first frames of each session)")
 	fs.StringVar(&model, "model", "ctrv", "motion model of the filter: ctrv or bicycle")
@@ -70,6 +74,10 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	}
 	if cameraFile == "" {
 		fmt.Fprintln(stderr, "stopgap relay: --camera is required (the vehicle camera's camera.json)")
+		return errUsage
+	}
+	if minCutoff != -1 || maxCutoff != -1 {
+		fmt.Fprintln(stderr, "stopgap relay: --min-cutoff and --max-cutoff moved to the administrator's policy file (min_cutoff, max_cutoff); give it with --policy")
 		return errUsage
 	}
 	if (certFile == "") != (keyFile == "") {
@@ -107,8 +115,28 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	if err != nil {
 		return fmt.Errorf("--console-token-file: %w", err)
 	}
-	cc := console.Config{Addr: listen, Limits: console.Limits{MinCutoff: minCutoff, MaxCutoff: maxCutoff},
-		Profiles: []console.Profile{{Name: "default", Cutoff: cutoff}}}
+	policyGiven := false
+	fs.Visit(func(f *flag.Flag) { policyGiven = policyGiven || f.Name == "policy" })
+	adminPol, err := operator.LoadPolicy(policyPath, policyGiven)
+	if err != nil {
+		return err
+	}
+	if maxAgeMs == 0 {
+		maxAgeMs = adminPol.MaxHorizonMs
+	}
+	if err := adminPol.CheckHorizonMs(maxAgeMs); err != nil {
+		return fmt.Errorf("--max-age-ms: %w", err)
+	}
+	store := operator.NewStore(storePath)
+	if err := operator.EnsureProfile(store, adminPol, loginName(), cutoff, "created by the relay: the profile store was empty"); err != nil {
+		return fmt.Errorf("--operators %s: %w", storePath, err)
+	}
+	limitsSource := "min_cutoff and max_cutoff of the built-in default policy"
+	if adminPol.Path != "" {
+		limitsSource = "min_cutoff and max_cutoff of the policy file " + adminPol.Path
+	}
+	cc := console.Config{Addr: listen, Limits: console.Limits{MinCutoff: adminPol.MinCutoff, MaxCutoff: adminPol.MaxCutoff},
+		LimitsSource: limitsSource, Store: operator.NewConsoleStore(store, adminPol)}
 	r, err := relay.New(relay.Config{
 		FPS: fps, AllowanceMs: allowanceMs, LatencyMs: latencyMs,
 		Camera: cam, Policy: predictor.Policy{MaxAgeMs: maxAgeMs},
@@ -128,7 +156,21 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		scheme = "https"
 	}
 	base := scheme + "://" + ln.Addr().String()
-	srv := &http.Server{Handler: r.Handler(), ReadHeaderTimeout: 10 * time.Second,
+	handler := r.Handler()
+	if recordDir != "" {
+		// The operator station's control inputs, recorded beside the drive
+		// (see operator.ControlsFile).
+		cw, err := operator.CreateControls(recordDir)
+		if err != nil {
+			return fmt.Errorf("--record: %w", err)
+		}
+		defer cw.Close()
+		mux := http.NewServeMux()
+		mux.Handle("/api/controls", operator.ControlsHandler(consoleTok, cw, time.Now))
+		mux.Handle("/", handler)
+		handler = mux
+	}
+	srv := &http.Server{Handler: handler, ReadHeaderTimeout: 10 * time.Second,
 		TLSConfig: &tls.Config{MinVersion: tls.VersionTLS12}, ErrorLog: slog.NewLogLogger(log.Handler(), slog.LevelWarn)}
 	serveErr := make(chan error, 1)
 	go func() {
@@ -151,6 +193,22 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 
 	rctx, cancel := context.WithCancel(ctx)
 	defer cancel()
+	// Changes made with "stopgap operator" while the relay runs reach the
+	// console within a second.
+	go func() {
+		t := time.NewTicker(time.Second)
+		defer t.Stop()
+		for {
+			select {
+			case <-rctx.Done():
+				return
+			case <-t.C:
+				if err := r.Console().ReloadProfiles(); err != nil {
+					log.Warn("reading the operator profiles failed; keeping the current ones", "err", err)
+				}
+			}
+		}
+	}()
 	runErr := make(chan error, 1)
 	go func() { runErr <- r.Run(rctx) }()
 	rtpDone := make(chan struct{})

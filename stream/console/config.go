@@ -109,6 +109,13 @@ type Config struct {
 	// and ActiveProfile; cutoffs outside Limits are clamped with a warning)
 	// and rewritten atomically (temporary file, fsync, rename) on each change.
 	ProfilesPath string
+	// Store, when set, is the durable home of the profiles shared with other
+	// writers (see ProfileStore); it replaces Profiles, ActiveProfile and
+	// ProfilesPath. Stored cutoffs outside Limits are clamped with a warning.
+	Store ProfileStore
+	// LimitsSource names where Limits come from (e.g. the administrator's
+	// policy file); refusals quote it. Empty: not named.
+	LimitsSource string
 
 	// MaxViewers caps concurrent sessions, half-open ones included. Default
 	// DefaultMaxViewers.

@@ -162,6 +162,12 @@ func (c *Console) SetCutoff(req CutoffRequest) (ControlState, error) {
 	return st, nil
 }
 
+// ReloadProfiles re-reads the profiles from Config.Store (nothing to do
+// without one), so that changes made by other writers, such as the command
+// line, take effect: call it periodically. On error the console keeps its
+// current profiles.
+func (c *Console) ReloadProfiles() error { return c.cutoffs.reload() }
+
 // State returns the operator control state (as GET /api/state).
 func (c *Console) State() ControlState {
 	st := c.cutoffs.state()

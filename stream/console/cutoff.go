@@ -11,6 +11,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"slices"
 	"sort"
 	"strings"
 	"sync"
@@ -69,13 +70,31 @@ func validProfileName(name string) error {
 	return nil
 }
 
+// ProfileStore is a durable home for the profiles that other processes may
+// change too (Config.Store). The console keeps a copy for its lock-free
+// per-tick reads and never writes that copy back: every change goes through
+// Apply, which the store carries out against its own latest state, so
+// changes made meanwhile by other writers are not lost.
+type ProfileStore interface {
+	// Load returns all profiles and the name of the active one.
+	Load() (profiles []Profile, active string, err error)
+	// Apply carries out req (see CutoffRequest) on the stored state and
+	// returns the state after it. A refusal must leave the store unchanged
+	// and return an error saying what to do.
+	Apply(req CutoffRequest) (profiles []Profile, active string, err error)
+}
+
 // cutoffStore holds the profiles; all methods are safe for concurrent use.
 type cutoffStore struct {
 	mu       sync.Mutex
 	limits   Limits
+	source   string    // Config.LimitsSource
 	profiles []Profile // sorted by name
 	active   int       // index into profiles
 	path     string    // profiles file, "" for none
+	backend  ProfileStore
+	loaded   []Profile // the backend's profiles as last adopted, unclamped
+	loadedAt string    // and its active profile
 	bits     atomic.Uint64
 	nameVal  atomic.Pointer[string]
 	onChange func(profile string, cutoff float64)
@@ -89,13 +108,22 @@ type profilesFile struct {
 }
 
 func newCutoffStore(c Config) (*cutoffStore, error) {
-	s := &cutoffStore{limits: c.Limits, path: c.ProfilesPath, onChange: c.OnCutoffChange, log: c.Logger}
+	s := &cutoffStore{limits: c.Limits, source: c.LimitsSource, path: c.ProfilesPath, backend: c.Store,
+		onChange: c.OnCutoffChange, log: c.Logger}
 	if err := s.limits.validate(); err != nil {
 		return nil, err
 	}
 	profiles, active := c.Profiles, c.ActiveProfile
 	fromFile := false
-	if s.path != "" {
+	switch {
+	case s.backend != nil:
+		s.path = ""
+		p, a, err := s.backend.Load()
+		if err != nil {
+			return nil, err
+		}
+		profiles, active, fromFile = p, a, true
+	case s.path != "":
 		f, err := loadProfilesFile(s.path)
 		switch {
 		case errors.Is(err, fs.ErrNotExist):
@@ -106,39 +134,99 @@ func newCutoffStore(c Config) (*cutoffStore, error) {
 		}
 	}
 	if len(profiles) == 0 {
-		profiles = []Profile{{Name: "default", Cutoff: s.limits.clamp(DefaultCutoff)}}
+		profiles, active = []Profile{{Name: "default", Cutoff: s.limits.clamp(DefaultCutoff)}}, ""
 	}
+	adopt := s.adopt
+	if s.backend != nil {
+		adopt = func(p []Profile, a string, _ bool) error { return s.adoptStored(p, a) }
+	}
+	if err := adopt(profiles, active, fromFile); err != nil {
+		return nil, err
+	}
+	return s, nil
+}
+
+// adopt checks profiles and makes them the current state. Cutoffs outside
+// the limits are an error, or clamped with a warning when they come from a
+// file or store (the limits may have been tightened since). Caller holds mu
+// (or owns s exclusively).
+func (s *cutoffStore) adopt(profiles []Profile, active string, fromFile bool) error {
 	if len(profiles) > MaxProfiles {
-		return nil, fmt.Errorf("%w: %d profiles, at most %d", ErrBadConfig, len(profiles), MaxProfiles)
+		return fmt.Errorf("%w: %d profiles, at most %d", ErrBadConfig, len(profiles), MaxProfiles)
 	}
-	s.profiles = make([]Profile, 0, MaxProfiles)
+	next := make([]Profile, 0, MaxProfiles)
 	for _, p := range profiles {
 		if err := validProfileName(p.Name); err != nil {
-			return nil, fmt.Errorf("%w: %w", ErrBadConfig, err)
+			return fmt.Errorf("%w: %w", ErrBadConfig, err)
 		}
-		if s.find(p.Name) >= 0 {
-			return nil, fmt.Errorf("%w: profile %q given twice", ErrBadConfig, p.Name)
+		for _, q := range next {
+			if q.Name == p.Name {
+				return fmt.Errorf("%w: profile %q given twice", ErrBadConfig, p.Name)
+			}
 		}
 		if math.IsNaN(p.Cutoff) || !s.limits.Contains(p.Cutoff) {
 			if !fromFile || math.IsNaN(p.Cutoff) {
-				return nil, fmt.Errorf("%w: profile %q: %w", ErrBadConfig, p.Name, &LimitError{Cutoff: p.Cutoff, Limits: s.limits})
+				return fmt.Errorf("%w: profile %q: %w", ErrBadConfig, p.Name, s.limitError(p.Cutoff))
 			}
 			clamped := s.limits.clamp(p.Cutoff)
 			s.log.Warn("console: profile cutoff outside the administrator's limits; clamped",
-				"profile", p.Name, "cutoff", p.Cutoff, "clamped", clamped, "file", s.path)
+				"profile", p.Name, "cutoff", p.Cutoff, "clamped", clamped, "file", s.path, "limits", s.source)
 			p.Cutoff = clamped
 		}
-		s.profiles = append(s.profiles, p)
+		next = append(next, p)
 	}
-	sort.Slice(s.profiles, func(i, j int) bool { return s.profiles[i].Name < s.profiles[j].Name })
+	sort.Slice(next, func(i, j int) bool { return next[i].Name < next[j].Name })
 	if active == "" {
 		active = profiles[0].Name
 	}
-	if s.active = s.find(active); s.active < 0 {
-		return nil, fmt.Errorf("%w: active profile %q: %w", ErrBadConfig, active, ErrUnknownProfile)
+	idx := -1
+	for i, p := range next {
+		if p.Name == active {
+			idx = i
+		}
 	}
+	if idx < 0 {
+		return fmt.Errorf("%w: active profile %q: %w", ErrBadConfig, active, ErrUnknownProfile)
+	}
+	s.profiles, s.active = next, idx
 	s.publish()
-	return s, nil
+	return nil
+}
+
+// limitError returns the refusal of cutoff c.
+func (s *cutoffStore) limitError(c float64) *LimitError {
+	return &LimitError{Cutoff: c, Limits: s.limits, Source: s.source}
+}
+
+// reload re-reads the profiles from the backend (no-op without one), so
+// changes made by other writers reach the per-tick Cutoff.
+func (s *cutoffStore) reload() error {
+	if s.backend == nil {
+		return nil
+	}
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	p, a, err := s.backend.Load()
+	if err != nil {
+		return err
+	}
+	if len(p) == 0 {
+		return nil // emptied by another writer: keep what we have
+	}
+	if a == s.loadedAt && slices.Equal(p, s.loaded) {
+		return nil // unchanged: no work, no repeated clamp warnings
+	}
+	return s.adoptStored(p, a)
+}
+
+// adoptStored adopts profiles read from the backend and remembers them.
+// Caller holds mu (or owns s exclusively).
+func (s *cutoffStore) adoptStored(p []Profile, active string) error {
+	if err := s.adopt(p, active, true); err != nil {
+		return err
+	}
+	s.loaded, s.loadedAt = append(s.loaded[:0], p...), active
+	return nil
 }
 
 // find returns the index of the named profile or -1. Caller holds mu (or
@@ -190,6 +278,9 @@ func (s *cutoffStore) apply(req CutoffRequest) (ControlState, error) {
 func (s *cutoffStore) applyLocked(req CutoffRequest) (ControlState, error) {
 	s.mu.Lock()
 	defer s.mu.Unlock()
+	if s.backend != nil {
+		return s.applyBackend(req)
+	}
 	next := append(make([]Profile, 0, MaxProfiles), s.profiles...)
 	active := s.active
 	if req.Profile != nil {
@@ -221,7 +312,7 @@ func (s *cutoffStore) applyLocked(req CutoffRequest) (ControlState, error) {
 	if req.Cutoff != nil {
 		c := *req.Cutoff
 		if math.IsNaN(c) || math.IsInf(c, 0) || !s.limits.Contains(c) {
-			return ControlState{}, &LimitError{Cutoff: c, Limits: s.limits}
+			return ControlState{}, s.limitError(c)
 		}
 		next[active].Cutoff = c
 	}
@@ -234,6 +325,31 @@ func (s *cutoffStore) applyLocked(req CutoffRequest) (ControlState, error) {
 	s.publish()
 	return ControlState{Profile: next[active].Name, Cutoff: next[active].Cutoff, Limits: s.limits,
 		Profiles: append([]Profile(nil), next...)}, nil
+}
+
+// applyBackend checks req against the limits and the name rules, then has
+// the backend apply it to the stored state and adopts the result. Caller
+// holds mu.
+func (s *cutoffStore) applyBackend(req CutoffRequest) (ControlState, error) {
+	if req.Profile != nil {
+		if err := validProfileName(*req.Profile); err != nil {
+			return ControlState{}, err
+		}
+	}
+	if req.Cutoff != nil {
+		if c := *req.Cutoff; math.IsNaN(c) || math.IsInf(c, 0) || !s.limits.Contains(c) {
+			return ControlState{}, s.limitError(c)
+		}
+	}
+	profiles, active, err := s.backend.Apply(req)
+	if err != nil {
+		return ControlState{}, err
+	}
+	if err := s.adoptStored(profiles, active); err != nil {
+		return ControlState{}, err
+	}
+	return ControlState{Profile: s.profiles[s.active].Name, Cutoff: s.profiles[s.active].Cutoff, Limits: s.limits,
+		Profiles: append([]Profile(nil), s.profiles...)}, nil
 }
 
 // loadProfilesFile reads and strictly decodes a profiles file.
@@ -323,3 +439,9 @@ func writeProfilesFile(path string, f profilesFile) (err error) {
 	}
 	return nil
 }
+
+// ValidProfileName returns nil if name is a valid profile name: 1 to
+// MaxProfileNameLen bytes of letters, digits, space, '-', '_' or '.'; else
+// an error wrapping ErrBadProfileName. Durable profile stores use the same
+// rule.
+func ValidProfileName(name string) error { return validProfileName(name) }

@@ -60,12 +60,17 @@ var (
 type LimitError struct {
 	Cutoff float64 // the value asked for
 	Limits Limits  // the limits in force
+	Source string  // where the limits are set (Config.LimitsSource), "" if not named
 }
 
 // Error says what was asked, what is allowed and what to do.
 func (e *LimitError) Error() string {
-	return fmt.Sprintf("cutoff %.3g is outside the administrator's limits [%.3g, %.3g]; choose a value in that range or ask the administrator to change the limits",
-		e.Cutoff, e.Limits.MinCutoff, e.Limits.MaxCutoff)
+	src := ""
+	if e.Source != "" {
+		src = " set in " + e.Source
+	}
+	return fmt.Sprintf("cutoff %.3g is outside the administrator's limits [%.3g, %.3g]%s; choose a value in that range or ask the administrator to change the limits",
+		e.Cutoff, e.Limits.MinCutoff, e.Limits.MaxCutoff, src)
 }
 
 // Unwrap returns ErrCutoffOutOfLimits.

@@ -1,0 +1,350 @@
+package operator
+
+import (
+	"bytes"
+	"crypto/subtle"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"math"
+	"net/http"
+	"os"
+	"path/filepath"
+	"strconv"
+	"strings"
+	"sync"
+	"time"
+)
+
+// The operator control log: what the operator commanded, recorded by the
+// relay beside its recording so that a fit (and later the motion model) can
+// use it.
+//
+// The operator station POSTs its inputs to the relay's /api/controls with
+// the console's bearer token, as JSON objects of at most MaxControlBytes,
+// one per line (Content-Type application/json or application/x-ndjson; up
+// to MaxControlsPerPost lines per request, so a station sampling at 60 Hz
+// can batch a few samples per request):
+//
+//	{"t_us": 1712345678901234, "steer_rad": -0.021, "throttle": 0.3, "brake": 0}
+//
+// t_us is when the input was sampled, microseconds on the operator
+// station's clock; steer_rad the commanded front road-wheel angle in
+// radians, positive to the left (ISO 8855), within ±MaxSteerRad; throttle
+// and brake the pedal positions in [0, 1]. All four are required. The relay
+// answers {"accepted": n, "rejected": m} (and "error" for the first
+// rejected line); a bad line never stops the others.
+//
+// ControlsFile (CSV, one header line, no quoting) gets one row per accepted
+// sample, in arrival order:
+//
+//	t_us,t_arrival_us,steer_rad,throttle,brake
+//
+// t_arrival_us is when the relay received it, microseconds on the receiver
+// (relay) clock, the clock of arrivals.csv's deadlines: a fit lines controls
+// up with the display ticks by t_arrival_us (on a station next to the relay
+// the transfer takes milliseconds); t_us orders samples within a batch and
+// is what a motion model fed with commanded steering would use once the
+// station's clock is mapped to the vehicle's.
+const (
+	ControlsFile       = "controls.csv"
+	ControlsHeader     = "t_us,t_arrival_us,steer_rad,throttle,brake"
+	MaxControlBytes    = 1024
+	MaxControlsPerPost = 64
+	// MaxSteerRad bounds a commanded road-wheel angle: 90 degrees, beyond
+	// any vehicle's steering lock.
+	MaxSteerRad = math.Pi / 2
+)
+
+// ErrBadControl is wrapped by errors about a control message or row.
+var ErrBadControl = errors.New("operator: bad control sample")
+
+// Control is one operator input sample; see ControlsFile.
+type Control struct {
+	TUs       int64   `json:"t_us"`
+	SteerRad  float64 `json:"steer_rad"`
+	Throttle  float64 `json:"throttle"`
+	Brake     float64 `json:"brake"`
+	ArrivalUs int64   `json:"-"` // receiver clock; set by the relay
+}
+
+// check validates the ranges.
+func (c Control) check() error {
+	switch {
+	case c.TUs <= 0:
+		return fmt.Errorf("%w: t_us %d; want microseconds > 0 on the station's clock", ErrBadControl, c.TUs)
+	case !(math.Abs(c.SteerRad) <= MaxSteerRad):
+		return fmt.Errorf("%w: steer_rad %v; want radians within ±%.4g", ErrBadControl, c.SteerRad, MaxSteerRad)
+	case !(c.Throttle >= 0 && c.Throttle <= 1):
+		return fmt.Errorf("%w: throttle %v; want a pedal position in [0, 1]", ErrBadControl, c.Throttle)
+	case !(c.Brake >= 0 && c.Brake <= 1):
+		return fmt.Errorf("%w: brake %v; want a pedal position in [0, 1]", ErrBadControl, c.Brake)
+	}
+	return nil
+}
+
+// DecodeControl decodes one control message strictly: one JSON object of at
+// most MaxControlBytes with exactly the keys t_us, steer_rad, throttle and
+// brake, values in range.
+func DecodeControl(data []byte) (Control, error) {
+	if len(data) > MaxControlBytes {
+		return Control{}, fmt.Errorf("%w: %d bytes, at most %d", ErrBadControl, len(data), MaxControlBytes)
+	}
+	var raw struct {
+		TUs      *int64   `json:"t_us"`
+		SteerRad *float64 `json:"steer_rad"`
+		Throttle *float64 `json:"throttle"`
+		Brake    *float64 `json:"brake"`
+	}
+	dec := json.NewDecoder(bytes.NewReader(data))
+	dec.DisallowUnknownFields()
+	if err := dec.Decode(&raw); err != nil {
+		return Control{}, fmt.Errorf("%w: %v; send {\"t_us\", \"steer_rad\", \"throttle\", \"brake\"}", ErrBadControl, err)
+	}
+	if _, err := dec.Token(); err != io.EOF {
+		return Control{}, fmt.Errorf("%w: extra data after the JSON object", ErrBadControl)
+	}
+	if raw.TUs == nil || raw.SteerRad == nil || raw.Throttle == nil || raw.Brake == nil {
+		return Control{}, fmt.Errorf("%w: t_us, steer_rad, throttle and brake are all required", ErrBadControl)
+	}
+	c := Control{TUs: *raw.TUs, SteerRad: *raw.SteerRad, Throttle: *raw.Throttle, Brake: *raw.Brake}
+	return c, c.check()
+}
+
+// AppendJSON appends c as a control message (the inverse of DecodeControl).
+func (c Control) AppendJSON(b []byte) []byte {
+	b = append(b, `{"t_us":`...)
+	b = strconv.AppendInt(b, c.TUs, 10)
+	b = append(b, `,"steer_rad":`...)
+	b = strconv.AppendFloat(b, c.SteerRad, 'g', -1, 64)
+	b = append(b, `,"throttle":`...)
+	b = strconv.AppendFloat(b, c.Throttle, 'g', -1, 64)
+	b = append(b, `,"brake":`...)
+	b = strconv.AppendFloat(b, c.Brake, 'g', -1, 64)
+	return append(b, '}')
+}
+
+// appendRow appends c as a ControlsFile row with its newline.
+func (c Control) appendRow(b []byte) []byte {
+	b = strconv.AppendInt(b, c.TUs, 10)
+	b = append(b, ',')
+	b = strconv.AppendInt(b, c.ArrivalUs, 10)
+	for _, v := range []float64{c.SteerRad, c.Throttle, c.Brake} {
+		b = append(b, ',')
+		b = strconv.AppendFloat(b, v, 'g', -1, 64)
+	}
+	return append(b, '\n')
+}
+
+// ControlsWriter appends rows to a recording's ControlsFile. Each row is one
+// write(2) on a file opened for appending, so a crash leaves at most a torn
+// last line, which ReadControls skips. Safe for concurrent use.
+type ControlsWriter struct {
+	mu   sync.Mutex
+	f    *os.File
+	line []byte
+	path string
+}
+
+// CreateControls creates dir/ControlsFile (it must not exist) and writes the
+// header.
+func CreateControls(dir string) (*ControlsWriter, error) {
+	path := filepath.Join(dir, ControlsFile)
+	f, err := os.OpenFile(path, os.O_WRONLY|os.O_CREATE|os.O_EXCL|os.O_APPEND, 0o644)
+	if err != nil {
+		return nil, fmt.Errorf("operator: control log: %w", err)
+	}
+	if _, err := f.WriteString(ControlsHeader + "\n"); err != nil {
+		f.Close()
+		return nil, fmt.Errorf("operator: control log %s: %w", path, err)
+	}
+	return &ControlsWriter{f: f, path: path}, nil
+}
+
+// Write appends one row.
+func (w *ControlsWriter) Write(c Control) error {
+	w.mu.Lock()
+	defer w.mu.Unlock()
+	if w.f == nil {
+		return fmt.Errorf("operator: control log %s is closed", w.path)
+	}
+	w.line = c.appendRow(w.line[:0])
+	if _, err := w.f.Write(w.line); err != nil {
+		return fmt.Errorf("operator: control log %s: %w", w.path, err)
+	}
+	return nil
+}
+
+// Close syncs and closes the file.
+func (w *ControlsWriter) Close() error {
+	w.mu.Lock()
+	defer w.mu.Unlock()
+	if w.f == nil {
+		return nil
+	}
+	err := w.f.Sync()
+	if cerr := w.f.Close(); err == nil {
+		err = cerr
+	}
+	w.f = nil
+	return err
+}
+
+// ReadControls reads a ControlsFile.
+func ReadControls(path string) ([]Control, error) {
+	data, err := os.ReadFile(path)
+	if err != nil {
+		return nil, fmt.Errorf("operator: control log: %w", err)
+	}
+	return ParseControls(path, data)
+}
+
+// ParseControls decodes the content of a ControlsFile; name is quoted in
+// errors. Columns are found by name in any order (unknown ones ignored); an
+// incomplete last line (no newline: a crash while writing) is dropped.
+// Errors are *FileError naming the line and field.
+func ParseControls(name string, data []byte) ([]Control, error) {
+	text := string(data)
+	if i := strings.LastIndexByte(text, '\n'); i < len(text)-1 {
+		text = text[:i+1] // torn last line
+	}
+	lines := strings.Split(strings.TrimSuffix(text, "\n"), "\n")
+	if len(lines) == 0 || lines[0] == "" {
+		return nil, &FileError{Path: name, Line: 1, Err: fmt.Errorf("%w: no header; want %s", ErrBadControl, ControlsHeader)}
+	}
+	col := map[string]int{}
+	for i, h := range strings.Split(strings.TrimSuffix(lines[0], "\r"), ",") {
+		col[h] = i
+	}
+	for _, need := range strings.Split(ControlsHeader, ",") {
+		if _, ok := col[need]; !ok {
+			return nil, &FileError{Path: name, Line: 1, Err: fmt.Errorf("%w: no column %s; want %s", ErrBadControl, need, ControlsHeader)}
+		}
+	}
+	out := make([]Control, 0, len(lines)-1)
+	var lastArrival int64
+	for n, line := range lines[1:] {
+		ln := n + 2
+		f := strings.Split(strings.TrimSuffix(line, "\r"), ",")
+		get := func(k string) (string, error) {
+			i := col[k]
+			if i >= len(f) {
+				return "", &FileError{Path: name, Line: ln, Err: fmt.Errorf("%w: %d fields, no %s", ErrBadControl, len(f), k)}
+			}
+			return f[i], nil
+		}
+		var c Control
+		for _, k := range []string{"t_us", "t_arrival_us"} {
+			s, err := get(k)
+			if err != nil {
+				return nil, err
+			}
+			v, err := strconv.ParseInt(s, 10, 64)
+			if err != nil {
+				return nil, &FileError{Path: name, Line: ln, Err: fmt.Errorf("%w: %s %q is not an integer of microseconds", ErrBadControl, k, s)}
+			}
+			if k == "t_us" {
+				c.TUs = v
+			} else {
+				c.ArrivalUs = v
+			}
+		}
+		for _, k := range []string{"steer_rad", "throttle", "brake"} {
+			s, err := get(k)
+			if err != nil {
+				return nil, err
+			}
+			v, err := strconv.ParseFloat(s, 64)
+			if err != nil {
+				return nil, &FileError{Path: name, Line: ln, Err: fmt.Errorf("%w: %s %q is not a number", ErrBadControl, k, s)}
+			}
+			switch k {
+			case "steer_rad":
+				c.SteerRad = v
+			case "throttle":
+				c.Throttle = v
+			default:
+				c.Brake = v
+			}
+		}
+		if err := c.check(); err != nil {
+			return nil, &FileError{Path: name, Line: ln, Err: err}
+		}
+		if c.ArrivalUs < lastArrival {
+			return nil, &FileError{Path: name, Line: ln, Err: fmt.Errorf("%w: t_arrival_us %d is before the previous row's %d; rows are in arrival order", ErrBadControl, c.ArrivalUs, lastArrival)}
+		}
+		lastArrival = c.ArrivalUs
+		out = append(out, c)
+	}
+	return out, nil
+}
+
+// ControlsHandler serves POST /api/controls (see ControlsFile): it checks
+// the bearer token (constant time), decodes each line, stamps it with now()
+// in microseconds (the receiver clock) and appends it to w. Bad lines are
+// counted and reported, never fatal.
+func ControlsHandler(token string, w *ControlsWriter, now func() time.Time) http.Handler {
+	want := []byte("Bearer " + token)
+	return http.HandlerFunc(func(rw http.ResponseWriter, r *http.Request) {
+		reply := func(status int, v any) {
+			rw.Header().Set("Content-Type", "application/json")
+			rw.WriteHeader(status)
+			json.NewEncoder(rw).Encode(v)
+		}
+		if r.Method != http.MethodPost {
+			rw.Header().Set("Allow", "POST")
+			reply(http.StatusMethodNotAllowed, map[string]string{"error": "POST control samples"})
+			return
+		}
+		if subtle.ConstantTimeCompare([]byte(r.Header.Get("Authorization")), want) != 1 {
+			rw.Header().Set("WWW-Authenticate", `Bearer realm="stopgap"`)
+			reply(http.StatusUnauthorized, map[string]string{"error": "missing or wrong bearer token; use the console token"})
+			return
+		}
+		ct := r.Header.Get("Content-Type")
+		if i := strings.IndexByte(ct, ';'); i >= 0 {
+			ct = ct[:i]
+		}
+		if ct = strings.TrimSpace(ct); ct != "application/json" && ct != "application/x-ndjson" {
+			reply(http.StatusUnsupportedMediaType, map[string]string{"error": "Content-Type must be application/json or application/x-ndjson"})
+			return
+		}
+		body, err := io.ReadAll(http.MaxBytesReader(rw, r.Body, MaxControlsPerPost*(MaxControlBytes+1)))
+		if err != nil {
+			reply(http.StatusRequestEntityTooLarge, map[string]string{"error": fmt.Sprintf("at most %d lines of %d bytes", MaxControlsPerPost, MaxControlBytes)})
+			return
+		}
+		arrival := now().UnixMicro()
+		var res struct {
+			Accepted int    `json:"accepted"`
+			Rejected int    `json:"rejected"`
+			Error    string `json:"error,omitempty"`
+		}
+		for n, line := range bytes.Split(body, []byte{'\n'}) {
+			if len(bytes.TrimSpace(line)) == 0 {
+				continue
+			}
+			var c Control
+			if n >= MaxControlsPerPost {
+				err = fmt.Errorf("%w: more than %d lines in one request", ErrBadControl, MaxControlsPerPost)
+			} else if c, err = DecodeControl(line); err == nil {
+				c.ArrivalUs = arrival
+				err = w.Write(c)
+			}
+			if err != nil {
+				res.Rejected++
+				if res.Error == "" {
+					res.Error = fmt.Sprintf("line %d: %v", n+1, err)
+				}
+				continue
+			}
+			res.Accepted++
+		}
+		status := http.StatusOK
+		if res.Accepted == 0 && res.Rejected > 0 {
+			status = http.StatusBadRequest
+		}
+		reply(status, res)
+	})
+}
