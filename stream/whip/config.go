@@ -78,10 +78,19 @@ type Config struct {
 	// with ErrKeyframeRateLimited and counted. A re-request every 200 ms while waiting for a keyframe
 	// (common practice) fits within the default.
 	MinKeyframeInterval time.Duration
-	// MaxNACKsPerPacket caps how often one missing packet is NACKed (default 3, sent at the NACK generator's
-	// 100 ms interval). After that the packet is given up: on a live link a packet older than a few RTTs
-	// is useless, and unbounded NACKs add load exactly when the link is already lossy.
+	// MaxNACKsPerPacket caps how often one missing packet is NACKed (default 3). The first NACK goes out as
+	// soon as the gap is seen; each repeat waits one retransmission timeout (RFC 6298: smoothed round trip
+	// plus four deviations, at least NACKMinInterval). After that the packet is given up: on a live link a
+	// packet older than a few RTTs is useless, and unbounded NACKs add load exactly when the link is already
+	// lossy. A keyframe request (RequestKeyframe) cancels every pending NACK.
 	MaxNACKsPerPacket uint16
+	// NACKMinInterval is the least spacing of two NACKs of one packet (default DefaultNACKMinInterval).
+	NACKMinInterval time.Duration
+	// RepairWindow is how long after a gap was seen its packets are still asked for (default
+	// DefaultRepairWindow); a gap seen after a silence longer than this (an outage) is not asked for.
+	RepairWindow time.Duration
+	// MaxNACKGap is the largest sequence number gap asked for, in packets (default DefaultMaxNACKGap).
+	MaxNACKGap int
 	// ReceiverReportInterval is the RTCP receiver report interval (default 1 s).
 	ReceiverReportInterval time.Duration
 
@@ -134,7 +143,7 @@ func (c Config) withDefaults() (Config, error) {
 	}
 	if c.MaxSessions < 0 || c.ICETimeout < 0 || c.MaxOfferBytes < 0 || c.PostRatePerS < 0 || c.PostBurst < 0 ||
 		c.MinKeyframeInterval < 0 || c.ReceiverReportInterval < 0 || c.RTPQueue < 0 || c.TelemetryQueue < 0 ||
-		c.MaxTelemetryBytes < 0 {
+		c.MaxTelemetryBytes < 0 || c.NACKMinInterval < 0 || c.RepairWindow < 0 || c.MaxNACKGap < 0 {
 		return c, fmt.Errorf("%w: negative value in whip.Config; use 0 for the default", ErrBadConfig)
 	}
 	def := func(v *int, d int) {
@@ -162,6 +171,13 @@ func (c Config) withDefaults() (Config, error) {
 	if c.MaxNACKsPerPacket == 0 {
 		c.MaxNACKsPerPacket = DefaultMaxNACKsPerPacket
 	}
+	if c.NACKMinInterval == 0 {
+		c.NACKMinInterval = DefaultNACKMinInterval
+	}
+	if c.RepairWindow == 0 {
+		c.RepairWindow = DefaultRepairWindow
+	}
+	def(&c.MaxNACKGap, DefaultMaxNACKGap)
 	if c.ReceiverReportInterval == 0 {
 		c.ReceiverReportInterval = DefaultReceiverReportInterval
 	}

@@ -25,7 +25,8 @@
 // # Media
 //
 // Each session uses its own pion API: a MediaEngine with only VP8 video registered (NACK and PLI feedback,
-// no RTX, no audio) and interceptors for NACK generation (capped per packet, Config.MaxNACKsPerPacket) and
+// no RTX, no audio) and interceptors for loss repair (a NACK as soon as a gap is seen, repeated at the measured round trip,
+// capped per packet by Config.MaxNACKsPerPacket, cancelled by a keyframe request; see [RepairStats]) and
 // RTCP receiver reports. Sender reports from the vehicle are kept for clock mapping
 // ([Session.SenderReport]). Keyframe requests are the relay's decision: [Session.RequestKeyframe] sends a
 // PLI, spaced by Config.MinKeyframeInterval.

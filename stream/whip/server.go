@@ -20,7 +20,6 @@ import (
 	"time"
 
 	"github.com/pion/interceptor"
-	"github.com/pion/interceptor/pkg/nack"
 	"github.com/pion/interceptor/pkg/report"
 	"github.com/pion/webrtc/v4"
 )
@@ -329,11 +328,12 @@ func (s *Server) reserve(remote string) (*Session, error) {
 		id: id, remote: remote, srv: s, clock: s.cfg.Clock, cfg: &s.cfg,
 		log:     s.cfg.Logger.With("session", id[:8]),
 		counter: &rtcpCounter{},
+		repair:  newRepairer(&s.cfg),
 		rtpq:    make(chan rtpArrival, s.cfg.RTPQueue),
 		telq:    make(chan TelemetryBytes, s.cfg.TelemetryQueue),
 		done:    make(chan struct{}),
 	}
-	pc, err := s.newPeerConnection(sess.counter)
+	pc, err := s.newPeerConnection(sess.counter, sess.repair)
 	s.mu.Lock()
 	s.pending--
 	if err == nil && s.closed {
@@ -360,20 +360,17 @@ func (s *Server) reserve(remote string) (*Session, error) {
 }
 
 // newPeerConnection builds a PeerConnection with its own API: a MediaEngine with only VP8 video and the
-// interceptors, in this order: the RTCP counter (so it sees the NACKs the generator writes), the NACK
-// generator (capped per packet), and the RTCP receiver-report interceptor.
-func (s *Server) newPeerConnection(counter *rtcpCounter) (*webrtc.PeerConnection, error) {
+// interceptors, in this order: the RTCP counter (so it sees the NACKs the repairer writes), the repairer
+// (NACKs at once and at the measured round trip, capped per packet), and the RTCP receiver-report
+// interceptor.
+func (s *Server) newPeerConnection(counter *rtcpCounter, repair *repairer) (*webrtc.PeerConnection, error) {
 	me, err := newMediaEngine()
 	if err != nil {
 		return nil, err
 	}
 	reg := &interceptor.Registry{}
 	reg.Add(counter)
-	gen, err := nack.NewGeneratorInterceptor(nack.GeneratorMaxNacksPerPacket(s.cfg.MaxNACKsPerPacket))
-	if err != nil {
-		return nil, fmt.Errorf("whip: NACK generator: %w", err)
-	}
-	reg.Add(gen)
+	reg.Add(repair)
 	rr, err := report.NewReceiverInterceptor(report.ReceiverInterval(s.cfg.ReceiverReportInterval))
 	if err != nil {
 		return nil, fmt.Errorf("whip: receiver reports: %w", err)

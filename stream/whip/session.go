@@ -63,6 +63,8 @@ type SessionStats struct {
 	// from RTCP (that would need XR DLRR from the sender).
 	RTT    time.Duration
 	HasRTT bool
+	// Repair are the counters of the loss repair (NACKs and retransmissions); see RepairStats.
+	Repair RepairStats
 }
 
 // rtpArrival is one queued packet.
@@ -79,6 +81,7 @@ type Session struct {
 	srv     *Server
 	pc      *webrtc.PeerConnection
 	counter *rtcpCounter
+	repair  *repairer
 	clock   Clock
 	log     *slog.Logger
 	cfg     *Config
@@ -181,6 +184,8 @@ func (s *Session) RequestKeyframe() error {
 	s.lastPLI = now
 	ssrc := s.ssrc
 	s.mu.Unlock()
+	// The keyframe replaces every packet before it: asking for them too only loads the link.
+	s.repair.cancel()
 	return s.pc.WriteRTCP([]rtcp.Packet{&rtcp.PictureLossIndication{MediaSSRC: ssrc}})
 }
 
@@ -227,6 +232,10 @@ func (s *Session) Stats() SessionStats {
 			st.HasRTT = true
 		}
 	}
+	if st.HasRTT {
+		s.repair.setICERTT(st.RTT)
+	}
+	st.Repair = s.repair.stats()
 	return st
 }
 

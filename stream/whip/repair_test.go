@@ -1,0 +1,168 @@
+package whip
+
+import (
+	"slices"
+	"testing"
+	"time"
+
+	"github.com/pion/interceptor"
+	"github.com/pion/rtcp"
+)
+
+func newTestRepair() *repairState {
+	return &repairState{maxPer: 3, minInterval: 5 * time.Millisecond, initialRTT: 50 * time.Millisecond,
+		window: 300 * time.Millisecond, maxGap: 256}
+}
+
+// TestRepairNACKsAtOnceThenAtRTO feeds recorded sequences: a gap is NACKed on the packet that reveals it,
+// repeated only after the retransmission timeout, at most maxPer times, and a retransmission stops it.
+func TestRepairNACKsAtOnceThenAtRTO(t *testing.T) {
+	t0 := time.Unix(1000, 0)
+	ms := func(n int) time.Time { return t0.Add(time.Duration(n) * time.Millisecond) }
+	type step struct {
+		at    int // ms
+		seq   int // -1: call due instead
+		wantN []uint16
+	}
+	tests := []struct {
+		name      string
+		steps     []step
+		repaired  uint64
+		gaveUp    uint64
+		pendingAt int
+	}{
+		{
+			name: "gap NACKed when seen, repaired before the timeout",
+			steps: []step{{0, 10, nil}, {1, 11, nil}, {2, 14, []uint16{12, 13}}, {3, -1, nil},
+				{9, 12, nil}, {10, 13, nil}, {200, -1, nil}},
+			repaired: 2,
+		},
+		{
+			// No RTT sample: timeout 2 x 50 ms = 100 ms.
+			name: "unanswered gap repeated each timeout, given up after maxPer NACKs",
+			steps: []step{{0, 65534, nil}, {1, 0, []uint16{65535}}, {99, -1, nil}, {101, -1, []uint16{65535}},
+				{150, -1, nil}, {202, -1, []uint16{65535}}, {290, -1, nil}, {303, -1, nil}},
+			gaveUp: 1,
+		},
+		{
+			name:  "wrap is not a gap",
+			steps: []step{{0, 65534, nil}, {1, 65535, nil}, {2, 0, nil}, {3, 1, nil}, {500, -1, nil}},
+		},
+		{
+			name:  "gap after an outage is not asked for",
+			steps: []step{{0, 100, nil}, {1, 101, nil}, {3000, 150, nil}, {3001, -1, nil}},
+		},
+		{
+			name:  "a gap larger than maxGap is not asked for",
+			steps: []step{{0, 100, nil}, {1, 400, nil}},
+		},
+	}
+	for _, tc := range tests {
+		t.Run(tc.name, func(t *testing.T) {
+			r := newTestRepair()
+			for _, s := range tc.steps {
+				var got []uint16
+				if s.seq < 0 {
+					got = r.due(ms(s.at), nil)
+				} else {
+					got = r.onPacket(uint16(s.seq), ms(s.at), nil)
+				}
+				if !slices.Equal(got, s.wantN) {
+					t.Fatalf("at %d ms (seq %d): NACKed %v, want %v", s.at, s.seq, got, s.wantN)
+				}
+			}
+			if r.stats.Repaired != tc.repaired || r.stats.GaveUp != tc.gaveUp || len(r.pending) != tc.pendingAt {
+				t.Errorf("repaired %d gave up %d pending %d, want %d %d %d", r.stats.Repaired, r.stats.GaveUp,
+					len(r.pending), tc.repaired, tc.gaveUp, tc.pendingAt)
+			}
+		})
+	}
+}
+
+// TestRepairRTTFollowsRetransmissions checks the RFC 6298 smoothing against values worked by hand and
+// Karn's rule (a packet NACKed twice gives no sample).
+func TestRepairRTTFollowsRetransmissions(t *testing.T) {
+	r := newTestRepair()
+	t0 := time.Unix(1000, 0)
+	ms := func(n float64) time.Time { return t0.Add(time.Duration(n * float64(time.Millisecond))) }
+	r.onPacket(1, ms(0), nil)
+	r.onPacket(3, ms(1), nil)  // 2 missing, NACKed at 1 ms
+	r.onPacket(2, ms(21), nil) // 20 ms round trip: SRTT 20, RTTVAR 10
+	if r.srtt != 20*time.Millisecond || r.rttvar != 10*time.Millisecond {
+		t.Fatalf("after one sample SRTT %v RTTVAR %v, want 20ms 10ms (RFC 6298 2.2)", r.srtt, r.rttvar)
+	}
+	r.onPacket(5, ms(30), nil) // 4 missing
+	r.onPacket(4, ms(34), nil) // 4 ms: RTTVAR = 3/4*10 + 1/4*16 = 11.5, SRTT = 7/8*20 + 1/8*4 = 18
+	if r.srtt != 18*time.Millisecond || r.rttvar != 11500*time.Microsecond {
+		t.Fatalf("after two samples SRTT %v RTTVAR %v, want 18ms 11.5ms (RFC 6298 2.3)", r.srtt, r.rttvar)
+	}
+	if got, want := r.rto(), 64*time.Millisecond; got != want {
+		t.Errorf("timeout %v, want SRTT + 4 RTTVAR = %v", got, want)
+	}
+	// Karn: NACKed twice, then answered: no sample.
+	r.onPacket(7, ms(40), nil)
+	if got := r.due(ms(40+64), nil); !slices.Equal(got, []uint16{6}) {
+		t.Fatalf("second NACK %v, want [6]", got)
+	}
+	r.onPacket(6, ms(110), nil)
+	if r.stats.RTTSamples != 2 || r.stats.Repaired != 3 {
+		t.Errorf("samples %d repaired %d, want 2 and 3", r.stats.RTTSamples, r.stats.Repaired)
+	}
+}
+
+// TestRepairCancelAfterKeyframeRequest: a keyframe request ends every pending NACK.
+func TestRepairCancelAfterKeyframeRequest(t *testing.T) {
+	r := newTestRepair()
+	t0 := time.Unix(1000, 0)
+	r.onPacket(1, t0, nil)
+	if got := r.onPacket(5, t0.Add(time.Millisecond), nil); len(got) != 3 {
+		t.Fatalf("NACKed %v, want 3 sequence numbers", got)
+	}
+	r.cancel()
+	if got := r.due(t0.Add(time.Second), nil); len(got) != 0 {
+		t.Errorf("NACKed %v after cancel, want none", got)
+	}
+	if r.stats.Cancelled != 3 || r.stats.GaveUp != 0 {
+		t.Errorf("cancelled %d gave up %d, want 3 and 0", r.stats.Cancelled, r.stats.GaveUp)
+	}
+}
+
+// TestRepairerTimerResends runs the interceptor half on the fake clock: the timer re-sends at the timeout.
+func TestRepairerTimerResends(t *testing.T) {
+	clk := newFakeClock()
+	r := newRepairer(&Config{Clock: clk, MaxNACKsPerPacket: 3, NACKMinInterval: 5 * time.Millisecond,
+		RepairWindow: 300 * time.Millisecond, MaxNACKGap: 256})
+	var sent [][]uint16
+	r.w = rtcpWriterFunc(func(seqs []uint16) { sent = append(sent, seqs) })
+	r.onPacket(10)
+	r.onPacket(12)
+	clk.Advance(99 * time.Millisecond)
+	if len(sent) != 1 {
+		t.Fatalf("NACKs before the timeout: %v, want one", sent)
+	}
+	clk.Advance(1 * time.Millisecond)
+	if len(sent) != 2 || !slices.Equal(sent[1], []uint16{11}) {
+		t.Fatalf("NACKs after the timeout: %v, want [[11] [11]]", sent)
+	}
+	r.cancel()
+	clk.Advance(time.Second)
+	if len(sent) != 2 {
+		t.Errorf("NACKs after cancel: %v", sent)
+	}
+}
+
+// rtcpWriterFunc records the sequence numbers of the NACKs written through it.
+type rtcpWriterFunc func(seqs []uint16)
+
+func (f rtcpWriterFunc) Write(pkts []rtcp.Packet, _ interceptor.Attributes) (int, error) {
+	for _, p := range pkts {
+		if n, ok := p.(*rtcp.TransportLayerNack); ok {
+			var seqs []uint16
+			for _, pair := range n.Nacks {
+				seqs = append(seqs, pair.PacketList()...)
+			}
+			f(seqs)
+		}
+	}
+	return 0, nil
+}
