@@ -123,6 +123,9 @@ type metrics struct {
 	ticksLive, ticksPredicted, ticksStale                      atomic.Uint64
 	lateFrames, decodeErrors, framesDropped                    atomic.Uint64
 	telemetryIn, recordErrors, sessions                        atomic.Uint64
+	// Loss repair (see whip.RepairStats), summed over sessions; repairRTTUs
+	// is the latest session's round-trip estimate.
+	repairGaps, repairRepaired, repairGaveUp, repairCancelled, repairSkipped, repairRTTUs atomic.Uint64
 	telemetryRejected, rtpDropped                              labelled
 
 	addedLatency, decode, encode, synth *histogram
@@ -144,6 +147,12 @@ func (m *metrics) writeText(w io.Writer, active int) {
 		m.ticksLive.Load(), m.ticksPredicted.Load(), m.ticksStale.Load())
 	counter("losses", "Frame losses: assembler loss events and decode errors.", m.losses.Load())
 	counter("keyframe_requests", "Keyframe requests (RTCP PLI) sent to the vehicle.", m.keyframeRequests.Load())
+	counter("repair_gaps", "Missing RTP packets asked for with a NACK (each once).", m.repairGaps.Load())
+	counter("repair_repaired", "Missing RTP packets that arrived after all (retransmission or reordering).", m.repairRepaired.Load())
+	counter("repair_gave_up", "Missing RTP packets no longer asked for: NACK cap or repair window reached.", m.repairGaveUp.Load())
+	counter("repair_skipped", "Missing RTP packets never asked for: a gap after an outage or too large to repair.", m.repairSkipped.Load())
+	counter("repair_cancelled", "Missing RTP packets no longer asked for because a keyframe was requested.", m.repairCancelled.Load())
+	fmt.Fprintf(w, "# HELP repair_rtt_seconds Smoothed NACK-to-retransmission round trip of the latest session.\n# TYPE repair_rtt_seconds gauge\nrepair_rtt_seconds %g\n", float64(m.repairRTTUs.Load())/1e6)
 	counter("late_frames", "Frames decoded after their display deadline (held, not shown).", m.lateFrames.Load())
 	counter("frames_dropped", "Decoded frames dropped because the display loop was behind.", m.framesDropped.Load())
 	counter("telemetry_in", "Telemetry samples accepted by the filter.", m.telemetryIn.Load())

@@ -64,6 +64,7 @@ type pipeline struct {
 	prevLost    int64
 	prevHighest uint32
 	prevDrops   [3]uint64 // ingest queue full, duplicate, too old
+	prevRepair  whip.RepairStats
 }
 
 func newPipeline(r *Relay, s IngestSession) (*pipeline, error) {
@@ -476,6 +477,7 @@ func (p *pipeline) refreshLink() {
 	}
 	p.prevLost, p.prevHighest = st.PacketsLost, st.HighestSeq
 	p.countDrops(st)
+	p.countRepair(st.Repair)
 	p.link.JitterMs = float64(st.Jitter) / float64(time.Millisecond)
 }
 
@@ -542,6 +544,21 @@ func finite(x float64) float64 {
 		return 0
 	}
 	return x
+}
+
+// countRepair adds the session's loss-repair counters since the last call
+// to the relay's.
+func (p *pipeline) countRepair(r whip.RepairStats) {
+	m, prev := p.r.met, p.prevRepair
+	m.repairGaps.Add(r.Gaps - min(prev.Gaps, r.Gaps))
+	m.repairRepaired.Add(r.Repaired - min(prev.Repaired, r.Repaired))
+	m.repairGaveUp.Add(r.GaveUp - min(prev.GaveUp, r.GaveUp))
+	m.repairCancelled.Add(r.Cancelled - min(prev.Cancelled, r.Cancelled))
+	m.repairSkipped.Add(r.SkippedGaps - min(prev.SkippedGaps, r.SkippedGaps))
+	if r.RTT > 0 {
+		m.repairRTTUs.Store(uint64(r.RTT.Microseconds()))
+	}
+	p.prevRepair = r
 }
 
 // countDrops adds to rtp_dropped the packets dropped outside Push's errors:

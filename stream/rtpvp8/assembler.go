@@ -407,7 +407,9 @@ type slot struct {
 // Policy with RepairWait set (a receiver that sends NACKs): only a complete
 // later keyframe ends the wait at once; otherwise the missing packet is
 // waited for RepairWait, so its retransmission completes the frame and the
-// frames after it, which reference it, stay decodable.
+// frames after it, which reference it, stay decodable. While a keyframe is
+// needed (NeedKeyframe), only a hole in the keyframe itself is waited for
+// that way: inter frames before it cannot be decoded anyway.
 //
 // Packets with an empty payload (RTP padding only) fill their sequence
 // number and are otherwise ignored: they never advance the window, force
@@ -817,6 +819,13 @@ func (a *Assembler) tryFrame(now time.Time) bool {
 
 // giveUp decides whether the missing packet at h is lost, and why.
 func (a *Assembler) giveUp(h int64, now time.Time) (LossReason, bool) {
+	// Waiting for a repair pays only if the frames behind it can decode:
+	// no keyframe is needed, or the frame at head is the keyframe.
+	repair := a.cfg.RepairWait > 0
+	if repair && a.needKey {
+		p := a.at(a.head)
+		repair = p != nil && p.kind == slotMedia && p.desc.FrameStart() && isKeyframeStart(p)
+	}
 	if a.newest-h >= int64(a.cfg.ReorderPackets) {
 		return LossWindow, true
 	}
@@ -837,7 +846,7 @@ func (a *Assembler) giveUp(h int64, now time.Time) (LossReason, bool) {
 			continue
 		}
 		st, end, _ := a.scanFrame(e, e, 0)
-		if (st == frameComplete || st == frameBoundary) && (a.cfg.RepairWait == 0 || isKeyframeStart(p)) {
+		if (st == frameComplete || st == frameBoundary) && (!repair || isKeyframeStart(p)) {
 			return LossNewerFrame, true
 		}
 		if end > e {
@@ -845,7 +854,7 @@ func (a *Assembler) giveUp(h int64, now time.Time) (LossReason, bool) {
 		}
 	}
 	wait := a.cfg.ReorderDelay
-	if a.cfg.RepairWait > 0 {
+	if repair {
 		wait = a.cfg.RepairWait
 	}
 	if seen && now.Sub(earliest) >= wait {

@@ -273,6 +273,22 @@ func TestAssembler(t *testing.T) {
 			want:  []ev{kf, p1, p2},
 		},
 		{
+			name: "repair: a hole in the awaited keyframe is waited for",
+			cfg:  AssemblerConfig{RepairWait: 60 * time.Millisecond},
+			steps: cat(without(frame(100, 0, 3, true, 0), 101), frame(103, 3000, 1, false, 33),
+				[]tp{{seq: 101, ts: 0, atMs: 50}}),
+			want: []ev{fr(0, 100, 102, 3, true, false), fr(3000, 103, 103, 1, false, false)},
+		},
+		{
+			name: "repair: while a keyframe is needed, a hole in an inter frame is not waited for",
+			cfg:  AssemblerConfig{RepairWait: 60 * time.Millisecond},
+			steps: cat(without(base, 104), frame(108, 9000, 2, false, 99), without(frame(110, 12000, 3, false, 133), 111),
+				frame(113, 15000, 1, false, 166)),
+			want: []ev{kf, lo(LossDeadline, 103, 105, 1, 2, 3000), p2lost, fr(9000, 108, 109, 2, false, true),
+				lo(LossNewerFrame, 110, 112, 1, 2, 12000), fr(15000, 113, 113, 1, false, true)},
+			needKey: true,
+		},
+		{
 			name:    "joined mid-frame: the partial frame is reported, no keyframe yet",
 			steps:   cat(frame(100, 0, 3, true, 0)[1:], frame(103, 3000, 2, false, 33)),
 			want:    []ev{lo(LossStartMissing, 101, 102, 0, 2, 0), fr(3000, 103, 104, 2, false, true)},

@@ -208,6 +208,13 @@ func (r *repairState) nextDue() (at time.Time, ok bool) {
 	return at, ok
 }
 
+// span returns how long after a gap is seen its packets are still asked for and answered: maxPer
+// timeouts (the last NACK goes out at (maxPer-1) timeouts and its answer is due one timeout later), at most
+// the window.
+func (r *repairState) span() time.Duration {
+	return min(time.Duration(r.maxPer)*r.rto(), r.window)
+}
+
 // cancel drops every pending sequence number (a keyframe was requested).
 func (r *repairState) cancel() {
 	r.stats.Cancelled += uint64(len(r.pending))
@@ -356,6 +363,13 @@ func (r *repairer) setICERTT(d time.Duration) {
 	r.mu.Lock()
 	r.st.iceRTT = d
 	r.mu.Unlock()
+}
+
+// span returns repairState.span.
+func (r *repairer) span() time.Duration {
+	r.mu.Lock()
+	defer r.mu.Unlock()
+	return r.st.span()
 }
 
 // stats returns the counters.

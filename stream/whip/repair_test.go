@@ -99,6 +99,9 @@ func TestRepairRTTFollowsRetransmissions(t *testing.T) {
 	if got, want := r.rto(), 64*time.Millisecond; got != want {
 		t.Errorf("timeout %v, want SRTT + 4 RTTVAR = %v", got, want)
 	}
+	if got, want := r.span(), 192*time.Millisecond; got != want {
+		t.Errorf("span %v, want 3 timeouts = %v", got, want)
+	}
 	// Karn: NACKed twice, then answered: no sample.
 	r.onPacket(7, ms(40), nil)
 	if got := r.due(ms(40+64), nil); !slices.Equal(got, []uint16{6}) {

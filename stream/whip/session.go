@@ -189,6 +189,12 @@ func (s *Session) RequestKeyframe() error {
 	return s.pc.WriteRTCP([]rtcp.Packet{&rtcp.PictureLossIndication{MediaSSRC: ssrc}})
 }
 
+// RepairSpan returns how long after a packet was seen missing it may still arrive as the answer to a NACK:
+// MaxNACKsPerPacket retransmission timeouts at the round trip measured now, at most RepairWindow. A
+// depacketiser waits that long for a missing packet (rtpvp8.AssemblerConfig.RepairWait) before it gives
+// the frame up and asks for a keyframe. Cheap: call it as often as needed.
+func (s *Session) RepairSpan() time.Duration { return s.repair.span() }
+
 // SenderReport returns the latest RTCP sender report for the video stream (NTP <-> RTP timestamp mapping,
 // RFC 3550 section 6.4.1); ok is false until one arrived. Use SenderReport.SenderTimeUs with
 // VideoClockRateHz to map a packet's RTP timestamp to the vehicle's wall clock.
