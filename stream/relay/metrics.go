@@ -126,7 +126,7 @@ type metrics struct {
 	// Loss repair (see whip.RepairStats), summed over sessions; repairRTTUs
 	// is the latest session's round-trip estimate.
 	repairGaps, repairRepaired, repairGaveUp, repairCancelled, repairSkipped, repairRTTUs atomic.Uint64
-	telemetryRejected, rtpDropped                              labelled
+	telemetryRejected, rtpDropped                                                         labelled
 
 	addedLatency, decode, encode, synth *histogram
 }
