@@ -123,10 +123,11 @@ type metrics struct {
 	ticksLive, ticksPredicted, ticksStale                      atomic.Uint64
 	lateFrames, decodeErrors, framesDropped                    atomic.Uint64
 	telemetryIn, recordErrors, sessions                        atomic.Uint64
+	telemetryRejected, rtpDropped                              labelled
+
 	// Loss repair (see whip.RepairStats), summed over sessions; repairRTTUs
 	// is the latest session's round-trip estimate.
 	repairGaps, repairRepaired, repairGaveUp, repairCancelled, repairSkipped, repairRTTUs atomic.Uint64
-	telemetryRejected, rtpDropped                                                         labelled
 
 	addedLatency, decode, encode, synth *histogram
 }
