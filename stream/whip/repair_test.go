@@ -1,12 +1,15 @@
 package whip
 
 import (
+	"net/http"
 	"slices"
+	"strings"
 	"testing"
 	"time"
 
 	"github.com/pion/interceptor"
 	"github.com/pion/rtcp"
+	"github.com/pion/sdp/v3"
 )
 
 func newTestRepair() *repairState {
@@ -168,4 +171,22 @@ func (f rtcpWriterFunc) Write(pkts []rtcp.Packet, _ interceptor.Attributes) (int
 		}
 	}
 	return 0, nil
+}
+
+// TestAnswerOffersCongestionFeedback: an offer with the transport-wide sequence number extension and the
+// transport-cc feedback (as browsers send) gets both back in the answer, so the sender can estimate its
+// bandwidth from our feedback.
+func TestAnswerOffersCongestionFeedback(t *testing.T) {
+	_, hs := newTestServer(t, Config{})
+	offer := strings.Replace(staticOffer, "a=rtcp-fb:96 nack\r\n",
+		"a=rtcp-fb:96 nack\r\na=rtcp-fb:96 transport-cc\r\na=extmap:3 "+sdp.TransportCCURI+"\r\n", 1)
+	resp, answer := post(t, hs.URL, offer)
+	if resp.StatusCode != http.StatusCreated {
+		t.Fatalf("status %d: %s", resp.StatusCode, answer)
+	}
+	for _, want := range []string{"a=rtcp-fb:96 transport-cc", "a=extmap:3 " + sdp.TransportCCURI} {
+		if !strings.Contains(answer, want) {
+			t.Errorf("answer lacks %q:\n%s", want, answer)
+		}
+	}
 }

@@ -362,7 +362,7 @@ func (s *Server) reserve(remote string) (*Session, error) {
 // newPeerConnection builds a PeerConnection with its own API: a MediaEngine with only VP8 video and the
 // interceptors, in this order: the RTCP counter (so it sees the NACKs the repairer writes), the repairer
 // (NACKs at once and at the measured round trip, capped per packet), and the RTCP receiver-report
-// interceptor.
+// interceptor, then the transport-wide congestion control feedback.
 func (s *Server) newPeerConnection(counter *rtcpCounter, repair *repairer) (*webrtc.PeerConnection, error) {
 	me, err := newMediaEngine()
 	if err != nil {
@@ -376,6 +376,15 @@ func (s *Server) newPeerConnection(counter *rtcpCounter, repair *repairer) (*web
 		return nil, fmt.Errorf("whip: receiver reports: %w", err)
 	}
 	reg.Add(rr)
+	// Transport-wide congestion control feedback (draft-holmer-rmcat-transport-wide-cc-extensions-01):
+	// the answer offers the transport-cc header extension and feedback, and the interceptor reports
+	// every packet's arrival time (pion default: every 100 ms). It feeds the sender's own bandwidth
+	// estimator, which is what a browser uses first; without it the browser starts low and ramps for tens
+	// of seconds. Receiver-side estimates (REMB) are the older alternative, and pion has no REMB
+	// estimator to generate them.
+	if err := webrtc.ConfigureTWCCSender(me, reg); err != nil {
+		return nil, fmt.Errorf("whip: congestion control feedback: %w", err)
+	}
 	api := webrtc.NewAPI(webrtc.WithMediaEngine(me), webrtc.WithInterceptorRegistry(reg),
 		webrtc.WithSettingEngine(newSettingEngine(s.cfg.Network, s.cfg.Logger)))
 	pc, err := api.NewPeerConnection(webrtc.Configuration{})
