@@ -14,6 +14,7 @@ import (
 
 	"stopgap/filter"
 	"stopgap/predictor"
+	"stopgap/stream/cadence"
 	"stopgap/stream/console"
 	"stopgap/stream/whip"
 )
@@ -42,9 +43,11 @@ type pipeline struct {
 	encBuf []byte
 	meta   console.Meta
 
-	// Session timeline (receiver and vehicle clocks in µs).
+	// Session timeline (receiver and vehicle clocks in µs). The display
+	// ticks lie on grid, locked to the vehicle's capture cadence
+	// (stream/cadence); haveC0 tells whether it has its first frame.
+	grid         *cadence.Grid
 	haveC0       bool
-	c0Us         int64
 	next         int // lowest tick whose deadline has not been handled
 	latUs        int64
 	latKnown     bool
@@ -71,6 +74,10 @@ func newPipeline(r *Relay, s IngestSession) (*pipeline, error) {
 	cfg := r.cfg
 	p := &pipeline{r: r, cfg: cfg, sess: s, log: r.log.With("session", short(s.ID()))}
 	var err error
+	p.grid, err = cadence.New(cfg.periodUs())
+	if err != nil {
+		return nil, fmt.Errorf("relay: display grid: %w: %w", ErrBadConfig, err)
+	}
 	p.flt, err = filter.New(cfg.Filter)
 	if err != nil {
 		return nil, fmt.Errorf("relay: filter: %w: %w", ErrBadConfig, err)
@@ -235,7 +242,7 @@ func (p *pipeline) armTimer(t Timer) {
 }
 
 func (p *pipeline) nominalCaptureUs(k int) int64 {
-	return p.c0Us + int64(math.Round(float64(k)*p.cfg.periodUs()))
+	return p.grid.CaptureUs(k)
 }
 
 func (p *pipeline) deadlineUs(k int) int64 {
@@ -313,7 +320,7 @@ func (p *pipeline) onFrame(ev frameEvent) {
 		p.shift(ev.shiftUs)
 	}
 	if !p.haveC0 {
-		p.haveC0, p.c0Us, p.next = true, ev.captureUs, 0
+		p.haveC0, p.next = true, 0
 	}
 	if ev.vehicleClk && !p.vehicleClock {
 		p.startRecording()
@@ -330,7 +337,7 @@ func (p *pipeline) onFrame(ev frameEvent) {
 		}
 		p.r.setLatency(p.latUs, p.latKnown)
 	}
-	k := int(math.Round(float64(ev.captureUs-p.c0Us) / p.cfg.periodUs()))
+	k := p.grid.Observe(ev.captureUs)
 	// Deadlines that passed before this frame was ready (a frame ready at
 	// its deadline is still in time, as in bench.Schedule.Live).
 	p.advance(ev.readyUs)
@@ -486,7 +493,7 @@ func (p *pipeline) refreshLink() {
 // the old timeline, so the filler starts over.
 func (p *pipeline) shift(d int64) {
 	if p.haveC0 {
-		p.c0Us += d
+		p.grid.Shift(d)
 	}
 	if p.cfg.LatencyMs != 0 {
 		// A configured latency is relative to the vehicle clock already.
