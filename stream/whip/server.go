@@ -19,6 +19,7 @@ import (
 	"sync"
 	"time"
 
+	"github.com/pion/ice/v4"
 	"github.com/pion/interceptor"
 	"github.com/pion/interceptor/pkg/report"
 	"github.com/pion/webrtc/v4"
@@ -58,6 +59,7 @@ type Server struct {
 	accepted uint64
 	ended    uint64
 	rejected [numRejectReasons]uint64
+	ownMux   io.Closer // the UDP mux opened for Network.UDPPort, closed by Close
 }
 
 // NewServer validates cfg, applies defaults and returns a Server. It returns ErrNoToken without a token.
@@ -66,12 +68,30 @@ func NewServer(cfg Config) (*Server, error) {
 	if err != nil {
 		return nil, err
 	}
-	return &Server{
-		cfg:      c,
+	s := &Server{
 		limiter:  newRateLimiter(c.PostRatePerS, c.PostBurst, maxRateLimitKeys),
 		tokenH:   sha256.Sum256([]byte(c.Token)),
 		sessions: map[string]*Session{},
-	}, nil
+	}
+	if n := c.Network; n.UDPPort != 0 && n.UDPMux == nil {
+		opts := []ice.UDPMuxFromPortOption{ice.UDPMuxFromPortWithInterfaceFilter(n.keepInterface),
+			ice.UDPMuxFromPortWithLogger(slogFactory{c.Logger}.NewLogger("udpmux"))}
+		if n.IncludeLoopback || n.LoopbackOnly {
+			opts = append(opts, ice.UDPMuxFromPortWithLoopback())
+		}
+		if n.LoopbackOnly {
+			opts = append(opts, ice.UDPMuxFromPortWithIPFilter(func(ip net.IP) bool { return ip.IsLoopback() }),
+				ice.UDPMuxFromPortWithNetworks(ice.NetworkTypeUDP4))
+		}
+		mux, err := ice.NewMultiUDPMuxFromPort(n.UDPPort, opts...)
+		if err != nil {
+			return nil, fmt.Errorf("whip: open UDP port %d for ICE (Network.UDPPort): %w; choose a free port", n.UDPPort, err)
+		}
+		s.ownMux = mux
+		c.Network.UDPMux = mux
+	}
+	s.cfg = c
+	return s, nil
 }
 
 // ServerStats are the server's counters.
@@ -110,8 +130,8 @@ func (s *Server) Sessions() []*Session {
 	return out
 }
 
-// Close ends every session (EndServerShutdown) and makes later POSTs fail with 503. It does not stop the
-// http.Server the handler is mounted on.
+// Close ends every session (EndServerShutdown), closes the UDP port opened for Network.UDPPort, and makes
+// later POSTs fail with 503. It does not stop the http.Server the handler is mounted on.
 func (s *Server) Close() error {
 	s.mu.Lock()
 	s.closed = true
@@ -122,6 +142,13 @@ func (s *Server) Close() error {
 	s.mu.Unlock()
 	for _, ss := range all {
 		ss.end(EndServerShutdown)
+	}
+	s.mu.Lock()
+	mux := s.ownMux
+	s.ownMux = nil
+	s.mu.Unlock()
+	if mux != nil {
+		return mux.Close()
 	}
 	return nil
 }
