@@ -159,7 +159,7 @@ func (m *metrics) writeText(w io.Writer, active int) {
 	counter("telemetry_in", "Telemetry samples accepted by the filter.", m.telemetryIn.Load())
 	counter("record_errors", "Recording writes that failed.", m.recordErrors.Load())
 	counter("sessions", "Ingest sessions served.", m.sessions.Load())
-	m.telemetryRejected.write(w, "telemetry_rejected", "reason", "Telemetry messages rejected, by reason (decode_* by the decoder, filter_* by the filter, queue_full).")
+	m.telemetryRejected.write(w, "telemetry_rejected", "reason", "Telemetry messages rejected, by reason (decode_* by the decoder, filter_* by the filter, queue_full, too_late: arrived later than the filter history after it was taken).")
 	m.rtpDropped.write(w, "rtp_dropped", "reason", "RTP packets not used, by reason.")
 	fmt.Fprintf(w, "# HELP active_sessions Ingest sessions being served now.\n# TYPE active_sessions gauge\nactive_sessions %d\n", active)
 	m.addedLatency.write(w, "relay_added_latency_seconds", "Time from the last packet of a LIVE frame to console WriteFrame, excluding decode and encode.")

@@ -255,12 +255,37 @@ func (p *pipeline) deadlineUs(k int) int64 {
 // handled (feedTelemetry), exactly as the offline replay feeds them, so the
 // filter sees the same samples at every tick in both and a recorded session
 // replays to the same PREDICTED/STALE decisions.
+//
+// A sample that arrives later than the filter's history window after it was
+// taken (on the display clock: vehicle time plus the nominal latency) is
+// dropped and counted as "too_late": an ordered, reliable data channel
+// delivers such samples in a burst after an outage, and none can change a
+// tick the display still has to fill.
 func (p *pipeline) onTelemetry(te telEvent) {
+	if p.vehicleClock && p.latKnown && telemetryTooLate(te.arrivalUs, te.sample.TimeUs, p.latUs, p.maxTelAgeUs()) {
+		p.r.met.telemetryRejected.inc("too_late")
+		return
+	}
 	if !p.haveC0 || len(p.pendTel) >= maxPendingTelemetry {
 		p.feed(te)
 		return
 	}
 	p.pendTel = append(p.pendTel, te)
+}
+
+// telemetryTooLate reports whether a sample taken at timeUs (vehicle clock)
+// that arrived at arrivalUs (receiver clock) is more than maxAgeUs late,
+// latUs being the nominal receiver-minus-vehicle latency.
+func telemetryTooLate(arrivalUs, timeUs, latUs, maxAgeUs int64) bool {
+	return arrivalUs-(timeUs+latUs) > maxAgeUs
+}
+
+// maxTelAgeUs is the filter's history window (filter.Config.HistoryUs).
+func (p *pipeline) maxTelAgeUs() int64 {
+	if h := p.cfg.Filter.HistoryUs; h > 0 {
+		return h
+	}
+	return filter.DefaultHistoryUs
 }
 
 // maxPendingTelemetry bounds the samples waiting for their tick (40 s of

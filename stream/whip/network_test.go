@@ -1,13 +1,16 @@
 package whip
 
 import (
+	"bytes"
 	"context"
 	"errors"
+	"log/slog"
 	"net"
 	"net/http"
 	"net/http/httptest"
 	"strconv"
 	"strings"
+	"sync"
 	"testing"
 	"time"
 
@@ -153,4 +156,47 @@ func loopbackName(t *testing.T) string {
 	}
 	t.Skip("no loopback interface")
 	return ""
+}
+
+// TestTelemetryChannelKind: the session reports how the telemetry channel was opened and warns once
+// about an ordered, reliable one (head-of-line blocking), never about an unordered, unreliable one.
+func TestTelemetryChannelKind(t *testing.T) {
+	for _, reliable := range []bool{false, true} {
+		var buf syncBuffer
+		log := slog.New(slog.NewTextHandler(&buf, &slog.HandlerOptions{Level: slog.LevelWarn}))
+		_, sess, pub := connect(t, Config{Logger: log}, PublishConfig{TelemetryReliable: reliable})
+		if err := pub.SendTelemetry([]byte(`{}`)); err != nil {
+			t.Fatal(err)
+		}
+		waitFor(t, 5*time.Second, "the telemetry message", func() bool { return sess.Stats().TelemetryMessages == 1 })
+		st := sess.Stats()
+		if st.TelemetryOrdered != reliable || st.TelemetryReliable != reliable {
+			t.Errorf("reliable publisher %v: ordered %v reliable %v", reliable, st.TelemetryOrdered, st.TelemetryReliable)
+		}
+		want := 0
+		if reliable {
+			want = 1
+		}
+		if n := strings.Count(buf.String(), "telemetry data channel is ordered or reliable"); n != want {
+			t.Errorf("reliable publisher %v: %d warnings, want %d:\n%s", reliable, n, want, buf.String())
+		}
+	}
+}
+
+// syncBuffer is a bytes.Buffer safe for the logger's concurrent writes.
+type syncBuffer struct {
+	mu sync.Mutex
+	b  bytes.Buffer
+}
+
+func (s *syncBuffer) Write(p []byte) (int, error) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.b.Write(p)
+}
+
+func (s *syncBuffer) String() string {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.b.String()
 }

@@ -58,6 +58,11 @@ type SessionStats struct {
 	TelemetryMessages, TelemetryDropped uint64
 	// OtherDataChannels counts data channels with a label other than TelemetryLabel (closed on arrival).
 	OtherDataChannels uint64
+	// TelemetryOrdered and TelemetryReliable tell how the vehicle opened the telemetry channel. Telemetry
+	// wants neither: an ordered or retransmitting channel holds every message behind a lost one (head-of-
+	// line blocking), so after an outage samples arrive seconds late. Open it with
+	// {ordered: false, maxRetransmits: 0}; a warning is logged once per session otherwise.
+	TelemetryOrdered, TelemetryReliable bool
 	// RTT is the latest STUN round-trip time of the selected ICE candidate pair (ICE consent checks, every
 	// few seconds); HasRTT is false until one was measured. The receive-only session cannot measure RTT
 	// from RTCP (that would need XR DLRR from the sender).
@@ -108,6 +113,8 @@ type Session struct {
 	telMessages  uint64
 	telDropped   uint64
 	otherChannel uint64
+	telOrdered   bool
+	telReliable  bool
 }
 
 // ID returns the session's resource identifier: 32 hex digits from crypto/rand (128 bits), the last path
@@ -226,6 +233,8 @@ func (s *Session) Stats() SessionStats {
 		TelemetryMessages: s.telMessages,
 		TelemetryDropped:  s.telDropped,
 		OtherDataChannels: s.otherChannel,
+		TelemetryOrdered:  s.telOrdered,
+		TelemetryReliable: s.telReliable,
 	}
 	s.mu.Unlock()
 	st.PacketsDropped = s.rtpDropped.Load()
@@ -409,6 +418,15 @@ func (s *Session) onDataChannel(dc *webrtc.DataChannel) {
 		go dc.Close()
 		return
 	}
+	ordered := dc.Ordered()
+	reliable := dc.MaxRetransmits() == nil && dc.MaxPacketLifeTime() == nil
+	if ordered || reliable {
+		s.log.Warn("telemetry data channel is ordered or reliable: after a loss its messages wait behind each other and arrive late; open it with {ordered: false, maxRetransmits: 0}",
+			"ordered", ordered, "reliable", reliable)
+	}
+	s.mu.Lock()
+	s.telOrdered, s.telReliable = ordered, reliable
+	s.mu.Unlock()
 	dc.OnMessage(func(msg webrtc.DataChannelMessage) {
 		now := s.clock.Now()
 		s.mu.Lock()
