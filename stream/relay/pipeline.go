@@ -495,6 +495,10 @@ func (p *pipeline) refreshLink() {
 	p.link.KeyframeRequests = p.r.met.keyframeRequests.Load()
 	p.link.FramesIn = p.r.met.framesIn.Load()
 	p.link.DelayMs = finite(p.lastDelayMs)
+	p.in.mu.Lock()
+	lastPkt := p.in.lastArrival
+	p.in.mu.Unlock()
+	p.link.NoPacketsMs = noPacketsMs(now, lastPkt)
 	if !p.lastStatsAt.IsZero() && now.Sub(p.lastStatsAt) < time.Second {
 		return
 	}
@@ -511,6 +515,19 @@ func (p *pipeline) refreshLink() {
 	p.countDrops(st)
 	p.countRepair(st.Repair)
 	p.link.JitterMs = float64(st.Jitter) / float64(time.Millisecond)
+}
+
+// noPacketsMs returns console.LinkStats.NoPacketsMs at now for a link whose
+// latest packet arrived at last (zero: none yet, which the console's
+// NOSIGNAL state covers).
+func noPacketsMs(now, last time.Time) float64 {
+	if last.IsZero() {
+		return 0
+	}
+	if d := float64(now.Sub(last)) / float64(time.Millisecond); d >= console.NoPacketsAfterMs {
+		return d
+	}
+	return 0
 }
 
 // shift moves the session timeline by d µs when capture times switch from
