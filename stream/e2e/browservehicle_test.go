@@ -1,0 +1,383 @@
+package e2e
+
+import (
+	"bufio"
+	"context"
+	"fmt"
+	"io"
+	"net"
+	"net/http"
+	"net/url"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"strconv"
+	"strings"
+	"sync"
+	"syscall"
+	"testing"
+	"time"
+
+	"gocv.io/x/gocv"
+
+	"stopgap/predictor"
+	"stopgap/stream/console/consoletest"
+	"stopgap/stream/recording"
+	"stopgap/stream/relay"
+	"stopgap/stream/whip"
+)
+
+// The browser-as-vehicle rig: Debian's Chromium, inside a network namespace
+// of the test's own, publishes a simdrive drive (its fake camera reads it as
+// Y4M) over WHIP to the relay in the test process, with telemetry on an
+// unordered, unreliable data channel. The namespace is joined to the host by
+// a veth pair; the relay offers ICE candidates on the host end only, on one
+// UDP port, so iptables rules inside the namespace on that port make loss
+// and outages on the media path alone.
+
+// vehiclePage is the browser vehicle. Query parameters: whip (endpoint),
+// token, w and h (camera size), dur (seconds before it ends its session with
+// DELETE). It reports progress and errors to /vehicle-log.
+const vehiclePage = `<!doctype html><meta charset="utf-8"><title>vehicle</title>
+<script>
+const q = new URLSearchParams(location.search);
+const log = (m) => fetch("/vehicle-log", {method: "POST", body: String(m)}).catch(() => {});
+(async () => {
+  try {
+    const pc = new RTCPeerConnection();
+    // Telemetry: unordered, no retransmissions (a late sample is worth nothing).
+    const dc = pc.createDataChannel("telemetry", {ordered: false, maxRetransmits: 0});
+    dc.onopen = () => {
+      log("telemetry open");
+      setInterval(() => {
+        if (dc.readyState !== "open") return;
+        const t = Math.round((performance.timeOrigin + performance.now()) * 1000);
+        dc.send(JSON.stringify({t_us: t, speed_mps: 8, yaw_rate_rps: 0.02}));
+      }, 20);
+    };
+    pc.onconnectionstatechange = () => log("pc " + pc.connectionState);
+    const stream = await navigator.mediaDevices.getUserMedia(
+      {video: {width: +q.get("w"), height: +q.get("h"), frameRate: 30}});
+    const track = stream.getVideoTracks()[0];
+    track.contentHint = "motion";
+    const tr = pc.addTransceiver(track, {direction: "sendonly"});
+    tr.setCodecPreferences(RTCRtpSender.getCapabilities("video").codecs.filter(c => c.mimeType === "video/VP8"));
+    await pc.setLocalDescription(await pc.createOffer());
+    await new Promise((done) => {
+      if (pc.iceGatheringState === "complete") return done();
+      pc.onicegatheringstatechange = () => { if (pc.iceGatheringState === "complete") done(); };
+      setTimeout(done, 3000);
+    });
+    const resp = await fetch(q.get("whip"), {method: "POST",
+      headers: {"Authorization": "Bearer " + q.get("token"), "Content-Type": "application/sdp"},
+      body: pc.localDescription.sdp});
+    const answer = await resp.text();
+    if (resp.status !== 201) { log("whip status " + resp.status + ": " + answer); return; }
+    const resource = new URL(resp.headers.get("Location"), q.get("whip")).href;
+    await pc.setRemoteDescription({type: "answer", sdp: answer});
+    try {
+      // Keep the camera's size: the relay's camera model is for it.
+      const p = tr.sender.getParameters();
+      p.degradationPreference = "maintain-resolution";
+      await tr.sender.setParameters(p);
+    } catch (e) { log("degradationPreference: " + e); }
+    setTimeout(async () => {
+      await fetch(resource, {method: "DELETE", headers: {"Authorization": "Bearer " + q.get("token")}}).catch(() => {});
+      pc.close();
+      log("done");
+    }, 1000 * +q.get("dur"));
+  } catch (e) { log("error " + e); }
+})();
+</script>`
+
+// requireBrowserVehicle skips t unless it can build the rig: root, ip,
+// iptables and chromium.
+func requireBrowserVehicle(t *testing.T) string {
+	t.Helper()
+	exe := consoletest.RequireChromium(t)
+	if os.Geteuid() != 0 {
+		t.Skip("browser-vehicle test: needs root to create a network namespace (ip netns) and iptables rules; skipping")
+	}
+	for _, tool := range []string{"ip", "iptables"} {
+		if _, err := exec.LookPath(tool); err != nil {
+			t.Skipf("browser-vehicle test: %s not found (apt-get install iproute2 iptables, as ./dev.sh deps does); skipping", tool)
+		}
+	}
+	return exe
+}
+
+// netns is a network namespace of the test's own joined to the host by a
+// veth pair: hostIP on hostIf, nsIP inside.
+type netns struct {
+	t                  *testing.T
+	name, hostIf, nsIf string
+	hostIP, nsIP       string
+	mu                 sync.Mutex
+	rules              [][]string // iptables rules in place, to delete
+}
+
+func run(args ...string) error {
+	out, err := exec.Command(args[0], args[1:]...).CombinedOutput()
+	if err != nil {
+		return fmt.Errorf("%s: %w: %s", strings.Join(args, " "), err, strings.TrimSpace(string(out)))
+	}
+	return nil
+}
+
+// newNetns creates the namespace and the veth pair; t.Cleanup deletes them.
+func newNetns(t *testing.T) *netns {
+	t.Helper()
+	id := os.Getpid() % 100000
+	n := &netns{t: t, name: fmt.Sprintf("sgv%d", id), hostIf: fmt.Sprintf("sgh%d", id), nsIf: fmt.Sprintf("sgn%d", id),
+		hostIP: fmt.Sprintf("10.213.%d.1", id%250), nsIP: fmt.Sprintf("10.213.%d.2", id%250)}
+	if err := run("ip", "netns", "add", n.name); err != nil {
+		t.Skipf("browser-vehicle test: cannot create a network namespace: %v", err)
+	}
+	t.Cleanup(func() {
+		if err := run("ip", "netns", "del", n.name); err != nil {
+			t.Errorf("deleting the namespace: %v", err)
+		}
+		_ = run("ip", "link", "del", n.hostIf) // gone with the namespace normally
+	})
+	for _, c := range [][]string{
+		{"ip", "link", "add", n.hostIf, "type", "veth", "peer", "name", n.nsIf, "netns", n.name},
+		{"ip", "addr", "add", n.hostIP + "/30", "dev", n.hostIf},
+		{"ip", "link", "set", n.hostIf, "up"},
+		{"ip", "netns", "exec", n.name, "ip", "addr", "add", n.nsIP + "/30", "dev", n.nsIf},
+		{"ip", "netns", "exec", n.name, "ip", "link", "set", n.nsIf, "up"},
+		{"ip", "netns", "exec", n.name, "ip", "link", "set", "lo", "up"},
+	} {
+		if err := run(c...); err != nil {
+			t.Fatal(err)
+		}
+	}
+	return n
+}
+
+// addRule inserts an iptables rule inside the namespace.
+func (n *netns) addRule(rule ...string) {
+	n.t.Helper()
+	if err := run(append([]string{"ip", "netns", "exec", n.name, "iptables", "-I"}, rule...)...); err != nil {
+		n.t.Fatal(err)
+	}
+	n.mu.Lock()
+	n.rules = append(n.rules, rule)
+	n.mu.Unlock()
+}
+
+// clearRules deletes every rule added.
+func (n *netns) clearRules() {
+	n.t.Helper()
+	n.mu.Lock()
+	rules := n.rules
+	n.rules = nil
+	n.mu.Unlock()
+	for _, r := range rules {
+		if err := run(append([]string{"ip", "netns", "exec", n.name, "iptables", "-D"}, r...)...); err != nil {
+			n.t.Error(err)
+		}
+	}
+}
+
+// randomLoss drops a share p of the media packets the browser sends.
+func (n *netns) randomLoss(port int, p float64) {
+	n.addRule("OUTPUT", "-p", "udp", "--dport", strconv.Itoa(port), "-m", "statistic", "--mode", "random",
+		"--probability", strconv.FormatFloat(p, 'f', 4, 64), "-j", "DROP")
+}
+
+// cut drops every packet to and from the relay's media port.
+func (n *netns) cut(port int) {
+	n.addRule("OUTPUT", "-p", "udp", "--dport", strconv.Itoa(port), "-j", "DROP")
+	n.addRule("INPUT", "-p", "udp", "--sport", strconv.Itoa(port), "-j", "DROP")
+}
+
+// writeY4M writes the drive's frames as a 4:2:0 Y4M file for Chromium's fake
+// camera.
+func writeY4M(t *testing.T, rec *recording.Recording, path string) {
+	t.Helper()
+	f, err := os.Create(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	w := bufio.NewWriter(f)
+	fmt.Fprintf(w, "YUV4MPEG2 W%d H%d F30:1 Ip A1:1 C420jpeg\n", rec.Camera.Width, rec.Camera.Height)
+	yuv := gocv.NewMat()
+	defer yuv.Close()
+	for _, fr := range rec.Frames {
+		img := gocv.IMRead(filepath.Join(rec.Dir, filepath.FromSlash(fr.File)), gocv.IMReadColor)
+		if img.Empty() {
+			t.Fatalf("frame %d (%s) unreadable", fr.Index, fr.File)
+		}
+		gocv.CvtColor(img, &yuv, gocv.ColorBGRToYUVI420)
+		img.Close()
+		w.WriteString("FRAME\n")
+		w.Write(yuv.ToBytes())
+	}
+	if err := w.Flush(); err != nil {
+		t.Fatal(err)
+	}
+}
+
+// browserRig is the relay on the host end of the veth pair and the page
+// server; sessions are Chromium processes inside the namespace.
+type browserRig struct {
+	t       *testing.T
+	exe     string
+	ns      *netns
+	relay   *relay.Relay
+	base    string // http://hostIP:port
+	udpPort int
+	y4m     string
+	w, h    int
+
+	mu   sync.Mutex
+	logs []string
+}
+
+func startBrowserRig(t *testing.T, w, h int, driveS float64) *browserRig {
+	t.Helper()
+	exe := requireBrowserVehicle(t)
+	ns := newNetns(t)
+	dir := t.TempDir()
+	rec, err := recording.Open(renderDrive(t, dir, w, h, driveS))
+	if err != nil {
+		t.Fatal(err)
+	}
+	r := &browserRig{t: t, exe: exe, ns: ns, w: w, h: h, y4m: filepath.Join(dir, "drive.y4m")}
+	writeY4M(t, rec, r.y4m)
+	pc, err := net.ListenPacket("udp4", ns.hostIP+":0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	r.udpPort = pc.LocalAddr().(*net.UDPAddr).Port
+	pc.Close()
+	r.relay, err = relay.New(relay.Config{
+		FPS: 30, Camera: predictor.CameraFromRecording(rec.Camera),
+		IngestToken: ingestToken, ConsoleToken: consoleToken, Logger: quietLogger(),
+		Whip: whip.Config{Network: whip.Network{Interfaces: []string{ns.hostIf}, UDPPort: r.udpPort}},
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	ln, err := net.Listen("tcp", ns.hostIP+":0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	mux := http.NewServeMux()
+	mux.Handle("/", r.relay.Handler())
+	mux.HandleFunc("/vehicle.html", func(w http.ResponseWriter, _ *http.Request) {
+		w.Header().Set("Content-Type", "text/html; charset=utf-8")
+		io.WriteString(w, vehiclePage)
+	})
+	mux.HandleFunc("/vehicle-log", func(w http.ResponseWriter, req *http.Request) {
+		b, _ := io.ReadAll(io.LimitReader(req.Body, 2048))
+		r.mu.Lock()
+		r.logs = append(r.logs, time.Now().Format("15:04:05.000")+" "+string(b))
+		r.mu.Unlock()
+	})
+	srv := &http.Server{Handler: mux, ReadHeaderTimeout: 5 * time.Second}
+	go srv.Serve(ln)
+	r.base = "http://" + ln.Addr().String()
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan error, 1)
+	go func() { done <- r.relay.Run(ctx) }()
+	t.Cleanup(func() {
+		cancel()
+		if err := <-done; err != nil {
+			t.Errorf("relay: %v", err)
+		}
+		srv.Close()
+		if t.Failed() {
+			r.mu.Lock()
+			for _, l := range r.logs {
+				t.Log("vehicle page:", l)
+			}
+			r.mu.Unlock()
+		}
+	})
+	return r
+}
+
+// session runs one browser session of durS seconds; it returns when the
+// browser process was started. stop ends it (by PID) and waits.
+func (r *browserRig) session(durS float64) (stop func()) {
+	r.t.Helper()
+	page := fmt.Sprintf("%s/vehicle.html?whip=%s&token=%s&w=%d&h=%d&dur=%g", r.base,
+		url.QueryEscape(r.base+"/whip"), url.QueryEscape(ingestToken), r.w, r.h, durS)
+	userDir := r.t.TempDir()
+	args := []string{"netns", "exec", r.ns.name, r.exe,
+		"--headless", "--no-sandbox", "--disable-gpu", "--no-first-run", "--no-default-browser-check",
+		"--disable-background-networking", "--disable-component-update", "--disable-sync", "--disable-extensions",
+		"--mute-audio", "--disable-background-timer-throttling", "--disable-renderer-backgrounding",
+		"--use-fake-device-for-media-stream", "--use-fake-ui-for-media-stream",
+		"--use-file-for-fake-video-capture=" + r.y4m,
+		"--unsafely-treat-insecure-origin-as-secure=" + r.base,
+		"--user-data-dir=" + userDir, page}
+	cmd := exec.Command("ip", args...)
+	cmd.SysProcAttr = &syscall.SysProcAttr{Setpgid: true}
+	if err := cmd.Start(); err != nil {
+		r.t.Fatalf("starting chromium: %v", err)
+	}
+	pgid := cmd.Process.Pid
+	var once sync.Once
+	stop = func() {
+		once.Do(func() {
+			_ = syscall.Kill(-pgid, syscall.SIGKILL) // the browser's own process group
+			_ = cmd.Wait()
+		})
+	}
+	r.t.Cleanup(stop)
+	return stop
+}
+
+// ticks returns live and total ticks between two relay snapshots.
+func ticks(a, b relay.Stats) (live, total uint64) {
+	live = b.TicksLive - a.TicksLive
+	return live, live + (b.TicksPredicted - a.TicksPredicted) + (b.TicksStale - a.TicksStale)
+}
+
+func share(live, total uint64) float64 { return float64(live) / float64(max(total, 1)) }
+
+// waitSession waits until the relay serves a session that has shown a tick.
+func (r *browserRig) waitSession(before relay.Stats, timeout time.Duration) relay.Stats {
+	r.t.Helper()
+	var st relay.Stats
+	waitFor(r.t, "the browser's session to show ticks", timeout, func() bool {
+		st = r.relay.Stats()
+		_, n := ticks(before, st)
+		return st.Sessions > before.Sessions && n > 0
+	})
+	return st
+}
+
+// waitIdle waits until the relay serves no session.
+func (r *browserRig) waitIdle(timeout time.Duration) {
+	r.t.Helper()
+	waitFor(r.t, "the browser's session to end", timeout, func() bool { return !r.relay.Stats().Active })
+}
+
+// TestBrowserVehicle is the short version: one 6 s session of Chromium as
+// the vehicle on a clean link. It checks that the browser's session works
+// end to end (LIVE ticks, telemetry through the unordered channel) and logs
+// the share of LIVE ticks; the figures with thresholds are in
+// TestAcceptBrowserVehicle.
+func TestBrowserVehicle(t *testing.T) {
+	if testing.Short() {
+		t.Skip("browser-vehicle run of about 15 s")
+	}
+	r := startBrowserRig(t, 320, 180, 4)
+	s0 := r.relay.Stats()
+	stop := r.session(6)
+	defer stop()
+	s1 := r.waitSession(s0, 20*time.Second)
+	time.Sleep(4 * time.Second)
+	s2 := r.relay.Stats()
+	live, total := ticks(s1, s2)
+	t.Logf("clean link, 4 s of a browser session: %d of %d ticks LIVE (%.1f%%); telemetry in %d; repair %+v",
+		live, total, 100*share(live, total), s2.TelemetryIn-s0.TelemetryIn, s2.Repair)
+	if live == 0 || s2.TelemetryIn == s0.TelemetryIn {
+		t.Errorf("no LIVE tick or no telemetry from the browser: %+v", s2)
+	}
+	r.waitIdle(15 * time.Second)
+}
