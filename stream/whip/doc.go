@@ -41,8 +41,11 @@
 // # Networking
 //
 // [Network] selects where ICE candidates are gathered. LoopbackOnly restricts both ends to 127.0.0.1 over
-// UDP/IPv4 (tests, demos, the simulated vehicle); multicast DNS candidates are always off; Network.UDPMux
-// puts every session on one UDP port. No STUN or TURN is used. A vehicle that vanishes without DELETE is
+// UDP/IPv4 (tests, demos, the simulated vehicle); IncludeLoopback adds loopback candidates to the others;
+// Interfaces limits gathering to named interfaces; NAT1To1IPs announces a public address; UDPPort (or a
+// caller's UDPMux) puts every session on one UDP port. Multicast DNS candidates are always off. No STUN or
+// TURN is used. The answer offers transport-wide congestion control feedback, so a browser sender can
+// estimate its bandwidth from the start. A vehicle that vanishes without DELETE is
 // noticed by ICE consent checks: with pion's defaults (keepalive 2 s) the connection turns disconnected after
 // 5 s and failed after 25 s, and a failed connection ends the session (EndFailed). The relay should not wait
 // for that: missing video is its own, faster signal.
