@@ -29,7 +29,7 @@
 //     the period by PeriodGain*e per tick. Senders that stamp capture times
 //     in whole milliseconds (steps of 33 and 34 ms at 30 fps) leave
 //     residuals of at most about 0.7 ms, which the loop averages out; a
-//     clock that runs slow or fast is followed within about 15 frames.
+//     clock that runs slow or fast is followed within about 30 frames.
 //
 // A Grid is not safe for concurrent use.
 package cadence
@@ -45,12 +45,15 @@ import (
 const (
 	// PhaseGain is the share of a frame's residual added to the grid's
 	// phase.
-	PhaseGain = 1.0 / 8
+	PhaseGain = 1.0 / 16
 	// PeriodGain is the share of a frame's residual (per tick) added to the
 	// period. With PhaseGain it gives the loop's characteristic polynomial
 	// z^2 - (2 - PhaseGain - PeriodGain) z + (1 - PhaseGain), whose roots
-	// have modulus sqrt(7/8) = 0.935: stable, settling in about 15 frames.
-	PeriodGain = 1.0 / 64
+	// are complex with modulus sqrt(15/16) = 0.968: stable, settling in about
+	// 30 frames. Smaller gains follow a drifting clock more slowly; larger
+	// ones let a browser's capture jitter (several ms on a loaded host) move
+	// the period by a percent.
+	PeriodGain = 1.0 / 256
 	// RateFrames is how many consecutive equal intervals confirm a new
 	// frame rate.
 	RateFrames = 3

@@ -173,3 +173,26 @@ func TestNewRejectsBadPeriod(t *testing.T) {
 		}
 	}
 }
+
+// TestGridCaptureJitter: capture times jittered by up to ±4 ms (a browser's
+// fake camera on a loaded host) still map to consecutive ticks, and the
+// period stays within 0.5% of the sender's after the loop settled.
+func TestGridCaptureJitter(t *testing.T) {
+	const nominal = 1e6 / 30.0
+	g, _ := New(nominal)
+	rng := rand.New(rand.NewPCG(3, 4))
+	worst := 0.0
+	for i := 0; i < 3000; i++ {
+		c := int64(float64(i)*nominal + (rng.Float64()*2-1)*4000)
+		if k := g.Observe(c); k != i {
+			t.Fatalf("frame %d mapped to tick %d", i, k)
+		}
+		if i > 100 {
+			worst = max(worst, math.Abs(g.PeriodUs()-nominal)/nominal)
+		}
+	}
+	if worst > 0.005 {
+		t.Errorf("period off by up to %.2f%% under jitter, want <= 0.5%%", 100*worst)
+	}
+	t.Logf("worst period error under ±4 ms jitter: %.3f%%", 100*worst)
+}
