@@ -120,21 +120,16 @@ func NewSchedule(captureUs, arrivalUs []int64, allowanceUs int64) (Schedule, err
 }
 
 // gridTimes places each tick on the display grid as the live relay does
-// (cadence.Grid, started at the median capture interval): tick k's time is
-// the grid's, as it stands after the frames before k that arrived, at the
-// grid tick nearest capture_k. Frames are taken in capture order.
+// (cadence.Grid, started at the mean capture interval, as the relay starts at
+// its configured frame rate): tick k's time is the grid's, as it stands after
+// the frames before k that arrived, at the grid tick nearest capture_k.
+// Frames are taken in capture order.
 func gridTimes(captureUs, arrivalUs []int64) []int64 {
-	var iv []int64
-	for i := 1; i < len(captureUs); i++ {
-		if d := captureUs[i] - captureUs[i-1]; d > 0 {
-			iv = append(iv, d)
-		}
-	}
-	if len(iv) == 0 {
+	n := len(captureUs)
+	if n < 2 || captureUs[n-1] <= captureUs[0] {
 		return nil
 	}
-	sort.Slice(iv, func(i, j int) bool { return iv[i] < iv[j] })
-	g, err := cadence.New(float64(iv[len(iv)/2]))
+	g, err := cadence.New(float64(captureUs[n-1]-captureUs[0]) / float64(n-1))
 	if err != nil {
 		return nil
 	}
