@@ -27,12 +27,18 @@ const (
 	DefaultMaxNACKGap = 256
 )
 
+// tailProbe is how long after a packet without the RTP marker bit the next one may take before it is
+// asked for (our choice: several packet spacings of a paced sender at video rates). Without it the loss of
+// a frame's last packet is seen only when the next frame starts, a frame period later.
+const tailProbe = 10 * time.Millisecond
+
 // maxPendingRepairs bounds the sequence numbers waiting for a retransmission.
 const maxPendingRepairs = 1024
 
 // RepairStats are the counters of the loss repair of one session.
 type RepairStats struct {
-	// Gaps counts sequence numbers seen missing and asked for (each once, however often it was NACKed).
+	// Gaps counts sequence numbers seen missing and asked for (each once, however often it was NACKed),
+	// including the successors of a packet without the marker bit asked for after tailProbe.
 	Gaps uint64
 	// Repaired counts missing sequence numbers that arrived later (a retransmission or a reordered packet).
 	Repaired uint64
@@ -59,6 +65,7 @@ type pendingRepair struct {
 	firstNACK time.Time
 	lastNACK  time.Time
 	count     uint16
+	probe     bool // asked for before any later packet showed it missing (see tailProbe)
 }
 
 // repairState decides when each missing sequence number is NACKed: at once when the gap is seen, again
@@ -74,6 +81,7 @@ type repairState struct {
 	started  bool
 	highest  int64
 	lastSeen time.Time
+	openTail bool // the highest packet had no marker bit and its successor was not probed yet
 	pending  []pendingRepair // ascending ext
 
 	srtt, rttvar time.Duration
@@ -120,10 +128,11 @@ func (r *repairState) sample(d time.Duration) {
 	r.stats.RTTSamples++
 }
 
-// onPacket records the arrival of seq at now and appends to dst the sequence numbers to NACK at once.
-func (r *repairState) onPacket(seq uint16, now time.Time, dst []uint16) []uint16 {
+// onPacket records the arrival of seq (with its RTP marker bit) at now and appends to dst the sequence
+// numbers to NACK at once.
+func (r *repairState) onPacket(seq uint16, marker bool, now time.Time, dst []uint16) []uint16 {
 	if !r.started {
-		r.started, r.highest, r.lastSeen = true, 1<<32+int64(seq), now
+		r.started, r.highest, r.lastSeen, r.openTail = true, 1<<32+int64(seq), now, !marker
 		return dst
 	}
 	ext := r.highest + int64(int16(seq-uint16(r.highest)))
@@ -136,6 +145,20 @@ func (r *repairState) onPacket(seq uint16, now time.Time, dst []uint16) []uint16
 	gap := ext - r.highest - 1
 	first := r.highest + 1
 	r.highest = ext
+	r.openTail = !marker
+	if last := len(r.pending) - 1; last >= 0 && r.pending[last].ext == first && r.pending[last].probe {
+		if gap == 0 {
+			// The probed packet itself: late, or its NACK was answered.
+			r.pending = r.pending[:last]
+			r.stats.Repaired++
+			return dst
+		}
+		// The probe was right: first is missing and already asked for
+		// (still marked as a probe: its answer gives no round-trip sample,
+		// since the packet may merely have been late).
+		first++
+		gap--
+	}
 	if gap == 0 {
 		return dst
 	}
@@ -161,7 +184,7 @@ func (r *repairState) resolve(ext int64, now time.Time) {
 		if r.pending[i].ext != ext {
 			continue
 		}
-		if p := r.pending[i]; p.count == 1 {
+		if p := r.pending[i]; p.count == 1 && !p.probe {
 			r.sample(now.Sub(p.firstNACK))
 		}
 		r.pending = append(r.pending[:i], r.pending[i+1:]...)
@@ -171,9 +194,17 @@ func (r *repairState) resolve(ext int64, now time.Time) {
 }
 
 // due appends to dst the pending sequence numbers whose retransmission timeout passed at now (and counts a
-// NACK for each), and drops those that exhausted their NACKs or the window.
+// NACK for each), and drops those that exhausted their NACKs or the window. It also probes for the
+// successor of a packet without the marker bit once tailProbe passed without it.
 func (r *repairState) due(now time.Time, dst []uint16) []uint16 {
 	rto := r.rto()
+	if r.openTail && now.Sub(r.lastSeen) >= tailProbe && now.Sub(r.lastSeen) < r.window {
+		r.openTail = false
+		e := r.highest + 1
+		r.pending = append(r.pending, pendingRepair{ext: e, seen: now, firstNACK: now, lastNACK: now, count: 1, probe: true})
+		r.stats.Gaps++
+		dst = append(dst, uint16(e))
+	}
 	n := 0
 	for _, p := range r.pending {
 		if now.Sub(p.seen) >= r.window || (p.count >= r.maxPer && now.Sub(p.lastNACK) >= rto) {
@@ -196,6 +227,9 @@ func (r *repairState) due(now time.Time, dst []uint16) []uint16 {
 // sequence number; ok is false when nothing is pending.
 func (r *repairState) nextDue() (at time.Time, ok bool) {
 	rto := r.rto()
+	if r.openTail {
+		at, ok = r.lastSeen.Add(tailProbe), true
+	}
 	for _, p := range r.pending {
 		t := p.lastNACK.Add(rto)
 		if end := p.seen.Add(r.window); end.Before(t) {
@@ -288,7 +322,7 @@ func (r *repairer) BindRemoteStream(info *interceptor.StreamInfo, reader interce
 		if err != nil {
 			return n, attr, err
 		}
-		r.onPacket(h.SequenceNumber)
+		r.onPacket(h.SequenceNumber, h.Marker)
 		return n, attr, nil
 	})
 }
@@ -304,10 +338,10 @@ func (r *repairer) Close() error {
 	return nil
 }
 
-func (r *repairer) onPacket(seq uint16) {
+func (r *repairer) onPacket(seq uint16, marker bool) {
 	now := r.clock.Now()
 	r.mu.Lock()
-	r.buf = r.st.onPacket(seq, now, r.buf[:0])
+	r.buf = r.st.onPacket(seq, marker, now, r.buf[:0])
 	r.sendLocked(now)
 }
 

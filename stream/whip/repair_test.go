@@ -68,7 +68,7 @@ func TestRepairNACKsAtOnceThenAtRTO(t *testing.T) {
 				if s.seq < 0 {
 					got = r.due(ms(s.at), nil)
 				} else {
-					got = r.onPacket(uint16(s.seq), ms(s.at), nil)
+					got = r.onPacket(uint16(s.seq), true, ms(s.at), nil)
 				}
 				if !slices.Equal(got, s.wantN) {
 					t.Fatalf("at %d ms (seq %d): NACKed %v, want %v", s.at, s.seq, got, s.wantN)
@@ -88,14 +88,14 @@ func TestRepairRTTFollowsRetransmissions(t *testing.T) {
 	r := newTestRepair()
 	t0 := time.Unix(1000, 0)
 	ms := func(n float64) time.Time { return t0.Add(time.Duration(n * float64(time.Millisecond))) }
-	r.onPacket(1, ms(0), nil)
-	r.onPacket(3, ms(1), nil)  // 2 missing, NACKed at 1 ms
-	r.onPacket(2, ms(21), nil) // 20 ms round trip: SRTT 20, RTTVAR 10
+	r.onPacket(1, true, ms(0), nil)
+	r.onPacket(3, true, ms(1), nil)  // 2 missing, NACKed at 1 ms
+	r.onPacket(2, true, ms(21), nil) // 20 ms round trip: SRTT 20, RTTVAR 10
 	if r.srtt != 20*time.Millisecond || r.rttvar != 10*time.Millisecond {
 		t.Fatalf("after one sample SRTT %v RTTVAR %v, want 20ms 10ms (RFC 6298 2.2)", r.srtt, r.rttvar)
 	}
-	r.onPacket(5, ms(30), nil) // 4 missing
-	r.onPacket(4, ms(34), nil) // 4 ms: RTTVAR = 3/4*10 + 1/4*16 = 11.5, SRTT = 7/8*20 + 1/8*4 = 18
+	r.onPacket(5, true, ms(30), nil) // 4 missing
+	r.onPacket(4, true, ms(34), nil) // 4 ms: RTTVAR = 3/4*10 + 1/4*16 = 11.5, SRTT = 7/8*20 + 1/8*4 = 18
 	if r.srtt != 18*time.Millisecond || r.rttvar != 11500*time.Microsecond {
 		t.Fatalf("after two samples SRTT %v RTTVAR %v, want 18ms 11.5ms (RFC 6298 2.3)", r.srtt, r.rttvar)
 	}
@@ -106,11 +106,11 @@ func TestRepairRTTFollowsRetransmissions(t *testing.T) {
 		t.Errorf("span %v, want 3 timeouts = %v", got, want)
 	}
 	// Karn: NACKed twice, then answered: no sample.
-	r.onPacket(7, ms(40), nil)
+	r.onPacket(7, true, ms(40), nil)
 	if got := r.due(ms(40+64), nil); !slices.Equal(got, []uint16{6}) {
 		t.Fatalf("second NACK %v, want [6]", got)
 	}
-	r.onPacket(6, ms(110), nil)
+	r.onPacket(6, true, ms(110), nil)
 	if r.stats.RTTSamples != 2 || r.stats.Repaired != 3 {
 		t.Errorf("samples %d repaired %d, want 2 and 3", r.stats.RTTSamples, r.stats.Repaired)
 	}
@@ -120,8 +120,8 @@ func TestRepairRTTFollowsRetransmissions(t *testing.T) {
 func TestRepairCancelAfterKeyframeRequest(t *testing.T) {
 	r := newTestRepair()
 	t0 := time.Unix(1000, 0)
-	r.onPacket(1, t0, nil)
-	if got := r.onPacket(5, t0.Add(time.Millisecond), nil); len(got) != 3 {
+	r.onPacket(1, true, t0, nil)
+	if got := r.onPacket(5, true, t0.Add(time.Millisecond), nil); len(got) != 3 {
 		t.Fatalf("NACKed %v, want 3 sequence numbers", got)
 	}
 	r.cancel()
@@ -140,8 +140,8 @@ func TestRepairerTimerResends(t *testing.T) {
 		RepairWindow: 300 * time.Millisecond, MaxNACKGap: 256})
 	var sent [][]uint16
 	r.w = rtcpWriterFunc(func(seqs []uint16) { sent = append(sent, seqs) })
-	r.onPacket(10)
-	r.onPacket(12)
+	r.onPacket(10, true)
+	r.onPacket(12, true)
 	clk.Advance(99 * time.Millisecond)
 	if len(sent) != 1 {
 		t.Fatalf("NACKs before the timeout: %v, want one", sent)
@@ -189,4 +189,44 @@ func TestAnswerOffersCongestionFeedback(t *testing.T) {
 			t.Errorf("answer lacks %q:\n%s", want, answer)
 		}
 	}
+}
+
+// TestRepairTailProbe: when the packet after one without the marker bit (the rest of a frame) does not
+// come within tailProbe, it is asked for without waiting for the next frame to show the gap; a probe that
+// was right stays asked for, and one answered by the packet itself counts as repaired.
+func TestRepairTailProbe(t *testing.T) {
+	t0 := time.Unix(1000, 0)
+	ms := func(n int) time.Time { return t0.Add(time.Duration(n) * time.Millisecond) }
+	t.Run("last packet of a frame lost", func(t *testing.T) {
+		r := newTestRepair()
+		r.onPacket(10, true, ms(0), nil)
+		r.onPacket(11, false, ms(1), nil)
+		if got := r.due(ms(10), nil); len(got) != 0 {
+			t.Fatalf("probed %v after 9 ms, want nothing yet", got)
+		}
+		if got := r.due(ms(11), nil); !slices.Equal(got, []uint16{12}) {
+			t.Fatalf("probe %v, want [12]", got)
+		}
+		// The next frame starts at 13: 12 stays pending and is not NACKed twice at once.
+		if got := r.onPacket(13, false, ms(34), nil); len(got) != 0 {
+			t.Fatalf("NACKed %v on the next frame, want nothing (12 already asked for)", got)
+		}
+		r.onPacket(12, true, ms(35), nil) // the retransmission
+		if r.stats.Repaired != 1 || len(r.pending) != 0 || r.stats.RTTSamples != 0 {
+			t.Errorf("repaired %d pending %d samples %d, want 1, 0 and no RTT sample from a probe",
+				r.stats.Repaired, len(r.pending), r.stats.RTTSamples)
+		}
+	})
+	t.Run("slow packet", func(t *testing.T) {
+		r := newTestRepair()
+		r.onPacket(10, false, ms(0), nil)
+		r.due(ms(10), nil)
+		r.onPacket(11, true, ms(12), nil)
+		if r.stats.Repaired != 1 || len(r.pending) != 0 {
+			t.Errorf("repaired %d pending %d, want 1 and 0", r.stats.Repaired, len(r.pending))
+		}
+		if got := r.due(ms(100), nil); len(got) != 0 {
+			t.Errorf("NACKed %v after the marker packet, want nothing", got)
+		}
+	})
 }
