@@ -105,10 +105,12 @@ func (in *ingest) runRTP(ctx context.Context) error {
 			return err
 		}
 		in.mu.Lock()
-		// The first packet after a silence longer than the keyframe retry
-		// interval: the requests sent meanwhile were probably lost with
-		// the link, so ask again at once rather than at the next retry.
-		if in.dec.NeedKeyframe() && !in.lastArrival.IsZero() && arrival.Sub(in.lastArrival) >= in.p.cfg.KeyframeRetry {
+		// The first packet after a silence of at least the keyframe retry
+		// interval: what was sent meanwhile is lost (the WHIP session does
+		// not ask for a gap after such a silence) or, if it was short, a
+		// keyframe is still the fastest way back; requests sent during the
+		// silence were probably lost with the link. So ask at once.
+		if !in.lastArrival.IsZero() && arrival.Sub(in.lastArrival) >= in.p.cfg.KeyframeRetry {
 			in.requestKeyframeLocked(in.p.cfg.Now(), "link back")
 		}
 		in.lastArrival = arrival
