@@ -82,7 +82,7 @@ type repairState struct {
 	started  bool
 	highest  int64
 	lastSeen time.Time
-	openTail bool // the highest packet had no marker bit and its successor was not probed yet
+	openTail bool            // the highest packet had no marker bit and its successor was not probed yet
 	pending  []pendingRepair // ascending ext
 
 	srtt, rttvar time.Duration
