@@ -13,8 +13,9 @@ cd "$(dirname "$0")"
 #   pkg-config     how cgo finds both
 #   opencv-doc     reference images and the ground-truth homography used by the tests
 #   chromium       the real browser the console tests drive headless
+#   iproute2, iptables  the browser-as-vehicle test: its own network namespace and packet loss
 #   python3-skimage is NOT needed: its reference figures are committed under bench/testdata.
-APT_PACKAGES=(libopencv-dev libvpx-dev pkg-config opencv-doc chromium gcc g++)
+APT_PACKAGES=(libopencv-dev libvpx-dev pkg-config opencv-doc chromium gcc g++ iproute2 iptables)
 
 need_install() {
   local missing=()

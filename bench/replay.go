@@ -15,6 +15,7 @@ import (
 
 	"stopgap/filter"
 	"stopgap/predictor"
+	"stopgap/stream/cadence"
 	"stopgap/stream/recording"
 )
 
@@ -76,9 +77,11 @@ type ReplayConfig struct {
 // which real frame, if any, is due and here at it. All times are on the
 // receiver clock unless said otherwise.
 //
-// The display shows tick k at DeadlineUs[k] = capture_k + LatencyUs +
-// allowance, where LatencyUs is the median (arrival - capture) over the
-// frames that arrived. Frame k is LIVE at tick k if it arrived by then (it is
+// The display shows tick k at DeadlineUs[k] = grid_k + LatencyUs +
+// allowance, where grid_k is tick k's time on the display grid locked to the
+// capture cadence by the live relay's rule (stream/cadence; equal to
+// capture_k for a steady sender) and LatencyUs is the median (arrival -
+// capture) over the frames that arrived. Frame k is LIVE at tick k if it arrived by then (it is
 // shown as soon as it arrives, so the allowance adds no latency to LIVE
 // frames). Otherwise tick k is missing, and the newest frame that has
 // arrived by DeadlineUs[k] is the one a prediction is built from.
@@ -93,6 +96,9 @@ type Schedule struct {
 	LatencyUs int64
 	// AllowanceUs is the jitter allowance.
 	AllowanceUs int64
+	// GridUs, if not nil, holds each tick's capture time on the display
+	// grid (see NewSchedule); nil means CaptureUs.
+	GridUs []int64
 	// RecordedDeadlineUs, if not nil, holds each tick's deadline as the
 	// live relay recorded it (arrivals.csv t_deadline_us); it replaces the
 	// estimate so a replay reproduces the live schedule exactly.
@@ -116,13 +122,44 @@ func NewSchedule(captureUs, arrivalUs []int64, allowanceUs int64) (Schedule, err
 		return Schedule{}, fmt.Errorf("schedule: no frame arrived, nothing to replay; check the arrivals file or lower --loss-rate: %w", ErrReplayInput)
 	}
 	sort.Slice(lat, func(i, j int) bool { return lat[i] < lat[j] })
-	return Schedule{CaptureUs: captureUs, ArrivalUs: arrivalUs, LatencyUs: lat[len(lat)/2], AllowanceUs: allowanceUs}, nil
+	return Schedule{CaptureUs: captureUs, ArrivalUs: arrivalUs, LatencyUs: lat[len(lat)/2], AllowanceUs: allowanceUs,
+		GridUs: gridTimes(captureUs, arrivalUs)}, nil
+}
+
+// gridTimes places each tick on the display grid as the live relay does
+// (cadence.Grid, started at the mean capture interval, as the relay starts at
+// its configured frame rate): tick k's time is the grid's, as it stands after
+// the frames before k that arrived, at the grid tick nearest capture_k.
+// Frames are taken in capture order.
+func gridTimes(captureUs, arrivalUs []int64) []int64 {
+	n := len(captureUs)
+	if n < 2 || captureUs[n-1] <= captureUs[0] {
+		return nil
+	}
+	g, err := cadence.New(float64(captureUs[n-1]-captureUs[0]) / float64(n-1))
+	if err != nil {
+		return nil
+	}
+	out := make([]int64, len(captureUs))
+	for i, c := range captureUs {
+		out[i] = c
+		if g.Started() {
+			out[i] = g.CaptureUs(g.TickOf(c))
+		}
+		if arrivalUs[i] != NeverArrivesUs {
+			g.Observe(c)
+		}
+	}
+	return out
 }
 
 // DeadlineUs returns the receiver time of tick k.
 func (s Schedule) DeadlineUs(k int) int64 {
 	if s.RecordedDeadlineUs != nil {
 		return s.RecordedDeadlineUs[k]
+	}
+	if s.GridUs != nil {
+		return s.GridUs[k] + s.LatencyUs + s.AllowanceUs
 	}
 	return s.CaptureUs[k] + s.LatencyUs + s.AllowanceUs
 }

@@ -437,3 +437,37 @@ func BenchmarkReplayDefaultDrive(b *testing.B) {
 	b.ReportMetric(float64(sum.SynthMsP99), "synth-p99-ms")
 	b.ReportMetric(float64(sum.StaleTicks), "stale-ticks")
 }
+
+// TestScheduleFollowsCadence: a sender that stamps whole milliseconds (33 or
+// 34 ms steps) and runs 0.3% slow gets deadlines on the locked grid
+// (stream/cadence), within 1.5 ms of capture + latency + allowance for every
+// tick after the loop settled, and tick k's deadline is never before frame
+// k-1's.
+func TestScheduleFollowsCadence(t *testing.T) {
+	const n = 600
+	capture := make([]int64, n)
+	arrival := make([]int64, n)
+	for i := range capture {
+		capture[i] = int64(math.Round(float64(i)*1e3/30*1.003)) * 1000
+		arrival[i] = capture[i] + 40000
+	}
+	arrival[300] = NeverArrivesUs
+	s, err := NewSchedule(capture, arrival, 20000)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for k := 1; k < n; k++ {
+		d := s.DeadlineUs(k)
+		if k > 30 {
+			if off := d - (capture[k] + 60000); off < -1500 || off > 1500 {
+				t.Errorf("tick %d: deadline %d is %d us off capture + 60 ms", k, d, off)
+			}
+		}
+		if d <= s.DeadlineUs(k-1) {
+			t.Errorf("tick %d: deadline %d not after tick %d's %d", k, d, k-1, s.DeadlineUs(k-1))
+		}
+		if k != 300 && !s.Live(k) {
+			t.Errorf("tick %d not LIVE", k)
+		}
+	}
+}

@@ -20,6 +20,7 @@ import (
 	"stopgap/stream/operator"
 	"stopgap/stream/relay"
 	"stopgap/stream/rtpudp"
+	"stopgap/stream/whip"
 )
 
 func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) error {
@@ -34,6 +35,9 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		logJSON, verbose                                       bool
 		rtpListen, telemetryListen, rtpAllow                   string
 		storePath, policyPath                                  string
+		iceLoopback                                            bool
+		iceInterfaces, icePublicIPs                            string
+		iceUDPPort                                             int
 	)
 	fs.StringVar(&listen, "listen", "127.0.0.1:8443", "`address` to serve WHIP ingest, the console, /healthz and /metrics on")
 	fs.StringVar(&certFile, "tls-cert", "", "TLS certificate `file` (PEM); with --tls-key serves HTTPS (required off loopback)")
@@ -56,6 +60,10 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	fs.StringVar(&rtpListen, "rtp-listen", "", "UDP `address` (e.g. 127.0.0.1:5004) to receive VP8 over plain RTP with RTCP on the same port; empty = off")
 	fs.StringVar(&telemetryListen, "telemetry-listen", "", "UDP `address` for telemetry datagrams (JSON, one per datagram) that go with --rtp-listen")
 	fs.StringVar(&rtpAllow, "rtp-allow", "", "comma-separated source `IPs or IP:ports` admitted by --rtp-listen and --telemetry-listen (required off loopback: plain RTP is unauthenticated)")
+	fs.BoolVar(&iceLoopback, "ice-loopback", false, "also offer loopback ICE candidates to the vehicle (a sender on this host)")
+	fs.StringVar(&iceInterfaces, "ice-interfaces", "", "comma-separated network interface `names` to offer ICE candidates on (default all but loopback)")
+	fs.StringVar(&icePublicIPs, "ice-public-ip", "", "comma-separated public `IPs` to announce instead of the host addresses (a relay behind a static 1:1 NAT)")
+	fs.IntVar(&iceUDPPort, "ice-udp-port", 0, "one UDP `port` for the media of all vehicle sessions (0 = a random port per session)")
 	fs.BoolVar(&logJSON, "log-json", true, "write logs as JSON")
 	fs.BoolVar(&verbose, "v", false, "verbose logs")
 	fs.Usage = func() {
@@ -143,6 +151,8 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		Filter:    filter.Config{Model: m, WheelbaseM: wheelbaseM},
 		RecordDir: recordDir, IngestToken: ingestTok, ConsoleToken: consoleTok,
 		Console: cc, Logger: log,
+		Whip: whip.Config{Network: whip.Network{IncludeLoopback: iceLoopback, Interfaces: splitList(iceInterfaces),
+			NAT1To1IPs: splitList(icePublicIPs), UDPPort: iceUDPPort}},
 	})
 	if err != nil {
 		return err

@@ -57,6 +57,7 @@ type pump struct {
 	state   atomic.Int32 // console.State
 	video   atomic.Bool
 	meta    atomic.Bool
+	silent  atomic.Bool // the link reports no packets for 1200 ms
 	wantKey atomic.Bool
 	stop    chan struct{}
 	done    chan struct{}
@@ -99,10 +100,13 @@ func (p *pump) run() {
 		}
 		seq++
 		if p.meta.Load() {
+			link := console.LinkStats{LossPct: 7.5, JitterMs: 14, DelayMs: 92, KeyframeRequests: 4, FramesIn: seq}
+			if p.silent.Load() {
+				link.LossPct, link.JitterMs, link.NoPacketsMs = 0, 0, 1200
+			}
 			err := p.c.WriteMeta(console.Meta{
 				Seq: seq, TimeUs: int64(seq) * 33333, State: st, AgeMs: age, Confidence: conf,
-				Cutoff: p.c.Cutoff(), Profile: p.c.Profile(),
-				Link: console.LinkStats{LossPct: 7.5, JitterMs: 14, DelayMs: 92, KeyframeRequests: 4, FramesIn: seq},
+				Cutoff: p.c.Cutoff(), Profile: p.c.Profile(), Link: link,
 			})
 			if err != nil {
 				p.errs.Add(1)
@@ -206,6 +210,21 @@ func TestBrowserConsole(t *testing.T) {
 	}
 	time.Sleep(300 * time.Millisecond)
 	shot("console-live.png")
+
+	// Link statistics, and a silent link: "no packets for N ms" instead of 0 % loss.
+	linkText := func(want string) {
+		t.Helper()
+		must(b.WaitFunc(func() (bool, string, error) {
+			var got string
+			err := b.Eval(`document.getElementById("l-loss").textContent + " | " + document.getElementById("l-jitter").textContent`, &got)
+			return got == want, got, err
+		}, want, 3*time.Second))
+	}
+	linkText("7.5 % | 14 ms")
+	p.silent.Store(true)
+	linkText("no packets for 1200 ms | —")
+	p.silent.Store(false)
+	linkText("7.5 % | 14 ms")
 
 	// LIVE -> PREDICTED -> STALE -> LIVE
 	wantBanner := map[string]*regexp.Regexp{

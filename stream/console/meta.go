@@ -12,7 +12,7 @@ import (
 //
 //	{"seq":812,"t_us":27066666,"state":"PREDICTED","age_ms":133,"confidence":0.81,
 //	 "cutoff":0.6,"profile":"city","link":{"loss_pct":4.2,"jitter_ms":11,
-//	 "delay_ms":84,"keyframe_requests":3,"frames_in":790}}
+//	 "delay_ms":84,"keyframe_requests":3,"frames_in":790,"no_packets_ms":0}}
 type Meta struct {
 	// Seq numbers output frames, +1 per display tick; receivers ignore a
 	// message whose Seq is not newer than the last one seen.
@@ -42,7 +42,15 @@ type LinkStats struct {
 	DelayMs          float64 `json:"delay_ms"`          // estimated one-way capture-to-arrival delay, milliseconds
 	KeyframeRequests uint64  `json:"keyframe_requests"` // keyframe requests (PLI/FIR) sent to the vehicle so far
 	FramesIn         uint64  `json:"frames_in"`         // complete frames received from the vehicle so far
+	// NoPacketsMs is how long no video packet has arrived, milliseconds, once that is at least
+	// NoPacketsAfterMs; 0 while packets flow. While it is set the page shows "no packets for N ms"
+	// instead of loss and jitter, which a silent link leaves at their last, meaningless values.
+	NoPacketsMs float64 `json:"no_packets_ms"`
 }
+
+// NoPacketsAfterMs is the silence after which LinkStats.NoPacketsMs is set: longer than the gap between
+// two frames of a slow camera and than a keyframe request's round trip (our choice).
+const NoPacketsAfterMs = 250
 
 // Validate reports ErrBadMeta for an invalid State or a NaN/Inf number.
 func (m *Meta) Validate() error {
@@ -55,6 +63,7 @@ func (m *Meta) Validate() error {
 	}{
 		{"age_ms", m.AgeMs}, {"confidence", m.Confidence}, {"cutoff", m.Cutoff},
 		{"link.loss_pct", m.Link.LossPct}, {"link.jitter_ms", m.Link.JitterMs}, {"link.delay_ms", m.Link.DelayMs},
+		{"link.no_packets_ms", m.Link.NoPacketsMs},
 	} {
 		if math.IsNaN(f.v) || math.IsInf(f.v, 0) {
 			return fmt.Errorf("%w: %s is %v; send a finite number", ErrBadMeta, f.name, f.v)
@@ -94,6 +103,8 @@ func (m *Meta) AppendJSON(dst []byte) ([]byte, error) {
 	dst = strconv.AppendUint(dst, m.Link.KeyframeRequests, 10)
 	dst = append(dst, `,"frames_in":`...)
 	dst = strconv.AppendUint(dst, m.Link.FramesIn, 10)
+	dst = append(dst, `,"no_packets_ms":`...)
+	dst = appendFloat(dst, m.Link.NoPacketsMs)
 	dst = append(dst, "}}"...)
 	return dst, nil
 }

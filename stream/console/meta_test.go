@@ -27,6 +27,7 @@ func TestMetaAppendJSONRoundTrip(t *testing.T) {
 		{"stale", func(m *Meta) { m.State = StateStale; m.Confidence = 0 }},
 		{"tiny and huge numbers", func(m *Meta) { m.AgeMs = 1e-9; m.Link.DelayMs = 1e300; m.TimeUs = math.MinInt64 }},
 		{"max counters", func(m *Meta) { m.Seq = math.MaxUint64; m.Link.FramesIn = math.MaxUint64 }},
+		{"link silent", func(m *Meta) { m.Link.NoPacketsMs = 1250.5; m.Link.LossPct = 0; m.Link.JitterMs = 0 }},
 		{"quote and backslash", func(m *Meta) { m.Profile = `a"b\c` }},
 		{"control chars", func(m *Meta) { m.Profile = "a\nb\tc\x00\x1f" }},
 		{"unicode", func(m *Meta) { m.Profile = "Straße — 街" }},

@@ -59,7 +59,8 @@ func BenchmarkTick720p(b *testing.B) {
 		p.onFrame(frameEvent{mat: m, captureUs: c, readyUs: c + 1000, lastPktAt: time.Now(), vehicleClk: true})
 	}
 	p.latUs, p.latKnown = 50_000, true
-	p.haveC0, p.c0Us = true, t0
+	p.haveC0 = true
+	p.grid.Observe(t0) // tick 0 at t0
 	live(0)
 
 	b.Run("live", func(b *testing.B) {

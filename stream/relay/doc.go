@@ -8,16 +8,18 @@
 // # Display schedule
 //
 // The relay uses the same display semantics as the offline replay
-// (stopgap/bench, type Schedule). Tick k stands for frame k, captured at c_k on
-// the vehicle clock. Its deadline on the receiver clock is
+// (stopgap/bench, type Schedule). Tick k stands for frame k, whose capture
+// time on the display grid (stopgap/stream/cadence: locked to the vehicle's
+// capture times, following its rate and phase) is g_k on the vehicle clock.
+// Its deadline on the receiver clock is
 //
-//	d_k = c_k + L + allowance
+//	d_k = g_k + L + allowance
 //
 // where L is the nominal capture-to-arrival latency (receiver clock minus
 // vehicle clock, so it includes the clock offset). Frame k is LIVE if it
 // arrived and decoded by d_k, and it is shown as soon as it is decoded (no
 // waiting for the deadline). Otherwise, at d_k, the tick is missing and the
-// Filler fills it (target c_k) from the newest frame that arrived by d_k. A
+// Filler fills it (target g_k) from the newest frame that arrived by d_k. A
 // frame that arrives after its deadline becomes the held frame for later
 // gaps but is not shown. Telemetry samples go to the filter as they arrive.
 //
@@ -34,14 +36,20 @@
 // RTP timestamp is anchored to its arrival time (logged); when the first report
 // arrives the session's timeline is shifted onto the vehicle clock (logged),
 // and the held frame is dropped because its capture time is on the old
-// timeline. Tick index k = round((c - c_0) / period).
+// timeline. A frame's tick is the grid's (cadence.Grid.Observe); Config.FPS
+// only sets the grid's starting period.
 //
 // # Losses
 //
-// A Loss from the RTP assembler or a decode error makes the frame missing:
-// the decoder is told (Lost) and a keyframe request (RTCP PLI) is sent at once
-// and repeated every KeyframeRetry (200 ms, common receiver practice) while the
-// decoder waits for a keyframe. The WebRTC read loop is never blocked: the
+// A missing packet is first repaired: the WHIP session NACKs it at once and at
+// the measured round trip (whip.RepairStats), and the assembler waits for it
+// as long as it is asked for (whip.Session.RepairSpan), even past the frame's
+// deadline, since the frames after it reference it. A Loss from the RTP
+// assembler (repair failed) or a decode error makes the frame missing: the
+// decoder is told (Lost) and a keyframe request (RTCP PLI) is sent at once,
+// repeated every KeyframeRetry (200 ms, common receiver practice) while the
+// decoder waits for a keyframe, and sent at once on the first packet after a
+// silence of KeyframeRetry (the requests sent meanwhile were lost). The WebRTC read loop is never blocked: the
 // ingest queues are bounded and drop and count.
 //
 // # Recording

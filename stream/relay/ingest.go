@@ -46,7 +46,8 @@ type ingest struct {
 	dec *vp8.Decoder
 	img vp8.Image
 
-	lastKeyReq time.Time
+	lastKeyReq  time.Time
+	lastArrival time.Time // arrival of the latest packet
 	// The capture timeline: RTP timestamp refTS was captured at refUs
 	// (arrival-anchored until the first sender report, then on the
 	// vehicle clock); later timestamps are unwrapped from it.
@@ -66,12 +67,30 @@ func newIngest(p *pipeline) (*ingest, error) {
 		return nil, err
 	}
 	in.dec = dec
-	in.asm, err = rtpvp8.NewAssembler(rtpvp8.AssemblerConfig{}, rtpvp8.SinkFuncs{Frame: in.onFrame, Loss: in.onLoss})
+	// A keyframe at 1280x720 spans 50-100 packets: the reorder window must
+	// cover a whole one, or a hole in it is given up before its repair.
+	acfg := rtpvp8.AssemblerConfig{ReorderPackets: reorderPackets}
+	if rs, ok := p.sess.(repairSpanner); ok {
+		acfg.RepairWait = rs.RepairSpan()
+	}
+	in.asm, err = rtpvp8.NewAssembler(acfg, rtpvp8.SinkFuncs{Frame: in.onFrame, Loss: in.onLoss})
 	if err != nil {
 		dec.Close()
 		return nil, err
 	}
 	return in, nil
+}
+
+// reorderPackets is the assembler's reorder window: half its packet buffer.
+const reorderPackets = rtpvp8.DefaultMaxPackets / 2
+
+// repairSpanner is implemented by an ingest session that asks for missing
+// packets (*whip.Session): RepairSpan says how long a missing packet may
+// still arrive as a retransmission. The assembler waits that long before it
+// gives the frame up and a keyframe is requested; sessions without it use
+// the assembler's plain reordering policy.
+type repairSpanner interface {
+	RepairSpan() time.Duration
 }
 
 func (in *ingest) close() { in.dec.Close() }
@@ -87,6 +106,15 @@ func (in *ingest) runRTP(ctx context.Context) error {
 			return err
 		}
 		in.mu.Lock()
+		// The first packet after a silence of at least the keyframe retry
+		// interval: what was sent meanwhile is lost (the WHIP session does
+		// not ask for a gap after such a silence) or, if it was short, a
+		// keyframe is still the fastest way back; requests sent during the
+		// silence were probably lost with the link. So ask at once.
+		if !in.lastArrival.IsZero() && arrival.Sub(in.lastArrival) >= in.p.cfg.KeyframeRetry {
+			in.requestKeyframeLocked(in.p.cfg.Now(), "link back")
+		}
+		in.lastArrival = arrival
 		if err := in.asm.Push(pkt, arrival); err != nil {
 			var pe *rtpvp8.PacketError
 			reason := "malformed"
@@ -114,6 +142,11 @@ func (in *ingest) runTimers(ctx context.Context) {
 		}
 		now := in.p.cfg.Now()
 		in.mu.Lock()
+		if rs, ok := in.p.sess.(repairSpanner); ok {
+			if err := in.asm.SetRepairWait(rs.RepairSpan()); err != nil {
+				in.p.log.Warn("repair wait rejected", "err", err)
+			}
+		}
 		in.asm.Expire(now)
 		if in.dec.NeedKeyframe() && now.Sub(in.lastKeyReq) >= in.p.cfg.KeyframeRetry {
 			in.requestKeyframeLocked(now, "retry")

@@ -125,6 +125,10 @@ type metrics struct {
 	telemetryIn, recordErrors, sessions                        atomic.Uint64
 	telemetryRejected, rtpDropped                              labelled
 
+	// Loss repair (see whip.RepairStats), summed over sessions; repairRTTUs
+	// is the latest session's round-trip estimate.
+	repairGaps, repairRepaired, repairGaveUp, repairCancelled, repairSkipped, repairRTTUs atomic.Uint64
+
 	addedLatency, decode, encode, synth *histogram
 }
 
@@ -144,12 +148,18 @@ func (m *metrics) writeText(w io.Writer, active int) {
 		m.ticksLive.Load(), m.ticksPredicted.Load(), m.ticksStale.Load())
 	counter("losses", "Frame losses: assembler loss events and decode errors.", m.losses.Load())
 	counter("keyframe_requests", "Keyframe requests (RTCP PLI) sent to the vehicle.", m.keyframeRequests.Load())
+	counter("repair_gaps", "Missing RTP packets asked for with a NACK (each once).", m.repairGaps.Load())
+	counter("repair_repaired", "Missing RTP packets that arrived after all (retransmission or reordering).", m.repairRepaired.Load())
+	counter("repair_gave_up", "Missing RTP packets no longer asked for: NACK cap or repair window reached.", m.repairGaveUp.Load())
+	counter("repair_skipped", "Missing RTP packets never asked for: a gap after an outage or too large to repair.", m.repairSkipped.Load())
+	counter("repair_cancelled", "Missing RTP packets no longer asked for because a keyframe was requested.", m.repairCancelled.Load())
+	fmt.Fprintf(w, "# HELP repair_rtt_seconds Smoothed NACK-to-retransmission round trip of the latest session.\n# TYPE repair_rtt_seconds gauge\nrepair_rtt_seconds %g\n", float64(m.repairRTTUs.Load())/1e6)
 	counter("late_frames", "Frames decoded after their display deadline (held, not shown).", m.lateFrames.Load())
 	counter("frames_dropped", "Decoded frames dropped because the display loop was behind.", m.framesDropped.Load())
 	counter("telemetry_in", "Telemetry samples accepted by the filter.", m.telemetryIn.Load())
 	counter("record_errors", "Recording writes that failed.", m.recordErrors.Load())
 	counter("sessions", "Ingest sessions served.", m.sessions.Load())
-	m.telemetryRejected.write(w, "telemetry_rejected", "reason", "Telemetry messages rejected, by reason (decode_* by the decoder, filter_* by the filter, queue_full).")
+	m.telemetryRejected.write(w, "telemetry_rejected", "reason", "Telemetry messages rejected, by reason (decode_* by the decoder, filter_* by the filter, queue_full, too_late: arrived later than the filter history after it was taken).")
 	m.rtpDropped.write(w, "rtp_dropped", "reason", "RTP packets not used, by reason.")
 	fmt.Fprintf(w, "# HELP active_sessions Ingest sessions being served now.\n# TYPE active_sessions gauge\nactive_sessions %d\n", active)
 	m.addedLatency.write(w, "relay_added_latency_seconds", "Time from the last packet of a LIVE frame to console WriteFrame, excluding decode and encode.")

@@ -14,6 +14,7 @@ import (
 
 	"stopgap/filter"
 	"stopgap/predictor"
+	"stopgap/stream/cadence"
 	"stopgap/stream/console"
 	"stopgap/stream/whip"
 )
@@ -42,9 +43,11 @@ type pipeline struct {
 	encBuf []byte
 	meta   console.Meta
 
-	// Session timeline (receiver and vehicle clocks in µs).
+	// Session timeline (receiver and vehicle clocks in µs). The display
+	// ticks lie on grid, locked to the vehicle's capture cadence
+	// (stream/cadence); haveC0 tells whether it has its first frame.
+	grid         *cadence.Grid
 	haveC0       bool
-	c0Us         int64
 	next         int // lowest tick whose deadline has not been handled
 	latUs        int64
 	latKnown     bool
@@ -64,12 +67,17 @@ type pipeline struct {
 	prevLost    int64
 	prevHighest uint32
 	prevDrops   [3]uint64 // ingest queue full, duplicate, too old
+	prevRepair  whip.RepairStats
 }
 
 func newPipeline(r *Relay, s IngestSession) (*pipeline, error) {
 	cfg := r.cfg
 	p := &pipeline{r: r, cfg: cfg, sess: s, log: r.log.With("session", short(s.ID()))}
 	var err error
+	p.grid, err = cadence.New(cfg.periodUs())
+	if err != nil {
+		return nil, fmt.Errorf("relay: display grid: %w: %w", ErrBadConfig, err)
+	}
 	p.flt, err = filter.New(cfg.Filter)
 	if err != nil {
 		return nil, fmt.Errorf("relay: filter: %w: %w", ErrBadConfig, err)
@@ -234,7 +242,7 @@ func (p *pipeline) armTimer(t Timer) {
 }
 
 func (p *pipeline) nominalCaptureUs(k int) int64 {
-	return p.c0Us + int64(math.Round(float64(k)*p.cfg.periodUs()))
+	return p.grid.CaptureUs(k)
 }
 
 func (p *pipeline) deadlineUs(k int) int64 {
@@ -248,11 +256,21 @@ func (p *pipeline) deadlineUs(k int) int64 {
 // filter sees the same samples at every tick in both and a recorded session
 // replays to the same PREDICTED/STALE decisions.
 //
+// A sample that arrives later than the filter's history window after it was
+// taken (on the display clock: vehicle time plus the nominal latency) is
+// dropped and counted as "too_late": an ordered, reliable data channel
+// delivers such samples in a burst after an outage, and none can change a
+// tick the display still has to fill.
+//
 // A sample that reaches the display loop after ticks it had arrived in time
 // for were filled without it (a starved CPU) is recorded as arriving just
 // after the last tick filled, as late frames are (onFrame): the replay must
 // give the filter the samples the display loop had.
 func (p *pipeline) onTelemetry(te telEvent) {
+	if p.vehicleClock && p.latKnown && telemetryTooLate(te.arrivalUs, te.sample.TimeUs, p.latUs, p.maxTelAgeUs()) {
+		p.r.met.telemetryRejected.inc("too_late")
+		return
+	}
 	if !p.haveC0 || len(p.pendTel) >= maxPendingTelemetry {
 		p.feed(te)
 		return
@@ -263,6 +281,21 @@ func (p *pipeline) onTelemetry(te telEvent) {
 		}
 	}
 	p.pendTel = append(p.pendTel, te)
+}
+
+// telemetryTooLate reports whether a sample taken at timeUs (vehicle clock)
+// that arrived at arrivalUs (receiver clock) is more than maxAgeUs late,
+// latUs being the nominal receiver-minus-vehicle latency.
+func telemetryTooLate(arrivalUs, timeUs, latUs, maxAgeUs int64) bool {
+	return arrivalUs-(timeUs+latUs) > maxAgeUs
+}
+
+// maxTelAgeUs is the filter's history window (filter.Config.HistoryUs).
+func (p *pipeline) maxTelAgeUs() int64 {
+	if h := p.cfg.Filter.HistoryUs; h > 0 {
+		return h
+	}
+	return filter.DefaultHistoryUs
 }
 
 // maxPendingTelemetry bounds the samples waiting for their tick (40 s of
@@ -322,7 +355,7 @@ func (p *pipeline) onFrame(ev frameEvent) {
 		p.shift(ev.shiftUs)
 	}
 	if !p.haveC0 {
-		p.haveC0, p.c0Us, p.next = true, ev.captureUs, 0
+		p.haveC0, p.next = true, 0
 	}
 	if ev.vehicleClk && !p.vehicleClock {
 		p.startRecording()
@@ -339,7 +372,7 @@ func (p *pipeline) onFrame(ev frameEvent) {
 		}
 		p.r.setLatency(p.latUs, p.latKnown)
 	}
-	k := int(math.Round(float64(ev.captureUs-p.c0Us) / p.cfg.periodUs()))
+	k := p.grid.Observe(ev.captureUs)
 	// Deadlines that passed before this frame was ready (a frame ready at
 	// its deadline is still in time, as in bench.Schedule.Live).
 	p.advance(ev.readyUs)
@@ -474,6 +507,10 @@ func (p *pipeline) refreshLink() {
 	p.link.KeyframeRequests = p.r.met.keyframeRequests.Load()
 	p.link.FramesIn = p.r.met.framesIn.Load()
 	p.link.DelayMs = finite(p.lastDelayMs)
+	p.in.mu.Lock()
+	lastPkt := p.in.lastArrival
+	p.in.mu.Unlock()
+	p.link.NoPacketsMs = noPacketsMs(now, lastPkt)
 	if !p.lastStatsAt.IsZero() && now.Sub(p.lastStatsAt) < time.Second {
 		return
 	}
@@ -488,7 +525,21 @@ func (p *pipeline) refreshLink() {
 	}
 	p.prevLost, p.prevHighest = st.PacketsLost, st.HighestSeq
 	p.countDrops(st)
+	p.countRepair(st.Repair)
 	p.link.JitterMs = float64(st.Jitter) / float64(time.Millisecond)
+}
+
+// noPacketsMs returns console.LinkStats.NoPacketsMs at now for a link whose
+// latest packet arrived at last (zero: none yet, which the console's
+// NOSIGNAL state covers).
+func noPacketsMs(now, last time.Time) float64 {
+	if last.IsZero() {
+		return 0
+	}
+	if d := float64(now.Sub(last)) / float64(time.Millisecond); d >= console.NoPacketsAfterMs {
+		return d
+	}
+	return 0
 }
 
 // shift moves the session timeline by d µs when capture times switch from
@@ -496,7 +547,7 @@ func (p *pipeline) refreshLink() {
 // the old timeline, so the filler starts over.
 func (p *pipeline) shift(d int64) {
 	if p.haveC0 {
-		p.c0Us += d
+		p.grid.Shift(d)
 	}
 	if p.cfg.LatencyMs != 0 {
 		// A configured latency is relative to the vehicle clock already.
@@ -554,6 +605,21 @@ func finite(x float64) float64 {
 		return 0
 	}
 	return x
+}
+
+// countRepair adds the session's loss-repair counters since the last call
+// to the relay's.
+func (p *pipeline) countRepair(r whip.RepairStats) {
+	m, prev := p.r.met, p.prevRepair
+	m.repairGaps.Add(r.Gaps - min(prev.Gaps, r.Gaps))
+	m.repairRepaired.Add(r.Repaired - min(prev.Repaired, r.Repaired))
+	m.repairGaveUp.Add(r.GaveUp - min(prev.GaveUp, r.GaveUp))
+	m.repairCancelled.Add(r.Cancelled - min(prev.Cancelled, r.Cancelled))
+	m.repairSkipped.Add(r.SkippedGaps - min(prev.SkippedGaps, r.SkippedGaps))
+	if r.RTT > 0 {
+		m.repairRTTUs.Store(uint64(r.RTT.Microseconds()))
+	}
+	p.prevRepair = r
 }
 
 // countDrops adds to rtp_dropped the packets dropped outside Push's errors:

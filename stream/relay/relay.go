@@ -74,6 +74,9 @@ type Stats struct {
 	// AddedLatencyP50Ms and AddedLatencyP99Ms are bucket upper bounds of the
 	// relay's added latency for LIVE frames (see /metrics), ms.
 	AddedLatencyP50Ms, AddedLatencyP99Ms float64
+	// Repair sums the sessions' loss-repair counters (updated about once
+	// per second); its RTT is the latest session's.
+	Repair whip.RepairStats
 }
 
 // Relay is the live relay between one vehicle (WHIP ingest) and the operator
@@ -213,6 +216,8 @@ func (r *Relay) Stats() Stats {
 		RecordErrors: m.recordErrors.Load(),
 		LatencyMs:    float64(lat) / 1000, LatencyKnown: known,
 		AddedLatencyP50Ms: m.addedLatency.quantile(0.5) * 1000, AddedLatencyP99Ms: m.addedLatency.quantile(0.99) * 1000,
+		Repair: whip.RepairStats{Gaps: m.repairGaps.Load(), Repaired: m.repairRepaired.Load(), GaveUp: m.repairGaveUp.Load(),
+			Cancelled: m.repairCancelled.Load(), SkippedGaps: m.repairSkipped.Load(), RTT: time.Duration(m.repairRTTUs.Load()) * time.Microsecond},
 	}
 }
 

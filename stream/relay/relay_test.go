@@ -112,7 +112,9 @@ func TestOutage(t *testing.T) {
 		if (f.File == "") != missing {
 			t.Errorf("frame %d file %q, missing=%v", k, f.File, missing)
 		}
-		if f.CaptureUs != captureUs(k) {
+		// A frame that never arrived is recorded at its tick's time on the
+		// display grid (stream/cadence), an estimate within 1 us here.
+		if d := f.CaptureUs - captureUs(k); d != 0 && (!missing || d < -1 || d > 1) {
 			t.Errorf("frame %d capture %d, want %d", k, f.CaptureUs, captureUs(k))
 		}
 	}

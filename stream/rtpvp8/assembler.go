@@ -56,6 +56,16 @@ type AssemblerConfig struct {
 	// frame is dropped and reported as a [LossOversize]. Zero means
 	// [DefaultMaxFrameBytes].
 	MaxFrameBytes int
+	// RepairWait, if positive, lets a missing packet be repaired by a
+	// retransmission: a complete later frame no longer ends the wait at
+	// once (unless it is a keyframe, which needs nothing before it), and
+	// the packet is waited for RepairWait instead of ReorderDelay, counted
+	// the same way. Set it to the span over which the receiver still asks
+	// for the packet (its NACKs): a frame repaired after its own display
+	// deadline is still the reference the frames after it decode from.
+	// Zero keeps the plain reordering policy; negative is invalid. See
+	// also [Assembler.SetRepairWait].
+	RepairWait time.Duration
 	// ResyncPackets is the number of consecutive too-old packets after
 	// which the assembler drops its state and restarts at the current
 	// packet (a sender that restarted its sequence numbers). Zero means
@@ -94,6 +104,8 @@ func (c AssemblerConfig) withDefaults() (AssemblerConfig, error) {
 		return c, bad("ReorderPackets", c.ReorderPackets, fmt.Sprintf("1..%d (below MaxPackets)", c.MaxPackets-1))
 	case c.ReorderDelay < 0:
 		return c, bad("ReorderDelay", c.ReorderDelay, "a positive duration")
+	case c.RepairWait < 0:
+		return c, bad("RepairWait", c.RepairWait, "zero or a positive duration")
 	case c.MaxPayloadBytes < 2 || c.MaxPayloadBytes > 65535:
 		return c, bad("MaxPayloadBytes", c.MaxPayloadBytes, "2..65535")
 	case c.MaxFrameBytes < 1:
@@ -384,13 +396,20 @@ type slot struct {
 // Any loss makes [Assembler.NeedKeyframe] true until a keyframe is
 // delivered.
 //
-// Policy: a complete later frame ends the wait for an earlier one at once,
+// Policy (RepairWait zero): a complete later frame ends the wait for an earlier one at once,
 // because on a live view a fresh frame is worth more than an old one, and
 // the frames are delivered in order. So reordering is tolerated inside a
 // frame and across a frame border only while the later frame is still
 // incomplete; a packet overtaken by a whole later frame (at 30 fps, by some
 // 33 ms) arrives too late and is counted as too old. A retransmission (NACK)
 // that arrives after its frame was given up is counted the same way.
+//
+// Policy with RepairWait set (a receiver that sends NACKs): only a complete
+// later keyframe ends the wait at once; otherwise the missing packet is
+// waited for RepairWait, so its retransmission completes the frame and the
+// frames after it, which reference it, stay decodable. While a keyframe is
+// needed (NeedKeyframe), only a hole in the keyframe itself is waited for
+// that way: inter frames before it cannot be decoded anyway.
 //
 // Packets with an empty payload (RTP padding only) fill their sequence
 // number and are otherwise ignored: they never advance the window, force
@@ -452,6 +471,17 @@ func NewAssembler(cfg AssemblerConfig, sink Sink) (*Assembler, error) {
 		mask:    int64(n - 1),
 		needKey: true,
 	}, nil
+}
+
+// SetRepairWait changes AssemblerConfig.RepairWait, e.g. as the measured
+// round trip changes; it fails with an error wrapping [ErrInvalidConfig]
+// for a negative d. It takes effect at the next Push or Expire.
+func (a *Assembler) SetRepairWait(d time.Duration) error {
+	if d < 0 {
+		return fmt.Errorf("%w: RepairWait is %v, want zero or a positive duration", ErrInvalidConfig, d)
+	}
+	a.cfg.RepairWait = d
+	return nil
 }
 
 // Config returns the configuration in use, with defaults filled in and
@@ -789,6 +819,13 @@ func (a *Assembler) tryFrame(now time.Time) bool {
 
 // giveUp decides whether the missing packet at h is lost, and why.
 func (a *Assembler) giveUp(h int64, now time.Time) (LossReason, bool) {
+	// Waiting for a repair pays only if the frames behind it can decode:
+	// no keyframe is needed, or the frame at head is the keyframe.
+	repair := a.cfg.RepairWait > 0
+	if repair && a.needKey {
+		p := a.at(a.head)
+		repair = p != nil && p.kind == slotMedia && p.desc.FrameStart() && isKeyframeStart(p)
+	}
 	if a.newest-h >= int64(a.cfg.ReorderPackets) {
 		return LossWindow, true
 	}
@@ -809,18 +846,26 @@ func (a *Assembler) giveUp(h int64, now time.Time) (LossReason, bool) {
 			continue
 		}
 		st, end, _ := a.scanFrame(e, e, 0)
-		if st == frameComplete || st == frameBoundary {
+		if (st == frameComplete || st == frameBoundary) && (!repair || isKeyframeStart(p)) {
 			return LossNewerFrame, true
 		}
 		if end > e {
 			e = end - 1
 		}
 	}
-	if seen && now.Sub(earliest) >= a.cfg.ReorderDelay {
+	wait := a.cfg.ReorderDelay
+	if repair {
+		wait = a.cfg.RepairWait
+	}
+	if seen && now.Sub(earliest) >= wait {
 		return LossDeadline, true
 	}
 	return LossInvalid, false
 }
+
+// isKeyframeStart reports whether p, a frame's first packet, starts a
+// keyframe: the P bit of the VP8 frame tag is 0 (RFC 6386 section 9.1).
+func isKeyframeStart(p *slot) bool { return len(p.data) > 0 && p.data[0]&1 == 0 }
 
 // skipTo gives up every sequence number from head to end-1 and reports them
 // as one Loss with the given reason (if any packet was missing or dropped).

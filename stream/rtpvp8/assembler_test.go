@@ -237,6 +237,58 @@ func TestAssembler(t *testing.T) {
 			},
 		},
 		{
+			// A NACK's answer arrives after the next frame is complete:
+			// with RepairWait both frames are delivered, none lost.
+			name:  "repair: retransmission after a complete later frame completes both",
+			cfg:   AssemblerConfig{RepairWait: 60 * time.Millisecond},
+			steps: cat(without(base, 104), []tp{{seq: 104, ts: 3000, atMs: 80}}),
+			want:  []ev{kf, p1, p2},
+		},
+		{
+			name: "repair: given up RepairWait after the first later arrival",
+			cfg:  AssemblerConfig{RepairWait: 60 * time.Millisecond},
+			steps: cat(without(base, 104),
+				[]tp{{expire: true, atMs: 92}}, // 59 ms after 105 (33 ms): keep waiting
+				[]tp{{expire: true, atMs: 93}}, // 60 ms: give up
+				[]tp{{seq: 104, ts: 3000, atMs: 95}}),
+			want:    []ev{kf, lo(LossDeadline, 103, 105, 1, 2, 3000), p2lost},
+			needKey: true,
+			wantStats: func(t *testing.T, s Stats) {
+				if s.TooOld != 1 {
+					t.Errorf("TooOld=%d, want 1", s.TooOld)
+				}
+			},
+		},
+		{
+			name:  "repair: a complete later keyframe ends the wait at once",
+			cfg:   AssemblerConfig{RepairWait: 500 * time.Millisecond},
+			steps: cat(without(base, 104), frame(108, 9000, 2, true, 99)),
+			want: []ev{kf, lo(LossNewerFrame, 103, 105, 1, 2, 3000), p2lost,
+				fr(9000, 108, 109, 2, true, false)},
+		},
+		{
+			name:  "repair: a lost marker packet is repaired after the next frame",
+			cfg:   AssemblerConfig{RepairWait: 60 * time.Millisecond},
+			steps: cat(without(base, 105), []tp{{seq: 105, ts: 3000, marker: true, atMs: 70}}),
+			want:  []ev{kf, p1, p2},
+		},
+		{
+			name: "repair: a hole in the awaited keyframe is waited for",
+			cfg:  AssemblerConfig{RepairWait: 60 * time.Millisecond},
+			steps: cat(without(frame(100, 0, 3, true, 0), 101), frame(103, 3000, 1, false, 33),
+				[]tp{{seq: 101, ts: 0, atMs: 50}}),
+			want: []ev{fr(0, 100, 102, 3, true, false), fr(3000, 103, 103, 1, false, false)},
+		},
+		{
+			name: "repair: while a keyframe is needed, a hole in an inter frame is not waited for",
+			cfg:  AssemblerConfig{RepairWait: 60 * time.Millisecond},
+			steps: cat(without(base, 104), frame(108, 9000, 2, false, 99), without(frame(110, 12000, 3, false, 133), 111),
+				frame(113, 15000, 1, false, 166)),
+			want: []ev{kf, lo(LossDeadline, 103, 105, 1, 2, 3000), p2lost, fr(9000, 108, 109, 2, false, true),
+				lo(LossNewerFrame, 110, 112, 1, 2, 12000), fr(15000, 113, 113, 1, false, true)},
+			needKey: true,
+		},
+		{
 			name:    "joined mid-frame: the partial frame is reported, no keyframe yet",
 			steps:   cat(frame(100, 0, 3, true, 0)[1:], frame(103, 3000, 2, false, 33)),
 			want:    []ev{lo(LossStartMissing, 101, 102, 0, 2, 0), fr(3000, 103, 104, 2, false, true)},

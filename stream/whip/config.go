@@ -3,6 +3,7 @@ package whip
 import (
 	"fmt"
 	"log/slog"
+	"net"
 	"time"
 
 	"github.com/pion/ice/v4"
@@ -35,13 +36,24 @@ func (SystemClock) Now() time.Time { return time.Now() }
 func (SystemClock) AfterFunc(d time.Duration, f func()) Stopper { return time.AfterFunc(d, f) }
 
 // Network configures which addresses the WebRTC stack gathers ICE candidates on. The zero value gathers host
-// candidates on every non-loopback interface with a random UDP port per session. Multicast DNS (".local")
+// candidates on every non-loopback interface with a random UDP port per session. A deployment behind NAT
+// or a firewall typically sets UDPPort (one port to open) and NAT1To1IPs (the public address to announce). Multicast DNS (".local")
 // candidates are always disabled: a vehicle on a cellular link cannot resolve them and they only delay ICE.
 // No STUN or TURN servers are used (server side: host candidates, plus NAT1To1IPs if set).
 type Network struct {
 	// LoopbackOnly gathers only 127.0.0.1 candidates over UDP/IPv4: nothing is sent or received beyond the
 	// loopback interface. Use it for tests, demos and a vehicle simulator on the same host.
 	LoopbackOnly bool
+	// IncludeLoopback offers loopback candidates (127.0.0.1, ::1) besides the other interfaces', for a
+	// sender on the same host. Off by default: a remote vehicle cannot reach them.
+	IncludeLoopback bool
+	// Interfaces, if not empty, limits gathering to the network interfaces with these names (e.g. "eth0");
+	// loopback still needs IncludeLoopback.
+	Interfaces []string
+	// UDPPort, if not zero, makes NewServer open this one UDP port on every gathered address and carry the
+	// ICE traffic of all sessions on it (pion's UDP mux), so a firewall needs one rule; Server.Close
+	// closes it. Zero gives each session random ports. Ignored when UDPMux is set.
+	UDPPort int
 	// UDPMux, if set, carries the ICE traffic of all sessions on one UDP socket (one port to open in a
 	// firewall), e.g. webrtc.NewICEUDPMux(nil, conn) over a net.ListenUDP socket. The caller owns it and
 	// closes it after the server.
@@ -49,6 +61,32 @@ type Network struct {
 	// NAT1To1IPs, if set, replaces the host candidate addresses in answers with these public addresses
 	// (for a server behind a static 1:1 NAT).
 	NAT1To1IPs []string
+}
+
+// keepInterface reports whether gathering uses the interface named name.
+func (n Network) keepInterface(name string) bool {
+	if len(n.Interfaces) == 0 {
+		return true
+	}
+	for _, v := range n.Interfaces {
+		if v == name {
+			return true
+		}
+	}
+	return false
+}
+
+// validate checks the Network fields.
+func (n Network) validate() error {
+	if n.UDPPort < 0 || n.UDPPort > 65535 {
+		return fmt.Errorf("%w: Network.UDPPort %d, want 1..65535 (0 = a random port per session)", ErrBadConfig, n.UDPPort)
+	}
+	for _, ip := range n.NAT1To1IPs {
+		if net.ParseIP(ip) == nil {
+			return fmt.Errorf("%w: Network.NAT1To1IPs: %q is not an IP address", ErrBadConfig, ip)
+		}
+	}
+	return nil
 }
 
 // Config configures a Server. Zero values select the documented defaults; only Token is required.
@@ -78,10 +116,19 @@ type Config struct {
 	// with ErrKeyframeRateLimited and counted. A re-request every 200 ms while waiting for a keyframe
 	// (common practice) fits within the default.
 	MinKeyframeInterval time.Duration
-	// MaxNACKsPerPacket caps how often one missing packet is NACKed (default 3, sent at the NACK generator's
-	// 100 ms interval). After that the packet is given up: on a live link a packet older than a few RTTs
-	// is useless, and unbounded NACKs add load exactly when the link is already lossy.
+	// MaxNACKsPerPacket caps how often one missing packet is NACKed (default 3). The first NACK goes out as
+	// soon as the gap is seen; each repeat waits one retransmission timeout (RFC 6298: smoothed round trip
+	// plus four deviations, at least NACKMinInterval). After that the packet is given up: on a live link a
+	// packet older than a few RTTs is useless, and unbounded NACKs add load exactly when the link is already
+	// lossy. A keyframe request (RequestKeyframe) cancels every pending NACK.
 	MaxNACKsPerPacket uint16
+	// NACKMinInterval is the least spacing of two NACKs of one packet (default DefaultNACKMinInterval).
+	NACKMinInterval time.Duration
+	// RepairWindow is how long after a gap was seen its packets are still asked for (default
+	// DefaultRepairWindow); a gap seen after a silence longer than this (an outage) is not asked for.
+	RepairWindow time.Duration
+	// MaxNACKGap is the largest sequence number gap asked for, in packets (default DefaultMaxNACKGap).
+	MaxNACKGap int
 	// ReceiverReportInterval is the RTCP receiver report interval (default 1 s).
 	ReceiverReportInterval time.Duration
 
@@ -134,8 +181,11 @@ func (c Config) withDefaults() (Config, error) {
 	}
 	if c.MaxSessions < 0 || c.ICETimeout < 0 || c.MaxOfferBytes < 0 || c.PostRatePerS < 0 || c.PostBurst < 0 ||
 		c.MinKeyframeInterval < 0 || c.ReceiverReportInterval < 0 || c.RTPQueue < 0 || c.TelemetryQueue < 0 ||
-		c.MaxTelemetryBytes < 0 {
+		c.MaxTelemetryBytes < 0 || c.NACKMinInterval < 0 || c.RepairWindow < 0 || c.MaxNACKGap < 0 {
 		return c, fmt.Errorf("%w: negative value in whip.Config; use 0 for the default", ErrBadConfig)
+	}
+	if err := c.Network.validate(); err != nil {
+		return c, err
 	}
 	def := func(v *int, d int) {
 		if *v == 0 {
@@ -162,6 +212,13 @@ func (c Config) withDefaults() (Config, error) {
 	if c.MaxNACKsPerPacket == 0 {
 		c.MaxNACKsPerPacket = DefaultMaxNACKsPerPacket
 	}
+	if c.NACKMinInterval == 0 {
+		c.NACKMinInterval = DefaultNACKMinInterval
+	}
+	if c.RepairWindow == 0 {
+		c.RepairWindow = DefaultRepairWindow
+	}
+	def(&c.MaxNACKGap, DefaultMaxNACKGap)
 	if c.ReceiverReportInterval == 0 {
 		c.ReceiverReportInterval = DefaultReceiverReportInterval
 	}

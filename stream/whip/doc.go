@@ -25,7 +25,8 @@
 // # Media
 //
 // Each session uses its own pion API: a MediaEngine with only VP8 video registered (NACK and PLI feedback,
-// no RTX, no audio) and interceptors for NACK generation (capped per packet, Config.MaxNACKsPerPacket) and
+// no RTX, no audio) and interceptors for loss repair (a NACK as soon as a gap is seen, repeated at the measured round trip,
+// capped per packet by Config.MaxNACKsPerPacket, cancelled by a keyframe request; see [RepairStats]) and
 // RTCP receiver reports. Sender reports from the vehicle are kept for clock mapping
 // ([Session.SenderReport]). Keyframe requests are the relay's decision: [Session.RequestKeyframe] sends a
 // PLI, spaced by Config.MinKeyframeInterval.
@@ -40,8 +41,11 @@
 // # Networking
 //
 // [Network] selects where ICE candidates are gathered. LoopbackOnly restricts both ends to 127.0.0.1 over
-// UDP/IPv4 (tests, demos, the simulated vehicle); multicast DNS candidates are always off; Network.UDPMux
-// puts every session on one UDP port. No STUN or TURN is used. A vehicle that vanishes without DELETE is
+// UDP/IPv4 (tests, demos, the simulated vehicle); IncludeLoopback adds loopback candidates to the others;
+// Interfaces limits gathering to named interfaces; NAT1To1IPs announces a public address; UDPPort (or a
+// caller's UDPMux) puts every session on one UDP port. Multicast DNS candidates are always off. No STUN or
+// TURN is used. The answer offers transport-wide congestion control feedback, so a browser sender can
+// estimate its bandwidth from the start. A vehicle that vanishes without DELETE is
 // noticed by ICE consent checks: with pion's defaults (keepalive 2 s) the connection turns disconnected after
 // 5 s and failed after 25 s, and a failed connection ends the session (EndFailed). The relay should not wait
 // for that: missing video is its own, faster signal.

@@ -218,7 +218,8 @@ func TestNACKRecoversDroppedPacket(t *testing.T) {
 	}()
 	for i := 0; i <= 40; i++ {
 		seq := uint16(100 + i)
-		if err := pub.WriteRTP(&rtp.Packet{Header: rtp.Header{Version: 2, SequenceNumber: seq, Timestamp: uint32(i) * 3000},
+		// One packet per frame (marker set): the loss shows when the next packet arrives.
+		if err := pub.WriteRTP(&rtp.Packet{Header: rtp.Header{Version: 2, SequenceNumber: seq, Timestamp: uint32(i) * 3000, Marker: true},
 			Payload: vp8Payload(i)}); err != nil {
 			t.Fatal(err)
 		}

@@ -45,6 +45,12 @@ func newSettingEngine(n Network, log *slog.Logger) webrtc.SettingEngine {
 		se.SetNetworkTypes([]webrtc.NetworkType{webrtc.NetworkTypeUDP4})
 		se.SetIPFilter(func(ip net.IP) bool { return ip.IsLoopback() })
 	}
+	if n.IncludeLoopback && !n.LoopbackOnly {
+		se.SetIncludeLoopbackCandidate(true)
+	}
+	if len(n.Interfaces) > 0 && !n.LoopbackOnly {
+		se.SetInterfaceFilter(n.keepInterface)
+	}
 	if n.UDPMux != nil {
 		se.SetICEUDPMux(n.UDPMux)
 	}

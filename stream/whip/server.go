@@ -19,8 +19,8 @@ import (
 	"sync"
 	"time"
 
+	"github.com/pion/ice/v4"
 	"github.com/pion/interceptor"
-	"github.com/pion/interceptor/pkg/nack"
 	"github.com/pion/interceptor/pkg/report"
 	"github.com/pion/webrtc/v4"
 )
@@ -59,6 +59,7 @@ type Server struct {
 	accepted uint64
 	ended    uint64
 	rejected [numRejectReasons]uint64
+	ownMux   io.Closer // the UDP mux opened for Network.UDPPort, closed by Close
 }
 
 // NewServer validates cfg, applies defaults and returns a Server. It returns ErrNoToken without a token.
@@ -67,12 +68,30 @@ func NewServer(cfg Config) (*Server, error) {
 	if err != nil {
 		return nil, err
 	}
-	return &Server{
-		cfg:      c,
+	s := &Server{
 		limiter:  newRateLimiter(c.PostRatePerS, c.PostBurst, maxRateLimitKeys),
 		tokenH:   sha256.Sum256([]byte(c.Token)),
 		sessions: map[string]*Session{},
-	}, nil
+	}
+	if n := c.Network; n.UDPPort != 0 && n.UDPMux == nil {
+		opts := []ice.UDPMuxFromPortOption{ice.UDPMuxFromPortWithInterfaceFilter(n.keepInterface),
+			ice.UDPMuxFromPortWithLogger(slogFactory{c.Logger}.NewLogger("udpmux"))}
+		if n.IncludeLoopback || n.LoopbackOnly {
+			opts = append(opts, ice.UDPMuxFromPortWithLoopback())
+		}
+		if n.LoopbackOnly {
+			opts = append(opts, ice.UDPMuxFromPortWithIPFilter(func(ip net.IP) bool { return ip.IsLoopback() }),
+				ice.UDPMuxFromPortWithNetworks(ice.NetworkTypeUDP4))
+		}
+		mux, err := ice.NewMultiUDPMuxFromPort(n.UDPPort, opts...)
+		if err != nil {
+			return nil, fmt.Errorf("whip: open UDP port %d for ICE (Network.UDPPort): %w; choose a free port", n.UDPPort, err)
+		}
+		s.ownMux = mux
+		c.Network.UDPMux = mux
+	}
+	s.cfg = c
+	return s, nil
 }
 
 // ServerStats are the server's counters.
@@ -111,8 +130,8 @@ func (s *Server) Sessions() []*Session {
 	return out
 }
 
-// Close ends every session (EndServerShutdown) and makes later POSTs fail with 503. It does not stop the
-// http.Server the handler is mounted on.
+// Close ends every session (EndServerShutdown), closes the UDP port opened for Network.UDPPort, and makes
+// later POSTs fail with 503. It does not stop the http.Server the handler is mounted on.
 func (s *Server) Close() error {
 	s.mu.Lock()
 	s.closed = true
@@ -123,6 +142,13 @@ func (s *Server) Close() error {
 	s.mu.Unlock()
 	for _, ss := range all {
 		ss.end(EndServerShutdown)
+	}
+	s.mu.Lock()
+	mux := s.ownMux
+	s.ownMux = nil
+	s.mu.Unlock()
+	if mux != nil {
+		return mux.Close()
 	}
 	return nil
 }
@@ -329,11 +355,12 @@ func (s *Server) reserve(remote string) (*Session, error) {
 		id: id, remote: remote, srv: s, clock: s.cfg.Clock, cfg: &s.cfg,
 		log:     s.cfg.Logger.With("session", id[:8]),
 		counter: &rtcpCounter{},
+		repair:  newRepairer(&s.cfg),
 		rtpq:    make(chan rtpArrival, s.cfg.RTPQueue),
 		telq:    make(chan TelemetryBytes, s.cfg.TelemetryQueue),
 		done:    make(chan struct{}),
 	}
-	pc, err := s.newPeerConnection(sess.counter)
+	pc, err := s.newPeerConnection(sess.counter, sess.repair)
 	s.mu.Lock()
 	s.pending--
 	if err == nil && s.closed {
@@ -360,25 +387,31 @@ func (s *Server) reserve(remote string) (*Session, error) {
 }
 
 // newPeerConnection builds a PeerConnection with its own API: a MediaEngine with only VP8 video and the
-// interceptors, in this order: the RTCP counter (so it sees the NACKs the generator writes), the NACK
-// generator (capped per packet), and the RTCP receiver-report interceptor.
-func (s *Server) newPeerConnection(counter *rtcpCounter) (*webrtc.PeerConnection, error) {
+// interceptors, in this order: the RTCP counter (so it sees the NACKs the repairer writes), the repairer
+// (NACKs at once and at the measured round trip, capped per packet), and the RTCP receiver-report
+// interceptor, then the transport-wide congestion control feedback.
+func (s *Server) newPeerConnection(counter *rtcpCounter, repair *repairer) (*webrtc.PeerConnection, error) {
 	me, err := newMediaEngine()
 	if err != nil {
 		return nil, err
 	}
 	reg := &interceptor.Registry{}
 	reg.Add(counter)
-	gen, err := nack.NewGeneratorInterceptor(nack.GeneratorMaxNacksPerPacket(s.cfg.MaxNACKsPerPacket))
-	if err != nil {
-		return nil, fmt.Errorf("whip: NACK generator: %w", err)
-	}
-	reg.Add(gen)
+	reg.Add(repair)
 	rr, err := report.NewReceiverInterceptor(report.ReceiverInterval(s.cfg.ReceiverReportInterval))
 	if err != nil {
 		return nil, fmt.Errorf("whip: receiver reports: %w", err)
 	}
 	reg.Add(rr)
+	// Transport-wide congestion control feedback (draft-holmer-rmcat-transport-wide-cc-extensions-01):
+	// the answer offers the transport-cc header extension and feedback, and the interceptor reports
+	// every packet's arrival time (pion default: every 100 ms). It feeds the sender's own bandwidth
+	// estimator, which is what a browser uses first; without it the browser starts low and ramps for tens
+	// of seconds. Receiver-side estimates (REMB) are the older alternative, and pion has no REMB
+	// estimator to generate them.
+	if err := webrtc.ConfigureTWCCSender(me, reg); err != nil {
+		return nil, fmt.Errorf("whip: congestion control feedback: %w", err)
+	}
 	api := webrtc.NewAPI(webrtc.WithMediaEngine(me), webrtc.WithInterceptorRegistry(reg),
 		webrtc.WithSettingEngine(newSettingEngine(s.cfg.Network, s.cfg.Logger)))
 	pc, err := api.NewPeerConnection(webrtc.Configuration{})

@@ -58,11 +58,18 @@ type SessionStats struct {
 	TelemetryMessages, TelemetryDropped uint64
 	// OtherDataChannels counts data channels with a label other than TelemetryLabel (closed on arrival).
 	OtherDataChannels uint64
+	// TelemetryOrdered and TelemetryReliable tell how the vehicle opened the telemetry channel. Telemetry
+	// wants neither: an ordered or retransmitting channel holds every message behind a lost one (head-of-
+	// line blocking), so after an outage samples arrive seconds late. Open it with
+	// {ordered: false, maxRetransmits: 0}; a warning is logged once per session otherwise.
+	TelemetryOrdered, TelemetryReliable bool
 	// RTT is the latest STUN round-trip time of the selected ICE candidate pair (ICE consent checks, every
 	// few seconds); HasRTT is false until one was measured. The receive-only session cannot measure RTT
 	// from RTCP (that would need XR DLRR from the sender).
 	RTT    time.Duration
 	HasRTT bool
+	// Repair are the counters of the loss repair (NACKs and retransmissions); see RepairStats.
+	Repair RepairStats
 }
 
 // rtpArrival is one queued packet.
@@ -79,6 +86,7 @@ type Session struct {
 	srv     *Server
 	pc      *webrtc.PeerConnection
 	counter *rtcpCounter
+	repair  *repairer
 	clock   Clock
 	log     *slog.Logger
 	cfg     *Config
@@ -105,6 +113,8 @@ type Session struct {
 	telMessages  uint64
 	telDropped   uint64
 	otherChannel uint64
+	telOrdered   bool
+	telReliable  bool
 }
 
 // ID returns the session's resource identifier: 32 hex digits from crypto/rand (128 bits), the last path
@@ -181,8 +191,16 @@ func (s *Session) RequestKeyframe() error {
 	s.lastPLI = now
 	ssrc := s.ssrc
 	s.mu.Unlock()
+	// The keyframe replaces every packet before it: asking for them too only loads the link.
+	s.repair.cancel()
 	return s.pc.WriteRTCP([]rtcp.Packet{&rtcp.PictureLossIndication{MediaSSRC: ssrc}})
 }
+
+// RepairSpan returns how long after a packet was seen missing it may still arrive as the answer to a NACK:
+// MaxNACKsPerPacket retransmission timeouts at the round trip measured now, at most RepairWindow. A
+// depacketiser waits that long for a missing packet (rtpvp8.AssemblerConfig.RepairWait) before it gives
+// the frame up and asks for a keyframe. Cheap: call it as often as needed.
+func (s *Session) RepairSpan() time.Duration { return s.repair.span() }
 
 // SenderReport returns the latest RTCP sender report for the video stream (NTP <-> RTP timestamp mapping,
 // RFC 3550 section 6.4.1); ok is false until one arrived. Use SenderReport.SenderTimeUs with
@@ -215,6 +233,8 @@ func (s *Session) Stats() SessionStats {
 		TelemetryMessages: s.telMessages,
 		TelemetryDropped:  s.telDropped,
 		OtherDataChannels: s.otherChannel,
+		TelemetryOrdered:  s.telOrdered,
+		TelemetryReliable: s.telReliable,
 	}
 	s.mu.Unlock()
 	st.PacketsDropped = s.rtpDropped.Load()
@@ -227,6 +247,10 @@ func (s *Session) Stats() SessionStats {
 			st.HasRTT = true
 		}
 	}
+	if st.HasRTT {
+		s.repair.setICERTT(st.RTT)
+	}
+	st.Repair = s.repair.stats()
 	return st
 }
 
@@ -394,6 +418,15 @@ func (s *Session) onDataChannel(dc *webrtc.DataChannel) {
 		go dc.Close()
 		return
 	}
+	ordered := dc.Ordered()
+	reliable := dc.MaxRetransmits() == nil && dc.MaxPacketLifeTime() == nil
+	if ordered || reliable {
+		s.log.Warn("telemetry data channel is ordered or reliable: after a loss its messages wait behind each other and arrive late; open it with {ordered: false, maxRetransmits: 0}",
+			"ordered", ordered, "reliable", reliable)
+	}
+	s.mu.Lock()
+	s.telOrdered, s.telReliable = ordered, reliable
+	s.mu.Unlock()
 	dc.OnMessage(func(msg webrtc.DataChannelMessage) {
 		now := s.clock.Now()
 		s.mu.Lock()

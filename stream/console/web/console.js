@@ -168,8 +168,14 @@
     setText("v-cutoff", fix(m.cutoff, 2));
     setText("v-profile", typeof m.profile === "string" ? m.profile : "—");
     const l = m.link || {};
-    setText("l-loss", fix(l.loss_pct, 1));
-    setText("l-jitter", int(l.jitter_ms));
+    if (l.no_packets_ms > 0) {
+      // a silent link has no loss or jitter to show: say how long it has been silent
+      setText("l-loss", "no packets for " + int(l.no_packets_ms) + " ms");
+      setText("l-jitter", "—");
+    } else {
+      setText("l-loss", fix(l.loss_pct, 1) + " %");
+      setText("l-jitter", int(l.jitter_ms) + " ms");
+    }
     setText("l-delay", int(l.delay_ms));
     setText("l-kf", int(l.keyframe_requests));
     setText("l-frames", int(l.frames_in));

@@ -1,0 +1,553 @@
+package e2e
+
+import (
+	"bufio"
+	"context"
+	"fmt"
+	"io"
+	"net"
+	"net/http"
+	"net/url"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"strconv"
+	"strings"
+	"sync"
+	"syscall"
+	"testing"
+	"time"
+
+	"gocv.io/x/gocv"
+
+	"stopgap/predictor"
+	"stopgap/stream/console/consoletest"
+	"stopgap/stream/recording"
+	"stopgap/stream/relay"
+	"stopgap/stream/whip"
+)
+
+// The browser-as-vehicle rig: Debian's Chromium, inside a network namespace
+// of the test's own, publishes a simdrive drive (its fake camera reads it as
+// Y4M) over WHIP to the relay in the test process, with telemetry on an
+// unordered, unreliable data channel. The namespace reaches the host through
+// a router namespace (see netns); the relay offers ICE candidates on the
+// host's end only, on one UDP port, so iptables rules in the router on that
+// port make loss and outages on the media path alone.
+
+// vehiclePage is the browser vehicle. Query parameters: whip (endpoint),
+// token, w and h (camera size), dur (seconds before it ends its session with
+// DELETE). It reports progress and errors to /vehicle-log.
+const vehiclePage = `<!doctype html><meta charset="utf-8"><title>vehicle</title>
+<script>
+const q = new URLSearchParams(location.search);
+const log = (m) => fetch("/vehicle-log", {method: "POST", body: String(m)}).catch(() => {});
+(async () => {
+  try {
+    const pc = new RTCPeerConnection();
+    // Telemetry: unordered, no retransmissions (a late sample is worth nothing).
+    const dc = pc.createDataChannel("telemetry", {ordered: false, maxRetransmits: 0});
+    dc.onopen = () => {
+      log("telemetry open");
+      setInterval(() => {
+        if (dc.readyState !== "open") return;
+        const t = Math.round((performance.timeOrigin + performance.now()) * 1000);
+        dc.send(JSON.stringify({t_us: t, speed_mps: 8, yaw_rate_rps: 0.02}));
+      }, 20);
+    };
+    pc.onconnectionstatechange = () => log("pc " + pc.connectionState);
+    const stream = await navigator.mediaDevices.getUserMedia(
+      {video: {width: +q.get("w"), height: +q.get("h"), frameRate: 30}});
+    const track = stream.getVideoTracks()[0];
+    track.contentHint = "motion";
+    const tr = pc.addTransceiver(track, {direction: "sendonly"});
+    tr.setCodecPreferences(RTCRtpSender.getCapabilities("video").codecs.filter(c => c.mimeType === "video/VP8"));
+    await pc.setLocalDescription(await pc.createOffer());
+    await new Promise((done) => {
+      if (pc.iceGatheringState === "complete") return done();
+      pc.onicegatheringstatechange = () => { if (pc.iceGatheringState === "complete") done(); };
+      setTimeout(done, 3000);
+    });
+    const resp = await fetch(q.get("whip"), {method: "POST",
+      headers: {"Authorization": "Bearer " + q.get("token"), "Content-Type": "application/sdp"},
+      body: pc.localDescription.sdp});
+    const answer = await resp.text();
+    if (resp.status !== 201) { log("whip status " + resp.status + ": " + answer); return; }
+    const resource = new URL(resp.headers.get("Location"), q.get("whip")).href;
+    await pc.setRemoteDescription({type: "answer", sdp: answer});
+    try {
+      // Keep the camera's size: the relay's camera model is for it.
+      const p = tr.sender.getParameters();
+      p.degradationPreference = "maintain-resolution";
+      await tr.sender.setParameters(p);
+    } catch (e) { log("degradationPreference: " + e); }
+    setTimeout(async () => {
+      await fetch(resource, {method: "DELETE", headers: {"Authorization": "Bearer " + q.get("token")}}).catch(() => {});
+      pc.close();
+      log("done");
+    }, 1000 * +q.get("dur"));
+  } catch (e) { log("error " + e); }
+})();
+</script>`
+
+// requireBrowserVehicle skips t unless it can build the rig: root, ip,
+// iptables and chromium.
+func requireBrowserVehicle(t *testing.T) string {
+	t.Helper()
+	exe := consoletest.RequireChromium(t)
+	if os.Geteuid() != 0 {
+		t.Skip("browser-vehicle test: needs root to create a network namespace (ip netns) and iptables rules; skipping")
+	}
+	for _, tool := range []string{"ip", "iptables"} {
+		if _, err := exec.LookPath(tool); err != nil {
+			t.Skipf("browser-vehicle test: %s not found (apt-get install iproute2 iptables, as ./dev.sh deps does); skipping", tool)
+		}
+	}
+	return exe
+}
+
+// netns is the browser's network: two namespaces of the test's own, the
+// browser's (name) and a router (router) between it and the host:
+//
+//	host hostIf hostIP/30 <-> router (forwards) <-> browser nsIP/30
+//
+// Loss and outages are iptables rules in the router's FORWARD chain: packets
+// dropped there are lost on the way, as on a real link (a DROP in the
+// browser's own OUTPUT chain would fail its send call instead, which the
+// sender sees and works around).
+type netns struct {
+	t                      *testing.T
+	name, router, hostIf   string
+	hostIP, routerIP, nsIP string
+	mu                     sync.Mutex
+	rules                  [][]string // iptables rules in place, to delete
+}
+
+func run(args ...string) error {
+	out, err := exec.Command(args[0], args[1:]...).CombinedOutput()
+	if err != nil {
+		return fmt.Errorf("%s: %w: %s", strings.Join(args, " "), err, strings.TrimSpace(string(out)))
+	}
+	return nil
+}
+
+// newNetns creates both namespaces and their links; t.Cleanup deletes them
+// (the veth pairs, and the host's route through hostIf, go with them).
+func newNetns(t *testing.T) *netns {
+	t.Helper()
+	id := os.Getpid() % 100000
+	sub := fmt.Sprintf("10.213.%d.", id%250)
+	n := &netns{t: t, name: fmt.Sprintf("sgv%d", id), router: fmt.Sprintf("sgr%d", id), hostIf: fmt.Sprintf("sgh%d", id),
+		hostIP: sub + "1", routerIP: sub + "2", nsIP: sub + "6"}
+	rb, rv := fmt.Sprintf("sgb%d", id), fmt.Sprintf("sgc%d", id) // router's ends: to the host, to the browser
+	bn := fmt.Sprintf("sgn%d", id)                               // browser's end
+	if err := run("ip", "netns", "add", n.router); err != nil {
+		t.Skipf("browser-vehicle test: cannot create a network namespace: %v", err)
+	}
+	t.Cleanup(func() {
+		for _, ns := range []string{n.name, n.router} {
+			if err := run("ip", "netns", "del", ns); err != nil {
+				t.Errorf("deleting namespace %s: %v", ns, err)
+			}
+		}
+	})
+	if err := run("ip", "netns", "add", n.name); err != nil {
+		t.Skipf("browser-vehicle test: cannot create a network namespace: %v", err)
+	}
+	inR := func(args ...string) []string { return append([]string{"ip", "netns", "exec", n.router}, args...) }
+	inB := func(args ...string) []string { return append([]string{"ip", "netns", "exec", n.name}, args...) }
+	for _, c := range [][]string{
+		{"ip", "link", "add", n.hostIf, "type", "veth", "peer", "name", rb, "netns", n.router},
+		{"ip", "addr", "add", n.hostIP + "/30", "dev", n.hostIf},
+		{"ip", "link", "set", n.hostIf, "up"},
+		inR("ip", "addr", "add", n.routerIP+"/30", "dev", rb),
+		inR("ip", "link", "set", rb, "up"),
+		inR("ip", "link", "set", "lo", "up"),
+		inR("ip", "link", "add", rv, "type", "veth", "peer", "name", bn, "netns", n.name),
+		inR("ip", "addr", "add", sub+"5/30", "dev", rv),
+		inR("ip", "link", "set", rv, "up"),
+		inR("sysctl", "-q", "-w", "net.ipv4.ip_forward=1"),
+		// IPv4 only, so the iptables rules see every media packet (the
+		// browser would otherwise prefer IPv6 link-local pairs).
+		inR("sysctl", "-q", "-w", "net.ipv6.conf.all.disable_ipv6=1"),
+		inB("sysctl", "-q", "-w", "net.ipv6.conf.all.disable_ipv6=1"),
+		inB("ip", "addr", "add", n.nsIP+"/30", "dev", bn),
+		inB("ip", "link", "set", bn, "up"),
+		inB("ip", "link", "set", "lo", "up"),
+		inB("ip", "route", "add", "default", "via", sub+"5"),
+		{"ip", "route", "add", sub + "4/30", "via", n.routerIP, "dev", n.hostIf},
+	} {
+		if err := run(c...); err != nil {
+			// The machine does not let us build the network (no network
+			// administration rights in this container, say): not a fault
+			// of the code under test.
+			t.Skipf("browser-vehicle test: cannot set up the test network: %v", err)
+		}
+	}
+	return n
+}
+
+// addRule inserts an iptables rule in the router.
+func (n *netns) addRule(rule ...string) {
+	n.t.Helper()
+	if err := run(append([]string{"ip", "netns", "exec", n.router, "iptables", "-I"}, rule...)...); err != nil {
+		n.t.Fatal(err)
+	}
+	n.mu.Lock()
+	n.rules = append(n.rules, rule)
+	n.mu.Unlock()
+}
+
+// clearRules deletes every rule added.
+func (n *netns) clearRules() {
+	n.t.Helper()
+	n.mu.Lock()
+	rules := n.rules
+	n.rules = nil
+	n.mu.Unlock()
+	for _, r := range rules {
+		if err := run(append([]string{"ip", "netns", "exec", n.router, "iptables", "-D"}, r...)...); err != nil {
+			n.t.Error(err)
+		}
+	}
+}
+
+// randomLoss drops a share p of the media packets the browser sends.
+func (n *netns) randomLoss(port int, p float64) {
+	n.addRule("FORWARD", "-p", "udp", "--dport", strconv.Itoa(port), "-m", "statistic", "--mode", "random",
+		"--probability", strconv.FormatFloat(p, 'f', 4, 64), "-j", "DROP")
+}
+
+// countSent inserts a rule without target on top of FORWARD that counts the
+// packets sent to port (before any DROP rule sees them).
+func (n *netns) countSent(port int) {
+	n.addRule("FORWARD", "-p", "udp", "--dport", strconv.Itoa(port))
+}
+
+// forwardCounters returns the packet counters of the router's FORWARD rules:
+// sent (the rule without target) and dropped (DROP rules).
+func (n *netns) forwardCounters() (sent, dropped uint64) {
+	n.t.Helper()
+	out, err := exec.Command("ip", "netns", "exec", n.router, "iptables", "-L", "FORWARD", "-v", "-n", "-x").CombinedOutput()
+	if err != nil {
+		n.t.Fatalf("iptables -L: %v: %s", err, out)
+	}
+	for _, l := range strings.Split(string(out), "\n")[2:] {
+		f := strings.Fields(l)
+		if len(f) < 3 {
+			continue
+		}
+		v, err := strconv.ParseUint(f[0], 10, 64)
+		if err != nil {
+			continue
+		}
+		switch {
+		case f[2] == "DROP":
+			dropped += v
+		case f[2] == "udp" || f[2] == "17":
+			sent += v // no target: the counting rule
+		}
+	}
+	return sent, dropped
+}
+
+// cut drops every packet to and from the relay's media port.
+func (n *netns) cut(port int) {
+	n.addRule("FORWARD", "-p", "udp", "--dport", strconv.Itoa(port), "-j", "DROP")
+	n.addRule("FORWARD", "-p", "udp", "--sport", strconv.Itoa(port), "-j", "DROP")
+}
+
+// writeY4M writes the drive's frames as a 4:2:0 Y4M file for Chromium's fake
+// camera.
+func writeY4M(t *testing.T, rec *recording.Recording, path string) {
+	t.Helper()
+	f, err := os.Create(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	w := bufio.NewWriter(f)
+	fmt.Fprintf(w, "YUV4MPEG2 W%d H%d F30:1 Ip A1:1 C420jpeg\n", rec.Camera.Width, rec.Camera.Height)
+	yuv := gocv.NewMat()
+	defer yuv.Close()
+	for _, fr := range rec.Frames {
+		img := gocv.IMRead(filepath.Join(rec.Dir, filepath.FromSlash(fr.File)), gocv.IMReadColor)
+		if img.Empty() {
+			t.Fatalf("frame %d (%s) unreadable", fr.Index, fr.File)
+		}
+		gocv.CvtColor(img, &yuv, gocv.ColorBGRToYUVI420)
+		img.Close()
+		w.WriteString("FRAME\n")
+		w.Write(yuv.ToBytes())
+	}
+	if err := w.Flush(); err != nil {
+		t.Fatal(err)
+	}
+}
+
+// browserRig is the relay on the host end of the veth pair and the page
+// server; sessions are Chromium processes inside the namespace.
+type browserRig struct {
+	t       *testing.T
+	exe     string
+	ns      *netns
+	relay   *relay.Relay
+	base    string // http://hostIP:port
+	udpPort int
+	y4m     string
+	w, h    int
+
+	mu   sync.Mutex
+	logs []string
+}
+
+func startBrowserRig(t *testing.T, w, h int, driveS float64) *browserRig {
+	t.Helper()
+	exe := requireBrowserVehicle(t)
+	ns := newNetns(t)
+	dir := t.TempDir()
+	rec, err := recording.Open(renderDrive(t, dir, w, h, driveS))
+	if err != nil {
+		t.Fatal(err)
+	}
+	r := &browserRig{t: t, exe: exe, ns: ns, w: w, h: h, y4m: filepath.Join(dir, "drive.y4m")}
+	writeY4M(t, rec, r.y4m)
+	pc, err := net.ListenPacket("udp4", ns.hostIP+":0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	r.udpPort = pc.LocalAddr().(*net.UDPAddr).Port
+	pc.Close()
+	r.relay, err = relay.New(relay.Config{
+		FPS: 30, Camera: predictor.CameraFromRecording(rec.Camera),
+		IngestToken: ingestToken, ConsoleToken: consoleToken, Logger: quietLogger(),
+		Whip: whip.Config{Network: whip.Network{Interfaces: []string{ns.hostIf}, UDPPort: r.udpPort}},
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	ln, err := net.Listen("tcp", ns.hostIP+":0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	mux := http.NewServeMux()
+	mux.Handle("/", r.relay.Handler())
+	mux.HandleFunc("/vehicle.html", func(w http.ResponseWriter, _ *http.Request) {
+		w.Header().Set("Content-Type", "text/html; charset=utf-8")
+		io.WriteString(w, vehiclePage)
+	})
+	mux.HandleFunc("/vehicle-log", func(w http.ResponseWriter, req *http.Request) {
+		b, _ := io.ReadAll(io.LimitReader(req.Body, 2048))
+		r.mu.Lock()
+		r.logs = append(r.logs, time.Now().Format("15:04:05.000")+" "+string(b))
+		r.mu.Unlock()
+	})
+	srv := &http.Server{Handler: mux, ReadHeaderTimeout: 5 * time.Second}
+	go srv.Serve(ln)
+	r.base = "http://" + ln.Addr().String()
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan error, 1)
+	go func() { done <- r.relay.Run(ctx) }()
+	t.Cleanup(func() {
+		cancel()
+		if err := <-done; err != nil {
+			t.Errorf("relay: %v", err)
+		}
+		srv.Close()
+		if t.Failed() {
+			r.mu.Lock()
+			for _, l := range r.logs {
+				t.Log("vehicle page:", l)
+			}
+			r.mu.Unlock()
+		}
+	})
+	return r
+}
+
+// session runs one browser session of durS seconds; it returns when the
+// browser process was started. stop ends it (by PID) and waits.
+func (r *browserRig) session(durS float64) (stop func()) {
+	r.t.Helper()
+	page := fmt.Sprintf("%s/vehicle.html?whip=%s&token=%s&w=%d&h=%d&dur=%g", r.base,
+		url.QueryEscape(r.base+"/whip"), url.QueryEscape(ingestToken), r.w, r.h, durS)
+	userDir := r.t.TempDir()
+	args := []string{"netns", "exec", r.ns.name, r.exe,
+		"--headless", "--no-sandbox", "--disable-gpu", "--no-first-run", "--no-default-browser-check",
+		"--disable-background-networking", "--disable-component-update", "--disable-sync", "--disable-extensions",
+		"--mute-audio", "--disable-background-timer-throttling", "--disable-renderer-backgrounding",
+		"--use-fake-device-for-media-stream", "--use-fake-ui-for-media-stream",
+		"--use-file-for-fake-video-capture=" + r.y4m,
+		"--unsafely-treat-insecure-origin-as-secure=" + r.base,
+		"--user-data-dir=" + userDir, page}
+	cmd := exec.Command("ip", args...)
+	cmd.SysProcAttr = &syscall.SysProcAttr{Setpgid: true}
+	if err := cmd.Start(); err != nil {
+		r.t.Fatalf("starting chromium: %v", err)
+	}
+	pgid := cmd.Process.Pid
+	var once sync.Once
+	stop = func() {
+		once.Do(func() {
+			_ = syscall.Kill(-pgid, syscall.SIGKILL) // the browser's own process group
+			_ = cmd.Wait()
+		})
+	}
+	r.t.Cleanup(stop)
+	return stop
+}
+
+// ticks returns live and total ticks between two relay snapshots.
+func ticks(a, b relay.Stats) (live, total uint64) {
+	live = b.TicksLive - a.TicksLive
+	return live, live + (b.TicksPredicted - a.TicksPredicted) + (b.TicksStale - a.TicksStale)
+}
+
+func share(live, total uint64) float64 { return float64(live) / float64(max(total, 1)) }
+
+// waitSession waits until the relay serves a session that has shown a tick.
+func (r *browserRig) waitSession(before relay.Stats, timeout time.Duration) relay.Stats {
+	r.t.Helper()
+	var st relay.Stats
+	waitFor(r.t, "the browser's session to show ticks", timeout, func() bool {
+		st = r.relay.Stats()
+		_, n := ticks(before, st)
+		return st.Sessions > before.Sessions && n > 0
+	})
+	return st
+}
+
+// waitIdle waits until the relay serves no session.
+func (r *browserRig) waitIdle(timeout time.Duration) {
+	r.t.Helper()
+	waitFor(r.t, "the browser's session to end", timeout, func() bool { return !r.relay.Stats().Active })
+}
+
+// TestBrowserVehicle is the short version: one 6 s session of Chromium as
+// the vehicle on a clean link. It checks that the browser's session works
+// end to end (LIVE ticks, telemetry through the unordered channel) and logs
+// the share of LIVE ticks; the figures with thresholds are in
+// TestAcceptBrowserVehicle.
+func TestBrowserVehicle(t *testing.T) {
+	if testing.Short() {
+		t.Skip("browser-vehicle run of about 15 s")
+	}
+	r := startBrowserRig(t, 320, 180, 4)
+	s0 := r.relay.Stats()
+	stop := r.session(6)
+	defer stop()
+	s1 := r.waitSession(s0, 20*time.Second)
+	time.Sleep(4 * time.Second)
+	s2 := r.relay.Stats()
+	live, total := ticks(s1, s2)
+	t.Logf("clean link, 4 s of a browser session: %d of %d ticks LIVE (%.1f%%); telemetry in %d; repair %+v",
+		live, total, 100*share(live, total), s2.TelemetryIn-s0.TelemetryIn, s2.Repair)
+	if live == 0 || s2.TelemetryIn == s0.TelemetryIn {
+		t.Errorf("no LIVE tick or no telemetry from the browser: %+v", s2)
+	}
+	r.waitIdle(15 * time.Second)
+}
+
+// TestAcceptBrowserVehicle measures the issue's figures with Chromium as the
+// vehicle (set STOPGAP_ACCEPT=1; about 2 minutes): the share of LIVE ticks on
+// a clean link over three sessions and in each session's first 5 s; with 5%
+// random loss on the media (NACK repairs and keyframe requests reported);
+// and the first LIVE tick after a 3 s outage. Thresholds are the issue's:
+// clean >= 99.5%, first 5 s >= 90%, 5% loss >= 90%, LIVE within 150 ms of
+// the link returning and no LIVE tick while it is cut (after the frames in
+// flight, 150 ms).
+func TestAcceptBrowserVehicle(t *testing.T) {
+	requireAccept(t)
+	w, h := 640, 360
+	if v := os.Getenv("STOPGAP_ACCEPT_SIZE"); v != "" {
+		fmt.Sscanf(v, "%dx%d", &w, &h)
+	}
+	r := startBrowserRig(t, w, h, 6)
+
+	t.Run("clean", func(t *testing.T) {
+		var allLive, allTotal uint64
+		for i := 0; i < 3; i++ {
+			s0 := r.relay.Stats()
+			stop := r.session(14)
+			r.waitSession(s0, 20*time.Second)
+			time.Sleep(5 * time.Second)
+			s5 := r.relay.Stats()
+			time.Sleep(7 * time.Second)
+			s12 := r.relay.Stats()
+			fl, ft := ticks(s0, s5)
+			live, total := ticks(s5, s12)
+			allLive, allTotal = allLive+live, allTotal+total
+			t.Logf("session %d: first 5 s %d of %d LIVE (%.1f%%); then %d of %d LIVE (%.2f%%); late frames %d, keyframe requests %d",
+				i+1, fl, ft, 100*share(fl, ft), live, total, 100*share(live, total),
+				s12.LateFrames-s0.LateFrames, s12.KeyframeRequests-s0.KeyframeRequests)
+			if share(fl, ft) < 0.90 {
+				t.Errorf("session %d: first 5 s %.1f%% LIVE < 90%%", i+1, 100*share(fl, ft))
+			}
+			r.waitIdle(20 * time.Second)
+			stop()
+		}
+		t.Logf("clean link, 3 sessions after their first 5 s: %d of %d ticks LIVE (%.2f%%)", allLive, allTotal, 100*share(allLive, allTotal))
+		if share(allLive, allTotal) < 0.995 {
+			t.Errorf("clean link %.2f%% LIVE < 99.5%%", 100*share(allLive, allTotal))
+		}
+	})
+
+	t.Run("loss 5%", func(t *testing.T) {
+		s0 := r.relay.Stats()
+		stop := r.session(16)
+		defer stop()
+		r.waitSession(s0, 20*time.Second)
+		time.Sleep(3 * time.Second)
+		r.ns.randomLoss(r.udpPort, 0.05)
+		r.ns.countSent(r.udpPort)
+		s1 := r.relay.Stats()
+		time.Sleep(10 * time.Second)
+		s2 := r.relay.Stats()
+		sent, dropped := r.ns.forwardCounters()
+		r.ns.clearRules()
+		live, total := ticks(s1, s2)
+		t.Logf("5%% random loss on the media for 10 s: %d of %d packets to the relay's port dropped (%.1f%%)", dropped, sent, 100*share(dropped, sent))
+		t.Logf("5%% random loss on the media for 10 s: %d of %d ticks LIVE (%.1f%%); NACKed %d, repaired %d, gave up %d; keyframe requests %d; frame losses %d; late frames %d",
+			live, total, 100*share(live, total), s2.Repair.Gaps-s1.Repair.Gaps, s2.Repair.Repaired-s1.Repair.Repaired,
+			s2.Repair.GaveUp-s1.Repair.GaveUp, s2.KeyframeRequests-s1.KeyframeRequests, s2.Losses-s1.Losses, s2.LateFrames-s1.LateFrames)
+		t.Logf("relay during the loss: frames in %d, dropped by a full display queue %d",
+			s2.FramesIn-s1.FramesIn, s2.FramesDropped-s1.FramesDropped)
+		if share(live, total) < 0.90 {
+			t.Errorf("5%% loss: %.1f%% LIVE < 90%%", 100*share(live, total))
+		}
+		r.waitIdle(20 * time.Second)
+	})
+
+	t.Run("outage 3 s", func(t *testing.T) {
+		s0 := r.relay.Stats()
+		stop := r.session(14)
+		defer stop()
+		r.waitSession(s0, 20*time.Second)
+		time.Sleep(4 * time.Second)
+		r.ns.cut(r.udpPort)
+		cutAt := time.Now()
+		time.Sleep(150 * time.Millisecond)
+		inCut := r.relay.Stats()
+		time.Sleep(3*time.Second - time.Since(cutAt))
+		endCut := r.relay.Stats()
+		r.ns.clearRules()
+		back := time.Now()
+		var first time.Duration
+		waitFor(t, "a LIVE tick after the outage", 10*time.Second, func() bool {
+			if r.relay.Stats().TicksLive > endCut.TicksLive {
+				first = time.Since(back)
+				return true
+			}
+			return false
+		})
+		t.Logf("3 s outage: LIVE ticks while cut (after the first 150 ms): %d; first LIVE tick %v after the link returned; keyframe requests in the run %d",
+			endCut.TicksLive-inCut.TicksLive, first.Round(time.Millisecond), r.relay.Stats().KeyframeRequests-s0.KeyframeRequests)
+		if endCut.TicksLive != inCut.TicksLive {
+			t.Errorf("%d LIVE ticks while the link was cut", endCut.TicksLive-inCut.TicksLive)
+		}
+		if first > 150*time.Millisecond {
+			t.Errorf("first LIVE tick %v after the link returned, want <= 150 ms", first)
+		}
+		r.waitIdle(20 * time.Second)
+	})
+}
