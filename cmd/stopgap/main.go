@@ -7,6 +7,8 @@
 //	stopgap simdrive --out DIR                write a synthetic drive recording
 //	stopgap replay --drive DIR --out DIR      replay a recording and score every gap
 //	stopgap relay  [flags]                    run the live relay (see stopgap relay -h)
+//	stopgap import --mcap FILE --out DIR      convert a ROS 2 recording (MCAP)
+//	stopgap export --drive DIR --out FILE     write a recording as ROS 2 MCAP
 //
 // Run "stopgap COMMAND -h" for a command's flags. This package only parses
 // flags and wires the packages together; the logic lives in filter,
@@ -44,6 +46,8 @@ func commands() []command {
 		{"simdrive", "write a synthetic drive recording with exact ground truth", runSimdrive},
 		{"replay", "replay a recording with recorded or modelled drops and score every gap", runReplay},
 		{"relay", "run the live relay between the vehicle and the operator console", runRelay},
+		{"import", "convert a ROS 2 recording (MCAP) into a recording; --list shows its topics", runImport},
+		{"export", "write a recording as a ROS 2 MCAP file for robotics viewers", runExportMCAP},
 	}
 }
 
