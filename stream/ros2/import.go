@@ -74,10 +74,10 @@ type ImportOptions struct {
 // ImportSummary says what an import wrote.
 type ImportSummary struct {
 	ImageTopic, CameraInfoTopic, TelemetryTopic, ImuTopic string
-	Frames            int // frames written
-	TelemetrySamples  int // telemetry rows written
-	DroppedDuplicates int // telemetry samples dropped for a repeated stamp
-	Camera            recording.Camera
+	Frames                                                int // frames written
+	TelemetrySamples                                      int // telemetry rows written
+	DroppedDuplicates                                     int // telemetry samples dropped for a repeated stamp
+	Camera                                                recording.Camera
 }
 
 // Import converts the MCAP file at path into a new recording directory out
