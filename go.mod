@@ -13,6 +13,7 @@ require (
 	github.com/pion/rtp v1.10.6
 	github.com/pion/sdp/v3 v3.0.20
 	github.com/pion/webrtc/v4 v4.2.26
+	go.yaml.in/yaml/v3 v3.0.5
 	gocv.io/x/gocv v0.31.0
 	gonum.org/v1/gonum v0.17.0
 	gonum.org/v1/plot v0.17.0
@@ -40,7 +41,6 @@ require (
 	github.com/pion/turn/v5 v5.1.3 // indirect
 	github.com/stretchr/testify v1.12.1 // indirect
 	github.com/wlynxg/anet v0.0.5 // indirect
-	go.yaml.in/yaml/v3 v3.0.5 // indirect
 	golang.org/x/crypto v0.48.0 // indirect
 	golang.org/x/image v0.30.0 // indirect
 	golang.org/x/net v0.50.0 // indirect

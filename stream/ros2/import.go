@@ -19,6 +19,7 @@ import (
 
 	"github.com/foxglove/mcap/go/mcap"
 
+	"stopgap/stream/calib"
 	"stopgap/stream/recording"
 )
 
@@ -517,62 +518,22 @@ func rawImage(m *Image) (image.Image, error) {
 	return img, nil
 }
 
-// cameraFromInfo converts the intrinsics of a CameraInfo: K to fx, fy, cx,
-// cy, and D to OpenCV's k1 k2 p1 p2 k3 for the "plumb_bob" model (and for
-// "rational_polynomial" when its k4..k6 are zero). The mount is left zero.
+// cameraFromInfo converts the size and intrinsics of a CameraInfo with
+// the calibration files' converter (calib.FromKD: K to fx fy cx cy, D to
+// OpenCV's k1 k2 p1 p2 k3). The mount is left zero.
 func cameraFromInfo(ci *CameraInfo) (recording.Camera, error) {
-	if ci.Width == 0 || ci.Height == 0 {
-		return recording.Camera{}, fmt.Errorf("%w: width %d, height %d: the camera info has no image size", ErrMessage, ci.Width, ci.Height)
+	if ci.Width == 0 || ci.Height == 0 || ci.Width > recording.MaxImageSide || ci.Height > recording.MaxImageSide {
+		return recording.Camera{}, fmt.Errorf("%w: width %d, height %d: the camera info has no usable image size", ErrMessage, ci.Width, ci.Height)
 	}
 	if ci.BinningX > 1 || ci.BinningY > 1 {
 		return recording.Camera{}, fmt.Errorf("%w: binning %dx%d: binned images are not supported", ErrMessage, ci.BinningX, ci.BinningY)
 	}
-	if ci.K[1] != 0 || ci.K[3] != 0 || ci.K[6] != 0 || ci.K[7] != 0 || ci.K[8] != 1 {
-		return recording.Camera{}, fmt.Errorf("%w: k = %v is not [fx 0 cx; 0 fy cy; 0 0 1] (skew or a bad matrix)", ErrMessage, ci.K)
-	}
-	cam := recording.Camera{Width: int(ci.Width), Height: int(ci.Height), Fx: ci.K[0], Fy: ci.K[4], Cx: ci.K[2], Cy: ci.K[5]}
-	d, err := BrownConrady(ci.DistortionModel, ci.D)
+	cam, field, err := calib.FromKD(int(ci.Width), int(ci.Height), ci.K, ci.DistortionModel, ci.D)
 	if err != nil {
-		return recording.Camera{}, fmt.Errorf("%w: %v", ErrMessage, err)
+		name := map[string]string{"camera_matrix": "k", "distortion_coefficients": "d"}[field]
+		return recording.Camera{}, fmt.Errorf("%w: field %s (distortion_model %q): %w", ErrMessage, name, ci.DistortionModel, err)
 	}
-	cam.K1, cam.K2, cam.P1, cam.P2, cam.K3 = d[0], d[1], d[2], d[3], d[4]
 	return cam, nil
-}
-
-// BrownConrady returns OpenCV's k1 k2 p1 p2 k3 for a ROS distortion model
-// and coefficient list: "plumb_bob" with 5 coefficients (or fewer, the rest
-// zero), "rational_polynomial" with 8 whose k4 k5 k6 are zero, or any model
-// with no coefficients. Other models (e.g. "equidistant", the fisheye
-// model) are an error: our camera model does not have them.
-func BrownConrady(model string, d []float64) ([5]float64, error) {
-	var out [5]float64
-	for i, v := range d {
-		if math.IsNaN(v) || math.IsInf(v, 0) {
-			return out, fmt.Errorf("distortion coefficient %d is %v", i, v)
-		}
-	}
-	allZero := func(v []float64) bool {
-		for _, x := range v {
-			if x != 0 {
-				return false
-			}
-		}
-		return true
-	}
-	switch {
-	case allZero(d):
-		return out, nil
-	case model == "plumb_bob" && len(d) <= 5:
-		copy(out[:], d)
-		return out, nil
-	case model == "rational_polynomial" && len(d) <= 8 && (len(d) <= 5 || allZero(d[5:])):
-		copy(out[:], d)
-		return out, nil
-	case model == "plumb_bob" || model == "rational_polynomial":
-		return out, fmt.Errorf("distortion model %q with %d coefficients: only k1 k2 p1 p2 k3 are supported (k4..k6 must be zero)", model, len(d))
-	default:
-		return out, fmt.Errorf("distortion model %q is not supported; want plumb_bob (k1 k2 p1 p2 k3) or no distortion", model)
-	}
 }
 
 // mountFromTF resolves the pose of camFrame in base by chaining the static

@@ -280,32 +280,3 @@ func TestImportTopicErrors(t *testing.T) {
 		t.Fatalf("existing output: err = %v, want recording.ErrExists", err)
 	}
 }
-
-func TestBrownConrady(t *testing.T) {
-	for _, tc := range []struct {
-		model string
-		d     []float64
-		ok    bool
-	}{
-		{"plumb_bob", []float64{0.1, 0.2, 0.3, 0.4, 0.5}, true},
-		{"plumb_bob", []float64{0.1, 0.2, 0.3, 0.4}, true},
-		{"rational_polynomial", []float64{0.1, 0.2, 0.3, 0.4, 0.5, 0, 0, 0}, true},
-		{"rational_polynomial", []float64{0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0, 0}, false},
-		{"equidistant", []float64{0.1, 0.2, 0.3, 0.4}, false},
-		{"equidistant", []float64{0, 0, 0, 0}, true},
-		{"", nil, true},
-	} {
-		got, err := BrownConrady(tc.model, tc.d)
-		if (err == nil) != tc.ok {
-			t.Errorf("%s %v: err = %v, want ok=%v", tc.model, tc.d, err, tc.ok)
-			continue
-		}
-		if err == nil {
-			for i, v := range tc.d {
-				if i < 5 && got[i] != v {
-					t.Errorf("%s %v: got %v", tc.model, tc.d, got)
-				}
-			}
-		}
-	}
-}
