@@ -18,7 +18,7 @@ func runImport(ctx context.Context, args []string, stdout, stderr io.Writer) err
 	var in, out string
 	var list, quiet, logJSON bool
 	var opts ros2.ImportOptions
-	var mount ros2.Mount
+	var mf mountFlags
 	fs.StringVar(&in, "mcap", "", "ROS 2 recording `file` (MCAP, CDR messages) to read (required)")
 	fs.StringVar(&out, "out", "", "recording `directory` to create (required unless --list)")
 	fs.BoolVar(&list, "list", false, "only list the file's topics, types and message counts")
@@ -28,11 +28,7 @@ func runImport(ctx context.Context, args []string, stdout, stderr io.Writer) err
 	fs.StringVar(&opts.ImuTopic, "imu-topic", "", "sensor_msgs/msg/Imu topic for yaw rate and acceleration (default: the only one, if any; - for none)")
 	fs.StringVar(&opts.TFStaticTopic, "tf-static-topic", ros2.DefaultTFStaticTopic, "static transforms topic the camera mount is read from")
 	fs.StringVar(&opts.BaseFrame, "base-frame", ros2.DefaultBaseFrame, "vehicle frame (origin on the ground under the rotation centre)")
-	fs.Float64Var(&mount.HeightM, "height-m", 0, "camera mount: height of the camera centre above the road, m (mount flags replace /tf_static)")
-	fs.Float64Var(&mount.PitchDeg, "pitch-deg", 0, "camera mount: downward tilt, degrees")
-	fs.Float64Var(&mount.RollDeg, "roll-deg", 0, "camera mount: roll, degrees, positive turns the right side down")
-	fs.Float64Var(&mount.XOffsetM, "x-offset-m", 0, "camera mount: camera centre ahead of the vehicle origin, m")
-	fs.Float64Var(&mount.YOffsetM, "y-offset-m", 0, "camera mount: camera centre left of the vehicle origin, m")
+	mf.register(fs) // any mount flag replaces the mount from the transforms
 	fs.BoolVar(&quiet, "quiet", false, "no progress bar")
 	fs.BoolVar(&logJSON, "log-json", false, "write logs as JSON")
 	fs.Usage = func() {
@@ -67,12 +63,7 @@ func runImport(ctx context.Context, args []string, stdout, stderr io.Writer) err
 		}
 		return tw.Flush()
 	}
-	fs.Visit(func(f *flag.Flag) {
-		switch f.Name {
-		case "height-m", "pitch-deg", "roll-deg", "x-offset-m", "y-offset-m":
-			opts.Mount = &mount
-		}
-	})
+	opts.Mount = mf.given(fs)
 	opts.Logger = newLogger(stderr, logJSON, 0)
 	if !quiet {
 		opts.Progress = progressBar(stderr, "import")

@@ -13,6 +13,7 @@ import (
 	"stopgap/bench/simdrive"
 	"stopgap/filter"
 	"stopgap/predictor"
+	"stopgap/stream/recording"
 )
 
 // TestImportRoundTripScores renders a small simdrive drive, writes it to
@@ -68,5 +69,32 @@ func TestImportRoundTripScores(t *testing.T) {
 	jb, _ := json.Marshal(b)
 	if !bytes.Equal(ja, jb) {
 		t.Fatalf("imported recording replays differently:\noriginal %s\nimported %s", ja, jb)
+	}
+}
+
+// TestCameraCommand converts OpenCV's calibration sample output (opencv-doc)
+// into a camera.json that the recording reader accepts, and refuses a file
+// without the image size, naming what is missing.
+func TestCameraCommand(t *testing.T) {
+	out := filepath.Join(t.TempDir(), "camera.json")
+	var so, se bytes.Buffer
+	args := []string{"camera", "--calibration", "/usr/share/doc/opencv-doc/examples/data/left_intrinsics.yml", "--out", out, "--height-m", "1.4", "--pitch-deg", "5"}
+	if code := run(context.Background(), args, &so, &se); code != 0 {
+		t.Fatalf("exit %d: %s", code, se.String())
+	}
+	cam, err := recording.ReadCameraFile(out)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if cam.Width != 640 || cam.Fx != 5.3591573396163199e+02 || cam.HeightM != 1.4 || cam.PitchDeg != 5 {
+		t.Fatalf("camera %+v", cam)
+	}
+	if code := run(context.Background(), args, &so, &se); code == 0 {
+		t.Fatal("an existing --out was replaced without --overwrite")
+	}
+	se.Reset()
+	args = []string{"camera", "--calibration", "/usr/share/doc/opencv-doc/examples/aruco/tutorial_camera_params.yml", "--out", out + "2", "--height-m", "1"}
+	if code := run(context.Background(), args, &so, &se); code != 1 || !strings.Contains(se.String(), "image_width") {
+		t.Fatalf("exit %d, stderr %q: want 1 and a message naming image_width", code, se.String())
 	}
 }

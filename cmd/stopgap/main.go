@@ -9,6 +9,7 @@
 //	stopgap relay  [flags]                    run the live relay (see stopgap relay -h)
 //	stopgap import --mcap FILE --out DIR      convert a ROS 2 recording (MCAP)
 //	stopgap export --drive DIR --out FILE     write a recording as ROS 2 MCAP
+//	stopgap camera --calibration FILE --out camera.json [mount flags]
 //
 // Run "stopgap COMMAND -h" for a command's flags. This package only parses
 // flags and wires the packages together; the logic lives in filter,
@@ -48,6 +49,7 @@ func commands() []command {
 		{"relay", "run the live relay between the vehicle and the operator console", runRelay},
 		{"import", "convert a ROS 2 recording (MCAP) into a recording; --list shows its topics", runImport},
 		{"export", "write a recording as a ROS 2 MCAP file for robotics viewers", runExportMCAP},
+		{"camera", "write a camera.json from an OpenCV or ROS calibration file and the mount", runCamera},
 	}
 }
 
