@@ -88,6 +88,7 @@ type Relay struct {
 	met             *metrics
 	mux             *http.ServeMux
 	metricsTokenSum [32]byte
+	probe           probes // /readyz and /livez (probes.go)
 
 	incoming chan IngestSession
 	encPtsUs int64 // last encoder timestamp; used only by the serving goroutine
@@ -150,6 +151,8 @@ func New(cfg Config) (*Relay, error) {
 	r.mux.Handle("/whip", r.whip)
 	r.mux.Handle("/whip/", r.whip)
 	r.mux.HandleFunc("/healthz", r.healthz)
+	r.mux.HandleFunc(ReadyPath, r.readyz)
+	r.mux.HandleFunc(LivePath, r.livez)
 	r.mux.HandleFunc("/metrics", r.metrics)
 	r.mux.Handle("/", r.console)
 	return r, nil
@@ -227,6 +230,7 @@ func (r *Relay) Run(ctx context.Context) error {
 		return ErrClosed
 	}
 	r.mu.Unlock()
+	r.probe.running.Store(true)
 	var next IngestSession
 	for {
 		if next == nil {
@@ -265,6 +269,7 @@ func (r *Relay) Run(ctx context.Context) error {
 }
 
 func (r *Relay) shutdown() error {
+	r.probe.running.Store(false)
 	r.mu.Lock()
 	r.closed = true
 	r.mu.Unlock()
