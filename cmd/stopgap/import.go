@@ -8,6 +8,9 @@ import (
 	"os"
 	"text/tabwriter"
 
+	"gocv.io/x/gocv"
+
+	"stopgap/bench"
 	"stopgap/stream/recording"
 	"stopgap/stream/ros2"
 )
@@ -84,14 +87,20 @@ func runImport(ctx context.Context, args []string, stdout, stderr io.Writer) err
 func runExportMCAP(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	fs := flag.NewFlagSet("export", flag.ContinueOnError)
 	fs.SetOutput(stderr)
-	var drive, out, base string
+	var drive, out, base, report string
+	var quality int
 	fs.StringVar(&drive, "drive", "", "recording `directory` to export (required)")
 	fs.StringVar(&out, "out", "", "MCAP `file` to create; must not exist (required)")
 	fs.StringVar(&base, "base-frame", ros2.DefaultBaseFrame, "name of the vehicle frame in the transforms")
+	fs.StringVar(&report, "replay-report", "", "also replay the drive (replay flags below) into this report `directory` and write each tick's state ("+ros2.TickStateTopic+") and every frame the operator would have seen in a gap ("+ros2.ShownImageTopic+", labelled)")
+	fs.IntVar(&quality, "jpeg-quality", 90, "JPEG quality of the exported shown frames, 1..100")
+	var rf replayFlags
+	rf.register(fs)
 	fs.Usage = func() {
-		fmt.Fprintln(stderr, "usage: stopgap export --drive DIR --out FILE.mcap")
+		fmt.Fprintln(stderr, "usage: stopgap export --drive DIR --out FILE.mcap [--replay-report DIR [replay flags]]")
 		fmt.Fprintln(stderr, "\nWrites a recording as a ROS 2 MCAP file (CompressedImage, CameraInfo,")
-		fmt.Fprintln(stderr, "Odometry, Imu, /tf_static) for general-purpose robotics viewers.")
+		fmt.Fprintln(stderr, "Odometry, Imu, /tf_static) for general-purpose robotics viewers; with")
+		fmt.Fprintln(stderr, "--replay-report, the replay's states and shown frames beside it.")
 		fmt.Fprintln(stderr)
 		fs.PrintDefaults()
 	}
@@ -103,13 +112,52 @@ func runExportMCAP(ctx context.Context, args []string, stdout, stderr io.Writer)
 		fs.Usage()
 		return errUsage
 	}
+	if quality < 1 || quality > 100 {
+		return fmt.Errorf("--jpeg-quality %d: want 1..100", quality)
+	}
 	rec, err := recording.Open(drive)
 	if err != nil {
 		return err
 	}
-	return writeMCAPFile(out, func(mw *ros2.MCAPWriter) error {
-		return ros2.ExportRecording(ctx, rec, base, mw)
+	var cfg bench.ReplayConfig
+	if report != "" {
+		if cfg, err = rf.config(drive, report, stderr); err != nil {
+			return err
+		}
+		fmt.Fprintln(stderr, safetyCaution)
+	}
+	var sum bench.Summary
+	err = writeMCAPFile(out, func(mw *ros2.MCAPWriter) error {
+		if err := ros2.ExportRecording(ctx, rec, base, mw); err != nil {
+			return err
+		}
+		if report == "" {
+			return nil
+		}
+		params := []int{gocv.IMWriteJpegQuality, quality}
+		cfg.Shown = func(row bench.TickRow, shown gocv.Mat) error {
+			var jpeg []byte
+			if shown.Ptr() != nil && !shown.Empty() {
+				buf, err := gocv.IMEncodeWithParams(gocv.JPEGFileExt, shown, params)
+				if err != nil {
+					return fmt.Errorf("encoding the shown frame: %w", err)
+				}
+				defer buf.Close()
+				jpeg = buf.GetBytes()
+			}
+			return mw.WriteTick(ros2.TickState{Tick: row.Tick, CaptureUs: row.TargetUs, State: row.State,
+				AgeMs: row.AgeMs, Confidence: row.Confidence}, jpeg)
+		}
+		sum, err = bench.Replay(ctx, cfg)
+		return err
 	}, stdout)
+	if err != nil {
+		return err
+	}
+	if report != "" {
+		printSummary(stdout, sum, report)
+	}
+	return nil
 }
 
 // writeMCAPFile creates out (refusing an existing file), lets fill write
