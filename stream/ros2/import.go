@@ -110,8 +110,9 @@ func Import(ctx context.Context, path, out string, opts ImportOptions) (ImportSu
 	if sum.TelemetryTopic, err = pickTopic(topics, opts.TelemetryTopic, "--telemetry-topic", TypeOdometry, TypeTwistStamped); err != nil {
 		return sum, err
 	}
-	if opts.ImuTopic != "-" {
-		if sum.ImuTopic, err = pickTopic(topics, opts.ImuTopic, "--imu-topic", TypeImu); err != nil && opts.ImuTopic != "" {
+	if opts.ImuTopic != "-" && (opts.ImuTopic != "" || hasType(topics, TypeImu)) {
+		// Optional: only an explicit choice or several candidates can fail.
+		if sum.ImuTopic, err = pickTopic(topics, opts.ImuTopic, "--imu-topic", TypeImu); err != nil {
 			return sum, err
 		}
 	}
@@ -134,6 +135,9 @@ func Import(ctx context.Context, path, out string, opts ImportOptions) (ImportSu
 		lastFrame int64
 	)
 	err = scanMCAP(ctx, path, func(ch *mcap.Channel, s *mcap.Schema, m *mcap.Message) error {
+		if ch.Topic == "" {
+			return nil // never selected (the optional IMU topic may be "")
+		}
 		switch ch.Topic {
 		case sum.CameraInfoTopic:
 			if info != nil {
@@ -325,6 +329,16 @@ func pickTopic(topics []TopicInfo, want, flag string, types ...string) (string, 
 	default:
 		return "", fmt.Errorf("ros2: %w: several topics of type %s (%s): choose one with %s", ErrTopic, strings.Join(types, " or "), strings.Join(found, ", "), flag)
 	}
+}
+
+// hasType reports whether any topic carries typ in CDR.
+func hasType(topics []TopicInfo, typ string) bool {
+	for _, t := range topics {
+		if t.Type == typ && t.Encoding == "cdr" {
+			return true
+		}
+	}
+	return false
 }
 
 // telemetryRow decodes an Odometry or TwistStamped message into a row: the

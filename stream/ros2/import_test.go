@@ -10,6 +10,7 @@ import (
 	"os"
 	"path/filepath"
 	"reflect"
+	"strings"
 	"testing"
 
 	"stopgap/stream/recording"
@@ -278,5 +279,44 @@ func TestImportTopicErrors(t *testing.T) {
 	// An existing non-empty output is refused.
 	if _, err := Import(context.Background(), path, src, ImportOptions{}); !errors.Is(err, recording.ErrExists) {
 		t.Fatalf("existing output: err = %v, want recording.ErrExists", err)
+	}
+}
+
+func TestImportSeveralIMUs(t *testing.T) {
+	path := filepath.Join(t.TempDir(), "imus.mcap")
+	f, err := os.Create(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	mw, err := NewMCAPWriter(f)
+	if err != nil {
+		t.Fatal(err)
+	}
+	info := CameraInfoFromCamera(recording.Camera{Width: 4, Height: 2, Fx: 4, Fy: 4, Cx: 2, Cy: 1})
+	for _, w := range []struct {
+		topic, typ string
+		m          cdrMessage
+	}{
+		{"/info", TypeCameraInfo, &info},
+		{"/image", TypeImage, &Image{Width: 4, Height: 2, Encoding: "mono8", Step: 4, Data: make([]byte, 8)}},
+		{"/twist", TypeTwistStamped, &TwistStamped{}},
+		{"/imu/a", TypeImu, &Imu{}},
+		{"/imu/b", TypeImu, &Imu{}},
+	} {
+		if err := mw.Write(w.topic, w.typ, 0, w.m); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if err := mw.Close(); err != nil {
+		t.Fatal(err)
+	}
+	f.Close()
+	out := filepath.Join(t.TempDir(), "rec")
+	mount := &Mount{HeightM: 1}
+	if _, err := Import(context.Background(), path, out, ImportOptions{Mount: mount}); !errors.Is(err, ErrTopic) || !strings.Contains(err.Error(), "--imu-topic") {
+		t.Fatalf("two IMU topics, none chosen: err = %v, want ErrTopic naming --imu-topic", err)
+	}
+	if _, err := Import(context.Background(), path, out, ImportOptions{Mount: mount, ImuTopic: "/imu/b"}); err != nil {
+		t.Fatal(err)
 	}
 }
