@@ -176,11 +176,11 @@ func Import(ctx context.Context, path, out string, opts ImportOptions) (ImportSu
 			if err != nil {
 				return err
 			}
-			if t := h.Stamp.Us(); nFrames > 0 && t <= lastFrame {
+			t := h.Stamp.Us()
+			if nFrames > 0 && t <= lastFrame {
 				return fmt.Errorf("%w: image stamp %d us is not after the previous image's %d us; frames must be in capture order", ErrMessage, t, lastFrame)
-			} else {
-				lastFrame = t
 			}
+			lastFrame = t
 			nFrames++
 		}
 		return nil
