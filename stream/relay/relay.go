@@ -312,6 +312,9 @@ func (r *Relay) Serve(ctx context.Context, s IngestSession) error {
 }
 
 func (r *Relay) setActive(a bool) {
+	if a {
+		r.beat(r.cfg.Now()) // the session starts now, not at the last session's beat
+	}
 	r.mu.Lock()
 	r.active = a
 	if !a {
