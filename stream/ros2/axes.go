@@ -118,7 +118,17 @@ func MountFromTransform(t Vector3, q Quaternion) (Mount, error) {
 		yaw := math.Atan2(axis.Y, axis.X) * 180 / math.Pi
 		return Mount{}, fmt.Errorf("%w: the camera's rotation is not a pitch and a roll about a forward-looking axis (its optical axis points %.2f degrees to the left of the vehicle's x axis); our camera model needs a forward-looking camera: check the frames or give the mount with flags", ErrMount, yaw)
 	}
-	return Mount{XOffsetM: t.X, YOffsetM: t.Y, HeightM: t.Z, PitchDeg: pitch, RollDeg: roll}, nil
+	return Mount{XOffsetM: quantize(t.X), YOffsetM: quantize(t.Y), HeightM: quantize(t.Z), PitchDeg: quantize(pitch), RollDeg: quantize(roll)}, nil
+}
+
+// quantize rounds v to 1e-9 (nanometres, nanodegrees) and turns -0 into 0.
+// Converting angles to a quaternion and back, and chaining transforms,
+// leaves rounding noise of about 1e-15 (5 degrees comes back as
+// 4.999999999999999); quantizing removes it, so that a mount written to
+// MCAP comes back exactly as camera.json had it and a re-imported drive
+// replays to the same figures. No camera is mounted to a nanodegree.
+func quantize(v float64) float64 {
+	return math.Round(v*1e9)/1e9 + 0
 }
 
 // matFromQuat returns the rotation matrix of the unit quaternion q
