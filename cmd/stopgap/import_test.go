@@ -21,8 +21,11 @@ import (
 // TestImportRoundTripScores renders a small simdrive drive, writes it to
 // MCAP with the exporter (the MCAP library's writer), imports it with the
 // import command, and replays both recordings with the same seeded loss:
-// every figure of the two summaries must be equal (steering angles have no
-// ROS message here and are dropped, which the CTRV filter does not use).
+// every figure of the two summaries must be equal. Steering angles are not
+// carried (none of the message types read has them), so the filter is CTRV
+// without a wheelbase, which ignores steering; with a wheelbase (the CLI's
+// default 2.7 m) or the bicycle model the imported drive has no steering
+// and its scores differ.
 func TestImportRoundTripScores(t *testing.T) {
 	dir := t.TempDir()
 	drive := filepath.Join(dir, "drive")
