@@ -82,6 +82,9 @@ func scanReader(ctx context.Context, r io.Reader, path string, visit visitFunc) 
 		fail := func(topic string, err error) error {
 			return &RecordError{File: path, Record: last, Index: idx, Topic: topic, Err: err}
 		}
+		if idx == 0 && tok != mcap.TokenHeader {
+			return fail("", fmt.Errorf("%w: the first record is a %s record; the MCAP specification requires the header first", ErrMCAP, last))
+		}
 		switch tok {
 		case mcap.TokenSchema:
 			s, err := mcap.ParseSchema(rec)
