@@ -11,6 +11,7 @@ import (
 	"gocv.io/x/gocv"
 
 	"stopgap/bench"
+	"stopgap/stream/calib"
 	"stopgap/stream/recording"
 	"stopgap/stream/ros2"
 )
@@ -20,6 +21,7 @@ func runImport(ctx context.Context, args []string, stdout, stderr io.Writer) err
 	fs.SetOutput(stderr)
 	var in, out string
 	var list, quiet, logJSON bool
+	var calibration string
 	var opts ros2.ImportOptions
 	var mf mountFlags
 	fs.StringVar(&in, "mcap", "", "ROS 2 recording `file` (MCAP, CDR messages) to read (required)")
@@ -27,6 +29,7 @@ func runImport(ctx context.Context, args []string, stdout, stderr io.Writer) err
 	fs.BoolVar(&list, "list", false, "only list the file's topics, types and message counts")
 	fs.StringVar(&opts.ImageTopic, "image-topic", "", "sensor_msgs/msg/CompressedImage or Image topic (default: the only one)")
 	fs.StringVar(&opts.CameraInfoTopic, "camera-info-topic", "", "sensor_msgs/msg/CameraInfo topic (default: the only one)")
+	fs.StringVar(&calibration, "calibration", "", "camera calibration `file` (OpenCV YAML/XML or ROS camera_info YAML) to use instead of a CameraInfo topic")
 	fs.StringVar(&opts.TelemetryTopic, "telemetry-topic", "", "nav_msgs/msg/Odometry or geometry_msgs/msg/TwistStamped topic (default: the only one)")
 	fs.StringVar(&opts.ImuTopic, "imu-topic", "", "sensor_msgs/msg/Imu topic for yaw rate and acceleration (default: the only one, if any; - for none)")
 	fs.StringVar(&opts.TFStaticTopic, "tf-static-topic", ros2.DefaultTFStaticTopic, "static transforms topic the camera mount is read from")
@@ -67,6 +70,13 @@ func runImport(ctx context.Context, args []string, stdout, stderr io.Writer) err
 		return tw.Flush()
 	}
 	opts.Mount = mf.given(fs)
+	if calibration != "" {
+		cam, _, err := calib.ReadFile(calibration)
+		if err != nil {
+			return fmt.Errorf("--calibration: %w", err)
+		}
+		opts.Intrinsics = &cam
+	}
 	opts.Logger = newLogger(stderr, logJSON, 0)
 	if !quiet {
 		opts.Progress = progressBar(stderr, "import")
@@ -80,7 +90,11 @@ func runImport(ctx context.Context, args []string, stdout, stderr io.Writer) err
 	if sum.ImuTopic != "" {
 		fmt.Fprintf(stdout, " (yaw rate from %s)", sum.ImuTopic)
 	}
-	fmt.Fprintf(stdout, ", camera from %s\n", sum.CameraInfoTopic)
+	if sum.CameraInfoTopic != "" {
+		fmt.Fprintf(stdout, ", camera from %s\n", sum.CameraInfoTopic)
+	} else {
+		fmt.Fprintf(stdout, ", camera from %s\n", calibration)
+	}
 	return nil
 }
 

@@ -62,6 +62,11 @@ type ImportOptions struct {
 	TFStaticTopic string
 	// BaseFrame is the vehicle frame; "" means DefaultBaseFrame.
 	BaseFrame string
+	// Intrinsics, if not nil, is the camera (size, intrinsics, distortion;
+	// its mount is ignored), e.g. read from a calibration file with
+	// package stopgap/stream/calib; then no CameraInfo topic is read, and
+	// the camera frame for the mount is the images' header.frame_id.
+	Intrinsics *recording.Camera
 	// Mount, if not nil, is the camera mount; otherwise it is derived from
 	// the static transforms from BaseFrame to the camera's frame.
 	Mount *Mount
@@ -104,8 +109,10 @@ func Import(ctx context.Context, path, out string, opts ImportOptions) (ImportSu
 	if sum.ImageTopic, err = pickTopic(topics, opts.ImageTopic, "--image-topic", TypeCompressedImage, TypeImage); err != nil {
 		return sum, err
 	}
-	if sum.CameraInfoTopic, err = pickTopic(topics, opts.CameraInfoTopic, "--camera-info-topic", TypeCameraInfo); err != nil {
-		return sum, err
+	if opts.Intrinsics == nil {
+		if sum.CameraInfoTopic, err = pickTopic(topics, opts.CameraInfoTopic, "--camera-info-topic", TypeCameraInfo); err != nil {
+			return sum, err
+		}
 	}
 	if sum.TelemetryTopic, err = pickTopic(topics, opts.TelemetryTopic, "--telemetry-topic", TypeOdometry, TypeTwistStamped); err != nil {
 		return sum, err
@@ -128,6 +135,7 @@ func Import(ctx context.Context, path, out string, opts ImportOptions) (ImportSu
 	// Second pass: camera, telemetry, IMU, transforms, frame times.
 	var (
 		info      *CameraInfo
+		imgFrame  string // header.frame_id of the first image
 		tel       []recording.TelemetryRow
 		imu       []imuSample
 		tfs       []TransformStamped
@@ -177,6 +185,9 @@ func Import(ctx context.Context, path, out string, opts ImportOptions) (ImportSu
 				return err
 			}
 			t := h.Stamp.Us()
+			if nFrames == 0 {
+				imgFrame = h.FrameID
+			}
 			if nFrames > 0 && t <= lastFrame {
 				return fmt.Errorf("%w: image stamp %d us is not after the previous image's %d us; frames must be in capture order", ErrMessage, t, lastFrame)
 			}
@@ -188,16 +199,22 @@ func Import(ctx context.Context, path, out string, opts ImportOptions) (ImportSu
 	if err != nil {
 		return sum, err
 	}
-	if info == nil {
+	var cam recording.Camera
+	camFrame := imgFrame
+	switch {
+	case opts.Intrinsics != nil:
+		cam = *opts.Intrinsics
+	case info == nil:
 		return sum, fmt.Errorf("ros2: %s: %w: %s has no message", path, ErrTopic, sum.CameraInfoTopic)
-	}
-	cam, err := cameraFromInfo(info)
-	if err != nil {
-		return sum, fmt.Errorf("ros2: %s: first message on %s: %w", path, sum.CameraInfoTopic, err)
+	default:
+		if cam, err = cameraFromInfo(info); err != nil {
+			return sum, fmt.Errorf("ros2: %s: first message on %s: %w", path, sum.CameraInfoTopic, err)
+		}
+		camFrame = info.Header.FrameID
 	}
 	mount := opts.Mount
 	if mount == nil {
-		mt, err := mountFromTF(tfs, base, info.Header.FrameID)
+		mt, err := mountFromTF(tfs, base, camFrame)
 		if err != nil {
 			return sum, fmt.Errorf("ros2: %s: %s: %w", path, tfTopic, err)
 		}
@@ -463,7 +480,7 @@ func frameBytes(typ string, data []byte, cam recording.Camera, pngBuf *bytes.Buf
 			return 0, nil, "", fmt.Errorf("%w: compressed image at %d us: %v", ErrMessage, m.Header.Stamp.Us(), err)
 		}
 		if cfg.Width != cam.Width || cfg.Height != cam.Height {
-			return 0, nil, "", fmt.Errorf("%w: image at %d us is %dx%d but the camera info says %dx%d", ErrMessage, m.Header.Stamp.Us(), cfg.Width, cfg.Height, cam.Width, cam.Height)
+			return 0, nil, "", fmt.Errorf("%w: image at %d us is %dx%d but the camera is %dx%d", ErrMessage, m.Header.Stamp.Us(), cfg.Width, cfg.Height, cam.Width, cam.Height)
 		}
 		return m.Header.Stamp.Us(), m.Data, ext, nil
 	case TypeImage:
@@ -476,7 +493,7 @@ func frameBytes(typ string, data []byte, cam recording.Camera, pngBuf *bytes.Buf
 			return 0, nil, "", fmt.Errorf("%w: image at %d us: %v", ErrMessage, m.Header.Stamp.Us(), err)
 		}
 		if int(m.Width) != cam.Width || int(m.Height) != cam.Height {
-			return 0, nil, "", fmt.Errorf("%w: image at %d us is %dx%d but the camera info says %dx%d", ErrMessage, m.Header.Stamp.Us(), m.Width, m.Height, cam.Width, cam.Height)
+			return 0, nil, "", fmt.Errorf("%w: image at %d us is %dx%d but the camera is %dx%d", ErrMessage, m.Header.Stamp.Us(), m.Width, m.Height, cam.Width, cam.Height)
 		}
 		pngBuf.Reset()
 		if err := (&png.Encoder{CompressionLevel: png.BestSpeed}).Encode(pngBuf, img); err != nil {
@@ -554,7 +571,7 @@ func cameraFromInfo(ci *CameraInfo) (recording.Camera, error) {
 // transforms (child -> parent) and converts it to a mount.
 func mountFromTF(tfs []TransformStamped, base, camFrame string) (Mount, error) {
 	if camFrame == "" {
-		return Mount{}, fmt.Errorf("%w: the camera info has no header.frame_id; give the mount with flags", ErrMount)
+		return Mount{}, fmt.Errorf("%w: the camera's messages have no header.frame_id; give the mount with flags", ErrMount)
 	}
 	parent := map[string]TransformStamped{}
 	for _, t := range tfs {

@@ -317,3 +317,49 @@ func TestImportSeveralIMUs(t *testing.T) {
 		t.Fatal(err)
 	}
 }
+
+// TestImportWithIntrinsics imports a file without CameraInfo: the camera
+// comes from the options (a calibration file), the mount from the static
+// transform to the images' frame.
+func TestImportWithIntrinsics(t *testing.T) {
+	path := filepath.Join(t.TempDir(), "noinfo.mcap")
+	f, err := os.Create(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	mw, err := NewMCAPWriter(f)
+	if err != nil {
+		t.Fatal(err)
+	}
+	want := Mount{XOffsetM: 1, HeightM: 1.2, PitchDeg: 7}
+	tr, q := TransformFromMount(want)
+	for _, w := range []struct {
+		topic, typ string
+		m          cdrMessage
+	}{
+		{DefaultTFStaticTopic, TypeTFMessage, &TFMessage{Transforms: []TransformStamped{{Header: Header{FrameID: "base_link"}, ChildFrameID: "cam", Translation: tr, Rotation: q}}}},
+		{"/image", TypeImage, &Image{Header: Header{Stamp: Time{Sec: 1}, FrameID: "cam"}, Width: 4, Height: 2, Encoding: "mono8", Step: 4, Data: make([]byte, 8)}},
+		{"/twist", TypeTwistStamped, &TwistStamped{Header: Header{Stamp: Time{Sec: 1}}}},
+	} {
+		if err := mw.Write(w.topic, w.typ, 0, w.m); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if err := mw.Close(); err != nil {
+		t.Fatal(err)
+	}
+	f.Close()
+	if _, err := Import(context.Background(), path, filepath.Join(t.TempDir(), "a"), ImportOptions{}); !errors.Is(err, ErrTopic) {
+		t.Fatalf("no CameraInfo and no intrinsics: err = %v, want ErrTopic", err)
+	}
+	in := recording.Camera{Width: 4, Height: 2, Fx: 3, Fy: 3, Cx: 2, Cy: 1, K1: 0.1, HeightM: 99}
+	sum, err := Import(context.Background(), path, filepath.Join(t.TempDir(), "b"), ImportOptions{Intrinsics: &in})
+	if err != nil {
+		t.Fatal(err)
+	}
+	wantCam := in
+	wantCam.XOffsetM, wantCam.YOffsetM, wantCam.HeightM, wantCam.PitchDeg, wantCam.RollDeg = want.XOffsetM, want.YOffsetM, want.HeightM, want.PitchDeg, want.RollDeg
+	if sum.Camera != wantCam || sum.CameraInfoTopic != "" {
+		t.Fatalf("camera %+v (info topic %q), want %+v", sum.Camera, sum.CameraInfoTopic, wantCam)
+	}
+}
