@@ -79,7 +79,7 @@ func runImport(ctx context.Context, args []string, stdout, stderr io.Writer) err
 	}
 	opts.Logger = newLogger(stderr, logJSON, 0)
 	if !quiet {
-		opts.Progress = progressBar(stderr, "import")
+		opts.Progress = progressBar(stderr, "read MiB") // three passes over the file
 	}
 	sum, err := ros2.Import(ctx, in, out, opts)
 	if err != nil {

@@ -70,7 +70,9 @@ type ImportOptions struct {
 	// Mount, if not nil, is the camera mount; otherwise it is derived from
 	// the static transforms from BaseFrame to the camera's frame.
 	Mount *Mount
-	// Progress, if set, is called as frames are written.
+	// Progress, if set, is called as the file is read, with the MiB read
+	// so far over the three passes and their total (three times the file's
+	// size).
 	Progress func(done, total int)
 	// Logger receives what was tolerated (dropped duplicate samples);
 	// nil means slog.Default().
@@ -101,7 +103,27 @@ func Import(ctx context.Context, path, out string, opts ImportOptions) (ImportSu
 	if err := checkFreshDir(out); err != nil {
 		return ImportSummary{}, err
 	}
-	topics, err := ListTopics(ctx, path)
+	var read func(int)
+	finish := func() {}
+	if opts.Progress != nil {
+		st, err := os.Stat(path)
+		if err != nil {
+			return ImportSummary{}, fmt.Errorf("ros2: %w", err)
+		}
+		const mib = 1 << 20
+		total := int((3*st.Size() + mib - 1) / mib)
+		var done int64
+		last := -1
+		read = func(n int) {
+			done += int64(n)
+			if d := min(int(done/mib), total); d != last {
+				last = d
+				opts.Progress(d, total)
+			}
+		}
+		finish = func() { opts.Progress(total, total) }
+	}
+	topics, err := listTopics(ctx, path, read)
 	if err != nil {
 		return ImportSummary{}, err
 	}
@@ -142,7 +164,7 @@ func Import(ctx context.Context, path, out string, opts ImportOptions) (ImportSu
 		nFrames   int
 		lastFrame int64
 	)
-	err = scanMCAP(ctx, path, func(ch *mcap.Channel, s *mcap.Schema, m *mcap.Message) error {
+	err = scanMCAPProgress(ctx, path, read, func(ch *mcap.Channel, s *mcap.Schema, m *mcap.Message) error {
 		if ch.Topic == "" {
 			return nil // never selected (the optional IMU topic may be "")
 		}
@@ -259,7 +281,7 @@ func Import(ctx context.Context, path, out string, opts ImportOptions) (ImportSu
 	}
 	sum.TelemetrySamples = len(tel)
 	var pngBuf bytes.Buffer
-	err = scanMCAP(ctx, path, func(ch *mcap.Channel, s *mcap.Schema, m *mcap.Message) error {
+	err = scanMCAPProgress(ctx, path, read, func(ch *mcap.Channel, s *mcap.Schema, m *mcap.Message) error {
 		if ch.Topic != sum.ImageTopic {
 			return nil
 		}
@@ -271,9 +293,6 @@ func Import(ctx context.Context, path, out string, opts ImportOptions) (ImportSu
 			return err
 		}
 		sum.Frames++
-		if opts.Progress != nil {
-			opts.Progress(sum.Frames, nFrames)
-		}
 		return nil
 	})
 	if err != nil {
@@ -292,6 +311,7 @@ func Import(ctx context.Context, path, out string, opts ImportOptions) (ImportSu
 	}
 	done = true
 	os.RemoveAll(tmp)
+	finish()
 	return sum, nil
 }
 

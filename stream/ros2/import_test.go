@@ -363,3 +363,26 @@ func TestImportWithIntrinsics(t *testing.T) {
 		t.Fatalf("camera %+v (info topic %q), want %+v", sum.Camera, sum.CameraInfoTopic, wantCam)
 	}
 }
+
+func TestImportProgress(t *testing.T) {
+	src := filepath.Join(t.TempDir(), "src")
+	writeTestRecording(t, src, 3)
+	path := exportMCAP(t, src)
+	var calls, lastDone, lastTotal int
+	monotone := true
+	_, err := Import(context.Background(), path, filepath.Join(t.TempDir(), "out"), ImportOptions{Progress: func(done, total int) {
+		if done < lastDone {
+			monotone = false
+		}
+		calls++
+		lastDone, lastTotal = done, total
+	}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	st, _ := os.Stat(path)
+	wantTotal := int((3*st.Size() + 1<<20 - 1) >> 20)
+	if calls == 0 || !monotone || lastDone != lastTotal || lastTotal != wantTotal {
+		t.Fatalf("progress: %d calls, monotone %v, last %d/%d, want total %d", calls, monotone, lastDone, lastTotal, wantTotal)
+	}
+}

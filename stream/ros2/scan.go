@@ -26,12 +26,34 @@ type visitFunc func(ch *mcap.Channel, schema *mcap.Schema, msg *mcap.Message) er
 // with a footer, and calls visit for each message. Any error is a
 // [*RecordError] naming the record; visit's errors are wrapped the same way.
 func scanMCAP(ctx context.Context, path string, visit visitFunc) error {
+	return scanMCAPProgress(ctx, path, nil, visit)
+}
+
+// scanMCAPProgress is scanMCAP calling read(n) after each read of n bytes
+// from the file (nil: no calls).
+func scanMCAPProgress(ctx context.Context, path string, read func(n int), visit visitFunc) error {
 	f, err := os.Open(path)
 	if err != nil {
 		return fmt.Errorf("ros2: %w", err)
 	}
 	defer f.Close()
-	return scanReader(ctx, f, path, visit)
+	var r io.Reader = f
+	if read != nil {
+		r = &countingReader{r: f, read: read}
+	}
+	return scanReader(ctx, r, path, visit)
+}
+
+// countingReader reports every read's size.
+type countingReader struct {
+	r    io.Reader
+	read func(n int)
+}
+
+func (c *countingReader) Read(p []byte) (int, error) {
+	n, err := c.r.Read(p)
+	c.read(n)
+	return n, err
 }
 
 func scanReader(ctx context.Context, r io.Reader, path string, visit visitFunc) error {
@@ -143,9 +165,13 @@ func (t TopicInfo) Supported() bool {
 // order of first appearance. It fails like the importer on a corrupt or
 // truncated file.
 func ListTopics(ctx context.Context, path string) ([]TopicInfo, error) {
+	return listTopics(ctx, path, nil)
+}
+
+func listTopics(ctx context.Context, path string, read func(int)) ([]TopicInfo, error) {
 	var out []TopicInfo
 	at := map[string]int{}
-	err := scanMCAP(ctx, path, func(ch *mcap.Channel, s *mcap.Schema, m *mcap.Message) error {
+	err := scanMCAPProgress(ctx, path, read, func(ch *mcap.Channel, s *mcap.Schema, m *mcap.Message) error {
 		i, ok := at[ch.Topic]
 		if !ok {
 			typ := ""
