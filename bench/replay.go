@@ -66,6 +66,13 @@ type ReplayConfig struct {
 	// Progress, if set, is called after each tick with the number of ticks
 	// done and the total.
 	Progress func(done, total int)
+	// Shown, if set, is called for every tick once it is decided, in tick
+	// order, with its row and what the operator would have seen: for a
+	// missing tick the frame as shown (labelled PREDICTED or STALE),
+	// borrowed for the duration of the call; for a LIVE tick, or a tick
+	// before any real frame, the zero Mat (Ptr() == nil; the real frame is
+	// the recording's). An error stops the replay.
+	Shown func(row TickRow, shown gocv.Mat) error
 	// Logger receives warnings (tolerated input, rejected telemetry);
 	// nil means slog.Default().
 	Logger *slog.Logger
@@ -373,6 +380,15 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 		if err := acc.Add(row); err != nil {
 			return Summary{}, fmt.Errorf("replay: tick %d: %w", k, err)
 		}
+		if cfg.Shown != nil {
+			img := gocv.Mat{}
+			if r.shownValid && row.State != TickLive {
+				img = r.shown
+			}
+			if err := cfg.Shown(row, img); err != nil {
+				return Summary{}, fmt.Errorf("replay: tick %d: %w", k, err)
+			}
+		}
 		rows = append(rows, row)
 		if cfg.Progress != nil {
 			cfg.Progress(k+1, total)
@@ -501,6 +517,7 @@ type replayer struct {
 	noFrameYet int
 
 	shown, unlabelled, rotation, scratch gocv.Mat
+	shownValid                           bool // shown holds the frame of the tick just filled
 
 	// truthImg and heldImg are the images of the tick just scored, borrowed
 	// from the frame source until its next Get.
@@ -547,6 +564,7 @@ func (r *replayer) Close() {
 // missing fills and scores tick k, whose frame is not due-and-here.
 func (r *replayer) missing(k int, s Schedule, frames frameGetter, hasTruth []bool) (TickRow, error) {
 	r.truthImg, r.heldImg = gocv.Mat{}, gocv.Mat{}
+	r.shownValid = false
 	// The held frame: the newest one that has arrived by this tick, which
 	// may be a LIVE frame not yet loaded or a frame that came late.
 	if j := s.Held(k); j >= 0 && j != r.held {
@@ -573,6 +591,7 @@ func (r *replayer) missing(k int, s Schedule, frames frameGetter, hasTruth []boo
 	if err != nil {
 		return TickRow{}, err
 	}
+	r.shownValid = true
 	row := NewTickRow(k, s.CaptureUs[k], tick.State.String(), tick.AgeMs)
 	row.Confidence = tick.Confidence
 	row.LabelShare = tick.LabelFraction

@@ -8,6 +8,9 @@
 //	stopgap replay --drive DIR --out DIR      replay a recording and score every gap
 //	stopgap relay  [flags]                    run the live relay (see stopgap relay -h)
 //	stopgap operator SUBCOMMAND [NAME]        operator profiles (see stopgap operator -h)
+//	stopgap import --mcap FILE --out DIR      convert a ROS 2 recording (MCAP)
+//	stopgap export --drive DIR --out FILE     write a recording as ROS 2 MCAP
+//	stopgap camera --calibration FILE --out camera.json [mount flags]
 //
 // Run "stopgap COMMAND -h" for a command's flags. This package only parses
 // flags and wires the packages together; the logic lives in filter,
@@ -46,6 +49,9 @@ func commands() []command {
 		{"replay", "replay a recording with recorded or modelled drops and score every gap", runReplay},
 		{"relay", "run the live relay between the vehicle and the operator console", runRelay},
 		{"operator", "operator profiles: list, show (with history), add, set, remove, apply", runOperator},
+		{"import", "convert a ROS 2 recording (MCAP) into a recording; --list shows its topics", runImport},
+		{"export", "write a recording as a ROS 2 MCAP file for robotics viewers", runExportMCAP},
+		{"camera", "write a camera.json from an OpenCV or ROS calibration file and the mount", runCamera},
 	}
 }
 

@@ -7,6 +7,8 @@ import (
 	"fmt"
 	"io"
 	"math"
+	"os"
+	"path/filepath"
 	"strings"
 )
 
@@ -216,4 +218,30 @@ func lineCol(data []byte, off int64) (line, col int) {
 	line = 1 + bytes.Count(before, []byte{'\n'})
 	col = int(off) - (bytes.LastIndexByte(before, '\n') + 1) + 1
 	return line, col
+}
+
+// WriteCameraFile writes c as a camera.json file at path (all keys present,
+// the layout [Open] reads), atomically: a temporary file beside it, synced
+// and renamed. c must pass [Camera.Validate].
+func WriteCameraFile(path string, c Camera) error {
+	if err := c.Validate(); err != nil {
+		return fmt.Errorf("recording: %s: %w", path, err)
+	}
+	js, err := encodeCamera(c)
+	if err != nil {
+		return fmt.Errorf("recording: %s: %w", path, err)
+	}
+	if err := writeFileAtomic(filepath.Dir(path), filepath.Base(path), js); err != nil {
+		return fmt.Errorf("recording: %s: %w", path, err)
+	}
+	return nil
+}
+
+// ReadCameraFile reads a camera.json file strictly, as [Open] does.
+func ReadCameraFile(path string) (Camera, error) {
+	data, err := os.ReadFile(path)
+	if err != nil {
+		return Camera{}, fmt.Errorf("recording: %w", err)
+	}
+	return decodeCamera(path, data)
 }

@@ -91,6 +91,7 @@ type Relay struct {
 	met             *metrics
 	mux             *http.ServeMux
 	metricsTokenSum [32]byte
+	probe           probes // /readyz and /livez (probes.go)
 
 	incoming chan IngestSession
 	encPtsUs int64 // last encoder timestamp; used only by the serving goroutine
@@ -153,6 +154,8 @@ func New(cfg Config) (*Relay, error) {
 	r.mux.Handle("/whip", r.whip)
 	r.mux.Handle("/whip/", r.whip)
 	r.mux.HandleFunc("/healthz", r.healthz)
+	r.mux.HandleFunc(ReadyPath, r.readyz)
+	r.mux.HandleFunc(LivePath, r.livez)
 	r.mux.HandleFunc("/metrics", r.metrics)
 	r.mux.Handle("/", r.console)
 	return r, nil
@@ -232,6 +235,7 @@ func (r *Relay) Run(ctx context.Context) error {
 		return ErrClosed
 	}
 	r.mu.Unlock()
+	r.probe.running.Store(true)
 	var next IngestSession
 	for {
 		if next == nil {
@@ -270,6 +274,7 @@ func (r *Relay) Run(ctx context.Context) error {
 }
 
 func (r *Relay) shutdown() error {
+	r.probe.running.Store(false)
 	r.mu.Lock()
 	r.closed = true
 	r.mu.Unlock()
@@ -312,6 +317,9 @@ func (r *Relay) Serve(ctx context.Context, s IngestSession) error {
 }
 
 func (r *Relay) setActive(a bool) {
+	if a {
+		r.beat(r.cfg.Now()) // the session starts now, not at the last session's beat
+	}
 	r.mu.Lock()
 	r.active = a
 	if !a {
