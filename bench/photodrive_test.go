@@ -148,8 +148,8 @@ func writePhotoDrive(t *testing.T, photoPath string, texelM float64, frames int)
 
 // TestReplayPhotoDrives is the prediction check on real imagery: drives over
 // a ground plane textured with real photographs from Debian's opencv-doc
-// (aero1.jpg, an aerial photograph; graf1.png, the graffiti of the
-// Mikolajczyk-Schmid affine set), rendered with exact homographies for a
+// (aero1.jpg, an aerial photograph; graf1.png, a photograph of a painted
+// wall, the image of the H1to3p check), rendered with exact homographies for a
 // known camera motion, replayed through a Gilbert-Elliott link with 200 ms
 // loss bursts. Over the missing ticks the predicted frames must beat holding
 // the last frame by at least minGainDB of mean PSNR and gain SSIM. Beside it
