@@ -17,6 +17,18 @@ cd "$(dirname "$0")"
 #   python3-skimage is NOT needed: its reference figures are committed under bench/testdata.
 APT_PACKAGES=(libopencv-dev libvpx-dev pkg-config opencv-doc chromium gcc g++ iproute2 iptables)
 
+# Packages whose code runs goroutines, tested again under the race detector by
+# `./dev.sh test`. -short skips their real-time loopback runs, which the plain
+# run above covers and which the detector slows past their timing; the
+# filter's only concurrent test is TestConcurrentUse.
+RACE_PACKAGES=(./stream/console ./stream/recording ./stream/relay ./stream/rtpudp ./stream/simvehicle ./stream/vp8 ./stream/whip)
+
+race() {
+  echo "dev.sh: go test -race -short (packages with concurrency: ${RACE_PACKAGES[*]}; filter's concurrency test)" >&2
+  go test -race -short -count=1 -timeout 30m "${RACE_PACKAGES[@]}"
+  go test -race -count=1 -run '^TestConcurrentUse$' ./filter
+}
+
 need_install() {
   local missing=()
   for p in "${APT_PACKAGES[@]}"; do
@@ -56,6 +68,7 @@ case "${1:-}" in
     go vet ./...
     echo "dev.sh: go test ./... (short fuzz seeds included; long fuzzing is separate, see DEVELOPERS.md)" >&2
     go test -count=1 -timeout 30m ./...
+    race
     ;;
   *)
     echo "usage: ./dev.sh demo [stopgap demo flags] | ./dev.sh test | ./dev.sh deps" >&2

@@ -300,8 +300,13 @@ func TestLossModelText(t *testing.T) {
 }
 
 // FuzzLossConfig checks that no setting makes Simulate panic and that
-// accepted settings give one arrival per frame, never earlier than the
-// capture time plus the base delay.
+// accepted settings give one arrival per frame, each within
+// [capture + D, capture + D + J] where D = round(ExtraDelayMs·1000) and
+// J = ceil(JitterMs·1000) are recomputed here from the settings; that Lost
+// counts the lost frames and LossModelNone loses none; and that a frame's
+// fate does not depend on the frames after it (the first half of the
+// frames, simulated alone, gives the same arrivals), as Simulate's separate
+// random streams promise.
 func FuzzLossConfig(f *testing.F) {
 	f.Add(2, 0.1, 100.0, 0.0, 0.0, 0.0, 20.0, 5.0, uint64(1))
 	f.Add(2, 0.9, 1.0, 0.0, 0.0, 33.0, 0.0, 0.0, uint64(2))
@@ -323,9 +328,31 @@ func FuzzLossConfig(f *testing.F) {
 		if len(r.ArrivalUs) != len(caps) {
 			t.Fatalf("%d arrivals for %d frames", len(r.ArrivalUs), len(caps))
 		}
+		base := int64(math.Round(cfg.ExtraDelayMs * 1000))
+		jit := int64(math.Ceil(cfg.JitterMs * 1000))
+		if r.BaseDelayUs != base {
+			t.Fatalf("base delay %d us, want round(%v ms) = %d us", r.BaseDelayUs, cfg.ExtraDelayMs, base)
+		}
+		lost := 0
 		for i, a := range r.ArrivalUs {
-			if a != NeverArrivesUs && a < caps[i] {
-				t.Fatalf("frame %d arrives at %d before capture %d (%+v)", i, a, caps[i], cfg)
+			if a == NeverArrivesUs {
+				lost++
+				continue
+			}
+			if a < caps[i]+base || a > caps[i]+base+jit {
+				t.Fatalf("frame %d captured at %d arrives at %d, outside [capture + %d, capture + %d] (%+v)", i, caps[i], a, base, base+jit, cfg)
+			}
+		}
+		if lost != r.Lost || (cfg.Model == LossModelNone && lost != 0) {
+			t.Fatalf("%d frames lost, Lost = %d, model %v", lost, r.Lost, cfg.Model)
+		}
+		half, err := cfg.Simulate(nil, caps[:len(caps)/2])
+		if err != nil {
+			t.Fatalf("the first %d frames alone: %v", len(caps)/2, err)
+		}
+		for i, a := range half.ArrivalUs {
+			if a != r.ArrivalUs[i] {
+				t.Fatalf("frame %d: arrival %d with %d frames, %d with %d (%+v)", i, r.ArrivalUs[i], len(caps), a, len(caps)/2, cfg)
 			}
 		}
 	})

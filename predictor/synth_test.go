@@ -3,8 +3,6 @@ package predictor
 import (
 	"encoding/xml"
 	"errors"
-	"image"
-	"image/color"
 	"math"
 	"math/rand/v2"
 	"os"
@@ -442,11 +440,13 @@ func nccMasked(a, b []byte, mask []bool) (float64, int) {
 }
 
 // TestSynthesizeDistortedRoadPoint follows one road point through the whole
-// chain with lens distortion: a bright dot drawn at the point's distorted
+// chain with lens distortion: a bright blob centred on the point's distorted
 // pixel in the T0 frame (our projection, checked against cv::projectPoints
 // in TestProjectMatchesOpenCV) must appear, after Synthesize, at the
-// point's pinhole pixel in the T1 frame, since predicted frames are in
-// undistorted geometry. Dot centroids are compared to 0.3 px.
+// pinhole pixel of the point seen from the T1 pose, computed without any
+// homography, since predicted frames are in undistorted geometry. Blob
+// centroids are compared to 0.15 px (the residual, under 0.1 px, is the blob's
+// distortion by the non-linear map and 8-bit rounding).
 func TestSynthesizeDistortedRoadPoint(t *testing.T) {
 	c := Camera{Width: 320, Height: 240, Fx: 260, Fy: 260, Cx: 158, Cy: 122,
 		K1: -0.25, K2: 0.07, P1: 0.001, P2: -0.0005, K3: -0.01,
@@ -464,11 +464,13 @@ func TestSynthesizeDistortedRoadPoint(t *testing.T) {
 			if err != nil {
 				t.Fatal(err)
 			}
-			src := constFrame(c.Width, c.Height, 0)
-			gocv.Circle(&src, image.Pt(int(math.Round(u0)), int(math.Round(v0))), 3, color.RGBA{255, 255, 255, 0}, -1)
-			// Where the dot was actually drawn (integer centre), in T0 vehicle
-			// terms, is what we must track: shift the expected pixel by the
-			// rounding through the homography of the undistorted image.
+			// The dot is a Gaussian blob centred exactly on the projection
+			// (u0, v0), not a circle drawn at the rounded pixel, so that its
+			// centroid must land on the independent target below.
+			src := gaussDot(t, c.Width, c.Height, u0, v0, 1.2)
+			// Independent target: the point moved into T1 vehicle
+			// coordinates and projected with the pinhole model (no
+			// homography involved).
 			q := mul3v(transpose3(rotZ(m.yaw)), sub3(vec3(p), vec3{m.dx, m.dy, 0}))
 			u1, v1, err := c.ProjectVehiclePointPinhole(q)
 			if err != nil {
@@ -478,34 +480,34 @@ func TestSynthesizeDistortedRoadPoint(t *testing.T) {
 			if _, err := s.Synthesize(src, mot, &dst); err != nil {
 				t.Fatal(err)
 			}
-			ud, vd := undistortPixel(c, math.Round(u0), math.Round(v0))
-			hu, hv, _ := c.GroundHomographyPlanar(m.dx, m.dy, m.yaw).Apply(ud, vd)
-			cu, cv, n := centroid(t, dst, hu, hv, 12)
-			// The dot's rounding offset (< 0.5 px in the distorted image)
-			// moves the centroid by about as much, so compare with the
-			// offset carried through: undistorted position of the drawn
-			// centre, mapped by the ground homography.
-			if n == 0 || math.Hypot(cu-hu, cv-hv) > 0.3 {
-				t.Errorf("%s %v: dot centroid (%.2f,%.2f) of %d px, want (%.2f,%.2f) (ideal point %.2f,%.2f)", name, p, cu, cv, n, hu, hv, u1, v1)
+			cu, cv, n := centroid(t, dst, u1, v1, 12)
+			if n == 0 || math.Hypot(cu-u1, cv-v1) > 0.15 {
+				t.Errorf("%s %v: dot centroid (%.3f,%.3f) of %d px, want the pinhole projection of the moved point (%.3f,%.3f)", name, p, cu, cv, n, u1, v1)
 			}
 			src.Close()
 		}
 	}
 }
 
-// undistortPixel inverts our distortion model by fixed-point iteration on
-// normalised coordinates (the usual method, as in cv::undistortPoints).
-func undistortPixel(c Camera, u, v float64) (float64, float64) {
-	xd, yd := (u-c.Cx)/c.Fx, (v-c.Cy)/c.Fy
-	x, y := xd, yd
-	for i := 0; i < 50; i++ {
-		r2 := x*x + y*y
-		rad := 1 + r2*(c.K1+r2*(c.K2+r2*c.K3))
-		dx := 2*c.P1*x*y + c.P2*(r2+2*x*x)
-		dy := c.P1*(r2+2*y*y) + 2*c.P2*x*y
-		x, y = (xd-dx)/rad, (yd-dy)/rad
+// gaussDot returns a black w x h BGR frame with a white Gaussian blob of
+// standard deviation sigma pixels centred at the sub-pixel position (u, v).
+func gaussDot(t testing.TB, w, h int, u, v, sigma float64) gocv.Mat {
+	t.Helper()
+	b := make([]byte, w*h*3)
+	for y := 0; y < h; y++ {
+		for x := 0; x < w; x++ {
+			d2 := (float64(x)-u)*(float64(x)-u) + (float64(y)-v)*(float64(y)-v)
+			g := byte(math.Round(255 * math.Exp(-d2/(2*sigma*sigma))))
+			i := 3 * (y*w + x)
+			b[i], b[i+1], b[i+2] = g, g, g
+		}
 	}
-	return c.Fx*x + c.Cx, c.Fy*y + c.Cy
+	m, err := gocv.NewMatFromBytes(h, w, gocv.MatTypeCV8UC3, b)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer m.Close()
+	return m.Clone()
 }
 
 // centroid is the intensity-weighted centroid of the green channel above

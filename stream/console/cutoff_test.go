@@ -1,6 +1,7 @@
 package console
 
 import (
+	"encoding/json"
 	"errors"
 	"io"
 	"log/slog"
@@ -237,9 +238,10 @@ func TestProfilesFileWriteFailureChangesNothing(t *testing.T) {
 }
 
 // FuzzParseCutoffRequest: any body gives a request or ErrBadRequest, never a
-// panic; accepted requests re-encode to an equivalent request.
+// panic; an accepted request, encoded again with encoding/json, parses back
+// to an equal request.
 func FuzzParseCutoffRequest(f *testing.F) {
-	for _, s := range []string{`{"cutoff":0.5}`, `{"profile":"city"}`, `{"profile":"a","cutoff":1}`, `{}`, `[]`,
+	for _, s := range []string{`{"cutoff":0.5}`, `{"cutoff":0.7}`, `{"Cutoff":0.3,"PROFILE":"night"}`, `{"profile":"city"}`, `{"profile":"a","cutoff":1}`, `{}`, `[]`,
 		`{"cutoff":"x"}`, `{"cutoff":1e999}`, `{"cutoff":0.5}{}`, `{"zzz":1}`, ``, `null`} {
 		f.Add([]byte(s))
 	}
@@ -251,10 +253,57 @@ func FuzzParseCutoffRequest(f *testing.F) {
 			}
 			return
 		}
-		if req.Profile == nil && req.Cutoff == nil {
-			t.Fatal("accepted an empty request")
+		// Independent recomputation: a plain decode into a map holds the
+		// same profile and cutoff (keys match case-insensitively in
+		// encoding/json; skip bodies that give one key twice).
+		var raw map[string]any
+		if err := json.Unmarshal(data, &raw); err != nil {
+			t.Fatalf("accepted a body that is not one JSON object: %v", err)
+		}
+		folded := map[string]any{}
+		for k, v := range raw {
+			folded[strings.ToLower(k)] = v
+		}
+		if len(folded) == len(raw) {
+			if v, ok := folded["cutoff"].(float64); (req.Cutoff != nil) != ok || (ok && *req.Cutoff != v) {
+				t.Fatalf("body %s: cutoff %v in the body, request %s", data, folded["cutoff"], reqJSON(req))
+			}
+			if v, ok := folded["profile"].(string); (req.Profile != nil) != ok || (ok && *req.Profile != v) {
+				t.Fatalf("body %s: profile %v in the body, request %s", data, folded["profile"], reqJSON(req))
+			}
+		}
+		// Round trip: the accepted request, encoded as a client would
+		// send it, parses back to the same request, and its encoding is
+		// a fixed point.
+		js, err := json.Marshal(req)
+		if err != nil {
+			t.Fatalf("accepted request %+v cannot be encoded: %v", req, err)
+		}
+		back, err := parseCutoffRequest(js)
+		if err != nil {
+			t.Fatalf("re-encoded request %s refused: %v", js, err)
+		}
+		if !sameRequest(req, back) {
+			t.Fatalf("round trip changed the request: %s -> %s", data, js)
+		}
+		if js2, _ := json.Marshal(back); string(js2) != string(js) {
+			t.Fatalf("re-encoding is not stable: %s then %s", js, js2)
 		}
 	})
+}
+
+// reqJSON shows a request for failure messages.
+func reqJSON(r CutoffRequest) string {
+	b, _ := json.Marshal(r)
+	return string(b)
+}
+
+// sameRequest compares two requests by value (nil and set fields alike).
+func sameRequest(a, b CutoffRequest) bool {
+	if (a.Profile == nil) != (b.Profile == nil) || (a.Cutoff == nil) != (b.Cutoff == nil) {
+		return false
+	}
+	return (a.Profile == nil || *a.Profile == *b.Profile) && (a.Cutoff == nil || *a.Cutoff == *b.Cutoff)
 }
 
 // FuzzProfilesFile: any file content gives profiles or a *ProfilesFileError

@@ -59,7 +59,8 @@ func readTicks(t *testing.T, path string) map[int]string {
 // TestOutage500ms cuts the link for 500 ms while the relay records, then
 // checks (1) every tick whose frame was lost in the cut is PREDICTED or
 // STALE, never LIVE; (2) the relay asks for a keyframe within one frame
-// period of the first packet after the cut (loopback RTT is well under a
+// period of the first packet after the cut, measured from that packet to the
+// first request after it (keyframeRequestDelay) (loopback RTT is well under a
 // millisecond, so this bounds the relay's reaction); (3) replaying the relay's
 // recording with bench.Replay and the recorded arrivals reproduces the live
 // per-tick states.
@@ -118,25 +119,12 @@ func TestOutage500ms(t *testing.T) {
 	t.Run("keyframe request", func(t *testing.T) {
 		r.mu.Lock()
 		defer r.mu.Unlock()
-		var resume time.Time
-		for _, w := range r.wire {
-			if w.kept && !w.at.Before(endAt) {
-				resume = w.at
-				break
-			}
-		}
-		var pli time.Time
-		for _, p := range r.plis {
-			if p.After(cutAt) {
-				pli = p
-				break
-			}
-		}
-		if resume.IsZero() || pli.IsZero() {
-			t.Fatalf("no packet after the cut (%v) or no keyframe request after it (%v)", resume, pli)
+		resume, pli, err := keyframeRequestDelay(r.wire, r.plis, endAt)
+		if err != nil {
+			t.Fatal(err)
 		}
 		d := pli.Sub(resume)
-		t.Logf("first packet after the cut on the wire -> keyframe request at the vehicle: %v (frame period %v)", d, period)
+		t.Logf("first packet after the cut on the wire -> first keyframe request at the vehicle after it: %v (frame period %v)", d, period)
 		if d >= period {
 			t.Errorf("keyframe request %v after the first packet past the cut, want < one frame period %v", d, period)
 		}
@@ -216,4 +204,68 @@ func TestOutage500ms(t *testing.T) {
 			t.Errorf("state agreement %.1f%%, want >= 95%%", 100*agree)
 		}
 	})
+}
+
+// keyframeRequestDelay returns the first packet the link let through at or
+// after endAt (the end of an outage) and the first keyframe request the
+// vehicle received at or after that packet. Requests sent during the outage
+// (the relay re-requests every 200 ms while waiting) come before the link is
+// back and say nothing about the reaction to it, so they are not counted.
+// It fails if either is missing.
+func keyframeRequestDelay(wire []wireEvent, plis []time.Time, endAt time.Time) (resume, pli time.Time, err error) {
+	for _, w := range wire {
+		if w.kept && !w.at.Before(endAt) {
+			resume = w.at
+			break
+		}
+	}
+	if resume.IsZero() {
+		return resume, pli, fmt.Errorf("no packet went through after the cut ended at %v", endAt)
+	}
+	for _, p := range plis {
+		if !p.Before(resume) {
+			pli = p
+			break
+		}
+	}
+	if pli.IsZero() {
+		return resume, pli, fmt.Errorf("no keyframe request after the first packet past the cut (%v)", resume)
+	}
+	return resume, pli, nil
+}
+
+// TestKeyframeRequestDelay checks the measurement on made-up timelines: a
+// request sent during the outage must not stand in for the reaction to the
+// link's return, and dropped packets after the cut do not count as its end.
+func TestKeyframeRequestDelay(t *testing.T) {
+	t0 := time.Unix(1000, 0)
+	ms := func(n int) time.Time { return t0.Add(time.Duration(n) * time.Millisecond) }
+	endAt := ms(500)
+	wire := []wireEvent{{at: ms(10), kept: true}, {at: ms(100)}, {at: ms(505)}, {at: ms(512), kept: true}, {at: ms(545), kept: true}}
+	for _, tc := range []struct {
+		name    string
+		plis    []time.Time
+		want    time.Duration // from the first packet through (512 ms)
+		wantErr bool
+	}{
+		{"prompt request", []time.Time{ms(514)}, 2 * time.Millisecond, false},
+		{"request during the outage, late one after", []time.Time{ms(120), ms(320), ms(700)}, 188 * time.Millisecond, false},
+		{"only requests during the outage", []time.Time{ms(120), ms(320), ms(505)}, 0, true},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			resume, pli, err := keyframeRequestDelay(wire, tc.plis, endAt)
+			if tc.wantErr {
+				if err == nil {
+					t.Fatalf("delay %v, want an error", pli.Sub(resume))
+				}
+				return
+			}
+			if err != nil {
+				t.Fatal(err)
+			}
+			if !resume.Equal(ms(512)) || pli.Sub(resume) != tc.want {
+				t.Errorf("resume %v, delay %v; want %v, %v", resume.Sub(t0), pli.Sub(resume), 512*time.Millisecond, tc.want)
+			}
+		})
+	}
 }

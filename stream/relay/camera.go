@@ -38,6 +38,11 @@ func ReadCameraFile(path string) (predictor.Camera, error) {
 		}
 		return predictor.Camera{}, fmt.Errorf("camera file %s: %w", path, err)
 	}
+	if off := dec.InputOffset(); len(bytes.TrimSpace(data[off:])) > 0 {
+		off += int64(len(data[off:]) - len(bytes.TrimLeft(data[off:], " \t\r\n")))
+		line := 1 + bytes.Count(data[:off], []byte("\n"))
+		return predictor.Camera{}, fmt.Errorf("camera file %s line %d: extra data after the JSON object; a camera.json holds exactly one object: %w", path, line, ErrBadConfig)
+	}
 	if err := c.Validate(); err != nil {
 		return predictor.Camera{}, fmt.Errorf("camera file %s: %w", path, err)
 	}

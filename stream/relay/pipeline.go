@@ -468,6 +468,11 @@ func (p *pipeline) emit(k int, captureUs int64, tick predictor.Tick, ev *frameEv
 	if err := p.r.console.WriteFrame(frame, period); err != nil && !errors.Is(err, console.ErrClosed) {
 		p.log.Warn("console write failed", "err", err)
 	}
+	trace := p.r.tracer.fn.Load()
+	var writtenAt time.Time
+	if trace != nil {
+		writtenAt = p.cfg.Now()
+	}
 	if ev != nil {
 		p.r.met.addedLatency.observe(p.cfg.Now().Sub(ev.lastPktAt) - ev.decodeDur - encDur)
 	}
@@ -492,6 +497,13 @@ func (p *pipeline) emit(k int, captureUs int64, tick predictor.Tick, ev *frameEv
 		p.log.Warn("console meta failed", "err", err)
 	}
 	p.record(func(rc *recorder) { rc.tick(p.recIndex(k), captureUs, p.deadlineUs(k), st.String(), age, conf, cutoff) })
+	if trace != nil {
+		tr := FrameTrace{Seq: p.meta.Seq, TickUs: captureUs, State: st, Encode: encDur, WrittenAt: writtenAt}
+		if ev != nil {
+			tr.LastPacketAt, tr.Decode = ev.lastPktAt, ev.decodeDur
+		}
+		(*trace)(tr)
+	}
 }
 
 // recordSkipped records tick k as not shown. Every handled tick gets a

@@ -95,6 +95,7 @@ type Relay struct {
 
 	incoming chan IngestSession
 	encPtsUs int64 // last encoder timestamp; used only by the serving goroutine
+	tracer   frameTracer
 
 	mu          sync.Mutex
 	active      bool

@@ -7,6 +7,7 @@ import (
 	"net/http"
 	"regexp"
 	"strings"
+	"sync"
 	"testing"
 	"time"
 )
@@ -20,8 +21,33 @@ func TestNewServerNeedsToken(t *testing.T) {
 	}
 }
 
+// lockedBuffer is a log sink that the test reads while the server's and
+// pion's goroutines still write to it.
+type lockedBuffer struct {
+	mu sync.Mutex
+	b  bytes.Buffer
+}
+
+func (l *lockedBuffer) Write(p []byte) (int, error) {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	return l.b.Write(p)
+}
+
+func (l *lockedBuffer) String() string {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	return l.b.String()
+}
+
+func (l *lockedBuffer) Len() int {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	return l.b.Len()
+}
+
 func TestAuth(t *testing.T) {
-	var logBuf bytes.Buffer
+	var logBuf lockedBuffer
 	logger := slog.New(slog.NewTextHandler(&logBuf, &slog.HandlerOptions{Level: slog.LevelDebug}))
 	srv, hs := newTestServer(t, Config{Logger: logger})
 	offer := makeOffer(t)

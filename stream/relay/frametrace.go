@@ -1,0 +1,46 @@
+package relay
+
+import (
+	"sync/atomic"
+	"time"
+
+	"stopgap/stream/console"
+)
+
+// FrameTrace describes one output frame the relay sent to the console, for
+// latency tracing: where its time went, frame by frame. Times are on the
+// relay's clock (Config.Now).
+type FrameTrace struct {
+	// Seq is the frame's console.Meta.Seq and TickUs its display tick time
+	// (Meta.TimeUs, vehicle clock, microseconds); State its state.
+	Seq    uint64
+	TickUs int64
+	State  console.State
+	// LastPacketAt is when the relay received the last packet of the input
+	// frame and Decode how long decoding it took (VP8 decode and I420 to
+	// BGR). Set for LIVE frames, zero for filled ticks.
+	LastPacketAt time.Time
+	Decode       time.Duration
+	// Encode is the egress VP8 encode time of this output frame, and
+	// WrittenAt when console.WriteFrame returned for it (its packets are
+	// then queued to the operator's connection).
+	Encode    time.Duration
+	WrittenAt time.Time
+}
+
+// frameTracer holds the function TraceFrames installed, if any.
+type frameTracer struct {
+	fn atomic.Pointer[func(FrameTrace)]
+}
+
+// TraceFrames makes the relay call fn for every output frame, after its meta
+// message was written; fn == nil stops the calls. fn runs on the relay's
+// display goroutine: it must return quickly and must not call the Relay.
+// Without a tracer the display loop takes no extra clock reading.
+func (r *Relay) TraceFrames(fn func(FrameTrace)) {
+	if fn == nil {
+		r.tracer.fn.Store(nil)
+		return
+	}
+	r.tracer.fn.Store(&fn)
+}
