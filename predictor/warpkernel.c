@@ -2,8 +2,9 @@
 //
 // Per destination pixel (u, v) the source point is (X/W, Y/W) with
 // (X, Y, W) = M (u, v, 1). Along a row X, Y and W are affine in u: they are
-// anchored every 8 pixels and stepped by M's first column inside the block,
-// in double precision. The source point is rounded to 1/32 px (round half to
+// evaluated at the row's first pixel, carried along the row in steps of 8
+// pixels and stepped by M's first column inside each block of 8, in double
+// precision. The source point is rounded to 1/32 px (round half to
 // even: x = rint(X * (32/W))), as cv::warpPerspective does (INTER_BITS = 5,
 // imgproc/src/imgwarp.cpp, from memory), and interpolated with the integer
 // weights (32-fx)(32-fy), fx(32-fy), (32-fx)fy, fx fy (sum 1024), rounded:
@@ -46,6 +47,15 @@ static inline void sg_anchor(const double *m, double u, double v, double *x, dou
 	*w = m[6] * u + m[7] * v + m[8];
 }
 
+// Moves the anchors SG_BLOCK pixels along the row: X += 8 m0 and so on.
+// Exact products (8 is a power of two); one rounding per addition, about
+// 1e-16 relative per block.
+static inline void sg_step(const double *m, double *x, double *y, double *w) {
+	*x += SG_BLOCK * m[0];
+	*y += SG_BLOCK * m[3];
+	*w += SG_BLOCK * m[6];
+}
+
 static inline double sg_clamp(double x) {
 	x = x > -SG_LIM ? x : -SG_LIM; // NaN -> -SG_LIM, like _mm256_max_pd(x, lo)
 	x = x < SG_LIM ? x : SG_LIM;
@@ -78,9 +88,12 @@ static inline void sg_pixel_slow(const sg_warp *a, int ix, int iy, unsigned char
 // arithmetic of the vector path: anchors every SG_BLOCK pixels, X0 + m0*k.
 static void sg_row_scalar(const sg_warp *a, unsigned char *d, double v, int c0) {
 	const double *m = a->m;
-	for (; c0 < a->dw; c0 += SG_BLOCK) {
-		double X0, Y0, W0;
-		sg_anchor(m, (double)(a->col0 + c0), v, &X0, &Y0, &W0);
+	double X0, Y0, W0;
+	sg_anchor(m, (double)a->col0, v, &X0, &Y0, &W0);
+	for (int b = 0; b < c0; b += SG_BLOCK) { // the vector path's anchors, bit for bit
+		sg_step(m, &X0, &Y0, &W0);
+	}
+	for (; c0 < a->dw; c0 += SG_BLOCK, sg_step(m, &X0, &Y0, &W0)) {
 		for (int k = 0; k < SG_BLOCK && c0 + k < a->dw; k++) {
 			double fk = (double)k;
 			double W = W0 + m[6] * fk;
@@ -150,14 +163,15 @@ static SG_AVX2 void sg_warp_avx2(const sg_warp *a) {
 	const __m256i sh0x2 = _mm256_broadcastsi128_si256(sh0), sh1x2 = _mm256_broadcastsi128_si256(sh1);
 	const __m256i packx2 = _mm256_broadcastsi128_si256(pack), round = _mm256_set1_epi32(512);
 	const __m256i order = _mm256_setr_epi32(0, 4, 1, 5, 2, 6, 3, 7);
+	const __m256i can = _mm256_set1_epi32(xlim > 0 && a->sh >= 2 ? -1 : 0); // any fast pixel possible
 	int ixs[SG_BLOCK], iys[SG_BLOCK], oks[SG_BLOCK], offs[SG_BLOCK], was[SG_BLOCK], wbs[SG_BLOCK];
 	for (int r = 0; r < a->dh; r++) {
 		unsigned char *d = a->dst + (ptrdiff_t)r * a->dst_stride;
 		double v = a->row0 + r;
 		int c0 = 0;
-		for (; c0 + SG_BLOCK <= a->dw; c0 += SG_BLOCK) {
-			double X0, Y0, W0;
-			sg_anchor(m, (double)(a->col0 + c0), v, &X0, &Y0, &W0);
+		double X0, Y0, W0;
+		sg_anchor(m, (double)a->col0, v, &X0, &Y0, &W0);
+		for (; c0 + SG_BLOCK <= a->dw; c0 += SG_BLOCK, sg_step(m, &X0, &Y0, &W0)) {
 			__m256d x0 = _mm256_set1_pd(X0), y0 = _mm256_set1_pd(Y0), w0 = _mm256_set1_pd(W0);
 			__m128i ixa, iya, oka, ixb, iyb, okb;
 			sg_fix4(_mm256_add_pd(x0, _mm256_mul_pd(mx, k0)), _mm256_add_pd(y0, _mm256_mul_pd(my, k0)),
@@ -171,9 +185,7 @@ static SG_AVX2 void sg_warp_avx2(const sg_warp *a) {
 			__m256i inx = _mm256_cmpeq_epi32(_mm256_min_epu32(xi, vxmax), xi);
 			__m256i iny = _mm256_cmpeq_epi32(_mm256_min_epu32(yi, vymax), yi);
 			__m256i fast = _mm256_and_si256(ok, _mm256_and_si256(inx, iny));
-			if (xlim == 0 || a->sh < 2) {
-				fast = _mm256_setzero_si256();
-			}
+			fast = _mm256_and_si256(fast, can);
 			int fmask = _mm256_movemask_ps(_mm256_castsi256_ps(fast));
 			__m256i fx = _mm256_and_si256(ix, vmask), fy = _mm256_and_si256(iy, vmask);
 			__m256i gx = _mm256_sub_epi32(vone, fx), gy = _mm256_sub_epi32(vone, fy);

@@ -72,8 +72,9 @@ func bestWarpPath() warpPath { return warpPath(C.sg_warp_best_path()) }
 // and BORDER_CONSTANT, see warpkernel.c): the source point is rounded to 1/32
 // px and interpolated with integer weights summing to 1024; taps outside src
 // read fill, pixels whose W <= 0 (behind the source camera) are fill. X, Y, W
-// are evaluated incrementally along each row in double precision (anchor
-// every 8 pixels, steps by the first column of inv), 4 pixels at a time with
+// are evaluated incrementally along each row in double precision (from the
+// row's first pixel in steps of 8 pixels, then by inv's first column inside
+// each block of 8), 4 pixels at a time with
 // AVX2 when the CPU has it, in portable C otherwise; both give identical
 // bytes.
 //

@@ -183,7 +183,7 @@ func checkWarpAgainstOpenCV(t *testing.T, seed uint64, sw, sh, dw, dh, col0, row
 			for c := 0; c < dw; c++ {
 				got := [3]byte(dst.Pix[r*dst.Stride+3*c:])
 				wnt := [3]byte(want[3*(r*dw+c):])
-				if err := judgePixel(src, inv, float64(col0+c), float64(row0+r), got, wnt); err != nil {
+				if err := judgePixel(src, inv, col0, float64(col0+c), float64(row0+r), got, wnt); err != nil {
 					t.Fatalf("path %d, %dx%d source (pad %d) -> region (%d,%d) %dx%d (pad %d), pixel (%d, %d), H^-1=%v: %v",
 						p, sw, sh, srcPad, col0, row0, dw, dh, dstPad, col0+c, row0+r, inv, err)
 				}
@@ -193,18 +193,22 @@ func checkWarpAgainstOpenCV(t *testing.T, seed uint64, sw, sh, dw, dh, col0, row
 }
 
 // judgePixel applies the property of checkWarpAgainstOpenCV to one pixel.
-func judgePixel(src bgrView, m Homography, u, v float64, got, want [3]byte) error {
+func judgePixel(src bgrView, m Homography, col0 int, u, v float64, got, want [3]byte) error {
 	fill := [3]byte{NeutralGrey, NeutralGrey, NeutralGrey}
 	X := m[0][0]*u + m[0][1]*v + m[0][2]
 	Y := m[1][0]*u + m[1][1]*v + m[1][2]
 	W := m[2][0]*u + m[2][1]*v + m[2][2]
-	// Error bound of the kernel's double evaluation (anchor, a step of up to
+	// Error bound of the kernel's double evaluation (row start, one rounded
+	// addition per block of 8 columns carried along the row, a step of up to
 	// 7 columns, the division) and of OpenCV's own grouping of the same sums,
-	// in units of the value, with a safety factor of 4: relative 2^-53 per
-	// operation.
+	// in units of the value: relative 2^-53 per operation, with a safety
+	// factor of 4 on top of the count of additions.
 	const ulp = 1.0 / (1 << 53)
-	mag := func(a, b, c float64) float64 { return math.Abs(a*u) + math.Abs(b*v) + math.Abs(c) + 8*math.Abs(a) }
-	eX, eY, eW := 4*ulp*mag(m[0][0], m[0][1], m[0][2]), 4*ulp*mag(m[1][0], m[1][1], m[1][2]), 4*ulp*mag(m[2][0], m[2][1], m[2][2])
+	mag := func(a, b, c float64) float64 {
+		return math.Abs(a*u) + math.Abs(b*v) + math.Abs(c) + 8*math.Abs(a) + math.Abs(a*float64(col0))
+	}
+	ops := 4 * (4 + math.Abs(u-float64(col0))/8)
+	eX, eY, eW := ops*ulp*mag(m[0][0], m[0][1], m[0][2]), ops*ulp*mag(m[1][0], m[1][1], m[1][2]), ops*ulp*mag(m[2][0], m[2][1], m[2][2])
 	if math.Abs(W) <= 2*eW {
 		return nil // sign of W not decidable at float precision
 	}
