@@ -37,6 +37,7 @@ typedef struct {
 	ptrdiff_t dst_stride, src_stride;
 	int dw, dh, col0, row0, sw, sh;
 	const double *m;
+	const int *spans;
 	unsigned char fill;
 } sg_warp;
 
@@ -84,17 +85,18 @@ static inline void sg_pixel_slow(const sg_warp *a, int ix, int iy, unsigned char
 	out[2] = (unsigned char)(s[2] >> 10);
 }
 
-// Pixels [c0, dw) of destination row v into d, one at a time, with the
-// arithmetic of the vector path: anchors every SG_BLOCK pixels, X0 + m0*k.
-static void sg_row_scalar(const sg_warp *a, unsigned char *d, double v, int c0) {
+// Pixels [c0, ce) of destination row v into d (the row's column 0), one at
+// a time, with the arithmetic of the vector path: X, Y, W evaluated at
+// column cb, carried in steps of SG_BLOCK pixels, then X0 + m0*k.
+static void sg_row_scalar(const sg_warp *a, unsigned char *d, double v, int cb, int c0, int ce) {
 	const double *m = a->m;
 	double X0, Y0, W0;
-	sg_anchor(m, (double)a->col0, v, &X0, &Y0, &W0);
-	for (int b = 0; b < c0; b += SG_BLOCK) { // the vector path's anchors, bit for bit
+	sg_anchor(m, (double)(a->col0 + cb), v, &X0, &Y0, &W0);
+	for (int b = cb; b < c0; b += SG_BLOCK) { // the vector path's anchors, bit for bit
 		sg_step(m, &X0, &Y0, &W0);
 	}
-	for (; c0 < a->dw; c0 += SG_BLOCK, sg_step(m, &X0, &Y0, &W0)) {
-		for (int k = 0; k < SG_BLOCK && c0 + k < a->dw; k++) {
+	for (; c0 < ce; c0 += SG_BLOCK, sg_step(m, &X0, &Y0, &W0)) {
+		for (int k = 0; k < SG_BLOCK && c0 + k < ce; k++) {
 			double fk = (double)k;
 			double W = W0 + m[6] * fk;
 			unsigned char *o = d + 3 * (ptrdiff_t)(c0 + k);
@@ -110,9 +112,24 @@ static void sg_row_scalar(const sg_warp *a, unsigned char *d, double v, int c0) 
 	}
 }
 
+// Row r's columns: [spans[2r], spans[2r+1]) clipped to [0, dw), or the
+// whole row when spans is NULL.
+static inline int sg_span(const sg_warp *a, int r, int *cb, int *ce) {
+	*cb = 0;
+	*ce = a->dw;
+	if (a->spans) {
+		*cb = a->spans[2 * r] > 0 ? a->spans[2 * r] : 0;
+		*ce = a->spans[2 * r + 1] < a->dw ? a->spans[2 * r + 1] : a->dw;
+	}
+	return *cb < *ce;
+}
+
 static void sg_warp_scalar(const sg_warp *a) {
 	for (int r = 0; r < a->dh; r++) {
-		sg_row_scalar(a, a->dst + (ptrdiff_t)r * a->dst_stride, (double)(a->row0 + r), 0);
+		int cb, ce;
+		if (sg_span(a, r, &cb, &ce)) {
+			sg_row_scalar(a, a->dst + (ptrdiff_t)r * a->dst_stride, (double)(a->row0 + r), cb, cb, ce);
+		}
 	}
 }
 
@@ -166,12 +183,16 @@ static SG_AVX2 void sg_warp_avx2(const sg_warp *a) {
 	const __m256i can = _mm256_set1_epi32(xlim > 0 && a->sh >= 2 ? -1 : 0); // any fast pixel possible
 	int ixs[SG_BLOCK], iys[SG_BLOCK], oks[SG_BLOCK], offs[SG_BLOCK], was[SG_BLOCK], wbs[SG_BLOCK];
 	for (int r = 0; r < a->dh; r++) {
+		int cb, ce;
+		if (!sg_span(a, r, &cb, &ce)) {
+			continue;
+		}
 		unsigned char *d = a->dst + (ptrdiff_t)r * a->dst_stride;
 		double v = a->row0 + r;
-		int c0 = 0;
+		int c0 = cb;
 		double X0, Y0, W0;
-		sg_anchor(m, (double)a->col0, v, &X0, &Y0, &W0);
-		for (; c0 + SG_BLOCK <= a->dw; c0 += SG_BLOCK, sg_step(m, &X0, &Y0, &W0)) {
+		sg_anchor(m, (double)(a->col0 + cb), v, &X0, &Y0, &W0);
+		for (; c0 + SG_BLOCK <= ce; c0 += SG_BLOCK, sg_step(m, &X0, &Y0, &W0)) {
 			__m256d x0 = _mm256_set1_pd(X0), y0 = _mm256_set1_pd(Y0), w0 = _mm256_set1_pd(W0);
 			__m128i ixa, iya, oka, ixb, iyb, okb;
 			sg_fix4(_mm256_add_pd(x0, _mm256_mul_pd(mx, k0)), _mm256_add_pd(y0, _mm256_mul_pd(my, k0)),
@@ -249,8 +270,8 @@ static SG_AVX2 void sg_warp_avx2(const sg_warp *a) {
 				memcpy(o + 3 * q + 8, &tail, 4);
 			}
 		}
-		if (c0 < a->dw) { // tail: the scalar code, same arithmetic
-			sg_row_scalar(a, d, v, c0);
+		if (c0 < ce) { // tail: the scalar code, same arithmetic
+			sg_row_scalar(a, d, v, cb, c0, ce);
 		}
 	}
 }
@@ -263,8 +284,8 @@ int sg_warp_best_path(void) {
 int sg_warp_best_path(void) { return 1; }
 #endif
 
-int sg_warp_bgr(unsigned char *dst, const unsigned char *src, const sg_warp_args *p) {
-	sg_warp w = {dst, src, p->dst_stride, p->src_stride, p->dw, p->dh, p->col0, p->row0, p->sw, p->sh, p->m, p->fill};
+int sg_warp_bgr(unsigned char *dst, const unsigned char *src, const int *spans, const sg_warp_args *p) {
+	sg_warp w = {dst, src, p->dst_stride, p->src_stride, p->dw, p->dh, p->col0, p->row0, p->sw, p->sh, p->m, spans, p->fill};
 	const sg_warp *a = &w;
 	int path = p->path == 1 ? 1 : sg_warp_best_path();
 	// The vector path computes byte offsets in 32-bit lanes.

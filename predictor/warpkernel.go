@@ -81,6 +81,20 @@ func bestWarpPath() warpPath { return warpPath(C.sg_warp_best_path()) }
 // dst and src are owned by the caller, must not overlap, and nothing is
 // allocated. It returns the path used.
 func warpBGR(dst, src bgrView, inv Homography, col0, row0 int, fill byte, path warpPath) (warpPath, error) {
+	return warpBGRSpans(dst, src, inv, col0, row0, nil, fill, path)
+}
+
+// warpBGRSpans is warpBGR restricted to one column span per destination row:
+// row r of dst is written in columns [spans[2r], spans[2r+1]) (clipped to
+// the row) and left alone elsewhere. nil spans means whole rows; otherwise
+// len(spans) must be 2*dst.H. The arithmetic of a pixel does not depend on
+// its span except through the row anchor, evaluated at the span's first
+// column instead of carried from column 0 (a difference of about 1e-16
+// relative in the source point).
+func warpBGRSpans(dst, src bgrView, inv Homography, col0, row0 int, spans []int32, fill byte, path warpPath) (warpPath, error) {
+	if spans != nil && len(spans) != 2*dst.H {
+		return 0, fmt.Errorf("%d span values for %d rows, want %d: %w", len(spans), dst.H, 2*dst.H, ErrInvalidConfig)
+	}
 	if err := dst.check("warp destination"); err != nil {
 		return 0, err
 	}
@@ -111,7 +125,11 @@ func warpBGR(dst, src bgrView, inv Homography, col0, row0 int, fill byte, path w
 	for i := 0; i < 9; i++ {
 		a.m[i] = C.double(inv[i/3][i%3])
 	}
-	return warpPath(C.sg_warp_bgr((*C.uchar)(unsafe.Pointer(&dst.Pix[0])), (*C.uchar)(unsafe.Pointer(&src.Pix[0])), &a)), nil
+	var sp *C.int
+	if spans != nil {
+		sp = (*C.int)(unsafe.Pointer(&spans[0]))
+	}
+	return warpPath(C.sg_warp_bgr((*C.uchar)(unsafe.Pointer(&dst.Pix[0])), (*C.uchar)(unsafe.Pointer(&src.Pix[0])), sp, &a)), nil
 }
 
 // overlaps reports whether the byte ranges of two views intersect.

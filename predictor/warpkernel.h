@@ -18,8 +18,10 @@ typedef struct {
 } sg_warp_args;
 
 // sg_warp_bgr warps src (pixel (0, 0)) into dst (pixel (col0, row0) of the
-// destination image); returns the path used (1 scalar, 2 AVX2).
-int sg_warp_bgr(unsigned char *dst, const unsigned char *src, const sg_warp_args *p);
+// destination image); returns the path used (1 scalar, 2 AVX2). spans, if
+// not NULL, holds dh pairs [begin, end) of region columns: only those pixels
+// of each row are written.
+int sg_warp_bgr(unsigned char *dst, const unsigned char *src, const int *spans, const sg_warp_args *p);
 
 // sg_warp_best_path returns the path sg_warp_bgr uses for path = 0.
 int sg_warp_best_path(void);

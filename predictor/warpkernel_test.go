@@ -1,6 +1,7 @@
 package predictor
 
 import (
+	"errors"
 	"fmt"
 	"image"
 	"math"
@@ -312,4 +313,52 @@ func FuzzWarpKernel(f *testing.F) {
 		inv := randomInverse(rng, sw, sh, max(1, dw+col0), max(1, dh+row0))
 		checkWarpAgainstOpenCV(t, seed, sw, sh, dw, dh, col0, row0, int(sp8%16), int(dp8%16), inv)
 	})
+}
+
+// TestWarpKernelSpans: a warp restricted to row spans writes exactly the
+// span pixels, with the bytes of the whole-row warp, and leaves the rest.
+func TestWarpKernelSpans(t *testing.T) {
+	rng := rand.New(rand.NewPCG(9, 9))
+	const sw, sh, dw, dh = 97, 61, 83, 47
+	src := bgrView{Pix: make([]byte, 3*sw*sh), Stride: 3 * sw, W: sw, H: sh}
+	for i := range src.Pix {
+		src.Pix[i] = byte(rng.IntN(256))
+	}
+	for _, p := range paths() {
+		for trial := 0; trial < 5; trial++ {
+			inv := randomInverse(rng, sw, sh, dw, dh)
+			full := bgrView{Pix: make([]byte, 3*dw*dh), Stride: 3 * dw, W: dw, H: dh}
+			if _, err := warpBGR(full, src, inv, 3, 2, NeutralGrey, p); err != nil {
+				t.Fatal(err)
+			}
+			part := bgrView{Pix: make([]byte, 3*dw*dh), Stride: 3 * dw, W: dw, H: dh}
+			for i := range part.Pix {
+				part.Pix[i] = 1
+			}
+			spans := make([]int32, 2*dh)
+			for r := 0; r < dh; r++ {
+				a, b := rng.IntN(dw+20)-10, rng.IntN(dw+20)-10
+				spans[2*r], spans[2*r+1] = int32(a), int32(b)
+			}
+			if _, err := warpBGRSpans(part, src, inv, 3, 2, spans, NeutralGrey, p); err != nil {
+				t.Fatal(err)
+			}
+			for r := 0; r < dh; r++ {
+				for c := 0; c < dw; c++ {
+					in := c >= int(spans[2*r]) && c < int(spans[2*r+1])
+					got := [3]byte(part.Pix[r*part.Stride+3*c:])
+					want := [3]byte{1, 1, 1}
+					if in {
+						want = [3]byte(full.Pix[r*full.Stride+3*c:])
+					}
+					if got != want {
+						t.Fatalf("path %d trial %d: pixel (%d, %d), span [%d, %d): got %v, want %v", p, trial, c, r, spans[2*r], spans[2*r+1], got, want)
+					}
+				}
+			}
+		}
+	}
+	if _, err := warpBGRSpans(bgrView{Pix: make([]byte, 9), Stride: 3, W: 1, H: 3}, src, IdentityHomography(), 0, 0, make([]int32, 4), 0, warpPathBest); !errors.Is(err, ErrInvalidConfig) {
+		t.Errorf("wrong span count: got %v, want ErrInvalidConfig", err)
+	}
 }
