@@ -29,6 +29,10 @@ type FillerConfig struct {
 	// real frames (see FarDepthEstimator); zero = defaults, Off = the far
 	// scene is always at infinity (rotation only).
 	FarDepth FarDepthOptions
+	// Upright configures the upright-structure estimate from the two newest
+	// real frames (see UprightEstimator); zero = defaults, Off = road and
+	// far planes only.
+	Upright UprightOptions
 }
 
 // Tick reports what the Filler put on screen for one display tick.
@@ -60,6 +64,9 @@ type Tick struct {
 	// made with, metres; +Inf for rotation only (also when no estimate
 	// could be made), 0 when not applicable.
 	FarDepthM float64
+	// UprightSegments is the number of upright segments a PREDICTED
+	// ground-method frame was composited with (see UprightModel).
+	UprightSegments int
 }
 
 // Filler is the per-tick gap filler shared by the offline replay and the
@@ -99,6 +106,13 @@ type Filler struct {
 	farDepth float64
 	farFor   int64
 	farKnown bool
+
+	// The upright structure of the held frame (valid while uprightFor ==
+	// lastUs).
+	uprightEst   *UprightEstimator
+	upright      UprightModel
+	uprightFor   int64
+	uprightKnown bool
 }
 
 // NewFiller validates cfg and allocates the buffers.
@@ -127,14 +141,22 @@ func NewFiller(cfg FillerConfig) (*Filler, error) {
 		l.Close()
 		return nil, err
 	}
+	ue, err := NewUprightEstimator(cfg.Upright)
+	if err != nil {
+		s.Close()
+		l.Close()
+		d.Close()
+		return nil, err
+	}
 	return &Filler{
-		cfg:   cfg,
-		synth: s,
-		label: l,
-		depth: d,
-		last:  gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8UC3),
-		prev:  gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8UC3),
-		gray:  gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8U),
+		cfg:        cfg,
+		synth:      s,
+		label:      l,
+		depth:      d,
+		uprightEst: ue,
+		last:       gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8UC3),
+		prev:       gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8UC3),
+		gray:       gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8U),
 	}, nil
 }
 
@@ -147,6 +169,7 @@ func (f *Filler) Close() error {
 	f.synth.Close()
 	f.label.Close()
 	f.depth.Close()
+	f.uprightEst.Close()
 	f.last.Close()
 	f.prev.Close()
 	f.gray.Close()
@@ -281,7 +304,8 @@ func (f *Filler) MissingWith(method Method, targetUs int64, dst *gocv.Mat) (Tick
 			syn, err = f.synth.SynthesizeRotation(f.last, tick.Motion, dst)
 		} else {
 			tick.FarDepthM = f.farDepthFor()
-			syn, err = f.synth.SynthesizeFar(f.last, tick.Motion, tick.FarDepthM, dst)
+			syn, err = f.synth.SynthesizeScene(f.last, tick.Motion, tick.FarDepthM, f.uprightModel(tick.FarDepthM), dst)
+			tick.UprightSegments = syn.UprightSegments
 		}
 		if err != nil {
 			return tick, err
@@ -319,6 +343,25 @@ func (f *Filler) farDepthFor() float64 {
 	}
 	f.farDepth, f.farFor, f.farKnown = d, f.lastUs, true
 	return d
+}
+
+// uprightModel returns the upright structure of the held frame, estimated
+// once per held frame from the frame before it (see UprightEstimator); nil
+// when switched off or not estimable.
+func (f *Filler) uprightModel(farDepthM float64) *UprightModel {
+	if f.cfg.Upright.Off || !f.havePrev {
+		return nil
+	}
+	if !f.uprightKnown || f.uprightFor != f.lastUs {
+		f.upright.Segments = f.upright.Segments[:0]
+		if m, err := f.cfg.Motion.Relative(f.prevUs, f.lastUs); err == nil {
+			if err := f.uprightEst.Estimate(f.prev, f.last, f.cfg.Camera, m, farDepthM, &f.upright); err != nil {
+				f.upright.Segments = f.upright.Segments[:0]
+			}
+		}
+		f.uprightFor, f.uprightKnown = f.lastUs, true
+	}
+	return &f.upright
 }
 
 // desaturate writes the held frame to dst in grey at half brightness.

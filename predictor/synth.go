@@ -49,6 +49,9 @@ type Synthesis struct {
 	UnfilledPixels int
 	// UnfilledFraction is UnfilledPixels / (Width·Height).
 	UnfilledFraction float64
+	// UprightSegments is the number of upright segments composited
+	// (SynthesizeScene; 0 otherwise).
+	UprightSegments int
 }
 
 // Synthesizer warps a frame from one camera pose to another: the road
@@ -80,6 +83,8 @@ type Synthesizer struct {
 	weights []uint16 // ground weight 0..256 per band pixel, row-major, (rowB-rowA)*W
 	bandG   gocv.Mat // ground warp of the band rows
 	bandF   gocv.Mat // far warp of the band rows
+
+	up uprightScratch // SynthesizeScene's buffers
 
 	undistort  bool
 	map1, map2 gocv.Mat // undistortion maps (CV_16SC2 + CV_16UC1)
