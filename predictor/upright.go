@@ -24,6 +24,11 @@ const (
 	// kept: it keeps textureless bands (where every hypothesis matches)
 	// on the simpler model.
 	DefaultUprightMinGain = 0.1
+	// DefaultUprightMinBaselineM is the least translation between the two
+	// frames for an estimate: 0.1 m moves a wall 4 m away by about 2.5% of
+	// its distance, several pixels at a quarter of 720p, so one frame
+	// interval at city speeds suffices.
+	DefaultUprightMinBaselineM = 0.1
 )
 
 // DefaultUprightWallsM returns the lateral offsets of the walls parallel to
@@ -55,7 +60,7 @@ type UprightOptions struct {
 	// 0 means DefaultUprightMinGain, otherwise in (0, 1).
 	MinGain float64
 	// MinBaselineM is the least translation between the two frames;
-	// 0 means DefaultFarDepthMinBaselineM.
+	// 0 means DefaultUprightMinBaselineM.
 	MinBaselineM float64
 }
 
@@ -136,10 +141,14 @@ func rowOn(l [3]float64, u float64) (float64, bool) {
 }
 
 // UprightSegment is one column band of the held frame where an upright
-// surface stands on the road: pixels of columns [Col0, Col1) above the
-// surface's base line (where it meets the road) are on the plane.
+// surface stands on the road: pixels of columns [Col0, Col1) between row
+// TopRow and the surface's base line (where it meets the road) are on the
+// plane; above TopRow is the far scene.
 type UprightSegment struct {
 	Col0, Col1 int
+	// TopRow is the row of the surface's top edge in the held frame
+	// (-0.5: the image's top edge).
+	TopRow float64
 	// Plane in the held frame's camera coordinates.
 	Plane Plane
 	// BaseRow0 and BaseRow1 are the base line's rows at the band's edges
@@ -165,10 +174,11 @@ type UprightModel struct {
 // UprightEstimator finds the upright structure of the newer of two real
 // frames: for each column band it compares, at reduced resolution and in
 // grey, the newer frame with the older one warped through each hypothesis
-// (road below the base line and the plane above it; or road below the
-// horizon and the far plane above it), as a plane sweep restricted to
-// vertical planes, and keeps the hypothesis with the least sum of absolute
-// differences if it beats the road-and-far model by MinGain. The cost is
+// (road below the base line, the plane from there up to a top row, the far
+// scene above; or road below the horizon and the far scene above it), as a
+// plane sweep restricted to vertical planes, and keeps the hypothesis and
+// top row with the least sum of absolute differences if it beats the
+// road-and-far model by MinGain. The cost is
 // about one low-resolution warp per hypothesis (23 by default) per gap.
 //
 // An estimator owns scratch images (Close frees them) and is not safe for
@@ -181,6 +191,7 @@ type UprightEstimator struct {
 	hm        gocv.Mat
 	allocated bool
 	sums      [][]float64 // per hypothesis: band-major row sums of |diff|
+	pre       [][]float64 // per hypothesis: prefix sums down the current band
 	planes    []Plane
 }
 
@@ -229,7 +240,7 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 	o := e.opts
 	minBase := o.MinBaselineM
 	if minBase == 0 {
-		minBase = DefaultFarDepthMinBaselineM
+		minBase = DefaultUprightMinBaselineM
 	}
 	if math.Hypot(m.DxM, m.DyM) < minBase {
 		return nil
@@ -273,6 +284,7 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 	nh := 2 + len(e.planes)
 	for len(e.sums) < nh {
 		e.sums = append(e.sums, nil)
+		e.pre = append(e.pre, nil)
 	}
 	bandLo := make([]int, nb+1) // low-res column edges of the bands (small, once per gap)
 	for b := 0; b <= nb; b++ {
@@ -326,19 +338,21 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 		if !ok {
 			continue
 		}
-		cost := func(k, split int) float64 {
+		// Prefix sums down the band: pre[k][y] = sum of rows [0, y).
+		for k := 0; k < nh; k++ {
+			pk := e.pre[k][:0]
 			t := 0.0
+			pk = append(pk, 0)
 			for y := 0; y < h; y++ {
-				kk := 0 // road below the split
-				if y < split {
-					kk = k
-				}
-				t += e.sums[kk][b*h+y]
+				t += e.sums[k][b*h+y]
+				pk = append(pk, t)
 			}
-			return t
+			e.pre[k] = pk
 		}
 		lowRow := func(v float64) int { return int(math.Round(math.Min(math.Max(v*sy, 0), float64(h)))) }
-		none := cost(1, lowRow(hzRow))
+		road, far := e.pre[0], e.pre[1]
+		hzLow := lowRow(hzRow)
+		none := far[hzLow] + road[h] - road[hzLow]
 		best, bestCost := -1, none*(1-gain)
 		var bestSeg UprightSegment
 		for i, p := range e.planes {
@@ -346,7 +360,24 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 			if !ok {
 				continue
 			}
-			if c := cost(2+i, lowRow((seg.BaseRow0+seg.BaseRow1)/2)); c < bestCost {
+			// Far scene above the top, the plane from the top to the base,
+			// road below: the best top for this plane.
+			pk := e.pre[2+i]
+			base := lowRow((seg.BaseRow0 + seg.BaseRow1) / 2)
+			top, tc := 0, math.Inf(1)
+			for y := 0; y <= base; y++ {
+				if c := far[y] - pk[y]; c < tc {
+					top, tc = y, c
+				}
+			}
+			if base-top < 2 {
+				continue
+			}
+			if c := tc + pk[base] + road[h] - road[base]; c < bestCost {
+				seg.TopRow = -0.5
+				if top > 0 {
+					seg.TopRow = float64(top)/sy - 0.5
+				}
 				best, bestCost, bestSeg = i, c, seg
 			}
 		}

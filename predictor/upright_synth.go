@@ -80,8 +80,8 @@ func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM f
 		x0, x1 := float64(seg.Col0)-0.5, float64(seg.Col1)-0.5
 		r0, _ := hz.RowAt(x0)
 		r1, _ := hz.RowAt(x1)
-		split := math.Max(r0, r1) + 1
-		above := [4][2]float64{{x0, -0.5}, {x1, -0.5}, {x1, split}, {x0, split}}
+		split := math.Max(math.Max(r0, r1)+1, seg.TopRow)
+		above := [4][2]float64{{x0, seg.TopRow}, {x1, seg.TopRow}, {x1, split}, {x0, split}}
 		below := [4][2]float64{{x0, split}, {x1, split}, {x1, seg.BaseRow1}, {x0, seg.BaseRow0}}
 		for _, q := range []struct {
 			quad [4][2]float64
@@ -115,7 +115,7 @@ func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM f
 			continue
 		}
 		x0, x1 := float64(seg.Col0)-0.5, float64(seg.Col1)-0.5
-		quad := [4][2]float64{{x0, -0.5}, {x1, -0.5}, {x1, seg.BaseRow1}, {x0, seg.BaseRow0}}
+		quad := [4][2]float64{{x0, seg.TopRow}, {x1, seg.TopRow}, {x1, seg.BaseRow1}, {x0, seg.BaseRow0}}
 		if !quadSpans(hf, quad, w, h, sc.spans) {
 			continue
 		}

@@ -131,7 +131,7 @@ func TestUprightEstimateFindsWall(t *testing.T) {
 	if possible < 4 || float64(right) < 0.75*float64(possible) {
 		t.Errorf("the planted wall was found in %d of %d bands, want at least 75%%", right, possible)
 	}
-	m.DxM = 0.1
+	m.DxM = 0.05
 	if err := e.Estimate(prev, last, c, m, math.Inf(1), &model); err != nil || len(model.Segments) != 0 {
 		t.Errorf("short baseline: %d segments, err %v; want none", len(model.Segments), err)
 	}
@@ -157,6 +157,7 @@ func TestSynthesizeSceneWarpsWall(t *testing.T) {
 		if !ok {
 			t.Fatalf("the wall cannot stand in band %d", c0)
 		}
+		seg.TopRow = -0.5
 		model.Segments = append(model.Segments, seg)
 	}
 	s, err := NewSynthesizer(c, SynthOptions{})
