@@ -409,19 +409,24 @@ func (s *Synthesizer) warpBand(target, src bgrView, gi, fi Homography) error {
 		gr, fr := g.Pix[r*g.Stride:r*g.Stride+3*w], f.Pix[r*f.Stride:r*f.Stride+3*w]
 		out := target.Pix[r*target.Stride : r*target.Stride+3*w]
 		for u, wt := range wts[r*w : (r+1)*w] {
-			j := 3 * u
-			switch wt {
-			case 256:
-				out[j], out[j+1], out[j+2] = gr[j], gr[j+1], gr[j+2]
-			case 0:
-				out[j], out[j+1], out[j+2] = fr[j], fr[j+1], fr[j+2]
-			default:
-				a, b := uint32(wt), uint32(256-wt)
-				out[j] = byte((uint32(gr[j])*a + uint32(fr[j])*b + 128) >> 8)
-				out[j+1] = byte((uint32(gr[j+1])*a + uint32(fr[j+1])*b + 128) >> 8)
-				out[j+2] = byte((uint32(gr[j+2])*a + uint32(fr[j+2])*b + 128) >> 8)
-			}
+			blendPixel(out, gr, fr, 3*u, wt)
 		}
 	}
 	return nil
+}
+
+// blendPixel writes at byte j of out the ground pixel g blended with the
+// far pixel f with weight wt/256: (g·wt + f·(256-wt) + 128) >> 8.
+func blendPixel(out, g, f []byte, j int, wt uint16) {
+	switch wt {
+	case 256:
+		out[j], out[j+1], out[j+2] = g[j], g[j+1], g[j+2]
+	case 0:
+		out[j], out[j+1], out[j+2] = f[j], f[j+1], f[j+2]
+	default:
+		a, b := uint32(wt), uint32(256-wt)
+		out[j] = byte((uint32(g[j])*a + uint32(f[j])*b + 128) >> 8)
+		out[j+1] = byte((uint32(g[j+1])*a + uint32(f[j+1])*b + 128) >> 8)
+		out[j+2] = byte((uint32(g[j+2])*a + uint32(f[j+2])*b + 128) >> 8)
+	}
 }

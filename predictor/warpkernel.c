@@ -37,7 +37,7 @@ typedef struct {
 	ptrdiff_t dst_stride, src_stride;
 	int dw, dh, col0, row0, sw, sh;
 	const double *m;
-	const int *spans;
+	const int *rowptr, *spans;
 	unsigned char fill;
 } sg_warp;
 
@@ -112,23 +112,29 @@ static void sg_row_scalar(const sg_warp *a, unsigned char *d, double v, int cb, 
 	}
 }
 
-// Row r's columns: [spans[2r], spans[2r+1]) clipped to [0, dw), or the
-// whole row when spans is NULL.
-static inline int sg_span(const sg_warp *a, int r, int *cb, int *ce) {
+// Row r's column intervals: rowptr NULL means one, the whole row;
+// otherwise intervals rowptr[r] .. rowptr[r+1]-1 of spans, each a pair
+// [begin, end) clipped to [0, dw).
+static inline int sg_nspans(const sg_warp *a, int r) { return a->rowptr ? a->rowptr[r + 1] - a->rowptr[r] : 1; }
+
+static inline int sg_span(const sg_warp *a, int r, int i, int *cb, int *ce) {
 	*cb = 0;
 	*ce = a->dw;
-	if (a->spans) {
-		*cb = a->spans[2 * r] > 0 ? a->spans[2 * r] : 0;
-		*ce = a->spans[2 * r + 1] < a->dw ? a->spans[2 * r + 1] : a->dw;
+	if (a->rowptr) {
+		const int *p = a->spans + 2 * (a->rowptr[r] + i);
+		*cb = p[0] > 0 ? p[0] : 0;
+		*ce = p[1] < a->dw ? p[1] : a->dw;
 	}
 	return *cb < *ce;
 }
 
 static void sg_warp_scalar(const sg_warp *a) {
 	for (int r = 0; r < a->dh; r++) {
-		int cb, ce;
-		if (sg_span(a, r, &cb, &ce)) {
-			sg_row_scalar(a, a->dst + (ptrdiff_t)r * a->dst_stride, (double)(a->row0 + r), cb, cb, ce);
+		for (int i = 0, n = sg_nspans(a, r); i < n; i++) {
+			int cb, ce;
+			if (sg_span(a, r, i, &cb, &ce)) {
+				sg_row_scalar(a, a->dst + (ptrdiff_t)r * a->dst_stride, (double)(a->row0 + r), cb, cb, ce);
+			}
 		}
 	}
 }
@@ -182,17 +188,26 @@ static SG_AVX2 void sg_warp_avx2(const sg_warp *a) {
 	const __m256i order = _mm256_setr_epi32(0, 4, 1, 5, 2, 6, 3, 7);
 	const __m256i can = _mm256_set1_epi32(xlim > 0 && a->sh >= 2 ? -1 : 0); // any fast pixel possible
 	int ixs[SG_BLOCK], iys[SG_BLOCK], oks[SG_BLOCK], offs[SG_BLOCK], was[SG_BLOCK], wbs[SG_BLOCK];
-	for (int r = 0; r < a->dh; r++) {
-		int cb, ce;
-		if (!sg_span(a, r, &cb, &ce)) {
+	unsigned char tmp[3 * SG_BLOCK + 8];
+	for (int r = 0, si = 0; r < a->dh; si = 0, r++) {
+	next_span:;
+		if (si >= sg_nspans(a, r)) {
 			continue;
+		}
+		int cb, ce;
+		if (!sg_span(a, r, si++, &cb, &ce)) {
+			goto next_span;
 		}
 		unsigned char *d = a->dst + (ptrdiff_t)r * a->dst_stride;
 		double v = a->row0 + r;
 		int c0 = cb;
 		double X0, Y0, W0;
 		sg_anchor(m, (double)(a->col0 + cb), v, &X0, &Y0, &W0);
-		for (; c0 + SG_BLOCK <= ce; c0 += SG_BLOCK, sg_step(m, &X0, &Y0, &W0)) {
+		for (; c0 < ce; c0 += SG_BLOCK, sg_step(m, &X0, &Y0, &W0)) {
+			// A last, partial block is computed whole (the extra pixels only
+			// cost arithmetic and in-bounds reads) and n pixels copied out.
+			int n = ce - c0 < SG_BLOCK ? ce - c0 : SG_BLOCK;
+			unsigned char *o = n == SG_BLOCK ? d + 3 * (ptrdiff_t)c0 : tmp;
 			__m256d x0 = _mm256_set1_pd(X0), y0 = _mm256_set1_pd(Y0), w0 = _mm256_set1_pd(W0);
 			__m128i ixa, iya, oka, ixb, iyb, okb;
 			sg_fix4(_mm256_add_pd(x0, _mm256_mul_pd(mx, k0)), _mm256_add_pd(y0, _mm256_mul_pd(my, k0)),
@@ -217,7 +232,6 @@ static SG_AVX2 void sg_warp_avx2(const sg_warp *a) {
 			_mm256_storeu_si256((__m256i *)offs, off);
 			_mm256_storeu_si256((__m256i *)was, wa);
 			_mm256_storeu_si256((__m256i *)wbs, wb);
-			unsigned char *o = d + 3 * (ptrdiff_t)c0;
 			if (fmask == 0xFF) {
 				// Two pixels per 256-bit register: pixel 2j in the low lane, 2j+1 in the high one.
 				__m256i px[SG_BLOCK / 2];
@@ -243,7 +257,7 @@ static SG_AVX2 void sg_warp_avx2(const sg_warp *a) {
 				_mm_storel_epi64((__m128i *)(o + 12), h);
 				uint32_t tail = (uint32_t)_mm_cvtsi128_si32(_mm_srli_si128(h, 8));
 				memcpy(o + 20, &tail, 4);
-				continue;
+				goto flush;
 			}
 			_mm256_storeu_si256((__m256i *)ixs, ix);
 			_mm256_storeu_si256((__m256i *)iys, iy);
@@ -269,10 +283,12 @@ static SG_AVX2 void sg_warp_avx2(const sg_warp *a) {
 				uint32_t tail = (uint32_t)_mm_cvtsi128_si32(_mm_srli_si128(b, 8));
 				memcpy(o + 3 * q + 8, &tail, 4);
 			}
+		flush:
+			if (n < SG_BLOCK) {
+				memcpy(d + 3 * (ptrdiff_t)c0, tmp, 3 * (size_t)n);
+			}
 		}
-		if (c0 < ce) { // tail: the scalar code, same arithmetic
-			sg_row_scalar(a, d, v, cb, c0, ce);
-		}
+		goto next_span;
 	}
 }
 
@@ -284,8 +300,10 @@ int sg_warp_best_path(void) {
 int sg_warp_best_path(void) { return 1; }
 #endif
 
-int sg_warp_bgr(unsigned char *dst, const unsigned char *src, const int *spans, const sg_warp_args *p) {
-	sg_warp w = {dst, src, p->dst_stride, p->src_stride, p->dw, p->dh, p->col0, p->row0, p->sw, p->sh, p->m, spans, p->fill};
+int sg_warp_bgr(unsigned char *dst, const unsigned char *src, const int *rowptr, const int *spans,
+                sg_warp_args args) {
+	const sg_warp_args *p = &args;
+	sg_warp w = {dst, src, p->dst_stride, p->src_stride, p->dw, p->dh, p->col0, p->row0, p->sw, p->sh, p->m, rowptr, spans, p->fill};
 	const sg_warp *a = &w;
 	int path = p->path == 1 ? 1 : sg_warp_best_path();
 	// The vector path computes byte offsets in 32-bit lanes.

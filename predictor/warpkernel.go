@@ -81,19 +81,29 @@ func bestWarpPath() warpPath { return warpPath(C.sg_warp_best_path()) }
 // dst and src are owned by the caller, must not overlap, and nothing is
 // allocated. It returns the path used.
 func warpBGR(dst, src bgrView, inv Homography, col0, row0 int, fill byte, path warpPath) (warpPath, error) {
-	return warpBGRSpans(dst, src, inv, col0, row0, nil, fill, path)
+	return warpBGRSpans(dst, src, inv, col0, row0, nil, nil, fill, path)
 }
 
-// warpBGRSpans is warpBGR restricted to one column span per destination row:
-// row r of dst is written in columns [spans[2r], spans[2r+1]) (clipped to
-// the row) and left alone elsewhere. nil spans means whole rows; otherwise
-// len(spans) must be 2*dst.H. The arithmetic of a pixel does not depend on
-// its span except through the row anchor, evaluated at the span's first
-// column instead of carried from column 0 (a difference of about 1e-16
-// relative in the source point).
-func warpBGRSpans(dst, src bgrView, inv Homography, col0, row0 int, spans []int32, fill byte, path warpPath) (warpPath, error) {
-	if spans != nil && len(spans) != 2*dst.H {
-		return 0, fmt.Errorf("%d span values for %d rows, want %d: %w", len(spans), dst.H, 2*dst.H, ErrInvalidConfig)
+// warpBGRSpans is warpBGR restricted to column intervals: row r of dst is
+// written only in the intervals rowptr[r] .. rowptr[r+1]-1 of spans, each a
+// pair [begin, end) of columns (clipped to the row), and left alone
+// elsewhere (compressed sparse rows; rowptr may be a window of a larger
+// index, its entries are positions in spans). nil rowptr means whole rows;
+// otherwise it has dst.H+1 non-decreasing entries within 0..len(spans)/2. A pixel's
+// arithmetic does not depend on its interval except through the row
+// anchor, evaluated at the interval's first column instead of carried from
+// column 0 (about 1e-16 relative in the source point).
+func warpBGRSpans(dst, src bgrView, inv Homography, col0, row0 int, rowptr, spans []int32, fill byte, path warpPath) (warpPath, error) {
+	if rowptr != nil {
+		if len(rowptr) != dst.H+1 || rowptr[0] < 0 || int(rowptr[dst.H]) > len(spans)/2 {
+			return 0, fmt.Errorf("span index of %d entries (%d..%d) for %d rows and %d span values, want %d entries within 0..%d: %w",
+				len(rowptr), rowptr[0], rowptr[len(rowptr)-1], dst.H, len(spans), dst.H+1, len(spans)/2, ErrInvalidConfig)
+		}
+		for r := 0; r < dst.H; r++ {
+			if rowptr[r+1] < rowptr[r] {
+				return 0, fmt.Errorf("span index decreases at row %d: %w", r, ErrInvalidConfig)
+			}
+		}
 	}
 	if err := dst.check("warp destination"); err != nil {
 		return 0, err
@@ -125,11 +135,14 @@ func warpBGRSpans(dst, src bgrView, inv Homography, col0, row0 int, spans []int3
 	for i := 0; i < 9; i++ {
 		a.m[i] = C.double(inv[i/3][i%3])
 	}
-	var sp *C.int
-	if spans != nil {
-		sp = (*C.int)(unsafe.Pointer(&spans[0]))
+	var rp, sp *C.int
+	if rowptr != nil {
+		if len(spans) == 0 {
+			return path, nil // nothing to write
+		}
+		rp, sp = (*C.int)(unsafe.Pointer(&rowptr[0])), (*C.int)(unsafe.Pointer(&spans[0]))
 	}
-	return warpPath(C.sg_warp_bgr((*C.uchar)(unsafe.Pointer(&dst.Pix[0])), (*C.uchar)(unsafe.Pointer(&src.Pix[0])), sp, &a)), nil
+	return warpPath(C.sg_warp_bgr((*C.uchar)(unsafe.Pointer(&dst.Pix[0])), (*C.uchar)(unsafe.Pointer(&src.Pix[0])), rp, sp, a)), nil
 }
 
 // overlaps reports whether the byte ranges of two views intersect.

@@ -4,8 +4,8 @@
 
 #include <stddef.h>
 
-// Parameters of one warp; the two images are passed beside it so that the
-// struct holds no pointers (cgo passes it from Go memory).
+// Parameters of one warp, passed by value; the images and spans are passed
+// beside it so that the struct holds no pointers.
 typedef struct {
 	ptrdiff_t dst_stride;     // bytes between destination rows
 	int dw, dh;               // destination region size, pixels
@@ -18,10 +18,12 @@ typedef struct {
 } sg_warp_args;
 
 // sg_warp_bgr warps src (pixel (0, 0)) into dst (pixel (col0, row0) of the
-// destination image); returns the path used (1 scalar, 2 AVX2). spans, if
-// not NULL, holds dh pairs [begin, end) of region columns: only those pixels
-// of each row are written.
-int sg_warp_bgr(unsigned char *dst, const unsigned char *src, const int *spans, const sg_warp_args *p);
+// destination image); returns the path used (1 scalar, 2 AVX2). rowptr, if
+// not NULL, has dh+1 entries and row r is written only in the column
+// intervals rowptr[r] .. rowptr[r+1]-1 of spans, pairs [begin, end) of
+// region columns.
+int sg_warp_bgr(unsigned char *dst, const unsigned char *src, const int *rowptr, const int *spans,
+                sg_warp_args p);
 
 // sg_warp_best_path returns the path sg_warp_bgr uses for path = 0.
 int sg_warp_best_path(void);

@@ -335,30 +335,40 @@ func TestWarpKernelSpans(t *testing.T) {
 			for i := range part.Pix {
 				part.Pix[i] = 1
 			}
-			spans := make([]int32, 2*dh)
+			// Up to three intervals per row, possibly empty, reversed,
+			// overlapping or outside the row.
+			rowptr := []int32{0}
+			var spans []int32
 			for r := 0; r < dh; r++ {
-				a, b := rng.IntN(dw+20)-10, rng.IntN(dw+20)-10
-				spans[2*r], spans[2*r+1] = int32(a), int32(b)
+				for n := rng.IntN(4); n > 0; n-- {
+					spans = append(spans, int32(rng.IntN(dw+20)-10), int32(rng.IntN(dw+20)-10))
+				}
+				rowptr = append(rowptr, int32(len(spans)/2))
 			}
-			if _, err := warpBGRSpans(part, src, inv, 3, 2, spans, NeutralGrey, p); err != nil {
+			if _, err := warpBGRSpans(part, src, inv, 3, 2, rowptr, spans, NeutralGrey, p); err != nil {
 				t.Fatal(err)
 			}
 			for r := 0; r < dh; r++ {
 				for c := 0; c < dw; c++ {
-					in := c >= int(spans[2*r]) && c < int(spans[2*r+1])
+					in := false
+					for i := rowptr[r]; i < rowptr[r+1]; i++ {
+						in = in || c >= int(spans[2*i]) && c < int(spans[2*i+1])
+					}
 					got := [3]byte(part.Pix[r*part.Stride+3*c:])
 					want := [3]byte{1, 1, 1}
 					if in {
 						want = [3]byte(full.Pix[r*full.Stride+3*c:])
 					}
 					if got != want {
-						t.Fatalf("path %d trial %d: pixel (%d, %d), span [%d, %d): got %v, want %v", p, trial, c, r, spans[2*r], spans[2*r+1], got, want)
+						t.Fatalf("path %d trial %d: pixel (%d, %d), spans %v: got %v, want %v", p, trial, c, r, spans[2*rowptr[r]:2*rowptr[r+1]], got, want)
 					}
 				}
 			}
 		}
 	}
-	if _, err := warpBGRSpans(bgrView{Pix: make([]byte, 9), Stride: 3, W: 1, H: 3}, src, IdentityHomography(), 0, 0, make([]int32, 4), 0, warpPathBest); !errors.Is(err, ErrInvalidConfig) {
-		t.Errorf("wrong span count: got %v, want ErrInvalidConfig", err)
+	for _, rp := range [][]int32{{0, 1, 2}, {0, 2, 1, 2}, {-1, 1, 1, 2}, {0, 1, 2, 3}} {
+		if _, err := warpBGRSpans(bgrView{Pix: make([]byte, 9), Stride: 3, W: 1, H: 3}, src, IdentityHomography(), 0, 0, rp, make([]int32, 4), 0, warpPathBest); !errors.Is(err, ErrInvalidConfig) {
+			t.Errorf("span index %v: got %v, want ErrInvalidConfig", rp, err)
+		}
 	}
 }
