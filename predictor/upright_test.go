@@ -204,3 +204,125 @@ func mustInverse(t *testing.T, h Homography) Homography {
 	}
 	return i
 }
+
+// inQuad reports whether (x, y) is inside the convex quadrilateral q
+// (corners in order, either orientation).
+func inQuad(q [4][2]float64, x, y float64) bool {
+	pos, neg := false, false
+	for i := 0; i < 4; i++ {
+		a, b := q[i], q[(i+1)%4]
+		cr := (b[0]-a[0])*(y-a[1]) - (b[1]-a[1])*(x-a[0])
+		pos = pos || cr > 0
+		neg = neg || cr < 0
+	}
+	return !(pos && neg)
+}
+
+// TestSynthesizeSceneOwnersBruteForce recomputes, pixel by pixel and in the
+// source frame, what SynthesizeScene documents: a pixel whose source point
+// under a segment's own map lies in that segment's (clipped) source quad
+// shows the nearest such segment; else, if the far map sends it into a
+// segment's part above the horizon or the road map into its part below,
+// it is disoccluded (exactly NeutralGrey, unfilled); else the road and far
+// warp's rule applies. The unfilled count must match exactly.
+func TestSynthesizeSceneOwnersBruteForce(t *testing.T) {
+	c := uprightCam()
+	model := streetModel(c)
+	if len(model.Segments) < 6 {
+		t.Fatalf("only %d segments in the test street", len(model.Segments))
+	}
+	src := noiseFrame(t, c.Width, c.Height, 5)
+	defer src.Close()
+	s, err := NewSynthesizer(c, SynthOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer s.Close()
+	for name, mo := range map[string]filter.Motion{
+		"forward":      {T1Us: 100_000, DxM: 1.5},
+		"forward-left": {T1Us: 150_000, DxM: 2, DyM: 0.2, DyawRad: 0.08},
+		"reverse":      {T1Us: 100_000, DxM: -1},
+	} {
+		t.Run(name, func(t *testing.T) {
+			dst := gocv.NewMat()
+			defer dst.Close()
+			syn, err := s.SynthesizeScene(src, mo, 30, &model, &dst)
+			if err != nil {
+				t.Fatal(err)
+			}
+			out := bytesOf(t, dst)
+			gi, fi := mustInverse(t, syn.Ground), mustInverse(t, syn.Far)
+			hz := c.Horizon()
+			const e = FillTolerancePx
+			segs := append([]UprightSegment(nil), model.Segments...)
+			sortFarToNear(segs)
+			type quadMap struct {
+				q   [4][2]float64
+				inv Homography
+			}
+			var own, above, below []quadMap
+			for _, seg := range segs {
+				hf := c.PlaneHomography(mo.DxM, mo.DyM, mo.DyawRad, seg.Plane)
+				x0, x1 := math.Max(float64(seg.Col0)-0.5, -e), math.Min(float64(seg.Col1)-0.5, float64(c.Width-1)+e)
+				top := math.Max(seg.TopRow, -e)
+				b0, b1 := math.Min(seg.BaseRow0, float64(c.Height-1)+e), math.Min(seg.BaseRow1, float64(c.Height-1)+e)
+				own = append(own, quadMap{[4][2]float64{{x0, top}, {x1, top}, {x1, b1}, {x0, b0}}, mustInverse(t, hf)})
+				ux0, ux1 := float64(seg.Col0)-0.5, float64(seg.Col1)-0.5
+				r0, _ := hz.RowAt(ux0)
+				r1, _ := hz.RowAt(ux1)
+				split := math.Max(math.Max(r0, r1)+1, seg.TopRow)
+				above = append(above, quadMap{[4][2]float64{{ux0, seg.TopRow}, {ux1, seg.TopRow}, {ux1, split}, {ux0, split}}, fi})
+				below = append(below, quadMap{[4][2]float64{{ux0, split}, {ux1, split}, {ux1, seg.BaseRow1}, {ux0, seg.BaseRow0}}, gi})
+			}
+			hits := func(qm quadMap, u, v float64) bool {
+				x, y, ok := qm.inv.Apply(u, v)
+				return ok && inQuad(qm.q, x, y)
+			}
+			unfilled, hidden, onSeg := 0, 0, 0
+			for v := 0; v < c.Height; v++ {
+				for u := 0; u < c.Width; u++ {
+					fu, fv := float64(u), float64(v)
+					seg := -1
+					for k := len(own) - 1; k >= 0; k-- { // nearest first
+						if hits(own[k], fu, fv) {
+							seg = k
+							break
+						}
+					}
+					if seg >= 0 {
+						onSeg++
+						x, y, ok := own[seg].inv.Apply(fu, fv)
+						if !ok || x < -e || y < -e || x > float64(c.Width-1)+e || y > float64(c.Height-1)+e {
+							unfilled++
+						}
+						continue
+					}
+					isHidden := false
+					for k := range above {
+						isHidden = isHidden || hits(above[k], fu, fv) || hits(below[k], fu, fv)
+					}
+					if isHidden {
+						hidden++
+						unfilled++
+						if p := out[3*(v*c.Width+u):]; p[0] != NeutralGrey || p[1] != NeutralGrey || p[2] != NeutralGrey {
+							t.Fatalf("disoccluded pixel (%d, %d) is %v, want NeutralGrey", u, v, p[:3])
+						}
+						continue
+					}
+					m := fi
+					if hz.SignedDistance(fu, fv) >= 0 {
+						m = gi
+					}
+					x, y, ok := m.Apply(fu, fv)
+					if !ok || x < -e || y < -e || x > float64(c.Width-1)+e || y > float64(c.Height-1)+e {
+						unfilled++
+					}
+				}
+			}
+			t.Logf("%d segments: %d pixels on segments, %d disoccluded, %d unfilled (count %d)", syn.UprightSegments, onSeg, hidden, unfilled, syn.UnfilledPixels)
+			if onSeg == 0 || syn.UnfilledPixels != unfilled {
+				t.Errorf("unfilled count %d, per-pixel recount %d (%d on segments)", syn.UnfilledPixels, unfilled, onSeg)
+			}
+		})
+	}
+}
