@@ -34,7 +34,9 @@ const (
 // DefaultUprightWallsM returns the lateral offsets of the walls parallel to
 // the direction of travel that the estimate tries, metres from the vehicle
 // axis (each is tried on the left, +y, and on the right, -y).
-func DefaultUprightWallsM() []float64 { return []float64{2.5, 3, 3.5, 4, 4.5, 5, 6, 7, 8.5, 10, 12} }
+func DefaultUprightWallsM() []float64 {
+	return []float64{2.5, 3, 3.5, 4, 4.5, 5, 5.5, 6, 6.5, 7, 7.5, 8, 9, 10, 11.5, 13}
+}
 
 // DefaultUprightFrontsM returns the distances ahead of the vehicle origin of
 // the upright surfaces facing the vehicle (across the road) that the
