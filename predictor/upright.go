@@ -180,8 +180,9 @@ type UprightModel struct {
 // scene above; or road below the horizon and the far scene above it), as a
 // plane sweep restricted to vertical planes, and keeps the hypothesis and
 // top row with the least sum of absolute differences if it beats the
-// road-and-far model by MinGain. The cost is
-// about one low-resolution warp per hypothesis (23 by default) per gap.
+// road-and-far model by MinGain. The cost per gap is about one
+// low-resolution warp per hypothesis (42 by default), each restricted to the
+// bands and rows where its plane can stand.
 //
 // An estimator owns scratch images (Close frees them) and is not safe for
 // concurrent use.
@@ -264,6 +265,12 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 	gocv.CvtColor(e.tmp, &e.a, gocv.ColorBGRToGray)
 	gocv.Resize(last, &e.tmp, size, 0, 0, gocv.InterpolationArea)
 	gocv.CvtColor(e.tmp, &e.b, gocv.ColorBGRToGray)
+	for _, p := range []*gocv.Mat{&e.warped, &e.diff} { // full size: hypotheses write regions
+		if p.Rows() != h || p.Cols() != w || p.Type() != gocv.MatTypeCV8U {
+			p.Close()
+			*p = gocv.NewMatWithSize(h, w, gocv.MatTypeCV8U)
+		}
+	}
 
 	// Hypotheses 0 (road) and 1 (far), then the vertical planes, all in the
 	// camera of the newer frame; inverse maps newer -> older.
@@ -292,6 +299,7 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 	for b := 0; b <= nb; b++ {
 		bandLo[b] = min(w, int(math.Round(float64(min(b*bandPx, cam.Width))*s)))
 	}
+	hz := cam.Horizon()
 	for k := 0; k < nh; k++ {
 		var hf Homography
 		switch k {
@@ -306,33 +314,61 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 		if !hs.IsFinite() {
 			return fmt.Errorf("upright hypothesis %d: %w", k, ErrSingular)
 		}
-		if err := setMat3(&e.hm, hs); err != nil {
+		// A plane is compared only where it can stand: over the bands
+		// where its base is below the horizon, rows down to its lowest
+		// base (the road's sums serve below). The road and far maps are
+		// compared everywhere.
+		b0, b1, rows := 0, nb, h
+		if k >= 2 {
+			b0, b1, rows = nb, 0, 0
+			for b := 0; b < nb; b++ {
+				c0, c1 := b*bandPx, min((b+1)*bandPx, cam.Width)
+				hzRow, ok := hz.RowAt(float64(c0+c1-1) / 2)
+				if !ok {
+					continue
+				}
+				if seg, ok := cam.segment(e.planes[k-2], c0, c1, hzRow); ok {
+					b0, b1 = min(b0, b), max(b1, b+1)
+					rows = max(rows, min(h, int(math.Ceil(math.Max(seg.BaseRow0, seg.BaseRow1)*sy))+1))
+				}
+			}
+		}
+		sums := e.sums[k][:0]
+		for range nb * h {
+			sums = append(sums, 0)
+		}
+		e.sums[k] = sums
+		if b0 >= b1 || rows == 0 || bandLo[b0] >= bandLo[b1] {
+			continue
+		}
+		rect := image.Rect(bandLo[b0], 0, bandLo[b1], rows)
+		if err := setMat3(&e.hm, hs.shiftCols(rect.Min.X)); err != nil {
 			return err
 		}
-		gocv.WarpPerspectiveWithParams(e.a, &e.warped, e.hm, size, gocv.InterpolationLinear|gocv.WarpInverseMap, gocv.BorderReplicate, neutralFill)
-		gocv.AbsDiff(e.warped, e.b, &e.diff)
+		wr, br, dr := e.warped.Region(rect), e.b.Region(rect), e.diff.Region(rect)
+		gocv.WarpPerspectiveWithParams(e.a, &wr, e.hm, rect.Size(), gocv.InterpolationLinear|gocv.WarpInverseMap, gocv.BorderReplicate, neutralFill)
+		gocv.AbsDiff(wr, br, &dr)
+		wr.Close()
+		br.Close()
+		dr.Close()
 		d, err := e.diff.DataPtrUint8()
 		if err != nil {
 			return fmt.Errorf("upright scratch: %w", err)
 		}
-		sums := e.sums[k][:0]
-		for b := 0; b < nb; b++ {
-			for y := 0; y < h; y++ {
-				row := d[y*w+bandLo[b] : y*w+bandLo[b+1]]
+		for b := b0; b < b1; b++ {
+			for y := 0; y < rows; y++ {
 				t := 0
-				for _, v := range row {
+				for _, v := range d[y*w+bandLo[b] : y*w+bandLo[b+1]] {
 					t += int(v)
 				}
-				sums = append(sums, float64(t))
+				sums[b*h+y] = float64(t)
 			}
 		}
-		e.sums[k] = sums
 	}
 	gain := o.MinGain
 	if gain == 0 {
 		gain = DefaultUprightMinGain
 	}
-	hz := cam.Horizon()
 	for b := 0; b < nb; b++ {
 		c0, c1 := b*bandPx, min((b+1)*bandPx, cam.Width)
 		uc := float64(c0+c1-1) / 2
