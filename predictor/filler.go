@@ -33,6 +33,11 @@ type FillerConfig struct {
 	// real frames (see UprightEstimator); zero = defaults, Off = road and
 	// far planes only.
 	Upright UprightOptions
+	// Movers configures the marks where things moved on their own between
+	// the two newest real frames (see MoverDetector); zero = defaults, Off =
+	// no marks. Marks are drawn on PREDICTED ground-method frames only, after
+	// the label; they do not change the confidence.
+	Movers MoverOptions
 }
 
 // Tick reports what the Filler put on screen for one display tick.
@@ -67,6 +72,8 @@ type Tick struct {
 	// UprightSegments is the number of upright segments a PREDICTED
 	// ground-method frame was composited with (see UprightModel).
 	UprightSegments int
+	// Movers is the number of mover marks drawn on a PREDICTED frame.
+	Movers int
 }
 
 // Filler is the per-tick gap filler shared by the offline replay and the
@@ -113,6 +120,12 @@ type Filler struct {
 	upright      UprightModel
 	uprightFor   int64
 	uprightKnown bool
+
+	// The movers of the held frame (valid while moversFor == lastUs).
+	moverDet    *MoverDetector
+	movers      MoverModel
+	moversFor   int64
+	moversKnown bool
 }
 
 // NewFiller validates cfg and allocates the buffers.
@@ -148,12 +161,21 @@ func NewFiller(cfg FillerConfig) (*Filler, error) {
 		d.Close()
 		return nil, err
 	}
+	md, err := NewMoverDetector(cfg.Movers)
+	if err != nil {
+		s.Close()
+		l.Close()
+		d.Close()
+		ue.Close()
+		return nil, err
+	}
 	return &Filler{
 		cfg:        cfg,
 		synth:      s,
 		label:      l,
 		depth:      d,
 		uprightEst: ue,
+		moverDet:   md,
 		last:       gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8UC3),
 		prev:       gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8UC3),
 		gray:       gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8U),
@@ -170,6 +192,7 @@ func (f *Filler) Close() error {
 	f.label.Close()
 	f.depth.Close()
 	f.uprightEst.Close()
+	f.moverDet.Close()
 	f.last.Close()
 	f.prev.Close()
 	f.gray.Close()
@@ -298,14 +321,17 @@ func (f *Filler) MissingWith(method Method, targetUs int64, dst *gocv.Mat) (Tick
 	}
 
 	start := f.now()
+	var movers *MoverModel
 	if tick.State == StatePredicted {
 		var syn Synthesis
 		if method == MethodRotation {
 			syn, err = f.synth.SynthesizeRotation(f.last, tick.Motion, dst)
 		} else {
 			tick.FarDepthM = f.farDepthFor()
-			syn, err = f.synth.SynthesizeScene(f.last, tick.Motion, tick.FarDepthM, f.uprightModel(tick.FarDepthM), dst)
+			up := f.uprightModel(tick.FarDepthM)
+			syn, err = f.synth.SynthesizeScene(f.last, tick.Motion, tick.FarDepthM, up, dst)
 			tick.UprightSegments = syn.UprightSegments
+			movers = f.moverModel(tick.FarDepthM, up)
 		}
 		if err != nil {
 			return tick, err
@@ -321,6 +347,9 @@ func (f *Filler) MissingWith(method Method, targetUs int64, dst *gocv.Mat) (Tick
 		f.desaturate(dst)
 	}
 	tick.LabelFraction, err = f.label.Draw(dst, tick.State, tick.AgeMs, tick.Confidence)
+	if err == nil && movers != nil && len(movers.Movers) > 0 {
+		tick.Movers, err = f.label.DrawMovers(dst, movers.Movers, tick.AgeMs)
+	}
 	tick.SynthDuration = f.now().Sub(start)
 	return tick, err
 }
@@ -362,6 +391,25 @@ func (f *Filler) uprightModel(farDepthM float64) *UprightModel {
 		f.uprightFor, f.uprightKnown = f.lastUs, true
 	}
 	return &f.upright
+}
+
+// moverModel returns the movers of the held frame, detected once per held
+// frame against the frame before it (see MoverDetector); nil when switched
+// off or not detectable.
+func (f *Filler) moverModel(farDepthM float64, up *UprightModel) *MoverModel {
+	if f.cfg.Movers.Off || !f.havePrev {
+		return nil
+	}
+	if !f.moversKnown || f.moversFor != f.lastUs {
+		f.movers.Movers = f.movers.Movers[:0]
+		if m, err := f.cfg.Motion.Relative(f.prevUs, f.lastUs); err == nil {
+			if err := f.moverDet.Detect(f.prev, f.last, f.cfg.Camera, m, farDepthM, up, &f.movers); err != nil {
+				f.movers.Movers = f.movers.Movers[:0]
+			}
+		}
+		f.moversFor, f.moversKnown = f.lastUs, true
+	}
+	return &f.movers
 }
 
 // desaturate writes the held frame to dst in grey at half brightness.

@@ -1,0 +1,281 @@
+package predictor
+
+import (
+	"fmt"
+	"image"
+	"math"
+
+	"gocv.io/x/gocv"
+
+	"stopgap/filter"
+)
+
+// Defaults of MoverOptions. They are design choices of this project.
+const (
+	// DefaultMoverWidthPx is the width of the downscaled frames compared.
+	DefaultMoverWidthPx = 320
+	// DefaultMoverThreshold is the grey-level difference, after the
+	// vehicle's own motion is compensated, above which a pixel changed.
+	DefaultMoverThreshold = 20
+	// DefaultMoverMinAreaPx is the least area of a changed region at full
+	// resolution, pixels (about 25x25 px): smaller ones are noise or
+	// texture misfit. Threshold and area were chosen on vtest.avi (see
+	// TestMoversOnVtest).
+	DefaultMoverMinAreaPx = 600
+	// DefaultMoverMinSpeedPxPerS is the least growth rate of a mark's zone,
+	// full-resolution pixels per second, also when no displacement was
+	// measured.
+	DefaultMoverMinSpeedPxPerS = 100.0
+)
+
+// MoverOptions configures the detection of regions that moved on their own.
+// The zero value uses the defaults.
+type MoverOptions struct {
+	// Off disables the detection and the marks.
+	Off bool
+	// WidthPx of the downscaled comparison; 0 means DefaultMoverWidthPx,
+	// otherwise >= 64.
+	WidthPx int
+	// Threshold in grey levels; 0 means DefaultMoverThreshold.
+	Threshold int
+	// MinAreaPx at full resolution; 0 means DefaultMoverMinAreaPx.
+	MinAreaPx int
+}
+
+// Validate reports options out of range, wrapping ErrInvalidConfig.
+func (o MoverOptions) Validate() error {
+	if o.WidthPx != 0 && o.WidthPx < 64 {
+		return fmt.Errorf("mover WidthPx = %d, want 0 (default %d) or >= 64: %w", o.WidthPx, DefaultMoverWidthPx, ErrInvalidConfig)
+	}
+	if o.Threshold < 0 || o.Threshold > 254 {
+		return fmt.Errorf("mover Threshold = %d, want 0 (default %d) or 1..254: %w", o.Threshold, DefaultMoverThreshold, ErrInvalidConfig)
+	}
+	if o.MinAreaPx < 0 {
+		return fmt.Errorf("mover MinAreaPx = %d, want >= 0: %w", o.MinAreaPx, ErrInvalidConfig)
+	}
+	return nil
+}
+
+// Mover is a region of the held frame where something moved on its own
+// between the last two real frames.
+type Mover struct {
+	// Box is its last known place in the held frame, full-resolution
+	// pixels: the changed region (it covers where the thing was in both
+	// frames).
+	Box image.Rectangle
+	// SpeedPxPerS is its apparent speed in the image, full-resolution
+	// pixels per second (at least DefaultMoverMinSpeedPxPerS).
+	SpeedPxPerS float64
+}
+
+// Zone returns where the mover could be ageMs after the held frame: Box
+// grown on every side by SpeedPxPerS · age.
+func (m Mover) Zone(ageMs float64) image.Rectangle {
+	g := int(math.Ceil(m.SpeedPxPerS * ageMs / 1000))
+	return m.Box.Inset(-g)
+}
+
+// MoverModel holds the movers of the held frame. The zero value is empty.
+type MoverModel struct {
+	Movers []Mover
+}
+
+// MoverDetector finds regions that moved on their own between two real
+// frames: the older frame is brought into the newer one's geometry with the
+// road map below the horizon, the far map above it and each upright
+// segment's plane map over its segment (the vehicle's own motion), both
+// are compared in grey at reduced resolution, differences above Threshold
+// are cleaned (opening, closing) and grouped into connected regions. Each
+// region's apparent displacement is the shift (within ±12 low-resolution
+// pixels) that best matches its pixels between the two compensated frames.
+// It owns scratch images (Close frees them); not safe for concurrent use.
+type MoverDetector struct {
+	opts                         MoverOptions
+	a, b, tmp, comp, w, diff, hm gocv.Mat
+	labels, stats, cents, kern   gocv.Mat
+	allocated                    bool
+}
+
+// NewMoverDetector validates opts and returns a detector.
+func NewMoverDetector(opts MoverOptions) (*MoverDetector, error) {
+	if err := opts.Validate(); err != nil {
+		return nil, err
+	}
+	return &MoverDetector{opts: opts}, nil
+}
+
+func (d *MoverDetector) scratch() []*gocv.Mat {
+	return []*gocv.Mat{&d.a, &d.b, &d.tmp, &d.comp, &d.w, &d.diff, &d.hm, &d.labels, &d.stats, &d.cents, &d.kern}
+}
+
+// Close frees the scratch images. Safe to call more than once.
+func (d *MoverDetector) Close() error {
+	if d.allocated {
+		for _, m := range d.scratch() {
+			m.Close()
+		}
+		d.allocated = false
+	}
+	return nil
+}
+
+// Detect writes into model (reusing its storage) the movers of last
+// (captured at m.T1Us) against prev (at m.T0Us), m the vehicle motion
+// between them, farDepthM the far-scene depth and up the upright structure
+// of last (nil for none).
+func (d *MoverDetector) Detect(prev, last gocv.Mat, cam Camera, m filter.Motion, farDepthM float64, up *UprightModel, model *MoverModel) error {
+	model.Movers = model.Movers[:0]
+	if err := CheckMotion(m); err != nil {
+		return err
+	}
+	for _, f := range []*gocv.Mat{&prev, &last} {
+		if err := checkFrame("mover frame", f, cam.Width, cam.Height); err != nil {
+			return err
+		}
+	}
+	o := d.opts
+	w := min(cmp0(o.WidthPx, DefaultMoverWidthPx), cam.Width)
+	s := float64(w) / float64(cam.Width)
+	h := max(8, int(math.Round(float64(cam.Height)*s)))
+	sy := float64(h) / float64(cam.Height)
+	if !d.allocated {
+		for _, p := range d.scratch() {
+			*p = gocv.NewMat()
+		}
+		d.hm.Close()
+		d.hm = gocv.NewMatWithSize(3, 3, gocv.MatTypeCV64F)
+		d.kern.Close()
+		d.kern = gocv.GetStructuringElement(gocv.MorphEllipse, image.Pt(3, 3))
+		d.allocated = true
+	}
+	size := image.Pt(w, h)
+	gocv.Resize(prev, &d.tmp, size, 0, 0, gocv.InterpolationArea)
+	gocv.CvtColor(d.tmp, &d.a, gocv.ColorBGRToGray)
+	gocv.Resize(last, &d.tmp, size, 0, 0, gocv.InterpolationArea)
+	gocv.CvtColor(d.tmp, &d.b, gocv.ColorBGRToGray)
+
+	// Compensated older frame in the newer one's geometry (inverse maps
+	// newer -> older, as UprightEstimator).
+	dx, dy, dyaw := invertPlanar(m.DxM, m.DyM, m.DyawRad)
+	warp := func(hf Homography, dst *gocv.Mat) error {
+		hs := scaleHomography(hf, s, sy)
+		if !hs.IsFinite() {
+			return fmt.Errorf("mover compensation: %w", ErrSingular)
+		}
+		if err := setMat3(&d.hm, hs); err != nil {
+			return err
+		}
+		gocv.WarpPerspectiveWithParams(d.a, dst, d.hm, size, gocv.InterpolationLinear|gocv.WarpInverseMap, gocv.BorderReplicate, neutralFill)
+		return nil
+	}
+	if err := warp(cam.GroundHomographyPlanar(dx, dy, dyaw), &d.comp); err != nil {
+		return err
+	}
+	if err := warp(cam.FarHomographyPlanar(dx, dy, dyaw, farDepthM), &d.w); err != nil {
+		return err
+	}
+	cp, err := d.comp.DataPtrUint8()
+	if err != nil {
+		return fmt.Errorf("mover scratch: %w", err)
+	}
+	fp, err := d.w.DataPtrUint8()
+	if err != nil {
+		return fmt.Errorf("mover scratch: %w", err)
+	}
+	hz := cam.Horizon()
+	for y := 0; y < h; y++ {
+		for x := 0; x < w; x++ {
+			if hz.SignedDistance((float64(x)+0.5)/s-0.5, (float64(y)+0.5)/sy-0.5) < 0 {
+				cp[y*w+x] = fp[y*w+x]
+			}
+		}
+	}
+	if up != nil {
+		for _, seg := range up.Segments {
+			if err := warp(cam.PlaneHomography(dx, dy, dyaw, seg.Plane), &d.w); err != nil {
+				return err
+			}
+			if fp, err = d.w.DataPtrUint8(); err != nil {
+				return fmt.Errorf("mover scratch: %w", err)
+			}
+			x0, x1 := int(math.Floor(float64(seg.Col0)*s)), min(w, int(math.Ceil(float64(seg.Col1)*s)))
+			for x := max(0, x0); x < x1; x++ {
+				u := (float64(x)+0.5)/s - 0.5
+				base := seg.BaseRow0 + (seg.BaseRow1-seg.BaseRow0)*(u-float64(seg.Col0)+0.5)/float64(seg.Col1-seg.Col0)
+				y0, y1 := max(0, int(math.Ceil((seg.TopRow+0.5)*sy-0.5))), min(h, int(math.Floor((base+0.5)*sy-0.5))+1)
+				for y := y0; y < y1; y++ {
+					cp[y*w+x] = fp[y*w+x]
+				}
+			}
+		}
+	}
+	gocv.AbsDiff(d.comp, d.b, &d.diff)
+	thr := cmp0(o.Threshold, DefaultMoverThreshold)
+	gocv.Threshold(d.diff, &d.diff, float32(thr), 255, gocv.ThresholdBinary)
+	gocv.MorphologyEx(d.diff, &d.diff, gocv.MorphOpen, d.kern)
+	gocv.Dilate(d.diff, &d.diff, d.kern)
+	gocv.Dilate(d.diff, &d.diff, d.kern)
+	n := gocv.ConnectedComponentsWithStats(d.diff, &d.labels, &d.stats, &d.cents)
+	minArea := float64(cmp0(o.MinAreaPx, DefaultMoverMinAreaPx)) * s * sy
+	bp, err := d.b.DataPtrUint8()
+	if err != nil {
+		return fmt.Errorf("mover scratch: %w", err)
+	}
+	dt := float64(m.T1Us-m.T0Us) / 1e6
+	for i := 1; i < n; i++ {
+		x := int(d.stats.GetIntAt(i, int(gocv.CC_STAT_LEFT)))
+		y := int(d.stats.GetIntAt(i, int(gocv.CC_STAT_TOP)))
+		bw := int(d.stats.GetIntAt(i, int(gocv.CC_STAT_WIDTH)))
+		bh := int(d.stats.GetIntAt(i, int(gocv.CC_STAT_HEIGHT)))
+		if float64(d.stats.GetIntAt(i, int(gocv.CC_STAT_AREA))) < minArea {
+			continue
+		}
+		shift := bestShift(cp, bp, w, h, image.Rect(x, y, x+bw, y+bh), 12)
+		speed := DefaultMoverMinSpeedPxPerS
+		if dt > 0 {
+			speed = math.Max(speed, shift/s/dt)
+		}
+		box := image.Rect(int(math.Floor(float64(x)/s)), int(math.Floor(float64(y)/sy)),
+			int(math.Ceil(float64(x+bw)/s)), int(math.Ceil(float64(y+bh)/sy))).Intersect(image.Rect(0, 0, cam.Width, cam.Height))
+		model.Movers = append(model.Movers, Mover{Box: box, SpeedPxPerS: speed})
+	}
+	return nil
+}
+
+// bestShift returns the length, in low-resolution pixels, of the shift
+// (dx, dy) within ±r that minimises the mean absolute difference between
+// the newer frame b over box and the compensated older frame c shifted by
+// it: how far the region's content moved between the two frames.
+func bestShift(c, b []byte, w, h int, box image.Rectangle, r int) float64 {
+	best, bestCost := 0.0, math.Inf(1)
+	for dy := -r; dy <= r; dy++ {
+		for dx := -r; dx <= r; dx++ {
+			sum, n := 0, 0
+			for y := box.Min.Y; y < box.Max.Y; y += 2 {
+				yy := y + dy
+				if yy < 0 || yy >= h {
+					continue
+				}
+				for x := box.Min.X; x < box.Max.X; x += 2 {
+					xx := x + dx
+					if xx < 0 || xx >= w {
+						continue
+					}
+					d := int(b[y*w+x]) - int(c[yy*w+xx])
+					if d < 0 {
+						d = -d
+					}
+					sum += d
+					n++
+				}
+			}
+			if n == 0 {
+				continue
+			}
+			if cost := float64(sum) / float64(n); cost < bestCost-1e-9 {
+				best, bestCost = math.Hypot(float64(dx), float64(dy)), cost
+			}
+		}
+	}
+	return best
+}
