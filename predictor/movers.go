@@ -86,7 +86,7 @@ type MoverModel struct {
 // segment's plane map over its segment (the vehicle's own motion), both
 // are compared in grey at reduced resolution, differences above Threshold
 // are cleaned (opening, closing) and grouped into connected regions. Each
-// region's apparent displacement is the shift (within ±12 low-resolution
+// region's apparent displacement is the shift (within ±8 low-resolution
 // pixels) that best matches its pixels between the two compensated frames.
 // It owns scratch images (Close frees them); not safe for concurrent use.
 type MoverDetector struct {
@@ -182,23 +182,39 @@ func (d *MoverDetector) Detect(prev, last gocv.Mat, cam Camera, m filter.Motion,
 	if err != nil {
 		return fmt.Errorf("mover scratch: %w", err)
 	}
+	// Above the horizon (signed distance < 0 at the low-resolution pixel's
+	// centre in full-resolution coordinates) the far map's pixels.
 	hz := cam.Horizon()
 	for y := 0; y < h; y++ {
+		// The signed distance is affine in x: a x + c >= 0 is road.
+		a := hz.A / s
+		c := hz.A*(0.5/s-0.5) + hz.B*((float64(y)+0.5)/sy-0.5) + hz.C
+		lo, hi := halfLine(a, c, 0, w-1)
 		for x := 0; x < w; x++ {
-			if hz.SignedDistance((float64(x)+0.5)/s-0.5, (float64(y)+0.5)/sy-0.5) < 0 {
+			if x < lo || x > hi {
 				cp[y*w+x] = fp[y*w+x]
 			}
 		}
 	}
 	if up != nil {
 		for _, seg := range up.Segments {
-			if err := warp(cam.PlaneHomography(dx, dy, dyaw, seg.Plane), &d.w); err != nil {
+			x0, x1 := int(math.Floor(float64(seg.Col0)*s)), min(w, int(math.Ceil(float64(seg.Col1)*s)))
+			if x0 >= x1 {
+				continue
+			}
+			// Only the segment's columns are warped (into the same place
+			// of the full-size scratch image).
+			hs := scaleHomography(cam.PlaneHomography(dx, dy, dyaw, seg.Plane), s, sy)
+			if !hs.IsFinite() {
+				return fmt.Errorf("mover compensation: %w", ErrSingular)
+			}
+			if err := setMat3(&d.hm, hs.shiftCols(x0)); err != nil {
 				return err
 			}
-			if fp, err = d.w.DataPtrUint8(); err != nil {
-				return fmt.Errorf("mover scratch: %w", err)
-			}
-			x0, x1 := int(math.Floor(float64(seg.Col0)*s)), min(w, int(math.Ceil(float64(seg.Col1)*s)))
+			rect := image.Rect(x0, 0, x1, h)
+			roi := d.w.Region(rect)
+			gocv.WarpPerspectiveWithParams(d.a, &roi, d.hm, rect.Size(), gocv.InterpolationLinear|gocv.WarpInverseMap, gocv.BorderReplicate, neutralFill)
+			roi.Close()
 			for x := max(0, x0); x < x1; x++ {
 				u := (float64(x)+0.5)/s - 0.5
 				base := seg.BaseRow0 + (seg.BaseRow1-seg.BaseRow0)*(u-float64(seg.Col0)+0.5)/float64(seg.Col1-seg.Col0)
@@ -230,7 +246,7 @@ func (d *MoverDetector) Detect(prev, last gocv.Mat, cam Camera, m filter.Motion,
 		if float64(d.stats.GetIntAt(i, int(gocv.CC_STAT_AREA))) < minArea {
 			continue
 		}
-		shift := bestShift(cp, bp, w, h, image.Rect(x, y, x+bw, y+bh), 12)
+		shift := bestShift(cp, bp, w, h, image.Rect(x, y, x+bw, y+bh), 8)
 		speed := DefaultMoverMinSpeedPxPerS
 		if dt > 0 {
 			speed = math.Max(speed, shift/s/dt)
@@ -247,35 +263,49 @@ func (d *MoverDetector) Detect(prev, last gocv.Mat, cam Camera, m filter.Motion,
 // the newer frame b over box and the compensated older frame c shifted by
 // it: how far the region's content moved between the two frames.
 func bestShift(c, b []byte, w, h int, box image.Rectangle, r int) float64 {
-	best, bestCost := 0.0, math.Inf(1)
-	for dy := -r; dy <= r; dy++ {
-		for dx := -r; dx <= r; dx++ {
-			sum, n := 0, 0
-			for y := box.Min.Y; y < box.Max.Y; y += 2 {
-				yy := y + dy
-				if yy < 0 || yy >= h {
-					continue
-				}
-				for x := box.Min.X; x < box.Max.X; x += 2 {
-					xx := x + dx
-					if xx < 0 || xx >= w {
-						continue
-					}
-					d := int(b[y*w+x]) - int(c[yy*w+xx])
-					if d < 0 {
-						d = -d
-					}
-					sum += d
-					n++
-				}
-			}
-			if n == 0 {
+	// At most about 256 samples of the box; shifts searched on a grid of
+	// 2 px, then refined by 1 px around the best.
+	step := max(1, int(math.Sqrt(float64(box.Dx()*box.Dy())/256)))
+	cost := func(dx, dy int) float64 {
+		sum, n := 0, 0
+		for y := box.Min.Y; y < box.Max.Y; y += step {
+			yy := y + dy
+			if yy < 0 || yy >= h {
 				continue
 			}
-			if cost := float64(sum) / float64(n); cost < bestCost-1e-9 {
-				best, bestCost = math.Hypot(float64(dx), float64(dy)), cost
+			for x := box.Min.X; x < box.Max.X; x += step {
+				xx := x + dx
+				if xx < 0 || xx >= w {
+					continue
+				}
+				d := int(b[y*w+x]) - int(c[yy*w+xx])
+				if d < 0 {
+					d = -d
+				}
+				sum += d
+				n++
+			}
+		}
+		if n == 0 {
+			return math.Inf(1)
+		}
+		return float64(sum) / float64(n)
+	}
+	bx, by, bc := 0, 0, cost(0, 0)
+	for dy := -r; dy <= r; dy += 2 {
+		for dx := -r; dx <= r; dx += 2 {
+			if c := cost(dx, dy); c < bc-1e-9 {
+				bx, by, bc = dx, dy, c
 			}
 		}
 	}
-	return best
+	cx, cy := bx, by
+	for dy := cy - 1; dy <= cy+1; dy++ {
+		for dx := cx - 1; dx <= cx+1; dx++ {
+			if c := cost(dx, dy); c < bc-1e-9 {
+				bx, by, bc = dx, dy, c
+			}
+		}
+	}
+	return math.Hypot(float64(bx), float64(by))
 }
