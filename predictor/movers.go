@@ -122,8 +122,12 @@ func (d *MoverDetector) Close() error {
 // Detect writes into model (reusing its storage) the movers of last
 // (captured at m.T1Us) against prev (at m.T0Us), m the vehicle motion
 // between them, farDepthM the far-scene depth and up the upright structure
-// of last (nil for none).
-func (d *MoverDetector) Detect(prev, last gocv.Mat, cam Camera, m filter.Motion, farDepthM float64, up *UprightModel, model *MoverModel) error {
+// of last (nil for none). residual, if not nil and of the detector's
+// downscaled size, is UprightEstimator.Residual: a changed region then
+// counts only if no static surface hypothesis explains a third of it either
+// (parallax of posts and other structure the model does not keep is not
+// motion).
+func (d *MoverDetector) Detect(prev, last gocv.Mat, cam Camera, m filter.Motion, farDepthM float64, up *UprightModel, residual *gocv.Mat, model *MoverModel) error {
 	model.Movers = model.Movers[:0]
 	if err := CheckMotion(m); err != nil {
 		return err
@@ -226,6 +230,12 @@ func (d *MoverDetector) Detect(prev, last gocv.Mat, cam Camera, m filter.Motion,
 		}
 	}
 	gocv.AbsDiff(d.comp, d.b, &d.diff)
+	var res []byte
+	if residual != nil && residual.Rows() == h && residual.Cols() == w && residual.Type() == gocv.MatTypeCV8U {
+		if res, err = residual.DataPtrUint8(); err != nil {
+			res = nil
+		}
+	}
 	thr := cmp0(o.Threshold, DefaultMoverThreshold)
 	gocv.Threshold(d.diff, &d.diff, float32(thr), 255, gocv.ThresholdBinary)
 	gocv.MorphologyEx(d.diff, &d.diff, gocv.MorphOpen, d.kern)
@@ -243,7 +253,11 @@ func (d *MoverDetector) Detect(prev, last gocv.Mat, cam Camera, m filter.Motion,
 		y := int(d.stats.GetIntAt(i, int(gocv.CC_STAT_TOP)))
 		bw := int(d.stats.GetIntAt(i, int(gocv.CC_STAT_WIDTH)))
 		bh := int(d.stats.GetIntAt(i, int(gocv.CC_STAT_HEIGHT)))
-		if float64(d.stats.GetIntAt(i, int(gocv.CC_STAT_AREA))) < minArea {
+		area := d.stats.GetIntAt(i, int(gocv.CC_STAT_AREA))
+		if float64(area) < minArea {
+			continue
+		}
+		if res != nil && !unexplained(d.labels, res, w, i, image.Rect(x, y, x+bw, y+bh), thr, area) {
 			continue
 		}
 		shift := bestShift(cp, bp, w, h, image.Rect(x, y, x+bw, y+bh), 8)
@@ -256,6 +270,22 @@ func (d *MoverDetector) Detect(prev, last gocv.Mat, cam Camera, m filter.Motion,
 		model.Movers = append(model.Movers, Mover{Box: box, SpeedPxPerS: speed})
 	}
 	return nil
+}
+
+// unexplained reports whether at least a third of region i's pixels (label
+// image labels, CV_32S) keep a residual above thr under every static
+// surface hypothesis (res, see UprightEstimator.Residual): a region that
+// some static surface explains is parallax, not motion.
+func unexplained(labels gocv.Mat, res []byte, w, i int, box image.Rectangle, thr int, area int32) bool {
+	n := 0
+	for y := box.Min.Y; y < box.Max.Y; y++ {
+		for x := box.Min.X; x < box.Max.X; x++ {
+			if int(labels.GetIntAt(y, x)) == i && int(res[y*w+x]) > thr {
+				n++
+			}
+		}
+	}
+	return 3*n >= int(area)
 }
 
 // bestShift returns the length, in low-resolution pixels, of the shift

@@ -71,7 +71,7 @@ func TestMoversOnVtest(t *testing.T) {
 	var model MoverModel
 	movers := 0
 	for i := 4; i+maxK < len(frames); i += 6 {
-		if err := det.Detect(frames[i-1], frames[i], cam, filter.Motion{T1Us: dtUs}, math.Inf(1), nil, &model); err != nil {
+		if err := det.Detect(frames[i-1], frames[i], cam, filter.Motion{T1Us: dtUs}, math.Inf(1), nil, nil, &model); err != nil {
 			t.Fatal(err)
 		}
 		movers += len(model.Movers)

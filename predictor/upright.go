@@ -192,6 +192,9 @@ type UprightEstimator struct {
 	warped    gocv.Mat
 	diff      gocv.Mat
 	hm        gocv.Mat
+	minRes    gocv.Mat // least local |difference| over all hypotheses, per low-resolution pixel
+	blur      gocv.Mat // scratch: one hypothesis's local |difference|
+	haveRes   bool
 	allocated bool
 	sums      [][]float64 // per hypothesis: band-major row sums of |diff|
 	pre       [][]float64 // per hypothesis: prefix sums down the current band
@@ -209,12 +212,21 @@ func NewUprightEstimator(opts UprightOptions) (*UprightEstimator, error) {
 // Close frees the scratch images. Safe to call more than once.
 func (e *UprightEstimator) Close() error {
 	if e.allocated {
-		for _, m := range []*gocv.Mat{&e.a, &e.b, &e.tmp, &e.warped, &e.diff, &e.hm} {
+		for _, m := range []*gocv.Mat{&e.a, &e.b, &e.tmp, &e.warped, &e.diff, &e.hm, &e.minRes, &e.blur} {
 			m.Close()
 		}
 		e.allocated = false
 	}
 	return nil
+}
+
+// Residual returns, after an Estimate that compared the frames (enough
+// baseline), the least 7x7 local mean of the absolute grey-level difference
+// per pixel of the downscaled newer frame over every hypothesis tried (road, far scene, each
+// vertical plane where it can stand): what no static surface explains. The
+// image is owned by the estimator and valid until its next Estimate.
+func (e *UprightEstimator) Residual() (gocv.Mat, bool) {
+	return e.minRes, e.allocated && e.haveRes
 }
 
 // invertPlanar returns the vehicle motion from T1 back to T0, in the T1
@@ -232,6 +244,7 @@ func invertPlanar(dx, dy, yaw float64) (float64, float64, float64) {
 // MinBaselineM the model is left empty (no error).
 func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Motion, farDepthM float64, model *UprightModel) error {
 	model.Segments = model.Segments[:0]
+	e.haveRes = false
 	if err := CheckMotion(m); err != nil {
 		return err
 	}
@@ -254,7 +267,7 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 	h := max(8, int(math.Round(float64(cam.Height)*s)))
 	sy := float64(h) / float64(cam.Height)
 	if !e.allocated {
-		for _, p := range []*gocv.Mat{&e.a, &e.b, &e.tmp, &e.warped, &e.diff} {
+		for _, p := range []*gocv.Mat{&e.a, &e.b, &e.tmp, &e.warped, &e.diff, &e.minRes, &e.blur} {
 			*p = gocv.NewMat()
 		}
 		e.hm = gocv.NewMatWithSize(3, 3, gocv.MatTypeCV64F)
@@ -265,7 +278,8 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 	gocv.CvtColor(e.tmp, &e.a, gocv.ColorBGRToGray)
 	gocv.Resize(last, &e.tmp, size, 0, 0, gocv.InterpolationArea)
 	gocv.CvtColor(e.tmp, &e.b, gocv.ColorBGRToGray)
-	for _, p := range []*gocv.Mat{&e.warped, &e.diff} { // full size: hypotheses write regions
+	e.haveRes = false
+	for _, p := range []*gocv.Mat{&e.warped, &e.diff, &e.minRes, &e.blur} { // full size: hypotheses write regions
 		if p.Rows() != h || p.Cols() != w || p.Type() != gocv.MatTypeCV8U {
 			p.Close()
 			*p = gocv.NewMatWithSize(h, w, gocv.MatTypeCV8U)
@@ -348,6 +362,19 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 		wr, br, dr := e.warped.Region(rect), e.b.Region(rect), e.diff.Region(rect)
 		gocv.WarpPerspectiveWithParams(e.a, &wr, e.hm, rect.Size(), gocv.InterpolationLinear|gocv.WarpInverseMap, gocv.BorderReplicate, neutralFill)
 		gocv.AbsDiff(wr, br, &dr)
+		// The least residual over every hypothesis so far, per pixel, of
+		// the residual's 7x7 local mean (a single pixel is too easily
+		// matched by some wrong hypothesis).
+		bl := e.blur.Region(rect)
+		gocv.Blur(dr, &bl, image.Pt(7, 7))
+		if k == 0 {
+			bl.CopyTo(&e.minRes)
+		} else {
+			mr := e.minRes.Region(rect)
+			gocv.Min(mr, bl, &mr)
+			mr.Close()
+		}
+		bl.Close()
 		wr.Close()
 		br.Close()
 		dr.Close()
@@ -365,6 +392,7 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 			}
 		}
 	}
+	e.haveRes = true
 	gain := o.MinGain
 	if gain == 0 {
 		gain = DefaultUprightMinGain
