@@ -86,9 +86,12 @@
 // shown at all. Objects above the road that the upright model does not
 // capture (anything but broad vertical surfaces: posts, people, vehicles)
 // are placed as if they were on the road (below the horizon) or far away
-// (above it), so near obstacles are misplaced. Predicted frames are an aid to keep the operator oriented
-// through short gaps, never a substitute for live video; the age cap and the
-// confidence cutoff bound how long they are shown.
+// (above it), so near obstacles are misplaced. Regions that moved between
+// the last two real frames are marked (MoverDetector, Labeler.DrawMovers),
+// not moved; a missing mark does not mean nothing moved, and marks do not
+// change the confidence. Predicted frames are an aid to keep the operator
+// oriented through short gaps, never a substitute for live video; the age
+// cap and the confidence cutoff bound how long they are shown.
 //
 // # Buffers and threads
 //
