@@ -201,7 +201,8 @@ func (s *Synthesizer) BandRows() (first, end int) { return s.rowA, s.rowB }
 //
 // src must be a CV_8UC3 image of the camera size. dst is owned by the caller;
 // it is (re)allocated only if its size or type differ, so pass the same dst
-// every time for an allocation-free path. dst must not share memory with src.
+// every time for an allocation-free path. dst must not share memory with src,
+// and both must be whole (continuous) Mats, not region views.
 func (s *Synthesizer) Warp(src gocv.Mat, ground, far Homography, dst *gocv.Mat) (Synthesis, error) {
 	out := Synthesis{Ground: ground, Far: far}
 	if s.closed {
