@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"image"
 	"math"
+	"unsafe"
 
 	"gocv.io/x/gocv"
 
@@ -22,7 +23,8 @@ const (
 	// texture misfit. Threshold and area were chosen on vtest.avi (see
 	// TestMoversOnVtest).
 	DefaultMoverMinAreaPx = 600
-	// DefaultMoverMinSpeedPxPerS is the least growth rate of a mark's zone,
+	// DefaultMoverMinSpeedPxPerS sets the least growth of a mark's zone
+	// (a quarter of it per second on every side, see Mover.Zone),
 	// full-resolution pixels per second, also when no displacement was
 	// measured.
 	DefaultMoverMinSpeedPxPerS = 100.0
@@ -63,16 +65,21 @@ type Mover struct {
 	// pixels: the changed region (it covers where the thing was in both
 	// frames).
 	Box image.Rectangle
-	// SpeedPxPerS is its apparent speed in the image, full-resolution
-	// pixels per second (at least DefaultMoverMinSpeedPxPerS).
-	SpeedPxPerS float64
+	// VxPxPerS, VyPxPerS is its apparent velocity in the image,
+	// full-resolution pixels per second, from the two frames.
+	VxPxPerS, VyPxPerS float64
 }
 
-// Zone returns where the mover could be ageMs after the held frame: Box
-// grown on every side by SpeedPxPerS · age.
+// Zone returns where the mover could be ageMs after the held frame: the
+// bounding box of Box and Box moved by velocity · age, grown on every side
+// by a quarter of that displacement plus DefaultMoverMinSpeedPxPerS · age /
+// 4 (the uncertainty of the speed and of its direction; design choices).
 func (m Mover) Zone(ageMs float64) image.Rectangle {
-	g := int(math.Ceil(m.SpeedPxPerS * ageMs / 1000))
-	return m.Box.Inset(-g)
+	a := ageMs / 1000
+	dx, dy := m.VxPxPerS*a, m.VyPxPerS*a
+	moved := m.Box.Add(image.Pt(int(math.Round(dx)), int(math.Round(dy))))
+	g := int(math.Ceil(0.25*math.Hypot(dx, dy) + 0.25*DefaultMoverMinSpeedPxPerS*a))
+	return m.Box.Union(moved).Inset(-g)
 }
 
 // MoverModel holds the movers of the held frame. The zero value is empty.
@@ -87,7 +94,8 @@ type MoverModel struct {
 // are compared in grey at reduced resolution, differences above Threshold
 // are cleaned (opening, closing) and grouped into connected regions. Each
 // region's apparent displacement is the shift (within ±8 low-resolution
-// pixels) that best matches its pixels between the two compensated frames.
+// pixels) that best matches its pixels between the two compensated frames;
+// its last known place is the region without the part it left.
 // It owns scratch images (Close frees them); not safe for concurrent use.
 type MoverDetector struct {
 	opts                         MoverOptions
@@ -248,6 +256,11 @@ func (d *MoverDetector) Detect(prev, last gocv.Mat, cam Camera, m filter.Motion,
 		return fmt.Errorf("mover scratch: %w", err)
 	}
 	dt := float64(m.T1Us-m.T0Us) / 1e6
+	lb, err := d.labels.DataPtrUint8()
+	if err != nil || d.labels.Type() != gocv.MatTypeCV32S || len(lb) < 4*w*h {
+		return fmt.Errorf("mover labels are not a %dx%d CV_32S image (%v): %w", w, h, err, ErrFrameFormat)
+	}
+	lab := unsafe.Slice((*int32)(unsafe.Pointer(&lb[0])), w*h) // CV_32S, native byte order
 	for i := 1; i < n; i++ {
 		x := int(d.stats.GetIntAt(i, int(gocv.CC_STAT_LEFT)))
 		y := int(d.stats.GetIntAt(i, int(gocv.CC_STAT_TOP)))
@@ -260,14 +273,29 @@ func (d *MoverDetector) Detect(prev, last gocv.Mat, cam Camera, m filter.Motion,
 		if res != nil && !unexplained(d.labels, res, w, i, image.Rect(x, y, x+bw, y+bh), thr, area) {
 			continue
 		}
-		shift := bestShift(cp, bp, w, h, image.Rect(x, y, x+bw, y+bh), 8)
-		speed := DefaultMoverMinSpeedPxPerS
-		if dt > 0 {
-			speed = math.Max(speed, shift/s/dt)
+		// The region holds the thing at both places; its content in the
+		// newer frame matched the older one shifted by (sx, sy), so it
+		// moved by -(sx, sy) and its last place is the region without the
+		// trailing part.
+		sx, sy0 := bestShift(cp, bp, lab, int32(i), w, h, image.Rect(x, y, x+bw, y+bh), 8)
+		lx0, lx1, ly0, ly1 := x, x+bw, y, y+bh
+		if sx > 0 && sx < bw/2 { // moved left: drop the right end
+			lx1 -= sx
+		} else if sx < 0 && -sx < bw/2 {
+			lx0 -= sx
 		}
-		box := image.Rect(int(math.Floor(float64(x)/s)), int(math.Floor(float64(y)/sy)),
-			int(math.Ceil(float64(x+bw)/s)), int(math.Ceil(float64(y+bh)/sy))).Intersect(image.Rect(0, 0, cam.Width, cam.Height))
-		model.Movers = append(model.Movers, Mover{Box: box, SpeedPxPerS: speed})
+		if sy0 > 0 && sy0 < bh/2 {
+			ly1 -= sy0
+		} else if sy0 < 0 && -sy0 < bh/2 {
+			ly0 -= sy0
+		}
+		var vx, vy float64
+		if dt > 0 {
+			vx, vy = -float64(sx)/s/dt, -float64(sy0)/sy/dt
+		}
+		box := image.Rect(int(math.Floor(float64(lx0)/s)), int(math.Floor(float64(ly0)/sy)),
+			int(math.Ceil(float64(lx1)/s)), int(math.Ceil(float64(ly1)/sy))).Intersect(image.Rect(0, 0, cam.Width, cam.Height))
+		model.Movers = append(model.Movers, Mover{Box: box, VxPxPerS: vx, VyPxPerS: vy})
 	}
 	return nil
 }
@@ -288,11 +316,11 @@ func unexplained(labels gocv.Mat, res []byte, w, i int, box image.Rectangle, thr
 	return 3*n >= int(area)
 }
 
-// bestShift returns the length, in low-resolution pixels, of the shift
-// (dx, dy) within ±r that minimises the mean absolute difference between
-// the newer frame b over box and the compensated older frame c shifted by
-// it: how far the region's content moved between the two frames.
-func bestShift(c, b []byte, w, h int, box image.Rectangle, r int) float64 {
+// bestShift returns the shift (dx, dy), in low-resolution pixels, within
+// ±r that minimises the mean absolute difference between
+// the newer frame b over the pixels of region id (label image lab) in box
+// and the compensated older frame c shifted by it: how far the region's content moved between the two frames.
+func bestShift(c, b []byte, lab []int32, id int32, w, h int, box image.Rectangle, r int) (dx, dy int) {
 	// At most about 256 samples of the box; shifts searched on a grid of
 	// 2 px, then refined by 1 px around the best.
 	step := max(1, int(math.Sqrt(float64(box.Dx()*box.Dy())/256)))
@@ -304,6 +332,9 @@ func bestShift(c, b []byte, w, h int, box image.Rectangle, r int) float64 {
 				continue
 			}
 			for x := box.Min.X; x < box.Max.X; x += step {
+				if lab[y*w+x] != id {
+					continue
+				}
 				xx := x + dx
 				if xx < 0 || xx >= w {
 					continue
@@ -337,5 +368,5 @@ func bestShift(c, b []byte, w, h int, box image.Rectangle, r int) float64 {
 			}
 		}
 	}
-	return math.Hypot(float64(bx), float64(by))
+	return bx, by
 }

@@ -182,3 +182,110 @@ func TestFillerMarksMover(t *testing.T) {
 		t.Error("labelled and unlabelled frames are equal")
 	}
 }
+
+// TestMarksOnMovingCamera: a vehicle drives at 10 m/s through a static
+// scene that follows the road and far maps exactly (frames sampled from a
+// larger texture), while a textured block crosses the picture at 150 px/s.
+// From the PREDICTED frames of a gap (ages 33 to 300 ms) the marks are
+// scored against the exact masks: recall is the share of truly changed
+// pixels (the block's place at the target time and its place in the held
+// frame, outside the label) inside a mark's zone, precision the share of
+// zone pixels that truly changed. Recall must reach 0.8; precision is
+// reported, not asserted: it falls short of 0.5 (about 0.24 here: the
+// apparent velocity is overestimated and the zone grows to cover that).
+func TestMarksOnMovingCamera(t *testing.T) {
+	c := uprightCam()
+	const dtUs = 33_333
+	const speedMps, blockPxPerS = 10.0, 150.0
+	big := texturedFrame(t, 2*c.Width, 2*c.Height, 11)
+	defer big.Close()
+	bigV, err := matView(&big)
+	if err != nil {
+		t.Fatal(err)
+	}
+	blockTex := texturedFrame(t, 36, 44, 12)
+	defer blockTex.Close()
+	block := func(tUs int64) image.Rectangle {
+		x := 60 + int(math.Round(blockPxPerS*float64(tUs)/1e6))
+		return image.Rect(x, 95, x+36, 95+44)
+	}
+	// frame renders the picture at time tUs: the static scene seen after
+	// the vehicle moved speed·t, and the block.
+	frame := func(tUs int64) gocv.Mat {
+		m := filter.Motion{T1Us: tUs, DxM: speedMps * float64(tUs) / 1e6}
+		g, _ := GroundHomography(c, m)
+		f := c.FarHomographyPlanar(m.DxM, 0, 0, math.Inf(1))
+		gi, fi := mustInverse(t, g), mustInverse(t, f)
+		out := gocv.NewMatWithSize(c.Height, c.Width, gocv.MatTypeCV8UC3)
+		ov, err := matView(&out)
+		if err != nil {
+			t.Fatal(err)
+		}
+		off := Homography{{1, 0, float64(c.Width) / 2}, {0, 1, float64(c.Height) / 2}, {0, 0, 1}}
+		hz, _ := c.Horizon().RowAt(0)
+		split := int(math.Ceil(hz))
+		if _, err := warpBGR(ov.rows(0, split), bigV, off.Mul(fi), 0, 0, NeutralGrey, warpPathBest); err != nil {
+			t.Fatal(err)
+		}
+		if _, err := warpBGR(ov.rows(split, c.Height), bigV, off.Mul(gi), 0, split, NeutralGrey, warpPathBest); err != nil {
+			t.Fatal(err)
+		}
+		roi := out.Region(block(tUs))
+		blockTex.CopyTo(&roi)
+		roi.Close()
+		return out
+	}
+	f, err := NewFiller(FillerConfig{Camera: c, Policy: DefaultPolicy(), Motion: &fakeMotion{SpeedMps: speedMps, SigmaPerS: 0.01}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	dst := gocv.NewMat()
+	defer dst.Close()
+	for _, tUs := range []int64{0, dtUs} {
+		fr := frame(tUs)
+		if _, err := f.Live(fr, tUs, &dst); err != nil {
+			t.Fatal(err)
+		}
+		fr.Close()
+	}
+	in := image.Rect(0, 0, c.Width, c.Height).Inset(BorderPx(c.Height))
+	in.Min.Y += 30 // below the PREDICTED text box
+	held := block(dtUs)
+	var changed, hit, marked, markedChanged float64
+	for k := int64(1); k <= 9; k++ {
+		target := dtUs + k*dtUs
+		tk, err := f.Missing(target, &dst)
+		if err != nil || tk.State != StatePredicted {
+			t.Fatalf("tick at %d us: %+v %v", target, tk, err)
+		}
+		now := block(target)
+		for y := in.Min.Y; y < in.Max.Y; y++ {
+			for x := in.Min.X; x < in.Max.X; x++ {
+				p := image.Pt(x, y)
+				ch := p.In(now) || p.In(held)
+				mk := false
+				for _, mv := range f.movers.Movers {
+					mk = mk || p.In(mv.Zone(tk.AgeMs))
+				}
+				if ch {
+					changed++
+					if mk {
+						hit++
+					}
+				}
+				if mk {
+					marked++
+					if ch {
+						markedChanged++
+					}
+				}
+			}
+		}
+	}
+	recall, precision := hit/changed, markedChanged/math.Max(1, marked)
+	t.Logf("%d movers %v; recall %.3f, precision %.3f over ages 33..300 ms", len(f.movers.Movers), f.movers.Movers, recall, precision)
+	if len(f.movers.Movers) == 0 || recall < 0.8 {
+		t.Errorf("recall %.3f with %d movers, want >= 0.8", recall, len(f.movers.Movers))
+	}
+}
