@@ -46,7 +46,15 @@
 // default 24, centred on the horizon) with both, blended linearly. Pixels
 // without a source are NeutralGrey and counted exactly. With lens distortion
 // the source is undistorted first and predicted frames are in pinhole
-// geometry.
+// geometry. Every warp goes through the package's own bilinear fixed-point
+// kernel (warpkernel.c: AVX2 or portable C, the arithmetic of
+// cv::warpPerspective).
+//
+// SynthesizeScene adds the held frame's upright structure (UprightModel,
+// estimated per held frame by UprightEstimator): vertical planes standing on
+// the road, one per column band, each warped with its own plane-induced
+// homography K (R + t nᵀ/d) K⁻¹, nearer ones in front; pixels uncovered
+// behind them are NeutralGrey, not invented.
 //
 // # Confidence and policy
 //
@@ -75,11 +83,15 @@
 // picture and the vehicle's own motion: anything that moved during the gap
 // (vehicles, cyclists, pedestrians, a barrier) is shown where it was when the
 // real frame was taken, and anything that appeared during the gap is not
-// shown at all. Objects above the road are placed as if they were on the
-// road (below the horizon) or infinitely far (above it), so near obstacles
-// are misplaced. Predicted frames are an aid to keep the operator oriented
-// through short gaps, never a substitute for live video; the age cap and the
-// confidence cutoff bound how long they are shown.
+// shown at all. Objects above the road that the upright model does not
+// capture (anything but broad vertical surfaces: posts, people, vehicles)
+// are placed as if they were on the road (below the horizon) or far away
+// (above it), so near obstacles are misplaced. Regions that moved between
+// the last two real frames are marked (MoverDetector, Labeler.DrawMovers),
+// not moved; a missing mark does not mean nothing moved, and marks do not
+// change the confidence. Predicted frames are an aid to keep the operator
+// oriented through short gaps, never a substitute for live video; the age
+// cap and the confidence cutoff bound how long they are shown.
 //
 // # Buffers and threads
 //

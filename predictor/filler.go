@@ -29,6 +29,15 @@ type FillerConfig struct {
 	// real frames (see FarDepthEstimator); zero = defaults, Off = the far
 	// scene is always at infinity (rotation only).
 	FarDepth FarDepthOptions
+	// Upright configures the upright-structure estimate from the two newest
+	// real frames (see UprightEstimator); zero = defaults, Off = road and
+	// far planes only.
+	Upright UprightOptions
+	// Movers configures the marks where things moved on their own between
+	// the two newest real frames (see MoverDetector); zero = defaults, Off =
+	// no marks. Marks are drawn on PREDICTED ground-method frames only, after
+	// the label; they do not change the confidence.
+	Movers MoverOptions
 }
 
 // Tick reports what the Filler put on screen for one display tick.
@@ -60,6 +69,11 @@ type Tick struct {
 	// made with, metres; +Inf for rotation only (also when no estimate
 	// could be made), 0 when not applicable.
 	FarDepthM float64
+	// UprightSegments is the number of upright segments a PREDICTED
+	// ground-method frame was composited with (see UprightModel).
+	UprightSegments int
+	// Movers is the number of mover marks drawn on a PREDICTED frame.
+	Movers int
 }
 
 // Filler is the per-tick gap filler shared by the offline replay and the
@@ -99,6 +113,19 @@ type Filler struct {
 	farDepth float64
 	farFor   int64
 	farKnown bool
+
+	// The upright structure of the held frame (valid while uprightFor ==
+	// lastUs).
+	uprightEst   *UprightEstimator
+	upright      UprightModel
+	uprightFor   int64
+	uprightKnown bool
+
+	// The movers of the held frame (valid while moversFor == lastUs).
+	moverDet    *MoverDetector
+	movers      MoverModel
+	moversFor   int64
+	moversKnown bool
 }
 
 // NewFiller validates cfg and allocates the buffers.
@@ -127,14 +154,31 @@ func NewFiller(cfg FillerConfig) (*Filler, error) {
 		l.Close()
 		return nil, err
 	}
+	ue, err := NewUprightEstimator(cfg.Upright)
+	if err != nil {
+		s.Close()
+		l.Close()
+		d.Close()
+		return nil, err
+	}
+	md, err := NewMoverDetector(cfg.Movers)
+	if err != nil {
+		s.Close()
+		l.Close()
+		d.Close()
+		ue.Close()
+		return nil, err
+	}
 	return &Filler{
-		cfg:   cfg,
-		synth: s,
-		label: l,
-		depth: d,
-		last:  gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8UC3),
-		prev:  gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8UC3),
-		gray:  gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8U),
+		cfg:        cfg,
+		synth:      s,
+		label:      l,
+		depth:      d,
+		uprightEst: ue,
+		moverDet:   md,
+		last:       gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8UC3),
+		prev:       gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8UC3),
+		gray:       gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8U),
 	}, nil
 }
 
@@ -147,6 +191,8 @@ func (f *Filler) Close() error {
 	f.synth.Close()
 	f.label.Close()
 	f.depth.Close()
+	f.uprightEst.Close()
+	f.moverDet.Close()
 	f.last.Close()
 	f.prev.Close()
 	f.gray.Close()
@@ -275,13 +321,17 @@ func (f *Filler) MissingWith(method Method, targetUs int64, dst *gocv.Mat) (Tick
 	}
 
 	start := f.now()
+	var movers *MoverModel
 	if tick.State == StatePredicted {
 		var syn Synthesis
 		if method == MethodRotation {
 			syn, err = f.synth.SynthesizeRotation(f.last, tick.Motion, dst)
 		} else {
 			tick.FarDepthM = f.farDepthFor()
-			syn, err = f.synth.SynthesizeFar(f.last, tick.Motion, tick.FarDepthM, dst)
+			up := f.uprightModel(tick.FarDepthM)
+			syn, err = f.synth.SynthesizeScene(f.last, tick.Motion, tick.FarDepthM, up, dst)
+			tick.UprightSegments = syn.UprightSegments
+			movers = f.moverModel(tick.FarDepthM, up)
 		}
 		if err != nil {
 			return tick, err
@@ -297,6 +347,9 @@ func (f *Filler) MissingWith(method Method, targetUs int64, dst *gocv.Mat) (Tick
 		f.desaturate(dst)
 	}
 	tick.LabelFraction, err = f.label.Draw(dst, tick.State, tick.AgeMs, tick.Confidence)
+	if err == nil && movers != nil && len(movers.Movers) > 0 {
+		tick.Movers, err = f.label.DrawMovers(dst, movers.Movers, tick.AgeMs)
+	}
 	tick.SynthDuration = f.now().Sub(start)
 	return tick, err
 }
@@ -319,6 +372,48 @@ func (f *Filler) farDepthFor() float64 {
 	}
 	f.farDepth, f.farFor, f.farKnown = d, f.lastUs, true
 	return d
+}
+
+// uprightModel returns the upright structure of the held frame, estimated
+// once per held frame from the frame before it (see UprightEstimator); nil
+// when switched off or not estimable.
+func (f *Filler) uprightModel(farDepthM float64) *UprightModel {
+	if f.cfg.Upright.Off || !f.havePrev {
+		return nil
+	}
+	if !f.uprightKnown || f.uprightFor != f.lastUs {
+		f.upright.Segments = f.upright.Segments[:0]
+		if m, err := f.cfg.Motion.Relative(f.prevUs, f.lastUs); err == nil {
+			if err := f.uprightEst.Estimate(f.prev, f.last, f.cfg.Camera, m, farDepthM, &f.upright); err != nil {
+				f.upright.Segments = f.upright.Segments[:0]
+			}
+		}
+		f.uprightFor, f.uprightKnown = f.lastUs, true
+	}
+	return &f.upright
+}
+
+// moverModel returns the movers of the held frame, detected once per held
+// frame against the frame before it (see MoverDetector); nil when switched
+// off or not detectable.
+func (f *Filler) moverModel(farDepthM float64, up *UprightModel) *MoverModel {
+	if f.cfg.Movers.Off || !f.havePrev {
+		return nil
+	}
+	if !f.moversKnown || f.moversFor != f.lastUs {
+		f.movers.Movers = f.movers.Movers[:0]
+		if m, err := f.cfg.Motion.Relative(f.prevUs, f.lastUs); err == nil {
+			var res *gocv.Mat
+			if r, ok := f.uprightEst.Residual(); ok && up != nil {
+				res = &r
+			}
+			if err := f.moverDet.Detect(f.prev, f.last, f.cfg.Camera, m, farDepthM, up, res, &f.movers); err != nil {
+				f.movers.Movers = f.movers.Movers[:0]
+			}
+		}
+		f.moversFor, f.moversKnown = f.lastUs, true
+	}
+	return &f.movers
 }
 
 // desaturate writes the held frame to dst in grey at half brightness.

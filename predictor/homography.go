@@ -144,3 +144,13 @@ func (h Homography) shiftRows(row0 int) Homography {
 	}
 	return h
 }
+
+// shiftCols is shiftRows for columns: the map takes ROI coordinates
+// (u - col0, v) to the same source point as H does for (u, v).
+func (h Homography) shiftCols(col0 int) Homography {
+	c := float64(col0)
+	for i := 0; i < 3; i++ {
+		h[i][2] += c * h[i][0]
+	}
+	return h
+}

@@ -49,6 +49,9 @@ type Synthesis struct {
 	UnfilledPixels int
 	// UnfilledFraction is UnfilledPixels / (Width·Height).
 	UnfilledFraction float64
+	// UprightSegments is the number of upright segments composited
+	// (SynthesizeScene; 0 otherwise).
+	UprightSegments int
 }
 
 // Synthesizer warps a frame from one camera pose to another: the road
@@ -56,11 +59,12 @@ type Synthesis struct {
 // (above it) with a rotation homography, blended linearly across a band of
 // BandPx centred on the horizon of the destination image.
 //
-// Each output row is warped once, straight into the caller's destination
-// through a row-range view and the homography composed with that row offset;
-// only the band rows are warped twice (into owned buffers) and blended. With
-// bilinear interpolation and no distortion the cost is about (H + band rows)
-// / H of one full warp.
+// Each output row is warped once, straight into the caller's destination,
+// by the package's own bilinear fixed-point kernel (warpBGR: same arithmetic
+// as cv::warpPerspective with INTER_LINEAR and BORDER_CONSTANT); only the band
+// rows are warped twice (into owned buffers) and blended into the
+// destination. Without distortion the cost is about (H + band rows) / H of
+// one full warp by that kernel.
 //
 // If the camera has distortion, each source frame is first undistorted with
 // precomputed maps (cv::remap, bilinear), and the output is in undistorted
@@ -79,7 +83,8 @@ type Synthesizer struct {
 	weights []uint16 // ground weight 0..256 per band pixel, row-major, (rowB-rowA)*W
 	bandG   gocv.Mat // ground warp of the band rows
 	bandF   gocv.Mat // far warp of the band rows
-	mat     gocv.Mat // 3x3 CV_64F inverse map handed to OpenCV
+
+	up uprightScratch // SynthesizeScene's buffers
 
 	undistort  bool
 	map1, map2 gocv.Mat // undistortion maps (CV_16SC2 + CV_16UC1)
@@ -108,7 +113,6 @@ func NewSynthesizer(cam Camera, opts SynthOptions) (*Synthesizer, error) {
 	} else {
 		s.bandG, s.bandF = gocv.NewMat(), gocv.NewMat()
 	}
-	s.mat = gocv.NewMatWithSize(3, 3, gocv.MatTypeCV64F)
 	s.map1, s.map2, s.undist = gocv.NewMat(), gocv.NewMat(), gocv.NewMat()
 	if cam.HasDistortion() {
 		s.undistort = true
@@ -174,7 +178,7 @@ func (s *Synthesizer) Close() error {
 		return nil
 	}
 	s.closed = true
-	for _, m := range []*gocv.Mat{&s.bandG, &s.bandF, &s.mat, &s.map1, &s.map2, &s.undist} {
+	for _, m := range []*gocv.Mat{&s.bandG, &s.bandF, &s.map1, &s.map2, &s.undist} {
 		if matUsable(m) {
 			m.Close()
 		}
@@ -197,7 +201,8 @@ func (s *Synthesizer) BandRows() (first, end int) { return s.rowA, s.rowB }
 //
 // src must be a CV_8UC3 image of the camera size. dst is owned by the caller;
 // it is (re)allocated only if its size or type differ, so pass the same dst
-// every time for an allocation-free path. dst must not share memory with src.
+// every time for an allocation-free path. dst must not share memory with src,
+// and both must be whole (continuous) Mats, not region views.
 func (s *Synthesizer) Warp(src gocv.Mat, ground, far Homography, dst *gocv.Mat) (Synthesis, error) {
 	out := Synthesis{Ground: ground, Far: far}
 	if s.closed {
@@ -222,8 +227,16 @@ func (s *Synthesizer) Warp(src gocv.Mat, ground, far Homography, dst *gocv.Mat) 
 		src = s.undist
 	}
 	w, h := s.cam.Width, s.cam.Height
+	sv, err := matView(&src)
+	if err != nil {
+		return out, fmt.Errorf("source frame: %w", err)
+	}
+	dv, err := matView(dst)
+	if err != nil {
+		return out, fmt.Errorf("destination: %w", err)
+	}
 	if ground == far {
-		if err := s.warpRows(src, dst, fi, 0, h); err != nil {
+		if err := warpRows(dv, sv, fi, 0); err != nil {
 			return out, err
 		}
 		for v := 0; v < h; v++ {
@@ -231,32 +244,17 @@ func (s *Synthesizer) Warp(src gocv.Mat, ground, far Homography, dst *gocv.Mat) 
 		}
 	} else {
 		if s.rowA > 0 {
-			roi := dst.Region(rowRect(w, 0, s.rowA))
-			err := s.warpRows(src, &roi, fi, 0, s.rowA)
-			roi.Close()
-			if err != nil {
+			if err := warpRows(dv.rows(0, s.rowA), sv, fi, 0); err != nil {
 				return out, err
 			}
 		}
 		if s.rowB > s.rowA {
-			if err := s.warpRows(src, &s.bandG, gi, s.rowA, s.rowB); err != nil {
+			if err := s.warpBand(dv.rows(s.rowA, s.rowB), sv, gi, fi); err != nil {
 				return out, err
 			}
-			if err := s.warpRows(src, &s.bandF, fi, s.rowA, s.rowB); err != nil {
-				return out, err
-			}
-			if err := s.blendBand(); err != nil {
-				return out, err
-			}
-			roi := dst.Region(rowRect(w, s.rowA, s.rowB))
-			s.bandG.CopyTo(&roi)
-			roi.Close()
 		}
 		if s.rowB < h {
-			roi := dst.Region(rowRect(w, s.rowB, h))
-			err := s.warpRows(src, &roi, gi, s.rowB, h)
-			roi.Close()
-			if err != nil {
+			if err := warpRows(dv.rows(s.rowB, h), sv, gi, s.rowB); err != nil {
 				return out, err
 			}
 		}
@@ -266,49 +264,14 @@ func (s *Synthesizer) Warp(src gocv.Mat, ground, far Homography, dst *gocv.Mat) 
 	return out, nil
 }
 
-// warpRows warps rows [r0, r1) of the destination image into target, a
-// view or buffer of exactly those rows. inv maps full-image destination
-// pixels to source pixels. Pixels whose ray points behind the source camera
-// (w <= 0, which OpenCV would fill from a mirrored position) are then painted
+// warpRows warps the destination image rows [row0, row0+target.H) into
+// target, a view of exactly those rows, with the package's kernel (warpBGR):
+// inv maps full-image destination pixels to source pixels; pixels with no
+// source, including those whose ray points behind the source camera, are
 // NeutralGrey.
-func (s *Synthesizer) warpRows(src gocv.Mat, target *gocv.Mat, inv Homography, r0, r1 int) error {
-	if err := setMat3(&s.mat, inv.shiftRows(r0)); err != nil {
-		return err
-	}
-	gocv.WarpPerspectiveWithParams(src, target, s.mat, image.Pt(s.cam.Width, r1-r0),
-		gocv.InterpolationLinear|gocv.WarpInverseMap, gocv.BorderConstant, neutralFill)
-	s.paintBehind(target, inv, r0, r1)
-	return nil
-}
-
-// paintBehind paints NeutralGrey where inv has w <= 0 in rows [r0, r1);
-// target holds exactly those rows. w is affine in (u, v), so when it is
-// positive at the four corners nothing needs painting.
-func (s *Synthesizer) paintBehind(target *gocv.Mat, inv Homography, r0, r1 int) {
-	wd := s.cam.Width
-	wAt := func(u, v float64) float64 { return inv[2][0]*u + inv[2][1]*v + inv[2][2] }
-	x1, y0, y1 := float64(wd-1), float64(r0), float64(r1-1)
-	if wAt(0, y0) > 0 && wAt(x1, y0) > 0 && wAt(0, y1) > 0 && wAt(x1, y1) > 0 {
-		return
-	}
-	for v := r0; v < r1; v++ {
-		lo, hi := behindInterval(inv, v, wd)
-		if lo > hi {
-			continue
-		}
-		seg := target.Region(image.Rect(lo, v-r0, hi+1, v-r0+1))
-		seg.SetTo(gocv.NewScalar(NeutralGrey, NeutralGrey, NeutralGrey, 0))
-		seg.Close()
-	}
-}
-
-// behindInterval returns the integer columns [lo, hi] of row v where
-// inv's w <= 0 (lo > hi if none).
-func behindInterval(inv Homography, v, width int) (lo, hi int) {
-	a := inv[2][0]
-	c := inv[2][1]*float64(v) + inv[2][2]
-	// want a*u + c <= 0  <=>  -a*u - c >= 0
-	return halfLine(-a, -c, 0, width-1)
+func warpRows(target, src bgrView, inv Homography, row0 int) error {
+	_, err := warpBGR(target, src, inv, 0, row0, NeutralGrey, warpPathBest)
+	return err
 }
 
 // halfLine returns the integers u in [lo, hi] with a*u + c >= 0, which form
@@ -423,35 +386,48 @@ func (s *Synthesizer) countSplit(gi, fi Homography) int {
 	return unfilled
 }
 
-// blendBand blends bandF into bandG in place with the precomputed weights:
-// out = (g·w + f·(256-w) + 128) >> 8.
-func (s *Synthesizer) blendBand() error {
-	g, err := s.bandG.DataPtrUint8()
+// warpBand warps the band rows with both maps into the owned buffers and
+// blends them into target (the band rows of the destination) with the
+// precomputed weights: out = (g·w + f·(256-w) + 128) >> 8.
+func (s *Synthesizer) warpBand(target, src bgrView, gi, fi Homography) error {
+	g, err := matView(&s.bandG)
 	if err != nil {
 		return fmt.Errorf("band buffer: %w", err)
 	}
-	f, err := s.bandF.DataPtrUint8()
+	f, err := matView(&s.bandF)
 	if err != nil {
 		return fmt.Errorf("band buffer: %w", err)
+	}
+	if err := warpRows(g, src, gi, s.rowA); err != nil {
+		return err
+	}
+	if err := warpRows(f, src, fi, s.rowA); err != nil {
+		return err
 	}
 	wts := s.weights
-	if len(g) < 3*len(wts) || len(f) < 3*len(wts) {
-		return fmt.Errorf("band buffers are %d/%d bytes, want %d: %w", len(g), len(f), 3*len(wts), ErrFrameFormat)
-	}
-	for i, wt := range wts {
-		switch wt {
-		case 256:
-			continue
-		case 0:
-			j := 3 * i
-			g[j], g[j+1], g[j+2] = f[j], f[j+1], f[j+2]
-		default:
-			j := 3 * i
-			a, b := uint32(wt), uint32(256-wt)
-			g[j] = byte((uint32(g[j])*a + uint32(f[j])*b + 128) >> 8)
-			g[j+1] = byte((uint32(g[j+1])*a + uint32(f[j+1])*b + 128) >> 8)
-			g[j+2] = byte((uint32(g[j+2])*a + uint32(f[j+2])*b + 128) >> 8)
+	w := s.cam.Width
+	for r := 0; r < target.H; r++ {
+		gr, fr := g.Pix[r*g.Stride:r*g.Stride+3*w], f.Pix[r*f.Stride:r*f.Stride+3*w]
+		out := target.Pix[r*target.Stride : r*target.Stride+3*w]
+		for u, wt := range wts[r*w : (r+1)*w] {
+			blendPixel(out, gr, fr, 3*u, wt)
 		}
 	}
 	return nil
+}
+
+// blendPixel writes at byte j of out the ground pixel g blended with the
+// far pixel f with weight wt/256: (g·wt + f·(256-wt) + 128) >> 8.
+func blendPixel(out, g, f []byte, j int, wt uint16) {
+	switch wt {
+	case 256:
+		out[j], out[j+1], out[j+2] = g[j], g[j+1], g[j+2]
+	case 0:
+		out[j], out[j+1], out[j+2] = f[j], f[j+1], f[j+2]
+	default:
+		a, b := uint32(wt), uint32(256-wt)
+		out[j] = byte((uint32(g[j])*a + uint32(f[j])*b + 128) >> 8)
+		out[j+1] = byte((uint32(g[j+1])*a + uint32(f[j+1])*b + 128) >> 8)
+		out[j+2] = byte((uint32(g[j+2])*a + uint32(f[j+2])*b + 128) >> 8)
+	}
 }

@@ -1,0 +1,372 @@
+package predictor
+
+import (
+	"fmt"
+	"image"
+	"math"
+	"unsafe"
+
+	"gocv.io/x/gocv"
+
+	"stopgap/filter"
+)
+
+// Defaults of MoverOptions. They are design choices of this project.
+const (
+	// DefaultMoverWidthPx is the width of the downscaled frames compared.
+	DefaultMoverWidthPx = 320
+	// DefaultMoverThreshold is the grey-level difference, after the
+	// vehicle's own motion is compensated, above which a pixel changed.
+	DefaultMoverThreshold = 20
+	// DefaultMoverMinAreaPx is the least area of a changed region at full
+	// resolution, pixels (about 25x25 px): smaller ones are noise or
+	// texture misfit. Threshold and area were chosen on vtest.avi (see
+	// TestMoversOnVtest).
+	DefaultMoverMinAreaPx = 600
+	// DefaultMoverMinSpeedPxPerS sets the least growth of a mark's zone
+	// (a quarter of it per second on every side, see Mover.Zone),
+	// full-resolution pixels per second, also when no displacement was
+	// measured.
+	DefaultMoverMinSpeedPxPerS = 100.0
+)
+
+// MoverOptions configures the detection of regions that moved on their own.
+// The zero value uses the defaults.
+type MoverOptions struct {
+	// Off disables the detection and the marks.
+	Off bool
+	// WidthPx of the downscaled comparison; 0 means DefaultMoverWidthPx,
+	// otherwise >= 64.
+	WidthPx int
+	// Threshold in grey levels; 0 means DefaultMoverThreshold.
+	Threshold int
+	// MinAreaPx at full resolution; 0 means DefaultMoverMinAreaPx.
+	MinAreaPx int
+}
+
+// Validate reports options out of range, wrapping ErrInvalidConfig.
+func (o MoverOptions) Validate() error {
+	if o.WidthPx != 0 && o.WidthPx < 64 {
+		return fmt.Errorf("mover WidthPx = %d, want 0 (default %d) or >= 64: %w", o.WidthPx, DefaultMoverWidthPx, ErrInvalidConfig)
+	}
+	if o.Threshold < 0 || o.Threshold > 254 {
+		return fmt.Errorf("mover Threshold = %d, want 0 (default %d) or 1..254: %w", o.Threshold, DefaultMoverThreshold, ErrInvalidConfig)
+	}
+	if o.MinAreaPx < 0 {
+		return fmt.Errorf("mover MinAreaPx = %d, want >= 0: %w", o.MinAreaPx, ErrInvalidConfig)
+	}
+	return nil
+}
+
+// Mover is a region of the held frame where something moved on its own
+// between the last two real frames.
+type Mover struct {
+	// Box is its last known place in the held frame, full-resolution
+	// pixels: the changed region (it covers where the thing was in both
+	// frames).
+	Box image.Rectangle
+	// VxPxPerS, VyPxPerS is its apparent velocity in the image,
+	// full-resolution pixels per second, from the two frames.
+	VxPxPerS, VyPxPerS float64
+}
+
+// Zone returns where the mover could be ageMs after the held frame: the
+// bounding box of Box and Box moved by velocity · age, grown on every side
+// by a quarter of that displacement plus DefaultMoverMinSpeedPxPerS · age /
+// 4 (the uncertainty of the speed and of its direction; design choices).
+func (m Mover) Zone(ageMs float64) image.Rectangle {
+	a := ageMs / 1000
+	dx, dy := m.VxPxPerS*a, m.VyPxPerS*a
+	moved := m.Box.Add(image.Pt(int(math.Round(dx)), int(math.Round(dy))))
+	g := int(math.Ceil(0.25*math.Hypot(dx, dy) + 0.25*DefaultMoverMinSpeedPxPerS*a))
+	return m.Box.Union(moved).Inset(-g)
+}
+
+// MoverModel holds the movers of the held frame. The zero value is empty.
+type MoverModel struct {
+	Movers []Mover
+}
+
+// MoverDetector finds regions that moved on their own between two real
+// frames: the older frame is brought into the newer one's geometry with the
+// road map below the horizon, the far map above it and each upright
+// segment's plane map over its segment (the vehicle's own motion), both
+// are compared in grey at reduced resolution, differences above Threshold
+// are cleaned (opening, closing) and grouped into connected regions. Each
+// region's apparent displacement is the shift (within ±8 low-resolution
+// pixels) that best matches its pixels between the two compensated frames;
+// its last known place is the region without the part it left.
+// It owns scratch images (Close frees them); not safe for concurrent use.
+type MoverDetector struct {
+	opts                         MoverOptions
+	a, b, tmp, comp, w, diff, hm gocv.Mat
+	labels, stats, cents, kern   gocv.Mat
+	allocated                    bool
+}
+
+// NewMoverDetector validates opts and returns a detector.
+func NewMoverDetector(opts MoverOptions) (*MoverDetector, error) {
+	if err := opts.Validate(); err != nil {
+		return nil, err
+	}
+	return &MoverDetector{opts: opts}, nil
+}
+
+func (d *MoverDetector) scratch() []*gocv.Mat {
+	return []*gocv.Mat{&d.a, &d.b, &d.tmp, &d.comp, &d.w, &d.diff, &d.hm, &d.labels, &d.stats, &d.cents, &d.kern}
+}
+
+// Close frees the scratch images. Safe to call more than once.
+func (d *MoverDetector) Close() error {
+	if d.allocated {
+		for _, m := range d.scratch() {
+			m.Close()
+		}
+		d.allocated = false
+	}
+	return nil
+}
+
+// Detect writes into model (reusing its storage) the movers of last
+// (captured at m.T1Us) against prev (at m.T0Us), m the vehicle motion
+// between them, farDepthM the far-scene depth and up the upright structure
+// of last (nil for none). residual, if not nil and of the detector's
+// downscaled size, is UprightEstimator.Residual: a changed region then
+// counts only if no static surface hypothesis explains a third of it either
+// (parallax of posts and other structure the model does not keep is not
+// motion).
+func (d *MoverDetector) Detect(prev, last gocv.Mat, cam Camera, m filter.Motion, farDepthM float64, up *UprightModel, residual *gocv.Mat, model *MoverModel) error {
+	model.Movers = model.Movers[:0]
+	if err := CheckMotion(m); err != nil {
+		return err
+	}
+	for _, f := range []*gocv.Mat{&prev, &last} {
+		if err := checkFrame("mover frame", f, cam.Width, cam.Height); err != nil {
+			return err
+		}
+	}
+	o := d.opts
+	w := min(cmp0(o.WidthPx, DefaultMoverWidthPx), cam.Width)
+	s := float64(w) / float64(cam.Width)
+	h := max(8, int(math.Round(float64(cam.Height)*s)))
+	sy := float64(h) / float64(cam.Height)
+	if !d.allocated {
+		for _, p := range d.scratch() {
+			*p = gocv.NewMat()
+		}
+		d.hm.Close()
+		d.hm = gocv.NewMatWithSize(3, 3, gocv.MatTypeCV64F)
+		d.kern.Close()
+		d.kern = gocv.GetStructuringElement(gocv.MorphEllipse, image.Pt(3, 3))
+		d.allocated = true
+	}
+	size := image.Pt(w, h)
+	gocv.Resize(prev, &d.tmp, size, 0, 0, gocv.InterpolationArea)
+	gocv.CvtColor(d.tmp, &d.a, gocv.ColorBGRToGray)
+	gocv.Resize(last, &d.tmp, size, 0, 0, gocv.InterpolationArea)
+	gocv.CvtColor(d.tmp, &d.b, gocv.ColorBGRToGray)
+
+	// Compensated older frame in the newer one's geometry (inverse maps
+	// newer -> older, as UprightEstimator).
+	dx, dy, dyaw := invertPlanar(m.DxM, m.DyM, m.DyawRad)
+	warp := func(hf Homography, dst *gocv.Mat) error {
+		hs := scaleHomography(hf, s, sy)
+		if !hs.IsFinite() {
+			return fmt.Errorf("mover compensation: %w", ErrSingular)
+		}
+		if err := setMat3(&d.hm, hs); err != nil {
+			return err
+		}
+		gocv.WarpPerspectiveWithParams(d.a, dst, d.hm, size, gocv.InterpolationLinear|gocv.WarpInverseMap, gocv.BorderReplicate, neutralFill)
+		return nil
+	}
+	if err := warp(cam.GroundHomographyPlanar(dx, dy, dyaw), &d.comp); err != nil {
+		return err
+	}
+	if err := warp(cam.FarHomographyPlanar(dx, dy, dyaw, farDepthM), &d.w); err != nil {
+		return err
+	}
+	cp, err := d.comp.DataPtrUint8()
+	if err != nil {
+		return fmt.Errorf("mover scratch: %w", err)
+	}
+	fp, err := d.w.DataPtrUint8()
+	if err != nil {
+		return fmt.Errorf("mover scratch: %w", err)
+	}
+	// Above the horizon (signed distance < 0 at the low-resolution pixel's
+	// centre in full-resolution coordinates) the far map's pixels.
+	hz := cam.Horizon()
+	for y := 0; y < h; y++ {
+		// The signed distance is affine in x: a x + c >= 0 is road.
+		a := hz.A / s
+		c := hz.A*(0.5/s-0.5) + hz.B*((float64(y)+0.5)/sy-0.5) + hz.C
+		lo, hi := halfLine(a, c, 0, w-1)
+		for x := 0; x < w; x++ {
+			if x < lo || x > hi {
+				cp[y*w+x] = fp[y*w+x]
+			}
+		}
+	}
+	if up != nil {
+		for _, seg := range up.Segments {
+			x0, x1 := int(math.Floor(float64(seg.Col0)*s)), min(w, int(math.Ceil(float64(seg.Col1)*s)))
+			if x0 >= x1 {
+				continue
+			}
+			// Only the segment's columns are warped (into the same place
+			// of the full-size scratch image).
+			hs := scaleHomography(cam.PlaneHomography(dx, dy, dyaw, seg.Plane), s, sy)
+			if !hs.IsFinite() {
+				return fmt.Errorf("mover compensation: %w", ErrSingular)
+			}
+			if err := setMat3(&d.hm, hs.shiftCols(x0)); err != nil {
+				return err
+			}
+			rect := image.Rect(x0, 0, x1, h)
+			roi := d.w.Region(rect)
+			gocv.WarpPerspectiveWithParams(d.a, &roi, d.hm, rect.Size(), gocv.InterpolationLinear|gocv.WarpInverseMap, gocv.BorderReplicate, neutralFill)
+			roi.Close()
+			for x := max(0, x0); x < x1; x++ {
+				u := (float64(x)+0.5)/s - 0.5
+				base := seg.BaseRow0 + (seg.BaseRow1-seg.BaseRow0)*(u-float64(seg.Col0)+0.5)/float64(seg.Col1-seg.Col0)
+				y0, y1 := max(0, int(math.Ceil((seg.TopRow+0.5)*sy-0.5))), min(h, int(math.Floor((base+0.5)*sy-0.5))+1)
+				for y := y0; y < y1; y++ {
+					cp[y*w+x] = fp[y*w+x]
+				}
+			}
+		}
+	}
+	gocv.AbsDiff(d.comp, d.b, &d.diff)
+	var res []byte
+	if residual != nil && residual.Rows() == h && residual.Cols() == w && residual.Type() == gocv.MatTypeCV8U {
+		if res, err = residual.DataPtrUint8(); err != nil {
+			res = nil
+		}
+	}
+	thr := cmp0(o.Threshold, DefaultMoverThreshold)
+	gocv.Threshold(d.diff, &d.diff, float32(thr), 255, gocv.ThresholdBinary)
+	gocv.MorphologyEx(d.diff, &d.diff, gocv.MorphOpen, d.kern)
+	gocv.Dilate(d.diff, &d.diff, d.kern)
+	gocv.Dilate(d.diff, &d.diff, d.kern)
+	n := gocv.ConnectedComponentsWithStats(d.diff, &d.labels, &d.stats, &d.cents)
+	minArea := float64(cmp0(o.MinAreaPx, DefaultMoverMinAreaPx)) * s * sy
+	bp, err := d.b.DataPtrUint8()
+	if err != nil {
+		return fmt.Errorf("mover scratch: %w", err)
+	}
+	dt := float64(m.T1Us-m.T0Us) / 1e6
+	lb, err := d.labels.DataPtrUint8()
+	if err != nil || d.labels.Type() != gocv.MatTypeCV32S || len(lb) < 4*w*h {
+		return fmt.Errorf("mover labels are not a %dx%d CV_32S image (%v): %w", w, h, err, ErrFrameFormat)
+	}
+	lab := unsafe.Slice((*int32)(unsafe.Pointer(&lb[0])), w*h) // CV_32S, native byte order
+	for i := 1; i < n; i++ {
+		x := int(d.stats.GetIntAt(i, int(gocv.CC_STAT_LEFT)))
+		y := int(d.stats.GetIntAt(i, int(gocv.CC_STAT_TOP)))
+		bw := int(d.stats.GetIntAt(i, int(gocv.CC_STAT_WIDTH)))
+		bh := int(d.stats.GetIntAt(i, int(gocv.CC_STAT_HEIGHT)))
+		area := d.stats.GetIntAt(i, int(gocv.CC_STAT_AREA))
+		if float64(area) < minArea {
+			continue
+		}
+		if res != nil && !unexplained(d.labels, res, w, i, image.Rect(x, y, x+bw, y+bh), thr, area) {
+			continue
+		}
+		// The region holds the thing at both places; its content in the
+		// newer frame matched the older one shifted by (sx, sy), so it
+		// moved by -(sx, sy) and its last place is the region without the
+		// trailing part.
+		sx, sy0 := bestShift(cp, bp, lab, int32(i), w, h, image.Rect(x, y, x+bw, y+bh), 8)
+		lx0, lx1, ly0, ly1 := x, x+bw, y, y+bh
+		if sx > 0 && sx < bw/2 { // moved left: drop the right end
+			lx1 -= sx
+		} else if sx < 0 && -sx < bw/2 {
+			lx0 -= sx
+		}
+		if sy0 > 0 && sy0 < bh/2 {
+			ly1 -= sy0
+		} else if sy0 < 0 && -sy0 < bh/2 {
+			ly0 -= sy0
+		}
+		var vx, vy float64
+		if dt > 0 {
+			vx, vy = -float64(sx)/s/dt, -float64(sy0)/sy/dt
+		}
+		box := image.Rect(int(math.Floor(float64(lx0)/s)), int(math.Floor(float64(ly0)/sy)),
+			int(math.Ceil(float64(lx1)/s)), int(math.Ceil(float64(ly1)/sy))).Intersect(image.Rect(0, 0, cam.Width, cam.Height))
+		model.Movers = append(model.Movers, Mover{Box: box, VxPxPerS: vx, VyPxPerS: vy})
+	}
+	return nil
+}
+
+// unexplained reports whether at least a third of region i's pixels (label
+// image labels, CV_32S) keep a residual above thr under every static
+// surface hypothesis (res, see UprightEstimator.Residual): a region that
+// some static surface explains is parallax, not motion.
+func unexplained(labels gocv.Mat, res []byte, w, i int, box image.Rectangle, thr int, area int32) bool {
+	n := 0
+	for y := box.Min.Y; y < box.Max.Y; y++ {
+		for x := box.Min.X; x < box.Max.X; x++ {
+			if int(labels.GetIntAt(y, x)) == i && int(res[y*w+x]) > thr {
+				n++
+			}
+		}
+	}
+	return 3*n >= int(area)
+}
+
+// bestShift returns the shift (dx, dy), in low-resolution pixels, within
+// ±r that minimises the mean absolute difference between
+// the newer frame b over the pixels of region id (label image lab) in box
+// and the compensated older frame c shifted by it: how far the region's content moved between the two frames.
+func bestShift(c, b []byte, lab []int32, id int32, w, h int, box image.Rectangle, r int) (dx, dy int) {
+	// At most about 256 samples of the box; shifts searched on a grid of
+	// 2 px, then refined by 1 px around the best.
+	step := max(1, int(math.Sqrt(float64(box.Dx()*box.Dy())/256)))
+	cost := func(dx, dy int) float64 {
+		sum, n := 0, 0
+		for y := box.Min.Y; y < box.Max.Y; y += step {
+			yy := y + dy
+			if yy < 0 || yy >= h {
+				continue
+			}
+			for x := box.Min.X; x < box.Max.X; x += step {
+				if lab[y*w+x] != id {
+					continue
+				}
+				xx := x + dx
+				if xx < 0 || xx >= w {
+					continue
+				}
+				d := int(b[y*w+x]) - int(c[yy*w+xx])
+				if d < 0 {
+					d = -d
+				}
+				sum += d
+				n++
+			}
+		}
+		if n == 0 {
+			return math.Inf(1)
+		}
+		return float64(sum) / float64(n)
+	}
+	bx, by, bc := 0, 0, cost(0, 0)
+	for dy := -r; dy <= r; dy += 2 {
+		for dx := -r; dx <= r; dx += 2 {
+			if c := cost(dx, dy); c < bc-1e-9 {
+				bx, by, bc = dx, dy, c
+			}
+		}
+	}
+	cx, cy := bx, by
+	for dy := cy - 1; dy <= cy+1; dy++ {
+		for dx := cx - 1; dx <= cx+1; dx++ {
+			if c := cost(dx, dy); c < bc-1e-9 {
+				bx, by, bc = dx, dy, c
+			}
+		}
+	}
+	return bx, by
+}

@@ -1,0 +1,291 @@
+package predictor
+
+import (
+	"image"
+	"math"
+	"os"
+	"path/filepath"
+	"testing"
+
+	"gocv.io/x/gocv"
+
+	"stopgap/filter"
+)
+
+// TestMoversOnVtest: on a real fixed-camera video with people walking
+// (vtest.avi, Debian's opencv-doc examples; zero vehicle motion), the marks
+// made from frames i-1 and i must cover the pixels that truly changed
+// between frame i and frame i+k (the picture a gap of k frames would hold),
+// for gap ages up to 300 ms. Truly changed: grey-level difference above 30
+// after a 5x5 Gaussian blur (our threshold, not a published one). Recall is
+// the share of changed pixels inside a mark's zone, precision the share of
+// marked pixels that changed.
+func TestMoversOnVtest(t *testing.T) {
+	path := filepath.Join(opencvData, "vtest.avi")
+	if _, err := os.Stat(path); err != nil {
+		t.Skipf("opencv-doc example data not installed (%v); install the Debian package opencv-doc", err)
+	}
+	vc, err := gocv.VideoCaptureFile(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer vc.Close()
+	fps := vc.Get(gocv.VideoCaptureFPS)
+	if !(fps > 0) {
+		t.Fatalf("vtest.avi reports %g fps", fps)
+	}
+	const nFrames = 48
+	frames := make([]gocv.Mat, 0, nFrames)
+	defer func() {
+		for _, f := range frames {
+			f.Close()
+		}
+	}()
+	for len(frames) < nFrames {
+		m := gocv.NewMat()
+		if !vc.Read(&m) || m.Empty() {
+			m.Close()
+			break
+		}
+		frames = append(frames, m)
+	}
+	if len(frames) < nFrames {
+		t.Fatalf("read %d frames of vtest.avi, want %d", len(frames), nFrames)
+	}
+	w, h := frames[0].Cols(), frames[0].Rows()
+	cam := Camera{Width: w, Height: h, Fx: float64(w), Fy: float64(w), Cx: float64(w) / 2, Cy: float64(h) / 2, HeightM: 3, PitchDeg: 20}
+	det, err := NewMoverDetector(MoverOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer det.Close()
+	dtUs := int64(math.Round(1e6 / fps))
+	maxK := int(math.Floor(0.3 * fps))
+	grey := func(m gocv.Mat) gocv.Mat {
+		g := gocv.NewMat()
+		gocv.CvtColor(m, &g, gocv.ColorBGRToGray)
+		gocv.GaussianBlur(g, &g, image.Pt(5, 5), 0, 0, gocv.BorderReflect101)
+		return g
+	}
+	var changed, hit, marked, markedChanged float64
+	var model MoverModel
+	movers := 0
+	for i := 4; i+maxK < len(frames); i += 6 {
+		if err := det.Detect(frames[i-1], frames[i], cam, filter.Motion{T1Us: dtUs}, math.Inf(1), nil, nil, &model); err != nil {
+			t.Fatal(err)
+		}
+		movers += len(model.Movers)
+		gi := grey(frames[i])
+		for k := 1; k <= maxK; k++ {
+			gk := grey(frames[i+k])
+			d := gocv.NewMat()
+			gocv.AbsDiff(gi, gk, &d)
+			db := bytesOf(t, d)
+			ageMs := float64(int64(k)*dtUs) / 1000
+			for y := 0; y < h; y++ {
+				for x := 0; x < w; x++ {
+					in := false
+					for _, mv := range model.Movers {
+						if image.Pt(x, y).In(mv.Zone(ageMs)) {
+							in = true
+							break
+						}
+					}
+					ch := db[y*w+x] > 30
+					if ch {
+						changed++
+						if in {
+							hit++
+						}
+					}
+					if in {
+						marked++
+						if ch {
+							markedChanged++
+						}
+					}
+				}
+			}
+			d.Close()
+			gk.Close()
+		}
+		gi.Close()
+	}
+	recall, precision := hit/changed, markedChanged/math.Max(1, marked)
+	t.Logf("vtest.avi %dx%d at %.1f fps, gaps up to %d frames: %d movers, recall %.3f, precision %.3f (changed %.0f px, marked %.0f px)",
+		w, h, fps, maxK, movers, recall, precision, changed, marked)
+	if changed == 0 || recall < 0.8 {
+		t.Errorf("recall %.3f over %.0f changed pixels, want >= 0.8", recall, changed)
+	}
+}
+
+// TestFillerMarksMover: a block that moved between the two real frames
+// (the vehicle standing still) is marked on the PREDICTED frame; the marks
+// stay inside the mover's zone and its tag, and the unlabelled (scored)
+// picture carries no mark.
+func TestFillerMarksMover(t *testing.T) {
+	c := uprightCam()
+	f, err := NewFiller(FillerConfig{Camera: c, Policy: DefaultPolicy(), Motion: &fakeMotion{SigmaPerS: 0.01}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	unl := gocv.NewMat()
+	defer unl.Close()
+	f.Unlabelled = &unl
+	prev := texturedFrame(t, c.Width, c.Height, 7)
+	defer prev.Close()
+	last := prev.Clone()
+	defer last.Close()
+	blk := image.Rect(150, 100, 190, 150)
+	roi := last.Region(blk.Add(image.Pt(12, 0)))
+	roi.SetTo(gocv.NewScalar(20, 220, 40, 0))
+	roi.Close()
+	dst := gocv.NewMat()
+	defer dst.Close()
+	if _, err := f.Live(prev, 0, &dst); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := f.Live(last, 33_333, &dst); err != nil {
+		t.Fatal(err)
+	}
+	tk, err := f.Missing(133_333, &dst)
+	if err != nil || tk.State != StatePredicted {
+		t.Fatalf("tick %+v, err %v; want PREDICTED", tk, err)
+	}
+	if tk.Movers != 1 || len(f.movers.Movers) != 1 {
+		t.Fatalf("%d marks drawn, %d movers; want 1", tk.Movers, len(f.movers.Movers))
+	}
+	mv := f.movers.Movers[0]
+	if !blk.Add(image.Pt(12, 0)).In(mv.Box.Inset(-2)) {
+		t.Errorf("mover box %v does not cover the block's last place %v", mv.Box, blk.Add(image.Pt(12, 0)))
+	}
+	// Unlabelled equals the labelled frame outside the label and the marks.
+	zone := mv.Zone(tk.AgeMs).Inset(-2)
+	tag := image.Rect(mv.Box.Min.X, mv.Box.Min.Y-40, mv.Box.Max.X+60, mv.Box.Min.Y)
+	in := image.Rect(0, 0, c.Width, c.Height).Inset(BorderPx(c.Height))
+	a, b := bytesOf(t, dst), bytesOf(t, unl)
+	diff := 0
+	for y := 0; y < c.Height; y++ {
+		for x := 0; x < c.Width; x++ {
+			p := image.Pt(x, y)
+			i := 3 * (y*c.Width + x)
+			if a[i] != b[i] || a[i+1] != b[i+1] || a[i+2] != b[i+2] {
+				diff++
+				if p.In(in) && !p.In(zone) && !p.In(tag) && y > 40 {
+					t.Fatalf("pixel %v changed outside the label and the mover's zone %v", p, zone)
+				}
+			}
+		}
+	}
+	if diff == 0 {
+		t.Error("labelled and unlabelled frames are equal")
+	}
+}
+
+// TestMarksOnMovingCamera: a vehicle drives at 10 m/s through a static
+// scene that follows the road and far maps exactly (frames sampled from a
+// larger texture), while a textured block crosses the picture at 150 px/s.
+// From the PREDICTED frames of a gap (ages 33 to 300 ms) the marks are
+// scored against the exact masks: recall is the share of truly changed
+// pixels (the block's place at the target time and its place in the held
+// frame, outside the label) inside a mark's zone, precision the share of
+// zone pixels that truly changed. Recall must reach 0.8; precision is
+// reported, not asserted: it falls short of 0.5 (about 0.24 here: the
+// apparent velocity is overestimated and the zone grows to cover that).
+func TestMarksOnMovingCamera(t *testing.T) {
+	c := uprightCam()
+	const dtUs = 33_333
+	const speedMps, blockPxPerS = 10.0, 150.0
+	big := texturedFrame(t, 2*c.Width, 2*c.Height, 11)
+	defer big.Close()
+	bigV, err := matView(&big)
+	if err != nil {
+		t.Fatal(err)
+	}
+	blockTex := texturedFrame(t, 36, 44, 12)
+	defer blockTex.Close()
+	block := func(tUs int64) image.Rectangle {
+		x := 60 + int(math.Round(blockPxPerS*float64(tUs)/1e6))
+		return image.Rect(x, 95, x+36, 95+44)
+	}
+	// frame renders the picture at time tUs: the static scene seen after
+	// the vehicle moved speed·t, and the block.
+	frame := func(tUs int64) gocv.Mat {
+		m := filter.Motion{T1Us: tUs, DxM: speedMps * float64(tUs) / 1e6}
+		g, _ := GroundHomography(c, m)
+		f := c.FarHomographyPlanar(m.DxM, 0, 0, math.Inf(1))
+		gi, fi := mustInverse(t, g), mustInverse(t, f)
+		out := gocv.NewMatWithSize(c.Height, c.Width, gocv.MatTypeCV8UC3)
+		ov, err := matView(&out)
+		if err != nil {
+			t.Fatal(err)
+		}
+		off := Homography{{1, 0, float64(c.Width) / 2}, {0, 1, float64(c.Height) / 2}, {0, 0, 1}}
+		hz, _ := c.Horizon().RowAt(0)
+		split := int(math.Ceil(hz))
+		if _, err := warpBGR(ov.rows(0, split), bigV, off.Mul(fi), 0, 0, NeutralGrey, warpPathBest); err != nil {
+			t.Fatal(err)
+		}
+		if _, err := warpBGR(ov.rows(split, c.Height), bigV, off.Mul(gi), 0, split, NeutralGrey, warpPathBest); err != nil {
+			t.Fatal(err)
+		}
+		roi := out.Region(block(tUs))
+		blockTex.CopyTo(&roi)
+		roi.Close()
+		return out
+	}
+	f, err := NewFiller(FillerConfig{Camera: c, Policy: DefaultPolicy(), Motion: &fakeMotion{SpeedMps: speedMps, SigmaPerS: 0.01}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	dst := gocv.NewMat()
+	defer dst.Close()
+	for _, tUs := range []int64{0, dtUs} {
+		fr := frame(tUs)
+		if _, err := f.Live(fr, tUs, &dst); err != nil {
+			t.Fatal(err)
+		}
+		fr.Close()
+	}
+	in := image.Rect(0, 0, c.Width, c.Height).Inset(BorderPx(c.Height))
+	in.Min.Y += 30 // below the PREDICTED text box
+	held := block(dtUs)
+	var changed, hit, marked, markedChanged float64
+	for k := int64(1); k <= 9; k++ {
+		target := dtUs + k*dtUs
+		tk, err := f.Missing(target, &dst)
+		if err != nil || tk.State != StatePredicted {
+			t.Fatalf("tick at %d us: %+v %v", target, tk, err)
+		}
+		now := block(target)
+		for y := in.Min.Y; y < in.Max.Y; y++ {
+			for x := in.Min.X; x < in.Max.X; x++ {
+				p := image.Pt(x, y)
+				ch := p.In(now) || p.In(held)
+				mk := false
+				for _, mv := range f.movers.Movers {
+					mk = mk || p.In(mv.Zone(tk.AgeMs))
+				}
+				if ch {
+					changed++
+					if mk {
+						hit++
+					}
+				}
+				if mk {
+					marked++
+					if ch {
+						markedChanged++
+					}
+				}
+			}
+		}
+	}
+	recall, precision := hit/changed, markedChanged/math.Max(1, marked)
+	t.Logf("%d movers %v; recall %.3f, precision %.3f over ages 33..300 ms", len(f.movers.Movers), f.movers.Movers, recall, precision)
+	if len(f.movers.Movers) == 0 || recall < 0.8 {
+		t.Errorf("recall %.3f with %d movers, want >= 0.8", recall, len(f.movers.Movers))
+	}
+}

@@ -1,0 +1,505 @@
+package predictor
+
+import (
+	"fmt"
+	"image"
+	"math"
+	"slices"
+
+	"gocv.io/x/gocv"
+
+	"stopgap/filter"
+)
+
+// Defaults of UprightOptions. They are design choices of this project.
+const (
+	// DefaultUprightBandPx is the width of a column band at full
+	// resolution: 40 bands across 1280 px.
+	DefaultUprightBandPx = 32
+	// DefaultUprightWidthPx is the width of the downscaled frames the
+	// estimate compares (a quarter of 1280).
+	DefaultUprightWidthPx = 320
+	// DefaultUprightMinGain is the share by which an upright hypothesis
+	// must lower a band's matching cost below the road-and-far model to be
+	// kept: it keeps textureless bands (where every hypothesis matches)
+	// on the simpler model.
+	DefaultUprightMinGain = 0.1
+	// DefaultUprightMinBaselineM is the least translation between the two
+	// frames for an estimate: 0.1 m moves a wall 4 m away by about 2.5% of
+	// its distance, several pixels at a quarter of 720p, so one frame
+	// interval at city speeds suffices.
+	DefaultUprightMinBaselineM = 0.1
+)
+
+// DefaultUprightWallsM returns the lateral offsets of the walls parallel to
+// the direction of travel that the estimate tries, metres from the vehicle
+// axis (each is tried on the left, +y, and on the right, -y).
+func DefaultUprightWallsM() []float64 {
+	return []float64{2.5, 3, 3.5, 4, 4.5, 5, 5.5, 6, 6.5, 7, 7.5, 8, 9, 10, 11.5, 13}
+}
+
+// DefaultUprightFrontsM returns the distances ahead of the vehicle origin of
+// the upright surfaces facing the vehicle (across the road) that the
+// estimate tries, metres.
+func DefaultUprightFrontsM() []float64 { return []float64{5, 6.5, 8, 10, 13, 17, 22, 30} }
+
+// UprightOptions configures the upright-structure estimate of a Filler.
+// The zero value uses the defaults.
+type UprightOptions struct {
+	// Off disables upright structure: predicted frames use the road and
+	// far planes only.
+	Off bool
+	// BandPx is the column band width at full resolution; 0 means
+	// DefaultUprightBandPx, otherwise 8..256.
+	BandPx int
+	// WidthPx is the width of the downscaled frames compared; 0 means
+	// DefaultUprightWidthPx, otherwise >= 64.
+	WidthPx int
+	// WallsM and FrontsM are the hypotheses (see DefaultUprightWallsM and
+	// DefaultUprightFrontsM); nil means the defaults. Values must be > 0.
+	WallsM, FrontsM []float64
+	// MinGain is the least relative cost decrease for an upright band;
+	// 0 means DefaultUprightMinGain, otherwise in (0, 1).
+	MinGain float64
+	// MinBaselineM is the least translation between the two frames;
+	// 0 means DefaultUprightMinBaselineM.
+	MinBaselineM float64
+}
+
+// Validate reports options out of range, wrapping ErrInvalidConfig.
+func (o UprightOptions) Validate() error {
+	if o.BandPx != 0 && (o.BandPx < 8 || o.BandPx > 256) {
+		return fmt.Errorf("upright BandPx = %d, want 0 (default %d) or 8..256: %w", o.BandPx, DefaultUprightBandPx, ErrInvalidConfig)
+	}
+	if o.WidthPx != 0 && o.WidthPx < 64 {
+		return fmt.Errorf("upright WidthPx = %d, want 0 (default %d) or >= 64: %w", o.WidthPx, DefaultUprightWidthPx, ErrInvalidConfig)
+	}
+	for _, l := range [][]float64{o.WallsM, o.FrontsM} {
+		for i, d := range l {
+			if !(d > 0) || math.IsInf(d, 1) {
+				return fmt.Errorf("upright hypothesis %d = %g m, want finite > 0: %w", i, d, ErrInvalidConfig)
+			}
+		}
+	}
+	if o.MinGain != 0 && !(o.MinGain > 0 && o.MinGain < 1) {
+		return fmt.Errorf("upright MinGain = %g, want 0 (default) or in (0, 1): %w", o.MinGain, ErrInvalidConfig)
+	}
+	if !(o.MinBaselineM >= 0) {
+		return fmt.Errorf("upright MinBaselineM = %g, want >= 0: %w", o.MinBaselineM, ErrInvalidConfig)
+	}
+	return nil
+}
+
+// Plane is the plane {X : Normal·X = DistM} in the camera coordinates of a
+// frame (metres; Normal a unit vector).
+type Plane struct {
+	Normal [3]float64
+	DistM  float64
+}
+
+// PlaneHomography returns the map, for points of the plane p given in the
+// T0 camera, from T0 pixels to T1 pixels, when the vehicle moves by (dxM,
+// dyM, dyawRad) from T0 to T1 (see RelativePose): K (R + t nᵀ/d) K^-1, the
+// plane-induced homography (Hartley and Zisserman, "Multiple View
+// Geometry", 2nd ed., result 13.1, from memory). The ground is the plane
+// (n_up, -HeightM) and gives GroundHomographyPlanar; (e_z, D) gives
+// FarHomographyPlanar.
+func (c Camera) PlaneHomography(dxM, dyM, dyawRad float64, p Plane) Homography {
+	r, t := c.RelativePose(dxM, dyM, dyawRad)
+	for i := 0; i < 3; i++ {
+		for j := 0; j < 3; j++ {
+			r[i][j] += t[i] * p.Normal[j] / p.DistM
+		}
+	}
+	return Homography(mul33(mul33(c.K(), r), c.kInv())).normalised()
+}
+
+// verticalPlane returns the plane {P : a·P = b} of vehicle coordinates
+// (a a horizontal unit vector) in camera coordinates.
+func (c Camera) verticalPlane(a [3]float64, b float64) Plane {
+	// P = R_cvᵀ X + C, so a·P = (R_cv a)·X + a·C.
+	n := mul3v(c.RotationVehicleToCamera(), a)
+	return Plane{Normal: n, DistM: b - dot3(a, c.CentreVehicle())}
+}
+
+// baseLine returns the image line where the plane meets the road: a pixel
+// whose ray r = K^-1 p meets both has n·r/d = -n_g·r/h, so the line is
+// K^-T (n/d + n_g/h). Not normalised.
+func (c Camera) baseLine(p Plane) [3]float64 {
+	ng := c.GroundNormalCamera()
+	var v vec3
+	for i := 0; i < 3; i++ {
+		v[i] = p.Normal[i]/p.DistM + ng[i]/c.HeightM
+	}
+	return mul3v(transpose3(c.kInv()), v)
+}
+
+// rowOn returns the row of line l at column u (ok false if l is vertical).
+func rowOn(l [3]float64, u float64) (float64, bool) {
+	if l[1] == 0 {
+		return 0, false
+	}
+	return -(l[0]*u + l[2]) / l[1], true
+}
+
+// UprightSegment is one column band of the held frame where an upright
+// surface stands on the road: pixels of columns [Col0, Col1) between row
+// TopRow and the surface's base line (where it meets the road) are on the
+// plane; above TopRow is the far scene.
+type UprightSegment struct {
+	Col0, Col1 int
+	// TopRow is the row of the surface's top edge in the held frame
+	// (-0.5: the image's top edge).
+	TopRow float64
+	// Plane in the held frame's camera coordinates.
+	Plane Plane
+	// BaseRow0 and BaseRow1 are the base line's rows at the band's edges
+	// (pixel edges Col0-0.5 and Col1-0.5), in the held frame.
+	BaseRow0, BaseRow1 float64
+	// DepthM is the distance along the optical axis of the base point at
+	// the band's centre: the painter's order (farther drawn first).
+	DepthM float64
+}
+
+// UprightModel is the upright structure of the held frame, column band by
+// band: a column model in the spirit of the stixel world (Badino, Franke
+// and Pfeiffer, "The Stixel World - A Compact Medium Level Representation of
+// the 3D-World", DAGM 2009), with one vertical plane per band: a wall along
+// the direction of travel or a surface facing the vehicle. Bands without a
+// segment are road below the horizon and far scene above it. The zero value
+// is an empty model. Like the road and far planes it models the STATIC
+// scene only.
+type UprightModel struct {
+	Segments []UprightSegment
+}
+
+// UprightEstimator finds the upright structure of the newer of two real
+// frames: for each column band it compares, at reduced resolution and in
+// grey, the newer frame with the older one warped through each hypothesis
+// (road below the base line, the plane from there up to a top row, the far
+// scene above; or road below the horizon and the far scene above it), as a
+// plane sweep restricted to vertical planes, and keeps the hypothesis and
+// top row with the least sum of absolute differences if it beats the
+// road-and-far model by MinGain. The cost per gap is about one
+// low-resolution warp per hypothesis (42 by default), each restricted to the
+// bands and rows where its plane can stand.
+//
+// An estimator owns scratch images (Close frees them) and is not safe for
+// concurrent use.
+type UprightEstimator struct {
+	opts      UprightOptions
+	a, b, tmp gocv.Mat
+	warped    gocv.Mat
+	diff      gocv.Mat
+	hm        gocv.Mat
+	minRes    gocv.Mat // least local |difference| over all hypotheses, per low-resolution pixel
+	blur      gocv.Mat // scratch: one hypothesis's local |difference|
+	haveRes   bool
+	allocated bool
+	sums      [][]float64 // per hypothesis: band-major row sums of |diff|
+	pre       [][]float64 // per hypothesis: prefix sums down the current band
+	planes    []Plane
+}
+
+// NewUprightEstimator validates opts and returns an estimator.
+func NewUprightEstimator(opts UprightOptions) (*UprightEstimator, error) {
+	if err := opts.Validate(); err != nil {
+		return nil, err
+	}
+	return &UprightEstimator{opts: opts}, nil
+}
+
+// Close frees the scratch images. Safe to call more than once.
+func (e *UprightEstimator) Close() error {
+	if e.allocated {
+		for _, m := range []*gocv.Mat{&e.a, &e.b, &e.tmp, &e.warped, &e.diff, &e.hm, &e.minRes, &e.blur} {
+			m.Close()
+		}
+		e.allocated = false
+	}
+	return nil
+}
+
+// Residual returns, after an Estimate that compared the frames (enough
+// baseline), the least 7x7 local mean of the absolute grey-level difference
+// per pixel of the downscaled newer frame over every hypothesis tried (road, far scene, each
+// vertical plane where it can stand): what no static surface explains. The
+// image is owned by the estimator and valid until its next Estimate.
+func (e *UprightEstimator) Residual() (gocv.Mat, bool) {
+	return e.minRes, e.allocated && e.haveRes
+}
+
+// invertPlanar returns the vehicle motion from T1 back to T0, in the T1
+// vehicle frame, of the motion (dx, dy, yaw) from T0 to T1 in the T0 frame:
+// yaw -ψ and translation -Rz(ψ)ᵀ (dx, dy).
+func invertPlanar(dx, dy, yaw float64) (float64, float64, float64) {
+	s, c := math.Sincos(yaw)
+	return -(c*dx + s*dy), -(-s*dx + c*dy), -yaw
+}
+
+// Estimate writes into model (reusing its storage) the upright structure of
+// last (captured at m.T1Us) from prev (captured at m.T0Us), m the vehicle
+// motion between them, farDepthM the far-scene depth (+Inf for rotation
+// only). Both frames are cam-sized BGR. With a translation below
+// MinBaselineM the model is left empty (no error).
+func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Motion, farDepthM float64, model *UprightModel) error {
+	model.Segments = model.Segments[:0]
+	e.haveRes = false
+	if err := CheckMotion(m); err != nil {
+		return err
+	}
+	for _, f := range []*gocv.Mat{&prev, &last} {
+		if err := checkFrame("upright frame", f, cam.Width, cam.Height); err != nil {
+			return err
+		}
+	}
+	o := e.opts
+	minBase := o.MinBaselineM
+	if minBase == 0 {
+		minBase = DefaultUprightMinBaselineM
+	}
+	if math.Hypot(m.DxM, m.DyM) < minBase {
+		return nil
+	}
+	bandPx := cmp0(o.BandPx, DefaultUprightBandPx)
+	w := min(cmp0(o.WidthPx, DefaultUprightWidthPx), cam.Width)
+	s := float64(w) / float64(cam.Width)
+	h := max(8, int(math.Round(float64(cam.Height)*s)))
+	sy := float64(h) / float64(cam.Height)
+	if !e.allocated {
+		for _, p := range []*gocv.Mat{&e.a, &e.b, &e.tmp, &e.warped, &e.diff, &e.minRes, &e.blur} {
+			*p = gocv.NewMat()
+		}
+		e.hm = gocv.NewMatWithSize(3, 3, gocv.MatTypeCV64F)
+		e.allocated = true
+	}
+	size := image.Pt(w, h)
+	gocv.Resize(prev, &e.tmp, size, 0, 0, gocv.InterpolationArea)
+	gocv.CvtColor(e.tmp, &e.a, gocv.ColorBGRToGray)
+	gocv.Resize(last, &e.tmp, size, 0, 0, gocv.InterpolationArea)
+	gocv.CvtColor(e.tmp, &e.b, gocv.ColorBGRToGray)
+	e.haveRes = false
+	for _, p := range []*gocv.Mat{&e.warped, &e.diff, &e.minRes, &e.blur} { // full size: hypotheses write regions
+		if p.Rows() != h || p.Cols() != w || p.Type() != gocv.MatTypeCV8U {
+			p.Close()
+			*p = gocv.NewMatWithSize(h, w, gocv.MatTypeCV8U)
+		}
+	}
+
+	// Hypotheses 0 (road) and 1 (far), then the vertical planes, all in the
+	// camera of the newer frame; inverse maps newer -> older.
+	e.planes = e.planes[:0]
+	walls, fronts := o.WallsM, o.FrontsM
+	if walls == nil {
+		walls = DefaultUprightWallsM()
+	}
+	if fronts == nil {
+		fronts = DefaultUprightFrontsM()
+	}
+	for _, y := range walls {
+		e.planes = append(e.planes, cam.verticalPlane(vec3{0, 1, 0}, y), cam.verticalPlane(vec3{0, -1, 0}, y))
+	}
+	for _, x := range fronts {
+		e.planes = append(e.planes, cam.verticalPlane(vec3{1, 0, 0}, x))
+	}
+	dx, dy, dyaw := invertPlanar(m.DxM, m.DyM, m.DyawRad)
+	nb := (cam.Width + bandPx - 1) / bandPx
+	nh := 2 + len(e.planes)
+	for len(e.sums) < nh {
+		e.sums = append(e.sums, nil)
+		e.pre = append(e.pre, nil)
+	}
+	bandLo := make([]int, nb+1) // low-res column edges of the bands (small, once per gap)
+	for b := 0; b <= nb; b++ {
+		bandLo[b] = min(w, int(math.Round(float64(min(b*bandPx, cam.Width))*s)))
+	}
+	hz := cam.Horizon()
+	for k := 0; k < nh; k++ {
+		var hf Homography
+		switch k {
+		case 0:
+			hf = cam.GroundHomographyPlanar(dx, dy, dyaw)
+		case 1:
+			hf = cam.FarHomographyPlanar(dx, dy, dyaw, farDepthM)
+		default:
+			hf = cam.PlaneHomography(dx, dy, dyaw, e.planes[k-2])
+		}
+		hs := scaleHomography(hf, s, sy)
+		if !hs.IsFinite() {
+			return fmt.Errorf("upright hypothesis %d: %w", k, ErrSingular)
+		}
+		// A plane is compared only where it can stand: over the bands
+		// where its base is below the horizon, rows down to its lowest
+		// base (the road's sums serve below). The road and far maps are
+		// compared everywhere.
+		b0, b1, rows := 0, nb, h
+		if k >= 2 {
+			b0, b1, rows = nb, 0, 0
+			for b := 0; b < nb; b++ {
+				c0, c1 := b*bandPx, min((b+1)*bandPx, cam.Width)
+				hzRow, ok := hz.RowAt(float64(c0+c1-1) / 2)
+				if !ok {
+					continue
+				}
+				if seg, ok := cam.segment(e.planes[k-2], c0, c1, hzRow); ok {
+					b0, b1 = min(b0, b), max(b1, b+1)
+					rows = max(rows, min(h, int(math.Ceil(math.Max(seg.BaseRow0, seg.BaseRow1)*sy))+1))
+				}
+			}
+		}
+		sums := e.sums[k][:0]
+		for range nb * h {
+			sums = append(sums, 0)
+		}
+		e.sums[k] = sums
+		if b0 >= b1 || rows == 0 || bandLo[b0] >= bandLo[b1] {
+			continue
+		}
+		rect := image.Rect(bandLo[b0], 0, bandLo[b1], rows)
+		if err := setMat3(&e.hm, hs.shiftCols(rect.Min.X)); err != nil {
+			return err
+		}
+		wr, br, dr := e.warped.Region(rect), e.b.Region(rect), e.diff.Region(rect)
+		gocv.WarpPerspectiveWithParams(e.a, &wr, e.hm, rect.Size(), gocv.InterpolationLinear|gocv.WarpInverseMap, gocv.BorderReplicate, neutralFill)
+		gocv.AbsDiff(wr, br, &dr)
+		// The least residual over every hypothesis so far, per pixel, of
+		// the residual's 7x7 local mean (a single pixel is too easily
+		// matched by some wrong hypothesis).
+		bl := e.blur.Region(rect)
+		gocv.Blur(dr, &bl, image.Pt(7, 7))
+		if k == 0 {
+			bl.CopyTo(&e.minRes)
+		} else {
+			mr := e.minRes.Region(rect)
+			gocv.Min(mr, bl, &mr)
+			mr.Close()
+		}
+		bl.Close()
+		wr.Close()
+		br.Close()
+		dr.Close()
+		d, err := e.diff.DataPtrUint8()
+		if err != nil {
+			return fmt.Errorf("upright scratch: %w", err)
+		}
+		for b := b0; b < b1; b++ {
+			for y := 0; y < rows; y++ {
+				t := 0
+				for _, v := range d[y*w+bandLo[b] : y*w+bandLo[b+1]] {
+					t += int(v)
+				}
+				sums[b*h+y] = float64(t)
+			}
+		}
+	}
+	e.haveRes = true
+	gain := o.MinGain
+	if gain == 0 {
+		gain = DefaultUprightMinGain
+	}
+	for b := 0; b < nb; b++ {
+		c0, c1 := b*bandPx, min((b+1)*bandPx, cam.Width)
+		uc := float64(c0+c1-1) / 2
+		hzRow, ok := hz.RowAt(uc)
+		if !ok {
+			continue
+		}
+		// Prefix sums down the band: pre[k][y] = sum of rows [0, y).
+		for k := 0; k < nh; k++ {
+			pk := e.pre[k][:0]
+			t := 0.0
+			pk = append(pk, 0)
+			for y := 0; y < h; y++ {
+				t += e.sums[k][b*h+y]
+				pk = append(pk, t)
+			}
+			e.pre[k] = pk
+		}
+		lowRow := func(v float64) int { return int(math.Round(math.Min(math.Max(v*sy, 0), float64(h)))) }
+		road, far := e.pre[0], e.pre[1]
+		hzLow := lowRow(hzRow)
+		none := far[hzLow] + road[h] - road[hzLow]
+		best, bestCost := -1, none*(1-gain)
+		var bestSeg UprightSegment
+		for i, p := range e.planes {
+			seg, ok := cam.segment(p, c0, c1, hzRow)
+			if !ok {
+				continue
+			}
+			// Far scene above the top, the plane from the top to the base,
+			// road below: the best top for this plane.
+			pk := e.pre[2+i]
+			base := lowRow((seg.BaseRow0 + seg.BaseRow1) / 2)
+			top, tc := 0, math.Inf(1)
+			for y := 0; y <= base; y++ {
+				if c := far[y] - pk[y]; c < tc {
+					top, tc = y, c
+				}
+			}
+			if base-top < 2 {
+				continue
+			}
+			if c := tc + pk[base] + road[h] - road[base]; c < bestCost {
+				seg.TopRow = -0.5
+				if top > 0 {
+					seg.TopRow = float64(top)/sy - 0.5
+				}
+				best, bestCost, bestSeg = i, c, seg
+			}
+		}
+		if best >= 0 {
+			model.Segments = append(model.Segments, bestSeg)
+		}
+	}
+	return nil
+}
+
+// segment builds the segment of plane p over columns [c0, c1); ok is false
+// when the plane does not stand on the road in front of the camera across
+// the whole band (its base line above the horizon, or behind the camera).
+func (c Camera) segment(p Plane, c0, c1 int, hzRow float64) (UprightSegment, bool) {
+	l := c.baseLine(p)
+	seg := UprightSegment{Col0: c0, Col1: c1, Plane: p}
+	var ok0, ok1 bool
+	seg.BaseRow0, ok0 = rowOn(l, float64(c0)-0.5)
+	seg.BaseRow1, ok1 = rowOn(l, float64(c1)-0.5)
+	if !ok0 || !ok1 || seg.BaseRow0 <= hzRow+1 || seg.BaseRow1 <= hzRow+1 {
+		return seg, false
+	}
+	// Depth of the base point at the band centre: the ray's road hit.
+	uc, vc := float64(c0+c1-1)/2, (seg.BaseRow0+seg.BaseRow1)/2
+	ki := c.kInv()
+	r := mul3v(ki, vec3{uc, vc, 1})
+	ng := c.GroundNormalCamera()
+	den := dot3(ng, r)
+	if !(den < 0) {
+		return seg, false
+	}
+	seg.DepthM = -c.HeightM / den * r[2]
+	// The plane must be in front: its distance along the ray positive.
+	if nr := dot3(p.Normal, r); nr == 0 || p.DistM/nr <= 0 {
+		return seg, false
+	}
+	return seg, seg.DepthM > 0
+}
+
+// cmp0 returns v, or def when v is 0.
+func cmp0(v, def int) int {
+	if v == 0 {
+		return def
+	}
+	return v
+}
+
+// sortFarToNear orders segments for the painter's algorithm.
+func sortFarToNear(s []UprightSegment) {
+	slices.SortStableFunc(s, func(a, b UprightSegment) int {
+		switch {
+		case a.DepthM > b.DepthM:
+			return -1
+		case a.DepthM < b.DepthM:
+			return 1
+		}
+		return 0
+	})
+}

@@ -1,0 +1,349 @@
+package predictor
+
+import (
+	"fmt"
+	"math"
+	"slices"
+
+	"gocv.io/x/gocv"
+
+	"stopgap/filter"
+)
+
+// spanHidden marks a painted span as disoccluded: hidden behind an upright
+// segment in the source. Other span kinds are segment draw indices (0..).
+const spanHidden = -1
+
+// uprightScratch holds the per-frame buffers of SynthesizeScene, owned by
+// the Synthesizer and grown once for the camera and the segment count.
+type uprightScratch struct {
+	quad   []int32   // 2 per row: one quad's row spans
+	rows   [][]cspan // per row: painted spans in paint order
+	inv    []Homography
+	order  []UprightSegment
+	events []int64 // span edges of a row: pos<<32 | span<<1 | start
+	active []int32
+	// Visible pieces in compressed sparse rows: index 0 the background,
+	// 1+k segment k in draw order.
+	ptr   [][]int32
+	piece [][]int32
+}
+
+// cspan is one painted column interval [lo, hi) of a row and what painted
+// it: spanHidden or a segment's draw index.
+type cspan struct {
+	lo, hi int32
+	kind   int32
+}
+
+// SynthesizeScene is SynthesizeFar with the held frame's upright structure
+// (see UprightModel). Every output pixel is decided once, then warped once:
+//
+//   - on an upright segment's image (its source quad mapped by its plane's
+//     homography, PlaneHomography): that segment, nearer segments winning
+//     (painter's order by UprightSegment.DepthM);
+//   - else, where the road or far map would fetch a pixel of an upright
+//     segment of src: the scene there was hidden behind the segment in
+//     src, so the pixel is NeutralGrey (marked, not invented);
+//   - else the road and far warp of Warp, blended across the horizon band.
+//
+// Unfilled pixels (no source, or disoccluded) are counted exactly on each
+// visible piece, up to pixels whose centre lies within rounding error of a
+// segment quad's edge. model nil or empty gives SynthesizeFar. dst is owned by the
+// caller (see Warp); the per-frame path does not allocate once the
+// Synthesizer has seen as many segments.
+func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM float64, model *UprightModel, dst *gocv.Mat) (Synthesis, error) {
+	if model == nil || len(model.Segments) == 0 {
+		return s.SynthesizeFar(src, m, farDepthM, dst)
+	}
+	g, err := GroundHomography(s.cam, m) // also validates m
+	if err != nil {
+		return Synthesis{}, err
+	}
+	f := s.cam.FarHomographyPlanar(m.DxM, m.DyM, m.DyawRad, farDepthM)
+	if !f.IsFinite() {
+		return Synthesis{}, fmt.Errorf("far-scene homography at depth %g m is not finite: %w", farDepthM, ErrSingular)
+	}
+	out := Synthesis{Ground: g, Far: f}
+	if s.closed {
+		return out, ErrClosed
+	}
+	if err := checkFrame("source frame", &src, s.cam.Width, s.cam.Height); err != nil {
+		return out, err
+	}
+	gi, err := g.Inverse()
+	if err != nil {
+		return out, fmt.Errorf("ground homography: %w", err)
+	}
+	fi, err := f.Inverse()
+	if err != nil {
+		return out, fmt.Errorf("far homography: %w", err)
+	}
+	if err := ensureLike(dst, src); err != nil {
+		return out, err
+	}
+	if s.undistort {
+		gocv.Remap(src, &s.undist, &s.map1, &s.map2, gocv.InterpolationLinear, gocv.BorderConstant, neutralFill)
+		src = s.undist
+	}
+	sv, err := matView(&src)
+	if err != nil {
+		return out, fmt.Errorf("source frame: %w", err)
+	}
+	dv, err := matView(dst)
+	if err != nil {
+		return out, fmt.Errorf("destination: %w", err)
+	}
+	c := s.cam
+	w, h := c.Width, c.Height
+	sc := &s.up
+	if len(sc.quad) != 2*h {
+		sc.quad = make([]int32, 2*h)
+		sc.rows = make([][]cspan, h)
+	}
+	for v := range sc.rows {
+		sc.rows[v] = sc.rows[v][:0]
+	}
+	sc.order = append(sc.order[:0], model.Segments...)
+	sortFarToNear(sc.order)
+	sc.inv = sc.inv[:0]
+	paint := func(hm Homography, quad [4][2]float64, kind int32) {
+		r0, r1, ok := quadSpans(hm, quad, w, h, sc.quad)
+		if !ok {
+			return
+		}
+		for v := r0; v < r1; v++ {
+			if lo, hi := sc.quad[2*v], sc.quad[2*v+1]; lo < hi {
+				sc.rows[v] = append(sc.rows[v], cspan{lo, hi, kind})
+			}
+		}
+	}
+	hz := s.horizon
+	// 1. Where the background would fetch segment pixels: the road map's
+	// image of the part below the horizon, the far map's above it.
+	for _, seg := range sc.order {
+		x0, x1 := float64(seg.Col0)-0.5, float64(seg.Col1)-0.5
+		r0, _ := hz.RowAt(x0)
+		r1, _ := hz.RowAt(x1)
+		split := math.Max(math.Max(r0, r1)+1, seg.TopRow)
+		if split > seg.TopRow {
+			paint(f, [4][2]float64{{x0, seg.TopRow}, {x1, seg.TopRow}, {x1, split}, {x0, split}}, spanHidden)
+		}
+		paint(g, [4][2]float64{{x0, split}, {x1, split}, {x1, seg.BaseRow1}, {x0, seg.BaseRow0}}, spanHidden)
+	}
+	// 2. Segments, far to near. Each quad is clipped to the source
+	// rectangle of Warp's "has a source" test, so every pixel centre of
+	// its image has a source (up to rounding at the quad's edges) and the
+	// count needs no per-piece test.
+	const e = FillTolerancePx
+	for i, seg := range sc.order {
+		hf := c.PlaneHomography(m.DxM, m.DyM, m.DyawRad, seg.Plane)
+		inv, err := hf.Inverse()
+		sc.inv = append(sc.inv, inv)
+		if err != nil || !hf.IsFinite() {
+			continue
+		}
+		x0, x1 := math.Max(float64(seg.Col0)-0.5, -e), math.Min(float64(seg.Col1)-0.5, float64(w-1)+e)
+		top := math.Max(seg.TopRow, -e)
+		b0, b1 := math.Min(seg.BaseRow0, float64(h-1)+e), math.Min(seg.BaseRow1, float64(h-1)+e)
+		paint(hf, [4][2]float64{{x0, top}, {x1, top}, {x1, b1}, {x0, b0}}, int32(i))
+	}
+	// 3. Visible pieces per row (sweep over the span edges: the span
+	// painted last among those covering a piece shows), the exact count,
+	// and the grey of hidden pieces.
+	nk := 1 + len(sc.order)
+	for len(sc.ptr) < nk {
+		sc.ptr = append(sc.ptr, nil)
+		sc.piece = append(sc.piece, nil)
+	}
+	for k := 0; k < nk; k++ {
+		sc.ptr[k] = append(sc.ptr[k][:0], 0)
+		sc.piece[k] = sc.piece[k][:0]
+	}
+	unfilled := 0
+	for v := 0; v < h; v++ {
+		spans := sc.rows[v]
+		// Edges as int64 keys pos<<32 | span<<1 | start, sorted by position.
+		ev := sc.events[:0]
+		for k, sp := range spans {
+			ev = append(ev, int64(sp.lo)<<32|int64(k)<<1|1, int64(sp.hi)<<32|int64(k)<<1)
+		}
+		slices.Sort(ev)
+		sc.events = ev
+		act := sc.active[:0]
+		u := 0
+		for i := 0; i <= len(ev); i++ {
+			next := w
+			if i < len(ev) {
+				next = min(w, int(ev[i]>>32))
+			}
+			if next > u {
+				top := int32(-1)
+				for _, k := range act {
+					top = max(top, k)
+				}
+				switch {
+				case top < 0:
+					unfilled += s.countSplitRange(gi, fi, v, u, next-1)
+					sc.piece[0] = append(sc.piece[0], int32(u), int32(next))
+				case spans[top].kind == spanHidden:
+					unfilled += next - u
+					row := dv.Pix[v*dv.Stride:]
+					for j := 3 * u; j < 3*next; j++ {
+						row[j] = NeutralGrey
+					}
+				default:
+					k := spans[top].kind
+					sc.piece[1+k] = append(sc.piece[1+k], int32(u), int32(next))
+				}
+				u = next
+			}
+			if i < len(ev) {
+				k := int32(ev[i]&0xffffffff) >> 1
+				if ev[i]&1 == 1 {
+					act = append(act, k)
+				} else if j := slices.Index(act, k); j >= 0 {
+					act = slices.Delete(act, j, j+1)
+				}
+			}
+		}
+		sc.active = act
+		for k := 0; k < nk; k++ {
+			sc.ptr[k] = append(sc.ptr[k], int32(len(sc.piece[k])/2))
+		}
+	}
+	// 4. Warp each piece once.
+	for i := range sc.order {
+		if len(sc.piece[1+i]) > 0 {
+			if _, err := warpBGRSpans(dv, sv, sc.inv[i], 0, 0, sc.ptr[1+i], sc.piece[1+i], NeutralGrey, warpPathBest); err != nil {
+				return out, err
+			}
+		}
+	}
+	if err := s.warpBackground(dv, sv, gi, fi, sc.ptr[0], sc.piece[0]); err != nil {
+		return out, err
+	}
+	out.UnfilledPixels = unfilled
+	out.UnfilledFraction = float64(unfilled) / float64(w*h)
+	out.UprightSegments = len(sc.order)
+	return out, nil
+}
+
+// warpBackground warps the background pieces (rowptr, spans over all rows):
+// far map above the band, ground map below it, both blended in the band.
+func (s *Synthesizer) warpBackground(dv, sv bgrView, gi, fi Homography, rowptr, spans []int32) error {
+	h, w := s.cam.Height, s.cam.Width
+	a, b := s.rowA, s.rowB
+	if a > 0 {
+		if _, err := warpBGRSpans(dv.rows(0, a), sv, fi, 0, 0, rowptr[0:a+1], spans, NeutralGrey, warpPathBest); err != nil {
+			return err
+		}
+	}
+	if b < h {
+		if _, err := warpBGRSpans(dv.rows(b, h), sv, gi, 0, b, rowptr[b:h+1], spans, NeutralGrey, warpPathBest); err != nil {
+			return err
+		}
+	}
+	if b <= a {
+		return nil
+	}
+	bg, err := matView(&s.bandG)
+	if err != nil {
+		return fmt.Errorf("band buffer: %w", err)
+	}
+	bf, err := matView(&s.bandF)
+	if err != nil {
+		return fmt.Errorf("band buffer: %w", err)
+	}
+	if _, err := warpBGRSpans(bg, sv, gi, 0, a, rowptr[a:b+1], spans, NeutralGrey, warpPathBest); err != nil {
+		return err
+	}
+	if _, err := warpBGRSpans(bf, sv, fi, 0, a, rowptr[a:b+1], spans, NeutralGrey, warpPathBest); err != nil {
+		return err
+	}
+	for v := a; v < b; v++ {
+		r := v - a
+		gr, fr := bg.Pix[r*bg.Stride:], bf.Pix[r*bf.Stride:]
+		out := dv.Pix[v*dv.Stride:]
+		wts := s.weights[r*w : (r+1)*w]
+		for i := rowptr[v]; i < rowptr[v+1]; i++ {
+			for u := int(spans[2*i]); u < int(spans[2*i+1]); u++ {
+				blendPixel(out, gr, fr, 3*u, wts[u])
+			}
+		}
+	}
+	return nil
+}
+
+// countSplitRange counts the unfilled pixels of columns [x0, x1] of row v
+// of the background warp (ground map gi on and below the horizon, far map
+// fi above it), as countSplit does for whole rows.
+func (s *Synthesizer) countSplitRange(gi, fi Homography, v, x0, x1 int) int {
+	if x0 > x1 {
+		return 0
+	}
+	w, h := s.cam.Width, s.cam.Height
+	if gi == fi {
+		return (x1 - x0 + 1) - validCount(fi, v, x0, x1, w, h)
+	}
+	hz := s.horizon
+	glo, ghi := halfLine(hz.A, hz.B*float64(v)+hz.C, x0, x1)
+	if glo > ghi {
+		return (x1 - x0 + 1) - validCount(fi, v, x0, x1, w, h)
+	}
+	n := (ghi - glo + 1) - validCount(gi, v, glo, ghi, w, h)
+	if glo > x0 {
+		n += (glo - x0) - validCount(fi, v, x0, glo-1, w, h)
+	}
+	if ghi < x1 {
+		n += (x1 - ghi) - validCount(fi, v, ghi+1, x1, w, h)
+	}
+	return n
+}
+
+// quadSpans maps the convex source quadrilateral q (pixel coordinates, in
+// order around it) with the forward homography hm and writes, for each
+// destination row v in the returned range [r0, r1), the columns [lo, hi) of
+// pixel centres inside the image quadrilateral, clipped to [0, w) (lo == hi
+// when none) into spans[2v], spans[2v+1]. ok is false, writing nothing, if
+// a corner maps to infinity or behind the camera (the image would not be a
+// bounded convex quadrilateral).
+func quadSpans(hm Homography, q [4][2]float64, w, h int, spans []int32) (r0, r1 int, ok bool) {
+	var p [4][2]float64
+	ymin, ymax := math.Inf(1), math.Inf(-1)
+	for i, c := range q {
+		x, y, ok := hm.Apply(c[0], c[1])
+		if !ok || math.Abs(x) > 1e7 || math.Abs(y) > 1e7 {
+			return 0, 0, false
+		}
+		p[i] = [2]float64{x, y}
+		ymin, ymax = math.Min(ymin, y), math.Max(ymax, y)
+	}
+	r0 = int(math.Max(0, math.Ceil(ymin)))
+	r1 = int(math.Min(float64(h), math.Floor(ymax)+1))
+	for v := r0; v < r1; v++ {
+		fv := float64(v)
+		lo, hi := math.Inf(1), math.Inf(-1)
+		for i := 0; i < 4; i++ {
+			a, b := p[i], p[(i+1)%4]
+			if (a[1] > fv) == (b[1] > fv) {
+				if a[1] == fv {
+					lo, hi = math.Min(lo, a[0]), math.Max(hi, a[0])
+				}
+				continue
+			}
+			x := a[0] + (fv-a[1])*(b[0]-a[0])/(b[1]-a[1])
+			lo, hi = math.Min(lo, x), math.Max(hi, x)
+		}
+		l, r := int32(0), int32(0)
+		if lo <= hi {
+			l = int32(math.Max(0, math.Ceil(lo)))
+			r = int32(math.Min(float64(w), math.Floor(hi)+1))
+			if l > r {
+				l = r
+			}
+		}
+		spans[2*v], spans[2*v+1] = l, r
+	}
+	return r0, max(r0, r1), true
+}
