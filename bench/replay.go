@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"image"
 	"log/slog"
 	"math"
 	"os"
@@ -51,6 +52,12 @@ type ReplayConfig struct {
 	// AllowanceMs is the display clock's jitter allowance past a frame's
 	// nominal arrival; 0 means DefaultAllowanceMs, negative is an error.
 	AllowanceMs float64
+	// Telemetry says how telemetry without recorded arrival times reaches
+	// the filter; the zero value shares the fate of the video.
+	Telemetry TelemetryLink
+	// Confidence is the confidence model (its tolerance is also the
+	// calibration criterion); the zero value uses the defaults.
+	Confidence predictor.ConfidenceModel
 
 	// Examples is how many example ticks the report shows side by side;
 	// 0 means DefaultExamples, negative means none.
@@ -190,6 +197,33 @@ func SampleFromRow(r recording.TelemetryRow) filter.Sample {
 //
 // Nothing is written to cfg.Out unless the whole replay succeeds.
 func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
+	if cfg.Drive == "" || cfg.Out == "" {
+		return Summary{}, fmt.Errorf("replay: both a drive directory and an output directory are needed: %w", ErrReplayInput)
+	}
+	if !cfg.Overwrite {
+		if err := checkFreshOut(cfg.Out); err != nil {
+			return Summary{}, err
+		}
+	}
+	sum, rows, examples, err := replayDrive(ctx, cfg)
+	defer func() {
+		for _, e := range examples {
+			closeExample(e)
+		}
+	}()
+	if err != nil {
+		return Summary{}, err
+	}
+	if err := (ReportWriter{Overwrite: cfg.Overwrite}).Write(cfg.Out, sum, rows, examples); err != nil {
+		return Summary{}, fmt.Errorf("replay: writing the report: %w", err)
+	}
+	return sum, nil
+}
+
+// replayDrive runs the replay of cfg.Drive without writing anything and
+// returns the summary, every tick and the example ticks (owned by the
+// caller, also on error: close them with closeExample).
+func replayDrive(ctx context.Context, cfg ReplayConfig) (sum Summary, rows []TickRow, examples []Example, err error) {
 	log := cfg.Logger
 	if log == nil {
 		log = slog.Default()
@@ -198,14 +232,20 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 	if now == nil {
 		now = time.Now
 	}
-	if cfg.Drive == "" || cfg.Out == "" {
-		return Summary{}, fmt.Errorf("replay: both a drive directory and an output directory are needed: %w", ErrReplayInput)
+	if cfg.Drive == "" {
+		return Summary{}, nil, nil, fmt.Errorf("replay: a drive directory is needed: %w", ErrReplayInput)
+	}
+	if err := cfg.Telemetry.Validate(); err != nil {
+		return Summary{}, nil, nil, fmt.Errorf("replay: %w", err)
+	}
+	if err := cfg.Confidence.Validate(); err != nil {
+		return Summary{}, nil, nil, fmt.Errorf("replay: %w", err)
 	}
 	if err := cfg.Policy.Validate(); err != nil {
-		return Summary{}, fmt.Errorf("replay: %w", err)
+		return Summary{}, nil, examples, fmt.Errorf("replay: %w", err)
 	}
 	if cfg.AllowanceMs < 0 || math.IsNaN(cfg.AllowanceMs) || math.IsInf(cfg.AllowanceMs, 0) {
-		return Summary{}, fmt.Errorf("replay: jitter allowance %v ms must be a finite number >= 0: %w", cfg.AllowanceMs, ErrReplayInput)
+		return Summary{}, nil, examples, fmt.Errorf("replay: jitter allowance %v ms must be a finite number >= 0: %w", cfg.AllowanceMs, ErrReplayInput)
 	}
 	allowanceMs := cfg.AllowanceMs
 	if allowanceMs == 0 {
@@ -215,25 +255,19 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 	if nExamples == 0 {
 		nExamples = DefaultExamples
 	}
-	if !cfg.Overwrite {
-		if err := checkFreshOut(cfg.Out); err != nil {
-			return Summary{}, err
-		}
-	}
-
 	rec, err := recording.Open(cfg.Drive)
 	if err != nil {
-		return Summary{}, fmt.Errorf("replay: %w", err)
+		return Summary{}, nil, examples, fmt.Errorf("replay: %w", err)
 	}
 	for _, w := range rec.Warnings {
 		log.Warn("recording tolerated", "drive", cfg.Drive, "warning", w)
 	}
 	if len(rec.Frames) == 0 {
-		return Summary{}, fmt.Errorf("replay: %s has no frames: %w", filepath.Join(cfg.Drive, "frames.csv"), ErrReplayInput)
+		return Summary{}, nil, examples, fmt.Errorf("replay: %s has no frames: %w", filepath.Join(cfg.Drive, "frames.csv"), ErrReplayInput)
 	}
 	cam := predictor.CameraFromRecording(rec.Camera)
 	if err := cam.Validate(); err != nil {
-		return Summary{}, fmt.Errorf("replay: %s: %w", filepath.Join(cfg.Drive, "camera.json"), err)
+		return Summary{}, nil, examples, fmt.Errorf("replay: %s: %w", filepath.Join(cfg.Drive, "camera.json"), err)
 	}
 
 	captureUs := make([]int64, len(rec.Frames))
@@ -242,11 +276,11 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 	}
 	arrivalUs, deadlineUs, err := replayArrivals(cfg, rec, captureUs)
 	if err != nil {
-		return Summary{}, err
+		return Summary{}, nil, examples, err
 	}
 	sched, err := NewSchedule(captureUs, arrivalUs, int64(math.Round(allowanceMs*1000)))
 	if err != nil {
-		return Summary{}, fmt.Errorf("replay: %w", err)
+		return Summary{}, nil, examples, fmt.Errorf("replay: %w", err)
 	}
 	sched.RecordedDeadlineUs = deadlineUs
 
@@ -256,9 +290,21 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 	}
 	flt, err := filter.New(fcfg)
 	if err != nil {
-		return Summary{}, fmt.Errorf("replay: filter: %w", err)
+		return Summary{}, nil, examples, fmt.Errorf("replay: filter: %w", err)
 	}
 	telArr := telemetryArrivals(rec.Telemetry, sched)
+	if cfg.Telemetry.Own {
+		times := make([]int64, len(rec.Telemetry))
+		for i, row := range rec.Telemetry {
+			times[i] = row.TimeUs
+		}
+		own := cfg.Telemetry.ownChannelArrivals(times, sched.LatencyUs)
+		for i, row := range rec.Telemetry {
+			if !row.HasArrival {
+				telArr[i] = own[i]
+			}
+		}
+	}
 	telOrder := make([]int, 0, len(telArr))
 	for i, a := range telArr {
 		if a != NeverArrivesUs {
@@ -269,30 +315,24 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 
 	frames, err := newFrameSource(rec, cam.Width, cam.Height)
 	if err != nil {
-		return Summary{}, fmt.Errorf("replay: %w", err)
+		return Summary{}, nil, examples, fmt.Errorf("replay: %w", err)
 	}
 	defer frames.Close()
 
-	r, err := newReplayer(cam, cfg.Policy, flt, now)
+	r, err := newReplayer(cam, cfg.Policy, cfg.Confidence, flt, now)
 	if err != nil {
-		return Summary{}, fmt.Errorf("replay: %w", err)
+		return Summary{}, nil, examples, fmt.Errorf("replay: %w", err)
 	}
 	defer r.Close()
 
 	var acc Accumulator
-	rows := make([]TickRow, 0, len(captureUs))
-	var examples []Example
-	defer func() {
-		for _, e := range examples {
-			closeExample(e)
-		}
-	}()
+	rows = make([]TickRow, 0, len(captureUs))
 	exampleBuckets := map[string]bool{}
 	nextTel := 0
 	total := len(captureUs)
 	for k := 0; k < total; k++ {
 		if err := ctx.Err(); err != nil {
-			return Summary{}, fmt.Errorf("replay: stopped at tick %d of %d: %w", k, total, err)
+			return Summary{}, nil, examples, fmt.Errorf("replay: stopped at tick %d of %d: %w", k, total, err)
 		}
 		deadline := sched.DeadlineUs(k)
 		for ; nextTel < len(telOrder) && telArr[telOrder[nextTel]] <= deadline; nextTel++ {
@@ -312,7 +352,7 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 		} else {
 			row, err = r.missing(k, sched, frames, rec)
 			if err != nil {
-				return Summary{}, fmt.Errorf("replay: tick %d (frame %d, t_capture_us %d): %w", k, k, captureUs[k], err)
+				return Summary{}, nil, examples, fmt.Errorf("replay: tick %d (frame %d, t_capture_us %d): %w", k, k, captureUs[k], err)
 			}
 			if b := bucketLabel(row.AgeMs) + "/" + row.State; len(examples) < nExamples && !exampleBuckets[b] && r.truthImg.Ptr() != nil {
 				exampleBuckets[b] = true
@@ -320,7 +360,7 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 			}
 		}
 		if err := acc.Add(row); err != nil {
-			return Summary{}, fmt.Errorf("replay: tick %d: %w", k, err)
+			return Summary{}, nil, examples, fmt.Errorf("replay: tick %d: %w", k, err)
 		}
 		rows = append(rows, row)
 		if cfg.Progress != nil {
@@ -328,7 +368,9 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 		}
 	}
 
-	sum := acc.Summary()
+	sum = acc.Summary()
+	sum.Calibration, sum.CalibrationTruth = acc.CalibrationAt(cfg.Confidence.Tolerance())
+	sum.Telemetry = cfg.Telemetry
 	sum.Drive = cfg.Drive
 	sum.Cutoff = cfg.Policy.CutoffConfidence
 	sum.MaxAgeMs = cfg.Policy.MaxAgeMs
@@ -340,10 +382,7 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 	sum.LatencyMs = float64(sched.LatencyUs) / 1000
 	sum.FilterModel = fcfg.Model.String()
 	sum.TelemetryRejected = int(flt.Rejected().Total())
-	if err := (ReportWriter{Overwrite: cfg.Overwrite}).Write(cfg.Out, sum, rows, examples); err != nil {
-		return Summary{}, fmt.Errorf("replay: writing the report: %w", err)
-	}
-	return sum, nil
+	return sum, rows, examples, nil
 }
 
 // replayArrivals returns each frame's arrival time: recorded (cfg.ArrivalsFile)
@@ -435,15 +474,21 @@ type replayer struct {
 	held    int // frame index the filler holds, -1 if none
 	pending int // newest LIVE frame not yet loaded into the filler, -1 if none
 
-	shown, unlabelled, rotation, scratch gocv.Mat
+	shown, unlabelled, rotation, scratch, warp gocv.Mat
+
+	cam    predictor.Camera
+	cm     predictor.ConfidenceModel
+	meter  *MisalignmentMeter
+	region image.Rectangle
+	refs   [][2]float64
 
 	// truthImg and heldImg are the images of the tick just scored, borrowed
 	// from the frame source until its next Get.
 	truthImg, heldImg gocv.Mat
 }
 
-func newReplayer(cam predictor.Camera, pol predictor.Policy, flt *filter.Filter, now func() time.Time) (*replayer, error) {
-	filler, err := predictor.NewFiller(predictor.FillerConfig{Camera: cam, Policy: pol, Motion: flt})
+func newReplayer(cam predictor.Camera, pol predictor.Policy, cm predictor.ConfidenceModel, flt *filter.Filter, now func() time.Time) (*replayer, error) {
+	filler, err := predictor.NewFiller(predictor.FillerConfig{Camera: cam, Policy: pol, Motion: flt, Confidence: cm})
 	if err != nil {
 		return nil, err
 	}
@@ -454,7 +499,8 @@ func newReplayer(cam predictor.Camera, pol predictor.Policy, flt *filter.Filter,
 	}
 	r := &replayer{
 		filler: filler, synth: synth, scorer: NewScorer(), now: now, held: -1, pending: -1,
-		shown: gocv.NewMat(), unlabelled: gocv.NewMat(), rotation: gocv.NewMat(), scratch: gocv.NewMat(),
+		shown: gocv.NewMat(), unlabelled: gocv.NewMat(), rotation: gocv.NewMat(), scratch: gocv.NewMat(), warp: gocv.NewMat(),
+		cam: cam, cm: cm, meter: NewMisalignmentMeter(), region: RoadRegion(cam), refs: ReferencePixels(cam, cm),
 	}
 	filler.Now = now
 	filler.Unlabelled = &r.unlabelled
@@ -474,7 +520,8 @@ func (r *replayer) Close() {
 	r.filler.Close()
 	r.synth.Close()
 	r.scorer.Close()
-	for _, m := range []gocv.Mat{r.shown, r.unlabelled, r.rotation, r.scratch} {
+	r.meter.Close()
+	for _, m := range []gocv.Mat{r.shown, r.unlabelled, r.rotation, r.scratch, r.warp} {
 		m.Close()
 	}
 }
@@ -509,6 +556,19 @@ func (r *replayer) missing(k int, s Schedule, frames *frameSource, rec *recordin
 	}
 	row := NewTickRow(k, s.CaptureUs[k], tick.State.String(), tick.AgeMs)
 	row.Confidence = tick.Confidence
+	if tick.MotionErr == nil {
+		row.SigmaPx = tick.SigmaPx
+		if j := r.held; j >= 0 && j < len(rec.Truth) && k < len(rec.Truth) {
+			t0, t1 := rec.Truth[j], rec.Truth[k]
+			c, sn := math.Cos(t0.YawRad), math.Sin(t0.YawRad)
+			dx, dy := t1.XM-t0.XM, t1.YM-t0.YM
+			tr := [3]float64{c*dx + sn*dy, -sn*dx + c*dy, math.Remainder(t1.YawRad-t0.YawRad, 2*math.Pi)}
+			pred := [3]float64{tick.Motion.DxM, tick.Motion.DyM, tick.Motion.DyawRad}
+			if px, err := TruthMisalignmentPx(r.cam, r.cm, pred, tr); err == nil {
+				row.TruthMisalignMrad = PxToMrad(px, r.cam.Fx)
+			}
+		}
+	}
 	row.LabelShare = tick.LabelFraction
 	if tick.State == predictor.StatePredicted {
 		row.SynthMs = float64(tick.SynthDuration) / float64(time.Millisecond)
@@ -546,6 +606,27 @@ func (r *replayer) missing(k int, s Schedule, frames *frameSource, rec *recordin
 	}
 	if row.Rotation, err = r.scorer.Score(r.rotation, truth); err != nil {
 		return TickRow{}, fmt.Errorf("scoring rotation: %w", err)
+	}
+	// The prediction itself, shown or not: scores and misalignment.
+	if tick.MotionErr == nil {
+		warp := r.unlabelled
+		if tick.State != predictor.StatePredicted {
+			if _, _, err := r.filler.WarpHeld(tick.Motion, &r.warp); err != nil {
+				return TickRow{}, fmt.Errorf("warping the held frame: %w", err)
+			}
+			warp = r.warp
+			if row.Warp, err = r.scorer.Score(warp, truth); err != nil {
+				return TickRow{}, fmt.Errorf("scoring the warp: %w", err)
+			}
+		} else {
+			row.Warp = row.Predicted
+		}
+		mm, err := r.meter.Measure(warp, truth, r.region, r.refs)
+		if err != nil {
+			return TickRow{}, err
+		}
+		row.MisalignPx = mm.MaxPx
+		row.MisalignMrad = PxToMrad(mm.MaxPx, r.cam.Fx)
 	}
 	return row, nil
 }
