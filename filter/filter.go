@@ -78,6 +78,26 @@ type Config struct {
 	// SteerRateNoiseRps is the bicycle process noise of steer: a random
 	// steer rate, piecewise constant over each step. Default 0.3 rad/s.
 	SteerRateNoiseRps float64
+
+	// TurnAdaptWindowUs is the window of the adaptive turn noise (CTRV):
+	// when Relative extrapolates past the newest applied sample (a gap),
+	// the yaw-acceleration noise of that step is
+	//
+	//	sqrt(YawAccelNoiseRps2² + (TurnAdaptGain · |â|)²)
+	//
+	// with â the yaw acceleration the telemetry showed over the window
+	// before that sample: the mean yaw rate of the window's newer half
+	// minus that of its older half, over the time between their mean
+	// sample times. A vehicle that is changing its turn rate is likely to
+	// keep doing so during the gap, and the prediction (constant turn
+	// rate) cannot foresee it. Default 1 s.
+	TurnAdaptWindowUs int64
+	// TurnAdaptGain scales |â| (see TurnAdaptWindowUs). Default 1: a
+	// constant yaw acceleration â over a gap of τ gives a yaw error of
+	// â τ²/2, exactly one standard deviation of the step's noise.
+	TurnAdaptGain float64
+	// TurnAdaptOff switches the adaptive turn noise off.
+	TurnAdaptOff bool
 }
 
 // Defaults used for zero Config fields.
@@ -93,6 +113,8 @@ const (
 	DefaultAccelInputNoiseMps2 = 0.5
 	DefaultYawAccelNoiseRps2   = 0.5
 	DefaultSteerRateNoiseRps   = 0.3
+	DefaultTurnAdaptWindowUs   = 1_000_000
+	DefaultTurnAdaptGain       = 1.0
 )
 
 // maxWindowUs bounds HistoryUs and MaxGapUs (60 s) so that step lengths stay
@@ -125,6 +147,7 @@ func (c Config) withDefaults() (Config, error) {
 		{"AccelInputNoiseMps2", &c.AccelInputNoiseMps2, DefaultAccelInputNoiseMps2},
 		{"YawAccelNoiseRps2", &c.YawAccelNoiseRps2, DefaultYawAccelNoiseRps2},
 		{"SteerRateNoiseRps", &c.SteerRateNoiseRps, DefaultSteerRateNoiseRps},
+		{"TurnAdaptGain", &c.TurnAdaptGain, DefaultTurnAdaptGain},
 	}
 	for _, f := range floats {
 		if math.IsNaN(*f.v) || math.IsInf(*f.v, 0) || *f.v < 0 || *f.v > 1e6 {
@@ -147,6 +170,7 @@ func (c Config) withDefaults() (Config, error) {
 	}{
 		{"HistoryUs", &c.HistoryUs, DefaultHistoryUs},
 		{"MaxGapUs", &c.MaxGapUs, DefaultMaxGapUs},
+		{"TurnAdaptWindowUs", &c.TurnAdaptWindowUs, DefaultTurnAdaptWindowUs},
 	}
 	for _, f := range ints {
 		if *f.v < 0 || *f.v > maxWindowUs {
@@ -404,6 +428,7 @@ func (f *Filter) Relative(t0Us, t1Us int64) (Motion, error) {
 	}
 	ctl := f.sampleAt(idx)
 	cur := t0Us
+	applied := idx
 	for j := idx + 1; j < f.hist.len(); j++ {
 		e := f.hist.at(j)
 		if e.s.TimeUs > t1Us {
@@ -411,9 +436,16 @@ func (f *Filter) Relative(t0Us, t1Us int64) (Motion, error) {
 		}
 		f.step(diffUs(e.s.TimeUs, cur), ctl, false)
 		f.update(&e.s)
-		cur, ctl = e.s.TimeUs, &e.s
+		cur, ctl, applied = e.s.TimeUs, &e.s, j
 	}
-	f.step(diffUs(t1Us, cur), ctl, false)
+	if f.cfg.Model == ModelCTRV && !f.cfg.TurnAdaptOff && applied >= 0 {
+		base := f.kin.turnNoise
+		f.kin.turnNoise = math.Hypot(base, f.cfg.TurnAdaptGain*f.yawAccelBefore(applied))
+		f.step(diffUs(t1Us, cur), ctl, false)
+		f.kin.turnNoise = base
+	} else {
+		f.step(diffUs(t1Us, cur), ctl, false)
+	}
 
 	var st [StateDim]float64
 	copy(st[:], x)
