@@ -79,11 +79,18 @@ type Config struct {
 	// steer rate, piecewise constant over each step. Default 0.3 rad/s.
 	SteerRateNoiseRps float64
 
+	// GapYawAccelNoiseRps2 is the CTRV yaw-acceleration noise of the step
+	// by which Relative extrapolates past the newest applied sample (a
+	// gap), before the adaptive term below; YawAccelNoiseRps2 keeps
+	// governing how the filter tracks between samples. It is fitted to
+	// driving data by the likelihood of the true heading change over gaps
+	// (bench.FitTurnNoise); see DefaultGapYawAccelNoiseRps2.
+	GapYawAccelNoiseRps2 float64
 	// TurnAdaptWindowUs is the window of the adaptive turn noise (CTRV):
 	// when Relative extrapolates past the newest applied sample (a gap),
 	// the yaw-acceleration noise of that step is
 	//
-	//	sqrt(YawAccelNoiseRps2² + (TurnAdaptGain · |â|)²)
+	//	sqrt(GapYawAccelNoiseRps2² + (TurnAdaptGain · |â|)²)
 	//
 	// with â the yaw acceleration the telemetry showed over the window
 	// before that sample: the mean yaw rate of the window's newer half
@@ -96,7 +103,8 @@ type Config struct {
 	// constant yaw acceleration â over a gap of τ gives a yaw error of
 	// â τ²/2, exactly one standard deviation of the step's noise.
 	TurnAdaptGain float64
-	// TurnAdaptOff switches the adaptive turn noise off.
+	// TurnAdaptOff switches the adaptive turn noise off (the gap step then
+	// uses YawAccelNoiseRps2 like every other step).
 	TurnAdaptOff bool
 }
 
@@ -114,6 +122,11 @@ const (
 	DefaultYawAccelNoiseRps2   = 0.5
 	DefaultSteerRateNoiseRps   = 0.3
 	DefaultTurnAdaptWindowUs   = 1_000_000
+	// DefaultGapYawAccelNoiseRps2 was fitted with bench.FitTurnNoise on
+	// simulated drives (bench/simdrive seeds 1 and 2, and seeds 11 and 12
+	// with a 0.5 rad/s pan reversing every 2 s; 320x180, 20 s each) over
+	// gaps of 33 to 400 ms; see README "What the confidence means".
+	DefaultGapYawAccelNoiseRps2 = 0.3
 	DefaultTurnAdaptGain       = 1.0
 )
 
@@ -148,6 +161,7 @@ func (c Config) withDefaults() (Config, error) {
 		{"YawAccelNoiseRps2", &c.YawAccelNoiseRps2, DefaultYawAccelNoiseRps2},
 		{"SteerRateNoiseRps", &c.SteerRateNoiseRps, DefaultSteerRateNoiseRps},
 		{"TurnAdaptGain", &c.TurnAdaptGain, DefaultTurnAdaptGain},
+		{"GapYawAccelNoiseRps2", &c.GapYawAccelNoiseRps2, DefaultGapYawAccelNoiseRps2},
 	}
 	for _, f := range floats {
 		if math.IsNaN(*f.v) || math.IsInf(*f.v, 0) || *f.v < 0 || *f.v > 1e6 {
@@ -440,7 +454,7 @@ func (f *Filter) Relative(t0Us, t1Us int64) (Motion, error) {
 	}
 	if f.cfg.Model == ModelCTRV && !f.cfg.TurnAdaptOff && applied >= 0 {
 		base := f.kin.turnNoise
-		f.kin.turnNoise = math.Hypot(base, f.cfg.TurnAdaptGain*f.yawAccelBefore(applied))
+		f.kin.turnNoise = math.Hypot(f.cfg.GapYawAccelNoiseRps2, f.cfg.TurnAdaptGain*f.yawAccelBefore(applied))
 		f.step(diffUs(t1Us, cur), ctl, false)
 		f.kin.turnNoise = base
 	} else {
