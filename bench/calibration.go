@@ -47,10 +47,10 @@ type PredictedOnly struct {
 
 // CalibrationBin is one bar of the reliability diagram.
 type CalibrationBin struct {
-	Lo       float64 `json:"lo"`                  // confidence range [Lo, Hi) ([Lo, Hi] for the last bin)
+	Lo       float64 `json:"lo"` // confidence range [Lo, Hi) ([Lo, Hi] for the last bin)
 	Hi       float64 `json:"hi"`
-	Frames   int     `json:"frames"`            // ticks whose confidence fell in the bin
-	ConfMean Float   `json:"confidence_mean"`   // mean confidence of those ticks
+	Frames   int     `json:"frames"`              // ticks whose confidence fell in the bin
+	ConfMean Float   `json:"confidence_mean"`     // mean confidence of those ticks
 	Observed Float   `json:"observed_good_share"` // share of those ticks that met the criterion
 }
 

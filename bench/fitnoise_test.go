@@ -26,4 +26,3 @@ func TestFitTurnNoiseDrives(t *testing.T) {
 		t.Logf("yaw accel noise %.3f rad/s^2: NLL %.4f over %d predictions %s", f.GapYawAccelNoiseRps2, f.NLL, f.Predictions, map[bool]string{true: "<- best"}[i == best])
 	}
 }
-

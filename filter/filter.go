@@ -127,7 +127,7 @@ const (
 	// with a 0.5 rad/s pan reversing every 2 s; 320x180, 20 s each) over
 	// gaps of 33 to 400 ms; see README "What the confidence means".
 	DefaultGapYawAccelNoiseRps2 = 0.3
-	DefaultTurnAdaptGain       = 1.0
+	DefaultTurnAdaptGain        = 1.0
 )
 
 // maxWindowUs bounds HistoryUs and MaxGapUs (60 s) so that step lengths stay
