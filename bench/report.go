@@ -742,6 +742,12 @@ func (w ReportWriter) writeAll(dir string, s Summary, ticks []TickRow, examples 
 		func(sc Scores) float64 { return sc.SSIM }, func(b BucketStats) Float { return b.SSIMMean }); err != nil {
 		return err
 	}
+	if err := writeReliabilityPlot(filepath.Join(dir, ReliabilityPlotFile), s.Calibration, s.CalibrationTruth); err != nil {
+		return err
+	}
+	if err := writeConfidenceScatter(filepath.Join(dir, ConfidencePlotFile), ticks, s.Calibration.ToleranceMrad); err != nil {
+		return err
+	}
 	figs, err := w.writeExamples(dir, ticks, examples)
 	if err != nil {
 		return err
@@ -1057,6 +1063,24 @@ Gap age is the time since the capture of the newest real frame.</p>
 {{range .Methods}}<tr><td class="l"><b>{{.Name}}</b></td><td>all</td><td>{{.Stats.Frames}}</td><td>{{f .Stats.PSNRdBMean 2}}</td><td>{{f .Stats.SSIMMean 4}}</td><td>{{f .Stats.MAEMean 2}}</td></tr>
 {{range .Stats.Buckets}}<tr><td></td><td>{{.Bucket}} ms</td><td>{{.Frames}}</td><td>{{f .PSNRdBMean 2}}</td><td>{{f .SSIMMean 4}}</td><td>{{f .MAEMean 2}}</td></tr>
 {{end}}{{end}}</table>
+
+<h2>PREDICTED ticks alone</h2>
+<p>The "predicted" rows above show what the operator saw on every missing tick (the held frame when STALE).
+Over the {{.S.PredictedOnly.Frames}} PREDICTED ticks alone: PSNR {{f .S.PredictedOnly.PSNRdBMean 2}} dB (hold on the same ticks
+{{f .S.PredictedOnly.HoldPSNRdBMean 2}} dB), SSIM {{f .S.PredictedOnly.SSIMMean 4}} (hold {{f .S.PredictedOnly.HoldSSIMMean 4}}).
+Harm rate (worse than hold): {{pct .S.PredictedOnly.HarmRatePSNR}} by more than 1 dB PSNR, {{pct .S.PredictedOnly.HarmRateSSIM}} by more than 0.01 SSIM.
+Telemetry: {{if .S.Telemetry.Own}}on its own channel, loss rate {{.S.Telemetry.LossRate}}{{else}}shares the fate of the video{{end}}.</p>
+
+<h2>Calibration of the confidence</h2>
+<p>The confidence is the probability that the reference road points of a predicted frame are within
+{{.S.Calibration.ToleranceMrad}} mrad of where they really are. Measured from the images on {{.S.Calibration.Frames}} missing ticks:
+ECE {{f .S.Calibration.ECE 3}}, Brier {{f .S.Calibration.Brier 3}}, mean confidence {{f .S.Calibration.ConfMean 3}}, observed share {{f .S.Calibration.GoodShare 3}}.
+{{if .S.CalibrationTruth.Frames}}From truth.csv on {{.S.CalibrationTruth.Frames}} ticks: ECE {{f .S.CalibrationTruth.ECE 3}}, Brier {{f .S.CalibrationTruth.Brier 3}}.{{end}}</p>
+<table><tr><th>confidence bin</th><th>frames</th><th>mean confidence</th><th>observed share</th></tr>
+{{range .S.Calibration.Bins}}<tr><td>{{printf "%.1f" .Lo}}-{{printf "%.1f" .Hi}}</td><td>{{.Frames}}</td><td>{{f .ConfMean 3}}</td><td>{{f .Observed 3}}</td></tr>
+{{end}}</table>
+<p><img src="reliability.png" alt="reliability diagram"></p>
+<p><img src="confidence_vs_misalignment.png" alt="confidence against measured misalignment"></p>
 
 <h2>Figures</h2>
 <p><img src="{{.PSNRPlot}}" alt="PSNR against gap age for hold, rotation and predicted"></p>

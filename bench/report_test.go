@@ -298,8 +298,8 @@ func TestWriteReport(t *testing.T) {
 		}
 		// Every referenced image exists and decodes.
 		refs := regexp.MustCompile(`src="([^"]+)"`).FindAllStringSubmatch(page, -1)
-		if len(refs) != 5 {
-			t.Errorf("%d image references, want 5 (2 plots + 3 example frames)", len(refs))
+		if len(refs) != 7 {
+			t.Errorf("%d image references, want 7 (2 age plots, reliability, confidence scatter + 3 example frames)", len(refs))
 		}
 		for _, r := range refs {
 			f, err := os.Open(filepath.Join(dir, r[1]))
