@@ -43,6 +43,7 @@ func commands() []command {
 		{"demo", "run the built-in demo: live relay and simulated vehicle (--offline: replay and report)", runDemo},
 		{"simdrive", "write a synthetic drive recording with exact ground truth", runSimdrive},
 		{"replay", "replay a recording with recorded or modelled drops and score every gap", runReplay},
+		{"tune", "sweep the confidence cutoff over replayed drives and recommend one for a tolerance", runTune},
 		{"relay", "run the live relay between the vehicle and the operator console", runRelay},
 	}
 }
