@@ -37,11 +37,12 @@ type Config struct {
 	FacadeSetbackM float64
 
 	// PanYawRateRps, when not zero, adds a yaw rate of this amplitude
-	// (rad/s) that reverses every half PanPeriodS,
-	// PanYawRateRps·sin(2π t / PanPeriodS), on top of the curves: a weaving
-	// drive whose camera pans left then right, to test predictions at
-	// reversals of the turn rate. PanPeriodS defaults to 4 s (a reversal
-	// every 2 s).
+	// (rad/s) that reverses every half PanPeriodS on top of the curves: a
+	// smoothed square wave, tanh(3 sin(2π t / PanPeriodS))/tanh(3), that
+	// holds near ±PanYawRateRps and swings from -90 % to +90 % of it in
+	// about a sixth of the period. A weaving drive whose camera pans left,
+	// then right, to test predictions at reversals of the turn rate.
+	// PanPeriodS defaults to 4 s (a reversal every 2 s).
 	PanYawRateRps float64
 	PanPeriodS    float64
 }

@@ -33,7 +33,7 @@ func newTrajectory(meanSpeedMps, durationS float64) *trajectory {
 }
 
 // newPanTrajectory is newTrajectory with an extra yaw rate
-// panRps·sin(2π t / panPeriodS) (see Config.PanYawRateRps).
+// panRps·panWave(t / panPeriodS) (see Config.PanYawRateRps).
 func newPanTrajectory(meanSpeedMps, durationS, panRps, panPeriodS float64) *trajectory {
 	tr := &trajectory{meanSpeedMps: meanSpeedMps, panRps: panRps, panPeriodS: panPeriodS}
 	n := int(math.Ceil((durationS+leadS)*1e6/float64(integStepUs))) + 1
@@ -58,7 +58,7 @@ func (tr *trajectory) AccelMps2(t float64) float64 {
 func (tr *trajectory) CurvaturePM(t float64) float64 {
 	k := curvatureMaxPM * math.Sin(2*math.Pi*t/curvePeriodS)
 	if tr.panRps != 0 {
-		k += tr.panRps * math.Sin(2*math.Pi*t/tr.panPeriodS) / tr.SpeedMps(t)
+		k += tr.panRps * panWave(t/tr.panPeriodS) / tr.SpeedMps(t)
 	}
 	return k
 }
@@ -107,3 +107,14 @@ func (tr *trajectory) PoseAt(tUs int64) pose {
 
 // endUs returns the last integrated time.
 func (tr *trajectory) endUs() int64 { return int64(len(tr.grid)-1) * integStepUs }
+
+// panSharpness shapes panWave: tanh(3 sin)/tanh(3) goes from -0.9 to +0.9
+// in about a sixth of the period.
+const panSharpness = 3
+
+// panWave is a smoothed square wave of period 1 in the phase p:
+// tanh(k sin 2πp)/tanh(k), k = panSharpness. It holds near ±1 and reverses
+// quickly, like a camera panning left, then right.
+func panWave(p float64) float64 {
+	return math.Tanh(panSharpness*math.Sin(2*math.Pi*p)) / math.Tanh(panSharpness)
+}
