@@ -16,7 +16,10 @@ var noiseFitHorizonsMs = [...]float64{33, 67, 100, 200, 400}
 
 // NoiseFit is one candidate of FitTurnNoise.
 type NoiseFit struct {
+	// The candidate's gap noise settings (see filter.Config).
 	GapYawAccelNoiseRps2 float64 `json:"gap_yaw_accel_noise_rps2"`
+	TurnAdaptGain        float64 `json:"turn_adapt_gain"`
+	TurnAdaptWindowUs    int64   `json:"turn_adapt_window_us"`
 	// NLL is the mean negative log-likelihood per prediction of the true
 	// heading change under the filter's Gaussian prediction.
 	NLL float64 `json:"nll"`
@@ -24,8 +27,9 @@ type NoiseFit struct {
 	Predictions int `json:"predictions"`
 }
 
-// FitTurnNoise fits the filter's base yaw-acceleration noise
-// (filter.Config.GapYawAccelNoiseRps2) to recorded drives with a truth.csv by
+// FitTurnNoise fits the filter's gap noise (filter.Config
+// GapYawAccelNoiseRps2, TurnAdaptGain and TurnAdaptWindowUs) to recorded
+// drives with a truth.csv by
 // maximising the likelihood of the true heading change over gaps: for every
 // frame and each horizon h of 33, 67, 100, 200 and 400 ms the filter, fed
 // with the telemetry up to the frame only (as when telemetry is lost with
@@ -38,15 +42,12 @@ type NoiseFit struct {
 // This is the innovation likelihood of the heading at the end of the gap:
 // the heading error dominates the misalignment the confidence is about
 // (the 3-D likelihood of (dx, dy, dyaw) is dominated instead by its
-// near-degenerate lateral direction, which moves pixels little). Every candidate in candidates is
-// tried with base (other fields kept); it returns all, best (lowest NLL)
-// first in the returned index.
-func FitTurnNoise(ctx context.Context, drives []string, base filter.Config, candidates []float64) (fits []NoiseFit, best int, err error) {
+// near-degenerate lateral direction, which moves pixels little). Every
+// candidate configuration is tried; it returns the fit of each and the
+// index of the best (lowest NLL).
+func FitTurnNoise(ctx context.Context, drives []string, candidates []filter.Config) (fits []NoiseFit, best int, err error) {
 	if len(drives) == 0 || len(candidates) == 0 {
 		return nil, -1, fmt.Errorf("fit: no drives or no candidate noise values: %w", ErrReplayInput)
-	}
-	if base.Model == filter.ModelInvalid {
-		base.Model = filter.ModelCTRV
 	}
 	recs := make([]*recording.Recording, len(drives))
 	for i, d := range drives {
@@ -60,13 +61,19 @@ func FitTurnNoise(ctx context.Context, drives []string, base filter.Config, cand
 		recs[i] = r
 	}
 	best = -1
-	for _, q := range candidates {
+	for _, cfg := range candidates {
 		if err := ctx.Err(); err != nil {
 			return nil, -1, err
 		}
-		cfg := base
-		cfg.GapYawAccelNoiseRps2 = q
-		fit := NoiseFit{GapYawAccelNoiseRps2: q}
+		if cfg.Model == filter.ModelInvalid {
+			cfg.Model = filter.ModelCTRV
+		}
+		probe, err := filter.New(cfg)
+		if err != nil {
+			return nil, -1, fmt.Errorf("fit: candidate: %w", err)
+		}
+		eff := probe.Config()
+		fit := NoiseFit{GapYawAccelNoiseRps2: eff.GapYawAccelNoiseRps2, TurnAdaptGain: eff.TurnAdaptGain, TurnAdaptWindowUs: eff.TurnAdaptWindowUs}
 		sum := 0.0
 		for _, r := range recs {
 			s, n, err := driveNLL(r, cfg)

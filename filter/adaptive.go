@@ -2,49 +2,51 @@ package filter
 
 import "math"
 
-// yawAccelBefore returns |â|, the magnitude of the yaw acceleration shown by
-// the measured yaw rates of the kept samples in the window of
-// Config.TurnAdaptWindowUs ending at history entry last: the difference of
-// the mean yaw rate of the newer and older halves of the window, divided by
-// the time between their mean sample times. Averaging keeps gyro noise
-// small (0.01 rad/s white noise at 100 Hz over 0.5 s halves gives about
-// 0.003 rad/s² of noise in â). It returns 0 with fewer than two samples in
-// either half. It does not allocate.
-func (f *Filter) yawAccelBefore(last int) float64 {
+// turnTrend returns the magnitudes of the yaw acceleration |â| (rad/s²) and
+// yaw jerk |ĵ| (rad/s³) shown by the measured yaw rates of the kept samples
+// in the window of Config.TurnAdaptWindowUs ending at history entry last.
+// The window is cut into three equal parts with mean yaw rates m1, m2, m3
+// at mean sample times t1, t2, t3 (oldest first):
+//
+//	â = (m3 − m2)/(t3 − t2),  ĵ = (â − (m2 − m1)/(t2 − t1)) / ((t3 − t1)/2)
+//
+// Averaging keeps gyro noise small (0.01 rad/s white noise at 100 Hz over
+// a 0.5 s window gives about 0.02 rad/s² of noise in â). Both are 0 with
+// fewer than two samples in any part. It does not allocate.
+func (f *Filter) turnTrend(last int) (accel, jerk float64) {
 	if last < 0 || last >= f.hist.len() {
-		return 0
+		return 0, 0
 	}
 	end := f.hist.at(last).s.TimeUs
-	start := end - f.cfg.TurnAdaptWindowUs
-	mid := end - f.cfg.TurnAdaptWindowUs/2
-	var nOld, nNew int
-	var rOld, rNew, tOld, tNew float64
+	w := f.cfg.TurnAdaptWindowUs
+	var n [3]int
+	var r, t [3]float64
 	for j := last; j >= 0; j-- {
 		s := &f.hist.at(j).s
-		if s.TimeUs < start {
+		age := end - s.TimeUs
+		if age > w {
 			break
 		}
-		t := float64(s.TimeUs-end) * 1e-6
-		if s.TimeUs >= mid {
-			nNew++
-			rNew += s.YawRateRps
-			tNew += t
-		} else {
-			nOld++
-			rOld += s.YawRateRps
-			tOld += t
+		k := 2 - int(min(2, 3*age/max(w, 1)))
+		n[k]++
+		r[k] += s.YawRateRps
+		t[k] += float64(-age) * 1e-6
+	}
+	for k := range n {
+		if n[k] < 2 {
+			return 0, 0
 		}
+		r[k] /= float64(n[k])
+		t[k] /= float64(n[k])
 	}
-	if nOld < 2 || nNew < 2 {
-		return 0
+	if !(t[2] > t[1] && t[1] > t[0]) {
+		return 0, 0
 	}
-	dt := tNew/float64(nNew) - tOld/float64(nOld)
-	if !(dt > 0) {
-		return 0
+	a2 := (r[2] - r[1]) / (t[2] - t[1])
+	a1 := (r[1] - r[0]) / (t[1] - t[0])
+	j := (a2 - a1) / ((t[2] - t[0]) / 2)
+	if math.IsNaN(a2) || math.IsInf(a2, 0) || math.IsNaN(j) || math.IsInf(j, 0) {
+		return 0, 0
 	}
-	a := math.Abs(rNew/float64(nNew)-rOld/float64(nOld)) / dt
-	if math.IsNaN(a) || math.IsInf(a, 0) {
-		return 0
-	}
-	return a
+	return math.Abs(a2), math.Abs(j)
 }

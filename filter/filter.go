@@ -87,21 +87,22 @@ type Config struct {
 	// (bench.FitTurnNoise); see DefaultGapYawAccelNoiseRps2.
 	GapYawAccelNoiseRps2 float64
 	// TurnAdaptWindowUs is the window of the adaptive turn noise (CTRV):
-	// when Relative extrapolates past the newest applied sample (a gap),
-	// the yaw-acceleration noise of that step is
+	// when Relative extrapolates by τ past the newest applied sample (a
+	// gap), the yaw-acceleration noise of that step is
 	//
-	//	sqrt(GapYawAccelNoiseRps2² + (TurnAdaptGain · |â|)²)
+	//	sqrt(GapYawAccelNoiseRps2² + (TurnAdaptGain · (|â| + |ĵ| τ/3))²)
 	//
-	// with â the yaw acceleration the telemetry showed over the window
-	// before that sample: the mean yaw rate of the window's newer half
-	// minus that of its older half, over the time between their mean
-	// sample times. A vehicle that is changing its turn rate is likely to
-	// keep doing so during the gap, and the prediction (constant turn
-	// rate) cannot foresee it. Default 1 s.
+	// with â and ĵ the yaw acceleration and jerk the telemetry showed over
+	// the window before that sample (see turnTrend). A vehicle that is
+	// changing its turn rate is likely to keep doing so during the gap,
+	// and the prediction (constant turn rate) cannot foresee it; a
+	// constant acceleration â gives a heading error â τ²/2 and a constant
+	// jerk ĵ one of ĵ τ³/6, which the step's piecewise-constant noise
+	// matches with â and ĵ τ/3. Default 1 s; fitted values in
+	// DefaultTurnAdaptWindowUs.
 	TurnAdaptWindowUs int64
-	// TurnAdaptGain scales |â| (see TurnAdaptWindowUs). Default 1: a
-	// constant yaw acceleration â over a gap of τ gives a yaw error of
-	// â τ²/2, exactly one standard deviation of the step's noise.
+	// TurnAdaptGain scales the adaptive term (see TurnAdaptWindowUs).
+	// Default DefaultTurnAdaptGain.
 	TurnAdaptGain float64
 	// TurnAdaptOff switches the adaptive turn noise off (the gap step then
 	// uses YawAccelNoiseRps2 like every other step).
@@ -121,12 +122,15 @@ const (
 	DefaultAccelInputNoiseMps2 = 0.5
 	DefaultYawAccelNoiseRps2   = 0.5
 	DefaultSteerRateNoiseRps   = 0.3
-	DefaultTurnAdaptWindowUs   = 1_000_000
-	// DefaultGapYawAccelNoiseRps2 was fitted with bench.FitTurnNoise on
-	// simulated drives (bench/simdrive seeds 1 and 2, and seeds 11 and 12
-	// with a 0.5 rad/s pan reversing every 2 s; 320x180, 20 s each) over
-	// gaps of 33 to 400 ms; see README "What the confidence means".
-	DefaultGapYawAccelNoiseRps2 = 0.3
+	DefaultTurnAdaptWindowUs   = 200_000
+	// DefaultGapYawAccelNoiseRps2, DefaultTurnAdaptGain and
+	// DefaultTurnAdaptWindowUs were fitted together with
+	// bench.FitTurnNoise on simulated drives (bench/simdrive seeds 1 and
+	// 2, and seeds 11 and 12 with a 0.5 rad/s pan reversing every 2 s;
+	// 320x180, 20 s, gyro noise 0.002 rad/s) over gaps of 33 to 400 ms,
+	// on the grid 0.05-0.5 rad/s², gain 1-4, window 0.2-1 s. The window
+	// is at the short end of the grid: with a noisier gyro, refit.
+	DefaultGapYawAccelNoiseRps2 = 0.15
 	DefaultTurnAdaptGain        = 1.0
 )
 
@@ -454,7 +458,9 @@ func (f *Filter) Relative(t0Us, t1Us int64) (Motion, error) {
 	}
 	if f.cfg.Model == ModelCTRV && !f.cfg.TurnAdaptOff && applied >= 0 {
 		base := f.kin.turnNoise
-		f.kin.turnNoise = math.Hypot(f.cfg.GapYawAccelNoiseRps2, f.cfg.TurnAdaptGain*f.yawAccelBefore(applied))
+		a, j := f.turnTrend(applied)
+		tau := float64(diffUs(t1Us, cur)) * 1e-6
+		f.kin.turnNoise = math.Hypot(f.cfg.GapYawAccelNoiseRps2, f.cfg.TurnAdaptGain*(a+j*tau/3))
 		f.step(diffUs(t1Us, cur), ctl, false)
 		f.kin.turnNoise = base
 	} else {
