@@ -19,9 +19,9 @@ func TestFitTurnNoiseDrives(t *testing.T) {
 	}
 	drives := filepath.SplitList(env)
 	var cands []filter.Config
-	for _, q := range []float64{0.05, 0.1, 0.15, 0.2, 0.3, 0.5} {
-		for _, g := range []float64{1, 2, 4} {
-			for _, w := range []int64{200_000, 300_000, 500_000, 1_000_000} {
+	for _, q := range []float64{0.05, 0.1, 0.15, 0.2, 0.3} {
+		for _, g := range []float64{0.25, 0.5, 1, 2} {
+			for _, w := range []int64{200_000, 300_000, 500_000} {
 				cands = append(cands, filter.Config{Model: filter.ModelCTRV, WheelbaseM: 2.7, GapYawAccelNoiseRps2: q, TurnAdaptGain: g, TurnAdaptWindowUs: w})
 			}
 		}
@@ -31,6 +31,6 @@ func TestFitTurnNoiseDrives(t *testing.T) {
 		t.Fatal(err)
 	}
 	for i, f := range fits {
-		t.Logf("gap noise %.2f rad/s^2, gain %.0f, window %d ms: NLL %.4f over %d predictions %s", f.GapYawAccelNoiseRps2, f.TurnAdaptGain, f.TurnAdaptWindowUs/1000, f.NLL, f.Predictions, map[bool]string{true: "<- best"}[i == best])
+		t.Logf("gap noise %.2f rad/s^2, gain %.2g, window %d ms: NLL %.4f over %d predictions %s", f.GapYawAccelNoiseRps2, f.TurnAdaptGain, f.TurnAdaptWindowUs/1000, f.NLL, f.Predictions, map[bool]string{true: "<- best"}[i == best])
 	}
 }
