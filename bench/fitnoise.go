@@ -10,7 +10,7 @@ import (
 	"stopgap/stream/recording"
 )
 
-// NoiseFitHorizonsMs are the gap lengths over which FitTurnNoise scores the
+// noiseFitHorizonsMs are the gap lengths over which FitTurnNoise scores the
 // filter's predictions: one to twelve frames at 30 fps.
 var noiseFitHorizonsMs = [...]float64{33, 67, 100, 200, 400}
 

@@ -177,11 +177,12 @@ func (m *MisalignmentMeter) Measure(predicted, truth gocv.Mat, region image.Rect
 	return out, nil
 }
 
-// pointsMat returns an N x 1 CV_32FC2 Mat of the interleaved x, y values.
+// pointsMat returns an N x 1 CV_32FC2 Mat of the interleaved x, y values
+// (float32 in the machine's byte order, as OpenCV reads them).
 func pointsMat(xy []float32) (gocv.Mat, error) {
 	b := make([]byte, 4*len(xy))
 	for i, v := range xy {
-		binary.LittleEndian.PutUint32(b[4*i:], math.Float32bits(v))
+		binary.NativeEndian.PutUint32(b[4*i:], math.Float32bits(v))
 	}
 	return gocv.NewMatFromBytes(len(xy)/2, 1, gocv.MatTypeCV32FC2, b)
 }

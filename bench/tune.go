@@ -149,10 +149,6 @@ type TuneResult struct {
 	Reason string `json:"reason,omitempty"`
 }
 
-// ErrTuneInput means the tuning request cannot be run as given; the
-// wrapping error says what to change.
-var ErrTuneInput = errors.New("bench: tune input unusable")
-
 // Tune replays every drive (in parallel, at most cfg.Parallel at once),
 // sweeps the cutoff over the missing ticks, and recommends the lowest
 // cutoff meeting the tolerance with a bootstrap interval (see TuneTicks).
