@@ -19,7 +19,7 @@ func TestFitTurnNoiseDrives(t *testing.T) {
 	}
 	drives := filepath.SplitList(env)
 	var cands []filter.Config
-	for _, q := range []float64{0.05, 0.1, 0.15, 0.2, 0.3} {
+	for _, q := range []float64{0.02, 0.03, 0.05, 0.07, 0.1, 0.15, 0.2, 0.3} {
 		for _, g := range []float64{0.25, 0.5, 1, 2} {
 			for _, w := range []int64{200_000, 300_000, 500_000} {
 				cands = append(cands, filter.Config{Model: filter.ModelCTRV, WheelbaseM: 2.7, GapYawAccelNoiseRps2: q, TurnAdaptGain: g, TurnAdaptWindowUs: w})

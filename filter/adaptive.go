@@ -11,11 +11,15 @@ import "math"
 //
 //	ĵ = ((m3 − m2)/(t3 − t2) − (m2 − m1)/(t2 − t1)) / ((t3 − t1)/2)
 //
-// Averaging keeps gyro noise small. Both are 0 with fewer than two samples
-// in any part. It does not allocate.
-func (f *Filter) turnTrend(last int) (accel, jerk float64) {
+// Averaging keeps gyro noise small. ok is false (and both 0) when the kept
+// history does not reach back over the whole window or any part has fewer
+// than two samples: the trend is then unknown. It does not allocate.
+func (f *Filter) turnTrend(last int) (accel, jerk float64, ok bool) {
 	if last < 0 || last >= f.hist.len() {
-		return 0, 0
+		return 0, 0, false
+	}
+	if first := f.hist.at(0).s.TimeUs; f.hist.at(last).s.TimeUs-first < f.cfg.TurnAdaptWindowUs*9/10 {
+		return 0, 0, false
 	}
 	end := f.hist.at(last).s.TimeUs
 	w := f.cfg.TurnAdaptWindowUs
@@ -41,22 +45,22 @@ func (f *Filter) turnTrend(last int) (accel, jerk float64) {
 	}
 	for k := range n {
 		if n[k] < 2 {
-			return 0, 0
+			return 0, 0, false
 		}
 		r[k] /= float64(n[k])
 		t[k] /= float64(n[k])
 	}
 	if !(t[2] > t[1] && t[1] > t[0]) {
-		return 0, 0
+		return 0, 0, false
 	}
 	a2 := (r[2] - r[1]) / (t[2] - t[1])
 	a1 := (r[1] - r[0]) / (t[1] - t[0])
 	j := (a2 - a1) / ((t[2] - t[0]) / 2)
 	a := (m*sxy - sx*sy) / (m*sxx - sx*sx)
 	if math.IsNaN(a) || math.IsInf(a, 0) || math.IsNaN(j) || math.IsInf(j, 0) {
-		return 0, 0
+		return 0, 0, false
 	}
-	return a, math.Abs(j)
+	return a, math.Abs(j), true
 }
 
 // turnAccelCorrection returns the change of the predicted mean when the

@@ -44,9 +44,17 @@ func TestGapTurnAccel(t *testing.T) {
 	}
 	// The trend estimate itself: â = 0.8, ĵ = 0 for a linear ramp.
 	f := feed(Config{Model: ModelCTRV})
-	ah, jh := f.turnTrend(f.hist.len() - 1)
-	if math.Abs(ah-a) > 1e-6 || jh > 1e-6 {
+	ah, jh, ok := f.turnTrend(f.hist.len() - 1)
+	if !ok || math.Abs(ah-a) > 1e-6 || jh > 1e-6 {
 		t.Errorf("trend â %.6f ĵ %.6f, want %g and 0", ah, jh, a)
+	}
+	// Too short a history: the trend is unknown.
+	short := mustNew(t, Config{Model: ModelCTRV})
+	for i := range 5 {
+		mustAdd(t, short, Sample{TimeUs: int64(i) * 10_000, SpeedMps: 8, YawRateRps: wt0})
+	}
+	if _, _, ok := short.turnTrend(short.hist.len() - 1); ok {
+		t.Error("40 ms of history: the 200 ms trend must be unknown")
 	}
 	// Adaptive noise: the ramp's gap variance exceeds a steady drive's.
 	steady := mustNew(t, Config{Model: ModelCTRV})
