@@ -150,12 +150,14 @@ func TestMisalignmentAgreesWithTruth(t *testing.T) {
 	cfg := smallConfig()
 	cfg.PanYawRateRps = 0.5
 	drive := smallDrive(t, cfg)
-	_, rows, _, err := replayDrive(context.Background(), ReplayConfig{Drive: drive, Examples: -1,
+	var out replayOutput
+	_, err := replayDrive(context.Background(), ReplayConfig{Drive: drive, Examples: -1,
 		Loss:   LossConfig{Model: LossModelGilbertElliott, LossRate: 0.3, BurstMs: 300, Seed: 2},
-		Policy: predictor.DefaultPolicy()})
+		Policy: predictor.DefaultPolicy()}, &out)
 	if err != nil {
 		t.Fatal(err)
 	}
+	rows := out.rows
 	cam := predictor.Camera{Fx: 160}
 	var d []float64
 	for _, r := range rows {

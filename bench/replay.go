@@ -205,25 +205,33 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 			return Summary{}, err
 		}
 	}
-	sum, rows, examples, err := replayDrive(ctx, cfg)
+	var out replayOutput
 	defer func() {
-		for _, e := range examples {
+		for _, e := range out.examples {
 			closeExample(e)
 		}
 	}()
+	sum, err := replayDrive(ctx, cfg, &out)
 	if err != nil {
 		return Summary{}, err
 	}
-	if err := (ReportWriter{Overwrite: cfg.Overwrite}).Write(cfg.Out, sum, rows, examples); err != nil {
+	if err := (ReportWriter{Overwrite: cfg.Overwrite}).Write(cfg.Out, sum, out.rows, out.examples); err != nil {
 		return Summary{}, fmt.Errorf("replay: writing the report: %w", err)
 	}
 	return sum, nil
 }
 
+// replayOutput receives the ticks and example images of a successful
+// replayDrive; the examples are then owned by the caller (closeExample).
+type replayOutput struct {
+	rows     []TickRow
+	examples []Example
+}
+
 // replayDrive runs the replay of cfg.Drive without writing anything and
-// returns the summary, every tick and the example ticks (owned by the
-// caller, also on error: close them with closeExample).
-func replayDrive(ctx context.Context, cfg ReplayConfig) (sum Summary, rows []TickRow, examples []Example, err error) {
+// returns the summary; on success it hands every tick and the example
+// ticks to out.
+func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summary, error) {
 	log := cfg.Logger
 	if log == nil {
 		log = slog.Default()
@@ -233,19 +241,19 @@ func replayDrive(ctx context.Context, cfg ReplayConfig) (sum Summary, rows []Tic
 		now = time.Now
 	}
 	if cfg.Drive == "" {
-		return Summary{}, nil, nil, fmt.Errorf("replay: a drive directory is needed: %w", ErrReplayInput)
+		return Summary{}, fmt.Errorf("replay: a drive directory is needed: %w", ErrReplayInput)
 	}
 	if err := cfg.Telemetry.Validate(); err != nil {
-		return Summary{}, nil, nil, fmt.Errorf("replay: %w", err)
+		return Summary{}, fmt.Errorf("replay: %w", err)
 	}
 	if err := cfg.Confidence.Validate(); err != nil {
-		return Summary{}, nil, nil, fmt.Errorf("replay: %w", err)
+		return Summary{}, fmt.Errorf("replay: %w", err)
 	}
 	if err := cfg.Policy.Validate(); err != nil {
-		return Summary{}, nil, examples, fmt.Errorf("replay: %w", err)
+		return Summary{}, fmt.Errorf("replay: %w", err)
 	}
 	if cfg.AllowanceMs < 0 || math.IsNaN(cfg.AllowanceMs) || math.IsInf(cfg.AllowanceMs, 0) {
-		return Summary{}, nil, examples, fmt.Errorf("replay: jitter allowance %v ms must be a finite number >= 0: %w", cfg.AllowanceMs, ErrReplayInput)
+		return Summary{}, fmt.Errorf("replay: jitter allowance %v ms must be a finite number >= 0: %w", cfg.AllowanceMs, ErrReplayInput)
 	}
 	allowanceMs := cfg.AllowanceMs
 	if allowanceMs == 0 {
@@ -257,17 +265,17 @@ func replayDrive(ctx context.Context, cfg ReplayConfig) (sum Summary, rows []Tic
 	}
 	rec, err := recording.Open(cfg.Drive)
 	if err != nil {
-		return Summary{}, nil, examples, fmt.Errorf("replay: %w", err)
+		return Summary{}, fmt.Errorf("replay: %w", err)
 	}
 	for _, w := range rec.Warnings {
 		log.Warn("recording tolerated", "drive", cfg.Drive, "warning", w)
 	}
 	if len(rec.Frames) == 0 {
-		return Summary{}, nil, examples, fmt.Errorf("replay: %s has no frames: %w", filepath.Join(cfg.Drive, "frames.csv"), ErrReplayInput)
+		return Summary{}, fmt.Errorf("replay: %s has no frames: %w", filepath.Join(cfg.Drive, "frames.csv"), ErrReplayInput)
 	}
 	cam := predictor.CameraFromRecording(rec.Camera)
 	if err := cam.Validate(); err != nil {
-		return Summary{}, nil, examples, fmt.Errorf("replay: %s: %w", filepath.Join(cfg.Drive, "camera.json"), err)
+		return Summary{}, fmt.Errorf("replay: %s: %w", filepath.Join(cfg.Drive, "camera.json"), err)
 	}
 
 	captureUs := make([]int64, len(rec.Frames))
@@ -276,11 +284,11 @@ func replayDrive(ctx context.Context, cfg ReplayConfig) (sum Summary, rows []Tic
 	}
 	arrivalUs, deadlineUs, err := replayArrivals(cfg, rec, captureUs)
 	if err != nil {
-		return Summary{}, nil, examples, err
+		return Summary{}, err
 	}
 	sched, err := NewSchedule(captureUs, arrivalUs, int64(math.Round(allowanceMs*1000)))
 	if err != nil {
-		return Summary{}, nil, examples, fmt.Errorf("replay: %w", err)
+		return Summary{}, fmt.Errorf("replay: %w", err)
 	}
 	sched.RecordedDeadlineUs = deadlineUs
 
@@ -290,7 +298,7 @@ func replayDrive(ctx context.Context, cfg ReplayConfig) (sum Summary, rows []Tic
 	}
 	flt, err := filter.New(fcfg)
 	if err != nil {
-		return Summary{}, nil, examples, fmt.Errorf("replay: filter: %w", err)
+		return Summary{}, fmt.Errorf("replay: filter: %w", err)
 	}
 	telArr := telemetryArrivals(rec.Telemetry, sched)
 	if cfg.Telemetry.Own {
@@ -315,24 +323,32 @@ func replayDrive(ctx context.Context, cfg ReplayConfig) (sum Summary, rows []Tic
 
 	frames, err := newFrameSource(rec, cam.Width, cam.Height)
 	if err != nil {
-		return Summary{}, nil, examples, fmt.Errorf("replay: %w", err)
+		return Summary{}, fmt.Errorf("replay: %w", err)
 	}
 	defer frames.Close()
 
 	r, err := newReplayer(cam, cfg.Policy, cfg.Confidence, flt, now)
 	if err != nil {
-		return Summary{}, nil, examples, fmt.Errorf("replay: %w", err)
+		return Summary{}, fmt.Errorf("replay: %w", err)
 	}
 	defer r.Close()
 
 	var acc Accumulator
-	rows = make([]TickRow, 0, len(captureUs))
+	rows := make([]TickRow, 0, len(captureUs))
+	var examples []Example
+	defer func() {
+		if out.examples == nil { // not handed over: an error
+			for _, e := range examples {
+				closeExample(e)
+			}
+		}
+	}()
 	exampleBuckets := map[string]bool{}
 	nextTel := 0
 	total := len(captureUs)
 	for k := 0; k < total; k++ {
 		if err := ctx.Err(); err != nil {
-			return Summary{}, nil, examples, fmt.Errorf("replay: stopped at tick %d of %d: %w", k, total, err)
+			return Summary{}, fmt.Errorf("replay: stopped at tick %d of %d: %w", k, total, err)
 		}
 		deadline := sched.DeadlineUs(k)
 		for ; nextTel < len(telOrder) && telArr[telOrder[nextTel]] <= deadline; nextTel++ {
@@ -352,7 +368,7 @@ func replayDrive(ctx context.Context, cfg ReplayConfig) (sum Summary, rows []Tic
 		} else {
 			row, err = r.missing(k, sched, frames, rec)
 			if err != nil {
-				return Summary{}, nil, examples, fmt.Errorf("replay: tick %d (frame %d, t_capture_us %d): %w", k, k, captureUs[k], err)
+				return Summary{}, fmt.Errorf("replay: tick %d (frame %d, t_capture_us %d): %w", k, k, captureUs[k], err)
 			}
 			if b := bucketLabel(row.AgeMs) + "/" + row.State; len(examples) < nExamples && !exampleBuckets[b] && r.truthImg.Ptr() != nil {
 				exampleBuckets[b] = true
@@ -360,7 +376,7 @@ func replayDrive(ctx context.Context, cfg ReplayConfig) (sum Summary, rows []Tic
 			}
 		}
 		if err := acc.Add(row); err != nil {
-			return Summary{}, nil, examples, fmt.Errorf("replay: tick %d: %w", k, err)
+			return Summary{}, fmt.Errorf("replay: tick %d: %w", k, err)
 		}
 		rows = append(rows, row)
 		if cfg.Progress != nil {
@@ -368,7 +384,7 @@ func replayDrive(ctx context.Context, cfg ReplayConfig) (sum Summary, rows []Tic
 		}
 	}
 
-	sum = acc.Summary()
+	sum := acc.Summary()
 	sum.Calibration, sum.CalibrationTruth = acc.CalibrationAt(cfg.Confidence.Tolerance())
 	sum.Telemetry = cfg.Telemetry
 	sum.Drive = cfg.Drive
@@ -382,7 +398,8 @@ func replayDrive(ctx context.Context, cfg ReplayConfig) (sum Summary, rows []Tic
 	sum.LatencyMs = float64(sched.LatencyUs) / 1000
 	sum.FilterModel = fcfg.Model.String()
 	sum.TelemetryRejected = int(flt.Rejected().Total())
-	return sum, rows, examples, nil
+	out.rows, out.examples = rows, examples
+	return sum, nil
 }
 
 // replayArrivals returns each frame's arrival time: recorded (cfg.ArrivalsFile)

@@ -198,8 +198,9 @@ func Tune(ctx context.Context, cfg TuneConfig) (TuneResult, error) {
 			defer func() { <-sem }()
 			d.Examples = -1
 			d.Progress = func(a, b int) { report(i, a, b) }
-			_, r, ex, err := replayDrive(ctx, d)
-			for _, e := range ex {
+			var out replayOutput
+			_, err := replayDrive(ctx, d, &out)
+			for _, e := range out.examples {
 				closeExample(e)
 			}
 			if err != nil {
@@ -207,7 +208,7 @@ func Tune(ctx context.Context, cfg TuneConfig) (TuneResult, error) {
 				cancel()
 				return
 			}
-			rows[i] = r
+			rows[i] = out.rows
 		}()
 	}
 	wg.Wait()
