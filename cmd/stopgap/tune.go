@@ -26,6 +26,7 @@ func runTune(ctx context.Context, args []string, stdout, stderr io.Writer) error
 	var tol bench.TuneTolerance
 	var minCut, maxCut float64
 	var resamples, parallel int
+	var ownArrivals bool
 	fs.Var(&drives, "drive", "recording `directory` to replay; repeat for several drives (required)")
 	fs.StringVar(&out, "out", "", "tuning report `directory` to create (required)")
 	fs.Float64Var(&tol.MaxHarmRate, "max-harm-rate", 0, "tolerance: largest share of PREDICTED ticks worse than hold by > 1 dB PSNR, (0,1) (default 0.05 when no tolerance is given)")
@@ -35,6 +36,7 @@ func runTune(ctx context.Context, args []string, stdout, stderr io.Writer) error
 	fs.Float64Var(&maxCut, "max-cutoff", 1, "highest cutoff that may be recommended (an administrator's limit)")
 	fs.IntVar(&resamples, "resamples", bench.DefaultTuneResamples, "bootstrap resamples (whole gaps)")
 	fs.IntVar(&parallel, "parallel", 0, "drives replayed at once (0 = number of CPUs)")
+	fs.BoolVar(&ownArrivals, "recorded-arrivals", false, "replay each drive with its own recorded link, DIR/arrivals.csv, instead of the loss model")
 	var rf replayFlags
 	rf.register(fs)
 	fs.Usage = func() {
@@ -66,10 +68,16 @@ func runTune(ctx context.Context, args []string, stdout, stderr io.Writer) error
 			return err
 		}
 	}
+	if rf.arrivals != "" && len(drives) > 1 {
+		return fmt.Errorf("--arrivals names one drive's file but %d drives were given; use --recorded-arrivals to replay each drive with its own arrivals.csv", len(drives))
+	}
 	for _, d := range drives {
 		rc, err := rf.config(d, "", stderr)
 		if err != nil {
 			return err
+		}
+		if ownArrivals {
+			rc.ArrivalsFile = filepath.Join(d, "arrivals.csv")
 		}
 		rc.Progress = nil
 		cfg.Drives = append(cfg.Drives, rc)

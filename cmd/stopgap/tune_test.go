@@ -43,6 +43,8 @@ func TestTuneCLI(t *testing.T) {
 		{"no drives", []string{"tune", "--out", filepath.Join(dir, "t0")}, 2, "at least one --drive", ""},
 		{"tolerance out of range", []string{"tune", "--quiet", "--drive", drive, "--out", filepath.Join(dir, "t1"), "--max-harm-rate", "1.5"}, 1, "maximum harm rate 1.5 out of range", ""},
 		{"two tolerances", []string{"tune", "--quiet", "--drive", drive, "--out", filepath.Join(dir, "t2"), "--max-harm-rate", "0.1", "--min-ssim", "0.5"}, 1, "exactly one tolerance", ""},
+		{"one arrivals file for two drives", []string{"tune", "--quiet", "--drive", drive, "--drive", drive, "--arrivals", filepath.Join(drive, "arrivals.csv"), "--out", filepath.Join(dir, "t5")}, 1, "--recorded-arrivals", ""},
+		{"recorded arrivals missing", []string{"tune", "--quiet", "--drive", drive, "--recorded-arrivals", "--out", filepath.Join(dir, "t6")}, 1, "arrivals.csv", ""},
 		{"drive without frames", []string{"tune", "--quiet", "--drive", drive, "--drive", empty, "--out", filepath.Join(dir, "t3")}, 1, "frames", ""},
 		{"short drive", []string{"tune", "--quiet", "--drive", drive, "--out", filepath.Join(dir, "t4"), "--loss-rate", "0.3", "--burst-ms", "100", "--resamples", "50"}, 0, "CAUTION", "too little data"},
 	}
@@ -61,7 +63,7 @@ func TestTuneCLI(t *testing.T) {
 			}
 		})
 	}
-	for _, failed := range []string{"t0", "t1", "t2", "t3"} {
+	for _, failed := range []string{"t0", "t1", "t2", "t3", "t5", "t6"} {
 		if _, err := os.Stat(filepath.Join(dir, failed)); !os.IsNotExist(err) {
 			t.Errorf("failed run left %s (stat: %v)", failed, err)
 		}
