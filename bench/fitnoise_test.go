@@ -33,4 +33,15 @@ func TestFitTurnNoiseDrives(t *testing.T) {
 	for i, f := range fits {
 		t.Logf("gap noise %.2f rad/s^2, gain %.2g, window %d ms: NLL %.4f over %d predictions %s", f.GapYawAccelNoiseRps2, f.TurnAdaptGain, f.TurnAdaptWindowUs/1000, f.NLL, f.Predictions, map[bool]string{true: "<- best"}[i == best])
 	}
+	// The base noise by the Brier score of the confidence, at the best
+	// gain and window.
+	for _, q := range []float64{0.03, 0.05, 0.07, 0.1, 0.15} {
+		c := filter.Config{Model: filter.ModelCTRV, WheelbaseM: 2.7, GapYawAccelNoiseRps2: q,
+			TurnAdaptGain: fits[best].TurnAdaptGain, TurnAdaptWindowUs: fits[best].TurnAdaptWindowUs}
+		cal, err := CalibrateTruth(context.Background(), TruthCalibrationConfig{Drives: drives, Losses: heldOutLosses(20), Filter: c})
+		if err != nil {
+			t.Fatal(err)
+		}
+		t.Logf("gap noise %.2f rad/s^2: Brier %.5f, ECE %.4f over %d ticks", q, cal.Brier, cal.ECE, cal.Frames)
+	}
 }
