@@ -470,7 +470,7 @@ func (f *Filter) Relative(t0Us, t1Us int64) (Motion, error) {
 		f.update(&e.s)
 		cur, ctl, applied = e.s.TimeUs, &e.s, j
 	}
-	if f.cfg.Model == ModelCTRV && !f.cfg.TurnAdaptOff && applied >= 0 {
+	if f.cfg.Model == ModelCTRV && !f.cfg.TurnAdaptOff {
 		base := f.kin.turnNoise
 		a, j, _ := f.turnTrend(applied)
 		tau := float64(diffUs(t1Us, cur)) * 1e-6
