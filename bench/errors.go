@@ -48,3 +48,8 @@ func (e *LossParamError) Error() string {
 
 // Unwrap returns ErrLossConfig.
 func (e *LossParamError) Unwrap() error { return ErrLossConfig }
+
+// ErrTuneInput means a tuning request (Tune, TuneTicks) cannot be run as
+// given: no drives, no or several tolerances, one out of range, or a bad
+// cutoff range; the wrapping error says what to change.
+var ErrTuneInput = errors.New("bench: tune input unusable")

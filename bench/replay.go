@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"image"
 	"log/slog"
 	"math"
 	"os"
@@ -59,6 +60,12 @@ type ReplayConfig struct {
 	// AllowanceMs is the display clock's jitter allowance past a frame's
 	// nominal arrival; 0 means DefaultAllowanceMs, negative is an error.
 	AllowanceMs float64
+	// Telemetry says how telemetry without recorded arrival times reaches
+	// the filter; the zero value shares the fate of the video.
+	Telemetry TelemetryLink
+	// Confidence is the confidence model (its tolerance is also the
+	// calibration criterion); the zero value uses the defaults.
+	Confidence predictor.ConfidenceModel
 
 	// Examples is how many example ticks the report shows side by side;
 	// 0 means DefaultExamples, negative means none.
@@ -241,6 +248,41 @@ func SampleFromRow(r recording.TelemetryRow) filter.Sample {
 //
 // Nothing is written to cfg.Out unless the whole replay succeeds.
 func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
+	if cfg.Drive == "" || cfg.Out == "" {
+		return Summary{}, fmt.Errorf("replay: both a drive directory and an output directory are needed: %w", ErrReplayInput)
+	}
+	if !cfg.Overwrite {
+		if err := checkFreshOut(cfg.Out); err != nil {
+			return Summary{}, err
+		}
+	}
+	var out replayOutput
+	defer func() {
+		for _, e := range out.examples {
+			closeExample(e)
+		}
+	}()
+	sum, err := replayDrive(ctx, cfg, &out)
+	if err != nil {
+		return Summary{}, err
+	}
+	if err := (ReportWriter{Overwrite: cfg.Overwrite}).Write(cfg.Out, sum, out.rows, out.examples); err != nil {
+		return Summary{}, fmt.Errorf("replay: writing the report: %w", err)
+	}
+	return sum, nil
+}
+
+// replayOutput receives the ticks and example images of a successful
+// replayDrive; the examples are then owned by the caller (closeExample).
+type replayOutput struct {
+	rows     []TickRow
+	examples []Example
+}
+
+// replayDrive runs the replay of cfg.Drive without writing anything and
+// returns the summary; on success it hands every tick and the example
+// ticks to out.
+func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summary, error) {
 	log := cfg.Logger
 	if log == nil {
 		log = slog.Default()
@@ -249,8 +291,14 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 	if now == nil {
 		now = time.Now
 	}
-	if cfg.Drive == "" || cfg.Out == "" {
-		return Summary{}, fmt.Errorf("replay: both a drive directory and an output directory are needed: %w", ErrReplayInput)
+	if cfg.Drive == "" {
+		return Summary{}, fmt.Errorf("replay: a drive directory is needed: %w", ErrReplayInput)
+	}
+	if err := cfg.Telemetry.Validate(); err != nil {
+		return Summary{}, fmt.Errorf("replay: %w", err)
+	}
+	if err := cfg.Confidence.Validate(); err != nil {
+		return Summary{}, fmt.Errorf("replay: %w", err)
 	}
 	if err := cfg.Policy.Validate(); err != nil {
 		return Summary{}, fmt.Errorf("replay: %w", err)
@@ -266,12 +314,6 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 	if nExamples == 0 {
 		nExamples = DefaultExamples
 	}
-	if !cfg.Overwrite {
-		if err := checkFreshOut(cfg.Out); err != nil {
-			return Summary{}, err
-		}
-	}
-
 	rec, err := recording.Open(cfg.Drive)
 	if err != nil {
 		return Summary{}, fmt.Errorf("replay: %w", err)
@@ -318,6 +360,18 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 		return Summary{}, fmt.Errorf("replay: filter: %w", err)
 	}
 	telArr := telemetryArrivals(in.telemetry, sched)
+	if cfg.Telemetry.Own {
+		times := make([]int64, len(in.telemetry))
+		for i, row := range in.telemetry {
+			times[i] = row.TimeUs
+		}
+		own := cfg.Telemetry.ownChannelArrivals(times, sched.LatencyUs)
+		for i, row := range in.telemetry {
+			if !row.HasArrival {
+				telArr[i] = own[i]
+			}
+		}
+	}
 	for i, lost := range in.telLost {
 		if lost {
 			telArr[i] = NeverArrivesUs
@@ -331,18 +385,23 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 	}
 	sort.SliceStable(telOrder, func(a, b int) bool { return telArr[telOrder[a]] < telArr[telOrder[b]] })
 
-	r, err := newReplayer(cam, cfg.Policy, flt, now)
+	r, err := newReplayer(cam, cfg.Policy, cfg.Confidence, flt, now)
 	if err != nil {
 		return Summary{}, fmt.Errorf("replay: %w", err)
 	}
 	defer r.Close()
+	if in.pairing == nil {
+		r.truth = rec.Truth
+	}
 
 	var acc Accumulator
 	rows := make([]TickRow, 0, len(captureUs))
 	var examples []Example
 	defer func() {
-		for _, e := range examples {
-			closeExample(e)
+		if out.examples == nil { // not handed over: an error
+			for _, e := range examples {
+				closeExample(e)
+			}
 		}
 	}()
 	exampleBuckets := map[string]bool{}
@@ -405,6 +464,8 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 		compareReference(in.reference, rows, in.pairing)
 	}
 	sum.Pairing = in.pairing
+	sum.Calibration, sum.CalibrationTruth = acc.CalibrationAt(cfg.Confidence.Tolerance())
+	sum.Telemetry = cfg.Telemetry
 	sum.Drive = cfg.Drive
 	sum.Cutoff = cfg.Policy.CutoffConfidence
 	sum.MaxAgeMs = cfg.Policy.MaxAgeMs
@@ -416,9 +477,7 @@ func Replay(ctx context.Context, cfg ReplayConfig) (Summary, error) {
 	sum.LatencyMs = float64(sched.LatencyUs) / 1000
 	sum.FilterModel = fcfg.Model.String()
 	sum.TelemetryRejected = int(flt.Rejected().Total())
-	if err := (ReportWriter{Overwrite: cfg.Overwrite}).Write(cfg.Out, sum, rows, examples); err != nil {
-		return Summary{}, fmt.Errorf("replay: writing the report: %w", err)
-	}
+	out.rows, out.examples = rows, examples
 	return sum, nil
 }
 
@@ -516,16 +575,26 @@ type replayer struct {
 	noTruth    []int
 	noFrameYet int
 
-	shown, unlabelled, rotation, scratch gocv.Mat
-	shownValid                           bool // shown holds the frame of the tick just filled
+	shown, unlabelled, rotation, scratch, warp gocv.Mat
+	shownValid                                 bool // shown holds the frame of the tick just filled
+
+	cam    predictor.Camera
+	cm     predictor.ConfidenceModel
+	meter  *MisalignmentMeter
+	region image.Rectangle
+	refs   [][2]float64
+	// truth is the exact pose per tick (truth.csv), nil when the ticks
+	// are not the recording's frames (a paired live session) or there
+	// is none.
+	truth []recording.Truth
 
 	// truthImg and heldImg are the images of the tick just scored, borrowed
 	// from the frame source until its next Get.
 	truthImg, heldImg gocv.Mat
 }
 
-func newReplayer(cam predictor.Camera, pol predictor.Policy, flt *filter.Filter, now func() time.Time) (*replayer, error) {
-	filler, err := predictor.NewFiller(predictor.FillerConfig{Camera: cam, Policy: pol, Motion: flt})
+func newReplayer(cam predictor.Camera, pol predictor.Policy, cm predictor.ConfidenceModel, flt *filter.Filter, now func() time.Time) (*replayer, error) {
+	filler, err := predictor.NewFiller(predictor.FillerConfig{Camera: cam, Policy: pol, Motion: flt, Confidence: cm})
 	if err != nil {
 		return nil, err
 	}
@@ -536,7 +605,8 @@ func newReplayer(cam predictor.Camera, pol predictor.Policy, flt *filter.Filter,
 	}
 	r := &replayer{
 		filler: filler, synth: synth, scorer: NewScorer(), now: now, held: -1, pending: -1,
-		shown: gocv.NewMat(), unlabelled: gocv.NewMat(), rotation: gocv.NewMat(), scratch: gocv.NewMat(),
+		shown: gocv.NewMat(), unlabelled: gocv.NewMat(), rotation: gocv.NewMat(), scratch: gocv.NewMat(), warp: gocv.NewMat(),
+		cam: cam, cm: cm, meter: NewMisalignmentMeter(), region: RoadRegion(cam), refs: ReferencePixels(cam, cm),
 	}
 	filler.Now = now
 	filler.Unlabelled = &r.unlabelled
@@ -556,7 +626,8 @@ func (r *replayer) Close() {
 	r.filler.Close()
 	r.synth.Close()
 	r.scorer.Close()
-	for _, m := range []gocv.Mat{r.shown, r.unlabelled, r.rotation, r.scratch} {
+	r.meter.Close()
+	for _, m := range []gocv.Mat{r.shown, r.unlabelled, r.rotation, r.scratch, r.warp} {
 		m.Close()
 	}
 }
@@ -594,6 +665,19 @@ func (r *replayer) missing(k int, s Schedule, frames frameGetter, hasTruth []boo
 	r.shownValid = true
 	row := NewTickRow(k, s.CaptureUs[k], tick.State.String(), tick.AgeMs)
 	row.Confidence = tick.Confidence
+	if tick.MotionErr == nil {
+		row.SigmaPx = tick.SigmaPx
+		if j := r.held; j >= 0 && j < len(r.truth) && k < len(r.truth) {
+			t0, t1 := r.truth[j], r.truth[k]
+			c, sn := math.Cos(t0.YawRad), math.Sin(t0.YawRad)
+			dx, dy := t1.XM-t0.XM, t1.YM-t0.YM
+			tr := [3]float64{c*dx + sn*dy, -sn*dx + c*dy, math.Remainder(t1.YawRad-t0.YawRad, 2*math.Pi)}
+			pred := [3]float64{tick.Motion.DxM, tick.Motion.DyM, tick.Motion.DyawRad}
+			if px, err := TruthMisalignmentPx(r.cam, r.cm, pred, tr); err == nil {
+				row.TruthMisalignMrad = PxToMrad(px, r.cam.Fx)
+			}
+		}
+	}
 	row.LabelShare = tick.LabelFraction
 	if tick.State == predictor.StatePredicted {
 		row.SynthMs = float64(tick.SynthDuration) / float64(time.Millisecond)
@@ -632,6 +716,27 @@ func (r *replayer) missing(k int, s Schedule, frames frameGetter, hasTruth []boo
 	}
 	if row.Rotation, err = r.scorer.Score(r.rotation, truth); err != nil {
 		return TickRow{}, fmt.Errorf("scoring rotation: %w", err)
+	}
+	// The prediction itself, shown or not: scores and misalignment.
+	if tick.MotionErr == nil {
+		warp := r.unlabelled
+		if tick.State != predictor.StatePredicted {
+			if _, _, err := r.filler.WarpHeld(tick.Motion, &r.warp); err != nil {
+				return TickRow{}, fmt.Errorf("warping the held frame: %w", err)
+			}
+			warp = r.warp
+			if row.Warp, err = r.scorer.Score(warp, truth); err != nil {
+				return TickRow{}, fmt.Errorf("scoring the warp: %w", err)
+			}
+		} else {
+			row.Warp = row.Predicted
+		}
+		mm, err := r.meter.Measure(warp, truth, r.region, r.refs)
+		if err != nil {
+			return TickRow{}, err
+		}
+		row.MisalignPx = mm.MaxPx
+		row.MisalignMrad = PxToMrad(mm.MaxPx, r.cam.Fx)
 	}
 	return row, nil
 }

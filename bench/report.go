@@ -190,6 +190,16 @@ type Summary struct {
 	// recording and the comparison with the relay's recorded decisions;
 	// nil when neither applies.
 	Pairing *PairingReport `json:"pairing,omitempty"`
+	// PredictedOnly scores PREDICTED ticks alone, with the harm rates.
+	PredictedOnly PredictedOnly `json:"predicted_only"`
+	// Telemetry is how telemetry reached the filter when telemetry.csv
+	// had no arrival times.
+	Telemetry TelemetryLink `json:"telemetry"`
+	// Calibration compares the confidence with the misalignment measured
+	// from the images; CalibrationTruth with the exact one from truth.csv
+	// (Frames 0 without truth).
+	Calibration      Calibration `json:"calibration"`
+	CalibrationTruth Calibration `json:"calibration_truth"`
 }
 
 // MethodSet holds one MethodStats per Method under fixed JSON keys.
@@ -197,6 +207,10 @@ type MethodSet struct {
 	Hold      MethodStats `json:"hold"`
 	Rotation  MethodStats `json:"rotation"`
 	Predicted MethodStats `json:"predicted"`
+	// Shown repeats Predicted under its clear name: what the operator saw
+	// on missing ticks (the predicted frame when PREDICTED, the held frame
+	// when STALE). "predicted" is kept for existing readers.
+	Shown MethodStats `json:"shown"`
 }
 
 // Get returns a pointer to the statistics of m, or nil for an invalid m.
@@ -250,6 +264,21 @@ type TickRow struct {
 	SynthMs       float64 // wall time to synthesise the frame, ms; NaN if none
 	UnfilledShare float64 // share of neutral-fill pixels in [0,1]; NaN if n/a
 	LabelShare    float64 // share of label pixels in [0,1]; NaN if n/a
+
+	// Warp scores the predicted frame on every missing tick with a usable
+	// motion, whether the policy showed it (PREDICTED) or not (STALE):
+	// what a lower cutoff would have shown. NaN when not scored.
+	Warp Scores
+	// SigmaPx is the 1-sigma pixel error behind Confidence; NaN if n/a.
+	SigmaPx float64
+	// MisalignPx and MisalignMrad are the misalignment of the warp (the
+	// predicted frame) against the true frame, measured from the images
+	// (MisalignmentMeter on the road region at the reference points); NaN
+	// when not measured.
+	MisalignPx, MisalignMrad float64
+	// TruthMisalignMrad is the same misalignment computed exactly from
+	// truth.csv (TruthMisalignmentPx), milliradians; NaN without truth.
+	TruthMisalignMrad float64
 }
 
 // UnscoredScores returns Scores with every field NaN, meaning "not
@@ -261,7 +290,8 @@ func NewTickRow(tick int, targetUs int64, state string, ageMs float64) TickRow {
 	nan := math.NaN()
 	u := UnscoredScores()
 	return TickRow{Tick: tick, TargetUs: targetUs, State: state, AgeMs: ageMs, Confidence: nan,
-		Hold: u, Rotation: u, Predicted: u, SynthMs: nan, UnfilledShare: nan, LabelShare: nan}
+		Hold: u, Rotation: u, Predicted: u, SynthMs: nan, UnfilledShare: nan, LabelShare: nan,
+		Warp: u, SigmaPx: nan, MisalignPx: nan, MisalignMrad: nan, TruthMisalignMrad: nan}
 }
 
 // MethodScores returns the scores of m on this tick (UnscoredScores for
@@ -344,6 +374,14 @@ func (r *TickRow) Validate() error {
 			return bad("%s: %v", m, err)
 		}
 	}
+	if _, err := checkScores(r.Warp); err != nil {
+		return bad("warp: %v", err)
+	}
+	for _, v := range [...]float64{r.SigmaPx, r.MisalignPx, r.MisalignMrad, r.TruthMisalignMrad} {
+		if !math.IsNaN(v) && !(v >= 0 && !math.IsInf(v, 0)) {
+			return bad("sigma or misalignment %g, want a finite value >= 0", v)
+		}
+	}
 	return nil
 }
 
@@ -388,6 +426,12 @@ type Accumulator struct {
 	synthMean, label, unfilled    meanAcc
 	all                           [numMethods]scoreAcc
 	buckets                       [numMethods][numBuckets]scoreAcc
+
+	// PREDICTED-only scores and harm counts.
+	po, poHold           scoreAcc
+	harmPSNR, harmSSIM   int
+	calConf, calMrad     []float64 // per tick with a confidence and a measured misalignment
+	truthConf, truthMrad []float64 // per tick with a confidence and a truth misalignment
 }
 
 // Add validates r (see TickRow.Validate) and adds it. A rejected row is
@@ -421,7 +465,48 @@ func (a *Accumulator) Add(r TickRow) error {
 		a.all[i].add(r.AgeMs, s)
 		a.buckets[i][b].add(r.AgeMs, s)
 	}
+	if r.State == TickPredicted {
+		if ok, _ := checkScores(r.Predicted); ok {
+			if hok, _ := checkScores(r.Hold); hok {
+				a.po.add(r.AgeMs, r.Predicted)
+				a.poHold.add(r.AgeMs, r.Hold)
+				p, q := Harmful(r.Predicted, r.Hold)
+				if p {
+					a.harmPSNR++
+				}
+				if q {
+					a.harmSSIM++
+				}
+			}
+		}
+	}
+	if r.State != TickLive && !math.IsNaN(r.Confidence) {
+		if !math.IsNaN(r.MisalignMrad) {
+			a.calConf = append(a.calConf, r.Confidence)
+			a.calMrad = append(a.calMrad, r.MisalignMrad)
+		}
+		if !math.IsNaN(r.TruthMisalignMrad) {
+			a.truthConf = append(a.truthConf, r.Confidence)
+			a.truthMrad = append(a.truthMrad, r.TruthMisalignMrad)
+		}
+	}
 	return nil
+}
+
+// CalibrationAt returns the calibration of the confidences of the rows
+// added so far against the criterion "misalignment <= toleranceMrad",
+// measured from the images, and from truth.csv.
+func (a *Accumulator) CalibrationAt(toleranceMrad float64) (images, truth Calibration) {
+	cal := func(conf, mrad []float64, src string) Calibration {
+		good := make([]bool, len(mrad))
+		for i, m := range mrad {
+			good[i] = m <= toleranceMrad
+		}
+		c := Calibrate(conf, good, 0)
+		c.Source, c.ToleranceMrad = src, toleranceMrad
+		return c
+	}
+	return cal(a.calConf, a.calMrad, "images"), cal(a.truthConf, a.truthMrad, "truth")
 }
 
 // Summary returns the statistics of the rows added so far. The caller
@@ -455,6 +540,16 @@ func (a *Accumulator) Summary() Summary {
 			})
 		}
 	}
+	s.Methods.Shown = s.Methods.Predicted
+	s.Methods.Shown.Buckets = slices.Clone(s.Methods.Predicted.Buckets)
+	po := PredictedOnly{Frames: a.po.psnr.n, PSNRdBMean: a.po.psnr.mean(), SSIMMean: a.po.ssim.mean(), MAEMean: a.po.mae.mean(),
+		HoldPSNRdBMean: a.poHold.psnr.mean(), HoldSSIMMean: a.poHold.ssim.mean(), HarmPSNR: a.harmPSNR, HarmSSIM: a.harmSSIM,
+		HarmRatePSNR: Float(math.NaN()), HarmRateSSIM: Float(math.NaN())}
+	if po.Frames > 0 {
+		po.HarmRatePSNR = Float(float64(a.harmPSNR) / float64(po.Frames))
+		po.HarmRateSSIM = Float(float64(a.harmSSIM) / float64(po.Frames))
+	}
+	s.PredictedOnly = po
 	return s
 }
 
@@ -509,7 +604,8 @@ func TicksCSVHeader() []string {
 	for _, m := range Methods() {
 		h = append(h, m.String()+"_psnr_db", m.String()+"_ssim", m.String()+"_mae")
 	}
-	return append(h, "synth_ms", "unfilled_share", "label_share")
+	return append(h, "synth_ms", "unfilled_share", "label_share",
+		"warp_psnr_db", "warp_ssim", "warp_mae", "sigma_px", "misalign_px", "misalign_mrad", "truth_misalign_mrad")
 }
 
 // SafetyCaution is the warning printed at the top of report.html.
@@ -655,6 +751,12 @@ func (w ReportWriter) writeAll(dir string, s Summary, ticks []TickRow, examples 
 		func(sc Scores) float64 { return sc.SSIM }, func(b BucketStats) Float { return b.SSIMMean }); err != nil {
 		return err
 	}
+	if err := writeReliabilityPlot(filepath.Join(dir, ReliabilityPlotFile), s.Calibration, s.CalibrationTruth); err != nil {
+		return err
+	}
+	if err := writeConfidenceScatter(filepath.Join(dir, ConfidencePlotFile), ticks, s.Calibration.ToleranceMrad); err != nil {
+		return err
+	}
 	figs, err := w.writeExamples(dir, ticks, examples)
 	if err != nil {
 		return err
@@ -723,7 +825,9 @@ func writeTicksCSV(path string, ticks []TickRow) error {
 				sc := r.MethodScores(m)
 				rec = append(rec, csvFloat(sc.PSNRdB), csvFloat(sc.SSIM), csvFloat(sc.MAE))
 			}
-			rec = append(rec, csvFloat(r.SynthMs), csvFloat(r.UnfilledShare), csvFloat(r.LabelShare))
+			rec = append(rec, csvFloat(r.SynthMs), csvFloat(r.UnfilledShare), csvFloat(r.LabelShare),
+				csvFloat(r.Warp.PSNRdB), csvFloat(r.Warp.SSIM), csvFloat(r.Warp.MAE),
+				csvFloat(r.SigmaPx), csvFloat(r.MisalignPx), csvFloat(r.MisalignMrad), csvFloat(r.TruthMisalignMrad))
 			if err := cw.Write(rec); err != nil {
 				return err
 			}
@@ -983,6 +1087,24 @@ Gap age is the time since the capture of the newest real frame.</p>
 {{range .Methods}}<tr><td class="l"><b>{{.Name}}</b></td><td>all</td><td>{{.Stats.Frames}}</td><td>{{f .Stats.PSNRdBMean 2}}</td><td>{{f .Stats.SSIMMean 4}}</td><td>{{f .Stats.MAEMean 2}}</td></tr>
 {{range .Stats.Buckets}}<tr><td></td><td>{{.Bucket}} ms</td><td>{{.Frames}}</td><td>{{f .PSNRdBMean 2}}</td><td>{{f .SSIMMean 4}}</td><td>{{f .MAEMean 2}}</td></tr>
 {{end}}{{end}}</table>
+
+<h2>PREDICTED ticks alone</h2>
+<p>The "predicted" rows above show what the operator saw on every missing tick (the held frame when STALE).
+Over the {{.S.PredictedOnly.Frames}} PREDICTED ticks alone: PSNR {{f .S.PredictedOnly.PSNRdBMean 2}} dB (hold on the same ticks
+{{f .S.PredictedOnly.HoldPSNRdBMean 2}} dB), SSIM {{f .S.PredictedOnly.SSIMMean 4}} (hold {{f .S.PredictedOnly.HoldSSIMMean 4}}).
+Harm rate (worse than hold): {{pct .S.PredictedOnly.HarmRatePSNR}} by more than 1 dB PSNR, {{pct .S.PredictedOnly.HarmRateSSIM}} by more than 0.01 SSIM.
+Telemetry: {{if .S.Telemetry.Own}}on its own channel, loss rate {{.S.Telemetry.LossRate}}{{else}}shares the fate of the video{{end}}.</p>
+
+<h2>Calibration of the confidence</h2>
+<p>The confidence is the probability that the reference road points of a predicted frame are within
+{{.S.Calibration.ToleranceMrad}} mrad of where they really are. Measured from the images on {{.S.Calibration.Frames}} missing ticks:
+ECE {{f .S.Calibration.ECE 3}}, Brier {{f .S.Calibration.Brier 3}}, mean confidence {{f .S.Calibration.ConfMean 3}}, observed share {{f .S.Calibration.GoodShare 3}}.
+{{if .S.CalibrationTruth.Frames}}From truth.csv on {{.S.CalibrationTruth.Frames}} ticks: ECE {{f .S.CalibrationTruth.ECE 3}}, Brier {{f .S.CalibrationTruth.Brier 3}}.{{end}}</p>
+<table><tr><th>confidence bin</th><th>frames</th><th>mean confidence</th><th>observed share</th></tr>
+{{range .S.Calibration.Bins}}<tr><td>{{printf "%.1f" .Lo}}-{{printf "%.1f" .Hi}}</td><td>{{.Frames}}</td><td>{{f .ConfMean 3}}</td><td>{{f .Observed 3}}</td></tr>
+{{end}}</table>
+<p><img src="reliability.png" alt="reliability diagram"></p>
+<p><img src="confidence_vs_misalignment.png" alt="confidence against measured misalignment"></p>
 
 <h2>Figures</h2>
 <p><img src="{{.PSNRPlot}}" alt="PSNR against gap age for hold, rotation and predicted"></p>

@@ -271,7 +271,8 @@ func TestWriteReport(t *testing.T) {
 		}
 		want := []string{"tick", "target_us", "state", "age_ms", "confidence",
 			"hold_psnr_db", "hold_ssim", "hold_mae", "rotation_psnr_db", "rotation_ssim", "rotation_mae",
-			"predicted_psnr_db", "predicted_ssim", "predicted_mae", "synth_ms", "unfilled_share", "label_share"}
+			"predicted_psnr_db", "predicted_ssim", "predicted_mae", "synth_ms", "unfilled_share", "label_share",
+			"warp_psnr_db", "warp_ssim", "warp_mae", "sigma_px", "misalign_px", "misalign_mrad", "truth_misalign_mrad"}
 		if !slices.Equal(recs[0], want) {
 			t.Errorf("header %v, want %v", recs[0], want)
 		}
@@ -297,8 +298,8 @@ func TestWriteReport(t *testing.T) {
 		}
 		// Every referenced image exists and decodes.
 		refs := regexp.MustCompile(`src="([^"]+)"`).FindAllStringSubmatch(page, -1)
-		if len(refs) != 5 {
-			t.Errorf("%d image references, want 5 (2 plots + 3 example frames)", len(refs))
+		if len(refs) != 7 {
+			t.Errorf("%d image references, want 7 (2 age plots, reliability, confidence scatter + 3 example frames)", len(refs))
 		}
 		for _, r := range refs {
 			f, err := os.Open(filepath.Join(dir, r[1]))

@@ -41,6 +41,6 @@ func ExampleFilter_Relative() {
 	}
 	// Output:
 	// gap   0 ms: dx 0.000 m, dy 0.000 m, dyaw 0.000 rad; sigma dx 0.000 m, dy 0.000 m, dyaw 0.0000 rad
-	// gap 100 ms: dx 1.000 m, dy 0.005 m, dyaw 0.010 rad; sigma dx 0.011 m, dy 0.000 m, dyaw 0.0026 rad
-	// gap 500 ms: dx 4.998 m, dy 0.125 m, dyaw 0.050 rad; sigma dx 0.251 m, dy 0.010 m, dyaw 0.0626 rad
+	// gap 100 ms: dx 1.000 m, dy 0.005 m, dyaw 0.010 rad; sigma dx 0.011 m, dy 0.000 m, dyaw 0.0007 rad
+	// gap 500 ms: dx 4.998 m, dy 0.125 m, dyaw 0.050 rad; sigma dx 0.251 m, dy 0.010 m, dyaw 0.0070 rad
 }

@@ -569,7 +569,7 @@ func TestRelativeMatchesPoses(t *testing.T) {
 // of (v, ω) at t0 and J = ∂(dx, dy, dyaw)/∂(v, ω) of the closed-form CTRV
 // motion from the zero pose (ctrvReference, by central differences).
 func TestRelativeCovarianceLinearised(t *testing.T) {
-	cfg := Config{Model: ModelCTRV, AccelNoiseMps2: 1e-9, YawAccelNoiseRps2: 1e-9, SpeedNoiseMps: 0.5, YawRateNoiseRps: 0.05}
+	cfg := Config{Model: ModelCTRV, AccelNoiseMps2: 1e-9, YawAccelNoiseRps2: 1e-9, SpeedNoiseMps: 0.5, YawRateNoiseRps: 0.05, TurnAdaptOff: true}
 	f := mustNew(t, cfg)
 	mustAdd(t, f, Sample{TimeUs: 0, SpeedMps: 9, YawRateRps: 0.4}, Sample{TimeUs: 10_000, SpeedMps: 9.1, YawRateRps: 0.41})
 	st, _ := f.Predict(10_000)

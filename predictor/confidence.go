@@ -5,14 +5,14 @@ import (
 	"math"
 )
 
-// DefaultConfidenceScaleMrad is the default ConfidenceModel.ScaleMrad, an
-// angle so that confidence does not depend on the image resolution: 25 mrad
-// is the width of a pedestrian (0.5 m) seen from 20 m. It is a design choice
-// of this project, not a published value: at the default cutoff 0.5 a
-// prediction is shown while the worst 1-sigma error of the reference road
-// points stays under sqrt(2 ln 2)·25 ≈ 29 mrad (1.7°), about one pedestrian
-// width at 20 m; 19 px for a 1280 px wide image with a 90° field of view.
-const DefaultConfidenceScaleMrad = 25.0
+// DefaultToleranceMrad is the default ConfidenceModel.ToleranceMrad: the
+// misalignment, as an angle seen from the camera, within which a predicted
+// frame counts as good. 10 mrad (0.57°) is 10 cm at 10 m and 20 cm at 20 m,
+// about a third of a pedestrian's width at 20 m; 6.4 px for a 1280 px wide
+// image with a 90° field of view. A design choice of this project, not a
+// published value; the cutoff on top of it is chosen from replays with
+// `stopgap tune`.
+const DefaultToleranceMrad = 10.0
 
 // defaultReferenceDistancesM returns the default ConfidenceModel reference
 // distances: near, middle and far road points an operator looks at.
@@ -26,7 +26,15 @@ func DefaultReferenceDistancesM() []float64 {
 }
 
 // ConfidenceModel turns the covariance of a relative motion into a
-// confidence in [0, 1]. The zero value uses the documented defaults.
+// confidence in [0, 1] with a stated meaning:
+//
+//	confidence = P(misalignment <= ToleranceMrad)
+//
+// where the misalignment of a predicted frame is the largest angular
+// distance, seen from the camera, between where the frame shows the
+// reference road points (straight ahead of the camera at the
+// ReferenceDistancesM) and where they really are at the target time. The
+// zero value uses the documented defaults.
 //
 // Method: reference road points are placed straight ahead of the camera at
 // T1, at (XOffsetM + d, YOffsetM, 0) in the vehicle frame at T1 for each
@@ -37,30 +45,37 @@ func DefaultReferenceDistancesM() []float64 {
 //	P1 = Rz(ψ)ᵀ (P0 - D)  =>  ∂P1/∂dx = -Rzᵀ e_x, ∂P1/∂dy = -Rzᵀ e_y, ∂P1/∂ψ = (y1, -x1, 0)
 //	X = R_cv (P1 - C)      =>  ∂(u,v)/∂X = [[Fx/Z, 0, -Fx X/Z²], [0, Fy/Z, -Fy Y/Z²]]
 //
-// Σ_px = J Cov Jᵀ; the point's 1-sigma error is the square root of the larger
-// eigenvalue of Σ_px. sigma_px is the worst over the reference points, and
+// Σ_px = J Cov Jᵀ; the point's 1-sigma error along its worst direction is
+// the square root of the larger eigenvalue of Σ_px. sigma_px is the worst
+// over the reference points. The probability is that of a zero-mean normal
+// error of standard deviation sigma_px staying within the tolerance:
 //
-//	confidence = exp(-0.5 · (sigma_px / scale_px)²),  scale_px = ScaleMrad/1000 · Fx
+//	confidence = erf(tol_px / (sqrt(2) · sigma_px)),  tol_px = ToleranceMrad/1000 · Fx
 //
-// so confidence is 1 for a perfectly known motion, 0.5 at
-// sigma_px ≈ 1.18 scale_px, and never increases when the covariance grows (in
-// the positive semi-definite order). Points on or behind the camera plane are
-// skipped; if all are, the confidence is 0 with ErrBehindCamera.
+// The approximation keeps only the dominant direction and the worst point:
+// the reference points move together (a yaw error shifts them all
+// sideways), which is what makes it usable; whether it holds is measured on
+// every replay (bench: reliability diagram, expected calibration error),
+// and the filter's process noise is fitted so that it does. Confidence is
+// 1 for a perfectly known motion and never increases when the covariance
+// grows (in the positive semi-definite order). Points on or behind the
+// camera plane are skipped; if all are, the confidence is 0 with
+// ErrBehindCamera.
 type ConfidenceModel struct {
-	// ScaleMrad is the angular error, milliradians, at which confidence
-	// has fallen to exp(-0.5) ≈ 0.61; in pixels it is ScaleMrad/1000 · Fx.
-	// Zero means DefaultConfidenceScaleMrad.
-	ScaleMrad float64
+	// ToleranceMrad is the misalignment, milliradians, within which a
+	// predicted frame is good; in pixels it is ToleranceMrad/1000 · Fx.
+	// Zero means DefaultToleranceMrad.
+	ToleranceMrad float64
 	// ReferenceDistancesM are the distances ahead of the camera of the
 	// reference road points, metres (> 0). Nil means 5, 10 and 20 m.
 	ReferenceDistancesM []float64
 }
 
-// Validate reports a negative or non-finite scale or a non-positive or
+// Validate reports a negative or non-finite tolerance or a non-positive or
 // non-finite reference distance, wrapping ErrInvalidConfig.
 func (cm ConfidenceModel) Validate() error {
-	if !finite(cm.ScaleMrad) || cm.ScaleMrad < 0 {
-		return fmt.Errorf("confidence ScaleMrad = %g, want a finite value > 0 (0 for the default %g): %w", cm.ScaleMrad, DefaultConfidenceScaleMrad, ErrInvalidConfig)
+	if !finite(cm.ToleranceMrad) || cm.ToleranceMrad < 0 {
+		return fmt.Errorf("confidence ToleranceMrad = %g, want a finite value > 0 (0 for the default %g): %w", cm.ToleranceMrad, DefaultToleranceMrad, ErrInvalidConfig)
 	}
 	for i, d := range cm.ReferenceDistancesM {
 		if !finite(d) || d <= 0 {
@@ -70,26 +85,48 @@ func (cm ConfidenceModel) Validate() error {
 	return nil
 }
 
-// ScalePx returns the confidence scale in pixels for a focal length of fxPx
-// pixels: ScaleMrad/1000 · fxPx.
-func (cm ConfidenceModel) ScalePx(fxPx float64) float64 {
-	s := cm.ScaleMrad
-	if s == 0 {
-		s = DefaultConfidenceScaleMrad
+// Tolerance returns the tolerance in milliradians (the default for zero).
+func (cm ConfidenceModel) Tolerance() float64 {
+	if cm.ToleranceMrad == 0 {
+		return DefaultToleranceMrad
 	}
-	return s / 1000 * fxPx
+	return cm.ToleranceMrad
+}
+
+// TolerancePx returns the tolerance in pixels for a focal length of fxPx
+// pixels: ToleranceMrad/1000 · fxPx.
+func (cm ConfidenceModel) TolerancePx(fxPx float64) float64 {
+	return cm.Tolerance() / 1000 * fxPx
+}
+
+// References returns the reference distances in metres (the defaults for
+// nil), as a new slice.
+func (cm ConfidenceModel) References() []float64 {
+	if cm.ReferenceDistancesM == nil {
+		return DefaultReferenceDistancesM()
+	}
+	return append([]float64(nil), cm.ReferenceDistancesM...)
 }
 
 // FromSigma maps a 1-sigma pixel error, for a camera of focal length fxPx
-// pixels, to confidence exp(-0.5 (sigmaPx/ScalePx(fxPx))²). NaN or negative
-// input gives 0.
+// pixels, to confidence erf(TolerancePx(fxPx) / (sqrt(2) sigmaPx)): the
+// probability that a zero-mean normal error of that standard deviation is
+// within the tolerance, at most MaxUncertainConfidence. Zero sigma gives 1;
+// NaN or negative input gives 0.
 func (cm ConfidenceModel) FromSigma(sigmaPx, fxPx float64) float64 {
 	if !(sigmaPx >= 0) || !(fxPx > 0) {
 		return 0
 	}
-	r := sigmaPx / cm.ScalePx(fxPx)
-	return math.Exp(-0.5 * r * r)
+	if sigmaPx == 0 {
+		return 1
+	}
+	return math.Min(math.Erf(cm.TolerancePx(fxPx)/(math.Sqrt2*sigmaPx)), MaxUncertainConfidence)
 }
+
+// MaxUncertainConfidence caps the confidence of any motion that is not known
+// exactly (sigma > 0), where erf would round to 1 in float64: only a
+// perfectly known motion reaches 1, so a cutoff of 1 never predicts a gap.
+const MaxUncertainConfidence = 1 - 1e-9
 
 // checkCov rejects a covariance with a non-finite entry or negative diagonal
 // and returns its symmetric part.

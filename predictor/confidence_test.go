@@ -3,6 +3,7 @@ package predictor
 import (
 	"errors"
 	"math"
+	"math/rand/v2"
 	"testing"
 )
 
@@ -66,7 +67,7 @@ func TestConfidenceMonotone(t *testing.T) {
 		t.Fatalf("zero covariance: sigma %g conf %g err %v", s0, cm.FromSigma(s0, c.Fx), err)
 	}
 	prev := 1.0
-	for _, k := range []float64{0.01, 0.1, 0.5, 1, 2, 5, 20, 100} {
+	for _, k := range []float64{0.01, 0.1, 0.5, 1, 2, 5, 20, 100, 1000, 10000} {
 		var cov [3][3]float64
 		for i := range cov {
 			for j := range cov[i] {
@@ -102,21 +103,38 @@ func TestConfidenceMonotone(t *testing.T) {
 	}
 }
 
-// TestConfidenceFromSigmaWorked: exp(-0.5 (σ/s)²) at σ = s is exp(-0.5) =
-// 0.6065306597126334 (value of e^-0.5, from memory, recomputed by math.Exp).
-// With ScaleMrad 4 and Fx 1000 px the scale is 4 px.
+// TestConfidenceFromSigmaWorked checks the probability against worked
+// values of the normal distribution: P(|Z| <= 1) = 0.6826894921370859 and
+// P(|Z| <= 1.959963984540054) = 0.95 (standard normal table values, from
+// memory; math.Erf recomputes them). With ToleranceMrad 4 and Fx 1000 px the
+// tolerance is 4 px.
 func TestConfidenceFromSigmaWorked(t *testing.T) {
-	cm := ConfidenceModel{ScaleMrad: 4}
-	if got := cm.FromSigma(4, 1000); math.Abs(got-0.6065306597126334) > 1e-15 {
-		t.Fatalf("got %v", got)
+	cm := ConfidenceModel{ToleranceMrad: 4}
+	if got := cm.FromSigma(4, 1000); math.Abs(got-0.6826894921370859) > 1e-12 {
+		t.Fatalf("sigma = tolerance: got %v, want 0.68269", got)
 	}
-	half := 4 * math.Sqrt(2*math.Ln2)
-	if got := cm.FromSigma(half, 1000); math.Abs(got-0.5) > 1e-12 {
-		t.Fatalf("got %v at sqrt(2 ln 2) scale", got)
+	if got := cm.FromSigma(4/1.959963984540054, 1000); math.Abs(got-0.95) > 1e-9 {
+		t.Fatalf("sigma = tolerance/1.96: got %v, want 0.95", got)
+	}
+	// Monte Carlo of the stated meaning: the share of normal errors within
+	// the tolerance.
+	rng := rand.New(rand.NewPCG(1, 2))
+	in := 0
+	const n = 200000
+	for range n {
+		if math.Abs(3*rng.NormFloat64()) <= 4 {
+			in++
+		}
+	}
+	if got, want := float64(in)/n, cm.FromSigma(3, 1000); math.Abs(got-want) > 0.005 {
+		t.Fatalf("simulated share %v, formula %v", got, want)
 	}
 	// Twice the resolution, twice the pixel error: the same confidence.
 	if a, b := cm.FromSigma(3, 1000), cm.FromSigma(6, 2000); math.Abs(a-b) > 1e-15 {
 		t.Fatalf("resolution dependent: %v vs %v", a, b)
+	}
+	if cm.FromSigma(0, 1000) != 1 {
+		t.Fatal("zero sigma must give 1")
 	}
 	if cm.FromSigma(math.NaN(), 1000) != 0 || cm.FromSigma(-1, 1000) != 0 || cm.FromSigma(1, 0) != 0 {
 		t.Fatal("bad sigma or focal length must give 0")
@@ -139,7 +157,7 @@ func TestConfidenceBadInput(t *testing.T) {
 			t.Errorf("%s: got %v", tc.name, err)
 		}
 	}
-	if err := (ConfidenceModel{ScaleMrad: -1}).Validate(); !errors.Is(err, ErrInvalidConfig) {
+	if err := (ConfidenceModel{ToleranceMrad: -1}).Validate(); !errors.Is(err, ErrInvalidConfig) {
 		t.Errorf("negative scale: %v", err)
 	}
 	if err := (ConfidenceModel{ReferenceDistancesM: []float64{5, 0}}).Validate(); !errors.Is(err, ErrInvalidConfig) {

@@ -60,10 +60,11 @@
 //
 // ConfidenceModel propagates the motion covariance to the pixel positions of
 // road points 5, 10 and 20 m ahead of the camera through the analytic
-// Jacobian, takes the worst 1-sigma error sigma_px and reports
-// exp(-0.5 (sigma_px / scale_px)²), scale_px = ScaleMrad/1000 · Fx with
-// ScaleMrad = 25 mrad by default (a pedestrian's width at 20 m), so the
-// confidence does not depend on the image resolution. Policy makes a
+// Jacobian, takes the worst 1-sigma error sigma_px and reports the
+// probability that the misalignment of those points stays within
+// ToleranceMrad (default 10 mrad): erf(tol_px / (sqrt(2) sigma_px)),
+// tol_px = ToleranceMrad/1000 · Fx, so the confidence does not depend on the
+// image resolution. Policy makes a
 // tick LIVE when a real frame is due and here, PREDICTED when it is missing,
 // confidence >= CutoffConfidence (default 0.5) and the real frame is at most
 // MaxAgeMs (default 800) old, and STALE otherwise. Filler runs this per

@@ -354,6 +354,28 @@ func (f *Filler) MissingWith(method Method, targetUs int64, dst *gocv.Mat) (Tick
 	return tick, err
 }
 
+// WarpHeld writes to dst, unlabelled, the frame a PREDICTED tick with
+// motion m would show: the held frame warped by the ground method with the
+// far-scene depth estimated for it. Replays call it on STALE ticks too, to
+// score the prediction the policy did not show (for choosing a cutoff); it
+// does not change what the Filler holds. dst is owned by the caller. It
+// returns the far depth used, metres (+Inf for rotation only), and fails
+// with ErrNoFrame before the first real frame.
+func (f *Filler) WarpHeld(m filter.Motion, dst *gocv.Mat) (Synthesis, float64, error) {
+	if f.closed {
+		return Synthesis{}, 0, ErrClosed
+	}
+	if !f.have {
+		return Synthesis{}, 0, ErrNoFrame
+	}
+	if !matUsable(dst) {
+		return Synthesis{}, 0, fmt.Errorf("destination is nil or a zero gocv.Mat; create it with gocv.NewMat(): %w", ErrFrameFormat)
+	}
+	d := f.farDepthFor()
+	syn, err := f.synth.SynthesizeFar(f.last, m, d, dst)
+	return syn, d, err
+}
+
 // farDepthFor returns the far-scene depth for the held frame, estimating it
 // once per held frame from the frame before it (see FarDepthEstimator).
 // Without a previous frame, a usable motion between the two, or with the

@@ -232,7 +232,7 @@ func TestFillerConfigErrors(t *testing.T) {
 		{"nil motion", func(c *FillerConfig) { c.Motion = nil }, ErrInvalidConfig},
 		{"bad policy", func(c *FillerConfig) { c.Policy.CutoffConfidence = 2 }, ErrInvalidPolicy},
 		{"bad camera", func(c *FillerConfig) { c.Camera.Fx = -1 }, ErrInvalidCamera},
-		{"bad scale", func(c *FillerConfig) { c.Confidence.ScaleMrad = math.NaN() }, ErrInvalidConfig},
+		{"bad tolerance", func(c *FillerConfig) { c.Confidence.ToleranceMrad = math.NaN() }, ErrInvalidConfig},
 	}
 	for _, tc := range cases {
 		cfg := good

@@ -35,6 +35,16 @@ type Config struct {
 	// far scene only, so nearby vertical structures are what they get
 	// wrong: use a small value (e.g. 1) for a narrow city street.
 	FacadeSetbackM float64
+
+	// PanYawRateRps, when not zero, adds a yaw rate of this amplitude
+	// (rad/s) that reverses every half PanPeriodS on top of the curves: a
+	// smoothed square wave, tanh(3 sin(2π t / PanPeriodS))/tanh(3), that
+	// holds near ±PanYawRateRps and swings from -90 % to +90 % of it in
+	// about a sixth of the period. A weaving drive whose camera pans left,
+	// then right, to test predictions at reversals of the turn rate.
+	// PanPeriodS defaults to 4 s (a reversal every 2 s).
+	PanYawRateRps float64
+	PanPeriodS    float64
 }
 
 // Defaults.
@@ -57,6 +67,7 @@ const (
 	DefaultXOffsetM      = 1.5
 	DefaultHFOVDeg       = 90
 	DefaultSetbackM      = 8
+	DefaultPanPeriodS    = 4
 )
 
 // withDefaults returns c with zero fields replaced by defaults and checks
@@ -93,6 +104,7 @@ func (c Config) withDefaults() (Config, error) {
 	setF(&c.CameraXOffsetM, DefaultXOffsetM)
 	setF(&c.HorizontalFOVDeg, DefaultHFOVDeg)
 	setF(&c.FacadeSetbackM, DefaultSetbackM)
+	setF(&c.PanPeriodS, DefaultPanPeriodS)
 
 	checks := []struct {
 		ok   bool
@@ -113,6 +125,8 @@ func (c Config) withDefaults() (Config, error) {
 		{finite(c.CameraXOffsetM) && math.Abs(c.CameraXOffsetM) <= 10, "CameraXOffsetM must be within ±10 m"},
 		{finite(c.HorizontalFOVDeg) && c.HorizontalFOVDeg >= 20 && c.HorizontalFOVDeg <= 150, "HorizontalFOVDeg must be in [20, 150]"},
 		{finite(c.FacadeSetbackM) && c.FacadeSetbackM >= 0 && c.FacadeSetbackM <= 30, "FacadeSetbackM must be in [0, 30] m"},
+		{finite(c.PanYawRateRps) && math.Abs(c.PanYawRateRps) <= 2, "PanYawRateRps must be within ±2 rad/s"},
+		{finite(c.PanPeriodS) && c.PanPeriodS >= 0.5 && c.PanPeriodS <= 60, "PanPeriodS must be in [0.5, 60] s"},
 	}
 	for _, ch := range checks {
 		if !ch.ok {

@@ -76,7 +76,7 @@ func Generate(ctx context.Context, cfg Config, outDir string, progress func(done
 		}
 	}()
 
-	tr := newTrajectory(cfg.SpeedMps, cfg.DurationS)
+	tr := newPanTrajectory(cfg.SpeedMps, cfg.DurationS, cfg.PanYawRateRps, cfg.PanPeriodS)
 	if err := writeTelemetry(w, cfg, tr); err != nil {
 		return err
 	}

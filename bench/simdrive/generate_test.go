@@ -211,3 +211,30 @@ func telemetryRows(t *testing.T, cfg Config, tr *trajectory) []recording.Telemet
 	}
 	return r.Telemetry
 }
+
+// TestPanTrajectory: the pan adds a yaw rate that holds near ±amplitude
+// and reverses every half period; the integrated heading follows the yaw
+// rate (central difference of the pose against YawRateRps).
+func TestPanTrajectory(t *testing.T) {
+	tr := newPanTrajectory(10, 8, 0.5, 4)
+	plain := newTrajectory(10, 8)
+	if got := tr.YawRateRps(1) - plain.YawRateRps(1); math.Abs(got-0.5) > 0.01 {
+		t.Errorf("pan yaw rate at a quarter period %v, want about 0.5", got)
+	}
+	if got := tr.YawRateRps(3) - plain.YawRateRps(3); math.Abs(got+0.5) > 0.01 {
+		t.Errorf("pan yaw rate at three quarters %v, want about -0.5", got)
+	}
+	if got := tr.YawRateRps(2) - plain.YawRateRps(2); math.Abs(got) > 1e-9 {
+		t.Errorf("pan yaw rate at the reversal %v, want 0", got)
+	}
+	for _, ts := range []float64{0.5, 1.9, 2.1, 5.3} {
+		us := int64(ts * 1e6)
+		d := (tr.PoseAt(us+1000).YawRad - tr.PoseAt(us-1000).YawRad) / 0.002
+		if math.Abs(d-tr.YawRateRps(ts)) > 1e-3 {
+			t.Errorf("t=%g s: heading rate %v, yaw rate %v", ts, d, tr.YawRateRps(ts))
+		}
+	}
+	if _, err := (Config{PanYawRateRps: 3}).withDefaults(); err == nil {
+		t.Error("a 3 rad/s pan must be refused")
+	}
+}

@@ -22,12 +22,20 @@ type pose struct {
 // integrated on a fixed 1 ms grid.
 type trajectory struct {
 	meanSpeedMps float64
-	grid         []pose // grid[k] is the pose at k*integStepUs
+	grid         []pose  // grid[k] is the pose at k*integStepUs
+	panRps       float64 // amplitude of the extra pan yaw rate (Config.PanYawRateRps)
+	panPeriodS   float64
 }
 
 // newTrajectory integrates the profile from t = 0 to durationS + leadS.
 func newTrajectory(meanSpeedMps, durationS float64) *trajectory {
-	tr := &trajectory{meanSpeedMps: meanSpeedMps}
+	return newPanTrajectory(meanSpeedMps, durationS, 0, DefaultPanPeriodS)
+}
+
+// newPanTrajectory is newTrajectory with an extra yaw rate
+// panRps·panWave(t / panPeriodS) (see Config.PanYawRateRps).
+func newPanTrajectory(meanSpeedMps, durationS, panRps, panPeriodS float64) *trajectory {
+	tr := &trajectory{meanSpeedMps: meanSpeedMps, panRps: panRps, panPeriodS: panPeriodS}
 	n := int(math.Ceil((durationS+leadS)*1e6/float64(integStepUs))) + 1
 	tr.grid = make([]pose, n)
 	for k := 1; k < n; k++ {
@@ -48,7 +56,11 @@ func (tr *trajectory) AccelMps2(t float64) float64 {
 
 // CurvaturePM returns the path curvature (1/m, positive left) at time t.
 func (tr *trajectory) CurvaturePM(t float64) float64 {
-	return curvatureMaxPM * math.Sin(2*math.Pi*t/curvePeriodS)
+	k := curvatureMaxPM * math.Sin(2*math.Pi*t/curvePeriodS)
+	if tr.panRps != 0 {
+		k += tr.panRps * panWave(t/tr.panPeriodS) / tr.SpeedMps(t)
+	}
+	return k
 }
 
 // YawRateRps returns the true yaw rate at time t.
@@ -95,3 +107,14 @@ func (tr *trajectory) PoseAt(tUs int64) pose {
 
 // endUs returns the last integrated time.
 func (tr *trajectory) endUs() int64 { return int64(len(tr.grid)-1) * integStepUs }
+
+// panSharpness shapes panWave: tanh(3 sin)/tanh(3) goes from -0.9 to +0.9
+// in about a sixth of the period.
+const panSharpness = 3
+
+// panWave is a smoothed square wave of period 1 in the phase p:
+// tanh(k sin 2πp)/tanh(k), k = panSharpness. It holds near ±1 and reverses
+// quickly, like a camera panning left, then right.
+func panWave(p float64) float64 {
+	return math.Tanh(panSharpness*math.Sin(2*math.Pi*p)) / math.Tanh(panSharpness)
+}

@@ -29,6 +29,9 @@ type replayFlags struct {
 	examples             int
 	overwrite, quiet     bool
 	logJSON, verboseLogs bool
+	telemetryOwn         bool
+	telemetryLoss        float64
+	toleranceMrad        float64
 }
 
 func (f *replayFlags) register(fs *flag.FlagSet) {
@@ -50,6 +53,9 @@ func (f *replayFlags) register(fs *flag.FlagSet) {
 	fs.BoolVar(&f.quiet, "quiet", false, "no progress bar")
 	fs.BoolVar(&f.logJSON, "log-json", false, "write logs as JSON")
 	fs.BoolVar(&f.verboseLogs, "v", false, "verbose logs (every rejected telemetry sample)")
+	fs.BoolVar(&f.telemetryOwn, "telemetry-own-channel", false, "telemetry without recorded arrivals comes on its own channel (lost only at --telemetry-loss-rate) instead of sharing the fate of the video (default: shared, the conservative case)")
+	fs.Float64Var(&f.telemetryLoss, "telemetry-loss-rate", 0, "share of telemetry samples lost on their own channel, [0,1); needs --telemetry-own-channel")
+	fs.Float64Var(&f.toleranceMrad, "tolerance-mrad", predictor.DefaultToleranceMrad, "misalignment within which a predicted frame counts as good, mrad: the confidence is the probability of that")
 }
 
 func (f *replayFlags) config(drive, out string, stderr io.Writer) (bench.ReplayConfig, error) {
@@ -62,6 +68,12 @@ func (f *replayFlags) config(drive, out string, stderr io.Writer) (bench.ReplayC
 	}
 	if f.maxAgeMs < 0 || f.maxAgeMs != f.maxAgeMs {
 		return bench.ReplayConfig{}, fmt.Errorf("--max-age-ms %v: want a duration >= 0", f.maxAgeMs)
+	}
+	if !(f.toleranceMrad > 0) {
+		return bench.ReplayConfig{}, fmt.Errorf("--tolerance-mrad %v: want an angle > 0", f.toleranceMrad)
+	}
+	if !(f.telemetryLoss >= 0 && f.telemetryLoss < 1) || (f.telemetryLoss != 0 && !f.telemetryOwn) {
+		return bench.ReplayConfig{}, fmt.Errorf("--telemetry-loss-rate %v: want a share in [0, 1), with --telemetry-own-channel", f.telemetryLoss)
 	}
 	level := slog.LevelInfo
 	if f.verboseLogs {
@@ -77,6 +89,8 @@ func (f *replayFlags) config(drive, out string, stderr io.Writer) (bench.ReplayC
 		Policy:      predictor.Policy{CutoffConfidence: f.cutoff, MaxAgeMs: f.maxAgeMs},
 		Filter:      filter.Config{Model: model, WheelbaseM: f.wheelbaseM},
 		AllowanceMs: f.allowanceMs,
+		Telemetry:   bench.TelemetryLink{Own: f.telemetryOwn, LossRate: f.telemetryLoss, Seed: f.seed},
+		Confidence:  predictor.ConfidenceModel{ToleranceMrad: f.toleranceMrad},
 		Examples:    f.examples,
 		Logger:      newLogger(stderr, f.logJSON, level),
 	}
@@ -147,11 +161,28 @@ func printSummary(w io.Writer, s bench.Summary, out string) {
 	fmt.Fprintf(w, "%-10s %7s %10s %9s %9s\n", "method", "frames", "PSNR dB", "SSIM", "MAE")
 	for _, m := range bench.Methods() {
 		st := s.Methods.Get(m)
+		name := m.String()
+		if m == bench.MethodPredicted {
+			name = "shown"
+		}
 		if st.Frames == 0 {
-			fmt.Fprintf(w, "%-10s %7d %10s %9s %9s\n", m, 0, "-", "-", "-")
+			fmt.Fprintf(w, "%-10s %7d %10s %9s %9s\n", name, 0, "-", "-", "-")
 			continue
 		}
-		fmt.Fprintf(w, "%-10s %7d %10.2f %9.4f %9.2f\n", m, st.Frames, float64(st.PSNRdBMean), float64(st.SSIMMean), float64(st.MAEMean))
+		fmt.Fprintf(w, "%-10s %7d %10.2f %9.4f %9.2f\n", name, st.Frames, float64(st.PSNRdBMean), float64(st.SSIMMean), float64(st.MAEMean))
+	}
+	if po := s.PredictedOnly; po.Frames > 0 {
+		fmt.Fprintf(w, "PREDICTED ticks alone: %d, PSNR %.2f dB (hold %.2f), SSIM %.4f (hold %.4f); harm rate %.1f %% by PSNR, %.1f %% by SSIM\n",
+			po.Frames, float64(po.PSNRdBMean), float64(po.HoldPSNRdBMean), float64(po.SSIMMean), float64(po.HoldSSIMMean),
+			100*float64(po.HarmRatePSNR), 100*float64(po.HarmRateSSIM))
+	} else {
+		fmt.Fprintln(w, "PREDICTED ticks alone: none scored")
+	}
+	for _, c := range []bench.Calibration{s.Calibration, s.CalibrationTruth} {
+		if c.Frames > 0 {
+			fmt.Fprintf(w, "calibration (%s, misalignment <= %g mrad): %d ticks, ECE %.3f, Brier %.3f, mean confidence %.3f, observed %.3f\n",
+				c.Source, c.ToleranceMrad, c.Frames, float64(c.ECE), float64(c.Brier), float64(c.ConfMean), float64(c.GoodShare))
+		}
 	}
 	if s.UnscoredNote != "" {
 		fmt.Fprintln(w, s.UnscoredNote)
@@ -173,6 +204,8 @@ func runSimdrive(ctx context.Context, args []string, stdout, stderr io.Writer) e
 	fs.Float64Var(&cfg.SpeedMps, "speed-mps", 10, "mean speed, m/s")
 	fs.Int64Var(&cfg.Seed, "seed", 1, "seed of the scene, trajectory and telemetry noise")
 	fs.Float64Var(&cfg.FacadeSetbackM, "facade-setback-m", simdrive.DefaultSetbackM, "least distance of building fronts behind the sidewalk, m (1 = narrow city street)")
+	fs.Float64Var(&cfg.PanYawRateRps, "pan-yaw-rate-rps", 0, "amplitude of an extra yaw rate that reverses every half --pan-period-s (a weaving, panning drive), rad/s; 0 = none")
+	fs.Float64Var(&cfg.PanPeriodS, "pan-period-s", simdrive.DefaultPanPeriodS, "period of the pan yaw rate, s")
 	fs.BoolVar(&quiet, "quiet", false, "no progress bar")
 	fs.Usage = func() {
 		fmt.Fprintln(stderr, "usage: stopgap simdrive --out DIR [flags]")
