@@ -205,26 +205,9 @@ func (s *Synthesizer) BandRows() (first, end int) { return s.rowA, s.rowB }
 // and both must be whole (continuous) Mats, not region views.
 func (s *Synthesizer) Warp(src gocv.Mat, ground, far Homography, dst *gocv.Mat) (Synthesis, error) {
 	out := Synthesis{Ground: ground, Far: far}
-	if s.closed {
-		return out, ErrClosed
-	}
-	if err := checkFrame("source frame", &src, s.cam.Width, s.cam.Height); err != nil {
-		return out, err
-	}
-	gi, err := ground.Inverse()
+	gi, fi, src, err := s.prepare(src, ground, far, dst)
 	if err != nil {
-		return out, fmt.Errorf("ground homography: %w", err)
-	}
-	fi, err := far.Inverse()
-	if err != nil {
-		return out, fmt.Errorf("far homography: %w", err)
-	}
-	if err := ensureLike(dst, src); err != nil {
 		return out, err
-	}
-	if s.undistort {
-		gocv.Remap(src, &s.undist, &s.map1, &s.map2, gocv.InterpolationLinear, gocv.BorderConstant, neutralFill)
-		src = s.undist
 	}
 	w, h := s.cam.Width, s.cam.Height
 	sv, err := matView(&src)
@@ -430,4 +413,32 @@ func blendPixel(out, g, f []byte, j int, wt uint16) {
 		out[j+1] = byte((uint32(g[j+1])*a + uint32(f[j+1])*b + 128) >> 8)
 		out[j+2] = byte((uint32(g[j+2])*a + uint32(f[j+2])*b + 128) >> 8)
 	}
+}
+
+// prepare is the common start of every warp: it checks the synthesizer and
+// the source frame, inverts the ground and far homographies (output to
+// source), sizes dst like src, and undistorts src into the synthesizer's own
+// buffer when the camera has distortion. It returns the inverses and the
+// source to sample (src itself, or that buffer, owned by s).
+func (s *Synthesizer) prepare(src gocv.Mat, ground, far Homography, dst *gocv.Mat) (gi, fi Homography, _ gocv.Mat, err error) {
+	if s.closed {
+		return gi, fi, src, ErrClosed
+	}
+	if err := checkFrame("source frame", &src, s.cam.Width, s.cam.Height); err != nil {
+		return gi, fi, src, err
+	}
+	if gi, err = ground.Inverse(); err != nil {
+		return gi, fi, src, fmt.Errorf("ground homography: %w", err)
+	}
+	if fi, err = far.Inverse(); err != nil {
+		return gi, fi, src, fmt.Errorf("far homography: %w", err)
+	}
+	if err := ensureLike(dst, src); err != nil {
+		return gi, fi, src, err
+	}
+	if s.undistort {
+		gocv.Remap(src, &s.undist, &s.map1, &s.map2, gocv.InterpolationLinear, gocv.BorderConstant, neutralFill)
+		src = s.undist
+	}
+	return gi, fi, src, nil
 }

@@ -65,26 +65,9 @@ func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM f
 		return Synthesis{}, fmt.Errorf("far-scene homography at depth %g m is not finite: %w", farDepthM, ErrSingular)
 	}
 	out := Synthesis{Ground: g, Far: f}
-	if s.closed {
-		return out, ErrClosed
-	}
-	if err := checkFrame("source frame", &src, s.cam.Width, s.cam.Height); err != nil {
-		return out, err
-	}
-	gi, err := g.Inverse()
+	gi, fi, src, err := s.prepare(src, g, f, dst)
 	if err != nil {
-		return out, fmt.Errorf("ground homography: %w", err)
-	}
-	fi, err := f.Inverse()
-	if err != nil {
-		return out, fmt.Errorf("far homography: %w", err)
-	}
-	if err := ensureLike(dst, src); err != nil {
 		return out, err
-	}
-	if s.undistort {
-		gocv.Remap(src, &s.undist, &s.map1, &s.map2, gocv.InterpolationLinear, gocv.BorderConstant, neutralFill)
-		src = s.undist
 	}
 	sv, err := matView(&src)
 	if err != nil {
