@@ -7,7 +7,6 @@ import (
 	"image/color"
 	"io"
 	"math"
-	"os"
 	"path/filepath"
 
 	"gonum.org/v1/plot"
@@ -167,57 +166,33 @@ func writeTunePlot(path string, res TuneResult) error {
 // tune.html with the safety caution. Like a replay report, it is written
 // into a hidden directory next to dir and renamed only when complete; an
 // existing non-empty dir is refused (ErrDestExists) unless overwrite.
-func WriteTuneReport(dir string, res TuneResult, overwrite bool) (err error) {
-	dir = filepath.Clean(dir)
-	parent, base := filepath.Dir(dir), filepath.Base(dir)
-	exists, err := checkDest(dir, overwrite)
-	if err != nil {
-		return err
-	}
-	tmp, err := os.MkdirTemp(parent, "."+base+reportTmpMark)
-	if err != nil {
-		return fmt.Errorf("bench: creating tune report next to %q: %w; create the parent first", dir, err)
-	}
-	defer func() {
+func WriteTuneReport(dir string, res TuneResult, overwrite bool) error {
+	return writeDirAtomic(dir, overwrite, "tune report", func(tmp string) error {
+		if err := writeFile(filepath.Join(tmp, TuneJSONFile), func(w io.Writer) error {
+			enc := json.NewEncoder(w)
+			enc.SetIndent("", "  ")
+			return enc.Encode(res)
+		}); err != nil {
+			return err
+		}
+		if err := writeTunePlot(filepath.Join(tmp, TunePlotFile), res); err != nil {
+			return err
+		}
+		tpl, err := template.New("tune").Funcs(template.FuncMap{"f": fmtFloat}).Parse(tuneHTML)
 		if err != nil {
-			os.RemoveAll(tmp)
+			return fmt.Errorf("bench: tune template: %w", err)
 		}
-	}()
-	if err := os.Chmod(tmp, 0o755); err != nil {
-		return fmt.Errorf("bench: tune report: %w", err)
-	}
-	if err := writeFile(filepath.Join(tmp, TuneJSONFile), func(w io.Writer) error {
-		enc := json.NewEncoder(w)
-		enc.SetIndent("", "  ")
-		return enc.Encode(res)
-	}); err != nil {
-		return err
-	}
-	if err := writeTunePlot(filepath.Join(tmp, TunePlotFile), res); err != nil {
-		return err
-	}
-	tpl, err := template.New("tune").Funcs(template.FuncMap{"f": fmtFloat}).Parse(tuneHTML)
-	if err != nil {
-		return fmt.Errorf("bench: tune template: %w", err)
-	}
-	if err := writeFile(filepath.Join(tmp, TuneHTMLFile), func(w io.Writer) error {
-		return tpl.Execute(w, struct {
-			Caution string
-			R       TuneResult
-			Plot    string
-		}{SafetyCaution, res, TunePlotFile})
-	}); err != nil {
-		return err
-	}
-	if exists {
-		if err := os.RemoveAll(dir); err != nil {
-			return fmt.Errorf("bench: replacing %q: %w", dir, err)
+		if err := writeFile(filepath.Join(tmp, TuneHTMLFile), func(w io.Writer) error {
+			return tpl.Execute(w, struct {
+				Caution string
+				R       TuneResult
+				Plot    string
+			}{SafetyCaution, res, TunePlotFile})
+		}); err != nil {
+			return err
 		}
-	}
-	if err := os.Rename(tmp, dir); err != nil {
-		return fmt.Errorf("bench: moving finished tune report into place at %q: %w", dir, err)
-	}
-	return nil
+		return nil
+	})
 }
 
 const tuneHTML = `<!DOCTYPE html>

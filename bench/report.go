@@ -648,24 +648,38 @@ func WriteReport(dir string, s Summary, ticks []TickRow, examples []Example) err
 // must exist. If dir exists and is not empty, Write fails with
 // ErrDestExists unless Overwrite is set; an existing empty directory is
 // replaced.
-func (w ReportWriter) Write(dir string, s Summary, ticks []TickRow, examples []Example) (err error) {
+func (w ReportWriter) Write(dir string, s Summary, ticks []TickRow, examples []Example) error {
+	return writeDirAtomic(dir, w.Overwrite, "report", func(tmp string) error {
+		return w.writeAll(tmp, s, ticks, examples)
+	})
+}
+
+// writeDirAtomic creates dir by calling fill on a new hidden directory next
+// to it (".<name>.partial-*") and renaming that to dir only when fill
+// succeeded, so a failed or interrupted run never leaves a directory named
+// dir that looks complete; on error the partial directory is removed. The
+// parent of dir must exist. An existing non-empty dir is refused with
+// ErrDestExists unless overwrite; a replaced dir is swapped out and removed
+// only after the new one is in place. what names the output in errors
+// ("report", "tune report").
+func writeDirAtomic(dir string, overwrite bool, what string, fill func(tmp string) error) (err error) {
 	dir = filepath.Clean(dir)
 	parent, base := filepath.Dir(dir), filepath.Base(dir)
 	if base == "." || base == string(filepath.Separator) {
-		return fmt.Errorf("bench: report destination %q must name a new directory", dir)
+		return fmt.Errorf("bench: %s destination %q must name a new directory", what, dir)
 	}
 	if st, serr := os.Stat(parent); serr != nil {
-		return fmt.Errorf("bench: report destination parent %q: %w; create it first", parent, serr)
+		return fmt.Errorf("bench: %s destination parent %q: %w; create it first", what, parent, serr)
 	} else if !st.IsDir() {
-		return fmt.Errorf("bench: report destination parent %q is not a directory", parent)
+		return fmt.Errorf("bench: %s destination parent %q is not a directory", what, parent)
 	}
-	exists, err := checkDest(dir, w.Overwrite)
+	exists, err := checkDest(dir, overwrite)
 	if err != nil {
 		return err
 	}
 	tmp, err := os.MkdirTemp(parent, "."+base+reportTmpMark)
 	if err != nil {
-		return fmt.Errorf("bench: creating report directory next to %q: %w", dir, err)
+		return fmt.Errorf("bench: creating %s directory next to %q: %w", what, dir, err)
 	}
 	defer func() {
 		if err != nil {
@@ -673,14 +687,14 @@ func (w ReportWriter) Write(dir string, s Summary, ticks []TickRow, examples []E
 		}
 	}()
 	if err := os.Chmod(tmp, 0o755); err != nil {
-		return fmt.Errorf("bench: report directory: %w", err)
+		return fmt.Errorf("bench: %s directory: %w", what, err)
 	}
-	if err := w.writeAll(tmp, s, ticks, examples); err != nil {
+	if err := fill(tmp); err != nil {
 		return err
 	}
 	if !exists {
 		if err := os.Rename(tmp, dir); err != nil {
-			return fmt.Errorf("bench: moving finished report into place at %q: %w", dir, err)
+			return fmt.Errorf("bench: moving finished %s into place at %q: %w", what, dir, err)
 		}
 		return nil
 	}
@@ -693,16 +707,16 @@ func (w ReportWriter) Write(dir string, s Summary, ticks []TickRow, examples []E
 		return fmt.Errorf("bench: replacing %q: %w", dir, err)
 	}
 	if err := os.Rename(dir, old); err != nil {
-		return fmt.Errorf("bench: moving old report %q aside: %w", dir, err)
+		return fmt.Errorf("bench: moving old %s %q aside: %w", what, dir, err)
 	}
 	if err := os.Rename(tmp, dir); err != nil {
 		if rerr := os.Rename(old, dir); rerr != nil {
-			return fmt.Errorf("bench: moving finished report into place at %q: %w (old report left at %q: %v)", dir, err, old, rerr)
+			return fmt.Errorf("bench: moving finished %s into place at %q: %w (old one left at %q: %v)", what, dir, err, old, rerr)
 		}
-		return fmt.Errorf("bench: moving finished report into place at %q: %w", dir, err)
+		return fmt.Errorf("bench: moving finished %s into place at %q: %w", what, dir, err)
 	}
 	if err := os.RemoveAll(old); err != nil {
-		return fmt.Errorf("bench: report written to %q but the old one at %q could not be removed: %w", dir, old, err)
+		return fmt.Errorf("bench: %s written to %q but the old one at %q could not be removed: %w", what, dir, old, err)
 	}
 	return nil
 }
