@@ -171,3 +171,22 @@ func TestTunePolicyAndProposal(t *testing.T) {
 		t.Errorf("profile cutoff %v, proposal %+v; want cutoff unchanged at 0.7 and a tune proposal from 0.7 of run tune-test-1 with its interval\n%s", p.Cutoff, prop, so)
 	}
 }
+
+// TestTuneRange: the sweep range defaults to the policy's limits, flags
+// may narrow it, and a flag beyond the built-in policy names that policy.
+func TestTuneRange(t *testing.T) {
+	pol := operator.DefaultPolicy()
+	if lo, hi, err := tuneRange(pol, -1, -1); err != nil || lo != pol.MinCutoff || hi != pol.MaxCutoff {
+		t.Errorf("defaults: [%v, %v] %v, want [%v, %v]", lo, hi, err, pol.MinCutoff, pol.MaxCutoff)
+	}
+	if lo, hi, err := tuneRange(pol, 0.6, 0.8); err != nil || lo != 0.6 || hi != 0.8 {
+		t.Errorf("narrowed: [%v, %v] %v, want [0.6, 0.8]", lo, hi, err)
+	}
+	if _, _, err := tuneRange(pol, 0.9, 0.7); err == nil || !strings.Contains(err.Error(), "above --max-cutoff") {
+		t.Errorf("min above max: %v", err)
+	}
+	_, _, err := tuneRange(pol, 0.1, -1)
+	if err == nil || !strings.Contains(err.Error(), "min_cutoff") || !strings.Contains(err.Error(), "built-in default policy") {
+		t.Errorf("below the built-in policy: %v", err)
+	}
+}
