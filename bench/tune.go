@@ -34,6 +34,27 @@ func DefaultTuneCutoffs() []float64 {
 	return out
 }
 
+// TuneCutoffsWithin returns the cutoffs of DefaultTuneCutoffs within
+// [lo, hi], with lo and hi themselves added when they fall between grid
+// points: the sweep of a tuning run bounded by an administrator's limits.
+// It returns nil unless 0 <= lo <= hi <= 1.
+func TuneCutoffsWithin(lo, hi float64) []float64 {
+	if !(lo >= 0 && lo <= hi && hi <= 1) {
+		return nil
+	}
+	const eps = 1e-9 // grid points are i/20, compared to limits as typed
+	out := []float64{lo}
+	for _, c := range DefaultTuneCutoffs() {
+		if c > lo+eps && c < hi-eps {
+			out = append(out, c)
+		}
+	}
+	if hi > lo {
+		out = append(out, hi)
+	}
+	return out
+}
+
 // TuneTolerance is what a recommended cutoff must meet. Set exactly one of
 // the three (zero = not used).
 type TuneTolerance struct {

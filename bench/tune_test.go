@@ -137,3 +137,32 @@ func TestTuneBadInput(t *testing.T) {
 		})
 	}
 }
+
+// TestTuneCutoffsWithin: the sweep bounded by an administrator's limits
+// keeps the grid points inside, adds the limits themselves, and refuses an
+// invalid range.
+func TestTuneCutoffsWithin(t *testing.T) {
+	tests := []struct {
+		lo, hi float64
+		want   []float64
+	}{
+		{0.5, 1, []float64{0.5, 0.55, 0.6, 0.65, 0.7, 0.75, 0.8, 0.85, 0.9, 0.95, 1}},
+		{0.52, 0.61, []float64{0.52, 0.55, 0.6, 0.61}},
+		{0.7, 0.7, []float64{0.7}},
+		{0.8, 0.7, nil},
+		{-0.1, 1, nil},
+	}
+	for _, tc := range tests {
+		got := TuneCutoffsWithin(tc.lo, tc.hi)
+		if len(got) != len(tc.want) {
+			t.Errorf("[%g, %g]: got %v, want %v", tc.lo, tc.hi, got, tc.want)
+			continue
+		}
+		for i := range got {
+			if math.Abs(got[i]-tc.want[i]) > 1e-12 {
+				t.Errorf("[%g, %g]: got %v, want %v", tc.lo, tc.hi, got, tc.want)
+				break
+			}
+		}
+	}
+}

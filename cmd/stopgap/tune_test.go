@@ -3,10 +3,13 @@ package main
 import (
 	"bytes"
 	"context"
+	"fmt"
 	"os"
 	"path/filepath"
 	"strings"
 	"testing"
+
+	"stopgap/stream/operator"
 )
 
 // TestTuneCLI: bad input to tune exits non-zero with a message naming the
@@ -72,5 +75,118 @@ func TestTuneCLI(t *testing.T) {
 		if _, err := os.Stat(filepath.Join(dir, "t4", f)); err != nil {
 			t.Errorf("tune report lacks %s: %v", f, err)
 		}
+	}
+}
+
+// TestTunePolicyAndProposal: tune sweeps only within the administrator's
+// policy, refuses limits beyond it and a proposal the policy does not allow
+// (naming the limit and the file, before any replay, leaving no report),
+// and with --operator records its recommendation in that profile's history
+// as a proposal of the tune actor without changing the cutoff.
+func TestTunePolicyAndProposal(t *testing.T) {
+	dir := t.TempDir()
+	runCmd := func(args ...string) (int, string, string) {
+		var out, errb bytes.Buffer
+		code := run(context.Background(), args, &out, &errb)
+		return code, out.String(), errb.String()
+	}
+	drive := filepath.Join(dir, "drive")
+	if code, _, e := runCmd("simdrive", "--quiet", "--out", drive, "--width", "160", "--height", "90", "--duration-s", "20"); code != 0 {
+		t.Fatalf("simdrive: %d %s", code, e)
+	}
+	writeFile := func(name, body string) string {
+		p := filepath.Join(dir, name)
+		if err := os.WriteFile(p, []byte(body), 0o644); err != nil {
+			t.Fatal(err)
+		}
+		return p
+	}
+	pol := writeFile("policy.json", `{"min_cutoff": 0.3, "max_cutoff": 0.9}`)
+	noPropose := writeFile("no-propose.json", `{"min_cutoff": 0.3, "allow": {"tune": []}}`)
+	store := filepath.Join(dir, "operators.json")
+	if code, _, e := runCmd("operator", "add", "erin", "--cutoff", "0.7", "--store", store, "--policy", pol); code != 0 {
+		t.Fatalf("operator add: %d %s", code, e)
+	}
+	link := []string{"--quiet", "--drive", drive, "--loss-rate", "0.3", "--burst-ms", "100", "--resamples", "100"}
+
+	refusals := []struct {
+		name string
+		args []string
+		want []string
+	}{
+		{"min-cutoff below the policy", []string{"--min-cutoff", "0.2", "--policy", pol}, []string{"--min-cutoff", "min_cutoff = 0.3", pol}},
+		{"max-cutoff above the policy", []string{"--max-cutoff", "0.95", "--policy", pol}, []string{"--max-cutoff", "max_cutoff = 0.9", pol}},
+		{"tune may not propose", []string{"--policy", noPropose, "--operator", "erin", "--operators", store}, []string{"allow.tune", noPropose}},
+		{"unknown operator", []string{"--policy", pol, "--operator", "nobody", "--operators", store}, []string{"nobody", "operator add"}},
+	}
+	for i, tc := range refusals {
+		t.Run(tc.name, func(t *testing.T) {
+			out := filepath.Join(dir, fmt.Sprintf("refused%d", i))
+			code, _, e := runCmd(append(append([]string{"tune", "--out", out}, link...), tc.args...)...)
+			if code != 1 {
+				t.Fatalf("exit %d, want 1; stderr %s", code, e)
+			}
+			for _, w := range tc.want {
+				if !strings.Contains(e, w) {
+					t.Errorf("stderr %q does not name %q", e, w)
+				}
+			}
+			if _, err := os.Stat(out); !os.IsNotExist(err) {
+				t.Errorf("refused run left %s (stat: %v)", out, err)
+			}
+		})
+	}
+
+	out := filepath.Join(dir, "tuned")
+	code, so, e := runCmd(append(append([]string{"tune", "--out", out}, link...), "--policy", pol, "--operator", "erin", "--operators", store, "--run", "tune-test-1")...)
+	t.Logf("tune:\n%s", so)
+	if code != 0 {
+		t.Fatalf("tune: exit %d, %s", code, e)
+	}
+	// The sweep is the policy's range: first row 0.30, last 0.90.
+	var rows []string
+	for _, l := range strings.Split(so, "\n") {
+		if f := strings.Fields(l); len(f) > 0 && strings.HasPrefix(f[0], "0.") {
+			rows = append(rows, f[0])
+		}
+	}
+	if len(rows) == 0 || rows[0] != "0.30" || rows[len(rows)-1] != "0.90" {
+		t.Errorf("swept cutoffs %v, want 0.30 to 0.90 (the policy's limits)", rows)
+	}
+	snap, err := operator.NewStore(store).Load()
+	if err != nil {
+		t.Fatal(err)
+	}
+	p := snap.Profiles[snap.Find("erin")]
+	prop, ok := p.LastProposal()
+	if !ok {
+		t.Fatalf("no proposal in erin's history: %+v", p.History)
+	}
+	var rec float64
+	if _, err := fmt.Sscan(prop.To, &rec); err != nil || rec < 0.3 || rec > 0.9 {
+		t.Errorf("proposal to %q, want a cutoff within the policy [0.3, 0.9] (%v)", prop.To, err)
+	}
+	if p.Cutoff != 0.7 || prop.Actor != operator.ActorTune || prop.Run != "tune-test-1" || prop.From != "0.7" ||
+		!strings.Contains(prop.Reason, "interval") || !strings.Contains(so, "stopgap operator apply erin") {
+		t.Errorf("profile cutoff %v, proposal %+v; want cutoff unchanged at 0.7 and a tune proposal from 0.7 of run tune-test-1 with its interval\n%s", p.Cutoff, prop, so)
+	}
+}
+
+// TestTuneRange: the sweep range defaults to the policy's limits, flags
+// may narrow it, and a flag beyond the built-in policy names that policy.
+func TestTuneRange(t *testing.T) {
+	pol := operator.DefaultPolicy()
+	if lo, hi, err := tuneRange(pol, -1, -1); err != nil || lo != pol.MinCutoff || hi != pol.MaxCutoff {
+		t.Errorf("defaults: [%v, %v] %v, want [%v, %v]", lo, hi, err, pol.MinCutoff, pol.MaxCutoff)
+	}
+	if lo, hi, err := tuneRange(pol, 0.6, 0.8); err != nil || lo != 0.6 || hi != 0.8 {
+		t.Errorf("narrowed: [%v, %v] %v, want [0.6, 0.8]", lo, hi, err)
+	}
+	if _, _, err := tuneRange(pol, 0.9, 0.7); err == nil || !strings.Contains(err.Error(), "above --max-cutoff") {
+		t.Errorf("min above max: %v", err)
+	}
+	_, _, err := tuneRange(pol, 0.1, -1)
+	if err == nil || !strings.Contains(err.Error(), "min_cutoff") || !strings.Contains(err.Error(), "built-in default policy") {
+		t.Errorf("below the built-in policy: %v", err)
 	}
 }
