@@ -77,6 +77,16 @@ func runTune(ctx context.Context, args []string, stdout, stderr io.Writer) error
 	if err != nil {
 		return err
 	}
+	// The predicted frames tuned here may be no older than the relay will
+	// show them: the policy's horizon unless --max-age-ms asks for less.
+	ageGiven := false
+	fs.Visit(func(f *flag.Flag) { ageGiven = ageGiven || f.Name == "max-age-ms" })
+	if !ageGiven {
+		rf.maxAgeMs = pol.MaxHorizonMs
+	}
+	if err := pol.CheckHorizonMs(rf.maxAgeMs); err != nil {
+		return fmt.Errorf("--max-age-ms: %w", err)
+	}
 	var store *operator.Store
 	if *opName != "" {
 		// Refuse before hours of replay: the tune actor must be allowed to

@@ -117,6 +117,7 @@ func TestTunePolicyAndProposal(t *testing.T) {
 		{"min-cutoff below the policy", []string{"--min-cutoff", "0.2", "--policy", pol}, []string{"--min-cutoff", "min_cutoff = 0.3", pol}},
 		{"max-cutoff above the policy", []string{"--max-cutoff", "0.95", "--policy", pol}, []string{"--max-cutoff", "max_cutoff = 0.9", pol}},
 		{"tune may not propose", []string{"--policy", noPropose, "--operator", "erin", "--operators", store}, []string{"allow.tune", noPropose}},
+		{"max-age-ms beyond the horizon", []string{"--max-age-ms", "900", "--policy", pol}, []string{"--max-age-ms", "max_horizon_ms", pol}},
 		{"unknown operator", []string{"--policy", pol, "--operator", "nobody", "--operators", store}, []string{"nobody", "operator add"}},
 	}
 	for i, tc := range refusals {
