@@ -124,3 +124,14 @@ func printDrives(w io.Writer, r bench.DrivesReport, out string) {
 	printSummaryBody(w, r.Pooled)
 	fmt.Fprintf(w, "report: %s\n", filepath.Join(out, bench.DrivesReportFile))
 }
+
+// tuneShard replays a tune shard's drives and writes its output.
+func tuneShard(ctx context.Context, cfg bench.TuneConfig, shard bench.Shard, out string, overwrite bool, stdout io.Writer) error {
+	m, err := bench.TuneShard(ctx, cfg, shard, out, overwrite)
+	if err != nil {
+		return err
+	}
+	fmt.Fprintf(stdout, "shard %d of %d: %d of %d drives replayed into %s; merge all shards with: stopgap merge --shard DIR... --out DIR\n",
+		shard.Index, shard.Count, len(m.Done), len(m.Drives), out)
+	return nil
+}

@@ -6,6 +6,7 @@ import (
 	"encoding/csv"
 	"encoding/json"
 	"fmt"
+	"math"
 	"os"
 	"os/exec"
 	"path/filepath"
@@ -272,5 +273,49 @@ func TestReplayShardsMatchSingleProcess(t *testing.T) {
 				}
 			}
 		})
+	}
+}
+
+// TestTuneShardsMatchSingleProcess: tuning over 4 drives in 3 shards, each
+// its own process, merged, writes the same tuning report as one process,
+// byte for byte (it holds no wall-clock figure), bootstrap interval
+// included (fixed seed).
+func TestTuneShardsMatchSingleProcess(t *testing.T) {
+	dir, list := tinyDrives(t, 4)
+	args := []string{"tune", "--drives-file", list, "--loss-rate", "0.3", "--burst-ms", "70", "--seed", "5",
+		"--max-misalign-mrad", "3", "--resamples", "300", "--quiet"}
+	single := filepath.Join(dir, "single")
+	if out, ok := stopgapProc(t, nil, append(slices.Clone(args), "--out", single)...); !ok {
+		t.Fatalf("single-process tune failed:\n%s", out)
+	}
+	shards := runShards(t, dir, 3, args...)
+	merged := filepath.Join(dir, "merged")
+	out, ok := stopgapProc(t, nil, "merge", "--out", merged, "--shard", shards[1], "--shard", shards[2], "--shard", shards[0])
+	if !ok {
+		t.Fatalf("merge failed:\n%s", out)
+	}
+	n := compareTrees(t, single, merged, true)
+	var res bench.TuneResult
+	b, _ := os.ReadFile(filepath.Join(merged, bench.TuneJSONFile))
+	if err := json.Unmarshal(b, &res); err != nil {
+		t.Fatal(err)
+	}
+	// The settings are chosen so that the resamples disagree: an interval
+	// of one value would compare little of the bootstrap.
+	if len(res.Drives) != 4 || !res.Enough || math.IsNaN(float64(res.Recommended)) || !(res.CILow < res.CIHigh) {
+		t.Fatalf("no recommendation with a spread bootstrap to compare (%d drives, %d gaps, interval [%v, %v], %s)",
+			len(res.Drives), res.Gaps, float64(res.CILow), float64(res.CIHigh), res.Reason)
+	}
+	t.Logf("%d files equal byte for byte; %d gaps, recommended %.2f, interval [%v, %v] over %d resamples",
+		n, res.Gaps, float64(res.Recommended), float64(res.CILow), float64(res.CIHigh), res.Resamples)
+
+	// A replay shard does not merge with tune shards.
+	rs := filepath.Join(dir, "replay-shard")
+	if out, ok := stopgapProc(t, nil, "replay", "--drives-file", list, "--quiet", "--examples", "0", "--shard-count", "3", "--shard-index", "2", "--out", rs); !ok {
+		t.Fatalf("replay shard failed:\n%s", out)
+	}
+	out, ok = stopgapProc(t, nil, "merge", "--out", filepath.Join(dir, "mixed"), "--shard", shards[0], "--shard", shards[1], "--shard", rs)
+	if ok || !strings.Contains(out, "is a replay shard but") {
+		t.Errorf("merging a replay shard into tune shards: ok=%v\n%s", ok, out)
 	}
 }
