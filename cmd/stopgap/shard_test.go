@@ -319,3 +319,44 @@ func TestTuneShardsMatchSingleProcess(t *testing.T) {
 		t.Errorf("merging a replay shard into tune shards: ok=%v\n%s", ok, out)
 	}
 }
+
+// TestShardFlags: the shard comes from --shard-index, else from
+// $JOB_COMPLETION_INDEX, and inconsistent flags are refused.
+func TestShardFlags(t *testing.T) {
+	for _, c := range []struct {
+		name         string
+		index, count int
+		env          string
+		want         bench.Shard
+		err          string
+	}{
+		{"no sharding", -1, 0, "2", bench.Shard{}, ""},
+		{"flag", 1, 3, "", bench.Shard{Index: 1, Count: 3}, ""},
+		{"flag over env", 1, 3, "2", bench.Shard{Index: 1, Count: 3}, ""},
+		{"env", -1, 3, "2", bench.Shard{Index: 2, Count: 3}, ""},
+		{"neither", -1, 3, "", bench.Shard{}, "needs --shard-index or $JOB_COMPLETION_INDEX"},
+		{"bad env", -1, 3, "two", bench.Shard{}, `$JOB_COMPLETION_INDEX="two"`},
+		{"index too large", -1, 3, "3", bench.Shard{}, "shard index 3 of 3"},
+		{"index without count", 1, 0, "", bench.Shard{}, "--shard-index 1 needs --shard-count"},
+		{"negative count", -1, -2, "", bench.Shard{}, "--shard-count -2"},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			f := shardFlags{index: c.index, count: c.count}
+			got, err := f.shard(func(k string) string {
+				if k == jobIndexEnv {
+					return c.env
+				}
+				return ""
+			})
+			if c.err != "" {
+				if err == nil || !strings.Contains(err.Error(), c.err) {
+					t.Fatalf("got %+v, %v; want an error with %q", got, err, c.err)
+				}
+				return
+			}
+			if err != nil || got != c.want {
+				t.Fatalf("got %+v, %v; want %+v", got, err, c.want)
+			}
+		})
+	}
+}
