@@ -825,30 +825,33 @@ func csvFloat(v float64) string {
 }
 
 func writeTicksCSV(path string, ticks []TickRow) error {
-	return writeFile(path, func(w io.Writer) error {
-		cw := csv.NewWriter(w)
-		if err := cw.Write(TicksCSVHeader()); err != nil {
+	return writeFile(path, func(w io.Writer) error { return writeTicks(w, ticks) })
+}
+
+// writeTicks writes ticks as ticks.csv to w (see TicksCSVHeader).
+func writeTicks(w io.Writer, ticks []TickRow) error {
+	cw := csv.NewWriter(w)
+	if err := cw.Write(TicksCSVHeader()); err != nil {
+		return err
+	}
+	rec := make([]string, 0, len(TicksCSVHeader()))
+	for i := range ticks {
+		r := &ticks[i]
+		rec = append(rec[:0], strconv.Itoa(r.Tick), strconv.FormatInt(r.TargetUs, 10), r.State,
+			csvFloat(r.AgeMs), csvFloat(r.Confidence))
+		for _, m := range Methods() {
+			sc := r.MethodScores(m)
+			rec = append(rec, csvFloat(sc.PSNRdB), csvFloat(sc.SSIM), csvFloat(sc.MAE))
+		}
+		rec = append(rec, csvFloat(r.SynthMs), csvFloat(r.UnfilledShare), csvFloat(r.LabelShare),
+			csvFloat(r.Warp.PSNRdB), csvFloat(r.Warp.SSIM), csvFloat(r.Warp.MAE),
+			csvFloat(r.SigmaPx), csvFloat(r.MisalignPx), csvFloat(r.MisalignMrad), csvFloat(r.TruthMisalignMrad))
+		if err := cw.Write(rec); err != nil {
 			return err
 		}
-		rec := make([]string, 0, len(TicksCSVHeader()))
-		for i := range ticks {
-			r := &ticks[i]
-			rec = append(rec[:0], strconv.Itoa(r.Tick), strconv.FormatInt(r.TargetUs, 10), r.State,
-				csvFloat(r.AgeMs), csvFloat(r.Confidence))
-			for _, m := range Methods() {
-				sc := r.MethodScores(m)
-				rec = append(rec, csvFloat(sc.PSNRdB), csvFloat(sc.SSIM), csvFloat(sc.MAE))
-			}
-			rec = append(rec, csvFloat(r.SynthMs), csvFloat(r.UnfilledShare), csvFloat(r.LabelShare),
-				csvFloat(r.Warp.PSNRdB), csvFloat(r.Warp.SSIM), csvFloat(r.Warp.MAE),
-				csvFloat(r.SigmaPx), csvFloat(r.MisalignPx), csvFloat(r.MisalignMrad), csvFloat(r.TruthMisalignMrad))
-			if err := cw.Write(rec); err != nil {
-				return err
-			}
-		}
-		cw.Flush()
-		return cw.Error()
-	})
+	}
+	cw.Flush()
+	return cw.Error()
 }
 
 // methodColor gives each method a fixed plot colour.

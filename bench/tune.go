@@ -180,18 +180,42 @@ func Tune(ctx context.Context, cfg TuneConfig) (TuneResult, error) {
 	if err := cfg.check(); err != nil {
 		return TuneResult{}, err
 	}
-	par := cfg.Parallel
+	rows, err := replayRows(ctx, cfg.Drives, nil, cfg.Parallel, cfg.Progress)
+	if err != nil {
+		return TuneResult{}, err
+	}
+	maxAge := make([]float64, len(cfg.Drives))
+	names := make([]string, len(cfg.Drives))
+	for i, d := range cfg.Drives {
+		names[i] = d.Drive
+		maxAge[i] = d.Policy.MaxAgeMs
+	}
+	res, err := TuneTicks(rows, maxAge, cfg)
+	res.Drives = names
+	return res, err
+}
+
+// replayRows replays the drives whose indices are in only (all when nil),
+// at most par at once (0 = number of CPUs), without examples or output,
+// and returns every drive's ticks (nil for those not replayed). progress,
+// if set, is called from one goroutine at a time with the ticks done over
+// those drives and their total. The first error stops the others.
+func replayRows(ctx context.Context, drives []ReplayConfig, only []int, par int, progress func(done, total int)) ([][]TickRow, error) {
+	if only == nil {
+		only = make([]int, len(drives))
+		for i := range only {
+			only[i] = i
+		}
+	}
 	if par <= 0 {
 		par = runtime.NumCPU()
 	}
-	rows := make([][]TickRow, len(cfg.Drives))
-	maxAge := make([]float64, len(cfg.Drives))
-	names := make([]string, len(cfg.Drives))
+	rows := make([][]TickRow, len(drives))
 	var mu sync.Mutex
-	done := make([]int, len(cfg.Drives))
-	total := make([]int, len(cfg.Drives))
+	done := make([]int, len(drives))
+	total := make([]int, len(drives))
 	report := func(i, d, t int) {
-		if cfg.Progress == nil {
+		if progress == nil {
 			return
 		}
 		mu.Lock()
@@ -202,16 +226,15 @@ func Tune(ctx context.Context, cfg TuneConfig) (TuneResult, error) {
 			a += done[j]
 			b += total[j]
 		}
-		cfg.Progress(a, b)
+		progress(a, b)
 	}
 	ctx, cancel := context.WithCancel(ctx)
 	defer cancel()
-	errs := make([]error, len(cfg.Drives))
+	errs := make([]error, len(drives))
 	sem := make(chan struct{}, par)
 	var wg sync.WaitGroup
-	for i, d := range cfg.Drives {
-		names[i] = d.Drive
-		maxAge[i] = d.Policy.MaxAgeMs
+	for _, i := range only {
+		d := drives[i]
 		wg.Add(1)
 		go func() {
 			defer wg.Done()
@@ -235,17 +258,15 @@ func Tune(ctx context.Context, cfg TuneConfig) (TuneResult, error) {
 	wg.Wait()
 	for _, err := range errs {
 		if err != nil && !errors.Is(err, context.Canceled) {
-			return TuneResult{}, err
+			return nil, err
 		}
 	}
 	for _, err := range errs {
 		if err != nil {
-			return TuneResult{}, err
+			return nil, err
 		}
 	}
-	res, err := TuneTicks(rows, maxAge, cfg)
-	res.Drives = names
-	return res, err
+	return rows, nil
 }
 
 // check validates the parts of cfg that do not need the drives.

@@ -48,6 +48,7 @@ func commands() []command {
 		{"simdrive", "write a synthetic drive recording with exact ground truth", runSimdrive},
 		{"replay", "replay a recording with recorded or modelled drops and score every gap", runReplay},
 		{"tune", "sweep the confidence cutoff over replayed drives and recommend one for a tolerance", runTune},
+		{"merge", "join the outputs of replay or tune shards into the report of one run", runMerge},
 		{"relay", "run the live relay between the vehicle and the operator console", runRelay},
 		{"operator", "operator profiles: list, show (with history), add, set, remove, apply", runOperator},
 		{"import", "convert a ROS 2 recording (MCAP) into a recording; --list shows its topics", runImport},

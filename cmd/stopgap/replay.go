@@ -7,6 +7,7 @@ import (
 	"io"
 	"log/slog"
 	"math"
+	"os"
 	"path/filepath"
 
 	"stopgap/bench"
@@ -109,28 +110,44 @@ func (f *replayFlags) config(drive, out string, stderr io.Writer) (bench.ReplayC
 func runReplay(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	fs := flag.NewFlagSet("replay", flag.ContinueOnError)
 	fs.SetOutput(stderr)
-	var drive, out string
-	fs.StringVar(&drive, "drive", "", "recording `directory` to replay (required)")
+	var drives driveList
+	var out string
+	fs.Var(&drives, "drive", "recording `directory` to replay; repeat for several drives (required, or --drives-file)")
 	fs.StringVar(&out, "out", "", "report `directory` to create (required)")
 	var rf replayFlags
 	rf.register(fs)
+	var sf shardFlags
+	sf.register(fs)
 	fs.Usage = func() {
-		fmt.Fprintln(stderr, "usage: stopgap replay --drive DIR --out DIR [flags]")
+		fmt.Fprintln(stderr, "usage: stopgap replay --drive DIR [--drive DIR... | --drives-file FILE] --out DIR [--shard-index I --shard-count N] [flags]")
 		fmt.Fprintln(stderr, "\nReplays a recording on a virtual display clock, with drops from --arrivals or")
 		fmt.Fprintln(stderr, "from a Gilbert-Elliott loss model, and scores hold, rotation and predicted")
 		fmt.Fprintln(stderr, "against the true frame of every tick the operator would have missed.")
+		fmt.Fprintln(stderr, "Several drives give one report per drive and a pooled summary (drives.json);")
+		fmt.Fprintln(stderr, "with --shard-count each process replays its share and \"stopgap merge\" joins them.")
 		fmt.Fprintln(stderr)
 		fs.PrintDefaults()
 	}
 	if err := parse(fs, args); err != nil {
 		return err
 	}
-	if drive == "" || out == "" {
-		fmt.Fprintln(stderr, "stopgap replay: --drive and --out are required")
+	list, err := sf.drives(drives)
+	if err != nil {
+		return err
+	}
+	if len(list) == 0 || out == "" {
+		fmt.Fprintln(stderr, "stopgap replay: --drive and --out are required (--drives-file may list the drives)")
 		fs.Usage()
 		return errUsage
 	}
-	cfg, err := rf.config(drive, out, stderr)
+	shard, err := sf.shard(os.Getenv)
+	if err != nil {
+		return err
+	}
+	if len(drives) != 1 || sf.drivesFile != "" || shard.Count > 0 {
+		return replayDrives(ctx, list, shard, out, &rf, stdout, stderr)
+	}
+	cfg, err := rf.config(list[0], out, stderr)
 	if err != nil {
 		return err
 	}
@@ -143,7 +160,41 @@ func runReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 	return nil
 }
 
+// replayDrives replays a drive list, or a shard of it, into out.
+func replayDrives(ctx context.Context, list []string, shard bench.Shard, out string, rf *replayFlags, stdout, stderr io.Writer) error {
+	if rf.arrivals != "" && len(list) > 1 {
+		return fmt.Errorf("--arrivals names one drive's file but %d drives were given; replay the drives with the loss model, or one at a time", len(list))
+	}
+	dc := bench.DrivesConfig{Shard: shard, Out: out, Overwrite: rf.overwrite}
+	for _, d := range list {
+		rc, err := rf.config(d, "", stderr)
+		if err != nil {
+			return err
+		}
+		dc.Drives = append(dc.Drives, rc)
+	}
+	dc.Started = func(i int, drive string) { fmt.Fprintf(stderr, "drive %d of %d: %s\n", i+1, len(list), drive) }
+	fmt.Fprintln(stderr, safetyCaution)
+	rep, err := bench.ReplayDrives(ctx, dc)
+	if err != nil {
+		return err
+	}
+	if shard.Count > 0 {
+		fmt.Fprintf(stdout, "shard %d of %d: %d of %d drives replayed into %s; merge all shards with: stopgap merge --shard DIR... --out DIR\n",
+			shard.Index, shard.Count, len(rep.Results), len(list), out)
+		return nil
+	}
+	printDrives(stdout, rep, out)
+	return nil
+}
+
 func printSummary(w io.Writer, s bench.Summary, out string) {
+	printSummaryBody(w, s)
+	fmt.Fprintf(w, "report: %s\n", filepath.Join(out, "report.html"))
+}
+
+// printSummaryBody prints the figures of s.
+func printSummaryBody(w io.Writer, s bench.Summary) {
 	fmt.Fprintf(w, "ticks %d: live %d, missing %d (predicted %d, stale %d)\n",
 		s.TicksTotal, s.LiveTicks, s.TicksMissing, s.PredictedTicks, s.StaleTicks)
 	if p50, p99 := float64(s.SynthMsP50), float64(s.SynthMsP99); math.IsNaN(p50) || math.IsNaN(p99) {
@@ -187,7 +238,6 @@ func printSummary(w io.Writer, s bench.Summary, out string) {
 	if s.UnscoredNote != "" {
 		fmt.Fprintln(w, s.UnscoredNote)
 	}
-	fmt.Fprintf(w, "report: %s\n", filepath.Join(out, "report.html"))
 }
 
 func runSimdrive(ctx context.Context, args []string, stdout, stderr io.Writer) error {

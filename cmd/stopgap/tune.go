@@ -45,6 +45,8 @@ func runTune(ctx context.Context, args []string, stdout, stderr io.Writer) error
 	fs.BoolVar(&ownArrivals, "recorded-arrivals", false, "replay each drive with its own recorded link, DIR/arrivals.csv, instead of the loss model")
 	var rf replayFlags
 	rf.register(fs)
+	var sf shardFlags
+	sf.register(fs)
 	fs.Usage = func() {
 		fmt.Fprintln(stderr, "usage: stopgap tune --drive DIR [--drive DIR...] --out DIR [tolerance] [--policy FILE] [--operator NAME] [flags]")
 		fmt.Fprintln(stderr, "\nReplays every drive once, sweeps the confidence cutoff over the missing ticks")
@@ -57,6 +59,14 @@ func runTune(ctx context.Context, args []string, stdout, stderr io.Writer) error
 		fs.PrintDefaults()
 	}
 	if err := parse(fs, args); err != nil {
+		return err
+	}
+	drives, err := sf.drives(drives)
+	if err != nil {
+		return err
+	}
+	shard, err := sf.shard(os.Getenv)
+	if err != nil {
 		return err
 	}
 	if len(drives) == 0 || out == "" {
@@ -130,6 +140,9 @@ func runTune(ctx context.Context, args []string, stdout, stderr io.Writer) error
 		cfg.Progress = progressBar(stderr, "tune")
 	}
 	fmt.Fprintln(stderr, safetyCaution)
+	if shard.Count > 0 {
+		return tuneShard(ctx, cfg, shard, out, rf.overwrite, stdout)
+	}
 	res, err := bench.Tune(ctx, cfg)
 	if err != nil {
 		return err

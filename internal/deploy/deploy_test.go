@@ -3,6 +3,7 @@ package deploy
 import (
 	"bytes"
 	"errors"
+	"fmt"
 	"os"
 	"os/exec"
 	"path/filepath"
@@ -11,6 +12,7 @@ import (
 	"testing"
 
 	appsv1 "k8s.io/api/apps/v1"
+	batchv1 "k8s.io/api/batch/v1"
 	corev1 "k8s.io/api/core/v1"
 	"k8s.io/apimachinery/pkg/api/resource"
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
@@ -18,6 +20,7 @@ import (
 	kjson "sigs.k8s.io/json"
 	"sigs.k8s.io/yaml"
 
+	"stopgap/bench"
 	"stopgap/stream/relay"
 )
 
@@ -49,7 +52,7 @@ func strictDecode(doc []byte, obj any) error {
 
 // manifests decodes every document of file strictly (strictDecode) into
 // its API type.
-func manifests(t *testing.T, file string) (secrets []corev1.Secret, cms []corev1.ConfigMap, deps []appsv1.Deployment, svcs []corev1.Service) {
+func manifests(t *testing.T, file string) (secrets []corev1.Secret, cms []corev1.ConfigMap, deps []appsv1.Deployment, svcs []corev1.Service, jobs []batchv1.Job) {
 	t.Helper()
 	data, err := os.ReadFile(file)
 	if err != nil {
@@ -78,6 +81,9 @@ func manifests(t *testing.T, file string) (secrets []corev1.Secret, cms []corev1
 		case "v1/Service":
 			svcs = append(svcs, corev1.Service{})
 			obj = &svcs[len(svcs)-1]
+		case "batch/v1/Job":
+			jobs = append(jobs, batchv1.Job{})
+			obj = &jobs[len(jobs)-1]
 		default:
 			t.Fatalf("%s document %d: unexpected %s %s", file, i, tm.APIVersion, tm.Kind)
 		}
@@ -89,9 +95,9 @@ func manifests(t *testing.T, file string) (secrets []corev1.Secret, cms []corev1
 }
 
 func TestRelayManifests(t *testing.T) {
-	secrets, cms, deps, svcs := manifests(t, filepath.Join("k8s", "relay.yaml"))
-	if len(secrets) != 1 || len(cms) != 1 || len(deps) != 1 || len(svcs) != 1 {
-		t.Fatalf("want one Secret, ConfigMap, Deployment and Service; got %d %d %d %d", len(secrets), len(cms), len(deps), len(svcs))
+	secrets, cms, deps, svcs, jobs := manifests(t, filepath.Join("k8s", "relay.yaml"))
+	if len(secrets) != 1 || len(cms) != 1 || len(deps) != 1 || len(svcs) != 1 || len(jobs) != 0 {
+		t.Fatalf("want one Secret, ConfigMap, Deployment and Service; got %d %d %d %d and %d Jobs", len(secrets), len(cms), len(deps), len(svcs), len(jobs))
 	}
 	d := deps[0]
 	if d.Spec.Replicas == nil || *d.Spec.Replicas != 1 || d.Spec.Strategy.Type != appsv1.RecreateDeploymentStrategyType {
@@ -103,16 +109,7 @@ func TestRelayManifests(t *testing.T) {
 			t.Errorf("selector %s=%s does not match the pod labels", k, v)
 		}
 	}
-	if pod.AutomountServiceAccountToken == nil || *pod.AutomountServiceAccountToken {
-		t.Error("the relay needs no Kubernetes API token: set automountServiceAccountToken: false")
-	}
-	psc := pod.SecurityContext
-	if psc == nil || psc.RunAsNonRoot == nil || !*psc.RunAsNonRoot || psc.RunAsUser == nil || *psc.RunAsUser == 0 {
-		t.Error("pod securityContext must run as a non-root user")
-	}
-	if psc == nil || psc.SeccompProfile == nil || psc.SeccompProfile.Type != corev1.SeccompProfileTypeRuntimeDefault {
-		t.Error("pod securityContext must use the RuntimeDefault seccomp profile")
-	}
+	checkPodSecurity(t, pod)
 	if len(pod.Containers) != 1 {
 		t.Fatalf("%d containers, want the relay alone", len(pod.Containers))
 	}
@@ -169,27 +166,7 @@ func TestRelayManifests(t *testing.T) {
 		}
 	})
 
-	t.Run("security context", func(t *testing.T) {
-		sc := c.SecurityContext
-		if sc == nil {
-			t.Fatal("no container securityContext")
-		}
-		if sc.RunAsNonRoot == nil || !*sc.RunAsNonRoot {
-			t.Error("runAsNonRoot must be true")
-		}
-		if sc.ReadOnlyRootFilesystem == nil || !*sc.ReadOnlyRootFilesystem {
-			t.Error("readOnlyRootFilesystem must be true")
-		}
-		if sc.AllowPrivilegeEscalation == nil || *sc.AllowPrivilegeEscalation {
-			t.Error("allowPrivilegeEscalation must be false")
-		}
-		if sc.Privileged != nil && *sc.Privileged {
-			t.Error("privileged must be false")
-		}
-		if sc.Capabilities == nil || len(sc.Capabilities.Drop) != 1 || sc.Capabilities.Drop[0] != "ALL" || len(sc.Capabilities.Add) != 0 {
-			t.Error("capabilities must drop ALL and add none")
-		}
-	})
+	t.Run("security context", func(t *testing.T) { checkContainerSecurity(t, c) })
 
 	t.Run("secret, config map and mounts", func(t *testing.T) {
 		sec := secrets[0]
@@ -269,6 +246,47 @@ func TestStrictDecodingCatchesTypos(t *testing.T) {
 	t.Fatal("no Deployment found")
 }
 
+// checkPodSecurity checks the pod-level hardening every manifest shares:
+// no API token, a non-root user, the RuntimeDefault seccomp profile.
+func checkPodSecurity(t *testing.T, pod corev1.PodSpec) {
+	t.Helper()
+	if pod.AutomountServiceAccountToken == nil || *pod.AutomountServiceAccountToken {
+		t.Error("stopgap needs no Kubernetes API token: set automountServiceAccountToken: false")
+	}
+	psc := pod.SecurityContext
+	if psc == nil || psc.RunAsNonRoot == nil || !*psc.RunAsNonRoot || psc.RunAsUser == nil || *psc.RunAsUser == 0 {
+		t.Error("pod securityContext must run as a non-root user")
+	}
+	if psc == nil || psc.SeccompProfile == nil || psc.SeccompProfile.Type != corev1.SeccompProfileTypeRuntimeDefault {
+		t.Error("pod securityContext must use the RuntimeDefault seccomp profile")
+	}
+}
+
+// checkContainerSecurity checks the container's securityContext: non-root,
+// read-only root file system, no privilege escalation, no capabilities.
+func checkContainerSecurity(t *testing.T, c corev1.Container) {
+	t.Helper()
+	sc := c.SecurityContext
+	if sc == nil {
+		t.Fatal("no container securityContext")
+	}
+	if sc.RunAsNonRoot == nil || !*sc.RunAsNonRoot {
+		t.Error("runAsNonRoot must be true")
+	}
+	if sc.ReadOnlyRootFilesystem == nil || !*sc.ReadOnlyRootFilesystem {
+		t.Error("readOnlyRootFilesystem must be true")
+	}
+	if sc.AllowPrivilegeEscalation == nil || *sc.AllowPrivilegeEscalation {
+		t.Error("allowPrivilegeEscalation must be false")
+	}
+	if sc.Privileged != nil && *sc.Privileged {
+		t.Error("privileged must be false")
+	}
+	if sc.Capabilities == nil || len(sc.Capabilities.Drop) != 1 || sc.Capabilities.Drop[0] != "ALL" || len(sc.Capabilities.Add) != 0 {
+		t.Error("capabilities must drop ALL and add none")
+	}
+}
+
 func hasArg(args []string, prefix string) bool { return argValue(args, prefix) != "" }
 
 func argValue(args []string, prefix string) string {
@@ -341,4 +359,152 @@ func TestDockerfileUsesDevPackages(t *testing.T) {
 	if _, err := os.Stat(filepath.Join("..", "..", "dev.sh")); err != nil {
 		t.Fatalf("dev.sh not found where the Dockerfile copies it from: %v", err)
 	}
+}
+
+// TestReplayJobManifests checks the Indexed Job that replays a drive list
+// in shards and the Job that merges them: strict decoding, one pod per
+// shard with the shard count in the arguments, the index left to
+// JOB_COMPLETION_INDEX, the drive list parseable by stopgap's own reader
+// and on the read-only drives volume, the merge naming every shard's
+// output, and the same hardening as the relay.
+func TestReplayJobManifests(t *testing.T) {
+	_, cms, deps, _, jobs := manifests(t, filepath.Join("k8s", "replay-job.yaml"))
+	if len(cms) != 1 || len(jobs) != 1 || len(deps) != 0 {
+		t.Fatalf("want one ConfigMap and one Job; got %d ConfigMaps, %d Jobs, %d Deployments", len(cms), len(jobs), len(deps))
+	}
+	_, mcms, _, _, mjobs := manifests(t, filepath.Join("k8s", "replay-merge-job.yaml"))
+	if len(mjobs) != 1 || len(mcms) != 0 {
+		t.Fatalf("want one merge Job; got %d Jobs, %d ConfigMaps", len(mjobs), len(mcms))
+	}
+	job, merge := jobs[0], mjobs[0]
+	spec := job.Spec
+	if spec.CompletionMode == nil || *spec.CompletionMode != batchv1.IndexedCompletion {
+		t.Fatalf("completionMode %v, want Indexed (each pod gets JOB_COMPLETION_INDEX)", spec.CompletionMode)
+	}
+	if spec.Completions == nil || *spec.Completions < 1 {
+		t.Fatal("completions must be the shard count")
+	}
+	shards := int(*spec.Completions)
+	if spec.Parallelism != nil && (*spec.Parallelism < 1 || int(*spec.Parallelism) > shards) {
+		t.Errorf("parallelism %d outside [1, %d]", *spec.Parallelism, shards)
+	}
+	for _, j := range []batchv1.Job{job, merge} {
+		t.Run(j.Name, func(t *testing.T) {
+			pod := j.Spec.Template.Spec
+			if pod.RestartPolicy != corev1.RestartPolicyNever {
+				t.Errorf("restartPolicy %q, want Never: a retried shard starts afresh in a new pod", pod.RestartPolicy)
+			}
+			checkPodSecurity(t, pod)
+			if len(pod.Containers) != 1 {
+				t.Fatalf("%d containers, want one", len(pod.Containers))
+			}
+			c := pod.Containers[0]
+			checkContainerSecurity(t, c)
+			mem, ok := c.Resources.Requests[corev1.ResourceMemory]
+			lim, lok := c.Resources.Limits[corev1.ResourceMemory]
+			if _, cok := c.Resources.Requests[corev1.ResourceCPU]; !cok || !ok || !lok || lim.Cmp(mem) < 0 {
+				t.Errorf("resources %v: want CPU and memory requests and a memory limit >= the request", c.Resources)
+			}
+			vols := map[string]corev1.Volume{}
+			for _, v := range pod.Volumes {
+				vols[v.Name] = v
+			}
+			for _, m := range c.VolumeMounts {
+				if _, ok := vols[m.Name]; !ok {
+					t.Errorf("mount %s names no volume", m.Name)
+				}
+			}
+		})
+	}
+
+	c := spec.Template.Spec.Containers[0]
+	mounts := map[string]string{}
+	for _, m := range c.VolumeMounts {
+		mounts[m.Name] = m.MountPath
+	}
+	if len(c.Args) == 0 || c.Args[0] != "replay" {
+		t.Fatalf("args %v: want the replay command", c.Args)
+	}
+	if got := argValue(c.Args, "--shard-count="); got != fmt.Sprint(shards) {
+		t.Errorf("--shard-count=%s, want the Job's %d completions", got, shards)
+	}
+	if hasArg(c.Args, "--shard-index=") {
+		t.Error("--shard-index is set; the index must come from JOB_COMPLETION_INDEX")
+	}
+	var annotated bool
+	for _, e := range c.Env {
+		if e.Name == "JOB_COMPLETION_INDEX" {
+			t.Error("JOB_COMPLETION_INDEX is set by the Job controller; do not override it")
+		}
+		if e.Name == "SHARD_INDEX" && e.ValueFrom != nil && e.ValueFrom.FieldRef != nil &&
+			e.ValueFrom.FieldRef.FieldPath == "metadata.annotations['batch.kubernetes.io/job-completion-index']" {
+			annotated = true
+		}
+	}
+	if !annotated {
+		t.Error("SHARD_INDEX must come from the pod's completion-index annotation")
+	}
+	out := argValue(c.Args, "--out=")
+	if !strings.Contains(out, "$(SHARD_INDEX)") {
+		t.Errorf("--out=%s: each shard needs its own directory, $(SHARD_INDEX) in it", out)
+	}
+	if !strings.HasPrefix(out, mounts["results"]+"/") || isReadOnly(c.VolumeMounts, "results") {
+		t.Errorf("--out=%s is not on the writable results volume (%s)", out, mounts["results"])
+	}
+	for _, ro := range []string{"drives", "drives-list"} {
+		if !isReadOnly(c.VolumeMounts, ro) {
+			t.Errorf("volume %s must be mounted read-only", ro)
+		}
+	}
+	if got, want := argValue(c.Args, "--drives-file="), mounts["drives-list"]+"/drives.txt"; got != want {
+		t.Errorf("--drives-file=%s, want %s (the mounted ConfigMap)", got, want)
+	}
+	list, err := bench.ReadDriveList(strings.NewReader(cms[0].Data["drives.txt"]), "drives.txt")
+	if err != nil {
+		t.Fatalf("the ConfigMap's drive list: %v", err)
+	}
+	for _, d := range list {
+		if !strings.HasPrefix(d, mounts["drives"]+"/") {
+			t.Errorf("drive %s is not on the drives volume (%s)", d, mounts["drives"])
+		}
+	}
+
+	// The merge reads every shard's output, each once, from the same volume.
+	mc := merge.Spec.Template.Spec.Containers[0]
+	if len(mc.Args) == 0 || mc.Args[0] != "merge" {
+		t.Fatalf("merge args %v: want the merge command", mc.Args)
+	}
+	var got []string
+	for _, a := range mc.Args {
+		if v, ok := strings.CutPrefix(a, "--shard="); ok {
+			got = append(got, v)
+		}
+	}
+	var want []string
+	for i := range shards {
+		want = append(want, strings.ReplaceAll(out, "$(SHARD_INDEX)", fmt.Sprint(i)))
+	}
+	if strings.Join(got, " ") != strings.Join(want, " ") {
+		t.Errorf("merge --shard %v, want the %d shard outputs %v", got, shards, want)
+	}
+	if mo := argValue(mc.Args, "--out="); mo == "" || strings.HasPrefix(out, mo) {
+		t.Errorf("merge --out=%q must be a directory of its own", mo)
+	}
+	if vol := merge.Spec.Template.Spec.Volumes; len(vol) == 0 || !sameClaim(vol, spec.Template.Spec.Volumes, "results") {
+		t.Error("the merge must mount the results claim the shards write to")
+	}
+}
+
+// sameClaim reports whether volume name claims the same
+// PersistentVolumeClaim in a and b.
+func sameClaim(a, b []corev1.Volume, name string) bool {
+	claim := func(vs []corev1.Volume) string {
+		for _, v := range vs {
+			if v.Name == name && v.PersistentVolumeClaim != nil {
+				return v.PersistentVolumeClaim.ClaimName
+			}
+		}
+		return ""
+	}
+	return claim(a) != "" && claim(a) == claim(b)
 }

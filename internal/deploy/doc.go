@@ -7,6 +7,9 @@
 //   - k8s/relay.yaml: one relay per vehicle on Kubernetes (token Secret,
 //     camera ConfigMap, Deployment with startup, readiness and liveness
 //     probes on the relay's /readyz and /livez, Service).
+//   - k8s/replay-job.yaml: replays of a drive list in shards as an Indexed
+//     Job (each pod's shard from JOB_COMPLETION_INDEX); k8s/replay-merge-job.yaml
+//     merges the shards into one report once the Job is complete.
 //   - stopgap-relay.service: a sandboxed systemd unit for operator-side
 //     machines that are not on a cluster.
 //
