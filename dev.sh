@@ -67,7 +67,13 @@ case "${1:-}" in
     echo "dev.sh: go vet ./..." >&2
     go vet ./...
     echo "dev.sh: go test ./... (short fuzz seeds included; long fuzzing is separate, see DEVELOPERS.md)" >&2
-    go test -count=1 -timeout 30m ./...
+    # Packages whose tests run live sessions in real time (loopback WebRTC,
+    # a real browser) run after the rest, one package at a time, so that
+    # CPU-heavy replay tests do not starve their display clocks.
+    local_realtime='^stopgap/stream/(e2e|relay|console|simvehicle|whip|rtpudp)(/|$)'
+    go test -count=1 -timeout 30m $(go list ./... | grep -v -E "$local_realtime")
+    echo "dev.sh: go test -p 1 (real-time packages, one at a time)" >&2
+    go test -p 1 -count=1 -timeout 30m $(go list ./... | grep -E "$local_realtime")
     race
     ;;
   *)
