@@ -158,6 +158,10 @@ func newNetns(t *testing.T) *netns {
 	inB := func(args ...string) []string { return append([]string{"ip", "netns", "exec", n.name}, args...) }
 	for _, c := range [][]string{
 		{"ip", "link", "add", n.hostIf, "type", "veth", "peer", "name", rb, "netns", n.router},
+		// No IPv6 on the host's end: its link-local address stays
+		// "tentative" (duplicate address detection) for a second or two,
+		// and the relay's ICE port cannot be bound on it meanwhile.
+		{"sysctl", "-q", "-w", "net.ipv6.conf." + n.hostIf + ".disable_ipv6=1"},
 		{"ip", "addr", "add", n.hostIP + "/30", "dev", n.hostIf},
 		{"ip", "link", "set", n.hostIf, "up"},
 		inR("ip", "addr", "add", n.routerIP+"/30", "dev", rb),
