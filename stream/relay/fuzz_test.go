@@ -98,7 +98,11 @@ func TestReadCameraFileErrors(t *testing.T) {
 		{"syntax", "{\n\"width\": 1280,\n\"height\": }", "line 3"},
 		{"type", "{\n\"width\": \"wide\"}", "line 2"},
 		{"invalid", `{"width":1280,"height":720,"fx":-1,"fy":1000,"cx":640,"cy":360}`, "fx"},
-		{"trailing", "{\"width\":1280,\"height\":720,\"fx\":1000,\"fy\":1000,\"cx\":640,\"cy\":360}\n{\"fx\":1}", "line 2: extra data"},
+		{"trailing", "{\"width\":1280,\"height\":720,\"fx\":1000,\"fy\":1000,\"cx\":640,\"cy\":360}\n{\"fx\":1}", "line 2, column 1: bad camera parameters: extra data"},
+		// The README's recording format: unknown keys are an error, in the
+		// relay as in a recording.
+		{"unknown key", "{\"width\":1280,\"height\":720,\"fx\":1000,\"fy\":1000,\"cx\":640,\"cy\":360,\n\"focal_mm\":4}", "line 2"},
+		{"missing key", `{"width":1280,"height":720,"fx":1000,"fy":1000,"cx":640}`, "cy"},
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
