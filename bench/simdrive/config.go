@@ -45,6 +45,13 @@ type Config struct {
 	// PanPeriodS defaults to 4 s (a reversal every 2 s).
 	PanYawRateRps float64
 	PanPeriodS    float64
+
+	// Traffic adds moving road users (see placeTraffic: oncoming cars, a
+	// car ahead, pedestrians walking along and jogging across the road)
+	// and writes, per frame, the exact mask of where they are visible
+	// (MoverMaskPath). Off by default: a drive without it is byte for
+	// byte the drive of earlier versions.
+	Traffic bool
 }
 
 // Defaults.

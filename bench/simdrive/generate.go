@@ -89,6 +89,12 @@ func Generate(ctx context.Context, cfg Config, outDir string, progress func(done
 		return err
 	}
 	defer sc.Close()
+	if cfg.Traffic {
+		sc.placeTraffic(tr, cfg.DurationS, cfg.Seed)
+		if err := os.Mkdir(filepath.Join(recDir, MoverMaskDir), 0o755); err != nil {
+			return fmt.Errorf("simdrive: %w", err)
+		}
+	}
 	rd := newRenderer(ph, cfg.Width, cfg.Height, sc)
 	defer rd.Close()
 
@@ -100,7 +106,13 @@ func Generate(ctx context.Context, cfg Config, outDir string, progress func(done
 		}
 		us := cfg.captureUs(i)
 		pose := tr.PoseAt(us)
+		rd.tS = float64(us) * 1e-6
 		rd.render(pose)
+		if cfg.Traffic {
+			if !gocv.IMWrite(MoverMaskPath(recDir, i), rd.movers) {
+				return fmt.Errorf("simdrive: frame %d: writing %s failed; check the disk", i, MoverMaskPath(recDir, i))
+			}
+		}
 		buf, err := gocv.IMEncodeWithParams(gocv.JPEGFileExt, rd.frame, params)
 		if err != nil {
 			return fmt.Errorf("simdrive: frame %d: encode: %w", i, err)

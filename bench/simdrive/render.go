@@ -30,9 +30,19 @@ type renderer struct {
 	bands  []band // ground rows per pyramid level, fixed for a mounting
 	ground bool   // draw the ground (tests switch parts off)
 	quads  bool   // draw posts and facades
+
+	// With traffic: tS is the time of the frame render draws, users the
+	// road users' faces placed for it, and movers (8UC1) receives 255
+	// where a road user is visible and 0 elsewhere.
+	tS     float64
+	users  []*quad
+	movers gocv.Mat
+	zeros  gocv.Mat // 8UC1, all 0
 }
 
-// drawItem is a quad to draw and its distance from the camera.
+// drawItem is a quad to draw and its distance from the camera: a scene
+// quad, or a road user's face when quad >= len(scene.quads) (index into
+// renderer.users after subtracting it).
 type drawItem struct {
 	quad int
 	dist float64
@@ -54,6 +64,10 @@ func newRenderer(cam pinhole, w, h int, sc *scene) *renderer {
 		ground: true, quads: true,
 	}
 	r.bands = r.groundBands()
+	if len(sc.traffic) > 0 {
+		r.movers = gocv.NewMatWithSize(h, w, gocv.MatTypeCV8UC1)
+		r.zeros = gocv.Zeros(h, w, gocv.MatTypeCV8UC1)
+	}
 	return r
 }
 
@@ -63,6 +77,10 @@ func (r *renderer) Close() {
 	r.tmp.Close()
 	r.mask.Close()
 	r.hm.Close()
+	if r.movers.Ptr() != nil {
+		r.movers.Close()
+		r.zeros.Close()
+	}
 }
 
 // horizon returns the row span of the horizon line across the image:
@@ -120,6 +138,9 @@ func (r *renderer) render(p pose) {
 		r.frame.SetTo(gocv.NewScalar(0, 0, 0, 0))
 	}
 	r.renderSky()
+	if r.movers.Ptr() != nil {
+		r.movers.SetTo(gocv.NewScalar(0, 0, 0, 0))
+	}
 	if r.quads {
 		r.renderQuads(rot, t)
 	}
@@ -225,14 +246,29 @@ func (r *renderer) renderQuads(rot mat3, t vec3) {
 		}
 		r.order = append(r.order, drawItem{i, d})
 	}
+	if len(r.sc.traffic) > 0 {
+		r.users = r.sc.trafficAt(r.users, r.tS)
+		for i, q := range r.users {
+			c := toCamera(rot, t, q.centre)
+			if d := math.Sqrt(c.dot(c)); d <= 250 && c[2] >= -math.Max(q.wM, q.hM) {
+				r.order = append(r.order, drawItem{len(qs) + i, d})
+			}
+		}
+	}
 	sort.Slice(r.order, func(a, b int) bool { return r.order[a].dist > r.order[b].dist })
 	for _, it := range r.order {
-		r.drawQuad(&qs[it.quad], rot, t)
+		if it.quad >= len(qs) {
+			r.drawQuad(r.users[it.quad-len(qs)], rot, t, true)
+			continue
+		}
+		r.drawQuad(&qs[it.quad], rot, t, false)
 	}
 }
 
-// drawQuad renders one quad (see renderQuads).
-func (r *renderer) drawQuad(q *quad, rot mat3, t vec3) {
+// drawQuad renders one quad (see renderQuads); with traffic, it also
+// writes the quad's pixels into the movers mask, 255 for a road user's face
+// and 0 for a static quad in front of one.
+func (r *renderer) drawQuad(q *quad, rot mat3, t vec3, user bool) {
 	up := vec3{0, 0, 1}
 	tl := q.p0.add(up.scale(q.hM))
 	corners := [4]vec3{tl, tl.add(q.ua.scale(q.wM)), q.p0.add(q.ua.scale(q.wM)), q.p0}
@@ -313,6 +349,17 @@ func (r *renderer) drawQuad(q *quad, rot mat3, t vec3) {
 	dst := r.frame.Region(rect)
 	tmp.CopyToWithMask(&dst, m)
 	dst.Close()
+	if r.movers.Ptr() != nil {
+		mv := r.movers.Region(rect)
+		if user { // m is 255 inside the polygon
+			m.CopyToWithMask(&mv, m)
+		} else {
+			z := r.zeros.Region(rect)
+			z.CopyToWithMask(&mv, m)
+			z.Close()
+		}
+		mv.Close()
+	}
 	m.Close()
 	tmp.Close()
 }

@@ -80,6 +80,12 @@ type scene struct {
 	textures []gocv.Mat // owned full textures and pyramid levels (quads hold views)
 	sky      gocv.Mat
 	posts    []vec3 // post base centres (world), for tests
+
+	// Moving road users (Config.Traffic; none by default), placed per
+	// frame by trafficAt along path.
+	traffic      []roadUser
+	path         []pathSample
+	meanSpeedMps float64
 }
 
 // Close releases the OpenCV memory.
@@ -134,7 +140,7 @@ func samplePath(tr *trajectory, stepM float64) []pathSample {
 func buildScene(tr *trajectory, texelM float64, width, height int, cam pinhole, seed int64, setbackM float64) (*scene, error) {
 	rng := rand.New(rand.NewPCG(uint64(seed), 0x5ce7e))
 	path := samplePath(tr, 0.5)
-	sc := &scene{}
+	sc := &scene{path: path}
 	if err := sc.buildGround(path, texelM, rng); err != nil {
 		sc.Close()
 		return nil, err

@@ -256,6 +256,7 @@ func runSimdrive(ctx context.Context, args []string, stdout, stderr io.Writer) e
 	fs.Float64Var(&cfg.FacadeSetbackM, "facade-setback-m", simdrive.DefaultSetbackM, "least distance of building fronts behind the sidewalk, m (1 = narrow city street)")
 	fs.Float64Var(&cfg.PanYawRateRps, "pan-yaw-rate-rps", 0, "amplitude of an extra yaw rate that reverses every half --pan-period-s (a weaving, panning drive), rad/s; 0 = none")
 	fs.Float64Var(&cfg.PanPeriodS, "pan-period-s", simdrive.DefaultPanPeriodS, "period of the pan yaw rate, s")
+	fs.BoolVar(&cfg.Traffic, "traffic", false, "add moving road users (oncoming cars, a car ahead, pedestrians) and write their exact mask per frame to movers/, to score the marks of things that moved")
 	fs.BoolVar(&quiet, "quiet", false, "no progress bar")
 	fs.Usage = func() {
 		fmt.Fprintln(stderr, "usage: stopgap simdrive --out DIR [flags]")
