@@ -392,6 +392,9 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 	defer r.Close()
 	if in.pairing == nil {
 		r.truth = rec.Truth
+		if r.marks, err = newMarkScorer(cfg.Drive); err != nil {
+			return Summary{}, err
+		}
 	}
 
 	var acc Accumulator
@@ -591,6 +594,9 @@ type replayer struct {
 	// truthImg and heldImg are the images of the tick just scored, borrowed
 	// from the frame source until its next Get.
 	truthImg, heldImg gocv.Mat
+	// marks scores the marks of things that moved against the drive's
+	// masks; nil without masks (or on a paired session's ticks).
+	marks *markScorer
 }
 
 func newReplayer(cam predictor.Camera, pol predictor.Policy, cm predictor.ConfidenceModel, flt *filter.Filter, now func() time.Time) (*replayer, error) {
@@ -627,6 +633,7 @@ func (r *replayer) Close() {
 	r.synth.Close()
 	r.scorer.Close()
 	r.meter.Close()
+	r.marks.Close()
 	for _, m := range []gocv.Mat{r.shown, r.unlabelled, r.rotation, r.scratch, r.warp} {
 		m.Close()
 	}
@@ -682,6 +689,11 @@ func (r *replayer) missing(k int, s Schedule, frames frameGetter, hasTruth []boo
 	if tick.State == predictor.StatePredicted {
 		row.SynthMs = float64(tick.SynthDuration) / float64(time.Millisecond)
 		row.UnfilledShare = tick.UnfilledFraction
+		if r.marks != nil && r.held >= 0 {
+			if row.MarkRecall, row.MarkPrecision, err = r.marks.score(r.filler, r.cam, r.held, k, tick.AgeMs, tick.Motion); err != nil {
+				return TickRow{}, err
+			}
+		}
 	}
 	if !hasTruth[k] {
 		// Lost on the live link (and not recorded on board): the state

@@ -200,6 +200,9 @@ type Summary struct {
 	// (Frames 0 without truth).
 	Calibration      Calibration `json:"calibration"`
 	CalibrationTruth Calibration `json:"calibration_truth"`
+	// Marks scores the marks of things that moved; nil unless the drive
+	// has masks of its moving road users (simdrive --traffic).
+	Marks *MarkSummary `json:"marks,omitempty"`
 }
 
 // MethodSet holds one MethodStats per Method under fixed JSON keys.
@@ -279,6 +282,10 @@ type TickRow struct {
 	// TruthMisalignMrad is the same misalignment computed exactly from
 	// truth.csv (TruthMisalignmentPx), milliradians; NaN without truth.
 	TruthMisalignMrad float64
+	// MarkRecall and MarkPrecision score the marks of things that moved
+	// on a PREDICTED tick of a drive with masks of its moving road users
+	// (see MarkSummary); NaN when not scored or nothing to divide by.
+	MarkRecall, MarkPrecision float64
 }
 
 // UnscoredScores returns Scores with every field NaN, meaning "not
@@ -291,7 +298,8 @@ func NewTickRow(tick int, targetUs int64, state string, ageMs float64) TickRow {
 	u := UnscoredScores()
 	return TickRow{Tick: tick, TargetUs: targetUs, State: state, AgeMs: ageMs, Confidence: nan,
 		Hold: u, Rotation: u, Predicted: u, SynthMs: nan, UnfilledShare: nan, LabelShare: nan,
-		Warp: u, SigmaPx: nan, MisalignPx: nan, MisalignMrad: nan, TruthMisalignMrad: nan}
+		Warp: u, SigmaPx: nan, MisalignPx: nan, MisalignMrad: nan, TruthMisalignMrad: nan,
+		MarkRecall: nan, MarkPrecision: nan}
 }
 
 // MethodScores returns the scores of m on this tick (UnscoredScores for
@@ -366,6 +374,12 @@ func (r *TickRow) Validate() error {
 	if err := share("label share", r.LabelShare); err != nil {
 		return err
 	}
+	if err := share("mark recall", r.MarkRecall); err != nil {
+		return err
+	}
+	if err := share("mark precision", r.MarkPrecision); err != nil {
+		return err
+	}
 	if !math.IsNaN(r.SynthMs) && !(r.SynthMs >= 0 && !math.IsInf(r.SynthMs, 0)) {
 		return bad("synth time %g ms, want a finite value >= 0", r.SynthMs)
 	}
@@ -432,6 +446,7 @@ type Accumulator struct {
 	harmPSNR, harmSSIM   int
 	calConf, calMrad     []float64 // per tick with a confidence and a measured misalignment
 	truthConf, truthMrad []float64 // per tick with a confidence and a truth misalignment
+	marks                markAcc
 }
 
 // Add validates r (see TickRow.Validate) and adds it. A rejected row is
@@ -441,6 +456,7 @@ func (a *Accumulator) Add(r TickRow) error {
 		return err
 	}
 	a.total++
+	a.marks.add(r)
 	switch r.State {
 	case TickLive:
 		a.live++
@@ -550,6 +566,7 @@ func (a *Accumulator) Summary() Summary {
 		po.HarmRateSSIM = Float(float64(a.harmSSIM) / float64(po.Frames))
 	}
 	s.PredictedOnly = po
+	s.Marks = a.marks.summary()
 	return s
 }
 
@@ -605,7 +622,8 @@ func TicksCSVHeader() []string {
 		h = append(h, m.String()+"_psnr_db", m.String()+"_ssim", m.String()+"_mae")
 	}
 	return append(h, "synth_ms", "unfilled_share", "label_share",
-		"warp_psnr_db", "warp_ssim", "warp_mae", "sigma_px", "misalign_px", "misalign_mrad", "truth_misalign_mrad")
+		"warp_psnr_db", "warp_ssim", "warp_mae", "sigma_px", "misalign_px", "misalign_mrad", "truth_misalign_mrad",
+		"mark_recall", "mark_precision")
 }
 
 // SafetyCaution is the warning printed at the top of report.html.
@@ -845,7 +863,8 @@ func writeTicks(w io.Writer, ticks []TickRow) error {
 		}
 		rec = append(rec, csvFloat(r.SynthMs), csvFloat(r.UnfilledShare), csvFloat(r.LabelShare),
 			csvFloat(r.Warp.PSNRdB), csvFloat(r.Warp.SSIM), csvFloat(r.Warp.MAE),
-			csvFloat(r.SigmaPx), csvFloat(r.MisalignPx), csvFloat(r.MisalignMrad), csvFloat(r.TruthMisalignMrad))
+			csvFloat(r.SigmaPx), csvFloat(r.MisalignPx), csvFloat(r.MisalignMrad), csvFloat(r.TruthMisalignMrad),
+			csvFloat(r.MarkRecall), csvFloat(r.MarkPrecision))
 		if err := cw.Write(rec); err != nil {
 			return err
 		}
@@ -1111,6 +1130,11 @@ Over the {{.S.PredictedOnly.Frames}} PREDICTED ticks alone: PSNR {{f .S.Predicte
 {{f .S.PredictedOnly.HoldPSNRdBMean 2}} dB), SSIM {{f .S.PredictedOnly.SSIMMean 4}} (hold {{f .S.PredictedOnly.HoldSSIMMean 4}}).
 Harm rate (worse than hold): {{pct .S.PredictedOnly.HarmRatePSNR}} by more than 1 dB PSNR, {{pct .S.PredictedOnly.HarmRateSSIM}} by more than 0.01 SSIM.
 Telemetry: {{if .S.Telemetry.Own}}on its own channel, loss rate {{.S.Telemetry.LossRate}}{{else}}shares the fate of the video{{end}}.</p>
+{{with .S.Marks}}
+<h2>Marks of things that moved</h2>
+<p>On {{.Ticks}} PREDICTED ticks up to {{.AgeLimitMs}} ms old, the marks covered on average {{f .RecallMean 2}} of the pixels where a moving
+road user really was or was shown (recall), and {{f .PrecisionMean 2}} of the marked pixels were such pixels (precision); over all
+{{.TicksAll}} PREDICTED ticks: {{f .RecallMeanAll 2}} and {{f .PrecisionMeanAll 2}}. No mark does not mean nothing moved.</p>{{end}}
 
 <h2>Calibration of the confidence</h2>
 <p>The confidence is the probability that the reference road points of a predicted frame are within

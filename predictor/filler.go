@@ -126,6 +126,8 @@ type Filler struct {
 	movers      MoverModel
 	moversFor   int64
 	moversKnown bool
+	// The movers as marked on the last tick (see placeMarks), reused.
+	marks []Mover
 }
 
 // NewFiller validates cfg and allocates the buffers.
@@ -282,6 +284,7 @@ func (f *Filler) MissingWith(method Method, targetUs int64, dst *gocv.Mat) (Tick
 	if f.closed {
 		return tick, ErrClosed
 	}
+	f.marks = f.marks[:0]
 	if method != MethodGround && method != MethodRotation && method != MethodHold {
 		return tick, fmt.Errorf("method %d: %w", int(method), ErrInvalidMethod)
 	}
@@ -348,7 +351,8 @@ func (f *Filler) MissingWith(method Method, targetUs int64, dst *gocv.Mat) (Tick
 	}
 	tick.LabelFraction, err = f.label.Draw(dst, tick.State, tick.AgeMs, tick.Confidence)
 	if err == nil && movers != nil && len(movers.Movers) > 0 {
-		tick.Movers, err = f.label.DrawMovers(dst, movers.Movers, tick.AgeMs)
+		f.placeMarks(movers.Movers, tick.Motion, tick.FarDepthM)
+		tick.Movers, err = f.label.DrawMovers(dst, f.marks, tick.AgeMs)
 	}
 	tick.SynthDuration = f.now().Sub(start)
 	return tick, err

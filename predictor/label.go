@@ -48,6 +48,7 @@ type Labeler struct {
 	lineH    int // text line height including the descender
 	capH     int // height above the baseline
 	closed   bool
+	lastBox  image.Rectangle // the text box of the last label drawn
 }
 
 // NewLabeler prepares labels for width x height CV_8UC3 frames.
@@ -199,6 +200,7 @@ func (l *Labeler) box(img *gocv.Mat, centred bool, bg, fg color.RGBA, line1, lin
 		r = image.Rect(in.Min.X+m, in.Min.Y+m, in.Min.X+m+bw, in.Min.Y+m+bh)
 	}
 	r = r.Intersect(in)
+	l.lastBox = r
 	if r.Empty() {
 		return 0
 	}

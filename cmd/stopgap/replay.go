@@ -229,6 +229,10 @@ func printSummaryBody(w io.Writer, s bench.Summary) {
 	} else {
 		fmt.Fprintln(w, "PREDICTED ticks alone: none scored")
 	}
+	if mk := s.Marks; mk != nil {
+		fmt.Fprintf(w, "marks of things that moved, PREDICTED ticks up to %g ms: %d, recall %.2f, precision %.2f (all ages: %d, recall %.2f, precision %.2f)\n",
+			mk.AgeLimitMs, mk.Ticks, float64(mk.RecallMean), float64(mk.PrecisionMean), mk.TicksAll, float64(mk.RecallMeanAll), float64(mk.PrecisionMeanAll))
+	}
 	for _, c := range []bench.Calibration{s.Calibration, s.CalibrationTruth} {
 		if c.Frames > 0 {
 			fmt.Fprintf(w, "calibration (%s, misalignment <= %g mrad): %d ticks, ECE %.3f, Brier %.3f, mean confidence %.3f, observed %.3f\n",

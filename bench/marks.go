@@ -1,0 +1,206 @@
+package bench
+
+import (
+	"errors"
+	"fmt"
+	"image"
+	"math"
+	"os"
+	"path/filepath"
+
+	"gocv.io/x/gocv"
+
+	"stopgap/bench/simdrive"
+	"stopgap/filter"
+	"stopgap/predictor"
+)
+
+// MarkAgeLimitMs is the gap age up to which MarkSummary's headline figures
+// are taken (our acceptance range for the marks of things that moved).
+const MarkAgeLimitMs = 300
+
+// MarkSummary scores the marks of things that moved (predictor.Mover) on
+// PREDICTED ticks of a drive that carries the exact masks of its moving
+// road users (simdrive's movers/ directory). On each such tick the truly
+// changed pixels are where a moving thing is in the true frame, or where
+// the predicted picture shows one (the held frame's mask warped as the
+// held frame was), outside the label; the marked pixels are inside a
+// mark's zone (its last known place and where it could be by now).
+// Recall is the share of truly changed pixels that are marked, precision
+// the share of marked pixels that truly changed. Means are over ticks
+// (recall over ticks with changed pixels, precision over ticks with
+// marks).
+type MarkSummary struct {
+	// AgeLimitMs is MarkAgeLimitMs: the headline figures are over ticks up
+	// to this age.
+	AgeLimitMs float64 `json:"age_limit_ms"`
+	// Ticks, RecallMean, PrecisionMean: ticks up to AgeLimitMs scored,
+	// mean recall and mean precision over them.
+	Ticks         int   `json:"ticks"`
+	RecallMean    Float `json:"recall_mean"`
+	PrecisionMean Float `json:"precision_mean"`
+	// The same over PREDICTED ticks of every age.
+	TicksAll         int   `json:"ticks_all"`
+	RecallMeanAll    Float `json:"recall_mean_all"`
+	PrecisionMeanAll Float `json:"precision_mean_all"`
+}
+
+// markAcc accumulates MarkSummary over tick rows.
+type markAcc struct {
+	recall, precision, recallAll, precisionAll meanAcc
+	ticks, ticksAll                            int
+}
+
+func (a *markAcc) add(r TickRow) {
+	if math.IsNaN(r.MarkRecall) && math.IsNaN(r.MarkPrecision) {
+		return
+	}
+	a.ticksAll++
+	a.recallAll.add(r.MarkRecall)
+	a.precisionAll.add(r.MarkPrecision)
+	if r.AgeMs <= MarkAgeLimitMs {
+		a.ticks++
+		a.recall.add(r.MarkRecall)
+		a.precision.add(r.MarkPrecision)
+	}
+}
+
+// summary returns nil when no tick was scored (a drive without masks).
+func (a *markAcc) summary() *MarkSummary {
+	if a.ticksAll == 0 {
+		return nil
+	}
+	return &MarkSummary{AgeLimitMs: MarkAgeLimitMs, Ticks: a.ticks, RecallMean: a.recall.mean(), PrecisionMean: a.precision.mean(),
+		TicksAll: a.ticksAll, RecallMeanAll: a.recallAll.mean(), PrecisionMeanAll: a.precisionAll.mean()}
+}
+
+// markScorer scores the marks of one tick against the drive's masks. It
+// owns its scratch images (Close frees them).
+type markScorer struct {
+	drive                                string
+	held, target, bgr, warped, truth, mk gocv.Mat
+}
+
+// newMarkScorer returns a scorer for drive, or nil when the drive has no
+// masks of moving things.
+func newMarkScorer(drive string) (*markScorer, error) {
+	st, err := os.Stat(filepath.Join(drive, simdrive.MoverMaskDir))
+	if errors.Is(err, os.ErrNotExist) {
+		return nil, nil
+	}
+	if err != nil {
+		return nil, fmt.Errorf("replay: %w", err)
+	}
+	if !st.IsDir() {
+		return nil, fmt.Errorf("replay: %s is not a directory of masks; remove it or regenerate the drive: %w",
+			filepath.Join(drive, simdrive.MoverMaskDir), ErrReplayInput)
+	}
+	return &markScorer{drive: drive, held: gocv.NewMat(), target: gocv.NewMat(), bgr: gocv.NewMat(), warped: gocv.NewMat(),
+		truth: gocv.NewMat(), mk: gocv.NewMat()}, nil
+}
+
+func (s *markScorer) Close() {
+	if s == nil {
+		return
+	}
+	for _, m := range []*gocv.Mat{&s.held, &s.target, &s.bgr, &s.warped, &s.truth, &s.mk} {
+		m.Close()
+	}
+}
+
+// readMask reads frame i's mask into dst and checks its size.
+func (s *markScorer) readMask(i int, w, h int, dst *gocv.Mat) error {
+	p := simdrive.MoverMaskPath(s.drive, i)
+	m := gocv.IMRead(p, gocv.IMReadGrayScale)
+	defer m.Close()
+	if m.Empty() {
+		return fmt.Errorf("replay: %s is missing or not an image; regenerate the drive with simdrive --traffic: %w", p, ErrReplayInput)
+	}
+	if m.Cols() != w || m.Rows() != h {
+		return fmt.Errorf("replay: %s is %dx%d, the frames %dx%d; regenerate the drive: %w", p, m.Cols(), m.Rows(), w, h, ErrReplayInput)
+	}
+	gocv.Threshold(m, dst, 127, 255, gocv.ThresholdBinary)
+	return nil
+}
+
+// score returns the recall and precision of the marks of the tick just
+// filled by f (held frame j, tick k at ageMs, motion m); NaN where there is
+// nothing to divide by.
+func (s *markScorer) score(f *predictor.Filler, cam predictor.Camera, j, k int, ageMs float64, m filter.Motion) (recall, precision float64, err error) {
+	w, h := cam.Width, cam.Height
+	if err := s.readMask(j, w, h, &s.held); err != nil {
+		return 0, 0, err
+	}
+	if err := s.readMask(k, w, h, &s.target); err != nil {
+		return 0, 0, err
+	}
+	// Where the predicted picture shows the moving things of the held
+	// frame: their mask warped as the held frame was (neutral fill where
+	// nothing maps is below the threshold).
+	gocv.CvtColor(s.held, &s.bgr, gocv.ColorGrayToBGR)
+	if _, err := f.WarpAsShown(s.bgr, m, &s.warped); err != nil {
+		return 0, 0, fmt.Errorf("warping the mask of moving things: %w", err)
+	}
+	gocv.CvtColor(s.warped, &s.truth, gocv.ColorBGRToGray)
+	gocv.Threshold(s.truth, &s.truth, 127.5, 255, gocv.ThresholdBinary)
+	gocv.BitwiseOr(s.truth, s.target, &s.truth)
+
+	s.mk = ensureGray(s.mk, w, h)
+	s.mk.SetTo(gocv.NewScalar(0, 0, 0, 0))
+	for _, mv := range f.Marks() {
+		z := mv.Zone(ageMs).Intersect(image.Rect(0, 0, w, h))
+		if z.Empty() {
+			continue
+		}
+		roi := s.mk.Region(z)
+		roi.SetTo(gocv.NewScalar(255, 0, 0, 0))
+		roi.Close()
+	}
+	// Outside the label only: the border and the text box are masked out
+	// of both.
+	inner, text := f.LabelArea()
+	for _, img := range []*gocv.Mat{&s.truth, &s.mk} {
+		clearOutside(img, inner)
+		if !text.Empty() {
+			roi := img.Region(text)
+			roi.SetTo(gocv.NewScalar(0, 0, 0, 0))
+			roi.Close()
+		}
+	}
+	changed, marked := gocv.CountNonZero(s.truth), gocv.CountNonZero(s.mk)
+	gocv.BitwiseAnd(s.truth, s.mk, &s.warped)
+	hit := gocv.CountNonZero(s.warped)
+	recall, precision = math.NaN(), math.NaN()
+	if changed > 0 {
+		recall = float64(hit) / float64(changed)
+	}
+	if marked > 0 {
+		precision = float64(hit) / float64(marked)
+	}
+	return recall, precision, nil
+}
+
+// ensureGray returns m if it is a w x h CV_8U image, else a new one (m is
+// closed).
+func ensureGray(m gocv.Mat, w, h int) gocv.Mat {
+	if m.Cols() == w && m.Rows() == h && m.Type() == gocv.MatTypeCV8U {
+		return m
+	}
+	m.Close()
+	return gocv.NewMatWithSize(h, w, gocv.MatTypeCV8U)
+}
+
+// clearOutside sets the pixels of img (CV_8U) outside r to 0.
+func clearOutside(img *gocv.Mat, r image.Rectangle) {
+	full := image.Rect(0, 0, img.Cols(), img.Rows())
+	for _, b := range [4]image.Rectangle{
+		image.Rect(0, 0, full.Max.X, r.Min.Y), image.Rect(0, r.Max.Y, full.Max.X, full.Max.Y),
+		image.Rect(0, r.Min.Y, r.Min.X, r.Max.Y), image.Rect(r.Max.X, r.Min.Y, full.Max.X, r.Max.Y),
+	} {
+		if b = b.Intersect(full); !b.Empty() {
+			roi := img.Region(b)
+			roi.SetTo(gocv.NewScalar(0, 0, 0, 0))
+			roi.Close()
+		}
+	}
+}

@@ -1,0 +1,92 @@
+package predictor
+
+import (
+	"fmt"
+	"image"
+	"math"
+
+	"gocv.io/x/gocv"
+
+	"stopgap/filter"
+)
+
+// placeMarks writes into f.marks the movers of the held frame as they are
+// marked on a predicted frame made with motion m (held frame -> target):
+// each last known place moves with the static scene it stands on, so the
+// mark sits where the predicted picture shows the thing. A box whose
+// bottom edge is on the road (below the horizon) follows the road map of
+// its two bottom corners and is scaled by the change of their distance; one
+// above the horizon follows the far map of its centre. The apparent
+// velocity is scaled with the box. Lens distortion is ignored here (marks
+// are zones, not pixels). f.marks is reused: no allocation once it has
+// grown to the number of movers.
+func (f *Filler) placeMarks(movers []Mover, m filter.Motion, farDepthM float64) {
+	f.marks = f.marks[:0]
+	c := f.cfg.Camera
+	road := c.GroundHomographyPlanar(m.DxM, m.DyM, m.DyawRad)
+	far := c.FarHomographyPlanar(m.DxM, m.DyM, m.DyawRad, farDepthM)
+	hz := c.Horizon()
+	for _, mv := range movers {
+		b := mv.Box
+		x0, x1, yb := float64(b.Min.X), float64(b.Max.X), float64(b.Max.Y)
+		k, ax, ay := 1.0, 0.0, 0.0 // scale, and where the bottom-left corner goes
+		placed := false
+		if hz.SignedDistance(x0, yb) > 0 && hz.SignedDistance(x1, yb) > 0 {
+			u0, v0, ok0 := road.Apply(x0, yb)
+			u1, v1, ok1 := road.Apply(x1, yb)
+			if ok0 && ok1 && x1 > x0 {
+				if s := math.Hypot(u1-u0, v1-v0) / (x1 - x0); s > 0.25 && s < 4 {
+					k, ax, ay, placed = s, u0, (v0+v1)/2, true
+				}
+			}
+		}
+		if !placed {
+			cx, cy := (x0+x1)/2, float64(b.Min.Y+b.Max.Y)/2
+			u, v, ok := far.Apply(cx, cy)
+			if !ok {
+				u, v = cx, cy
+			}
+			ax, ay = x0+u-cx, yb+v-cy
+		}
+		w, h := k*(x1-x0), k*float64(b.Dy())
+		box := image.Rect(int(math.Floor(ax)), int(math.Floor(ay-h)), int(math.Ceil(ax+w)), int(math.Ceil(ay)))
+		f.marks = append(f.marks, Mover{Box: box, VxPxPerS: k * mv.VxPxPerS, VyPxPerS: k * mv.VyPxPerS})
+	}
+}
+
+// Marks returns the movers as marked on the last tick, in its pixels
+// (Box, and Zone(Tick.AgeMs) around it), or nil when the last tick drew no
+// marks. The slice is the Filler's and is valid until its next call.
+func (f *Filler) Marks() []Mover {
+	if len(f.marks) == 0 {
+		return nil
+	}
+	return f.marks
+}
+
+// LabelArea returns where the label of a PREDICTED or STALE tick leaves the
+// picture visible: the area inside the border, and the text box within it
+// that the label covers on the last tick (empty before any).
+func (f *Filler) LabelArea() (inner, text image.Rectangle) {
+	return f.label.inner(), f.label.lastBox
+}
+
+// WarpAsShown writes to dst the image src (camera-sized CV_8UC3) warped as
+// the held frame is on a PREDICTED ground-method tick with motion m: the
+// same far depth and upright structure (estimated for the held frame). The
+// replay warps the mask of where moving things were in the held frame with
+// it, to know where the predicted picture shows them. dst is owned by the
+// caller. It fails with ErrNoFrame before the first real frame.
+func (f *Filler) WarpAsShown(src gocv.Mat, m filter.Motion, dst *gocv.Mat) (Synthesis, error) {
+	if f.closed {
+		return Synthesis{}, ErrClosed
+	}
+	if !f.have {
+		return Synthesis{}, ErrNoFrame
+	}
+	if !matUsable(dst) {
+		return Synthesis{}, fmt.Errorf("destination is nil or a zero gocv.Mat; create it with gocv.NewMat(): %w", ErrFrameFormat)
+	}
+	d := f.farDepthFor()
+	return f.synth.SynthesizeScene(src, m, d, f.uprightModel(d), dst)
+}
