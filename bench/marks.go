@@ -29,7 +29,8 @@ const MarkAgeLimitMs = 300
 // Recall is the share of truly changed pixels that are marked, precision
 // the share of marked pixels that truly changed. Means are over ticks
 // (recall over ticks with changed pixels, precision over ticks with
-// marks).
+// marks); pooled figures are over the pixels of all those ticks (a large
+// car weighs more than a distant pedestrian).
 type MarkSummary struct {
 	// AgeLimitMs is MarkAgeLimitMs: the headline figures are over ticks up
 	// to this age.
@@ -39,6 +40,9 @@ type MarkSummary struct {
 	Ticks         int   `json:"ticks"`
 	RecallMean    Float `json:"recall_mean"`
 	PrecisionMean Float `json:"precision_mean"`
+	// RecallPooled and PrecisionPooled over the pixels of those ticks.
+	RecallPooled    Float `json:"recall_pooled"`
+	PrecisionPooled Float `json:"precision_pooled"`
 	// The same over PREDICTED ticks of every age.
 	TicksAll         int   `json:"ticks_all"`
 	RecallMeanAll    Float `json:"recall_mean_all"`
@@ -49,6 +53,8 @@ type MarkSummary struct {
 type markAcc struct {
 	recall, precision, recallAll, precisionAll meanAcc
 	ticks, ticksAll                            int
+	// Pooled: hits weighted by changed and by marked pixels (shares).
+	hitC, changed, hitM, marked float64
 }
 
 func (a *markAcc) add(r TickRow) {
@@ -62,6 +68,14 @@ func (a *markAcc) add(r TickRow) {
 		a.ticks++
 		a.recall.add(r.MarkRecall)
 		a.precision.add(r.MarkPrecision)
+		if !math.IsNaN(r.MarkRecall) {
+			a.hitC += r.MarkRecall * r.MarkChangedShare
+			a.changed += r.MarkChangedShare
+		}
+		if !math.IsNaN(r.MarkPrecision) {
+			a.hitM += r.MarkPrecision * r.MarkMarkedShare
+			a.marked += r.MarkMarkedShare
+		}
 	}
 }
 
@@ -70,7 +84,14 @@ func (a *markAcc) summary() *MarkSummary {
 	if a.ticksAll == 0 {
 		return nil
 	}
+	ratio := func(a, b float64) Float {
+		if b > 0 {
+			return Float(a / b)
+		}
+		return Float(math.NaN())
+	}
 	return &MarkSummary{AgeLimitMs: MarkAgeLimitMs, Ticks: a.ticks, RecallMean: a.recall.mean(), PrecisionMean: a.precision.mean(),
+		RecallPooled: ratio(a.hitC, a.changed), PrecisionPooled: ratio(a.hitM, a.marked),
 		TicksAll: a.ticksAll, RecallMeanAll: a.recallAll.mean(), PrecisionMeanAll: a.precisionAll.mean()}
 }
 
@@ -123,23 +144,23 @@ func (s *markScorer) readMask(i int, w, h int, dst *gocv.Mat) error {
 	return nil
 }
 
-// score returns the recall and precision of the marks of the tick just
-// filled by f (held frame j, tick k at ageMs, motion m); NaN where there is
-// nothing to divide by.
-func (s *markScorer) score(f *predictor.Filler, cam predictor.Camera, j, k int, ageMs float64, m filter.Motion) (recall, precision float64, err error) {
+// score sets the mark figures of row, the tick just filled by f (held
+// frame j, tick k at ageMs, motion m): recall and precision (NaN where
+// there is nothing to divide by) and the changed and marked shares.
+func (s *markScorer) score(row *TickRow, f *predictor.Filler, cam predictor.Camera, j, k int, ageMs float64, m filter.Motion) error {
 	w, h := cam.Width, cam.Height
 	if err := s.readMask(j, w, h, &s.held); err != nil {
-		return 0, 0, err
+		return err
 	}
 	if err := s.readMask(k, w, h, &s.target); err != nil {
-		return 0, 0, err
+		return err
 	}
 	// Where the predicted picture shows the moving things of the held
 	// frame: their mask warped as the held frame was (neutral fill where
 	// nothing maps is below the threshold).
 	gocv.CvtColor(s.held, &s.bgr, gocv.ColorGrayToBGR)
 	if _, err := f.WarpAsShown(s.bgr, m, &s.warped); err != nil {
-		return 0, 0, fmt.Errorf("warping the mask of moving things: %w", err)
+		return fmt.Errorf("warping the mask of moving things: %w", err)
 	}
 	gocv.CvtColor(s.warped, &s.truth, gocv.ColorBGRToGray)
 	gocv.Threshold(s.truth, &s.truth, 127.5, 255, gocv.ThresholdBinary)
@@ -170,14 +191,15 @@ func (s *markScorer) score(f *predictor.Filler, cam predictor.Camera, j, k int, 
 	changed, marked := gocv.CountNonZero(s.truth), gocv.CountNonZero(s.mk)
 	gocv.BitwiseAnd(s.truth, s.mk, &s.warped)
 	hit := gocv.CountNonZero(s.warped)
-	recall, precision = math.NaN(), math.NaN()
+	row.MarkRecall, row.MarkPrecision = math.NaN(), math.NaN()
 	if changed > 0 {
-		recall = float64(hit) / float64(changed)
+		row.MarkRecall = float64(hit) / float64(changed)
 	}
 	if marked > 0 {
-		precision = float64(hit) / float64(marked)
+		row.MarkPrecision = float64(hit) / float64(marked)
 	}
-	return recall, precision, nil
+	row.MarkChangedShare, row.MarkMarkedShare = float64(changed)/float64(w*h), float64(marked)/float64(w*h)
+	return nil
 }
 
 // ensureGray returns m if it is a w x h CV_8U image, else a new one (m is

@@ -690,7 +690,7 @@ func (r *replayer) missing(k int, s Schedule, frames frameGetter, hasTruth []boo
 		row.SynthMs = float64(tick.SynthDuration) / float64(time.Millisecond)
 		row.UnfilledShare = tick.UnfilledFraction
 		if r.marks != nil && r.held >= 0 {
-			if row.MarkRecall, row.MarkPrecision, err = r.marks.score(r.filler, r.cam, r.held, k, tick.AgeMs, tick.Motion); err != nil {
+			if err := r.marks.score(&row, r.filler, r.cam, r.held, k, tick.AgeMs, tick.Motion); err != nil {
 				return TickRow{}, err
 			}
 		}

@@ -286,6 +286,10 @@ type TickRow struct {
 	// on a PREDICTED tick of a drive with masks of its moving road users
 	// (see MarkSummary); NaN when not scored or nothing to divide by.
 	MarkRecall, MarkPrecision float64
+	// MarkChangedShare and MarkMarkedShare are the shares of the image's
+	// pixels that truly changed and that were marked on that tick (the
+	// weights of the pooled figures); NaN when not scored.
+	MarkChangedShare, MarkMarkedShare float64
 }
 
 // UnscoredScores returns Scores with every field NaN, meaning "not
@@ -299,7 +303,7 @@ func NewTickRow(tick int, targetUs int64, state string, ageMs float64) TickRow {
 	return TickRow{Tick: tick, TargetUs: targetUs, State: state, AgeMs: ageMs, Confidence: nan,
 		Hold: u, Rotation: u, Predicted: u, SynthMs: nan, UnfilledShare: nan, LabelShare: nan,
 		Warp: u, SigmaPx: nan, MisalignPx: nan, MisalignMrad: nan, TruthMisalignMrad: nan,
-		MarkRecall: nan, MarkPrecision: nan}
+		MarkRecall: nan, MarkPrecision: nan, MarkChangedShare: nan, MarkMarkedShare: nan}
 }
 
 // MethodScores returns the scores of m on this tick (UnscoredScores for
@@ -378,6 +382,12 @@ func (r *TickRow) Validate() error {
 		return err
 	}
 	if err := share("mark precision", r.MarkPrecision); err != nil {
+		return err
+	}
+	if err := share("mark changed share", r.MarkChangedShare); err != nil {
+		return err
+	}
+	if err := share("mark marked share", r.MarkMarkedShare); err != nil {
 		return err
 	}
 	if !math.IsNaN(r.SynthMs) && !(r.SynthMs >= 0 && !math.IsInf(r.SynthMs, 0)) {
@@ -623,7 +633,7 @@ func TicksCSVHeader() []string {
 	}
 	return append(h, "synth_ms", "unfilled_share", "label_share",
 		"warp_psnr_db", "warp_ssim", "warp_mae", "sigma_px", "misalign_px", "misalign_mrad", "truth_misalign_mrad",
-		"mark_recall", "mark_precision")
+		"mark_recall", "mark_precision", "mark_changed_share", "mark_marked_share")
 }
 
 // SafetyCaution is the warning printed at the top of report.html.
@@ -864,7 +874,7 @@ func writeTicks(w io.Writer, ticks []TickRow) error {
 		rec = append(rec, csvFloat(r.SynthMs), csvFloat(r.UnfilledShare), csvFloat(r.LabelShare),
 			csvFloat(r.Warp.PSNRdB), csvFloat(r.Warp.SSIM), csvFloat(r.Warp.MAE),
 			csvFloat(r.SigmaPx), csvFloat(r.MisalignPx), csvFloat(r.MisalignMrad), csvFloat(r.TruthMisalignMrad),
-			csvFloat(r.MarkRecall), csvFloat(r.MarkPrecision))
+			csvFloat(r.MarkRecall), csvFloat(r.MarkPrecision), csvFloat(r.MarkChangedShare), csvFloat(r.MarkMarkedShare))
 		if err := cw.Write(rec); err != nil {
 			return err
 		}
@@ -1134,7 +1144,8 @@ Telemetry: {{if .S.Telemetry.Own}}on its own channel, loss rate {{.S.Telemetry.L
 <h2>Marks of things that moved</h2>
 <p>On {{.Ticks}} PREDICTED ticks up to {{.AgeLimitMs}} ms old, the marks covered on average {{f .RecallMean 2}} of the pixels where a moving
 road user really was or was shown (recall), and {{f .PrecisionMean 2}} of the marked pixels were such pixels (precision); over all
-{{.TicksAll}} PREDICTED ticks: {{f .RecallMeanAll 2}} and {{f .PrecisionMeanAll 2}}. No mark does not mean nothing moved.</p>{{end}}
+{{.TicksAll}} PREDICTED ticks: {{f .RecallMeanAll 2}} and {{f .PrecisionMeanAll 2}}. Pooled over the pixels of the ticks up to {{.AgeLimitMs}} ms
+(a large car weighs more than a distant pedestrian): recall {{f .RecallPooled 2}}, precision {{f .PrecisionPooled 2}}. No mark does not mean nothing moved.</p>{{end}}
 
 <h2>Calibration of the confidence</h2>
 <p>The confidence is the probability that the reference road points of a predicted frame are within

@@ -272,7 +272,8 @@ func TestWriteReport(t *testing.T) {
 		want := []string{"tick", "target_us", "state", "age_ms", "confidence",
 			"hold_psnr_db", "hold_ssim", "hold_mae", "rotation_psnr_db", "rotation_ssim", "rotation_mae",
 			"predicted_psnr_db", "predicted_ssim", "predicted_mae", "synth_ms", "unfilled_share", "label_share",
-			"warp_psnr_db", "warp_ssim", "warp_mae", "sigma_px", "misalign_px", "misalign_mrad", "truth_misalign_mrad"}
+			"warp_psnr_db", "warp_ssim", "warp_mae", "sigma_px", "misalign_px", "misalign_mrad", "truth_misalign_mrad",
+			"mark_recall", "mark_precision", "mark_changed_share", "mark_marked_share"}
 		if !slices.Equal(recs[0], want) {
 			t.Errorf("header %v, want %v", recs[0], want)
 		}

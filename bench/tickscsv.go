@@ -116,7 +116,7 @@ func ReadTicksCSV(r io.Reader, name string) ([]TickRow, error) {
 		r.SynthMs, r.UnfilledShare, r.LabelShare = num(), num(), num()
 		r.Warp.PSNRdB, r.Warp.SSIM, r.Warp.MAE = num(), num(), num()
 		r.SigmaPx, r.MisalignPx, r.MisalignMrad, r.TruthMisalignMrad = num(), num(), num(), num()
-		r.MarkRecall, r.MarkPrecision = num(), num()
+		r.MarkRecall, r.MarkPrecision, r.MarkChangedShare, r.MarkMarkedShare = num(), num(), num(), num()
 		if perr != nil {
 			return nil, perr
 		}

@@ -429,11 +429,11 @@ func (f *Filler) moverModel(farDepthM float64, up *UprightModel) *MoverModel {
 	if !f.moversKnown || f.moversFor != f.lastUs {
 		f.movers.Movers = f.movers.Movers[:0]
 		if m, err := f.cfg.Motion.Relative(f.prevUs, f.lastUs); err == nil {
-			var res *gocv.Mat
-			if r, ok := f.uprightEst.Residual(); ok && up != nil {
-				res = &r
+			var static *UprightEstimator
+			if _, ok := f.uprightEst.Residual(); ok && up != nil {
+				static = f.uprightEst
 			}
-			if err := f.moverDet.Detect(f.prev, f.last, f.cfg.Camera, m, farDepthM, up, res, &f.movers); err != nil {
+			if err := f.moverDet.Detect(f.prev, f.last, f.cfg.Camera, m, farDepthM, up, static, &f.movers); err != nil {
 				f.movers.Movers = f.movers.Movers[:0]
 			}
 		}

@@ -18,9 +18,10 @@ const (
 	// DefaultMoverThreshold is the grey-level difference, after the
 	// vehicle's own motion is compensated, above which a pixel changed.
 	DefaultMoverThreshold = 20
-	// DefaultMoverMinAreaPx is the least area of a changed region at full
-	// resolution, pixels (about 25x25 px): smaller ones are noise or
-	// texture misfit. Threshold and area were chosen on vtest.avi (see
+	// DefaultMoverMinAreaPx is the least bounding-box area of a changed
+	// region at full resolution, pixels (about 25x25 px): smaller ones are
+	// noise or texture misfit. (A box, not the changed pixels: a uniformly
+	// coloured thing changes only along its edges.) Threshold and area were chosen on vtest.avi (see
 	// TestMoversOnVtest).
 	DefaultMoverMinAreaPx = 600
 	// DefaultMoverMinSpeedPxPerS sets the least growth of a mark's zone
@@ -101,6 +102,7 @@ type MoverDetector struct {
 	opts                         MoverOptions
 	a, b, tmp, comp, w, diff, hm gocv.Mat
 	labels, stats, cents, kern   gocv.Mat
+	close                        gocv.Mat // closing element joining a thing's edges
 	allocated                    bool
 }
 
@@ -113,7 +115,7 @@ func NewMoverDetector(opts MoverOptions) (*MoverDetector, error) {
 }
 
 func (d *MoverDetector) scratch() []*gocv.Mat {
-	return []*gocv.Mat{&d.a, &d.b, &d.tmp, &d.comp, &d.w, &d.diff, &d.hm, &d.labels, &d.stats, &d.cents, &d.kern}
+	return []*gocv.Mat{&d.a, &d.b, &d.tmp, &d.comp, &d.w, &d.diff, &d.hm, &d.labels, &d.stats, &d.cents, &d.kern, &d.close}
 }
 
 // Close frees the scratch images. Safe to call more than once.
@@ -130,12 +132,13 @@ func (d *MoverDetector) Close() error {
 // Detect writes into model (reusing its storage) the movers of last
 // (captured at m.T1Us) against prev (at m.T0Us), m the vehicle motion
 // between them, farDepthM the far-scene depth and up the upright structure
-// of last (nil for none). residual, if not nil and of the detector's
-// downscaled size, is UprightEstimator.Residual: a changed region then
-// counts only if no static surface hypothesis explains a third of it either
-// (parallax of posts and other structure the model does not keep is not
+// of last (nil for none). static, if not nil, is the UprightEstimator that
+// estimated up from the same frames at the detector's downscaled size: a
+// changed region then counts only if no static surface hypothesis that
+// could stand there explains two thirds of it (UprightEstimator.Explains:
+// parallax of posts and other structure the model does not keep is not
 // motion).
-func (d *MoverDetector) Detect(prev, last gocv.Mat, cam Camera, m filter.Motion, farDepthM float64, up *UprightModel, residual *gocv.Mat, model *MoverModel) error {
+func (d *MoverDetector) Detect(prev, last gocv.Mat, cam Camera, m filter.Motion, farDepthM float64, up *UprightModel, static *UprightEstimator, model *MoverModel) error {
 	model.Movers = model.Movers[:0]
 	if err := CheckMotion(m); err != nil {
 		return err
@@ -158,6 +161,8 @@ func (d *MoverDetector) Detect(prev, last gocv.Mat, cam Camera, m filter.Motion,
 		d.hm = gocv.NewMatWithSize(3, 3, gocv.MatTypeCV64F)
 		d.kern.Close()
 		d.kern = gocv.GetStructuringElement(gocv.MorphEllipse, image.Pt(3, 3))
+		d.close.Close()
+		d.close = gocv.GetStructuringElement(gocv.MorphRect, image.Pt(9, 9))
 		d.allocated = true
 	}
 	size := image.Pt(w, h)
@@ -238,17 +243,14 @@ func (d *MoverDetector) Detect(prev, last gocv.Mat, cam Camera, m filter.Motion,
 		}
 	}
 	gocv.AbsDiff(d.comp, d.b, &d.diff)
-	var res []byte
-	if residual != nil && residual.Rows() == h && residual.Cols() == w && residual.Type() == gocv.MatTypeCV8U {
-		if res, err = residual.DataPtrUint8(); err != nil {
-			res = nil
-		}
-	}
 	thr := cmp0(o.Threshold, DefaultMoverThreshold)
 	gocv.Threshold(d.diff, &d.diff, float32(thr), 255, gocv.ThresholdBinary)
 	gocv.MorphologyEx(d.diff, &d.diff, gocv.MorphOpen, d.kern)
 	gocv.Dilate(d.diff, &d.diff, d.kern)
 	gocv.Dilate(d.diff, &d.diff, d.kern)
+	// A uniformly coloured thing changes only at its edges: close gaps of
+	// up to 9 low-resolution pixels so its edges make one region.
+	gocv.MorphologyEx(d.diff, &d.diff, gocv.MorphClose, d.close)
 	n := gocv.ConnectedComponentsWithStats(d.diff, &d.labels, &d.stats, &d.cents)
 	minArea := float64(cmp0(o.MinAreaPx, DefaultMoverMinAreaPx)) * s * sy
 	bp, err := d.b.DataPtrUint8()
@@ -266,11 +268,10 @@ func (d *MoverDetector) Detect(prev, last gocv.Mat, cam Camera, m filter.Motion,
 		y := int(d.stats.GetIntAt(i, int(gocv.CC_STAT_TOP)))
 		bw := int(d.stats.GetIntAt(i, int(gocv.CC_STAT_WIDTH)))
 		bh := int(d.stats.GetIntAt(i, int(gocv.CC_STAT_HEIGHT)))
-		area := d.stats.GetIntAt(i, int(gocv.CC_STAT_AREA))
-		if float64(area) < minArea {
+		if float64(bw*bh) < minArea {
 			continue
 		}
-		if res != nil && !unexplained(d.labels, res, w, i, image.Rect(x, y, x+bw, y+bh), thr, area) {
+		if static != nil && static.Explains(d.labels, int32(i), image.Rect(x, y, x+bw, y+bh), thr) {
 			continue
 		}
 		// The region holds the thing at both places; its content in the
@@ -298,22 +299,6 @@ func (d *MoverDetector) Detect(prev, last gocv.Mat, cam Camera, m filter.Motion,
 		model.Movers = append(model.Movers, Mover{Box: box, VxPxPerS: vx, VyPxPerS: vy})
 	}
 	return nil
-}
-
-// unexplained reports whether at least a third of region i's pixels (label
-// image labels, CV_32S) keep a residual above thr under every static
-// surface hypothesis (res, see UprightEstimator.Residual): a region that
-// some static surface explains is parallax, not motion.
-func unexplained(labels gocv.Mat, res []byte, w, i int, box image.Rectangle, thr int, area int32) bool {
-	n := 0
-	for y := box.Min.Y; y < box.Max.Y; y++ {
-		for x := box.Min.X; x < box.Max.X; x++ {
-			if int(labels.GetIntAt(y, x)) == i && int(res[y*w+x]) > thr {
-				n++
-			}
-		}
-	}
-	return 3*n >= int(area)
 }
 
 // bestShift returns the shift (dx, dy), in low-resolution pixels, within

@@ -5,6 +5,7 @@ import (
 	"image"
 	"math"
 	"slices"
+	"unsafe"
 
 	"gocv.io/x/gocv"
 
@@ -194,6 +195,13 @@ type UprightEstimator struct {
 	hm        gocv.Mat
 	minRes    gocv.Mat // least local |difference| over all hypotheses, per low-resolution pixel
 	blur      gocv.Mat // scratch: one hypothesis's local |difference|
+	// hypRes[k] is hypothesis k's local |difference| where it was
+	// compared, 255 elsewhere (0 road, 1 far, 2+ planes[k-2]); used to
+	// ask which static surface could explain a region (Explains).
+	hypRes    []gocv.Mat
+	cam       Camera
+	sx, sy    float64  // low-resolution scale of the last Estimate
+	adm       [][]byte // scratch of Explains
 	haveRes   bool
 	allocated bool
 	sums      [][]float64 // per hypothesis: band-major row sums of |diff|
@@ -215,6 +223,10 @@ func (e *UprightEstimator) Close() error {
 		for _, m := range []*gocv.Mat{&e.a, &e.b, &e.tmp, &e.warped, &e.diff, &e.hm, &e.minRes, &e.blur} {
 			m.Close()
 		}
+		for i := range e.hypRes {
+			e.hypRes[i].Close()
+		}
+		e.hypRes = e.hypRes[:0]
 		e.allocated = false
 	}
 	return nil
@@ -309,6 +321,10 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 		e.sums = append(e.sums, nil)
 		e.pre = append(e.pre, nil)
 	}
+	for len(e.hypRes) < nh {
+		e.hypRes = append(e.hypRes, gocv.NewMat())
+	}
+	e.cam, e.sx, e.sy = cam, s, sy
 	bandLo := make([]int, nb+1) // low-res column edges of the bands (small, once per gap)
 	for b := 0; b <= nb; b++ {
 		bandLo[b] = min(w, int(math.Round(float64(min(b*bandPx, cam.Width))*s)))
@@ -347,6 +363,12 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 				}
 			}
 		}
+		hr := &e.hypRes[k]
+		if hr.Rows() != h || hr.Cols() != w || hr.Type() != gocv.MatTypeCV8U {
+			hr.Close()
+			*hr = gocv.NewMatWithSize(h, w, gocv.MatTypeCV8U)
+		}
+		hr.SetTo(gocv.NewScalar(255, 0, 0, 0))
 		sums := e.sums[k][:0]
 		for range nb * h {
 			sums = append(sums, 0)
@@ -367,6 +389,9 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 		// matched by some wrong hypothesis).
 		bl := e.blur.Region(rect)
 		gocv.Blur(dr, &bl, image.Pt(7, 7))
+		hrr := hr.Region(rect)
+		bl.CopyTo(&hrr)
+		hrr.Close()
 		if k == 0 {
 			bl.CopyTo(&e.minRes)
 		} else {
@@ -502,4 +527,70 @@ func sortFarToNear(s []UprightSegment) {
 		}
 		return 0
 	})
+}
+
+// Explains reports whether, after an Estimate that compared the frames,
+// some static surface that could stand where a changed region stands
+// explains at least two thirds of it: region is the region's pixels
+// (label image labels, CV_32S, of the estimate's low-resolution size, value
+// id) inside box (low-resolution pixels), thr the grey level above which a
+// local residual is unexplained. A surface can stand there when its base
+// meets the region's bottom: the road always; the far scene only for a
+// region whose bottom is above the horizon; a vertical plane only if its
+// base line passes within max(3 low-resolution px, 30 % of the region's
+// height) of the region's bottom at the box's centre column. Without that
+// condition, a thing moving along the line of sight (an oncoming car, a car
+// ahead) is matched by a static surface at another distance, whose base is
+// elsewhere on the road.
+func (e *UprightEstimator) Explains(labels gocv.Mat, id int32, box image.Rectangle, thr int) bool {
+	if !e.allocated || !e.haveRes {
+		return false
+	}
+	lb, err := labels.DataPtrUint8()
+	w := labels.Cols()
+	if err != nil || labels.Type() != gocv.MatTypeCV32S || len(e.hypRes) == 0 || w != e.hypRes[0].Cols() || labels.Rows() != e.hypRes[0].Rows() {
+		return false
+	}
+	lab := unsafe.Slice((*int32)(unsafe.Pointer(&lb[0])), w*labels.Rows())
+	s, sy := e.sx, e.sy
+	uc := (float64(box.Min.X+box.Max.X)/2+0.5)/s - 0.5
+	vb := (float64(box.Max.Y-1)+0.5)/sy - 0.5
+	tol := math.Max(3, 0.3*float64(box.Dy())) / sy
+	hzRow, hzOK := e.cam.Horizon().RowAt(uc)
+	// The admissible hypotheses' residual images (e.adm is reused).
+	e.adm = e.adm[:0]
+	for k := 0; k < min(len(e.hypRes), 2+len(e.planes)); k++ {
+		ok := false
+		switch {
+		case k == 0:
+			ok = true
+		case k == 1:
+			ok = hzOK && vb < hzRow+tol
+		default:
+			r, on := rowOn(e.cam.baseLine(e.planes[k-2]), uc)
+			ok = on && math.Abs(r-vb) <= tol
+		}
+		if ok {
+			if p, err := e.hypRes[k].DataPtrUint8(); err == nil {
+				e.adm = append(e.adm, p)
+			}
+		}
+	}
+	area, bad := 0, 0
+	for y := box.Min.Y; y < box.Max.Y; y++ {
+		for x := box.Min.X; x < box.Max.X; x++ {
+			if lab[y*w+x] != id {
+				continue
+			}
+			area++
+			least := byte(255)
+			for _, p := range e.adm {
+				least = min(least, p[y*w+x])
+			}
+			if int(least) > thr {
+				bad++
+			}
+		}
+	}
+	return area > 0 && 3*bad < area
 }

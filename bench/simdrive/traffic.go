@@ -85,7 +85,7 @@ func (sc *scene) placeTraffic(tr *trajectory, durationS float64, seed int64) {
 		c := colours[rng.IntN(len(colours))]
 		tex := gocv.NewMatWithSizeFromScalar(gocv.NewScalar(c[0], c[1], c[2], 0), 68, 20, gocv.MatTypeCV8UC3)
 		gocv.Rectangle(&tex, image.Rect(5, 0, 15, 10), color.RGBA{R: 210, G: 160, B: 130}, -1) // head
-		gocv.Rectangle(&tex, image.Rect(0, 38, 20, 68), color.RGBA{R: 35, G: 35, B: 60}, -1)  // legs
+		gocv.Rectangle(&tex, image.Rect(0, 38, 20, 68), color.RGBA{R: 35, G: 35, B: 60}, -1)   // legs
 		levels := pyramid(&tex)
 		sc.textures = append(sc.textures, tex)
 		sc.textures = append(sc.textures, levels[1:]...)

@@ -230,8 +230,9 @@ func printSummaryBody(w io.Writer, s bench.Summary) {
 		fmt.Fprintln(w, "PREDICTED ticks alone: none scored")
 	}
 	if mk := s.Marks; mk != nil {
-		fmt.Fprintf(w, "marks of things that moved, PREDICTED ticks up to %g ms: %d, recall %.2f, precision %.2f (all ages: %d, recall %.2f, precision %.2f)\n",
-			mk.AgeLimitMs, mk.Ticks, float64(mk.RecallMean), float64(mk.PrecisionMean), mk.TicksAll, float64(mk.RecallMeanAll), float64(mk.PrecisionMeanAll))
+		fmt.Fprintf(w, "marks of things that moved, PREDICTED ticks up to %g ms: %d, recall %.2f, precision %.2f (pooled over pixels %.2f, %.2f; all ages: %d ticks, %.2f, %.2f)\n",
+			mk.AgeLimitMs, mk.Ticks, float64(mk.RecallMean), float64(mk.PrecisionMean), float64(mk.RecallPooled), float64(mk.PrecisionPooled),
+			mk.TicksAll, float64(mk.RecallMeanAll), float64(mk.PrecisionMeanAll))
 	}
 	for _, c := range []bench.Calibration{s.Calibration, s.CalibrationTruth} {
 		if c.Frames > 0 {
