@@ -73,13 +73,14 @@ type Mover struct {
 
 // Zone returns where the mover could be ageMs after the held frame: the
 // bounding box of Box and Box moved by velocity · age, grown on every side
-// by a quarter of that displacement plus DefaultMoverMinSpeedPxPerS · age /
-// 4 (the uncertainty of the speed and of its direction; design choices).
+// by a quarter of that displacement, or of DefaultMoverMinSpeedPxPerS · age
+// if that is more (the uncertainty of the speed and of its direction,
+// growing with the apparent speed; design choices).
 func (m Mover) Zone(ageMs float64) image.Rectangle {
 	a := ageMs / 1000
 	dx, dy := m.VxPxPerS*a, m.VyPxPerS*a
 	moved := m.Box.Add(image.Pt(int(math.Round(dx)), int(math.Round(dy))))
-	g := int(math.Ceil(0.25*math.Hypot(dx, dy) + 0.25*DefaultMoverMinSpeedPxPerS*a))
+	g := int(math.Ceil(0.25 * math.Max(math.Hypot(dx, dy), DefaultMoverMinSpeedPxPerS*a)))
 	return m.Box.Union(moved).Inset(-g)
 }
 
@@ -280,6 +281,11 @@ func (d *MoverDetector) Detect(prev, last gocv.Mat, cam Camera, m filter.Motion,
 		// trailing part.
 		sx, sy0 := bestShift(cp, bp, lab, int32(i), w, h, image.Rect(x, y, x+bw, y+bh), 8)
 		lx0, lx1, ly0, ly1 := x, x+bw, y, y+bh
+		// The two dilations grew the region by 2 px on every side: take
+		// them back, so the mark is as tight as the change.
+		if bw > 6 && bh > 6 {
+			lx0, lx1, ly0, ly1 = lx0+2, lx1-2, ly0+2, ly1-2
+		}
 		if sx > 0 && sx < bw/2 { // moved left: drop the right end
 			lx1 -= sx
 		} else if sx < 0 && -sx < bw/2 {

@@ -117,6 +117,11 @@ func TestMoversOnVtest(t *testing.T) {
 	if changed == 0 || recall < 0.8 {
 		t.Errorf("recall %.3f over %.0f changed pixels, want >= 0.8", recall, changed)
 	}
+	// Measured 0.30 (marks as tight as the change, zones grown from the
+	// apparent speed); 0.25 with the earlier fixed margins.
+	if precision < 0.28 {
+		t.Errorf("precision %.3f, want >= 0.28", precision)
+	}
 }
 
 // TestFillerMarksMover: a block that moved between the two real frames
