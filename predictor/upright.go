@@ -202,6 +202,7 @@ type UprightEstimator struct {
 	cam       Camera
 	sx, sy    float64  // low-resolution scale of the last Estimate
 	adm       [][]byte // scratch of Explains
+	bandLo    []int    // scratch of Estimate
 	haveRes   bool
 	allocated bool
 	sums      [][]float64 // per hypothesis: band-major row sums of |diff|
@@ -325,10 +326,12 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 		e.hypRes = append(e.hypRes, gocv.NewMat())
 	}
 	e.cam, e.sx, e.sy = cam, s, sy
-	bandLo := make([]int, nb+1) // low-res column edges of the bands (small, once per gap)
+	// Low-resolution column edges of the bands (scratch, reused).
+	e.bandLo = e.bandLo[:0]
 	for b := 0; b <= nb; b++ {
-		bandLo[b] = min(w, int(math.Round(float64(min(b*bandPx, cam.Width))*s)))
+		e.bandLo = append(e.bandLo, min(w, int(math.Round(float64(min(b*bandPx, cam.Width))*s))))
 	}
+	bandLo := e.bandLo
 	hz := cam.Horizon()
 	for k := 0; k < nh; k++ {
 		var hf Homography
