@@ -90,3 +90,23 @@ func (f *Filler) WarpAsShown(src gocv.Mat, m filter.Motion, dst *gocv.Mat) (Synt
 	d := f.farDepthFor()
 	return f.synth.SynthesizeScene(src, m, d, f.uprightModel(d), dst)
 }
+
+// Prepare makes now, if not made yet, the per-gap estimates for the held
+// frame that a gap's first PREDICTED tick would otherwise make: the far
+// depth, the upright structure and the movers, from the held frame and the
+// one before it. It changes nothing the ticks show (they use the same
+// estimates either way); it only moves their cost. Call it right after
+// Live has taken a new frame and the frame is on its way to the display,
+// so a gap's first predicted frame costs no more than the next one: the
+// estimates cost about as much as several frames' warps (see
+// BenchmarkGapVsBare1280x720, "prepare/bare"), so calling it for every real
+// frame spends that on every frame. Without a frame before the held one it
+// does nothing.
+func (f *Filler) Prepare() {
+	if f.closed || !f.have || !f.havePrev {
+		return
+	}
+	d := f.farDepthFor()
+	up := f.uprightModel(d)
+	f.moverModel(d, up)
+}

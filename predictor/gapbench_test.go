@@ -91,6 +91,10 @@ func TestFillerFarDepthSweepFindsScene(t *testing.T) {
 // starts a new gap, and the far scene is at a finite depth (25 m), so the
 // sweep and the translating far warp run as they do on a real drive. It
 // reports the medians and the ratios "first/bare" and "steady/bare".
+// Every other iteration calls Filler.Prepare when the held frame has
+// arrived (as a caller does once the frame is on its way to the display):
+// "prepare/bare" is its cost and "prepared-first/bare" the first tick
+// after it, which then makes no estimate.
 func BenchmarkGapVsBare1280x720(b *testing.B) {
 	pinOneThread(b)
 	c := benchCam()
@@ -111,6 +115,7 @@ func BenchmarkGapVsBare1280x720(b *testing.B) {
 	tb := make([]time.Duration, 0, b.N)
 	tf := make([]time.Duration, 0, b.N)
 	ts := make([]time.Duration, 0, b.N)
+	var tp, tfp []time.Duration // Prepare, and the first tick after it
 	// One gap untimed first, so the scratch slices have grown and
 	// allocs/op is the steady state.
 	for k, tUs := range []int64{-2_000_000, -2_000_000 + gapFramePeriodUs} {
@@ -131,6 +136,12 @@ func BenchmarkGapVsBare1280x720(b *testing.B) {
 		if _, err := f.Live(last, t0+gapFramePeriodUs, &dst); err != nil {
 			b.Fatal(err)
 		}
+		prepared := i%2 == 1
+		if prepared { // the estimates made when the held frame arrived
+			p0 := time.Now()
+			f.Prepare()
+			tp = append(tp, time.Since(p0))
+		}
 		s0 := time.Now()
 		gocv.WarpPerspectiveWithParams(prev, &bare, m, image.Pt(c.Width, c.Height), gocv.InterpolationLinear, gocv.BorderConstant, neutralFill)
 		s1 := time.Now()
@@ -145,7 +156,11 @@ func BenchmarkGapVsBare1280x720(b *testing.B) {
 			b.Fatalf("second gap tick %+v %v", steady, err)
 		}
 		tb = append(tb, s1.Sub(s0))
-		tf = append(tf, s2.Sub(s1))
+		if prepared {
+			tfp = append(tfp, s2.Sub(s1))
+		} else {
+			tf = append(tf, s2.Sub(s1))
+		}
 		ts = append(ts, s3.Sub(s2))
 	}
 	b.StopTimer()
@@ -155,4 +170,8 @@ func BenchmarkGapVsBare1280x720(b *testing.B) {
 	b.ReportMetric(float64(ms.Nanoseconds()), "steady-ns")
 	b.ReportMetric(float64(mf)/float64(mb), "first/bare")
 	b.ReportMetric(float64(ms)/float64(mb), "steady/bare")
+	if len(tp) > 0 {
+		b.ReportMetric(float64(median(tfp))/float64(mb), "prepared-first/bare")
+		b.ReportMetric(float64(median(tp))/float64(mb), "prepare/bare")
+	}
 }
