@@ -54,6 +54,11 @@
 // horizon; posts and facades are textured vertical quads drawn far to near
 // after clipping to a near plane. Everything is deterministic for a seed.
 //
+// With Config.Traffic the street has moving road users (see placeTraffic),
+// drawn as textured upright faces in the same painter's order, and each
+// frame's exact mask of where they are visible is written to
+// movers/NNNNNN.png (MoverMaskPath).
+//
 // Frames are JPEG at quality 92 by default (visually near-lossless at a
 // fraction of PNG's size; the codec's own blocking is then part of the
 // data, as with a real camera's compressed stream).
