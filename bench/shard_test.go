@@ -120,7 +120,7 @@ func FuzzReadTicksCSV(f *testing.F) {
 	h := strings.Join(TicksCSVHeader(), ",") + "\n"
 	f.Add(h)
 	f.Add(h + "0,0,LIVE,0,1" + strings.Repeat(",", len(TicksCSVHeader())-5) + "\n")
-	f.Add(h + "1,33,PREDICTED,33.3,0.5,20,0.9,3,21,0.91,2.5,inf,1,0,2,0.01,0.02,21,0.91,2.5,0.4,0.3,1.9,2.1\n")
+	f.Add(h + "1,33,PREDICTED,33.3,0.5,20,0.9,3,21,0.91,2.5,inf,1,0,2,0.01,0.02,21,0.91,2.5,0.4,0.3,1.9,2.1,0.5,0.4,0.01,0.0125\n")
 	f.Fuzz(func(t *testing.T, s string) {
 		rows, err := ReadTicksCSV(strings.NewReader(s), "f")
 		if err != nil {
