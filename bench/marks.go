@@ -98,8 +98,8 @@ func (a *markAcc) summary() *MarkSummary {
 // markScorer scores the marks of one tick against the drive's masks. It
 // owns its scratch images (Close frees them).
 type markScorer struct {
-	drive                                string
-	held, target, bgr, warped, truth, mk gocv.Mat
+	drive                                     string
+	held, target, bgr, warped, truth, mk, hit gocv.Mat
 }
 
 // newMarkScorer returns a scorer for drive, or nil when the drive has no
@@ -117,14 +117,14 @@ func newMarkScorer(drive string) (*markScorer, error) {
 			filepath.Join(drive, simdrive.MoverMaskDir), ErrReplayInput)
 	}
 	return &markScorer{drive: drive, held: gocv.NewMat(), target: gocv.NewMat(), bgr: gocv.NewMat(), warped: gocv.NewMat(),
-		truth: gocv.NewMat(), mk: gocv.NewMat()}, nil
+		truth: gocv.NewMat(), mk: gocv.NewMat(), hit: gocv.NewMat()}, nil
 }
 
 func (s *markScorer) Close() {
 	if s == nil {
 		return
 	}
-	for _, m := range []*gocv.Mat{&s.held, &s.target, &s.bgr, &s.warped, &s.truth, &s.mk} {
+	for _, m := range []*gocv.Mat{&s.held, &s.target, &s.bgr, &s.warped, &s.truth, &s.mk, &s.hit} {
 		m.Close()
 	}
 }
@@ -189,8 +189,8 @@ func (s *markScorer) score(row *TickRow, f *predictor.Filler, cam predictor.Came
 		}
 	}
 	changed, marked := gocv.CountNonZero(s.truth), gocv.CountNonZero(s.mk)
-	gocv.BitwiseAnd(s.truth, s.mk, &s.warped)
-	hit := gocv.CountNonZero(s.warped)
+	gocv.BitwiseAnd(s.truth, s.mk, &s.hit)
+	hit := gocv.CountNonZero(s.hit)
 	row.MarkRecall, row.MarkPrecision = math.NaN(), math.NaN()
 	if changed > 0 {
 		row.MarkRecall = float64(hit) / float64(changed)

@@ -98,6 +98,13 @@ func (s *scene) Close() {
 			m.Close()
 		}
 	}
+	for _, u := range s.traffic {
+		for _, q := range u.faces {
+			for _, m := range q.levels {
+				m.Close()
+			}
+		}
+	}
 	for _, m := range s.textures {
 		m.Close()
 	}
