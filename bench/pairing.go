@@ -10,6 +10,7 @@ import (
 
 	"gocv.io/x/gocv"
 
+	"stopgap/display"
 	"stopgap/stream/recording"
 )
 
@@ -47,7 +48,7 @@ type PairingReport struct {
 	TelemetrySessionOnly int `json:"telemetry_session_only"`
 	TelemetryValueDiffs  int `json:"telemetry_value_diffs"`
 	// ReferenceTicks counts the relay's recorded ticks compared with the
-	// replay's (SKIPPED ticks, never shown, are counted apart in
+	// replay's (NOT_SHOWN ticks, never on screen, are counted apart in
 	// ReferenceSkipped); Agree those with the same state. Differences
 	// lists every tick where they disagree.
 	ReferenceTicks   int              `json:"reference_ticks"`
@@ -452,16 +453,16 @@ func compareReference(ref map[int]recording.SessionTick, rows []TickRow, rep *Pa
 		if !ok {
 			continue
 		}
-		if t.State == "SKIPPED" {
+		if t.State == display.StateNotShown {
 			rep.ReferenceSkipped++
 			continue
 		}
 		rep.ReferenceTicks++
-		if t.State == r.State {
+		if t.State.String() == r.State {
 			rep.Agree++
 			continue
 		}
-		rep.Differences = append(rep.Differences, TickDifference{Tick: k, Relay: t.State, Replay: r.State,
+		rep.Differences = append(rep.Differences, TickDifference{Tick: k, Relay: t.State.String(), Replay: r.State,
 			RelayConfidence: t.Confidence, ReplayConfidence: Float(r.Confidence), RelayCutoff: t.Cutoff,
 			RelayAgeMs: t.AgeMs, ReplayAgeMs: r.AgeMs})
 	}

@@ -83,9 +83,9 @@ func TestFillerSequence(t *testing.T) {
 	frame := noiseFrame(t, c.Width, c.Height, 11)
 	defer frame.Close()
 
-	// Before any real frame: labelled "no picture", STALE, ErrNoFrame.
+	// Before any real frame: labelled "no picture", NO_PICTURE, ErrNoFrame.
 	tk, err := f.Missing(500_000, &dst)
-	if !errors.Is(err, ErrNoFrame) || tk.State != StateStale || dst.Cols() != c.Width || tk.LabelFraction <= 0 {
+	if !errors.Is(err, ErrNoFrame) || tk.State != StateNoPicture || dst.Cols() != c.Width || tk.LabelFraction <= 0 {
 		t.Fatalf("before first frame: %+v, %v", tk, err)
 	}
 

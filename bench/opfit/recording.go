@@ -11,6 +11,7 @@ import (
 	"strconv"
 	"strings"
 
+	"stopgap/display"
 	"stopgap/stream/operator"
 	"stopgap/stream/recording"
 	"stopgap/stream/relay"
@@ -190,7 +191,7 @@ func readTicks(path string, rec *recording.Recording) ([]Tick, error) {
 		if len(f) < len(col) {
 			return nil, bad("too few fields")
 		}
-		if f[col["state"]] == "SKIPPED" {
+		if f[col["state"]] == display.StateNotShown.String() {
 			continue
 		}
 		shown, err := ParseShown(f[col["state"]])

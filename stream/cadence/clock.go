@@ -132,6 +132,8 @@ type ClockStats struct {
 // the frames so far, frozen after the first LatencyFrames frames. Real
 // capture times feed the latency; grid times place the ticks.
 //
+//   - Frames are handed in decoding order; a frame is ready no earlier than
+//     the one handed before it.
 //   - Frame k is LIVE if it is ready by d_k (ready == d_k is in time). It is
 //     shown at once; the allowance adds no latency to LIVE frames.
 //   - A tick whose deadline has passed without its frame, or whose frame
@@ -163,6 +165,7 @@ type Clock struct {
 	offset  int // tick = grid tick + offset
 	next    int // lowest tick not yet decided
 
+	readyUs  int64 // ready time of the newest frame handed in
 	latUs    int64
 	latKnown bool
 	lat      [LatencyFrames]int64 // sorted samples of (ready - capture)
@@ -294,6 +297,13 @@ func (c *Clock) FrameAt(h Handler, k int, captureUs, readyUs int64) Frame {
 }
 
 func (c *Clock) frame(h Handler, k int, captureUs, readyUs int64) Frame {
+	// Frames are handed in decoding order: a frame handed after another
+	// was not ready before it (a receiver clock that reads earlier has
+	// stepped back).
+	if c.stats.Frames > 0 && readyUs < c.readyUs {
+		readyUs = c.readyUs
+	}
+	c.readyUs = readyUs
 	c.stats.Frames++
 	if !c.latKnown {
 		c.addLatency(readyUs - captureUs)

@@ -11,6 +11,7 @@ import (
 	"time"
 
 	"stopgap/bench"
+	"stopgap/display"
 	"stopgap/predictor"
 	"stopgap/stream/console/consoletest"
 	"stopgap/stream/recording"
@@ -149,7 +150,7 @@ func TestOutage500ms(t *testing.T) {
 			if !ok {
 				continue
 			}
-			if ls == "SKIPPED" {
+			if ls == display.StateNotShown.String() {
 				skipped++
 				continue
 			}
@@ -167,7 +168,7 @@ func TestOutage500ms(t *testing.T) {
 			t.Fatal("no tick in both the live and the replayed ticks.csv")
 		}
 		agree, liveAgree := float64(same)/float64(both), float64(liveSame)/float64(both)
-		t.Logf("replay vs live over %d ticks (%d SKIPPED left out): state agreement %.1f%%, LIVE/not-LIVE agreement %.1f%%; first differences %v",
+		t.Logf("replay vs live over %d ticks (%d NOT_SHOWN left out): state agreement %.1f%%, LIVE/not-LIVE agreement %.1f%%; first differences %v",
 			both, skipped, 100*agree, 100*liveAgree, diffs)
 		if t.Failed() || agree < 0.95 || liveAgree < 0.98 {
 			arr, err := recording.ReadArrivals(filepath.Join(r.recordDir, "arrivals.csv"))

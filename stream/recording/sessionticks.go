@@ -3,6 +3,8 @@ package recording
 import (
 	"fmt"
 	"os"
+
+	"stopgap/display"
 )
 
 // TicksFile is the file in a live session's recording directory that lists
@@ -24,15 +26,12 @@ const (
 
 // SessionTick is one row of a session's TicksFile.
 type SessionTick struct {
-	Tick       int     // frames.csv index of the tick
-	State      string  // LIVE, PREDICTED, STALE or SKIPPED
-	AgeMs      float64 // age of the shown picture, ms
-	Confidence float64 // confidence in [0, 1]
-	Cutoff     float64 // the operator's cutoff at that tick
+	Tick       int           // frames.csv index of the tick
+	State      display.State // what the operator was shown (display.State's names)
+	AgeMs      float64       // age of the shown picture, ms
+	Confidence float64       // confidence in [0, 1]
+	Cutoff     float64       // the operator's cutoff at that tick
 }
-
-// sessionTickStates are the states a TicksFile row may carry.
-var sessionTickStates = map[string]bool{"LIVE": true, "PREDICTED": true, "STALE": true, "SKIPPED": true}
 
 // ReadSessionTicks reads a session's TicksFile strictly (a [*ParseError]
 // names file, line and column), except that an incomplete last line left by
@@ -55,18 +54,19 @@ func decodeSessionTicks(file string, data []byte) ([]SessionTick, []string, erro
 	seen := map[int64]int{}
 	warns, _, err := eachRow(t, func(rr *rowReader) {
 		k := rr.int64(colTick)
-		st, col, _ := rr.value(colState, true)
+		name, col, _ := rr.value(colState, true)
 		age, _ := rr.optFloat(colAgeMs, false)
 		conf, _ := rr.optFloat(colConfidence, false)
 		cut, _ := rr.optFloat(colCutoff, false)
 		if rr.err != nil {
 			return
 		}
+		st, stErr := display.ParseState(name)
 		switch {
 		case k < 0:
 			rr.fail(rr.colOf(colTick), fmt.Errorf("%w: tick %d is negative", ErrIndex, k))
-		case !sessionTickStates[st]:
-			rr.fail(col, fmt.Errorf("%w: state %q; want LIVE, PREDICTED, STALE or SKIPPED", ErrSyntax, st))
+		case stErr != nil:
+			rr.fail(col, fmt.Errorf("%w: %w", ErrSyntax, stErr))
 		default:
 			if line, dup := seen[k]; dup {
 				rr.fail(rr.colOf(colTick), fmt.Errorf("%w: tick %d already listed on line %d", ErrIndex, k, line))

@@ -12,6 +12,7 @@ import (
 
 	"gocv.io/x/gocv"
 
+	"stopgap/display"
 	"stopgap/stream/recording"
 )
 
@@ -37,7 +38,7 @@ type recMsg struct {
 	deadlineUs int64
 	arrivalUs  int64
 	rtpTS      uint32
-	state      string
+	state      display.State
 	ageMs      float64
 	confidence float64
 	cutoff     float64
@@ -125,7 +126,7 @@ func (rc *recorder) send(m recMsg) {
 	}
 }
 
-func (rc *recorder) tick(index int, captureUs, deadlineUs int64, state string, ageMs, confidence, cutoff float64) {
+func (rc *recorder) tick(index int, captureUs, deadlineUs int64, state display.State, ageMs, confidence, cutoff float64) {
 	if index < 0 {
 		return
 	}
@@ -209,7 +210,7 @@ func (rc *recorder) onTick(m recMsg) {
 	b := rc.line[:0]
 	b = strconv.AppendInt(b, int64(m.index), 10)
 	b = append(b, ',')
-	b = append(b, m.state...)
+	b = append(b, m.state.String()...)
 	b = append(b, ',')
 	b = strconv.AppendFloat(b, m.ageMs, 'f', 3, 64)
 	b = append(b, ',')
