@@ -432,4 +432,3 @@ func (c *Clock) feed(h Handler, untilUs int64) {
 	}
 	c.pend = c.pend[:n]
 }
-

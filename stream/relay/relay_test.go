@@ -14,8 +14,8 @@ import (
 
 	"stopgap/bench"
 	"stopgap/predictor"
-	"stopgap/stream/console"
 	"stopgap/stream/cadence"
+	"stopgap/stream/console"
 	"stopgap/stream/recording"
 )
 
