@@ -320,6 +320,7 @@ func (c *Clock) frame(h Handler, k int, captureUs, readyUs int64) Frame {
 			// between); on a starved CPU later ticks may have been filled
 			// without it too. The display had no frame until now.
 			arrival = d + 1
+			c.readyUs = arrival
 		}
 		return Frame{Tick: Tick{K: k, TargetUs: c.TargetUs(k), DeadlineUs: c.DeadlineUs(k), Policy: c.pol}, ArrivalUs: arrival}
 	}
