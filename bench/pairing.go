@@ -125,7 +125,7 @@ func indexInput(cfg ReplayConfig, rec *recording.Recording, width, height int) (
 	in.whyNoTruth = func(int) (string, string) {
 		return "lost on the live link, so missing from its recording too", how
 	}
-	if ticks := filepath.Join(rec.Dir, recording.TicksFile); cfg.ArrivalsFile != "" && fileExists(ticks) {
+	if ticks := filepath.Join(rec.Dir, recording.ShownFile); cfg.ArrivalsFile != "" && fileExists(ticks) {
 		in.reference, err = readReference(ticks, nil, cfg.Logger)
 		if err != nil {
 			in.frames.Close()
@@ -301,7 +301,7 @@ func pairedInput(cfg ReplayConfig, onboard, sess *recording.Recording, arrivals 
 				rep.TelemetrySessionOnly++
 			}
 		}
-		if ticks := filepath.Join(sess.Dir, recording.TicksFile); fileExists(ticks) {
+		if ticks := filepath.Join(sess.Dir, recording.ShownFile); fileExists(ticks) {
 			if in.reference, err = readReference(ticks, rows, log); err != nil {
 				return replayInput{}, err
 			}
@@ -416,7 +416,7 @@ func checkPairingByImage(sess, onboard *recording.Recording, rows []recording.Se
 		votesAgainst, votesFor+votesAgainst, s.Index, s.CaptureUs, p.Onboard[firstBad]+firstShift, p.Onboard[firstBad], recording.ErrPairing)
 }
 
-// readReference reads the relay's ticks.csv and keys it by replay tick
+// readReference reads the relay's shown.csv and keys it by replay tick
 // (rows, if given, maps replay tick k to session index rows[k].Index).
 func readReference(path string, rows []recording.SessionFrame, log *slog.Logger) (map[int]recording.SessionTick, error) {
 	ticks, warns, err := recording.ReadSessionTicks(path)

@@ -24,6 +24,7 @@ import (
 	"gonum.org/v1/plot/vg/draw"
 
 	"stopgap/display"
+	"stopgap/stream/recording"
 )
 
 // Method is a way of filling a display tick whose real frame is missing.
@@ -600,7 +601,7 @@ type Example struct {
 // Report file names inside the destination directory.
 const (
 	SummaryFile   = "summary.json"
-	TicksFile     = "ticks.csv"
+	TicksFile     = recording.ReplayTicksFile
 	PSNRPlotFile  = "psnr_vs_age.png"
 	SSIMPlotFile  = "ssim_vs_age.png"
 	HTMLFile      = "report.html"

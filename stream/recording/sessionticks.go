@@ -7,13 +7,24 @@ import (
 	"stopgap/display"
 )
 
-// TicksFile is the file in a live session's recording directory that lists
-// what the operator was shown, one row per display tick: header
-// "tick,state,age_ms,confidence,cutoff", tick = frames.csv index, state
-// LIVE, PREDICTED, STALE, or SKIPPED for a tick superseded by a newer frame
-// and not shown. The live relay writes it; a replay of the session compares
-// its own decisions with it.
-const TicksFile = "ticks.csv"
+// The two per-tick tables. Their names live here, beside the recording's
+// other file names (CameraFile and the rest), so that no two files of the
+// project share one.
+const (
+	// ShownFile is the live relay's per-tick table in a session's
+	// recording directory: what the operator was shown, one row per
+	// display tick, header "tick,state,age_ms,confidence,cutoff"; tick =
+	// frames.csv index, state a display.State name (NOT_SHOWN for a tick
+	// decided but not put on screen), age_ms the age of the real picture
+	// behind it, confidence in [0, 1], cutoff the operator's cutoff the
+	// tick was decided with. A replay of the session compares its own
+	// decisions with it (ReadSessionTicks).
+	ShownFile = "shown.csv"
+	// ReplayTicksFile is the replay's per-tick table in a report
+	// directory (bench.TicksCSVHeader gives its columns): what the replay
+	// decided on every tick and the scores of each method.
+	ReplayTicksFile = "ticks.csv"
+)
 
 // Column names of TicksFile.
 const (

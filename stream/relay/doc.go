@@ -63,7 +63,7 @@
 // display loop only after its tick was filled; blank = never arrived), plus
 // t_capture_us (c_k again) and rtp_timestamp (the RTP timestamp the frame
 // arrived with, blank if it never did), which pair the session with the
-// vehicle's onboard recording; telemetry.csv with t_arrival_us; and TicksFile (ticks.csv)
+// vehicle's onboard recording; telemetry.csv with t_arrival_us; and ShownFile (shown.csv)
 // with what the relay showed. Rows are written by a separate goroutine so JPEG
 // encoding and fsyncs never delay the display. Recording starts at the first
 // tick whose capture time is on the vehicle clock (after the first sender

@@ -16,12 +16,9 @@ import (
 	"stopgap/stream/recording"
 )
 
-// TicksFile is the file in a recording directory that lists what the relay
-// showed: one row per display tick, header "tick,state,age_ms,confidence,cutoff"
-// (tick = frames.csv index; state LIVE, PREDICTED, STALE, or SKIPPED for a
-// tick superseded by an earlier-arriving newer frame and not shown).
-// recording.ReadSessionTicks reads it.
-const TicksFile = recording.TicksFile
+// ShownFile is the file in a recording directory that lists what the relay
+// showed, one row per display tick (see recording.ShownFile).
+const ShownFile = recording.ShownFile
 
 const ticksHeader = "tick,state,age_ms,confidence,cutoff\n"
 
@@ -95,7 +92,7 @@ func newRecorder(cfg Config, met *metrics) (*recorder, error) {
 	if err != nil {
 		return nil, fmt.Errorf("relay: recording: %w", err)
 	}
-	f, err := os.OpenFile(filepath.Join(cfg.RecordDir, TicksFile), os.O_CREATE|os.O_EXCL|os.O_WRONLY|os.O_APPEND, 0o644)
+	f, err := os.OpenFile(filepath.Join(cfg.RecordDir, ShownFile), os.O_CREATE|os.O_EXCL|os.O_WRONLY|os.O_APPEND, 0o644)
 	if err != nil {
 		w.Close()
 		return nil, fmt.Errorf("relay: recording: %w; choose a new --record directory", err)
@@ -220,7 +217,7 @@ func (rc *recorder) onTick(m recMsg) {
 	b = append(b, '\n')
 	rc.line = b
 	if _, err := rc.ticks.Write(b); err != nil {
-		rc.fail("ticks.csv", err)
+		rc.fail(ShownFile, err)
 	}
 	if m.index < rc.nextWrite {
 		return

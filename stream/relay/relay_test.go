@@ -19,10 +19,10 @@ import (
 	"stopgap/stream/recording"
 )
 
-// readTicks returns the state column of ticks.csv by tick.
+// readTicks returns the state column of the relay's shown.csv by tick.
 func readTicks(t *testing.T, dir string) []string {
 	t.Helper()
-	f, err := os.Open(filepath.Join(dir, TicksFile))
+	f, err := os.Open(filepath.Join(dir, ShownFile))
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -32,13 +32,13 @@ func readTicks(t *testing.T, dir string) []string {
 	for n := 0; sc.Scan(); n++ {
 		if n == 0 {
 			if sc.Text()+"\n" != ticksHeader {
-				t.Fatalf("ticks.csv header %q", sc.Text())
+				t.Fatalf("shown.csv header %q", sc.Text())
 			}
 			continue
 		}
 		fields := strings.Split(sc.Text(), ",")
 		if len(fields) != 5 || fields[0] != itoa(len(states)) {
-			t.Fatalf("ticks.csv line %d: %q", n+1, sc.Text())
+			t.Fatalf("shown.csv line %d: %q", n+1, sc.Text())
 		}
 		states = append(states, fields[1])
 	}
@@ -177,7 +177,7 @@ func TestRecordingMatchesReplay(t *testing.T) {
 			v.extraUs = func(i int) int64 { return tc.lateUs[i] }
 			runSession(t, r, v)
 			if os.Getenv("DEBUGREC") != "" {
-				for _, f := range []string{"frames.csv", "arrivals.csv", "ticks.csv"} {
+				for _, f := range []string{"frames.csv", "arrivals.csv", ShownFile} {
 					b, _ := os.ReadFile(filepath.Join(dir, f))
 					t.Logf("%s:\n%s", f, b)
 				}
@@ -204,7 +204,7 @@ func recordingBelongsToTicks(t *testing.T, dir string, extraUs func(int) int64) 
 		t.Fatalf("recording: %d frames, %d arrivals", len(rec.Frames), len(rec.Arrivals))
 	}
 	if n := len(readTicks(t, dir)); n != len(rec.Frames) {
-		t.Fatalf("ticks.csv has %d rows, frames.csv %d", n, len(rec.Frames))
+		t.Fatalf("shown.csv has %d rows, frames.csv %d", n, len(rec.Frames))
 	}
 	period := 1e6 / testFPS
 	first := int(math.Round(float64(rec.Frames[0].CaptureUs-testVehicleT0Us) / period))
@@ -253,7 +253,7 @@ func recordingBelongsToTicks(t *testing.T, dir string, extraUs func(int) int64) 
 
 // replayAgreesPerTick replays the recording in dir with its recorded
 // arrivals (bench.Replay) and compares the state of every tick in the
-// replay's ticks.csv with what the relay recorded in its ticks.csv.
+// replay's ticks.csv with what the relay recorded in its shown.csv.
 func replayAgreesPerTick(t *testing.T, dir string, cutoff float64) {
 	t.Helper()
 	pol := predictor.DefaultPolicy()

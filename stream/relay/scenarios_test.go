@@ -111,19 +111,19 @@ func TestRelayAndReplayDecideAlike(t *testing.T) {
 // column ("state,age_ms,confidence,cutoff"), in tick order.
 func relayDecisionRows(t *testing.T, dir string) []string {
 	t.Helper()
-	b, err := os.ReadFile(filepath.Join(dir, TicksFile))
+	b, err := os.ReadFile(filepath.Join(dir, ShownFile))
 	if err != nil {
 		t.Fatal(err)
 	}
 	lines := strings.Split(strings.TrimSuffix(string(b), "\n"), "\n")
 	if lines[0]+"\n" != ticksHeader {
-		t.Fatalf("%s header %q", TicksFile, lines[0])
+		t.Fatalf("%s header %q", ShownFile, lines[0])
 	}
 	var out []string
 	for n, l := range lines[1:] {
 		k, rest, _ := strings.Cut(l, ",")
 		if k != itoa(n) {
-			t.Fatalf("%s line %d: tick %q", TicksFile, n+2, k)
+			t.Fatalf("%s line %d: tick %q", ShownFile, n+2, k)
 		}
 		out = append(out, rest)
 	}
@@ -135,7 +135,7 @@ func relayDecisionRows(t *testing.T, dir string) []string {
 // relayDecisionRows does.
 func replayDecisionRows(t *testing.T, dir, arrivals string) []string {
 	t.Helper()
-	ticks, _, err := recording.ReadSessionTicks(filepath.Join(dir, TicksFile))
+	ticks, _, err := recording.ReadSessionTicks(filepath.Join(dir, ShownFile))
 	if err != nil {
 		t.Fatal(err)
 	}
