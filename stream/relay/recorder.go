@@ -83,6 +83,8 @@ type recorder struct {
 	latestUs  int64
 	lastTelUs int64
 	haveTel   bool
+	// warnedTelOrder: an out-of-order telemetry sample was logged.
+	warnedTelOrder bool
 	lastCapUs int64
 	line      []byte
 }
@@ -310,7 +312,16 @@ func (rc *recorder) flush(all bool) {
 
 func (rc *recorder) onTel(row recording.TelemetryRow) {
 	if rc.haveTel && row.TimeUs <= rc.lastTelUs {
-		rc.met.recordErrors.Add(1) // telemetry.csv needs increasing t_us
+		// telemetry.csv needs increasing t_us, but the filter takes a
+		// sample that arrives out of order (an unordered data channel):
+		// a replay of this recording will lack it, and may decide the
+		// ticks after it differently. Counted, and said once per session.
+		rc.met.recordErrors.Add(1)
+		if !rc.warnedTelOrder {
+			rc.warnedTelOrder = true
+			rc.log.Warn("telemetry sample out of order not recorded: a replay of this recording lacks it and may differ from the live decisions",
+				"t_us", row.TimeUs, "previous_t_us", rc.lastTelUs)
+		}
 		return
 	}
 	if err := rc.w.WriteTelemetry(row); err != nil {
