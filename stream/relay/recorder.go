@@ -85,8 +85,8 @@ type recorder struct {
 	haveTel   bool
 	// warnedTelOrder: an out-of-order telemetry sample was logged.
 	warnedTelOrder bool
-	lastCapUs int64
-	line      []byte
+	lastCapUs      int64
+	line           []byte
 }
 
 func newRecorder(cfg Config, met *metrics) (*recorder, error) {
