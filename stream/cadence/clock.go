@@ -165,11 +165,14 @@ type Clock struct {
 	offset  int // tick = grid tick + offset
 	next    int // lowest tick not yet decided
 
-	readyUs  int64 // ready time of the newest frame handed in
-	latUs    int64
-	latKnown bool
-	lat      [LatencyFrames]int64 // sorted samples of (ready - capture)
-	nLat     int
+	readyUs int64 // ready time of the newest frame handed in
+	// decidedUs is the deadline tick next-1 was decided with (the
+	// estimate of L may have moved since).
+	decidedUs int64
+	latUs     int64
+	latKnown  bool
+	lat       [LatencyFrames]int64 // sorted samples of (ready - capture)
+	nLat      int
 
 	pend  []pendingSample
 	stats ClockStats
@@ -261,6 +264,8 @@ func (c *Clock) Shift(dUs int64) {
 	if c.started {
 		c.grid.Shift(dUs)
 	}
+	// The last decision's deadline is on the receiver clock, which does
+	// not move.
 	if c.cfg.FixedLatency {
 		return
 	}
@@ -314,7 +319,7 @@ func (c *Clock) frame(h Handler, k int, captureUs, readyUs int64) Frame {
 	if k < c.next {
 		c.stats.Late++
 		arrival := readyUs
-		if d := c.DeadlineUs(c.next - 1); arrival <= d {
+		if d := c.decidedUs; arrival <= d {
 			// Ready by a deadline, but it reached the display after that
 			// tick was filled (the display loop was not scheduled in
 			// between); on a starved CPU later ticks may have been filled
@@ -330,7 +335,7 @@ func (c *Clock) frame(h Handler, k int, captureUs, readyUs int64) Frame {
 		c.missing(h, c.next)
 	}
 	t := c.tick(k)
-	c.next = k + 1
+	c.next, c.decidedUs = k+1, t.DeadlineUs
 	c.feed(h, t.DeadlineUs)
 	return Frame{Tick: t, Live: true, ArrivalUs: readyUs}
 }
@@ -377,7 +382,7 @@ func (c *Clock) missing(h Handler, k int) {
 	d := c.DeadlineUs(k)
 	c.feed(h, d)
 	c.stats.Missing++
-	c.next = k + 1
+	c.next, c.decidedUs = k+1, d
 	h.Missing(c.tickAt(k, d))
 }
 
@@ -410,10 +415,8 @@ func (c *Clock) Telemetry(h Handler, s filter.Sample, arrivalUs int64) bool {
 		h.Telemetry(s, arrivalUs)
 		return true
 	}
-	if c.next > 0 {
-		if d := c.DeadlineUs(c.next - 1); arrivalUs <= d {
-			arrivalUs = d + 1
-		}
+	if c.next > 0 && arrivalUs <= c.decidedUs {
+		arrivalUs = c.decidedUs + 1
 	}
 	c.pend = append(c.pend, pendingSample{s, arrivalUs})
 	return true
