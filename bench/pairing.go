@@ -10,6 +10,7 @@ import (
 
 	"gocv.io/x/gocv"
 
+	"stopgap/display"
 	"stopgap/stream/recording"
 )
 
@@ -47,7 +48,7 @@ type PairingReport struct {
 	TelemetrySessionOnly int `json:"telemetry_session_only"`
 	TelemetryValueDiffs  int `json:"telemetry_value_diffs"`
 	// ReferenceTicks counts the relay's recorded ticks compared with the
-	// replay's (SKIPPED ticks, never shown, are counted apart in
+	// replay's (NOT_SHOWN ticks, never on screen, are counted apart in
 	// ReferenceSkipped); Agree those with the same state. Differences
 	// lists every tick where they disagree.
 	ReferenceTicks   int              `json:"reference_ticks"`
@@ -124,7 +125,7 @@ func indexInput(cfg ReplayConfig, rec *recording.Recording, width, height int) (
 	in.whyNoTruth = func(int) (string, string) {
 		return "lost on the live link, so missing from its recording too", how
 	}
-	if ticks := filepath.Join(rec.Dir, recording.TicksFile); cfg.ArrivalsFile != "" && fileExists(ticks) {
+	if ticks := filepath.Join(rec.Dir, recording.ShownFile); cfg.ArrivalsFile != "" && fileExists(ticks) {
 		in.reference, err = readReference(ticks, nil, cfg.Logger)
 		if err != nil {
 			in.frames.Close()
@@ -300,7 +301,7 @@ func pairedInput(cfg ReplayConfig, onboard, sess *recording.Recording, arrivals 
 				rep.TelemetrySessionOnly++
 			}
 		}
-		if ticks := filepath.Join(sess.Dir, recording.TicksFile); fileExists(ticks) {
+		if ticks := filepath.Join(sess.Dir, recording.ShownFile); fileExists(ticks) {
 			if in.reference, err = readReference(ticks, rows, log); err != nil {
 				return replayInput{}, err
 			}
@@ -415,7 +416,7 @@ func checkPairingByImage(sess, onboard *recording.Recording, rows []recording.Se
 		votesAgainst, votesFor+votesAgainst, s.Index, s.CaptureUs, p.Onboard[firstBad]+firstShift, p.Onboard[firstBad], recording.ErrPairing)
 }
 
-// readReference reads the relay's ticks.csv and keys it by replay tick
+// readReference reads the relay's shown.csv and keys it by replay tick
 // (rows, if given, maps replay tick k to session index rows[k].Index).
 func readReference(path string, rows []recording.SessionFrame, log *slog.Logger) (map[int]recording.SessionTick, error) {
 	ticks, warns, err := recording.ReadSessionTicks(path)
@@ -452,16 +453,16 @@ func compareReference(ref map[int]recording.SessionTick, rows []TickRow, rep *Pa
 		if !ok {
 			continue
 		}
-		if t.State == "SKIPPED" {
+		if t.State == display.StateNotShown {
 			rep.ReferenceSkipped++
 			continue
 		}
 		rep.ReferenceTicks++
-		if t.State == r.State {
+		if t.State.String() == r.State {
 			rep.Agree++
 			continue
 		}
-		rep.Differences = append(rep.Differences, TickDifference{Tick: k, Relay: t.State, Replay: r.State,
+		rep.Differences = append(rep.Differences, TickDifference{Tick: k, Relay: t.State.String(), Replay: r.State,
 			RelayConfidence: t.Confidence, ReplayConfidence: Float(r.Confidence), RelayCutoff: t.Cutoff,
 			RelayAgeMs: t.AgeMs, ReplayAgeMs: r.AgeMs})
 	}

@@ -147,7 +147,7 @@ func newPairFixtureOn(t *testing.T, drive string, withRTP bool, offsetUs int64) 
 
 // writeReferenceTicks replays the session by itself (as the relay decided,
 // see stream/relay's replay tests) and writes its states as the relay's
-// ticks.csv, with the state of flip (if >= 0) changed to STALE/PREDICTED.
+// shown.csv, with the state of flip (if >= 0) changed to STALE/PREDICTED.
 func writeReferenceTicks(t *testing.T, fx pairFixture, flip int) []string {
 	t.Helper()
 	out := filepath.Join(t.TempDir(), "self")
@@ -173,7 +173,7 @@ func writeReferenceTicks(t *testing.T, fx pairFixture, flip int) []string {
 		}
 		fmt.Fprintf(&sb, "%s,%s,%s,%s,0.5000\n", col[0], st, col[3], col[4])
 	}
-	if err := os.WriteFile(filepath.Join(fx.session, recording.TicksFile), []byte(sb.String()), 0o644); err != nil {
+	if err := os.WriteFile(filepath.Join(fx.session, recording.ShownFile), []byte(sb.String()), 0o644); err != nil {
 		t.Fatal(err)
 	}
 	return states
@@ -281,7 +281,7 @@ func TestReplayPairedSessionKilled(t *testing.T) {
 	}
 	cut(recording.FramesFile, whole+1)
 	cut(recording.ArrivalsFile, whole)
-	cut(recording.TicksFile, whole-3)
+	cut(recording.ShownFile, whole-3)
 	cut(recording.TelemetryFile, keepTel+1)
 
 	cfg := baseReplay(fx.onboard, filepath.Join(t.TempDir(), "killed"))

@@ -55,6 +55,11 @@ type ReplayConfig struct {
 
 	// Policy decides PREDICTED versus STALE (cutoff and age cap).
 	Policy predictor.Policy
+	// CutoffAt, if set, gives the operator's cutoff at tick k (for example
+	// the one a live session recorded with each tick, Session.Cutoffs);
+	// where it returns false, Policy's cutoff is used. It is read once per
+	// tick, as the live relay reads the console's.
+	CutoffAt func(k int) (cutoff float64, ok bool)
 	// Filter configures the motion filter; a zero Model means CTRV.
 	Filter filter.Config
 	// AllowanceMs is the display clock's jitter allowance past a frame's
@@ -88,112 +93,148 @@ type ReplayConfig struct {
 }
 
 // Schedule is the display schedule of a replay: when each tick falls and
-// which real frame, if any, is due and here at it. All times are on the
-// receiver clock unless said otherwise.
+// whether its real frame is here by then, as the display clock
+// (cadence.Clock, the rule the live relay follows) decides them. All times
+// are on the receiver clock unless said otherwise.
 //
-// The display shows tick k at DeadlineUs[k] = grid_k + LatencyUs +
-// allowance, where grid_k is tick k's time on the display grid locked to the
-// capture cadence by the live relay's rule (stream/cadence; equal to
-// capture_k for a steady sender) and LatencyUs is the median (arrival -
-// capture) over the frames that arrived. Frame k is LIVE at tick k if it arrived by then (it is
-// shown as soon as it arrives, so the allowance adds no latency to LIVE
-// frames). Otherwise tick k is missing, and the newest frame that has
-// arrived by DeadlineUs[k] is the one a prediction is built from.
+// Tick k is due at DeadlineUs(k) = g_k + L + allowance (see cadence.Clock:
+// g_k on the grid locked to the capture cadence, L the latency estimate
+// frozen after cadence.LatencyFrames frames). Frame k is LIVE at tick k if it
+// arrived by then. Otherwise tick k is missing, and the newest frame that has
+// arrived by DeadlineUs(k) is the one a prediction is built from.
 type Schedule struct {
 	// CaptureUs is each frame's capture time on the vehicle clock.
 	CaptureUs []int64
 	// ArrivalUs is each frame's arrival on the receiver clock, or
 	// NeverArrivesUs.
 	ArrivalUs []int64
-	// LatencyUs is the nominal capture-to-arrival latency (receiver clock
-	// minus vehicle clock, so it includes any clock offset).
+	// LatencyUs is the nominal capture-to-arrival latency L as the clock
+	// had it at the end (receiver clock minus vehicle clock).
 	LatencyUs int64
 	// AllowanceUs is the jitter allowance.
 	AllowanceUs int64
-	// GridUs, if not nil, holds each tick's capture time on the display
-	// grid (see NewSchedule); nil means CaptureUs.
-	GridUs []int64
+	// TickDeadlineUs holds each tick's deadline as the clock decided it;
+	// nil (a Schedule written by hand) means CaptureUs + LatencyUs +
+	// AllowanceUs.
+	TickDeadlineUs []int64
+	// TickLive holds whether each tick showed its frame LIVE; nil means
+	// arrival <= DeadlineUs.
+	TickLive []bool
 	// RecordedDeadlineUs, if not nil, holds each tick's deadline as the
-	// live relay recorded it (arrivals.csv t_deadline_us); it replaces the
-	// estimate so a replay reproduces the live schedule exactly.
+	// live relay recorded it (arrivals.csv t_deadline_us); the clock uses
+	// it (and the row's capture time as the target) instead of its own
+	// rule, so a replay reproduces the live schedule exactly.
 	RecordedDeadlineUs []int64
 }
 
 // NewSchedule builds the schedule for frames captured at captureUs that
-// arrived at arrivalUs (NeverArrivesUs for lost ones). It fails if no frame
-// arrived at all, since then there is nothing to show.
+// arrived at arrivalUs (NeverArrivesUs for lost ones) by running them through
+// the display clock. It fails if no frame arrived at all, since then there is
+// nothing to show.
 func NewSchedule(captureUs, arrivalUs []int64, allowanceUs int64) (Schedule, error) {
+	return newSchedule(captureUs, arrivalUs, nil, allowanceUs)
+}
+
+func newSchedule(captureUs, arrivalUs, recordedDeadlineUs []int64, allowanceUs int64) (Schedule, error) {
 	if len(captureUs) != len(arrivalUs) {
 		return Schedule{}, fmt.Errorf("schedule: %d capture times but %d arrival times: %w", len(captureUs), len(arrivalUs), ErrReplayInput)
 	}
-	var lat []int64
-	for i, a := range arrivalUs {
-		if a != NeverArrivesUs {
-			lat = append(lat, a-captureUs[i])
-		}
+	s := Schedule{CaptureUs: captureUs, ArrivalUs: arrivalUs, AllowanceUs: allowanceUs, RecordedDeadlineUs: recordedDeadlineUs,
+		TickDeadlineUs: make([]int64, len(captureUs)), TickLive: make([]bool, len(captureUs))}
+	clock, err := replayClock(captureUs, recordedDeadlineUs, allowanceUs, predictor.Policy{}, nil, 0)
+	if err != nil {
+		return Schedule{}, err
 	}
-	if len(lat) == 0 {
+	var h scheduleHandler
+	h.s = &s
+	arrived := arrivalOrder(arrivalUs)
+	if len(arrived) == 0 {
 		return Schedule{}, fmt.Errorf("schedule: no frame arrived, nothing to replay; check the arrivals file or lower --loss-rate: %w", ErrReplayInput)
 	}
-	sort.Slice(lat, func(i, j int) bool { return lat[i] < lat[j] })
-	return Schedule{CaptureUs: captureUs, ArrivalUs: arrivalUs, LatencyUs: lat[len(lat)/2], AllowanceUs: allowanceUs,
-		GridUs: gridTimes(captureUs, arrivalUs)}, nil
+	for _, j := range arrived {
+		if v := clock.FrameAt(&h, j, captureUs[j], arrivalUs[j]); v.Live {
+			s.TickDeadlineUs[j], s.TickLive[j] = v.Tick.DeadlineUs, true
+		}
+	}
+	clock.FillThrough(&h, len(captureUs)-1)
+	s.LatencyUs, _ = clock.Latency()
+	return s, nil
 }
 
-// gridTimes places each tick on the display grid as the live relay does
-// (cadence.Grid, started at the mean capture interval, as the relay starts at
-// its configured frame rate): tick k's time is the grid's, as it stands after
-// the frames before k that arrived, at the grid tick nearest capture_k.
-// Frames are taken in capture order.
-func gridTimes(captureUs, arrivalUs []int64) []int64 {
-	n := len(captureUs)
-	if n < 2 || captureUs[n-1] <= captureUs[0] {
-		return nil
+// scheduleHandler keeps the deadlines of missing ticks; telemetry plays no
+// part in the schedule.
+type scheduleHandler struct{ s *Schedule }
+
+func (h *scheduleHandler) Telemetry(filter.Sample, int64) {}
+func (h *scheduleHandler) Missing(t cadence.Tick) {
+	if t.K < len(h.s.TickDeadlineUs) {
+		h.s.TickDeadlineUs[t.K] = t.DeadlineUs
 	}
-	g, err := cadence.New(float64(captureUs[n-1]-captureUs[0]) / float64(n-1))
+}
+
+// replayClock returns the display clock for a replay of frames captured at
+// captureUs: the grid starts at the mean capture interval (the live relay
+// starts at its configured frame rate); recordedDeadlineUs, if not nil,
+// replaces the rule's deadlines and the rows' capture times its targets.
+func replayClock(captureUs, recordedDeadlineUs []int64, allowanceUs int64, pol predictor.Policy, cutoff func(int) float64, historyUs int64) (*cadence.Clock, error) {
+	period := 1e6 / 30
+	if n := len(captureUs); n >= 2 && captureUs[n-1] > captureUs[0] {
+		period = float64(captureUs[n-1]-captureUs[0]) / float64(n-1)
+	}
+	cfg := cadence.ClockConfig{PeriodUs: period, AllowanceUs: allowanceUs, Policy: pol, Cutoff: cutoff,
+		HistoryUs: historyUs, VehicleClock: true}
+	if recordedDeadlineUs != nil {
+		cfg.Schedule = func(k int) (int64, int64, bool) {
+			if k < 0 || k >= len(recordedDeadlineUs) {
+				return 0, 0, false
+			}
+			return captureUs[k], recordedDeadlineUs[k], true
+		}
+	}
+	c, err := cadence.NewClock(cfg)
 	if err != nil {
-		return nil
+		return nil, fmt.Errorf("schedule: %w: %w", ErrReplayInput, err)
 	}
-	out := make([]int64, len(captureUs))
-	for i, c := range captureUs {
-		out[i] = c
-		if g.Started() {
-			out[i] = g.CaptureUs(g.TickOf(c))
-		}
-		if arrivalUs[i] != NeverArrivesUs {
-			g.Observe(c)
+	return c, nil
+}
+
+// arrivalOrder returns the indices of the frames that arrived, in arrival
+// order (capture order among equal arrivals).
+func arrivalOrder(arrivalUs []int64) []int {
+	var out []int
+	for i, a := range arrivalUs {
+		if a != NeverArrivesUs {
+			out = append(out, i)
 		}
 	}
+	sort.SliceStable(out, func(a, b int) bool { return arrivalUs[out[a]] < arrivalUs[out[b]] })
 	return out
 }
 
 // DeadlineUs returns the receiver time of tick k.
 func (s Schedule) DeadlineUs(k int) int64 {
+	if s.TickDeadlineUs != nil {
+		return s.TickDeadlineUs[k]
+	}
 	if s.RecordedDeadlineUs != nil {
 		return s.RecordedDeadlineUs[k]
-	}
-	if s.GridUs != nil {
-		return s.GridUs[k] + s.LatencyUs + s.AllowanceUs
 	}
 	return s.CaptureUs[k] + s.LatencyUs + s.AllowanceUs
 }
 
-// Live reports whether frame k arrived in time for tick k.
+// Live reports whether frame k was shown LIVE at tick k.
 func (s Schedule) Live(k int) bool {
+	if s.TickLive != nil {
+		return s.TickLive[k]
+	}
 	return s.ArrivalUs[k] != NeverArrivesUs && s.ArrivalUs[k] <= s.DeadlineUs(k)
 }
 
 // Held returns the newest frame j <= k that has arrived by tick k's
 // deadline, or -1 if none has.
 func (s Schedule) Held(k int) int {
-	return s.arrivedBefore(k, k+1)
-}
-
-// arrivedBefore returns the newest frame j < before that has arrived by tick
-// k's deadline, or -1.
-func (s Schedule) arrivedBefore(k, before int) int {
 	d := s.DeadlineUs(k)
-	for j := before - 1; j >= 0; j-- {
+	for j := k; j >= 0; j-- {
 		if s.ArrivalUs[j] != NeverArrivesUs && s.ArrivalUs[j] <= d {
 			return j
 		}
@@ -345,11 +386,13 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 	frames := in.frames
 	defer frames.Close()
 	captureUs := in.captureUs
-	sched, err := NewSchedule(captureUs, in.arrivalUs, int64(math.Round(allowanceMs*1000)))
+	allowanceUs := int64(math.Round(allowanceMs * 1000))
+	// The schedule alone (the same clock, without telemetry) gives the
+	// latency that simulated telemetry arrivals are placed with.
+	sched, err := newSchedule(captureUs, in.arrivalUs, in.deadlineUs, allowanceUs)
 	if err != nil {
 		return Summary{}, fmt.Errorf("replay: %w", err)
 	}
-	sched.RecordedDeadlineUs = in.deadlineUs
 
 	fcfg := cfg.Filter
 	if fcfg.Model == filter.ModelInvalid {
@@ -390,6 +433,7 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 		return Summary{}, fmt.Errorf("replay: %w", err)
 	}
 	defer r.Close()
+	r.captureUs = captureUs
 	if in.pairing == nil {
 		r.truth = rec.Truth
 		if r.marks, err = newMarkScorer(cfg.Drive); err != nil {
@@ -408,39 +452,20 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 		}
 	}()
 	exampleBuckets := map[string]bool{}
-	nextTel := 0
 	total := len(captureUs)
-	for k := 0; k < total; k++ {
-		if err := ctx.Err(); err != nil {
-			return Summary{}, fmt.Errorf("replay: stopped at tick %d of %d: %w", k, total, err)
+	// emit takes every decided tick, in tick order.
+	emit := func(row TickRow) error {
+		if row.Tick != len(rows) {
+			return fmt.Errorf("tick %d decided after tick %d: %w", row.Tick, len(rows)-1, ErrReplayInput)
 		}
-		deadline := sched.DeadlineUs(k)
-		for ; nextTel < len(telOrder) && telArr[telOrder[nextTel]] <= deadline; nextTel++ {
-			row := in.telemetry[telOrder[nextTel]]
-			if err := flt.Add(SampleFromRow(row)); err != nil {
-				log.Debug("telemetry sample rejected", "t_us", row.TimeUs, "err", err)
-			}
-		}
-
-		var row TickRow
-		if sched.Live(k) {
-			row = NewTickRow(k, captureUs[k], TickLive, 0)
-			row.Confidence = 1
-			// The real frame is loaded lazily, only when a later gap
-			// needs it (see below); LIVE ticks cost nothing to replay.
-			r.pending = k
-		} else {
-			row, err = r.missing(k, sched, frames, in.hasTruth)
-			if err != nil {
-				return Summary{}, fmt.Errorf("replay: tick %d (frame %d, t_capture_us %d): %w", k, k, captureUs[k], err)
-			}
+		if row.State != TickLive {
 			if b := bucketLabel(row.AgeMs) + "/" + row.State; len(examples) < nExamples && !exampleBuckets[b] && r.truthImg.Ptr() != nil {
 				exampleBuckets[b] = true
 				examples = append(examples, r.example(row))
 			}
 		}
 		if err := acc.Add(row); err != nil {
-			return Summary{}, fmt.Errorf("replay: tick %d: %w", k, err)
+			return err
 		}
 		if cfg.Shown != nil {
 			img := gocv.Mat{}
@@ -448,13 +473,68 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 				img = r.shown
 			}
 			if err := cfg.Shown(row, img); err != nil {
-				return Summary{}, fmt.Errorf("replay: tick %d: %w", k, err)
+				return err
 			}
 		}
 		rows = append(rows, row)
 		if cfg.Progress != nil {
-			cfg.Progress(k+1, total)
+			cfg.Progress(len(rows), total)
 		}
+		return nil
+	}
+	var cutoff func(int) float64
+	if cfg.CutoffAt != nil {
+		cutoff = func(k int) float64 {
+			if v, ok := cfg.CutoffAt(k); ok {
+				return v
+			}
+			return cfg.Policy.CutoffConfidence
+		}
+	}
+	historyUs := fcfg.HistoryUs
+	if historyUs == 0 {
+		historyUs = filter.DefaultHistoryUs
+	}
+	clock, err := replayClock(captureUs, in.deadlineUs, allowanceUs, cfg.Policy, cutoff, historyUs)
+	if err != nil {
+		return Summary{}, fmt.Errorf("replay: %w", err)
+	}
+	d := &replayDriver{r: r, flt: flt, log: log, frames: frames, captureUs: captureUs, hasTruth: in.hasTruth,
+		last: -1, beforeLast: -1, emit: emit}
+	// Frames and telemetry reach the clock in arrival order, as they reach
+	// the live relay's display loop; the clock fills each tick whose
+	// deadline passed before the next event.
+	frameOrder := arrivalOrder(in.arrivalUs)
+	fi, ti := 0, 0
+	for fi < len(frameOrder) || ti < len(telOrder) {
+		if err := ctx.Err(); err != nil {
+			return Summary{}, fmt.Errorf("replay: stopped at tick %d of %d: %w", len(rows), total, err)
+		}
+		if ti < len(telOrder) && (fi == len(frameOrder) || telArr[telOrder[ti]] < in.arrivalUs[frameOrder[fi]]) {
+			i := telOrder[ti]
+			ti++
+			clock.Advance(d, telArr[i])
+			if !clock.Telemetry(d, SampleFromRow(in.telemetry[i]), telArr[i]) {
+				log.Debug("telemetry sample later than the filter's history window", "t_us", in.telemetry[i].TimeUs)
+			}
+		} else {
+			j := frameOrder[fi]
+			fi++
+			v := clock.FrameAt(d, j, captureUs[j], in.arrivalUs[j])
+			if d.err == nil {
+				d.frame(v)
+			}
+		}
+		if d.err != nil {
+			return Summary{}, fmt.Errorf("replay: %w", d.err)
+		}
+	}
+	clock.FillThrough(d, total-1)
+	if d.err != nil {
+		return Summary{}, fmt.Errorf("replay: %w", d.err)
+	}
+	if len(rows) != total {
+		return Summary{}, fmt.Errorf("replay: %d of %d ticks decided: %w", len(rows), total, ErrReplayInput)
 	}
 
 	sum := acc.Summary()
@@ -477,7 +557,8 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 	}
 	sum.ArrivalsFile = cfg.ArrivalsFile
 	sum.AllowanceMs = allowanceMs
-	sum.LatencyMs = float64(sched.LatencyUs) / 1000
+	lat, _ := clock.Latency()
+	sum.LatencyMs = float64(lat) / 1000
 	sum.FilterModel = fcfg.Model.String()
 	sum.TelemetryRejected = int(flt.Rejected().Total())
 	out.rows, out.examples = rows, examples
@@ -566,12 +647,12 @@ func closeExample(e Example) {
 
 // replayer holds the per-tick machinery and its buffers.
 type replayer struct {
-	filler  *predictor.Filler
-	synth   *predictor.Synthesizer
-	scorer  *Scorer
-	now     func() time.Time
-	held    int // frame index the filler holds, -1 if none
-	pending int // newest LIVE frame not yet loaded into the filler, -1 if none
+	filler    *predictor.Filler
+	synth     *predictor.Synthesizer
+	scorer    *Scorer
+	now       func() time.Time
+	held      int     // frame index the filler holds, -1 if none
+	captureUs []int64 // each frame's capture time
 
 	// noTruth lists the missing ticks without a true frame to score
 	// against; noFrameYet counts those before any real frame.
@@ -610,7 +691,7 @@ func newReplayer(cam predictor.Camera, pol predictor.Policy, cm predictor.Confid
 		return nil, err
 	}
 	r := &replayer{
-		filler: filler, synth: synth, scorer: NewScorer(), now: now, held: -1, pending: -1,
+		filler: filler, synth: synth, scorer: NewScorer(), now: now, held: -1,
 		shown: gocv.NewMat(), unlabelled: gocv.NewMat(), rotation: gocv.NewMat(), scratch: gocv.NewMat(), warp: gocv.NewMat(),
 		cam: cam, cm: cm, meter: NewMisalignmentMeter(), region: RoadRegion(cam), refs: ReferencePixels(cam, cm),
 	}
@@ -639,38 +720,99 @@ func (r *replayer) Close() {
 	}
 }
 
-// missing fills and scores tick k, whose frame is not due-and-here.
-func (r *replayer) missing(k int, s Schedule, frames frameGetter, hasTruth []bool) (TickRow, error) {
+// replayDriver is the replay's side of the display clock (cadence.Handler):
+// it feeds telemetry to the filter, fills and scores missing ticks, and
+// tracks the two newest real frames the display has had, which the filler
+// loads only when a gap needs them.
+type replayDriver struct {
+	r         *replayer
+	flt       *filter.Filter
+	log       *slog.Logger
+	frames    frameGetter
+	captureUs []int64
+	hasTruth  []bool
+	// last and beforeLast are the newest frame handed to the clock and the
+	// one before it, in capture order (-1: none), as the live relay's
+	// filler keeps them.
+	last, beforeLast int
+	emit             func(TickRow) error
+	err              error // the first error; the replay stops
+}
+
+// Telemetry feeds one sample to the filter (cadence.Handler).
+func (d *replayDriver) Telemetry(s filter.Sample, _ int64) {
+	if err := d.flt.Add(s); err != nil {
+		d.log.Debug("telemetry sample rejected", "t_us", s.TimeUs, "err", err)
+	}
+}
+
+// Missing fills and scores tick t (cadence.Handler).
+func (d *replayDriver) Missing(t cadence.Tick) {
+	if d.err != nil || t.K >= len(d.captureUs) {
+		return
+	}
+	row, err := d.r.missing(t, d.captureUs[t.K], d.last, d.beforeLast, d.frames, d.hasTruth)
+	if err != nil {
+		d.err = fmt.Errorf("tick %d (t_capture_us %d): %w", t.K, d.captureUs[t.K], err)
+		return
+	}
+	if err := d.emit(row); err != nil {
+		d.err = fmt.Errorf("tick %d: %w", t.K, err)
+	}
+}
+
+// frame takes the clock's verdict on a frame: a LIVE tick's row, and the
+// frame becomes the newest the display has (LIVE or late).
+func (d *replayDriver) frame(v cadence.Frame) {
+	k := v.Tick.K
+	if k > d.last {
+		d.last, d.beforeLast = k, d.last
+	}
+	if !v.Live {
+		return
+	}
+	d.r.shownValid = false
+	row := NewTickRow(k, d.captureUs[k], TickLive, 0)
+	row.Confidence = 1
+	if err := d.emit(row); err != nil {
+		d.err = fmt.Errorf("tick %d: %w", k, err)
+	}
+}
+
+// missing fills and scores tick t, whose frame is not due-and-here, from
+// frame last (and beforeLast, the frame before it); captureUs is the row's
+// capture time.
+func (r *replayer) missing(t cadence.Tick, captureUs int64, last, beforeLast int, frames frameGetter, hasTruth []bool) (TickRow, error) {
+	k := t.K
 	r.truthImg, r.heldImg = gocv.Mat{}, gocv.Mat{}
 	r.shownValid = false
-	// The held frame: the newest one that has arrived by this tick, which
-	// may be a LIVE frame not yet loaded or a frame that came late.
-	if j := s.Held(k); j >= 0 && j != r.held {
-		// The filler also wants the real frame before the held one, as
-		// the live relay would have shown it, for its far-scene depth.
-		if p := s.arrivedBefore(k, j); p >= 0 && p != r.held {
-			if err := r.hold(frames, p, s.CaptureUs[p]); err != nil {
-				return TickRow{}, err
-			}
-		}
-		if err := r.hold(frames, j, s.CaptureUs[j]); err != nil {
-			return TickRow{}, err
-		}
+	if err := r.holdNewest(frames, beforeLast, last); err != nil {
+		return TickRow{}, err
 	}
-	tick, err := r.filler.MissingWith(predictor.MethodGround, s.CaptureUs[k], &r.shown)
-	if errors.Is(err, predictor.ErrNoFrame) {
+	if err := r.filler.SetPolicy(t.Policy); err != nil {
+		return TickRow{}, err
+	}
+	tick, err := r.filler.MissingWith(predictor.MethodGround, t.TargetUs, &r.shown)
+	switch {
+	case errors.Is(err, predictor.ErrNoFrame):
 		// No real frame yet: the operator sees a "no picture" frame;
 		// nothing to score.
-		row := NewTickRow(k, s.CaptureUs[k], TickStale, 0)
+		row := NewTickRow(k, captureUs, TickNoPicture, 0)
 		row.Confidence = 0
 		r.noFrameYet++
 		return row, nil
-	}
-	if err != nil {
+	case errors.Is(err, predictor.ErrTargetBeforeFrame):
+		// The newest frame was captured after this tick's time: the
+		// display shows nothing new (as the live relay).
+		row := NewTickRow(k, captureUs, TickNotShown, 0)
+		row.Confidence = 0
+		r.noFrameYet++
+		return row, nil
+	case err != nil:
 		return TickRow{}, err
 	}
 	r.shownValid = true
-	row := NewTickRow(k, s.CaptureUs[k], tick.State.String(), tick.AgeMs)
+	row := NewTickRow(k, captureUs, tick.State.String(), tick.AgeMs)
 	row.Confidence = tick.Confidence
 	if tick.MotionErr == nil {
 		row.SigmaPx = tick.SigmaPx
@@ -753,18 +895,35 @@ func (r *replayer) missing(k int, s Schedule, frames frameGetter, hasTruth []boo
 	return row, nil
 }
 
-// hold hands real frame j to the filler as the newest one it has.
-func (r *replayer) hold(frames frameGetter, j int, captureUs int64) error {
-	img, err := frames.Get(j)
+// holdNewest makes the filler hold frame last with beforeLast as the frame
+// before it (-1: none), loading them only if it does not hold them yet.
+func (r *replayer) holdNewest(frames frameGetter, beforeLast, last int) error {
+	if last < 0 || last == r.held {
+		return nil
+	}
+	wasBefore := r.held >= 0 && r.held == beforeLast
+	img, err := frames.Get(last)
 	if err != nil {
 		return err
 	}
-	if _, err := r.filler.Live(img, captureUs, &r.scratch); err != nil {
-		return fmt.Errorf("holding frame %d: %w", j, err)
+	if err := r.filler.Hold(img, r.capture(last)); err != nil {
+		return fmt.Errorf("holding frame %d: %w", last, err)
 	}
-	r.held = j
+	r.held = last
+	if beforeLast < 0 || wasBefore {
+		return nil // the frame held before is the one before last
+	}
+	if img, err = frames.Get(beforeLast); err != nil {
+		return err
+	}
+	if err := r.filler.HoldPrevious(img, r.capture(beforeLast)); err != nil {
+		return fmt.Errorf("frame %d before frame %d: %w", beforeLast, last, err)
+	}
 	return nil
 }
+
+// capture returns frame j's capture time.
+func (r *replayer) capture(j int) int64 { return r.captureUs[j] }
 
 // example copies the images of the tick just scored for the report.
 func (r *replayer) example(row TickRow) Example {

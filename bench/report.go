@@ -22,6 +22,9 @@ import (
 	"gonum.org/v1/plot/plotter"
 	"gonum.org/v1/plot/vg"
 	"gonum.org/v1/plot/vg/draw"
+
+	"stopgap/display"
+	"stopgap/stream/recording"
 )
 
 // Method is a way of filling a display tick whose real frame is missing.
@@ -57,12 +60,17 @@ func (m Method) String() string {
 // Methods returns the valid methods in report order (a new slice).
 func Methods() []Method { return []Method{MethodHold, MethodRotation, MethodPredicted} }
 
-// Display states of a tick as written in TickRow.State. They are the
-// String() values of the predictor's LIVE/PREDICTED/STALE state.
-const (
-	TickLive      = "LIVE"
-	TickPredicted = "PREDICTED"
-	TickStale     = "STALE"
+// Display states of a tick as written in TickRow.State: the names of the
+// one frame-state type, display.State.
+var (
+	TickLive      = display.StateLive.String()
+	TickPredicted = display.StatePredicted.String()
+	TickStale     = display.StateStale.String()
+	// TickNoPicture: a tick before any real frame (nothing to score).
+	TickNoPicture = display.StateNoPicture.String()
+	// TickNotShown: a tick the display could not fill (the newest frame
+	// was captured after the tick's time).
+	TickNotShown = display.StateNotShown.String()
 )
 
 // AgeBucket is a half-open range [MinMs, MaxMs) of gap age (time since the
@@ -159,11 +167,13 @@ type Summary struct {
 	// TelemetryRejected counts telemetry samples the filter rejected.
 	TelemetryRejected int `json:"telemetry_rejected"`
 
-	TicksTotal     int `json:"ticks_total"`     // display ticks replayed
-	TicksMissing   int `json:"ticks_missing"`   // ticks without a real frame (PREDICTED + STALE)
-	PredictedTicks int `json:"predicted_ticks"` // ticks shown as PREDICTED
-	StaleTicks     int `json:"stale_ticks"`     // ticks shown as STALE
-	LiveTicks      int `json:"live_ticks"`      // ticks shown as LIVE
+	TicksTotal     int `json:"ticks_total"`      // display ticks replayed
+	TicksMissing   int `json:"ticks_missing"`    // ticks without a real frame (all but LIVE)
+	PredictedTicks int `json:"predicted_ticks"`  // ticks shown as PREDICTED
+	StaleTicks     int `json:"stale_ticks"`      // ticks shown as STALE
+	LiveTicks      int `json:"live_ticks"`       // ticks shown as LIVE
+	NoPictureTicks int `json:"no_picture_ticks"` // ticks before any real frame (NO_PICTURE)
+	NotShownTicks  int `json:"not_shown_ticks"`  // ticks the display could not fill (NOT_SHOWN)
 
 	SynthMsP50  Float `json:"synth_ms_p50"`  // median time to synthesise a frame, ms
 	SynthMsP99  Float `json:"synth_ms_p99"`  // 99th percentile of the same, ms
@@ -355,10 +365,8 @@ func (r *TickRow) Validate() error {
 	bad := func(format string, args ...any) error {
 		return fmt.Errorf("%w: tick %d: %s", ErrTickRow, r.Tick, fmt.Sprintf(format, args...))
 	}
-	switch r.State {
-	case TickLive, TickPredicted, TickStale:
-	default:
-		return bad("state %q, want %s, %s or %s", r.State, TickLive, TickPredicted, TickStale)
+	if _, err := display.ParseState(r.State); err != nil {
+		return bad("%v", err)
 	}
 	if !(r.AgeMs >= 0) || math.IsInf(r.AgeMs, 0) {
 		return bad("age %g ms, want a finite value >= 0", r.AgeMs)
@@ -446,6 +454,7 @@ func (a *scoreAcc) add(ageMs float64, s Scores) {
 // (8 bytes per tick) for the quantiles and running sums for the rest.
 type Accumulator struct {
 	total, live, predicted, stale int
+	noPicture, notShown           int
 	synth                         []float64
 	synthMean, label, unfilled    meanAcc
 	all                           [numMethods]scoreAcc
@@ -474,6 +483,10 @@ func (a *Accumulator) Add(r TickRow) error {
 		a.predicted++
 	case TickStale:
 		a.stale++
+	case TickNoPicture:
+		a.noPicture++
+	case TickNotShown:
+		a.notShown++
 	}
 	if !math.IsNaN(r.SynthMs) {
 		a.synth = append(a.synth, r.SynthMs)
@@ -541,6 +554,7 @@ func (a *Accumulator) Summary() Summary {
 	s := Summary{
 		TicksTotal: a.total, TicksMissing: a.total - a.live,
 		LiveTicks: a.live, PredictedTicks: a.predicted, StaleTicks: a.stale,
+		NoPictureTicks: a.noPicture, NotShownTicks: a.notShown,
 		SynthMsMean:         a.synthMean.mean(),
 		SynthMsP50:          Float(math.NaN()),
 		SynthMsP99:          Float(math.NaN()),
@@ -614,7 +628,7 @@ type Example struct {
 // Report file names inside the destination directory.
 const (
 	SummaryFile   = "summary.json"
-	TicksFile     = "ticks.csv"
+	TicksFile     = recording.ReplayTicksFile
 	PSNRPlotFile  = "psnr_vs_age.png"
 	SSIMPlotFile  = "ssim_vs_age.png"
 	HTMLFile      = "report.html"

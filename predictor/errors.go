@@ -3,6 +3,8 @@ package predictor
 import (
 	"errors"
 	"fmt"
+
+	"stopgap/display"
 )
 
 // Sentinel errors. Every error returned by this package wraps one of them, so
@@ -18,7 +20,8 @@ var (
 
 	// ErrInvalidPolicy reports a Policy whose cutoff is outside [0, 1] or whose
 	// age cap is not positive.
-	ErrInvalidPolicy = errors.New("predictor: invalid policy")
+	// It is display.ErrInvalidPolicy (Policy is display's type).
+	ErrInvalidPolicy = display.ErrInvalidPolicy
 
 	// ErrInvalidConfig reports a bad option (band width, confidence scale,
 	// reference distances, missing motion source).

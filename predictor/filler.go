@@ -239,16 +239,7 @@ func (f *Filler) Live(frame gocv.Mat, captureUs int64, dst *gocv.Mat) (Tick, err
 		return tick, fmt.Errorf("destination is nil or a zero gocv.Mat; create it with gocv.NewMat(): %w", ErrFrameFormat)
 	}
 	start := f.now()
-	if !f.have || captureUs >= f.lastUs {
-		if f.have && captureUs > f.lastUs {
-			// Keep the previous real frame for the far-depth estimate:
-			// swap the buffers, so this costs no extra copy.
-			f.prev, f.last = f.last, f.prev
-			f.prevUs, f.havePrev = f.lastUs, true
-		}
-		frame.CopyTo(&f.last)
-		f.lastUs, f.have = captureUs, true
-	}
+	f.hold(frame, captureUs)
 	frame.CopyTo(dst)
 	if f.Unlabelled != nil {
 		if !matUsable(f.Unlabelled) {
@@ -258,6 +249,67 @@ func (f *Filler) Live(frame gocv.Mat, captureUs int64, dst *gocv.Mat) (Tick, err
 	}
 	tick.SynthDuration = f.now().Sub(start)
 	return tick, nil
+}
+
+// Hold keeps a real frame for later gaps without showing it: a frame that
+// came after its tick was filled, or one a replay loads only when a gap
+// needs it. The held frame becomes the frame before last. A frame older than
+// the one held is ignored (nil error), as in Live. frame is copied, not kept.
+func (f *Filler) Hold(frame gocv.Mat, captureUs int64) error {
+	if f.closed {
+		return ErrClosed
+	}
+	c := f.cfg.Camera
+	if err := checkFrame("held frame", &frame, c.Width, c.Height); err != nil {
+		return err
+	}
+	f.hold(frame, captureUs)
+	return nil
+}
+
+// HoldPrevious gives the Filler the real frame before the held one (the
+// far-depth, upright and mover estimates compare the two) without changing
+// the held frame: a replay that loads frames only when a gap needs them
+// hands it the two newest it has. captureUs must be before the held frame's;
+// otherwise, or before any held frame, it returns an error wrapping
+// ErrTargetBeforeFrame or ErrNoFrame and changes nothing.
+func (f *Filler) HoldPrevious(frame gocv.Mat, captureUs int64) error {
+	if f.closed {
+		return ErrClosed
+	}
+	if !f.have {
+		return fmt.Errorf("frame before last at %d us: %w", captureUs, ErrNoFrame)
+	}
+	if captureUs >= f.lastUs {
+		return fmt.Errorf("frame before last at %d us, held frame at %d us: %w", captureUs, f.lastUs, ErrTargetBeforeFrame)
+	}
+	c := f.cfg.Camera
+	if err := checkFrame("frame before last", &frame, c.Width, c.Height); err != nil {
+		return err
+	}
+	frame.CopyTo(&f.prev)
+	f.prevUs, f.havePrev = captureUs, true
+	return nil
+}
+
+// PreviousCaptureUs returns the capture time of the frame before the held
+// one; ok is false if there is none.
+func (f *Filler) PreviousCaptureUs() (us int64, ok bool) { return f.prevUs, f.havePrev }
+
+// hold makes frame the held one if it is not older than the held one; the
+// held frame becomes the frame before last.
+func (f *Filler) hold(frame gocv.Mat, captureUs int64) {
+	if f.have && captureUs < f.lastUs {
+		return
+	}
+	if f.have && captureUs > f.lastUs {
+		// Keep the previous real frame for the far-depth estimate:
+		// swap the buffers, so this costs no extra copy.
+		f.prev, f.last = f.last, f.prev
+		f.prevUs, f.havePrev = f.lastUs, true
+	}
+	frame.CopyTo(&f.last)
+	f.lastUs, f.have = captureUs, true
 }
 
 // Missing fills a tick with no real frame using MethodGround. See MissingWith.
@@ -277,7 +329,7 @@ func (f *Filler) Missing(targetUs int64, dst *gocv.Mat) (Tick, error) {
 //     STALE: dst = held frame desaturated, dimmed and labelled.
 //
 // Before the first real frame dst receives a labelled "no picture" frame, the
-// tick is STALE, and the error is ErrNoFrame. A targetUs before the held
+// tick is StateNoPicture, and the error is ErrNoFrame. A targetUs before the held
 // frame's capture time returns ErrTargetBeforeFrame and leaves dst untouched.
 func (f *Filler) MissingWith(method Method, targetUs int64, dst *gocv.Mat) (Tick, error) {
 	tick := Tick{Method: method, TargetUs: targetUs, CaptureUs: f.lastUs}
@@ -301,7 +353,7 @@ func (f *Filler) MissingWith(method Method, targetUs int64, dst *gocv.Mat) (Tick
 		if err != nil {
 			return tick, err
 		}
-		tick.State, tick.LabelFraction = StateStale, frac
+		tick.State, tick.LabelFraction = StateNoPicture, frac
 		tick.SynthDuration = f.now().Sub(start)
 		return tick, fmt.Errorf("gap tick at %d us: %w", targetUs, ErrNoFrame)
 	}

@@ -83,9 +83,9 @@ func TestFillerSequence(t *testing.T) {
 	frame := noiseFrame(t, c.Width, c.Height, 11)
 	defer frame.Close()
 
-	// Before any real frame: labelled "no picture", STALE, ErrNoFrame.
+	// Before any real frame: labelled "no picture", NO_PICTURE, ErrNoFrame.
 	tk, err := f.Missing(500_000, &dst)
-	if !errors.Is(err, ErrNoFrame) || tk.State != StateStale || dst.Cols() != c.Width || tk.LabelFraction <= 0 {
+	if !errors.Is(err, ErrNoFrame) || tk.State != StateNoPicture || dst.Cols() != c.Width || tk.LabelFraction <= 0 {
 		t.Fatalf("before first frame: %+v, %v", tk, err)
 	}
 
@@ -329,5 +329,55 @@ func TestFillerSetPolicy(t *testing.T) {
 	}
 	if tk, _ = f.Missing(1_099_000, &dst); tk.State != StateStale {
 		t.Fatalf("after a refused policy: %v, want the old cutoff (STALE)", tk.State)
+	}
+}
+
+// TestFillerHold: Hold keeps a frame without a destination (the held frame
+// becomes the frame before last); HoldPrevious sets the frame before last
+// without changing the held one, and refuses a frame not older than it.
+func TestFillerHold(t *testing.T) {
+	c := smallCam()
+	f := newTestFiller(t, &fakeMotion{SpeedMps: 10, SigmaPerS: 0.05})
+	defer f.Close()
+	a, b, old := noiseFrame(t, c.Width, c.Height, 1), noiseFrame(t, c.Width, c.Height, 2), noiseFrame(t, c.Width, c.Height, 3)
+	defer a.Close()
+	defer b.Close()
+	defer old.Close()
+	if err := f.HoldPrevious(a, 0); !errors.Is(err, ErrNoFrame) {
+		t.Errorf("HoldPrevious before any frame: %v, want ErrNoFrame", err)
+	}
+	if err := f.Hold(a, 1_000_000); err != nil {
+		t.Fatal(err)
+	}
+	if err := f.Hold(b, 1_033_000); err != nil {
+		t.Fatal(err)
+	}
+	if us, ok := f.LastCaptureUs(); !ok || us != 1_033_000 {
+		t.Errorf("held frame at %d (%v), want 1033000", us, ok)
+	}
+	if us, ok := f.PreviousCaptureUs(); !ok || us != 1_000_000 {
+		t.Errorf("frame before last at %d (%v), want 1000000", us, ok)
+	}
+	// An older frame handed to Hold is ignored, as in Live.
+	if err := f.Hold(old, 900_000); err != nil {
+		t.Fatal(err)
+	}
+	if us, _ := f.LastCaptureUs(); us != 1_033_000 {
+		t.Errorf("an older frame replaced the held one (%d)", us)
+	}
+	if err := f.HoldPrevious(old, 1_033_000); !errors.Is(err, ErrTargetBeforeFrame) {
+		t.Errorf("HoldPrevious not older than the held frame: %v, want ErrTargetBeforeFrame", err)
+	}
+	if err := f.HoldPrevious(old, 900_000); err != nil {
+		t.Fatal(err)
+	}
+	if us, _ := f.PreviousCaptureUs(); us != 900_000 {
+		t.Errorf("frame before last at %d, want 900000", us)
+	}
+	dst := gocv.NewMat()
+	defer dst.Close()
+	tk, err := f.Missing(1_066_000, &dst)
+	if err != nil || tk.CaptureUs != 1_033_000 {
+		t.Errorf("gap after Hold: %+v, %v; want it built from the frame at 1033000", tk, err)
 	}
 }

@@ -6,41 +6,37 @@ import (
 	"math/rand/v2"
 	"sort"
 	"strings"
+
+	"stopgap/display"
 )
 
-// Shown is what the console showed on a display tick. The zero value is
-// ShownInvalid.
-type Shown uint8
+// Shown is what the console showed on a display tick: the one frame-state
+// type (display.State), named here for the fit.
+type Shown = display.State
 
-// The display states, as in the console and ticks.csv.
+// The display states a fit uses. A NO_PICTURE tick counts as STALE (nothing
+// trustworthy on screen); NOT_SHOWN ticks are left out by the readers.
 const (
-	ShownInvalid Shown = iota
-	ShownLive
-	ShownPredicted
-	ShownStale
+	ShownInvalid   = display.StateInvalid
+	ShownLive      = display.StateLive
+	ShownPredicted = display.StatePredicted
+	ShownStale     = display.StateStale
 )
 
-// String returns "LIVE", "PREDICTED", "STALE" or "INVALID".
-func (s Shown) String() string {
-	switch s {
-	case ShownLive:
-		return "LIVE"
-	case ShownPredicted:
-		return "PREDICTED"
-	case ShownStale:
-		return "STALE"
-	}
-	return "INVALID"
-}
-
-// ParseShown is the inverse of String for the three valid states.
+// ParseShown parses a state name (display.ParseState) into the three states
+// a fit uses: NO_PICTURE becomes STALE, NOT_SHOWN is an error.
 func ParseShown(s string) (Shown, error) {
-	for _, v := range []Shown{ShownLive, ShownPredicted, ShownStale} {
-		if v.String() == s {
-			return v, nil
-		}
+	st, err := display.ParseState(s)
+	if err != nil {
+		return ShownInvalid, fmt.Errorf("%w: %w", ErrBadData, err)
 	}
-	return ShownInvalid, fmt.Errorf("%w: state %q; want LIVE, PREDICTED or STALE", ErrBadData, s)
+	switch st {
+	case display.StateNoPicture:
+		return ShownStale, nil
+	case display.StateNotShown:
+		return ShownInvalid, fmt.Errorf("%w: state %q was not on screen", ErrBadData, s)
+	}
+	return st, nil
 }
 
 // Sample is one control sample of the operator, attributed to the display

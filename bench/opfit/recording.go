@@ -11,6 +11,7 @@ import (
 	"strconv"
 	"strings"
 
+	"stopgap/display"
 	"stopgap/stream/operator"
 	"stopgap/stream/recording"
 	"stopgap/stream/relay"
@@ -53,7 +54,7 @@ func readPath(path string) (Path, error) {
 
 // LoadSession reads one recorded drive for a fit: the recording (with
 // arrivals.csv holding the live display deadlines), the relay's
-// relay.TicksFile
+// relay.ShownFile
 // and the operator's control log (operator.ControlsFile).
 //
 //   - Display times: a LIVE tick at its frame's arrival (it is shown at
@@ -81,7 +82,7 @@ func LoadSession(dir string) (Session, error) {
 			return Session{}, err
 		}
 	}
-	ticks, err := readTicks(filepath.Join(dir, relay.TicksFile), rec)
+	ticks, err := readTicks(filepath.Join(dir, relay.ShownFile), rec)
 	if err != nil {
 		return Session{}, err
 	}
@@ -158,7 +159,7 @@ func LoadSession(dir string) (Session, error) {
 	return Session{Ticks: ticks, Controls: controls, Truth: truth, Path: path}, nil
 }
 
-// readTicks reads the relay's ticks.csv and gives each tick its display
+// readTicks reads the relay's shown.csv and gives each tick its display
 // time from the recording's arrivals.
 func readTicks(path string, rec *recording.Recording) ([]Tick, error) {
 	data, err := os.ReadFile(path)
@@ -190,7 +191,7 @@ func readTicks(path string, rec *recording.Recording) ([]Tick, error) {
 		if len(f) < len(col) {
 			return nil, bad("too few fields")
 		}
-		if f[col["state"]] == "SKIPPED" {
+		if f[col["state"]] == display.StateNotShown.String() {
 			continue
 		}
 		shown, err := ParseShown(f[col["state"]])

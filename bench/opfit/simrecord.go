@@ -17,7 +17,7 @@ import (
 // it, for testing the fit end to end: camera.json, frames.csv (no images:
 // every file blank), truth.csv and telemetry.csv at the frame times (yaw
 // rate from consecutive headings), arrivals.csv with each
-// tick's deadline, ticks.csv, the operator's controls.csv (received 1 ms
+// tick's deadline, shown.csv, the operator's controls.csv (received 1 ms
 // after they were sampled) and the road's PathFile. dir must not exist.
 func (co *Course) WriteRecording(dir string, r SimResult) error {
 	if err := os.Mkdir(dir, 0o755); err != nil {
@@ -74,7 +74,7 @@ func (co *Course) WriteRecording(dir string, r SimResult) error {
 			}
 			return nil
 		},
-		relay.TicksFile: func(w *bufio.Writer) error {
+		relay.ShownFile: func(w *bufio.Writer) error {
 			w.WriteString("tick,state,age_ms,confidence,cutoff\n")
 			for k, t := range r.Session.Ticks {
 				fmt.Fprintf(w, "%d,%s,0,%.4f,%.4f\n", k, t.Shown, t.Confidence, t.Cutoff)

@@ -70,7 +70,7 @@ func runDemoLive(ctx context.Context, args []string, stdout, stderr io.Writer) e
 	outages := outageList{}
 	fs.StringVar(&dir, "dir", "stopgap-demo", "working `directory`; the simulated drive is rendered into it once and reused")
 	fs.StringVar(&listen, "listen", "127.0.0.1:0", "HTTP `address` of the relay (ingest and console); port 0 picks a free one")
-	fs.StringVar(&record, "record", "", "if set, a new `directory` the relay records the session into (frames, telemetry, arrivals, ticks.csv),\nwith the simulated vehicle's own full-quality recording in DIR/onboard")
+	fs.StringVar(&record, "record", "", "if set, a new `directory` the relay records the session into (frames, telemetry, arrivals, shown.csv),\nwith the simulated vehicle's own full-quality recording in DIR/onboard")
 	fs.Float64Var(&runS, "run-s", 0, "stop after this many seconds; 0 runs until Ctrl-C")
 	fs.Float64Var(&driveS, "drive-s", 20, "length of the simulated drive, s (it loops)")
 	fs.IntVar(&width, "width", 640, "camera width of the simulated drive, pixels")

@@ -45,7 +45,7 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	fs.StringVar(&tokenFile, "token-file", "", "`file` holding the vehicle's WHIP bearer token (else env STOPGAP_TOKEN, else a random one is generated)")
 	fs.StringVar(&consoleTokenFile, "console-token-file", "", "`file` holding the console bearer token (else env STOPGAP_CONSOLE_TOKEN, else random)")
 	fs.StringVar(&cameraFile, "camera", "", "camera.json `file` of the vehicle camera (required)")
-	fs.StringVar(&recordDir, "record", "", "record the drive into this new `directory` (frames, telemetry, arrivals, ticks.csv)")
+	fs.StringVar(&recordDir, "record", "", "record the drive into this new `directory` (frames, telemetry, arrivals, shown.csv)")
 	fs.Float64Var(&fps, "fps", relay.DefaultFPS, "vehicle camera frame rate, frames per second")
 	fs.Float64Var(&cutoff, "cutoff", pol.CutoffConfidence, "cutoff in [0,1] of the profile \"default\" created when the profile store is empty: below it a missing frame is shown STALE")
 	fs.StringVar(&storePath, "operators", operator.DefaultStorePath(), "operator profile store `file` the console reads its profiles from and writes its changes to (also $"+operator.StoreEnv+")")

@@ -11,6 +11,7 @@ import (
 	"time"
 
 	"stopgap/bench"
+	"stopgap/display"
 	"stopgap/predictor"
 	"stopgap/stream/console/consoletest"
 	"stopgap/stream/recording"
@@ -89,7 +90,7 @@ func TestOutage500ms(t *testing.T) {
 	if err != nil {
 		t.Fatalf("relay recording: %v", err)
 	}
-	ticks := readTicks(t, filepath.Join(r.recordDir, relay.TicksFile))
+	ticks := readTicks(t, filepath.Join(r.recordDir, relay.ShownFile))
 
 	t.Run("labelled", func(t *testing.T) {
 		// Frames captured in [cut + 5 ms, end - 15 ms] certainly had all their packets
@@ -104,7 +105,7 @@ func TestOutage500ms(t *testing.T) {
 			switch s := ticks[f.Index]; s {
 			case "PREDICTED", "STALE":
 			case "":
-				t.Errorf("tick %d (capture %d us, in the cut) has no ticks.csv row", f.Index, f.CaptureUs)
+				t.Errorf("tick %d (capture %d us, in the cut) has no shown.csv row", f.Index, f.CaptureUs)
 			default:
 				t.Errorf("tick %d (capture %d us, in the cut) was %s", f.Index, f.CaptureUs, s)
 			}
@@ -141,7 +142,7 @@ func TestOutage500ms(t *testing.T) {
 		if err != nil {
 			t.Fatalf("bench.Replay on the relay's recording: %v", err)
 		}
-		replayed := readTicks(t, filepath.Join(out, "ticks.csv"))
+		replayed := readTicks(t, filepath.Join(out, bench.TicksFile))
 		var both, same, liveSame, skipped int
 		var diffs []string
 		for k, ls := range ticks {
@@ -149,7 +150,7 @@ func TestOutage500ms(t *testing.T) {
 			if !ok {
 				continue
 			}
-			if ls == "SKIPPED" {
+			if ls == display.StateNotShown.String() {
 				skipped++
 				continue
 			}
@@ -164,10 +165,10 @@ func TestOutage500ms(t *testing.T) {
 			}
 		}
 		if both == 0 {
-			t.Fatal("no tick in both the live and the replayed ticks.csv")
+			t.Fatal("no tick in both the relay's shown.csv and the replay's ticks.csv")
 		}
 		agree, liveAgree := float64(same)/float64(both), float64(liveSame)/float64(both)
-		t.Logf("replay vs live over %d ticks (%d SKIPPED left out): state agreement %.1f%%, LIVE/not-LIVE agreement %.1f%%; first differences %v",
+		t.Logf("replay vs live over %d ticks (%d NOT_SHOWN left out): state agreement %.1f%%, LIVE/not-LIVE agreement %.1f%%; first differences %v",
 			both, skipped, 100*agree, 100*liveAgree, diffs)
 		if t.Failed() || agree < 0.95 || liveAgree < 0.98 {
 			arr, err := recording.ReadArrivals(filepath.Join(r.recordDir, "arrivals.csv"))
@@ -187,12 +188,12 @@ func TestOutage500ms(t *testing.T) {
 			t.Logf("live ticks %d, replayed ticks %d, recorded frames %d", len(ticks), len(replayed), len(rec.Frames))
 			keep := filepath.Join(consoletest.ArtifactDir(t), "e2e-outage-recording")
 			_ = os.MkdirAll(keep, 0o755)
-			for _, name := range []string{"arrivals.csv", "frames.csv", relay.TicksFile, "telemetry.csv"} {
+			for _, name := range []string{"arrivals.csv", "frames.csv", relay.ShownFile, "telemetry.csv"} {
 				if data, err := os.ReadFile(filepath.Join(r.recordDir, name)); err == nil {
 					_ = os.WriteFile(filepath.Join(keep, name), data, 0o644)
 				}
 			}
-			if data, err := os.ReadFile(filepath.Join(out, "ticks.csv")); err == nil {
+			if data, err := os.ReadFile(filepath.Join(out, bench.TicksFile)); err == nil {
 				_ = os.WriteFile(filepath.Join(keep, "replay-ticks.csv"), data, 0o644)
 			}
 			t.Logf("relay recording CSVs and the replay's ticks.csv kept in %s", keep)

@@ -11,7 +11,7 @@
 //	telemetry.csv   t_us,speed_mps,yaw_rate_rps[,accel_mps2][,steer_rad][,t_arrival_us]
 //	arrivals.csv    index,t_arrival_us[,t_deadline_us][,t_capture_us][,rtp_timestamp]
 //	                optional; blank t_arrival_us = never arrived
-//	ticks.csv       tick,state,age_ms,confidence,cutoff   a live session's decisions (TicksFile)
+//	shown.csv       tick,state,age_ms,confidence,cutoff   a live session's decisions (ShownFile)
 //	truth.csv       index,t_capture_us,x_m,y_m,yaw_rad,speed_mps,yaw_rate_rps   optional
 //
 // # Conventions

@@ -7,6 +7,8 @@ import (
 	"math"
 	"strings"
 	"testing"
+
+	"stopgap/display"
 )
 
 // frameUs is the capture time of frame n of a 30 fps camera that powered on
@@ -183,7 +185,7 @@ func TestReadSessionTicks(t *testing.T) {
 	if err != nil || len(rows) != 2 || len(warns) != 1 {
 		t.Fatalf("rows %+v warns %q err %v; want 2 rows and the cut last line dropped", rows, warns, err)
 	}
-	if rows[1] != (SessionTick{Tick: 1, State: "PREDICTED", AgeMs: 66.667, Confidence: 0.9, Cutoff: 0.5}) {
+	if rows[1] != (SessionTick{Tick: 1, State: display.StatePredicted, AgeMs: 66.667, Confidence: 0.9, Cutoff: 0.5}) {
 		t.Errorf("row 1 %+v", rows[1])
 	}
 	for _, bad := range []string{
@@ -276,7 +278,7 @@ func FuzzPairFrames(f *testing.F) {
 // rows, written back in the relay's format and read again, are the same.
 func FuzzSessionTicks(f *testing.F) {
 	f.Add([]byte("tick,state,age_ms,confidence,cutoff\n0,LIVE,0.000,1.0000,0.5000\n1,PREDICTED,66.667,0.9000,0.5000\n"))
-	f.Add([]byte("state,tick\nSTALE,3\nSKIPPED,1\n"))
+	f.Add([]byte("state,tick\nSTALE,3\nNOT_SHOWN,1\nNO_PICTURE,2\n"))
 	f.Add([]byte("tick,state,age_ms\n0,LIVE,NaN\n"))
 	f.Add([]byte("tick,state\n0,LIVE\n1,STA"))
 	f.Fuzz(func(t *testing.T, data []byte) {

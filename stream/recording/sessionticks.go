@@ -3,15 +3,28 @@ package recording
 import (
 	"fmt"
 	"os"
+
+	"stopgap/display"
 )
 
-// TicksFile is the file in a live session's recording directory that lists
-// what the operator was shown, one row per display tick: header
-// "tick,state,age_ms,confidence,cutoff", tick = frames.csv index, state
-// LIVE, PREDICTED, STALE, or SKIPPED for a tick superseded by a newer frame
-// and not shown. The live relay writes it; a replay of the session compares
-// its own decisions with it.
-const TicksFile = "ticks.csv"
+// The two per-tick tables. Their names live here, beside the recording's
+// other file names (CameraFile and the rest), so that no two files of the
+// project share one.
+const (
+	// ShownFile is the live relay's per-tick table in a session's
+	// recording directory: what the operator was shown, one row per
+	// display tick, header "tick,state,age_ms,confidence,cutoff"; tick =
+	// frames.csv index, state a display.State name (NOT_SHOWN for a tick
+	// decided but not put on screen), age_ms the age of the real picture
+	// behind it, confidence in [0, 1], cutoff the operator's cutoff the
+	// tick was decided with. A replay of the session compares its own
+	// decisions with it (ReadSessionTicks).
+	ShownFile = "shown.csv"
+	// ReplayTicksFile is the replay's per-tick table in a report
+	// directory (bench.TicksCSVHeader gives its columns): what the replay
+	// decided on every tick and the scores of each method.
+	ReplayTicksFile = "ticks.csv"
+)
 
 // Column names of TicksFile.
 const (
@@ -24,15 +37,12 @@ const (
 
 // SessionTick is one row of a session's TicksFile.
 type SessionTick struct {
-	Tick       int     // frames.csv index of the tick
-	State      string  // LIVE, PREDICTED, STALE or SKIPPED
-	AgeMs      float64 // age of the shown picture, ms
-	Confidence float64 // confidence in [0, 1]
-	Cutoff     float64 // the operator's cutoff at that tick
+	Tick       int           // frames.csv index of the tick
+	State      display.State // what the operator was shown (display.State's names)
+	AgeMs      float64       // age of the shown picture, ms
+	Confidence float64       // confidence in [0, 1]
+	Cutoff     float64       // the operator's cutoff at that tick
 }
-
-// sessionTickStates are the states a TicksFile row may carry.
-var sessionTickStates = map[string]bool{"LIVE": true, "PREDICTED": true, "STALE": true, "SKIPPED": true}
 
 // ReadSessionTicks reads a session's TicksFile strictly (a [*ParseError]
 // names file, line and column), except that an incomplete last line left by
@@ -55,18 +65,19 @@ func decodeSessionTicks(file string, data []byte) ([]SessionTick, []string, erro
 	seen := map[int64]int{}
 	warns, _, err := eachRow(t, func(rr *rowReader) {
 		k := rr.int64(colTick)
-		st, col, _ := rr.value(colState, true)
+		name, col, _ := rr.value(colState, true)
 		age, _ := rr.optFloat(colAgeMs, false)
 		conf, _ := rr.optFloat(colConfidence, false)
 		cut, _ := rr.optFloat(colCutoff, false)
 		if rr.err != nil {
 			return
 		}
+		st, stErr := display.ParseState(name)
 		switch {
 		case k < 0:
 			rr.fail(rr.colOf(colTick), fmt.Errorf("%w: tick %d is negative", ErrIndex, k))
-		case !sessionTickStates[st]:
-			rr.fail(col, fmt.Errorf("%w: state %q; want LIVE, PREDICTED, STALE or SKIPPED", ErrSyntax, st))
+		case stErr != nil:
+			rr.fail(col, fmt.Errorf("%w: %w", ErrSyntax, stErr))
 		default:
 			if line, dup := seen[k]; dup {
 				rr.fail(rr.colOf(colTick), fmt.Errorf("%w: tick %d already listed on line %d", ErrIndex, k, line))

@@ -1,6 +1,7 @@
 package relay
 
 import (
+	"math"
 	"testing"
 	"time"
 
@@ -8,6 +9,7 @@ import (
 
 	"stopgap/filter"
 	"stopgap/predictor"
+	"stopgap/stream/cadence"
 	"stopgap/stream/whip"
 )
 
@@ -24,7 +26,9 @@ func BenchmarkTick720p(b *testing.B) {
 	prev := predictor.SetOpenCVThreads(1)
 	defer predictor.SetOpenCVThreads(prev)
 	cam := predictor.Camera{Width: 1280, Height: 720, Fx: 1000, Fy: 1000, Cx: 640, Cy: 360, HeightM: 1.4, PitchDeg: 5}
-	r, err := New(Config{Camera: cam, IngestToken: testIngestToken, ConsoleToken: testConsoleToken, Logger: quietLogger(),
+	// A fixed latency: every frame below is ready 1 ms after its tick's
+	// nominal arrival, so it is LIVE.
+	r, err := New(Config{Camera: cam, LatencyMs: 50, IngestToken: testIngestToken, ConsoleToken: testConsoleToken, Logger: quietLogger(),
 		Whip: whip.Config{Network: whip.Network{LoopbackOnly: true}}})
 	if err != nil {
 		b.Fatal(err)
@@ -37,11 +41,15 @@ func BenchmarkTick720p(b *testing.B) {
 	}
 	defer p.close()
 	const t0 = 1_000_000_000
-	for i := 0; i <= 100; i++ {
-		if err := p.flt.Add(filter.Sample{TimeUs: t0 + int64(i)*10_000, SpeedMps: 10, YawRateRps: 0.05}); err != nil {
-			b.Fatal(err)
+	telUs := int64(t0) // telemetry at 100 Hz up to untilUs
+	telemetryUntil := func(untilUs int64) {
+		for ; telUs <= untilUs; telUs += 10_000 {
+			if err := p.flt.Add(filter.Sample{TimeUs: telUs, SpeedMps: 10, YawRateRps: 0.05}); err != nil {
+				b.Fatal(err)
+			}
 		}
 	}
+	telemetryUntil(t0 + 1_000_000)
 	// A moving textured scene (gradients and a checkerboard panning 8 px
 	// right and 2 px down per frame), not noise: noise is the worst case for
 	// VP8 and not what a camera sees; and not one still picture, which VP8
@@ -55,33 +63,36 @@ func BenchmarkTick720p(b *testing.B) {
 	}()
 	var encBytes, encFrames int
 	encoded := func() { encBytes += len(p.encBuf); encFrames++ }
+	const periodUs = 1e6 / DefaultFPS
+	captureOf := func(k int) int64 { return t0 + int64(math.Round(float64(k)*periodUs)) }
 	live := func(k int, img gocv.Mat) {
 		m := <-p.free
 		img.CopyTo(m)
-		c := p.nominalCaptureUs(k)
-		p.onFrame(frameEvent{mat: m, captureUs: c, readyUs: c + 1000, lastPktAt: time.Now(), vehicleClk: true})
+		c := captureOf(k)
+		p.onFrame(frameEvent{mat: m, captureUs: c, readyUs: c + 51_000, lastPktAt: time.Now(), vehicleClk: true})
 	}
 	report := func(b *testing.B) {
 		b.ReportMetric(float64(encBytes)/float64(encFrames)/1000, "kB/frame")
 	}
-	p.latUs, p.latKnown = 50_000, true
-	p.haveC0 = true
-	p.grid.Observe(t0) // tick 0 at t0
-	live(0, seq[0])
+	live(0, seq[0]) // tick 0 at t0
+	k := 0
 
 	b.Run("live", func(b *testing.B) {
 		encBytes, encFrames = 0, 0
 		b.ReportAllocs()
 		for i := 0; i < b.N; i++ {
-			p.next = 0 // tick 0 is due again, so the frame is shown, not late
-			live(0, seq[i%len(seq)])
+			k++ // the next tick's frame, in time
+			live(k, seq[i%len(seq)])
 			encoded()
 		}
 		b.StopTimer()
 		report(b)
 	})
 	b.Run("predicted", func(b *testing.B) {
-		live(0, seq[0])
+		k++
+		live(k, seq[0])
+		held := k
+		telemetryUntil(captureOf(held) + 10_000)
 		encBytes, encFrames = 0, 0
 		b.ReportAllocs()
 		b.ResetTimer()
@@ -89,7 +100,9 @@ func BenchmarkTick720p(b *testing.B) {
 		for i := 0; i < b.N; i++ {
 			// Ticks 1..6 after the held frame (33 to 200 ms), over and
 			// over: each output is a different warp, as in a real gap.
-			p.missing(1 + i%6)
+			j := held + 1 + i%6
+			c := captureOf(j)
+			p.Missing(cadence.Tick{K: j, TargetUs: c, DeadlineUs: c + 70_000, Policy: predictor.DefaultPolicy()})
 			encoded()
 		}
 		b.StopTimer()

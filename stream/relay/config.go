@@ -67,7 +67,7 @@ type Config struct {
 
 	// RecordDir, if not empty, is a new directory the relay records the
 	// drive into (see the package documentation of stopgap/stream/recording,
-	// plus ticks.csv with what the relay showed).
+	// plus shown.csv with what the relay showed).
 	RecordDir string
 	// RecordQuality is the JPEG quality 1..100 of recorded frames (default
 	// DefaultRecordQuality).

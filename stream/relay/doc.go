@@ -7,26 +7,26 @@
 //
 // # Display schedule
 //
-// The relay uses the same display semantics as the offline replay
-// (stopgap/bench, type Schedule). Tick k stands for frame k, whose capture
-// time on the display grid (stopgap/stream/cadence: locked to the vehicle's
-// capture times, following its rate and phase) is g_k on the vehicle clock.
-// Its deadline on the receiver clock is
+// The relay decides nothing about a tick itself: its display loop drives
+// the one decision core, stopgap/stream/cadence's Clock, with real time, as
+// the offline replay (stopgap/bench) drives it with virtual time. Tick k
+// stands for frame k, whose capture time on the display grid (locked to the
+// vehicle's capture times, following its rate and phase) is g_k on the
+// vehicle clock. Its deadline on the receiver clock is
 //
 //	d_k = g_k + L + allowance
 //
 // where L is the nominal capture-to-arrival latency (receiver clock minus
-// vehicle clock, so it includes the clock offset). Frame k is LIVE if it
-// arrived and decoded by d_k, and it is shown as soon as it is decoded (no
-// waiting for the deadline). Otherwise, at d_k, the tick is missing and the
-// Filler fills it (target g_k) from the newest frame that arrived by d_k. A
-// frame that arrives after its deadline becomes the held frame for later
-// gaps but is not shown. Telemetry samples go to the filter as they arrive.
-//
-// L is Config.LatencyMs, or, when that is 0, the median of (arrival -
-// capture) over the first LatencyFrames frames of a session, frozen for the
-// rest of the session and logged. Until it is frozen the median of the frames
-// so far is used.
+// vehicle clock, so it includes the clock offset): Config.LatencyMs, or,
+// when that is 0, the running median of (ready - capture) over the frames
+// so far, frozen after cadence.LatencyFrames frames and logged. Frame k is
+// LIVE if it was decoded by d_k, and it is shown as soon as it is decoded
+// (no waiting for the deadline). Otherwise, at d_k, the tick is missing and
+// the Filler fills it (target g_k) from the newest frame that arrived by
+// d_k, with the operator's cutoff read once for that tick (the value
+// recorded). A frame that arrives after its deadline becomes the held frame
+// for later gaps but is not shown. Telemetry reaches the filter before the
+// first tick whose deadline it arrived by. See cadence.Clock for the rule.
 //
 // # Capture times
 //
@@ -63,7 +63,7 @@
 // display loop only after its tick was filled; blank = never arrived), plus
 // t_capture_us (c_k again) and rtp_timestamp (the RTP timestamp the frame
 // arrived with, blank if it never did), which pair the session with the
-// vehicle's onboard recording; telemetry.csv with t_arrival_us; and TicksFile (ticks.csv)
+// vehicle's onboard recording; telemetry.csv with t_arrival_us; and ShownFile (shown.csv)
 // with what the relay showed. Rows are written by a separate goroutine so JPEG
 // encoding and fsyncs never delay the display. Recording starts at the first
 // tick whose capture time is on the vehicle clock (after the first sender

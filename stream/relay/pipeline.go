@@ -12,6 +12,7 @@ import (
 
 	"gocv.io/x/gocv"
 
+	"stopgap/display"
 	"stopgap/filter"
 	"stopgap/predictor"
 	"stopgap/stream/cadence"
@@ -32,26 +33,16 @@ type pipeline struct {
 	free   chan *gocv.Mat
 	frames chan frameEvent
 	tel    chan telEvent
-	// pendTel holds telemetry that arrived but whose tick has not been
-	// handled yet (see onTelemetry).
-	pendTel []telEvent
 
 	flt    *filter.Filter
 	filler *predictor.Filler
 	out    gocv.Mat // labelled output frame
-	held   gocv.Mat // scratch for late frames
 	encBuf []byte
 	meta   console.Meta
 
-	// Session timeline (receiver and vehicle clocks in µs). The display
-	// ticks lie on grid, locked to the vehicle's capture cadence
-	// (stream/cadence); haveC0 tells whether it has its first frame.
-	grid         *cadence.Grid
-	haveC0       bool
-	next         int // lowest tick whose deadline has not been handled
-	latUs        int64
-	latKnown     bool
-	latSamples   []int64
+	// clock decides every tick (stream/cadence.Clock); the pipeline is
+	// its real-time driver (the cadence.Handler).
+	clock        *cadence.Clock
 	vehicleClock bool
 	// Recording: tick k is row recBase+k; rows below recStart belong to
 	// ticks shown before the session reached the vehicle clock (or to an
@@ -74,9 +65,19 @@ func newPipeline(r *Relay, s IngestSession) (*pipeline, error) {
 	cfg := r.cfg
 	p := &pipeline{r: r, cfg: cfg, sess: s, log: r.log.With("session", short(s.ID()))}
 	var err error
-	p.grid, err = cadence.New(cfg.periodUs())
+	p.clock, err = cadence.NewClock(cadence.ClockConfig{
+		PeriodUs:     cfg.periodUs(),
+		AllowanceUs:  int64(math.Round(cfg.AllowanceMs * 1000)),
+		FixedLatency: cfg.LatencyMs != 0,
+		LatencyUs:    int64(math.Round(cfg.LatencyMs * 1000)),
+		Policy:       cfg.Policy,
+		// The operator's cutoff, read once per tick: the value decided
+		// with is the one recorded.
+		Cutoff:    func(int) float64 { return r.console.Cutoff() },
+		HistoryUs: p.maxTelAgeUs(),
+	})
 	if err != nil {
-		return nil, fmt.Errorf("relay: display grid: %w: %w", ErrBadConfig, err)
+		return nil, fmt.Errorf("relay: display clock: %w: %w", ErrBadConfig, err)
 	}
 	p.flt, err = filter.New(cfg.Filter)
 	if err != nil {
@@ -85,7 +86,7 @@ func newPipeline(r *Relay, s IngestSession) (*pipeline, error) {
 	if err := p.newFiller(); err != nil {
 		return nil, err
 	}
-	p.out, p.held = gocv.NewMat(), gocv.NewMat()
+	p.out = gocv.NewMat()
 	p.pool = make([]gocv.Mat, cfg.FrameQueue)
 	p.free = make(chan *gocv.Mat, cfg.FrameQueue)
 	p.frames = make(chan frameEvent, cfg.FrameQueue)
@@ -94,9 +95,8 @@ func newPipeline(r *Relay, s IngestSession) (*pipeline, error) {
 		p.free <- &p.pool[i]
 	}
 	p.tel = make(chan telEvent, cfg.TelemetryQueue)
-	if cfg.LatencyMs != 0 {
-		p.latUs, p.latKnown = int64(math.Round(cfg.LatencyMs*1000)), true
-		r.setLatency(p.latUs, true)
+	if lat, final := p.clock.Latency(); final {
+		r.setLatency(lat, true)
 	}
 	p.in, err = newIngest(p)
 	if err != nil {
@@ -111,7 +111,7 @@ func (p *pipeline) newFiller() error {
 		p.filler.Close()
 	}
 	pol := p.cfg.Policy
-	pol.CutoffConfidence = p.r.console.Cutoff() // updated per tick in missing
+	pol.CutoffConfidence = p.r.console.Cutoff() // each tick's own in Missing
 	f, err := predictor.NewFiller(predictor.FillerConfig{Camera: p.cfg.Camera, Policy: pol, Motion: p.flt})
 	if err != nil {
 		return fmt.Errorf("relay: gap filler: %w", err)
@@ -129,7 +129,6 @@ func (p *pipeline) close() {
 		p.filler.Close()
 	}
 	p.out.Close()
-	p.held.Close()
 	for i := range p.pool {
 		p.pool[i].Close()
 	}
@@ -170,7 +169,7 @@ loop:
 			p.onTelemetry(te)
 		case <-timer.C():
 			p.drain()
-			p.advance(p.cfg.Now().UnixMicro())
+			p.clock.Advance(p, p.cfg.Now().UnixMicro())
 		}
 	}
 	cancel()
@@ -229,66 +228,30 @@ func (p *pipeline) drain() {
 // armTimer sets the timer to the deadline of the next unresolved tick.
 func (p *pipeline) armTimer(t Timer) {
 	t.Stop()
-	if !p.haveC0 {
+	next, ok := p.clock.NextDeadlineUs()
+	if !ok {
 		t.Reset(IdleWake) // wake anyway: the liveness probe watches the loop
 		return
 	}
-	// One microsecond after the deadline: advance fills ticks whose
+	// One microsecond after the deadline: Advance fills ticks whose
 	// deadline has passed, and a frame ready at the deadline is in time.
-	d := time.Duration(p.deadlineUs(p.next)+1-p.cfg.Now().UnixMicro()) * time.Microsecond
+	d := time.Duration(next+1-p.cfg.Now().UnixMicro()) * time.Microsecond
 	if d < 0 {
 		d = 0
 	}
 	t.Reset(d)
 }
 
-func (p *pipeline) nominalCaptureUs(k int) int64 {
-	return p.grid.CaptureUs(k)
-}
-
-func (p *pipeline) deadlineUs(k int) int64 {
-	return p.nominalCaptureUs(k) + p.latUs + int64(math.Round(p.cfg.AllowanceMs*1000))
-}
-
-// onTelemetry feeds one sample to the filter (and the recording).
-//
-// Samples wait in pendTel until the tick whose deadline they arrived by is
-// handled (feedTelemetry), exactly as the offline replay feeds them, so the
-// filter sees the same samples at every tick in both and a recorded session
-// replays to the same PREDICTED/STALE decisions.
-//
-// A sample that arrives later than the filter's history window after it was
-// taken (on the display clock: vehicle time plus the nominal latency) is
-// dropped and counted as "too_late": an ordered, reliable data channel
-// delivers such samples in a burst after an outage, and none can change a
-// tick the display still has to fill.
-//
-// A sample that reaches the display loop after ticks it had arrived in time
-// for were filled without it (a starved CPU) is recorded as arriving just
-// after the last tick filled, as late frames are (onFrame): the replay must
-// give the filter the samples the display loop had.
+// onTelemetry hands one sample to the display clock, which gives it to the
+// filter (Telemetry) before the first tick whose deadline it arrived by, as
+// the replay does, or drops it as later than the filter's history window
+// (counted as "too_late": an ordered, reliable data channel delivers such
+// samples in a burst after an outage, and none can change a tick the display
+// still has to fill).
 func (p *pipeline) onTelemetry(te telEvent) {
-	if p.vehicleClock && p.latKnown && telemetryTooLate(te.arrivalUs, te.sample.TimeUs, p.latUs, p.maxTelAgeUs()) {
+	if !p.clock.Telemetry(p, te.sample, te.arrivalUs) {
 		p.r.met.telemetryRejected.inc("too_late")
-		return
 	}
-	if !p.haveC0 || len(p.pendTel) >= maxPendingTelemetry {
-		p.feed(te)
-		return
-	}
-	if p.next > 0 {
-		if d := p.deadlineUs(p.next - 1); te.arrivalUs <= d {
-			te.arrivalUs = d + 1
-		}
-	}
-	p.pendTel = append(p.pendTel, te)
-}
-
-// telemetryTooLate reports whether a sample taken at timeUs (vehicle clock)
-// that arrived at arrivalUs (receiver clock) is more than maxAgeUs late,
-// latUs being the nominal receiver-minus-vehicle latency.
-func telemetryTooLate(arrivalUs, timeUs, latUs, maxAgeUs int64) bool {
-	return arrivalUs-(timeUs+latUs) > maxAgeUs
 }
 
 // maxTelAgeUs is the filter's history window (filter.Config.HistoryUs).
@@ -299,23 +262,10 @@ func (p *pipeline) maxTelAgeUs() int64 {
 	return filter.DefaultHistoryUs
 }
 
-// maxPendingTelemetry bounds the samples waiting for their tick (40 s of
-// 100 Hz telemetry); beyond it samples go to the filter at once.
-const maxPendingTelemetry = 4096
-
-// feedTelemetry gives the filter every waiting sample that arrived by
-// untilUs (receiver clock), in arrival order.
-func (p *pipeline) feedTelemetry(untilUs int64) {
-	n := 0
-	for _, te := range p.pendTel {
-		if te.arrivalUs <= untilUs {
-			p.feed(te)
-		} else {
-			p.pendTel[n] = te
-			n++
-		}
-	}
-	p.pendTel = p.pendTel[:n]
+// Telemetry is the display clock's instruction to feed one sample to the
+// filter (cadence.Handler); arrivalUs is the time the display had it by.
+func (p *pipeline) Telemetry(s filter.Sample, arrivalUs int64) {
+	p.feed(telEvent{sample: s, arrivalUs: arrivalUs})
 }
 
 // feed adds one sample to the filter (and the recording).
@@ -335,118 +285,84 @@ func (p *pipeline) feed(te telEvent) {
 	}
 }
 
-// advance handles every tick whose deadline is before nowUs: the frame did
-// not come in time, so the tick is filled. A frame ready exactly at its
-// deadline is LIVE, the replay's rule (bench.Schedule.Live: arrival <=
-// deadline).
-func (p *pipeline) advance(nowUs int64) {
-	if !p.haveC0 {
-		return
-	}
-	for p.deadlineUs(p.next) < nowUs {
-		p.missing(p.next)
-		p.next++
-	}
-}
-
-// onFrame handles one decoded frame.
+// onFrame hands one decoded frame to the display clock, which fills the
+// ticks that became due first (Missing), and then shows it (LIVE) or holds
+// it for later gaps (late).
 func (p *pipeline) onFrame(ev frameEvent) {
 	defer func() { p.free <- ev.mat }()
 	if ev.hasShift {
 		p.shift(ev.shiftUs)
 	}
-	if !p.haveC0 {
-		p.haveC0, p.next = true, 0
-	}
 	if ev.vehicleClk && !p.vehicleClock {
 		p.startRecording()
 	}
 	p.lastDelayMs = float64(ev.readyUs-ev.captureUs) / 1000
-	if !p.latKnown {
-		p.latSamples = append(p.latSamples, ev.readyUs-ev.captureUs)
-		s := append([]int64(nil), p.latSamples...)
-		sort.Slice(s, func(i, j int) bool { return s[i] < s[j] })
-		p.latUs = s[len(s)/2]
-		if len(s) >= LatencyFrames {
-			p.latKnown = true
-			p.log.Info("nominal latency estimated and frozen for this session", "latency_ms", float64(p.latUs)/1000, "frames", len(s))
+	_, wasFinal := p.clock.Latency()
+	v := p.clock.Frame(p, ev.captureUs, ev.readyUs)
+	if lat, final := p.clock.Latency(); !wasFinal {
+		if final {
+			p.log.Info("nominal latency estimated and frozen for this session", "latency_ms", float64(lat)/1000, "frames", cadence.LatencyFrames)
 		}
-		p.r.setLatency(p.latUs, p.latKnown)
+		p.r.setLatency(lat, final)
 	}
-	k := p.grid.Observe(ev.captureUs)
-	// Deadlines that passed before this frame was ready (a frame ready at
-	// its deadline is still in time, as in bench.Schedule.Live).
-	p.advance(ev.readyUs)
-	if k < p.next {
-		// Late: it becomes the held frame for later gaps, but is not shown.
+	k := v.Tick.K
+	if !v.Live {
+		// Late: it becomes the held frame for later gaps, but is not
+		// shown. The recording keeps the arrival the display had
+		// (cadence.Frame.ArrivalUs), so the replay decides as it did.
 		p.r.met.lateFrames.Add(1)
-		if _, err := p.filler.Live(*ev.mat, ev.captureUs, &p.held); err != nil {
+		if err := p.filler.Hold(*ev.mat, ev.captureUs); err != nil {
 			p.log.Warn("holding a late frame failed", "err", err)
 		}
-		// A frame decoded by a deadline can still reach the display loop
-		// after that tick was filled (the display loop or the ingest
-		// goroutine was not scheduled in between), and on a starved CPU
-		// several later ticks may have been filled without it too. The
-		// display had no frame until now, so the recording says it
-		// arrived after the deadline of the last tick filled: the replay
-		// must decide as the display did, on this tick and the later ones.
-		arrivalUs := ev.readyUs
-		if d := p.deadlineUs(p.next - 1); arrivalUs <= d {
-			p.log.Debug("frame decoded in time reached the display after its tick was filled", "tick", k, "last_filled_tick", p.next-1, "ready_before_deadline_us", d-arrivalUs)
-			arrivalUs = d + 1
+		if v.ArrivalUs != ev.readyUs {
+			p.log.Debug("frame decoded in time reached the display after its tick was filled", "tick", k, "moved_us", v.ArrivalUs-ev.readyUs)
 		}
-		p.record(func(rc *recorder) { rc.frame(p.recIndex(k), ev.captureUs, arrivalUs, ev.rtpTS, *ev.mat) })
+		p.record(func(rc *recorder) { rc.frame(p.recIndex(k), ev.captureUs, v.ArrivalUs, ev.rtpTS, *ev.mat) })
 		return
-	}
-	// Earlier ticks whose frames can no longer come (frames arrive in order).
-	for p.next < k {
-		p.missing(p.next)
-		p.next++
 	}
 	tick, err := p.filler.Live(*ev.mat, ev.captureUs, &p.out)
 	if err != nil {
 		p.log.Warn("showing a live frame failed", "err", err)
+		p.recordNotShown(v.Tick)
 		return
 	}
-	p.next = k + 1
-	p.feedTelemetry(p.deadlineUs(k))
-	p.emit(k, ev.captureUs, tick, &ev)
-	p.record(func(rc *recorder) { rc.frame(p.recIndex(k), ev.captureUs, ev.readyUs, ev.rtpTS, *ev.mat) })
+	p.emit(v.Tick, ev.captureUs, tick, &ev)
+	p.record(func(rc *recorder) { rc.frame(p.recIndex(k), ev.captureUs, v.ArrivalUs, ev.rtpTS, *ev.mat) })
 }
 
-// missing fills tick k at its deadline.
-func (p *pipeline) missing(k int) {
-	p.feedTelemetry(p.deadlineUs(k))
-	c := p.nominalCaptureUs(k)
-	// The operator's cutoff may change at any tick.
-	pol := predictor.Policy{CutoffConfidence: p.r.console.Cutoff(), MaxAgeMs: p.cfg.Policy.MaxAgeMs}
-	if err := p.filler.SetPolicy(pol); err != nil {
-		p.log.Warn("operator cutoff rejected; keeping the previous one", "cutoff", pol.CutoffConfidence, "err", err)
+// Missing fills tick t at its deadline with the tick's own policy (the
+// display clock's instruction, cadence.Handler).
+func (p *pipeline) Missing(t cadence.Tick) {
+	if err := p.filler.SetPolicy(t.Policy); err != nil {
+		// The clock hands only valid cutoffs; keep the check honest.
+		p.log.Warn("tick policy refused", "tick", t.K, "err", err)
 	}
-	tick, err := p.filler.MissingWith(predictor.MethodGround, c, &p.out)
+	tick, err := p.filler.MissingWith(predictor.MethodGround, t.TargetUs, &p.out)
 	switch {
 	case errors.Is(err, predictor.ErrNoFrame):
-		tick.State = predictor.StateStale // labelled "no picture" frame
+		// A labelled "no picture" frame (NO_PICTURE).
 	case errors.Is(err, predictor.ErrTargetBeforeFrame):
 		// A newer frame was already shown (a frame arrived early): showing
 		// an older tick now would go back in time. Record it only.
-		p.recordSkipped(k, c)
+		p.recordNotShown(t)
 		return
 	case err != nil:
-		p.log.Warn("filling a missing tick failed", "tick", k, "err", err)
-		p.recordSkipped(k, c)
+		p.log.Warn("filling a missing tick failed", "tick", t.K, "err", err)
+		p.recordNotShown(t)
 		return
 	}
 	p.r.met.synth.observe(tick.SynthDuration)
-	p.emit(k, c, tick, nil)
+	p.emit(t, t.TargetUs, tick, nil)
 }
 
 // emit encodes the output frame and sends it with its meta to the console.
-func (p *pipeline) emit(k int, captureUs int64, tick predictor.Tick, ev *frameEvent) {
+// t is the display clock's tick, whose cutoff is the one decided with and
+// recorded; captureUs is the frame's capture time (LIVE) or t's target.
+func (p *pipeline) emit(t cadence.Tick, captureUs int64, tick predictor.Tick, ev *frameEvent) {
 	buf, err := p.out.DataPtrUint8()
 	if err != nil {
 		p.log.Warn("output frame unusable", "err", err)
-		p.recordSkipped(k, captureUs)
+		p.recordNotShown(t)
 		return
 	}
 	t0 := p.cfg.Now()
@@ -459,7 +375,7 @@ func (p *pipeline) emit(k int, captureUs int64, tick predictor.Tick, ev *frameEv
 	encDur := p.cfg.Now().Sub(t0)
 	if err != nil {
 		p.log.Warn("encoding the output frame failed", "err", err)
-		p.recordSkipped(k, captureUs)
+		p.recordNotShown(t)
 		return
 	}
 	p.encBuf = frame
@@ -476,7 +392,7 @@ func (p *pipeline) emit(k int, captureUs int64, tick predictor.Tick, ev *frameEv
 	if ev != nil {
 		p.r.met.addedLatency.observe(p.cfg.Now().Sub(ev.lastPktAt) - ev.decodeDur - encDur)
 	}
-	cutoff := p.r.console.Cutoff()
+	cutoff := t.Policy.CutoffConfidence
 	var st console.State
 	switch tick.State {
 	case predictor.StateLive:
@@ -486,6 +402,8 @@ func (p *pipeline) emit(k int, captureUs int64, tick predictor.Tick, ev *frameEv
 		st = console.StatePredicted
 		p.r.met.ticksPredicted.Add(1)
 	default:
+		// NO_PICTURE is shown to the console as STALE until its page
+		// knows the state.
 		st = console.StateStale
 		p.r.met.ticksStale.Add(1)
 	}
@@ -496,7 +414,7 @@ func (p *pipeline) emit(k int, captureUs int64, tick predictor.Tick, ev *frameEv
 	if err := p.r.console.WriteMeta(p.meta); err != nil && !errors.Is(err, console.ErrClosed) {
 		p.log.Warn("console meta failed", "err", err)
 	}
-	p.record(func(rc *recorder) { rc.tick(p.recIndex(k), captureUs, p.deadlineUs(k), st.String(), age, conf, cutoff) })
+	p.record(func(rc *recorder) { rc.tick(p.recIndex(t.K), captureUs, t.DeadlineUs, tick.State, age, conf, cutoff) })
 	if trace != nil {
 		tr := FrameTrace{Seq: p.meta.Seq, TickUs: captureUs, State: st, Encode: encDur, WrittenAt: writtenAt}
 		if ev != nil {
@@ -506,12 +424,13 @@ func (p *pipeline) emit(k int, captureUs int64, tick predictor.Tick, ev *frameEv
 	}
 }
 
-// recordSkipped records tick k as not shown. Every handled tick gets a
-// ticks.csv row: the recorder writes rows in index order and waits for each
-// row's tick.
-func (p *pipeline) recordSkipped(k int, captureUs int64) {
-	cutoff := p.r.console.Cutoff()
-	p.record(func(rc *recorder) { rc.tick(p.recIndex(k), captureUs, p.deadlineUs(k), "SKIPPED", 0, 0, cutoff) })
+// recordNotShown records tick t as NOT_SHOWN. Every decided tick gets a row
+// in the relay's ticks table: the recorder writes rows in index order and
+// waits for each row's tick.
+func (p *pipeline) recordNotShown(t cadence.Tick) {
+	p.record(func(rc *recorder) {
+		rc.tick(p.recIndex(t.K), t.TargetUs, t.DeadlineUs, display.StateNotShown, 0, 0, t.Policy.CutoffConfidence)
+	})
 }
 
 // refreshLink updates the link statistics about once per second.
@@ -559,18 +478,7 @@ func noPacketsMs(now, last time.Time) float64 {
 // the arrival anchor to the vehicle clock. The held frame's capture time is on
 // the old timeline, so the filler starts over.
 func (p *pipeline) shift(d int64) {
-	if p.haveC0 {
-		p.grid.Shift(d)
-	}
-	if p.cfg.LatencyMs != 0 {
-		// A configured latency is relative to the vehicle clock already.
-		p.latUs = int64(math.Round(p.cfg.LatencyMs * 1000))
-	} else {
-		p.latUs -= d
-	}
-	for i := range p.latSamples {
-		p.latSamples[i] -= d
-	}
+	p.clock.Shift(d)
 	if err := p.newFiller(); err != nil {
 		p.log.Error("recreating the gap filler failed", "err", err)
 	}
@@ -583,12 +491,13 @@ func (p *pipeline) shift(d int64) {
 // later tick k and the frame the display mapped to k share row recBase+k.
 func (p *pipeline) startRecording() {
 	p.vehicleClock = true
+	p.clock.UseVehicleClock()
 	if p.r.rec == nil {
 		return
 	}
 	p.recording = true
 	p.recStart = p.r.rec.nextIndex()
-	p.recBase = p.recStart - p.next
+	p.recBase = p.recStart - p.clock.Next()
 }
 
 // recIndex returns the recording row of tick k, or -1 if tick k is not

@@ -12,15 +12,13 @@ import (
 
 	"gocv.io/x/gocv"
 
+	"stopgap/display"
 	"stopgap/stream/recording"
 )
 
-// TicksFile is the file in a recording directory that lists what the relay
-// showed: one row per display tick, header "tick,state,age_ms,confidence,cutoff"
-// (tick = frames.csv index; state LIVE, PREDICTED, STALE, or SKIPPED for a
-// tick superseded by an earlier-arriving newer frame and not shown).
-// recording.ReadSessionTicks reads it.
-const TicksFile = recording.TicksFile
+// ShownFile is the file in a recording directory that lists what the relay
+// showed, one row per display tick (see recording.ShownFile).
+const ShownFile = recording.ShownFile
 
 const ticksHeader = "tick,state,age_ms,confidence,cutoff\n"
 
@@ -37,7 +35,7 @@ type recMsg struct {
 	deadlineUs int64
 	arrivalUs  int64
 	rtpTS      uint32
-	state      string
+	state      display.State
 	ageMs      float64
 	confidence float64
 	cutoff     float64
@@ -85,8 +83,10 @@ type recorder struct {
 	latestUs  int64
 	lastTelUs int64
 	haveTel   bool
-	lastCapUs int64
-	line      []byte
+	// warnedTelOrder: an out-of-order telemetry sample was logged.
+	warnedTelOrder bool
+	lastCapUs      int64
+	line           []byte
 }
 
 func newRecorder(cfg Config, met *metrics) (*recorder, error) {
@@ -94,7 +94,7 @@ func newRecorder(cfg Config, met *metrics) (*recorder, error) {
 	if err != nil {
 		return nil, fmt.Errorf("relay: recording: %w", err)
 	}
-	f, err := os.OpenFile(filepath.Join(cfg.RecordDir, TicksFile), os.O_CREATE|os.O_EXCL|os.O_WRONLY|os.O_APPEND, 0o644)
+	f, err := os.OpenFile(filepath.Join(cfg.RecordDir, ShownFile), os.O_CREATE|os.O_EXCL|os.O_WRONLY|os.O_APPEND, 0o644)
 	if err != nil {
 		w.Close()
 		return nil, fmt.Errorf("relay: recording: %w; choose a new --record directory", err)
@@ -125,7 +125,7 @@ func (rc *recorder) send(m recMsg) {
 	}
 }
 
-func (rc *recorder) tick(index int, captureUs, deadlineUs int64, state string, ageMs, confidence, cutoff float64) {
+func (rc *recorder) tick(index int, captureUs, deadlineUs int64, state display.State, ageMs, confidence, cutoff float64) {
 	if index < 0 {
 		return
 	}
@@ -209,7 +209,7 @@ func (rc *recorder) onTick(m recMsg) {
 	b := rc.line[:0]
 	b = strconv.AppendInt(b, int64(m.index), 10)
 	b = append(b, ',')
-	b = append(b, m.state...)
+	b = append(b, m.state.String()...)
 	b = append(b, ',')
 	b = strconv.AppendFloat(b, m.ageMs, 'f', 3, 64)
 	b = append(b, ',')
@@ -219,7 +219,7 @@ func (rc *recorder) onTick(m recMsg) {
 	b = append(b, '\n')
 	rc.line = b
 	if _, err := rc.ticks.Write(b); err != nil {
-		rc.fail("ticks.csv", err)
+		rc.fail(ShownFile, err)
 	}
 	if m.index < rc.nextWrite {
 		return
@@ -312,7 +312,16 @@ func (rc *recorder) flush(all bool) {
 
 func (rc *recorder) onTel(row recording.TelemetryRow) {
 	if rc.haveTel && row.TimeUs <= rc.lastTelUs {
-		rc.met.recordErrors.Add(1) // telemetry.csv needs increasing t_us
+		// telemetry.csv needs increasing t_us, but the filter takes a
+		// sample that arrives out of order (an unordered data channel):
+		// a replay of this recording will lack it, and may decide the
+		// ticks after it differently. Counted, and said once per session.
+		rc.met.recordErrors.Add(1)
+		if !rc.warnedTelOrder {
+			rc.warnedTelOrder = true
+			rc.log.Warn("telemetry sample out of order not recorded: a replay of this recording lacks it and may differ from the live decisions",
+				"t_us", row.TimeUs, "previous_t_us", rc.lastTelUs)
+		}
 		return
 	}
 	if err := rc.w.WriteTelemetry(row); err != nil {
