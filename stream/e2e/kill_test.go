@@ -19,9 +19,14 @@ import (
 
 // publishVehicle plays rec (looped) from this process to the relay at base
 // until stop is called or the test ends; it returns once the vehicle plays.
-func publishVehicle(t testing.TB, rec *recording.Recording, base string) (veh *simvehicle.Vehicle, stop func()) {
+// onFrame, if not nil, sees every frame handed to the link.
+func publishVehicle(t testing.TB, rec *recording.Recording, base string, onFrame ...func(simvehicle.FrameInfo)) (veh *simvehicle.Vehicle, stop func()) {
 	t.Helper()
-	veh, err := simvehicle.New(simvehicle.Config{Recording: rec, Loop: true, CacheFrames: true})
+	cfg := simvehicle.Config{Recording: rec, Loop: true, CacheFrames: true}
+	if len(onFrame) > 0 {
+		cfg.OnFrame = onFrame[0]
+	}
+	veh, err := simvehicle.New(cfg)
 	if err != nil {
 		t.Fatal(err)
 	}
