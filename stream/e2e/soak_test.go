@@ -3,8 +3,10 @@ package e2e
 import (
 	"context"
 	"fmt"
+	"net/http"
 	"os"
 	"runtime"
+	"runtime/pprof"
 	"slices"
 	"testing"
 	"time"
@@ -15,10 +17,26 @@ import (
 
 // Settings of BenchmarkSoak from the environment: how long it runs (a Go
 // duration, default 3m) and the camera size (default 320x180).
+// With soakProfileEnv set to a path prefix, the heap profiles at the first
+// and the last sample are written to PREFIX.first.pprof and
+// PREFIX.last.pprof (go tool pprof -base FIRST LAST shows what grew).
 const (
 	soakDurationEnv = "STOPGAP_SOAK_DURATION"
 	soakSizeEnv     = "STOPGAP_SOAK_SIZE"
+	soakProfileEnv  = "STOPGAP_SOAK_HEAPPROFILE"
 )
+
+// writeHeapProfile writes the heap profile to path.
+func writeHeapProfile(b *testing.B, path string) {
+	f, err := os.Create(path)
+	if err != nil {
+		b.Fatal(err)
+	}
+	defer f.Close()
+	if err := pprof.Lookup("heap").WriteTo(f, 0); err != nil {
+		b.Fatal(err)
+	}
+}
 
 // soakFlatPct is how far the resources may drift over a soak, percent of
 // their value after the warm-up (the figure).
@@ -82,13 +100,30 @@ func BenchmarkSoak(b *testing.B) {
 		var samples []soakSample
 		for t := time.Duration(0); t <= dur; t += every {
 			time.Sleep(time.Until(start.Add(t)))
+			// The rig and the viewer keep every packet, frame and meta for
+			// other tests; drop them (keeping the capacity) so only the
+			// relay, the vehicle and the viewer themselves are measured, and
+			// close idle HTTP connections, which time out after 90 s anyway.
+			r.mu.Lock()
+			r.wire, r.frames, r.plis = r.wire[:0], r.frames[:0], r.plis[:0]
+			r.mu.Unlock()
+			v.mu.Lock()
+			v.metas, v.frameEnds = v.metas[:0], v.frameEnds[:0]
+			v.mu.Unlock()
+			http.DefaultClient.CloseIdleConnections()
 			if t < warmUp {
 				continue
 			}
 			samples = append(samples, soakSample{at: time.Since(start), goroutines: runtime.NumGoroutine(),
 				heap: heapAfterGC(), files: openFiles(b)})
+			if p := os.Getenv(soakProfileEnv); p != "" && len(samples) == 1 {
+				writeHeapProfile(b, p+".first.pprof")
+			}
 		}
 		ran := time.Since(start)
+		if p := os.Getenv(soakProfileEnv); p != "" {
+			writeHeapProfile(b, p+".last.pprof")
+		}
 		st := r.relay.Stats()
 		link := r.veh.Stats().Link
 		period := r.veh.FramePeriod()

@@ -483,8 +483,7 @@ func (s *Server) handleDelete(w http.ResponseWriter, r *http.Request, id string)
 	w.WriteHeader(http.StatusOK)
 }
 
-// unregister removes an ended session and counts its end.
-// halfOpenFrom returns a session from host that has not connected and not ended, or nil. s.mu is held.
+// halfOpenFrom returns a registered session from host that has not connected, or nil. s.mu is held.
 func (s *Server) halfOpenFrom(host string) *Session {
 	for _, ss := range s.sessions {
 		if ss.host == host && !ss.connected.Load() {
@@ -494,6 +493,7 @@ func (s *Server) halfOpenFrom(host string) *Session {
 	return nil
 }
 
+// unregister removes an ended session and counts its end.
 func (s *Server) unregister(sess *Session, reason EndReason) {
 	s.mu.Lock()
 	defer s.mu.Unlock()
