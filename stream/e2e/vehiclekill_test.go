@@ -41,7 +41,7 @@ func TestVehicleKilledWithoutGoodbye(t *testing.T) {
 	defer v.Close()
 
 	vc := startChild(t, "vehicle", childDriveEnv+"="+drive, childBaseEnv+"="+ro.base)
-	waitFor(t, "LIVE frames at the viewer", 15*time.Second, func() bool {
+	waitFor(t, "LIVE frames at the viewer", 30*time.Second, func() bool {
 		m, _ := v.snapshot()
 		return countState(m, time.Time{}, console.StateLive) > 30
 	})
@@ -61,7 +61,7 @@ func TestVehicleKilledWithoutGoodbye(t *testing.T) {
 	_, stop := publishVehicle(t, rec, ro.base)
 	defer stop()
 	againAt := time.Now()
-	waitFor(t, "LIVE frames from the new vehicle", 15*time.Second, func() bool {
+	waitFor(t, "LIVE frames from the new vehicle", 30*time.Second, func() bool {
 		m, _ := v.snapshot()
 		return countState(m, againAt, console.StateLive) > 30
 	})
