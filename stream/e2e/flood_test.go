@@ -104,6 +104,9 @@ func clientFrom(ip string) *http.Client {
 	return &http.Client{Timeout: 10 * time.Second, Transport: &http.Transport{DialContext: d.DialContext, MaxIdleConnsPerHost: 16}}
 }
 
+// floodPerWorkerS is the POST rate of one flooding worker, per second.
+const floodPerWorkerS = 25
+
 // floodResult counts the answers one flooder got.
 type floodResult struct {
 	mu            sync.Mutex
@@ -136,15 +139,22 @@ func (f *floodResult) String() string {
 	return fmt.Sprintf("%v (429/503 without Retry-After: %d, transport errors: %d)", f.status, f.noRetryAfter, f.transportErrs)
 }
 
-// flood POSTs offer to endpoint with token from workers goroutines until ctx
-// ends.
-func flood(ctx context.Context, c *http.Client, endpoint, token, offer string, workers int, res *floodResult) *sync.WaitGroup {
+// flood POSTs offer to endpoint with token from workers goroutines, each
+// at most perS times a second, until ctx ends.
+func flood(ctx context.Context, c *http.Client, endpoint, token, offer string, workers int, perS float64, res *floodResult) *sync.WaitGroup {
 	var wg sync.WaitGroup
 	for range workers {
 		wg.Add(1)
 		go func() {
 			defer wg.Done()
+			tick := time.NewTicker(time.Duration(float64(time.Second) / perS))
+			defer tick.Stop()
 			for ctx.Err() == nil {
+				select {
+				case <-ctx.Done():
+					return
+				case <-tick.C:
+				}
 				req, _ := http.NewRequestWithContext(ctx, http.MethodPost, endpoint, strings.NewReader(offer))
 				req.Header.Set("Content-Type", "application/sdp")
 				req.Header.Set("Authorization", "Bearer "+token)
@@ -186,8 +196,11 @@ func openFiles(t testing.TB) int {
 
 // TestWhipFlood floods the relay's WHIP endpoint for 6 s from three
 // loopback addresses: one with a wrong bearer token, two with the right one
-// and well-formed offers that never connect (half-open sessions), 8 workers
-// each. Meanwhile a real vehicle publishes from a fourth address. It checks
+// and well-formed offers that never connect (half-open sessions), 4 workers
+// each at floodPerWorkerS: 100 POSTs a second per address, a hundred times
+// the ingest's rate limit. (Unpaced, the flooders in this process took the
+// CPU the relay needed on a busy 2-core machine, which measures the
+// machine, not the relay's defences.) Meanwhile a real vehicle publishes from a fourth address. It checks
 // that (1) every refusal is 401 (wrong token, while that address still had
 // POST tokens), 429 or 503, and every 429/503 carries Retry-After (409 is
 // the answer to an offer its own address replaced while it was being
@@ -224,17 +237,18 @@ func TestWhipFlood(t *testing.T) {
 
 	ctx, cancel := context.WithCancel(context.Background())
 	var bad, half1, half2 floodResult
+	c2, c3, c4 := clientFrom("127.0.0.2"), clientFrom("127.0.0.3"), clientFrom("127.0.0.4")
 	wgs := []*sync.WaitGroup{
-		flood(ctx, clientFrom("127.0.0.2"), endpoint, "wrong-token-0123456789abcdef0123", offer, 8, &bad),
-		flood(ctx, clientFrom("127.0.0.3"), endpoint, ingestToken, offer, 8, &half1),
-		flood(ctx, clientFrom("127.0.0.4"), endpoint, ingestToken, offer, 8, &half2),
+		flood(ctx, c2, endpoint, "wrong-token-0123456789abcdef0123", offer, 4, floodPerWorkerS, &bad),
+		flood(ctx, c3, endpoint, ingestToken, offer, 4, floodPerWorkerS, &half1),
+		flood(ctx, c4, endpoint, ingestToken, offer, 4, floodPerWorkerS, &half2),
 	}
 	time.Sleep(1500 * time.Millisecond) // the flood is in full swing
 	live0 := ro.relay.Stats().TicksLive
 	connectStart := time.Now()
 	_, stop = publishVehicle(t, rec, ro.base) // fails the test unless the first attempt connects
 	connectDur := time.Since(connectStart)
-	waitFor(t, "LIVE ticks of the vehicle during the flood", 10*time.Second, func() bool { return ro.relay.Stats().TicksLive > live0+30 })
+	waitFor(t, "LIVE ticks of the vehicle during the flood", 30*time.Second, func() bool { return ro.relay.Stats().TicksLive > live0+30 })
 	duringFlood := srv()
 	st0 := ro.relay.Stats()
 	time.Sleep(2 * time.Second)
@@ -245,8 +259,10 @@ func TestWhipFlood(t *testing.T) {
 	}
 	stop()
 	waitFor(t, "the half-open sessions to time out", 3*iceTimeout+5*time.Second, func() bool { return srv().Active == 0 })
+	for _, c := range []*http.Client{c2, c3, c4, http.DefaultClient} {
+		c.CloseIdleConnections() // the flooders' keep-alive connections are the test's, not the relay's
+	}
 	time.Sleep(500 * time.Millisecond)
-	http.DefaultClient.CloseIdleConnections()
 	heap1, gor1, fds1 := heapAfterGC(), runtime.NumGoroutine(), openFiles(t)
 	after := srv()
 
