@@ -107,17 +107,12 @@ func startRig(t testing.TB, o rigOptions) *rig {
 		t.Fatal(err)
 	}
 	r := &rig{t: t, rec: rec}
-	cfg := relay.Config{
-		FPS:          1e6 / float64(rec.Frames[1].CaptureUs-rec.Frames[0].CaptureUs),
-		Camera:       predictor.CameraFromRecording(rec.Camera),
-		IngestToken:  ingestToken,
-		ConsoleToken: consoleToken,
-		Whip:         whip.Config{Network: whip.Network{LoopbackOnly: true}},
-		Logger:       quietLogger(),
-	}
 	if o.record {
 		r.recordDir = filepath.Join(dir, "relay-recording")
-		cfg.RecordDir = r.recordDir
+	}
+	cfg, err := relayConfig(rec, r.recordDir)
+	if err != nil {
+		t.Skip(err)
 	}
 	r.relay, err = relay.New(cfg)
 	if err != nil {
@@ -193,6 +188,23 @@ func startRig(t testing.TB, o rigOptions) *rig {
 	}()
 	t.Cleanup(r.stop)
 	return r
+}
+
+// relayConfig is the relay configuration of every run in this package: the
+// drive's camera and frame rate, the test tokens, loopback-only ICE, the
+// egress mode of STOPGAP_E2E_EGRESS, and recording into recordDir unless it
+// is empty.
+func relayConfig(rec *recording.Recording, recordDir string) (relay.Config, error) {
+	cfg := relay.Config{
+		FPS:          1e6 / float64(rec.Frames[1].CaptureUs-rec.Frames[0].CaptureUs),
+		Camera:       predictor.CameraFromRecording(rec.Camera),
+		IngestToken:  ingestToken,
+		ConsoleToken: consoleToken,
+		Whip:         whip.Config{Network: whip.Network{LoopbackOnly: true}},
+		Logger:       quietLogger(),
+		RecordDir:    recordDir,
+	}
+	return cfg, applyEgress(&cfg, egressMode())
 }
 
 // stop ends the vehicle, then the relay (which closes its recording).

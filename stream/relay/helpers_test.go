@@ -64,6 +64,11 @@ type fakeVehicle struct {
 	srFrom int
 	// extraUs, if set, adds a delay to frame i on the link.
 	extraUs func(i int) int64
+	// mutate, if set, returns what is sent for frame i instead of the
+	// encoder's output (a copy; damaged frames for fault tests), and sent
+	// keeps every frame as sent, by index.
+	mutate func(i int, frame []byte) []byte
+	sent   [][]byte
 
 	enc  *vp8.Encoder
 	pkz  *rtpvp8.Packetizer
@@ -131,6 +136,10 @@ func (v *fakeVehicle) generate(i int) {
 		v.mu.Lock()
 		v.keyframes = append(v.keyframes, i)
 		v.mu.Unlock()
+	}
+	if v.mutate != nil {
+		frame = v.mutate(i, frame)
+		v.sent = append(v.sent, frame)
 	}
 	pk, err := v.pkz.Packetize(nil, frame, rtpTS(i))
 	if err != nil {

@@ -170,6 +170,18 @@ const (
 	DefaultMaxTelemetryBytes      = 16 << 10
 )
 
+// ICE consent freshness (RFC 7675) of a connected session: the stack sends a consent check (STUN binding
+// request) every ConsentCheckInterval; without any response for DisconnectedAfter the path is reported
+// disconnected, and ConsentExpiry after the last response consent has expired and the session ends
+// (EndFailed). RFC 7675 section 5.1 sets consent to expire 30 s after the last successful check. A
+// vehicle that dies without a DELETE is therefore let go ConsentExpiry (plus up to one check interval)
+// after its last packet; a link that comes back before then keeps its session.
+const (
+	ConsentCheckInterval = 2 * time.Second
+	DisconnectedAfter    = 5 * time.Second
+	ConsentExpiry        = 30 * time.Second
+)
+
 // TelemetryLabel is the label of the data channel carrying telemetry. Channels with other labels are closed
 // and counted.
 const TelemetryLabel = "telemetry"

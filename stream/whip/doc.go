@@ -15,8 +15,13 @@
 //     time over SHA-256 digests, never logged; serve over HTTPS outside loopback;
 //   - guessable session URLs: ids are 128 bits from crypto/rand;
 //   - POST flooding and half-open sessions: a token bucket per remote IP on POST (429 with Retry-After),
-//     a cap on concurrent sessions (503 with Retry-After), a body limit (413), and sessions that do not
-//     connect within Config.ICETimeout are dropped;
+//     a cap on concurrent sessions (503 with Retry-After), a body limit (413), sessions that do not
+//     connect within Config.ICETimeout are dropped, and each remote address holds at most one session
+//     that has not connected yet: a newer offer from it replaces the older one (counted as
+//     RejectSuperseded; an offer replaced while it was still being answered gets 409). A flood from a few
+//     addresses therefore pins a few slots, not all of Config.MaxSessions, and a vehicle from another
+//     address still connects (stream/e2e TestWhipFlood). An attacker who holds the ingest token and
+//     MaxSessions addresses can still fill the server until ICETimeout: keep the token secret;
 //   - PATCH flooding: PATCH is refused without allocating anything.
 //
 // Malformed offers get 400 with a one-line reason; every refusal is counted per [RejectReason] in

@@ -6,7 +6,6 @@ import (
 	"errors"
 	"fmt"
 	"net/http"
-	"strings"
 	"sync/atomic"
 	"testing"
 	"time"
@@ -280,8 +279,9 @@ func TestPublishErrors(t *testing.T) {
 	if _, err := Publish(ctx, "ftp://x", testToken, PublishConfig{}); !errors.Is(err, ErrBadConfig) {
 		t.Errorf("bad URL: %v", err)
 	}
-	// Fill the only slot with an offer that never connects, then a real publisher gets 503.
-	if r, _ := post(t, hs.URL, makeOffer(t)); r.StatusCode != http.StatusCreated {
+	// Fill the only slot with an offer from another address that never connects, then a real publisher
+	// gets 503.
+	if r, _ := postFrom(t, srv, "192.0.2.9:40000", makeOffer(t)); r.StatusCode != http.StatusCreated {
 		t.Fatal("POST failed")
 	}
 	_, err = Publish(ctx, hs.URL+"/whip", testToken, PublishConfig{Network: Network{LoopbackOnly: true}})
@@ -318,9 +318,10 @@ func TestTelemetryLimits(t *testing.T) {
 	}
 }
 
-// TestConcurrentPostsRespectMaxSessions fires more simultaneous offers than slots: exactly MaxSessions win.
+// TestConcurrentPostsRespectMaxSessions fires more simultaneous offers than slots, from distinct
+// addresses (one address holds one unconnected session): exactly MaxSessions win.
 func TestConcurrentPostsRespectMaxSessions(t *testing.T) {
-	srv, hs := newTestServer(t, Config{MaxSessions: 2})
+	srv, _ := newTestServer(t, Config{MaxSessions: 2})
 	const n = 6
 	offers := make([]string, n)
 	for i := range offers {
@@ -328,18 +329,10 @@ func TestConcurrentPostsRespectMaxSessions(t *testing.T) {
 	}
 	codes := make(chan int, n)
 	for i := 0; i < n; i++ {
-		go func(offer string) {
-			req, _ := http.NewRequest(http.MethodPost, hs.URL+"/whip", strings.NewReader(offer))
-			req.Header.Set("Authorization", "Bearer "+testToken)
-			req.Header.Set("Content-Type", "application/sdp")
-			resp, err := http.DefaultClient.Do(req)
-			if err != nil {
-				codes <- 0
-				return
-			}
-			resp.Body.Close()
+		go func(i int) {
+			resp, _ := postFrom(t, srv, fmt.Sprintf("192.0.2.%d:40000", i+1), offers[i])
 			codes <- resp.StatusCode
-		}(offers[i])
+		}(i)
 	}
 	count := map[int]int{}
 	for i := 0; i < n; i++ {

@@ -40,6 +40,7 @@ func newSettingEngine(n Network, log *slog.Logger) webrtc.SettingEngine {
 	var se webrtc.SettingEngine
 	se.LoggerFactory = slogFactory{log}
 	se.SetICEMulticastDNSMode(ice.MulticastDNSModeDisabled)
+	se.SetICETimeouts(DisconnectedAfter, ConsentExpiry-DisconnectedAfter, ConsentCheckInterval)
 	if n.LoopbackOnly {
 		se.SetIncludeLoopbackCandidate(true)
 		se.SetNetworkTypes([]webrtc.NetworkType{webrtc.NetworkTypeUDP4})

@@ -17,6 +17,7 @@ const (
 	RejectNotFound                                 // 404: unknown session resource
 	RejectICETimeout                               // session dropped: ICE/DTLS did not connect in time
 	RejectInternal                                 // 500: the WebRTC stack failed while answering
+	RejectSuperseded                               // half-open session dropped: a newer offer came from its address
 	numRejectReasons
 )
 
@@ -32,6 +33,7 @@ var rejectNames = [...]string{
 	RejectNotFound:             "not_found",
 	RejectICETimeout:           "ice_timeout",
 	RejectInternal:             "internal",
+	RejectSuperseded:           "superseded",
 }
 
 // String returns a short snake_case name, e.g. "rate_limited".
@@ -53,6 +55,7 @@ const (
 	EndICETimeout                      // ICE/DTLS did not connect within Config.ICETimeout
 	EndFailed                          // the PeerConnection failed or was closed by the peer
 	EndServerShutdown                  // Server.Close
+	EndSuperseded                      // not yet connected when a newer offer came from the same address
 	numEndReasons
 )
 
@@ -63,6 +66,7 @@ var endNames = [...]string{
 	EndICETimeout:     "ice_timeout",
 	EndFailed:         "failed",
 	EndServerShutdown: "server_shutdown",
+	EndSuperseded:     "superseded",
 }
 
 // String returns a short snake_case name, e.g. "ice_timeout".

@@ -284,7 +284,7 @@ func (s *Server) handleOffer(w http.ResponseWriter, r *http.Request) {
 		s.reject(w, r, RejectBadOffer, http.StatusBadRequest, err.Error())
 		return
 	}
-	sess, err := s.reserve(r.RemoteAddr)
+	sess, err := s.reserve(r.RemoteAddr, host)
 	if err != nil {
 		retryAfter(w, s.cfg.ICETimeout)
 		s.reject(w, r, RejectTooManySessions, http.StatusServiceUnavailable, err.Error())
@@ -295,6 +295,11 @@ func (s *Server) handleOffer(w http.ResponseWriter, r *http.Request) {
 	answer, err := sess.negotiate(ctx, body)
 	if err != nil {
 		sess.end(EndFailed)
+		if sess.EndReason() == EndSuperseded { // counted once, when it ended
+			http.Error(w, "a newer offer from this address replaced this one while it was being answered",
+				http.StatusConflict)
+			return
+		}
 		if errors.Is(err, ErrBadOffer) {
 			s.reject(w, r, RejectBadOffer, http.StatusBadRequest, err.Error())
 		} else {
@@ -334,7 +339,13 @@ func newID() (string, error) {
 // reserve creates a session with its PeerConnection and registers it, or fails when the server is full or
 // closed. A slot is held (pending) while the PeerConnection is built, so concurrent POSTs cannot overshoot
 // MaxSessions, and only complete sessions are ever visible in the map.
-func (s *Server) reserve(remote string) (*Session, error) {
+//
+// Each remote address (host) holds at most one half-open session: a new offer from an address whose
+// earlier session has not connected yet replaces that session (EndSuperseded). A vehicle that retries
+// loses nothing, since its earlier attempt is dead to it anyway; a flood of offers that never connect
+// pins one slot per address instead of all of them, so a real vehicle from another address still gets
+// in (see the package documentation on floods).
+func (s *Server) reserve(remote, host string) (*Session, error) {
 	id, err := newID()
 	if err != nil {
 		return nil, fmt.Errorf("no session id: %w", err)
@@ -344,6 +355,15 @@ func (s *Server) reserve(remote string) (*Session, error) {
 		s.mu.Unlock()
 		return nil, ErrServerClosed
 	}
+	if old := s.halfOpenFrom(host); old != nil {
+		s.mu.Unlock()
+		old.endIf(EndSuperseded, true)
+		s.mu.Lock()
+		if s.closed {
+			s.mu.Unlock()
+			return nil, ErrServerClosed
+		}
+	}
 	if len(s.sessions)+s.pending >= s.cfg.MaxSessions {
 		s.mu.Unlock()
 		return nil, fmt.Errorf("server busy: %d sessions (the maximum); retry later", s.cfg.MaxSessions)
@@ -352,7 +372,7 @@ func (s *Server) reserve(remote string) (*Session, error) {
 	s.mu.Unlock()
 
 	sess := &Session{
-		id: id, remote: remote, srv: s, clock: s.cfg.Clock, cfg: &s.cfg,
+		id: id, remote: remote, host: host, srv: s, clock: s.cfg.Clock, cfg: &s.cfg,
 		log:     s.cfg.Logger.With("session", id[:8]),
 		counter: &rtcpCounter{},
 		repair:  newRepairer(&s.cfg),
@@ -463,6 +483,16 @@ func (s *Server) handleDelete(w http.ResponseWriter, r *http.Request, id string)
 	w.WriteHeader(http.StatusOK)
 }
 
+// halfOpenFrom returns a registered session from host that has not connected, or nil. s.mu is held.
+func (s *Server) halfOpenFrom(host string) *Session {
+	for _, ss := range s.sessions {
+		if ss.host == host && !ss.connected.Load() {
+			return ss
+		}
+	}
+	return nil
+}
+
 // unregister removes an ended session and counts its end.
 func (s *Server) unregister(sess *Session, reason EndReason) {
 	s.mu.Lock()
@@ -471,7 +501,10 @@ func (s *Server) unregister(sess *Session, reason EndReason) {
 		delete(s.sessions, sess.id)
 	}
 	s.ended++
-	if reason == EndICETimeout {
+	switch reason {
+	case EndICETimeout:
 		s.rejected[RejectICETimeout]++
+	case EndSuperseded:
+		s.rejected[RejectSuperseded]++
 	}
 }

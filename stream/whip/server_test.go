@@ -3,8 +3,10 @@ package whip
 import (
 	"bytes"
 	"errors"
+	"fmt"
 	"log/slog"
 	"net/http"
+	"net/http/httptest"
 	"regexp"
 	"strings"
 	"sync"
@@ -234,7 +236,8 @@ func TestLocationUnguessableAndDelete(t *testing.T) {
 	seen := map[string]bool{}
 	var locs []string
 	for i := 0; i < 3; i++ {
-		resp, body := post(t, hs.URL, makeOffer(t))
+		// Three addresses: one address holds one unconnected session.
+		resp, body := postFrom(t, srv, fmt.Sprintf("192.0.2.%d:40000", i+1), makeOffer(t))
 		if resp.StatusCode != http.StatusCreated {
 			t.Fatalf("POST: %d %s", resp.StatusCode, body)
 		}
@@ -317,9 +320,10 @@ func TestTooManySessions(t *testing.T) {
 	if r, b := post(t, hs.URL, makeOffer(t)); r.StatusCode != http.StatusCreated {
 		t.Fatalf("first POST: %d %s", r.StatusCode, b)
 	}
-	r, body := post(t, hs.URL, makeOffer(t))
+	// Another address finds the one slot taken.
+	r, body := postFrom(t, srv, "192.0.2.7:40000", makeOffer(t))
 	if r.StatusCode != http.StatusServiceUnavailable {
-		t.Fatalf("second POST: %d, want 503", r.StatusCode)
+		t.Fatalf("POST from another address: %d, want 503", r.StatusCode)
 	}
 	if got := r.Header.Get("Retry-After"); got != "3" {
 		t.Errorf("Retry-After = %q, want 3 (the ICE timeout)", got)
@@ -330,6 +334,41 @@ func TestTooManySessions(t *testing.T) {
 	if srv.Stats().Rejections[RejectTooManySessions] != 1 {
 		t.Errorf("too_many_sessions not counted")
 	}
+}
+
+// TestHalfOpenPerAddress: an address holds at most one session that has
+// not connected; its newer offer replaces the older one, so offers that
+// never connect pin one slot per address (RFC 9725 section 7, POST
+// flooding).
+func TestHalfOpenPerAddress(t *testing.T) {
+	srv, hs := newTestServer(t, Config{MaxSessions: 2, ICETimeout: 5 * time.Second})
+	for i := range 3 {
+		if r, b := post(t, hs.URL, makeOffer(t)); r.StatusCode != http.StatusCreated {
+			t.Fatalf("POST %d from one address: %d %s, want 201 (replacing the earlier half-open session)", i, r.StatusCode, b)
+		}
+	}
+	st := srv.Stats()
+	if st.Active != 1 || st.Rejections[RejectSuperseded] != 2 {
+		t.Errorf("after 3 offers from one address: %d sessions, %d superseded; want 1 and 2", st.Active, st.Rejections[RejectSuperseded])
+	}
+	if r, b := postFrom(t, srv, "192.0.2.7:40000", makeOffer(t)); r.StatusCode != http.StatusCreated {
+		t.Fatalf("POST from another address: %d %s, want 201: one address must not fill the server", r.StatusCode, b)
+	}
+	if st := srv.Stats(); st.Active != 2 {
+		t.Errorf("%d sessions, want 2", st.Active)
+	}
+}
+
+// postFrom POSTs offer to srv's handler directly, as if from remote.
+func postFrom(t testing.TB, srv *Server, remote, offer string) (*http.Response, string) {
+	t.Helper()
+	req := httptest.NewRequest(http.MethodPost, "/whip", strings.NewReader(offer))
+	req.RemoteAddr = remote
+	req.Header.Set("Authorization", "Bearer "+testToken)
+	req.Header.Set("Content-Type", "application/sdp")
+	w := httptest.NewRecorder()
+	srv.ServeHTTP(w, req)
+	return w.Result(), w.Body.String()
 }
 
 func TestRateLimitedPost(t *testing.T) {

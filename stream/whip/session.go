@@ -82,7 +82,8 @@ type rtpArrival struct {
 // All methods are safe for concurrent use.
 type Session struct {
 	id      string
-	remote  string
+	remote  string // the POST's remote address (host:port)
+	host    string // its host part: at most one half-open session per host
 	srv     *Server
 	pc      *webrtc.PeerConnection
 	counter *rtcpCounter
