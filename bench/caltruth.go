@@ -8,6 +8,7 @@ import (
 	"sort"
 
 	"stopgap/filter"
+	"stopgap/lossmodel"
 	"stopgap/predictor"
 	"stopgap/stream/recording"
 )
@@ -17,7 +18,7 @@ type TruthCalibrationConfig struct {
 	// Drives are recordings with a truth.csv.
 	Drives []string
 	// Losses are the simulated links; every drive is replayed over each.
-	Losses []LossConfig
+	Losses []lossmodel.Config
 	// Filter, Confidence, Policy and AllowanceMs as in ReplayConfig
 	// (zero values: the defaults; Policy only bounds the age, MaxAgeMs 0
 	// meaning predictor.DefaultMaxAgeMs).

@@ -15,6 +15,7 @@ import (
 	"gocv.io/x/gocv"
 
 	"stopgap/filter"
+	"stopgap/lossmodel"
 	"stopgap/predictor"
 	"stopgap/stream/cadence"
 	"stopgap/stream/recording"
@@ -51,7 +52,7 @@ type ReplayConfig struct {
 	PairToleranceMs float64
 	// Loss is the simulated link used when ArrivalsFile is empty. Its zero
 	// value is invalid: set at least Model.
-	Loss LossConfig
+	Loss lossmodel.Config
 
 	// Policy decides PREDICTED versus STALE (cutoff and age cap).
 	Policy predictor.Policy
@@ -469,8 +470,9 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 	sum.Drive = cfg.Drive
 	sum.Cutoff = cfg.Policy.CutoffConfidence
 	sum.MaxAgeMs = cfg.Policy.MaxAgeMs
-	if cfg.ArrivalsFile == "" {
-		sum.Loss = cfg.Loss
+	sum.Loss = cfg.Loss
+	if cfg.ArrivalsFile != "" {
+		sum.Loss = lossmodel.Config{Model: lossmodel.Recorded}
 	}
 	sum.ArrivalsFile = cfg.ArrivalsFile
 	sum.AllowanceMs = allowanceMs

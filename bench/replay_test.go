@@ -13,6 +13,7 @@ import (
 	"time"
 
 	"stopgap/bench/simdrive"
+	"stopgap/lossmodel"
 	"stopgap/predictor"
 	"stopgap/stream/recording"
 )
@@ -36,7 +37,7 @@ func smallConfig() simdrive.Config {
 func baseReplay(drive, out string) ReplayConfig {
 	return ReplayConfig{
 		Drive: drive, Out: out,
-		Loss:   LossConfig{Model: LossModelGilbertElliott, LossRate: 0.1, BurstMs: 200, Seed: 1},
+		Loss:   lossmodel.Config{Model: lossmodel.GilbertElliott, LossRate: 0.1, BurstMs: 200, Seed: 1},
 		Policy: predictor.DefaultPolicy(),
 	}
 }
@@ -214,6 +215,9 @@ func TestReplayRecordedArrivals(t *testing.T) {
 	if sum.TicksMissing != 5 || sum.LatencyMs != 70 {
 		t.Errorf("missing %d (want 5), latency %v ms (want 70)", sum.TicksMissing, sum.LatencyMs)
 	}
+	if sum.Loss.Model != lossmodel.Recorded {
+		t.Errorf("summary loss model %q, want %q: the losses came from a recorded file", sum.Loss.Model, lossmodel.Recorded)
+	}
 	ticks, err := os.ReadFile(filepath.Join(out, "ticks.csv"))
 	if err != nil {
 		t.Fatal(err)
@@ -263,7 +267,7 @@ func TestReplayBadInput(t *testing.T) {
 			out := filepath.Join(t.TempDir(), "out")
 			cfg := baseReplay(dir, out)
 			// Lose every other frame so a corrupt frame is certainly read.
-			cfg.Loss = LossConfig{Model: LossModelGilbertElliott, LossRate: 0.5, BurstMs: 1, Seed: 4}
+			cfg.Loss = lossmodel.Config{Model: lossmodel.GilbertElliott, LossRate: 0.5, BurstMs: 1, Seed: 4}
 			_, err := Replay(context.Background(), cfg)
 			if err == nil {
 				t.Fatal("replay succeeded on broken input")

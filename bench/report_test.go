@@ -17,6 +17,8 @@ import (
 	"testing"
 
 	"gocv.io/x/gocv"
+
+	"stopgap/lossmodel"
 )
 
 // syntheticTicks makes a deterministic replay-like sequence: ten LIVE
@@ -203,7 +205,7 @@ func TestWriteReport(t *testing.T) {
 		t.Fatal(err)
 	}
 	s.Drive, s.Cutoff, s.MaxAgeMs = "synthetic-loop", 0.6, 800
-	s.Loss = LossConfig{Model: LossModelGilbertElliott, LossRate: 0.2, BurstMs: 300, Seed: 1}
+	s.Loss = lossmodel.Config{Model: lossmodel.GilbertElliott, LossRate: 0.2, BurstMs: 300, Seed: 1}
 	s.FilterModel, s.LatencyMs, s.AllowanceMs, s.TelemetryRejected = "ctrv", 100, 20, 3
 	truth, hold, pred := exampleFrames(t)
 	defer truth.Close()

@@ -4,6 +4,8 @@ import (
 	"encoding/json"
 	"math"
 	"strconv"
+
+	"stopgap/lossmodel"
 )
 
 // Method is a way of filling a display tick whose real frame is missing.
@@ -124,9 +126,10 @@ type Summary struct {
 	Cutoff float64 `json:"cutoff"`
 	// MaxAgeMs is the policy's maximum gap age for PREDICTED frames.
 	MaxAgeMs float64 `json:"max_age_ms"`
-	// Loss is the simulated link; its zero value (model "invalid") when
-	// the arrivals came from a recorded file instead (see ArrivalsFile).
-	Loss LossConfig `json:"loss"`
+	// Loss is the simulated link, or only Model lossmodel.Recorded
+	// ("recorded") when the arrivals came from a recorded file instead
+	// (see ArrivalsFile).
+	Loss lossmodel.Config `json:"loss"`
 	// ArrivalsFile is the recorded arrivals file used instead of a
 	// simulated link, or "".
 	ArrivalsFile string `json:"arrivals_file"`

@@ -8,6 +8,7 @@ import (
 	"stopgap/bench"
 	"stopgap/bench/simdrive"
 	"stopgap/filter"
+	"stopgap/lossmodel"
 	"stopgap/predictor"
 	"stopgap/stream/recording"
 )
@@ -121,7 +122,7 @@ func (co *Course) Simulate(op SimOperator, cfg SimConfig) (SimResult, error) {
 	latUs := int64(cfg.LatencyMs * 1000)
 	lost := make([]bool, nFrames)
 	if cfg.LossRate > 0 {
-		arr, err := bench.LossConfig{Model: bench.LossModelGilbertElliott, LossRate: cfg.LossRate, BurstMs: cfg.BurstMs, Seed: cfg.Seed}.Simulate(nil, capture)
+		arr, err := lossmodel.Config{Model: lossmodel.GilbertElliott, LossRate: cfg.LossRate, BurstMs: cfg.BurstMs, Seed: cfg.Seed}.Simulate(nil, capture)
 		if err != nil {
 			return SimResult{}, err
 		}

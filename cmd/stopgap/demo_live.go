@@ -14,8 +14,8 @@ import (
 	"strings"
 	"time"
 
-	"stopgap/bench"
 	"stopgap/bench/simdrive"
+	"stopgap/lossmodel"
 	"stopgap/predictor"
 	"stopgap/stream/console"
 	"stopgap/stream/recording"
@@ -179,7 +179,7 @@ func runDemoLive(ctx context.Context, args []string, stdout, stderr io.Writer) e
 	}()
 
 	link, err := simvehicle.NewLink(simvehicle.LinkConfig{
-		Loss: bench.LossConfig{Model: bench.LossModelGilbertElliott, LossRate: lossRate, BurstMs: burstMs,
+		Loss: lossmodel.Config{Model: lossmodel.GilbertElliott, LossRate: lossRate, BurstMs: burstMs,
 			ExtraDelayMs: delayMs, JitterMs: jitMs, Seed: seed},
 		Outages: outages,
 	}, nil)

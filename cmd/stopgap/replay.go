@@ -13,6 +13,7 @@ import (
 	"stopgap/bench"
 	"stopgap/bench/simdrive"
 	"stopgap/filter"
+	"stopgap/lossmodel"
 	"stopgap/predictor"
 )
 
@@ -83,8 +84,8 @@ func (f *replayFlags) config(drive, out string, stderr io.Writer) (bench.ReplayC
 	cfg := bench.ReplayConfig{
 		Drive: drive, Out: out, Overwrite: f.overwrite,
 		ArrivalsFile: f.arrivals, PairToleranceMs: f.pairToleranceMs,
-		Loss: bench.LossConfig{
-			Model: bench.LossModelGilbertElliott, LossRate: f.lossRate, BurstMs: f.burstMs,
+		Loss: lossmodel.Config{
+			Model: lossmodel.GilbertElliott, LossRate: f.lossRate, BurstMs: f.burstMs,
 			ExtraDelayMs: f.delayMs, JitterMs: f.jitterMs, Seed: f.seed,
 		},
 		Policy:      predictor.Policy{CutoffConfidence: f.cutoff, MaxAgeMs: f.maxAgeMs},
@@ -96,7 +97,7 @@ func (f *replayFlags) config(drive, out string, stderr io.Writer) (bench.ReplayC
 		Logger:      newLogger(stderr, f.logJSON, level),
 	}
 	if f.lossRate == 0 {
-		cfg.Loss = bench.LossConfig{Model: bench.LossModelNone, ExtraDelayMs: f.delayMs, JitterMs: f.jitterMs, Seed: f.seed}
+		cfg.Loss = lossmodel.Config{Model: lossmodel.None, ExtraDelayMs: f.delayMs, JitterMs: f.jitterMs, Seed: f.seed}
 	}
 	if f.examples == 0 {
 		cfg.Examples = -1
