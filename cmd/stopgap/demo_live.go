@@ -149,7 +149,7 @@ func runDemoLive(ctx context.Context, args []string, stdout, stderr io.Writer) e
 	fps := 1e6 / float64(rec.Frames[1].CaptureUs-rec.Frames[0].CaptureUs)
 	rl, err := relay.New(relay.Config{
 		FPS:          fps,
-		Camera:       predictor.CameraFromRecording(rec.Camera),
+		Camera:       predictor.Camera(rec.Camera),
 		RecordDir:    record,
 		IngestToken:  ingestToken,
 		ConsoleToken: consoleToken,

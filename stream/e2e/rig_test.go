@@ -109,7 +109,7 @@ func startRig(t testing.TB, o rigOptions) *rig {
 	r := &rig{t: t, rec: rec}
 	cfg := relay.Config{
 		FPS:          1e6 / float64(rec.Frames[1].CaptureUs-rec.Frames[0].CaptureUs),
-		Camera:       predictor.CameraFromRecording(rec.Camera),
+		Camera:       predictor.Camera(rec.Camera),
 		IngestToken:  ingestToken,
 		ConsoleToken: consoleToken,
 		Whip:         whip.Config{Network: whip.Network{LoopbackOnly: true}},

@@ -125,7 +125,7 @@ type metrics struct {
 	telemetryIn, recordErrors, sessions                        atomic.Uint64
 	telemetryRejected, rtpDropped                              labelled
 
-	// Loss repair (see whip.RepairStats), summed over sessions; repairRTTUs
+	// Loss repair (see ingest.RepairStats), summed over sessions; repairRTTUs
 	// is the latest session's round-trip estimate.
 	repairGaps, repairRepaired, repairGaveUp, repairCancelled, repairSkipped, repairRTTUs atomic.Uint64
 

@@ -16,7 +16,7 @@ import (
 	"stopgap/predictor"
 	"stopgap/stream/cadence"
 	"stopgap/stream/console"
-	"stopgap/stream/whip"
+	"stopgap/stream/ingest"
 )
 
 // pipeline is the per-session state: ingest goroutines feed the display loop,
@@ -25,8 +25,8 @@ type pipeline struct {
 	r    *Relay
 	cfg  Config
 	log  *slog.Logger
-	sess IngestSession
-	in   *ingest
+	sess ingest.Session
+	in   *frameIngest
 
 	pool   []gocv.Mat
 	free   chan *gocv.Mat
@@ -67,10 +67,10 @@ type pipeline struct {
 	prevLost    int64
 	prevHighest uint32
 	prevDrops   [3]uint64 // ingest queue full, duplicate, too old
-	prevRepair  whip.RepairStats
+	prevRepair  ingest.RepairStats
 }
 
-func newPipeline(r *Relay, s IngestSession) (*pipeline, error) {
+func newPipeline(r *Relay, s ingest.Session) (*pipeline, error) {
 	cfg := r.cfg
 	p := &pipeline{r: r, cfg: cfg, sess: s, log: r.log.With("session", short(s.ID()))}
 	var err error
@@ -622,7 +622,7 @@ func finite(x float64) float64 {
 
 // countRepair adds the session's loss-repair counters since the last call
 // to the relay's.
-func (p *pipeline) countRepair(r whip.RepairStats) {
+func (p *pipeline) countRepair(r ingest.RepairStats) {
 	m, prev := p.r.met, p.prevRepair
 	m.repairGaps.Add(r.Gaps - min(prev.Gaps, r.Gaps))
 	m.repairRepaired.Add(r.Repaired - min(prev.Repaired, r.Repaired))
@@ -637,7 +637,7 @@ func (p *pipeline) countRepair(r whip.RepairStats) {
 
 // countDrops adds to rtp_dropped the packets dropped outside Push's errors:
 // by the ingest queue (whip) and as duplicates or too late (assembler).
-func (p *pipeline) countDrops(st whip.SessionStats) {
+func (p *pipeline) countDrops(st ingest.Stats) {
 	p.in.mu.Lock()
 	as := p.in.asm.Stats()
 	p.in.mu.Unlock()
