@@ -86,11 +86,11 @@ type arrival struct {
 	at  time.Time
 }
 
-// Session is one RTP/UDP ingest session; it implements ingest.Session.
-// All methods are safe for concurrent use.
 // The relay reads every ingest through one interface.
 var _ ingest.Session = (*Session)(nil)
 
+// Session is one RTP/UDP ingest session; it implements ingest.Session.
+// All methods are safe for concurrent use.
 type Session struct {
 	cfg     Config
 	allow   []source

@@ -24,11 +24,11 @@ type rtpArrival struct {
 	arrival time.Time
 }
 
-// Session is one vehicle's ingest session: one VP8 video track and one telemetry data channel.
-// All methods are safe for concurrent use.
 // The relay reads every ingest through one interface.
 var _ ingest.Session = (*Session)(nil)
 
+// Session is one vehicle's ingest session: one VP8 video track and one telemetry data channel.
+// All methods are safe for concurrent use.
 type Session struct {
 	id      string
 	remote  string
