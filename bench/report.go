@@ -42,15 +42,6 @@ const (
 	reportTmpMark = ".partial-"
 )
 
-// SafetyCaution is the warning printed at the top of report.html.
-const SafetyCaution = "A predicted frame is the last real camera picture, moved to where the " +
-	"camera is estimated to be now. It moves the static scene only. Anything that moved during the " +
-	"gap, such as a pedestrian stepping out or a vehicle braking ahead, is shown where it was when the " +
-	"last real picture was taken, or not at all. Good scores in this report mean the static scene was " +
-	"placed well; they say nothing about moving road users. This tool does not replace the operator's " +
-	"licensed procedures or local regulations: while the picture is marked PREDICTED or STALE, follow " +
-	"those procedures, not the picture."
-
 // ReportWriter writes a replay report directory. The zero value refuses
 // to replace an existing non-empty destination.
 type ReportWriter struct {

@@ -6,6 +6,8 @@ import (
 	"io"
 	"math"
 	"strconv"
+
+	"stopgap/vocab"
 )
 
 // newReportTemplate parses the page template (per call, so that the
@@ -41,8 +43,9 @@ figcaption { font-size: 0.9em; }
 <body>
 <h1>{{.Title}}</h1>
 <div class="caution" id="safety-caution">
-<h2>SAFETY CAUTION</h2>
+<h2>{{.CautionTitle}}</h2>
 <p>{{.Caution}}</p>
+<p>Good scores in this report mean the static scene was placed well; they say nothing about moving road users.</p>
 </div>
 
 <h2>Run</h2>
@@ -136,13 +139,15 @@ func (w ReportWriter) writeHTML(path string, s Summary, figs []exampleBlock) err
 		methods = append(methods, htmlMethod{m.String(), *s.Methods.Get(m)})
 	}
 	data := struct {
-		Title, Caution     string
+		Title              string
+		CautionTitle       string
+		Caution            string
 		S                  Summary
 		Cap                float64
 		Methods            []htmlMethod
 		PSNRPlot, SSIMPlot string
 		Examples           []exampleBlock
-	}{title, SafetyCaution, s, s.cap(), methods, PSNRPlotFile, SSIMPlotFile, figs}
+	}{title, vocab.CautionTitle, vocab.Caution, s, s.cap(), methods, PSNRPlotFile, SSIMPlotFile, figs}
 	tpl, err := newReportTemplate()
 	if err != nil {
 		return fmt.Errorf("bench: report template: %w", err)

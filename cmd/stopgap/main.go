@@ -27,14 +27,14 @@ import (
 	"os"
 	"os/signal"
 	"syscall"
+
+	"stopgap/vocab"
 )
 
 // safetyCaution is printed by every command that shows or scores predicted
-// frames. It is the same text the report and the console carry.
-const safetyCaution = `CAUTION: predicted frames are synthetic. They move the static scene only;
-anything that moved during the gap (a pedestrian, a braking car) is NOT in them.
-They are always labelled; never drive on an unlabelled frozen picture. This
-tool does not replace local regulations or the operator's licensed procedures.`
+// frames: the one caution text of package vocab, which the report, the
+// console and the README carry too.
+const safetyCaution = vocab.CautionTitle + ". " + vocab.Caution
 
 type command struct {
 	name    string

@@ -491,8 +491,10 @@ func (p *pipeline) emit(k int, captureUs int64, tick predictor.Tick, ev *frameEv
 	}
 	p.refreshLink()
 	conf, age := finite(tick.Confidence), finite(tick.AgeMs)
-	p.meta = console.Meta{Seq: p.meta.Seq + 1, TimeUs: captureUs, State: st, AgeMs: age, Confidence: conf,
-		Cutoff: cutoff, Profile: p.r.console.Profile(), Link: p.link}
+	_, havePicture := p.filler.LastCaptureUs()
+	pol := predictor.Policy{CutoffConfidence: cutoff, MaxAgeMs: p.cfg.Policy.MaxAgeMs}
+	p.meta = console.Meta{Seq: p.meta.Seq + 1, TimeUs: captureUs, State: st, AgeMs: age, MaxAgeMs: pol.MaxAgeMs,
+		Why: pol.WhyStale(tick, havePicture).String(), Confidence: conf, Cutoff: cutoff, Profile: p.r.console.Profile(), Link: p.link}
 	if err := p.r.console.WriteMeta(p.meta); err != nil && !errors.Is(err, console.ErrClosed) {
 		p.log.Warn("console meta failed", "err", err)
 	}
