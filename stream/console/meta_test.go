@@ -129,7 +129,7 @@ func TestStateText(t *testing.T) {
 	if _, err := StateInvalid.MarshalText(); !errors.Is(err, ErrBadMeta) {
 		t.Errorf("StateInvalid.MarshalText err = %v", err)
 	}
-	for _, bad := range []string{"", "live", "INVALID", "NOSIGNAL"} {
+	for _, bad := range []string{"", "live", "INVALID", "UNKNOWN"} {
 		if _, err := ParseState(bad); !errors.Is(err, ErrBadMeta) {
 			t.Errorf("ParseState(%q) err = %v, want ErrBadMeta", bad, err)
 		}

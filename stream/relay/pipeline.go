@@ -546,7 +546,7 @@ func (p *pipeline) refreshLink() {
 
 // noPacketsMs returns console.LinkStats.NoPacketsMs at now for a link whose
 // latest packet arrived at last (zero: none yet, which the console's
-// NOSIGNAL state covers).
+// UNKNOWN state covers).
 func noPacketsMs(now, last time.Time) float64 {
 	if last.IsZero() {
 		return 0
