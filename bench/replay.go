@@ -134,7 +134,7 @@ func NewSchedule(captureUs, arrivalUs []int64, allowanceUs int64) (Schedule, err
 		}
 	}
 	if len(lat) == 0 {
-		return Schedule{}, fmt.Errorf("schedule: no frame arrived, nothing to replay; check the arrivals file or lower --loss-rate: %w", ErrReplayInput)
+		return Schedule{}, fmt.Errorf("schedule: no frame arrived, nothing to replay; check the arrivals file or lower --frame-loss-rate: %w", ErrReplayInput)
 	}
 	sort.Slice(lat, func(i, j int) bool { return lat[i] < lat[j] })
 	return Schedule{CaptureUs: captureUs, ArrivalUs: arrivalUs, LatencyUs: lat[len(lat)/2], AllowanceUs: allowanceUs,

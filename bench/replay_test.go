@@ -412,7 +412,7 @@ func copyDir(t *testing.T, src, dst string) {
 }
 
 // BenchmarkReplayDefaultDrive is the product's headline figure: the default
-// simulated drive (1280x720, 30 fps, 20 s) replayed with --loss-rate 0.1
+// simulated drive (1280x720, 30 fps, 20 s) replayed with --frame-loss-rate 0.1
 // --burst-ms 200 --seed 1. It reports the PSNR and SSIM of hold and
 // predicted, the synthesis time percentiles and the replay's speed as a
 // multiple of real time (> 1 is faster than real time). The drive is

@@ -18,7 +18,7 @@ import (
 // leave it out.
 type Example struct {
 	Tick       int     // tick index, used to look up the scores in ticks
-	AgeMs      float64 // gap age at the tick, ms
+	AgeMs      float64 // picture age at the tick, ms
 	State      string  // state shown to the operator
 	Confidence float64 // predictor confidence, NaN if none
 	// True is the recorded frame of the tick (never shown live during a gap).
@@ -181,12 +181,12 @@ func (w ReportWriter) writeAll(dir string, s Summary, ticks []TickRow, examples 
 	if err := writeTicksCSV(filepath.Join(dir, TicksFile), ticks); err != nil {
 		return err
 	}
-	if err := writeAgePlot(filepath.Join(dir, PSNRPlotFile), ticks, s, "PSNR vs gap age",
+	if err := writeAgePlot(filepath.Join(dir, PSNRPlotFile), ticks, s, "PSNR vs picture age",
 		fmt.Sprintf("PSNR (dB, capped at %g)", s.cap()), func(sc Scores) float64 { return math.Min(sc.PSNRdB, s.cap()) },
 		func(b BucketStats) Float { return b.PSNRdBMean }); err != nil {
 		return err
 	}
-	if err := writeAgePlot(filepath.Join(dir, SSIMPlotFile), ticks, s, "SSIM vs gap age", "SSIM (mean over valid windows)",
+	if err := writeAgePlot(filepath.Join(dir, SSIMPlotFile), ticks, s, "SSIM vs picture age", "SSIM (mean over valid windows)",
 		func(sc Scores) float64 { return sc.SSIM }, func(b BucketStats) Float { return b.SSIMMean }); err != nil {
 		return err
 	}

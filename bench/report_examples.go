@@ -9,6 +9,8 @@ import (
 	"strconv"
 
 	"gocv.io/x/gocv"
+
+	"stopgap/vocab"
 )
 
 // exampleFig is one image of an example block in the HTML page.
@@ -43,8 +45,8 @@ func (w ReportWriter) writeExamples(dir string, ticks []TickRow, examples []Exam
 		if !math.IsNaN(ex.Confidence) {
 			conf = fmt.Sprintf("%.2f", ex.Confidence)
 		}
-		blk := exampleBlock{Heading: fmt.Sprintf("Tick %d: gap age %.0f ms, shown as %s, confidence %s",
-			ex.Tick, ex.AgeMs, ex.State, conf)}
+		blk := exampleBlock{Heading: fmt.Sprintf("Tick %d: %s, shown as %s, confidence %s",
+			ex.Tick, vocab.Age(ex.AgeMs), ex.State, conf)}
 		row := byTick[ex.Tick]
 		for _, part := range []struct {
 			name    string
@@ -56,7 +58,7 @@ func (w ReportWriter) writeExamples(dir string, ticks []TickRow, examples []Exam
 			{"true", ex.True, MethodInvalid, "TRUE: recorded frame for this tick (not available live during the gap)", true},
 			{"hold", ex.Hold, MethodHold, "HOLD: last real frame repeated", true},
 			{"rotation", ex.Rotation, MethodRotation, "ROTATION ONLY: last real frame turned with the camera", false},
-			{"predicted", ex.Predicted, MethodPredicted, "PREDICTED: synthetic frame as displayed, with its label", true},
+			{"predicted", ex.Predicted, MethodPredicted, "PREDICTED: predicted frame as displayed, with its label", true},
 		} {
 			if part.m.Ptr() == nil || part.m.Empty() {
 				if part.must {

@@ -52,7 +52,7 @@ figcaption { font-size: 0.9em; }
 <table>
 <tr><th class="l">drive</th><td class="l">{{.S.Drive}}</td></tr>
 <tr><th class="l">confidence cutoff</th><td>{{printf "%.3g" .S.Cutoff}}</td></tr>
-<tr><th class="l">max gap age for PREDICTED</th><td>{{printf "%.0f" .S.MaxAgeMs}} ms</td></tr>
+<tr><th class="l">picture age cap for PREDICTED</th><td>{{printf "%.0f" .S.MaxAgeMs}} ms</td></tr>
 {{if .S.ArrivalsFile}}<tr><th class="l">frame arrivals</th><td class="l">recorded, from {{.S.ArrivalsFile}}</td></tr>
 {{else}}<tr><th class="l">simulated link</th><td class="l">{{.S.Loss.Model}}, loss rate {{printf "%.3g" .S.Loss.LossRate}}, mean burst {{printf "%.0f" .S.Loss.BurstMs}} ms, extra delay {{printf "%.0f" .S.Loss.ExtraDelayMs}} ms, jitter {{printf "%.0f" .S.Loss.JitterMs}} ms, seed {{.S.Loss.Seed}}</td></tr>
 {{end}}<tr><th class="l">display latency / jitter allowance</th><td>{{printf "%.0f" .S.LatencyMs}} ms / {{printf "%.0f" .S.AllowanceMs}} ms</td></tr>
@@ -63,7 +63,7 @@ figcaption { font-size: 0.9em; }
 <tr><th class="l">LIVE / PREDICTED / STALE ticks</th><td>{{.S.LiveTicks}} / {{.S.PredictedTicks}} / {{.S.StaleTicks}}</td></tr>
 <tr><th class="l">synthesis time p50 / p99 / mean</th><td>{{f .S.SynthMsP50 2}} / {{f .S.SynthMsP99 2}} / {{f .S.SynthMsMean 2}} ms</td></tr>
 <tr><th class="l">mean label pixel share</th><td>{{pct .S.LabelPixelShareMean}}</td></tr>
-<tr><th class="l">mean unfilled share</th><td>{{pct .S.UnfilledShareMean}}</td></tr>
+<tr><th class="l">mean unfilled share (pixels no source reached)</th><td>{{pct .S.UnfilledShareMean}}</td></tr>
 </table>
 
 {{if .S.UnscoredNote}}<p id="unscored"><b>{{.S.UnscoredNote}}</b></p>
@@ -84,9 +84,12 @@ figcaption { font-size: 0.9em; }
 <h2>Scores against the true frames</h2>
 <p>Scores are computed on luma before any label is drawn, only on ticks where the real frame was missing
 and the recorded frame is available. PSNR is capped at {{printf "%g" .Cap}} dB per frame before averaging.
-Gap age is the time since the capture of the newest real frame.</p>
+The picture age is the time from the capture of the newest real frame to the tick. A tick is one
+display slot of the camera's frame rate: one frame is shown per tick. MAE is the mean absolute luma
+difference in 8-bit grey levels (0 to 255). The unfilled share is the share of a predicted frame's pixels
+that no source pixel reached (the edges the moved picture uncovers), filled with neutral grey.</p>
 <table>
-<tr><th class="l">method</th><th>gap age</th><th>frames</th><th>PSNR dB</th><th>SSIM</th><th>MAE</th></tr>
+<tr><th class="l">method</th><th>picture age</th><th>frames</th><th>PSNR dB</th><th>SSIM</th><th>MAE (grey levels)</th></tr>
 {{range .Methods}}<tr><td class="l"><b>{{.Name}}</b></td><td>all</td><td>{{.Stats.Frames}}</td><td>{{f .Stats.PSNRdBMean 2}}</td><td>{{f .Stats.SSIMMean 4}}</td><td>{{f .Stats.MAEMean 2}}</td></tr>
 {{range .Stats.Buckets}}<tr><td></td><td>{{.Bucket}} ms</td><td>{{.Frames}}</td><td>{{f .PSNRdBMean 2}}</td><td>{{f .SSIMMean 4}}</td><td>{{f .MAEMean 2}}</td></tr>
 {{end}}{{end}}</table>
@@ -110,8 +113,8 @@ ECE {{f .S.Calibration.ECE 3}}, Brier {{f .S.Calibration.Brier 3}}, mean confide
 <p><img src="confidence_vs_misalignment.png" alt="confidence against measured misalignment"></p>
 
 <h2>Figures</h2>
-<p><img src="{{.PSNRPlot}}" alt="PSNR against gap age for hold, rotation and predicted"></p>
-<p><img src="{{.SSIMPlot}}" alt="SSIM against gap age for hold, rotation and predicted"></p>
+<p><img src="{{.PSNRPlot}}" alt="PSNR against picture age for hold, rotation and predicted"></p>
+<p><img src="{{.SSIMPlot}}" alt="SSIM against picture age for hold, rotation and predicted"></p>
 
 <h2>Examples</h2>
 {{if not .Examples}}<p>No example frames were saved for this run.</p>{{end}}

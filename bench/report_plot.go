@@ -12,6 +12,8 @@ import (
 	"gonum.org/v1/plot/plotter"
 	"gonum.org/v1/plot/vg"
 	"gonum.org/v1/plot/vg/draw"
+
+	"stopgap/vocab"
 )
 
 // methodColor gives each method a fixed plot colour.
@@ -26,14 +28,14 @@ func methodColor(m Method) color.Color {
 	}
 }
 
-// writeAgePlot draws one metric against gap age: every scored tick as a
+// writeAgePlot draws one metric against picture age: every scored tick as a
 // small dot and, per method, a line through the bucket means (placed at
 // the bucket's mean age). The legend carries the frame count per bucket.
 func writeAgePlot(path string, ticks []TickRow, s Summary, title, ylabel string,
 	value func(Scores) float64, bucketMean func(BucketStats) Float) error {
 	p := plot.New()
 	p.Title.Text = title + " (dots: ticks; line: bucket means)"
-	p.X.Label.Text = "gap age (ms)"
+	p.X.Label.Text = vocab.AgeTerm + " (" + vocab.AgeUnit + ")"
 	p.Y.Label.Text = ylabel
 	p.Legend.Top, p.Legend.Left = false, true // metrics fall with age: bottom left is usually empty
 	p.Add(plotter.NewGrid())

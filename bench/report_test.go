@@ -5,6 +5,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"html"
 	"image"
 	_ "image/jpeg"
 	_ "image/png"
@@ -19,6 +20,7 @@ import (
 	"gocv.io/x/gocv"
 
 	"stopgap/lossmodel"
+	"stopgap/vocab"
 )
 
 // syntheticTicks makes a deterministic replay-like sequence: ten LIVE
@@ -204,7 +206,7 @@ func TestWriteReport(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	s.Drive, s.Cutoff, s.MaxAgeMs = "synthetic-loop", 0.6, 800
+	s.Drive, s.Cutoff, s.MaxAgeMs = "simulated-loop", 0.6, 800
 	s.Loss = lossmodel.Config{Model: lossmodel.GilbertElliott, LossRate: 0.2, BurstMs: 300, Seed: 1}
 	s.FilterModel, s.LatencyMs, s.AllowanceMs, s.TelemetryRejected = "ctrv", 100, 20, 3
 	truth, hold, pred := exampleFrames(t)
@@ -291,8 +293,11 @@ func TestWriteReport(t *testing.T) {
 			t.Fatal(err)
 		}
 		page := string(raw)
-		for _, want := range []string{"SAFETY CAUTION", "static scene only", "licensed procedures", "local regulations",
-			`src="psnr_vs_age.png"`, `src="ssim_vs_age.png"`, "PREDICTED: synthetic frame", "synthetic-loop",
+		// The caution is the shared text of package vocab, word for word, and
+		// the page defines the words its tables use.
+		for _, want := range []string{vocab.CautionTitle, html.EscapeString(vocab.Caution),
+			"MAE (grey levels)", "A tick is one", "The unfilled share is", "The picture age is",
+			`src="psnr_vs_age.png"`, `src="ssim_vs_age.png"`, "PREDICTED: predicted frame", "simulated-loop",
 			"gilbert-elliott, loss rate 0.2", "ctrv"} {
 			if !strings.Contains(page, want) {
 				t.Errorf("page lacks %q", want)

@@ -49,7 +49,7 @@ const (
 	TickStale     = "STALE"
 )
 
-// AgeBucket is a half-open range [MinMs, MaxMs) of gap age (time since the
+// AgeBucket is a half-open range [MinMs, MaxMs) of picture age (time since the
 // capture of the newest real frame shown or warped), in milliseconds.
 type AgeBucket struct {
 	Label string  // e.g. "100-200"
@@ -124,7 +124,7 @@ type Summary struct {
 	Drive string `json:"drive"`
 	// Cutoff is the confidence cutoff of the PREDICTED/STALE decision.
 	Cutoff float64 `json:"cutoff"`
-	// MaxAgeMs is the policy's maximum gap age for PREDICTED frames.
+	// MaxAgeMs is the policy's cap on the picture age for PREDICTED frames.
 	MaxAgeMs float64 `json:"max_age_ms"`
 	// Loss is the simulated link, or only Model lossmodel.Recorded
 	// ("recorded") when the arrivals came from a recorded file instead

@@ -68,15 +68,18 @@ func runDemoLive(ctx context.Context, args []string, stdout, stderr io.Writer) e
 		logJSON, verbose                  bool
 	)
 	outages := outageList{}
-	fs.StringVar(&dir, "dir", "stopgap-demo", "working `directory`; the simulated drive is rendered into it once and reused")
+	fs.StringVar(&dir, "out", "stopgap-demo", "`directory` the demo writes into; the simulated drive is rendered into it once and reused")
+	deprecatedAlias(fs, "dir", "out")
 	fs.StringVar(&listen, "listen", "127.0.0.1:0", "HTTP `address` of the relay (ingest and console); port 0 picks a free one")
 	fs.StringVar(&record, "record", "", "if set, a new `directory` the relay records the session into (frames, telemetry, arrivals, ticks.csv),\nwith the simulated vehicle's own full-quality recording in DIR/onboard")
 	fs.Float64Var(&runS, "run-s", 0, "stop after this many seconds; 0 runs until Ctrl-C")
-	fs.Float64Var(&driveS, "drive-s", 20, "length of the simulated drive, s (it loops)")
+	fs.Float64Var(&driveS, "duration-s", 20, "length of the simulated drive, s (it loops)")
+	deprecatedAlias(fs, "drive-s", "duration-s")
 	fs.IntVar(&width, "width", 640, "camera width of the simulated drive, pixels")
 	fs.IntVar(&height, "height", 360, "camera height of the simulated drive, pixels")
 	fs.IntVar(&bitrateKbps, "bitrate-kbps", 0, "vehicle encoder bitrate, kbit/s (0 = the encoder's default)")
-	fs.Float64Var(&lossRate, "link-loss", 0.01, "long-run fraction of RTP packets lost by the Gilbert-Elliott link, [0,1)")
+	fs.Float64Var(&lossRate, "packet-loss-rate", 0.01, "long-run share of RTP packets lost by the Gilbert-Elliott link, [0,1) (packets, not frames)")
+	deprecatedAlias(fs, "link-loss", "packet-loss-rate")
 	fs.Float64Var(&burstMs, "link-burst-ms", 40, "mean duration of a loss burst on the link, ms")
 	fs.Float64Var(&delayMs, "link-delay-ms", 30, "fixed one-way delay of the link, ms")
 	fs.Float64Var(&jitMs, "link-jitter-ms", 10, "uniform extra one-way delay in [0, jitter), ms (never reorders)")
@@ -86,7 +89,7 @@ func runDemoLive(ctx context.Context, args []string, stdout, stderr io.Writer) e
 	fs.BoolVar(&verbose, "v", false, "verbose logs")
 	fs.Usage = func() {
 		fmt.Fprintln(stderr, "usage: stopgap demo [flags]")
-		fmt.Fprintln(stderr, "\nLive demo: starts the relay on loopback, renders a simulated drive (once, into DIR),")
+		fmt.Fprintln(stderr, "\nLive demo: starts the relay on loopback, renders a simulated drive (once, into the --out directory),")
 		fmt.Fprintln(stderr, "and plays it from a simulated vehicle over WebRTC through an emulated lossy link with")
 		fmt.Fprintln(stderr, "scripted outages. Open the printed console URL in a browser to watch LIVE, PREDICTED")
 		fmt.Fprintln(stderr, "and STALE frames. Runs until Ctrl-C or --run-s.")
@@ -100,7 +103,7 @@ func runDemoLive(ctx context.Context, args []string, stdout, stderr io.Writer) e
 		_ = outages.Set("3s+400ms@10s,7s+1500ms@10s")
 	}
 	if runS < 0 || driveS <= 0 || width <= 0 || height <= 0 || bitrateKbps < 0 {
-		fmt.Fprintln(stderr, "stopgap demo: --run-s must be >= 0; --drive-s, --width and --height > 0; --bitrate-kbps >= 0")
+		fmt.Fprintln(stderr, "stopgap demo: --run-s must be >= 0; --duration-s, --width and --height > 0; --bitrate-kbps >= 0")
 		return errUsage
 	}
 	level := slog.LevelInfo

@@ -138,7 +138,7 @@ func TestExportReplay(t *testing.T) {
 	out := filepath.Join(dir, "replay.mcap")
 	report := filepath.Join(dir, "report")
 	var so, se bytes.Buffer
-	args := []string{"export", "--drive", drive, "--out", out, "--replay-report", report, "--loss-rate", "0.25", "--seed", "2", "--quiet"}
+	args := []string{"export", "--drive", drive, "--out", out, "--replay-report", report, "--frame-loss-rate", "0.25", "--seed", "2", "--quiet"}
 	if code := run(context.Background(), args, &so, &se); code != 0 {
 		t.Fatalf("exit %d: %s", code, se.String())
 	}

@@ -53,7 +53,7 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	fs.Float64Var(&minCutoff, "min-cutoff", -1, "no longer used: set min_cutoff in the policy file")
 	fs.Float64Var(&maxCutoff, "max-cutoff", -1, "no longer used: set max_cutoff in the policy file")
 	fs.Float64Var(&maxAgeMs, "max-age-ms", 0, "hard cap on the age of a predicted frame, ms (0 = the policy's max_horizon_ms; more is refused)")
-	fs.Float64Var(&allowanceMs, "allowance-ms", relay.DefaultAllowanceMs, "how late after its nominal arrival a frame may come and still be LIVE, ms")
+	fs.Float64Var(&allowanceMs, "allowance-ms", relay.DefaultAllowanceMs, allowanceUsage)
 	fs.Float64Var(&latencyMs, "latency-ms", 0, "nominal capture-to-arrival latency, ms (0 = estimate over the first frames of each session)")
 	fs.StringVar(&model, "model", "ctrv", "motion model of the filter: ctrv or bicycle")
 	fs.Float64Var(&wheelbaseM, "wheelbase-m", 2.7, "wheelbase for the bicycle model and steering telemetry, m")
