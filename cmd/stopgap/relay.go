@@ -52,7 +52,7 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	fs.StringVar(&policyPath, "policy", operator.DefaultPolicyPath, "administrator's policy `file`: cutoff limits, longest prediction horizon, who may change what (missing at the default path: built-in conservative defaults)")
 	fs.Float64Var(&minCutoff, "min-cutoff", -1, "no longer used: set min_cutoff in the policy file")
 	fs.Float64Var(&maxCutoff, "max-cutoff", -1, "no longer used: set max_cutoff in the policy file")
-	fs.Float64Var(&maxAgeMs, "max-age-ms", 0, "hard cap on the age of a predicted frame, ms (0 = the policy's max_horizon_ms; more is refused)")
+	fs.Float64Var(&maxAgeMs, "max-age-ms", 0, "cap on the picture age of a predicted frame, ms: past it a missing frame is STALE (0 = the policy's max_horizon_ms; more is refused)")
 	fs.Float64Var(&allowanceMs, "allowance-ms", relay.DefaultAllowanceMs, allowanceUsage)
 	fs.Float64Var(&latencyMs, "latency-ms", 0, "nominal capture-to-arrival latency, ms (0 = estimate over the first frames of each session)")
 	fs.StringVar(&model, "model", "ctrv", "motion model of the filter: ctrv or bicycle")

@@ -47,7 +47,7 @@ func (f *replayFlags) register(fs *flag.FlagSet) {
 	fs.Float64Var(&f.delayMs, "delay-ms", 0, "fixed extra one-way delay of every frame, ms")
 	fs.Float64Var(&f.jitterMs, "jitter-ms", 0, "uniform extra delay of each frame in [0, jitter), ms")
 	fs.Float64Var(&f.cutoff, "cutoff", pol.CutoffConfidence, "confidence cutoff in [0,1]: below it a missing frame is shown STALE, not PREDICTED")
-	fs.Float64Var(&f.maxAgeMs, "max-age-ms", pol.MaxAgeMs, "hard cap on the age of a predicted frame, ms")
+	fs.Float64Var(&f.maxAgeMs, "max-age-ms", pol.MaxAgeMs, "cap on the picture age of a predicted frame, ms: past it a missing frame is STALE")
 	fs.Float64Var(&f.allowanceMs, "allowance-ms", bench.DefaultAllowanceMs, allowanceUsage)
 	fs.StringVar(&f.model, "model", "ctrv", "motion model of the filter: ctrv or bicycle")
 	fs.Float64Var(&f.wheelbaseM, "wheelbase-m", 2.7, "wheelbase for the bicycle model and steering telemetry, m")
@@ -211,7 +211,7 @@ func printSummaryBody(w io.Writer, s bench.Summary) {
 			}
 		}
 	}
-	fmt.Fprintf(w, "%-10s %7s %10s %9s %9s\n", "method", "frames", "PSNR dB", "SSIM", "MAE")
+	fmt.Fprintf(w, "%-10s %7s %10s %9s %9s\n", "method", "frames", "PSNR dB", "SSIM", "MAE 0-255")
 	for _, m := range bench.Methods() {
 		st := s.Methods.Get(m)
 		name := m.String()
