@@ -491,6 +491,7 @@ func (p *pipeline) emit(k int, captureUs int64, tick predictor.Tick, ev *frameEv
 	}
 	p.refreshLink()
 	conf, age := finite(tick.Confidence), finite(tick.AgeMs)
+	p.r.met.setCurrent(tick.State, age)
 	_, havePicture := p.filler.LastCaptureUs()
 	pol := predictor.Policy{CutoffConfidence: cutoff, MaxAgeMs: p.cfg.Policy.MaxAgeMs}
 	p.meta = console.Meta{Seq: p.meta.Seq + 1, TimeUs: captureUs, State: st, AgeMs: age, MaxAgeMs: pol.MaxAgeMs,

@@ -7,7 +7,6 @@ import (
 	"stopgap/vocab"
 )
 
-
 // Box is an element's layout box in CSS pixels, with its computed
 // visibility.
 type Box struct {
