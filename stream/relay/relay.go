@@ -13,6 +13,7 @@ import (
 	"sync"
 	"time"
 
+	"stopgap/predictor"
 	"stopgap/stream/console"
 	"stopgap/stream/ingest"
 	"stopgap/stream/vp8"
@@ -33,6 +34,10 @@ type Stats struct {
 	// Losses counts assembler loss events and decode errors; KeyframeRequests
 	// the PLIs sent (including retries).
 	Losses, KeyframeRequests uint64
+	// State and PictureAgeMs describe the latest tick sent to the console
+	// (StateInvalid before the first).
+	State        predictor.State
+	PictureAgeMs float64
 	// LateFrames counts frames decoded after their deadline (held, not
 	// shown); FramesDropped frames dropped because the display loop was
 	// behind.
@@ -190,6 +195,7 @@ func (r *Relay) Stats() Stats {
 		FramesIn:  m.framesIn.Load(),
 		TicksLive: m.ticksLive.Load(), TicksPredicted: m.ticksPredicted.Load(), TicksStale: m.ticksStale.Load(),
 		Losses: m.losses.Load(), KeyframeRequests: m.keyframeRequests.Load(),
+		State: predictor.State(m.stateNow.Load()), PictureAgeMs: float64(m.pictureAge.Load()) / 1000,
 		LateFrames: m.lateFrames.Load(), FramesDropped: m.framesDropped.Load(),
 		TelemetryIn: m.telemetryIn.Load(), TelemetryRejected: m.telemetryRejected.total(),
 		RecordErrors: m.recordErrors.Load(),
