@@ -23,10 +23,10 @@ import (
 	"stopgap/vocab"
 )
 
-// syntheticTicks makes a deterministic replay-like sequence: ten LIVE
+// generatedTicks makes a deterministic replay-like sequence: ten LIVE
 // ticks, then gaps of growing age scored for all methods, with quality
 // falling with age and predicted > rotation > hold.
-func syntheticTicks(n int) []TickRow {
+func generatedTicks(n int) []TickRow {
 	rows := make([]TickRow, 0, n)
 	for i := range n {
 		t := int64(i) * 33_333
@@ -201,7 +201,7 @@ var documentedSummaryKeys = []string{"ticks_total", "ticks_missing", "predicted_
 	"cutoff", "drive", "loss", "methods", "arrivals_file", "allowance_ms", "latency_ms", "filter_model", "telemetry_rejected"}
 
 func TestWriteReport(t *testing.T) {
-	ticks := syntheticTicks(400)
+	ticks := generatedTicks(400)
 	s, err := Summarize(ticks)
 	if err != nil {
 		t.Fatal(err)
@@ -373,7 +373,7 @@ func TestWriteReportEdgeCases(t *testing.T) {
 		truth := readFixture(t, "graf1_crop.png")
 		defer truth.Close()
 		bad := []Example{{Tick: 1, True: truth, Hold: truth}} // no predicted frame
-		err := WriteReport(dir, Summary{}, syntheticTicks(20), bad)
+		err := WriteReport(dir, Summary{}, generatedTicks(20), bad)
 		if err == nil {
 			t.Fatal("report with a missing example image succeeded")
 		}
@@ -423,7 +423,7 @@ func FuzzSummaryJSON(f *testing.F) {
 
 // BenchmarkAccumulatorAdd measures validating and adding one tick.
 func BenchmarkAccumulatorAdd(b *testing.B) {
-	rows := syntheticTicks(4000)
+	rows := generatedTicks(4000)
 	b.ReportAllocs()
 	for b.Loop() {
 		var a Accumulator

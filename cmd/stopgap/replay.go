@@ -261,7 +261,7 @@ func runSimdrive(ctx context.Context, args []string, stdout, stderr io.Writer) e
 	fs.BoolVar(&quiet, "quiet", false, "no progress bar")
 	fs.Usage = func() {
 		fmt.Fprintln(stderr, "usage: stopgap simdrive --out DIR [flags]")
-		fmt.Fprintln(stderr, "\nRenders a synthetic drive of our own street scene and writes it as a recording")
+		fmt.Fprintln(stderr, "\nRenders a simulated drive of our own street scene and writes it as a recording")
 		fmt.Fprintln(stderr, "(camera.json, frames.csv + JPEG frames, telemetry.csv, truth.csv).")
 		fmt.Fprintln(stderr)
 		fs.PrintDefaults()
