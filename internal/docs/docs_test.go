@@ -14,6 +14,7 @@ import (
 	"strings"
 	"testing"
 
+	"stopgap/predictor"
 	"stopgap/vocab"
 )
 
@@ -147,6 +148,70 @@ func TestGuideCommandsExist(t *testing.T) {
 			if !strings.Contains(devsh, "\n  "+m[1]+")") {
 				t.Errorf("%s asks for ./dev.sh %s, which dev.sh does not have", guide, m[1])
 			}
+		}
+	}
+}
+
+// TestStateNamesOneSource: the names of the frame states are the String
+// values of predictor.State, and every surface spells them that way: the
+// console script's list of states and its styles, the README and the
+// replay report's template.
+func TestStateNamesOneSource(t *testing.T) {
+	states := []predictor.State{predictor.StateLive, predictor.StatePredicted, predictor.StateStale}
+	var quoted []string
+	for _, s := range states {
+		quoted = append(quoted, `"`+s.String()+`"`)
+	}
+	js := read(t, "stream/console/web/console.js")
+	if want := "const STATES = [" + strings.Join(quoted, ", ") + "];"; !strings.Contains(js, want) {
+		t.Errorf("console.js lacks %s", want)
+	}
+	css := read(t, "stream/console/web/console.css")
+	readme := read(t, "README.md")
+	report := read(t, "bench/report_html.go")
+	for _, s := range states {
+		name := s.String()
+		if !strings.Contains(css, `body[data-state="`+name+`"]`) {
+			t.Errorf("console.css has no style for %s", name)
+		}
+		if !strings.Contains(readme, name) {
+			t.Errorf("README.md never names the state %s", name)
+		}
+		if !strings.Contains(report, name) {
+			t.Errorf("the report template never names the state %s", name)
+		}
+	}
+}
+
+// projectCommands are the programs the contributor guide may ask for: the
+// Go toolchain, the project's own scripts and binary, and the Python of
+// the reference-metric script.
+var projectCommands = map[string]bool{"go": true, "./dev.sh": true, "bin/stopgap": true, "/usr/bin/python3": true}
+
+// TestGuideAsksOnlyProjectCommands: every command line in a shell block of
+// DEVELOPERS.md starts (after VAR=value assignments) with one of
+// projectCommands, so the guide never sends a contributor to a tool that
+// is not part of the project.
+func TestGuideAsksOnlyProjectCommands(t *testing.T) {
+	inBlock := false
+	for i, line := range strings.Split(read(t, "DEVELOPERS.md"), "\n") {
+		switch {
+		case strings.HasPrefix(line, "```sh"):
+			inBlock = true
+			continue
+		case strings.HasPrefix(line, "```"):
+			inBlock = false
+			continue
+		}
+		f := strings.Fields(line)
+		if !inBlock || len(f) == 0 || strings.HasPrefix(f[0], "#") {
+			continue
+		}
+		for len(f) > 1 && strings.Contains(f[0], "=") {
+			f = f[1:]
+		}
+		if !projectCommands[f[0]] {
+			t.Errorf("DEVELOPERS.md line %d asks for %q, which is not part of the project", i+1, f[0])
 		}
 	}
 }
