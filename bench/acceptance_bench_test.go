@@ -6,6 +6,7 @@ import (
 	"testing"
 
 	"stopgap/bench/simdrive"
+	"stopgap/lossmodel"
 	"stopgap/predictor"
 )
 
@@ -61,7 +62,7 @@ func BenchmarkPanDriveHarm(b *testing.B) {
 		for seed := uint64(1); seed <= 3; seed++ {
 			sum, err := Replay(context.Background(), ReplayConfig{
 				Drive: drive, Out: filepath.Join(dir, "r"+string(rune('0'+seed))), Overwrite: true, Examples: -1,
-				Loss:   LossConfig{Model: LossModelGilbertElliott, LossRate: 0.15, BurstMs: 400, Seed: seed},
+				Loss:   lossmodel.Config{Model: lossmodel.GilbertElliott, LossRate: 0.15, BurstMs: 400, Seed: seed},
 				Policy: predictor.DefaultPolicy(),
 			})
 			if err != nil {

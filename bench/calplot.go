@@ -13,6 +13,8 @@ import (
 	"gonum.org/v1/plot/plotter"
 	"gonum.org/v1/plot/vg"
 	"gonum.org/v1/plot/vg/draw"
+
+	"stopgap/vocab"
 )
 
 // Files of the calibration figures in a replay report and of a tune report.
@@ -184,10 +186,11 @@ func WriteTuneReport(dir string, res TuneResult, overwrite bool) error {
 		}
 		if err := writeFile(filepath.Join(tmp, TuneHTMLFile), func(w io.Writer) error {
 			return tpl.Execute(w, struct {
-				Caution string
-				R       TuneResult
-				Plot    string
-			}{SafetyCaution, res, TunePlotFile})
+				CautionTitle string
+				Caution      string
+				R            TuneResult
+				Plot         string
+			}{vocab.CautionTitle, vocab.Caution, res, TunePlotFile})
 		}); err != nil {
 			return err
 		}
@@ -205,7 +208,7 @@ table { border-collapse: collapse; } th, td { border: 1px solid #aaa; padding: 0
 th { background: #eee; } .rec { background: #e8f5e9; font-weight: bold; }
 </style></head><body>
 <h1>stopgap cutoff tuning</h1>
-<div class="caution" id="safety-caution"><h2>SAFETY CAUTION</h2><p>{{.Caution}}</p>
+<div class="caution" id="safety-caution"><h2>{{.CautionTitle}}</h2><p>{{.Caution}}</p>
 <p>A recommended cutoff is measured on the replayed drives only; it says how often the static scene was placed
 worse than the frozen picture, never whether moving road users were shown. An administrator's limits and the
 operator's licensed procedures take precedence.</p></div>

@@ -8,6 +8,7 @@ import (
 	"sort"
 
 	"stopgap/filter"
+	"stopgap/lossmodel"
 	"stopgap/predictor"
 	"stopgap/stream/recording"
 )
@@ -17,7 +18,7 @@ type TruthCalibrationConfig struct {
 	// Drives are recordings with a truth.csv.
 	Drives []string
 	// Losses are the simulated links; every drive is replayed over each.
-	Losses []LossConfig
+	Losses []lossmodel.Config
 	// Filter, Confidence, Policy and AllowanceMs as in ReplayConfig
 	// (zero values: the defaults; Policy only bounds the age, MaxAgeMs 0
 	// meaning predictor.DefaultMaxAgeMs).
@@ -59,7 +60,7 @@ func CalibrateTruth(ctx context.Context, cfg TruthCalibrationConfig) (Calibratio
 		if len(rec.Truth) != len(rec.Frames) || len(rec.Frames) == 0 {
 			return Calibration{}, fmt.Errorf("calibration: %s must hold one truth row per frame: %w", filepath.Join(d, recording.TruthFile), ErrReplayInput)
 		}
-		cam := predictor.CameraFromRecording(rec.Camera)
+		cam := predictor.Camera(rec.Camera)
 		captureUs := make([]int64, len(rec.Frames))
 		for i, f := range rec.Frames {
 			captureUs[i] = f.CaptureUs

@@ -5,6 +5,8 @@ import (
 	"os"
 	"path/filepath"
 	"testing"
+
+	"stopgap/lossmodel"
 )
 
 // TestCalibrateTruthDrives prints the calibration over the drives named in
@@ -26,10 +28,10 @@ func TestCalibrateTruthDrives(t *testing.T) {
 
 // heldOutLosses returns n Gilbert-Elliott links at the headline setting
 // (10 % loss, 200 ms bursts) with seeds 101..100+n.
-func heldOutLosses(n int) []LossConfig {
-	out := make([]LossConfig, n)
+func heldOutLosses(n int) []lossmodel.Config {
+	out := make([]lossmodel.Config, n)
 	for i := range out {
-		out[i] = LossConfig{Model: LossModelGilbertElliott, LossRate: 0.1, BurstMs: 200, Seed: uint64(101 + i)}
+		out[i] = lossmodel.Config{Model: lossmodel.GilbertElliott, LossRate: 0.1, BurstMs: 200, Seed: uint64(101 + i)}
 	}
 	return out
 }

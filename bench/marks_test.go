@@ -12,6 +12,7 @@ import (
 	"gocv.io/x/gocv"
 
 	"stopgap/bench/simdrive"
+	"stopgap/lossmodel"
 	"stopgap/predictor"
 )
 
@@ -61,7 +62,7 @@ func TestReplayScoresMarks(t *testing.T) {
 		t.Fatal(err)
 	}
 	cfg := ReplayConfig{Drive: drive, Out: filepath.Join(dir, "r"), Examples: -1,
-		Loss:   LossConfig{Model: LossModelGilbertElliott, LossRate: 0.2, BurstMs: 200, Seed: 1},
+		Loss:   lossmodel.Config{Model: lossmodel.GilbertElliott, LossRate: 0.2, BurstMs: 200, Seed: 1},
 		Policy: predictor.DefaultPolicy()}
 	sum, err := Replay(context.Background(), cfg)
 	if err != nil {

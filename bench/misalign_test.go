@@ -13,6 +13,7 @@ import (
 
 	"gocv.io/x/gocv"
 
+	"stopgap/lossmodel"
 	"stopgap/predictor"
 )
 
@@ -152,7 +153,7 @@ func TestMisalignmentAgreesWithTruth(t *testing.T) {
 	drive := smallDrive(t, cfg)
 	var out replayOutput
 	_, err := replayDrive(context.Background(), ReplayConfig{Drive: drive, Examples: -1,
-		Loss:   LossConfig{Model: LossModelGilbertElliott, LossRate: 0.3, BurstMs: 300, Seed: 2},
+		Loss:   lossmodel.Config{Model: lossmodel.GilbertElliott, LossRate: 0.3, BurstMs: 300, Seed: 2},
 		Policy: predictor.DefaultPolicy()}, &out)
 	if err != nil {
 		t.Fatal(err)

@@ -15,6 +15,7 @@ import (
 	"gocv.io/x/gocv"
 
 	"stopgap/filter"
+	"stopgap/lossmodel"
 	"stopgap/predictor"
 	"stopgap/stream/cadence"
 	"stopgap/stream/recording"
@@ -51,7 +52,7 @@ type ReplayConfig struct {
 	PairToleranceMs float64
 	// Loss is the simulated link used when ArrivalsFile is empty. Its zero
 	// value is invalid: set at least Model.
-	Loss LossConfig
+	Loss lossmodel.Config
 
 	// Policy decides PREDICTED versus STALE (cutoff and age cap).
 	Policy predictor.Policy
@@ -149,7 +150,7 @@ func newSchedule(captureUs, arrivalUs, recordedDeadlineUs []int64, allowanceUs i
 	h.s = &s
 	arrived := arrivalOrder(arrivalUs)
 	if len(arrived) == 0 {
-		return Schedule{}, fmt.Errorf("schedule: no frame arrived, nothing to replay; check the arrivals file or lower --loss-rate: %w", ErrReplayInput)
+		return Schedule{}, fmt.Errorf("schedule: no frame arrived, nothing to replay; check the arrivals file or lower --frame-loss-rate: %w", ErrReplayInput)
 	}
 	for _, j := range arrived {
 		if v := clock.FrameAt(&h, j, captureUs[j], arrivalUs[j]); v.Live {
@@ -365,7 +366,7 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 	if len(rec.Frames) == 0 {
 		return Summary{}, fmt.Errorf("replay: %s has no frames: %w", filepath.Join(cfg.Drive, "frames.csv"), ErrReplayInput)
 	}
-	cam := predictor.CameraFromRecording(rec.Camera)
+	cam := predictor.Camera(rec.Camera)
 	if err := cam.Validate(); err != nil {
 		return Summary{}, fmt.Errorf("replay: %s: %w", filepath.Join(cfg.Drive, "camera.json"), err)
 	}
@@ -552,8 +553,9 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 	sum.Drive = cfg.Drive
 	sum.Cutoff = cfg.Policy.CutoffConfidence
 	sum.MaxAgeMs = cfg.Policy.MaxAgeMs
-	if cfg.ArrivalsFile == "" {
-		sum.Loss = cfg.Loss
+	sum.Loss = cfg.Loss
+	if cfg.ArrivalsFile != "" {
+		sum.Loss = lossmodel.Config{Model: lossmodel.Recorded}
 	}
 	sum.ArrivalsFile = cfg.ArrivalsFile
 	sum.AllowanceMs = allowanceMs

@@ -13,6 +13,7 @@ import (
 	"time"
 
 	"stopgap/bench/simdrive"
+	"stopgap/lossmodel"
 	"stopgap/predictor"
 	"stopgap/stream/recording"
 )
@@ -36,7 +37,7 @@ func smallConfig() simdrive.Config {
 func baseReplay(drive, out string) ReplayConfig {
 	return ReplayConfig{
 		Drive: drive, Out: out,
-		Loss:   LossConfig{Model: LossModelGilbertElliott, LossRate: 0.1, BurstMs: 200, Seed: 1},
+		Loss:   lossmodel.Config{Model: lossmodel.GilbertElliott, LossRate: 0.1, BurstMs: 200, Seed: 1},
 		Policy: predictor.DefaultPolicy(),
 	}
 }
@@ -214,6 +215,9 @@ func TestReplayRecordedArrivals(t *testing.T) {
 	if sum.TicksMissing != 5 || sum.LatencyMs != 70 {
 		t.Errorf("missing %d (want 5), latency %v ms (want 70)", sum.TicksMissing, sum.LatencyMs)
 	}
+	if sum.Loss.Model != lossmodel.Recorded {
+		t.Errorf("summary loss model %q, want %q: the losses came from a recorded file", sum.Loss.Model, lossmodel.Recorded)
+	}
 	ticks, err := os.ReadFile(filepath.Join(out, "ticks.csv"))
 	if err != nil {
 		t.Fatal(err)
@@ -263,7 +267,7 @@ func TestReplayBadInput(t *testing.T) {
 			out := filepath.Join(t.TempDir(), "out")
 			cfg := baseReplay(dir, out)
 			// Lose every other frame so a corrupt frame is certainly read.
-			cfg.Loss = LossConfig{Model: LossModelGilbertElliott, LossRate: 0.5, BurstMs: 1, Seed: 4}
+			cfg.Loss = lossmodel.Config{Model: lossmodel.GilbertElliott, LossRate: 0.5, BurstMs: 1, Seed: 4}
 			_, err := Replay(context.Background(), cfg)
 			if err == nil {
 				t.Fatal("replay succeeded on broken input")
@@ -408,7 +412,7 @@ func copyDir(t *testing.T, src, dst string) {
 }
 
 // BenchmarkReplayDefaultDrive is the product's headline figure: the default
-// simulated drive (1280x720, 30 fps, 20 s) replayed with --loss-rate 0.1
+// simulated drive (1280x720, 30 fps, 20 s) replayed with --frame-loss-rate 0.1
 // --burst-ms 200 --seed 1. It reports the PSNR and SSIM of hold and
 // predicted, the synthesis time percentiles and the replay's speed as a
 // multiple of real time (> 1 is faster than real time). The drive is

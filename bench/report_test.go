@@ -5,6 +5,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"html"
 	"image"
 	_ "image/jpeg"
 	_ "image/png"
@@ -17,12 +18,15 @@ import (
 	"testing"
 
 	"gocv.io/x/gocv"
+
+	"stopgap/lossmodel"
+	"stopgap/vocab"
 )
 
-// syntheticTicks makes a deterministic replay-like sequence: ten LIVE
+// generatedTicks makes a deterministic replay-like sequence: ten LIVE
 // ticks, then gaps of growing age scored for all methods, with quality
 // falling with age and predicted > rotation > hold.
-func syntheticTicks(n int) []TickRow {
+func generatedTicks(n int) []TickRow {
 	rows := make([]TickRow, 0, n)
 	for i := range n {
 		t := int64(i) * 33_333
@@ -197,13 +201,13 @@ var documentedSummaryKeys = []string{"ticks_total", "ticks_missing", "predicted_
 	"cutoff", "drive", "loss", "methods", "arrivals_file", "allowance_ms", "latency_ms", "filter_model", "telemetry_rejected"}
 
 func TestWriteReport(t *testing.T) {
-	ticks := syntheticTicks(400)
+	ticks := generatedTicks(400)
 	s, err := Summarize(ticks)
 	if err != nil {
 		t.Fatal(err)
 	}
-	s.Drive, s.Cutoff, s.MaxAgeMs = "synthetic-loop", 0.6, 800
-	s.Loss = LossConfig{Model: LossModelGilbertElliott, LossRate: 0.2, BurstMs: 300, Seed: 1}
+	s.Drive, s.Cutoff, s.MaxAgeMs = "simulated-loop", 0.6, 800
+	s.Loss = lossmodel.Config{Model: lossmodel.GilbertElliott, LossRate: 0.2, BurstMs: 300, Seed: 1}
 	s.FilterModel, s.LatencyMs, s.AllowanceMs, s.TelemetryRejected = "ctrv", 100, 20, 3
 	truth, hold, pred := exampleFrames(t)
 	defer truth.Close()
@@ -290,8 +294,11 @@ func TestWriteReport(t *testing.T) {
 			t.Fatal(err)
 		}
 		page := string(raw)
-		for _, want := range []string{"SAFETY CAUTION", "static scene only", "licensed procedures", "local regulations",
-			`src="psnr_vs_age.png"`, `src="ssim_vs_age.png"`, "PREDICTED: synthetic frame", "synthetic-loop",
+		// The caution is the shared text of package vocab, word for word, and
+		// the page defines the words its tables use.
+		for _, want := range []string{vocab.CautionTitle, html.EscapeString(vocab.Caution),
+			"MAE (grey levels)", "A tick is one", "The unfilled share is", "The picture age is",
+			`src="psnr_vs_age.png"`, `src="ssim_vs_age.png"`, "PREDICTED: predicted frame", "simulated-loop",
 			"gilbert-elliott, loss rate 0.2", "ctrv"} {
 			if !strings.Contains(page, want) {
 				t.Errorf("page lacks %q", want)
@@ -367,7 +374,7 @@ func TestWriteReportEdgeCases(t *testing.T) {
 		truth := readFixture(t, "graf1_crop.png")
 		defer truth.Close()
 		bad := []Example{{Tick: 1, True: truth, Hold: truth}} // no predicted frame
-		err := WriteReport(dir, Summary{}, syntheticTicks(20), bad)
+		err := WriteReport(dir, Summary{}, generatedTicks(20), bad)
 		if err == nil {
 			t.Fatal("report with a missing example image succeeded")
 		}
@@ -417,7 +424,7 @@ func FuzzSummaryJSON(f *testing.F) {
 
 // BenchmarkAccumulatorAdd measures validating and adding one tick.
 func BenchmarkAccumulatorAdd(b *testing.B) {
-	rows := syntheticTicks(4000)
+	rows := generatedTicks(4000)
 	b.ReportAllocs()
 	for b.Loop() {
 		var a Accumulator

@@ -13,6 +13,7 @@ import (
 	"strings"
 
 	"stopgap/filter"
+	"stopgap/lossmodel"
 	"stopgap/predictor"
 )
 
@@ -91,7 +92,7 @@ type ShardManifest struct {
 type replaySettings struct {
 	ArrivalsFile    string                    `json:"arrivals_file"`
 	PairToleranceMs float64                   `json:"pair_tolerance_ms"`
-	Loss            LossConfig                `json:"loss"`
+	Loss            lossmodel.Config          `json:"loss"`
 	Policy          predictor.Policy          `json:"policy"`
 	Filter          filter.Config             `json:"filter"`
 	AllowanceMs     float64                   `json:"allowance_ms"`

@@ -139,3 +139,62 @@ func readTicksFile(path string) ([]TickRow, error) {
 	defer f.Close()
 	return ReadTicksCSV(f, path)
 }
+
+// TicksCSVHeader returns the column names of ticks.csv (a new slice).
+// Metric columns are <method>_psnr_db, <method>_ssim, <method>_mae for
+// hold, rotation and predicted. Empty cells are NaN (not measured); an
+// infinite PSNR (identical frames) is written as "inf".
+func TicksCSVHeader() []string {
+	h := []string{"tick", "target_us", "state", "age_ms", "confidence"}
+	for _, m := range Methods() {
+		h = append(h, m.String()+"_psnr_db", m.String()+"_ssim", m.String()+"_mae")
+	}
+	return append(h, "synth_ms", "unfilled_share", "label_share",
+		"warp_psnr_db", "warp_ssim", "warp_mae", "sigma_px", "misalign_px", "misalign_mrad", "truth_misalign_mrad",
+		"mark_recall", "mark_precision", "mark_changed_share", "mark_marked_share")
+}
+
+// csvFloat formats v for ticks.csv: shortest exact form, "" for NaN,
+// "inf"/"-inf" for infinities.
+func csvFloat(v float64) string {
+	switch {
+	case math.IsNaN(v):
+		return ""
+	case math.IsInf(v, 1):
+		return "inf"
+	case math.IsInf(v, -1):
+		return "-inf"
+	}
+	return strconv.FormatFloat(v, 'g', -1, 64)
+}
+
+func writeTicksCSV(path string, ticks []TickRow) error {
+	return writeFile(path, func(w io.Writer) error { return writeTicks(w, ticks) })
+}
+
+// writeTicks writes ticks as ticks.csv to w (see TicksCSVHeader).
+func writeTicks(w io.Writer, ticks []TickRow) error {
+	cw := csv.NewWriter(w)
+	if err := cw.Write(TicksCSVHeader()); err != nil {
+		return err
+	}
+	rec := make([]string, 0, len(TicksCSVHeader()))
+	for i := range ticks {
+		r := &ticks[i]
+		rec = append(rec[:0], strconv.Itoa(r.Tick), strconv.FormatInt(r.TargetUs, 10), r.State,
+			csvFloat(r.AgeMs), csvFloat(r.Confidence))
+		for _, m := range Methods() {
+			sc := r.MethodScores(m)
+			rec = append(rec, csvFloat(sc.PSNRdB), csvFloat(sc.SSIM), csvFloat(sc.MAE))
+		}
+		rec = append(rec, csvFloat(r.SynthMs), csvFloat(r.UnfilledShare), csvFloat(r.LabelShare),
+			csvFloat(r.Warp.PSNRdB), csvFloat(r.Warp.SSIM), csvFloat(r.Warp.MAE),
+			csvFloat(r.SigmaPx), csvFloat(r.MisalignPx), csvFloat(r.MisalignMrad), csvFloat(r.TruthMisalignMrad),
+			csvFloat(r.MarkRecall), csvFloat(r.MarkPrecision), csvFloat(r.MarkChangedShare), csvFloat(r.MarkMarkedShare))
+		if err := cw.Write(rec); err != nil {
+			return err
+		}
+	}
+	cw.Flush()
+	return cw.Error()
+}

@@ -26,6 +26,13 @@ const MaxImageSide = 16384
 //
 // Yaw of the camera relative to the vehicle is not modelled (cameras face
 // forward). The zero value is invalid; see Validate.
+//
+// The fields are those of a recording's camera.json (recording.Camera in
+// stopgap/stream/recording), in the same order and of the same types, so
+// each converts to the other with a plain type conversion,
+// predictor.Camera(rec.Camera); the compiler refuses the conversion as soon
+// as the two differ. This package does not import the recording format:
+// data flows from stream to predictor, never back.
 type Camera struct {
 	Width, Height int // image size, pixels
 

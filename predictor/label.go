@@ -9,16 +9,19 @@ import (
 	"unsafe"
 
 	"gocv.io/x/gocv"
+
+	"stopgap/vocab"
 )
 
 // Label look. Our own choice of colours and pattern:
 //
 //   - PREDICTED: a border of diagonal amber and black stripes, and in the top
 //     left corner inside it a black box with amber text
-//     "PREDICTED +<age> ms  conf <confidence>".
+//     "PREDICTED  picture age <age> ms  conf <confidence>" over
+//     "moving objects not shown" (the words come from package vocab).
 //   - STALE: the image is desaturated and dimmed to half brightness (done by
 //     the Filler), a solid red border, and a red box in the middle with white
-//     text "STALE - NOT LIVE" over "last picture <age> ms old".
+//     text "STALE - NOT LIVE" over "picture age <age> ms".
 //   - No picture yet: dark grey frame, red border, "NO PICTURE YET".
 //
 // The border is BorderPx(height) wide: 1/40 of the image height, at least 3
@@ -134,16 +137,14 @@ func (l *Labeler) Draw(img *gocv.Mat, st State, ageMs, confidence float64) (floa
 			src.Close()
 			dst.Close()
 		}
-		t := append(l.text[:0], "PREDICTED +"...)
-		t = strconv.AppendInt(t, int64(math.Round(ageMs)), 10)
-		t = append(t, " ms  conf "...)
+		t := append(l.text[:0], StatePredicted.String()...)
+		t = vocab.AppendAge(append(t, "  "...), ageMs)
+		t = append(t, "  conf "...)
 		t = strconv.AppendFloat(t, confidence, 'f', 2, 64)
-		covered = l.borderArea() + l.box(img, false, black, amber, bytesString(t), "")
+		covered = l.borderArea() + l.box(img, false, black, amber, bytesString(t), vocab.MovingNotShown)
 	case StateStale:
 		l.solidBorder(img, red)
-		t := append(l.text[:0], "last picture "...)
-		t = strconv.AppendInt(t, int64(math.Round(ageMs)), 10)
-		t = append(t, " ms old"...)
+		t := vocab.AppendAge(l.text[:0], ageMs)
 		covered = l.borderArea() + l.box(img, true, red, white, "STALE - NOT LIVE", bytesString(t))
 	default:
 		return 0, fmt.Errorf("no label for state %v: live frames are never labelled: %w", st, ErrInvalidConfig)

@@ -8,6 +8,7 @@ import (
 	"stopgap/bench"
 	"stopgap/bench/simdrive"
 	"stopgap/filter"
+	"stopgap/lossmodel"
 	"stopgap/predictor"
 	"stopgap/stream/recording"
 )
@@ -64,7 +65,7 @@ func NewCourse(road simdrive.Config) (*Course, error) {
 	if err != nil {
 		return nil, err
 	}
-	return &Course{path: Path{XM: rx, YM: ry}, cam: predictor.CameraFromRecording(rcam), rcam: rcam, durationS: road.DurationS, speedMps: road.SpeedMps}, nil
+	return &Course{path: Path{XM: rx, YM: ry}, cam: predictor.Camera(rcam), rcam: rcam, durationS: road.DurationS, speedMps: road.SpeedMps}, nil
 }
 
 // SimConfig describes a closed-loop simulated drive on a Course.
@@ -121,7 +122,7 @@ func (co *Course) Simulate(op SimOperator, cfg SimConfig) (SimResult, error) {
 	latUs := int64(cfg.LatencyMs * 1000)
 	lost := make([]bool, nFrames)
 	if cfg.LossRate > 0 {
-		arr, err := bench.LossConfig{Model: bench.LossModelGilbertElliott, LossRate: cfg.LossRate, BurstMs: cfg.BurstMs, Seed: cfg.Seed}.Simulate(nil, capture)
+		arr, err := lossmodel.Config{Model: lossmodel.GilbertElliott, LossRate: cfg.LossRate, BurstMs: cfg.BurstMs, Seed: cfg.Seed}.Simulate(nil, capture)
 		if err != nil {
 			return SimResult{}, err
 		}

@@ -5,7 +5,7 @@ import (
 	"math"
 )
 
-// Config describes a synthetic drive. Zero fields take the documented
+// Config describes a simulated drive. Zero fields take the documented
 // defaults, so the zero Config is a valid 20 s, 1280x720, 30 fps drive.
 type Config struct {
 	Width, Height int     // image size in pixels; default 1280x720

@@ -79,7 +79,7 @@ func TestCameraModelsAgreeWithConventions(t *testing.T) {
 	for name, rc := range cams {
 		t.Run(name, func(t *testing.T) {
 			render := newPinhole(rc)
-			pcam := predictor.CameraFromRecording(rc)
+			pcam := predictor.Camera(rc)
 			rvc := conventionRotation(rc.PitchDeg, rc.RollDeg)
 			k := [3][3]float64{{rc.Fx, 0, rc.Cx}, {0, rc.Fy, rc.Cy}, {0, 0, 1}}
 			dist := [5]float64{rc.K1, rc.K2, rc.P1, rc.P2, rc.K3}
@@ -135,7 +135,7 @@ func TestCameraModelsAgreeWithConventions(t *testing.T) {
 	phi := rollDeg * math.Pi / 180
 	wantU, wantV := cx+f*aM*math.Cos(phi)/dM, cy-f*aM*math.Sin(phi)/dM // 443.1, 218.3
 	v := vec3{1.5 + dM, -aM, 1.4}
-	up, vp, err := predictor.CameraFromRecording(rc).ProjectVehiclePoint(v)
+	up, vp, err := predictor.Camera(rc).ProjectVehiclePoint(v)
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -1,4 +1,4 @@
-// Package simdrive generates a synthetic drive: a vehicle follows a
+// Package simdrive generates a simulated drive: a vehicle follows a
 // scripted kinematic trajectory through a procedurally built street, a
 // pinhole camera on the vehicle renders every frame on the CPU with OpenCV,
 // and the result is written as a recording directory (package

@@ -13,19 +13,38 @@ import (
 	"stopgap/bench/simdrive"
 )
 
-// runDemo runs the live demo (runDemoLive), or with --offline as the first
-// flag the offline loop: render the simulated drive, replay it, report.
+// runDemo runs the live demo (runDemoLive), or with --offline anywhere among
+// its flags the offline loop: render the simulated drive, replay it, report.
 func runDemo(ctx context.Context, args []string, stdout, stderr io.Writer) error {
-	if len(args) > 0 && (args[0] == "--offline" || args[0] == "-offline") {
-		return runDemoOffline(ctx, args[1:], stdout, stderr)
+	rest, offline := takeOffline(args)
+	if offline {
+		return runDemoOffline(ctx, rest, stdout, stderr)
 	}
-	for _, a := range args {
-		if a == "--offline" || a == "-offline" {
-			fmt.Fprintln(stderr, "stopgap demo: --offline must be the first flag")
-			return errUsage
+	return runDemoLive(ctx, rest, stdout, stderr)
+}
+
+// takeOffline removes every --offline (or -offline, --offline=true) from
+// the flags before the first non-flag argument and reports whether one
+// was there; --offline=false counts as absent. A flag value spelled
+// "--offline" is taken as the flag.
+func takeOffline(args []string) ([]string, bool) {
+	rest := make([]string, 0, len(args))
+	offline := false
+	for i, a := range args {
+		if a == "--" {
+			rest = append(rest, args[i:]...)
+			break
 		}
+		switch a {
+		case "--offline", "-offline", "--offline=true", "-offline=true":
+			offline = true
+			continue
+		case "--offline=false", "-offline=false":
+			continue
+		}
+		rest = append(rest, a)
 	}
-	return runDemoLive(ctx, args, stdout, stderr)
+	return rest, offline
 }
 
 func runDemoOffline(ctx context.Context, args []string, stdout, stderr io.Writer) error {
@@ -33,14 +52,15 @@ func runDemoOffline(ctx context.Context, args []string, stdout, stderr io.Writer
 	fs.SetOutput(stderr)
 	var dir string
 	var sim simdrive.Config
-	fs.StringVar(&dir, "dir", "stopgap-demo", "working `directory` for the demo's drive and report")
+	fs.StringVar(&dir, "out", "stopgap-demo", "`directory` the demo writes into: the simulated drive (rendered once, then reused) and the report")
+	deprecatedAlias(fs, "dir", "out")
 	fs.Float64Var(&sim.DurationS, "duration-s", 20, "length of the simulated drive, s")
 	var rf replayFlags
 	rf.register(fs)
 	fs.Usage = func() {
 		fmt.Fprintln(stderr, "usage: stopgap demo --offline [flags]")
 		fmt.Fprintln(stderr, "\nOffline demo: renders the built-in simulated drive (once; it is reused) into")
-		fmt.Fprintln(stderr, "DIR/drive, replays it over a bursty lossy link and writes DIR/report/report.html.")
+		fmt.Fprintln(stderr, "OUT/drive, replays it over a bursty lossy link and writes OUT/report/report.html.")
 		fmt.Fprintln(stderr)
 		fs.PrintDefaults()
 	}

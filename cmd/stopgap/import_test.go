@@ -13,6 +13,7 @@ import (
 	"stopgap/bench"
 	"stopgap/bench/simdrive"
 	"stopgap/filter"
+	"stopgap/lossmodel"
 	"stopgap/predictor"
 	"stopgap/stream/recording"
 	"stopgap/stream/ros2"
@@ -66,7 +67,7 @@ func TestImportRoundTripScores(t *testing.T) {
 		t.Helper()
 		sum, err := bench.Replay(context.Background(), bench.ReplayConfig{
 			Drive: d, Out: filepath.Join(dir, filepath.Base(d)+"-report"),
-			Loss:     bench.LossConfig{Model: bench.LossModelGilbertElliott, LossRate: 0.2, BurstMs: 200, Seed: 7},
+			Loss:     lossmodel.Config{Model: lossmodel.GilbertElliott, LossRate: 0.2, BurstMs: 200, Seed: 7},
 			Policy:   predictor.DefaultPolicy(),
 			Filter:   filter.Config{Model: filter.ModelCTRV},
 			Examples: -1,
@@ -137,7 +138,7 @@ func TestExportReplay(t *testing.T) {
 	out := filepath.Join(dir, "replay.mcap")
 	report := filepath.Join(dir, "report")
 	var so, se bytes.Buffer
-	args := []string{"export", "--drive", drive, "--out", out, "--replay-report", report, "--loss-rate", "0.25", "--seed", "2", "--quiet"}
+	args := []string{"export", "--drive", drive, "--out", out, "--replay-report", report, "--frame-loss-rate", "0.25", "--seed", "2", "--quiet"}
 	if code := run(context.Background(), args, &so, &se); code != 0 {
 		t.Fatalf("exit %d: %s", code, se.String())
 	}

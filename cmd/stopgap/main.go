@@ -4,7 +4,7 @@
 // Usage:
 //
 //	stopgap demo                              run the built-in demo
-//	stopgap simdrive --out DIR                write a synthetic drive recording
+//	stopgap simdrive --out DIR                write a simulated drive recording
 //	stopgap replay --drive DIR --out DIR      replay a recording and score every gap
 //	stopgap relay  [flags]                    run the live relay (see stopgap relay -h)
 //	stopgap operator SUBCOMMAND [NAME]        operator profiles (see stopgap operator -h)
@@ -27,14 +27,14 @@ import (
 	"os"
 	"os/signal"
 	"syscall"
+
+	"stopgap/vocab"
 )
 
 // safetyCaution is printed by every command that shows or scores predicted
-// frames. It is the same text the report and the console carry.
-const safetyCaution = `CAUTION: predicted frames are synthetic. They move the static scene only;
-anything that moved during the gap (a pedestrian, a braking car) is NOT in them.
-They are always labelled; never drive on an unlabelled frozen picture. This
-tool does not replace local regulations or the operator's licensed procedures.`
+// frames: the one caution text of package vocab, which the report, the
+// console and the README carry too.
+const safetyCaution = vocab.CautionTitle + ". " + vocab.Caution
 
 type command struct {
 	name    string
@@ -45,7 +45,7 @@ type command struct {
 func commands() []command {
 	return []command{
 		{"demo", "run the built-in demo: live relay and simulated vehicle (--offline: replay and report)", runDemo},
-		{"simdrive", "write a synthetic drive recording with exact ground truth", runSimdrive},
+		{"simdrive", "write a simulated drive recording with exact ground truth", runSimdrive},
 		{"replay", "replay a recording with recorded or modelled drops and score every gap", runReplay},
 		{"tune", "sweep the confidence cutoff over replayed drives and recommend one for a tolerance", runTune},
 		{"merge", "join the outputs of replay or tune shards into the report of one run", runMerge},

@@ -7,6 +7,8 @@ import (
 	"path/filepath"
 	"strings"
 	"testing"
+
+	"stopgap/vocab"
 )
 
 // TestRunExitCodes: usage mistakes exit 2, failures 1 with a message that
@@ -23,15 +25,19 @@ func TestRunExitCodes(t *testing.T) {
 	}{
 		{"no command", nil, 2, "usage: stopgap COMMAND", ""},
 		{"unknown command", []string{"fly"}, 2, `unknown command "fly"`, ""},
-		{"help lists the caution", []string{"help"}, 0, "CAUTION", ""},
+		{"help lists the caution", []string{"help"}, 0, vocab.CautionTitle + ". " + vocab.Caution, ""},
 		{"replay without flags", []string{"replay"}, 2, "--drive and --out are required", ""},
 		{"replay bad flag", []string{"replay", "--nope"}, 2, "flag provided but not defined", ""},
 		{"replay missing drive", []string{"replay", "--quiet", "--drive", filepath.Join(dir, "none"), "--out", filepath.Join(dir, "r0")}, 1, "camera.json", ""},
 		{"simdrive", []string{"simdrive", "--quiet", "--out", drive, "--width", "160", "--height", "90", "--duration-s", "2"}, 0, "", "recording written"},
 		{"simdrive refuses an existing directory", []string{"simdrive", "--quiet", "--out", drive, "--width", "160", "--height", "90", "--duration-s", "1"}, 1, drive, ""},
-		{"replay", []string{"replay", "--quiet", "--drive", drive, "--out", filepath.Join(dir, "r1"), "--loss-rate", "0.3", "--burst-ms", "100"}, 0, "CAUTION", "report: "},
+		{"replay", []string{"replay", "--quiet", "--drive", drive, "--out", filepath.Join(dir, "r1"), "--frame-loss-rate", "0.3", "--burst-ms", "100"}, 0, "CAUTION", "report: "},
 		{"replay bad cutoff", []string{"replay", "--quiet", "--drive", drive, "--out", filepath.Join(dir, "r2"), "--cutoff", "1.5"}, 1, "cutoff", ""},
-		{"demo --offline elsewhere", []string{"demo", "--dir", dir, "--offline"}, 2, "--offline must be the first flag", ""},
+		{"demo --offline after other flags", []string{"demo", "--out", dir, "--offline", "-h"}, 0, "usage: stopgap demo --offline", ""},
+		{"demo --offline=false is the live demo", []string{"demo", "--offline=false", "-h"}, 0, "Live demo", ""},
+		{"replay with the old --loss-rate warns and still works", []string{"replay", "--quiet", "--drive", drive, "--out", filepath.Join(dir, "r3"), "--loss-rate", "0.3", "--burst-ms", "100"}, 0,
+			"--loss-rate is deprecated and will be removed; use --frame-loss-rate", "report: "},
+		{"demo with the old --link-loss warns", []string{"demo", "--link-loss", "0.02", "-h"}, 0, "use --packet-loss-rate", ""},
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {

@@ -2,17 +2,12 @@ package main
 
 import (
 	"context"
-	"crypto/tls"
-	"errors"
 	"flag"
 	"fmt"
 	"io"
 	"log/slog"
-	"net"
-	"net/http"
 	"os"
 	"strings"
-	"time"
 
 	"stopgap/filter"
 	"stopgap/predictor"
@@ -20,6 +15,7 @@ import (
 	"stopgap/stream/operator"
 	"stopgap/stream/relay"
 	"stopgap/stream/rtpudp"
+	"stopgap/stream/station"
 	"stopgap/stream/whip"
 )
 
@@ -52,8 +48,8 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	fs.StringVar(&policyPath, "policy", operator.DefaultPolicyPath, "administrator's policy `file`: cutoff limits, longest prediction horizon, who may change what (missing at the default path: built-in conservative defaults)")
 	fs.Float64Var(&minCutoff, "min-cutoff", -1, "no longer used: set min_cutoff in the policy file")
 	fs.Float64Var(&maxCutoff, "max-cutoff", -1, "no longer used: set max_cutoff in the policy file")
-	fs.Float64Var(&maxAgeMs, "max-age-ms", 0, "hard cap on the age of a predicted frame, ms (0 = the policy's max_horizon_ms; more is refused)")
-	fs.Float64Var(&allowanceMs, "allowance-ms", relay.DefaultAllowanceMs, "how late after its nominal arrival a frame may come and still be LIVE, ms")
+	fs.Float64Var(&maxAgeMs, "max-age-ms", 0, "cap on the picture age of a predicted frame, ms: past it a missing frame is STALE (0 = the policy's max_horizon_ms; more is refused)")
+	fs.Float64Var(&allowanceMs, "allowance-ms", relay.DefaultAllowanceMs, allowanceUsage)
 	fs.Float64Var(&latencyMs, "latency-ms", 0, "nominal capture-to-arrival latency, ms (0 = estimate over the first frames of each session)")
 	fs.StringVar(&model, "model", "ctrv", "motion model of the filter: ctrv or bicycle")
 	fs.Float64Var(&wheelbaseM, "wheelbase-m", 2.7, "wheelbase for the bicycle model and steering telemetry, m")
@@ -92,13 +88,10 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		fmt.Fprintln(stderr, "stopgap relay: give both --tls-cert and --tls-key, or neither")
 		return errUsage
 	}
-	useTLS := certFile != ""
-	host, _, err := net.SplitHostPort(listen)
-	if err != nil {
-		return fmt.Errorf("--listen %q: %w", listen, err)
-	}
-	if !useTLS && !isLoopback(host) {
-		return fmt.Errorf("--listen %s is not a loopback address: bearer tokens would cross the network in clear text; give --tls-cert and --tls-key", listen)
+	sc := station.Config{Listen: listen, CertFile: certFile, KeyFile: keyFile, Out: stdout,
+		RTP: rtpudp.Config{RTPAddr: rtpListen, TelemetryAddr: telemetryListen, AllowedSources: splitList(rtpAllow)}}
+	if err := sc.Check(); err != nil {
+		return fmt.Errorf("--listen, --tls-cert, --tls-key: %w", err)
 	}
 	fmt.Fprintln(stderr, safetyCaution)
 
@@ -145,7 +138,7 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	}
 	cc := console.Config{Addr: listen, Limits: console.Limits{MinCutoff: adminPol.MinCutoff, MaxCutoff: adminPol.MaxCutoff},
 		LimitsSource: limitsSource, Store: operator.NewConsoleStore(store, adminPol)}
-	r, err := relay.New(relay.Config{
+	sc.Relay = relay.Config{
 		FPS: fps, AllowanceMs: allowanceMs, LatencyMs: latencyMs,
 		Camera: cam, Policy: predictor.Policy{MaxAgeMs: maxAgeMs},
 		Filter:    filter.Config{Model: m, WheelbaseM: wheelbaseM},
@@ -153,147 +146,13 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		Console: cc, Logger: log,
 		Whip: whip.Config{Network: whip.Network{IncludeLoopback: iceLoopback, Interfaces: splitList(iceInterfaces),
 			NAT1To1IPs: splitList(icePublicIPs), UDPPort: iceUDPPort}},
-	})
-	if err != nil {
-		return err
 	}
-	ln, err := net.Listen("tcp", listen)
-	if err != nil {
-		return fmt.Errorf("--listen: %w", err)
-	}
-	scheme := "http"
-	if useTLS {
-		scheme = "https"
-	}
-	base := scheme + "://" + ln.Addr().String()
-	handler := r.Handler()
-	if recordDir != "" {
-		// The operator station's control inputs, recorded beside the drive
-		// (see operator.ControlsFile).
-		cw, err := operator.CreateControls(recordDir)
-		if err != nil {
-			return fmt.Errorf("--record: %w", err)
-		}
-		defer cw.Close()
-		mux := http.NewServeMux()
-		mux.Handle("/api/controls", operator.ControlsHandler(consoleTok, cw, time.Now))
-		mux.Handle("/", handler)
-		handler = mux
-	}
-	srv := &http.Server{Handler: handler, ReadHeaderTimeout: 10 * time.Second,
-		TLSConfig: &tls.Config{MinVersion: tls.VersionTLS12}, ErrorLog: slog.NewLogLogger(log.Handler(), slog.LevelWarn)}
-	serveErr := make(chan error, 1)
-	go func() {
-		if useTLS {
-			serveErr <- srv.ServeTLS(ln, certFile, keyFile)
-		} else {
-			serveErr <- srv.Serve(ln)
-		}
-	}()
-	// Secrets go to stdout once, never to the logs.
-	fmt.Fprintf(stdout, "WHIP endpoint: %s/whip\n", base)
-	if ingestGen {
-		fmt.Fprintf(stdout, "WHIP bearer token (generated): %s\n", ingestTok)
-	}
-	if consoleGen {
-		fmt.Fprintln(stdout, "console token generated")
-	}
-	fmt.Fprintf(stdout, "operator console: %s\n", r.ConsoleURL(base))
-	log.Info("relay listening", "addr", ln.Addr().String(), "tls", useTLS, "record", recordDir)
-
-	rctx, cancel := context.WithCancel(ctx)
-	defer cancel()
-	// Changes made with "stopgap operator" while the relay runs reach the
-	// console within a second.
-	go func() {
-		t := time.NewTicker(time.Second)
-		defer t.Stop()
-		for {
-			select {
-			case <-rctx.Done():
-				return
-			case <-t.C:
-				if err := r.Console().ReloadProfiles(); err != nil {
-					log.Warn("reading the operator profiles failed; keeping the current ones", "err", err)
-				}
-			}
-		}
-	}()
-	runErr := make(chan error, 1)
-	go func() { runErr <- r.Run(rctx) }()
-	rtpDone := make(chan struct{})
-	if rtpListen == "" {
-		if telemetryListen != "" {
-			log.Warn("--telemetry-listen is ignored without --rtp-listen")
-		}
-		close(rtpDone)
-	} else {
-		uc := rtpudp.Config{RTPAddr: rtpListen, TelemetryAddr: telemetryListen,
-			AllowedSources: splitList(rtpAllow), Logger: log.With("component", "rtpudp")}
-		first, err := rtpudp.Listen(rctx, uc)
-		if err != nil {
-			cancel()
-			<-runErr
-			srv.Close()
-			return fmt.Errorf("--rtp-listen: %w", err)
-		}
-		fmt.Fprintf(stdout, "RTP/UDP ingest: %s\n", first.RTPAddr())
-		go func() { defer close(rtpDone); serveRTPIngest(rctx, r, uc, first, log) }()
-	}
-	var result error
-	select {
-	case <-ctx.Done():
-	case err := <-serveErr:
-		if !errors.Is(err, http.ErrServerClosed) {
-			result = fmt.Errorf("http server: %w", err)
-		}
-	}
-	cancel()
-	<-rtpDone
-	if err := <-runErr; err != nil && result == nil {
-		result = fmt.Errorf("finishing the recording: %w", err)
-	}
-	sctx, scancel := context.WithTimeout(context.Background(), 3*time.Second)
-	defer scancel()
-	srv.Shutdown(sctx)
-	st := r.Stats()
-	log.Info("relay finished", "frames_in", st.FramesIn, "ticks_live", st.TicksLive, "ticks_predicted", st.TicksPredicted, "ticks_stale", st.TicksStale)
-	return result
+	sc.IngestTokenGenerated, sc.ConsoleTokenGenerated = ingestGen, consoleGen
+	return station.Serve(ctx, sc)
 }
 
 // serveRTPIngest hands s to the relay once its first RTP packet arrived and,
 // after each session ends, listens again with cfg, until ctx ends.
-func serveRTPIngest(ctx context.Context, r *relay.Relay, cfg rtpudp.Config, s *rtpudp.Session, log *slog.Logger) {
-	for {
-		select {
-		case <-s.Started():
-			r.Offer(s)
-			select {
-			case <-s.Done():
-			case <-ctx.Done():
-			}
-		case <-s.Done():
-		case <-ctx.Done():
-		}
-		s.Close()
-		if ctx.Err() != nil {
-			return
-		}
-		for {
-			var err error
-			if s, err = rtpudp.Listen(ctx, cfg); err == nil {
-				break
-			}
-			log.Warn("rtp/udp ingest: listening again failed; retrying in 1 s", "err", err)
-			select {
-			case <-ctx.Done():
-				return
-			case <-time.After(time.Second):
-			}
-		}
-	}
-}
-
 // splitList splits a comma-separated flag value, dropping empty items.
 func splitList(v string) []string {
 	var out []string
@@ -328,12 +187,4 @@ func loadToken(file, env string) (tok string, generated bool, err error) {
 	}
 	tok, err = console.NewToken()
 	return tok, true, err
-}
-
-func isLoopback(host string) bool {
-	if host == "localhost" {
-		return true
-	}
-	ip := net.ParseIP(host)
-	return ip != nil && ip.IsLoopback()
 }

@@ -13,6 +13,7 @@ import (
 	"stopgap/bench"
 	"stopgap/bench/simdrive"
 	"stopgap/filter"
+	"stopgap/lossmodel"
 	"stopgap/predictor"
 )
 
@@ -39,14 +40,15 @@ func (f *replayFlags) register(fs *flag.FlagSet) {
 	pol := predictor.DefaultPolicy()
 	fs.StringVar(&f.arrivals, "arrivals", "", "recorded arrivals `file` (index,t_arrival_us; blank = never arrived); overrides the loss model;\na live session's arrivals.csv with an onboard --drive replays the session on the vehicle's own frames")
 	fs.Float64Var(&f.pairToleranceMs, "pair-tolerance-ms", 0, "capture-time tolerance pairing a session with an onboard recording, ms (0 = a quarter frame period)")
-	fs.Float64Var(&f.lossRate, "loss-rate", 0.1, "long-run fraction of frames lost by the Gilbert-Elliott model, [0,1)")
+	fs.Float64Var(&f.lossRate, "frame-loss-rate", 0.1, "long-run share of video frames lost by the Gilbert-Elliott model, [0,1) (frames, not packets)")
+	deprecatedAlias(fs, "loss-rate", "frame-loss-rate")
 	fs.Float64Var(&f.burstMs, "burst-ms", 200, "mean duration of a loss burst, ms")
 	fs.Uint64Var(&f.seed, "seed", 1, "seed of the loss model")
 	fs.Float64Var(&f.delayMs, "delay-ms", 0, "fixed extra one-way delay of every frame, ms")
 	fs.Float64Var(&f.jitterMs, "jitter-ms", 0, "uniform extra delay of each frame in [0, jitter), ms")
 	fs.Float64Var(&f.cutoff, "cutoff", pol.CutoffConfidence, "confidence cutoff in [0,1]: below it a missing frame is shown STALE, not PREDICTED")
-	fs.Float64Var(&f.maxAgeMs, "max-age-ms", pol.MaxAgeMs, "hard cap on the age of a predicted frame, ms")
-	fs.Float64Var(&f.allowanceMs, "allowance-ms", bench.DefaultAllowanceMs, "display clock jitter allowance: how late a frame may arrive and still be LIVE, ms")
+	fs.Float64Var(&f.maxAgeMs, "max-age-ms", pol.MaxAgeMs, "cap on the picture age of a predicted frame, ms: past it a missing frame is STALE")
+	fs.Float64Var(&f.allowanceMs, "allowance-ms", bench.DefaultAllowanceMs, allowanceUsage)
 	fs.StringVar(&f.model, "model", "ctrv", "motion model of the filter: ctrv or bicycle")
 	fs.Float64Var(&f.wheelbaseM, "wheelbase-m", 2.7, "wheelbase for the bicycle model and steering telemetry, m")
 	fs.IntVar(&f.examples, "examples", bench.DefaultExamples, "how many example ticks the report shows side by side")
@@ -83,8 +85,8 @@ func (f *replayFlags) config(drive, out string, stderr io.Writer) (bench.ReplayC
 	cfg := bench.ReplayConfig{
 		Drive: drive, Out: out, Overwrite: f.overwrite,
 		ArrivalsFile: f.arrivals, PairToleranceMs: f.pairToleranceMs,
-		Loss: bench.LossConfig{
-			Model: bench.LossModelGilbertElliott, LossRate: f.lossRate, BurstMs: f.burstMs,
+		Loss: lossmodel.Config{
+			Model: lossmodel.GilbertElliott, LossRate: f.lossRate, BurstMs: f.burstMs,
 			ExtraDelayMs: f.delayMs, JitterMs: f.jitterMs, Seed: f.seed,
 		},
 		Policy:      predictor.Policy{CutoffConfidence: f.cutoff, MaxAgeMs: f.maxAgeMs},
@@ -96,7 +98,7 @@ func (f *replayFlags) config(drive, out string, stderr io.Writer) (bench.ReplayC
 		Logger:      newLogger(stderr, f.logJSON, level),
 	}
 	if f.lossRate == 0 {
-		cfg.Loss = bench.LossConfig{Model: bench.LossModelNone, ExtraDelayMs: f.delayMs, JitterMs: f.jitterMs, Seed: f.seed}
+		cfg.Loss = lossmodel.Config{Model: lossmodel.None, ExtraDelayMs: f.delayMs, JitterMs: f.jitterMs, Seed: f.seed}
 	}
 	if f.examples == 0 {
 		cfg.Examples = -1
@@ -209,7 +211,7 @@ func printSummaryBody(w io.Writer, s bench.Summary) {
 			}
 		}
 	}
-	fmt.Fprintf(w, "%-10s %7s %10s %9s %9s\n", "method", "frames", "PSNR dB", "SSIM", "MAE")
+	fmt.Fprintf(w, "%-10s %7s %10s %9s %9s\n", "method", "frames", "PSNR dB", "SSIM", "MAE 0-255")
 	for _, m := range bench.Methods() {
 		st := s.Methods.Get(m)
 		name := m.String()
@@ -265,7 +267,7 @@ func runSimdrive(ctx context.Context, args []string, stdout, stderr io.Writer) e
 	fs.BoolVar(&quiet, "quiet", false, "no progress bar")
 	fs.Usage = func() {
 		fmt.Fprintln(stderr, "usage: stopgap simdrive --out DIR [flags]")
-		fmt.Fprintln(stderr, "\nRenders a synthetic drive of our own street scene and writes it as a recording")
+		fmt.Fprintln(stderr, "\nRenders a simulated drive of our own street scene and writes it as a recording")
 		fmt.Fprintln(stderr, "(camera.json, frames.csv + JPEG frames, telemetry.csv, truth.csv).")
 		fmt.Fprintln(stderr)
 		fs.PrintDefaults()

@@ -199,7 +199,7 @@ func compareTrees(t *testing.T, a, b string, exact bool) int {
 // settings) fail naming the shard and leave no output.
 func TestReplayShardsMatchSingleProcess(t *testing.T) {
 	dir, list := tinyDrives(t, 4)
-	args := []string{"replay", "--drives-file", list, "--loss-rate", "0.3", "--burst-ms", "150", "--seed", "3", "--examples", "2", "--quiet"}
+	args := []string{"replay", "--drives-file", list, "--frame-loss-rate", "0.3", "--burst-ms", "150", "--seed", "3", "--examples", "2", "--quiet"}
 	single := filepath.Join(dir, "single")
 	if out, ok := stopgapProc(t, nil, append(slices.Clone(args), "--out", single)...); !ok {
 		t.Fatalf("single-process replay failed:\n%s", out)
@@ -282,7 +282,7 @@ func TestReplayShardsMatchSingleProcess(t *testing.T) {
 // included (fixed seed).
 func TestTuneShardsMatchSingleProcess(t *testing.T) {
 	dir, list := tinyDrives(t, 4)
-	args := []string{"tune", "--drives-file", list, "--loss-rate", "0.3", "--burst-ms", "70", "--seed", "5",
+	args := []string{"tune", "--drives-file", list, "--frame-loss-rate", "0.3", "--burst-ms", "70", "--seed", "5",
 		"--max-misalign-mrad", "3", "--resamples", "300", "--quiet"}
 	single := filepath.Join(dir, "single")
 	if out, ok := stopgapProc(t, nil, append(slices.Clone(args), "--out", single)...); !ok {

@@ -51,7 +51,7 @@ func runTune(ctx context.Context, args []string, stdout, stderr io.Writer) error
 		fmt.Fprintln(stderr, "usage: stopgap tune --drive DIR [--drive DIR...] --out DIR [tolerance] [--policy FILE] [--operator NAME] [flags]")
 		fmt.Fprintln(stderr, "\nReplays every drive once, sweeps the confidence cutoff over the missing ticks")
 		fmt.Fprintln(stderr, "and recommends the lowest cutoff meeting one tolerance, with a bootstrap interval")
-		fmt.Fprintln(stderr, "over whole gaps. The replay flags (--loss-rate, --arrivals, ...) apply to every drive;")
+		fmt.Fprintln(stderr, "over whole gaps. The replay flags (--frame-loss-rate, --arrivals, ...) apply to every drive;")
 		fmt.Fprintln(stderr, "--cutoff is ignored (every cutoff within the administrator's policy is swept).")
 		fmt.Fprintln(stderr, "With --operator NAME the recommendation is recorded as a proposal in that profile's")
 		fmt.Fprintln(stderr, "history; apply it with: stopgap operator apply NAME.")

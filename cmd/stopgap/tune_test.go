@@ -49,7 +49,7 @@ func TestTuneCLI(t *testing.T) {
 		{"one arrivals file for two drives", []string{"tune", "--quiet", "--drive", drive, "--drive", drive, "--arrivals", filepath.Join(drive, "arrivals.csv"), "--out", filepath.Join(dir, "t5")}, 1, "--recorded-arrivals", ""},
 		{"recorded arrivals missing", []string{"tune", "--quiet", "--drive", drive, "--recorded-arrivals", "--out", filepath.Join(dir, "t6")}, 1, "arrivals.csv", ""},
 		{"drive without frames", []string{"tune", "--quiet", "--drive", drive, "--drive", empty, "--out", filepath.Join(dir, "t3")}, 1, "frames", ""},
-		{"short drive", []string{"tune", "--quiet", "--drive", drive, "--out", filepath.Join(dir, "t4"), "--loss-rate", "0.3", "--burst-ms", "100", "--resamples", "50"}, 0, "CAUTION", "too little data"},
+		{"short drive", []string{"tune", "--quiet", "--drive", drive, "--out", filepath.Join(dir, "t4"), "--frame-loss-rate", "0.3", "--burst-ms", "100", "--resamples", "50"}, 0, "CAUTION", "too little data"},
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
@@ -107,7 +107,7 @@ func TestTunePolicyAndProposal(t *testing.T) {
 	if code, _, e := runCmd("operator", "add", "erin", "--cutoff", "0.7", "--store", store, "--policy", pol); code != 0 {
 		t.Fatalf("operator add: %d %s", code, e)
 	}
-	link := []string{"--quiet", "--drive", drive, "--loss-rate", "0.3", "--burst-ms", "100", "--resamples", "100"}
+	link := []string{"--quiet", "--drive", drive, "--frame-loss-rate", "0.3", "--burst-ms", "100", "--resamples", "100"}
 
 	refusals := []struct {
 		name string

@@ -44,6 +44,6 @@ echo "container-smoke: simdrive + replay inside the container" >&2
   --tmpfs /work:rw,size=256m --entrypoint /bin/sh "$tag" -c '
     set -e
     stopgap simdrive --out /work/drive --width 160 --height 90 --duration-s 2 --quiet
-    stopgap replay --drive /work/drive --out /work/report --loss-rate 0.2 --quiet
+    stopgap replay --drive /work/drive --out /work/report --frame-loss-rate 0.2 --quiet
     test -s /work/report/summary.json'
 echo "container-smoke: OK" >&2

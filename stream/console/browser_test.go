@@ -91,12 +91,12 @@ func (p *pump) run() {
 			lastState, ticksInState = st, 0
 		}
 		ticksInState++
-		age, conf := 35.0, 1.0
+		age, conf, why := 35.0, 1.0, ""
 		switch st {
 		case console.StatePredicted:
 			age, conf = 100+33.3*float64(ticksInState), 0.82
 		case console.StateStale:
-			age, conf = 600+33.3*float64(ticksInState), 0.31
+			age, conf, why = 600+33.3*float64(ticksInState), 0.31, "low-confidence"
 		}
 		seq++
 		if p.meta.Load() {
@@ -105,7 +105,7 @@ func (p *pump) run() {
 				link.LossPct, link.JitterMs, link.NoPacketsMs = 0, 0, 1200
 			}
 			err := p.c.WriteMeta(console.Meta{
-				Seq: seq, TimeUs: int64(seq) * 33333, State: st, AgeMs: age, Confidence: conf,
+				Seq: seq, TimeUs: int64(seq) * 33333, State: st, AgeMs: age, MaxAgeMs: 3000, Why: why, Confidence: conf,
 				Cutoff: p.c.Cutoff(), Profile: p.c.Profile(), Link: link,
 			})
 			if err != nil {
@@ -205,7 +205,7 @@ func TestBrowserConsole(t *testing.T) {
 	}, "decoded video 320 px wide, 10 frames presented", 10*time.Second))
 	must(b.CheckCautionVisible())
 	banner, _ := b.BannerText()
-	if !regexp.MustCompile(`^LIVE real picture, \d+ ms old$`).MatchString(banner) {
+	if !regexp.MustCompile(`^LIVE real picture, picture age \d+ ms$`).MatchString(banner) {
 		t.Errorf("LIVE banner %q", banner)
 	}
 	time.Sleep(300 * time.Millisecond)
@@ -228,9 +228,9 @@ func TestBrowserConsole(t *testing.T) {
 
 	// LIVE -> PREDICTED -> STALE -> LIVE
 	wantBanner := map[string]*regexp.Regexp{
-		"PREDICTED": regexp.MustCompile(`^PREDICTED — synthetic image, \d+ ms since last real frame$`),
-		"STALE":     regexp.MustCompile(`^STALE — picture is \d+ ms old, do not rely on it$`),
-		"LIVE":      regexp.MustCompile(`^LIVE real picture, \d+ ms old$`),
+		"PREDICTED": regexp.MustCompile(`^PREDICTED — synthetic picture, picture age \d+ ms; moving objects not shown$`),
+		"STALE":     regexp.MustCompile(`^STALE — picture age \d+ ms; confidence 0\.31 under the cutoff \d\.\d\d$`),
+		"LIVE":      regexp.MustCompile(`^LIVE real picture, picture age \d+ ms$`),
 	}
 	for _, st := range []console.State{console.StatePredicted, console.StateStale, console.StateLive} {
 		p.state.Store(int32(st))
@@ -250,23 +250,23 @@ func TestBrowserConsole(t *testing.T) {
 	log, err := b.StateLog()
 	must(err)
 	// Exactly this order. A machine loaded enough to hold frames up for more
-	// than 500 ms makes the page show NO SIGNAL in between, which is right;
+	// than 500 ms makes the page show STATE UNKNOWN in between, which is right;
 	// those are reported, and more than two fail the test.
 	got, stalls := consoletest.WithoutStalls(log)
-	if want := []string{"NOSIGNAL", "LIVE", "PREDICTED", "STALE", "LIVE"}; !slices.Equal(got, want) {
+	if want := []string{"UNKNOWN", "LIVE", "PREDICTED", "STALE", "LIVE"}; !slices.Equal(got, want) {
 		t.Fatalf("state log %v, want exactly %v (%+v)", got, want, log)
 	}
 	if len(stalls) > 0 {
 		t.Logf("stalls during steady streaming (machine load): %+v", stalls)
 	}
 	if len(stalls) > 2 {
-		t.Errorf("page showed NO SIGNAL %d times while frames and status flowed", len(stalls))
+		t.Errorf("page showed STATE UNKNOWN %d times while frames and status flowed", len(stalls))
 	}
 
-	// Meta silence: the page itself must say NO SIGNAL after 500 ms.
+	// Meta silence: the page itself must say STATE UNKNOWN after 500 ms.
 	p.meta.Store(false)
 	must(b.WaitAttr("data-reason", "meta-silent", 3*time.Second))
-	if st, _ := b.State(); st != "NOSIGNAL" {
+	if st, _ := b.State(); st != "UNKNOWN" {
 		t.Errorf("state %s with reason meta-silent", st)
 	}
 	log, _ = b.StateLog()
@@ -274,32 +274,32 @@ func TestBrowserConsole(t *testing.T) {
 	// after (the watchdog runs every 50 ms; 1.5 s leaves room for a loaded CI)
 	var lastMetaMs float64
 	must(b.Eval("window.__console.lastMetaMs", &lastMetaMs))
-	if e := log[len(log)-1]; e.State == "NOSIGNAL" && e.Reason == "meta-silent" {
+	if e := log[len(log)-1]; e.State == "UNKNOWN" && e.Reason == "meta-silent" {
 		if d := e.TMs - lastMetaMs; d < 500 || d > 1500 {
-			t.Errorf("NO SIGNAL shown %.0f ms after the last status message, want 500..1500", d)
+			t.Errorf("STATE UNKNOWN shown %.0f ms after the last status message, want 500..1500", d)
 		} else {
-			t.Logf("NO SIGNAL shown %.0f ms after the last status message", d)
+			t.Logf("STATE UNKNOWN shown %.0f ms after the last status message", d)
 		}
 	}
 	banner, _ = b.BannerText()
-	if !regexp.MustCompile(`^NO SIGNAL / UNKNOWN — no status from the relay for \d+ ms; treat the picture as unknown$`).MatchString(banner) {
-		t.Errorf("NO SIGNAL banner %q", banner)
+	if !regexp.MustCompile(`^STATE UNKNOWN — no status from the relay for \d+ ms; treat the picture as unknown$`).MatchString(banner) {
+		t.Errorf("STATE UNKNOWN banner %q", banner)
 	}
 	must(b.CheckCautionVisible())
 	time.Sleep(200 * time.Millisecond)
-	shot("console-nosignal.png")
+	shot("console-unknown.png")
 
 	// Back to LIVE, then freeze only the picture while status keeps coming:
-	// NO SIGNAL again.
+	// STATE UNKNOWN again.
 	p.meta.Store(true)
 	must(b.WaitState("LIVE", 3*time.Second))
 	p.video.Store(false)
 	must(b.WaitAttr("data-reason", "video-frozen", 3*time.Second))
-	if st, _ := b.State(); st != "NOSIGNAL" {
+	if st, _ := b.State(); st != "UNKNOWN" {
 		t.Errorf("state %s with reason video-frozen", st)
 	}
 	banner, _ = b.BannerText()
-	if !regexp.MustCompile(`^NO SIGNAL / UNKNOWN — the picture stopped changing \d+ ms ago; treat it as unknown$`).MatchString(banner) {
+	if !regexp.MustCompile(`^STATE UNKNOWN — the picture stopped changing \d+ ms ago; treat it as unknown$`).MatchString(banner) {
 		t.Errorf("frozen banner %q", banner)
 	}
 	p.video.Store(true)

@@ -59,7 +59,7 @@
 //
 // Predicted frames move the static scene only; anything that moved during the
 // gap (a pedestrian, a braking car) is not in them. The page says so
-// permanently, frames each state unmistakably, and shows NO SIGNAL / UNKNOWN
+// permanently, frames each state unmistakably, and shows STATE UNKNOWN
 // when the meta channel is silent for more than 500 ms or the picture stops
 // changing, so a frozen picture never looks live.
 //

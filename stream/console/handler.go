@@ -4,10 +4,14 @@ import (
 	"embed"
 	"encoding/json"
 	"errors"
+	"html"
 	"io"
 	"mime"
 	"net/http"
 	"strconv"
+	"strings"
+
+	"stopgap/vocab"
 )
 
 //go:embed web/index.html web/console.js web/console.css
@@ -21,7 +25,7 @@ const pageCSP = "default-src 'none'; script-src 'self'; style-src 'self'; img-sr
 // routes builds the handler tree.
 func (c *Console) routes() http.Handler {
 	mux := http.NewServeMux()
-	mux.HandleFunc("GET /{$}", c.asset("web/index.html", "text/html; charset=utf-8"))
+	mux.HandleFunc("GET /{$}", c.page())
 	mux.HandleFunc("GET /console.js", c.asset("web/console.js", "text/javascript; charset=utf-8"))
 	mux.HandleFunc("GET /console.css", c.asset("web/console.css", "text/css; charset=utf-8"))
 	mux.Handle("POST /api/view", c.authed(c.handleOffer))
@@ -39,9 +43,28 @@ func (c *Console) routes() http.Handler {
 	})
 }
 
+// page serves index.html with the shared caution of package vocab filled
+// in, so that the console cannot carry a text of its own.
+func (c *Console) page() http.HandlerFunc {
+	data, err := webFS.ReadFile("web/index.html")
+	if err == nil {
+		fill := strings.NewReplacer(
+			"{{CAUTION_TITLE}}", html.EscapeString(vocab.CautionTitle),
+			"{{CAUTION}}", html.EscapeString(vocab.Caution),
+		)
+		data = []byte(fill.Replace(string(data)))
+	}
+	return serve(data, err, "web/index.html", "text/html; charset=utf-8")
+}
+
 // asset serves one embedded file.
 func (c *Console) asset(name, ctype string) http.HandlerFunc {
 	data, err := webFS.ReadFile(name)
+	return serve(data, err, name, ctype)
+}
+
+// serve answers with data, or with a 500 if reading it failed (err).
+func serve(data []byte, err error, name, ctype string) http.HandlerFunc {
 	return func(w http.ResponseWriter, r *http.Request) {
 		if err != nil { // cannot happen: go:embed fails the build for a missing file
 			writeError(w, http.StatusInternalServerError, "embedded asset missing: "+name)

@@ -2,10 +2,14 @@ package console
 
 import (
 	"encoding/json"
+	"html"
 	"net/http"
 	"net/http/httptest"
+	"strconv"
 	"strings"
 	"testing"
+
+	"stopgap/vocab"
 )
 
 const testToken = "test-token-0123456789abcdef"
@@ -257,4 +261,33 @@ func minimalOffer(kind, dir, rtpmap string, withApp bool) string {
 		s += "m=application 9 UDP/DTLS/SCTP webrtc-datachannel\r\nc=IN IP4 0.0.0.0\r\na=mid:1\r\na=sctp-port:5000\r\n"
 	}
 	return s
+}
+
+// TestPageSaysSharedWords: the served page carries the shared caution of
+// package vocab word for word (no placeholder left), and the page script
+// knows exactly the frame states this package sends, under their String
+// names.
+func TestPageSaysSharedWords(t *testing.T) {
+	c := newTestConsole(t, Config{})
+	page := do(c, "GET", "/", "", "", nil).Body.String()
+	if !strings.Contains(page, html.EscapeString(vocab.Caution)) || !strings.Contains(page, vocab.CautionTitle) {
+		t.Errorf("page lacks the shared caution %q", vocab.Caution)
+	}
+	if strings.Contains(page, "{{") {
+		t.Errorf("page keeps a placeholder: %s", page[strings.Index(page, "{{"):][:40])
+	}
+	js := do(c, "GET", "/console.js", "", "", nil).Body.String()
+	var names []string
+	for s := StateInvalid + 1; s.Valid(); s++ {
+		names = append(names, strconv.Quote(s.String()))
+	}
+	if want := "const STATES = [" + strings.Join(names, ", ") + "];"; !strings.Contains(js, want) {
+		t.Errorf("console.js lacks %s", want)
+	}
+	css := do(c, "GET", "/console.css", "", "", nil).Body.String()
+	for s := StateInvalid + 1; s.Valid(); s++ {
+		if want := `body[data-state="` + s.String() + `"]`; !strings.Contains(css, want) {
+			t.Errorf("console.css has no style for %s", want)
+		}
+	}
 }

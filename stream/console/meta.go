@@ -10,8 +10,8 @@ import (
 // Meta describes one output frame. It is sent as one JSON text message on the
 // "meta" data channel, for example:
 //
-//	{"seq":812,"t_us":27066666,"state":"PREDICTED","age_ms":133,"confidence":0.81,
-//	 "cutoff":0.6,"profile":"city","link":{"loss_pct":4.2,"jitter_ms":11,
+//	{"seq":812,"t_us":27066666,"state":"PREDICTED","age_ms":133,"max_age_ms":800,
+//	 "why":"","confidence":0.81,"cutoff":0.6,"profile":"city","link":{"loss_pct":4.2,"jitter_ms":11,
 //	 "delay_ms":84,"keyframe_requests":3,"frames_in":790,"no_packets_ms":0}}
 type Meta struct {
 	// Seq numbers output frames, +1 per display tick; receivers ignore a
@@ -24,6 +24,13 @@ type Meta struct {
 	// AgeMs is how old the newest real picture content is, milliseconds
 	// (display tick time minus capture time of the last real frame).
 	AgeMs float64 `json:"age_ms"`
+	// MaxAgeMs is the cap on the picture age: past it a missing frame is
+	// STALE whatever the confidence, milliseconds.
+	MaxAgeMs float64 `json:"max_age_ms"`
+	// Why says why a STALE frame is STALE, one of the words of
+	// predictor.StaleReason ("no-picture", "no-motion", "age-over-cap",
+	// "low-confidence"); "" otherwise.
+	Why string `json:"why"`
 	// Confidence of the prediction in [0, 1] (1 for LIVE).
 	Confidence float64 `json:"confidence"`
 	// Cutoff is the confidence cutoff the relay applied to this frame.
@@ -61,7 +68,7 @@ func (m *Meta) Validate() error {
 		name string
 		v    float64
 	}{
-		{"age_ms", m.AgeMs}, {"confidence", m.Confidence}, {"cutoff", m.Cutoff},
+		{"age_ms", m.AgeMs}, {"max_age_ms", m.MaxAgeMs}, {"confidence", m.Confidence}, {"cutoff", m.Cutoff},
 		{"link.loss_pct", m.Link.LossPct}, {"link.jitter_ms", m.Link.JitterMs}, {"link.delay_ms", m.Link.DelayMs},
 		{"link.no_packets_ms", m.Link.NoPacketsMs},
 	} {
@@ -87,6 +94,10 @@ func (m *Meta) AppendJSON(dst []byte) ([]byte, error) {
 	dst = append(dst, m.State.String()...)
 	dst = append(dst, `","age_ms":`...)
 	dst = appendFloat(dst, m.AgeMs)
+	dst = append(dst, `,"max_age_ms":`...)
+	dst = appendFloat(dst, m.MaxAgeMs)
+	dst = append(dst, `,"why":`...)
+	dst = appendJSONString(dst, m.Why)
 	dst = append(dst, `,"confidence":`...)
 	dst = appendFloat(dst, m.Confidence)
 	dst = append(dst, `,"cutoff":`...)

@@ -24,7 +24,7 @@ func TestMetaAppendJSONRoundTrip(t *testing.T) {
 	}{
 		{"predicted", func(*Meta) {}},
 		{"live", func(m *Meta) { m.State = StateLive; m.Confidence = 1; m.AgeMs = 0 }},
-		{"stale", func(m *Meta) { m.State = StateStale; m.Confidence = 0 }},
+		{"stale", func(m *Meta) { m.State = StateStale; m.Confidence = 0; m.Why = "low-confidence"; m.MaxAgeMs = 800 }},
 		{"tiny and huge numbers", func(m *Meta) { m.AgeMs = 1e-9; m.Link.DelayMs = 1e300; m.TimeUs = math.MinInt64 }},
 		{"max counters", func(m *Meta) { m.Seq = math.MaxUint64; m.Link.FramesIn = math.MaxUint64 }},
 		{"link silent", func(m *Meta) { m.Link.NoPacketsMs = 1250.5; m.Link.LossPct = 0; m.Link.JitterMs = 0 }},
@@ -129,7 +129,7 @@ func TestStateText(t *testing.T) {
 	if _, err := StateInvalid.MarshalText(); !errors.Is(err, ErrBadMeta) {
 		t.Errorf("StateInvalid.MarshalText err = %v", err)
 	}
-	for _, bad := range []string{"", "live", "INVALID", "NOSIGNAL"} {
+	for _, bad := range []string{"", "live", "INVALID", "UNKNOWN"} {
 		if _, err := ParseState(bad); !errors.Is(err, ErrBadMeta) {
 			t.Errorf("ParseState(%q) err = %v, want ErrBadMeta", bad, err)
 		}

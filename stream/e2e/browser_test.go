@@ -94,21 +94,21 @@ func (w testWriter) Write(p []byte) (int, error) {
 // (page clock) lasting outageMs: LIVE before the cut; then PREDICTED before
 // STALE; STALE during the outage; LIVE again after it; and never LIVE from
 // 150 ms after the cut (frames in flight and the 20 ms allowance are over by
-// then) to the end of the outage. NOSIGNAL entries caused by stalls of a
+// then) to the end of the outage. UNKNOWN entries caused by stalls of a
 // loaded machine are removed first (consoletest.WithoutStalls) and counted.
 func checkOutageStates(t *testing.T, log []consoletest.StateChange, cutMs, outageMs float64) {
 	t.Helper()
 	var clean []consoletest.StateChange
 	stalls := 0
 	for i, c := range log {
-		if c.State == "NOSIGNAL" && i > 0 && (c.Reason == "meta-silent" || c.Reason == "video-frozen") {
+		if c.State == "UNKNOWN" && i > 0 && (c.Reason == "meta-silent" || c.Reason == "video-frozen") {
 			stalls++
 			continue
 		}
 		clean = append(clean, c)
 	}
 	if stalls > 2 {
-		t.Errorf("%d NO SIGNAL stalls in one short run", stalls)
+		t.Errorf("%d STATE UNKNOWN stalls in one short run", stalls)
 	}
 	stateAt := func(ms float64) string {
 		s := ""

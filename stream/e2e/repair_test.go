@@ -5,7 +5,7 @@ import (
 	"testing"
 	"time"
 
-	"stopgap/bench"
+	"stopgap/lossmodel"
 	"stopgap/stream/simvehicle"
 )
 
@@ -28,7 +28,7 @@ func requireAccept(t *testing.T) {
 func TestAcceptRandomLoss(t *testing.T) {
 	requireAccept(t)
 	r := startRig(t, rigOptions{width: 640, height: 360, driveS: 6, cacheFrames: true, bitrateBps: 1_500_000,
-		link: simvehicle.LinkConfig{Loss: bench.LossConfig{Model: bench.LossModelGilbertElliott, LossRate: 0.05,
+		link: simvehicle.LinkConfig{Loss: lossmodel.Config{Model: lossmodel.GilbertElliott, LossRate: 0.05,
 			BurstMs: 1, Seed: 7}}})
 	waitFor(t, "LIVE ticks", 15*time.Second, func() bool { return r.relay.Stats().TicksLive > 30 })
 	s0, l0 := r.relay.Stats(), r.veh.Stats().Link

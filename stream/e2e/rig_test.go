@@ -197,7 +197,7 @@ func startRig(t testing.TB, o rigOptions) *rig {
 func relayConfig(rec *recording.Recording, recordDir string) (relay.Config, error) {
 	cfg := relay.Config{
 		FPS:          1e6 / float64(rec.Frames[1].CaptureUs-rec.Frames[0].CaptureUs),
-		Camera:       predictor.CameraFromRecording(rec.Camera),
+		Camera:       predictor.Camera(rec.Camera),
 		IngestToken:  ingestToken,
 		ConsoleToken: consoleToken,
 		Whip:         whip.Config{Network: whip.Network{LoopbackOnly: true}},

@@ -11,7 +11,7 @@ import (
 	"testing"
 	"time"
 
-	"stopgap/bench"
+	"stopgap/lossmodel"
 	"stopgap/stream/simvehicle"
 )
 
@@ -86,7 +86,7 @@ func BenchmarkSoak(b *testing.B) {
 	for range b.N {
 		r := startRig(b, rigOptions{width: w, height: h, driveS: 4, cacheFrames: true,
 			link: simvehicle.LinkConfig{
-				Loss:    bench.LossConfig{Model: bench.LossModelGilbertElliott, LossRate: 0.10, BurstMs: 50, Seed: 11},
+				Loss:    lossmodel.Config{Model: lossmodel.GilbertElliott, LossRate: 0.10, BurstMs: 50, Seed: 11},
 				Outages: []simvehicle.Outage{{At: 10 * time.Second, Duration: time.Second, Every: 20 * time.Second}},
 			}})
 		ctx, cancel := context.WithTimeout(context.Background(), dur+time.Minute)

@@ -26,7 +26,7 @@ func ReadCameraFile(path string) (predictor.Camera, error) {
 	if err != nil {
 		return predictor.Camera{}, fmt.Errorf("camera file: %w", err)
 	}
-	cam := predictor.CameraFromRecording(c)
+	cam := predictor.Camera(c)
 	if err := cam.Validate(); err != nil {
 		return predictor.Camera{}, fmt.Errorf("camera file %s: %w", path, err)
 	}

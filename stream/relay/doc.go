@@ -42,7 +42,7 @@
 // # Losses
 //
 // A missing packet is first repaired: the WHIP session NACKs it at once and at
-// the measured round trip (whip.RepairStats), and the assembler waits for it
+// the measured round trip (ingest.RepairStats), and the assembler waits for it
 // as long as it is asked for (whip.Session.RepairSpan), even past the frame's
 // deadline, since the frames after it reference it. A Loss from the RTP
 // assembler (repair failed) or a decode error makes the frame missing: the

@@ -64,7 +64,7 @@ func FuzzReadCameraFile(f *testing.F) {
 			}
 		}
 		dir := filepath.Join(t.TempDir(), "rec")
-		w, err := recording.Create(dir, cam.Recording())
+		w, err := recording.Create(dir, recording.Camera(cam))
 		if err != nil {
 			t.Fatalf("accepted camera %+v refused by the recording writer: %v", cam, err)
 		}

@@ -13,6 +13,7 @@ import (
 	"github.com/pion/rtp"
 
 	"stopgap/predictor"
+	"stopgap/stream/ingest"
 	"stopgap/stream/rtpvp8"
 	"stopgap/stream/telemetry"
 	"stopgap/stream/vp8"
@@ -49,7 +50,7 @@ func (idleTimer) Reset(time.Duration)  {}
 func (idleTimer) Stop() bool           { return true }
 func newIdleTimer(time.Duration) Timer { return idleTimer{} }
 
-// fakeVehicle is an IngestSession that encodes synthetic frames on demand,
+// fakeVehicle is an ingest.Session that encodes synthetic frames on demand,
 // packetises them and delivers them with arrival times on the fake clock.
 // Frames whose index is in drop never arrive. A keyframe request makes the
 // next encoded frame a keyframe.
@@ -78,7 +79,7 @@ type fakeVehicle struct {
 	arr  []int64
 	next int // next frame to generate
 
-	tel  chan whip.TelemetryBytes
+	tel  chan ingest.TelemetryBytes
 	done chan struct{}
 	once sync.Once
 
@@ -99,7 +100,7 @@ func newFakeVehicle(t testing.TB, clock *fakeClock, frames int, drop func(int) b
 		t.Fatal(err)
 	}
 	v := &fakeVehicle{t: t, clock: clock, frames: frames, drop: drop, enc: enc, pkz: pkz,
-		bgr: make([]byte, testW*testH*3), tel: make(chan whip.TelemetryBytes, 4096), done: make(chan struct{})}
+		bgr: make([]byte, testW*testH*3), tel: make(chan ingest.TelemetryBytes, 4096), done: make(chan struct{})}
 	t.Cleanup(func() { enc.Close() })
 	return v
 }
@@ -161,7 +162,7 @@ func (v *fakeVehicle) generate(i int) {
 	}
 	m := telemetry.Message{TimeUs: captureUs(i), SpeedMps: 8, YawRateRps: 0.05}
 	b, _ := telemetry.Encode(m)
-	v.tel <- whip.TelemetryBytes{Data: b, Arrival: time.UnixMicro(arrival)}
+	v.tel <- ingest.TelemetryBytes{Data: b, Arrival: time.UnixMicro(arrival)}
 }
 
 func (v *fakeVehicle) ReadRTP(ctx context.Context) (*rtp.Packet, time.Time, error) {
@@ -186,7 +187,7 @@ func (v *fakeVehicle) end() {
 	v.once.Do(func() { close(v.tel); close(v.done) })
 }
 
-func (v *fakeVehicle) Telemetry() <-chan whip.TelemetryBytes { return v.tel }
+func (v *fakeVehicle) Telemetry() <-chan ingest.TelemetryBytes { return v.tel }
 
 func (v *fakeVehicle) RequestKeyframe() error {
 	v.mu.Lock()
@@ -198,20 +199,20 @@ func (v *fakeVehicle) RequestKeyframe() error {
 
 // SenderReport maps RTP timestamps to the vehicle clock exactly (frame 0's
 // timestamp at its capture time).
-func (v *fakeVehicle) SenderReport() (whip.SenderReport, bool) {
+func (v *fakeVehicle) SenderReport() (ingest.SenderReport, bool) {
 	v.mu.Lock()
 	before := v.delivering < v.srFrom
 	v.mu.Unlock()
 	if v.noSR || before {
-		return whip.SenderReport{}, false
+		return ingest.SenderReport{}, false
 	}
-	return whip.SenderReport{SSRC: 0x1234, NTPTime: whip.UnixUsToNTP(captureUs(0)), RTPTime: rtpTS(0)}, true
+	return ingest.SenderReport{SSRC: 0x1234, NTPTime: ingest.UnixUsToNTP(captureUs(0)), RTPTime: rtpTS(0)}, true
 }
 
-func (v *fakeVehicle) Stats() whip.SessionStats { return whip.SessionStats{} }
-func (v *fakeVehicle) Done() <-chan struct{}    { return v.done }
-func (v *fakeVehicle) Close() error             { v.end(); return nil }
-func (v *fakeVehicle) ID() string               { return "fakevehicle0001" }
+func (v *fakeVehicle) Stats() ingest.Stats   { return ingest.Stats{} }
+func (v *fakeVehicle) Done() <-chan struct{} { return v.done }
+func (v *fakeVehicle) Close() error          { v.end(); return nil }
+func (v *fakeVehicle) ID() string            { return "fakevehicle0001" }
 
 // testRelay returns a relay on the fake clock.
 func testRelay(t testing.TB, clock *fakeClock, recordDir string) *Relay {

@@ -9,6 +9,7 @@ import (
 	"gocv.io/x/gocv"
 
 	"stopgap/filter"
+	"stopgap/stream/ingest"
 	"stopgap/stream/rtpvp8"
 	"stopgap/stream/telemetry"
 	"stopgap/stream/vp8"
@@ -37,9 +38,9 @@ type telEvent struct {
 	arrivalUs int64
 }
 
-// ingest turns the session's RTP packets into decoded frames. It runs on its
+// frameIngest turns the session's RTP packets into decoded frames. It runs on its
 // own goroutine; only the mutex-guarded parts are touched from the expiry timer.
-type ingest struct {
+type frameIngest struct {
 	p   *pipeline
 	mu  sync.Mutex // guards asm, dec, lastKeyReq, anchor state
 	asm *rtpvp8.Assembler
@@ -60,8 +61,8 @@ type ingest struct {
 	anchoredFrames int
 }
 
-func newIngest(p *pipeline) (*ingest, error) {
-	in := &ingest{p: p}
+func newIngest(p *pipeline) (*frameIngest, error) {
+	in := &frameIngest{p: p}
 	dec, err := vp8.NewDecoderConfig(vp8.DecoderConfig{MaxWidth: p.cfg.Camera.Width, MaxHeight: p.cfg.Camera.Height})
 	if err != nil {
 		return nil, err
@@ -93,10 +94,10 @@ type repairSpanner interface {
 	RepairSpan() time.Duration
 }
 
-func (in *ingest) close() { in.dec.Close() }
+func (in *frameIngest) close() { in.dec.Close() }
 
 // runRTP reads packets until the session or ctx ends.
-func (in *ingest) runRTP(ctx context.Context) error {
+func (in *frameIngest) runRTP(ctx context.Context) error {
 	for {
 		pkt, arrival, err := in.p.sess.ReadRTP(ctx)
 		if err != nil {
@@ -128,7 +129,7 @@ func (in *ingest) runRTP(ctx context.Context) error {
 }
 
 // runTimers expires missing packets and repeats keyframe requests.
-func (in *ingest) runTimers(ctx context.Context) {
+func (in *frameIngest) runTimers(ctx context.Context) {
 	const every = 20 * time.Millisecond
 	t := in.p.cfg.NewTimer(every)
 	defer t.Stop()
@@ -157,7 +158,7 @@ func (in *ingest) runTimers(ctx context.Context) {
 }
 
 // requestKeyframeLocked sends a PLI now. in.mu is held.
-func (in *ingest) requestKeyframeLocked(now time.Time, why string) {
+func (in *frameIngest) requestKeyframeLocked(now time.Time, why string) {
 	in.lastKeyReq = now
 	if err := in.p.sess.RequestKeyframe(); err != nil {
 		in.p.r.met.keyframeRequestsFailed.Add(1)
@@ -168,7 +169,7 @@ func (in *ingest) requestKeyframeLocked(now time.Time, why string) {
 }
 
 // onLoss is called by the assembler (in.mu held).
-func (in *ingest) onLoss(l rtpvp8.Loss) {
+func (in *frameIngest) onLoss(l rtpvp8.Loss) {
 	in.p.r.met.losses.Add(1)
 	in.dec.Lost()
 	in.p.log.Debug("frame loss", "reason", l.Reason.String(), "missing_packets", l.Missing)
@@ -176,7 +177,7 @@ func (in *ingest) onLoss(l rtpvp8.Loss) {
 }
 
 // onFrame decodes a complete frame (in.mu held) and hands it to the display.
-func (in *ingest) onFrame(f rtpvp8.Frame) {
+func (in *frameIngest) onFrame(f rtpvp8.Frame) {
 	p := in.p
 	t0 := p.cfg.Now()
 	if err := in.dec.Decode(f.Data, &in.img); err != nil {
@@ -239,7 +240,7 @@ func (in *ingest) onFrame(f rtpvp8.Frame) {
 // milliseconds and frames land on the wrong display tick. Drift between the
 // vehicle's media clock and its wall clock is parts per million: negligible
 // over a session.
-func (in *ingest) captureTime(f rtpvp8.Frame, ev *frameEvent) {
+func (in *frameIngest) captureTime(f rtpvp8.Frame, ev *frameEvent) {
 	p := in.p
 	if !in.haveAnchor {
 		in.haveAnchor = true
@@ -249,7 +250,7 @@ func (in *ingest) captureTime(f rtpvp8.Frame, ev *frameEvent) {
 	if !in.onVehicle {
 		if sr, ok := p.sess.SenderReport(); ok {
 			in.onVehicle = true
-			veh := sr.SenderTimeUs(in.refTS, whip.VideoClockRateHz)
+			veh := sr.SenderTimeUs(in.refTS, ingest.VideoClockRateHz)
 			if in.anchoredFrames > 0 {
 				ev.hasShift = true
 				ev.shiftUs = veh - in.refUs

@@ -5,9 +5,12 @@ import (
 	"io"
 	"math"
 	"sort"
+	"strings"
 	"sync"
 	"sync/atomic"
 	"time"
+
+	"stopgap/predictor"
 )
 
 // histogram is a fixed-bucket Prometheus histogram of durations in seconds.
@@ -117,7 +120,14 @@ func (l *labelled) write(w io.Writer, name, label, help string) {
 	}
 }
 
-// metrics are the relay's counters and histograms. Safe for concurrent use.
+// MetricPrefix starts the name of every metric the relay exports, so that
+// they sort together and cannot clash with another exporter's (Prometheus
+// naming practice: one application prefix; counters end in _total, units
+// are base units such as seconds).
+const MetricPrefix = "stopgap_"
+
+// metrics are the relay's counters, histograms and gauges. Safe for
+// concurrent use.
 type metrics struct {
 	framesIn, losses, keyframeRequests, keyframeRequestsFailed atomic.Uint64
 	ticksLive, ticksPredicted, ticksStale                      atomic.Uint64
@@ -125,9 +135,14 @@ type metrics struct {
 	telemetryIn, recordErrors, sessions                        atomic.Uint64
 	telemetryRejected, rtpDropped                              labelled
 
-	// Loss repair (see whip.RepairStats), summed over sessions; repairRTTUs
+	// Loss repair (see ingest.RepairStats), summed over sessions; repairRTTUs
 	// is the latest session's round-trip estimate.
 	repairGaps, repairRepaired, repairGaveUp, repairCancelled, repairSkipped, repairRTTUs atomic.Uint64
+
+	// The latest tick sent to the console: its state (predictor.State as
+	// an int, 0 before the first tick) and its picture age in microseconds.
+	stateNow   atomic.Int32
+	pictureAge atomic.Int64
 
 	addedLatency, decode, encode, synth *histogram
 }
@@ -136,34 +151,65 @@ func newMetrics() *metrics {
 	return &metrics{addedLatency: newHistogram(), decode: newHistogram(), encode: newHistogram(), synth: newHistogram()}
 }
 
+// setCurrent records the state and picture age of the tick just sent.
+func (m *metrics) setCurrent(st predictor.State, ageMs float64) {
+	m.stateNow.Store(int32(st))
+	m.pictureAge.Store(int64(math.Round(ageMs * 1000)))
+}
+
 // writeText writes the metrics in the Prometheus text exposition format
-// (version 0.0.4).
+// (version 0.0.4). Every name starts with MetricPrefix; state label values
+// are the lower-case String names of predictor.State.
 func (m *metrics) writeText(w io.Writer, active int) {
+	const p = MetricPrefix
 	counter := func(name, help string, v uint64) {
+		name = p + name + "_total"
 		fmt.Fprintf(w, "# HELP %s %s\n# TYPE %s counter\n%s %d\n", name, help, name, name, v)
 	}
+	gauge := func(name, help string, v float64) {
+		name = p + name
+		fmt.Fprintf(w, "# HELP %s %s\n# TYPE %s gauge\n%s %g\n", name, help, name, name, v)
+	}
+	states := [...]struct {
+		st predictor.State
+		n  uint64
+	}{{predictor.StateLive, m.ticksLive.Load()}, {predictor.StatePredicted, m.ticksPredicted.Load()}, {predictor.StateStale, m.ticksStale.Load()}}
+
 	counter("frames_in", "Video frames received complete and decoded.", m.framesIn.Load())
-	fmt.Fprintf(w, "# HELP ticks Display ticks sent to the console, by state.\n# TYPE ticks counter\n")
-	fmt.Fprintf(w, "ticks{state=\"live\"} %d\nticks{state=\"predicted\"} %d\nticks{state=\"stale\"} %d\n",
-		m.ticksLive.Load(), m.ticksPredicted.Load(), m.ticksStale.Load())
+	fmt.Fprintf(w, "# HELP %[1]sticks_total Display ticks sent to the console, by state.\n# TYPE %[1]sticks_total counter\n", p)
+	for _, s := range states {
+		fmt.Fprintf(w, "%sticks_total{state=%q} %d\n", p, strings.ToLower(s.st.String()), s.n)
+	}
+	now := predictor.State(m.stateNow.Load())
+	fmt.Fprintf(w, "# HELP %[1]sframe_state State of the latest display tick: 1 for its state, 0 for the others (all 0 before the first tick).\n# TYPE %[1]sframe_state gauge\n", p)
+	for _, s := range states {
+		v := 0
+		if s.st == now {
+			v = 1
+		}
+		fmt.Fprintf(w, "%sframe_state{state=%q} %d\n", p, strings.ToLower(s.st.String()), v)
+	}
+	gauge("picture_age_seconds", "Picture age of the latest display tick: time from the capture of the newest real frame on screen to the tick.", float64(m.pictureAge.Load())/1e6)
 	counter("losses", "Frame losses: assembler loss events and decode errors.", m.losses.Load())
+	counter("decode_errors", "Frames the VP8 decoder could not decode.", m.decodeErrors.Load())
 	counter("keyframe_requests", "Keyframe requests (RTCP PLI) sent to the vehicle.", m.keyframeRequests.Load())
+	counter("keyframe_requests_failed", "Keyframe requests that could not be sent (no track yet, rate limit, closed session).", m.keyframeRequestsFailed.Load())
 	counter("repair_gaps", "Missing RTP packets asked for with a NACK (each once).", m.repairGaps.Load())
 	counter("repair_repaired", "Missing RTP packets that arrived after all (retransmission or reordering).", m.repairRepaired.Load())
 	counter("repair_gave_up", "Missing RTP packets no longer asked for: NACK cap or repair window reached.", m.repairGaveUp.Load())
 	counter("repair_skipped", "Missing RTP packets never asked for: a gap after an outage or too large to repair.", m.repairSkipped.Load())
 	counter("repair_cancelled", "Missing RTP packets no longer asked for because a keyframe was requested.", m.repairCancelled.Load())
-	fmt.Fprintf(w, "# HELP repair_rtt_seconds Smoothed NACK-to-retransmission round trip of the latest session.\n# TYPE repair_rtt_seconds gauge\nrepair_rtt_seconds %g\n", float64(m.repairRTTUs.Load())/1e6)
+	gauge("repair_rtt_seconds", "Smoothed NACK-to-retransmission round trip of the latest session.", float64(m.repairRTTUs.Load())/1e6)
 	counter("late_frames", "Frames decoded after their display deadline (held, not shown).", m.lateFrames.Load())
 	counter("frames_dropped", "Decoded frames dropped because the display loop was behind.", m.framesDropped.Load())
 	counter("telemetry_in", "Telemetry samples accepted by the filter.", m.telemetryIn.Load())
 	counter("record_errors", "Recording writes that failed.", m.recordErrors.Load())
 	counter("sessions", "Ingest sessions served.", m.sessions.Load())
-	m.telemetryRejected.write(w, "telemetry_rejected", "reason", "Telemetry messages rejected, by reason (decode_* by the decoder, filter_* by the filter, queue_full, too_late: arrived later than the filter history after it was taken).")
-	m.rtpDropped.write(w, "rtp_dropped", "reason", "RTP packets not used, by reason.")
-	fmt.Fprintf(w, "# HELP active_sessions Ingest sessions being served now.\n# TYPE active_sessions gauge\nactive_sessions %d\n", active)
-	m.addedLatency.write(w, "relay_added_latency_seconds", "Time from the last packet of a LIVE frame to console WriteFrame, excluding decode and encode.")
-	m.decode.write(w, "decode_seconds", "VP8 decode plus I420 to BGR conversion per frame.")
-	m.encode.write(w, "encode_seconds", "VP8 encode per output frame.")
-	m.synth.write(w, "synth_seconds", "Gap filler time per PREDICTED or STALE tick.")
+	m.telemetryRejected.write(w, p+"telemetry_rejected_total", "reason", "Telemetry messages rejected, by reason (decode_* by the decoder, filter_* by the filter, queue_full, too_late: arrived later than the filter history after it was taken).")
+	m.rtpDropped.write(w, p+"rtp_dropped_total", "reason", "RTP packets not used, by reason.")
+	gauge("active_sessions", "Ingest sessions being served now.", float64(active))
+	m.addedLatency.write(w, p+"added_latency_seconds", "Time from the last packet of a LIVE frame to console WriteFrame, excluding decode and encode.")
+	m.decode.write(w, p+"decode_seconds", "VP8 decode plus I420 to BGR conversion per frame.")
+	m.encode.write(w, p+"encode_seconds", "VP8 encode per output frame.")
+	m.synth.write(w, p+"synth_seconds", "Gap filler time per PREDICTED or STALE tick.")
 }

@@ -17,7 +17,7 @@ import (
 	"stopgap/predictor"
 	"stopgap/stream/cadence"
 	"stopgap/stream/console"
-	"stopgap/stream/whip"
+	"stopgap/stream/ingest"
 )
 
 // pipeline is the per-session state: ingest goroutines feed the display loop,
@@ -26,8 +26,8 @@ type pipeline struct {
 	r    *Relay
 	cfg  Config
 	log  *slog.Logger
-	sess IngestSession
-	in   *ingest
+	sess ingest.Session
+	in   *frameIngest
 
 	pool   []gocv.Mat
 	free   chan *gocv.Mat
@@ -58,10 +58,10 @@ type pipeline struct {
 	prevLost    int64
 	prevHighest uint32
 	prevDrops   [3]uint64 // ingest queue full, duplicate, too old
-	prevRepair  whip.RepairStats
+	prevRepair  ingest.RepairStats
 }
 
-func newPipeline(r *Relay, s IngestSession) (*pipeline, error) {
+func newPipeline(r *Relay, s ingest.Session) (*pipeline, error) {
 	cfg := r.cfg
 	p := &pipeline{r: r, cfg: cfg, sess: s, log: r.log.With("session", short(s.ID()))}
 	var err error
@@ -409,8 +409,11 @@ func (p *pipeline) emit(t cadence.Tick, captureUs int64, tick predictor.Tick, ev
 	}
 	p.refreshLink()
 	conf, age := finite(tick.Confidence), finite(tick.AgeMs)
-	p.meta = console.Meta{Seq: p.meta.Seq + 1, TimeUs: captureUs, State: st, AgeMs: age, Confidence: conf,
-		Cutoff: cutoff, Profile: p.r.console.Profile(), Link: p.link}
+	p.r.met.setCurrent(tick.State, age)
+	_, havePicture := p.filler.LastCaptureUs()
+	pol := predictor.Policy{CutoffConfidence: cutoff, MaxAgeMs: p.cfg.Policy.MaxAgeMs}
+	p.meta = console.Meta{Seq: p.meta.Seq + 1, TimeUs: captureUs, State: st, AgeMs: age, MaxAgeMs: pol.MaxAgeMs,
+		Why: predictor.WhyStale(pol, tick, havePicture).String(), Confidence: conf, Cutoff: cutoff, Profile: p.r.console.Profile(), Link: p.link}
 	if err := p.r.console.WriteMeta(p.meta); err != nil && !errors.Is(err, console.ErrClosed) {
 		p.log.Warn("console meta failed", "err", err)
 	}
@@ -463,7 +466,7 @@ func (p *pipeline) refreshLink() {
 
 // noPacketsMs returns console.LinkStats.NoPacketsMs at now for a link whose
 // latest packet arrived at last (zero: none yet, which the console's
-// NOSIGNAL state covers).
+// UNKNOWN state covers).
 func noPacketsMs(now, last time.Time) float64 {
 	if last.IsZero() {
 		return 0
@@ -531,7 +534,7 @@ func finite(x float64) float64 {
 
 // countRepair adds the session's loss-repair counters since the last call
 // to the relay's.
-func (p *pipeline) countRepair(r whip.RepairStats) {
+func (p *pipeline) countRepair(r ingest.RepairStats) {
 	m, prev := p.r.met, p.prevRepair
 	m.repairGaps.Add(r.Gaps - min(prev.Gaps, r.Gaps))
 	m.repairRepaired.Add(r.Repaired - min(prev.Repaired, r.Repaired))
@@ -546,7 +549,7 @@ func (p *pipeline) countRepair(r whip.RepairStats) {
 
 // countDrops adds to rtp_dropped the packets dropped outside Push's errors:
 // by the ingest queue (whip) and as duplicates or too late (assembler).
-func (p *pipeline) countDrops(st whip.SessionStats) {
+func (p *pipeline) countDrops(st ingest.Stats) {
 	p.in.mu.Lock()
 	as := p.in.asm.Stats()
 	p.in.mu.Unlock()

@@ -13,36 +13,12 @@ import (
 	"sync"
 	"time"
 
-	"github.com/pion/rtp"
-
+	"stopgap/predictor"
 	"stopgap/stream/console"
+	"stopgap/stream/ingest"
 	"stopgap/stream/vp8"
 	"stopgap/stream/whip"
 )
-
-// IngestSession is the part of one vehicle session the relay consumes.
-// *whip.Session implements it; tests use a fake.
-type IngestSession interface {
-	// ReadRTP returns the next video RTP packet and its receiver-clock
-	// arrival time; whip.ErrSessionClosed (or any error) ends the session.
-	ReadRTP(ctx context.Context) (*rtp.Packet, time.Time, error)
-	// Telemetry delivers raw telemetry messages; closed when the session ends.
-	Telemetry() <-chan whip.TelemetryBytes
-	// RequestKeyframe sends a picture loss indication (RTCP PLI).
-	RequestKeyframe() error
-	// SenderReport returns the latest RTCP sender report, ok false before one.
-	SenderReport() (whip.SenderReport, bool)
-	// Stats returns link statistics (called about once per second).
-	Stats() whip.SessionStats
-	// Done is closed when the session ended.
-	Done() <-chan struct{}
-	// Close ends the session.
-	Close() error
-	// ID identifies the session (logs show its first 8 characters).
-	ID() string
-}
-
-var _ IngestSession = (*whip.Session)(nil)
 
 // Stats are the relay's counters since New.
 type Stats struct {
@@ -58,6 +34,10 @@ type Stats struct {
 	// Losses counts assembler loss events and decode errors; KeyframeRequests
 	// the PLIs sent (including retries).
 	Losses, KeyframeRequests uint64
+	// State and PictureAgeMs describe the latest tick sent to the console
+	// (StateInvalid before the first).
+	State        predictor.State
+	PictureAgeMs float64
 	// LateFrames counts frames decoded after their deadline (held, not
 	// shown); FramesDropped frames dropped because the display loop was
 	// behind.
@@ -76,7 +56,7 @@ type Stats struct {
 	AddedLatencyP50Ms, AddedLatencyP99Ms float64
 	// Repair sums the sessions' loss-repair counters (updated about once
 	// per second); its RTT is the latest session's.
-	Repair whip.RepairStats
+	Repair ingest.RepairStats
 }
 
 // Relay is the live relay between one vehicle (WHIP ingest) and the operator
@@ -93,7 +73,7 @@ type Relay struct {
 	metricsTokenSum [32]byte
 	probe           probes // /readyz and /livez (probes.go)
 
-	incoming chan IngestSession
+	incoming chan ingest.Session
 	encPtsUs int64 // last encoder timestamp; used only by the serving goroutine
 	tracer   frameTracer
 
@@ -112,7 +92,7 @@ func New(cfg Config) (*Relay, error) {
 	if err != nil {
 		return nil, err
 	}
-	r := &Relay{cfg: cfg, log: cfg.Logger, met: newMetrics(), incoming: make(chan IngestSession, 1)}
+	r := &Relay{cfg: cfg, log: cfg.Logger, met: newMetrics(), incoming: make(chan ingest.Session, 1)}
 	r.metricsTokenSum = sha256.Sum256([]byte(cfg.ConsoleToken))
 
 	r.enc, err = vp8.NewEncoder(cfg.Encoder)
@@ -169,7 +149,7 @@ func (r *Relay) offer(s *whip.Session) { r.Offer(s) }
 // Offer hands an ingest session to Run, which serves one session at a time:
 // the newest replaces the current one, which is closed. Sessions offered after
 // Run returned are closed at once.
-func (r *Relay) Offer(s IngestSession) {
+func (r *Relay) Offer(s ingest.Session) {
 	r.mu.Lock()
 	closed := r.closed
 	r.mu.Unlock()
@@ -215,12 +195,13 @@ func (r *Relay) Stats() Stats {
 		FramesIn:  m.framesIn.Load(),
 		TicksLive: m.ticksLive.Load(), TicksPredicted: m.ticksPredicted.Load(), TicksStale: m.ticksStale.Load(),
 		Losses: m.losses.Load(), KeyframeRequests: m.keyframeRequests.Load(),
+		State: predictor.State(m.stateNow.Load()), PictureAgeMs: float64(m.pictureAge.Load()) / 1000,
 		LateFrames: m.lateFrames.Load(), FramesDropped: m.framesDropped.Load(),
 		TelemetryIn: m.telemetryIn.Load(), TelemetryRejected: m.telemetryRejected.total(),
 		RecordErrors: m.recordErrors.Load(),
 		LatencyMs:    float64(lat) / 1000, LatencyKnown: known,
 		AddedLatencyP50Ms: m.addedLatency.quantile(0.5) * 1000, AddedLatencyP99Ms: m.addedLatency.quantile(0.99) * 1000,
-		Repair: whip.RepairStats{Gaps: m.repairGaps.Load(), Repaired: m.repairRepaired.Load(), GaveUp: m.repairGaveUp.Load(),
+		Repair: ingest.RepairStats{Gaps: m.repairGaps.Load(), Repaired: m.repairRepaired.Load(), GaveUp: m.repairGaveUp.Load(),
 			Cancelled: m.repairCancelled.Load(), SkippedGaps: m.repairSkipped.Load(), RTT: time.Duration(m.repairRTTUs.Load()) * time.Microsecond},
 	}
 }
@@ -237,7 +218,7 @@ func (r *Relay) Run(ctx context.Context) error {
 	}
 	r.mu.Unlock()
 	r.probe.running.Store(true)
-	var next IngestSession
+	var next ingest.Session
 	for {
 		if next == nil {
 			select {
@@ -304,7 +285,7 @@ func (r *Relay) shutdown() error {
 // then closes it. Run calls it for every offered session; call it directly
 // only when not using Run (tests, custom ingest). Sessions must not be served
 // concurrently: the egress encoder and the recording are shared.
-func (r *Relay) Serve(ctx context.Context, s IngestSession) error {
+func (r *Relay) Serve(ctx context.Context, s ingest.Session) error {
 	r.met.sessions.Add(1)
 	r.setActive(true)
 	defer r.setActive(false)

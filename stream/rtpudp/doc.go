@@ -1,7 +1,7 @@
 // Package rtpudp is a live ingest for cameras without WebRTC: VP8 video over
 // plain RTP/UDP (RFC 3550, payload format RFC 7741) with RTCP on the same
 // port, and optional telemetry datagrams on a second UDP port. A [Session]
-// implements the relay's ingest interface (stopgap/stream/relay.IngestSession),
+// implements the relay's ingest interface (stopgap/stream/ingest.Session),
 // so the relay serves it exactly like a WHIP session.
 //
 // # Sockets and demultiplexing

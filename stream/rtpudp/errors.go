@@ -4,7 +4,7 @@ import (
 	"errors"
 	"fmt"
 
-	"stopgap/stream/whip"
+	"stopgap/stream/ingest"
 )
 
 // Errors returned by this package. Compare with errors.Is; most are wrapped
@@ -20,9 +20,9 @@ var (
 	ErrNeedAllowList = errors.New("rtpudp: a non-loopback listen address needs a non-empty allow list of source addresses")
 
 	// ErrSessionClosed is returned by ReadRTP and RequestKeyframe after the
-	// session ended. It wraps whip.ErrSessionClosed, so the relay treats the
+	// session ended. It wraps ingest.ErrSessionClosed, so the relay treats the
 	// end of a UDP session like the end of a WHIP session.
-	ErrSessionClosed = fmt.Errorf("rtpudp: session closed: %w", whip.ErrSessionClosed)
+	ErrSessionClosed = fmt.Errorf("rtpudp: session closed: %w", ingest.ErrSessionClosed)
 
 	// ErrNoSource is returned by RequestKeyframe before any RTP packet or
 	// sender report was accepted: there is no address or SSRC to send the

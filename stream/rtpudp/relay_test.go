@@ -12,12 +12,12 @@ import (
 	"github.com/pion/rtcp"
 
 	"stopgap/predictor"
+	"stopgap/stream/ingest"
 	"stopgap/stream/relay"
 	"stopgap/stream/rtpudp"
 	"stopgap/stream/rtpvp8"
 	"stopgap/stream/telemetry"
 	"stopgap/stream/vp8"
-	"stopgap/stream/whip"
 )
 
 // TestRelayOverUDP runs a real relay fed by a real VP8 stream over RTP/UDP on
@@ -133,7 +133,7 @@ func runRelayOverUDP(t *testing.T, dropFrame int) {
 			t.Fatal(err)
 		}
 		if i%10 == 0 { // sender report pairing this frame's RTP time with its capture time
-			b, _ := (&rtcp.SenderReport{SSRC: 0xCAFE, NTPTime: whip.UnixUsToNTP(capture.UnixMicro()), RTPTime: ts}).Marshal()
+			b, _ := (&rtcp.SenderReport{SSRC: 0xCAFE, NTPTime: ingest.UnixUsToNTP(capture.UnixMicro()), RTPTime: ts}).Marshal()
 			conn.WriteToUDP(b, rtpTo)
 		}
 		for j := range pk {

@@ -15,7 +15,7 @@ import (
 	"github.com/pion/rtcp"
 	"github.com/pion/rtp"
 
-	"stopgap/stream/whip"
+	"stopgap/stream/ingest"
 
 	"stopgap/stream/rtpstats"
 )
@@ -86,8 +86,11 @@ type arrival struct {
 	at  time.Time
 }
 
-// Session is one RTP/UDP ingest session. It implements the relay's
-// IngestSession interface. All methods are safe for concurrent use.
+// The relay reads every ingest through one interface.
+var _ ingest.Session = (*Session)(nil)
+
+// Session is one RTP/UDP ingest session; it implements ingest.Session.
+// All methods are safe for concurrent use.
 type Session struct {
 	cfg     Config
 	allow   []source
@@ -98,7 +101,7 @@ type Session struct {
 	rtpConn, telConn *net.UDPConn
 
 	rtpq    chan arrival
-	telq    chan whip.TelemetryBytes
+	telq    chan ingest.TelemetryBytes
 	done    chan struct{}
 	started chan struct{}
 	wg      sync.WaitGroup
@@ -110,9 +113,9 @@ type Session struct {
 	peer         netip.AddrPort
 	havePeer     bool
 	rx           rtpstats.Receiver
-	sr           whip.SenderReport
+	sr           ingest.SenderReport
 	hasSR        bool
-	pendingSR    whip.SenderReport // latest SR seen before the SSRC was locked
+	pendingSR    ingest.SenderReport // latest SR seen before the SSRC was locked
 	hasPending   bool
 	lastActivity time.Time
 	lastPLI      time.Time
@@ -178,7 +181,7 @@ func newSession(cfg Config) (*Session, error) {
 		id:      hex.EncodeToString(rb[:8]),
 		ownSSRC: binary.BigEndian.Uint32(rb[8:]),
 		rtpq:    make(chan arrival, cfg.RTPQueue),
-		telq:    make(chan whip.TelemetryBytes, cfg.TelemetryQueue),
+		telq:    make(chan ingest.TelemetryBytes, cfg.TelemetryQueue),
 		done:    make(chan struct{}),
 		started: make(chan struct{}),
 	}
@@ -284,7 +287,7 @@ func (s *Session) ReadRTP(ctx context.Context) (*rtp.Packet, time.Time, error) {
 // arrival times (decode them with telemetry.Decode). It is closed after the
 // session ends; without a telemetry socket it only closes. When it is full,
 // new datagrams are dropped and counted.
-func (s *Session) Telemetry() <-chan whip.TelemetryBytes { return s.telq }
+func (s *Session) Telemetry() <-chan ingest.TelemetryBytes { return s.telq }
 
 // RequestKeyframe sends an RTCP Picture Loss Indication (RFC 4585 section
 // 6.3.1) for the locked SSRC to the source's address. It returns ErrNoSource
@@ -340,7 +343,7 @@ func (s *Session) write(b []byte, to netip.AddrPort) error {
 // SenderReport returns the latest RTCP sender report of the locked SSRC
 // (NTP/RTP timestamp pair, RFC 3550 section 6.4.1, with its arrival time);
 // ok is false until one arrived.
-func (s *Session) SenderReport() (whip.SenderReport, bool) {
+func (s *Session) SenderReport() (ingest.SenderReport, bool) {
 	s.mu.Lock()
 	defer s.mu.Unlock()
 	return s.sr, s.hasSR
@@ -360,17 +363,17 @@ func (s *Session) Counts() Counts {
 // ReadErrors counts malformed and oversize datagrams; PacketsDropped packets
 // dropped for a full queue; TelemetryDropped telemetry datagrams dropped for
 // a full queue or their size.
-func (s *Session) Stats() whip.SessionStats {
+func (s *Session) Stats() ingest.Stats {
 	s.mu.Lock()
 	defer s.mu.Unlock()
-	return whip.SessionStats{
+	return ingest.Stats{
 		PacketsReceived:   s.rx.Received(),
 		BytesReceived:     s.rx.Bytes(),
 		PaddingPackets:    s.rx.Padding(),
 		PacketsLost:       s.rx.Lost(),
 		HighestSeq:        s.rx.ExtendedMax(),
 		JitterRTP:         s.rx.JitterRTP(),
-		Jitter:            time.Duration(s.rx.JitterRTP() / whip.VideoClockRateHz * float64(time.Second)),
+		Jitter:            time.Duration(s.rx.JitterRTP() / ingest.VideoClockRateHz * float64(time.Second)),
 		PacketsDropped:    s.cnt.RTPQueueFull,
 		ReadErrors:        s.cnt.Malformed + s.cnt.Oversize,
 		PLIsSent:          s.cnt.PLIsSent,
@@ -495,7 +498,7 @@ func (s *Session) handleRTCP(b []byte, from netip.AddrPort, now time.Time) {
 	for _, p := range pkts {
 		switch p := p.(type) {
 		case *rtcp.SenderReport:
-			sr := whip.SenderReport{SSRC: p.SSRC, NTPTime: p.NTPTime, RTPTime: p.RTPTime,
+			sr := ingest.SenderReport{SSRC: p.SSRC, NTPTime: p.NTPTime, RTPTime: p.RTPTime,
 				PacketCount: p.PacketCount, OctetCount: p.OctetCount, Arrival: now}
 			if !known {
 				// Kept until the first RTP packet tells which SSRC to lock onto.
@@ -566,7 +569,7 @@ func (s *Session) handleTelemetry(b []byte, from netip.AddrPort, now time.Time) 
 	s.mu.Lock()
 	defer s.mu.Unlock()
 	select {
-	case s.telq <- whip.TelemetryBytes{Data: own, Arrival: now}:
+	case s.telq <- ingest.TelemetryBytes{Data: own, Arrival: now}:
 		s.cnt.TelemetryForwarded++
 	default:
 		s.cnt.TelemetryQueueFull++

@@ -13,8 +13,8 @@ import (
 	"github.com/pion/rtcp"
 	"github.com/pion/rtp"
 
+	"stopgap/stream/ingest"
 	"stopgap/stream/telemetry"
-	"stopgap/stream/whip"
 )
 
 func TestPacketsAndSenderReport(t *testing.T) {
@@ -61,7 +61,7 @@ func TestPacketsAndSenderReport(t *testing.T) {
 	}
 	// One second of 90 kHz ticks after the SR's RTP time is one second after
 	// its NTP time (RFC 3550 section 6.4.1).
-	if d := sr.SenderTimeUs(1000+90000, whip.VideoClockRateHz) - sr.SenderTimeUs(1000, whip.VideoClockRateHz); d != 1_000_000 {
+	if d := sr.SenderTimeUs(1000+90000, ingest.VideoClockRateHz) - sr.SenderTimeUs(1000, ingest.VideoClockRateHz); d != 1_000_000 {
 		t.Errorf("SR mapping: 90000 ticks -> %d us, want 1000000", d)
 	}
 	st := s.Stats()
@@ -254,8 +254,8 @@ func TestTelemetryForwarded(t *testing.T) {
 	if _, ok := <-s.Telemetry(); ok {
 		t.Fatal("Telemetry channel still open after Close")
 	}
-	if _, _, err := s.ReadRTP(t.Context()); !errors.Is(err, whip.ErrSessionClosed) {
-		t.Fatalf("ReadRTP after Close: %v, want whip.ErrSessionClosed", err)
+	if _, _, err := s.ReadRTP(t.Context()); !errors.Is(err, ingest.ErrSessionClosed) {
+		t.Fatalf("ReadRTP after Close: %v, want ingest.ErrSessionClosed", err)
 	}
 	if s.EndReason() != EndClosed {
 		t.Errorf("EndReason %v, want %v", s.EndReason(), EndClosed)

@@ -6,14 +6,14 @@ import (
 
 	"github.com/pion/rtp"
 
-	"stopgap/bench"
+	"stopgap/lossmodel"
 )
 
 // BenchmarkLinkKeep measures the wire filter's per-packet cost (it runs on
 // the publisher's sending goroutine).
 func BenchmarkLinkKeep(b *testing.B) {
 	clk := newVirtualClock()
-	l, err := NewLink(LinkConfig{Loss: bench.LossConfig{Model: bench.LossModelGilbertElliott, LossRate: 0.05, BurstMs: 40},
+	l, err := NewLink(LinkConfig{Loss: lossmodel.Config{Model: lossmodel.GilbertElliott, LossRate: 0.05, BurstMs: 40},
 		Outages: []Outage{{At: time.Hour, Duration: time.Second}}}, clk)
 	if err != nil {
 		b.Fatal(err)
@@ -30,7 +30,7 @@ func BenchmarkLinkKeep(b *testing.B) {
 // BenchmarkLinkSendRTP measures putting a 1200-octet packet into the delay
 // line and taking it out again.
 func BenchmarkLinkSendRTP(b *testing.B) {
-	l, err := NewLink(LinkConfig{Loss: bench.LossConfig{Model: bench.LossModelNone, JitterMs: 5}}, newVirtualClock())
+	l, err := NewLink(LinkConfig{Loss: lossmodel.Config{Model: lossmodel.None, JitterMs: 5}}, newVirtualClock())
 	if err != nil {
 		b.Fatal(err)
 	}

@@ -4,7 +4,7 @@ import (
 	"fmt"
 	"time"
 
-	"stopgap/bench"
+	"stopgap/lossmodel"
 	"stopgap/stream/simvehicle"
 )
 
@@ -24,7 +24,7 @@ func ExampleParseOutage() {
 // installs its wire filter in the WHIP publisher.
 func ExampleNewLink() {
 	link, err := simvehicle.NewLink(simvehicle.LinkConfig{
-		Loss: bench.LossConfig{Model: bench.LossModelGilbertElliott, LossRate: 0.02, BurstMs: 40,
+		Loss: lossmodel.Config{Model: lossmodel.GilbertElliott, LossRate: 0.02, BurstMs: 40,
 			ExtraDelayMs: 30, JitterMs: 10, Seed: 1},
 		Outages: []simvehicle.Outage{{At: 2 * time.Second, Duration: 500 * time.Millisecond}},
 	}, nil)

@@ -13,7 +13,7 @@ import (
 
 	"github.com/pion/rtp"
 
-	"stopgap/bench"
+	"stopgap/lossmodel"
 	"stopgap/stream/whip"
 )
 
@@ -28,7 +28,7 @@ const DefaultQueuePackets = 4096
 const maxPacketBytes = 1500
 
 // Second PCG words of the link's random streams (ASCII "loss", "jitr"), the
-// same split as bench.LossConfig.Simulate: changing the delay settings never
+// same split as lossmodel.Config.Simulate: changing the delay settings never
 // changes which packets are lost.
 const (
 	lossStream   = 0x6c6f7373
@@ -119,10 +119,10 @@ type LinkConfig struct {
 	// Loss gives the Gilbert-Elliott parameters (Model, LossRate, BurstMs,
 	// GoodLossProb, BadDeliverProb), the fixed one-way delay ExtraDelayMs,
 	// the jitter width JitterMs and the Seed, with the meaning documented
-	// on bench.LossConfig, except that the chain steps per RTP packet in
+	// on lossmodel.Config, except that the chain steps per RTP packet in
 	// continuous time (see Link) and FramePeriodMs is ignored. A zero Model
 	// with all other fields zero means LossModelNone.
-	Loss bench.LossConfig
+	Loss lossmodel.Config
 	// Outages are scripted intervals that drop everything.
 	Outages []Outage
 	// QueuePackets bounds the delay line (video packets plus telemetry
@@ -193,11 +193,11 @@ type item struct {
 //	P(Bad | was Bad)  = pi_B + (1-pi_B) e
 //	P(Bad | was Good) = pi_B (1 - e)
 //
-// For dt much shorter than B this is bench.LossConfig's per-frame chain with
+// For dt much shorter than B this is lossmodel.Config's per-frame chain with
 // the frame period replaced by dt (P(Good | Bad) ~ dt/B, P(Bad | Good) ~
 // (dt/B) pi_B/(1-pi_B)); unlike the discrete form it is valid for any dt, so
 // it does not depend on the packet rate. The stationary Bad share is pi_B and
-// the long-run loss rate LossRate, as in bench. The first packet's state is
+// the long-run loss rate LossRate, as in lossmodel. The first packet's state is
 // drawn from the stationary distribution.
 //
 // All methods are safe for concurrent use. The delay line is bounded
@@ -236,8 +236,8 @@ func NewLink(cfg LinkConfig, clock Clock) (*Link, error) {
 	if clock == nil {
 		clock = SystemClock{}
 	}
-	if cfg.Loss.Model == bench.LossModelInvalid && cfg.Loss == (bench.LossConfig{}) {
-		cfg.Loss.Model = bench.LossModelNone
+	if cfg.Loss.Model == lossmodel.Invalid && cfg.Loss == (lossmodel.Config{}) {
+		cfg.Loss.Model = lossmodel.None
 	}
 	if err := cfg.Loss.Validate(); err != nil {
 		return nil, fmt.Errorf("%w: link loss: %w", ErrConfig, err)
@@ -265,7 +265,7 @@ func NewLink(cfg LinkConfig, clock Clock) (*Link, error) {
 		jitRng:  rand.New(rand.NewPCG(cfg.Loss.Seed, jitterStream)),
 		outages: append([]Outage(nil), cfg.Outages...),
 	}
-	if cfg.Loss.Model == bench.LossModelGilbertElliott {
+	if cfg.Loss.Model == lossmodel.GilbertElliott {
 		l.ge = true
 		l.k, l.h = cfg.Loss.GoodLossProb, 1-cfg.Loss.BadDeliverProb
 		l.piB = (cfg.Loss.LossRate - l.k) / (l.h - l.k)

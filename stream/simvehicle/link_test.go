@@ -10,7 +10,7 @@ import (
 
 	"github.com/pion/rtp"
 
-	"stopgap/bench"
+	"stopgap/lossmodel"
 )
 
 func TestParseOutage(t *testing.T) {
@@ -89,7 +89,7 @@ func TestOutageCovers(t *testing.T) {
 
 // runs measures the loss rate and the mean length of runs of consecutive
 // lost packets for packets spaced dt apart.
-func runs(t *testing.T, cfg bench.LossConfig, n int, dt time.Duration) (lossRate, meanBurstPackets float64) {
+func runs(t *testing.T, cfg lossmodel.Config, n int, dt time.Duration) (lossRate, meanBurstPackets float64) {
 	t.Helper()
 	clk := newVirtualClock()
 	l, err := NewLink(LinkConfig{Loss: cfg}, clk)
@@ -134,7 +134,7 @@ func TestGilbertElliott(t *testing.T) {
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
-			cfg := bench.LossConfig{Model: bench.LossModelGilbertElliott, LossRate: 0.1, BurstMs: 50, Seed: 7}
+			cfg := lossmodel.Config{Model: lossmodel.GilbertElliott, LossRate: 0.1, BurstMs: 50, Seed: 7}
 			rate, burst := runs(t, cfg, 400_000, tc.dt)
 			if math.Abs(rate-0.1) > 0.02 {
 				t.Errorf("loss rate %.4f, want 0.1 +- 0.02", rate)
@@ -146,13 +146,13 @@ func TestGilbertElliott(t *testing.T) {
 		})
 	}
 	t.Run("none", func(t *testing.T) {
-		rate, _ := runs(t, bench.LossConfig{}, 1000, time.Millisecond)
+		rate, _ := runs(t, lossmodel.Config{}, 1000, time.Millisecond)
 		if rate != 0 {
 			t.Errorf("perfect link lost %.3f", rate)
 		}
 	})
 	t.Run("same seed same losses", func(t *testing.T) {
-		cfg := bench.LossConfig{Model: bench.LossModelGilbertElliott, LossRate: 0.2, BurstMs: 20, Seed: 3}
+		cfg := lossmodel.Config{Model: lossmodel.GilbertElliott, LossRate: 0.2, BurstMs: 20, Seed: 3}
 		a, _ := runs(t, cfg, 5000, time.Millisecond)
 		b, _ := runs(t, cfg, 5000, time.Millisecond)
 		if a != b {
@@ -163,11 +163,11 @@ func TestGilbertElliott(t *testing.T) {
 
 func TestNewLinkRejects(t *testing.T) {
 	for name, cfg := range map[string]LinkConfig{
-		"loss rate":  {Loss: bench.LossConfig{Model: bench.LossModelGilbertElliott, LossRate: 1.5, BurstMs: 10}},
-		"no burst":   {Loss: bench.LossConfig{Model: bench.LossModelGilbertElliott, LossRate: 0.1}},
+		"loss rate":  {Loss: lossmodel.Config{Model: lossmodel.GilbertElliott, LossRate: 1.5, BurstMs: 10}},
+		"no burst":   {Loss: lossmodel.Config{Model: lossmodel.GilbertElliott, LossRate: 0.1}},
 		"outage":     {Outages: []Outage{{At: time.Second}}},
 		"queue":      {QueuePackets: -1},
-		"negative d": {Loss: bench.LossConfig{Model: bench.LossModelNone, ExtraDelayMs: -1}},
+		"negative d": {Loss: lossmodel.Config{Model: lossmodel.None, ExtraDelayMs: -1}},
 	} {
 		t.Run(name, func(t *testing.T) {
 			if _, err := NewLink(cfg, nil); !errors.Is(err, ErrConfig) {
@@ -204,7 +204,7 @@ func (s *recordingSink) SendTelemetry(b []byte) error {
 func TestDelayLine(t *testing.T) {
 	clk := newVirtualClock()
 	l, err := NewLink(LinkConfig{
-		Loss:         bench.LossConfig{Model: bench.LossModelNone, ExtraDelayMs: 40, JitterMs: 30, Seed: 1},
+		Loss:         lossmodel.Config{Model: lossmodel.None, ExtraDelayMs: 40, JitterMs: 30, Seed: 1},
 		Outages:      []Outage{{At: 100 * time.Millisecond, Duration: 50 * time.Millisecond}},
 		QueuePackets: 64,
 	}, clk)

@@ -9,6 +9,7 @@ import (
 	"testing"
 	"time"
 
+	"stopgap/stream/ingest"
 	"stopgap/stream/rtpvp8"
 	"stopgap/stream/telemetry"
 	"stopgap/stream/vp8"
@@ -130,7 +131,7 @@ func TestPublishLoopback(t *testing.T) {
 			capUs, known := sentAt[pkt.Timestamp]
 			mu.Unlock()
 			if known {
-				e := sr.SenderTimeUs(pkt.Timestamp, whip.VideoClockRateHz) - capUs
+				e := sr.SenderTimeUs(pkt.Timestamp, ingest.VideoClockRateHz) - capUs
 				srMaxErrUs = max(srMaxErrUs, e, -e)
 				srChecked++
 			}

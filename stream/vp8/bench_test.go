@@ -13,7 +13,7 @@ import (
 //
 //	go test -run '^$' -bench . -benchtime 60x -cpu 1 ./stream/vp8
 //
-// Each benchmark reports ms/frame. The content is the synthetic moving
+// Each benchmark reports ms/frame. The content is the simulated moving
 // pattern with +-4 noise (harder to code than most camera scenes' smooth
 // areas, easier than foliage).
 

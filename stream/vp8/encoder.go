@@ -26,7 +26,7 @@ const (
 	DefaultKeyframeInterval = 150
 	// DefaultCPUUsed is the libvpx speed level when EncoderConfig.CPUUsed
 	// is 0. Chosen with BenchmarkEncode720p (libvpx 1.12, 2.5 Mbit/s,
-	// synthetic content, CPU time per frame): speed 6: 8.2-8.8 ms,
+	// generated content, CPU time per frame): speed 6: 8.2-8.8 ms,
 	// 40.2 dB; 8: 7.3-8.1 ms, 39.2 dB; 12: 6.7 ms, 39.0 dB; 16: 6.2-6.9
 	// ms, 37.8 dB. 12 is nearly as good as 8 and faster; 16 loses 1.2 dB
 	// for little time.

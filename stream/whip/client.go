@@ -19,6 +19,8 @@ import (
 	"github.com/pion/rtcp"
 	"github.com/pion/rtp"
 	"github.com/pion/webrtc/v4"
+
+	"stopgap/stream/ingest"
 )
 
 // PublishConfig configures Publish. The zero value works on a normal network.
@@ -153,7 +155,7 @@ func (p *Publisher) setup() error {
 		return fmt.Errorf("whip: new peer connection: %w", err)
 	}
 	p.track, err = webrtc.NewTrackLocalStaticRTP(webrtc.RTPCodecCapability{
-		MimeType: webrtc.MimeTypeVP8, ClockRate: VideoClockRateHz, RTCPFeedback: vp8Feedback,
+		MimeType: webrtc.MimeTypeVP8, ClockRate: ingest.VideoClockRateHz, RTCPFeedback: vp8Feedback,
 	}, "video", "vehicle")
 	if err != nil {
 		_ = p.pc.Close()

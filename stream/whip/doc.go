@@ -31,7 +31,7 @@
 //
 // Each session uses its own pion API: a MediaEngine with only VP8 video registered (NACK and PLI feedback,
 // no RTX, no audio) and interceptors for loss repair (a NACK as soon as a gap is seen, repeated at the measured round trip,
-// capped per packet by Config.MaxNACKsPerPacket, cancelled by a keyframe request; see [RepairStats]) and
+// capped per packet by Config.MaxNACKsPerPacket, cancelled by a keyframe request; see [ingest.RepairStats]) and
 // RTCP receiver reports. Sender reports from the vehicle are kept for clock mapping
 // ([Session.SenderReport]). Keyframe requests are the relay's decision: [Session.RequestKeyframe] sends a
 // PLI, spaced by Config.MinKeyframeInterval.
@@ -57,7 +57,7 @@
 //
 // # Clocks
 //
-// Arrival times come from the injectable [Clock] (receiver clock). [SenderReport.SenderTimeUs] maps an RTP
+// Arrival times come from the injectable [Clock] (receiver clock). [ingest.SenderReport.SenderTimeUs] maps an RTP
 // timestamp to the sender's wall clock in Unix microseconds (NTP conversion per RFC 5905, 32-bit RTP wrap
 // handled), and [OffsetEstimator] tracks min(arrival - capture): clock offset plus base one-way delay,
 // which cannot be separated without synchronised clocks (see its documentation for what is reported).

@@ -12,6 +12,8 @@ import (
 
 	"github.com/pion/rtp"
 	"github.com/pion/webrtc/v4"
+
+	"stopgap/stream/ingest"
 )
 
 // connect starts a loopback server and publishes to it, returning both ends once the server session is
@@ -133,7 +135,7 @@ func TestPublishEndToEnd(t *testing.T) {
 	sr, _ := sess.SenderReport()
 	var est OffsetEstimator
 	for seq, g := range recv {
-		mapped := sr.SenderTimeUs(g.pkt.Timestamp, VideoClockRateHz)
+		mapped := sr.SenderTimeUs(g.pkt.Timestamp, ingest.VideoClockRateHz)
 		if d := mapped - sendUs[seq]; d < -5_000 || d > 5_000 {
 			t.Errorf("seq %d: mapped send time off by %d us", seq, d)
 		}

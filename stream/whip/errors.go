@@ -3,6 +3,8 @@ package whip
 import (
 	"errors"
 	"fmt"
+
+	"stopgap/stream/ingest"
 )
 
 // Errors returned by this package. Compare with errors.Is; most are wrapped with context.
@@ -20,7 +22,8 @@ var (
 
 	// ErrSessionClosed is returned by Session methods after the session ended, and by Publisher methods
 	// after Close.
-	ErrSessionClosed = errors.New("whip: session closed")
+	// It wraps ingest.ErrSessionClosed, the end of every ingest session.
+	ErrSessionClosed = fmt.Errorf("whip: session closed: %w", ingest.ErrSessionClosed)
 
 	// ErrNoTrack is returned by Session.RequestKeyframe before the vehicle's video track has arrived.
 	ErrNoTrack = errors.New("whip: no video track yet; wait for the first RTP packet")

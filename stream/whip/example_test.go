@@ -8,6 +8,7 @@ import (
 	"os"
 	"time"
 
+	"stopgap/stream/ingest"
 	"stopgap/stream/whip"
 )
 
@@ -32,7 +33,7 @@ func Example() {
 					return // whip.ErrSessionClosed once the session ended
 				}
 				if sr, ok := s.SenderReport(); ok {
-					_ = sr.SenderTimeUs(pkt.Timestamp, whip.VideoClockRateHz) // vehicle clock, Unix us
+					_ = sr.SenderTimeUs(pkt.Timestamp, ingest.VideoClockRateHz) // vehicle clock, Unix us
 				}
 				_ = arrival // receiver clock
 			}

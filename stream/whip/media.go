@@ -13,6 +13,8 @@ import (
 	"github.com/pion/rtcp"
 	"github.com/pion/rtp"
 	"github.com/pion/webrtc/v4"
+
+	"stopgap/stream/ingest"
 )
 
 // vp8Codec is the only video codec either side registers: VP8 at 90 kHz (RFC 7741) with generic NACK and
@@ -25,7 +27,7 @@ func newMediaEngine() (*webrtc.MediaEngine, error) {
 	m := &webrtc.MediaEngine{}
 	err := m.RegisterCodec(webrtc.RTPCodecParameters{
 		RTPCodecCapability: webrtc.RTPCodecCapability{
-			MimeType: webrtc.MimeTypeVP8, ClockRate: VideoClockRateHz, RTCPFeedback: vp8Feedback,
+			MimeType: webrtc.MimeTypeVP8, ClockRate: ingest.VideoClockRateHz, RTCPFeedback: vp8Feedback,
 		},
 		PayloadType: vp8PayloadType,
 	}, webrtc.RTPCodecTypeVideo)

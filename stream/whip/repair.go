@@ -7,6 +7,8 @@ import (
 
 	"github.com/pion/interceptor"
 	"github.com/pion/rtcp"
+
+	"stopgap/stream/ingest"
 )
 
 // Defaults of the loss repair (negative acknowledgements, RFC 4585 section 6.2.1).
@@ -36,29 +38,6 @@ const tailProbe = 10 * time.Millisecond
 // maxPendingRepairs bounds the sequence numbers waiting for a retransmission.
 const maxPendingRepairs = 1024
 
-// RepairStats are the counters of the loss repair of one session.
-type RepairStats struct {
-	// Gaps counts sequence numbers seen missing and asked for (each once, however often it was NACKed),
-	// including the successors of a packet without the marker bit asked for after tailProbe.
-	Gaps uint64
-	// Repaired counts missing sequence numbers that arrived later (a retransmission or a reordered packet).
-	Repaired uint64
-	// GaveUp counts missing sequence numbers no longer asked for: NACKed MaxNACKsPerPacket times without
-	// an answer, older than RepairWindow, or pushed out of the bounded list.
-	GaveUp uint64
-	// Cancelled counts missing sequence numbers dropped because a keyframe was requested (the keyframe
-	// replaces everything before it).
-	Cancelled uint64
-	// SkippedGaps counts sequence numbers never asked for: gaps larger than MaxNACKGap or after a silence
-	// longer than RepairWindow (an outage).
-	SkippedGaps uint64
-	// RTT is the smoothed round trip between a first NACK and its retransmission (RFC 6298 section 2 with
-	// Karn's rule: only packets NACKed once are sampled); before the first sample it is the ICE round trip
-	// if known, else DefaultNACKInitialRTT. RTTSamples counts the samples.
-	RTT        time.Duration
-	RTTSamples uint64
-}
-
 // pendingRepair is one missing sequence number.
 type pendingRepair struct {
 	ext       int64     // extended sequence number
@@ -87,7 +66,7 @@ type repairState struct {
 
 	srtt, rttvar time.Duration
 	iceRTT       time.Duration
-	stats        RepairStats
+	stats        ingest.RepairStats
 }
 
 // rtt returns the round trip in use.
@@ -408,7 +387,7 @@ func (r *repairer) span() time.Duration {
 }
 
 // stats returns the counters.
-func (r *repairer) stats() RepairStats {
+func (r *repairer) stats() ingest.RepairStats {
 	r.mu.Lock()
 	defer r.mu.Unlock()
 	s := r.st.stats

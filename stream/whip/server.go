@@ -23,6 +23,8 @@ import (
 	"github.com/pion/interceptor"
 	"github.com/pion/interceptor/pkg/report"
 	"github.com/pion/webrtc/v4"
+
+	"stopgap/stream/ingest"
 )
 
 // answerTimeout bounds how long a POST may spend building the answer (candidate gathering included).
@@ -377,7 +379,7 @@ func (s *Server) reserve(remote, host string) (*Session, error) {
 		counter: &rtcpCounter{},
 		repair:  newRepairer(&s.cfg),
 		rtpq:    make(chan rtpArrival, s.cfg.RTPQueue),
-		telq:    make(chan TelemetryBytes, s.cfg.TelemetryQueue),
+		telq:    make(chan ingest.TelemetryBytes, s.cfg.TelemetryQueue),
 		done:    make(chan struct{}),
 	}
 	pc, err := s.newPeerConnection(sess.counter, sess.repair)

@@ -14,69 +14,18 @@ import (
 	"github.com/pion/rtp"
 	"github.com/pion/webrtc/v4"
 
+	"stopgap/stream/ingest"
 	"stopgap/stream/rtpstats"
 )
-
-// TelemetryBytes is one telemetry message as it arrived on the data channel: raw bytes (the relay decodes
-// them) and the receiver-clock arrival time. Data is owned by the receiver of the value.
-type TelemetryBytes struct {
-	Data    []byte
-	Arrival time.Time
-}
-
-// SessionStats are the counters of one session. Loss and jitter follow RFC 3550 appendix A for the video
-// stream, computed from the packets as they leave the WebRTC stack (after NACK-driven retransmissions).
-type SessionStats struct {
-	// PacketsReceived counts RTP packets read from the track, including retransmissions and padding-only ones.
-	PacketsReceived uint64
-	// BytesReceived counts RTP payload octets (no headers, no padding), like the RTCP SR octet count.
-	BytesReceived uint64
-	// PaddingPackets counts packets with an empty payload. They are delivered too, so the consumer sees
-	// every sequence number; they carry no media.
-	PaddingPackets uint64
-	// PacketsLost is the cumulative loss of RFC 3550 A.3 (expected - received); duplicates can make it
-	// negative. A sequence number wrap is not loss.
-	PacketsLost int64
-	// HighestSeq is the extended highest sequence number received (RFC 3550 A.1).
-	HighestSeq uint32
-	// JitterRTP is the interarrival jitter of RFC 3550 A.8 in RTP timestamp units (90 kHz); Jitter is the
-	// same as a duration.
-	JitterRTP float64
-	Jitter    time.Duration
-	// PacketsDropped counts packets discarded because the RTP queue was full (the consumer fell behind).
-	PacketsDropped uint64
-	// ReadErrors counts packets the stack could not parse as RTP.
-	ReadErrors uint64
-	// NACKPackets counts RTCP NACK packets sent; NACKedPackets the sequence numbers they requested.
-	NACKPackets, NACKedPackets uint64
-	// PLIsSent counts RTCP PLIs written; PLIsSuppressed keyframe requests refused by MinKeyframeInterval.
-	PLIsSent, PLIsSuppressed uint64
-	// SenderReports counts RTCP sender reports received.
-	SenderReports uint64
-	// TelemetryMessages counts delivered telemetry messages; TelemetryDropped those discarded because the
-	// queue was full or the message exceeded MaxTelemetryBytes.
-	TelemetryMessages, TelemetryDropped uint64
-	// OtherDataChannels counts data channels with a label other than TelemetryLabel (closed on arrival).
-	OtherDataChannels uint64
-	// TelemetryOrdered and TelemetryReliable tell how the vehicle opened the telemetry channel. Telemetry
-	// wants neither: an ordered or retransmitting channel holds every message behind a lost one (head-of-
-	// line blocking), so after an outage samples arrive seconds late. Open it with
-	// {ordered: false, maxRetransmits: 0}; a warning is logged once per session otherwise.
-	TelemetryOrdered, TelemetryReliable bool
-	// RTT is the latest STUN round-trip time of the selected ICE candidate pair (ICE consent checks, every
-	// few seconds); HasRTT is false until one was measured. The receive-only session cannot measure RTT
-	// from RTCP (that would need XR DLRR from the sender).
-	RTT    time.Duration
-	HasRTT bool
-	// Repair are the counters of the loss repair (NACKs and retransmissions); see RepairStats.
-	Repair RepairStats
-}
 
 // rtpArrival is one queued packet.
 type rtpArrival struct {
 	pkt     *rtp.Packet
 	arrival time.Time
 }
+
+// The relay reads every ingest through one interface.
+var _ ingest.Session = (*Session)(nil)
 
 // Session is one vehicle's ingest session: one VP8 video track and one telemetry data channel.
 // All methods are safe for concurrent use.
@@ -93,7 +42,7 @@ type Session struct {
 	cfg     *Config
 
 	rtpq chan rtpArrival
-	telq chan TelemetryBytes
+	telq chan ingest.TelemetryBytes
 	done chan struct{}
 
 	connected  atomic.Bool
@@ -106,7 +55,7 @@ type Session struct {
 	ssrc         uint32
 	lastPLI      time.Time
 	plisRefused  uint64
-	sr           SenderReport
+	sr           ingest.SenderReport
 	srCount      uint64
 	hasSR        bool
 	rx           rtpstats.Receiver
@@ -140,7 +89,7 @@ func (s *Session) EndReason() EndReason {
 // which it returns ErrSessionClosed). The packet and its payload belong to the caller.
 //
 // Packets are queued by the session's reader goroutine, which never blocks the WebRTC stack: when the queue
-// (Config.RTPQueue) is full, the newly arrived packet is dropped and counted in SessionStats.PacketsDropped;
+// (Config.RTPQueue) is full, the newly arrived packet is dropped and counted in ingest.Stats.PacketsDropped;
 // queued packets are never evicted. Order is arrival order: late retransmissions and reordered packets
 // come out as they arrived, so the consumer must reorder by sequence number (with wrap) itself.
 func (s *Session) ReadRTP(ctx context.Context) (*rtp.Packet, time.Time, error) {
@@ -167,7 +116,7 @@ func (s *Session) ReadRTP(ctx context.Context) (*rtp.Packet, time.Time, error) {
 // Telemetry returns the channel of telemetry messages from the data channel labelled TelemetryLabel. It is
 // closed when the session ends. When it is full (Config.TelemetryQueue), new messages are dropped and
 // counted; the data channel is never blocked.
-func (s *Session) Telemetry() <-chan TelemetryBytes { return s.telq }
+func (s *Session) Telemetry() <-chan ingest.TelemetryBytes { return s.telq }
 
 // RequestKeyframe sends an RTCP Picture Loss Indication (RFC 4585 section 6.3.1) for the video track's SSRC
 // now. It returns ErrNoTrack before the first video packet, ErrKeyframeRateLimited if the previous PLI was
@@ -204,30 +153,30 @@ func (s *Session) RequestKeyframe() error {
 func (s *Session) RepairSpan() time.Duration { return s.repair.span() }
 
 // SenderReport returns the latest RTCP sender report for the video stream (NTP <-> RTP timestamp mapping,
-// RFC 3550 section 6.4.1); ok is false until one arrived. Use SenderReport.SenderTimeUs with
-// VideoClockRateHz to map a packet's RTP timestamp to the vehicle's wall clock.
+// RFC 3550 section 6.4.1); ok is false until one arrived. Use ingest.SenderReport.SenderTimeUs with
+// ingest.VideoClockRateHz to map a packet's RTP timestamp to the vehicle's wall clock.
 //
 // With a pion sender (Publish), the report pairs the sender's clock with the timestamp of the latest packet
 // advanced by the time since that timestamp was first sent: mapped times are therefore send times of the
 // first packet of each frame, i.e. capture time plus the vehicle's encode and queueing delay.
-func (s *Session) SenderReport() (sr SenderReport, ok bool) {
+func (s *Session) SenderReport() (sr ingest.SenderReport, ok bool) {
 	s.mu.Lock()
 	defer s.mu.Unlock()
 	return s.sr, s.hasSR
 }
 
-// Stats returns the session's counters (see SessionStats). It queries the ICE agent for RTT, so call it at
+// Stats returns the session's counters (see ingest.Stats). It queries the ICE agent for RTT, so call it at
 // a human rate (e.g. once per second), not per packet.
-func (s *Session) Stats() SessionStats {
+func (s *Session) Stats() ingest.Stats {
 	s.mu.Lock()
-	st := SessionStats{
+	st := ingest.Stats{
 		PacketsReceived:   s.rx.Received(),
 		BytesReceived:     s.rx.Bytes(),
 		PaddingPackets:    s.rx.Padding(),
 		PacketsLost:       s.rx.Lost(),
 		HighestSeq:        s.rx.ExtendedMax(),
 		JitterRTP:         s.rx.JitterRTP(),
-		Jitter:            time.Duration(s.rx.JitterRTP() / VideoClockRateHz * float64(time.Second)),
+		Jitter:            time.Duration(s.rx.JitterRTP() / ingest.VideoClockRateHz * float64(time.Second)),
 		ReadErrors:        s.readErrors,
 		PLIsSuppressed:    s.plisRefused,
 		SenderReports:     s.srCount,
@@ -399,7 +348,7 @@ func (s *Session) readRTCP(recv *webrtc.RTPReceiver) {
 			}
 			s.mu.Lock()
 			if sr.SSRC == s.ssrc {
-				s.sr = SenderReport{SSRC: sr.SSRC, NTPTime: sr.NTPTime, RTPTime: sr.RTPTime,
+				s.sr = ingest.SenderReport{SSRC: sr.SSRC, NTPTime: sr.NTPTime, RTPTime: sr.RTPTime,
 					PacketCount: sr.PacketCount, OctetCount: sr.OctetCount, Arrival: now}
 				s.hasSR = true
 				s.srCount++
@@ -441,7 +390,7 @@ func (s *Session) onDataChannel(dc *webrtc.DataChannel) {
 		}
 		// msg.Data is a fresh copy made by the stack for each message, so it can be handed on.
 		select {
-		case s.telq <- TelemetryBytes{Data: msg.Data, Arrival: now}:
+		case s.telq <- ingest.TelemetryBytes{Data: msg.Data, Arrival: now}:
 			s.telMessages++
 		default:
 			s.telDropped++

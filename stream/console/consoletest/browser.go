@@ -243,7 +243,7 @@ func (b *Browser) Attr(name string) (string, error) {
 	return *v, nil
 }
 
-// State returns the displayed state: LIVE, PREDICTED, STALE or NOSIGNAL.
+// State returns the displayed state: LIVE, PREDICTED, STALE or UNKNOWN.
 func (b *Browser) State() (string, error) { return b.Attr("data-state") }
 
 // WaitAttr polls every 20 ms until <body>'s attribute equals want. The
@@ -283,7 +283,7 @@ func (b *Browser) WaitFunc(cond func() (ok bool, seen string, err error), what s
 }
 
 // StateChange is one entry of the page's window.__stateLog: the displayed
-// state changed to State (reason given for NOSIGNAL) at TMs milliseconds of
+// state changed to State (reason given for UNKNOWN) at TMs milliseconds of
 // the page clock (performance.now()).
 type StateChange struct {
 	State  string  `json:"state"`
@@ -337,15 +337,15 @@ func (b *Browser) Close() error {
 	return fmt.Errorf("consoletest: remove %s: %w", b.userDir, err)
 }
 
-// WithoutStalls returns the states of log with the NO SIGNAL entries that a
+// WithoutStalls returns the states of log with the STATE UNKNOWN entries that a
 // stall caused (reason "meta-silent" or "video-frozen", not the first
 // entry) removed and repeated states merged, plus the removed entries. A
 // loaded machine can hold up frames for more than 500 ms, and the page then
-// rightly shows NO SIGNAL; tests that check the order of the relay's states
+// rightly shows STATE UNKNOWN; tests that check the order of the relay's states
 // use this and bound the number of stalls separately.
 func WithoutStalls(log []StateChange) (states []string, stalls []StateChange) {
 	for i, c := range log {
-		if i > 0 && c.State == "NOSIGNAL" && (c.Reason == "meta-silent" || c.Reason == "video-frozen") {
+		if i > 0 && c.State == "UNKNOWN" && (c.Reason == "meta-silent" || c.Reason == "video-frozen") {
 			stalls = append(stalls, c)
 			continue
 		}

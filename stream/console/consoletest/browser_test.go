@@ -12,15 +12,15 @@ func TestWithoutStalls(t *testing.T) {
 		want       []string
 		wantStalls int
 	}{
-		{"clean", []StateChange{{State: "NOSIGNAL", Reason: "connecting"}, {State: "LIVE"}, {State: "PREDICTED"}},
-			[]string{"NOSIGNAL", "LIVE", "PREDICTED"}, 0},
-		{"stall inside a state merges", []StateChange{{State: "NOSIGNAL", Reason: "connecting"}, {State: "LIVE"},
-			{State: "NOSIGNAL", Reason: "video-frozen"}, {State: "LIVE"}, {State: "STALE"}},
-			[]string{"NOSIGNAL", "LIVE", "STALE"}, 1},
-		{"stall across a change", []StateChange{{State: "LIVE"}, {State: "NOSIGNAL", Reason: "meta-silent"}, {State: "PREDICTED"}},
+		{"clean", []StateChange{{State: "UNKNOWN", Reason: "connecting"}, {State: "LIVE"}, {State: "PREDICTED"}},
+			[]string{"UNKNOWN", "LIVE", "PREDICTED"}, 0},
+		{"stall inside a state merges", []StateChange{{State: "UNKNOWN", Reason: "connecting"}, {State: "LIVE"},
+			{State: "UNKNOWN", Reason: "video-frozen"}, {State: "LIVE"}, {State: "STALE"}},
+			[]string{"UNKNOWN", "LIVE", "STALE"}, 1},
+		{"stall across a change", []StateChange{{State: "LIVE"}, {State: "UNKNOWN", Reason: "meta-silent"}, {State: "PREDICTED"}},
 			[]string{"LIVE", "PREDICTED"}, 1},
-		{"other NOSIGNAL reasons stay", []StateChange{{State: "LIVE"}, {State: "NOSIGNAL", Reason: "bad-state"}, {State: "LIVE"}},
-			[]string{"LIVE", "NOSIGNAL", "LIVE"}, 0},
+		{"other UNKNOWN reasons stay", []StateChange{{State: "LIVE"}, {State: "UNKNOWN", Reason: "bad-state"}, {State: "LIVE"}},
+			[]string{"LIVE", "UNKNOWN", "LIVE"}, 0},
 	}
 	for _, tc := range cases {
 		t.Run(tc.name, func(t *testing.T) {

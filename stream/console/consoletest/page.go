@@ -3,10 +3,9 @@ package consoletest
 import (
 	"fmt"
 	"strings"
-)
 
-// CautionPhrases must all appear in the page's safety caution.
-var CautionPhrases = []string{"SAFETY CAUTION", "static", "pedestrian", "braking", "not", "local regulations", "licensed"}
+	"stopgap/vocab"
+)
 
 // Box is an element's layout box in CSS pixels, with its computed
 // visibility.
@@ -44,7 +43,7 @@ func (b *Browser) ElementBox(id string) (Box, error) {
 
 // CheckCautionVisible returns an error unless the safety caution (#caution)
 // is displayed, opaque, uncovered, entirely inside the viewport and says
-// every phrase of CautionPhrases.
+// the shared caution of package vocab, word for word.
 func (b *Browser) CheckCautionVisible() error {
 	box, err := b.ElementBox("caution")
 	if err != nil {
@@ -60,10 +59,8 @@ func (b *Browser) CheckCautionVisible() error {
 	case !box.OnTop:
 		return fmt.Errorf("consoletest: something covers the caution")
 	}
-	for _, p := range CautionPhrases {
-		if !strings.Contains(box.Text, p) {
-			return fmt.Errorf("consoletest: caution text lacks %q: %q", p, box.Text)
-		}
+	if got, want := strings.Join(strings.Fields(box.Text), " "), vocab.CautionTitle+" "+vocab.Caution; got != want {
+		return fmt.Errorf("consoletest: caution text %q, want the shared caution %q", got, want)
 	}
 	return nil
 }

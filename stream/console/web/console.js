@@ -3,14 +3,14 @@
 // Receives the relay's output over WebRTC (one VP8 video track, one
 // pre-negotiated data channel "meta", id 0, unordered, no retransmissions)
 // and mirrors each frame's state in a banner and a coloured frame. It shows
-// NO SIGNAL / UNKNOWN itself when status messages stop for more than
+// STATE UNKNOWN itself when status messages stop for more than
 // META_SILENCE_MS or the picture stops changing for more than
 // VIDEO_FREEZE_MS, so a frozen picture never looks live.
 //
 // The bearer token comes from the URL fragment (#token=...), is kept in
 // sessionStorage and removed from the address bar.
 //
-// For tests: <body data-state="LIVE|PREDICTED|STALE|NOSIGNAL" data-reason=...>
+// For tests: <body data-state="LIVE|PREDICTED|STALE|UNKNOWN" data-reason=...>
 // and window.__stateLog, one {state, reason, t_ms} entry per change of the
 // displayed state.
 "use strict";
@@ -84,7 +84,7 @@
   function evaluate() {
     const now = performance.now();
     const metaAge = now - lastMetaAt;
-    let state = "NOSIGNAL";
+    let state = "UNKNOWN";
     let reason = "";
     if (!last) {
       reason = (pc && pc.connectionState === "connected") ? "no-status" : "connecting";
@@ -100,6 +100,23 @@
     show(state, reason, now, metaAge);
   }
 
+  // staleWhy says why the relay marked a frame STALE (meta.why, the words
+  // of predictor.StaleReason).
+  function staleWhy(m) {
+    switch (m && m.why) {
+      case "low-confidence":
+        return "confidence " + fix(m.confidence, 2) + " under the cutoff " + fix(m.cutoff, 2);
+      case "age-over-cap":
+        return "picture age over the cap of " + int(m.max_age_ms) + " ms";
+      case "no-motion":
+        return "no motion data from the vehicle";
+      case "no-picture":
+        return "no real picture received yet";
+      default:
+        return "reason not given";
+    }
+  }
+
   function show(state, reason, now, metaAge) {
     if (state !== shown) {
       shown = state;
@@ -109,22 +126,23 @@
     if (body.dataset.reason !== reason) body.dataset.reason = reason;
     if (body.dataset.videoFrames !== String(videoFrames)) body.dataset.videoFrames = String(videoFrames);
     const age = last ? int(last.age_ms) : "—";
+    const picAge = "picture age " + age + " ms";
     let title, detail;
     switch (state) {
       case "LIVE":
         title = "LIVE";
-        detail = "real picture, " + age + " ms old" + (videoFrames === 0 ? " (no picture decoded yet)" : "");
+        detail = "real picture, " + picAge + (videoFrames === 0 ? " (no picture decoded yet)" : "");
         break;
       case "PREDICTED":
         title = "PREDICTED";
-        detail = "— synthetic image, " + age + " ms since last real frame";
+        detail = "— synthetic picture, " + picAge + "; moving objects not shown";
         break;
       case "STALE":
         title = "STALE";
-        detail = "— picture is " + age + " ms old, do not rely on it";
+        detail = "— " + picAge + "; " + staleWhy(last);
         break;
       default:
-        title = "NO SIGNAL / UNKNOWN";
+        title = "STATE UNKNOWN";
         switch (reason) {
           case "meta-silent":
             detail = "— no status from the relay for " + int(metaAge) + " ms; treat the picture as unknown";
@@ -144,10 +162,12 @@
     }
     setText("banner-title", title);
     setText("banner-detail", detail);
-    setText("v-state", state === "NOSIGNAL" ? "NO SIGNAL" : state);
+    setText("v-state", state === "UNKNOWN" ? "STATE UNKNOWN" : state);
+    setText("v-why", state === "STALE" ? staleWhy(last) : "—");
     if (last) {
       // Without current status the real picture is at least this old.
       setText("v-age", reason === "meta-silent" ? "≥ " + int(last.age_ms + metaAge) : int(last.age_ms));
+      setText("v-maxage", int(last.max_age_ms));
     }
     setText("v-msgage", isFinite(metaAge) ? int(metaAge) : "—");
   }

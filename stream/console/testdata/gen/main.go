@@ -1,6 +1,6 @@
 //go:build ignore
 
-// Command gen writes a small synthetic Y4M clip (320x180, 30 frames, 30 fps:
+// Command gen writes a small generated Y4M clip (320x180, 30 frames, 30 fps:
 // a sky, a road with a moving dashed centre line and a frame-number bar) to
 // stdout. It is encoded to testdata/drive320.ivf with Debian's vpxenc
 // (package vpx-tools, libvpx 1.12):

@@ -1,4 +1,9 @@
-package bench
+// Package lossmodel simulates which video frames a link loses and how late
+// the others arrive: the Gilbert-Elliott two-state loss model with a fixed
+// delay and uniform jitter. The replay (stopgap/bench) applies it per
+// frame, the simulated vehicle (stopgap/stream/simvehicle) per RTP packet.
+// It needs no cgo.
+package lossmodel
 
 import (
 	"fmt"
@@ -8,49 +13,53 @@ import (
 	"strings"
 )
 
-// LossModel selects how the simulated link drops frames. The zero value
-// is LossModelInvalid and is rejected by LossConfig.Validate.
-type LossModel int
+// Model selects how the simulated link drops frames. The zero value
+// is Invalid and is rejected by Config.Validate.
+type Model int
 
 const (
-	// LossModelInvalid is the zero value; it is never valid.
-	LossModelInvalid LossModel = iota
-	// LossModelNone drops nothing; delays and jitter still apply.
-	LossModelNone
-	// LossModelGilbertElliott is the two-state Markov loss model of
-	// Gilbert (1960) and Elliott (1963); see LossConfig.
-	LossModelGilbertElliott
+	// Invalid is the zero value; it is never valid.
+	Invalid Model = iota
+	// None drops nothing; delays and jitter still apply.
+	None
+	// GilbertElliott is the two-state Markov loss model of
+	// Gilbert (1960) and Elliott (1963); see Config.
+	GilbertElliott
+	// Recorded names arrivals read from a recorded arrivals file rather
+	// than simulated: a replay's summary carries it so that the report
+	// says where its losses came from. Simulate refuses it.
+	Recorded
 )
 
-var lossModelNames = [...]string{"invalid", "none", "gilbert-elliott"}
+var modelNames = [...]string{"invalid", "none", "gilbert-elliott", "recorded"}
 
-// String returns "none", "gilbert-elliott", or "invalid" (also for
-// out-of-range values).
-func (m LossModel) String() string {
-	if m < 0 || int(m) >= len(lossModelNames) {
+// String returns "none", "gilbert-elliott", "recorded", or "invalid"
+// (also for out-of-range values).
+func (m Model) String() string {
+	if m < 0 || int(m) >= len(modelNames) {
 		return "invalid"
 	}
-	return lossModelNames[m]
+	return modelNames[m]
 }
 
-// ParseLossModel is the inverse of String for valid models; it accepts
+// ParseModel is the inverse of String for valid models; it accepts
 // any letter case.
-func ParseLossModel(s string) (LossModel, error) {
-	for i := LossModelNone; int(i) < len(lossModelNames); i++ {
-		if strings.EqualFold(s, lossModelNames[i]) {
+func ParseModel(s string) (Model, error) {
+	for i := None; int(i) < len(modelNames); i++ {
+		if strings.EqualFold(s, modelNames[i]) {
 			return i, nil
 		}
 	}
-	return LossModelInvalid, fmt.Errorf("%w: unknown loss model %q; use %q or %q",
-		ErrLossConfig, s, LossModelNone.String(), LossModelGilbertElliott.String())
+	return Invalid, fmt.Errorf("%w: unknown loss model %q; use %q, %q or %q",
+		ErrConfig, s, None.String(), GilbertElliott.String(), Recorded.String())
 }
 
 // MarshalText implements encoding.TextMarshaler (used by JSON).
-func (m LossModel) MarshalText() ([]byte, error) { return []byte(m.String()), nil }
+func (m Model) MarshalText() ([]byte, error) { return []byte(m.String()), nil }
 
-// UnmarshalText implements encoding.TextUnmarshaler via ParseLossModel.
-func (m *LossModel) UnmarshalText(b []byte) error {
-	v, err := ParseLossModel(string(b))
+// UnmarshalText implements encoding.TextUnmarshaler via ParseModel.
+func (m *Model) UnmarshalText(b []byte) error {
+	v, err := ParseModel(string(b))
 	if err != nil {
 		return err
 	}
@@ -62,9 +71,9 @@ func (m *LossModel) UnmarshalText(b []byte) error {
 // int64, so "arrived by now" is simply ArrivalUs <= nowUs.
 const NeverArrivesUs int64 = math.MaxInt64
 
-// LossConfig describes a simulated one-way video link: which frames are
+// Config describes a simulated one-way video link: which frames are
 // lost and how late the others arrive. The zero value is invalid (Model
-// unset); LossConfig{Model: LossModelNone} is a perfect link.
+// unset); Config{Model: None} is a perfect link.
 //
 // Gilbert-Elliott model. The link is in state Good or Bad for each frame
 // and steps once per frame period T. A frame sent in Good is lost with
@@ -98,14 +107,14 @@ const NeverArrivesUs int64 = math.MaxInt64
 // for the loss pattern and for the jitter, so changing the delay settings
 // never changes which frames are lost. Equal configs and inputs give
 // equal outputs.
-type LossConfig struct {
+type Config struct {
 	// Model selects the loss model.
-	Model LossModel `json:"model"`
+	Model Model `json:"model"`
 	// LossRate is the long-run fraction of frames lost, in [0, 1).
-	// Must be 0 for LossModelNone.
+	// Must be 0 for None.
 	LossRate float64 `json:"loss_rate"`
 	// BurstMs is the mean duration of the Bad state in milliseconds
-	// (> 0 for LossModelGilbertElliott; ignored by LossModelNone).
+	// (> 0 for GilbertElliott; ignored by None).
 	BurstMs float64 `json:"burst_ms"`
 	// GoodLossProb is k, the loss probability of a frame sent in the Good
 	// state, in [0, LossRate]. Zero (the default) for the simple Gilbert
@@ -137,11 +146,11 @@ const (
 	jitterStream = 0x6a697472
 )
 
-// Validate checks every field and returns a *LossParamError (wrapping
-// ErrLossConfig) for the first one out of range.
-func (c LossConfig) Validate() error {
+// Validate checks every field and returns a *ParamError (wrapping
+// ErrConfig) for the first one out of range.
+func (c Config) Validate() error {
 	bad := func(field string, v float64, reason string) error {
-		return &LossParamError{Field: field, Value: v, Reason: reason}
+		return &ParamError{Field: field, Value: v, Reason: reason}
 	}
 	for _, f := range []struct {
 		name string
@@ -164,12 +173,14 @@ func (c LossConfig) Validate() error {
 		return bad("JitterMs", c.JitterMs, "must be in [0, 3600000]")
 	}
 	switch c.Model {
-	case LossModelNone:
+	case None:
 		if c.LossRate != 0 {
 			return bad("LossRate", c.LossRate, `must be 0 with model "none"; choose "gilbert-elliott" to drop frames`)
 		}
 		return nil
-	case LossModelGilbertElliott:
+	case GilbertElliott:
+	case Recorded:
+		return bad("Model", float64(c.Model), `"recorded" arrivals are read from an arrivals file, not simulated; choose "none" or "gilbert-elliott"`)
 	default:
 		return bad("Model", float64(c.Model), `unset or unknown; choose "none" or "gilbert-elliott"`)
 	}
@@ -188,18 +199,18 @@ func (c LossConfig) Validate() error {
 
 // Transitions returns the per-frame transition probabilities Good->Bad
 // and Bad->Good of the Gilbert-Elliott chain for the frame period
-// periodUs (see LossConfig for the formulas). For LossModelNone both are
+// periodUs (see Config for the formulas). For None both are
 // 0. It fails if the config is invalid, periodUs <= 0, or LossRate is too
 // high for BurstMs at this period (p_GB > 1).
-func (c LossConfig) Transitions(periodUs int64) (pGoodBad, pBadGood float64, err error) {
+func (c Config) Transitions(periodUs int64) (pGoodBad, pBadGood float64, err error) {
 	if err := c.Validate(); err != nil {
 		return 0, 0, err
 	}
-	if c.Model == LossModelNone {
+	if c.Model == None {
 		return 0, 0, nil
 	}
 	if periodUs <= 0 {
-		return 0, 0, fmt.Errorf("%w: frame period %d us must be > 0", ErrLossConfig, periodUs)
+		return 0, 0, fmt.Errorf("%w: frame period %d us must be > 0", ErrConfig, periodUs)
 	}
 	k, h := c.GoodLossProb, 1-c.BadDeliverProb
 	piB := (c.LossRate - k) / (h - k)
@@ -207,14 +218,14 @@ func (c LossConfig) Transitions(periodUs int64) (pGoodBad, pBadGood float64, err
 	pGoodBad = pBadGood * piB / (1 - piB)
 	if pGoodBad > 1 {
 		maxRate := k + (h-k)/(1+pBadGood)
-		return 0, 0, &LossParamError{Field: "LossRate", Value: c.LossRate,
+		return 0, 0, &ParamError{Field: "LossRate", Value: c.LossRate,
 			Reason: fmt.Sprintf("too high for BurstMs %g at a %.3g ms frame period (at most %.4g); raise BurstMs or lower LossRate",
 				c.BurstMs, float64(periodUs)/1000, maxRate)}
 	}
 	return pGoodBad, pBadGood, nil
 }
 
-// Arrivals is the result of LossConfig.Simulate.
+// Arrivals is the result of Config.Simulate.
 type Arrivals struct {
 	// ArrivalUs holds one arrival time per frame on the capture clock, or
 	// NeverArrivesUs for a lost frame. It aliases the dst slice passed to
@@ -236,7 +247,7 @@ type Arrivals struct {
 // written into dst (reused if its capacity suffices, grown otherwise) and
 // returned in Arrivals.ArrivalUs; the caller owns dst. Simulate does not
 // modify captureUs.
-func (c LossConfig) Simulate(dst []int64, captureUs []int64) (Arrivals, error) {
+func (c Config) Simulate(dst []int64, captureUs []int64) (Arrivals, error) {
 	if err := c.Validate(); err != nil {
 		return Arrivals{}, err
 	}
@@ -255,7 +266,7 @@ func (c LossConfig) Simulate(dst []int64, captureUs []int64) (Arrivals, error) {
 	if out.PeriodUs == 0 && len(captureUs) >= 2 {
 		out.PeriodUs = medianInterval(captureUs)
 	}
-	if c.Model == LossModelGilbertElliott && len(captureUs) >= 2 {
+	if c.Model == GilbertElliott && len(captureUs) >= 2 {
 		var err error
 		out.PGoodBad, out.PBadGood, err = c.Transitions(out.PeriodUs)
 		if err != nil {
@@ -271,7 +282,7 @@ func (c LossConfig) Simulate(dst []int64, captureUs []int64) (Arrivals, error) {
 
 	k, h := c.GoodLossProb, 1-c.BadDeliverProb
 	var piB float64
-	if c.Model == LossModelGilbertElliott {
+	if c.Model == GilbertElliott {
 		piB = (c.LossRate - k) / (h - k)
 	}
 	bad := false
@@ -281,7 +292,7 @@ func (c LossConfig) Simulate(dst []int64, captureUs []int64) (Arrivals, error) {
 		uState, uLoss := lossRng.Float64(), lossRng.Float64()
 		uJit := jitRng.Float64()
 		lost := false
-		if c.Model == LossModelGilbertElliott {
+		if c.Model == GilbertElliott {
 			switch {
 			case i == 0:
 				bad = uState < piB

@@ -1,4 +1,4 @@
-package bench
+package lossmodel
 
 import (
 	"encoding/json"
@@ -37,14 +37,14 @@ func TestGilbertElliottStatistics(t *testing.T) {
 	const n = 200_000
 	tests := []struct {
 		name     string
-		cfg      LossConfig
+		cfg      Config
 		periodUs int64
 	}{
-		{"10% 100 ms at 30 fps", LossConfig{Model: LossModelGilbertElliott, LossRate: 0.10, BurstMs: 100, Seed: 1}, 33_333},
-		{"30% 50 ms at 30 fps", LossConfig{Model: LossModelGilbertElliott, LossRate: 0.30, BurstMs: 50, Seed: 2}, 33_333},
-		{"5% 500 ms at 25 fps", LossConfig{Model: LossModelGilbertElliott, LossRate: 0.05, BurstMs: 500, Seed: 3}, 40_000},
-		{"2% bursts shorter than a frame", LossConfig{Model: LossModelGilbertElliott, LossRate: 0.02, BurstMs: 10, Seed: 4}, 33_333},
-		{"general k=0.01 h=0.8", LossConfig{Model: LossModelGilbertElliott, LossRate: 0.15, BurstMs: 200,
+		{"10% 100 ms at 30 fps", Config{Model: GilbertElliott, LossRate: 0.10, BurstMs: 100, Seed: 1}, 33_333},
+		{"30% 50 ms at 30 fps", Config{Model: GilbertElliott, LossRate: 0.30, BurstMs: 50, Seed: 2}, 33_333},
+		{"5% 500 ms at 25 fps", Config{Model: GilbertElliott, LossRate: 0.05, BurstMs: 500, Seed: 3}, 40_000},
+		{"2% bursts shorter than a frame", Config{Model: GilbertElliott, LossRate: 0.02, BurstMs: 10, Seed: 4}, 33_333},
+		{"general k=0.01 h=0.8", Config{Model: GilbertElliott, LossRate: 0.15, BurstMs: 200,
 			GoodLossProb: 0.01, BadDeliverProb: 0.2, Seed: 5}, 33_333},
 	}
 	for _, tt := range tests {
@@ -103,17 +103,17 @@ func TestGilbertElliottStatistics(t *testing.T) {
 func TestTransitionsWorkedValues(t *testing.T) {
 	tests := []struct {
 		name         string
-		cfg          LossConfig
+		cfg          Config
 		periodUs     int64
 		wantGB, want float64
 	}{
-		{"simple", LossConfig{Model: LossModelGilbertElliott, LossRate: 0.1, BurstMs: 100}, 100_000 / 3, 1.0 / 27, 1.0 / 3},
-		{"clamped", LossConfig{Model: LossModelGilbertElliott, LossRate: 0.2, BurstMs: 10}, 40_000, 0.25, 1},
+		{"simple", Config{Model: GilbertElliott, LossRate: 0.1, BurstMs: 100}, 100_000 / 3, 1.0 / 27, 1.0 / 3},
+		{"clamped", Config{Model: GilbertElliott, LossRate: 0.2, BurstMs: 10}, 40_000, 0.25, 1},
 		// pi_B = (0.15-0.01)/(0.8-0.01) = 0.177215; p_BG = 0.2;
 		// p_GB = 0.2 * 0.177215/0.822785 = 0.043077
-		{"general", LossConfig{Model: LossModelGilbertElliott, LossRate: 0.15, BurstMs: 200, GoodLossProb: 0.01, BadDeliverProb: 0.2}, 40_000,
+		{"general", Config{Model: GilbertElliott, LossRate: 0.15, BurstMs: 200, GoodLossProb: 0.01, BadDeliverProb: 0.2}, 40_000,
 			0.2 * (0.14 / 0.79) / (1 - 0.14/0.79), 0.2},
-		{"none", LossConfig{Model: LossModelNone}, 40_000, 0, 0},
+		{"none", Config{Model: None}, 40_000, 0, 0},
 	}
 	for _, tt := range tests {
 		t.Run(tt.name, func(t *testing.T) {
@@ -130,7 +130,7 @@ func TestTransitionsWorkedValues(t *testing.T) {
 
 func TestSimulateDeterministic(t *testing.T) {
 	caps := frameTimes(5000, 0, 33_333)
-	cfg := LossConfig{Model: LossModelGilbertElliott, LossRate: 0.2, BurstMs: 150, JitterMs: 20, ExtraDelayMs: 40, Seed: 42}
+	cfg := Config{Model: GilbertElliott, LossRate: 0.2, BurstMs: 150, JitterMs: 20, ExtraDelayMs: 40, Seed: 42}
 	a, err := cfg.Simulate(nil, caps)
 	if err != nil {
 		t.Fatal(err)
@@ -172,7 +172,7 @@ func TestSimulateDeterministic(t *testing.T) {
 func TestSimulateDelays(t *testing.T) {
 	const n = 20_000
 	caps := frameTimes(n, 500, 20_000)
-	cfg := LossConfig{Model: LossModelNone, ExtraDelayMs: 80, JitterMs: 30, Seed: 9}
+	cfg := Config{Model: None, ExtraDelayMs: 80, JitterMs: 30, Seed: 9}
 	r, err := cfg.Simulate(nil, caps)
 	if err != nil {
 		t.Fatal(err)
@@ -195,41 +195,41 @@ func TestSimulateDelays(t *testing.T) {
 	}
 }
 
-func TestLossConfigErrors(t *testing.T) {
-	ge := LossConfig{Model: LossModelGilbertElliott, LossRate: 0.1, BurstMs: 100}
-	mod := func(f func(*LossConfig)) LossConfig { c := ge; f(&c); return c }
+func TestConfigErrors(t *testing.T) {
+	ge := Config{Model: GilbertElliott, LossRate: 0.1, BurstMs: 100}
+	mod := func(f func(*Config)) Config { c := ge; f(&c); return c }
 	tests := []struct {
 		name  string
-		cfg   LossConfig
+		cfg   Config
 		field string
 	}{
-		{"zero value", LossConfig{}, "Model"},
-		{"unknown model", LossConfig{Model: 7}, "Model"},
-		{"loss rate 1", mod(func(c *LossConfig) { c.LossRate = 1 }), "LossRate"},
-		{"negative loss", mod(func(c *LossConfig) { c.LossRate = -0.1 }), "LossRate"},
-		{"NaN loss", mod(func(c *LossConfig) { c.LossRate = math.NaN() }), "LossRate"},
-		{"zero burst", mod(func(c *LossConfig) { c.BurstMs = 0 }), "BurstMs"},
-		{"Inf burst", mod(func(c *LossConfig) { c.BurstMs = math.Inf(1) }), "BurstMs"},
-		{"negative jitter", mod(func(c *LossConfig) { c.JitterMs = -1 }), "JitterMs"},
-		{"negative delay", mod(func(c *LossConfig) { c.ExtraDelayMs = -5 }), "ExtraDelayMs"},
-		{"negative period", mod(func(c *LossConfig) { c.FramePeriodMs = -5 }), "FramePeriodMs"},
-		{"huge delay", mod(func(c *LossConfig) { c.ExtraDelayMs = 1e300 }), "ExtraDelayMs"},
-		{"huge jitter", mod(func(c *LossConfig) { c.JitterMs = 4e6 }), "JitterMs"},
-		{"good loss above rate", mod(func(c *LossConfig) { c.GoodLossProb = 0.2 }), "GoodLossProb"},
-		{"bad state delivers too much", mod(func(c *LossConfig) { c.BadDeliverProb = 0.95 }), "BadDeliverProb"},
-		{"loss with model none", LossConfig{Model: LossModelNone, LossRate: 0.1}, "LossRate"},
-		{"rate too high for burst", mod(func(c *LossConfig) { c.LossRate = 0.9; c.BurstMs = 40; c.FramePeriodMs = 40 }), "LossRate"},
+		{"zero value", Config{}, "Model"},
+		{"unknown model", Config{Model: 7}, "Model"},
+		{"loss rate 1", mod(func(c *Config) { c.LossRate = 1 }), "LossRate"},
+		{"negative loss", mod(func(c *Config) { c.LossRate = -0.1 }), "LossRate"},
+		{"NaN loss", mod(func(c *Config) { c.LossRate = math.NaN() }), "LossRate"},
+		{"zero burst", mod(func(c *Config) { c.BurstMs = 0 }), "BurstMs"},
+		{"Inf burst", mod(func(c *Config) { c.BurstMs = math.Inf(1) }), "BurstMs"},
+		{"negative jitter", mod(func(c *Config) { c.JitterMs = -1 }), "JitterMs"},
+		{"negative delay", mod(func(c *Config) { c.ExtraDelayMs = -5 }), "ExtraDelayMs"},
+		{"negative period", mod(func(c *Config) { c.FramePeriodMs = -5 }), "FramePeriodMs"},
+		{"huge delay", mod(func(c *Config) { c.ExtraDelayMs = 1e300 }), "ExtraDelayMs"},
+		{"huge jitter", mod(func(c *Config) { c.JitterMs = 4e6 }), "JitterMs"},
+		{"good loss above rate", mod(func(c *Config) { c.GoodLossProb = 0.2 }), "GoodLossProb"},
+		{"bad state delivers too much", mod(func(c *Config) { c.BadDeliverProb = 0.95 }), "BadDeliverProb"},
+		{"loss with model none", Config{Model: None, LossRate: 0.1}, "LossRate"},
+		{"rate too high for burst", mod(func(c *Config) { c.LossRate = 0.9; c.BurstMs = 40; c.FramePeriodMs = 40 }), "LossRate"},
 	}
 	caps := frameTimes(10, 0, 40_000)
 	for _, tt := range tests {
 		t.Run(tt.name, func(t *testing.T) {
 			_, err := tt.cfg.Simulate(nil, caps)
-			if !errors.Is(err, ErrLossConfig) {
-				t.Fatalf("err = %v, want ErrLossConfig", err)
+			if !errors.Is(err, ErrConfig) {
+				t.Fatalf("err = %v, want ErrConfig", err)
 			}
-			var pe *LossParamError
+			var pe *ParamError
 			if !errors.As(err, &pe) || pe.Field != tt.field {
-				t.Errorf("err = %v, want a LossParamError for %s", err, tt.field)
+				t.Errorf("err = %v, want a ParamError for %s", err, tt.field)
 			}
 		})
 	}
@@ -246,21 +246,21 @@ func TestLossConfigErrors(t *testing.T) {
 		}
 	})
 	t.Run("zero period", func(t *testing.T) {
-		if _, _, err := ge.Transitions(0); !errors.Is(err, ErrLossConfig) {
-			t.Errorf("err = %v, want ErrLossConfig", err)
+		if _, _, err := ge.Transitions(0); !errors.Is(err, ErrConfig) {
+			t.Errorf("err = %v, want ErrConfig", err)
 		}
 	})
 }
 
 func TestSimulateEdgeCases(t *testing.T) {
-	ge := LossConfig{Model: LossModelGilbertElliott, LossRate: 0.5, BurstMs: 100, Seed: 3}
+	ge := Config{Model: GilbertElliott, LossRate: 0.5, BurstMs: 100, Seed: 3}
 	for _, caps := range [][]int64{nil, {123}} {
 		r, err := ge.Simulate(nil, caps)
 		if err != nil || len(r.ArrivalUs) != len(caps) {
 			t.Errorf("%d frames: %v, %d arrivals", len(caps), err, len(r.ArrivalUs))
 		}
 	}
-	zero := LossConfig{Model: LossModelGilbertElliott, LossRate: 0, BurstMs: 100}
+	zero := Config{Model: GilbertElliott, LossRate: 0, BurstMs: 100}
 	r, err := zero.Simulate(nil, frameTimes(1000, 0, 10_000))
 	if err != nil || r.Lost != 0 {
 		t.Errorf("LossRate 0: lost %d, err %v", r.Lost, err)
@@ -272,42 +272,42 @@ func TestSimulateEdgeCases(t *testing.T) {
 	}
 }
 
-func TestLossModelText(t *testing.T) {
-	for _, m := range []LossModel{LossModelNone, LossModelGilbertElliott} {
-		got, err := ParseLossModel(m.String())
+func TestModelText(t *testing.T) {
+	for _, m := range []Model{None, GilbertElliott} {
+		got, err := ParseModel(m.String())
 		if err != nil || got != m {
-			t.Errorf("ParseLossModel(%q) = %v, %v", m.String(), got, err)
+			t.Errorf("ParseModel(%q) = %v, %v", m.String(), got, err)
 		}
 	}
-	if LossModelInvalid.String() != "invalid" || LossModel(-3).String() != "invalid" {
+	if Invalid.String() != "invalid" || Model(-3).String() != "invalid" {
 		t.Error("invalid models must print as invalid")
 	}
-	if _, err := ParseLossModel("invalid"); !errors.Is(err, ErrLossConfig) {
-		t.Errorf("ParseLossModel(invalid) err = %v", err)
+	if _, err := ParseModel("invalid"); !errors.Is(err, ErrConfig) {
+		t.Errorf("ParseModel(invalid) err = %v", err)
 	}
-	cfg := LossConfig{Model: LossModelGilbertElliott, LossRate: 0.1, BurstMs: 80, Seed: 7}
+	cfg := Config{Model: GilbertElliott, LossRate: 0.1, BurstMs: 80, Seed: 7}
 	raw, err := json.Marshal(cfg)
 	if err != nil {
 		t.Fatal(err)
 	}
-	var back LossConfig
+	var back Config
 	if err := json.Unmarshal(raw, &back); err != nil || back != cfg {
 		t.Errorf("JSON round trip: %s -> %+v, %v", raw, back, err)
 	}
-	if err := json.Unmarshal([]byte(`{"model":"bursty"}`), &back); !errors.Is(err, ErrLossConfig) {
+	if err := json.Unmarshal([]byte(`{"model":"bursty"}`), &back); !errors.Is(err, ErrConfig) {
 		t.Errorf("unknown model in JSON: err = %v", err)
 	}
 }
 
-// FuzzLossConfig checks that no setting makes Simulate panic and that
+// FuzzConfig checks that no setting makes Simulate panic and that
 // accepted settings give one arrival per frame, each within
 // [capture + D, capture + D + J] where D = round(ExtraDelayMs·1000) and
 // J = ceil(JitterMs·1000) are recomputed here from the settings; that Lost
-// counts the lost frames and LossModelNone loses none; and that a frame's
+// counts the lost frames and None loses none; and that a frame's
 // fate does not depend on the frames after it (the first half of the
 // frames, simulated alone, gives the same arrivals), as Simulate's separate
 // random streams promise.
-func FuzzLossConfig(f *testing.F) {
+func FuzzConfig(f *testing.F) {
 	f.Add(2, 0.1, 100.0, 0.0, 0.0, 0.0, 20.0, 5.0, uint64(1))
 	f.Add(2, 0.9, 1.0, 0.0, 0.0, 33.0, 0.0, 0.0, uint64(2))
 	f.Add(1, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, uint64(0))
@@ -315,13 +315,13 @@ func FuzzLossConfig(f *testing.F) {
 	f.Add(1, 0.0, 0.0, 0.0, 0.0, 0.0, 1e300, 0.0, uint64(4))
 	f.Add(1, 0.0, 0.0, 0.0, 0.0, 0.0, 3_600_000.0, 3_600_000.0, uint64(5))
 	f.Fuzz(func(t *testing.T, model int, rate, burst, k, bd, period, delay, jitter float64, seed uint64) {
-		cfg := LossConfig{Model: LossModel(model), LossRate: rate, BurstMs: burst, GoodLossProb: k,
+		cfg := Config{Model: Model(model), LossRate: rate, BurstMs: burst, GoodLossProb: k,
 			BadDeliverProb: bd, FramePeriodMs: period, ExtraDelayMs: delay, JitterMs: jitter, Seed: seed}
 		caps := frameTimes(64, 0, 33_333)
 		r, err := cfg.Simulate(nil, caps)
 		if err != nil {
-			if !errors.Is(err, ErrLossConfig) {
-				t.Fatalf("error %v does not wrap ErrLossConfig", err)
+			if !errors.Is(err, ErrConfig) {
+				t.Fatalf("error %v does not wrap ErrConfig", err)
 			}
 			return
 		}
@@ -343,7 +343,7 @@ func FuzzLossConfig(f *testing.F) {
 				t.Fatalf("frame %d captured at %d arrives at %d, outside [capture + %d, capture + %d] (%+v)", i, caps[i], a, base, base+jit, cfg)
 			}
 		}
-		if lost != r.Lost || (cfg.Model == LossModelNone && lost != 0) {
+		if lost != r.Lost || (cfg.Model == None && lost != 0) {
 			t.Fatalf("%d frames lost, Lost = %d, model %v", lost, r.Lost, cfg.Model)
 		}
 		half, err := cfg.Simulate(nil, caps[:len(caps)/2])
@@ -358,10 +358,10 @@ func FuzzLossConfig(f *testing.F) {
 	})
 }
 
-// ExampleLossConfig simulates a 30 fps link losing 10% of frames in
+// ExampleConfig simulates a 30 fps link losing 10% of frames in
 // bursts of 100 ms on average, 60-80 ms late.
-func ExampleLossConfig() {
-	cfg := LossConfig{Model: LossModelGilbertElliott, LossRate: 0.1, BurstMs: 100,
+func ExampleConfig() {
+	cfg := Config{Model: GilbertElliott, LossRate: 0.1, BurstMs: 100,
 		ExtraDelayMs: 60, JitterMs: 20, Seed: 1}
 	caps := make([]int64, 30*60) // one minute
 	for i := range caps {
@@ -380,7 +380,7 @@ func ExampleLossConfig() {
 // Gilbert-Elliott link with jitter, reusing the destination slice.
 func BenchmarkSimulate(b *testing.B) {
 	caps := frameTimes(30*3600, 0, 33_333)
-	cfg := LossConfig{Model: LossModelGilbertElliott, LossRate: 0.1, BurstMs: 100, JitterMs: 10, Seed: 1}
+	cfg := Config{Model: GilbertElliott, LossRate: 0.1, BurstMs: 100, JitterMs: 10, Seed: 1}
 	dst := make([]int64, len(caps))
 	b.ReportAllocs()
 	for b.Loop() {
