@@ -8,6 +8,8 @@ import (
 	"sync"
 	"sync/atomic"
 	"time"
+
+	"stopgap/stream/passthru"
 )
 
 // histogram is a fixed-bucket Prometheus histogram of durations in seconds.
@@ -138,11 +140,16 @@ func newMetrics() *metrics {
 
 // writeText writes the metrics in the Prometheus text exposition format
 // (version 0.0.4).
-func (m *metrics) writeText(w io.Writer, active int) {
+func (m *metrics) writeText(w io.Writer, active int, pt passthru.Stats) {
 	counter := func(name, help string, v uint64) {
 		fmt.Fprintf(w, "# HELP %s %s\n# TYPE %s counter\n%s %d\n", name, help, name, name, v)
 	}
 	counter("frames_in", "Video frames received complete and decoded.", m.framesIn.Load())
+	counter("frames_forwarded", "Video frames passed through to the console untouched (pass-through mode).", pt.Forwarded)
+	fmt.Fprintf(w, "# HELP passthru_stops Runs of passed-through frames ended, by reason (the relay's encoder took over until the next vehicle keyframe).\n# TYPE passthru_stops counter\n")
+	for r := passthru.StopInvalid + 1; int(r) < len(pt.Stops); r++ {
+		fmt.Fprintf(w, "passthru_stops{reason=%q} %d\n", r.String(), pt.Stops[r])
+	}
 	fmt.Fprintf(w, "# HELP ticks Display ticks sent to the console, by state.\n# TYPE ticks counter\n")
 	fmt.Fprintf(w, "ticks{state=\"live\"} %d\nticks{state=\"predicted\"} %d\nticks{state=\"stale\"} %d\n",
 		m.ticksLive.Load(), m.ticksPredicted.Load(), m.ticksStale.Load())
@@ -162,7 +169,7 @@ func (m *metrics) writeText(w io.Writer, active int) {
 	m.telemetryRejected.write(w, "telemetry_rejected", "reason", "Telemetry messages rejected, by reason (decode_* by the decoder, filter_* by the filter, queue_full, too_late: arrived later than the filter history after it was taken).")
 	m.rtpDropped.write(w, "rtp_dropped", "reason", "RTP packets not used, by reason.")
 	fmt.Fprintf(w, "# HELP active_sessions Ingest sessions being served now.\n# TYPE active_sessions gauge\nactive_sessions %d\n", active)
-	m.addedLatency.write(w, "relay_added_latency_seconds", "Time from the last packet of a LIVE frame to console WriteFrame, excluding decode and encode.")
+	m.addedLatency.write(w, "relay_added_latency_seconds", "Time from the last packet of a LIVE frame to its hand-over to the console: ForwardFrame when passed through, else WriteFrame excluding decode and encode.")
 	m.decode.write(w, "decode_seconds", "VP8 decode plus I420 to BGR conversion per frame.")
 	m.encode.write(w, "encode_seconds", "VP8 encode per output frame.")
 	m.synth.write(w, "synth_seconds", "Gap filler time per PREDICTED or STALE tick.")

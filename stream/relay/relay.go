@@ -16,6 +16,7 @@ import (
 	"github.com/pion/rtp"
 
 	"stopgap/stream/console"
+	"stopgap/stream/passthru"
 	"stopgap/stream/vp8"
 	"stopgap/stream/whip"
 )
@@ -93,6 +94,7 @@ type Relay struct {
 	metricsTokenSum [32]byte
 	probe           probes // /readyz and /livez (probes.go)
 
+	gate     *passthru.Gate // pass-through of LIVE frames (Config.AlwaysTranscode turns it off)
 	incoming chan IngestSession
 	encPtsUs int64 // last encoder timestamp; used only by the serving goroutine
 	tracer   frameTracer
@@ -112,7 +114,8 @@ func New(cfg Config) (*Relay, error) {
 	if err != nil {
 		return nil, err
 	}
-	r := &Relay{cfg: cfg, log: cfg.Logger, met: newMetrics(), incoming: make(chan IngestSession, 1)}
+	r := &Relay{cfg: cfg, log: cfg.Logger, met: newMetrics(), incoming: make(chan IngestSession, 1),
+		gate: &passthru.Gate{Off: cfg.AlwaysTranscode}}
 	r.metricsTokenSum = sha256.Sum256([]byte(cfg.ConsoleToken))
 
 	r.enc, err = vp8.NewEncoder(cfg.Encoder)
@@ -125,8 +128,11 @@ func New(cfg Config) (*Relay, error) {
 	if cc.Now == nil {
 		cc.Now = cfg.Now
 	}
-	enc := r.enc
-	cc.KeyframeNeeded = func(console.KeyframeReason) { enc.ForceKeyframe() }
+	enc, gate := r.enc, r.gate
+	cc.KeyframeNeeded = func(console.KeyframeReason) {
+		enc.ForceKeyframe()
+		gate.ViewerWantsKeyframe() // while frames pass through, only the vehicle can send one
+	}
 	r.console, err = console.New(cc)
 	if err != nil {
 		r.enc.Close()
@@ -358,7 +364,7 @@ func (r *Relay) metrics(w http.ResponseWriter, req *http.Request) {
 	if r.Stats().Active {
 		active = 1
 	}
-	r.met.writeText(w, active)
+	r.met.writeText(w, active, r.gate.Stats())
 }
 
 func short(id string) string {
