@@ -37,6 +37,9 @@ type rigOptions struct {
 	cacheFrames   bool
 	bitrateBps    int
 	vehicleCPU    int
+	// alwaysTranscode: every frame through the relay's encoder
+	// (relay.Config.AlwaysTranscode); the default is pass-through.
+	alwaysTranscode bool
 }
 
 // wireEvent is one packet at the link's wire filter.
@@ -114,6 +117,8 @@ func startRig(t testing.TB, o rigOptions) *rig {
 		ConsoleToken: consoleToken,
 		Whip:         whip.Config{Network: whip.Network{LoopbackOnly: true}},
 		Logger:       quietLogger(),
+
+		AlwaysTranscode: o.alwaysTranscode,
 	}
 	if o.record {
 		r.recordDir = filepath.Join(dir, "relay-recording")
