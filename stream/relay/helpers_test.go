@@ -64,6 +64,9 @@ type fakeVehicle struct {
 	srFrom int
 	// extraUs, if set, adds a delay to frame i on the link.
 	extraUs func(i int) int64
+	// mangle, if set, may damage frame i's VP8 data before it is
+	// packetised (it returns the data to send).
+	mangle func(i int, frame []byte) []byte
 
 	enc  *vp8.Encoder
 	pkz  *rtpvp8.Packetizer
@@ -131,6 +134,9 @@ func (v *fakeVehicle) generate(i int) {
 		v.mu.Lock()
 		v.keyframes = append(v.keyframes, i)
 		v.mu.Unlock()
+	}
+	if v.mangle != nil {
+		frame = v.mangle(i, append([]byte(nil), frame...))
 	}
 	pk, err := v.pkz.Packetize(nil, frame, rtpTS(i))
 	if err != nil {
