@@ -40,6 +40,9 @@ type rigOptions struct {
 	// alwaysTranscode: every frame through the relay's encoder
 	// (relay.Config.AlwaysTranscode); the default is pass-through.
 	alwaysTranscode bool
+	// keepWire keeps a copy of every packet the link lets through
+	// (rig.wirePkts), to decode the vehicle's stream afterwards.
+	keepWire bool
 }
 
 // wireEvent is one packet at the link's wire filter.
@@ -61,8 +64,9 @@ type rig struct {
 	rec       *recording.Recording
 	recordDir string
 
-	mu     sync.Mutex
-	wire   []wireEvent
+	mu       sync.Mutex
+	wire     []wireEvent
+	wirePkts []rtp.Packet // with rigOptions.keepWire: packets kept by the link, in wire order
 	plis   []time.Time // keyframe requests as received by the vehicle
 	frames []simvehicle.FrameInfo
 
@@ -164,6 +168,9 @@ func startRig(t testing.TB, o rigOptions) *rig {
 			keep := r.link.Keep(h, payload)
 			r.mu.Lock()
 			r.wire = append(r.wire, wireEvent{at: time.Now(), kept: keep, seq: h.SequenceNumber, ts: h.Timestamp, marker: h.Marker})
+			if keep && o.keepWire {
+				r.wirePkts = append(r.wirePkts, rtp.Packet{Header: h.Clone(), Payload: append([]byte(nil), payload...)})
+			}
 			r.mu.Unlock()
 			return keep
 		},

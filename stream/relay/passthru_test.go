@@ -72,7 +72,7 @@ func TestPassThroughBadFrames(t *testing.T) {
 			rng := rand.New(rand.NewPCG(1, uint64(len(tc.name))))
 			var mu sync.Mutex
 			unusable := map[int]bool{} // damaged frames the relay cannot use
-			decodeOnly := 0             // of which only the decoder rejects (forwarded before it does)
+			decodeOnly := 0            // of which only the decoder rejects (forwarded before it does)
 			keyframes := map[int]bool{}
 			v.mangle = func(i int, f []byte) []byte {
 				if rtpvp8.IsKeyframe(f) {
