@@ -67,8 +67,8 @@ type rig struct {
 	mu       sync.Mutex
 	wire     []wireEvent
 	wirePkts []rtp.Packet // with rigOptions.keepWire: packets kept by the link, in wire order
-	plis   []time.Time // keyframe requests as received by the vehicle
-	frames []simvehicle.FrameInfo
+	plis     []time.Time  // keyframe requests as received by the vehicle
+	frames   []simvehicle.FrameInfo
 
 	stopVehicle context.CancelFunc
 	vehDone     chan error

@@ -15,10 +15,10 @@ type Gate struct {
 	Off bool
 
 	mu       sync.Mutex
-	run      bool // a run of forwarded frames is open
-	own      bool // the display loop is encoding and writing its own frame
-	lastFwd  bool // the last frame sent to the console was forwarded
-	wantKey  bool // a viewer needs a keyframe: ask the vehicle
+	run      bool        // a run of forwarded frames is open
+	own      bool        // the display loop is encoding and writing its own frame
+	lastFwd  bool        // the last frame sent to the console was forwarded
+	wantKey  atomic.Bool // a viewer needs a keyframe: ask the vehicle (no lock: see ViewerWantsKeyframe)
 	forwards atomic.Uint64
 	stops    [stopReasonCount]atomic.Uint64
 }
@@ -129,12 +129,9 @@ func (g *Gate) EndOwn() {
 
 // ViewerWantsKeyframe records that a console viewer needs a keyframe (it
 // joined, or asked with PLI): while frames pass through, only the vehicle
-// can send one.
-func (g *Gate) ViewerWantsKeyframe() {
-	g.mu.Lock()
-	g.wantKey = true
-	g.mu.Unlock()
-}
+// can send one. It takes no lock: the console calls it from within the
+// send of Offer (ForwardFrame asks for keyframes before it returns).
+func (g *Gate) ViewerWantsKeyframe() { g.wantKey.Store(true) }
 
 // WantKeyframe reports whether the relay should ask the vehicle for a
 // keyframe now: pass-through is waiting for one to start, or a viewer needs
@@ -146,9 +143,8 @@ func (g *Gate) WantKeyframe() bool {
 	}
 	g.mu.Lock()
 	defer g.mu.Unlock()
-	want := !g.run || (g.wantKey && g.lastFwd)
-	g.wantKey = false
-	return want
+	viewer := g.wantKey.Swap(false)
+	return !g.run || (viewer && g.lastFwd)
 }
 
 // Forwarding reports whether a run of forwarded frames is open.

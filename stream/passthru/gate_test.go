@@ -3,6 +3,7 @@ package passthru
 import (
 	"errors"
 	"testing"
+	"time"
 )
 
 // ev is one event on the gate and what it must answer.
@@ -144,5 +145,24 @@ func TestStopReasonString(t *testing.T) {
 		if got := r.String(); got != want {
 			t.Errorf("%d: %q, want %q", r, got, want)
 		}
+	}
+}
+
+// TestGateSendMayAskForKeyframe: the console asks for a keyframe from
+// inside ForwardFrame (a viewer waiting for one); the send runs with the
+// Gate locked, so the request must not lock it again.
+func TestGateSendMayAskForKeyframe(t *testing.T) {
+	var g Gate
+	done := make(chan bool)
+	go func() {
+		done <- g.Offer(Frame{Keyframe: true, SizeOK: true}, func() error { g.ViewerWantsKeyframe(); return nil })
+	}()
+	select {
+	case ok := <-done:
+		if !ok || !g.WantKeyframe() {
+			t.Errorf("forwarded %v; the viewer's keyframe wish was lost", ok)
+		}
+	case <-time.After(5 * time.Second):
+		t.Fatal("Offer deadlocked when its send asked for a keyframe")
 	}
 }
