@@ -43,10 +43,11 @@ const pictureIDMask = 0x7fff
 // the sender wrote one, continues from the last frame written.
 //
 // Forwarded frames keep the sender's timing: within a run of forwarded
-// frames the output timestamp is the sender's plus a fixed offset, set at the
-// run's first frame, and the picture ID advances by the sender's own step (a
-// sender that skipped a picture ID keeps the gap, which tells the receiver a
-// frame is missing). Encoded frames are placed by the caller's step.
+// frames (from a keyframe to the frame before the next keyframe or switch)
+// the output timestamp is the sender's plus a fixed offset, set at the run's
+// keyframe, and the picture ID advances by the sender's own step (a sender
+// that skipped a picture ID keeps the gap, which tells the receiver a frame
+// is missing). Keyframes and encoded frames are placed by the caller's step.
 //
 // The zero value is ready to use: sequence numbers and picture IDs start at
 // FirstSeq and FirstPictureID.
@@ -105,9 +106,9 @@ type ForwardFrame struct {
 	// RTPTimestamp is the sender's RTP timestamp of the frame (90 kHz).
 	RTPTimestamp uint32
 	// StepTicks is the time from the previous frame written to this one,
-	// in 90 kHz ticks (at least 1 is used). It places the first frame of a
-	// run of forwarded frames; later frames of the run follow the sender's
-	// timestamps.
+	// in 90 kHz ticks (at least 1 is used). It places a keyframe, which
+	// starts a run of forwarded frames; later frames of the run follow the
+	// sender's timestamps.
 	StepTicks uint32
 }
 
@@ -126,10 +127,13 @@ func (s *Splicer) Forward(dst []rtp.Packet, f ForwardFrame) ([]rtp.Packet, error
 		return dst, fmt.Errorf("%w: the first packet does not start a frame (S=1, PID=0)", ErrBadFrame)
 	}
 	key := rtpvp8.IsKeyframe(first.Data)
-	newRun := s.last != SourceForwarded
-	if newRun && !key {
+	if s.last != SourceForwarded && !key {
 		return dst, fmt.Errorf("%w: forwarded inter frame after %s frames", ErrNeedKeyframe, s.last)
 	}
+	// A keyframe starts a new run even among forwarded frames: it needs
+	// nothing before it, and a sender that restarted (a new session) has
+	// new timestamps and picture IDs to re-anchor on.
+	newRun := s.last != SourceForwarded || key
 	d := first.Desc
 	var ts uint32
 	var pid uint16

@@ -91,6 +91,16 @@ func TestSplicer(t *testing.T) {
 			},
 		},
 		{
+			name: "a forwarded keyframe re-anchors the run (a sender that restarted)",
+			steps: []step{
+				{key: true, inTS: 90000, desc: pid15(500), seq: 0, ts: 0, pid: 0},
+				{inTS: 93000, desc: pid15(501), seq: 2, ts: 3000, pid: 1},
+				{key: true, inTS: 7, desc: pid15(20000), ticks: 3000, seq: 4, ts: 6000, pid: 2},
+				{inTS: 3007, desc: pid15(20001), seq: 6, ts: 9000, pid: 3},
+				{inTS: 6007, desc: pid15(19000), err: ErrOutOfOrder},
+			},
+		},
+		{
 			name:  "the first frame must be a keyframe, forwarded or encoded",
 			steps: []step{{desc: pid15(1), err: ErrNeedKeyframe}, {enc: true, err: ErrNeedKeyframe}, {enc: true, key: true, seq: 0, pid: 0}},
 		},
