@@ -54,12 +54,23 @@ type Frame struct {
 	SizeOK      bool // a keyframe's picture size is the camera's (ignored for inter frames)
 }
 
+// Sender sends a frame the Gate lets through (the console's ForwardFrame).
+// Send must not block and may call only ViewerWantsKeyframe of the Gate.
+type Sender interface {
+	Send() error
+}
+
+// SenderFunc adapts a function to a Sender.
+type SenderFunc func() error
+
+// Send calls f.
+func (f SenderFunc) Send() error { return f() }
+
 // Offer decides whether frame f, complete and header-checked, is forwarded;
-// if so it calls send (the console's ForwardFrame) with the Gate locked, so
-// that the display loop cannot start a frame of its own meanwhile, and
-// reports true. send must not block and must not call the Gate. A send
-// error ends the run and reports false.
-func (g *Gate) Offer(f Frame, send func() error) bool {
+// if so it calls send.Send with the Gate locked, so that the display loop
+// cannot start a frame of its own meanwhile, and reports true. A send error
+// ends the run and reports false.
+func (g *Gate) Offer(f Frame, send Sender) bool {
 	if g.Off {
 		return false
 	}
@@ -77,7 +88,7 @@ func (g *Gate) Offer(f Frame, send func() error) bool {
 	case !g.run && !f.Keyframe:
 		return false // transcoding until the vehicle's next keyframe
 	}
-	if err := send(); err != nil {
+	if err := send.Send(); err != nil {
 		g.stopLocked(StopLoss)
 		return false
 	}

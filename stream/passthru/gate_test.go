@@ -73,7 +73,7 @@ func TestGate(t *testing.T) {
 		t.Run(tc.name, func(t *testing.T) {
 			g := &Gate{Off: tc.off}
 			sent := 0
-			send := func() error { sent++; return nil }
+			send := SenderFunc(func() error { sent++; return nil })
 			lastFwd := false
 			for i, e := range tc.evs {
 				var fwd, force bool
@@ -87,7 +87,7 @@ func TestGate(t *testing.T) {
 				case "inter-refs-missing":
 					fwd = g.Offer(Frame{RefsMissing: true}, send)
 				case "send-fails":
-					fwd = g.Offer(Frame{}, func() error { return errors.New("queue closed") })
+					fwd = g.Offer(Frame{}, SenderFunc(func() error { return errors.New("queue closed") }))
 				case "decode-fail":
 					g.Decoded(lastFwd, false)
 				case "decode-ok":
@@ -131,11 +131,11 @@ func TestGate(t *testing.T) {
 func TestGateOwnFrameBlocksForwarding(t *testing.T) {
 	var g Gate
 	g.BeginOwn()
-	if g.Offer(Frame{Keyframe: true, SizeOK: true}, func() error { return nil }) {
+	if g.Offer(Frame{Keyframe: true, SizeOK: true}, SenderFunc(func() error { return nil })) {
 		t.Error("keyframe forwarded while an own frame is being written")
 	}
 	g.EndOwn()
-	if !g.Offer(Frame{Keyframe: true, SizeOK: true}, func() error { return nil }) {
+	if !g.Offer(Frame{Keyframe: true, SizeOK: true}, SenderFunc(func() error { return nil })) {
 		t.Error("keyframe not forwarded after EndOwn")
 	}
 }
@@ -155,7 +155,7 @@ func TestGateSendMayAskForKeyframe(t *testing.T) {
 	var g Gate
 	done := make(chan bool)
 	go func() {
-		done <- g.Offer(Frame{Keyframe: true, SizeOK: true}, func() error { g.ViewerWantsKeyframe(); return nil })
+		done <- g.Offer(Frame{Keyframe: true, SizeOK: true}, SenderFunc(func() error { g.ViewerWantsKeyframe(); return nil }))
 	}()
 	select {
 	case ok := <-done:

@@ -54,6 +54,7 @@ type ingest struct {
 
 	lastKeyReq  time.Time
 	lastArrival time.Time // arrival of the latest packet
+	fwd         forwardSender
 	// The capture timeline: RTP timestamp refTS was captured at refUs
 	// (arrival-anchored until the first sender report, then on the
 	// vehicle clock); later timestamps are unwrapped from it.
@@ -252,17 +253,32 @@ func (in *ingest) forward(f rtpvp8.Frame) (bool, time.Time) {
 	p := in.p
 	gf := passthru.Frame{Keyframe: f.Keyframe, RefsMissing: f.RefsMissing,
 		SizeOK: f.Width == p.cfg.Camera.Width && f.Height == p.cfg.Camera.Height}
-	var at time.Time
-	period := time.Duration(p.cfg.periodUs() * float64(time.Microsecond))
-	ok := p.r.gate.Offer(gf, func() error {
-		err := p.r.console.ForwardFrame(f.Parts, f.RTPTimestamp, period)
-		at = p.cfg.Now()
-		return err
-	})
+	in.fwd = forwardSender{in: in, parts: f.Parts, rtpTS: f.RTPTimestamp}
+	ok := p.r.gate.Offer(gf, &in.fwd)
 	if ok {
-		p.r.met.addedLatency.observe(at.Sub(f.ArrivalLast))
+		p.r.met.addedLatency.observe(in.fwd.at.Sub(f.ArrivalLast))
 	}
+	at := in.fwd.at
+	in.fwd = forwardSender{}
 	return ok, at
+}
+
+// forwardSender is the passthru.Sender of the frame being offered; the
+// ingest keeps one, so forwarding allocates nothing.
+type forwardSender struct {
+	in    *ingest
+	parts []rtpvp8.Part
+	rtpTS uint32
+	at    time.Time // when ForwardFrame returned
+}
+
+// Send passes the frame's packets to the console.
+func (s *forwardSender) Send() error {
+	p := s.in.p
+	period := time.Duration(p.cfg.periodUs() * float64(time.Microsecond))
+	err := p.r.console.ForwardFrame(s.parts, s.rtpTS, period)
+	s.at = p.cfg.Now()
+	return err
 }
 
 // captureTime maps the frame's RTP timestamp to the vehicle clock.
