@@ -31,7 +31,7 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		logJSON, verbose                                       bool
 		rtpListen, telemetryListen, rtpAllow                   string
 		storePath, policyPath                                  string
-		iceLoopback                                            bool
+		iceLoopback, alwaysTranscode                           bool
 		iceInterfaces, icePublicIPs                            string
 		iceUDPPort                                             int
 	)
@@ -56,6 +56,7 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	fs.StringVar(&rtpListen, "rtp-listen", "", "UDP `address` (e.g. 127.0.0.1:5004) to receive VP8 over plain RTP with RTCP on the same port; empty = off")
 	fs.StringVar(&telemetryListen, "telemetry-listen", "", "UDP `address` for telemetry datagrams (JSON, one per datagram) that go with --rtp-listen")
 	fs.StringVar(&rtpAllow, "rtp-allow", "", "comma-separated source `IPs or IP:ports` admitted by --rtp-listen and --telemetry-listen (required off loopback: plain RTP is unauthenticated)")
+	fs.BoolVar(&alwaysTranscode, "always-transcode", false, "send LIVE frames through the relay's encoder too (one encoder's stream at its fixed bitrate) instead of passing the vehicle's frames through untouched")
 	fs.BoolVar(&iceLoopback, "ice-loopback", false, "also offer loopback ICE candidates to the vehicle (a sender on this host)")
 	fs.StringVar(&iceInterfaces, "ice-interfaces", "", "comma-separated network interface `names` to offer ICE candidates on (default all but loopback)")
 	fs.StringVar(&icePublicIPs, "ice-public-ip", "", "comma-separated public `IPs` to announce instead of the host addresses (a relay behind a static 1:1 NAT)")
@@ -143,7 +144,7 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		Camera: cam, Policy: predictor.Policy{MaxAgeMs: maxAgeMs},
 		Filter:    filter.Config{Model: m, WheelbaseM: wheelbaseM},
 		RecordDir: recordDir, IngestToken: ingestTok, ConsoleToken: consoleTok,
-		Console: cc, Logger: log,
+		Console: cc, Logger: log, AlwaysTranscode: alwaysTranscode,
 		Whip: whip.Config{Network: whip.Network{IncludeLoopback: iceLoopback, Interfaces: splitList(iceInterfaces),
 			NAT1To1IPs: splitList(icePublicIPs), UDPPort: iceUDPPort}},
 	}

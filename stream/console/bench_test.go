@@ -8,8 +8,8 @@ import (
 // nullSink accepts everything.
 type nullSink struct{}
 
-func (nullSink) sendVideo([]byte, int64, int64) error { return nil }
-func (nullSink) sendMeta([]byte) error                { return nil }
+func (nullSink) sendVideo(*sharedBuf, int64, int64) error { return nil }
+func (nullSink) sendMeta([]byte) error                    { return nil }
 
 // BenchmarkWriteFrame measures the caller's cost of fanning one 8 KB frame
 // out to viewers (the queues are drained by the viewers' goroutines).

@@ -13,6 +13,8 @@ import (
 	"github.com/pion/ice/v4"
 	"github.com/pion/interceptor"
 	"github.com/pion/webrtc/v4"
+
+	"stopgap/stream/rtpvp8"
 )
 
 // Console is the operator egress: an http.Handler serving the page and the
@@ -132,6 +134,24 @@ func (c *Console) PageURL(base string) string {
 // ErrBadDuration, ErrClosed.
 func (c *Console) WriteFrame(frame []byte, duration time.Duration) error {
 	return c.eg.writeFrame(frame, duration)
+}
+
+// ForwardFrame queues one frame received from the vehicle for every viewer,
+// as the packets the vehicle sent (parts: rtpvp8.Frame.Parts, in order, the
+// first starting the frame) with the vehicle's RTP timestamp, lasting
+// duration on the egress timeline. It is the pass-through path: the VP8 data
+// and packet boundaries are sent as they are; each viewer's stream rewrites
+// sequence numbers, timestamps, picture IDs and TL0PICIDX so that forwarded
+// and WriteFrame frames make one continuous stream (see
+// stopgap/stream/vp8splice). A viewer switches between forwarded and
+// written frames only at a keyframe: an inter frame from the other source
+// is skipped, and a keyframe requested through Config.KeyframeNeeded
+// (KeyframeSourceSwitch), so the caller should switch sources on
+// keyframes. parts is copied; the caller keeps ownership. It returns at
+// once, as WriteFrame does, and shares its queues, ordering and errors, plus
+// ErrBadForward.
+func (c *Console) ForwardFrame(parts []rtpvp8.Part, rtpTimestamp uint32, duration time.Duration) error {
+	return c.eg.forwardFrame(parts, rtpTimestamp, duration)
 }
 
 // WriteMeta sends m on every viewer's "meta" channel, without waiting for

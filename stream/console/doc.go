@@ -7,9 +7,12 @@
 // Per display tick the relay produces one output frame whose state is LIVE
 // (a real frame), PREDICTED (a synthetic frame: the last real frame warped to
 // where the camera should be now) or STALE (too uncertain to predict: the old
-// frame, desaturated). The relay hands each encoded frame to
-// [Console.WriteFrame] and a description of it to [Console.WriteMeta]. Every
-// connected viewer gets:
+// frame, desaturated). The relay hands each frame it encoded to
+// [Console.WriteFrame], each LIVE frame it passes through untouched (the
+// vehicle's own packets) to [Console.ForwardFrame], and a description of
+// every frame to [Console.WriteMeta]. Each viewer's RTP stream joins the two
+// sources into one (stopgap/stream/vp8splice), switching only on a keyframe.
+// Every connected viewer gets:
 //
 //   - one VP8 video track (RTP clock 90 kHz), and
 //   - a data channel labelled "meta" carrying one JSON text message per output

@@ -4,23 +4,41 @@ import (
 	"sync"
 	"sync/atomic"
 	"time"
+
+	"stopgap/stream/rtpvp8"
+	"stopgap/stream/vp8splice"
 )
 
 // sharedBuf is an immutable byte buffer shared by all viewers of one frame or
 // meta message. It is reference counted and returns to its pool when the
 // last holder releases it, so the steady-state per-frame path does not
 // allocate.
+//
+// A frame the relay encoded is data. A forwarded frame is parts, the
+// vehicle's packets, whose Data slices point into data, and ts, the
+// vehicle's RTP timestamp.
 type sharedBuf struct {
-	data []byte
-	refs atomic.Int32
-	pool *sync.Pool
+	data  []byte
+	parts []rtpvp8.Part
+	ts    uint32
+	refs  atomic.Int32
+	pool  *sync.Pool
 }
 
 func (b *sharedBuf) release() {
 	if b.refs.Add(-1) == 0 {
 		b.data = b.data[:0]
+		b.parts = b.parts[:0]
 		b.pool.Put(b)
 	}
+}
+
+// source tells which source the frame in b is from.
+func (b *sharedBuf) source() vp8splice.Source {
+	if len(b.parts) > 0 {
+		return vp8splice.SourceForwarded
+	}
+	return vp8splice.SourceEncoded
 }
 
 // videoItem is one queued frame for one viewer. startNs/durNs place it on
@@ -33,9 +51,9 @@ type videoItem struct {
 
 // viewerSink is what a viewer sends to. sendVideo and sendMeta are called
 // from the viewer's own goroutines, never concurrently with themselves; the
-// byte slices are only valid during the call.
+// frame and the byte slices are only valid during the call.
 type viewerSink interface {
-	sendVideo(frame []byte, startNs, durNs int64) error
+	sendVideo(frame *sharedBuf, startNs, durNs int64) error
 	sendMeta(msg []byte) error
 }
 
@@ -48,8 +66,9 @@ type viewer struct {
 	wg     sync.WaitGroup
 
 	// guarded by egress.mu
-	waitKey    bool      // drop delta frames until the next keyframe
-	lastKeyReq time.Time // last keyframe request made for this viewer
+	waitKey    bool             // drop delta frames until the next keyframe
+	lastKeyReq time.Time        // last keyframe request made for this viewer
+	last       vp8splice.Source // source of the last frame queued
 
 	sent, dropped, skipped, metaSent, metaDropped, sendErrors atomic.Uint64
 }
@@ -64,7 +83,7 @@ func (v *viewer) start() {
 	go func() {
 		defer v.wg.Done()
 		for it := range v.videoQ {
-			if err := v.sink.sendVideo(it.buf.data, it.startNs, it.durNs); err != nil {
+			if err := v.sink.sendVideo(it.buf, it.startNs, it.durNs); err != nil {
 				v.sendErrors.Add(1)
 			} else {
 				v.sent.Add(1)
@@ -89,10 +108,11 @@ func (v *viewer) start() {
 type Stats struct {
 	Viewers          int    // connected viewers now
 	Sessions         int    // sessions now, half-open included
-	FramesIn         uint64 // frames passed to WriteFrame
+	FramesIn         uint64 // frames passed to WriteFrame and ForwardFrame
+	FramesForwarded  uint64 // of which passed to ForwardFrame
 	FramesSent       uint64 // frames handed to viewers' RTP senders (all viewers)
 	FramesDropped    uint64 // frames dropped because a viewer's queue was full
-	FramesSkipped    uint64 // delta frames not sent because the viewer waited for a keyframe
+	FramesSkipped    uint64 // delta frames not sent because the viewer waited for a keyframe (or the source switched on one)
 	MetaIn           uint64 // messages passed to WriteMeta
 	MetaSent         uint64 // messages sent on data channels (all viewers)
 	MetaDropped      uint64 // messages dropped: queue full, channel not open or backed up
@@ -115,6 +135,7 @@ type egress struct {
 
 	pool             sync.Pool
 	framesIn, metaIn atomic.Uint64
+	framesForwarded  atomic.Uint64
 	keyReqs          atomic.Uint64
 	gone             Stats // counters of viewers that left, guarded by mu
 }
@@ -135,7 +156,7 @@ func (e *egress) getBuf(data []byte) *sharedBuf {
 
 // request calls the keyframe callback once per reason bit set in mask.
 func (e *egress) request(mask uint32) {
-	for r := KeyframeViewerJoined; r <= KeyframeRetry; r++ {
+	for r := KeyframeViewerJoined; r <= keyframeReasonLast; r++ {
 		if mask&(1<<uint(r)) != 0 {
 			e.keyReqs.Add(1)
 			if e.keyframe != nil {
@@ -200,7 +221,8 @@ func (e *egress) count() int {
 	return len(e.viewers)
 }
 
-// writeFrame queues frame for every viewer; see Console.WriteFrame.
+// writeFrame queues frame, encoded by the relay, for every viewer; see
+// Console.WriteFrame.
 func (e *egress) writeFrame(frame []byte, dur time.Duration) error {
 	if len(frame) == 0 {
 		return ErrEmptyFrame
@@ -208,7 +230,49 @@ func (e *egress) writeFrame(frame []byte, dur time.Duration) error {
 	if dur <= 0 {
 		return ErrBadDuration
 	}
-	key := vp8IsKeyframe(frame)
+	return e.queue(vp8IsKeyframe(frame), dur, func(b *sharedBuf) {
+		b.data = append(b.data[:0], frame...)
+	})
+}
+
+// forwardFrame queues the vehicle's frame parts for every viewer; see
+// Console.ForwardFrame.
+func (e *egress) forwardFrame(parts []rtpvp8.Part, rtpTS uint32, dur time.Duration) error {
+	if len(parts) == 0 {
+		return ErrEmptyFrame
+	}
+	if dur <= 0 {
+		return ErrBadDuration
+	}
+	if !parts[0].Desc.FrameStart() || len(parts[0].Data) == 0 {
+		return ErrBadForward
+	}
+	err := e.queue(rtpvp8.IsKeyframe(parts[0].Data), dur, func(b *sharedBuf) {
+		b.data, b.parts = b.data[:0], b.parts[:0]
+		for _, p := range parts {
+			b.data = append(b.data, p.Data...)
+		}
+		off := 0
+		for _, p := range parts {
+			q := p
+			q.Data = b.data[off : off+len(p.Data) : off+len(p.Data)]
+			off += len(p.Data)
+			b.parts = append(b.parts, q)
+		}
+		b.ts = rtpTS
+	})
+	if err == nil {
+		e.framesForwarded.Add(1)
+	}
+	return err
+}
+
+// queue hands one frame to every viewer, fill writing it into a pooled
+// buffer (called only if someone watches). A viewer decodes a frame only
+// against references from the same source: a viewer that waits for a
+// keyframe, or whose last frame came from the other source, skips inter
+// frames until a keyframe.
+func (e *egress) queue(key bool, dur time.Duration, fill func(*sharedBuf)) error {
 	var mask uint32
 	e.mu.Lock()
 	if e.closed {
@@ -220,8 +284,17 @@ func (e *egress) writeFrame(frame []byte, dur time.Duration) error {
 	e.timelineNs += int64(dur)
 	if len(e.viewers) > 0 {
 		now := e.now()
-		buf := e.getBuf(frame)
+		buf := e.getBuf(nil)
+		fill(buf)
+		src := buf.source()
 		for _, v := range e.viewers {
+			if !key && !v.waitKey && v.last != src && v.last != vp8splice.SourceInvalid {
+				// An inter frame from the other source (the egress
+				// caller switched without a keyframe): wait for one.
+				v.waitKey = true
+				v.lastKeyReq = now
+				mask |= 1 << uint(KeyframeSourceSwitch)
+			}
 			if v.waitKey {
 				if !key {
 					v.skipped.Add(1)
@@ -236,6 +309,7 @@ func (e *egress) writeFrame(frame []byte, dur time.Duration) error {
 			buf.refs.Add(1)
 			select {
 			case v.videoQ <- videoItem{buf: buf, startNs: start, durNs: int64(dur)}:
+				v.last = src
 			default:
 				// A decoder that misses a frame decodes the following delta
 				// frames against the wrong reference: skip to a keyframe.
@@ -309,6 +383,7 @@ func (e *egress) stats() Stats {
 		s.SendErrors += v.sendErrors.Load()
 	}
 	s.FramesIn = e.framesIn.Load()
+	s.FramesForwarded = e.framesForwarded.Load()
 	s.MetaIn = e.metaIn.Load()
 	s.KeyframeRequests = e.keyReqs.Load()
 	return s

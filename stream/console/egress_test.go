@@ -1,21 +1,25 @@
 package console
 
 import (
+	"bytes"
 	"errors"
 	"sync"
 	"testing"
 	"time"
 
 	"github.com/pion/rtp"
-	"github.com/pion/rtp/codecs"
+
+	"stopgap/stream/rtpvp8"
+	"stopgap/stream/vp8splice"
 )
 
-// keyFrame and deltaFrame are minimal VP8 frame headers (RFC 6386 section
-// 9.1): a key frame has P=0 and the start code 9d 01 2a, then 14-bit width
-// and height (here 320 x 180, little endian).
+// keyFrame and deltaFrame are minimal VP8 frames with consistent headers
+// (RFC 6386 section 9.1): frame tag with show_frame=1 and a first partition
+// of 1 octet; a key frame has P=0 and the start code 9d 01 2a, then 14-bit
+// width and height (here 320 x 180, little endian).
 var (
-	keyFrame   = []byte{0x50, 0x01, 0x00, 0x9d, 0x01, 0x2a, 0x40, 0x01, 0xb4, 0x00, 0xaa}
-	deltaFrame = []byte{0x31, 0x02, 0x00, 0x11, 0x22, 0x33, 0x44, 0x55, 0x66, 0x77}
+	keyFrame   = []byte{0x30, 0x00, 0x00, 0x9d, 0x01, 0x2a, 0x40, 0x01, 0xb4, 0x00, 0xaa}
+	deltaFrame = []byte{0x31, 0x00, 0x00, 0x11, 0x22, 0x33, 0x44, 0x55, 0x66, 0x77}
 )
 
 func TestVP8IsKeyframe(t *testing.T) {
@@ -43,6 +47,7 @@ func TestVP8IsKeyframe(t *testing.T) {
 type fakeSink struct {
 	mu      sync.Mutex
 	frames  [][]byte
+	fwd     []bool // the frame was forwarded (else encoded by the relay)
 	starts  []int64
 	metas   []string
 	block   chan struct{} // if set, sendVideo waits for it to close
@@ -52,7 +57,7 @@ type fakeSink struct {
 
 func newFakeSink() *fakeSink { return &fakeSink{got: make(chan struct{}, 1000)} }
 
-func (s *fakeSink) sendVideo(frame []byte, startNs, durNs int64) error {
+func (s *fakeSink) sendVideo(b *sharedBuf, startNs, durNs int64) error {
 	if s.entered != nil {
 		s.entered <- struct{}{}
 	}
@@ -60,7 +65,8 @@ func (s *fakeSink) sendVideo(frame []byte, startNs, durNs int64) error {
 		<-s.block
 	}
 	s.mu.Lock()
-	s.frames = append(s.frames, append([]byte(nil), frame...))
+	s.frames = append(s.frames, append([]byte(nil), b.data...))
+	s.fwd = append(s.fwd, len(b.parts) > 0)
 	s.starts = append(s.starts, startNs)
 	s.mu.Unlock()
 	s.got <- struct{}{}
@@ -244,35 +250,59 @@ func TestEgressErrors(t *testing.T) {
 // capture collects RTP packets.
 type capture struct{ pkts []*rtp.Packet }
 
-func (c *capture) WriteRTP(p *rtp.Packet) error { c.pkts = append(c.pkts, p); return nil }
+func (c *capture) WriteRTP(p *rtp.Packet) error {
+	q := p.Clone() // the sink reuses its packets and payload buffer
+	c.pkts = append(c.pkts, q)
+	return nil
+}
+
+// encoded returns a pooled-like buffer holding a frame encoded by the relay.
+func encoded(frame []byte) *sharedBuf { return &sharedBuf{data: frame} }
+
+// forwarded returns a buffer holding frame as the vehicle's packets of at
+// most size octets of VP8 data each, with 7-bit picture ID pid and RTP
+// timestamp ts.
+func forwarded(frame []byte, size int, pid uint16, ts uint32) *sharedBuf {
+	b := &sharedBuf{data: frame, ts: ts}
+	for off := 0; off < len(frame); off += size {
+		end := min(off+size, len(frame))
+		d := rtpvp8.Descriptor{Start: off == 0, HasPictureID: true, PictureID: pid}
+		b.parts = append(b.parts, rtpvp8.Part{Desc: d, Marker: end == len(frame), Data: frame[off:end]})
+	}
+	return b
+}
 
 // TestRTPSinkTimestamps: RTP timestamps follow the timeline at 90 kHz
 // (RFC 7741 section 4.1); a skipped frame leaves a gap of its duration while
 // sequence numbers stay continuous; a large frame is split over packets that
 // share a timestamp with the marker bit on the last (RFC 3550 section 5.1).
+// Forwarded frames keep their packets and the vehicle's timestamp steps,
+// and the numbering runs on across the switches.
 func TestRTPSinkTimestamps(t *testing.T) {
 	var c capture
-	s := rtpSink{
-		packetizer: rtp.NewPacketizer(rtpMTU, 96, 1, &codecs.VP8Payloader{EnablePictureID: true}, rtp.NewFixedSequencer(100), 90000),
-		out:        &c,
-	}
+	s := rtpSink{splicer: vp8splice.Splicer{MTU: rtpMTU, PayloadType: 96, SSRC: 1, FirstSeq: 100}, out: &c}
 	big := make([]byte, 3000)
 	copy(big, keyFrame)
 	d := int64(40 * time.Millisecond) // 3600 ticks exactly
 	steps := []struct {
-		frame []byte
+		frame *sharedBuf
 		start int64
-	}{{big, 0}, {deltaFrame, d}, {deltaFrame, 3 * d}} // frame at 2*d skipped
+	}{
+		{encoded(big), 0}, {encoded(deltaFrame), d}, {encoded(deltaFrame), 3 * d}, // frame at 2*d skipped
+		{forwarded(big, 1000, 5, 50000), 4 * d}, {forwarded(deltaFrame, 6, 6, 53003), 5 * d}, // the vehicle's step: 3003
+		{encoded(big), 6 * d},
+	}
 	for _, st := range steps {
 		if err := s.writeFrame(st.frame, st.start, d); err != nil {
 			t.Fatal(err)
 		}
 	}
-	if len(c.pkts) != 5 {
-		t.Fatalf("%d packets, want 3 for the 3000-byte frame + 2", len(c.pkts))
+	wantTs := []uint32{0, 0, 0, 3600, 10800, 14400, 14400, 14400, 17403, 17403, 21003, 21003, 21003}
+	wantMarker := []bool{false, false, true, true, true, false, false, true, false, true, false, false, true}
+	if len(c.pkts) != len(wantTs) {
+		t.Fatalf("%d packets, want %d", len(c.pkts), len(wantTs))
 	}
 	ts0 := c.pkts[0].Timestamp
-	wantTs := []uint32{0, 0, 0, 3600, 10800}
 	for i, p := range c.pkts {
 		if got := p.Timestamp - ts0; got != wantTs[i] {
 			t.Errorf("packet %d: timestamp +%d, want +%d", i, got, wantTs[i])
@@ -280,8 +310,16 @@ func TestRTPSinkTimestamps(t *testing.T) {
 		if p.SequenceNumber != uint16(100+i) {
 			t.Errorf("packet %d: seq %d, want %d", i, p.SequenceNumber, 100+i)
 		}
-		if wantMarker := i >= 2; p.Marker != wantMarker {
-			t.Errorf("packet %d: marker %v, want %v", i, p.Marker, wantMarker)
+		if p.Marker != wantMarker[i] {
+			t.Errorf("packet %d: marker %v, want %v", i, p.Marker, wantMarker[i])
+		}
+	}
+	// The forwarded keyframe kept the vehicle's three packets and data.
+	for i, want := range [][]byte{big[:1000], big[1000:2000], big[2000:]} {
+		var desc rtpvp8.Descriptor
+		n, err := desc.Unmarshal(c.pkts[5+i].Payload)
+		if err != nil || !bytes.Equal(c.pkts[5+i].Payload[n:], want) {
+			t.Errorf("forwarded packet %d: %v, data changed", i, err)
 		}
 	}
 	// 30 frames of 1/30 s (33333333 ns each) end at 89999 ticks: the
@@ -291,5 +329,75 @@ func TestRTPSinkTimestamps(t *testing.T) {
 	}
 	if ticks90k(int64(time.Second)) != 90000 || ticks90k(int64(time.Hour)) != 324000000 {
 		t.Error("ticks90k of 1 s or 1 h")
+	}
+}
+
+// TestEgressSwitchesSourceOnKeyframes: a viewer gets forwarded and encoded
+// frames in one stream but changes source only at a keyframe; an inter frame
+// from the other source is skipped and a keyframe asked for
+// (KeyframeSourceSwitch), so its decoder never decodes against a reference
+// from the other encoder.
+func TestEgressSwitchesSourceOnKeyframes(t *testing.T) {
+	clk := &fakeClock{t: time.Unix(1000, 0)}
+	var reasons reasonLog
+	e := newEgress(clk.now, 200*time.Millisecond, reasons.add)
+	sink := newFakeSink()
+	v := newViewer(1, sink, 16, 16)
+	e.add(v)
+	fwd := func(frame []byte) error {
+		return e.forwardFrame(forwarded(frame, 4, 1, 0).parts, 0, tick)
+	}
+	steps := []struct {
+		forward bool
+		frame   []byte
+		sent    bool
+	}{
+		{true, deltaFrame, false}, // waits for a keyframe after joining
+		{true, keyFrame, true},
+		{true, deltaFrame, true},
+		{false, deltaFrame, false}, // encoded inter after forwarded: skipped
+		{false, deltaFrame, false},
+		{false, keyFrame, true},
+		{false, deltaFrame, true},
+		{true, deltaFrame, false}, // forwarded inter after encoded: skipped
+		{true, keyFrame, true},
+	}
+	want := 0
+	for i, st := range steps {
+		var err error
+		if st.forward {
+			err = fwd(st.frame)
+		} else {
+			err = e.writeFrame(st.frame, tick)
+		}
+		if err != nil {
+			t.Fatalf("step %d: %v", i, err)
+		}
+		if st.sent {
+			want++
+		}
+	}
+	waitN(t, sink.got, want)
+	e.remove(v)
+	j := 0
+	for i, st := range steps {
+		if !st.sent {
+			continue
+		}
+		if !bytes.Equal(sink.frames[j], st.frame) || sink.fwd[j] != st.forward {
+			t.Errorf("step %d: viewer frame %d is %x forwarded=%v, want %x forwarded=%v", i, j, sink.frames[j], sink.fwd[j], st.frame, st.forward)
+		}
+		j++
+	}
+	rs := reasons.get()
+	if len(rs) < 2 || rs[1] != KeyframeSourceSwitch {
+		t.Errorf("keyframe reasons %v, want viewer-joined then source-switch", rs)
+	}
+	st := e.stats()
+	if st.FramesIn != 9 || st.FramesForwarded != 5 || st.FramesSkipped != 4 || st.FramesSent != 5 {
+		t.Errorf("stats %+v", st)
+	}
+	if err := e.forwardFrame(forwarded(deltaFrame, 4, 1, 0).parts[1:], 0, tick); !errors.Is(err, ErrBadForward) {
+		t.Errorf("parts without a frame start: %v, want ErrBadForward", err)
 	}
 }

@@ -14,6 +14,11 @@ var (
 	// ErrEmptyFrame is returned by WriteFrame for a zero-length frame.
 	ErrEmptyFrame = errors.New("console: empty VP8 frame; pass the encoder's output for one frame")
 
+	// ErrBadForward is returned by ForwardFrame when the first part does
+	// not start a VP8 frame (S=1, PID=0) or carries no data: pass the parts
+	// of one complete frame as the assembler delivered them.
+	ErrBadForward = errors.New("console: forwarded parts do not start a VP8 frame; pass one complete frame's parts")
+
 	// ErrBadDuration is returned by WriteFrame for a frame duration <= 0.
 	ErrBadDuration = errors.New("console: frame duration must be > 0 (the display tick period)")
 

@@ -2,6 +2,8 @@ package console
 
 import (
 	"github.com/pion/rtp"
+
+	"stopgap/stream/vp8splice"
 )
 
 // ticks90k converts nanoseconds on the egress timeline to 90 kHz RTP clock
@@ -14,29 +16,50 @@ type rtpWriter interface {
 	WriteRTP(p *rtp.Packet) error
 }
 
-// rtpSink packetises frames for one viewer. RTP timestamps follow the egress
-// timeline, so a frame skipped for this viewer (waiting for a keyframe)
-// leaves a timestamp gap of its duration rather than shifting later frames;
-// sequence numbers stay continuous because no packet was sent.
+// rtpSink sends frames to one viewer as one RTP stream, whichever source
+// they come from (vp8splice.Splicer): frames the relay encoded are
+// packetised, frames forwarded from the vehicle keep their packets with
+// sequence numbers, timestamps, picture IDs and TL0PICIDX rewritten.
+//
+// RTP timestamps of encoded frames, and of the first forwarded frame after
+// them, follow the egress timeline: a frame skipped for this viewer (waiting
+// for a keyframe) leaves a timestamp gap of its duration rather than
+// shifting later frames; sequence numbers stay continuous because no packet
+// was sent. Within a run of forwarded frames the vehicle's own timestamp
+// steps are kept.
+//
+// Retransmissions: every packet goes through the track's interceptors,
+// whose NACK responder (pion's default interceptors) keeps the last packets
+// sent in a bounded buffer and answers the viewer's NACKs from it, for
+// forwarded and encoded packets alike.
 type rtpSink struct {
-	packetizer rtp.Packetizer
-	out        rtpWriter
-	started    bool
-	endNs      int64 // timeline end of the last frame sent
+	splicer vp8splice.Splicer
+	out     rtpWriter
+	started bool
+	startNs int64 // timeline start of the last frame sent
+	pkts    []rtp.Packet
 }
 
-// writeFrame sends frame placed at [startNs, startNs+durNs) on the timeline.
-// frame is only read during the call.
-func (s *rtpSink) writeFrame(frame []byte, startNs, durNs int64) error {
-	if s.started && startNs > s.endNs {
-		s.packetizer.SkipSamples(uint32(ticks90k(startNs) - ticks90k(s.endNs)))
+// writeFrame sends the frame in b placed at startNs on the timeline. b is
+// only read during the call.
+func (s *rtpSink) writeFrame(b *sharedBuf, startNs, durNs int64) error {
+	var step uint32
+	if s.started {
+		step = uint32(ticks90k(startNs) - ticks90k(s.startNs))
 	}
-	s.started = true
-	s.endNs = startNs + durNs
-	pkts := s.packetizer.Packetize(frame, uint32(ticks90k(startNs+durNs)-ticks90k(startNs)))
+	var err error
+	if b.source() == vp8splice.SourceForwarded {
+		s.pkts, err = s.splicer.Forward(s.pkts[:0], vp8splice.ForwardFrame{Parts: b.parts, RTPTimestamp: b.ts, StepTicks: step})
+	} else {
+		s.pkts, err = s.splicer.Encode(s.pkts[:0], b.data, step)
+	}
+	if err != nil {
+		return err
+	}
+	s.started, s.startNs = true, startNs
 	var firstErr error
-	for _, p := range pkts {
-		if err := s.out.WriteRTP(p); err != nil && firstErr == nil {
+	for i := range s.pkts {
+		if err := s.out.WriteRTP(&s.pkts[i]); err != nil && firstErr == nil {
 			firstErr = err
 		}
 	}

@@ -4,14 +4,15 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"math/rand/v2"
 	"strings"
 	"sync"
 	"time"
 
 	"github.com/pion/rtcp"
-	"github.com/pion/rtp"
-	"github.com/pion/rtp/codecs"
 	"github.com/pion/webrtc/v4"
+
+	"stopgap/stream/vp8splice"
 )
 
 // rtpMTU is the RTP packet size limit for the egress, bytes; pion uses 1200
@@ -49,7 +50,7 @@ func (s *session) isAttached() bool {
 	return s.attached
 }
 
-func (s *session) sendVideo(frame []byte, startNs, durNs int64) error {
+func (s *session) sendVideo(frame *sharedBuf, startNs, durNs int64) error {
 	return s.sink.writeFrame(frame, startNs, durNs)
 }
 
@@ -170,10 +171,12 @@ func (c *Console) setupSession(ctx context.Context, s *session, offer string) (s
 	if err != nil {
 		return "", fmt.Errorf("console: meta channel: %w", err)
 	}
-	// SSRC and payload type are rewritten per binding by the track.
+	// SSRC and payload type are rewritten per binding by the track; the
+	// first sequence number and picture ID are random (RFC 3550 section
+	// 5.1).
 	s.sink = rtpSink{
-		packetizer: rtp.NewPacketizer(rtpMTU, 0, 0, &codecs.VP8Payloader{EnablePictureID: true}, rtp.NewRandomSequencer(), 90000),
-		out:        track,
+		splicer: vp8splice.Splicer{MTU: rtpMTU, FirstSeq: uint16(rand.Uint32()), FirstPictureID: uint16(rand.Uint32()) & 0x7fff},
+		out:     track,
 	}
 	s.v = newViewer(s.num, s, c.cfg.VideoQueueFrames, c.cfg.MetaQueue)
 

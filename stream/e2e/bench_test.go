@@ -68,7 +68,10 @@ func quantile(sorted []float64, q float64) float64 {
 
 // BenchmarkLoopback1280x720 streams one 1280x720 30 fps drive from the
 // simulated vehicle through the relay to a Go viewer of the console, all on
-// loopback with a perfect link, for 4 s per iteration. Each output frame is
+// loopback with a perfect link, for 4 s per iteration, once with LIVE frames
+// passed through (mode=passthru, the default) and once with every frame
+// through the relay's encoder (mode=transcode), one after the other in the
+// same run; the parent logs the ratios of the two. Each output frame is
 // traced in the relay (Relay.TraceFrames: its input's decode time, its encode
 // time, when it was written) and matched to its arrival at the viewer (the
 // marker packet of the output video frame) and, for LIVE frames, to the
@@ -84,18 +87,47 @@ func quantile(sorted []float64, q float64) float64 {
 //     decode and display);
 //   - added-p50-ms, added-p99-ms: the same per frame minus that frame's own
 //     relay decode and encode times (the relay's added latency without the
-//     codec, to the viewer's socket);
+//     codec, to the viewer's socket); a frame that passed through had
+//     neither on its path, so nothing is subtracted;
+//   - fwd-p50-ms, fwd-p99-ms (pass-through): for LIVE frames that passed
+//     through, the relay's own part: from the arrival of the frame's last
+//     packet (the relay holds a frame's packets until it is complete) to
+//     console.ForwardFrame returning, when every packet of the frame is
+//     queued to the viewer's connection;
+//   - forwarded-share: LIVE frames that passed through / LIVE frames;
 //   - relay-added-mean-ms: the relay's own measure (last packet to
 //     WriteFrame without decode and encode, /metrics sum/count);
 //   - decode-ms, encode-ms: the relay's mean VP8 decode (+ I420->BGR) and
 //     encode per frame; vehicle-encode-ms: the vehicle's encoder;
 //   - cpu-cores: process CPU time / wall time (getrusage), vehicle and
-//     viewer included;
+//     viewer included; relay-cpu-cores: the same less the CPU time of the
+//     vehicle's encoder thread (simvehicle Stats.EncodeCPU), i.e. the relay
+//     plus the viewer's packet reads and both ends' SRTP;
 //   - kept-up: output frames received by the viewer / frames the vehicle sent.
 //
-// Target: added-p99-ms below one frame period (33.3 ms).
+// Targets: added-p99-ms below one frame period (33.3 ms); with
+// pass-through, fwd-p99-ms at most 2 ms and relay-cpu-cores at most a third
+// of mode=transcode's.
 func BenchmarkLoopback1280x720(b *testing.B) {
-	r := startRig(b, rigOptions{width: 1280, height: 720, driveS: 3, cacheFrames: true})
+	res := map[string]loopbackResult{}
+	for _, mode := range []string{"passthru", "transcode"} {
+		b.Run("mode="+mode, func(b *testing.B) { res[mode] = benchLoopback(b, mode == "transcode") })
+	}
+	pt, tc := res["passthru"], res["transcode"]
+	if pt.relayCores > 0 && tc.relayCores > 0 {
+		b.Logf("pass-through / transcode in this run: relay CPU %.3f / %.3f cores = %.2f (target <= 0.33); LIVE added p99 %.2f ms (forwarding p99 %.2f ms) vs %.2f ms without the codec",
+			pt.relayCores, tc.relayCores, pt.relayCores/tc.relayCores, pt.addedP99, pt.fwdP99, tc.addedP99)
+	}
+}
+
+// loopbackResult are the figures one mode's last iteration reported.
+type loopbackResult struct {
+	relayCores, addedP99, fwdP99 float64
+}
+
+func benchLoopback(b *testing.B, transcode bool) loopbackResult {
+	var res loopbackResult
+	r := startRig(b, rigOptions{width: 1280, height: 720, driveS: 3, cacheFrames: true, alwaysTranscode: transcode})
 	ctx, cancel := context.WithTimeout(context.Background(), 30*time.Second)
 	defer cancel()
 	v, err := dialViewer(ctx, r.base, consoleToken)
@@ -161,13 +193,17 @@ func BenchmarkLoopback1280x720(b *testing.B) {
 			}
 		}
 		offsetUs := modeOffsetUs(liveTicks, vframes)
-		var e2e, added []float64
-		live, unmatched := 0, 0
+		var e2e, added, fwd []float64
+		live, unmatched, forwarded := 0, 0, 0
 		for i, tr := range window {
 			if tr.State != console.StateLive {
 				continue
 			}
 			live++
+			if tr.Forwarded {
+				forwarded++
+				fwd = append(fwd, float64(tr.WrittenAt.Sub(tr.LastPacketAt).Microseconds())/1000)
+			}
 			best, bestD := -1, int64(math.MaxInt64)
 			for j, f := range vframes {
 				if d := abs64(tr.TickUs - offsetUs - f.captureUs); d < bestD {
@@ -185,10 +221,14 @@ func BenchmarkLoopback1280x720(b *testing.B) {
 			}
 			d := arrival[i].Sub(in)
 			e2e = append(e2e, float64(d.Microseconds())/1000)
-			added = append(added, float64((d-tr.Decode-tr.Encode).Microseconds())/1000)
+			if !tr.Forwarded {
+				d -= tr.Decode + tr.Encode
+			}
+			added = append(added, float64(d.Microseconds())/1000)
 		}
 		slices.Sort(e2e)
 		slices.Sort(added)
+		slices.Sort(fwd)
 		mean := func(name string) float64 {
 			n := m1[name+"_count"] - m0[name+"_count"]
 			if n <= 0 {
@@ -206,7 +246,16 @@ func BenchmarkLoopback1280x720(b *testing.B) {
 		b.ReportMetric(mean("stopgap_decode_seconds"), "decode-ms")
 		b.ReportMetric(mean("stopgap_encode_seconds"), "encode-ms")
 		b.ReportMetric(float64((vs1.EncodeTotal-vs0.EncodeTotal).Microseconds())/1000/max(framesIn, 1), "vehicle-encode-ms")
-		b.ReportMetric(float64(cpu1-cpu0)/float64(wall1.Sub(wall0)), "cpu-cores")
+		wall := float64(wall1.Sub(wall0))
+		b.ReportMetric(float64(cpu1-cpu0)/wall, "cpu-cores")
+		res.relayCores = float64(cpu1-cpu0-(vs1.EncodeCPU-vs0.EncodeCPU)) / wall
+		b.ReportMetric(res.relayCores, "relay-cpu-cores")
+		res.addedP99, res.fwdP99 = quantile(added, 0.99), quantile(fwd, 0.99)
+		if !transcode {
+			b.ReportMetric(quantile(fwd, 0.5), "fwd-p50-ms")
+			b.ReportMetric(res.fwdP99, "fwd-p99-ms")
+			b.ReportMetric(float64(forwarded)/max(float64(live), 1), "forwarded-share")
+		}
 		b.ReportMetric(framesOut/max(framesIn, 1), "kept-up")
 		b.ReportMetric(float64(live)/max(float64(len(window)), 1), "live-share")
 		b.Logf("window %v: vehicle frames %v, relay output frames %d (delivered to the viewer %d; LIVE %d, matched %d, unmatched %d), viewer frames %v, metas %d, vehicle skipped %d, tick time - capture time %.1f ms",
@@ -216,7 +265,11 @@ func BenchmarkLoopback1280x720(b *testing.B) {
 		if len(e2e) < 10 || len(e2e) < live/2 {
 			b.Errorf("only %d of %d LIVE frames matched to their input and their delivery: the latency figures do not describe the run (is the machine keeping up? see kept-up and the relay's dropped frames)", len(e2e), live)
 		}
+		if !transcode && forwarded < live/2 {
+			b.Errorf("only %d of %d LIVE frames passed through: the pass-through figures do not describe the run", forwarded, live)
+		}
 	}
+	return res
 }
 
 // matchDeliveries pairs the relay's output frames (traces, in the order

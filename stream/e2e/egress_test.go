@@ -10,18 +10,18 @@ import (
 
 // egressEnv selects how the relay sends LIVE frames to the console in the
 // capacity, fault and soak runs of this package, so the same runs measure
-// every egress mode: "transcode" (decode, fill, re-encode every tick; the
-// default while it is the only mode) or the name of another mode once the
-// relay has one.
+// every egress mode: "passthru" (the relay's default: LIVE frames are
+// forwarded as the vehicle sent them) or "transcode" (decode, fill,
+// re-encode every tick; relay.Config.AlwaysTranscode).
 const egressEnv = "STOPGAP_E2E_EGRESS"
 
 // egressMode returns the mode named by STOPGAP_E2E_EGRESS ("transcode" when
-// unset).
+// unset: the relay's default).
 func egressMode() string {
 	if m := os.Getenv(egressEnv); m != "" {
 		return m
 	}
-	return "transcode"
+	return "passthru"
 }
 
 // applyEgress sets the relay's egress mode in cfg. It is the one place that
@@ -29,10 +29,14 @@ func egressMode() string {
 // is an error, and the callers skip rather than measure the wrong thing.
 func applyEgress(cfg *relay.Config, mode string) error {
 	switch mode {
+	case "passthru":
+		cfg.AlwaysTranscode = false
+		return nil
 	case "transcode":
-		return nil // the relay's only egress today: every tick is encoded
+		cfg.AlwaysTranscode = true
+		return nil
 	default:
-		return fmt.Errorf("%s=%q: this relay has no such egress mode (known: transcode)", egressEnv, mode)
+		return fmt.Errorf("%s=%q: this relay has no such egress mode (known: passthru, transcode)", egressEnv, mode)
 	}
 }
 

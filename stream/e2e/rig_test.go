@@ -37,6 +37,12 @@ type rigOptions struct {
 	cacheFrames   bool
 	bitrateBps    int
 	vehicleCPU    int
+	// alwaysTranscode: every frame through the relay's encoder
+	// (relay.Config.AlwaysTranscode); the default is pass-through.
+	alwaysTranscode bool
+	// keepWire keeps a copy of every packet the link lets through
+	// (rig.wirePkts), to decode the vehicle's stream afterwards.
+	keepWire bool
 }
 
 // wireEvent is one packet at the link's wire filter.
@@ -58,10 +64,11 @@ type rig struct {
 	rec       *recording.Recording
 	recordDir string
 
-	mu     sync.Mutex
-	wire   []wireEvent
-	plis   []time.Time // keyframe requests as received by the vehicle
-	frames []simvehicle.FrameInfo
+	mu       sync.Mutex
+	wire     []wireEvent
+	wirePkts []rtp.Packet // with rigOptions.keepWire: packets kept by the link, in wire order
+	plis     []time.Time  // keyframe requests as received by the vehicle
+	frames   []simvehicle.FrameInfo
 
 	stopVehicle context.CancelFunc
 	vehDone     chan error
@@ -114,6 +121,9 @@ func startRig(t testing.TB, o rigOptions) *rig {
 	if err != nil {
 		t.Skip(err)
 	}
+	if o.alwaysTranscode {
+		cfg.AlwaysTranscode = true // a run that compares both modes asks for this one
+	}
 	r.relay, err = relay.New(cfg)
 	if err != nil {
 		t.Fatal(err)
@@ -154,6 +164,9 @@ func startRig(t testing.TB, o rigOptions) *rig {
 			keep := r.link.Keep(h, payload)
 			r.mu.Lock()
 			r.wire = append(r.wire, wireEvent{at: time.Now(), kept: keep, seq: h.SequenceNumber, ts: h.Timestamp, marker: h.Marker})
+			if keep && o.keepWire {
+				r.wirePkts = append(r.wirePkts, rtp.Packet{Header: h.Clone(), Payload: append([]byte(nil), payload...)})
+			}
 			r.mu.Unlock()
 			return keep
 		},

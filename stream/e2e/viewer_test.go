@@ -12,6 +12,7 @@ import (
 	"time"
 
 	"github.com/pion/ice/v4"
+	"github.com/pion/rtp"
 	"github.com/pion/webrtc/v4"
 
 	"stopgap/stream/console"
@@ -31,6 +32,8 @@ type viewer struct {
 	mu        sync.Mutex
 	metas     []metaEvent
 	frameEnds []time.Time // arrival of each output frame's marker packet
+	keep      bool        // keep every video packet received (pkts)
+	pkts      []rtp.Packet
 }
 
 // dialViewer connects a viewer to the console at base with the console token.
@@ -82,6 +85,11 @@ func dialViewer(ctx context.Context, base, token string) (*viewer, error) {
 				v.frameEnds = append(v.frameEnds, at)
 				v.mu.Unlock()
 			}
+			v.mu.Lock()
+			if v.keep {
+				v.pkts = append(v.pkts, *pkt.Clone())
+			}
+			v.mu.Unlock()
 		}
 	})
 	offer, err := pc.CreateOffer(nil)

@@ -76,6 +76,14 @@ type Config struct {
 	// Encoder configures the egress VP8 encoder; Width and Height are taken
 	// from Camera and FrameRateHz from FPS when zero.
 	Encoder vp8.EncoderConfig
+	// AlwaysTranscode sends every frame through the relay's encoder, LIVE
+	// frames too, so the console gets one encoder's stream at the
+	// Encoder's bitrate. The default (false) is pass-through: LIVE frames
+	// are forwarded as the vehicle sent them, as soon as each is complete
+	// and its VP8 header checks out, and the encoder only makes PREDICTED
+	// and STALE frames and bridges to the vehicle's next keyframe (see
+	// stopgap/stream/passthru).
+	AlwaysTranscode bool
 
 	// IngestToken is the WHIP bearer token (required; at least
 	// console.MinTokenLen characters). Never logged.

@@ -5,6 +5,17 @@
 // LIVE when the real frame is here, otherwise PREDICTED or STALE from the
 // gap filler (package stopgap/predictor).
 //
+// # Pass-through
+//
+// By default a LIVE frame is not re-encoded: the ingest forwards the
+// vehicle's packets to the console (Console.ForwardFrame) as soon as the
+// frame is complete and its VP8 header checks out, then decodes it for the
+// gap filler; the display loop sends only its meta. The relay's encoder makes
+// the PREDICTED and STALE frames, starting with a keyframe, and the LIVE ones
+// until the vehicle's next keyframe, from which frames pass through again.
+// The rule and its reasons are in package stopgap/stream/passthru.
+// Config.AlwaysTranscode encodes every frame instead.
+//
 // # Display schedule
 //
 // The relay decides nothing about a tick itself: its display loop drives

@@ -23,9 +23,12 @@ type FrameTrace struct {
 	Decode       time.Duration
 	// Encode is the egress VP8 encode time of this output frame, and
 	// WrittenAt when console.WriteFrame returned for it (its packets are
-	// then queued to the operator's connection).
+	// then queued to the operator's connection). For a frame that passed
+	// through (Forwarded), Encode is zero and WrittenAt is when
+	// console.ForwardFrame returned, before the decode.
 	Encode    time.Duration
 	WrittenAt time.Time
+	Forwarded bool
 }
 
 // frameTracer holds the function TraceFrames installed, if any.

@@ -70,6 +70,9 @@ type fakeVehicle struct {
 	// keeps every frame as sent, by index.
 	mutate func(i int, frame []byte) []byte
 	sent   [][]byte
+	// mangle, if set, may damage frame i's VP8 data before it is
+	// packetised (it returns the data to send).
+	mangle func(i int, frame []byte) []byte
 
 	enc  *vp8.Encoder
 	pkz  *rtpvp8.Packetizer
@@ -141,6 +144,9 @@ func (v *fakeVehicle) generate(i int) {
 	if v.mutate != nil {
 		frame = v.mutate(i, frame)
 		v.sent = append(v.sent, frame)
+	}
+	if v.mangle != nil {
+		frame = v.mangle(i, append([]byte(nil), frame...))
 	}
 	pk, err := v.pkz.Packetize(nil, frame, rtpTS(i))
 	if err != nil {

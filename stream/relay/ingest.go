@@ -10,6 +10,7 @@ import (
 
 	"stopgap/filter"
 	"stopgap/stream/ingest"
+	"stopgap/stream/passthru"
 	"stopgap/stream/rtpvp8"
 	"stopgap/stream/telemetry"
 	"stopgap/stream/vp8"
@@ -30,6 +31,11 @@ type frameEvent struct {
 	hasShift   bool
 	vehicleClk bool   // captureUs is on the vehicle clock (a sender report was used)
 	rtpTS      uint32 // the frame's RTP timestamp (90 kHz), recorded for pairing
+	// forwarded: the frame's packets went to the console as they were
+	// (pass-through, stopgap/stream/passthru) at forwardedAt, before the
+	// decode; the display loop sends its meta only.
+	forwarded   bool
+	forwardedAt time.Time
 }
 
 // telEvent is one decoded telemetry sample.
@@ -49,6 +55,7 @@ type frameIngest struct {
 
 	lastKeyReq  time.Time
 	lastArrival time.Time // arrival of the latest packet
+	fwd         forwardSender
 	// The capture timeline: RTP timestamp refTS was captured at refUs
 	// (arrival-anchored until the first sender report, then on the
 	// vehicle clock); later timestamps are unwrapped from it.
@@ -151,6 +158,10 @@ func (in *frameIngest) runTimers(ctx context.Context) {
 		in.asm.Expire(now)
 		if in.dec.NeedKeyframe() && now.Sub(in.lastKeyReq) >= in.p.cfg.KeyframeRetry {
 			in.requestKeyframeLocked(now, "retry")
+		} else if in.p.r.gate.WantKeyframe() && now.Sub(in.lastKeyReq) >= in.p.cfg.KeyframeRetry {
+			// Pass-through resumes on the vehicle's next keyframe, and a
+			// console viewer can only start on one.
+			in.requestKeyframeLocked(now, "pass-through")
 		}
 		in.mu.Unlock()
 		t.Reset(every)
@@ -170,17 +181,22 @@ func (in *frameIngest) requestKeyframeLocked(now time.Time, why string) {
 
 // onLoss is called by the assembler (in.mu held).
 func (in *frameIngest) onLoss(l rtpvp8.Loss) {
+	in.p.r.gate.Lost()
 	in.p.r.met.losses.Add(1)
 	in.dec.Lost()
 	in.p.log.Debug("frame loss", "reason", l.Reason.String(), "missing_packets", l.Missing)
 	in.requestKeyframeLocked(in.p.cfg.Now(), "loss")
 }
 
-// onFrame decodes a complete frame (in.mu held) and hands it to the display.
+// onFrame forwards a complete frame to the console if the pass-through gate
+// says so, then decodes it (in.mu held) and hands it to the display.
 func (in *frameIngest) onFrame(f rtpvp8.Frame) {
 	p := in.p
+	fwd, fwdAt := in.forward(f)
 	t0 := p.cfg.Now()
-	if err := in.dec.Decode(f.Data, &in.img); err != nil {
+	err := in.dec.Decode(f.Data, &in.img)
+	p.r.gate.Decoded(fwd, err == nil || errors.Is(err, vp8.ErrNotShown))
+	if err != nil {
 		if errors.Is(err, vp8.ErrNotShown) {
 			return
 		}
@@ -222,11 +238,48 @@ func (in *frameIngest) onFrame(f rtpvp8.Frame) {
 	}
 	ready := p.cfg.Now()
 	ev := frameEvent{mat: mat, readyAt: ready, readyUs: ready.UnixMicro(), lastPktAt: f.ArrivalLast,
-		lastPktUs: f.ArrivalLast.UnixMicro(), decodeDur: ready.Sub(t0)}
+		lastPktUs: f.ArrivalLast.UnixMicro(), decodeDur: ready.Sub(t0), forwarded: fwd, forwardedAt: fwdAt}
 	in.captureTime(f, &ev)
 	p.r.met.framesIn.Add(1)
 	p.r.met.decode.observe(ev.decodeDur)
 	p.frames <- ev // never blocks: at most len(pool) mats exist
+}
+
+// forward offers the frame to the pass-through gate, which sends it to the
+// console's viewers at once if the run of forwarded frames allows (see
+// stopgap/stream/passthru for the rule); it reports whether it did and when.
+// The frame is complete and its VP8 header checked (the assembler's
+// delivery); its decode follows.
+func (in *frameIngest) forward(f rtpvp8.Frame) (bool, time.Time) {
+	p := in.p
+	gf := passthru.Frame{Keyframe: f.Keyframe, RefsMissing: f.RefsMissing,
+		SizeOK: f.Width == p.cfg.Camera.Width && f.Height == p.cfg.Camera.Height}
+	in.fwd = forwardSender{in: in, parts: f.Parts, rtpTS: f.RTPTimestamp}
+	ok := p.r.gate.Offer(gf, &in.fwd)
+	if ok {
+		p.r.met.addedLatency.observe(in.fwd.at.Sub(f.ArrivalLast))
+	}
+	at := in.fwd.at
+	in.fwd = forwardSender{}
+	return ok, at
+}
+
+// forwardSender is the passthru.Sender of the frame being offered; the
+// ingest keeps one, so forwarding allocates nothing.
+type forwardSender struct {
+	in    *frameIngest
+	parts []rtpvp8.Part
+	rtpTS uint32
+	at    time.Time // when ForwardFrame returned
+}
+
+// Send passes the frame's packets to the console.
+func (s *forwardSender) Send() error {
+	p := s.in.p
+	period := time.Duration(p.cfg.periodUs() * float64(time.Microsecond))
+	err := p.r.console.ForwardFrame(s.parts, s.rtpTS, period)
+	s.at = p.cfg.Now()
+	return err
 }
 
 // captureTime maps the frame's RTP timestamp to the vehicle clock.

@@ -11,6 +11,7 @@ import (
 	"time"
 
 	"stopgap/predictor"
+	"stopgap/stream/passthru"
 )
 
 // histogram is a fixed-bucket Prometheus histogram of durations in seconds.
@@ -160,7 +161,7 @@ func (m *metrics) setCurrent(st predictor.State, ageMs float64) {
 // writeText writes the metrics in the Prometheus text exposition format
 // (version 0.0.4). Every name starts with MetricPrefix; state label values
 // are the lower-case String names of predictor.State.
-func (m *metrics) writeText(w io.Writer, active int) {
+func (m *metrics) writeText(w io.Writer, active int, pt passthru.Stats) {
 	const p = MetricPrefix
 	counter := func(name, help string, v uint64) {
 		name = p + name + "_total"
@@ -190,6 +191,11 @@ func (m *metrics) writeText(w io.Writer, active int) {
 		fmt.Fprintf(w, "%sframe_state{state=%q} %d\n", p, strings.ToLower(s.st.String()), v)
 	}
 	gauge("picture_age_seconds", "Picture age of the latest display tick: time from the capture of the newest real frame on screen to the tick.", float64(m.pictureAge.Load())/1e6)
+	counter("frames_forwarded", "Video frames passed through to the console untouched (pass-through mode).", pt.Forwarded)
+	fmt.Fprintf(w, "# HELP %[1]spassthru_stops_total Runs of passed-through frames ended, by reason (the relay's encoder took over until the next vehicle keyframe).\n# TYPE %[1]spassthru_stops_total counter\n", p)
+	for r := passthru.StopInvalid + 1; int(r) < len(pt.Stops); r++ {
+		fmt.Fprintf(w, "%spassthru_stops_total{reason=%q} %d\n", p, r.String(), pt.Stops[r])
+	}
 	counter("losses", "Frame losses: assembler loss events and decode errors.", m.losses.Load())
 	counter("decode_errors", "Frames the VP8 decoder could not decode.", m.decodeErrors.Load())
 	counter("keyframe_requests", "Keyframe requests (RTCP PLI) sent to the vehicle.", m.keyframeRequests.Load())
@@ -208,7 +214,7 @@ func (m *metrics) writeText(w io.Writer, active int) {
 	m.telemetryRejected.write(w, p+"telemetry_rejected_total", "reason", "Telemetry messages rejected, by reason (decode_* by the decoder, filter_* by the filter, queue_full, too_late: arrived later than the filter history after it was taken).")
 	m.rtpDropped.write(w, p+"rtp_dropped_total", "reason", "RTP packets not used, by reason.")
 	gauge("active_sessions", "Ingest sessions being served now.", float64(active))
-	m.addedLatency.write(w, p+"added_latency_seconds", "Time from the last packet of a LIVE frame to console WriteFrame, excluding decode and encode.")
+	m.addedLatency.write(w, p+"added_latency_seconds", "Time from the last packet of a LIVE frame to its hand-over to the console: ForwardFrame when passed through, else WriteFrame excluding decode and encode.")
 	m.decode.write(w, p+"decode_seconds", "VP8 decode plus I420 to BGR conversion per frame.")
 	m.encode.write(w, p+"encode_seconds", "VP8 encode per output frame.")
 	m.synth.write(w, p+"synth_seconds", "Gap filler time per PREDICTED or STALE tick.")

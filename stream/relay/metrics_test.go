@@ -6,6 +6,7 @@ import (
 	"testing"
 
 	"stopgap/predictor"
+	"stopgap/stream/passthru"
 )
 
 // TestMetricNames checks the exposition against Prometheus naming practice
@@ -19,7 +20,7 @@ func TestMetricNames(t *testing.T) {
 	m.keyframeRequestsFailed.Add(3)
 	m.setCurrent(predictor.StatePredicted, 133.4)
 	var b strings.Builder
-	m.writeText(&b, 1)
+	m.writeText(&b, 1, passthru.Stats{})
 	text := b.String()
 
 	types := map[string]string{}

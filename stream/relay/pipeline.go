@@ -358,39 +358,25 @@ func (p *pipeline) Missing(t cadence.Tick) {
 // emit encodes the output frame and sends it with its meta to the console.
 // t is the display clock's tick, whose cutoff is the one decided with and
 // recorded; captureUs is the frame's capture time (LIVE) or t's target.
+// A LIVE frame that passed through (ev.forwarded) was sent by the ingest
+// already: only its meta goes out here.
 func (p *pipeline) emit(t cadence.Tick, captureUs int64, tick predictor.Tick, ev *frameEvent) {
-	buf, err := p.out.DataPtrUint8()
-	if err != nil {
-		p.log.Warn("output frame unusable", "err", err)
-		p.recordNotShown(t)
-		return
-	}
-	t0 := p.cfg.Now()
-	// The encoder's timestamps only steer its rate control and must
-	// increase: one tick period per output frame, across sessions too
-	// (capture times can step back when a session moves onto the vehicle
-	// clock or a new session starts).
-	p.r.encPtsUs += int64(math.Round(p.cfg.periodUs()))
-	frame, _, err := p.r.enc.EncodeBGR(p.encBuf[:0], buf, p.r.encPtsUs)
-	encDur := p.cfg.Now().Sub(t0)
-	if err != nil {
-		p.log.Warn("encoding the output frame failed", "err", err)
-		p.recordNotShown(t)
-		return
-	}
-	p.encBuf = frame
-	p.r.met.encode.observe(encDur)
-	period := time.Duration(p.cfg.periodUs() * float64(time.Microsecond))
-	if err := p.r.console.WriteFrame(frame, period); err != nil && !errors.Is(err, console.ErrClosed) {
-		p.log.Warn("console write failed", "err", err)
-	}
-	trace := p.r.tracer.fn.Load()
+	var encDur time.Duration
 	var writtenAt time.Time
-	if trace != nil {
-		writtenAt = p.cfg.Now()
-	}
-	if ev != nil {
-		p.r.met.addedLatency.observe(p.cfg.Now().Sub(ev.lastPktAt) - ev.decodeDur - encDur)
+	trace := p.r.tracer.fn.Load()
+	if ev != nil && ev.forwarded {
+		writtenAt = ev.forwardedAt
+	} else {
+		var ok bool
+		if encDur, ok = p.encodeOwn(t); !ok {
+			return
+		}
+		if trace != nil {
+			writtenAt = p.cfg.Now()
+		}
+		if ev != nil {
+			p.r.met.addedLatency.observe(p.cfg.Now().Sub(ev.lastPktAt) - ev.decodeDur - encDur)
+		}
 	}
 	cutoff := t.Policy.CutoffConfidence
 	var st console.State
@@ -421,10 +407,47 @@ func (p *pipeline) emit(t cadence.Tick, captureUs int64, tick predictor.Tick, ev
 	if trace != nil {
 		tr := FrameTrace{Seq: p.meta.Seq, TickUs: captureUs, State: st, Encode: encDur, WrittenAt: writtenAt}
 		if ev != nil {
-			tr.LastPacketAt, tr.Decode = ev.lastPktAt, ev.decodeDur
+			tr.LastPacketAt, tr.Decode, tr.Forwarded = ev.lastPktAt, ev.decodeDur, ev.forwarded
 		}
 		(*trace)(tr)
 	}
+}
+
+// encodeOwn encodes the output frame with the relay's encoder and writes it
+// to the console, under the pass-through gate (a frame of the relay's own
+// ends a run of forwarded frames and is then a keyframe). It returns the
+// encode time, or false if nothing was sent (tick t recorded as NOT_SHOWN).
+func (p *pipeline) encodeOwn(t cadence.Tick) (time.Duration, bool) {
+	buf, err := p.out.DataPtrUint8()
+	if err != nil {
+		p.log.Warn("output frame unusable", "err", err)
+		p.recordNotShown(t)
+		return 0, false
+	}
+	if p.r.gate.BeginOwn() {
+		p.r.enc.ForceKeyframe()
+	}
+	defer p.r.gate.EndOwn()
+	t0 := p.cfg.Now()
+	// The encoder's timestamps only steer its rate control and must
+	// increase: one tick period per output frame, across sessions too
+	// (capture times can step back when a session moves onto the vehicle
+	// clock or a new session starts).
+	p.r.encPtsUs += int64(math.Round(p.cfg.periodUs()))
+	frame, _, err := p.r.enc.EncodeBGR(p.encBuf[:0], buf, p.r.encPtsUs)
+	encDur := p.cfg.Now().Sub(t0)
+	if err != nil {
+		p.log.Warn("encoding the output frame failed", "err", err)
+		p.recordNotShown(t)
+		return 0, false
+	}
+	p.encBuf = frame
+	p.r.met.encode.observe(encDur)
+	period := time.Duration(p.cfg.periodUs() * float64(time.Microsecond))
+	if err := p.r.console.WriteFrame(frame, period); err != nil && !errors.Is(err, console.ErrClosed) {
+		p.log.Warn("console write failed", "err", err)
+	}
+	return encDur, true
 }
 
 // recordNotShown records tick t as NOT_SHOWN. Every decided tick gets a row

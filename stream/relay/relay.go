@@ -16,6 +16,7 @@ import (
 	"stopgap/predictor"
 	"stopgap/stream/console"
 	"stopgap/stream/ingest"
+	"stopgap/stream/passthru"
 	"stopgap/stream/vp8"
 	"stopgap/stream/whip"
 )
@@ -73,6 +74,7 @@ type Relay struct {
 	metricsTokenSum [32]byte
 	probe           probes // /readyz and /livez (probes.go)
 
+	gate     *passthru.Gate // pass-through of LIVE frames (Config.AlwaysTranscode turns it off)
 	incoming chan ingest.Session
 	encPtsUs int64 // last encoder timestamp; used only by the serving goroutine
 	tracer   frameTracer
@@ -92,7 +94,8 @@ func New(cfg Config) (*Relay, error) {
 	if err != nil {
 		return nil, err
 	}
-	r := &Relay{cfg: cfg, log: cfg.Logger, met: newMetrics(), incoming: make(chan ingest.Session, 1)}
+	r := &Relay{cfg: cfg, log: cfg.Logger, met: newMetrics(), incoming: make(chan ingest.Session, 1),
+		gate: &passthru.Gate{Off: cfg.AlwaysTranscode}}
 	r.metricsTokenSum = sha256.Sum256([]byte(cfg.ConsoleToken))
 
 	r.enc, err = vp8.NewEncoder(cfg.Encoder)
@@ -105,8 +108,11 @@ func New(cfg Config) (*Relay, error) {
 	if cc.Now == nil {
 		cc.Now = cfg.Now
 	}
-	enc := r.enc
-	cc.KeyframeNeeded = func(console.KeyframeReason) { enc.ForceKeyframe() }
+	enc, gate := r.enc, r.gate
+	cc.KeyframeNeeded = func(console.KeyframeReason) {
+		enc.ForceKeyframe()
+		gate.ViewerWantsKeyframe() // while frames pass through, only the vehicle can send one
+	}
 	r.console, err = console.New(cc)
 	if err != nil {
 		r.enc.Close()
@@ -339,7 +345,7 @@ func (r *Relay) metrics(w http.ResponseWriter, req *http.Request) {
 	if r.Stats().Active {
 		active = 1
 	}
-	r.met.writeText(w, active)
+	r.met.writeText(w, active, r.gate.Stats())
 }
 
 func short(id string) string {

@@ -130,6 +130,13 @@ type Frame struct {
 	FirstSeq, LastSeq uint16
 	// Packets is the number of media packets in the frame.
 	Packets int
+	// Parts are the frame's media packets in sequence order (padding-only
+	// packets left out): each one's payload descriptor, sequence number,
+	// marker bit and VP8 data, which is a sub-slice of Data. A relay that
+	// forwards the frame packet by packet keeps the sender's packet
+	// boundaries and descriptor fields from them. Like Data, Parts is owned
+	// by the [Assembler] and valid only until [Sink.OnFrame] returns.
+	Parts []Part
 	// Keyframe is true when the frame decodes without reference to others
 	// (P bit of the VP8 frame tag is 0).
 	Keyframe bool
@@ -155,6 +162,17 @@ type Frame struct {
 	// ArrivalFirst and ArrivalLast are the earliest and latest arrival
 	// times among the frame's packets.
 	ArrivalFirst, ArrivalLast time.Time
+}
+
+// Part is one media packet of a delivered [Frame].
+type Part struct {
+	// Desc is the packet's VP8 payload descriptor as received.
+	Desc Descriptor
+	// Seq is the packet's RTP sequence number and Marker its marker bit.
+	Seq    uint16
+	Marker bool
+	// Data is the VP8 data after the descriptor (never empty).
+	Data []byte
 }
 
 // LossReason tells why an [Assembler] gave up on packets.
@@ -445,6 +463,7 @@ type Assembler struct {
 	scanSize int
 
 	frame []byte // assembly buffer, reused
+	parts []Part // Frame.Parts, reused
 	stats Stats
 }
 
@@ -931,12 +950,15 @@ func (a *Assembler) deliver(last int64, noMarker bool, now time.Time) {
 		ArrivalFirst:  first.arrival,
 		ArrivalLast:   first.arrival,
 	}
+	parts := a.parts[:0]
 	for e := a.head; e <= last; e++ {
 		p := a.at(e)
 		if p.kind != slotMedia {
 			continue
 		}
+		off := len(buf)
 		buf = append(buf, p.data...)
+		parts = append(parts, Part{Desc: p.desc, Seq: uint16(e), Marker: p.marker, Data: buf[off:len(buf):len(buf)]})
 		f.Packets++
 		if p.arrival.Before(f.ArrivalFirst) {
 			f.ArrivalFirst = p.arrival
@@ -957,7 +979,9 @@ func (a *Assembler) deliver(last int64, noMarker bool, now time.Time) {
 	a.committed = true
 	a.lostOK = false
 	a.prevTS, a.prevOK = f.RTPTimestamp, true
+	a.parts = parts
 	f.Data = buf
+	f.Parts = parts
 	f.Keyframe = h.Keyframe
 	f.ShowFrame = h.ShowFrame
 	if h.Keyframe {

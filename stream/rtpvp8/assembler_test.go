@@ -1,6 +1,7 @@
 package rtpvp8
 
 import (
+	"bytes"
 	"errors"
 	"slices"
 	"testing"
@@ -461,6 +462,52 @@ func TestAssemblerFrameFields(t *testing.T) {
 	}
 	if !f.ArrivalFirst.Equal(t0) || !f.ArrivalLast.Equal(t0.Add(5*time.Millisecond)) {
 		t.Errorf("arrivals %v..%v, want t0..t0+5ms", f.ArrivalFirst, f.ArrivalLast)
+	}
+}
+
+// TestAssemblerFrameParts checks that a frame's parts are its packets as
+// sent: sequence numbers, marker, descriptor and data, in order, with a
+// padding-only packet in the middle left out, and that their data makes up
+// the frame.
+func TestAssemblerFrameParts(t *testing.T) {
+	steps := []tp{
+		{seq: 65534, ts: 9000, start: true, key: true, size: 7},
+		{seq: 65535, ts: 9000, size: 5},
+		{seq: 0, ts: 9000, pad: true},
+		{seq: 1, ts: 9000, marker: true, size: 3},
+	}
+	var checked bool
+	a, err := NewAssembler(AssemblerConfig{}, SinkFuncs{Frame: func(f Frame) {
+		checked = true
+		var joined []byte
+		media := []tp{steps[0], steps[1], steps[3]}
+		if len(f.Parts) != len(media) {
+			t.Fatalf("%d parts, want %d", len(f.Parts), len(media))
+		}
+		for i, p := range f.Parts {
+			want := media[i]
+			if p.Seq != want.seq || p.Marker != want.marker || p.Desc.Start != want.start || p.Desc.PictureID != 3 {
+				t.Errorf("part %d: seq %d marker %v start %v picture %d; want %d %v %v 3", i, p.Seq, p.Marker, p.Desc.Start, p.Desc.PictureID, want.seq, want.marker, want.start)
+			}
+			if !bytes.Equal(p.Data, want.vp8Data()) {
+				t.Errorf("part %d data %x, want %x", i, p.Data, want.vp8Data())
+			}
+			joined = append(joined, p.Data...)
+		}
+		if !bytes.Equal(joined, f.Data) {
+			t.Errorf("parts joined %x, frame data %x", joined, f.Data)
+		}
+	}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, s := range steps {
+		if err := a.Push(s.packet(), t0); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if !checked {
+		t.Fatal("no frame delivered")
 	}
 }
 

@@ -8,8 +8,10 @@ import (
 	"fmt"
 	"io"
 	"log/slog"
+	"runtime"
 	"sync"
 	"sync/atomic"
+	"syscall"
 	"time"
 
 	"github.com/pion/rtp"
@@ -99,6 +101,11 @@ type Stats struct {
 	Loops uint64
 	// EncodeTotal is the wall time spent in the VP8 encoder.
 	EncodeTotal time.Duration
+	// EncodeCPU is the CPU time of the encoder's thread spent in the VP8
+	// encoder (getrusage(2) RUSAGE_THREAD around each call, the goroutine
+	// locked to its thread): what the vehicle costs the process, for
+	// benchmarks that measure the relay beside a simulated vehicle.
+	EncodeCPU time.Duration
 	// Link are the link's counters.
 	Link LinkStats
 }
@@ -129,7 +136,7 @@ type Vehicle struct {
 	startCh   chan struct{}
 
 	frames, skipped, keyframes, kfRequests, telemetryRows, loops atomic.Uint64
-	encodeNs                                                     atomic.Int64
+	encodeNs, encodeCPUNs                                        atomic.Int64
 }
 
 // New checks cfg and prepares the vehicle (and with CacheFrames decodes
@@ -234,7 +241,7 @@ func (v *Vehicle) Stats() Stats {
 		FramesEncoded: v.frames.Load(), FramesSkipped: v.skipped.Load(),
 		Keyframes: v.keyframes.Load(), KeyframeRequests: v.kfRequests.Load(),
 		TelemetryRows: v.telemetryRows.Load(), Loops: v.loops.Load(),
-		EncodeTotal: time.Duration(v.encodeNs.Load()), Link: v.link.Stats(),
+		EncodeTotal: time.Duration(v.encodeNs.Load()), EncodeCPU: time.Duration(v.encodeCPUNs.Load()), Link: v.link.Stats(),
 	}
 }
 
@@ -384,11 +391,15 @@ func (v *Vehicle) playFrames(ctx context.Context, enc *vp8.Encoder, pk *rtpvp8.P
 			if err := v.clock.WaitUntil(ctx, due); err != nil {
 				return err
 			}
+			runtime.LockOSThread()
+			cpu0 := threadCPU()
 			t0 := time.Now()
 			var key bool
 			var err error
 			out, key, err = enc.Encode(out, src, rel)
 			dur := time.Since(t0)
+			v.encodeCPUNs.Add(int64(threadCPU() - cpu0))
+			runtime.UnlockOSThread()
 			v.encodeNs.Add(int64(dur))
 			if err != nil {
 				v.log.Warn("encode failed; the next frame will be a keyframe", "frame", i, "err", err)
@@ -475,4 +486,15 @@ func (v *Vehicle) playTelemetry(ctx context.Context) error {
 			return nil
 		}
 	}
+}
+
+// threadCPU returns the calling thread's user + system CPU time
+// (getrusage(2) with RUSAGE_THREAD, Linux), or 0 where it is not available.
+func threadCPU() time.Duration {
+	const rusageThread = 1 // RUSAGE_THREAD, linux/resource.h
+	var ru syscall.Rusage
+	if err := syscall.Getrusage(rusageThread, &ru); err != nil {
+		return 0
+	}
+	return time.Duration(ru.Utime.Nano() + ru.Stime.Nano())
 }

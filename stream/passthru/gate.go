@@ -1,0 +1,190 @@
+package passthru
+
+import (
+	"sync"
+	"sync/atomic"
+)
+
+// Gate is the pass-through decision of one relay, shared by the ingest
+// goroutine (Offer, Decoded, Lost) and the display loop (BeginOwn,
+// EndOwn). All methods are safe for concurrent use. The zero value passes
+// frames through.
+type Gate struct {
+	// Off makes every frame go through the relay's encoder
+	// (always-transcode). Set it before first use.
+	Off bool
+
+	mu       sync.Mutex
+	run      bool        // a run of forwarded frames is open
+	own      bool        // the display loop is encoding and writing its own frame
+	lastFwd  bool        // the last frame sent to the console was forwarded
+	wantKey  atomic.Bool // a viewer needs a keyframe: ask the vehicle (no lock: see ViewerWantsKeyframe)
+	forwards atomic.Uint64
+	stops    [stopReasonCount]atomic.Uint64
+}
+
+// StopReason says why a run of forwarded frames ended.
+type StopReason uint8
+
+// Stop reasons. The zero value is invalid.
+const (
+	StopInvalid      StopReason = iota
+	StopLoss                    // a frame was lost or came with references missing
+	StopDecodeFailed            // the relay could not decode a forwarded frame
+	StopOwnFrame                // the display loop sent a frame of its own (PREDICTED, STALE or a late frame)
+	StopBadSize                 // a keyframe's picture size is not the camera's
+
+	stopReasonCount
+)
+
+var stopReasonNames = [...]string{"invalid", "loss", "decode-failed", "own-frame", "bad-size"}
+
+// String returns a short lower-case name such as "decode-failed".
+func (r StopReason) String() string {
+	if int(r) >= len(stopReasonNames) {
+		return "invalid"
+	}
+	return stopReasonNames[r]
+}
+
+// Frame describes one complete vehicle frame whose header checked out.
+type Frame struct {
+	Keyframe    bool
+	RefsMissing bool // frames were lost since the last keyframe
+	SizeOK      bool // a keyframe's picture size is the camera's (ignored for inter frames)
+}
+
+// Sender sends a frame the Gate lets through (the console's ForwardFrame).
+// Send must not block and may call only ViewerWantsKeyframe of the Gate.
+type Sender interface {
+	Send() error
+}
+
+// SenderFunc adapts a function to a Sender.
+type SenderFunc func() error
+
+// Send calls f.
+func (f SenderFunc) Send() error { return f() }
+
+// Offer decides whether frame f, complete and header-checked, is forwarded;
+// if so it calls send.Send with the Gate locked, so that the display loop
+// cannot start a frame of its own meanwhile, and reports true. A send error
+// ends the run and reports false.
+func (g *Gate) Offer(f Frame, send Sender) bool {
+	if g.Off {
+		return false
+	}
+	g.mu.Lock()
+	defer g.mu.Unlock()
+	switch {
+	case f.RefsMissing:
+		g.stopLocked(StopLoss)
+		return false
+	case f.Keyframe && !f.SizeOK:
+		g.stopLocked(StopBadSize)
+		return false
+	case g.own:
+		return false // the display loop is writing its own frame
+	case !g.run && !f.Keyframe:
+		return false // transcoding until the vehicle's next keyframe
+	}
+	if err := send.Send(); err != nil {
+		g.stopLocked(StopLoss)
+		return false
+	}
+	g.run, g.lastFwd = true, true
+	g.forwards.Add(1)
+	return true
+}
+
+// Decoded reports the relay's decode of the last frame offered: a failure of
+// a forwarded frame ends the run (StopDecodeFailed); the console's next
+// picture is the relay's keyframe.
+func (g *Gate) Decoded(forwarded, ok bool) {
+	if ok || !forwarded {
+		return
+	}
+	g.mu.Lock()
+	g.stopLocked(StopDecodeFailed)
+	g.mu.Unlock()
+}
+
+// Lost ends the run: the assembler gave a frame up.
+func (g *Gate) Lost() {
+	g.mu.Lock()
+	g.stopLocked(StopLoss)
+	g.mu.Unlock()
+}
+
+// BeginOwn is called by the display loop before it encodes a frame of its
+// own; it ends the run (StopOwnFrame) and keeps forwarding off until
+// EndOwn. It reports whether the encoder must make this frame a keyframe:
+// the console's last frame was forwarded, so its decoder holds the vehicle's
+// references, not the relay encoder's.
+func (g *Gate) BeginOwn() (forceKey bool) {
+	g.mu.Lock()
+	defer g.mu.Unlock()
+	g.stopLocked(StopOwnFrame)
+	g.own = true
+	forceKey = g.lastFwd
+	g.lastFwd = false
+	return forceKey
+}
+
+// EndOwn is called after the own frame was written (or given up).
+func (g *Gate) EndOwn() {
+	g.mu.Lock()
+	g.own = false
+	g.mu.Unlock()
+}
+
+// ViewerWantsKeyframe records that a console viewer needs a keyframe (it
+// joined, or asked with PLI): while frames pass through, only the vehicle
+// can send one. It takes no lock: the console calls it from within the
+// send of Offer (ForwardFrame asks for keyframes before it returns).
+func (g *Gate) ViewerWantsKeyframe() { g.wantKey.Store(true) }
+
+// WantKeyframe reports whether the relay should ask the vehicle for a
+// keyframe now: pass-through is waiting for one to start, or a viewer needs
+// one while frames pass through. The viewer's wish is cleared by the call;
+// the caller repeats requests at its own interval.
+func (g *Gate) WantKeyframe() bool {
+	if g.Off {
+		return false
+	}
+	g.mu.Lock()
+	defer g.mu.Unlock()
+	viewer := g.wantKey.Swap(false)
+	return !g.run || (viewer && g.lastFwd)
+}
+
+// Forwarding reports whether a run of forwarded frames is open.
+func (g *Gate) Forwarding() bool {
+	g.mu.Lock()
+	defer g.mu.Unlock()
+	return g.run
+}
+
+// Stats are the Gate's counters.
+type Stats struct {
+	Forwarded uint64                  // frames forwarded
+	Stops     [stopReasonCount]uint64 // runs ended, by StopReason
+}
+
+// Stats returns the counters.
+func (g *Gate) Stats() Stats {
+	var s Stats
+	s.Forwarded = g.forwards.Load()
+	for i := range s.Stops {
+		s.Stops[i] = g.stops[i].Load()
+	}
+	return s
+}
+
+// stopLocked ends an open run for reason r.
+func (g *Gate) stopLocked(r StopReason) {
+	if g.run {
+		g.stops[r].Add(1)
+	}
+	g.run = false
+}

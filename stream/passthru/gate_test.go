@@ -1,0 +1,168 @@
+package passthru
+
+import (
+	"errors"
+	"testing"
+	"time"
+)
+
+// ev is one event on the gate and what it must answer.
+type ev struct {
+	op      string // "key", "inter", "inter-refs-missing", "key-bad-size", "decode-fail", "decode-ok", "loss", "own", "viewer", "send-fails"
+	fwd     bool   // Offer's answer
+	force   bool   // BeginOwn's answer
+	wantKey bool   // WantKeyframe after the event
+}
+
+func TestGate(t *testing.T) {
+	tests := []struct {
+		name  string
+		off   bool
+		evs   []ev
+		stops map[StopReason]uint64
+	}{
+		{
+			name: "starts on a keyframe only and keeps forwarding",
+			evs: []ev{
+				{op: "inter", wantKey: true}, {op: "key", fwd: true}, {op: "decode-ok"}, {op: "inter", fwd: true}, {op: "inter", fwd: true},
+			},
+		},
+		{
+			name: "a decode failure stops it until the next keyframe; the relay's own frame is then a keyframe",
+			evs: []ev{
+				{op: "key", fwd: true}, {op: "inter", fwd: true}, {op: "decode-fail", wantKey: true},
+				{op: "inter", wantKey: true}, {op: "own", force: true, wantKey: true}, {op: "own", wantKey: true},
+				{op: "inter", wantKey: true}, {op: "key", fwd: true}, {op: "inter", fwd: true},
+			},
+			stops: map[StopReason]uint64{StopDecodeFailed: 1},
+		},
+		{
+			name: "a filled tick ends the run; real frames are transcoded until the next keyframe",
+			evs: []ev{
+				{op: "key", fwd: true}, {op: "own", force: true, wantKey: true}, {op: "inter", wantKey: true}, {op: "own", wantKey: true},
+				{op: "key", fwd: true}, {op: "own", force: true, wantKey: true},
+			},
+			stops: map[StopReason]uint64{StopOwnFrame: 2},
+		},
+		{
+			name:  "loss and missing references stop it",
+			evs:   []ev{{op: "key", fwd: true}, {op: "loss", wantKey: true}, {op: "key", fwd: true}, {op: "inter-refs-missing", wantKey: true}},
+			stops: map[StopReason]uint64{StopLoss: 2},
+		},
+		{
+			name:  "a keyframe of the wrong size is not forwarded",
+			evs:   []ev{{op: "key", fwd: true}, {op: "key-bad-size", wantKey: true}, {op: "inter", wantKey: true}},
+			stops: map[StopReason]uint64{StopBadSize: 1},
+		},
+		{
+			name:  "a refused send ends the run",
+			evs:   []ev{{op: "key", fwd: true}, {op: "send-fails", wantKey: true}},
+			stops: map[StopReason]uint64{StopLoss: 1},
+		},
+		{
+			name: "a viewer's keyframe wish is passed to the vehicle once while forwarding",
+			evs:  []ev{{op: "key", fwd: true}, {op: "viewer", wantKey: true}, {op: "inter", fwd: true}},
+		},
+		{
+			name: "always-transcode never forwards nor asks",
+			off:  true,
+			evs:  []ev{{op: "key"}, {op: "inter"}, {op: "own"}, {op: "own"}},
+		},
+	}
+	for _, tc := range tests {
+		t.Run(tc.name, func(t *testing.T) {
+			g := &Gate{Off: tc.off}
+			sent := 0
+			send := SenderFunc(func() error { sent++; return nil })
+			lastFwd := false
+			for i, e := range tc.evs {
+				var fwd, force bool
+				switch e.op {
+				case "key":
+					fwd = g.Offer(Frame{Keyframe: true, SizeOK: true}, send)
+				case "key-bad-size":
+					fwd = g.Offer(Frame{Keyframe: true}, send)
+				case "inter":
+					fwd = g.Offer(Frame{}, send)
+				case "inter-refs-missing":
+					fwd = g.Offer(Frame{RefsMissing: true}, send)
+				case "send-fails":
+					fwd = g.Offer(Frame{}, SenderFunc(func() error { return errors.New("queue closed") }))
+				case "decode-fail":
+					g.Decoded(lastFwd, false)
+				case "decode-ok":
+					g.Decoded(lastFwd, true)
+				case "loss":
+					g.Lost()
+				case "own":
+					force = g.BeginOwn()
+					g.EndOwn()
+				case "viewer":
+					g.ViewerWantsKeyframe()
+				default:
+					t.Fatalf("unknown op %q", e.op)
+				}
+				if fwd != e.fwd || force != e.force {
+					t.Errorf("event %d (%s): forwarded %v force keyframe %v, want %v %v", i, e.op, fwd, force, e.fwd, e.force)
+				}
+				if got := g.WantKeyframe(); got != e.wantKey {
+					t.Errorf("event %d (%s): WantKeyframe %v, want %v", i, e.op, got, e.wantKey)
+				}
+				if e.op == "key" || e.op == "inter" {
+					lastFwd = fwd
+				}
+			}
+			st := g.Stats()
+			for r := StopInvalid + 1; r < stopReasonCount; r++ {
+				if st.Stops[r] != tc.stops[r] {
+					t.Errorf("stops %v: %d, want %d", r, st.Stops[r], tc.stops[r])
+				}
+			}
+			if int(st.Forwarded) != sent {
+				t.Errorf("forwarded %d, sent %d", st.Forwarded, sent)
+			}
+		})
+	}
+}
+
+// TestGateOwnFrameBlocksForwarding: while the display loop writes its own
+// frame, not even a keyframe is forwarded (it would arrive at the console
+// between the relay's keyframe decision and its frame).
+func TestGateOwnFrameBlocksForwarding(t *testing.T) {
+	var g Gate
+	g.BeginOwn()
+	if g.Offer(Frame{Keyframe: true, SizeOK: true}, SenderFunc(func() error { return nil })) {
+		t.Error("keyframe forwarded while an own frame is being written")
+	}
+	g.EndOwn()
+	if !g.Offer(Frame{Keyframe: true, SizeOK: true}, SenderFunc(func() error { return nil })) {
+		t.Error("keyframe not forwarded after EndOwn")
+	}
+}
+
+func TestStopReasonString(t *testing.T) {
+	for r, want := range map[StopReason]string{StopInvalid: "invalid", StopLoss: "loss", StopDecodeFailed: "decode-failed", StopOwnFrame: "own-frame", StopBadSize: "bad-size", 99: "invalid"} {
+		if got := r.String(); got != want {
+			t.Errorf("%d: %q, want %q", r, got, want)
+		}
+	}
+}
+
+// TestGateSendMayAskForKeyframe: the console asks for a keyframe from
+// inside ForwardFrame (a viewer waiting for one); the send runs with the
+// Gate locked, so the request must not lock it again.
+func TestGateSendMayAskForKeyframe(t *testing.T) {
+	var g Gate
+	done := make(chan bool)
+	go func() {
+		done <- g.Offer(Frame{Keyframe: true, SizeOK: true}, SenderFunc(func() error { g.ViewerWantsKeyframe(); return nil }))
+	}()
+	select {
+	case ok := <-done:
+		if !ok || !g.WantKeyframe() {
+			t.Errorf("forwarded %v; the viewer's keyframe wish was lost", ok)
+		}
+	case <-time.After(5 * time.Second):
+		t.Fatal("Offer deadlocked when its send asked for a keyframe")
+	}
+}
