@@ -102,7 +102,7 @@ Harm rate (worse than hold): {{pct .S.PredictedOnly.HarmRatePSNR}} by more than 
 Telemetry: {{if .S.Telemetry.Own}}on its own channel, loss rate {{.S.Telemetry.LossRate}}{{else}}shares the fate of the video{{end}}.</p>
 {{with .S.Marks}}
 <h2>Marks of things that moved</h2>
-<p>On {{.Ticks}} PREDICTED ticks up to {{.AgeLimitMs}} ms old, the marks covered on average {{f .RecallMean 2}} of the pixels where a moving
+<p>On {{.Ticks}} PREDICTED ticks with a picture age up to {{.AgeLimitMs}} ms, the marks covered on average {{f .RecallMean 2}} of the pixels where a moving
 road user really was or was shown (recall), and {{f .PrecisionMean 2}} of the marked pixels were such pixels (precision); over all
 {{.TicksAll}} PREDICTED ticks: {{f .RecallMeanAll 2}} and {{f .PrecisionMeanAll 2}}. Pooled over the pixels of the ticks up to {{.AgeLimitMs}} ms
 (a large car weighs more than a distant pedestrian): recall {{f .RecallPooled 2}}, precision {{f .PrecisionPooled 2}}. No mark does not mean nothing moved.</p>{{end}}
