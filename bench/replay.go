@@ -66,6 +66,9 @@ type ReplayConfig struct {
 	// Confidence is the confidence model (its tolerance is also the
 	// calibration criterion); the zero value uses the defaults.
 	Confidence predictor.ConfidenceModel
+	// Motion says which sources of motion feed the filter: telemetry
+	// (the zero value), the video's own ego-motion, or both.
+	Motion MotionSources
 
 	// Examples is how many example ticks the report shows side by side;
 	// 0 means DefaultExamples, negative means none.
@@ -379,11 +382,18 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 	}
 	telOrder := make([]int, 0, len(telArr))
 	for i, a := range telArr {
-		if a != NeverArrivesUs {
+		if a != NeverArrivesUs && !cfg.Motion.NoTelemetry {
 			telOrder = append(telOrder, i)
 		}
 	}
 	sort.SliceStable(telOrder, func(a, b int) bool { return telArr[telOrder[a]] < telArr[telOrder[b]] })
+	var video *videoMotion
+	if cfg.Motion.Video {
+		if video, err = newVideoMotion(cam, sched); err != nil {
+			return Summary{}, fmt.Errorf("replay: %w", err)
+		}
+		defer video.Close()
+	}
 
 	r, err := newReplayer(cam, cfg.Policy, cfg.Confidence, flt, now)
 	if err != nil {
@@ -412,6 +422,11 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 			return Summary{}, fmt.Errorf("replay: stopped at tick %d of %d: %w", k, total, err)
 		}
 		deadline := sched.DeadlineUs(k)
+		if video != nil {
+			if err := video.feed(deadline, frames, flt, log); err != nil {
+				return Summary{}, fmt.Errorf("replay: tick %d: %w", k, err)
+			}
+		}
 		for ; nextTel < len(telOrder) && telArr[telOrder[nextTel]] <= deadline; nextTel++ {
 			row := in.telemetry[telOrder[nextTel]]
 			if err := flt.Add(SampleFromRow(row)); err != nil {
@@ -477,6 +492,10 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 	sum.LatencyMs = float64(sched.LatencyUs) / 1000
 	sum.FilterModel = fcfg.Model.String()
 	sum.TelemetryRejected = int(flt.Rejected().Total())
+	sum.Motion = cfg.Motion
+	if video != nil {
+		sum.VideoSamples = video.samples
+	}
 	out.rows, out.examples = rows, examples
 	return sum, nil
 }
