@@ -33,6 +33,7 @@ type replayFlags struct {
 	telemetryOwn         bool
 	telemetryLoss        float64
 	toleranceMrad        float64
+	motion               string
 }
 
 func (f *replayFlags) register(fs *flag.FlagSet) {
@@ -56,6 +57,7 @@ func (f *replayFlags) register(fs *flag.FlagSet) {
 	fs.BoolVar(&f.verboseLogs, "v", false, "verbose logs (every rejected telemetry sample)")
 	fs.BoolVar(&f.telemetryOwn, "telemetry-own-channel", false, "telemetry without recorded arrivals comes on its own channel (lost only at --telemetry-loss-rate) instead of sharing the fate of the video (default: shared, the conservative case)")
 	fs.Float64Var(&f.telemetryLoss, "telemetry-loss-rate", 0, "share of telemetry samples lost on their own channel, [0,1); needs --telemetry-own-channel")
+	fs.StringVar(&f.motion, "motion", "telemetry", "sources of motion for the filter: telemetry, video (ego-motion from the frames, for a vehicle without telemetry), telemetry+video, or none")
 	fs.Float64Var(&f.toleranceMrad, "tolerance-mrad", predictor.DefaultToleranceMrad, "misalignment within which a predicted frame counts as good, mrad: the confidence is the probability of that")
 }
 
@@ -76,6 +78,10 @@ func (f *replayFlags) config(drive, out string, stderr io.Writer) (bench.ReplayC
 	if !(f.telemetryLoss >= 0 && f.telemetryLoss < 1) || (f.telemetryLoss != 0 && !f.telemetryOwn) {
 		return bench.ReplayConfig{}, fmt.Errorf("--telemetry-loss-rate %v: want a share in [0, 1), with --telemetry-own-channel", f.telemetryLoss)
 	}
+	motion, err := bench.ParseMotionSources(f.motion)
+	if err != nil {
+		return bench.ReplayConfig{}, fmt.Errorf("--motion: %w", err)
+	}
 	level := slog.LevelInfo
 	if f.verboseLogs {
 		level = slog.LevelDebug
@@ -92,6 +98,7 @@ func (f *replayFlags) config(drive, out string, stderr io.Writer) (bench.ReplayC
 		AllowanceMs: f.allowanceMs,
 		Telemetry:   bench.TelemetryLink{Own: f.telemetryOwn, LossRate: f.telemetryLoss, Seed: f.seed},
 		Confidence:  predictor.ConfidenceModel{ToleranceMrad: f.toleranceMrad},
+		Motion:      motion,
 		Examples:    f.examples,
 		Logger:      newLogger(stderr, f.logJSON, level),
 	}
