@@ -69,6 +69,11 @@ type ReplayConfig struct {
 	// Motion says which sources of motion feed the filter: telemetry
 	// (the zero value), the video's own ego-motion, or both.
 	Motion MotionSources
+	// Lead turns on latency compensation (predictor.Leader) on LIVE ticks
+	// and scores it (Summary.Lead). It needs a simulated link, whose
+	// arrival times are on the vehicle clock; with ArrivalsFile it is
+	// refused.
+	Lead bool
 
 	// Examples is how many example ticks the report shows side by side;
 	// 0 means DefaultExamples, negative means none.
@@ -387,6 +392,16 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 		}
 	}
 	sort.SliceStable(telOrder, func(a, b int) bool { return telArr[telOrder[a]] < telArr[telOrder[b]] })
+	var lead *leadScorer
+	if cfg.Lead {
+		if cfg.ArrivalsFile != "" {
+			return Summary{}, fmt.Errorf("replay: lead scoring needs a simulated link (recorded arrivals are on the receiver's clock, not the vehicle's); drop the arrivals file or the lead: %w", ErrReplayInput)
+		}
+		if lead, err = newLeadScorer(cam, flt, cfg.Confidence, cfg.Policy.CutoffConfidence); err != nil {
+			return Summary{}, fmt.Errorf("replay: %w", err)
+		}
+		defer lead.Close()
+	}
 	var video *videoMotion
 	if cfg.Motion.Video {
 		if video, err = newVideoMotion(cam, sched); err != nil {
@@ -441,6 +456,11 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 			// The real frame is loaded lazily, only when a later gap
 			// needs it (see below); LIVE ticks cost nothing to replay.
 			r.pending = k
+			if lead != nil {
+				if err := lead.live(k, sched, frames, in.hasTruth); err != nil {
+					return Summary{}, fmt.Errorf("replay: tick %d: %w", k, err)
+				}
+			}
 		} else {
 			row, err = r.missing(k, sched, frames, in.hasTruth)
 			if err != nil {
@@ -493,6 +513,9 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 	sum.FilterModel = fcfg.Model.String()
 	sum.TelemetryRejected = int(flt.Rejected().Total())
 	sum.Motion = cfg.Motion
+	if lead != nil {
+		sum.Lead = lead.summary()
+	}
 	if video != nil {
 		sum.VideoSamples = video.samples
 	}

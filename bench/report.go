@@ -163,6 +163,9 @@ type Summary struct {
 	// VideoSamples counts the ego-motion estimates from the video that the
 	// filter took (with Motion.Video).
 	VideoSamples int `json:"video_samples"`
+	// Lead scores latency compensation on the LIVE ticks; nil unless
+	// ReplayConfig.Lead.
+	Lead *LeadSummary `json:"lead,omitempty"`
 
 	TicksTotal     int `json:"ticks_total"`     // display ticks replayed
 	TicksMissing   int `json:"ticks_missing"`   // ticks without a real frame (PREDICTED + STALE)
