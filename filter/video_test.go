@@ -101,3 +101,31 @@ func TestVideoOnlyTrack(t *testing.T) {
 		t.Errorf("motion (%.6f, %.6f, %.6f), want (%.6f, %.6f, 0.1)", m.DxM, m.DyM, m.DyawRad, wantX, wantY)
 	}
 }
+
+// TestVideoSamplesHaveNoTurnTrend: video yaw rates are too noisy for the
+// gap's turn trend, so a video-only track whose yaw rate ramps predicts a
+// gap exactly as with the trend switched off, while the same ramp from
+// telemetry does change the prediction.
+func TestVideoSamplesHaveNoTurnTrend(t *testing.T) {
+	run := func(src Source, off bool) Motion {
+		f := mustNew(t, Config{Model: ModelCTRV, TurnAccelOff: off})
+		for i := range 40 {
+			s := Sample{TimeUs: int64(i) * 10_000, SpeedMps: 8, YawRateRps: 0.01 * float64(i)}
+			if src == SourceVideo {
+				s.Source, s.SpeedStdMps, s.YawRateStdRps = SourceVideo, 0.1, 0.01
+			}
+			mustAdd(t, f, s)
+		}
+		m, err := f.Relative(390_000, 690_000)
+		if err != nil {
+			t.Fatal(err)
+		}
+		return m
+	}
+	if v, vOff := run(SourceVideo, false), run(SourceVideo, true); v.DyawRad != vOff.DyawRad || v.Cov != vOff.Cov {
+		t.Errorf("video track: heading %.6f cov %v with the trend on, %.6f %v off; want equal", v.DyawRad, v.Cov[2][2], vOff.DyawRad, vOff.Cov[2][2])
+	}
+	if tel, telOff := run(SourceTelemetry, false), run(SourceTelemetry, true); tel.DyawRad == telOff.DyawRad {
+		t.Errorf("telemetry track: heading %.6f with and without the trend; the ramp should change it", tel.DyawRad)
+	}
+}

@@ -25,8 +25,8 @@ const (
 	// see: a road that is not quite flat, pitch and roll of the body. Our
 	// own choice, checked against the photo drives and simdrive (README,
 	// "Ego-motion from the video").
-	DefaultEgoSpeedFloorMps   = 0.15
-	DefaultEgoYawRateFloorRps = 0.02
+	DefaultEgoSpeedFloorMps   = 0.08
+	DefaultEgoYawRateFloorRps = 0.01
 )
 
 // EgoMotionConfig configures an EgoMotion. Zero fields take the defaults

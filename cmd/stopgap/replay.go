@@ -34,6 +34,7 @@ type replayFlags struct {
 	telemetryLoss        float64
 	toleranceMrad        float64
 	motion               string
+	lead                 bool
 }
 
 func (f *replayFlags) register(fs *flag.FlagSet) {
@@ -57,6 +58,7 @@ func (f *replayFlags) register(fs *flag.FlagSet) {
 	fs.BoolVar(&f.verboseLogs, "v", false, "verbose logs (every rejected telemetry sample)")
 	fs.BoolVar(&f.telemetryOwn, "telemetry-own-channel", false, "telemetry without recorded arrivals comes on its own channel (lost only at --telemetry-loss-rate) instead of sharing the fate of the video (default: shared, the conservative case)")
 	fs.Float64Var(&f.telemetryLoss, "telemetry-loss-rate", 0, "share of telemetry samples lost on their own channel, [0,1); needs --telemetry-own-channel")
+	fs.BoolVar(&f.lead, "lead", false, "also score latency compensation: every LIVE frame moved ahead by its age to the display time (labelled MOVED AHEAD), against the frame captured when it was shown; simulated links only")
 	fs.StringVar(&f.motion, "motion", "telemetry", "sources of motion for the filter: telemetry, video (ego-motion from the frames, for a vehicle without telemetry), telemetry+video, or none")
 	fs.Float64Var(&f.toleranceMrad, "tolerance-mrad", predictor.DefaultToleranceMrad, "misalignment within which a predicted frame counts as good, mrad: the confidence is the probability of that")
 }
@@ -99,6 +101,7 @@ func (f *replayFlags) config(drive, out string, stderr io.Writer) (bench.ReplayC
 		Telemetry:   bench.TelemetryLink{Own: f.telemetryOwn, LossRate: f.telemetryLoss, Seed: f.seed},
 		Confidence:  predictor.ConfidenceModel{ToleranceMrad: f.toleranceMrad},
 		Motion:      motion,
+		Lead:        f.lead,
 		Examples:    f.examples,
 		Logger:      newLogger(stderr, f.logJSON, level),
 	}
@@ -216,6 +219,9 @@ func printSummaryBody(w io.Writer, s bench.Summary) {
 			}
 		}
 	}
+	if s.Motion != (bench.MotionSources{}) {
+		fmt.Fprintf(w, "motion sources: %s (%d video samples)\n", s.Motion, s.VideoSamples)
+	}
 	fmt.Fprintf(w, "%-10s %7s %10s %9s %9s\n", "method", "frames", "PSNR dB", "SSIM", "MAE")
 	for _, m := range bench.Methods() {
 		st := s.Methods.Get(m)
@@ -235,6 +241,11 @@ func printSummaryBody(w io.Writer, s bench.Summary) {
 			100*float64(po.HarmRatePSNR), 100*float64(po.HarmRateSSIM))
 	} else {
 		fmt.Fprintln(w, "PREDICTED ticks alone: none scored")
+	}
+	if l := s.Lead; l != nil {
+		fmt.Fprintf(w, "lead (LIVE frames moved ahead by their age, mean %.0f ms): %d of %d LIVE ticks moved; PSNR against the present frame %.2f dB (plain %.2f); moved ticks alone %.2f dB (plain %.2f), harm rate %.1f %%\n",
+			float64(l.AgeMsMean), l.Moved, l.Ticks, float64(l.LeadPSNRdBMean), float64(l.PlainPSNRdBMean),
+			float64(l.MovedLeadPSNRdBMean), float64(l.MovedPlainPSNRdBMean), 100*float64(l.HarmRate))
 	}
 	for _, c := range []bench.Calibration{s.Calibration, s.CalibrationTruth} {
 		if c.Frames > 0 {
