@@ -38,8 +38,9 @@ type pipeline struct {
 
 	flt    *filter.Filter
 	filler *predictor.Filler
-	out    gocv.Mat // labelled output frame
-	held   gocv.Mat // scratch for late frames
+	ego    *predictor.EgoMotion // video ego-motion, nil unless Config.VideoMotion
+	out    gocv.Mat             // labelled output frame
+	held   gocv.Mat             // scratch for late frames
 	encBuf []byte
 	meta   console.Meta
 
@@ -85,6 +86,12 @@ func newPipeline(r *Relay, s IngestSession) (*pipeline, error) {
 	if err := p.newFiller(); err != nil {
 		return nil, err
 	}
+	if cfg.VideoMotion {
+		if p.ego, err = predictor.NewEgoMotion(predictor.EgoMotionConfig{Camera: cfg.Camera, Seed: 1}); err != nil {
+			p.filler.Close()
+			return nil, fmt.Errorf("relay: video ego-motion: %w: %w", ErrBadConfig, err)
+		}
+	}
 	p.out, p.held = gocv.NewMat(), gocv.NewMat()
 	p.pool = make([]gocv.Mat, cfg.FrameQueue)
 	p.free = make(chan *gocv.Mat, cfg.FrameQueue)
@@ -127,6 +134,9 @@ func (p *pipeline) close() {
 	}
 	if p.filler != nil {
 		p.filler.Close()
+	}
+	if p.ego != nil {
+		p.ego.Close()
 	}
 	p.out.Close()
 	p.held.Close()
@@ -377,6 +387,7 @@ func (p *pipeline) onFrame(ev frameEvent) {
 	// Deadlines that passed before this frame was ready (a frame ready at
 	// its deadline is still in time, as in bench.Schedule.Live).
 	p.advance(ev.readyUs)
+	p.observeVideo(&ev)
 	if k < p.next {
 		// Late: it becomes the held frame for later gaps, but is not shown.
 		p.r.met.lateFrames.Add(1)
@@ -412,6 +423,29 @@ func (p *pipeline) onFrame(ev frameEvent) {
 	p.feedTelemetry(p.deadlineUs(k))
 	p.emit(k, ev.captureUs, tick, &ev)
 	p.record(func(rc *recorder) { rc.frame(p.recIndex(k), ev.captureUs, ev.readyUs, ev.rtpTS, *ev.mat) })
+}
+
+// observeVideo gives the frame to the video ego-motion, if on, and its
+// estimate to the filter: usable from the frame's arrival on, like the
+// telemetry that arrived with it. A frame older than the last one observed
+// (late) is skipped.
+func (p *pipeline) observeVideo(ev *frameEvent) {
+	if p.ego == nil {
+		return
+	}
+	est, ok, err := p.ego.Observe(*ev.mat, ev.captureUs)
+	switch {
+	case errors.Is(err, predictor.ErrTimeOrder):
+		return
+	case err != nil:
+		p.log.Warn("video ego-motion failed", "err", err)
+		return
+	case !ok:
+		return
+	}
+	if err := p.flt.Add(est.Sample()); err != nil {
+		p.log.Debug("video ego-motion sample rejected", "err", err)
+	}
 }
 
 // missing fills tick k at its deadline.
