@@ -336,8 +336,6 @@ func (e *EgoMotion) estimate(t0, t1 int64) (EgoEstimate, bool, error) {
 		return EgoEstimate{}, false, nil
 	}
 	p := best
-	var cov mat3
-	var rms float64
 	var nIn int
 	for round := 0; round < 2; round++ {
 		p = e.refine(p)
