@@ -3,6 +3,7 @@ package bench
 import (
 	"fmt"
 	"math"
+	"sort"
 
 	"gocv.io/x/gocv"
 
@@ -119,23 +120,20 @@ func (s *leadScorer) live(k int, sched Schedule, frames frameGetter, hasTruth []
 // nearestCapture returns the index of the capture time nearest t, or -1
 // when t is past the last frame by more than half a frame period.
 func nearestCapture(captureUs []int64, t int64) int {
-	best, bestD := -1, int64(math.MaxInt64)
-	for i, c := range captureUs {
-		d := c - t
-		if d < 0 {
-			d = -d
-		}
-		if d < bestD {
-			best, bestD = i, d
-		}
-		if c > t {
-			break
-		}
-	}
-	if n := len(captureUs); best == n-1 && n > 1 && 2*bestD > captureUs[n-1]-captureUs[n-2] {
+	n := len(captureUs)
+	i := sort.Search(n, func(i int) bool { return captureUs[i] >= t })
+	switch {
+	case n == 0:
 		return -1
+	case i == n:
+		if n > 1 && 2*(t-captureUs[n-1]) > captureUs[n-1]-captureUs[n-2] {
+			return -1
+		}
+		return n - 1
+	case i > 0 && t-captureUs[i-1] < captureUs[i]-t:
+		return i - 1
 	}
-	return best
+	return i
 }
 
 func (s *leadScorer) summary() *LeadSummary {

@@ -58,3 +58,17 @@ func FuzzParseMotionSources(f *testing.F) {
 		}
 	})
 }
+
+func TestNearestCapture(t *testing.T) {
+	c := []int64{0, 33_333, 66_667, 100_000}
+	for _, tc := range []struct {
+		t    int64
+		want int
+	}{
+		{-5000, 0}, {0, 0}, {16_000, 0}, {17_000, 1}, {90_000, 3}, {100_000, 3}, {116_000, 3}, {117_000, -1},
+	} {
+		if got := nearestCapture(c, tc.t); got != tc.want {
+			t.Errorf("nearestCapture(%d) = %d, want %d", tc.t, got, tc.want)
+		}
+	}
+}

@@ -311,6 +311,9 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 	if err := cfg.Policy.Validate(); err != nil {
 		return Summary{}, fmt.Errorf("replay: %w", err)
 	}
+	if cfg.Lead && cfg.ArrivalsFile != "" {
+		return Summary{}, fmt.Errorf("replay: lead scoring needs a simulated link (recorded arrivals are on the receiver's clock, not the vehicle's); drop the arrivals file or the lead: %w", ErrReplayInput)
+	}
 	if cfg.AllowanceMs < 0 || math.IsNaN(cfg.AllowanceMs) || math.IsInf(cfg.AllowanceMs, 0) {
 		return Summary{}, fmt.Errorf("replay: jitter allowance %v ms must be a finite number >= 0: %w", cfg.AllowanceMs, ErrReplayInput)
 	}
@@ -394,9 +397,6 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 	sort.SliceStable(telOrder, func(a, b int) bool { return telArr[telOrder[a]] < telArr[telOrder[b]] })
 	var lead *leadScorer
 	if cfg.Lead {
-		if cfg.ArrivalsFile != "" {
-			return Summary{}, fmt.Errorf("replay: lead scoring needs a simulated link (recorded arrivals are on the receiver's clock, not the vehicle's); drop the arrivals file or the lead: %w", ErrReplayInput)
-		}
 		if lead, err = newLeadScorer(cam, flt, cfg.Confidence, cfg.Policy.CutoffConfidence); err != nil {
 			return Summary{}, fmt.Errorf("replay: %w", err)
 		}
