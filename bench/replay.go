@@ -72,6 +72,14 @@ type ReplayConfig struct {
 	// Confidence is the confidence model (its tolerance is also the
 	// calibration criterion); the zero value uses the defaults.
 	Confidence predictor.ConfidenceModel
+	// Motion says which sources of motion feed the filter: telemetry
+	// (the zero value), the video's own ego-motion, or both.
+	Motion MotionSources
+	// Lead turns on latency compensation (predictor.Leader) on LIVE ticks
+	// and scores it (Summary.Lead). It needs a simulated link, whose
+	// arrival times are on the vehicle clock; with ArrivalsFile it is
+	// refused.
+	Lead bool
 
 	// Examples is how many example ticks the report shows side by side;
 	// 0 means DefaultExamples, negative means none.
@@ -345,6 +353,9 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 	if err := cfg.Policy.Validate(); err != nil {
 		return Summary{}, fmt.Errorf("replay: %w", err)
 	}
+	if cfg.Lead && cfg.ArrivalsFile != "" {
+		return Summary{}, fmt.Errorf("replay: lead scoring needs a simulated link (recorded arrivals are on the receiver's clock, not the vehicle's); drop the arrivals file or the lead: %w", ErrReplayInput)
+	}
 	if cfg.AllowanceMs < 0 || math.IsNaN(cfg.AllowanceMs) || math.IsInf(cfg.AllowanceMs, 0) {
 		return Summary{}, fmt.Errorf("replay: jitter allowance %v ms must be a finite number >= 0: %w", cfg.AllowanceMs, ErrReplayInput)
 	}
@@ -423,11 +434,25 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 	}
 	telOrder := make([]int, 0, len(telArr))
 	for i, a := range telArr {
-		if a != NeverArrivesUs {
+		if a != NeverArrivesUs && !cfg.Motion.NoTelemetry {
 			telOrder = append(telOrder, i)
 		}
 	}
 	sort.SliceStable(telOrder, func(a, b int) bool { return telArr[telOrder[a]] < telArr[telOrder[b]] })
+	var lead *leadScorer
+	if cfg.Lead {
+		if lead, err = newLeadScorer(cam, flt, cfg.Confidence, cfg.Policy.CutoffConfidence); err != nil {
+			return Summary{}, fmt.Errorf("replay: %w", err)
+		}
+		defer lead.Close()
+	}
+	var video *videoMotion
+	if cfg.Motion.Video {
+		if video, err = newVideoMotion(cam); err != nil {
+			return Summary{}, fmt.Errorf("replay: %w", err)
+		}
+		defer video.Close()
+	}
 
 	r, err := newReplayer(cam, cfg.Policy, cfg.Confidence, flt, now)
 	if err != nil {
@@ -502,6 +527,9 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 	}
 	d := &replayDriver{r: r, flt: flt, log: log, frames: frames, captureUs: captureUs, hasTruth: in.hasTruth,
 		last: -1, beforeLast: -1, emit: emit}
+	if lead != nil {
+		d.onLive = func(k int) error { return lead.live(k, sched, frames, in.hasTruth) }
+	}
 	// Frames and telemetry reach the clock in arrival order, as they reach
 	// the live relay's display loop; the clock fills each tick whose
 	// deadline passed before the next event.
@@ -524,6 +552,14 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 			v := clock.FrameAt(d, j, captureUs[j], in.arrivalUs[j])
 			if d.err == nil {
 				d.frame(v)
+			}
+			// The video's ego-motion is known once the frame is decoded:
+			// it reaches the filter at the frame's arrival, for the ticks
+			// decided after it (as in the live relay).
+			if video != nil && d.err == nil {
+				if err := video.observe(j, captureUs[j], frames, flt, log); err != nil {
+					return Summary{}, fmt.Errorf("replay: frame %d: %w", j, err)
+				}
 			}
 		}
 		if d.err != nil {
@@ -563,6 +599,13 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 	sum.LatencyMs = float64(lat) / 1000
 	sum.FilterModel = fcfg.Model.String()
 	sum.TelemetryRejected = int(flt.Rejected().Total())
+	sum.Motion = cfg.Motion
+	if lead != nil {
+		sum.Lead = lead.summary()
+	}
+	if video != nil {
+		sum.VideoSamples = video.samples
+	}
 	out.rows, out.examples = rows, examples
 	return sum, nil
 }
@@ -738,7 +781,10 @@ type replayDriver struct {
 	// filler keeps them.
 	last, beforeLast int
 	emit             func(TickRow) error
-	err              error // the first error; the replay stops
+	// onLive, if not nil, runs for each LIVE tick after its row (the
+	// lead's scores).
+	onLive func(k int) error
+	err    error // the first error; the replay stops
 }
 
 // Telemetry feeds one sample to the filter (cadence.Handler).
@@ -778,6 +824,12 @@ func (d *replayDriver) frame(v cadence.Frame) {
 	row.Confidence = 1
 	if err := d.emit(row); err != nil {
 		d.err = fmt.Errorf("tick %d: %w", k, err)
+		return
+	}
+	if d.onLive != nil {
+		if err := d.onLive(k); err != nil {
+			d.err = fmt.Errorf("tick %d: %w", k, err)
+		}
 	}
 }
 

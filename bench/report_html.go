@@ -58,6 +58,7 @@ figcaption { font-size: 0.9em; }
 {{end}}<tr><th class="l">display latency / jitter allowance</th><td>{{printf "%.0f" .S.LatencyMs}} ms / {{printf "%.0f" .S.AllowanceMs}} ms</td></tr>
 <tr><th class="l">filter model</th><td class="l">{{.S.FilterModel}}</td></tr>
 <tr><th class="l">telemetry samples rejected</th><td>{{.S.TelemetryRejected}}</td></tr>
+<tr><th class="l">motion sources</th><td class="l">{{.S.Motion}}</td></tr>
 <tr><th class="l">ticks</th><td>{{.S.TicksTotal}}</td></tr>
 <tr><th class="l">ticks without a real frame</th><td>{{.S.TicksMissing}}</td></tr>
 <tr><th class="l">LIVE / PREDICTED / STALE ticks</th><td>{{.S.LiveTicks}} / {{.S.PredictedTicks}} / {{.S.StaleTicks}}</td></tr>

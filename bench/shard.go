@@ -273,6 +273,7 @@ func pooledSummary(sums []Summary, rows [][]TickRow) Summary {
 	s.Drive = fmt.Sprintf("%d drives pooled", len(rows))
 	s.Cutoff, s.MaxAgeMs, s.Loss, s.AllowanceMs, s.FilterModel, s.Telemetry = f.Cutoff, f.MaxAgeMs, f.Loss, f.AllowanceMs, f.FilterModel, f.Telemetry
 	s.TelemetryRejected, s.TicksUnscored = rejected, unscored
+	s.Motion = f.Motion
 	return s
 }
 

@@ -149,6 +149,14 @@ type Summary struct {
 	FilterModel string `json:"filter_model"`
 	// TelemetryRejected counts telemetry samples the filter rejected.
 	TelemetryRejected int `json:"telemetry_rejected"`
+	// Motion is the replay's sources of motion (telemetry, video).
+	Motion MotionSources `json:"motion"`
+	// VideoSamples counts the ego-motion estimates from the video that the
+	// filter took (with Motion.Video).
+	VideoSamples int `json:"video_samples"`
+	// Lead scores latency compensation on the LIVE ticks; nil unless
+	// ReplayConfig.Lead.
+	Lead *LeadSummary `json:"lead,omitempty"`
 
 	TicksTotal     int `json:"ticks_total"`      // display ticks replayed
 	TicksMissing   int `json:"ticks_missing"`    // ticks without a real frame (all but LIVE)

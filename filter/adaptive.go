@@ -14,6 +14,13 @@ import "math"
 // Averaging keeps gyro noise small. ok is false (and both 0) when the kept
 // history does not reach back over the whole window or any part has fewer
 // than two samples: the trend is then unknown. It does not allocate.
+//
+// Only telemetry samples count: video samples (SourceVideo) come at the
+// frame rate with yaw-rate errors several times a gyro's, too few and too
+// noisy for a derivative over the window (on the default simulated drive
+// their trend made the gap's heading worse, not better). A track fed by
+// video alone therefore has no trend: constant turn rate over gaps with
+// the base gap noise.
 func (f *Filter) turnTrend(last int) (accel, jerk float64, ok bool) {
 	if last < 0 || last >= f.hist.len() {
 		return 0, 0, false
@@ -31,6 +38,9 @@ func (f *Filter) turnTrend(last int) (accel, jerk float64, ok bool) {
 		age := end - s.TimeUs
 		if age > w {
 			break
+		}
+		if s.Source == SourceVideo {
+			continue
 		}
 		k := 2 - int(min(2, 3*age/max(w, 1)))
 		x := float64(-age) * 1e-6

@@ -83,6 +83,12 @@
 // After each bicycle update the steer estimate is clamped to ±1.4 rad so
 // that tan(δ) stays finite.
 //
+// A sample whose Source is SourceVideo is ego-motion estimated from the
+// video (predictor.EgoMotion) rather than measured on the vehicle: it
+// measures speed (h = v) and yaw rate (h as above, without the kinematic
+// term) with the sample's own SpeedStdMps and YawRateStdRps, and nothing
+// else. Video and telemetry samples can be mixed in one track.
+//
 // # Time
 //
 // Samples may arrive late or out of order. The filter keeps the samples and

@@ -24,6 +24,43 @@ type Sample struct {
 	// only if HasSteer.
 	SteerRad float64
 	HasSteer bool
+
+	// Source says what produced the sample; the zero value is the
+	// vehicle's telemetry. A SourceVideo sample (ego-motion estimated from
+	// the video) measures SpeedMps and YawRateRps only, with its own
+	// standard deviations SpeedStdMps and YawRateStdRps in place of the
+	// Config's sensor noise; it must not carry an acceleration or a steering
+	// angle.
+	Source Source
+	// SpeedStdMps and YawRateStdRps are the 1-sigma errors of a SourceVideo
+	// sample (> 0, at most MaxSpeedMps and MaxYawRateRps); unused, and
+	// required to be zero, for telemetry.
+	SpeedStdMps, YawRateStdRps float64
+}
+
+// Source says what produced a Sample. The zero value is telemetry, so that
+// samples written before sources existed keep their meaning.
+type Source int
+
+// Sample sources.
+const (
+	// SourceTelemetry is the vehicle's own measurement (wheel speed, gyro,
+	// steering angle), with the noise of Config.
+	SourceTelemetry Source = iota
+	// SourceVideo is speed and yaw rate estimated from consecutive video
+	// frames (predictor.EgoMotion), with the sample's own noise.
+	SourceVideo
+)
+
+// String returns "telemetry", "video", or "invalid".
+func (s Source) String() string {
+	switch s {
+	case SourceTelemetry:
+		return "telemetry"
+	case SourceVideo:
+		return "video"
+	}
+	return "invalid"
 }
 
 // Config configures a Filter. Zero numeric fields take the documented
@@ -539,6 +576,46 @@ func validate(s *Sample) (Reason, string) {
 			return ReasonOutOfRange, fmt.Sprintf("|%s| = %v exceeds %v; check units and scaling upstream", fl.name, math.Abs(fl.v), fl.max)
 		}
 	}
+	return validateSource(s)
+}
+
+// validateSource checks the fields that depend on s.Source: a video sample
+// needs positive, finite, bounded standard deviations and no acceleration
+// or steering; telemetry must leave the standard deviations at zero (its
+// noise is the Config's).
+func validateSource(s *Sample) (Reason, string) {
+	stds := [...]struct {
+		name string
+		v    float64
+		max  float64
+	}{
+		{"speed_std_mps", s.SpeedStdMps, MaxSpeedMps},
+		{"yaw_rate_std_rps", s.YawRateStdRps, MaxYawRateRps},
+	}
+	for _, st := range stds {
+		if math.IsNaN(st.v) || math.IsInf(st.v, 0) {
+			return ReasonNotFinite, fmt.Sprintf("%s = %v; check the ego-motion estimate", st.name, st.v)
+		}
+	}
+	switch s.Source {
+	case SourceTelemetry:
+		for _, st := range stds {
+			if st.v != 0 {
+				return ReasonOutOfRange, fmt.Sprintf("%s = %v on a telemetry sample; only video samples carry their own noise (set Source)", st.name, st.v)
+			}
+		}
+	case SourceVideo:
+		for _, st := range stds {
+			if !(st.v > 0) || st.v > st.max {
+				return ReasonOutOfRange, fmt.Sprintf("%s = %v must be in (0, %v] on a video sample", st.name, st.v, st.max)
+			}
+		}
+		if s.HasAccel || s.HasSteer {
+			return ReasonOutOfRange, "a video sample carries an acceleration or a steering angle; it measures speed and yaw rate only"
+		}
+	default:
+		return ReasonOutOfRange, fmt.Sprintf("source %d is unknown; use filter.SourceTelemetry or filter.SourceVideo", int(s.Source))
+	}
 	return ReasonInvalid, ""
 }
 
@@ -561,7 +638,11 @@ func (f *Filter) initEntry(e *entry) {
 	e.p = [StateDim * StateDim]float64{}
 	e.nis, e.m = 0, 0
 	e.x[IdxSpeed] = s.SpeedMps
-	e.p[IdxSpeed*StateDim+IdxSpeed] = f.noise.speed * f.noise.speed
+	sv, sw := f.noise.speed, f.noise.yawRate
+	if s.Source == SourceVideo {
+		sv, sw = s.SpeedStdMps, s.YawRateStdRps
+	}
+	e.p[IdxSpeed*StateDim+IdxSpeed] = sv * sv
 	switch f.cfg.Model {
 	case ModelBicycle:
 		var d, sd float64
@@ -579,7 +660,7 @@ func (f *Filter) initEntry(e *entry) {
 		e.p[IdxTurn*StateDim+IdxTurn] = sd * sd
 	default:
 		e.x[IdxTurn] = s.YawRateRps
-		e.p[IdxTurn*StateDim+IdxTurn] = f.noise.yawRate * f.noise.yawRate
+		e.p[IdxTurn*StateDim+IdxTurn] = sw * sw
 	}
 }
 

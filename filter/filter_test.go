@@ -16,7 +16,8 @@ func snapshot(f *Filter) []uint64 {
 	var out []uint64
 	put := func(e *entry) {
 		out = append(out, uint64(e.s.TimeUs), math.Float64bits(e.s.SpeedMps), math.Float64bits(e.s.YawRateRps),
-			math.Float64bits(e.s.AccelMps2), math.Float64bits(e.s.SteerRad), math.Float64bits(e.nis), uint64(e.m))
+			math.Float64bits(e.s.AccelMps2), math.Float64bits(e.s.SteerRad), math.Float64bits(e.nis), uint64(e.m),
+			uint64(e.s.Source), math.Float64bits(e.s.SpeedStdMps), math.Float64bits(e.s.YawRateStdRps))
 		for _, v := range e.x {
 			out = append(out, math.Float64bits(v))
 		}

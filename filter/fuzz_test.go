@@ -41,7 +41,7 @@ func fold(x, lim float64) float64 {
 }
 
 // FuzzAdd feeds arbitrary samples (any float64 bits, any int64 time, or
-// times near the newest sample) to a filter that already holds 400 ms of
+// times near the newest sample, telemetry, video or an unknown source) to a filter that already holds 400 ms of
 // telemetry, and checks after every Add: no panic; a rejection is a
 // counted *RejectError that leaves the state bit-identical; the estimate is
 // finite; the covariances from Predict and Relative are symmetric positive
@@ -65,6 +65,12 @@ func FuzzAdd(f *testing.F) {
 		encodeFuzz(fuzzRelTime|fuzzFold, 1, 1e300, -1e300, 7, -9, 3),
 		encodeFuzz(fuzzRelTime|fuzzFold, 1, 0.001, 5.99, 0, 1.2, 3),
 		encodeFuzz(fuzzRelTime|fuzzFold, 20000, 119, -5.99, -29, -1.19, 3)))
+	f.Add(uint8(0), slices.Concat(
+		encodeFuzz(fuzzRelTime, 30, 9.5, 0.2, 0.3, 0.02, 4),
+		encodeFuzz(fuzzRelTime, 60, 9.5, 0.2, 0, 0.02, 4),
+		encodeFuzz(fuzzRelTime, 90, 9.5, 0.2, nan, 0.02, 4),
+		encodeFuzz(fuzzRelTime, 120, 9.5, 0.2, 0.3, 0.02, 5),
+		encodeFuzz(fuzzRelTime, 150, 9.5, 0.2, 0.3, 0.02, 0x2c)))
 	f.Fuzz(fuzzBody)
 }
 
@@ -106,6 +112,13 @@ func fuzzBody(t *testing.T, model uint8, data []byte) {
 			}
 			s.SpeedMps, s.YawRateRps, s.AccelMps2, s.SteerRad = vals[0], vals[1], vals[2], vals[3]
 			s.HasAccel, s.HasSteer = c[fuzzChunk-1]&1 != 0, c[fuzzChunk-1]&2 != 0
+			if c[fuzzChunk-1]&4 != 0 { // a video sample: accel and steer carry its noise
+				s.Source = SourceVideo
+				s.SpeedStdMps, s.YawRateStdRps = math.Abs(vals[2]), math.Abs(vals[3])
+			}
+			if c[fuzzChunk-1]&8 != 0 { // an unknown source
+				s.Source = Source(c[fuzzChunk-1] >> 4)
+			}
 
 			before := snapshot(fl)
 			counts := fl.Rejected()

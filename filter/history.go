@@ -78,7 +78,16 @@ func sampleLess(a, b *Sample) bool {
 	if a.HasSteer != b.HasSteer {
 		return !a.HasSteer
 	}
-	return a.SteerRad < b.SteerRad
+	if a.SteerRad != b.SteerRad {
+		return a.SteerRad < b.SteerRad
+	}
+	if a.Source != b.Source {
+		return a.Source < b.Source
+	}
+	if a.SpeedStdMps != b.SpeedStdMps {
+		return a.SpeedStdMps < b.SpeedStdMps
+	}
+	return a.YawRateStdRps < b.YawRateStdRps
 }
 
 // sampleEqual reports whether a and b are the same measurement. Values are

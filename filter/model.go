@@ -238,8 +238,28 @@ type measNoise struct {
 // steer) is added with variance from both inputs plus the kinematic model
 // error, and its covariance with the speed measurement. Bicycle: h = v·tan(δ)/L
 // with variance yawRate² + kinematic², and h = δ for a measured steer angle.
+//
+// A SourceVideo sample measures speed and yaw rate with its own standard
+// deviations (no kinematic term: the video sees the yaw rate itself) and
+// nothing else.
 func (k *kinematics) measure(s *Sample, x *[StateDim]float64, n *measNoise, out *measurement) {
 	*out = measurement{}
+	if s.Source == SourceVideo {
+		out.m = 2
+		out.z[0], out.hx[0] = s.SpeedMps, x[IdxSpeed]
+		out.h[0][IdxSpeed] = 1
+		out.r[0][0] = s.SpeedStdMps * s.SpeedStdMps
+		out.z[1], out.hx[1] = s.YawRateRps, k.yawRate(x)
+		if k.model == ModelBicycle {
+			t := math.Tan(x[IdxTurn])
+			out.h[1][IdxSpeed] = t / k.wheelbaseM
+			out.h[1][IdxTurn] = x[IdxSpeed] * (1 + t*t) / k.wheelbaseM
+		} else {
+			out.h[1][IdxTurn] = 1
+		}
+		out.r[1][1] = s.YawRateStdRps * s.YawRateStdRps
+		return
+	}
 	out.z[0] = s.SpeedMps
 	out.hx[0] = x[IdxSpeed]
 	out.h[0][IdxSpeed] = 1

@@ -52,6 +52,10 @@ var (
 
 	// ErrInvalidMethod reports a Method outside the defined values.
 	ErrInvalidMethod = errors.New("predictor: invalid method")
+
+	// ErrTimeOrder reports a frame given to EgoMotion.Observe that is not
+	// newer than the previous one.
+	ErrTimeOrder = errors.New("predictor: frame not after the previous one")
 )
 
 // CameraError is returned by Camera.Validate. It names the offending field

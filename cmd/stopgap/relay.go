@@ -52,6 +52,7 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	fs.Float64Var(&allowanceMs, "allowance-ms", relay.DefaultAllowanceMs, allowanceUsage)
 	fs.Float64Var(&latencyMs, "latency-ms", 0, "nominal capture-to-arrival latency, ms (0 = estimate over the first frames of each session)")
 	fs.StringVar(&model, "model", "ctrv", "motion model of the filter: ctrv or bicycle")
+	videoMotion := fs.Bool("video-motion", false, "also estimate the vehicle's motion from the video itself (for a vehicle that sends no telemetry); costs about one warp per frame")
 	fs.Float64Var(&wheelbaseM, "wheelbase-m", 2.7, "wheelbase for the bicycle model and steering telemetry, m")
 	fs.StringVar(&rtpListen, "rtp-listen", "", "UDP `address` (e.g. 127.0.0.1:5004) to receive VP8 over plain RTP with RTCP on the same port; empty = off")
 	fs.StringVar(&telemetryListen, "telemetry-listen", "", "UDP `address` for telemetry datagrams (JSON, one per datagram) that go with --rtp-listen")
@@ -142,8 +143,9 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	sc.Relay = relay.Config{
 		FPS: fps, AllowanceMs: allowanceMs, LatencyMs: latencyMs,
 		Camera: cam, Policy: predictor.Policy{MaxAgeMs: maxAgeMs},
-		Filter:    filter.Config{Model: m, WheelbaseM: wheelbaseM},
-		RecordDir: recordDir, IngestToken: ingestTok, ConsoleToken: consoleTok,
+		Filter:      filter.Config{Model: m, WheelbaseM: wheelbaseM},
+		VideoMotion: *videoMotion,
+		RecordDir:   recordDir, IngestToken: ingestTok, ConsoleToken: consoleTok,
 		Console: cc, Logger: log, AlwaysTranscode: alwaysTranscode,
 		Whip: whip.Config{Network: whip.Network{IncludeLoopback: iceLoopback, Interfaces: splitList(iceInterfaces),
 			NAT1To1IPs: splitList(icePublicIPs), UDPPort: iceUDPPort}},

@@ -34,6 +34,8 @@ type replayFlags struct {
 	telemetryOwn         bool
 	telemetryLoss        float64
 	toleranceMrad        float64
+	motion               string
+	lead                 bool
 }
 
 func (f *replayFlags) register(fs *flag.FlagSet) {
@@ -58,6 +60,8 @@ func (f *replayFlags) register(fs *flag.FlagSet) {
 	fs.BoolVar(&f.verboseLogs, "v", false, "verbose logs (every rejected telemetry sample)")
 	fs.BoolVar(&f.telemetryOwn, "telemetry-own-channel", false, "telemetry without recorded arrivals comes on its own channel (lost only at --telemetry-loss-rate) instead of sharing the fate of the video (default: shared, the conservative case)")
 	fs.Float64Var(&f.telemetryLoss, "telemetry-loss-rate", 0, "share of telemetry samples lost on their own channel, [0,1); needs --telemetry-own-channel")
+	fs.BoolVar(&f.lead, "lead", false, "also score latency compensation: every LIVE frame moved ahead by its age to the display time (labelled MOVED AHEAD), against the frame captured when it was shown; simulated links only")
+	fs.StringVar(&f.motion, "motion", "telemetry", "sources of motion for the filter: telemetry, video (ego-motion from the frames, for a vehicle without telemetry), telemetry+video, or none")
 	fs.Float64Var(&f.toleranceMrad, "tolerance-mrad", predictor.DefaultToleranceMrad, "misalignment within which a predicted frame counts as good, mrad: the confidence is the probability of that")
 }
 
@@ -78,6 +82,10 @@ func (f *replayFlags) config(drive, out string, stderr io.Writer) (bench.ReplayC
 	if !(f.telemetryLoss >= 0 && f.telemetryLoss < 1) || (f.telemetryLoss != 0 && !f.telemetryOwn) {
 		return bench.ReplayConfig{}, fmt.Errorf("--telemetry-loss-rate %v: want a share in [0, 1), with --telemetry-own-channel", f.telemetryLoss)
 	}
+	motion, err := bench.ParseMotionSources(f.motion)
+	if err != nil {
+		return bench.ReplayConfig{}, fmt.Errorf("--motion: %w", err)
+	}
 	level := slog.LevelInfo
 	if f.verboseLogs {
 		level = slog.LevelDebug
@@ -94,6 +102,8 @@ func (f *replayFlags) config(drive, out string, stderr io.Writer) (bench.ReplayC
 		AllowanceMs: f.allowanceMs,
 		Telemetry:   bench.TelemetryLink{Own: f.telemetryOwn, LossRate: f.telemetryLoss, Seed: f.seed},
 		Confidence:  predictor.ConfidenceModel{ToleranceMrad: f.toleranceMrad},
+		Motion:      motion,
+		Lead:        f.lead,
 		Examples:    f.examples,
 		Logger:      newLogger(stderr, f.logJSON, level),
 	}
@@ -211,6 +221,9 @@ func printSummaryBody(w io.Writer, s bench.Summary) {
 			}
 		}
 	}
+	if s.Motion != (bench.MotionSources{}) {
+		fmt.Fprintf(w, "motion sources: %s (%d video samples)\n", s.Motion, s.VideoSamples)
+	}
 	fmt.Fprintf(w, "%-10s %7s %10s %9s %9s\n", "method", "frames", "PSNR dB", "SSIM", "MAE 0-255")
 	for _, m := range bench.Methods() {
 		st := s.Methods.Get(m)
@@ -235,6 +248,11 @@ func printSummaryBody(w io.Writer, s bench.Summary) {
 		fmt.Fprintf(w, "marks of things that moved, PREDICTED ticks up to %g ms: %d, recall %.2f, precision %.2f (pooled over pixels %.2f, %.2f; all ages: %d ticks, %.2f, %.2f)\n",
 			mk.AgeLimitMs, mk.Ticks, float64(mk.RecallMean), float64(mk.PrecisionMean), float64(mk.RecallPooled), float64(mk.PrecisionPooled),
 			mk.TicksAll, float64(mk.RecallMeanAll), float64(mk.PrecisionMeanAll))
+	}
+	if l := s.Lead; l != nil {
+		fmt.Fprintf(w, "lead (LIVE frames moved ahead by their age, mean %.0f ms): %d of %d LIVE ticks moved; PSNR against the present frame %.2f dB (plain %.2f); moved ticks alone %.2f dB (plain %.2f), harm rate %.1f %%\n",
+			float64(l.AgeMsMean), l.Moved, l.Ticks, float64(l.LeadPSNRdBMean), float64(l.PlainPSNRdBMean),
+			float64(l.MovedLeadPSNRdBMean), float64(l.MovedPlainPSNRdBMean), 100*float64(l.HarmRate))
 	}
 	for _, c := range []bench.Calibration{s.Calibration, s.CalibrationTruth} {
 		if c.Frames > 0 {

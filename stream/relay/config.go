@@ -64,6 +64,12 @@ type Config struct {
 	Policy predictor.Policy
 	// Filter configures the motion filter; a zero Model means CTRV.
 	Filter filter.Config
+	// VideoMotion feeds the filter also with the vehicle's motion estimated
+	// from each decoded frame against the one before it (predictor.EgoMotion,
+	// filter.SourceVideo samples): for vehicles that send no telemetry, or
+	// to keep the filter informed while telemetry is lost and video is not.
+	// It costs about one bare warp of the frame per frame.
+	VideoMotion bool
 
 	// RecordDir, if not empty, is a new directory the relay records the
 	// drive into (see the package documentation of stopgap/stream/recording,

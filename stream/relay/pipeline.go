@@ -36,7 +36,8 @@ type pipeline struct {
 
 	flt    *filter.Filter
 	filler *predictor.Filler
-	out    gocv.Mat // labelled output frame
+	ego    *predictor.EgoMotion // video ego-motion, nil unless Config.VideoMotion
+	out    gocv.Mat             // labelled output frame
 	encBuf []byte
 	meta   console.Meta
 
@@ -86,6 +87,12 @@ func newPipeline(r *Relay, s ingest.Session) (*pipeline, error) {
 	if err := p.newFiller(); err != nil {
 		return nil, err
 	}
+	if cfg.VideoMotion {
+		if p.ego, err = predictor.NewEgoMotion(predictor.EgoMotionConfig{Camera: cfg.Camera, Seed: 1}); err != nil {
+			p.filler.Close()
+			return nil, fmt.Errorf("relay: video ego-motion: %w: %w", ErrBadConfig, err)
+		}
+	}
 	p.out = gocv.NewMat()
 	p.pool = make([]gocv.Mat, cfg.FrameQueue)
 	p.free = make(chan *gocv.Mat, cfg.FrameQueue)
@@ -127,6 +134,9 @@ func (p *pipeline) close() {
 	}
 	if p.filler != nil {
 		p.filler.Close()
+	}
+	if p.ego != nil {
+		p.ego.Close()
 	}
 	p.out.Close()
 	for i := range p.pool {
@@ -306,6 +316,9 @@ func (p *pipeline) onFrame(ev frameEvent) {
 		p.r.setLatency(lat, final)
 	}
 	k := v.Tick.K
+	// The video's ego-motion of this frame is usable from its arrival on,
+	// like the telemetry that arrived with it.
+	p.observeVideo(&ev)
 	if !v.Live {
 		// Late: it becomes the held frame for later gaps, but is not
 		// shown. The recording keeps the arrival the display had
@@ -328,6 +341,29 @@ func (p *pipeline) onFrame(ev frameEvent) {
 	}
 	p.emit(v.Tick, ev.captureUs, tick, &ev)
 	p.record(func(rc *recorder) { rc.frame(p.recIndex(k), ev.captureUs, v.ArrivalUs, ev.rtpTS, *ev.mat) })
+}
+
+// observeVideo gives the frame to the video ego-motion, if on, and its
+// estimate to the filter: usable from the frame's arrival on, like the
+// telemetry that arrived with it. A frame older than the last one observed
+// (late) is skipped.
+func (p *pipeline) observeVideo(ev *frameEvent) {
+	if p.ego == nil {
+		return
+	}
+	est, ok, err := p.ego.Observe(*ev.mat, ev.captureUs)
+	switch {
+	case errors.Is(err, predictor.ErrTimeOrder):
+		return
+	case err != nil:
+		p.log.Warn("video ego-motion failed", "err", err)
+		return
+	case !ok:
+		return
+	}
+	if err := p.flt.Add(est.Sample()); err != nil {
+		p.log.Debug("video ego-motion sample rejected", "err", err)
+	}
 }
 
 // Missing fills tick t at its deadline with the tick's own policy (the
