@@ -76,8 +76,11 @@ func Generate(ctx context.Context, cfg Config, outDir string, progress func(done
 		}
 	}()
 
-	tr := newPanTrajectory(cfg.SpeedMps, cfg.DurationS, cfg.PanYawRateRps, cfg.PanPeriodS)
+	tr := newDriveTrajectory(cfg)
 	if err := writeTelemetry(w, cfg, tr); err != nil {
+		return err
+	}
+	if err := writeCommands(recDir, cfg, tr); err != nil {
 		return err
 	}
 	if err := ctx.Err(); err != nil {
@@ -145,7 +148,7 @@ func writeTelemetry(w *recording.Writer, cfg Config, tr *trajectory) error {
 			YawRateRps: tr.YawRateRps(ts) + sigma(cfg.YawRateSigmaRps)*rng.NormFloat64(),
 			AccelMps2:  tr.AccelMps2(ts) + sigma(cfg.AccelSigmaMps2)*rng.NormFloat64(),
 			HasAccel:   true,
-			SteerRad:   math.Atan(cfg.WheelbaseM*tr.CurvaturePM(ts)) + sigma(cfg.SteerSigmaRad)*rng.NormFloat64(),
+			SteerRad:   tr.SteerRad(ts, cfg.WheelbaseM) + sigma(cfg.SteerSigmaRad)*rng.NormFloat64(),
 			HasSteer:   true,
 		}
 		if err := w.WriteTelemetry(row); err != nil {

@@ -28,19 +28,26 @@ import (
 // can batch a few samples per request):
 //
 //	{"t_us": 1712345678901234, "steer_rad": -0.021, "throttle": 0.3, "brake": 0}
+//	{"t_us": 1712345678921234, "steer_rad": -0.020, "speed_mps": 8.5}
 //
-// t_us is when the input was sampled, microseconds on the operator
+// t_us is when the input was sampled (sent), microseconds on the operator
 // station's clock; steer_rad the commanded front road-wheel angle in
 // radians, positive to the left (ISO 8855), within ±MaxSteerRad; throttle
-// and brake the pedal positions in [0, 1]. All four are required. The relay
+// and brake the pedal positions in [0, 1]; speed_mps the commanded
+// longitudinal speed, within ±MaxCommandSpeedMps (a station whose vehicle
+// takes a speed set-point sends it; the motion model then uses it). t_us,
+// steer_rad and either both pedals or speed_mps (or all three) are
+// required. The relay
 // answers {"accepted": n, "rejected": m} (and "error" for the first
 // rejected line); a bad line never stops the others.
 //
 // ControlsFile (CSV, one header line, no quoting) gets one row per accepted
 // sample, in arrival order:
 //
-//	t_us,t_arrival_us,steer_rad,throttle,brake
+//	t_us,t_arrival_us,steer_rad,throttle,brake,speed_mps
 //
+// with throttle and brake, or speed_mps, blank when the sample had none
+// (files written before speed_mps existed have no such column).
 // t_arrival_us is when the relay received it, microseconds on the receiver
 // (relay) clock, the clock of arrivals.csv's deadlines: a fit lines controls
 // up with the display ticks by t_arrival_us (on a station next to the relay
@@ -49,13 +56,18 @@ import (
 // station's clock is mapped to the vehicle's.
 const (
 	ControlsFile       = "controls.csv"
-	ControlsHeader     = "t_us,t_arrival_us,steer_rad,throttle,brake"
+	ControlsHeader     = "t_us,t_arrival_us,steer_rad,throttle,brake,speed_mps"
 	MaxControlBytes    = 1024
 	MaxControlsPerPost = 64
 	// MaxSteerRad bounds a commanded road-wheel angle: 90 degrees, beyond
 	// any vehicle's steering lock.
 	MaxSteerRad = math.Pi / 2
+	// MaxCommandSpeedMps bounds a commanded speed: 120 m/s (432 km/h).
+	MaxCommandSpeedMps = 120
 )
+
+// requiredColumns are the ControlsFile columns every file has.
+var requiredColumns = []string{"t_us", "t_arrival_us", "steer_rad", "throttle", "brake"}
 
 // ErrBadControl is wrapped by errors about a control message or row.
 var ErrBadControl = errors.New("operator: bad control sample")
@@ -64,8 +76,11 @@ var ErrBadControl = errors.New("operator: bad control sample")
 type Control struct {
 	TUs       int64   `json:"t_us"`
 	SteerRad  float64 `json:"steer_rad"`
-	Throttle  float64 `json:"throttle"`
-	Brake     float64 `json:"brake"`
+	Throttle  float64 `json:"throttle"` // used only if HasPedals
+	Brake     float64 `json:"brake"`    // used only if HasPedals
+	HasPedals bool    `json:"-"`
+	SpeedMps  float64 `json:"speed_mps"` // commanded speed; used only if HasSpeed
+	HasSpeed  bool    `json:"-"`
 	ArrivalUs int64   `json:"-"` // receiver clock; set by the relay
 }
 
@@ -76,17 +91,22 @@ func (c Control) check() error {
 		return fmt.Errorf("%w: t_us %d; want microseconds > 0 on the station's clock", ErrBadControl, c.TUs)
 	case !(math.Abs(c.SteerRad) <= MaxSteerRad):
 		return fmt.Errorf("%w: steer_rad %v; want radians within ±%.4g", ErrBadControl, c.SteerRad, MaxSteerRad)
-	case !(c.Throttle >= 0 && c.Throttle <= 1):
+	case !c.HasPedals && !c.HasSpeed:
+		return fmt.Errorf("%w: neither pedals (throttle and brake) nor speed_mps; send one of them", ErrBadControl)
+	case c.HasPedals && !(c.Throttle >= 0 && c.Throttle <= 1):
 		return fmt.Errorf("%w: throttle %v; want a pedal position in [0, 1]", ErrBadControl, c.Throttle)
-	case !(c.Brake >= 0 && c.Brake <= 1):
+	case c.HasPedals && !(c.Brake >= 0 && c.Brake <= 1):
 		return fmt.Errorf("%w: brake %v; want a pedal position in [0, 1]", ErrBadControl, c.Brake)
+	case c.HasSpeed && !(math.Abs(c.SpeedMps) <= MaxCommandSpeedMps):
+		return fmt.Errorf("%w: speed_mps %v; want m/s within ±%d", ErrBadControl, c.SpeedMps, MaxCommandSpeedMps)
 	}
 	return nil
 }
 
 // DecodeControl decodes one control message strictly: one JSON object of at
-// most MaxControlBytes with exactly the keys t_us, steer_rad, throttle and
-// brake, values in range.
+// most MaxControlBytes with the keys t_us and steer_rad, throttle and brake
+// (both or neither) and speed_mps (optional if the pedals are given), no
+// other key, values in range.
 func DecodeControl(data []byte) (Control, error) {
 	if len(data) > MaxControlBytes {
 		return Control{}, fmt.Errorf("%w: %d bytes, at most %d", ErrBadControl, len(data), MaxControlBytes)
@@ -96,19 +116,26 @@ func DecodeControl(data []byte) (Control, error) {
 		SteerRad *float64 `json:"steer_rad"`
 		Throttle *float64 `json:"throttle"`
 		Brake    *float64 `json:"brake"`
+		SpeedMps *float64 `json:"speed_mps"`
 	}
 	dec := json.NewDecoder(bytes.NewReader(data))
 	dec.DisallowUnknownFields()
 	if err := dec.Decode(&raw); err != nil {
-		return Control{}, fmt.Errorf("%w: %v; send {\"t_us\", \"steer_rad\", \"throttle\", \"brake\"}", ErrBadControl, err)
+		return Control{}, fmt.Errorf("%w: %v; send {\"t_us\", \"steer_rad\", \"throttle\", \"brake\"} and/or \"speed_mps\"", ErrBadControl, err)
 	}
 	if _, err := dec.Token(); err != io.EOF {
 		return Control{}, fmt.Errorf("%w: extra data after the JSON object", ErrBadControl)
 	}
-	if raw.TUs == nil || raw.SteerRad == nil || raw.Throttle == nil || raw.Brake == nil {
-		return Control{}, fmt.Errorf("%w: t_us, steer_rad, throttle and brake are all required", ErrBadControl)
+	if raw.TUs == nil || raw.SteerRad == nil || (raw.Throttle == nil) != (raw.Brake == nil) || (raw.Throttle == nil && raw.SpeedMps == nil) {
+		return Control{}, fmt.Errorf("%w: t_us, steer_rad and throttle and brake (or speed_mps) are required", ErrBadControl)
 	}
-	c := Control{TUs: *raw.TUs, SteerRad: *raw.SteerRad, Throttle: *raw.Throttle, Brake: *raw.Brake}
+	c := Control{TUs: *raw.TUs, SteerRad: *raw.SteerRad}
+	if raw.Throttle != nil {
+		c.Throttle, c.Brake, c.HasPedals = *raw.Throttle, *raw.Brake, true
+	}
+	if raw.SpeedMps != nil {
+		c.SpeedMps, c.HasSpeed = *raw.SpeedMps, true
+	}
 	return c, c.check()
 }
 
@@ -118,10 +145,16 @@ func (c Control) AppendJSON(b []byte) []byte {
 	b = strconv.AppendInt(b, c.TUs, 10)
 	b = append(b, `,"steer_rad":`...)
 	b = strconv.AppendFloat(b, c.SteerRad, 'g', -1, 64)
-	b = append(b, `,"throttle":`...)
-	b = strconv.AppendFloat(b, c.Throttle, 'g', -1, 64)
-	b = append(b, `,"brake":`...)
-	b = strconv.AppendFloat(b, c.Brake, 'g', -1, 64)
+	if c.HasPedals {
+		b = append(b, `,"throttle":`...)
+		b = strconv.AppendFloat(b, c.Throttle, 'g', -1, 64)
+		b = append(b, `,"brake":`...)
+		b = strconv.AppendFloat(b, c.Brake, 'g', -1, 64)
+	}
+	if c.HasSpeed {
+		b = append(b, `,"speed_mps":`...)
+		b = strconv.AppendFloat(b, c.SpeedMps, 'g', -1, 64)
+	}
 	return append(b, '}')
 }
 
@@ -130,9 +163,16 @@ func (c Control) appendRow(b []byte) []byte {
 	b = strconv.AppendInt(b, c.TUs, 10)
 	b = append(b, ',')
 	b = strconv.AppendInt(b, c.ArrivalUs, 10)
-	for _, v := range []float64{c.SteerRad, c.Throttle, c.Brake} {
+	b = append(b, ',')
+	b = strconv.AppendFloat(b, c.SteerRad, 'g', -1, 64)
+	for _, v := range []struct {
+		x  float64
+		ok bool
+	}{{c.Throttle, c.HasPedals}, {c.Brake, c.HasPedals}, {c.SpeedMps, c.HasSpeed}} {
 		b = append(b, ',')
-		b = strconv.AppendFloat(b, v, 'g', -1, 64)
+		if v.ok {
+			b = strconv.AppendFloat(b, v.x, 'g', -1, 64)
+		}
 	}
 	return append(b, '\n')
 }
@@ -217,7 +257,7 @@ func ParseControls(name string, data []byte) ([]Control, error) {
 	for i, h := range strings.Split(strings.TrimSuffix(lines[0], "\r"), ",") {
 		col[h] = i
 	}
-	for _, need := range strings.Split(ControlsHeader, ",") {
+	for _, need := range requiredColumns {
 		if _, ok := col[need]; !ok {
 			return nil, &FileError{Path: name, Line: 1, Err: fmt.Errorf("%w: no column %s; want %s", ErrBadControl, need, ControlsHeader)}
 		}
@@ -250,10 +290,23 @@ func ParseControls(name string, data []byte) ([]Control, error) {
 				c.ArrivalUs = v
 			}
 		}
-		for _, k := range []string{"steer_rad", "throttle", "brake"} {
+		var blank [2]bool // throttle, brake
+		for _, k := range []string{"steer_rad", "throttle", "brake", "speed_mps"} {
+			if _, ok := col[k]; !ok {
+				continue // speed_mps: older files
+			}
 			s, err := get(k)
 			if err != nil {
 				return nil, err
+			}
+			if s == "" && k != "steer_rad" {
+				switch k {
+				case "throttle":
+					blank[0] = true
+				case "brake":
+					blank[1] = true
+				}
+				continue
 			}
 			v, err := strconv.ParseFloat(s, 64)
 			if err != nil {
@@ -264,10 +317,16 @@ func ParseControls(name string, data []byte) ([]Control, error) {
 				c.SteerRad = v
 			case "throttle":
 				c.Throttle = v
-			default:
+			case "brake":
 				c.Brake = v
+			default:
+				c.SpeedMps, c.HasSpeed = v, true
 			}
 		}
+		if blank[0] != blank[1] {
+			return nil, &FileError{Path: name, Line: ln, Err: fmt.Errorf("%w: throttle and brake are both given or both blank", ErrBadControl)}
+		}
+		c.HasPedals = !blank[0]
 		if err := c.check(); err != nil {
 			return nil, &FileError{Path: name, Line: ln, Err: err}
 		}

@@ -57,16 +57,27 @@ func TestControlsEndpointRecords(t *testing.T) {
 }
 
 func TestParseControlsErrors(t *testing.T) {
-	good := ControlsHeader + "\n10,100,0.1,0.2,0\n"
+	good := ControlsHeader + "\n10,100,0.1,0.2,0,\n"
 	if rows, err := ParseControls("c.csv", []byte(good+"20,110,0.1")); err != nil || len(rows) != 1 {
 		t.Errorf("torn last line: %v, %v; want it dropped", rows, err)
+	}
+	old := "t_us,t_arrival_us,steer_rad,throttle,brake\n10,100,0.1,0.2,0\n"
+	if rows, err := ParseControls("c.csv", []byte(old)); err != nil || len(rows) != 1 || !rows[0].HasPedals || rows[0].HasSpeed {
+		t.Errorf("file without speed_mps: %+v, %v; want one row with pedals", rows, err)
+	}
+	speed := ControlsHeader + "\n10,100,0.1,,,8.5\n"
+	if rows, err := ParseControls("c.csv", []byte(speed)); err != nil || len(rows) != 1 || rows[0].HasPedals || !rows[0].HasSpeed || rows[0].SpeedMps != 8.5 {
+		t.Errorf("commanded speed: %+v, %v; want one row with speed 8.5 and no pedals", rows, err)
 	}
 	tests := []struct{ name, data, has string }{
 		{"no header", "", "no header"},
 		{"missing column", "t_us,steer_rad\n", "t_arrival_us"},
 		{"bad number", ControlsHeader + "\n10,100,abc,0,0\n", "c.csv:2"},
-		{"throttle range", ControlsHeader + "\n10,100,0,1.5,0\n", "throttle"},
-		{"arrival order", ControlsHeader + "\n10,100,0,0,0\n11,90,0,0,0\n", "arrival order"},
+		{"throttle range", ControlsHeader + "\n10,100,0,1.5,0,\n", "throttle"},
+		{"arrival order", ControlsHeader + "\n10,100,0,0,0,\n11,90,0,0,0,\n", "arrival order"},
+		{"half pedals", ControlsHeader + "\n10,100,0,0.5,,3\n", "both given or both blank"},
+		{"nothing longitudinal", ControlsHeader + "\n10,100,0,,,\n", "neither pedals"},
+		{"NaN speed", ControlsHeader + "\n10,100,0,,,NaN\n", "speed_mps"},
 		{"short row", ControlsHeader + "\n10,100\n", "no steer_rad"},
 	}
 	for _, tc := range tests {
