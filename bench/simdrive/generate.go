@@ -131,18 +131,29 @@ func Generate(ctx context.Context, cfg Config, outDir string, progress func(done
 	return os.Remove(tmp)
 }
 
-// writeTelemetry writes samples at TelemetryHz from t = 0 through the end
-// of the drive with seeded Gaussian noise (see the package documentation).
+// writeTelemetry writes telemetryRows(cfg, tr).
 func writeTelemetry(w *recording.Writer, cfg Config, tr *trajectory) error {
+	for k, row := range telemetryRows(cfg, tr) {
+		if err := w.WriteTelemetry(row); err != nil {
+			return fmt.Errorf("simdrive: telemetry sample %d: %w", k, err)
+		}
+	}
+	return nil
+}
+
+// telemetryRows returns samples at TelemetryHz from t = 0 through the end
+// of the drive with seeded Gaussian noise (see the package documentation).
+func telemetryRows(cfg Config, tr *trajectory) []recording.TelemetryRow {
 	rng := rand.New(rand.NewPCG(uint64(cfg.Seed), 0x7e1e))
 	endUs := int64(math.Round(cfg.DurationS * 1e6))
+	var rows []recording.TelemetryRow
 	for k := 0; ; k++ {
 		us := int64(math.Round(float64(k) * 1e6 / cfg.TelemetryHz))
 		if us > endUs {
-			return nil
+			return rows
 		}
 		ts := float64(us) * 1e-6
-		row := recording.TelemetryRow{
+		rows = append(rows, recording.TelemetryRow{
 			TimeUs:     us,
 			SpeedMps:   tr.SpeedMps(ts) + sigma(cfg.SpeedSigmaMps)*rng.NormFloat64(),
 			YawRateRps: tr.YawRateRps(ts) + sigma(cfg.YawRateSigmaRps)*rng.NormFloat64(),
@@ -150,9 +161,6 @@ func writeTelemetry(w *recording.Writer, cfg Config, tr *trajectory) error {
 			HasAccel:   true,
 			SteerRad:   tr.SteerRad(ts, cfg.WheelbaseM) + sigma(cfg.SteerSigmaRad)*rng.NormFloat64(),
 			HasSteer:   true,
-		}
-		if err := w.WriteTelemetry(row); err != nil {
-			return fmt.Errorf("simdrive: telemetry sample %d: %w", k, err)
-		}
+		})
 	}
 }
