@@ -55,8 +55,15 @@ type ReplayConfig struct {
 
 	// Policy decides PREDICTED versus STALE (cutoff and age cap).
 	Policy predictor.Policy
-	// Filter configures the motion filter; a zero Model means CTRV.
+	// Filter configures the motion filter. A zero Model means the bicycle
+	// driven by the operator's commands when the drive has them (see
+	// NoCommands), else CTRV. A zero Filter.Actuator is fitted from the
+	// drive (filter.FitActuator).
 	Filter filter.Config
+	// NoCommands ignores the operator's commands (operator.ControlsFile in
+	// Drive, or beside ArrivalsFile) even when present: the filter then
+	// runs on telemetry alone.
+	NoCommands bool
 	// AllowanceMs is the display clock's jitter allowance past a frame's
 	// nominal arrival; 0 means DefaultAllowanceMs, negative is an error.
 	AllowanceMs float64
@@ -351,9 +358,9 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 	}
 	sched.RecordedDeadlineUs = in.deadlineUs
 
-	fcfg := cfg.Filter
-	if fcfg.Model == filter.ModelInvalid {
-		fcfg.Model = filter.ModelCTRV
+	fcfg, cmds, cmdUse, err := loadCommands(cfg, in.telemetry, log)
+	if err != nil {
+		return Summary{}, err
 	}
 	flt, err := filter.New(fcfg)
 	if err != nil {
@@ -412,6 +419,11 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 			return Summary{}, fmt.Errorf("replay: stopped at tick %d of %d: %w", k, total, err)
 		}
 		deadline := sched.DeadlineUs(k)
+		if cmds != nil {
+			// Commands are made on the operator's side: they are never
+			// lost with the video.
+			cmds.feed(flt, deadline, log)
+		}
 		for ; nextTel < len(telOrder) && telArr[telOrder[nextTel]] <= deadline; nextTel++ {
 			row := in.telemetry[telOrder[nextTel]]
 			if err := flt.Add(SampleFromRow(row)); err != nil {
@@ -477,6 +489,8 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 	sum.LatencyMs = float64(sched.LatencyUs) / 1000
 	sum.FilterModel = fcfg.Model.String()
 	sum.TelemetryRejected = int(flt.Rejected().Total())
+	cmdUse.Rejected = int(flt.CommandsRejected().Total())
+	sum.Commands = cmdUse
 	out.rows, out.examples = rows, examples
 	return sum, nil
 }

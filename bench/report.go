@@ -158,6 +158,9 @@ type Summary struct {
 	FilterModel string `json:"filter_model"`
 	// TelemetryRejected counts telemetry samples the filter rejected.
 	TelemetryRejected int `json:"telemetry_rejected"`
+	// Commands says whether the operator's commands drove the motion model
+	// and with which actuator model.
+	Commands CommandsUse `json:"commands"`
 
 	TicksTotal     int `json:"ticks_total"`     // display ticks replayed
 	TicksMissing   int `json:"ticks_missing"`   // ticks without a real frame (PREDICTED + STALE)

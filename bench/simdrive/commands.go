@@ -130,6 +130,9 @@ func at(s []float64, t float64) float64 {
 	return s[k] + f*(s[k+1]-s[k])
 }
 
+// simOperator is the operator name in a simulated drive's control log.
+const simOperator = "simulated"
+
 // writeCommands writes the commands sent up to the end of the drive to
 // recDir/controls.csv (operator.ControlsFile). The simulated station sits
 // next to the relay on the drive's clock: t_arrival_us = t_us.
@@ -146,7 +149,7 @@ func writeCommands(recDir string, cfg Config, tr *trajectory) error {
 		if c.TimeUs > endUs {
 			break
 		}
-		if err := w.Write(operator.Control{TUs: c.TimeUs, ArrivalUs: c.TimeUs, SteerRad: c.SteerRad,
+		if err := w.Write(operator.Control{TUs: c.TimeUs, ArrivalUs: c.TimeUs, Operator: simOperator, SteerRad: c.SteerRad,
 			SpeedMps: c.SpeedMps, HasSpeed: true}); err != nil {
 			w.Close()
 			return fmt.Errorf("simdrive: %w", err)

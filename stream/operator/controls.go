@@ -15,6 +15,8 @@ import (
 	"strings"
 	"sync"
 	"time"
+
+	"stopgap/stream/console"
 )
 
 // The operator control log: what the operator commanded, recorded by the
@@ -27,10 +29,12 @@ import (
 // to MaxControlsPerPost lines per request, so a station sampling at 60 Hz
 // can batch a few samples per request):
 //
-//	{"t_us": 1712345678901234, "steer_rad": -0.021, "throttle": 0.3, "brake": 0}
-//	{"t_us": 1712345678921234, "steer_rad": -0.020, "speed_mps": 8.5}
+//	{"t_us": 1712345678901234, "operator": "alice", "steer_rad": -0.021, "throttle": 0.3, "brake": 0}
+//	{"t_us": 1712345678921234, "operator": "alice", "steer_rad": -0.020, "speed_mps": 8.5}
 //
-// t_us is when the input was sampled (sent), microseconds on the operator
+// operator is the name of the operator profile driving (required; the
+// relay rejects names that are not profiles). t_us is when the input was
+// sampled (sent), microseconds on the operator
 // station's clock; steer_rad the commanded front road-wheel angle in
 // radians, positive to the left (ISO 8855), within ±MaxSteerRad; throttle
 // and brake the pedal positions in [0, 1]; speed_mps the commanded
@@ -39,7 +43,10 @@ import (
 // steer_rad and either both pedals or speed_mps (or all three) are
 // required. The relay
 // answers {"accepted": n, "rejected": m} (and "error" for the first
-// rejected line); a bad line never stops the others.
+// rejected line); a bad line never stops the others. Lines are rejected and
+// counted (ControlCounts) for a bad token, malformed or out-of-range values
+// (JSON has no NaN: a NaN is malformed), an operator with no profile, and a
+// t_us not after the same operator's previous one.
 //
 // ControlsFile (CSV, one header line, no quoting) gets one row per accepted
 // sample, in arrival order:
@@ -47,7 +54,7 @@ import (
 //	t_us,t_arrival_us,steer_rad,throttle,brake,speed_mps
 //
 // with throttle and brake, or speed_mps, blank when the sample had none
-// (files written before speed_mps existed have no such column).
+// (files written before speed_mps and operator existed lack those columns).
 // t_arrival_us is when the relay received it, microseconds on the receiver
 // (relay) clock, the clock of arrivals.csv's deadlines: a fit lines controls
 // up with the display ticks by t_arrival_us (on a station next to the relay
@@ -56,7 +63,7 @@ import (
 // station's clock is mapped to the vehicle's.
 const (
 	ControlsFile       = "controls.csv"
-	ControlsHeader     = "t_us,t_arrival_us,steer_rad,throttle,brake,speed_mps"
+	ControlsHeader     = "t_us,t_arrival_us,steer_rad,throttle,brake,speed_mps,operator"
 	MaxControlBytes    = 1024
 	MaxControlsPerPost = 64
 	// MaxSteerRad bounds a commanded road-wheel angle: 90 degrees, beyond
@@ -75,6 +82,7 @@ var ErrBadControl = errors.New("operator: bad control sample")
 // Control is one operator input sample; see ControlsFile.
 type Control struct {
 	TUs       int64   `json:"t_us"`
+	Operator  string  `json:"operator"` // operator profile name; "" in files made before it existed
 	SteerRad  float64 `json:"steer_rad"`
 	Throttle  float64 `json:"throttle"` // used only if HasPedals
 	Brake     float64 `json:"brake"`    // used only if HasPedals
@@ -113,6 +121,7 @@ func DecodeControl(data []byte) (Control, error) {
 	}
 	var raw struct {
 		TUs      *int64   `json:"t_us"`
+		Operator *string  `json:"operator"`
 		SteerRad *float64 `json:"steer_rad"`
 		Throttle *float64 `json:"throttle"`
 		Brake    *float64 `json:"brake"`
@@ -126,10 +135,16 @@ func DecodeControl(data []byte) (Control, error) {
 	if _, err := dec.Token(); err != io.EOF {
 		return Control{}, fmt.Errorf("%w: extra data after the JSON object", ErrBadControl)
 	}
+	if raw.Operator == nil {
+		return Control{}, fmt.Errorf("%w: operator is required: the name of your operator profile", ErrBadControl)
+	}
 	if raw.TUs == nil || raw.SteerRad == nil || (raw.Throttle == nil) != (raw.Brake == nil) || (raw.Throttle == nil && raw.SpeedMps == nil) {
 		return Control{}, fmt.Errorf("%w: t_us, steer_rad and throttle and brake (or speed_mps) are required", ErrBadControl)
 	}
-	c := Control{TUs: *raw.TUs, SteerRad: *raw.SteerRad}
+	if err := console.CheckProfileName(*raw.Operator); err != nil {
+		return Control{}, fmt.Errorf("%w: operator: %v", ErrBadControl, err)
+	}
+	c := Control{TUs: *raw.TUs, Operator: *raw.Operator, SteerRad: *raw.SteerRad}
 	if raw.Throttle != nil {
 		c.Throttle, c.Brake, c.HasPedals = *raw.Throttle, *raw.Brake, true
 	}
@@ -143,6 +158,8 @@ func DecodeControl(data []byte) (Control, error) {
 func (c Control) AppendJSON(b []byte) []byte {
 	b = append(b, `{"t_us":`...)
 	b = strconv.AppendInt(b, c.TUs, 10)
+	b = append(b, `,"operator":`...)
+	b = strconv.AppendQuote(b, c.Operator)
 	b = append(b, `,"steer_rad":`...)
 	b = strconv.AppendFloat(b, c.SteerRad, 'g', -1, 64)
 	if c.HasPedals {
@@ -174,6 +191,8 @@ func (c Control) appendRow(b []byte) []byte {
 			b = strconv.AppendFloat(b, v.x, 'g', -1, 64)
 		}
 	}
+	b = append(b, ',')
+	b = append(b, c.Operator...)
 	return append(b, '\n')
 }
 
@@ -323,6 +342,12 @@ func ParseControls(name string, data []byte) ([]Control, error) {
 				c.SpeedMps, c.HasSpeed = v, true
 			}
 		}
+		if i, ok := col["operator"]; ok && i < len(f) && f[i] != "" {
+			if err := console.CheckProfileName(f[i]); err != nil {
+				return nil, &FileError{Path: name, Line: ln, Err: fmt.Errorf("%w: operator: %v", ErrBadControl, err)}
+			}
+			c.Operator = f[i]
+		}
 		if blank[0] != blank[1] {
 			return nil, &FileError{Path: name, Line: ln, Err: fmt.Errorf("%w: throttle and brake are both given or both blank", ErrBadControl)}
 		}
@@ -339,71 +364,178 @@ func ParseControls(name string, data []byte) ([]Control, error) {
 	return out, nil
 }
 
-// ControlsHandler serves POST /api/controls (see ControlsFile): it checks
-// the bearer token (constant time), decodes each line, stamps it with now()
-// in microseconds (the receiver clock) and appends it to w. Bad lines are
-// counted and reported, never fatal.
-func ControlsHandler(token string, w *ControlsWriter, now func() time.Time) http.Handler {
-	want := []byte("Bearer " + token)
-	return http.HandlerFunc(func(rw http.ResponseWriter, r *http.Request) {
-		reply := func(status int, v any) {
-			rw.Header().Set("Content-Type", "application/json")
-			rw.WriteHeader(status)
-			json.NewEncoder(rw).Encode(v)
+// ControlCounts counts what the control channel received, per outcome.
+type ControlCounts struct {
+	Accepted uint64 `json:"accepted"`
+	// BadToken counts requests refused for a missing or wrong token (their
+	// lines are not read).
+	BadToken uint64 `json:"bad_token"`
+	// Invalid counts lines that are not a valid control message (malformed
+	// JSON, NaN, missing keys, values out of range, too many lines).
+	Invalid uint64 `json:"invalid"`
+	// UnknownOperator counts lines naming no known operator profile.
+	UnknownOperator uint64 `json:"unknown_operator"`
+	// OutOfOrder counts lines whose t_us is not after the same operator's
+	// previous accepted one.
+	OutOfOrder uint64 `json:"out_of_order"`
+	// NotRecorded counts valid lines the control log failed to write
+	// (rejected: the sender may send them again).
+	NotRecorded uint64 `json:"not_recorded"`
+}
+
+// Rejected returns the number of rejected lines (bad-token requests
+// included).
+func (c ControlCounts) Rejected() uint64 {
+	return c.BadToken + c.Invalid + c.UnknownOperator + c.OutOfOrder + c.NotRecorded
+}
+
+// ControlsChannel serves POST /api/controls (see ControlsFile): it checks
+// the bearer token (constant time), decodes each line, checks that the
+// operator is known and that t_us increases per operator, stamps accepted
+// lines with Now in microseconds (the receiver clock), appends them to Log
+// and hands them to Sink. Bad lines are counted (Counts) and reported to
+// the sender, never fatal: the others in the request still count.
+//
+// Configure the exported fields before serving; do not change them after.
+type ControlsChannel struct {
+	// Token is the console's bearer token; required.
+	Token string
+	// Log, if set, records accepted lines.
+	Log *ControlsWriter
+	// Now is the receiver clock; nil means time.Now.
+	Now func() time.Time
+	// Known reports whether name is an operator profile; nil accepts any
+	// valid name (at most MaxControlOperators different ones).
+	Known func(name string) bool
+	// Sink, if set, receives every accepted control (for example the
+	// relay's motion filter, as a command). It must not block.
+	Sink func(Control)
+
+	mu     sync.Mutex
+	last   map[string]int64 // newest accepted t_us per operator
+	counts ControlCounts
+}
+
+// MaxControlOperators bounds how many operators a channel without Known
+// tracks.
+const MaxControlOperators = 64
+
+// ControlsHandler returns a ControlsChannel with token, log w and clock now
+// that accepts any operator name.
+func ControlsHandler(token string, w *ControlsWriter, now func() time.Time) *ControlsChannel {
+	return &ControlsChannel{Token: token, Log: w, Now: now}
+}
+
+// Counts returns the counts so far.
+func (ch *ControlsChannel) Counts() ControlCounts {
+	ch.mu.Lock()
+	defer ch.mu.Unlock()
+	return ch.counts
+}
+
+// ServeHTTP implements http.Handler.
+func (ch *ControlsChannel) ServeHTTP(rw http.ResponseWriter, r *http.Request) {
+	reply := func(status int, v any) {
+		rw.Header().Set("Content-Type", "application/json")
+		rw.WriteHeader(status)
+		json.NewEncoder(rw).Encode(v)
+	}
+	if r.Method != http.MethodPost {
+		rw.Header().Set("Allow", "POST")
+		reply(http.StatusMethodNotAllowed, map[string]string{"error": "POST control samples"})
+		return
+	}
+	want := []byte("Bearer " + ch.Token)
+	if ch.Token == "" || subtle.ConstantTimeCompare([]byte(r.Header.Get("Authorization")), want) != 1 {
+		ch.mu.Lock()
+		ch.counts.BadToken++
+		ch.mu.Unlock()
+		rw.Header().Set("WWW-Authenticate", `Bearer realm="stopgap"`)
+		reply(http.StatusUnauthorized, map[string]string{"error": "missing or wrong bearer token; use the console token"})
+		return
+	}
+	ct := r.Header.Get("Content-Type")
+	if i := strings.IndexByte(ct, ';'); i >= 0 {
+		ct = ct[:i]
+	}
+	if ct = strings.TrimSpace(ct); ct != "application/json" && ct != "application/x-ndjson" {
+		reply(http.StatusUnsupportedMediaType, map[string]string{"error": "Content-Type must be application/json or application/x-ndjson"})
+		return
+	}
+	body, err := io.ReadAll(http.MaxBytesReader(rw, r.Body, MaxControlsPerPost*(MaxControlBytes+1)))
+	if err != nil {
+		reply(http.StatusRequestEntityTooLarge, map[string]string{"error": fmt.Sprintf("at most %d lines of %d bytes", MaxControlsPerPost, MaxControlBytes)})
+		return
+	}
+	now := ch.Now
+	if now == nil {
+		now = time.Now
+	}
+	arrival := now().UnixMicro()
+	var res struct {
+		Accepted int    `json:"accepted"`
+		Rejected int    `json:"rejected"`
+		Error    string `json:"error,omitempty"`
+	}
+	for n, line := range bytes.Split(body, []byte{'\n'}) {
+		if len(bytes.TrimSpace(line)) == 0 {
+			continue
 		}
-		if r.Method != http.MethodPost {
-			rw.Header().Set("Allow", "POST")
-			reply(http.StatusMethodNotAllowed, map[string]string{"error": "POST control samples"})
-			return
-		}
-		if subtle.ConstantTimeCompare([]byte(r.Header.Get("Authorization")), want) != 1 {
-			rw.Header().Set("WWW-Authenticate", `Bearer realm="stopgap"`)
-			reply(http.StatusUnauthorized, map[string]string{"error": "missing or wrong bearer token; use the console token"})
-			return
-		}
-		ct := r.Header.Get("Content-Type")
-		if i := strings.IndexByte(ct, ';'); i >= 0 {
-			ct = ct[:i]
-		}
-		if ct = strings.TrimSpace(ct); ct != "application/json" && ct != "application/x-ndjson" {
-			reply(http.StatusUnsupportedMediaType, map[string]string{"error": "Content-Type must be application/json or application/x-ndjson"})
-			return
-		}
-		body, err := io.ReadAll(http.MaxBytesReader(rw, r.Body, MaxControlsPerPost*(MaxControlBytes+1)))
+		c, err := ch.accept(n, line, arrival)
 		if err != nil {
-			reply(http.StatusRequestEntityTooLarge, map[string]string{"error": fmt.Sprintf("at most %d lines of %d bytes", MaxControlsPerPost, MaxControlBytes)})
-			return
-		}
-		arrival := now().UnixMicro()
-		var res struct {
-			Accepted int    `json:"accepted"`
-			Rejected int    `json:"rejected"`
-			Error    string `json:"error,omitempty"`
-		}
-		for n, line := range bytes.Split(body, []byte{'\n'}) {
-			if len(bytes.TrimSpace(line)) == 0 {
-				continue
+			res.Rejected++
+			if res.Error == "" {
+				res.Error = fmt.Sprintf("line %d: %v", n+1, err)
 			}
-			var c Control
-			if n >= MaxControlsPerPost {
-				err = fmt.Errorf("%w: more than %d lines in one request", ErrBadControl, MaxControlsPerPost)
-			} else if c, err = DecodeControl(line); err == nil {
-				c.ArrivalUs = arrival
-				err = w.Write(c)
-			}
-			if err != nil {
-				res.Rejected++
-				if res.Error == "" {
-					res.Error = fmt.Sprintf("line %d: %v", n+1, err)
-				}
-				continue
-			}
-			res.Accepted++
+			continue
 		}
-		status := http.StatusOK
-		if res.Accepted == 0 && res.Rejected > 0 {
-			status = http.StatusBadRequest
+		res.Accepted++
+		if ch.Sink != nil {
+			ch.Sink(c)
 		}
-		reply(status, res)
-	})
+	}
+	status := http.StatusOK
+	if res.Accepted == 0 && res.Rejected > 0 {
+		status = http.StatusBadRequest
+	}
+	reply(status, res)
+}
+
+// accept checks line n of a request and records it; it counts the outcome.
+func (ch *ControlsChannel) accept(n int, line []byte, arrivalUs int64) (Control, error) {
+	var c Control
+	var err error
+	if n >= MaxControlsPerPost {
+		err = fmt.Errorf("%w: more than %d lines in one request", ErrBadControl, MaxControlsPerPost)
+	} else {
+		c, err = DecodeControl(line)
+	}
+	ch.mu.Lock()
+	defer ch.mu.Unlock()
+	if err != nil {
+		ch.counts.Invalid++
+		return c, err
+	}
+	prev, seen := ch.last[c.Operator]
+	switch {
+	case ch.Known != nil && !ch.Known(c.Operator), ch.Known == nil && !seen && len(ch.last) >= MaxControlOperators:
+		ch.counts.UnknownOperator++
+		return c, fmt.Errorf("%w: operator %q has no profile; send the name of your operator profile", ErrBadControl, c.Operator)
+	case seen && c.TUs <= prev:
+		ch.counts.OutOfOrder++
+		return c, fmt.Errorf("%w: t_us %d is not after this operator's previous %d; send samples in order on one clock", ErrBadControl, c.TUs, prev)
+	}
+	if ch.last == nil {
+		ch.last = map[string]int64{}
+	}
+	c.ArrivalUs = arrivalUs
+	if ch.Log != nil {
+		if err := ch.Log.Write(c); err != nil {
+			ch.counts.NotRecorded++
+			return c, err
+		}
+	}
+	ch.last[c.Operator] = c.TUs
+	ch.counts.Accepted++
+	return c, nil
 }

@@ -1,0 +1,225 @@
+package bench
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io/fs"
+	"log/slog"
+	"path/filepath"
+	"sort"
+
+	"stopgap/filter"
+	"stopgap/stream/operator"
+	"stopgap/stream/recording"
+)
+
+// CommandsUse is what a replay did with the operator's commands.
+type CommandsUse struct {
+	// File is the control log read (operator.ControlsFile), "" if none.
+	File string `json:"file,omitempty"`
+	// Used is true when the commands drove the bicycle model.
+	Used bool `json:"used"`
+	// Why says why they were not used ("" when used).
+	Why string `json:"why,omitempty"`
+	// Count is the number of commands in the file; Rejected how many of
+	// them the filter rejected (bad values, out of order).
+	Count    int `json:"count"`
+	Rejected int `json:"rejected"`
+	// Actuator is the actuator model used: configured, or fitted from the
+	// drive (Fitted) with the residual RMS of yaw rate and speed.
+	DelayMs     float64 `json:"delay_ms"`
+	SteerLagS   float64 `json:"steer_lag_s"`
+	SpeedLagS   float64 `json:"speed_lag_s"`
+	Fitted      bool    `json:"fitted"`
+	SteerRMSRps float64 `json:"steer_rms_rps,omitempty"`
+	SpeedRMSMps float64 `json:"speed_rms_mps,omitempty"`
+}
+
+// replayCommands is the command side of one replay: the commands in
+// arrival order and their arrival times on the receiver clock.
+type replayCommands struct {
+	cmds    []filter.Command
+	arrival []int64
+	next    int
+}
+
+// feed gives the filter every command that has arrived by deadlineUs.
+func (rc *replayCommands) feed(flt *filter.Filter, deadlineUs int64, log *slog.Logger) {
+	for ; rc.next < len(rc.cmds) && rc.arrival[rc.next] <= deadlineUs; rc.next++ {
+		if err := flt.AddCommand(rc.cmds[rc.next]); err != nil {
+			log.Debug("command rejected", "t_us", rc.cmds[rc.next].TimeUs, "err", err)
+		}
+	}
+}
+
+// loadCommands finds the drive's control log (in cfg.Drive, else beside
+// cfg.ArrivalsFile) and decides the filter configuration:
+//
+//   - no log, cfg.NoCommands, or an explicit CTRV model: commands unused,
+//     fcfg unchanged (a zero Model becomes CTRV);
+//   - otherwise the model is the bicycle, and the actuator is
+//     cfg.Filter.Actuator when its delay or a lag is set, else fitted from
+//     the whole drive's commands and telemetry (filter.FitActuator; the
+//     actuator is a property of the vehicle, so a fit over the drive is a
+//     calibration, not a look into each gap's future).
+//
+// The commands reach the filter at their recorded t_arrival_us (a station
+// next to the relay); their send time t_us is taken as on the vehicle clock
+// (station and vehicle synchronised, e.g. by NTP).
+func loadCommands(cfg ReplayConfig, telemetry []recording.TelemetryRow, log *slog.Logger) (filter.Config, *replayCommands, CommandsUse, error) {
+	fcfg := cfg.Filter
+	var use CommandsUse
+	var rows []operator.Control
+	for _, dir := range []string{cfg.Drive, filepath.Dir(cfg.ArrivalsFile)} {
+		if dir == "." && cfg.ArrivalsFile == "" {
+			continue
+		}
+		path := filepath.Join(dir, operator.ControlsFile)
+		r, err := operator.ReadControls(path)
+		if errors.Is(err, fs.ErrNotExist) {
+			continue
+		}
+		if err != nil {
+			return fcfg, nil, use, fmt.Errorf("replay: %w; fix the file or replay with the commands off", err)
+		}
+		use.File, rows = path, r
+		break
+	}
+	use.Count = len(rows)
+	notUsed := func(why string) (filter.Config, *replayCommands, CommandsUse, error) {
+		if fcfg.Model == filter.ModelInvalid {
+			fcfg.Model = filter.ModelCTRV
+		}
+		use.Why = why
+		return fcfg, nil, use, nil
+	}
+	switch {
+	case cfg.NoCommands:
+		return notUsed("switched off")
+	case len(rows) == 0:
+		return notUsed("no commands recorded (" + operator.ControlsFile + ")")
+	case fcfg.Model == filter.ModelCTRV:
+		return notUsed("the CTRV model takes no commands; use the bicycle model")
+	case fcfg.WheelbaseM == 0:
+		return notUsed("no wheelbase configured for the bicycle model")
+	}
+	fcfg.Model = filter.ModelBicycle
+	rc := &replayCommands{cmds: make([]filter.Command, len(rows)), arrival: make([]int64, len(rows))}
+	order := make([]int, len(rows))
+	for i := range order {
+		order[i] = i
+	}
+	// The log is in arrival order; within one arrival, send order.
+	sort.SliceStable(order, func(a, b int) bool {
+		ra, rb := &rows[order[a]], &rows[order[b]]
+		if ra.ArrivalUs != rb.ArrivalUs {
+			return ra.ArrivalUs < rb.ArrivalUs
+		}
+		return ra.TUs < rb.TUs
+	})
+	for k, i := range order {
+		rc.cmds[k], rc.arrival[k] = CommandFromControl(rows[i]), rows[i].ArrivalUs
+	}
+	act := fcfg.Actuator
+	if act.DelayUs == 0 && act.SteerLagS == 0 && act.SpeedLagS == 0 {
+		samples := make([]filter.Sample, len(telemetry))
+		for i, r := range telemetry {
+			samples[i] = SampleFromRow(r)
+		}
+		sort.SliceStable(samples, func(a, b int) bool { return samples[a].TimeUs < samples[b].TimeUs })
+		fit, err := filter.FitActuator(rc.cmds, samples, fcfg.WheelbaseM)
+		if err != nil {
+			return fcfg, nil, use, fmt.Errorf("replay: fitting the actuator to %s: %w; configure the delay and lags instead", use.File, err)
+		}
+		act.DelayUs, act.SteerLagS, act.SpeedLagS = fit.Actuator.DelayUs, fit.Actuator.SteerLagS, fit.Actuator.SpeedLagS
+		use.Fitted, use.SteerRMSRps, use.SpeedRMSMps = true, fit.SteerRMSRps, fit.SpeedRMSMps
+		log.Info("actuator fitted from the drive", "delay_ms", float64(act.DelayUs)/1000, "steer_lag_s", act.SteerLagS, "speed_lag_s", act.SpeedLagS)
+	}
+	fcfg.Actuator = act
+	use.Used = true
+	use.DelayMs, use.SteerLagS, use.SpeedLagS = float64(act.DelayUs)/1000, act.SteerLagS, act.SpeedLagS
+	return fcfg, rc, use, nil
+}
+
+// CommandFromControl converts one control log row to a filter command.
+func CommandFromControl(c operator.Control) filter.Command {
+	return filter.Command{TimeUs: c.TUs, SteerRad: c.SteerRad, SpeedMps: c.SpeedMps, HasSpeed: c.HasSpeed}
+}
+
+// MotionSource is one row of the motion-source evaluation: which inputs,
+// besides whatever telemetry arrives, drive the filter.
+type MotionSource struct {
+	// Name labels the row.
+	Name string
+	// Commands: the operator's commands drive the bicycle model.
+	Commands bool
+}
+
+// MotionSources returns the evaluation's rows, in order.
+func MotionSources() []MotionSource {
+	return []MotionSource{
+		{Name: "telemetry only"},
+		{Name: "commands added", Commands: true},
+	}
+}
+
+// apply returns cfg set up for source s.
+func (s MotionSource) apply(cfg ReplayConfig) ReplayConfig {
+	cfg.NoCommands = !s.Commands
+	return cfg
+}
+
+// TelemetryLinks returns the evaluation's two telemetry links: lost with
+// the video, and on its own channel (never lost).
+func TelemetryLinks() []TelemetryLink {
+	return []TelemetryLink{{}, {Own: true}}
+}
+
+// MotionRow is one replay of the motion-source evaluation.
+type MotionRow struct {
+	Source    string        `json:"source"`
+	Telemetry TelemetryLink `json:"telemetry"`
+	// Model is the filter's motion model.
+	Model string `json:"model"`
+	// HoldPSNRdB and ShownPSNRdB are the mean PSNR of hold and of what the
+	// operator is shown (PREDICTED, or the held frame when STALE) over the
+	// scored missing ticks; GainDB their difference.
+	HoldPSNRdB, ShownPSNRdB, GainDB float64
+	// Predicted counts the PREDICTED ticks scored, Harm those worse than
+	// hold by more than 1 dB PSNR, HarmRate their share.
+	Predicted, Harm int
+	HarmRate        float64
+	// Missing is the number of missing ticks.
+	Missing int
+	// Commands is what the replay did with the commands.
+	Commands CommandsUse `json:"commands"`
+}
+
+// CompareMotionSources replays cfg (without writing a report) once per
+// source and per telemetry link and returns one row each, sources outer.
+// cfg.Telemetry and cfg.NoCommands are overridden.
+func CompareMotionSources(ctx context.Context, cfg ReplayConfig, sources []MotionSource, links []TelemetryLink) ([]MotionRow, error) {
+	var rows []MotionRow
+	for _, src := range sources {
+		for _, link := range links {
+			c := src.apply(cfg)
+			c.Telemetry, c.Examples = link, -1
+			var out replayOutput
+			sum, err := replayDrive(ctx, c, &out)
+			if err != nil {
+				return nil, fmt.Errorf("motion source %q: %w", src.Name, err)
+			}
+			if src.Commands && !sum.Commands.Used {
+				return nil, fmt.Errorf("motion source %q: commands not used (%s): %w", src.Name, sum.Commands.Why, ErrReplayInput)
+			}
+			hold, shown := float64(sum.Methods.Hold.PSNRdBMean), float64(sum.Methods.Predicted.PSNRdBMean)
+			rows = append(rows, MotionRow{Source: src.Name, Telemetry: link, Model: sum.FilterModel,
+				HoldPSNRdB: hold, ShownPSNRdB: shown, GainDB: shown - hold,
+				Predicted: sum.PredictedOnly.Frames, Harm: sum.PredictedOnly.HarmPSNR,
+				HarmRate: float64(sum.PredictedOnly.HarmPSNR) / float64(max(1, sum.PredictedOnly.Frames)),
+				Missing:  sum.TicksMissing, Commands: sum.Commands})
+		}
+	}
+	return rows, nil
+}
