@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"io/fs"
 	"log/slog"
+	"math"
 	"path/filepath"
 	"sort"
 
@@ -154,7 +155,15 @@ type MotionSource struct {
 	Name string
 	// Commands: the operator's commands drive the bicycle model.
 	Commands bool
+	// Truth replaces the filter by the exact motion from truth.csv: the
+	// upper bound of any motion source for the predictor as it is (the
+	// telemetry link makes no difference to it).
+	Truth bool
 }
+
+// TruthSource is the reference row of the evaluation on drives with a
+// truth.csv (see MotionSource.Truth).
+var TruthSource = MotionSource{Name: "exact motion (bound)", Truth: true}
 
 // MotionSources returns the evaluation's rows, in order.
 func MotionSources() []MotionSource {
@@ -167,6 +176,7 @@ func MotionSources() []MotionSource {
 // apply returns cfg set up for source s.
 func (s MotionSource) apply(cfg ReplayConfig) ReplayConfig {
 	cfg.NoCommands = !s.Commands
+	cfg.exactMotion = s.Truth
 	return cfg
 }
 
@@ -192,6 +202,10 @@ type MotionRow struct {
 	HarmRate        float64
 	// Missing is the number of missing ticks.
 	Missing int
+	// MisalignMrad is the mean misalignment of the motion used against the
+	// exact motion (truth.csv) over the PREDICTED ticks, mrad (NaN without
+	// truth): how wrong the motion was, apart from the image synthesis.
+	MisalignMrad float64
 	// Commands is what the replay did with the commands.
 	Commands CommandsUse `json:"commands"`
 }
@@ -213,13 +227,62 @@ func CompareMotionSources(ctx context.Context, cfg ReplayConfig, sources []Motio
 			if src.Commands && !sum.Commands.Used {
 				return nil, fmt.Errorf("motion source %q: commands not used (%s): %w", src.Name, sum.Commands.Why, ErrReplayInput)
 			}
+			var mis float64
+			nm := 0
+			for _, t := range out.rows {
+				if t.State == TickPredicted && !math.IsNaN(t.TruthMisalignMrad) {
+					mis += t.TruthMisalignMrad
+					nm++
+				}
+			}
+			closeExamples(out.examples)
 			hold, shown := float64(sum.Methods.Hold.PSNRdBMean), float64(sum.Methods.Predicted.PSNRdBMean)
 			rows = append(rows, MotionRow{Source: src.Name, Telemetry: link, Model: sum.FilterModel,
 				HoldPSNRdB: hold, ShownPSNRdB: shown, GainDB: shown - hold,
 				Predicted: sum.PredictedOnly.Frames, Harm: sum.PredictedOnly.HarmPSNR,
 				HarmRate: float64(sum.PredictedOnly.HarmPSNR) / float64(max(1, sum.PredictedOnly.Frames)),
-				Missing:  sum.TicksMissing, Commands: sum.Commands})
+				Missing:  sum.TicksMissing, Commands: sum.Commands, MisalignMrad: mis / float64(nm)})
+			if src.Truth {
+				break // the link makes no difference
+			}
 		}
 	}
 	return rows, nil
+}
+
+func closeExamples(es []Example) {
+	for _, e := range es {
+		closeExample(e)
+	}
+}
+
+// exactMotion is the motion between two times from truth.csv, poses
+// interpolated linearly between frames, with zero covariance.
+type exactMotion []recording.Truth
+
+// Relative implements predictor.MotionSource.
+func (m exactMotion) Relative(t0Us, t1Us int64) (filter.Motion, error) {
+	if len(m) == 0 {
+		return filter.Motion{}, fmt.Errorf("exact motion: no truth rows: %w", ErrReplayInput)
+	}
+	p0, p1 := m.at(t0Us), m.at(t1Us)
+	c, sn := math.Cos(p0[2]), math.Sin(p0[2])
+	dx, dy := p1[0]-p0[0], p1[1]-p0[1]
+	return filter.Motion{T0Us: t0Us, T1Us: t1Us, DxM: c*dx + sn*dy, DyM: -sn*dx + c*dy,
+		DyawRad: math.Remainder(p1[2]-p0[2], 2*math.Pi)}, nil
+}
+
+// at returns (x, y, yaw) at tUs, clamped to the rows' span.
+func (m exactMotion) at(tUs int64) [3]float64 {
+	i := sort.Search(len(m), func(i int) bool { return m[i].CaptureUs >= tUs })
+	switch {
+	case i == 0:
+		return [3]float64{m[0].XM, m[0].YM, m[0].YawRad}
+	case i == len(m):
+		l := m[len(m)-1]
+		return [3]float64{l.XM, l.YM, l.YawRad}
+	}
+	a, b := m[i-1], m[i]
+	f := float64(tUs-a.CaptureUs) / float64(b.CaptureUs-a.CaptureUs)
+	return [3]float64{a.XM + f*(b.XM-a.XM), a.YM + f*(b.YM-a.YM), a.YawRad + f*math.Remainder(b.YawRad-a.YawRad, 2*math.Pi)}
 }

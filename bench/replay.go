@@ -92,6 +92,10 @@ type ReplayConfig struct {
 	Logger *slog.Logger
 	// Now is the clock for synthesis times; nil means time.Now.
 	Now func() time.Time
+
+	// exactMotion replaces the filter by the motion from truth.csv (the
+	// evaluation's upper bound, MotionSource.Truth).
+	exactMotion bool
 }
 
 // Schedule is the display schedule of a replay: when each tick falls and
@@ -392,7 +396,14 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 	}
 	sort.SliceStable(telOrder, func(a, b int) bool { return telArr[telOrder[a]] < telArr[telOrder[b]] })
 
-	r, err := newReplayer(cam, cfg.Policy, cfg.Confidence, flt, now)
+	var motion predictor.MotionSource = flt
+	if cfg.exactMotion {
+		if in.pairing != nil || len(rec.Truth) != len(captureUs) {
+			return Summary{}, fmt.Errorf("replay: the exact motion needs a truth.csv row for every frame: %w", ErrReplayInput)
+		}
+		motion = exactMotion(rec.Truth)
+	}
+	r, err := newReplayer(cam, cfg.Policy, cfg.Confidence, motion, now)
 	if err != nil {
 		return Summary{}, fmt.Errorf("replay: %w", err)
 	}
@@ -607,7 +618,7 @@ type replayer struct {
 	truthImg, heldImg gocv.Mat
 }
 
-func newReplayer(cam predictor.Camera, pol predictor.Policy, cm predictor.ConfidenceModel, flt *filter.Filter, now func() time.Time) (*replayer, error) {
+func newReplayer(cam predictor.Camera, pol predictor.Policy, cm predictor.ConfidenceModel, flt predictor.MotionSource, now func() time.Time) (*replayer, error) {
 	filler, err := predictor.NewFiller(predictor.FillerConfig{Camera: cam, Policy: pol, Motion: flt, Confidence: cm})
 	if err != nil {
 		return nil, err

@@ -222,6 +222,8 @@ func (f *Filter) commandSteps(t0Us, dtUs int64, ctl *Sample, wrap bool) {
 }
 
 // commandStep predicts f.kf over dtUs (> 0) with command c in effect.
+// Over a gap (Relative past the newest sample) the yaw also turns at the
+// slip rate the telemetry showed (slipTrend), held.
 //
 // The road-wheel angle follows its lag exactly, δ' = δc + (δ − δc)·e with
 // e = exp(−dt/SteerLagS); the pose advances with the mean angle over the
@@ -262,6 +264,7 @@ func (f *Filter) commandStep(dtUs int64, c *Command, ctl *Sample, wrap bool) {
 	if c.HasSpeed {
 		fj[IdxSpeed][IdxSpeed] = eV
 	}
+	xn[IdxYaw] += f.gapSlipRps * dt
 	processNoise(&g, act.AccelNoiseMps2, act.SteerRateNoiseRps, &q)
 	f.predictWith(&xn, &fj, &q, wrap)
 }
@@ -279,4 +282,35 @@ func lagFactors(dtS, tauS float64) (e, mean float64) {
 		return e, 1 - r/2
 	}
 	return e, -math.Expm1(-r) / r
+}
+
+// slipTrend returns the mean yaw rate the kinematic relation does not
+// explain over the Config.TurnAdaptWindowUs ending at history entry last:
+// measured yaw rate minus v·tan(δ)/L, with δ the sample's steering angle
+// (else the posterior's) and v its speed. Tyre slip, understeer and a gyro
+// bias change slowly, so Relative carries this mean over a gap driven by
+// commands, which alone would miss it. 0 when no sample is in the window.
+func (f *Filter) slipTrend(last int) float64 {
+	if last < 0 || last >= f.hist.len() {
+		return 0
+	}
+	end := f.hist.at(last).s.TimeUs
+	var sum float64
+	n := 0
+	for j := last; j >= 0; j-- {
+		e := f.hist.at(j)
+		if end-e.s.TimeUs > f.cfg.TurnAdaptWindowUs {
+			break
+		}
+		d := e.x[IdxTurn]
+		if e.s.HasSteer {
+			d = e.s.SteerRad
+		}
+		sum += e.s.YawRateRps - e.s.SpeedMps*math.Tan(d)/f.cfg.WheelbaseM
+		n++
+	}
+	if n == 0 {
+		return 0
+	}
+	return sum / float64(n)
 }

@@ -277,6 +277,9 @@ type Filter struct {
 	counts    [numReasons]uint64
 	cmds      commandLog // operator commands (AddCommand)
 	cmdCounts Counts     // rejected commands
+	// gapSlipRps is the yaw rate the commands do not explain, carried
+	// over a gap by Relative (slipTrend); 0 otherwise.
+	gapSlipRps float64
 
 	// Scratch, owned by the Filter.
 	fx    *mat.VecDense
@@ -506,7 +509,11 @@ func (f *Filter) Relative(t0Us, t1Us int64) (Motion, error) {
 			}
 		}
 	} else {
+		if f.commandsUsable() {
+			f.gapSlipRps = f.slipTrend(applied)
+		}
 		f.step(cur, diffUs(t1Us, cur), ctl, false)
+		f.gapSlipRps = 0
 	}
 
 	var st [StateDim]float64
