@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"io"
 	"io/fs"
 	"log/slog"
 	"math"
@@ -148,9 +149,9 @@ func CommandFromControl(c operator.Control) filter.Command {
 	return filter.Command{TimeUs: c.TUs, SteerRad: c.SteerRad, SpeedMps: c.SpeedMps, HasSpeed: c.HasSpeed}
 }
 
-// MotionSource is one row of the motion-source evaluation: which inputs,
+// EvalSource is one row of the motion-source evaluation: which inputs,
 // besides whatever telemetry arrives, drive the filter.
-type MotionSource struct {
+type EvalSource struct {
 	// Name labels the row.
 	Name string
 	// Commands: the operator's commands drive the bicycle model.
@@ -161,20 +162,20 @@ type MotionSource struct {
 	Truth bool
 }
 
-// TruthSource is the reference row of the evaluation on drives with a
-// truth.csv (see MotionSource.Truth).
-var TruthSource = MotionSource{Name: "exact motion (bound)", Truth: true}
+// ExactMotionSource is the reference row of the evaluation on drives with a
+// truth.csv (see EvalSource.Truth).
+var ExactMotionSource = EvalSource{Name: "exact motion (bound)", Truth: true}
 
-// MotionSources returns the evaluation's rows, in order.
-func MotionSources() []MotionSource {
-	return []MotionSource{
+// EvalSources returns the evaluation's rows, in order.
+func EvalSources() []EvalSource {
+	return []EvalSource{
 		{Name: "telemetry only"},
 		{Name: "commands added", Commands: true},
 	}
 }
 
 // apply returns cfg set up for source s.
-func (s MotionSource) apply(cfg ReplayConfig) ReplayConfig {
+func (s EvalSource) apply(cfg ReplayConfig) ReplayConfig {
 	cfg.NoCommands = !s.Commands
 	cfg.exactMotion = s.Truth
 	return cfg
@@ -186,8 +187,8 @@ func TelemetryLinks() []TelemetryLink {
 	return []TelemetryLink{{}, {Own: true}}
 }
 
-// MotionRow is one replay of the motion-source evaluation.
-type MotionRow struct {
+// EvalRow is one replay of the motion-source evaluation.
+type EvalRow struct {
 	Source    string        `json:"source"`
 	Telemetry TelemetryLink `json:"telemetry"`
 	// Model is the filter's motion model.
@@ -195,26 +196,29 @@ type MotionRow struct {
 	// HoldPSNRdB and ShownPSNRdB are the mean PSNR of hold and of what the
 	// operator is shown (PREDICTED, or the held frame when STALE) over the
 	// scored missing ticks; GainDB their difference.
-	HoldPSNRdB, ShownPSNRdB, GainDB float64
+	HoldPSNRdB  Float `json:"hold_psnr_db"`
+	ShownPSNRdB Float `json:"shown_psnr_db"`
+	GainDB      Float `json:"gain_db"`
 	// Predicted counts the PREDICTED ticks scored, Harm those worse than
 	// hold by more than 1 dB PSNR, HarmRate their share.
-	Predicted, Harm int
-	HarmRate        float64
+	Predicted int   `json:"predicted"`
+	Harm      int   `json:"harm_psnr"`
+	HarmRate  Float `json:"harm_rate_psnr"`
 	// Missing is the number of missing ticks.
-	Missing int
+	Missing int `json:"missing"`
 	// MisalignMrad is the mean misalignment of the motion used against the
 	// exact motion (truth.csv) over the PREDICTED ticks, mrad (NaN without
 	// truth): how wrong the motion was, apart from the image synthesis.
-	MisalignMrad float64
+	MisalignMrad Float `json:"truth_misalign_mrad_mean"`
 	// Commands is what the replay did with the commands.
 	Commands CommandsUse `json:"commands"`
 }
 
-// CompareMotionSources replays cfg (without writing a report) once per
+// CompareEvalSources replays cfg (without writing a report) once per
 // source and per telemetry link and returns one row each, sources outer.
 // cfg.Telemetry and cfg.NoCommands are overridden.
-func CompareMotionSources(ctx context.Context, cfg ReplayConfig, sources []MotionSource, links []TelemetryLink) ([]MotionRow, error) {
-	var rows []MotionRow
+func CompareEvalSources(ctx context.Context, cfg ReplayConfig, sources []EvalSource, links []TelemetryLink) ([]EvalRow, error) {
+	var rows []EvalRow
 	for _, src := range sources {
 		for _, link := range links {
 			c := src.apply(cfg)
@@ -237,11 +241,11 @@ func CompareMotionSources(ctx context.Context, cfg ReplayConfig, sources []Motio
 			}
 			closeExamples(out.examples)
 			hold, shown := float64(sum.Methods.Hold.PSNRdBMean), float64(sum.Methods.Predicted.PSNRdBMean)
-			rows = append(rows, MotionRow{Source: src.Name, Telemetry: link, Model: sum.FilterModel,
-				HoldPSNRdB: hold, ShownPSNRdB: shown, GainDB: shown - hold,
+			rows = append(rows, EvalRow{Source: src.Name, Telemetry: link, Model: sum.FilterModel,
+				HoldPSNRdB: Float(hold), ShownPSNRdB: Float(shown), GainDB: Float(shown - hold),
 				Predicted: sum.PredictedOnly.Frames, Harm: sum.PredictedOnly.HarmPSNR,
-				HarmRate: float64(sum.PredictedOnly.HarmPSNR) / float64(max(1, sum.PredictedOnly.Frames)),
-				Missing:  sum.TicksMissing, Commands: sum.Commands, MisalignMrad: mis / float64(nm)})
+				HarmRate: Float(float64(sum.PredictedOnly.HarmPSNR) / float64(max(1, sum.PredictedOnly.Frames))),
+				Missing:  sum.TicksMissing, Commands: sum.Commands, MisalignMrad: Float(mis / float64(nm))})
 			if src.Truth {
 				break // the link makes no difference
 			}
@@ -260,7 +264,7 @@ func closeExamples(es []Example) {
 // interpolated linearly between frames, with zero covariance.
 type exactMotion []recording.Truth
 
-// Relative implements predictor.MotionSource.
+// Relative implements predictor.EvalSource.
 func (m exactMotion) Relative(t0Us, t1Us int64) (filter.Motion, error) {
 	if len(m) == 0 {
 		return filter.Motion{}, fmt.Errorf("exact motion: no truth rows: %w", ErrReplayInput)
@@ -285,4 +289,17 @@ func (m exactMotion) at(tUs int64) [3]float64 {
 	a, b := m[i-1], m[i]
 	f := float64(tUs-a.CaptureUs) / float64(b.CaptureUs-a.CaptureUs)
 	return [3]float64{a.XM + f*(b.XM-a.XM), a.YM + f*(b.YM-a.YM), a.YawRad + f*math.Remainder(b.YawRad-a.YawRad, 2*math.Pi)}
+}
+
+// WriteEvalTable writes rows as a plain-text table, one line per row.
+func WriteEvalTable(w io.Writer, rows []EvalRow) {
+	fmt.Fprintf(w, "%-20s %-20s %-8s %9s %9s %8s %10s %8s %9s\n", "source", "telemetry", "model", "hold dB", "shown dB", "gain dB", "predicted", "harm", "mis mrad")
+	for _, r := range rows {
+		link := "lost with the video"
+		if r.Telemetry.Own {
+			link = "own channel"
+		}
+		fmt.Fprintf(w, "%-20s %-20s %-8s %9.2f %9.2f %8.2f %10d %7.1f%% %9.2f\n", r.Source, link, r.Model,
+			r.HoldPSNRdB, r.ShownPSNRdB, r.GainDB, r.Predicted, 100*r.HarmRate, r.MisalignMrad)
+	}
 }

@@ -2,7 +2,6 @@ package bench
 
 import (
 	"context"
-	"fmt"
 	"path/filepath"
 	"strings"
 	"testing"
@@ -12,20 +11,13 @@ import (
 )
 
 // motionTable formats rows for a log.
-func motionTable(rows []MotionRow) string {
+func motionTable(rows []EvalRow) string {
 	var b strings.Builder
-	fmt.Fprintf(&b, "%-20s %-20s %-8s %9s %9s %8s %10s %8s %9s\n", "source", "telemetry", "model", "hold dB", "shown dB", "gain dB", "predicted", "harm", "mis mrad")
-	for _, r := range rows {
-		link := "lost with the video"
-		if r.Telemetry.Own {
-			link = "own channel"
-		}
-		fmt.Fprintf(&b, "%-20s %-20s %-8s %9.2f %9.2f %8.2f %10d %7.1f%% %9.2f\n", r.Source, link, r.Model, r.HoldPSNRdB, r.ShownPSNRdB, r.GainDB, r.Predicted, 100*r.HarmRate, r.MisalignMrad)
-	}
+	WriteEvalTable(&b, rows)
 	return b.String()
 }
 
-// BenchmarkMotionSources is the evaluation table on the default drive
+// BenchmarkEvalSources is the evaluation table on the default drive
 // (1280x720, 30 fps, 20 s, with the operator's commands) replayed with
 // --loss-rate 0.1 --burst-ms 200 --seed 1: one row per motion source and
 // telemetry link, plus the exact motion from truth.csv as the bound of any
@@ -34,36 +26,36 @@ func motionTable(rows []MotionRow) string {
 // ticks at most 5 % and reach at least 90 % of the exact motion's gain over
 // hold, and reports every row's gain and its misalignment against truth.
 //
-//	go test ./bench -run '^$' -bench MotionSources -benchtime 1x
-func BenchmarkMotionSources(b *testing.B) {
+//	go test ./bench -run '^$' -bench EvalSources -benchtime 1x
+func BenchmarkEvalSources(b *testing.B) {
 	drive := smallDrive(b, simdrive.Config{})
 	b.ResetTimer()
 	for range b.N {
 		cfg := baseReplay(drive, filepath.Join(b.TempDir(), "r"))
 		cfg.Filter = filter.Config{WheelbaseM: simdrive.DefaultWheelbaseM}
-		rows, err := CompareMotionSources(context.Background(), cfg, append(MotionSources(), TruthSource), TelemetryLinks())
+		rows, err := CompareEvalSources(context.Background(), cfg, append(EvalSources(), ExactMotionSource), TelemetryLinks())
 		if err != nil {
 			b.Fatal(err)
 		}
 		b.Logf("\n%s", motionTable(rows))
 		b.Logf("actuator: %+v", rows[2].Commands)
-		metric := map[string]string{"telemetry only": "telemetry", "commands added": "commands", TruthSource.Name: "exact"}
-		var cmd, bound MotionRow
+		metric := map[string]string{"telemetry only": "telemetry", "commands added": "commands", ExactMotionSource.Name: "exact"}
+		var cmd, bound EvalRow
 		for _, r := range rows {
 			link := "-lost"
 			if r.Telemetry.Own {
 				link = "-own"
 			}
-			b.ReportMetric(r.GainDB, metric[r.Source]+link+"-gain-dB")
-			b.ReportMetric(r.MisalignMrad, metric[r.Source]+link+"-mrad")
+			b.ReportMetric(float64(r.GainDB), metric[r.Source]+link+"-gain-dB")
+			b.ReportMetric(float64(r.MisalignMrad), metric[r.Source]+link+"-mrad")
 			switch {
 			case r.Source == "commands added" && !r.Telemetry.Own:
 				cmd = r
-			case r.Source == TruthSource.Name:
+			case r.Source == ExactMotionSource.Name:
 				bound = r
 			}
 		}
-		b.ReportMetric(cmd.HarmRate, "commands-lost-harm")
+		b.ReportMetric(float64(cmd.HarmRate), "commands-lost-harm")
 		if cmd.HarmRate > 0.05 || cmd.GainDB < 0.9*bound.GainDB {
 			b.Errorf("commands, telemetry lost with the video: gain %.2f dB (exact motion %.2f dB), harm rate %.3f (%d of %d); want >= 90 %% of the bound and <= 5 %%",
 				cmd.GainDB, bound.GainDB, cmd.HarmRate, cmd.Harm, cmd.Predicted)
@@ -71,16 +63,16 @@ func BenchmarkMotionSources(b *testing.B) {
 	}
 }
 
-// TestMotionSourcesSmall: on a small drive with telemetry lost with the
+// TestEvalSourcesSmall: on a small drive with telemetry lost with the
 // video, the commands bring the motion closer to the truth than telemetry
 // alone (mean misalignment of PREDICTED ticks at most half) and the shown
 // frames closer to the true ones (gain over hold up by at least 0.5 dB),
 // with a harm rate of at most 5 %.
-func TestMotionSourcesSmall(t *testing.T) {
+func TestEvalSourcesSmall(t *testing.T) {
 	drive := smallDrive(t, simdrive.Config{Width: 320, Height: 180, DurationS: 12, Seed: 1})
 	cfg := baseReplay(drive, filepath.Join(t.TempDir(), "r"))
 	cfg.Filter = filter.Config{WheelbaseM: simdrive.DefaultWheelbaseM}
-	rows, err := CompareMotionSources(context.Background(), cfg, MotionSources(), []TelemetryLink{{}})
+	rows, err := CompareEvalSources(context.Background(), cfg, EvalSources(), []TelemetryLink{{}})
 	if err != nil {
 		t.Fatal(err)
 	}

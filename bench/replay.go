@@ -94,7 +94,7 @@ type ReplayConfig struct {
 	Now func() time.Time
 
 	// exactMotion replaces the filter by the motion from truth.csv (the
-	// evaluation's upper bound, MotionSource.Truth).
+	// evaluation's upper bound, EvalSource.Truth).
 	exactMotion bool
 }
 

@@ -2,6 +2,7 @@ package main
 
 import (
 	"context"
+	"encoding/json"
 	"flag"
 	"fmt"
 	"io"
@@ -33,6 +34,10 @@ type replayFlags struct {
 	telemetryOwn         bool
 	telemetryLoss        float64
 	toleranceMrad        float64
+	noCommands           bool
+	commandDelayMs       float64
+	steerLagS, speedLagS float64
+	compareSources       bool
 }
 
 func (f *replayFlags) register(fs *flag.FlagSet) {
@@ -47,7 +52,7 @@ func (f *replayFlags) register(fs *flag.FlagSet) {
 	fs.Float64Var(&f.cutoff, "cutoff", pol.CutoffConfidence, "confidence cutoff in [0,1]: below it a missing frame is shown STALE, not PREDICTED")
 	fs.Float64Var(&f.maxAgeMs, "max-age-ms", pol.MaxAgeMs, "hard cap on the age of a predicted frame, ms")
 	fs.Float64Var(&f.allowanceMs, "allowance-ms", bench.DefaultAllowanceMs, "display clock jitter allowance: how late a frame may arrive and still be LIVE, ms")
-	fs.StringVar(&f.model, "model", "ctrv", "motion model of the filter: ctrv or bicycle")
+	fs.StringVar(&f.model, "model", "", "motion model of the filter: ctrv or bicycle; empty: the bicycle driven by the operator's commands\nwhen the drive has them (controls.csv), else ctrv")
 	fs.Float64Var(&f.wheelbaseM, "wheelbase-m", 2.7, "wheelbase for the bicycle model and steering telemetry, m")
 	fs.IntVar(&f.examples, "examples", bench.DefaultExamples, "how many example ticks the report shows side by side")
 	fs.BoolVar(&f.overwrite, "overwrite", false, "replace an existing non-empty --out directory")
@@ -56,13 +61,24 @@ func (f *replayFlags) register(fs *flag.FlagSet) {
 	fs.BoolVar(&f.verboseLogs, "v", false, "verbose logs (every rejected telemetry sample)")
 	fs.BoolVar(&f.telemetryOwn, "telemetry-own-channel", false, "telemetry without recorded arrivals comes on its own channel (lost only at --telemetry-loss-rate) instead of sharing the fate of the video (default: shared, the conservative case)")
 	fs.Float64Var(&f.telemetryLoss, "telemetry-loss-rate", 0, "share of telemetry samples lost on their own channel, [0,1); needs --telemetry-own-channel")
+	fs.BoolVar(&f.noCommands, "no-commands", false, "ignore the operator's commands (controls.csv): telemetry alone drives the filter")
+	fs.Float64Var(&f.commandDelayMs, "command-delay-ms", 0, "uplink delay from the operator station to the vehicle's actuators, ms;\nwith --steer-lag-s and --speed-lag-s all 0 (default) the three are fitted from the drive")
+	fs.Float64Var(&f.steerLagS, "steer-lag-s", 0, "time constant of the steering actuator's first-order lag, s (see --command-delay-ms)")
+	fs.Float64Var(&f.speedLagS, "speed-lag-s", 0, "time constant of the speed's first-order lag, s (see --command-delay-ms)")
+	fs.BoolVar(&f.compareSources, "compare-sources", false, "also replay once per source of motion (telemetry only, commands added, and the exact motion\nwhen the drive has truth.csv) and per telemetry link, and print the table (sources.json in --out)")
 	fs.Float64Var(&f.toleranceMrad, "tolerance-mrad", predictor.DefaultToleranceMrad, "misalignment within which a predicted frame counts as good, mrad: the confidence is the probability of that")
 }
 
 func (f *replayFlags) config(drive, out string, stderr io.Writer) (bench.ReplayConfig, error) {
-	model, err := filter.ParseModel(f.model)
-	if err != nil {
-		return bench.ReplayConfig{}, fmt.Errorf("--model: %w", err)
+	var model filter.Model // empty: decided by the drive's commands
+	if f.model != "" {
+		var err error
+		if model, err = filter.ParseModel(f.model); err != nil {
+			return bench.ReplayConfig{}, fmt.Errorf("--model: %w", err)
+		}
+	}
+	if !(f.commandDelayMs >= 0 && f.commandDelayMs <= 2000) || !(f.steerLagS >= 0 && f.steerLagS <= 10) || !(f.speedLagS >= 0 && f.speedLagS <= 10) {
+		return bench.ReplayConfig{}, fmt.Errorf("--command-delay-ms %v, --steer-lag-s %v, --speed-lag-s %v: want 0..2000 ms and 0..10 s", f.commandDelayMs, f.steerLagS, f.speedLagS)
 	}
 	if f.cutoff < 0 || f.cutoff > 1 || f.cutoff != f.cutoff {
 		return bench.ReplayConfig{}, fmt.Errorf("--cutoff %v: want a confidence in [0, 1]", f.cutoff)
@@ -87,8 +103,10 @@ func (f *replayFlags) config(drive, out string, stderr io.Writer) (bench.ReplayC
 			Model: bench.LossModelGilbertElliott, LossRate: f.lossRate, BurstMs: f.burstMs,
 			ExtraDelayMs: f.delayMs, JitterMs: f.jitterMs, Seed: f.seed,
 		},
-		Policy:      predictor.Policy{CutoffConfidence: f.cutoff, MaxAgeMs: f.maxAgeMs},
-		Filter:      filter.Config{Model: model, WheelbaseM: f.wheelbaseM},
+		Policy: predictor.Policy{CutoffConfidence: f.cutoff, MaxAgeMs: f.maxAgeMs},
+		Filter: filter.Config{Model: model, WheelbaseM: f.wheelbaseM, Actuator: filter.Actuator{
+			DelayUs: int64(math.Round(f.commandDelayMs * 1000)), SteerLagS: f.steerLagS, SpeedLagS: f.speedLagS}},
+		NoCommands:  f.noCommands,
 		AllowanceMs: f.allowanceMs,
 		Telemetry:   bench.TelemetryLink{Own: f.telemetryOwn, LossRate: f.telemetryLoss, Seed: f.seed},
 		Confidence:  predictor.ConfidenceModel{ToleranceMrad: f.toleranceMrad},
@@ -157,7 +175,31 @@ func runReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 		return err
 	}
 	printSummary(stdout, sum, out)
+	if rf.compareSources {
+		return compareSources(ctx, cfg, out, stdout)
+	}
 	return nil
+}
+
+// compareSources runs the evaluation table on cfg's drive, prints it and
+// writes it to out/sources.json.
+func compareSources(ctx context.Context, cfg bench.ReplayConfig, out string, stdout io.Writer) error {
+	sources := bench.EvalSources()
+	if _, err := os.Stat(filepath.Join(cfg.Drive, "truth.csv")); err == nil && cfg.ArrivalsFile == "" {
+		sources = append(sources, bench.ExactMotionSource)
+	}
+	cfg.Progress, cfg.Out = nil, ""
+	rows, err := bench.CompareEvalSources(ctx, cfg, sources, bench.TelemetryLinks())
+	if err != nil {
+		return fmt.Errorf("--compare-sources: %w", err)
+	}
+	fmt.Fprintln(stdout, "sources of motion, side by side:")
+	bench.WriteEvalTable(stdout, rows)
+	data, err := json.MarshalIndent(rows, "", "  ")
+	if err != nil {
+		return err
+	}
+	return os.WriteFile(filepath.Join(out, "sources.json"), append(data, '\n'), 0o644)
 }
 
 // replayDrives replays a drive list, or a shard of it, into out.
@@ -221,6 +263,16 @@ func printSummaryBody(w io.Writer, s bench.Summary) {
 			continue
 		}
 		fmt.Fprintf(w, "%-10s %7d %10.2f %9.4f %9.2f\n", name, st.Frames, float64(st.PSNRdBMean), float64(st.SSIMMean), float64(st.MAEMean))
+	}
+	if c := s.Commands; c.Used {
+		how := "configured"
+		if c.Fitted {
+			how = "fitted from the drive"
+		}
+		fmt.Fprintf(w, "operator commands: %d drive the %s model (%d rejected); actuator %s: delay %.0f ms, steering lag %.3f s, speed lag %.3f s\n",
+			c.Count, s.FilterModel, c.Rejected, how, c.DelayMs, c.SteerLagS, c.SpeedLagS)
+	} else if c.File != "" {
+		fmt.Fprintf(w, "operator commands: not used (%s)\n", c.Why)
 	}
 	if po := s.PredictedOnly; po.Frames > 0 {
 		fmt.Fprintf(w, "PREDICTED ticks alone: %d, PSNR %.2f dB (hold %.2f), SSIM %.4f (hold %.4f); harm rate %.1f %% by PSNR, %.1f %% by SSIM\n",
