@@ -121,7 +121,7 @@ func loadCommands(cfg ReplayConfig, telemetry []recording.TelemetryRow, log *slo
 		return ra.TUs < rb.TUs
 	})
 	for k, i := range order {
-		rc.cmds[k], rc.arrival[k] = CommandFromControl(rows[i]), rows[i].ArrivalUs
+		rc.cmds[k], rc.arrival[k] = rows[i].Command(), rows[i].ArrivalUs
 	}
 	act := fcfg.Actuator
 	if act.DelayUs == 0 && act.SteerLagS == 0 && act.SpeedLagS == 0 {
@@ -142,11 +142,6 @@ func loadCommands(cfg ReplayConfig, telemetry []recording.TelemetryRow, log *slo
 	use.Used = true
 	use.DelayMs, use.SteerLagS, use.SpeedLagS = float64(act.DelayUs)/1000, act.SteerLagS, act.SpeedLagS
 	return fcfg, rc, use, nil
-}
-
-// CommandFromControl converts one control log row to a filter command.
-func CommandFromControl(c operator.Control) filter.Command {
-	return filter.Command{TimeUs: c.TUs, SteerRad: c.SteerRad, SpeedMps: c.SpeedMps, HasSpeed: c.HasSpeed}
 }
 
 // EvalSource is one row of the motion-source evaluation: which inputs,

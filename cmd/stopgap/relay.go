@@ -8,6 +8,7 @@ import (
 	"fmt"
 	"io"
 	"log/slog"
+	"math"
 	"net"
 	"net/http"
 	"os"
@@ -55,8 +56,13 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	fs.Float64Var(&maxAgeMs, "max-age-ms", 0, "hard cap on the age of a predicted frame, ms (0 = the policy's max_horizon_ms; more is refused)")
 	fs.Float64Var(&allowanceMs, "allowance-ms", relay.DefaultAllowanceMs, "how late after its nominal arrival a frame may come and still be LIVE, ms")
 	fs.Float64Var(&latencyMs, "latency-ms", 0, "nominal capture-to-arrival latency, ms (0 = estimate over the first frames of each session)")
-	fs.StringVar(&model, "model", "ctrv", "motion model of the filter: ctrv or bicycle")
+	fs.StringVar(&model, "model", "ctrv", "motion model of the filter: ctrv or bicycle (bicycle: the operator's commands sent to /api/controls are its control input)")
 	fs.Float64Var(&wheelbaseM, "wheelbase-m", 2.7, "wheelbase for the bicycle model and steering telemetry, m")
+	var act filter.Actuator
+	var cmdDelayMs float64
+	fs.Float64Var(&cmdDelayMs, "command-delay-ms", 0, "uplink delay from the operator station to the vehicle's actuators, ms (fit it with stopgap replay on a recorded drive)")
+	fs.Float64Var(&act.SteerLagS, "steer-lag-s", 0, "time constant of the steering actuator's first-order lag, s")
+	fs.Float64Var(&act.SpeedLagS, "speed-lag-s", 0, "time constant of the speed's first-order lag, s")
 	fs.StringVar(&rtpListen, "rtp-listen", "", "UDP `address` (e.g. 127.0.0.1:5004) to receive VP8 over plain RTP with RTCP on the same port; empty = off")
 	fs.StringVar(&telemetryListen, "telemetry-listen", "", "UDP `address` for telemetry datagrams (JSON, one per datagram) that go with --rtp-listen")
 	fs.StringVar(&rtpAllow, "rtp-allow", "", "comma-separated source `IPs or IP:ports` admitted by --rtp-listen and --telemetry-listen (required off loopback: plain RTP is unauthenticated)")
@@ -115,6 +121,10 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	if err != nil {
 		return fmt.Errorf("--model: %w", err)
 	}
+	if !(cmdDelayMs >= 0 && cmdDelayMs <= 2000) {
+		return fmt.Errorf("--command-delay-ms %v: want 0..2000", cmdDelayMs)
+	}
+	act.DelayUs = int64(math.Round(cmdDelayMs * 1000))
 	ingestTok, ingestGen, err := loadToken(tokenFile, "STOPGAP_TOKEN")
 	if err != nil {
 		return fmt.Errorf("--token-file: %w", err)
@@ -148,7 +158,7 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	r, err := relay.New(relay.Config{
 		FPS: fps, AllowanceMs: allowanceMs, LatencyMs: latencyMs,
 		Camera: cam, Policy: predictor.Policy{MaxAgeMs: maxAgeMs},
-		Filter:    filter.Config{Model: m, WheelbaseM: wheelbaseM},
+		Filter:    filter.Config{Model: m, WheelbaseM: wheelbaseM, Actuator: act},
 		RecordDir: recordDir, IngestToken: ingestTok, ConsoleToken: consoleTok,
 		Console: cc, Logger: log,
 		Whip: whip.Config{Network: whip.Network{IncludeLoopback: iceLoopback, Interfaces: splitList(iceInterfaces),
@@ -167,19 +177,30 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	}
 	base := scheme + "://" + ln.Addr().String()
 	handler := r.Handler()
+	// The operator station's commands: recorded beside the drive (see
+	// operator.ControlsFile) and the bicycle model's control input.
+	controls := &operator.ControlsChannel{Token: consoleTok, Now: time.Now,
+		Known: func(name string) bool {
+			snap, err := store.Load()
+			return err == nil && snap.Find(name) >= 0
+		},
+		Sink: func(c operator.Control) {
+			if err := r.AddCommand(c.Command()); err != nil {
+				log.Debug("operator command not used", "t_us", c.TUs, "err", err)
+			}
+		}}
 	if recordDir != "" {
-		// The operator station's control inputs, recorded beside the drive
-		// (see operator.ControlsFile).
 		cw, err := operator.CreateControls(recordDir)
 		if err != nil {
 			return fmt.Errorf("--record: %w", err)
 		}
 		defer cw.Close()
-		mux := http.NewServeMux()
-		mux.Handle("/api/controls", operator.ControlsHandler(consoleTok, cw, time.Now))
-		mux.Handle("/", handler)
-		handler = mux
+		controls.Log = cw
 	}
+	mux := http.NewServeMux()
+	mux.Handle("/api/controls", controls)
+	mux.Handle("/", handler)
+	handler = mux
 	srv := &http.Server{Handler: handler, ReadHeaderTimeout: 10 * time.Second,
 		TLSConfig: &tls.Config{MinVersion: tls.VersionTLS12}, ErrorLog: slog.NewLogLogger(log.Handler(), slog.LevelWarn)}
 	serveErr := make(chan error, 1)

@@ -308,11 +308,16 @@ func runSimdrive(ctx context.Context, args []string, stdout, stderr io.Writer) e
 	fs.Float64Var(&cfg.FacadeSetbackM, "facade-setback-m", simdrive.DefaultSetbackM, "least distance of building fronts behind the sidewalk, m (1 = narrow city street)")
 	fs.Float64Var(&cfg.PanYawRateRps, "pan-yaw-rate-rps", 0, "amplitude of an extra yaw rate that reverses every half --pan-period-s (a weaving, panning drive), rad/s; 0 = none")
 	fs.Float64Var(&cfg.PanPeriodS, "pan-period-s", simdrive.DefaultPanPeriodS, "period of the pan yaw rate, s")
+	fs.Float64Var(&cfg.CommandDelayMs, "command-delay-ms", simdrive.DefaultCommandDelayMs, "uplink delay from the operator's commands to the actuators, ms")
+	fs.Float64Var(&cfg.SteerLagS, "steer-lag-s", simdrive.DefaultSteerLagS, "steering actuator's first-order time constant, s (negative: none)")
+	fs.Float64Var(&cfg.SpeedLagS, "speed-lag-s", simdrive.DefaultSpeedLagS, "speed's first-order time constant, s (negative: none)")
+	fs.BoolVar(&cfg.NoCommands, "no-commands", false, "drive the scripted profile directly: no operator commands, no controls.csv")
 	fs.BoolVar(&quiet, "quiet", false, "no progress bar")
 	fs.Usage = func() {
 		fmt.Fprintln(stderr, "usage: stopgap simdrive --out DIR [flags]")
 		fmt.Fprintln(stderr, "\nRenders a synthetic drive of our own street scene and writes it as a recording")
-		fmt.Fprintln(stderr, "(camera.json, frames.csv + JPEG frames, telemetry.csv, truth.csv).")
+		fmt.Fprintln(stderr, "(camera.json, frames.csv + JPEG frames, telemetry.csv, truth.csv, and controls.csv:")
+		fmt.Fprintln(stderr, "the operator's commands that produced the drive through the delay and the lags).")
 		fmt.Fprintln(stderr)
 		fs.PrintDefaults()
 	}

@@ -16,6 +16,7 @@ import (
 	"sync"
 	"time"
 
+	"stopgap/filter"
 	"stopgap/stream/console"
 )
 
@@ -90,6 +91,14 @@ type Control struct {
 	SpeedMps  float64 `json:"speed_mps"` // commanded speed; used only if HasSpeed
 	HasSpeed  bool    `json:"-"`
 	ArrivalUs int64   `json:"-"` // receiver clock; set by the relay
+}
+
+// Command returns c as the motion filter's control input: the commanded
+// road-wheel angle and, if given, speed, sent at TUs. TUs is taken as on
+// the vehicle clock: the station's clock must be synchronised with the
+// vehicle's. The pedals are not a command the model follows.
+func (c Control) Command() filter.Command {
+	return filter.Command{TimeUs: c.TUs, SteerRad: c.SteerRad, SpeedMps: c.SpeedMps, HasSpeed: c.HasSpeed}
 }
 
 // check validates the ranges.
