@@ -132,7 +132,10 @@ func loadCommands(cfg ReplayConfig, telemetry []recording.TelemetryRow, log *slo
 		sort.SliceStable(samples, func(a, b int) bool { return samples[a].TimeUs < samples[b].TimeUs })
 		fit, err := filter.FitActuator(rc.cmds, samples, fcfg.WheelbaseM)
 		if err != nil {
-			return fcfg, nil, use, fmt.Errorf("replay: fitting the actuator to %s: %w; configure the delay and lags instead", use.File, err)
+			// A drive too short to fit on is still replayed, on telemetry.
+			log.Warn("commands not used: the actuator cannot be fitted from this drive; configure the delay and lags", "file", use.File, "err", err)
+			fcfg.Model = cfg.Filter.Model
+			return notUsed(fmt.Sprintf("the actuator could not be fitted (%v); configure the delay and lags", err))
 		}
 		act.DelayUs, act.SteerLagS, act.SpeedLagS = fit.Actuator.DelayUs, fit.Actuator.SteerLagS, fit.Actuator.SpeedLagS
 		use.Fitted, use.SteerRMSRps, use.SpeedRMSMps = true, fit.SteerRMSRps, fit.SpeedRMSMps
