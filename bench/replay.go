@@ -62,7 +62,15 @@ type ReplayConfig struct {
 	// tick, as the live relay reads the console's.
 	CutoffAt func(k int) (cutoff float64, ok bool)
 	// Filter configures the motion filter; a zero Model means CTRV.
+	// Filter configures the motion filter. A zero Model means the bicycle
+	// driven by the operator's commands when the drive has them (see
+	// NoCommands), else CTRV. A zero Filter.Actuator is fitted from the
+	// drive (filter.FitActuator).
 	Filter filter.Config
+	// NoCommands ignores the operator's commands (operator.ControlsFile in
+	// Drive, or beside ArrivalsFile) even when present: the filter then
+	// runs on telemetry alone.
+	NoCommands bool
 	// AllowanceMs is the display clock's jitter allowance past a frame's
 	// nominal arrival; 0 means DefaultAllowanceMs, negative is an error.
 	AllowanceMs float64
@@ -99,6 +107,10 @@ type ReplayConfig struct {
 	Logger *slog.Logger
 	// Now is the clock for synthesis times; nil means time.Now.
 	Now func() time.Time
+
+	// exactMotion replaces the filter by the motion from truth.csv (the
+	// evaluation's upper bound, EvalSource.Truth).
+	exactMotion bool
 }
 
 // Schedule is the display schedule of a replay: when each tick falls and
@@ -406,9 +418,9 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 		return Summary{}, fmt.Errorf("replay: %w", err)
 	}
 
-	fcfg := cfg.Filter
-	if fcfg.Model == filter.ModelInvalid {
-		fcfg.Model = filter.ModelCTRV
+	fcfg, cmds, cmdUse, err := loadCommands(cfg, in.telemetry, log)
+	if err != nil {
+		return Summary{}, err
 	}
 	flt, err := filter.New(fcfg)
 	if err != nil {
@@ -454,7 +466,14 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 		defer video.Close()
 	}
 
-	r, err := newReplayer(cam, cfg.Policy, cfg.Confidence, flt, now)
+	var motion predictor.MotionSource = flt
+	if cfg.exactMotion {
+		if in.pairing != nil || len(rec.Truth) != len(captureUs) {
+			return Summary{}, fmt.Errorf("replay: the exact motion needs a truth.csv row for every frame: %w", ErrReplayInput)
+		}
+		motion = exactMotion(rec.Truth)
+	}
+	r, err := newReplayer(cam, cfg.Policy, cfg.Confidence, motion, now)
 	if err != nil {
 		return Summary{}, fmt.Errorf("replay: %w", err)
 	}
@@ -529,6 +548,11 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 		last: -1, beforeLast: -1, emit: emit}
 	if lead != nil {
 		d.onLive = func(k int) error { return lead.live(k, sched, frames, in.hasTruth) }
+	}
+	if cmds != nil {
+		// Commands are made on the operator's side: they are never lost
+		// with the video, and reach the filter before each tick it fills.
+		d.beforeMissing = func(deadlineUs int64) { cmds.feed(flt, deadlineUs, log) }
 	}
 	// Frames and telemetry reach the clock in arrival order, as they reach
 	// the live relay's display loop; the clock fills each tick whose
@@ -606,6 +630,8 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 	if video != nil {
 		sum.VideoSamples = video.samples
 	}
+	cmdUse.Rejected = int(flt.CommandsRejected().Total())
+	sum.Commands = cmdUse
 	out.rows, out.examples = rows, examples
 	return sum, nil
 }
@@ -725,7 +751,7 @@ type replayer struct {
 	marks *markScorer
 }
 
-func newReplayer(cam predictor.Camera, pol predictor.Policy, cm predictor.ConfidenceModel, flt *filter.Filter, now func() time.Time) (*replayer, error) {
+func newReplayer(cam predictor.Camera, pol predictor.Policy, cm predictor.ConfidenceModel, flt predictor.MotionSource, now func() time.Time) (*replayer, error) {
 	filler, err := predictor.NewFiller(predictor.FillerConfig{Camera: cam, Policy: pol, Motion: flt, Confidence: cm})
 	if err != nil {
 		return nil, err
@@ -784,7 +810,10 @@ type replayDriver struct {
 	// onLive, if not nil, runs for each LIVE tick after its row (the
 	// lead's scores).
 	onLive func(k int) error
-	err    error // the first error; the replay stops
+	// beforeMissing, if not nil, runs before a missing tick is filled,
+	// with its deadline (the operator's commands sent by then).
+	beforeMissing func(deadlineUs int64)
+	err           error // the first error; the replay stops
 }
 
 // Telemetry feeds one sample to the filter (cadence.Handler).
@@ -798,6 +827,9 @@ func (d *replayDriver) Telemetry(s filter.Sample, _ int64) {
 func (d *replayDriver) Missing(t cadence.Tick) {
 	if d.err != nil || t.K >= len(d.captureUs) {
 		return
+	}
+	if d.beforeMissing != nil {
+		d.beforeMissing(t.DeadlineUs)
 	}
 	row, err := d.r.missing(t, d.captureUs[t.K], d.last, d.beforeLast, d.frames, d.hasTruth)
 	if err != nil {

@@ -157,6 +157,9 @@ type Summary struct {
 	// Lead scores latency compensation on the LIVE ticks; nil unless
 	// ReplayConfig.Lead.
 	Lead *LeadSummary `json:"lead,omitempty"`
+	// Commands says whether the operator's commands drove the motion model
+	// and with which actuator model.
+	Commands CommandsUse `json:"commands"`
 
 	TicksTotal     int `json:"ticks_total"`      // display ticks replayed
 	TicksMissing   int `json:"ticks_missing"`    // ticks without a real frame (all but LIVE)

@@ -70,6 +70,27 @@
 //	      dt                  0
 //	      0                   dt ].
 //
+// # Commands
+//
+// With ModelBicycle the operator's commands (AddCommand: commanded
+// road-wheel angle δc and speed vc, sent at TimeUs) are the control input.
+// A command takes effect Actuator.DelayUs after it was sent; from then on
+// each prediction step, split where a command takes effect and at most
+// 10 ms long, moves the steer and speed states along first-order lags
+// toward it instead of holding them:
+//
+//	δ' = δc + (δ − δc)·exp(−dt/τ_δ),   v' = vc + (v − vc)·exp(−dt/τ_v)
+//
+// exact for a command held over the step; the pose advances with the mean
+// angle over the step and the mean speed (v + v')/2. The process noise of
+// such steps is Actuator.SteerRateNoiseRps and AccelNoiseMps2. Telemetry
+// corrects the state exactly as without commands. Over a gap the yaw also
+// turns at the mean yaw rate the kinematic relation left unexplained in
+// the last Config.TurnAdaptWindowUs of telemetry (tyre slip, understeer),
+// held. The delay and the lags are properties of the vehicle and its link;
+// FitActuator estimates them from a drive's commands and telemetry
+// (commanded against measured yaw rate and speed).
+//
 // # Measurements
 //
 // Every sample measures speed (h = v) and yaw rate: h = ω for CTRV,

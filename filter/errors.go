@@ -28,6 +28,11 @@ var (
 	// keeps the filter from counting the same measurement twice.
 	ErrDuplicate = errors.New("filter: duplicate sample")
 
+	// ErrOutOfOrder: an operator command (AddCommand) is not newer than
+	// the previous one. Commands come from one station in send order; an
+	// older one is a replay or a clock step. Dropped and counted.
+	ErrOutOfOrder = errors.New("filter: command not newer than the previous one")
+
 	// ErrNoData: no sample has been accepted yet (or since Reset).
 	ErrNoData = errors.New("filter: no sample accepted yet")
 
@@ -65,6 +70,7 @@ const (
 	ReasonOutOfRange               // a value exceeds the physical limits (ErrOutOfRange)
 	ReasonTooOld                   // older than the kept history (ErrTooOld)
 	ReasonDuplicate                // identical to a sample already kept (ErrDuplicate)
+	ReasonOutOfOrder               // a command not newer than the previous one (ErrOutOfOrder)
 	numReasons
 )
 
@@ -79,6 +85,8 @@ func (r Reason) String() string {
 		return "too_old"
 	case ReasonDuplicate:
 		return "duplicate"
+	case ReasonOutOfOrder:
+		return "out_of_order"
 	}
 	return fmt.Sprintf("invalid_reason(%d)", int(r))
 }
@@ -95,6 +103,8 @@ func (r Reason) Err() error {
 		return ErrTooOld
 	case ReasonDuplicate:
 		return ErrDuplicate
+	case ReasonOutOfOrder:
+		return ErrOutOfOrder
 	}
 	return nil
 }
@@ -106,26 +116,36 @@ type RejectError struct {
 	Sample Sample
 	// Detail names the offending field and value and says what to check.
 	Detail string
+	// Command is true for a rejection by AddCommand; Sample then holds only
+	// the command's TimeUs.
+	Command bool
 }
 
 // Error implements error.
 func (e *RejectError) Error() string {
+	if e.Command {
+		return fmt.Sprintf("filter: command at t_us=%d rejected (%s): %s", e.Sample.TimeUs, e.Reason, e.Detail)
+	}
 	return fmt.Sprintf("filter: sample at t_us=%d rejected (%s): %s", e.Sample.TimeUs, e.Reason, e.Detail)
 }
 
 // Unwrap returns the Err* value for e.Reason.
 func (e *RejectError) Unwrap() error { return e.Reason.Err() }
 
-// Counts holds the number of samples rejected by Filter.Add, per reason.
+// Counts holds the number of samples rejected by Filter.Add (or commands
+// rejected by Filter.AddCommand), per reason.
 type Counts struct {
 	NotFinite  uint64
 	OutOfRange uint64
 	TooOld     uint64
 	Duplicate  uint64
+	OutOfOrder uint64 // commands only
 }
 
-// Total returns the number of rejected samples over all reasons.
-func (c Counts) Total() uint64 { return c.NotFinite + c.OutOfRange + c.TooOld + c.Duplicate }
+// Total returns the number of rejections over all reasons.
+func (c Counts) Total() uint64 {
+	return c.NotFinite + c.OutOfRange + c.TooOld + c.Duplicate + c.OutOfOrder
+}
 
 // Of returns the count for one reason (0 for ReasonInvalid and unknown values).
 func (c Counts) Of(r Reason) uint64 {
@@ -138,6 +158,8 @@ func (c Counts) Of(r Reason) uint64 {
 		return c.TooOld
 	case ReasonDuplicate:
 		return c.Duplicate
+	case ReasonOutOfOrder:
+		return c.OutOfOrder
 	}
 	return 0
 }

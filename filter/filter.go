@@ -145,6 +145,11 @@ type Config struct {
 	// uses YawAccelNoiseRps2 like every other step) and with it the yaw
 	// acceleration extrapolation.
 	TurnAdaptOff bool
+	// Actuator describes how the vehicle follows the operator's commands
+	// (AddCommand): the uplink delay and the first-order lags of the
+	// road-wheel angle and the speed. Used by ModelBicycle only.
+	Actuator Actuator
+
 	// TurnAccelOff keeps the constant-turn-rate mean over gaps. By default
 	// (CTRV) the gap's mean motion follows the yaw rate changing at â (see
 	// TurnAdaptWindowUs), which on simulated drives halved the RMS heading
@@ -249,6 +254,9 @@ func (c Config) withDefaults() (Config, error) {
 			*f.v = f.def
 		}
 	}
+	if err := c.Actuator.fill(); err != nil {
+		return c, err
+	}
 	if c.MaxHistorySamples < 0 {
 		return c, fmt.Errorf("%w: MaxHistorySamples = %d; use 0 (default) or a positive count", ErrConfig, c.MaxHistorySamples)
 	}
@@ -295,15 +303,20 @@ type Motion struct {
 // Add, Predict and Relative do not allocate in steady state (the history
 // buffer grows to fit the sample rate during the first HistoryUs).
 type Filter struct {
-	mu     sync.Mutex
-	cfg    Config
-	kin    kinematics
-	noise  measNoise
-	kf     *Kalman
-	hist   ring
-	base   entry // posterior of the newest sample dropped from hist
-	hasBas bool
-	counts [numReasons]uint64
+	mu        sync.Mutex
+	cfg       Config
+	kin       kinematics
+	noise     measNoise
+	kf        *Kalman
+	hist      ring
+	base      entry // posterior of the newest sample dropped from hist
+	hasBas    bool
+	counts    [numReasons]uint64
+	cmds      commandLog // operator commands (AddCommand)
+	cmdCounts Counts     // rejected commands
+	// gapSlipRps is the yaw rate the commands do not explain, carried
+	// over a gap by Relative (slipTrend); 0 otherwise.
+	gapSlipRps float64
 
 	// Scratch, owned by the Filter.
 	fx    *mat.VecDense
@@ -351,6 +364,7 @@ func New(cfg Config) (*Filter, error) {
 	} else {
 		f.kin.turnNoise = c.YawAccelNoiseRps2
 	}
+	f.cmds.buf = make([]Command, c.Actuator.MaxCommands)
 	for m := 1; m <= maxMeas; m++ {
 		f.mz[m] = mat.NewVecDense(m, nil)
 		f.mhx[m] = mat.NewVecDense(m, nil)
@@ -503,7 +517,7 @@ func (f *Filter) Relative(t0Us, t1Us int64) (Motion, error) {
 		if e.s.TimeUs > t1Us {
 			break
 		}
-		f.step(diffUs(e.s.TimeUs, cur), ctl, false)
+		f.step(cur, diffUs(e.s.TimeUs, cur), ctl, false)
 		f.update(&e.s)
 		cur, ctl, applied = e.s.TimeUs, &e.s, j
 	}
@@ -518,7 +532,7 @@ func (f *Filter) Relative(t0Us, t1Us int64) (Motion, error) {
 		// the number of kept samples, which the live relay and its replay
 		// need not share at a session's start.
 		f.kin.turnNoise = math.Hypot(f.cfg.GapYawAccelNoiseRps2, f.cfg.TurnAdaptGain*(math.Abs(a)+j*tau/3))
-		f.step(diffUs(t1Us, cur), ctl, false)
+		f.step(cur, diffUs(t1Us, cur), ctl, false)
 		f.kin.turnNoise = base
 		if !f.cfg.TurnAccelOff && tau > 0 {
 			accel := 0.0
@@ -532,7 +546,11 @@ func (f *Filter) Relative(t0Us, t1Us int64) (Motion, error) {
 			}
 		}
 	} else {
-		f.step(diffUs(t1Us, cur), ctl, false)
+		if f.commandsUsable() {
+			f.gapSlipRps = f.slipTrend(applied)
+		}
+		f.step(cur, diffUs(t1Us, cur), ctl, false)
+		f.gapSlipRps = 0
 	}
 
 	var st [StateDim]float64
@@ -685,7 +703,7 @@ func (f *Filter) refilter(i int) {
 	}
 	for j := i; j < f.hist.len(); j++ {
 		e := f.hist.at(j)
-		f.step(diffUs(e.s.TimeUs, prev.TimeUs), prev, true)
+		f.step(prev.TimeUs, diffUs(e.s.TimeUs, prev.TimeUs), prev, true)
 		e.nis, e.m = f.update(&e.s)
 		f.store(e)
 		prev = &e.s
@@ -769,7 +787,7 @@ func (f *Filter) loadAt(t int64, wrap bool) (int, error) {
 			ErrTooOld, t, oldest)
 	}
 	f.load(e)
-	f.step(diffUs(t, e.s.TimeUs), &e.s, wrap)
+	f.step(e.s.TimeUs, diffUs(t, e.s.TimeUs), &e.s, wrap)
 	return idx, nil
 }
 
@@ -791,11 +809,22 @@ func (f *Filter) store(e *entry) {
 	copy(e.p[:], f.kf.p.RawMatrix().Data)
 }
 
-// step predicts f.kf forward by dtUs with the control of sample ctl.
-func (f *Filter) step(dtUs int64, ctl *Sample, wrap bool) {
+// step predicts f.kf forward by dtUs from t0Us with the control of sample
+// ctl, or, where operator commands are in effect (see AddCommand), with
+// the commands through the actuator lags, in sub-steps (commandSteps).
+func (f *Filter) step(t0Us, dtUs int64, ctl *Sample, wrap bool) {
 	if dtUs <= 0 {
 		return
 	}
+	if f.commandsUsable() {
+		f.commandSteps(t0Us, dtUs, ctl, wrap)
+		return
+	}
+	f.plainStep(dtUs, ctl, wrap)
+}
+
+// plainStep predicts f.kf forward by dtUs with the control of sample ctl.
+func (f *Filter) plainStep(dtUs int64, ctl *Sample, wrap bool) {
 	dt := float64(dtUs) * 1e-6
 	var x, xn [StateDim]float64
 	var fj, q [StateDim][StateDim]float64
@@ -807,6 +836,12 @@ func (f *Filter) step(dtUs int64, ctl *Sample, wrap bool) {
 	}
 	f.kin.transition(&x, dt, accel, &xn, &fj, &g)
 	processNoise(&g, sa, f.kin.turnNoise, &q)
+	f.predictWith(&xn, &fj, &q, wrap)
+}
+
+// predictWith applies one prediction with next state xn, Jacobian fj and
+// process noise q to f.kf.
+func (f *Filter) predictWith(xn *[StateDim]float64, fj, q *[StateDim][StateDim]float64, wrap bool) {
 	if wrap {
 		xn[IdxYaw] = math.Remainder(xn[IdxYaw], 2*math.Pi)
 	}

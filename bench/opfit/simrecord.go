@@ -84,7 +84,7 @@ func (co *Course) WriteRecording(dir string, r SimResult) error {
 		operator.ControlsFile: func(w *bufio.Writer) error {
 			w.WriteString(operator.ControlsHeader + "\n")
 			for _, c := range r.Session.Controls {
-				fmt.Fprintf(w, "%d,%d,%s,%s,%s\n", c.TUs+1, c.TUs+1001, ff(c.SteerRad), ff(c.Throttle), ff(c.Brake))
+				fmt.Fprintf(w, "%d,%d,%s,%s,%s,,\n", c.TUs+1, c.TUs+1001, ff(c.SteerRad), ff(c.Throttle), ff(c.Brake)) // no speed_mps, no operator
 			}
 			return nil
 		},

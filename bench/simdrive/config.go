@@ -52,6 +52,25 @@ type Config struct {
 	// (MoverMaskPath). Off by default: a drive without it is byte for
 	// byte the drive of earlier versions.
 	Traffic bool
+	// The operator's commands (package documentation, "Commands"):
+	// CommandHz is their rate (default 50 Hz), CommandDelayMs the uplink
+	// delay from station to actuators (default 120 ms), SteerLagS and
+	// SpeedLagS the actuators' first-order time constants (default 0.15 s
+	// and 0.6 s; a negative value means none). OperatorSteerSigmaRad and
+	// OperatorSpeedSigmaMps are the operator's own corrections on top of
+	// what the script needs (defaults 0.01 rad and 0.1 m/s), and
+	// SlipYawRateSigmaRps a yaw-rate disturbance the commands do not
+	// explain (tyre slip; default 0.005 rad/s); negative means none.
+	// NoCommands drives the scripted profile directly, with no commands
+	// (as drives made before commands existed).
+	CommandHz             float64
+	CommandDelayMs        float64
+	SteerLagS             float64
+	SpeedLagS             float64
+	OperatorSteerSigmaRad float64
+	OperatorSpeedSigmaMps float64
+	SlipYawRateSigmaRps   float64
+	NoCommands            bool
 }
 
 // Defaults.
@@ -75,6 +94,16 @@ const (
 	DefaultHFOVDeg       = 90
 	DefaultSetbackM      = 8
 	DefaultPanPeriodS    = 4
+	// Command defaults: values from memory of common practice (cellular
+	// one-way delays of 50-150 ms; electric power steering and drive
+	// responses of a few tenths of a second), not measured on a vehicle.
+	DefaultCommandHz        = 50
+	DefaultCommandDelayMs   = 120
+	DefaultSteerLagS        = 0.15
+	DefaultSpeedLagS        = 0.6
+	DefaultOperatorSteerRad = 0.01
+	DefaultOperatorSpeedMps = 0.1
+	DefaultSlipYawRateSigma = 0.005
 )
 
 // withDefaults returns c with zero fields replaced by defaults and checks
@@ -112,6 +141,14 @@ func (c Config) withDefaults() (Config, error) {
 	setF(&c.HorizontalFOVDeg, DefaultHFOVDeg)
 	setF(&c.FacadeSetbackM, DefaultSetbackM)
 	setF(&c.PanPeriodS, DefaultPanPeriodS)
+	setF(&c.CommandHz, DefaultCommandHz)
+	setF(&c.CommandDelayMs, DefaultCommandDelayMs)
+	setF(&c.SteerLagS, DefaultSteerLagS)
+	setF(&c.SpeedLagS, DefaultSpeedLagS)
+	setF(&c.OperatorSteerSigmaRad, DefaultOperatorSteerRad)
+	setF(&c.OperatorSpeedSigmaMps, DefaultOperatorSpeedMps)
+	setF(&c.SlipYawRateSigmaRps, DefaultSlipYawRateSigma)
+	c.SteerLagS, c.SpeedLagS = sigma(c.SteerLagS), sigma(c.SpeedLagS)
 
 	checks := []struct {
 		ok   bool
@@ -134,6 +171,10 @@ func (c Config) withDefaults() (Config, error) {
 		{finite(c.FacadeSetbackM) && c.FacadeSetbackM >= 0 && c.FacadeSetbackM <= 30, "FacadeSetbackM must be in [0, 30] m"},
 		{finite(c.PanYawRateRps) && math.Abs(c.PanYawRateRps) <= 2, "PanYawRateRps must be within ±2 rad/s"},
 		{finite(c.PanPeriodS) && c.PanPeriodS >= 0.5 && c.PanPeriodS <= 60, "PanPeriodS must be in [0.5, 60] s"},
+		{finite(c.CommandHz) && c.CommandHz >= 1 && c.CommandHz <= 1000, "CommandHz must be in [1, 1000]"},
+		{finite(c.CommandDelayMs) && c.CommandDelayMs >= 0 && c.CommandDelayMs <= 1000, "CommandDelayMs must be in [0, 1000]"},
+		{finite(c.SteerLagS) && finite(c.SpeedLagS) && c.SteerLagS <= 5 && c.SpeedLagS <= 5, "SteerLagS and SpeedLagS must be at most 5 s"},
+		{finite(c.OperatorSteerSigmaRad) && finite(c.OperatorSpeedSigmaMps) && finite(c.SlipYawRateSigmaRps), "command noise sigmas must be finite"},
 	}
 	for _, ch := range checks {
 		if !ch.ok {

@@ -21,7 +21,9 @@
 //
 // # Trajectory
 //
-// Speed and path curvature are smooth functions of time:
+// The scripted speed and path curvature (what the operator aims for; see
+// Commands for how the vehicle actually gets there) are smooth functions
+// of time:
 //
 //	v(t) = SpeedMps * (1 + 0.25 sin(2 pi t / 12 s))           accelerate 0-3 s, brake 3-9 s, ...
 //	k(t) = (1 / 50 m) * sin(2 pi t / 14 s)                     left 0-7 s, right 7-14 s, left ...
@@ -31,6 +33,28 @@
 // each capture time exactly), so truth.csv is the pose the frame was
 // rendered from, to floating-point precision.
 //
+// # Commands
+//
+// Unless NoCommands is set, the vehicle is driven by an operator's
+// commands, written to controls.csv (stream/operator.ControlsFile, operator
+// "simulated", t_arrival_us = t_us: a station next to the relay on the
+// drive's clock). Every 1/CommandHz (default 50 Hz) the operator sends the
+// road-wheel angle and speed that make the actuators reproduce the
+// scripted profile p after the delay D and through the lag τ,
+// p(t + D) + τ·p'(t + D), plus corrections of its own (Ornstein-Uhlenbeck,
+// 0.1 s correlation, OperatorSteerSigmaRad and OperatorSpeedSigmaMps).
+// The vehicle then really follows those commands: after CommandDelayMs
+// (default 120 ms) its road-wheel angle and speed approach them as
+// first-order lags (SteerLagS 0.15 s, SpeedLagS 0.6 s by default), stepped
+// exactly every 1 ms, and its yaw rate v·tan(δ)/L carries a tyre-slip
+// disturbance the commands do not explain (Ornstein-Uhlenbeck, 0.5 s
+// correlation, SlipYawRateSigmaRps 0.005 rad/s). Speed, curvature,
+// acceleration, steering telemetry and truth all come from that response,
+// so the drive is what the commands produced. The defaults are our choice
+// of plausible values (cellular one-way delays of 50-150 ms, power
+// steering and drive responses of a few tenths of a second, from memory),
+// not measurements.
+//
 // # Telemetry noise
 //
 // Telemetry is sampled at TelemetryHz (default 100 Hz) on the same clock as
@@ -38,8 +62,8 @@
 // speed sigma 0.05 m/s, yaw rate sigma 0.002 rad/s, acceleration sigma
 // 0.05 m/s^2, steering sigma 0.002 rad (our chosen defaults for a plausible
 // mid-grade vehicle bus and gyro, not measured values). Steering is the
-// kinematic-bicycle front-wheel angle atan(WheelbaseM * k) for the
-// configured wheelbase (default 2.7 m).
+// actuator's road-wheel angle (with NoCommands, the kinematic-bicycle angle
+// atan(WheelbaseM * k) for the configured wheelbase, default 2.7 m).
 //
 // # Scene
 //

@@ -76,8 +76,11 @@ func Generate(ctx context.Context, cfg Config, outDir string, progress func(done
 		}
 	}()
 
-	tr := newPanTrajectory(cfg.SpeedMps, cfg.DurationS, cfg.PanYawRateRps, cfg.PanPeriodS)
+	tr := newDriveTrajectory(cfg)
 	if err := writeTelemetry(w, cfg, tr); err != nil {
+		return err
+	}
+	if err := writeCommands(recDir, cfg, tr); err != nil {
 		return err
 	}
 	if err := ctx.Err(); err != nil {
@@ -140,28 +143,36 @@ func Generate(ctx context.Context, cfg Config, outDir string, progress func(done
 	return os.Remove(tmp)
 }
 
-// writeTelemetry writes samples at TelemetryHz from t = 0 through the end
-// of the drive with seeded Gaussian noise (see the package documentation).
+// writeTelemetry writes telemetryRows(cfg, tr).
 func writeTelemetry(w *recording.Writer, cfg Config, tr *trajectory) error {
+	for k, row := range telemetryRows(cfg, tr) {
+		if err := w.WriteTelemetry(row); err != nil {
+			return fmt.Errorf("simdrive: telemetry sample %d: %w", k, err)
+		}
+	}
+	return nil
+}
+
+// telemetryRows returns samples at TelemetryHz from t = 0 through the end
+// of the drive with seeded Gaussian noise (see the package documentation).
+func telemetryRows(cfg Config, tr *trajectory) []recording.TelemetryRow {
 	rng := rand.New(rand.NewPCG(uint64(cfg.Seed), 0x7e1e))
 	endUs := int64(math.Round(cfg.DurationS * 1e6))
+	var rows []recording.TelemetryRow
 	for k := 0; ; k++ {
 		us := int64(math.Round(float64(k) * 1e6 / cfg.TelemetryHz))
 		if us > endUs {
-			return nil
+			return rows
 		}
 		ts := float64(us) * 1e-6
-		row := recording.TelemetryRow{
+		rows = append(rows, recording.TelemetryRow{
 			TimeUs:     us,
 			SpeedMps:   tr.SpeedMps(ts) + sigma(cfg.SpeedSigmaMps)*rng.NormFloat64(),
 			YawRateRps: tr.YawRateRps(ts) + sigma(cfg.YawRateSigmaRps)*rng.NormFloat64(),
 			AccelMps2:  tr.AccelMps2(ts) + sigma(cfg.AccelSigmaMps2)*rng.NormFloat64(),
 			HasAccel:   true,
-			SteerRad:   math.Atan(cfg.WheelbaseM*tr.CurvaturePM(ts)) + sigma(cfg.SteerSigmaRad)*rng.NormFloat64(),
+			SteerRad:   tr.SteerRad(ts, cfg.WheelbaseM) + sigma(cfg.SteerSigmaRad)*rng.NormFloat64(),
 			HasSteer:   true,
-		}
-		if err := w.WriteTelemetry(row); err != nil {
-			return fmt.Errorf("simdrive: telemetry sample %d: %w", k, err)
-		}
+		})
 	}
 }

@@ -146,7 +146,7 @@ func TestTelemetryNoise(t *testing.T) {
 		t.Fatal(err)
 	}
 	tr := newTrajectory(cfg.SpeedMps, cfg.DurationS)
-	rows := telemetryRows(t, cfg, tr)
+	rows := telemetryReadBack(t, cfg, tr)
 	if len(rows) != 2001 {
 		t.Fatalf("%d rows", len(rows))
 	}
@@ -183,7 +183,7 @@ func TestTelemetryNoise(t *testing.T) {
 	}
 	// A negative sigma switches noise off: values are exact.
 	cfg.SpeedSigmaMps, cfg.YawRateSigmaRps = -1, -1
-	for _, s := range telemetryRows(t, cfg, tr) {
+	for _, s := range telemetryReadBack(t, cfg, tr) {
 		ts := float64(s.TimeUs) * 1e-6
 		if s.SpeedMps != tr.SpeedMps(ts) || s.YawRateRps != tr.YawRateRps(ts) {
 			t.Fatalf("noise-free sample at %d us differs: %+v", s.TimeUs, s)
@@ -191,8 +191,8 @@ func TestTelemetryNoise(t *testing.T) {
 	}
 }
 
-// telemetryRows writes only the telemetry of cfg and reads it back.
-func telemetryRows(t *testing.T, cfg Config, tr *trajectory) []recording.TelemetryRow {
+// telemetryReadBack writes only the telemetry of cfg and reads it back.
+func telemetryReadBack(t *testing.T, cfg Config, tr *trajectory) []recording.TelemetryRow {
 	t.Helper()
 	dir := filepath.Join(t.TempDir(), "rec")
 	w, err := recording.Create(dir, cfg.camera())

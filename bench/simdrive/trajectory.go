@@ -25,6 +25,11 @@ type trajectory struct {
 	grid         []pose  // grid[k] is the pose at k*integStepUs
 	panRps       float64 // amplitude of the extra pan yaw rate (Config.PanYawRateRps)
 	panPeriodS   float64
+	// act, if set, is the vehicle's response to the operator's commands
+	// (see commands.go); speed, acceleration and curvature then come from
+	// it instead of the scripted profile.
+	act        *actuation
+	wheelbaseM float64
 }
 
 // newTrajectory integrates the profile from t = 0 to durationS + leadS.
@@ -36,31 +41,69 @@ func newTrajectory(meanSpeedMps, durationS float64) *trajectory {
 // panRps·panWave(t / panPeriodS) (see Config.PanYawRateRps).
 func newPanTrajectory(meanSpeedMps, durationS, panRps, panPeriodS float64) *trajectory {
 	tr := &trajectory{meanSpeedMps: meanSpeedMps, panRps: panRps, panPeriodS: panPeriodS}
+	tr.integrate(durationS)
+	return tr
+}
+
+// newDriveTrajectory returns the trajectory of cfg (after defaults): the
+// scripted profile, produced by the operator's commands unless
+// cfg.NoCommands.
+func newDriveTrajectory(cfg Config) *trajectory {
+	if cfg.NoCommands {
+		return newPanTrajectory(cfg.SpeedMps, cfg.DurationS, cfg.PanYawRateRps, cfg.PanPeriodS)
+	}
+	tr := &trajectory{meanSpeedMps: cfg.SpeedMps, panRps: cfg.PanYawRateRps, panPeriodS: cfg.PanPeriodS}
+	act := actuate(tr, cfg)
+	tr.act, tr.wheelbaseM = act, cfg.WheelbaseM
+	tr.integrate(cfg.DurationS)
+	return tr
+}
+
+// integrate fills the pose grid from t = 0 to durationS + leadS.
+func (tr *trajectory) integrate(durationS float64) {
 	n := int(math.Ceil((durationS+leadS)*1e6/float64(integStepUs))) + 1
 	tr.grid = make([]pose, n)
 	for k := 1; k < n; k++ {
 		tr.grid[k] = tr.step(tr.grid[k-1], float64(int64(k-1)*integStepUs)*1e-6, float64(integStepUs)*1e-6)
 	}
-	return tr
 }
 
 // SpeedMps returns the true longitudinal speed at time t (seconds).
 func (tr *trajectory) SpeedMps(t float64) float64 {
+	if tr.act != nil {
+		return at(tr.act.speed, t)
+	}
 	return tr.meanSpeedMps * (1 + speedSwing*math.Sin(2*math.Pi*t/speedPeriodS))
 }
 
 // AccelMps2 returns the true longitudinal acceleration dv/dt at time t.
 func (tr *trajectory) AccelMps2(t float64) float64 {
+	if tr.act != nil {
+		return at(tr.act.accel, t)
+	}
 	return tr.meanSpeedMps * speedSwing * 2 * math.Pi / speedPeriodS * math.Cos(2*math.Pi*t/speedPeriodS)
 }
 
 // CurvaturePM returns the path curvature (1/m, positive left) at time t.
 func (tr *trajectory) CurvaturePM(t float64) float64 {
+	if tr.act != nil {
+		return math.Tan(at(tr.act.steer, t))/tr.wheelbaseM + at(tr.act.slip, t)/tr.SpeedMps(t)
+	}
 	k := curvatureMaxPM * math.Sin(2*math.Pi*t/curvePeriodS)
 	if tr.panRps != 0 {
 		k += tr.panRps * panWave(t/tr.panPeriodS) / tr.SpeedMps(t)
 	}
 	return k
+}
+
+// SteerRad returns the true front road-wheel angle at time t: the
+// actuator's angle when the drive is commanded, else the kinematic-bicycle
+// angle of the scripted curvature.
+func (tr *trajectory) SteerRad(t, wheelbaseM float64) float64 {
+	if tr.act != nil {
+		return at(tr.act.steer, t)
+	}
+	return math.Atan(wheelbaseM * tr.CurvaturePM(t))
 }
 
 // YawRateRps returns the true yaw rate at time t.

@@ -92,6 +92,12 @@ func TestImportRoundTripScores(t *testing.T) {
 		t.Fatalf("calibration against truth: original %d ticks, imported %d; want >0 and 0", a.CalibrationTruth.Frames, b.CalibrationTruth.Frames)
 	}
 	a.CalibrationTruth, b.CalibrationTruth = bench.Calibration{}, bench.Calibration{}
+	// controls.csv (the operator's commands) has no ROS 2 message either:
+	// the original has it (unused by this CTRV replay), the import not.
+	if a.Commands.Count == 0 || a.Commands.Used || b.Commands.Count != 0 {
+		t.Fatalf("commands: original %+v, imported %+v; want recorded but unused, and none", a.Commands, b.Commands)
+	}
+	a.Commands, b.Commands = bench.CommandsUse{}, bench.CommandsUse{}
 	ja, _ := json.Marshal(a)
 	jb, _ := json.Marshal(b)
 	if !bytes.Equal(ja, jb) {

@@ -97,7 +97,7 @@ func TestRelayKeepsConsoleCutoffAcrossRestart(t *testing.T) {
 
 	base, stop := startRelay(t, append([]string{"--record", rec}, args...)...)
 	// The operator station's controls are recorded beside the drive.
-	if code, body := consoleCall(t, "POST", base+"/api/controls", token, `{"t_us": 5, "steer_rad": 0.02, "throttle": 0.1, "brake": 0}`); code != 200 {
+	if code, body := consoleCall(t, "POST", base+"/api/controls", token, `{"t_us": 5, "operator": "default", "steer_rad": 0.02, "throttle": 0.1, "brake": 0}`); code != 200 {
 		t.Errorf("POST /api/controls: %d %s", code, body)
 	}
 	if code, body := consoleCall(t, "POST", base+"/api/cutoff", token, `{"cutoff": 0.65}`); code != 200 {

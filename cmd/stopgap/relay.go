@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"io"
 	"log/slog"
+	"math"
 	"os"
 	"strings"
 
@@ -51,9 +52,14 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	fs.Float64Var(&maxAgeMs, "max-age-ms", 0, "cap on the picture age of a predicted frame, ms: past it a missing frame is STALE (0 = the policy's max_horizon_ms; more is refused)")
 	fs.Float64Var(&allowanceMs, "allowance-ms", relay.DefaultAllowanceMs, allowanceUsage)
 	fs.Float64Var(&latencyMs, "latency-ms", 0, "nominal capture-to-arrival latency, ms (0 = estimate over the first frames of each session)")
-	fs.StringVar(&model, "model", "ctrv", "motion model of the filter: ctrv or bicycle")
+	fs.StringVar(&model, "model", "ctrv", "motion model of the filter: ctrv or bicycle (bicycle: the operator's commands sent to /api/controls are its control input)")
 	videoMotion := fs.Bool("video-motion", false, "also estimate the vehicle's motion from the video itself (for a vehicle that sends no telemetry); costs about one warp per frame")
 	fs.Float64Var(&wheelbaseM, "wheelbase-m", 2.7, "wheelbase for the bicycle model and steering telemetry, m")
+	var act filter.Actuator
+	var cmdDelayMs float64
+	fs.Float64Var(&cmdDelayMs, "command-delay-ms", 0, "uplink delay from the operator station to the vehicle's actuators, ms (fit it with stopgap replay on a recorded drive)")
+	fs.Float64Var(&act.SteerLagS, "steer-lag-s", 0, "time constant of the steering actuator's first-order lag, s")
+	fs.Float64Var(&act.SpeedLagS, "speed-lag-s", 0, "time constant of the speed's first-order lag, s")
 	fs.StringVar(&rtpListen, "rtp-listen", "", "UDP `address` (e.g. 127.0.0.1:5004) to receive VP8 over plain RTP with RTCP on the same port; empty = off")
 	fs.StringVar(&telemetryListen, "telemetry-listen", "", "UDP `address` for telemetry datagrams (JSON, one per datagram) that go with --rtp-listen")
 	fs.StringVar(&rtpAllow, "rtp-allow", "", "comma-separated source `IPs or IP:ports` admitted by --rtp-listen and --telemetry-listen (required off loopback: plain RTP is unauthenticated)")
@@ -110,6 +116,10 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	if err != nil {
 		return fmt.Errorf("--model: %w", err)
 	}
+	if !(cmdDelayMs >= 0 && cmdDelayMs <= 2000) {
+		return fmt.Errorf("--command-delay-ms %v: want 0..2000", cmdDelayMs)
+	}
+	act.DelayUs = int64(math.Round(cmdDelayMs * 1000))
 	ingestTok, ingestGen, err := loadToken(tokenFile, "STOPGAP_TOKEN")
 	if err != nil {
 		return fmt.Errorf("--token-file: %w", err)
@@ -143,7 +153,7 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	sc.Relay = relay.Config{
 		FPS: fps, AllowanceMs: allowanceMs, LatencyMs: latencyMs,
 		Camera: cam, Policy: predictor.Policy{MaxAgeMs: maxAgeMs},
-		Filter:      filter.Config{Model: m, WheelbaseM: wheelbaseM},
+		Filter:      filter.Config{Model: m, WheelbaseM: wheelbaseM, Actuator: act},
 		VideoMotion: *videoMotion,
 		RecordDir:   recordDir, IngestToken: ingestTok, ConsoleToken: consoleTok,
 		Console: cc, Logger: log, AlwaysTranscode: alwaysTranscode,
@@ -151,6 +161,10 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 			NAT1To1IPs: splitList(icePublicIPs), UDPPort: iceUDPPort}},
 	}
 	sc.IngestTokenGenerated, sc.ConsoleTokenGenerated = ingestGen, consoleGen
+	sc.KnownOperator = func(name string) bool {
+		snap, err := store.Load()
+		return err == nil && snap.Find(name) >= 0
+	}
 	return station.Serve(ctx, sc)
 }
 

@@ -2,6 +2,7 @@ package main
 
 import (
 	"context"
+	"encoding/json"
 	"flag"
 	"fmt"
 	"io"
@@ -36,6 +37,10 @@ type replayFlags struct {
 	toleranceMrad        float64
 	motion               string
 	lead                 bool
+	noCommands           bool
+	commandDelayMs       float64
+	steerLagS, speedLagS float64
+	compareSources       bool
 }
 
 func (f *replayFlags) register(fs *flag.FlagSet) {
@@ -51,7 +56,7 @@ func (f *replayFlags) register(fs *flag.FlagSet) {
 	fs.Float64Var(&f.cutoff, "cutoff", pol.CutoffConfidence, "confidence cutoff in [0,1]: below it a missing frame is shown STALE, not PREDICTED")
 	fs.Float64Var(&f.maxAgeMs, "max-age-ms", pol.MaxAgeMs, "cap on the picture age of a predicted frame, ms: past it a missing frame is STALE")
 	fs.Float64Var(&f.allowanceMs, "allowance-ms", bench.DefaultAllowanceMs, allowanceUsage)
-	fs.StringVar(&f.model, "model", "ctrv", "motion model of the filter: ctrv or bicycle")
+	fs.StringVar(&f.model, "model", "", "motion model of the filter: ctrv or bicycle; empty: the bicycle driven by the operator's commands\nwhen the drive has them (controls.csv), else ctrv")
 	fs.Float64Var(&f.wheelbaseM, "wheelbase-m", 2.7, "wheelbase for the bicycle model and steering telemetry, m")
 	fs.IntVar(&f.examples, "examples", bench.DefaultExamples, "how many example ticks the report shows side by side")
 	fs.BoolVar(&f.overwrite, "overwrite", false, "replace an existing non-empty --out directory")
@@ -62,13 +67,24 @@ func (f *replayFlags) register(fs *flag.FlagSet) {
 	fs.Float64Var(&f.telemetryLoss, "telemetry-loss-rate", 0, "share of telemetry samples lost on their own channel, [0,1); needs --telemetry-own-channel")
 	fs.BoolVar(&f.lead, "lead", false, "also score latency compensation: every LIVE frame moved ahead by its age to the display time (labelled MOVED AHEAD), against the frame captured when it was shown; simulated links only")
 	fs.StringVar(&f.motion, "motion", "telemetry", "sources of motion for the filter: telemetry, video (ego-motion from the frames, for a vehicle without telemetry), telemetry+video, or none")
+	fs.BoolVar(&f.noCommands, "no-commands", false, "ignore the operator's commands (controls.csv): telemetry alone drives the filter")
+	fs.Float64Var(&f.commandDelayMs, "command-delay-ms", 0, "uplink delay from the operator station to the vehicle's actuators, ms;\nwith --steer-lag-s and --speed-lag-s all 0 (default) the three are fitted from the drive")
+	fs.Float64Var(&f.steerLagS, "steer-lag-s", 0, "time constant of the steering actuator's first-order lag, s (see --command-delay-ms)")
+	fs.Float64Var(&f.speedLagS, "speed-lag-s", 0, "time constant of the speed's first-order lag, s (see --command-delay-ms)")
+	fs.BoolVar(&f.compareSources, "compare-sources", false, "also replay once per source of motion (telemetry only, commands added, and the exact motion\nwhen the drive has truth.csv) and per telemetry link, and print the table (sources.json in --out)")
 	fs.Float64Var(&f.toleranceMrad, "tolerance-mrad", predictor.DefaultToleranceMrad, "misalignment within which a predicted frame counts as good, mrad: the confidence is the probability of that")
 }
 
 func (f *replayFlags) config(drive, out string, stderr io.Writer) (bench.ReplayConfig, error) {
-	model, err := filter.ParseModel(f.model)
-	if err != nil {
-		return bench.ReplayConfig{}, fmt.Errorf("--model: %w", err)
+	var model filter.Model // empty: decided by the drive's commands
+	if f.model != "" {
+		var err error
+		if model, err = filter.ParseModel(f.model); err != nil {
+			return bench.ReplayConfig{}, fmt.Errorf("--model: %w", err)
+		}
+	}
+	if !(f.commandDelayMs >= 0 && f.commandDelayMs <= 2000) || !(f.steerLagS >= 0 && f.steerLagS <= 10) || !(f.speedLagS >= 0 && f.speedLagS <= 10) {
+		return bench.ReplayConfig{}, fmt.Errorf("--command-delay-ms %v, --steer-lag-s %v, --speed-lag-s %v: want 0..2000 ms and 0..10 s", f.commandDelayMs, f.steerLagS, f.speedLagS)
 	}
 	if f.cutoff < 0 || f.cutoff > 1 || f.cutoff != f.cutoff {
 		return bench.ReplayConfig{}, fmt.Errorf("--cutoff %v: want a confidence in [0, 1]", f.cutoff)
@@ -97,8 +113,10 @@ func (f *replayFlags) config(drive, out string, stderr io.Writer) (bench.ReplayC
 			Model: lossmodel.GilbertElliott, LossRate: f.lossRate, BurstMs: f.burstMs,
 			ExtraDelayMs: f.delayMs, JitterMs: f.jitterMs, Seed: f.seed,
 		},
-		Policy:      predictor.Policy{CutoffConfidence: f.cutoff, MaxAgeMs: f.maxAgeMs},
-		Filter:      filter.Config{Model: model, WheelbaseM: f.wheelbaseM},
+		Policy: predictor.Policy{CutoffConfidence: f.cutoff, MaxAgeMs: f.maxAgeMs},
+		Filter: filter.Config{Model: model, WheelbaseM: f.wheelbaseM, Actuator: filter.Actuator{
+			DelayUs: int64(math.Round(f.commandDelayMs * 1000)), SteerLagS: f.steerLagS, SpeedLagS: f.speedLagS}},
+		NoCommands:  f.noCommands,
 		AllowanceMs: f.allowanceMs,
 		Telemetry:   bench.TelemetryLink{Own: f.telemetryOwn, LossRate: f.telemetryLoss, Seed: f.seed},
 		Confidence:  predictor.ConfidenceModel{ToleranceMrad: f.toleranceMrad},
@@ -169,7 +187,31 @@ func runReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 		return err
 	}
 	printSummary(stdout, sum, out)
+	if rf.compareSources {
+		return compareSources(ctx, cfg, out, stdout)
+	}
 	return nil
+}
+
+// compareSources runs the evaluation table on cfg's drive, prints it and
+// writes it to out/sources.json.
+func compareSources(ctx context.Context, cfg bench.ReplayConfig, out string, stdout io.Writer) error {
+	sources := bench.EvalSources()
+	if _, err := os.Stat(filepath.Join(cfg.Drive, "truth.csv")); err == nil && cfg.ArrivalsFile == "" {
+		sources = append(sources, bench.ExactMotionSource)
+	}
+	cfg.Progress, cfg.Out = nil, ""
+	rows, err := bench.CompareEvalSources(ctx, cfg, sources, bench.TelemetryLinks())
+	if err != nil {
+		return fmt.Errorf("--compare-sources: %w", err)
+	}
+	fmt.Fprintln(stdout, "sources of motion, side by side:")
+	bench.WriteEvalTable(stdout, rows)
+	data, err := json.MarshalIndent(rows, "", "  ")
+	if err != nil {
+		return err
+	}
+	return os.WriteFile(filepath.Join(out, "sources.json"), append(data, '\n'), 0o644)
 }
 
 // replayDrives replays a drive list, or a shard of it, into out.
@@ -237,6 +279,16 @@ func printSummaryBody(w io.Writer, s bench.Summary) {
 		}
 		fmt.Fprintf(w, "%-10s %7d %10.2f %9.4f %9.2f\n", name, st.Frames, float64(st.PSNRdBMean), float64(st.SSIMMean), float64(st.MAEMean))
 	}
+	if c := s.Commands; c.Used {
+		how := "configured"
+		if c.Fitted {
+			how = "fitted from the drive"
+		}
+		fmt.Fprintf(w, "operator commands: %d drive the %s model (%d rejected); actuator %s: delay %.0f ms, steering lag %.3f s, speed lag %.3f s\n",
+			c.Count, s.FilterModel, c.Rejected, how, c.DelayMs, c.SteerLagS, c.SpeedLagS)
+	} else if c.File != "" {
+		fmt.Fprintf(w, "operator commands: not used (%s)\n", c.Why)
+	}
 	if po := s.PredictedOnly; po.Frames > 0 {
 		fmt.Fprintf(w, "PREDICTED ticks alone: %d, PSNR %.2f dB (hold %.2f), SSIM %.4f (hold %.4f); harm rate %.1f %% by PSNR, %.1f %% by SSIM\n",
 			po.Frames, float64(po.PSNRdBMean), float64(po.HoldPSNRdBMean), float64(po.SSIMMean), float64(po.HoldSSIMMean),
@@ -282,11 +334,16 @@ func runSimdrive(ctx context.Context, args []string, stdout, stderr io.Writer) e
 	fs.Float64Var(&cfg.PanYawRateRps, "pan-yaw-rate-rps", 0, "amplitude of an extra yaw rate that reverses every half --pan-period-s (a weaving, panning drive), rad/s; 0 = none")
 	fs.Float64Var(&cfg.PanPeriodS, "pan-period-s", simdrive.DefaultPanPeriodS, "period of the pan yaw rate, s")
 	fs.BoolVar(&cfg.Traffic, "traffic", false, "add moving road users (oncoming cars, a car ahead, pedestrians) and write their exact mask per frame to movers/, to score the marks of things that moved")
+	fs.Float64Var(&cfg.CommandDelayMs, "command-delay-ms", simdrive.DefaultCommandDelayMs, "uplink delay from the operator's commands to the actuators, ms")
+	fs.Float64Var(&cfg.SteerLagS, "steer-lag-s", simdrive.DefaultSteerLagS, "steering actuator's first-order time constant, s (negative: none)")
+	fs.Float64Var(&cfg.SpeedLagS, "speed-lag-s", simdrive.DefaultSpeedLagS, "speed's first-order time constant, s (negative: none)")
+	fs.BoolVar(&cfg.NoCommands, "no-commands", false, "drive the scripted profile directly: no operator commands, no controls.csv")
 	fs.BoolVar(&quiet, "quiet", false, "no progress bar")
 	fs.Usage = func() {
 		fmt.Fprintln(stderr, "usage: stopgap simdrive --out DIR [flags]")
 		fmt.Fprintln(stderr, "\nRenders a simulated drive of our own street scene and writes it as a recording")
-		fmt.Fprintln(stderr, "(camera.json, frames.csv + JPEG frames, telemetry.csv, truth.csv).")
+		fmt.Fprintln(stderr, "(camera.json, frames.csv + JPEG frames, telemetry.csv, truth.csv, and controls.csv:")
+		fmt.Fprintln(stderr, "the operator's commands that produced the drive through the delay and the lags).")
 		fmt.Fprintln(stderr)
 		fs.PrintDefaults()
 	}

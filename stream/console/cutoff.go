@@ -55,6 +55,12 @@ func parseCutoffRequest(data []byte) (CutoffRequest, error) {
 	return req, nil
 }
 
+// CheckProfileName returns an error wrapping ErrBadProfileName unless name
+// follows the profile name rules: 1 to MaxProfileNameLen bytes of letters,
+// digits, space, '-', '_' or '.'. Other channels that name an operator use
+// it too.
+func CheckProfileName(name string) error { return validProfileName(name) }
+
 // validProfileName checks the profile name rules (see ErrBadProfileName).
 func validProfileName(name string) error {
 	if name == "" || len(name) > MaxProfileNameLen {

@@ -13,4 +13,7 @@ var (
 	// ErrFrameSize reports a decoded picture whose size differs from the
 	// camera's; the frame is counted as missing. Check camera.json.
 	ErrFrameSize = errors.New("relay: decoded picture size differs from the camera size")
+	// ErrNoSession: an operator command arrived while no vehicle session
+	// is served; it was dropped (a new session starts from telemetry).
+	ErrNoSession = errors.New("relay: no vehicle session to command")
 )

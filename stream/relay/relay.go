@@ -13,6 +13,7 @@ import (
 	"sync"
 	"time"
 
+	"stopgap/filter"
 	"stopgap/predictor"
 	"stopgap/stream/console"
 	"stopgap/stream/ingest"
@@ -84,6 +85,9 @@ type Relay struct {
 	latencyUs   int64
 	latencyKnow bool
 	closed      bool
+	// cmdFlt is the filter of the session being served, which AddCommand
+	// feeds; nil between sessions.
+	cmdFlt *filter.Filter
 }
 
 // New validates cfg, creates the WHIP server, the console, the egress encoder
@@ -301,7 +305,31 @@ func (r *Relay) Serve(ctx context.Context, s ingest.Session) error {
 		return err
 	}
 	defer p.close()
+	r.mu.Lock()
+	r.cmdFlt = p.flt
+	r.mu.Unlock()
+	defer func() {
+		r.mu.Lock()
+		r.cmdFlt = nil
+		r.mu.Unlock()
+	}()
 	return p.run(ctx)
+}
+
+// AddCommand gives one operator command to the filter of the session being
+// served (filter.Filter.AddCommand: used by the bicycle model, with
+// Config.Filter.Actuator). Its TimeUs must be on the vehicle clock (keep the
+// station's clock synchronised with the vehicle's). Safe to call from any
+// goroutine; between sessions it returns ErrNoSession and the command is
+// dropped.
+func (r *Relay) AddCommand(c filter.Command) error {
+	r.mu.Lock()
+	flt := r.cmdFlt
+	r.mu.Unlock()
+	if flt == nil {
+		return ErrNoSession
+	}
+	return flt.AddCommand(c)
 }
 
 func (r *Relay) setActive(a bool) {

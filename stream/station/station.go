@@ -25,8 +25,9 @@ import (
 // Config is one relay service.
 type Config struct {
 	// Relay is the relay's own configuration; its ConsoleToken also guards
-	// the control log, and with RecordDir set the operator's control
-	// inputs are recorded there (operator.ControlsFile).
+	// the operator's command channel (/api/controls, served always: the
+	// commands feed the filter), and with RecordDir set they are recorded
+	// there (operator.ControlsFile).
 	Relay relay.Config
 	// Listen is the TCP address to serve on. Without CertFile and KeyFile
 	// it must be a loopback address: bearer tokens never cross a network
@@ -45,6 +46,10 @@ type Config struct {
 	ProfileReload time.Duration
 	// Out receives the endpoints (nil discards); logs go to Relay.Logger.
 	Out io.Writer
+	// KnownOperator reports whether name is an operator profile: commands
+	// on /api/controls naming another are rejected and counted. Nil
+	// accepts any valid name (operator.ControlsChannel.Known).
+	KnownOperator func(name string) bool
 }
 
 // ErrConfig means a Config cannot be served as given.
@@ -101,19 +106,26 @@ func Serve(ctx context.Context, cfg Config) error {
 	}
 	base := scheme + "://" + ln.Addr().String()
 	handler := r.Handler()
+	// The operator station's commands: recorded beside the drive (see
+	// operator.ControlsFile) and the bicycle model's control input.
+	controls := &operator.ControlsChannel{Token: cfg.Relay.ConsoleToken, Now: time.Now, Known: cfg.KnownOperator,
+		Sink: func(c operator.Control) {
+			if err := r.AddCommand(c.Command()); err != nil {
+				log.Debug("operator command not used", "t_us", c.TUs, "err", err)
+			}
+		}}
 	if cfg.Relay.RecordDir != "" {
-		// The operator station's control inputs, recorded beside the drive
-		// (see operator.ControlsFile).
 		cw, err := operator.CreateControls(cfg.Relay.RecordDir)
 		if err != nil {
 			return fmt.Errorf("station: control log in %s: %w", cfg.Relay.RecordDir, err)
 		}
 		defer cw.Close()
-		mux := http.NewServeMux()
-		mux.Handle("/api/controls", operator.ControlsHandler(cfg.Relay.ConsoleToken, cw, time.Now))
-		mux.Handle("/", handler)
-		handler = mux
+		controls.Log = cw
 	}
+	mux := http.NewServeMux()
+	mux.Handle("/api/controls", controls)
+	mux.Handle("/", handler)
+	handler = mux
 	srv := &http.Server{Handler: handler, ReadHeaderTimeout: 10 * time.Second,
 		TLSConfig: &tls.Config{MinVersion: tls.VersionTLS12}, ErrorLog: slog.NewLogLogger(log.Handler(), slog.LevelWarn)}
 	serveErr := make(chan error, 1)
