@@ -48,7 +48,8 @@ type pipeline struct {
 	// (stream/cadence); haveC0 tells whether it has its first frame.
 	grid         *cadence.Grid
 	haveC0       bool
-	next         int // lowest tick whose deadline has not been handled
+	next         int   // lowest tick whose deadline has not been handled
+	handledUs    int64 // time of tick next-1 as handled (see slotFor)
 	latUs        int64
 	latKnown     bool
 	latSamples   []int64
@@ -377,6 +378,11 @@ func (p *pipeline) onFrame(ev frameEvent) {
 	// Deadlines that passed before this frame was ready (a frame ready at
 	// its deadline is still in time, as in bench.Schedule.Live).
 	p.advance(ev.readyUs)
+	if nk, show := slotFor(k, p.next, ev.captureUs, p.handledUs, p.next > 0); show && nk != k {
+		p.log.Debug("frame shown on the first open tick: its own was handled", "tick", k, "shown_on", nk, "ready_before_deadline_us", p.deadlineUs(nk)-ev.readyUs)
+		p.r.met.framesMovedOn.Add(1)
+		k = nk
+	}
 	if k < p.next {
 		// Late: it becomes the held frame for later gaps, but is not shown.
 		p.r.met.lateFrames.Add(1)
@@ -391,6 +397,9 @@ func (p *pipeline) onFrame(ev frameEvent) {
 		// arrived after the deadline of the last tick filled: the replay
 		// must decide as the display did, on this tick and the later ones.
 		arrivalUs := ev.readyUs
+		p.log.Debug("late frame held, not shown", "tick", k, "late_us", ev.readyUs-p.deadlineUs(k),
+			"last_packet_late_us", ev.lastPktUs-p.deadlineUs(k), "decode_us", ev.decodeDur.Microseconds(),
+			"off_grid_us", ev.captureUs-p.grid.CaptureUs(k))
 		if d := p.deadlineUs(p.next - 1); arrivalUs <= d {
 			p.log.Debug("frame decoded in time reached the display after its tick was filled", "tick", k, "last_filled_tick", p.next-1, "ready_before_deadline_us", d-arrivalUs)
 			arrivalUs = d + 1
@@ -408,7 +417,7 @@ func (p *pipeline) onFrame(ev frameEvent) {
 		p.log.Warn("showing a live frame failed", "err", err)
 		return
 	}
-	p.next = k + 1
+	p.next, p.handledUs = k+1, ev.captureUs
 	p.feedTelemetry(p.deadlineUs(k))
 	p.emit(k, ev.captureUs, tick, &ev)
 	p.record(func(rc *recorder) { rc.frame(p.recIndex(k), ev.captureUs, ev.readyUs, ev.rtpTS, *ev.mat) })
@@ -418,6 +427,7 @@ func (p *pipeline) onFrame(ev frameEvent) {
 func (p *pipeline) missing(k int) {
 	p.feedTelemetry(p.deadlineUs(k))
 	c := p.nominalCaptureUs(k)
+	p.handledUs = c
 	// The operator's cutoff may change at any tick.
 	pol := predictor.Policy{CutoffConfidence: p.r.console.Cutoff(), MaxAgeMs: p.cfg.Policy.MaxAgeMs}
 	if err := p.filler.SetPolicy(pol); err != nil {
@@ -561,6 +571,7 @@ func noPacketsMs(now, last time.Time) float64 {
 func (p *pipeline) shift(d int64) {
 	if p.haveC0 {
 		p.grid.Shift(d)
+		p.handledUs += d
 	}
 	if p.cfg.LatencyMs != 0 {
 		// A configured latency is relative to the vehicle clock already.

@@ -1,0 +1,95 @@
+package relay
+
+import (
+	"path/filepath"
+	"testing"
+
+	"stopgap/predictor"
+	"stopgap/stream/recording"
+)
+
+func TestSlotFor(t *testing.T) {
+	for _, c := range []struct {
+		name                 string
+		k, next              int
+		captureUs, handledUs int64
+		started              bool
+		tick                 int
+		show                 bool
+	}{
+		{"own tick open", 5, 5, 1000, 900, true, 5, true},
+		{"own tick ahead (sender skipped)", 7, 5, 1000, 900, true, 7, true},
+		{"first frame", 0, 0, 1000, 0, false, 0, true},
+		{"own tick shown with an older frame", 4, 5, 1000, 900, true, 5, true},
+		{"own tick filled at an earlier time", 4, 5, 1000, 990, true, 5, true},
+		{"not newer than the tick handled", 4, 5, 1000, 1000, true, 4, false},
+		{"older than the tick handled", 3, 5, 1000, 1200, true, 3, false},
+		{"two ticks behind, newer", 3, 5, 1000, 900, true, 3, false},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			tick, show := slotFor(c.k, c.next, c.captureUs, c.handledUs, c.started)
+			if tick != c.tick || show != c.show {
+				t.Errorf("slotFor(%d, %d, %d, %d, %v) = %d, %v; want %d, %v",
+					c.k, c.next, c.captureUs, c.handledUs, c.started, tick, show, c.tick, c.show)
+			}
+		})
+	}
+}
+
+// TestCaptureJitter: frame 20 is captured (and stamped) 22 ms late, two
+// thirds of a period, so the nearest tick to it is 21 and tick 20 gets no
+// frame; frame 21 then finds its tick taken. It is shown on tick 22, and
+// the frames after it one tick on, until the sender skips frame 30: frame
+// 31 is on its own tick again. Only tick 20 is not LIVE (without the rule,
+// frame 21 was held unseen and tick 30 was not LIVE either), and the
+// replay of the recording agrees tick for tick.
+func TestCaptureJitter(t *testing.T) {
+	const frames = 40
+	clock := &fakeClock{}
+	dir := filepath.Join(t.TempDir(), "rec")
+	r := testRelay(t, clock, dir)
+	v := newFakeVehicle(t, clock, frames, nil)
+	v.skip = func(i int) bool { return i == 30 }
+	v.lateCaptureUs = func(i int) int64 {
+		if i == 20 {
+			return 22_000
+		}
+		return 0
+	}
+	runSession(t, r, v)
+	states := readTicks(t, dir)
+	t.Logf("ticks: %v", states)
+	if len(states) != frames {
+		t.Fatalf("%d ticks, want %d", len(states), frames)
+	}
+	for k, s := range states {
+		if (k == 20) == (s == "LIVE") {
+			t.Errorf("tick %d is %s", k, s)
+		}
+	}
+	st := r.Stats()
+	if st.FramesMovedOn != 9 || st.LateFrames != 0 {
+		t.Errorf("frames moved on %d (want 9: frames 21-29), late %d (want 0)", st.FramesMovedOn, st.LateFrames)
+	}
+	rec, err := recording.Open(dir)
+	if err != nil {
+		t.Fatal(err)
+	}
+	// Each row holds the frame shown on that tick, at its real capture time.
+	for k, f := range rec.Frames {
+		want := int64(-1)
+		switch {
+		case k < 20 || k >= 31:
+			want = captureUs(k)
+		case k == 21:
+			want = captureUs(20) + 22_000
+		case k >= 22 && k <= 30:
+			want = captureUs(k - 1)
+		}
+		if want >= 0 && (f.NoImage || f.CaptureUs < want-1 || f.CaptureUs > want+1) {
+			t.Errorf("row %d: capture %d (image %v), want %d", k, f.CaptureUs, !f.NoImage, want)
+		}
+	}
+	replayMatches(t, dir, st, predictor.DefaultCutoffConfidence)
+	replayAgreesPerTick(t, dir, predictor.DefaultCutoffConfidence)
+}
