@@ -378,8 +378,8 @@ func (p *pipeline) onFrame(ev frameEvent) {
 	// Deadlines that passed before this frame was ready (a frame ready at
 	// its deadline is still in time, as in bench.Schedule.Live).
 	p.advance(ev.readyUs)
-	if nk, show := slotFor(k, p.next, ev.captureUs, p.handledUs, p.next > 0); show && nk != k {
-		p.log.Debug("frame shown on the first open tick: its own was handled", "tick", k, "shown_on", nk, "ready_before_deadline_us", p.deadlineUs(nk)-ev.readyUs)
+	if nk, show := slotFor(k, p.next, ev.captureUs, p.grid.CaptureUs(k), p.handledUs, p.next > 0); show && nk != k {
+		p.log.Debug("frame shown on the open tick next to its own", "tick", k, "shown_on", nk, "ready_before_deadline_us", p.deadlineUs(nk)-ev.readyUs)
 		p.r.met.framesMovedOn.Add(1)
 		k = nk
 	}
@@ -428,6 +428,9 @@ func (p *pipeline) missing(k int) {
 	p.feedTelemetry(p.deadlineUs(k))
 	c := p.nominalCaptureUs(k)
 	p.handledUs = c
+	if p.log.Enabled(context.Background(), slog.LevelDebug) {
+		p.log.Debug("tick filled without a frame", "tick", k, "after_deadline_us", p.cfg.Now().UnixMicro()-p.deadlineUs(k))
+	}
 	// The operator's cutoff may change at any tick.
 	pol := predictor.Policy{CutoffConfidence: p.r.console.Cutoff(), MaxAgeMs: p.cfg.Policy.MaxAgeMs}
 	if err := p.filler.SetPolicy(pol); err != nil {

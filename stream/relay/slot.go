@@ -21,6 +21,15 @@ package relay
 // wait more than one period for frames, and one not newer than what was
 // handled would take the display back in time.
 //
+// The same jitter the other way: a frame stamped late lands on the tick
+// after the open one, and the tick it was meant for would be filled at once
+// (frames arrive in order, so none can come for it). If its nearest tick
+// is exactly one after the open tick and it was captured before its nearest
+// tick's time (its own tick's grid time is later than the frame), it is
+// shown on the open tick instead, and the frame after it finds its own tick
+// free. When the sender really skipped a frame, this moves the empty tick
+// one later; it never adds one.
+//
 // What this does to the display: real frames are still shown the moment
 // they are decoded. After such a frame each following frame, captured one
 // period later, again finds its own tick taken and goes one tick on: the
@@ -38,11 +47,14 @@ package relay
 
 // slotFor returns the tick a frame whose nearest tick is k is shown on and
 // whether it is shown: next is the lowest tick not handled yet (its deadline
-// has not passed), captureUs the frame's capture time and handledUs the
-// time of tick next-1 as handled (the capture time of the frame shown on it,
-// or its grid time if it was filled); started is false before any tick was
-// handled.
-func slotFor(k, next int, captureUs, handledUs int64, started bool) (tick int, show bool) {
+// has not passed), captureUs the frame's capture time, tickUs tick k's grid
+// time and handledUs the time of tick next-1 as handled (the capture time of
+// the frame shown on it, or its grid time if it was filled); started is
+// false before any tick was handled.
+func slotFor(k, next int, captureUs, tickUs, handledUs int64, started bool) (tick int, show bool) {
+	if k == next+1 && started && captureUs < tickUs {
+		return next, true
+	}
 	if k >= next {
 		return k, true
 	}

@@ -10,39 +10,46 @@ import (
 
 func TestSlotFor(t *testing.T) {
 	for _, c := range []struct {
-		name                 string
-		k, next              int
-		captureUs, handledUs int64
-		started              bool
-		tick                 int
-		show                 bool
+		name              string
+		k, next           int
+		captureUs, tickUs int64
+		handledUs         int64
+		started           bool
+		tick              int
+		show              bool
 	}{
-		{"own tick open", 5, 5, 1000, 900, true, 5, true},
-		{"own tick ahead (sender skipped)", 7, 5, 1000, 900, true, 7, true},
-		{"first frame", 0, 0, 1000, 0, false, 0, true},
-		{"own tick shown with an older frame", 4, 5, 1000, 900, true, 5, true},
-		{"own tick filled at an earlier time", 4, 5, 1000, 990, true, 5, true},
-		{"not newer than the tick handled", 4, 5, 1000, 1000, true, 4, false},
-		{"older than the tick handled", 3, 5, 1000, 1200, true, 3, false},
-		{"two ticks behind, newer", 3, 5, 1000, 900, true, 3, false},
+		{"own tick open", 5, 5, 1000, 1000, 900, true, 5, true},
+		{"two ticks ahead (sender skipped)", 7, 5, 1000, 990, 900, true, 7, true},
+		{"first frame", 0, 0, 1000, 1000, 0, false, 0, true},
+		{"own tick shown with an older frame", 4, 5, 1000, 990, 900, true, 5, true},
+		{"own tick filled at an earlier time", 4, 5, 1000, 990, 990, true, 5, true},
+		{"not newer than the tick handled", 4, 5, 1000, 990, 1000, true, 4, false},
+		{"older than the tick handled", 3, 5, 1000, 990, 1200, true, 3, false},
+		{"two ticks behind, newer", 3, 5, 1000, 990, 900, true, 3, false},
+		{"one tick ahead, captured before its time", 6, 5, 1000, 1010, 900, true, 5, true},
+		{"one tick ahead, captured after its time", 6, 5, 1000, 990, 900, true, 6, true},
+		{"one tick ahead, captured at its time", 6, 5, 1000, 1000, 900, true, 6, true},
+		{"one tick ahead before any tick", 1, 0, 1000, 1010, 0, false, 1, true},
 	} {
 		t.Run(c.name, func(t *testing.T) {
-			tick, show := slotFor(c.k, c.next, c.captureUs, c.handledUs, c.started)
+			tick, show := slotFor(c.k, c.next, c.captureUs, c.tickUs, c.handledUs, c.started)
 			if tick != c.tick || show != c.show {
-				t.Errorf("slotFor(%d, %d, %d, %d, %v) = %d, %v; want %d, %v",
-					c.k, c.next, c.captureUs, c.handledUs, c.started, tick, show, c.tick, c.show)
+				t.Errorf("slotFor(%d, %d, %d, %d, %d, %v) = %d, %v; want %d, %v",
+					c.k, c.next, c.captureUs, c.tickUs, c.handledUs, c.started, tick, show, c.tick, c.show)
 			}
 		})
 	}
 }
 
-// TestCaptureJitter: frame 20 is captured (and stamped) 22 ms late, two
-// thirds of a period, so the nearest tick to it is 21 and tick 20 gets no
-// frame; frame 21 then finds its tick taken. It is shown on tick 22, and
+// TestCaptureJitter: frame 10 is captured (and stamped) 18 ms late, more
+// than half a period, so its nearest tick is 11; it is still in time for
+// tick 10 (allowance 20 ms) and is shown there, and frame 11 on its own
+// tick. Frame 20 is stamped 22 ms late: too late for tick 20, so tick 20 is
+// filled; frame 21 then finds its tick taken. It is shown on tick 22, and
 // the frames after it one tick on, until the sender skips frame 30: frame
 // 31 is on its own tick again. Only tick 20 is not LIVE (without the rule,
-// frame 21 was held unseen and tick 30 was not LIVE either), and the
-// replay of the recording agrees tick for tick.
+// ticks 10, 11, 20 and 30 were not, frames 11 and 21 being held unseen),
+// and the replay of the recording agrees tick for tick.
 func TestCaptureJitter(t *testing.T) {
 	const frames = 40
 	clock := &fakeClock{}
@@ -51,7 +58,10 @@ func TestCaptureJitter(t *testing.T) {
 	v := newFakeVehicle(t, clock, frames, nil)
 	v.skip = func(i int) bool { return i == 30 }
 	v.lateCaptureUs = func(i int) int64 {
-		if i == 20 {
+		switch i {
+		case 10:
+			return 18_000
+		case 20:
 			return 22_000
 		}
 		return 0
@@ -68,8 +78,8 @@ func TestCaptureJitter(t *testing.T) {
 		}
 	}
 	st := r.Stats()
-	if st.FramesMovedOn != 9 || st.LateFrames != 0 {
-		t.Errorf("frames moved on %d (want 9: frames 21-29), late %d (want 0)", st.FramesMovedOn, st.LateFrames)
+	if st.FramesMovedOn != 10 || st.LateFrames != 0 {
+		t.Errorf("frames moved on %d (want 10: frames 10 and 21-29), late %d (want 0)", st.FramesMovedOn, st.LateFrames)
 	}
 	rec, err := recording.Open(dir)
 	if err != nil {
@@ -79,6 +89,8 @@ func TestCaptureJitter(t *testing.T) {
 	for k, f := range rec.Frames {
 		want := int64(-1)
 		switch {
+		case k == 10:
+			want = captureUs(10) + 18_000
 		case k < 20 || k >= 31:
 			want = captureUs(k)
 		case k == 21:
