@@ -64,6 +64,14 @@ type fakeVehicle struct {
 	srFrom int
 	// extraUs, if set, adds a delay to frame i on the link.
 	extraUs func(i int) int64
+	// lateCaptureUs, if set, makes frame i captured (RTP timestamp) and
+	// sent that many µs after its nominal time: a sender's capture jitter.
+	lateCaptureUs func(i int) int64
+	// skip, if set, names frames the sender never captures (no packets,
+	// no gap in the sequence numbers: not a loss).
+	skip func(i int) bool
+	// keyErr, if set, is what RequestKeyframe returns (nothing is sent).
+	keyErr error
 
 	enc  *vp8.Encoder
 	pkz  *rtpvp8.Packetizer
@@ -132,12 +140,18 @@ func (v *fakeVehicle) generate(i int) {
 		v.keyframes = append(v.keyframes, i)
 		v.mu.Unlock()
 	}
-	pk, err := v.pkz.Packetize(nil, frame, rtpTS(i))
+	ts, capUs := rtpTS(i), captureUs(i)
+	if v.lateCaptureUs != nil {
+		d := v.lateCaptureUs(i)
+		ts += uint32(d * 9 / 100)
+		capUs += d
+	}
+	pk, err := v.pkz.Packetize(nil, frame, ts)
 	if err != nil {
 		v.t.Error(err)
 		return
 	}
-	arrival := captureUs(i) + testLatencyUs
+	arrival := capUs + testLatencyUs
 	if v.extraUs != nil {
 		arrival += v.extraUs(i)
 	}
@@ -161,6 +175,10 @@ func (v *fakeVehicle) ReadRTP(ctx context.Context) (*rtp.Packet, time.Time, erro
 			v.end()
 			return nil, time.Time{}, whip.ErrSessionClosed
 		}
+		if v.skip != nil && v.skip(v.next) {
+			v.next++
+			continue
+		}
 		v.mu.Lock()
 		v.delivering = v.next
 		v.mu.Unlock()
@@ -182,6 +200,9 @@ func (v *fakeVehicle) Telemetry() <-chan whip.TelemetryBytes { return v.tel }
 func (v *fakeVehicle) RequestKeyframe() error {
 	v.mu.Lock()
 	defer v.mu.Unlock()
+	if v.keyErr != nil {
+		return v.keyErr
+	}
 	v.keyReqs = append(v.keyReqs, v.delivering)
 	v.forceKey = true
 	return nil
