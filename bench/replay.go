@@ -121,8 +121,9 @@ type ReplayConfig struct {
 // Tick k is due at DeadlineUs(k) = g_k + L + allowance (see cadence.Clock:
 // g_k on the grid locked to the capture cadence, L the latency estimate
 // frozen after cadence.LatencyFrames frames). Frame k is LIVE at tick k if it
-// arrived by then. Otherwise tick k is missing, and the newest frame that has
-// arrived by DeadlineUs(k) is the one a prediction is built from.
+// arrived by then (or on the tick next to it, by the clock's capture-jitter
+// rule). Otherwise tick k is missing, and the newest frame that has arrived
+// by DeadlineUs(k) is the one a prediction is built from.
 type Schedule struct {
 	// CaptureUs is each frame's capture time on the vehicle clock.
 	CaptureUs []int64
@@ -138,8 +139,9 @@ type Schedule struct {
 	// nil (a Schedule written by hand) means CaptureUs + LatencyUs +
 	// AllowanceUs.
 	TickDeadlineUs []int64
-	// TickLive holds whether each tick showed its frame LIVE; nil means
-	// arrival <= DeadlineUs.
+	// TickLive holds whether each tick showed a frame LIVE (its own, or
+	// by the clock's capture-jitter rule the frame before or after it);
+	// nil means arrival <= DeadlineUs.
 	TickLive []bool
 	// RecordedDeadlineUs, if not nil, holds each tick's deadline as the
 	// live relay recorded it (arrivals.csv t_deadline_us); the clock uses
@@ -173,8 +175,8 @@ func newSchedule(captureUs, arrivalUs, recordedDeadlineUs []int64, allowanceUs i
 		return Schedule{}, fmt.Errorf("schedule: no frame arrived, nothing to replay; check the arrivals file or lower --frame-loss-rate: %w", ErrReplayInput)
 	}
 	for _, j := range arrived {
-		if v := clock.FrameAt(&h, j, captureUs[j], arrivalUs[j]); v.Live {
-			s.TickDeadlineUs[j], s.TickLive[j] = v.Tick.DeadlineUs, true
+		if v := clock.FrameAt(&h, j, captureUs[j], arrivalUs[j]); v.Live && v.Tick.K < len(captureUs) {
+			s.TickDeadlineUs[v.Tick.K], s.TickLive[v.Tick.K] = v.Tick.DeadlineUs, true
 		}
 	}
 	clock.FillThrough(&h, len(captureUs)-1)
@@ -575,7 +577,7 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 			fi++
 			v := clock.FrameAt(d, j, captureUs[j], in.arrivalUs[j])
 			if d.err == nil {
-				d.frame(v)
+				d.frame(j, v)
 			}
 			// The video's ego-motion is known once the frame is decoded:
 			// it reaches the filter at the frame's arrival, for the ticks
@@ -841,14 +843,17 @@ func (d *replayDriver) Missing(t cadence.Tick) {
 	}
 }
 
-// frame takes the clock's verdict on a frame: a LIVE tick's row, and the
-// frame becomes the newest the display has (LIVE or late).
-func (d *replayDriver) frame(v cadence.Frame) {
-	k := v.Tick.K
-	if k > d.last {
-		d.last, d.beforeLast = k, d.last
+// frame takes the clock's verdict on frame j: the row of the tick it is
+// shown on if LIVE (by the capture-jitter rule that may be the tick before
+// or after j), and the frame becomes the newest the display has (LIVE or
+// late).
+func (d *replayDriver) frame(j int, v cadence.Frame) {
+	if j > d.last {
+		d.last, d.beforeLast = j, d.last
 	}
-	if !v.Live {
+	k := v.Tick.K
+	if !v.Live || k >= len(d.captureUs) {
+		// Late, or moved on past the replay's last tick: nothing to show.
 		return
 	}
 	d.r.shownValid = false

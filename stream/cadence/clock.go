@@ -100,6 +100,10 @@ type Frame struct {
 	// deadline of the last tick filled. Recordings keep this time so a
 	// replay decides as the display did.
 	ArrivalUs int64
+	// MovedOn: the frame is shown LIVE on an open tick next to its nearest
+	// one, by the capture-jitter rule (slot.go); Tick is the tick it is
+	// shown on, where a recording keeps it.
+	MovedOn bool
 }
 
 // ClockStats counts what the Clock did.
@@ -108,6 +112,9 @@ type ClockStats struct {
 	Frames, Late uint64
 	// Missing ticks filled.
 	Missing uint64
+	// MovedOn counts LIVE frames shown on a tick next to their nearest
+	// one (the capture-jitter rule, slot.go).
+	MovedOn uint64
 	// TelemetryDropped counts samples later than HistoryUs.
 	TelemetryDropped uint64
 	// CutoffsRefused counts cutoff reads outside [0, 1].
@@ -142,6 +149,11 @@ type ClockStats struct {
 //     newest frame ready by then, with the Policy of that tick.
 //   - A frame ready after its tick was decided is late: it becomes the held
 //     frame for later gaps, but is not shown.
+//   - Capture jitter (slot.go): a frame stamped late enough to be nearest
+//     to the tick after the open one, or whose own tick was just decided,
+//     is shown LIVE on the open tick next to it if it is in time there
+//     and newer than everything decided; the display then runs at most one
+//     tick behind the nearest-tick mapping.
 //   - Telemetry waits until the first tick whose deadline it arrived by is
 //     decided, and reaches the filter before that tick's decision. A sample
 //     later than the filter's history window after it was taken is
@@ -164,6 +176,10 @@ type Clock struct {
 	started bool
 	offset  int // tick = grid tick + offset
 	next    int // lowest tick not yet decided
+	// decidedCaptureUs is the time of tick next-1 as decided: the capture
+	// time of the frame shown on it, or its target if it was filled
+	// (slotFor).
+	decidedCaptureUs int64
 
 	readyUs int64 // ready time of the newest frame handed in
 	// decidedUs is the deadline tick next-1 was decided with (the
@@ -263,6 +279,7 @@ func (c *Clock) UseVehicleClock() { c.cfg.VehicleClock = true }
 func (c *Clock) Shift(dUs int64) {
 	if c.started {
 		c.grid.Shift(dUs)
+		c.decidedCaptureUs += dUs
 	}
 	// The last decision's deadline is on the receiver clock, which does
 	// not move.
@@ -277,7 +294,8 @@ func (c *Clock) Shift(dUs int64) {
 
 // Frame hands the Clock a decoded frame captured at captureUs (timeline
 // clock) and ready at readyUs (receiver clock). Its tick is the grid's
-// (Grid.Observe). Ticks whose deadline passed before readyUs, and
+// (Grid.Observe), or the one next to it by the capture-jitter rule
+// (slot.go). Ticks whose deadline passed before readyUs, and
 // earlier ticks whose frame can no longer come, are filled first (through
 // h); then the verdict says whether to show the frame or hold it.
 func (c *Clock) Frame(h Handler, captureUs, readyUs int64) Frame {
@@ -289,7 +307,8 @@ func (c *Clock) Frame(h Handler, captureUs, readyUs int64) Frame {
 }
 
 // FrameAt is Frame for a driver that knows the frame's tick: the frame of
-// recording row k is tick k. The grid still observes the capture time (its
+// recording row k is tick k (the capture-jitter rule applies to it as to a
+// frame of Frame, with k as its nearest tick). The grid still observes the capture time (its
 // period and phase follow the sender); the first frame anchors the tick
 // numbering, and ticks before it are filled (with no picture) when it
 // comes.
@@ -316,9 +335,8 @@ func (c *Clock) frame(h Handler, k int, captureUs, readyUs int64) Frame {
 	// Deadlines that passed before this frame was ready (a frame ready
 	// at its deadline is still in time).
 	c.Advance(h, readyUs)
+	arrival := readyUs
 	if k < c.next {
-		c.stats.Late++
-		arrival := readyUs
 		if d := c.decidedUs; arrival <= d {
 			// Ready by a deadline, but it reached the display after that
 			// tick was filled (the display loop was not scheduled in
@@ -327,6 +345,11 @@ func (c *Clock) frame(h Handler, k int, captureUs, readyUs int64) Frame {
 			arrival = d + 1
 			c.readyUs = arrival
 		}
+	}
+	nearest := k
+	k, show := slotFor(k, c.next, captureUs, c.TargetUs(k), c.decidedCaptureUs, c.next > 0)
+	if !show {
+		c.stats.Late++
 		return Frame{Tick: Tick{K: k, TargetUs: c.TargetUs(k), DeadlineUs: c.DeadlineUs(k), Policy: c.pol}, ArrivalUs: arrival}
 	}
 	// Earlier ticks whose frames can no longer come (frames arrive in
@@ -335,9 +358,12 @@ func (c *Clock) frame(h Handler, k int, captureUs, readyUs int64) Frame {
 		c.missing(h, c.next)
 	}
 	t := c.tick(k)
-	c.next, c.decidedUs = k+1, t.DeadlineUs
+	c.next, c.decidedUs, c.decidedCaptureUs = k+1, t.DeadlineUs, captureUs
 	c.feed(h, t.DeadlineUs)
-	return Frame{Tick: t, Live: true, ArrivalUs: readyUs}
+	if k != nearest {
+		c.stats.MovedOn++
+	}
+	return Frame{Tick: t, Live: true, ArrivalUs: arrival, MovedOn: k != nearest}
 }
 
 // addLatency adds one (ready - capture) sample to the running median and
@@ -382,8 +408,9 @@ func (c *Clock) missing(h Handler, k int) {
 	d := c.DeadlineUs(k)
 	c.feed(h, d)
 	c.stats.Missing++
-	c.next, c.decidedUs = k+1, d
-	h.Missing(c.tickAt(k, d))
+	t := c.tickAt(k, d)
+	c.next, c.decidedUs, c.decidedCaptureUs = k+1, d, t.TargetUs
+	h.Missing(t)
 }
 
 // tick reads the cutoff for tick k and returns its decision context.

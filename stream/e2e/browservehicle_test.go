@@ -481,9 +481,9 @@ func TestAcceptBrowserVehicle(t *testing.T) {
 			fl, ft := ticks(s0, s5)
 			live, total := ticks(s5, s12)
 			allLive, allTotal = allLive+live, allTotal+total
-			t.Logf("session %d: first 5 s %d of %d LIVE (%.1f%%); then %d of %d LIVE (%.2f%%); late frames %d, keyframe requests %d",
+			t.Logf("session %d: first 5 s %d of %d LIVE (%.1f%%); then %d of %d LIVE (%.2f%%); late frames %d, frames moved on %d, keyframe requests %d",
 				i+1, fl, ft, 100*share(fl, ft), live, total, 100*share(live, total),
-				s12.LateFrames-s0.LateFrames, s12.KeyframeRequests-s0.KeyframeRequests)
+				s12.LateFrames-s0.LateFrames, s12.FramesMovedOn-s0.FramesMovedOn, s12.KeyframeRequests-s0.KeyframeRequests)
 			if share(fl, ft) < 0.90 {
 				t.Errorf("session %d: first 5 s %.1f%% LIVE < 90%%", i+1, 100*share(fl, ft))
 			}

@@ -89,6 +89,9 @@ func renderDrive(t testing.TB, dir string, w, h int, durS float64) string {
 }
 
 func quietLogger() *slog.Logger {
+	if os.Getenv("STOPGAP_E2E_LOG") == "debug" {
+		return slog.New(slog.NewTextHandler(os.Stderr, &slog.HandlerOptions{Level: slog.LevelDebug}))
+	}
 	if os.Getenv("STOPGAP_E2E_LOG") != "" {
 		return slog.New(slog.NewTextHandler(os.Stderr, &slog.HandlerOptions{Level: slog.LevelInfo}))
 	}

@@ -73,6 +73,14 @@ type fakeVehicle struct {
 	// mangle, if set, may damage frame i's VP8 data before it is
 	// packetised (it returns the data to send).
 	mangle func(i int, frame []byte) []byte
+	// lateCaptureUs, if set, makes frame i captured (RTP timestamp) and
+	// sent that many µs after its nominal time: a sender's capture jitter.
+	lateCaptureUs func(i int) int64
+	// skip, if set, names frames the sender never captures (no packets,
+	// no gap in the sequence numbers: not a loss).
+	skip func(i int) bool
+	// keyErr, if set, is what RequestKeyframe returns (nothing is sent).
+	keyErr error
 
 	enc  *vp8.Encoder
 	pkz  *rtpvp8.Packetizer
@@ -148,12 +156,18 @@ func (v *fakeVehicle) generate(i int) {
 	if v.mangle != nil {
 		frame = v.mangle(i, append([]byte(nil), frame...))
 	}
-	pk, err := v.pkz.Packetize(nil, frame, rtpTS(i))
+	ts, capUs := rtpTS(i), captureUs(i)
+	if v.lateCaptureUs != nil {
+		d := v.lateCaptureUs(i)
+		ts += uint32(d * 9 / 100)
+		capUs += d
+	}
+	pk, err := v.pkz.Packetize(nil, frame, ts)
 	if err != nil {
 		v.t.Error(err)
 		return
 	}
-	arrival := captureUs(i) + testLatencyUs
+	arrival := capUs + testLatencyUs
 	if v.extraUs != nil {
 		arrival += v.extraUs(i)
 	}
@@ -177,6 +191,10 @@ func (v *fakeVehicle) ReadRTP(ctx context.Context) (*rtp.Packet, time.Time, erro
 			v.end()
 			return nil, time.Time{}, whip.ErrSessionClosed
 		}
+		if v.skip != nil && v.skip(v.next) {
+			v.next++
+			continue
+		}
 		v.mu.Lock()
 		v.delivering = v.next
 		v.mu.Unlock()
@@ -198,6 +216,9 @@ func (v *fakeVehicle) Telemetry() <-chan ingest.TelemetryBytes { return v.tel }
 func (v *fakeVehicle) RequestKeyframe() error {
 	v.mu.Lock()
 	defer v.mu.Unlock()
+	if v.keyErr != nil {
+		return v.keyErr
+	}
 	v.keyReqs = append(v.keyReqs, v.delivering)
 	v.forceKey = true
 	return nil

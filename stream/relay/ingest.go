@@ -48,12 +48,18 @@ type telEvent struct {
 // own goroutine; only the mutex-guarded parts are touched from the expiry timer.
 type frameIngest struct {
 	p   *pipeline
-	mu  sync.Mutex // guards asm, dec, lastKeyReq, anchor state
+	mu  sync.Mutex // guards asm, dec, lastKeyReq, linkBack, anchor state
 	asm *rtpvp8.Assembler
 	dec *vp8.Decoder
 	img vp8.Image
 
-	lastKeyReq  time.Time
+	// lastKeyReq is when the latest keyframe request went out (one refused
+	// by the session's rate limit does not count: nothing was sent).
+	lastKeyReq time.Time
+	// linkBack is set when packets resume after a silence and cleared by
+	// the next decoded frame; meanwhile requests repeat every
+	// linkBackRetry (see runTimers).
+	linkBack    bool
 	lastArrival time.Time // arrival of the latest packet
 	fwd         forwardSender
 	// The capture timeline: RTP timestamp refTS was captured at refUs
@@ -120,6 +126,7 @@ func (in *frameIngest) runRTP(ctx context.Context) error {
 		// keyframe is still the fastest way back; requests sent during the
 		// silence were probably lost with the link. So ask at once.
 		if !in.lastArrival.IsZero() && arrival.Sub(in.lastArrival) >= in.p.cfg.KeyframeRetry {
+			in.linkBack = true
 			in.requestKeyframeLocked(in.p.cfg.Now(), "link back")
 		}
 		in.lastArrival = arrival
@@ -156,9 +163,12 @@ func (in *frameIngest) runTimers(ctx context.Context) {
 			}
 		}
 		in.asm.Expire(now)
-		if in.dec.NeedKeyframe() && now.Sub(in.lastKeyReq) >= in.p.cfg.KeyframeRetry {
+		switch {
+		case in.linkBack && now.Sub(in.lastKeyReq) >= linkBackRetry(in.p.cfg.KeyframeRetry):
+			in.requestKeyframeLocked(now, "link back, repeated")
+		case in.dec.NeedKeyframe() && now.Sub(in.lastKeyReq) >= in.p.cfg.KeyframeRetry:
 			in.requestKeyframeLocked(now, "retry")
-		} else if in.p.r.gate.WantKeyframe() && now.Sub(in.lastKeyReq) >= in.p.cfg.KeyframeRetry {
+		case in.p.r.gate.WantKeyframe() && now.Sub(in.lastKeyReq) >= in.p.cfg.KeyframeRetry:
 			// Pass-through resumes on the vehicle's next keyframe, and a
 			// console viewer can only start on one.
 			in.requestKeyframeLocked(now, "pass-through")
@@ -168,15 +178,32 @@ func (in *frameIngest) runTimers(ctx context.Context) {
 	}
 }
 
-// requestKeyframeLocked sends a PLI now. in.mu is held.
+// linkBackRetry is the keyframe request repeat interval while the link is
+// just back: half the usual retry. The first request after a silence is
+// often lost, because the way back to the sender can return a little later
+// than the way in (the test's network reopens one direction after the
+// other; radio links do too), and waiting the full retry interval for the
+// second one delayed the first LIVE tick after a 3 s outage by about
+// 200 ms. The session's own rate limit (whip.Config.MinKeyframeInterval,
+// 100 ms by default) still applies.
+func linkBackRetry(retry time.Duration) time.Duration { return retry / 2 }
+
+// requestKeyframeLocked sends a PLI now. in.mu is held. A request refused
+// by the session's rate limit leaves lastKeyReq alone: the retry interval
+// counts from the last PLI that went out, so a refusal never postpones the
+// next attempt.
 func (in *frameIngest) requestKeyframeLocked(now time.Time, why string) {
-	in.lastKeyReq = now
 	if err := in.p.sess.RequestKeyframe(); err != nil {
 		in.p.r.met.keyframeRequestsFailed.Add(1)
 		in.p.log.Debug("keyframe request not sent", "why", why, "err", err)
+		if !errors.Is(err, whip.ErrKeyframeRateLimited) {
+			in.lastKeyReq = now
+		}
 		return
 	}
+	in.lastKeyReq = now
 	in.p.r.met.keyframeRequests.Add(1)
+	in.p.log.Debug("keyframe requested", "why", why)
 }
 
 // onLoss is called by the assembler (in.mu held).
@@ -214,6 +241,7 @@ func (in *frameIngest) onFrame(f rtpvp8.Frame) {
 		}
 		return
 	}
+	in.linkBack = false
 	if in.img.Width != p.cfg.Camera.Width || in.img.Height != p.cfg.Camera.Height {
 		p.r.met.decodeErrors.Add(1)
 		p.log.Warn("decoded picture size differs from the camera; check camera.json", "width", in.img.Width, "height", in.img.Height, "err", ErrFrameSize)

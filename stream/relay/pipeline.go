@@ -327,11 +327,19 @@ func (p *pipeline) onFrame(ev frameEvent) {
 		if err := p.filler.Hold(*ev.mat, ev.captureUs); err != nil {
 			p.log.Warn("holding a late frame failed", "err", err)
 		}
+		p.log.Debug("late frame held, not shown", "tick", k, "late_us", ev.readyUs-v.Tick.DeadlineUs,
+			"last_packet_late_us", ev.lastPktUs-v.Tick.DeadlineUs, "decode_us", ev.decodeDur.Microseconds(),
+			"off_grid_us", ev.captureUs-v.Tick.TargetUs)
 		if v.ArrivalUs != ev.readyUs {
 			p.log.Debug("frame decoded in time reached the display after its tick was filled", "tick", k, "moved_us", v.ArrivalUs-ev.readyUs)
 		}
 		p.record(func(rc *recorder) { rc.frame(p.recIndex(k), ev.captureUs, v.ArrivalUs, ev.rtpTS, *ev.mat) })
 		return
+	}
+	if v.MovedOn {
+		// The capture-jitter rule (stream/cadence/slot.go).
+		p.r.met.framesMovedOn.Add(1)
+		p.log.Debug("frame shown on the open tick next to its own", "shown_on", k, "ready_before_deadline_us", v.Tick.DeadlineUs-ev.readyUs)
 	}
 	tick, err := p.filler.Live(*ev.mat, ev.captureUs, &p.out)
 	if err != nil {
@@ -372,6 +380,9 @@ func (p *pipeline) Missing(t cadence.Tick) {
 	if err := p.filler.SetPolicy(t.Policy); err != nil {
 		// The clock hands only valid cutoffs; keep the check honest.
 		p.log.Warn("tick policy refused", "tick", t.K, "err", err)
+	}
+	if p.log.Enabled(context.Background(), slog.LevelDebug) {
+		p.log.Debug("tick filled without a frame", "tick", t.K, "after_deadline_us", p.cfg.Now().UnixMicro()-t.DeadlineUs)
 	}
 	tick, err := p.filler.MissingWith(predictor.MethodGround, t.TargetUs, &p.out)
 	switch {

@@ -44,6 +44,9 @@ type Stats struct {
 	// shown); FramesDropped frames dropped because the display loop was
 	// behind.
 	LateFrames, FramesDropped uint64
+	// FramesMovedOn counts frames shown on the first open tick because
+	// their own tick was already handled (see the rule in slot.go).
+	FramesMovedOn uint64
 	// TelemetryIn counts samples accepted by the filter; TelemetryRejected
 	// those rejected by the decoder, the filter or a full queue.
 	TelemetryIn, TelemetryRejected uint64
@@ -206,7 +209,7 @@ func (r *Relay) Stats() Stats {
 		TicksLive: m.ticksLive.Load(), TicksPredicted: m.ticksPredicted.Load(), TicksStale: m.ticksStale.Load(),
 		Losses: m.losses.Load(), KeyframeRequests: m.keyframeRequests.Load(),
 		State: predictor.State(m.stateNow.Load()), PictureAgeMs: float64(m.pictureAge.Load()) / 1000,
-		LateFrames: m.lateFrames.Load(), FramesDropped: m.framesDropped.Load(),
+		LateFrames: m.lateFrames.Load(), FramesDropped: m.framesDropped.Load(), FramesMovedOn: m.framesMovedOn.Load(),
 		TelemetryIn: m.telemetryIn.Load(), TelemetryRejected: m.telemetryRejected.total(),
 		RecordErrors: m.recordErrors.Load(),
 		LatencyMs:    float64(lat) / 1000, LatencyKnown: known,
