@@ -58,10 +58,12 @@ type Server struct {
 	closed   bool
 	sessions map[string]*Session
 	pending  int // slots held by POSTs still building their PeerConnection
-	accepted uint64
-	ended    uint64
-	rejected [numRejectReasons]uint64
-	ownMux   io.Closer // the UDP mux opened for Network.UDPPort, closed by Close
+	// pendingFrom counts those slots per remote host (at most one each).
+	pendingFrom map[string]int
+	accepted    uint64
+	ended       uint64
+	rejected    [numRejectReasons]uint64
+	ownMux      io.Closer // the UDP mux opened for Network.UDPPort, closed by Close
 }
 
 // NewServer validates cfg, applies defaults and returns a Server. It returns ErrNoToken without a token.
@@ -287,6 +289,11 @@ func (s *Server) handleOffer(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	sess, err := s.reserve(r.RemoteAddr, host)
+	if errors.Is(err, errOfferInProgress) {
+		retryAfter(w, time.Second)
+		s.reject(w, r, RejectRateLimited, http.StatusTooManyRequests, err.Error())
+		return
+	}
 	if err != nil {
 		retryAfter(w, s.cfg.ICETimeout)
 		s.reject(w, r, RejectTooManySessions, http.StatusServiceUnavailable, err.Error())
@@ -338,12 +345,17 @@ func newID() (string, error) {
 	return hex.EncodeToString(b[:]), nil
 }
 
+// errOfferInProgress refuses an offer from an address whose earlier offer is still being answered.
+var errOfferInProgress = errors.New("an offer from this address is still being answered; retry later")
+
 // reserve creates a session with its PeerConnection and registers it, or fails when the server is full or
 // closed. A slot is held (pending) while the PeerConnection is built, so concurrent POSTs cannot overshoot
 // MaxSessions, and only complete sessions are ever visible in the map.
 //
 // Each remote address (host) holds at most one half-open session: a new offer from an address whose
-// earlier session has not connected yet replaces that session (EndSuperseded). A vehicle that retries
+// earlier session has not connected yet replaces that session (EndSuperseded), and an offer from an
+// address whose earlier offer is still being answered (its PeerConnection being built) is refused with
+// errOfferInProgress, so concurrent POSTs from one address cannot hold more than one slot either. A vehicle that retries
 // loses nothing, since its earlier attempt is dead to it anyway; a flood of offers that never connect
 // pins one slot per address instead of all of them, so a real vehicle from another address still gets
 // in (see the package documentation on floods).
@@ -357,7 +369,9 @@ func (s *Server) reserve(remote, host string) (*Session, error) {
 		s.mu.Unlock()
 		return nil, ErrServerClosed
 	}
-	if old := s.halfOpenFrom(host); old != nil {
+	// Again after each one ended: while s.mu was released, another offer
+	// from the same address may have registered its own.
+	for old := s.halfOpenFrom(host); old != nil; old = s.halfOpenFrom(host) {
 		s.mu.Unlock()
 		old.endIf(EndSuperseded, true)
 		s.mu.Lock()
@@ -366,11 +380,19 @@ func (s *Server) reserve(remote, host string) (*Session, error) {
 			return nil, ErrServerClosed
 		}
 	}
+	if s.pendingFrom[host] > 0 {
+		s.mu.Unlock()
+		return nil, errOfferInProgress
+	}
 	if len(s.sessions)+s.pending >= s.cfg.MaxSessions {
 		s.mu.Unlock()
 		return nil, fmt.Errorf("server busy: %d sessions (the maximum); retry later", s.cfg.MaxSessions)
 	}
 	s.pending++
+	if s.pendingFrom == nil {
+		s.pendingFrom = make(map[string]int)
+	}
+	s.pendingFrom[host]++
 	s.mu.Unlock()
 
 	sess := &Session{
@@ -385,6 +407,9 @@ func (s *Server) reserve(remote, host string) (*Session, error) {
 	pc, err := s.newPeerConnection(sess.counter, sess.repair)
 	s.mu.Lock()
 	s.pending--
+	if s.pendingFrom[host]--; s.pendingFrom[host] <= 0 {
+		delete(s.pendingFrom, host)
+	}
 	if err == nil && s.closed {
 		err = ErrServerClosed
 	}
