@@ -163,7 +163,13 @@ func (in *frameIngest) runTimers(ctx context.Context) {
 			}
 		}
 		in.asm.Expire(now)
+		// During a silence the periodic requests would be lost with the
+		// link, and each would use up the session's rate limit
+		// (whip.Config.MinKeyframeInterval) that the request made on the
+		// first packet after it needs: none is sent until packets resume.
+		silent := !in.lastArrival.IsZero() && now.Sub(in.lastArrival) >= in.p.cfg.KeyframeRetry
 		switch {
+		case silent:
 		case in.linkBack && now.Sub(in.lastKeyReq) >= linkBackRetry(in.p.cfg.KeyframeRetry):
 			in.requestKeyframeLocked(now, "link back, repeated")
 		case in.dec.NeedKeyframe() && now.Sub(in.lastKeyReq) >= in.p.cfg.KeyframeRetry:
