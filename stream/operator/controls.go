@@ -429,12 +429,6 @@ type ControlsChannel struct {
 // tracks.
 const MaxControlOperators = 64
 
-// ControlsHandler returns a ControlsChannel with token, log w and clock now
-// that accepts any operator name.
-func ControlsHandler(token string, w *ControlsWriter, now func() time.Time) *ControlsChannel {
-	return &ControlsChannel{Token: token, Log: w, Now: now}
-}
-
 // Counts returns the counts so far.
 func (ch *ControlsChannel) Counts() ControlCounts {
 	ch.mu.Lock()

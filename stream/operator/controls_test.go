@@ -21,7 +21,7 @@ func TestControlsEndpointRecords(t *testing.T) {
 		t.Fatal(err)
 	}
 	clock := time.UnixMicro(1_700_000_000_000_000)
-	h := ControlsHandler(testToken, w, func() time.Time { clock = clock.Add(time.Millisecond); return clock })
+	h := &ControlsChannel{Token: testToken, Log: w, Now: func() time.Time { clock = clock.Add(time.Millisecond); return clock }}
 	post := func(token, ctype, body string) (int, string) {
 		req := httptest.NewRequest("POST", "/api/controls", strings.NewReader(body))
 		req.Header.Set("Authorization", "Bearer "+token)
