@@ -6,7 +6,7 @@ import (
 	"testing"
 
 	"stopgap/bench/simdrive"
-	"stopgap/lossmodel"
+	"stopgap/internal/lossmodel"
 	"stopgap/predictor"
 )
 

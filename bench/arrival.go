@@ -1,6 +1,6 @@
 package bench
 
-import "stopgap/lossmodel"
+import "stopgap/internal/lossmodel"
 
 // NeverArrivesUs is the arrival time of a lost frame in a Schedule: the
 // simulated link's lossmodel.NeverArrivesUs, so that simulated and recorded

@@ -14,7 +14,7 @@ import (
 	"gonum.org/v1/plot/vg"
 	"gonum.org/v1/plot/vg/draw"
 
-	"stopgap/vocab"
+	"stopgap/internal/vocab"
 )
 
 // Files of the calibration figures in a replay report and of a tune report.

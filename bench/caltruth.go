@@ -8,7 +8,7 @@ import (
 	"sort"
 
 	"stopgap/filter"
-	"stopgap/lossmodel"
+	"stopgap/internal/lossmodel"
 	"stopgap/predictor"
 	"stopgap/stream/recording"
 )

@@ -6,7 +6,7 @@ import (
 	"path/filepath"
 	"testing"
 
-	"stopgap/lossmodel"
+	"stopgap/internal/lossmodel"
 )
 
 // TestCalibrateTruthDrives prints the calibration over the drives named in

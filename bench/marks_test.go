@@ -12,7 +12,7 @@ import (
 	"gocv.io/x/gocv"
 
 	"stopgap/bench/simdrive"
-	"stopgap/lossmodel"
+	"stopgap/internal/lossmodel"
 	"stopgap/predictor"
 )
 

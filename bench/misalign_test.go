@@ -13,7 +13,7 @@ import (
 
 	"gocv.io/x/gocv"
 
-	"stopgap/lossmodel"
+	"stopgap/internal/lossmodel"
 	"stopgap/predictor"
 )
 

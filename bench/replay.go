@@ -15,7 +15,7 @@ import (
 	"gocv.io/x/gocv"
 
 	"stopgap/filter"
-	"stopgap/lossmodel"
+	"stopgap/internal/lossmodel"
 	"stopgap/predictor"
 	"stopgap/stream/cadence"
 	"stopgap/stream/recording"

@@ -13,7 +13,7 @@ import (
 	"time"
 
 	"stopgap/bench/simdrive"
-	"stopgap/lossmodel"
+	"stopgap/internal/lossmodel"
 	"stopgap/predictor"
 	"stopgap/stream/recording"
 )

@@ -10,7 +10,7 @@ import (
 
 	"gocv.io/x/gocv"
 
-	"stopgap/vocab"
+	"stopgap/internal/vocab"
 )
 
 // exampleFig is one image of an example block in the HTML page.

@@ -7,7 +7,7 @@ import (
 	"math"
 	"strconv"
 
-	"stopgap/vocab"
+	"stopgap/internal/vocab"
 )
 
 // newReportTemplate parses the page template (per call, so that the

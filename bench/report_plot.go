@@ -13,7 +13,7 @@ import (
 	"gonum.org/v1/plot/vg"
 	"gonum.org/v1/plot/vg/draw"
 
-	"stopgap/vocab"
+	"stopgap/internal/vocab"
 )
 
 // methodColor gives each method a fixed plot colour.

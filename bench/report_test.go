@@ -19,8 +19,8 @@ import (
 
 	"gocv.io/x/gocv"
 
-	"stopgap/lossmodel"
-	"stopgap/vocab"
+	"stopgap/internal/lossmodel"
+	"stopgap/internal/vocab"
 )
 
 // generatedTicks makes a deterministic replay-like sequence: ten LIVE

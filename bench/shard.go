@@ -13,7 +13,7 @@ import (
 	"strings"
 
 	"stopgap/filter"
-	"stopgap/lossmodel"
+	"stopgap/internal/lossmodel"
 	"stopgap/predictor"
 )
 

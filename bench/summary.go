@@ -5,8 +5,8 @@ import (
 	"math"
 	"strconv"
 
-	"stopgap/display"
-	"stopgap/lossmodel"
+	"stopgap/internal/display"
+	"stopgap/internal/lossmodel"
 )
 
 // Method is a way of filling a display tick whose real frame is missing.

@@ -5,7 +5,7 @@ import (
 	"fmt"
 	"math"
 
-	"stopgap/display"
+	"stopgap/internal/display"
 )
 
 // TickRow is one display tick of a replay, one line of ticks.csv. Use

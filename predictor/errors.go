@@ -4,7 +4,7 @@ import (
 	"errors"
 	"fmt"
 
-	"stopgap/display"
+	"stopgap/internal/display"
 )
 
 // Sentinel errors. Every error returned by this package wraps one of them, so

@@ -10,7 +10,7 @@ import (
 
 	"gocv.io/x/gocv"
 
-	"stopgap/vocab"
+	"stopgap/internal/vocab"
 )
 
 // Label look. Our own choice of colours and pattern:

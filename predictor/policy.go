@@ -3,7 +3,7 @@ package predictor
 import (
 	"fmt"
 
-	"stopgap/display"
+	"stopgap/internal/display"
 )
 
 // State says what a displayed frame is: the display package's type, named

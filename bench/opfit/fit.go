@@ -7,7 +7,7 @@ import (
 	"sort"
 	"strings"
 
-	"stopgap/display"
+	"stopgap/internal/display"
 )
 
 // Shown is what the console showed on a display tick: the one frame-state

@@ -11,7 +11,7 @@ import (
 	"strconv"
 	"strings"
 
-	"stopgap/display"
+	"stopgap/internal/display"
 	"stopgap/stream/operator"
 	"stopgap/stream/recording"
 	"stopgap/stream/relay"

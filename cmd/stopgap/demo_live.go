@@ -9,7 +9,7 @@ import (
 	"strings"
 	"time"
 
-	"stopgap/lossmodel"
+	"stopgap/internal/lossmodel"
 	"stopgap/stream/livedemo"
 	"stopgap/stream/simvehicle"
 )

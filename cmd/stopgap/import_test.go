@@ -13,7 +13,7 @@ import (
 	"stopgap/bench"
 	"stopgap/bench/simdrive"
 	"stopgap/filter"
-	"stopgap/lossmodel"
+	"stopgap/internal/lossmodel"
 	"stopgap/predictor"
 	"stopgap/stream/recording"
 	"stopgap/stream/ros2"

@@ -28,7 +28,7 @@ import (
 	"os/signal"
 	"syscall"
 
-	"stopgap/vocab"
+	"stopgap/internal/vocab"
 )
 
 // safetyCaution is printed by every command that shows or scores predicted

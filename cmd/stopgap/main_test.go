@@ -8,7 +8,7 @@ import (
 	"strings"
 	"testing"
 
-	"stopgap/vocab"
+	"stopgap/internal/vocab"
 )
 
 // TestRunExitCodes: usage mistakes exit 2, failures 1 with a message that

@@ -14,8 +14,8 @@ import (
 	"strings"
 	"testing"
 
+	"stopgap/internal/vocab"
 	"stopgap/predictor"
-	"stopgap/vocab"
 )
 
 // root is the module root, two levels above this file.

@@ -25,7 +25,7 @@ var rules = []struct {
 	{"predictor", []string{"stopgap/stream/"}, "data flows from stream into predictor, never back"},
 	{"stream/simvehicle", []string{"stopgap/bench"}, "the simulated vehicle uses the link model (lossmodel), not the evaluation package"},
 	{"stream/rtpudp", []string{"stopgap/stream/whip"}, "the plain RTP ingest implements ingest.Session; it does not borrow from the WebRTC ingest"},
-	{"lossmodel", []string{"stopgap/bench", "stopgap/predictor", "stopgap/stream/"}, "the link model is small and cgo-free"},
+	{"internal/lossmodel", []string{"stopgap/bench", "stopgap/predictor", "stopgap/stream/"}, "the link model is small and cgo-free"},
 	{"stream/ingest", []string{"stopgap/stream/whip", "stopgap/stream/rtpudp", "stopgap/stream/relay"}, "the ingest interface is neutral"},
 	{"filter", []string{"stopgap/predictor", "stopgap/bench", "stopgap/stream/"}, "the filter sits between stream and predictor"},
 }

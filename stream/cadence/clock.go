@@ -4,8 +4,8 @@ import (
 	"errors"
 	"fmt"
 
-	"stopgap/display"
 	"stopgap/filter"
+	"stopgap/internal/display"
 )
 
 // LatencyFrames is how many frames of a session the latency estimate takes

@@ -6,8 +6,8 @@ import (
 	"strings"
 	"testing"
 
-	"stopgap/display"
 	"stopgap/filter"
+	"stopgap/internal/display"
 )
 
 // logHandler records the Clock's instructions as text, in order.

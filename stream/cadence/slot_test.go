@@ -5,7 +5,7 @@ import (
 	"strings"
 	"testing"
 
-	"stopgap/display"
+	"stopgap/internal/display"
 )
 
 // slotOp is one step of a capture-jitter scenario: a frame (Frame, or

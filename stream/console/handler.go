@@ -11,7 +11,7 @@ import (
 	"strconv"
 	"strings"
 
-	"stopgap/vocab"
+	"stopgap/internal/vocab"
 )
 
 //go:embed web/index.html web/console.js web/console.css

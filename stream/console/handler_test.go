@@ -9,7 +9,7 @@ import (
 	"strings"
 	"testing"
 
-	"stopgap/vocab"
+	"stopgap/internal/vocab"
 )
 
 const testToken = "test-token-0123456789abcdef"

@@ -11,7 +11,7 @@ import (
 	"time"
 
 	"stopgap/bench"
-	"stopgap/display"
+	"stopgap/internal/display"
 	"stopgap/predictor"
 	"stopgap/stream/console/consoletest"
 	"stopgap/stream/recording"

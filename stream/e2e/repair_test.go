@@ -5,7 +5,7 @@ import (
 	"testing"
 	"time"
 
-	"stopgap/lossmodel"
+	"stopgap/internal/lossmodel"
 	"stopgap/stream/simvehicle"
 )
 

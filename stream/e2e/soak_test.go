@@ -11,7 +11,7 @@ import (
 	"testing"
 	"time"
 
-	"stopgap/lossmodel"
+	"stopgap/internal/lossmodel"
 	"stopgap/stream/simvehicle"
 )
 

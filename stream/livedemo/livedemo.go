@@ -19,14 +19,14 @@ import (
 	"time"
 
 	"stopgap/bench/simdrive"
-	"stopgap/lossmodel"
+	"stopgap/internal/lossmodel"
+	"stopgap/internal/vocab"
 	"stopgap/predictor"
 	"stopgap/stream/console"
 	"stopgap/stream/recording"
 	"stopgap/stream/relay"
 	"stopgap/stream/simvehicle"
 	"stopgap/stream/whip"
-	"stopgap/vocab"
 )
 
 // OnboardDir is where, inside the Record directory, the simulated vehicle

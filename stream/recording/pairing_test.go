@@ -8,7 +8,7 @@ import (
 	"strings"
 	"testing"
 
-	"stopgap/display"
+	"stopgap/internal/display"
 )
 
 // frameUs is the capture time of frame n of a 30 fps camera that powered on

@@ -4,7 +4,7 @@ import (
 	"fmt"
 	"os"
 
-	"stopgap/display"
+	"stopgap/internal/display"
 )
 
 // The two per-tick tables. Their names live here, beside the recording's

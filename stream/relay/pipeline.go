@@ -12,8 +12,8 @@ import (
 
 	"gocv.io/x/gocv"
 
-	"stopgap/display"
 	"stopgap/filter"
+	"stopgap/internal/display"
 	"stopgap/predictor"
 	"stopgap/stream/cadence"
 	"stopgap/stream/console"

@@ -12,7 +12,7 @@ import (
 
 	"gocv.io/x/gocv"
 
-	"stopgap/display"
+	"stopgap/internal/display"
 	"stopgap/stream/recording"
 )
 

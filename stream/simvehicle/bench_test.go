@@ -6,7 +6,7 @@ import (
 
 	"github.com/pion/rtp"
 
-	"stopgap/lossmodel"
+	"stopgap/internal/lossmodel"
 )
 
 // BenchmarkLinkKeep measures the wire filter's per-packet cost (it runs on

@@ -4,7 +4,7 @@ import (
 	"fmt"
 	"time"
 
-	"stopgap/lossmodel"
+	"stopgap/internal/lossmodel"
 	"stopgap/stream/simvehicle"
 )
 

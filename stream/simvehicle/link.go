@@ -13,7 +13,7 @@ import (
 
 	"github.com/pion/rtp"
 
-	"stopgap/lossmodel"
+	"stopgap/internal/lossmodel"
 	"stopgap/stream/whip"
 )
 

@@ -10,7 +10,7 @@ import (
 
 	"github.com/pion/rtp"
 
-	"stopgap/lossmodel"
+	"stopgap/internal/lossmodel"
 )
 
 func TestParseOutage(t *testing.T) {

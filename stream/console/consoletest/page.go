@@ -4,7 +4,7 @@ import (
 	"fmt"
 	"strings"
 
-	"stopgap/vocab"
+	"stopgap/internal/vocab"
 )
 
 // Box is an element's layout box in CSS pixels, with its computed
