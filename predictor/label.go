@@ -6,6 +6,7 @@ import (
 	"image/color"
 	"math"
 	"strconv"
+	"strings"
 	"unsafe"
 
 	"gocv.io/x/gocv"
@@ -22,7 +23,8 @@ import (
 //   - STALE: the image is desaturated and dimmed to half brightness (done by
 //     the Filler), a solid red border, and a red box in the middle with white
 //     text "STALE - NOT LIVE" over "picture age <age> ms".
-//   - No picture yet: dark grey frame, red border, "NO PICTURE YET".
+//   - No picture yet: dark grey frame, red border, "NO PICTURE YET"
+//     (vocab.NoPicture in upper case).
 //
 // The border is BorderPx(height) wide: 1/40 of the image height, at least 3
 // px (18 px at 720p). The colour values below are read-only.
@@ -34,6 +36,9 @@ var (
 	red        = color.RGBA{R: 220, A: 255}
 	white      = color.RGBA{R: 255, G: 255, B: 255, A: 255}
 )
+
+// noPictureText is the line of a NO_PICTURE frame, made once.
+var noPictureText = strings.ToUpper(vocab.NoPicture)
 
 // BorderPx returns the label border width for an image of the given height.
 func BorderPx(height int) int {
@@ -163,7 +168,7 @@ func (l *Labeler) DrawNoPicture(img *gocv.Mat) (float64, error) {
 	}
 	img.SetTo(gocv.NewScalar(48, 48, 48, 0))
 	l.solidBorder(img, red)
-	covered := l.borderArea() + l.box(img, true, red, white, "NO PICTURE YET", "")
+	covered := l.borderArea() + l.box(img, true, red, white, noPictureText, "")
 	return float64(covered) / float64(l.w*l.h), nil
 }
 

@@ -56,6 +56,29 @@ func (s State) String() string {
 // stopgap rather than a real frame as it arrived (everything but LIVE).
 func (s State) Synthetic() bool { return s != StateLive }
 
+// Valid reports whether s is one of States.
+func (s State) Valid() bool { return s >= StateLive && s <= StateNotShown }
+
+// MarshalText returns s.String(), the wire form in JSON and text formats; it
+// fails for an invalid state, wrapping ErrInvalidState.
+func (s State) MarshalText() ([]byte, error) {
+	if !s.Valid() {
+		return nil, fmt.Errorf("state %d: only LIVE, PREDICTED, STALE, NO_PICTURE and NOT_SHOWN are written: %w", int(s), ErrInvalidState)
+	}
+	return []byte(s.String()), nil
+}
+
+// UnmarshalText parses the wire form with ParseState; on error *s is left
+// unchanged.
+func (s *State) UnmarshalText(b []byte) error {
+	v, err := ParseState(string(b))
+	if err != nil {
+		return err
+	}
+	*s = v
+	return nil
+}
+
 // ParseState is the inverse of State.String for valid states.
 func ParseState(s string) (State, error) {
 	for _, st := range States {

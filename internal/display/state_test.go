@@ -54,3 +54,33 @@ func TestPolicyDecide(t *testing.T) {
 		}
 	}
 }
+
+// TestStateText: the text form (JSON, CSV) is String's, both ways, and an
+// invalid state is neither written nor read.
+func TestStateText(t *testing.T) {
+	for _, st := range States {
+		if !st.Valid() {
+			t.Errorf("%v not Valid", st)
+		}
+		b, err := st.MarshalText()
+		if err != nil || string(b) != st.String() {
+			t.Errorf("%v.MarshalText() = %q, %v; want %q", st, b, err, st.String())
+		}
+		var got State
+		if err := got.UnmarshalText(b); err != nil || got != st {
+			t.Errorf("UnmarshalText(%q) = %v, %v; want %v", b, got, err, st)
+		}
+	}
+	for _, bad := range []State{StateInvalid, StateNotShown + 1, -1} {
+		if bad.Valid() {
+			t.Errorf("State(%d) Valid", int(bad))
+		}
+		if b, err := bad.MarshalText(); !errors.Is(err, ErrInvalidState) || b != nil {
+			t.Errorf("State(%d).MarshalText() = %q, %v; want ErrInvalidState", int(bad), b, err)
+		}
+	}
+	keep := StateStale
+	if err := keep.UnmarshalText([]byte("NO PICTURE")); !errors.Is(err, ErrInvalidState) || keep != StateStale {
+		t.Errorf("UnmarshalText of a bad name: %v, %v; want ErrInvalidState and the state unchanged", keep, err)
+	}
+}

@@ -14,8 +14,8 @@ import (
 	"strings"
 	"testing"
 
+	"stopgap/internal/display"
 	"stopgap/internal/vocab"
-	"stopgap/predictor"
 )
 
 // root is the module root, two levels above this file.
@@ -153,13 +153,13 @@ func TestGuideCommandsExist(t *testing.T) {
 }
 
 // TestStateNamesOneSource: the names of the frame states are the String
-// values of predictor.State, and every surface spells them that way: the
-// console script's list of states and its styles, the README and the
-// replay report's template.
+// values of display.State, and every surface spells them that way: the
+// console script's list of states (all of display.States, in their order)
+// and a style for each, the README, and the replay report's template for
+// the states a replay shows (LIVE, PREDICTED, STALE).
 func TestStateNamesOneSource(t *testing.T) {
-	states := []predictor.State{predictor.StateLive, predictor.StatePredicted, predictor.StateStale}
 	var quoted []string
-	for _, s := range states {
+	for _, s := range display.States {
 		quoted = append(quoted, `"`+s.String()+`"`)
 	}
 	js := read(t, "stream/console/web/console.js")
@@ -168,8 +168,7 @@ func TestStateNamesOneSource(t *testing.T) {
 	}
 	css := read(t, "stream/console/web/console.css")
 	readme := read(t, "README.md")
-	report := read(t, "bench/report_html.go")
-	for _, s := range states {
+	for _, s := range display.States {
 		name := s.String()
 		if !strings.Contains(css, `body[data-state="`+name+`"]`) {
 			t.Errorf("console.css has no style for %s", name)
@@ -177,9 +176,23 @@ func TestStateNamesOneSource(t *testing.T) {
 		if !strings.Contains(readme, name) {
 			t.Errorf("README.md never names the state %s", name)
 		}
-		if !strings.Contains(report, name) {
-			t.Errorf("the report template never names the state %s", name)
+	}
+	report := read(t, "bench/report_html.go")
+	for _, s := range []display.State{display.StateLive, display.StatePredicted, display.StateStale} {
+		if !strings.Contains(report, s.String()) {
+			t.Errorf("the report template never names the state %s", s)
 		}
+	}
+}
+
+// TestConsoleNoPictureWords: the console says vocab.NoPicture for a tick
+// with no picture, in the same words the frame carries in its pixels.
+func TestConsoleNoPictureWords(t *testing.T) {
+	if js := read(t, "stream/console/web/console.js"); !strings.Contains(js, `const NO_PICTURE = "`+vocab.NoPicture+`";`) {
+		t.Errorf("console.js does not take the words for NO_PICTURE from vocab.NoPicture (%q)", vocab.NoPicture)
+	}
+	if label := read(t, "predictor/label.go"); !strings.Contains(label, "strings.ToUpper(vocab.NoPicture)") {
+		t.Errorf("predictor/label.go does not draw vocab.NoPicture on a NO_PICTURE frame")
 	}
 }
 

@@ -1,11 +1,13 @@
 // Package vocab holds the words every surface of stopgap shares: the
-// safety caution, the name and unit of the frame age, and the short line
-// the predicted frame carries about moving objects. The console, the
+// safety caution, the name and unit of the frame age, the short line the
+// predicted frame carries about moving objects, and the words of a tick
+// with no picture (NoPicture). The console, the
 // replay and tune reports, the terminal and the README take them from
 // here (the README's copy is checked by a test), so they cannot drift
 // apart. It imports nothing and needs no cgo.
 //
-// The names of the frame states (LIVE, PREDICTED, STALE) are not here:
+// The names of the frame states (LIVE, PREDICTED, STALE, NO_PICTURE,
+// NOT_SHOWN) are not here:
 // their one source is the frame-state type's String method.
 package vocab
 
@@ -41,6 +43,11 @@ const AgeUnit = "ms"
 // MovingNotShown is the line a predicted frame carries in its pixels:
 // the warp moves the static scene only.
 const MovingNotShown = "moving objects not shown"
+
+// NoPicture says what a NO_PICTURE tick shows: no real frame has arrived in
+// the session yet, so there is no picture and no picture age. The frame
+// carries it in its pixels (upper case) and the console in its banner.
+const NoPicture = "no picture yet"
 
 // AppendAge appends "picture age <ms> ms" to dst, the age rounded to whole
 // milliseconds, and returns the extended slice. It allocates nothing when

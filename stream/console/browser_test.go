@@ -18,6 +18,8 @@ import (
 	"testing"
 	"time"
 
+	"stopgap/internal/display"
+	"stopgap/internal/vocab"
 	"stopgap/stream/console"
 	"stopgap/stream/console/consoletest"
 )
@@ -54,7 +56,7 @@ func readIVF(path string) ([][]byte, error) {
 type pump struct {
 	c       *console.Console
 	frames  [][]byte
-	state   atomic.Int32 // console.State
+	state   atomic.Int32 // display.State
 	video   atomic.Bool
 	meta    atomic.Bool
 	silent  atomic.Bool // the link reports no packets for 1200 ms
@@ -70,7 +72,7 @@ func (p *pump) run() {
 	tk := time.NewTicker(period)
 	defer tk.Stop()
 	idx, seq := 0, uint64(0)
-	lastState, ticksInState := console.StateInvalid, 0
+	lastState, ticksInState := display.StateInvalid, 0
 	for {
 		select {
 		case <-p.stop:
@@ -86,17 +88,19 @@ func (p *pump) run() {
 			}
 			idx = (idx + 1) % len(p.frames)
 		}
-		st := console.State(p.state.Load())
+		st := display.State(p.state.Load())
 		if st != lastState {
 			lastState, ticksInState = st, 0
 		}
 		ticksInState++
 		age, conf, why := 35.0, 1.0, ""
 		switch st {
-		case console.StatePredicted:
+		case display.StatePredicted:
 			age, conf = 100+33.3*float64(ticksInState), 0.82
-		case console.StateStale:
+		case display.StateStale:
 			age, conf, why = 600+33.3*float64(ticksInState), 0.31, "low-confidence"
+		case display.StateNoPicture, display.StateNotShown:
+			age, conf = 0, 0 // no picture on screen from this tick: no age (Meta.Validate)
 		}
 		seq++
 		if p.meta.Load() {
@@ -116,8 +120,9 @@ func (p *pump) run() {
 }
 
 // TestBrowserConsole drives the real page in headless Chromium over
-// WebRTC on loopback: state sequence, banners, caution, silence and frozen
-// picture detection, cutoff limits, screenshots.
+// WebRTC on loopback: state sequence (NO_PICTURE first, as a session
+// starts), banners, caution, no picture age without a picture, silence and
+// frozen picture detection, cutoff limits, screenshots.
 func TestBrowserConsole(t *testing.T) {
 	exe := consoletest.RequireChromium(t)
 	frames, err := readIVF("testdata/drive320.ivf")
@@ -183,7 +188,7 @@ func TestBrowserConsole(t *testing.T) {
 		}
 	}
 
-	p.state.Store(int32(console.StateLive))
+	p.state.Store(int32(display.StateNoPicture))
 	p.video.Store(true)
 	p.meta.Store(true)
 	go p.run()
@@ -196,6 +201,33 @@ func TestBrowserConsole(t *testing.T) {
 		t.Errorf("token still in the address bar: %s", href)
 	}
 	must(b.WaitAttr("data-conn", "connected", 10*time.Second))
+
+	// Before the first real frame: NO_PICTURE, in its own words, and no
+	// picture age anywhere (the relay sends age 0, which must not read as
+	// a fresh picture).
+	must(b.WaitState("NO_PICTURE", 5*time.Second))
+	must(b.CheckCautionVisible())
+	var np struct{ Banner, Age, Overlay, OverlayDisplay string }
+	must(b.Eval(`({Banner: document.getElementById("banner").innerText.replace(/\s+/g, " ").trim(),
+		Age: document.getElementById("v-age").textContent,
+		Overlay: document.getElementById("overlay").innerText,
+		OverlayDisplay: getComputedStyle(document.getElementById("overlay")).display})`, &np))
+	if np.Banner != "NO_PICTURE — "+vocab.NoPicture+": the vehicle has sent no real frame in this session" {
+		t.Errorf("NO_PICTURE banner %q", np.Banner)
+	}
+	if np.Age != "none, "+vocab.NoPicture {
+		t.Errorf("NO_PICTURE picture age shown as %q", np.Age)
+	}
+	if np.OverlayDisplay == "none" || np.Overlay != strings.ToUpper(vocab.NoPicture) {
+		t.Errorf("NO_PICTURE overlay %q (display %s), want %q over the picture", np.Overlay, np.OverlayDisplay, strings.ToUpper(vocab.NoPicture))
+	}
+	if ageRe := regexp.MustCompile(`\d+ ms`); ageRe.MatchString(np.Banner) || ageRe.MatchString(np.Age) {
+		t.Errorf("NO_PICTURE shows a picture age: banner %q, age %q", np.Banner, np.Age)
+	}
+	time.Sleep(300 * time.Millisecond)
+	shot("console-no_picture.png")
+
+	p.state.Store(int32(display.StateLive))
 	must(b.WaitState("LIVE", 5*time.Second))
 	// the video really decodes: frames presented at the clip's size
 	must(b.WaitFunc(func() (bool, string, error) {
@@ -226,13 +258,16 @@ func TestBrowserConsole(t *testing.T) {
 	p.silent.Store(false)
 	linkText("7.5 % | 14 ms")
 
-	// LIVE -> PREDICTED -> STALE -> LIVE
+	// LIVE -> PREDICTED -> STALE -> NOT_SHOWN -> LIVE. NOT_SHOWN keeps the
+	// picture before it: its age is a lower bound counted on from that
+	// picture's (STALE, at least 600 ms).
 	wantBanner := map[string]*regexp.Regexp{
 		"PREDICTED": regexp.MustCompile(`^PREDICTED — synthetic picture, picture age \d+ ms; moving objects not shown$`),
 		"STALE":     regexp.MustCompile(`^STALE — picture age \d+ ms; confidence 0\.31 under the cutoff \d\.\d\d$`),
+		"NOT_SHOWN": regexp.MustCompile(`^NOT_SHOWN — this tick could not be put on screen; the picture before it stays, picture age ≥ \d{3,} ms$`),
 		"LIVE":      regexp.MustCompile(`^LIVE real picture, picture age \d+ ms$`),
 	}
-	for _, st := range []console.State{console.StatePredicted, console.StateStale, console.StateLive} {
+	for _, st := range []display.State{display.StatePredicted, display.StateStale, display.StateNotShown, display.StateLive} {
 		p.state.Store(int32(st))
 		must(b.WaitState(st.String(), 3*time.Second))
 		if err := b.CheckCautionVisible(); err != nil {
@@ -243,7 +278,7 @@ func TestBrowserConsole(t *testing.T) {
 			t.Errorf("%s banner %q", st, banner)
 		}
 		time.Sleep(400 * time.Millisecond)
-		if st != console.StateLive {
+		if st != display.StateLive {
 			shot("console-" + strings.ToLower(st.String()) + ".png")
 		}
 	}
@@ -253,7 +288,7 @@ func TestBrowserConsole(t *testing.T) {
 	// than 500 ms makes the page show STATE UNKNOWN in between, which is right;
 	// those are reported, and more than two fail the test.
 	got, stalls := consoletest.WithoutStalls(log)
-	if want := []string{"UNKNOWN", "LIVE", "PREDICTED", "STALE", "LIVE"}; !slices.Equal(got, want) {
+	if want := []string{"UNKNOWN", "NO_PICTURE", "LIVE", "PREDICTED", "STALE", "NOT_SHOWN", "LIVE"}; !slices.Equal(got, want) {
 		t.Fatalf("state log %v, want exactly %v (%+v)", got, want, log)
 	}
 	if len(stalls) > 0 {

@@ -4,10 +4,13 @@
 //
 // # What the operator receives
 //
-// Per display tick the relay produces one output frame whose state is LIVE
-// (a real frame), PREDICTED (a synthetic frame: the last real frame warped to
-// where the camera should be now) or STALE (too uncertain to predict: the old
-// frame, desaturated). The relay hands each frame it encoded to
+// Per display tick the relay produces one output frame whose state
+// (display.State) is LIVE (a real frame), PREDICTED (a synthetic frame: the
+// last real frame warped to where the camera should be now), STALE (too
+// uncertain to predict: the old frame, desaturated) or NO_PICTURE (no real
+// frame yet: a labelled empty frame, with no picture age); a tick it decided
+// but could not put on screen is NOT_SHOWN, with a meta message and no frame.
+// The relay hands each frame it encoded to
 // [Console.WriteFrame], each LIVE frame it passes through untouched (the
 // vehicle's own packets) to [Console.ForwardFrame], and a description of
 // every frame to [Console.WriteMeta]. Each viewer's RTP stream joins the two

@@ -9,6 +9,7 @@ import (
 
 	"github.com/pion/rtp"
 
+	"stopgap/internal/display"
 	"stopgap/stream/rtpvp8"
 	"stopgap/stream/vp8splice"
 )
@@ -208,13 +209,13 @@ func TestEgressMetaFanOut(t *testing.T) {
 			t.Fatal(err)
 		}
 	}
-	m.State = StateInvalid
+	m.State = display.StateInvalid
 	if err := e.writeMeta(&m); !errors.Is(err, ErrBadMeta) {
 		t.Errorf("invalid meta err = %v", err)
 	}
 	e.remove(va)
 	e.remove(vb)
-	want, _ := (&Meta{Seq: 2, TimeUs: 27066666, State: StatePredicted, AgeMs: 133.5, Confidence: 0.81, Cutoff: 0.6,
+	want, _ := (&Meta{Seq: 2, TimeUs: 27066666, State: display.StatePredicted, AgeMs: 133.5, Confidence: 0.81, Cutoff: 0.6,
 		Profile: "city", Link: sampleMeta().Link}).AppendJSON(nil)
 	for _, s := range []*fakeSink{a, b} {
 		if len(s.metas) != 3 || s.metas[2] != string(want) {

@@ -8,6 +8,7 @@ import (
 	"strings"
 	"time"
 
+	"stopgap/internal/display"
 	"stopgap/stream/console"
 )
 
@@ -36,7 +37,7 @@ func Example() {
 	if err := c.WriteFrame(vp8, time.Second/30); err != nil {
 		fmt.Println(err)
 	}
-	err = c.WriteMeta(console.Meta{Seq: 1, TimeUs: 33333, State: console.StatePredicted, AgeMs: 120,
+	err = c.WriteMeta(console.Meta{Seq: 1, TimeUs: 33333, State: display.StatePredicted, AgeMs: 120,
 		Confidence: 0.8, Cutoff: c.Cutoff(), Profile: c.Profile()})
 	if err != nil {
 		fmt.Println(err)

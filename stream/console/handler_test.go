@@ -9,6 +9,7 @@ import (
 	"strings"
 	"testing"
 
+	"stopgap/internal/display"
 	"stopgap/internal/vocab"
 )
 
@@ -278,14 +279,14 @@ func TestPageSaysSharedWords(t *testing.T) {
 	}
 	js := do(c, "GET", "/console.js", "", "", nil).Body.String()
 	var names []string
-	for s := StateInvalid + 1; s.Valid(); s++ {
+	for _, s := range display.States {
 		names = append(names, strconv.Quote(s.String()))
 	}
 	if want := "const STATES = [" + strings.Join(names, ", ") + "];"; !strings.Contains(js, want) {
 		t.Errorf("console.js lacks %s", want)
 	}
 	css := do(c, "GET", "/console.css", "", "", nil).Body.String()
-	for s := StateInvalid + 1; s.Valid(); s++ {
+	for _, s := range display.States {
 		if want := `body[data-state="` + s.String() + `"]`; !strings.Contains(css, want) {
 			t.Errorf("console.css has no style for %s", want)
 		}

@@ -1,10 +1,16 @@
 package console
 
 import (
+	"bytes"
+	"encoding/json"
+	"errors"
 	"fmt"
+	"io"
 	"math"
 	"strconv"
 	"unicode/utf8"
+
+	"stopgap/internal/display"
 )
 
 // Meta describes one output frame. It is sent as one JSON text message on the
@@ -19,17 +25,24 @@ type Meta struct {
 	Seq uint64 `json:"seq"`
 	// TimeUs is the display tick time on the vehicle clock, microseconds.
 	TimeUs int64 `json:"t_us"`
-	// State of the frame: LIVE, PREDICTED or STALE.
-	State State `json:"state"`
+	// State of the tick, written as display.State's String
+	// (LIVE, PREDICTED, STALE, NO_PICTURE, NOT_SHOWN). NO_PICTURE: no real
+	// frame yet, the frame on screen is a labelled empty one. NOT_SHOWN:
+	// the relay decided the tick but put nothing new on screen, so the
+	// viewer still sees the frame before it.
+	State display.State `json:"state"`
 	// AgeMs is how old the newest real picture content is, milliseconds
-	// (display tick time minus capture time of the last real frame).
+	// (display tick time minus capture time of the last real frame). It is
+	// 0 for NO_PICTURE (there is no picture) and NOT_SHOWN (the tick put no
+	// picture on screen); the page shows no age for them.
 	AgeMs float64 `json:"age_ms"`
 	// MaxAgeMs is the cap on the picture age: past it a missing frame is
 	// STALE whatever the confidence, milliseconds.
 	MaxAgeMs float64 `json:"max_age_ms"`
 	// Why says why a STALE frame is STALE, one of the words of
-	// predictor.StaleReason ("no-picture", "no-motion", "age-over-cap",
-	// "low-confidence"); "" otherwise.
+	// predictor.StaleReason ("no-motion", "age-over-cap", "low-confidence",
+	// or "no-picture" for a STALE tick with no real frame held); "" for
+	// the other states.
 	Why string `json:"why"`
 	// Confidence of the prediction in [0, 1] (1 for LIVE).
 	Confidence float64 `json:"confidence"`
@@ -59,10 +72,15 @@ type LinkStats struct {
 // two frames of a slow camera and than a keyframe request's round trip (our choice).
 const NoPacketsAfterMs = 250
 
-// Validate reports ErrBadMeta for an invalid State or a NaN/Inf number.
+// Validate reports ErrBadMeta for an invalid State, a NaN/Inf number, or a
+// picture age other than 0 for a state that has no picture on screen
+// (NO_PICTURE, NOT_SHOWN).
 func (m *Meta) Validate() error {
 	if !m.State.Valid() {
-		return fmt.Errorf("%w: state %d is not LIVE, PREDICTED or STALE", ErrBadMeta, int(m.State))
+		return fmt.Errorf("%w: state %d is not one of display.States", ErrBadMeta, int(m.State))
+	}
+	if (m.State == display.StateNoPicture || m.State == display.StateNotShown) && m.AgeMs != 0 {
+		return fmt.Errorf("%w: age_ms %v for %v; send 0, a tick without a picture on screen has no picture age", ErrBadMeta, m.AgeMs, m.State)
 	}
 	for _, f := range [...]struct {
 		name string
@@ -118,6 +136,40 @@ func (m *Meta) AppendJSON(dst []byte) ([]byte, error) {
 	dst = appendFloat(dst, m.Link.NoPacketsMs)
 	dst = append(dst, "}}"...)
 	return dst, nil
+}
+
+// ParseMeta decodes one meta message strictly: a single JSON object with
+// only Meta's fields, a state spelled as display.State's String, finite
+// numbers (Validate). Every error wraps ErrBadMeta and names what is wrong;
+// a bad state also wraps display.ErrInvalidState. It is the reader for
+// programs that watch the "meta" channel (tests, tools); the page has its
+// own, equally strict check of the state.
+func ParseMeta(data []byte) (Meta, error) {
+	dec := json.NewDecoder(bytes.NewReader(data))
+	dec.DisallowUnknownFields()
+	var m Meta
+	if err := dec.Decode(&m); err != nil {
+		var syn *json.SyntaxError
+		var typ *json.UnmarshalTypeError
+		switch {
+		case errors.Is(err, display.ErrInvalidState):
+			return Meta{}, fmt.Errorf("%w: %w", ErrBadMeta, err)
+		case errors.As(err, &syn):
+			return Meta{}, fmt.Errorf("%w: not JSON at byte %d: %v", ErrBadMeta, syn.Offset, err)
+		case errors.As(err, &typ):
+			return Meta{}, fmt.Errorf("%w: field %q holds a JSON %s, want %v", ErrBadMeta, typ.Field, typ.Value, typ.Type)
+		case errors.Is(err, io.EOF):
+			return Meta{}, fmt.Errorf("%w: empty message; send one JSON object", ErrBadMeta)
+		}
+		return Meta{}, fmt.Errorf("%w: %v", ErrBadMeta, err)
+	}
+	if _, err := dec.Token(); !errors.Is(err, io.EOF) {
+		return Meta{}, fmt.Errorf("%w: data after the JSON object at byte %d; send one object per message", ErrBadMeta, dec.InputOffset())
+	}
+	if err := m.Validate(); err != nil {
+		return Meta{}, err
+	}
+	return m, nil
 }
 
 // appendFloat writes a finite float in the shortest form that round-trips;

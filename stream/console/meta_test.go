@@ -7,11 +7,13 @@ import (
 	"strings"
 	"testing"
 	"unicode/utf8"
+
+	"stopgap/internal/display"
 )
 
 func sampleMeta() Meta {
 	return Meta{
-		Seq: 812, TimeUs: 27066666, State: StatePredicted, AgeMs: 133.5, Confidence: 0.81,
+		Seq: 812, TimeUs: 27066666, State: display.StatePredicted, AgeMs: 133.5, Confidence: 0.81,
 		Cutoff: 0.6, Profile: "city",
 		Link: LinkStats{LossPct: 4.2, JitterMs: 11.25, DelayMs: 84, KeyframeRequests: 3, FramesIn: 790},
 	}
@@ -23,8 +25,10 @@ func TestMetaAppendJSONRoundTrip(t *testing.T) {
 		edit func(*Meta)
 	}{
 		{"predicted", func(*Meta) {}},
-		{"live", func(m *Meta) { m.State = StateLive; m.Confidence = 1; m.AgeMs = 0 }},
-		{"stale", func(m *Meta) { m.State = StateStale; m.Confidence = 0; m.Why = "low-confidence"; m.MaxAgeMs = 800 }},
+		{"live", func(m *Meta) { m.State = display.StateLive; m.Confidence = 1; m.AgeMs = 0 }},
+		{"stale", func(m *Meta) { m.State, m.Confidence, m.Why, m.MaxAgeMs = display.StateStale, 0, "low-confidence", 800 }},
+		{"no picture", func(m *Meta) { m.State = display.StateNoPicture; m.Confidence = 0; m.AgeMs = 0 }},
+		{"not shown", func(m *Meta) { m.State = display.StateNotShown; m.Confidence = 0; m.AgeMs = 0 }},
 		{"tiny and huge numbers", func(m *Meta) { m.AgeMs = 1e-9; m.Link.DelayMs = 1e300; m.TimeUs = math.MinInt64 }},
 		{"max counters", func(m *Meta) { m.Seq = math.MaxUint64; m.Link.FramesIn = math.MaxUint64 }},
 		{"link silent", func(m *Meta) { m.Link.NoPacketsMs = 1250.5; m.Link.LossPct = 0; m.Link.JitterMs = 0 }},
@@ -77,7 +81,9 @@ func TestMetaInvalid(t *testing.T) {
 		name string
 		edit func(*Meta)
 	}{
-		{"zero state", func(m *Meta) { m.State = StateInvalid }},
+		{"zero state", func(m *Meta) { m.State = display.StateInvalid }},
+		{"age for no picture", func(m *Meta) { m.State = display.StateNoPicture; m.AgeMs = 1 }},
+		{"age for not shown", func(m *Meta) { m.State = display.StateNotShown; m.AgeMs = 33.3 }},
 		{"state out of range", func(m *Meta) { m.State = 7 }},
 		{"NaN age", func(m *Meta) { m.AgeMs = math.NaN() }},
 		{"Inf confidence", func(m *Meta) { m.Confidence = math.Inf(1) }},
@@ -115,28 +121,128 @@ func TestMetaAppendJSONNoAlloc(t *testing.T) {
 	}
 }
 
-func TestStateText(t *testing.T) {
-	for _, s := range []State{StateLive, StatePredicted, StateStale} {
-		b, err := s.MarshalText()
-		if err != nil {
-			t.Fatal(err)
-		}
-		var got State
-		if err := got.UnmarshalText(b); err != nil || got != s {
-			t.Errorf("%v: round trip got %v, %v", s, got, err)
-		}
-	}
-	if _, err := StateInvalid.MarshalText(); !errors.Is(err, ErrBadMeta) {
-		t.Errorf("StateInvalid.MarshalText err = %v", err)
-	}
-	for _, bad := range []string{"", "live", "INVALID", "UNKNOWN"} {
-		if _, err := ParseState(bad); !errors.Is(err, ErrBadMeta) {
-			t.Errorf("ParseState(%q) err = %v, want ErrBadMeta", bad, err)
-		}
-	}
-	if State(-1).String() != "INVALID" || KeyframeReason(99).String() != "invalid" || KeyframeViewerJoined.String() != "viewer-joined" {
+func TestKeyframeReasonString(t *testing.T) {
+	if KeyframeReason(-1).String() != "invalid" || KeyframeReason(99).String() != "invalid" || KeyframeViewerJoined.String() != "viewer-joined" {
 		t.Error("String of out-of-range enums")
 	}
+}
+
+// TestMetaStateWire: every state of display.States goes on the wire as its
+// String and comes back through ParseMeta and encoding/json alike.
+func TestMetaStateWire(t *testing.T) {
+	for _, st := range display.States {
+		m := sampleMeta()
+		m.State = st
+		if st == display.StateNoPicture || st == display.StateNotShown {
+			m.AgeMs = 0
+		}
+		b, err := m.AppendJSON(nil)
+		if err != nil {
+			t.Fatalf("%v: %v", st, err)
+		}
+		if want := `"state":"` + st.String() + `"`; !strings.Contains(string(b), want) {
+			t.Errorf("%v: %s lacks %s", st, b, want)
+		}
+		got, err := ParseMeta(b)
+		if err != nil || got != m {
+			t.Errorf("%v: ParseMeta = %+v, %v; want %+v", st, got, err, m)
+		}
+		var std Meta
+		if err := json.Unmarshal(b, &std); err != nil || std != m {
+			t.Errorf("%v: json.Unmarshal = %+v, %v", st, std, err)
+		}
+	}
+}
+
+// TestParseMetaErrors: each bad message is refused with ErrBadMeta and a
+// message that names the problem.
+func TestParseMetaErrors(t *testing.T) {
+	sample := sampleMeta()
+	good, err := sample.AppendJSON(nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	withState := func(v string) string {
+		return strings.Replace(string(good), `"state":"PREDICTED"`, `"state":`+v, 1)
+	}
+	cases := []struct {
+		name, data, says string
+		state            bool // also wraps display.ErrInvalidState
+	}{
+		{"empty", "", "empty message", false},
+		{"not JSON", "{seq:1}", "not JSON", false},
+		{"state lower case", withState(`"predicted"`), `"predicted"`, true},
+		{"old name", withState(`"UNKNOWN"`), `"UNKNOWN"`, true},
+		{"state with a space", withState(`"NO PICTURE"`), `"NO PICTURE"`, true},
+		{"state as number", withState(`2`), `"state"`, false},
+		{"state null", withState(`null`), "state 0", false},
+		{"state missing", strings.Replace(string(good), `"state":"PREDICTED",`, "", 1), "state 0", false},
+		{"unknown field", strings.Replace(string(good), `{"seq"`, `{"extra":1,"seq"`, 1), `"extra"`, false},
+		{"two objects", string(good) + "{}", "data after the JSON object", false},
+		{"age for NO_PICTURE", withState(`"NO_PICTURE"`), "age_ms 133.5 for NO_PICTURE", false},
+		{"array", "[]", "", false},
+	}
+	for _, tc := range cases {
+		t.Run(tc.name, func(t *testing.T) {
+			m, err := ParseMeta([]byte(tc.data))
+			if !errors.Is(err, ErrBadMeta) {
+				t.Fatalf("ParseMeta(%s) = %+v, %v; want ErrBadMeta", tc.data, m, err)
+			}
+			if m != (Meta{}) {
+				t.Errorf("returned %+v with the error, want the zero Meta", m)
+			}
+			if !strings.Contains(err.Error(), tc.says) {
+				t.Errorf("error %q does not say %q", err, tc.says)
+			}
+			if tc.state != errors.Is(err, display.ErrInvalidState) {
+				t.Errorf("error %q: wraps display.ErrInvalidState = %v, want %v", err, !tc.state, tc.state)
+			}
+		})
+	}
+}
+
+// FuzzParseMeta: any message gives a Meta or ErrBadMeta, never a panic; an
+// accepted Meta, written again with AppendJSON, parses back equal, and
+// its state is one of display.States.
+func FuzzParseMeta(f *testing.F) {
+	for _, st := range display.States {
+		m := sampleMeta()
+		m.State = st
+		if st == display.StateNoPicture || st == display.StateNotShown {
+			m.AgeMs = 0
+		}
+		b, _ := m.AppendJSON(nil)
+		f.Add(b)
+	}
+	for _, s := range []string{``, `{}`, `null`, `[]`, `{"state":"LIVE"}`, `{"state":"NO_PICTURE","age_ms":0}`,
+		`{"state":"NO_PICTURE","age_ms":5}`, `{"state":"NOT_SHOWN","STATE":"LIVE"}`, `{"state":"INVALID"}`, `{"seq":1}{}`} {
+		f.Add([]byte(s))
+	}
+	f.Fuzz(func(t *testing.T, data []byte) {
+		m, err := ParseMeta(data)
+		if err != nil {
+			if !errors.Is(err, ErrBadMeta) {
+				t.Fatalf("error %v does not wrap ErrBadMeta", err)
+			}
+			return
+		}
+		if !m.State.Valid() {
+			t.Fatalf("accepted state %d", int(m.State))
+		}
+		b, err := m.AppendJSON(nil)
+		if err != nil {
+			t.Fatalf("accepted %+v cannot be written: %v", m, err)
+		}
+		back, err := ParseMeta(b)
+		if err != nil {
+			t.Fatalf("written form %s refused: %v", b, err)
+		}
+		// encoding/json already turned invalid UTF-8 into U+FFFD, so the
+		// profile, like every other field, must come back as it was.
+		if back != m {
+			t.Fatalf("round trip changed the message:\n%+v\n%+v\n%s", m, back, b)
+		}
+	})
 }
 
 // FuzzMetaProfile checks that any profile string gives valid JSON that
@@ -173,5 +279,3 @@ func FuzzMetaProfile(f *testing.F) {
 		}
 	})
 }
-
-func jsonUnmarshal(s string, v any) error { return json.Unmarshal([]byte(s), v) }

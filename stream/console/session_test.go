@@ -14,6 +14,8 @@ import (
 	"github.com/pion/ice/v4"
 	"github.com/pion/rtp/codecs"
 	"github.com/pion/webrtc/v4"
+
+	"stopgap/internal/display"
 )
 
 // goViewer is a receive-only pion peer standing in for the browser.
@@ -192,8 +194,7 @@ func TestSessionEndToEnd(t *testing.T) {
 	if v.firstKey == nil || !*v.firstKey {
 		t.Error("first frame the viewer received is not a keyframe")
 	}
-	var got Meta
-	if err := jsonUnmarshal(v.metas[0], &got); err != nil || got.State != StatePredicted || got.Profile != "city" {
+	if got, err := ParseMeta([]byte(v.metas[0])); err != nil || got.State != display.StatePredicted || got.Profile != "city" {
 		t.Errorf("meta %q: %v", v.metas[0], err)
 	}
 	v.mu.Unlock()

@@ -13,7 +13,7 @@ import (
 	"testing"
 	"time"
 
-	"stopgap/stream/console"
+	"stopgap/internal/display"
 	"stopgap/stream/relay"
 	"stopgap/stream/simvehicle"
 )
@@ -188,7 +188,7 @@ func benchLoopback(b *testing.B, transcode bool) loopbackResult {
 		arrival, delivered := matchDeliveries(window, frames, period)
 		var liveTicks []int64
 		for _, tr := range window {
-			if tr.State == console.StateLive {
+			if tr.State == display.StateLive {
 				liveTicks = append(liveTicks, tr.TickUs)
 			}
 		}
@@ -196,7 +196,7 @@ func benchLoopback(b *testing.B, transcode bool) loopbackResult {
 		var e2e, added, fwd []float64
 		live, unmatched, forwarded := 0, 0, 0
 		for i, tr := range window {
-			if tr.State != console.StateLive {
+			if tr.State != display.StateLive {
 				continue
 			}
 			live++

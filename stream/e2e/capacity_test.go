@@ -12,7 +12,7 @@ import (
 	"testing"
 	"time"
 
-	"stopgap/stream/console"
+	"stopgap/internal/display"
 	"stopgap/stream/recording"
 	"stopgap/stream/simvehicle"
 )
@@ -137,7 +137,7 @@ func runCapacity(b *testing.B, rec *recording.Recording, drive string, n int, mo
 		deadline := time.Now().Add(30 * time.Second)
 		for {
 			m, f := s.view.snapshot()
-			if countState(m, time.Time{}, console.StateLive) > 30 {
+			if countState(m, time.Time{}, display.StateLive) > 30 {
 				break
 			}
 			if time.Now().After(deadline) {
@@ -194,7 +194,7 @@ func runCapacity(b *testing.B, rec *recording.Recording, drive string, n int, mo
 		var ticks []int64
 		live := 0
 		for _, m := range window {
-			if m.meta.State == console.StateLive {
+			if m.meta.State == display.StateLive {
 				live++
 				ticks = append(ticks, m.meta.TimeUs)
 			}
@@ -203,7 +203,7 @@ func runCapacity(b *testing.B, rec *recording.Recording, drive string, n int, mo
 		offset := modeOffsetUs(ticks, s.frames)
 		period := s.veh.FramePeriod().Microseconds()
 		for _, m := range window {
-			if m.meta.State != console.StateLive {
+			if m.meta.State != display.StateLive {
 				continue
 			}
 			capUs := m.meta.TimeUs - offset

@@ -5,7 +5,7 @@ import (
 	"testing"
 	"time"
 
-	"stopgap/stream/console"
+	"stopgap/internal/display"
 	"stopgap/stream/recording"
 	"stopgap/stream/whip"
 )
@@ -43,7 +43,7 @@ func TestVehicleKilledWithoutGoodbye(t *testing.T) {
 	vc := startChild(t, "vehicle", childDriveEnv+"="+drive, childBaseEnv+"="+ro.base)
 	waitFor(t, "LIVE frames at the viewer", 30*time.Second, func() bool {
 		m, _ := v.snapshot()
-		return countState(m, time.Time{}, console.StateLive) > 30
+		return countState(m, time.Time{}, display.StateLive) > 30
 	})
 	killedAt := time.Now()
 	vc.kill(t)
@@ -63,12 +63,12 @@ func TestVehicleKilledWithoutGoodbye(t *testing.T) {
 	againAt := time.Now()
 	waitFor(t, "LIVE frames from the new vehicle", 30*time.Second, func() bool {
 		m, _ := v.snapshot()
-		return countState(m, againAt, console.StateLive) > 30
+		return countState(m, againAt, display.StateLive) > 30
 	})
 	reconnect := time.Since(againAt)
 
 	after := killedAt.Add(300 * time.Millisecond)
-	live, stale, pred := countState(metas, after, console.StateLive), countState(metas, after, console.StateStale), countState(metas, after, console.StatePredicted)
+	live, stale, pred := countState(metas, after, display.StateLive), countState(metas, after, display.StateStale), countState(metas, after, display.StatePredicted)
 	t.Logf("egress %s: session ended %v after the kill (consent expiry %v); after kill+300 ms the viewer got %d LIVE, %d PREDICTED, %d STALE; last frame %v after the kill; new vehicle LIVE 30 frames %v after it started",
 		mode, endedAfter.Round(time.Millisecond), whip.ConsentExpiry, live, pred, stale, lastMeta.Sub(killedAt).Round(time.Millisecond), reconnect.Round(time.Millisecond))
 	if live > 0 {
@@ -86,7 +86,7 @@ func TestVehicleKilledWithoutGoodbye(t *testing.T) {
 }
 
 // countState counts the meta messages received after from with state s.
-func countState(m []metaEvent, from time.Time, s console.State) int {
+func countState(m []metaEvent, from time.Time, s display.State) int {
 	n := 0
 	for _, e := range m {
 		if e.at.After(from) && e.meta.State == s {

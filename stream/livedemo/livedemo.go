@@ -258,14 +258,23 @@ func Run(ctx context.Context, cfg Config) error {
 	}
 }
 
+// tickStatus says what the latest tick showed: its state and picture age,
+// or for NO_PICTURE the state and vocab.NoPicture (no picture, no age).
+func tickStatus(st predictor.State, ageMs float64) string {
+	switch st {
+	case predictor.StateInvalid:
+		return "no tick yet"
+	case predictor.StateNoPicture:
+		return st.String() + ", " + vocab.NoPicture
+	}
+	return st.String() + ", " + vocab.Age(ageMs)
+}
+
 // printStatus writes one status line: the latest tick's state and picture
 // age, the relay's counters and the vehicle's.
 func printStatus(w io.Writer, rl *relay.Relay, veh *simvehicle.Vehicle) {
 	rs, vs := rl.Stats(), veh.Stats()
-	now := "no tick yet"
-	if rs.State != predictor.StateInvalid {
-		now = rs.State.String() + ", " + vocab.Age(rs.PictureAgeMs)
-	}
+	now := tickStatus(rs.State, rs.PictureAgeMs)
 	fmt.Fprintf(w, "relay: %s; frames in %d, ticks LIVE %d PREDICTED %d STALE %d, losses %d, keyframe requests %d | vehicle: frames %d (skipped %d), keyframes %d, link lost %d + %d in outages of %d packets\n",
 		now, rs.FramesIn, rs.TicksLive, rs.TicksPredicted, rs.TicksStale, rs.Losses, rs.KeyframeRequests,
 		vs.FramesEncoded, vs.FramesSkipped, vs.Keyframes, vs.Link.PacketsLost, vs.Link.PacketsOutage, vs.Link.PacketsWire)

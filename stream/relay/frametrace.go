@@ -4,7 +4,7 @@ import (
 	"sync/atomic"
 	"time"
 
-	"stopgap/stream/console"
+	"stopgap/internal/display"
 )
 
 // FrameTrace describes one output frame the relay sent to the console, for
@@ -15,7 +15,7 @@ type FrameTrace struct {
 	// (Meta.TimeUs, vehicle clock, microseconds); State its state.
 	Seq    uint64
 	TickUs int64
-	State  console.State
+	State  display.State
 	// LastPacketAt is when the relay received the last packet of the input
 	// frame and Decode how long decoding it took (VP8 decode and I420 to
 	// BGR). Set for LIVE frames, zero for filled ticks.

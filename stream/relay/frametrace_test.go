@@ -4,7 +4,7 @@ import (
 	"sync"
 	"testing"
 
-	"stopgap/stream/console"
+	"stopgap/internal/display"
 )
 
 // TestTraceFrames runs a session with frames 10-12 lost: the tracer sees
@@ -35,7 +35,7 @@ func TestTraceFrames(t *testing.T) {
 			t.Errorf("trace %d: written at %v, encode %v", i, tr.WrittenAt, tr.Encode)
 		}
 		switch tr.State {
-		case console.StateLive:
+		case display.StateLive:
 			live++
 			if tr.LastPacketAt.IsZero() || tr.Decode < 0 {
 				t.Errorf("LIVE trace %d: last packet at %v, decode %v", i, tr.LastPacketAt, tr.Decode)

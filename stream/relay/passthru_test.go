@@ -6,7 +6,7 @@ import (
 	"sync"
 	"testing"
 
-	"stopgap/stream/console"
+	"stopgap/internal/display"
 	"stopgap/stream/passthru"
 	"stopgap/stream/rtpvp8"
 	"stopgap/stream/vp8"
@@ -102,7 +102,7 @@ func TestPassThroughBadFrames(t *testing.T) {
 			var trMu sync.Mutex
 			live := map[int]FrameTrace{}
 			r.TraceFrames(func(tr FrameTrace) {
-				if tr.State != console.StateLive {
+				if tr.State != display.StateLive {
 					return
 				}
 				for i := 0; i < 45; i++ {

@@ -426,33 +426,23 @@ func (p *pipeline) emit(t cadence.Tick, captureUs int64, tick predictor.Tick, ev
 		}
 	}
 	cutoff := t.Policy.CutoffConfidence
-	var st console.State
 	switch tick.State {
 	case predictor.StateLive:
-		st = console.StateLive
 		p.r.met.ticksLive.Add(1)
 	case predictor.StatePredicted:
-		st = console.StatePredicted
 		p.r.met.ticksPredicted.Add(1)
 	default:
-		// NO_PICTURE is shown to the console as STALE until its page
-		// knows the state.
-		st = console.StateStale
+		// STALE, and NO_PICTURE, which the tick counters count with STALE.
 		p.r.met.ticksStale.Add(1)
 	}
-	p.refreshLink()
 	conf, age := finite(tick.Confidence), finite(tick.AgeMs)
 	p.r.met.setCurrent(tick.State, age)
 	_, havePicture := p.filler.LastCaptureUs()
 	pol := predictor.Policy{CutoffConfidence: cutoff, MaxAgeMs: p.cfg.Policy.MaxAgeMs}
-	p.meta = console.Meta{Seq: p.meta.Seq + 1, TimeUs: captureUs, State: st, AgeMs: age, MaxAgeMs: pol.MaxAgeMs,
-		Why: predictor.WhyStale(pol, tick, havePicture).String(), Confidence: conf, Cutoff: cutoff, Profile: p.r.console.Profile(), Link: p.link}
-	if err := p.r.console.WriteMeta(p.meta); err != nil && !errors.Is(err, console.ErrClosed) {
-		p.log.Warn("console meta failed", "err", err)
-	}
+	p.sendMeta(tickMeta(tick, captureUs, pol, havePicture))
 	p.record(func(rc *recorder) { rc.tick(p.recIndex(t.K), captureUs, t.DeadlineUs, tick.State, age, conf, cutoff) })
 	if trace != nil {
-		tr := FrameTrace{Seq: p.meta.Seq, TickUs: captureUs, State: st, Encode: encDur, WrittenAt: writtenAt}
+		tr := FrameTrace{Seq: p.meta.Seq, TickUs: captureUs, State: tick.State, Encode: encDur, WrittenAt: writtenAt}
 		if ev != nil {
 			tr.LastPacketAt, tr.Decode, tr.Forwarded = ev.lastPktAt, ev.decodeDur, ev.forwarded
 		}
@@ -497,10 +487,44 @@ func (p *pipeline) encodeOwn(t cadence.Tick) (time.Duration, bool) {
 	return encDur, true
 }
 
-// recordNotShown records tick t as NOT_SHOWN. Every decided tick gets a row
-// in the relay's ticks table: the recorder writes rows in index order and
-// waits for each row's tick.
+// tickMeta is the console's meta message for a tick put on screen, in the
+// tick's own state; timeUs is the frame's capture time (LIVE) or the tick's
+// target, pol the policy the tick was decided with, and havePicture whether
+// the filler holds a real frame. sendMeta adds Seq, Profile and Link.
+func tickMeta(tick predictor.Tick, timeUs int64, pol predictor.Policy, havePicture bool) console.Meta {
+	m := console.Meta{TimeUs: timeUs, State: tick.State, AgeMs: finite(tick.AgeMs), MaxAgeMs: pol.MaxAgeMs,
+		Why: predictor.WhyStale(pol, tick, havePicture).String(), Confidence: finite(tick.Confidence), Cutoff: pol.CutoffConfidence}
+	if tick.State == predictor.StateNoPicture {
+		// No picture, so no picture age; the state itself says why.
+		m.AgeMs, m.Why = 0, ""
+	}
+	return m
+}
+
+// notShownMeta is the console's meta message for tick t, decided but not
+// put on screen: no picture age, no confidence (console.Meta.Validate).
+func notShownMeta(t cadence.Tick, maxAgeMs float64) console.Meta {
+	return console.Meta{TimeUs: t.TargetUs, State: display.StateNotShown, MaxAgeMs: maxAgeMs, Cutoff: t.Policy.CutoffConfidence}
+}
+
+// sendMeta numbers m one after the previous meta message, adds the profile
+// and the link statistics, and writes it to the console: one message per
+// decided tick, so the page always knows what the tick put on screen.
+func (p *pipeline) sendMeta(m console.Meta) {
+	p.refreshLink()
+	m.Seq, m.Profile, m.Link = p.meta.Seq+1, p.r.console.Profile(), p.link
+	p.meta = m
+	if err := p.r.console.WriteMeta(p.meta); err != nil && !errors.Is(err, console.ErrClosed) {
+		p.log.Warn("console meta failed", "err", err)
+	}
+}
+
+// recordNotShown records tick t as NOT_SHOWN and tells the console: the
+// viewer still sees the previous output frame. Every decided tick gets a
+// row in the relay's ticks table: the recorder writes rows in index order
+// and waits for each row's tick.
 func (p *pipeline) recordNotShown(t cadence.Tick) {
+	p.sendMeta(notShownMeta(t, p.cfg.Policy.MaxAgeMs))
 	p.record(func(rc *recorder) {
 		rc.tick(p.recIndex(t.K), t.TargetUs, t.DeadlineUs, display.StateNotShown, 0, 0, t.Policy.CutoffConfidence)
 	})

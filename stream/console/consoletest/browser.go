@@ -243,7 +243,7 @@ func (b *Browser) Attr(name string) (string, error) {
 	return *v, nil
 }
 
-// State returns the displayed state: LIVE, PREDICTED, STALE or UNKNOWN.
+// State returns the displayed state: one of display.States' names, or UNKNOWN.
 func (b *Browser) State() (string, error) { return b.Attr("data-state") }
 
 // WaitAttr polls every 20 ms until <body>'s attribute equals want. The

@@ -10,7 +10,12 @@
 // The bearer token comes from the URL fragment (#token=...), is kept in
 // sessionStorage and removed from the address bar.
 //
-// For tests: <body data-state="LIVE|PREDICTED|STALE|UNKNOWN" data-reason=...>
+// A tick with no picture has no picture age: NO_PICTURE (no real frame in
+// the session yet) says so instead of a number, and NOT_SHOWN (the relay
+// decided the tick but put nothing new on screen) gives the age of the
+// picture still on screen as a lower bound, counted on the page's clock.
+//
+// For tests: <body data-state="LIVE|PREDICTED|STALE|NO_PICTURE|NOT_SHOWN|UNKNOWN" data-reason=...>
 // and window.__stateLog, one {state, reason, t_ms} entry per change of the
 // displayed state.
 "use strict";
@@ -19,7 +24,13 @@
   const VIDEO_FREEZE_MS = 500;
   const WATCH_MS = 50;
   const RECONNECT_MS = 2000;
-  const STATES = ["LIVE", "PREDICTED", "STALE"];
+  // The relay's states, spelled and ordered as display.State (a test
+  // checks it against the Go type).
+  const STATES = ["LIVE", "PREDICTED", "STALE", "NO_PICTURE", "NOT_SHOWN"];
+  // The states whose frame shows a picture, and so has a picture age.
+  const PICTURE_STATES = ["LIVE", "PREDICTED", "STALE"];
+  // vocab.NoPicture: the words of a tick with no picture (a test checks it).
+  const NO_PICTURE = "no picture yet";
 
   const $ = (id) => document.getElementById(id);
   const body = document.body;
@@ -32,6 +43,8 @@
   let token = takeToken();
   let shown = "";
   let last = null;
+  let lastPicture = null; // the newest status of a tick that showed a picture
+  let lastPictureAt = -Infinity;
   let lastSeq = -1;
   let lastMetaAt = -Infinity;
   let videoFrames = 0;
@@ -117,6 +130,20 @@
     }
   }
 
+  // pictureAge returns the age of the real picture on screen: {ms, atLeast},
+  // null when there is no picture (no real frame since the session began or
+  // since the relay's last NO_PICTURE). It is exact from a current status of
+  // a state with a picture; otherwise (NOT_SHOWN, status silent) a lower
+  // bound: that status's age plus the time since it came, on this page's
+  // clock.
+  function pictureAge(now) {
+    if (!lastPicture) return null;
+    if (lastPicture === last && now - lastMetaAt <= META_SILENCE_MS) return { ms: last.age_ms, atLeast: false };
+    return { ms: lastPicture.age_ms + (now - lastPictureAt), atLeast: true };
+  }
+
+  const ageMs = (a) => (a.atLeast ? "≥ " : "") + int(a.ms) + " ms";
+
   function show(state, reason, now, metaAge) {
     if (state !== shown) {
       shown = state;
@@ -125,9 +152,9 @@
     }
     if (body.dataset.reason !== reason) body.dataset.reason = reason;
     if (body.dataset.videoFrames !== String(videoFrames)) body.dataset.videoFrames = String(videoFrames);
-    const age = last ? int(last.age_ms) : "—";
-    const picAge = "picture age " + age + " ms";
-    let title, detail;
+    const pa = pictureAge(now);
+    const picAge = "picture age " + (pa ? ageMs(pa) : "—");
+    let title, detail, overlay = "";
     switch (state) {
       case "LIVE":
         title = "LIVE";
@@ -141,8 +168,19 @@
         title = "STALE";
         detail = "— " + picAge + "; " + staleWhy(last);
         break;
+      case "NO_PICTURE":
+        title = "NO_PICTURE";
+        detail = "— " + NO_PICTURE + ": the vehicle has sent no real frame in this session";
+        overlay = NO_PICTURE;
+        break;
+      case "NOT_SHOWN":
+        title = "NOT_SHOWN";
+        detail = "— this tick could not be put on screen; " +
+          (pa ? "the picture before it stays, " + picAge : NO_PICTURE);
+        break;
       default:
         title = "STATE UNKNOWN";
+        overlay = title;
         switch (reason) {
           case "meta-silent":
             detail = "— no status from the relay for " + int(metaAge) + " ms; treat the picture as unknown";
@@ -161,12 +199,12 @@
         }
     }
     setText("banner-title", title);
+    setText("overlay", overlay);
     setText("banner-detail", detail);
     setText("v-state", state === "UNKNOWN" ? "STATE UNKNOWN" : state);
     setText("v-why", state === "STALE" ? staleWhy(last) : "—");
     if (last) {
-      // Without current status the real picture is at least this old.
-      setText("v-age", reason === "meta-silent" ? "≥ " + int(last.age_ms + metaAge) : int(last.age_ms));
+      setText("v-age", pa ? ageMs(pa) : "none, " + NO_PICTURE);
       setText("v-maxage", int(last.max_age_ms));
     }
     setText("v-msgage", isFinite(metaAge) ? int(metaAge) : "—");
@@ -182,6 +220,12 @@
     lastSeq = m.seq;
     last = m;
     lastMetaAt = performance.now();
+    if (PICTURE_STATES.includes(m.state)) {
+      lastPicture = m;
+      lastPictureAt = lastMetaAt;
+    } else if (m.state === "NO_PICTURE") {
+      lastPicture = null;
+    }
     window.__console.meta = m;
     window.__console.lastMetaMs = lastMetaAt;
     setText("v-conf", fix(m.confidence, 2));
@@ -247,6 +291,7 @@
     hangUp();
     // a new connection may reach a restarted relay whose seq starts again
     last = null;
+    lastPicture = null;
     lastSeq = -1;
     if (!token) {
       setConn("error", "no token: open the console with the URL that ends in #token=…");
