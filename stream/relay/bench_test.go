@@ -8,6 +8,7 @@ import (
 	"gocv.io/x/gocv"
 
 	"stopgap/filter"
+	"stopgap/internal/display"
 	"stopgap/predictor"
 	"stopgap/stream/cadence"
 	"stopgap/stream/whip"
@@ -96,7 +97,7 @@ func BenchmarkTick720p(b *testing.B) {
 		encBytes, encFrames = 0, 0
 		b.ReportAllocs()
 		b.ResetTimer()
-		before := r.met.ticksPredicted.Load()
+		before := r.met.ticks[display.StatePredicted].Load()
 		for i := 0; i < b.N; i++ {
 			// Ticks 1..6 after the held frame (33 to 200 ms), over and
 			// over: each output is a different warp, as in a real gap.
@@ -106,8 +107,8 @@ func BenchmarkTick720p(b *testing.B) {
 			encoded()
 		}
 		b.StopTimer()
-		if r.met.ticksPredicted.Load()-before != uint64(b.N) {
-			b.Fatalf("%d of %d ticks PREDICTED", r.met.ticksPredicted.Load()-before, b.N)
+		if r.met.ticks[display.StatePredicted].Load()-before != uint64(b.N) {
+			b.Fatalf("%d of %d ticks PREDICTED", r.met.ticks[display.StatePredicted].Load()-before, b.N)
 		}
 		report(b)
 	})

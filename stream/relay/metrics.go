@@ -10,7 +10,7 @@ import (
 	"sync/atomic"
 	"time"
 
-	"stopgap/predictor"
+	"stopgap/internal/display"
 	"stopgap/stream/passthru"
 )
 
@@ -131,7 +131,7 @@ const MetricPrefix = "stopgap_"
 // concurrent use.
 type metrics struct {
 	framesIn, losses, keyframeRequests, keyframeRequestsFailed atomic.Uint64
-	ticksLive, ticksPredicted, ticksStale                      atomic.Uint64
+	ticks                                                      [len(display.States) + 1]atomic.Uint64 // by display.State
 	lateFrames, decodeErrors, framesDropped                    atomic.Uint64
 	framesMovedOn                                              atomic.Uint64
 	telemetryIn, recordErrors, sessions                        atomic.Uint64
@@ -141,7 +141,7 @@ type metrics struct {
 	// is the latest session's round-trip estimate.
 	repairGaps, repairRepaired, repairGaveUp, repairCancelled, repairSkipped, repairRTTUs atomic.Uint64
 
-	// The latest tick sent to the console: its state (predictor.State as
+	// The latest tick sent to the console: its state (display.State as
 	// an int, 0 before the first tick) and its picture age in microseconds.
 	stateNow   atomic.Int32
 	pictureAge atomic.Int64
@@ -153,15 +153,22 @@ func newMetrics() *metrics {
 	return &metrics{addedLatency: newHistogram(), decode: newHistogram(), encode: newHistogram(), synth: newHistogram()}
 }
 
-// setCurrent records the state and picture age of the tick just sent.
-func (m *metrics) setCurrent(st predictor.State, ageMs float64) {
+// tick counts a tick decided in state st and makes it the latest: its
+// state and picture age are the current ones. A NOT_SHOWN tick keeps the
+// picture age of the tick before it (the picture on screen did not change).
+func (m *metrics) tick(st display.State, ageMs float64) {
+	if st.Valid() {
+		m.ticks[st].Add(1)
+	}
 	m.stateNow.Store(int32(st))
-	m.pictureAge.Store(int64(math.Round(ageMs * 1000)))
+	if st != display.StateNotShown {
+		m.pictureAge.Store(int64(math.Round(ageMs * 1000)))
+	}
 }
 
 // writeText writes the metrics in the Prometheus text exposition format
 // (version 0.0.4). Every name starts with MetricPrefix; state label values
-// are the lower-case String names of predictor.State.
+// are the lower-case String names of display.State (every state, one series each).
 func (m *metrics) writeText(w io.Writer, active int, pt passthru.Stats) {
 	const p = MetricPrefix
 	counter := func(name, help string, v uint64) {
@@ -172,24 +179,19 @@ func (m *metrics) writeText(w io.Writer, active int, pt passthru.Stats) {
 		name = p + name
 		fmt.Fprintf(w, "# HELP %s %s\n# TYPE %s gauge\n%s %g\n", name, help, name, name, v)
 	}
-	states := [...]struct {
-		st predictor.State
-		n  uint64
-	}{{predictor.StateLive, m.ticksLive.Load()}, {predictor.StatePredicted, m.ticksPredicted.Load()}, {predictor.StateStale, m.ticksStale.Load()}}
-
 	counter("frames_in", "Video frames received complete and decoded.", m.framesIn.Load())
-	fmt.Fprintf(w, "# HELP %[1]sticks_total Display ticks sent to the console, by state.\n# TYPE %[1]sticks_total counter\n", p)
-	for _, s := range states {
-		fmt.Fprintf(w, "%sticks_total{state=%q} %d\n", p, strings.ToLower(s.st.String()), s.n)
+	fmt.Fprintf(w, "# HELP %[1]sticks_total Display ticks decided, by state.\n# TYPE %[1]sticks_total counter\n", p)
+	for _, st := range display.States {
+		fmt.Fprintf(w, "%sticks_total{state=%q} %d\n", p, strings.ToLower(st.String()), m.ticks[st].Load())
 	}
-	now := predictor.State(m.stateNow.Load())
+	now := display.State(m.stateNow.Load())
 	fmt.Fprintf(w, "# HELP %[1]sframe_state State of the latest display tick: 1 for its state, 0 for the others (all 0 before the first tick).\n# TYPE %[1]sframe_state gauge\n", p)
-	for _, s := range states {
+	for _, st := range display.States {
 		v := 0
-		if s.st == now {
+		if st == now {
 			v = 1
 		}
-		fmt.Fprintf(w, "%sframe_state{state=%q} %d\n", p, strings.ToLower(s.st.String()), v)
+		fmt.Fprintf(w, "%sframe_state{state=%q} %d\n", p, strings.ToLower(st.String()), v)
 	}
 	gauge("picture_age_seconds", "Picture age of the latest display tick: time from the capture of the newest real frame on screen to the tick.", float64(m.pictureAge.Load())/1e6)
 	counter("frames_forwarded", "Video frames passed through to the console untouched (pass-through mode).", pt.Forwarded)

@@ -5,7 +5,7 @@ import (
 	"strings"
 	"testing"
 
-	"stopgap/predictor"
+	"stopgap/internal/display"
 	"stopgap/stream/passthru"
 )
 
@@ -18,7 +18,9 @@ func TestMetricNames(t *testing.T) {
 	m := newMetrics()
 	m.decodeErrors.Add(2)
 	m.keyframeRequestsFailed.Add(3)
-	m.setCurrent(predictor.StatePredicted, 133.4)
+	m.tick(display.StateNoPicture, 0)
+	m.tick(display.StatePredicted, 133.4)
+	m.tick(display.StatePredicted, 133.4)
 	var b strings.Builder
 	m.writeText(&b, 1, passthru.Stats{})
 	text := b.String()
@@ -53,8 +55,32 @@ func TestMetricNames(t *testing.T) {
 		`stopgap_frame_state{state="live"} 0` + "\n",
 		"stopgap_picture_age_seconds 0.1334\n",
 		`stopgap_ticks_total{state="stale"} 0` + "\n",
+		`stopgap_ticks_total{state="predicted"} 2` + "\n",
+		`stopgap_ticks_total{state="no_picture"} 1` + "\n",
+		`stopgap_ticks_total{state="not_shown"} 0` + "\n",
+		`stopgap_frame_state{state="no_picture"} 0` + "\n",
 	} {
 		if !strings.Contains(text, want) {
+			t.Errorf("exposition lacks %q", want)
+		}
+	}
+}
+
+// TestMetricNotShownKeepsAge: a tick decided but not put on screen is the
+// current state, and the picture age stays the one on screen.
+func TestMetricNotShownKeepsAge(t *testing.T) {
+	m := newMetrics()
+	m.tick(display.StateStale, 700)
+	m.tick(display.StateNotShown, 0)
+	var b strings.Builder
+	m.writeText(&b, 1, passthru.Stats{})
+	for _, want := range []string{
+		`stopgap_frame_state{state="not_shown"} 1` + "\n",
+		`stopgap_frame_state{state="stale"} 0` + "\n",
+		`stopgap_ticks_total{state="not_shown"} 1` + "\n",
+		"stopgap_picture_age_seconds 0.7\n",
+	} {
+		if !strings.Contains(b.String(), want) {
 			t.Errorf("exposition lacks %q", want)
 		}
 	}

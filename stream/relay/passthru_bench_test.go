@@ -9,6 +9,7 @@ import (
 
 	"github.com/pion/rtp"
 
+	"stopgap/internal/display"
 	"stopgap/predictor"
 	"stopgap/stream/rtpvp8"
 	"stopgap/stream/vp8"
@@ -140,7 +141,7 @@ func benchLiveFrame(b *testing.B, frames [][]byte, w, h int, transcode bool) flo
 	for range len(frames) { // warm-up: one keyframe interval
 		frame()
 	}
-	live0 := r.met.ticksLive.Load()
+	live0 := r.met.ticks[display.StateLive].Load()
 	tracing = true
 	b.ResetTimer()
 	c0 := threadCPU(b)
@@ -150,7 +151,7 @@ func benchLiveFrame(b *testing.B, frames [][]byte, w, h int, transcode bool) flo
 	cpu := threadCPU(b) - c0
 	b.StopTimer()
 	tracing = false
-	if got := r.met.ticksLive.Load() - live0; got != uint64(b.N) {
+	if got := r.met.ticks[display.StateLive].Load() - live0; got != uint64(b.N) {
 		b.Fatalf("%d LIVE ticks for %d frames", got, b.N)
 	}
 	perFrame := float64(cpu.Microseconds()) / 1000 / float64(b.N)

@@ -426,17 +426,8 @@ func (p *pipeline) emit(t cadence.Tick, captureUs int64, tick predictor.Tick, ev
 		}
 	}
 	cutoff := t.Policy.CutoffConfidence
-	switch tick.State {
-	case predictor.StateLive:
-		p.r.met.ticksLive.Add(1)
-	case predictor.StatePredicted:
-		p.r.met.ticksPredicted.Add(1)
-	default:
-		// STALE, and NO_PICTURE, which the tick counters count with STALE.
-		p.r.met.ticksStale.Add(1)
-	}
 	conf, age := finite(tick.Confidence), finite(tick.AgeMs)
-	p.r.met.setCurrent(tick.State, age)
+	p.r.met.tick(tick.State, age)
 	_, havePicture := p.filler.LastCaptureUs()
 	pol := predictor.Policy{CutoffConfidence: cutoff, MaxAgeMs: p.cfg.Policy.MaxAgeMs}
 	p.sendMeta(tickMeta(tick, captureUs, pol, havePicture))
@@ -524,6 +515,7 @@ func (p *pipeline) sendMeta(m console.Meta) {
 // row in the relay's ticks table: the recorder writes rows in index order
 // and waits for each row's tick.
 func (p *pipeline) recordNotShown(t cadence.Tick) {
+	p.r.met.tick(display.StateNotShown, 0)
 	p.sendMeta(notShownMeta(t, p.cfg.Policy.MaxAgeMs))
 	p.record(func(rc *recorder) {
 		rc.tick(p.recIndex(t.K), t.TargetUs, t.DeadlineUs, display.StateNotShown, 0, 0, t.Policy.CutoffConfidence)

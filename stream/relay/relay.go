@@ -14,6 +14,7 @@ import (
 	"time"
 
 	"stopgap/filter"
+	"stopgap/internal/display"
 	"stopgap/predictor"
 	"stopgap/stream/console"
 	"stopgap/stream/ingest"
@@ -31,8 +32,13 @@ type Stats struct {
 	// FramesIn counts frames received complete and decoded.
 	FramesIn uint64
 	// TicksLive, TicksPredicted and TicksStale count display ticks sent to
-	// the console by state.
+	// the console by state; TicksStale includes the NO_PICTURE ticks, as
+	// the replay's summary counts them (both show a held or no picture,
+	// never a real or predicted one). TicksNoPicture counts those alone,
+	// and TicksNotShown the ticks decided but not put on screen (in none
+	// of the others). The metrics export every state on its own.
 	TicksLive, TicksPredicted, TicksStale uint64
+	TicksNoPicture, TicksNotShown         uint64
 	// Losses counts assembler loss events and decode errors; KeyframeRequests
 	// the PLIs sent (including retries).
 	Losses, KeyframeRequests uint64
@@ -206,7 +212,9 @@ func (r *Relay) Stats() Stats {
 	return Stats{
 		Sessions: m.sessions.Load(), Active: active,
 		FramesIn:  m.framesIn.Load(),
-		TicksLive: m.ticksLive.Load(), TicksPredicted: m.ticksPredicted.Load(), TicksStale: m.ticksStale.Load(),
+		TicksLive: m.ticks[display.StateLive].Load(), TicksPredicted: m.ticks[display.StatePredicted].Load(),
+		TicksStale:     m.ticks[display.StateStale].Load() + m.ticks[display.StateNoPicture].Load(),
+		TicksNoPicture: m.ticks[display.StateNoPicture].Load(), TicksNotShown: m.ticks[display.StateNotShown].Load(),
 		Losses: m.losses.Load(), KeyframeRequests: m.keyframeRequests.Load(),
 		State: predictor.State(m.stateNow.Load()), PictureAgeMs: float64(m.pictureAge.Load()) / 1000,
 		LateFrames: m.lateFrames.Load(), FramesDropped: m.framesDropped.Load(), FramesMovedOn: m.framesMovedOn.Load(),
@@ -289,8 +297,9 @@ func (r *Relay) shutdown() error {
 		err = r.rec.close()
 	}
 	r.enc.Close()
-	r.log.Info("relay stopped", "frames_in", r.met.framesIn.Load(), "ticks_live", r.met.ticksLive.Load(),
-		"ticks_predicted", r.met.ticksPredicted.Load(), "ticks_stale", r.met.ticksStale.Load())
+	st := r.Stats()
+	r.log.Info("relay stopped", "frames_in", st.FramesIn, "ticks_live", st.TicksLive,
+		"ticks_predicted", st.TicksPredicted, "ticks_stale", st.TicksStale, "ticks_not_shown", st.TicksNotShown)
 	return err
 }
 
