@@ -391,7 +391,7 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 	if len(rec.Frames) == 0 {
 		return Summary{}, fmt.Errorf("replay: %s has no frames: %w", filepath.Join(cfg.Drive, "frames.csv"), ErrReplayInput)
 	}
-	cam := predictor.Camera(rec.Camera)
+	cam := rec.Camera
 	if err := cam.Validate(); err != nil {
 		return Summary{}, fmt.Errorf("replay: %s: %w", filepath.Join(cfg.Drive, "camera.json"), err)
 	}

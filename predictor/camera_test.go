@@ -21,46 +21,6 @@ func testCameras() map[string]Camera {
 	}
 }
 
-func TestCameraValidate(t *testing.T) {
-	good := testCameras()["hd-pitch-roll"]
-	if err := good.Validate(); err != nil {
-		t.Fatalf("good camera rejected: %v", err)
-	}
-	cases := []struct {
-		name  string
-		mod   func(*Camera)
-		field string
-	}{
-		{"zero width", func(c *Camera) { c.Width = 0 }, "Width"},
-		{"huge height", func(c *Camera) { c.Height = MaxImageSide + 1 }, "Height"},
-		{"zero fx", func(c *Camera) { c.Fx = 0 }, "Fx"},
-		{"negative fy", func(c *Camera) { c.Fy = -5 }, "Fy"},
-		{"nan cx", func(c *Camera) { c.Cx = math.NaN() }, "Cx"},
-		{"inf k1", func(c *Camera) { c.K1 = math.Inf(1) }, "K1"},
-		{"cx outside", func(c *Camera) { c.Cx = 2000 }, "Cx"},
-		{"cy negative", func(c *Camera) { c.Cy = -1 }, "Cy"},
-		{"height zero", func(c *Camera) { c.HeightM = 0 }, "HeightM"},
-		{"height negative", func(c *Camera) { c.HeightM = -1 }, "HeightM"},
-		{"pitch 90", func(c *Camera) { c.PitchDeg = 90 }, "PitchDeg"},
-		{"roll 60", func(c *Camera) { c.RollDeg = -60 }, "RollDeg"},
-		{"nan offset", func(c *Camera) { c.YOffsetM = math.NaN() }, "YOffsetM"},
-	}
-	for _, tc := range cases {
-		t.Run(tc.name, func(t *testing.T) {
-			c := good
-			tc.mod(&c)
-			err := c.Validate()
-			var ce *CameraError
-			if !errors.As(err, &ce) || !errors.Is(err, ErrInvalidCamera) {
-				t.Fatalf("got %v, want *CameraError wrapping ErrInvalidCamera", err)
-			}
-			if ce.Field != tc.field {
-				t.Fatalf("field %q, want %q (%v)", ce.Field, tc.field, err)
-			}
-		})
-	}
-}
-
 // TestRotationIsOrthonormal: R_cv must be a proper rotation (det +1, RᵀR = I).
 func TestRotationIsOrthonormal(t *testing.T) {
 	for name, c := range testCameras() {
@@ -231,7 +191,7 @@ func TestGroundHomographyMatchesOpenCV(t *testing.T) {
 				if err != nil {
 					t.Fatal(err)
 				}
-				h := c.GroundHomographyPlanar(m.dx, m.dy, m.yaw)
+				h := GroundHomographyPlanar(c, m.dx, m.dy, m.yaw)
 				for i := range pts {
 					u, v, ok := h.Apply(p0[i][0], p0[i][1])
 					if !ok || math.Abs(u-p1[i][0]) > 1e-6 || math.Abs(v-p1[i][1]) > 1e-6 {
@@ -259,7 +219,7 @@ func TestRotationHomographyFarPoints(t *testing.T) {
 			q := mul3v(rcv, vec3{rd[0] + c.XOffsetM, rd[1] + c.YOffsetM, rd[2] + c.HeightM})
 			rv1, _ := cvref.Rodrigues(r1)
 			p1, _ := cvref.ProjectPoints(pts, rv1, vec3{-q[0], -q[1], -q[2]}, c.K(), [5]float64{})
-			h := c.RotationHomographyPlanar(m.dx, m.dy, m.yaw)
+			h := RotationHomographyPlanar(c, m.dx, m.dy, m.yaw)
 			for i := range pts {
 				u, v, ok := h.Apply(p0[i][0], p0[i][1])
 				if !ok || math.Abs(u-p1[i][0]) > 0.1 || math.Abs(v-p1[i][1]) > 0.1 {
@@ -273,7 +233,7 @@ func TestRotationHomographyFarPoints(t *testing.T) {
 // TestZeroMotionIdentity: no motion gives identity homographies.
 func TestZeroMotionIdentity(t *testing.T) {
 	for name, c := range testCameras() {
-		for _, h := range []Homography{c.GroundHomographyPlanar(0, 0, 0), c.RotationHomographyPlanar(0, 0, 0)} {
+		for _, h := range []Homography{GroundHomographyPlanar(c, 0, 0, 0), RotationHomographyPlanar(c, 0, 0, 0)} {
 			for i := 0; i < 3; i++ {
 				for j := 0; j < 3; j++ {
 					if math.Abs(h[i][j]-IdentityHomography()[i][j]) > 1e-12 {
@@ -290,7 +250,7 @@ func TestZeroMotionIdentity(t *testing.T) {
 func TestHorizonInvariant(t *testing.T) {
 	c := testCameras()["hd-pitch-roll"]
 	hz := c.Horizon()
-	h := c.GroundHomographyPlanar(3, 0.4, 0.15)
+	h := GroundHomographyPlanar(c, 3, 0.4, 0.15)
 	for _, u := range []float64{100, 640, 1200} {
 		v, _ := hz.RowAt(u)
 		x, y, ok := h.Apply(u, v)
@@ -301,7 +261,7 @@ func TestHorizonInvariant(t *testing.T) {
 }
 
 func TestHomographyInverse(t *testing.T) {
-	h := testCameras()["vga-up-negroll"].GroundHomographyPlanar(1.2, -0.2, -0.3)
+	h := GroundHomographyPlanar(testCameras()["vga-up-negroll"], 1.2, -0.2, -0.3)
 	hi, err := h.Inverse()
 	if err != nil {
 		t.Fatal(err)

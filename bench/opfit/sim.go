@@ -65,7 +65,7 @@ func NewCourse(road simdrive.Config) (*Course, error) {
 	if err != nil {
 		return nil, err
 	}
-	return &Course{path: Path{XM: rx, YM: ry}, cam: predictor.Camera(rcam), rcam: rcam, durationS: road.DurationS, speedMps: road.SpeedMps}, nil
+	return &Course{path: Path{XM: rx, YM: ry}, cam: rcam, rcam: rcam, durationS: road.DurationS, speedMps: road.SpeedMps}, nil
 }
 
 // SimConfig describes a closed-loop simulated drive on a Course.

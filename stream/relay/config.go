@@ -57,7 +57,7 @@ type Config struct {
 	LatencyMs float64
 
 	// Camera is the vehicle camera (required; build it from camera.json via
-	// recording.Camera, e.g. predictor.Camera(rec.Camera)).
+	// recording.Camera, e.g. rec.Camera).
 	Camera predictor.Camera
 	// Policy gives MaxAgeMs (0 = predictor.DefaultMaxAgeMs). Its cutoff is
 	// ignored: each tick uses the console's Cutoff().

@@ -19,6 +19,7 @@ import (
 
 	"github.com/foxglove/mcap/go/mcap"
 
+	"stopgap/internal/camera"
 	"stopgap/stream/calib"
 	"stopgap/stream/recording"
 )
@@ -528,7 +529,7 @@ func frameBytes(typ string, data []byte, cam recording.Camera, pngBuf *bytes.Buf
 // encodings of REP 104's list that a colour camera sends.
 func rawImage(m *Image) (image.Image, error) {
 	w, h := int(m.Width), int(m.Height)
-	if w <= 0 || h <= 0 || w > recording.MaxImageSide || h > recording.MaxImageSide {
+	if w <= 0 || h <= 0 || w > camera.MaxImageSide || h > camera.MaxImageSide {
 		return nil, fmt.Errorf("size %dx%d out of range", w, h)
 	}
 	var ch int
@@ -573,7 +574,7 @@ func rawImage(m *Image) (image.Image, error) {
 // the calibration files' converter (calib.FromKD: K to fx fy cx cy, D to
 // OpenCV's k1 k2 p1 p2 k3). The mount is left zero.
 func cameraFromInfo(ci *CameraInfo) (recording.Camera, error) {
-	if ci.Width == 0 || ci.Height == 0 || ci.Width > recording.MaxImageSide || ci.Height > recording.MaxImageSide {
+	if ci.Width == 0 || ci.Height == 0 || ci.Width > camera.MaxImageSide || ci.Height > camera.MaxImageSide {
 		return recording.Camera{}, fmt.Errorf("%w: width %d, height %d: the camera info has no usable image size", ErrMessage, ci.Width, ci.Height)
 	}
 	if ci.BinningX > 1 || ci.BinningY > 1 {
