@@ -35,8 +35,8 @@ func CheckMotion(m filter.Motion) error {
 
 // GroundHomography returns K (R - t nᵀ/d) K^-1, which maps undistorted
 // pixels of the frame captured at m.T0Us to undistorted pixels of the frame
-// at m.T1Us for points on the road plane. See Camera.GroundHomographyPlanar
-// for the derivation and Camera.RelativePose for R and t.
+// at m.T1Us for points on the road plane. See GroundHomographyPlanar for the
+// derivation and RelativePose for R and t.
 func GroundHomography(cam Camera, m filter.Motion) (Homography, error) {
 	if err := CheckMotion(m); err != nil {
 		return Homography{}, err

@@ -78,7 +78,7 @@ func TestReadCameraFileErrors(t *testing.T) {
 	tests := []struct{ name, content, want string }{
 		{"syntax", "{\n\"width\": 1280,\n\"height\": }", "line 3"},
 		{"type", "{\n\"width\": \"wide\"}", "line 2"},
-		{"invalid", `{"width":1280,"height":720,"fx":-1,"fy":1000,"cx":640,"cy":360,"height_m":1.4,"pitch_deg":5,"roll_deg":0,"x_offset_m":1.5,"y_offset_m":0}`, "column 33: invalid camera: fx = -1"},
+		{"invalid", `{"width":1280,"height":720,"fx":-1,"fy":1000,"cx":640,"cy":360,"height_m":1.4,"pitch_deg":5,"roll_deg":0,"x_offset_m":1.5,"y_offset_m":0}`, "line 1, column 28: invalid camera: fx = -1"},
 		{"trailing", "{\"width\":1280,\"height\":720,\"fx\":1000,\"fy\":1000,\"cx\":640,\"cy\":360}\n{\"fx\":1}", "line 2, column 1: malformed camera file: data after"},
 		// The README's recording format: unknown keys are an error, in the
 		// relay as in a recording.

@@ -66,8 +66,9 @@ type ImportOptions struct {
 	// Intrinsics, if not nil, is the camera (size, intrinsics, distortion;
 	// its mount is ignored), e.g. read from a calibration file with
 	// package stopgap/stream/calib; then no CameraInfo topic is read, and
-	// the camera frame for the mount is the images' header.frame_id.
-	Intrinsics *recording.Camera
+	// the camera frame for the mount is the images' header.frame_id. It is
+	// checked with Camera.ValidateIntrinsics before the mount is added.
+	Intrinsics *camera.Camera
 	// Mount, if not nil, is the camera mount; otherwise it is derived from
 	// the static transforms from BaseFrame to the camera's frame.
 	Mount *Mount
@@ -227,6 +228,9 @@ func Import(ctx context.Context, path, out string, opts ImportOptions) (ImportSu
 	switch {
 	case opts.Intrinsics != nil:
 		cam = *opts.Intrinsics
+		if err := cam.ValidateIntrinsics(); err != nil {
+			return sum, fmt.Errorf("ros2: %s: the given intrinsics: %w", path, err)
+		}
 	case info == nil:
 		return sum, fmt.Errorf("ros2: %s: %w: %s has no message", path, ErrTopic, sum.CameraInfoTopic)
 	default:
@@ -245,8 +249,9 @@ func Import(ctx context.Context, path, out string, opts ImportOptions) (ImportSu
 	}
 	cam.XOffsetM, cam.YOffsetM, cam.HeightM = mount.XOffsetM, mount.YOffsetM, mount.HeightM
 	cam.PitchDeg, cam.RollDeg = mount.PitchDeg, mount.RollDeg
+	// With its mount the camera is complete; a recording holds only such.
 	if err := cam.Validate(); err != nil {
-		return sum, fmt.Errorf("ros2: %s: %w", path, err)
+		return sum, fmt.Errorf("ros2: %s: camera with its mount: %w", path, err)
 	}
 	sum.Camera = cam
 	tel, sum.DroppedDuplicates = sortTelemetry(tel)
