@@ -41,16 +41,17 @@ func (c *Camera) keys() [16]key {
 
 // RequiredKeys and OptionalKeys list the keys of camera.json, in file order.
 // README.md's recording format names the same (a test compares them).
-func RequiredKeys() []string { return keyNames(true) }
+func RequiredKeys() []string { return keyNames(func(k key) bool { return k.required }) }
 
 // OptionalKeys lists the keys a camera.json may leave out (they are then 0).
-func OptionalKeys() []string { return keyNames(false) }
+func OptionalKeys() []string { return keyNames(func(k key) bool { return !k.required }) }
 
-func keyNames(required bool) []string {
+// keyNames returns the names of the keys that keep selects, in file order.
+func keyNames(keep func(key) bool) []string {
 	var c Camera
 	var out []string
 	for _, k := range c.keys() {
-		if k.required == required {
+		if keep(k) {
 			out = append(out, k.name)
 		}
 	}
@@ -117,7 +118,7 @@ func Decode(file string, data []byte) (Camera, error) {
 			}
 		}
 		if k < 0 {
-			return Camera{}, d.errAt(start, "%w: unknown key %q; the keys are %s (spelt exactly so)", ErrFile, name, strings.Join(append(RequiredKeys(), OptionalKeys()...), " "))
+			return Camera{}, d.errAt(start, "%w: unknown key %q; the keys are %s (spelt exactly so; the distortion ones optional)", ErrFile, name, strings.Join(keyNames(func(key) bool { return true }), " "))
 		}
 		if at[k] >= 0 {
 			line, _ := d.lineCol(at[k])
