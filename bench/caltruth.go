@@ -60,7 +60,7 @@ func CalibrateTruth(ctx context.Context, cfg TruthCalibrationConfig) (Calibratio
 		if len(rec.Truth) != len(rec.Frames) || len(rec.Frames) == 0 {
 			return Calibration{}, fmt.Errorf("calibration: %s must hold one truth row per frame: %w", filepath.Join(d, recording.TruthFile), ErrReplayInput)
 		}
-		cam := predictor.Camera(rec.Camera)
+		cam := rec.Camera
 		captureUs := make([]int64, len(rec.Frames))
 		for i, f := range rec.Frames {
 			captureUs[i] = f.CaptureUs

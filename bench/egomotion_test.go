@@ -39,7 +39,7 @@ func egoErrors(t *testing.T, dir string, truth func(i int) (x, y, yaw float64)) 
 	if err != nil {
 		t.Fatal(err)
 	}
-	cam := predictor.Camera(rec.Camera)
+	cam := rec.Camera
 	em, err := predictor.NewEgoMotion(predictor.EgoMotionConfig{Camera: cam, Seed: 1})
 	if err != nil {
 		t.Fatal(err)

@@ -2,7 +2,6 @@ package bench
 
 import (
 	"context"
-	"encoding/json"
 	"fmt"
 	"image"
 	"image/color"
@@ -16,6 +15,7 @@ import (
 	"gocv.io/x/gocv"
 
 	"stopgap/filter"
+	"stopgap/internal/camera"
 	"stopgap/predictor"
 	"stopgap/stream/recording"
 )
@@ -134,7 +134,7 @@ func writePhotoDrive(t *testing.T, photoPath string, texelM float64, frames int)
 		s := float64(us) / 1e6
 		fmt.Fprintf(&tel, "%d,%.6f,%.6f\n", us, photoSpeed(s)+0.05*rng.NormFloat64(), photoYawRate(s)+0.005*rng.NormFloat64())
 	}
-	camJSON, err := json.Marshal(recording.Camera(cam))
+	camJSON, err := camera.Marshal(cam)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -220,7 +220,7 @@ func exactPoseScores(t *testing.T, dir string, sched Schedule, poses []photoPose
 	if err != nil {
 		t.Fatal(err)
 	}
-	cam := predictor.Camera(rec.Camera)
+	cam := rec.Camera
 	syn, err := predictor.NewSynthesizer(cam, predictor.SynthOptions{})
 	if err != nil {
 		t.Fatal(err)

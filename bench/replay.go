@@ -391,10 +391,7 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 	if len(rec.Frames) == 0 {
 		return Summary{}, fmt.Errorf("replay: %s has no frames: %w", filepath.Join(cfg.Drive, "frames.csv"), ErrReplayInput)
 	}
-	cam := predictor.Camera(rec.Camera)
-	if err := cam.Validate(); err != nil {
-		return Summary{}, fmt.Errorf("replay: %s: %w", filepath.Join(cfg.Drive, "camera.json"), err)
-	}
+	cam := rec.Camera // complete with its mount: recording.Open checked it
 
 	if cfg.PairToleranceMs < 0 || math.IsNaN(cfg.PairToleranceMs) || math.IsInf(cfg.PairToleranceMs, 0) {
 		return Summary{}, fmt.Errorf("replay: pairing tolerance %v ms must be a finite number >= 0: %w", cfg.PairToleranceMs, ErrReplayInput)

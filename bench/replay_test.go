@@ -338,7 +338,7 @@ func staticRecording(t testing.TB, video string, frames int) string {
 	if err := os.Symlink(video, filepath.Join(dir, "video.avi")); err != nil {
 		t.Fatal(err)
 	}
-	cam := `{"width":768,"height":576,"fx":700,"fy":700,"cx":384,"cy":288,"height_m":4,"pitch_deg":20}`
+	cam := `{"width":768,"height":576,"fx":700,"fy":700,"cx":384,"cy":288,"height_m":4,"pitch_deg":20,"roll_deg":0,"x_offset_m":0,"y_offset_m":0}`
 	write := func(name, s string) {
 		if err := os.WriteFile(filepath.Join(dir, name), []byte(s), 0o644); err != nil {
 			t.Fatal(err)

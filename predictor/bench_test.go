@@ -36,7 +36,7 @@ func BenchmarkWarpPerspectiveBare1280x720(b *testing.B) {
 	defer src.Close()
 	dst := gocv.NewMatWithSize(c.Height, c.Width, gocv.MatTypeCV8UC3)
 	defer dst.Close()
-	h := c.RotationHomographyPlanar(1.2, 0.05, 0.02)
+	h := RotationHomographyPlanar(c, 1.2, 0.05, 0.02)
 	m := gocv.NewMatWithSize(3, 3, gocv.MatTypeCV64F)
 	defer m.Close()
 	if err := setMat3(&m, h); err != nil {
@@ -100,7 +100,7 @@ func BenchmarkSynthesizeWarpOnly1280x720(b *testing.B) {
 	defer src.Close()
 	dst := gocv.NewMatWithSize(c.Height, c.Width, gocv.MatTypeCV8UC3)
 	defer dst.Close()
-	g, r := c.GroundHomographyPlanar(1.2, 0.05, 0.02), c.RotationHomographyPlanar(1.2, 0.05, 0.02)
+	g, r := GroundHomographyPlanar(c, 1.2, 0.05, 0.02), RotationHomographyPlanar(c, 1.2, 0.05, 0.02)
 	b.ReportAllocs()
 	b.ResetTimer()
 	for i := 0; i < b.N; i++ {
@@ -131,7 +131,7 @@ func BenchmarkSynthVsBare1280x720(b *testing.B) {
 	defer bare.Close()
 	m := gocv.NewMatWithSize(3, 3, gocv.MatTypeCV64F)
 	defer m.Close()
-	if err := setMat3(&m, c.RotationHomographyPlanar(1.2, 0.05, 0.02)); err != nil {
+	if err := setMat3(&m, RotationHomographyPlanar(c, 1.2, 0.05, 0.02)); err != nil {
 		b.Fatal(err)
 	}
 	if _, err := f.Live(src, 0, &dst); err != nil {

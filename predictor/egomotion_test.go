@@ -26,7 +26,7 @@ func groundPair(t testing.TB, cam Camera, dx, dy, dyaw float64) (a, b gocv.Mat) 
 	b = gocv.NewMat()
 	hm := gocv.NewMatWithSize(3, 3, gocv.MatTypeCV64F)
 	defer hm.Close()
-	if err := setMat3(&hm, cam.GroundHomographyPlanar(dx, dy, dyaw)); err != nil {
+	if err := setMat3(&hm, GroundHomographyPlanar(cam, dx, dy, dyaw)); err != nil {
 		t.Fatal(err)
 	}
 	gocv.WarpPerspectiveWithParams(a, &b, hm, image.Pt(cam.Width, cam.Height), gocv.InterpolationLinear, gocv.BorderReflect101, neutralFill)
@@ -156,7 +156,7 @@ func BenchmarkEgoMotionVsBare1280x720(b *testing.B) {
 	defer bare.Close()
 	hm := gocv.NewMatWithSize(3, 3, gocv.MatTypeCV64F)
 	defer hm.Close()
-	if err := setMat3(&hm, c.RotationHomographyPlanar(1.2, 0.05, 0.02)); err != nil {
+	if err := setMat3(&hm, RotationHomographyPlanar(c, 1.2, 0.05, 0.02)); err != nil {
 		b.Fatal(err)
 	}
 	if _, _, err := e.Observe(fa, 0); err != nil {

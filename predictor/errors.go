@@ -2,8 +2,8 @@ package predictor
 
 import (
 	"errors"
-	"fmt"
 
+	"stopgap/internal/camera"
 	"stopgap/internal/display"
 )
 
@@ -11,8 +11,9 @@ import (
 // callers can test with errors.Is.
 var (
 	// ErrInvalidCamera reports a Camera that fails Validate. The wrapping
-	// *CameraError names the field.
-	ErrInvalidCamera = errors.New("predictor: invalid camera")
+	// *camera.Error names the JSON key. It is camera.ErrInvalid (Camera is
+	// camera's type).
+	ErrInvalidCamera = camera.ErrInvalid
 
 	// ErrInvalidMotion reports a filter.Motion with non-finite values, a
 	// covariance with a negative or non-finite diagonal, or T1 before T0.
@@ -35,8 +36,9 @@ var (
 	ErrSingular = errors.New("predictor: singular or non-finite homography")
 
 	// ErrBehindCamera reports a point that is on or behind the camera's image
-	// plane (camera z <= 0) and so has no pixel.
-	ErrBehindCamera = errors.New("predictor: point is not in front of the camera")
+	// plane (camera z <= 0) and so has no pixel. It is
+	// camera.ErrBehindCamera, which the projections of Camera return.
+	ErrBehindCamera = camera.ErrBehindCamera
 
 	// ErrNoFrame reports a gap tick before any real frame has been seen. The
 	// Filler still writes a labelled "no picture" frame to dst.
@@ -57,19 +59,3 @@ var (
 	// newer than the previous one.
 	ErrTimeOrder = errors.New("predictor: frame not after the previous one")
 )
-
-// CameraError is returned by Camera.Validate. It names the offending field
-// and wraps ErrInvalidCamera.
-type CameraError struct {
-	Field  string  // Go field name, e.g. "Fx"
-	Value  float64 // offending value
-	Reason string  // what is wrong and how to fix it
-}
-
-// Error implements error.
-func (e *CameraError) Error() string {
-	return fmt.Sprintf("predictor: invalid camera: %s = %g: %s", e.Field, e.Value, e.Reason)
-}
-
-// Unwrap returns ErrInvalidCamera.
-func (e *CameraError) Unwrap() error { return ErrInvalidCamera }

@@ -188,7 +188,7 @@ func (e *FarDepthEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.M
 		if i >= 0 {
 			d = candidates[i]
 		}
-		hs := scaleHomography(cam.FarHomographyPlanar(m.DxM, m.DyM, m.DyawRad, d), s, sy)
+		hs := scaleHomography(FarHomographyPlanar(cam, m.DxM, m.DyM, m.DyawRad, d), s, sy)
 		if !hs.IsFinite() {
 			continue
 		}

@@ -45,7 +45,7 @@ func TestFarHomographyMatchesOpenCV(t *testing.T) {
 				if err != nil {
 					t.Fatal(err)
 				}
-				h := c.FarHomographyPlanar(m.dx, m.dy, m.yaw, depth)
+				h := FarHomographyPlanar(c, m.dx, m.dy, m.yaw, depth)
 				for i := range pts {
 					u, v, ok := h.Apply(p0[i][0], p0[i][1])
 					if !ok || math.Abs(u-p1[i][0]) > 1e-6 || math.Abs(v-p1[i][1]) > 1e-6 {
@@ -55,7 +55,7 @@ func TestFarHomographyMatchesOpenCV(t *testing.T) {
 			}
 		}
 		// Infinite depth is the rotation-only map.
-		if a, b := c.FarHomographyPlanar(2, 0.3, 0.1, math.Inf(1)), c.RotationHomographyPlanar(2, 0.3, 0.1); a != b {
+		if a, b := FarHomographyPlanar(c, 2, 0.3, 0.1, math.Inf(1)), RotationHomographyPlanar(c, 2, 0.3, 0.1); a != b {
 			t.Errorf("%s: infinite depth %v differs from rotation only %v", cname, a, b)
 		}
 	}
@@ -106,7 +106,7 @@ func TestFarDepthEstimateRecoversPlane(t *testing.T) {
 		{"baseline too short", 25, filter.Motion{T1Us: 10000, DxM: 0.1}, math.Inf(1)},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
-			h := cam.FarHomographyPlanar(tc.motion.DxM, tc.motion.DyM, tc.motion.DyawRad, tc.depth)
+			h := FarHomographyPlanar(cam, tc.motion.DxM, tc.motion.DyM, tc.motion.DyawRad, tc.depth)
 			if err := setMat3(&hm, h); err != nil {
 				t.Fatal(err)
 			}

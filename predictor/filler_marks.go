@@ -23,8 +23,8 @@ import (
 func (f *Filler) placeMarks(movers []Mover, m filter.Motion, farDepthM float64) {
 	f.marks = f.marks[:0]
 	c := f.cfg.Camera
-	road := c.GroundHomographyPlanar(m.DxM, m.DyM, m.DyawRad)
-	far := c.FarHomographyPlanar(m.DxM, m.DyM, m.DyawRad, farDepthM)
+	road := GroundHomographyPlanar(c, m.DxM, m.DyM, m.DyawRad)
+	far := FarHomographyPlanar(c, m.DxM, m.DyM, m.DyawRad, farDepthM)
 	hz := c.Horizon()
 	for _, mv := range movers {
 		b := mv.Box

@@ -30,7 +30,7 @@ func gapScene(t testing.TB, cam Camera, depthM float64) (prev, last gocv.Mat) {
 	hm := gocv.NewMatWithSize(3, 3, gocv.MatTypeCV64F)
 	defer hm.Close()
 	dx := gapSpeedMps * float64(gapFramePeriodUs) / 1e6
-	if err := setMat3(&hm, cam.FarHomographyPlanar(dx, 0, 0, depthM)); err != nil {
+	if err := setMat3(&hm, FarHomographyPlanar(cam, dx, 0, 0, depthM)); err != nil {
 		t.Fatal(err)
 	}
 	gocv.WarpPerspectiveWithParams(prev, &last, hm, image.Pt(cam.Width, cam.Height), gocv.InterpolationLinear, gocv.BorderReflect101, neutralFill)
@@ -109,7 +109,7 @@ func BenchmarkGapVsBare1280x720(b *testing.B) {
 	defer bare.Close()
 	m := gocv.NewMatWithSize(3, 3, gocv.MatTypeCV64F)
 	defer m.Close()
-	if err := setMat3(&m, c.RotationHomographyPlanar(1.2, 0.05, 0.02)); err != nil {
+	if err := setMat3(&m, RotationHomographyPlanar(c, 1.2, 0.05, 0.02)); err != nil {
 		b.Fatal(err)
 	}
 	tb := make([]time.Duration, 0, b.N)

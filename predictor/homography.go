@@ -76,7 +76,7 @@ func (h Homography) normalised() Homography {
 //
 // R rotates about the ground normal, so R n = n and n·t = 0: the camera keeps
 // its height above the road.
-func (c Camera) RelativePose(dxM, dyM, dyawRad float64) (r [3][3]float64, t [3]float64) {
+func RelativePose(c Camera, dxM, dyM, dyawRad float64) (r [3][3]float64, t [3]float64) {
 	rcv := c.RotationVehicleToCamera()
 	rzT := transpose3(rotZ(dyawRad))
 	r = mul33(mul33(rcv, rzT), transpose3(rcv))
@@ -94,8 +94,8 @@ func (c Camera) RelativePose(dxM, dyM, dyawRad float64) (r [3][3]float64, t [3]f
 // it, -n·X/d = 1, so X1 = R X + t = (R - t nᵀ/d) X. Pixels are p = K X up to
 // scale, hence p1 ~ K (R - t nᵀ/d) K^-1 p0. The result maps undistorted pixels
 // of the T0 frame to undistorted pixels of the T1 frame, for road points only.
-func (c Camera) GroundHomographyPlanar(dxM, dyM, dyawRad float64) Homography {
-	r, t := c.RelativePose(dxM, dyM, dyawRad)
+func GroundHomographyPlanar(c Camera, dxM, dyM, dyawRad float64) Homography {
+	r, t := RelativePose(c, dxM, dyM, dyawRad)
 	n := c.GroundNormalCamera()
 	d := c.HeightM
 	var a mat3
@@ -104,7 +104,7 @@ func (c Camera) GroundHomographyPlanar(dxM, dyM, dyawRad float64) Homography {
 			a[i][j] = r[i][j] - t[i]*n[j]/d
 		}
 	}
-	return Homography(mul33(mul33(c.K(), a), c.kInv())).normalised()
+	return Homography(mul33(mul33(c.K(), a), c.KInv())).normalised()
 }
 
 // FarHomographyPlanar is the map for the far scene (above the horizon) when
@@ -114,23 +114,23 @@ func (c Camera) GroundHomographyPlanar(dxM, dyM, dyawRad float64) Homography {
 // t). An infinite or non-positive depthM gives the rotation-only map
 // K R K^-1. Plane-induced homography: Hartley and Zisserman, "Multiple View
 // Geometry", 2nd ed., result 13.1 (section number from memory).
-func (c Camera) FarHomographyPlanar(dxM, dyM, dyawRad, depthM float64) Homography {
+func FarHomographyPlanar(c Camera, dxM, dyM, dyawRad, depthM float64) Homography {
 	if !(depthM > 0) || math.IsInf(depthM, 1) {
-		return c.RotationHomographyPlanar(dxM, dyM, dyawRad)
+		return RotationHomographyPlanar(c, dxM, dyM, dyawRad)
 	}
-	r, t := c.RelativePose(dxM, dyM, dyawRad)
+	r, t := RelativePose(c, dxM, dyM, dyawRad)
 	for i := 0; i < 3; i++ {
 		r[i][2] += t[i] / depthM
 	}
-	return Homography(mul33(mul33(c.K(), r), c.kInv())).normalised()
+	return Homography(mul33(mul33(c.K(), r), c.KInv())).normalised()
 }
 
 // RotationHomographyPlanar is RotationHomography for a planar motion given as
 // numbers: K R K^-1, the limit of the ground homography for a plane at
 // infinity, used for far scenery above the horizon (translation is ignored).
-func (c Camera) RotationHomographyPlanar(dxM, dyM, dyawRad float64) Homography {
-	r, _ := c.RelativePose(dxM, dyM, dyawRad)
-	return Homography(mul33(mul33(c.K(), r), c.kInv())).normalised()
+func RotationHomographyPlanar(c Camera, dxM, dyM, dyawRad float64) Homography {
+	r, _ := RelativePose(c, dxM, dyM, dyawRad)
+	return Homography(mul33(mul33(c.K(), r), c.KInv())).normalised()
 }
 
 // shiftRows returns H composed with a row shift: the map takes ROI

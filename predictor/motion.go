@@ -35,13 +35,13 @@ func CheckMotion(m filter.Motion) error {
 
 // GroundHomography returns K (R - t nᵀ/d) K^-1, which maps undistorted
 // pixels of the frame captured at m.T0Us to undistorted pixels of the frame
-// at m.T1Us for points on the road plane. See Camera.GroundHomographyPlanar
-// for the derivation and Camera.RelativePose for R and t.
+// at m.T1Us for points on the road plane. See GroundHomographyPlanar for the
+// derivation and RelativePose for R and t.
 func GroundHomography(cam Camera, m filter.Motion) (Homography, error) {
 	if err := CheckMotion(m); err != nil {
 		return Homography{}, err
 	}
-	return cam.GroundHomographyPlanar(m.DxM, m.DyM, m.DyawRad), nil
+	return GroundHomographyPlanar(cam, m.DxM, m.DyM, m.DyawRad), nil
 }
 
 // RotationHomography returns K R K^-1, the map for far scenery (above the
@@ -50,7 +50,7 @@ func RotationHomography(cam Camera, m filter.Motion) (Homography, error) {
 	if err := CheckMotion(m); err != nil {
 		return Homography{}, err
 	}
-	return cam.RotationHomographyPlanar(m.DxM, m.DyM, m.DyawRad), nil
+	return RotationHomographyPlanar(cam, m.DxM, m.DyM, m.DyawRad), nil
 }
 
 // Confidence returns the confidence in [0, 1] of a prediction over motion m
@@ -83,7 +83,7 @@ func (s *Synthesizer) SynthesizeFar(src gocv.Mat, m filter.Motion, farDepthM flo
 	if err != nil {
 		return Synthesis{}, err
 	}
-	f := s.cam.FarHomographyPlanar(m.DxM, m.DyM, m.DyawRad, farDepthM)
+	f := FarHomographyPlanar(s.cam, m.DxM, m.DyM, m.DyawRad, farDepthM)
 	if !f.IsFinite() {
 		return Synthesis{}, fmt.Errorf("far-scene homography at depth %g m is not finite: %w", farDepthM, ErrSingular)
 	}

@@ -186,10 +186,10 @@ func (d *MoverDetector) Detect(prev, last gocv.Mat, cam Camera, m filter.Motion,
 		gocv.WarpPerspectiveWithParams(d.a, dst, d.hm, size, gocv.InterpolationLinear|gocv.WarpInverseMap, gocv.BorderReplicate, neutralFill)
 		return nil
 	}
-	if err := warp(cam.GroundHomographyPlanar(dx, dy, dyaw), &d.comp); err != nil {
+	if err := warp(GroundHomographyPlanar(cam, dx, dy, dyaw), &d.comp); err != nil {
 		return err
 	}
-	if err := warp(cam.FarHomographyPlanar(dx, dy, dyaw, farDepthM), &d.w); err != nil {
+	if err := warp(FarHomographyPlanar(cam, dx, dy, dyaw, farDepthM), &d.w); err != nil {
 		return err
 	}
 	cp, err := d.comp.DataPtrUint8()
@@ -222,7 +222,7 @@ func (d *MoverDetector) Detect(prev, last gocv.Mat, cam Camera, m filter.Motion,
 			}
 			// Only the segment's columns are warped (into the same place
 			// of the full-size scratch image).
-			hs := scaleHomography(cam.PlaneHomography(dx, dy, dyaw, seg.Plane), s, sy)
+			hs := scaleHomography(PlaneHomography(cam, dx, dy, dyaw, seg.Plane), s, sy)
 			if !hs.IsFinite() {
 				return fmt.Errorf("mover compensation: %w", ErrSingular)
 			}

@@ -219,7 +219,7 @@ func TestMarksOnMovingCamera(t *testing.T) {
 	frame := func(tUs int64) gocv.Mat {
 		m := filter.Motion{T1Us: tUs, DxM: speedMps * float64(tUs) / 1e6}
 		g, _ := GroundHomography(c, m)
-		f := c.FarHomographyPlanar(m.DxM, 0, 0, math.Inf(1))
+		f := FarHomographyPlanar(c, m.DxM, 0, 0, math.Inf(1))
 		gi, fi := mustInverse(t, g), mustInverse(t, f)
 		out := gocv.NewMatWithSize(c.Height, c.Width, gocv.MatTypeCV8UC3)
 		ov, err := matView(&out)

@@ -73,7 +73,7 @@ func TestZeroMotionReproducesSource(t *testing.T) {
 	defer src.Close()
 	dst := gocv.NewMat()
 	defer dst.Close()
-	g, f := c.GroundHomographyPlanar(0, 0, 0), c.RotationHomographyPlanar(0, 0, 0)
+	g, f := GroundHomographyPlanar(c, 0, 0, 0), RotationHomographyPlanar(c, 0, 0, 0)
 	far2 := f
 	far2[0][2] += 1e-9 // forces the split path; moves pixels by 1e-9 px
 	for name, pair := range map[string][2]Homography{"single": {IdentityHomography(), IdentityHomography()}, "split": {g, far2}} {
@@ -140,8 +140,8 @@ func TestUnfilledCountBruteForce(t *testing.T) {
 		src := constFrame(c.Width, c.Height, 255)
 		dst := gocv.NewMat()
 		for name, m := range fillMotions() {
-			g := c.GroundHomographyPlanar(m.dx, m.dy, m.yaw)
-			f := c.RotationHomographyPlanar(m.dx, m.dy, m.yaw)
+			g := GroundHomographyPlanar(c, m.dx, m.dy, m.yaw)
+			f := RotationHomographyPlanar(c, m.dx, m.dy, m.yaw)
 			if m == (planar{}) {
 				f[0][2] += 1e-9 // keep the split path
 			}
@@ -187,7 +187,7 @@ func TestUnfilledMatchesOpenCVOutput(t *testing.T) {
 	defer dst.Close()
 	tol := int(0.05*float64(2*(c.Width+c.Height))) + 1
 	for name, m := range fillMotions() {
-		g := c.GroundHomographyPlanar(m.dx, m.dy, m.yaw)
+		g := GroundHomographyPlanar(c, m.dx, m.dy, m.yaw)
 		syn, err := s.Warp(src, g, g, &dst)
 		if err != nil {
 			t.Fatal(err)

@@ -105,19 +105,19 @@ type Plane struct {
 // Geometry", 2nd ed., result 13.1, from memory). The ground is the plane
 // (n_up, -HeightM) and gives GroundHomographyPlanar; (e_z, D) gives
 // FarHomographyPlanar.
-func (c Camera) PlaneHomography(dxM, dyM, dyawRad float64, p Plane) Homography {
-	r, t := c.RelativePose(dxM, dyM, dyawRad)
+func PlaneHomography(c Camera, dxM, dyM, dyawRad float64, p Plane) Homography {
+	r, t := RelativePose(c, dxM, dyM, dyawRad)
 	for i := 0; i < 3; i++ {
 		for j := 0; j < 3; j++ {
 			r[i][j] += t[i] * p.Normal[j] / p.DistM
 		}
 	}
-	return Homography(mul33(mul33(c.K(), r), c.kInv())).normalised()
+	return Homography(mul33(mul33(c.K(), r), c.KInv())).normalised()
 }
 
 // verticalPlane returns the plane {P : a·P = b} of vehicle coordinates
 // (a a horizontal unit vector) in camera coordinates.
-func (c Camera) verticalPlane(a [3]float64, b float64) Plane {
+func verticalPlane(c Camera, a [3]float64, b float64) Plane {
 	// P = R_cvᵀ X + C, so a·P = (R_cv a)·X + a·C.
 	n := mul3v(c.RotationVehicleToCamera(), a)
 	return Plane{Normal: n, DistM: b - dot3(a, c.CentreVehicle())}
@@ -126,13 +126,13 @@ func (c Camera) verticalPlane(a [3]float64, b float64) Plane {
 // baseLine returns the image line where the plane meets the road: a pixel
 // whose ray r = K^-1 p meets both has n·r/d = -n_g·r/h, so the line is
 // K^-T (n/d + n_g/h). Not normalised.
-func (c Camera) baseLine(p Plane) [3]float64 {
+func baseLine(c Camera, p Plane) [3]float64 {
 	ng := c.GroundNormalCamera()
 	var v vec3
 	for i := 0; i < 3; i++ {
 		v[i] = p.Normal[i]/p.DistM + ng[i]/c.HeightM
 	}
-	return mul3v(transpose3(c.kInv()), v)
+	return mul3v(transpose3(c.KInv()), v)
 }
 
 // rowOn returns the row of line l at column u (ok false if l is vertical).
@@ -310,10 +310,10 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 		fronts = DefaultUprightFrontsM()
 	}
 	for _, y := range walls {
-		e.planes = append(e.planes, cam.verticalPlane(vec3{0, 1, 0}, y), cam.verticalPlane(vec3{0, -1, 0}, y))
+		e.planes = append(e.planes, verticalPlane(cam, vec3{0, 1, 0}, y), verticalPlane(cam, vec3{0, -1, 0}, y))
 	}
 	for _, x := range fronts {
-		e.planes = append(e.planes, cam.verticalPlane(vec3{1, 0, 0}, x))
+		e.planes = append(e.planes, verticalPlane(cam, vec3{1, 0, 0}, x))
 	}
 	dx, dy, dyaw := invertPlanar(m.DxM, m.DyM, m.DyawRad)
 	nb := (cam.Width + bandPx - 1) / bandPx
@@ -337,11 +337,11 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 		var hf Homography
 		switch k {
 		case 0:
-			hf = cam.GroundHomographyPlanar(dx, dy, dyaw)
+			hf = GroundHomographyPlanar(cam, dx, dy, dyaw)
 		case 1:
-			hf = cam.FarHomographyPlanar(dx, dy, dyaw, farDepthM)
+			hf = FarHomographyPlanar(cam, dx, dy, dyaw, farDepthM)
 		default:
-			hf = cam.PlaneHomography(dx, dy, dyaw, e.planes[k-2])
+			hf = PlaneHomography(cam, dx, dy, dyaw, e.planes[k-2])
 		}
 		hs := scaleHomography(hf, s, sy)
 		if !hs.IsFinite() {
@@ -360,7 +360,7 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 				if !ok {
 					continue
 				}
-				if seg, ok := cam.segment(e.planes[k-2], c0, c1, hzRow); ok {
+				if seg, ok := segment(cam, e.planes[k-2], c0, c1, hzRow); ok {
 					b0, b1 = min(b0, b), max(b1, b+1)
 					rows = max(rows, min(h, int(math.Ceil(math.Max(seg.BaseRow0, seg.BaseRow1)*sy))+1))
 				}
@@ -450,7 +450,7 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 		best, bestCost := -1, none*(1-gain)
 		var bestSeg UprightSegment
 		for i, p := range e.planes {
-			seg, ok := cam.segment(p, c0, c1, hzRow)
+			seg, ok := segment(cam, p, c0, c1, hzRow)
 			if !ok {
 				continue
 			}
@@ -485,8 +485,8 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 // segment builds the segment of plane p over columns [c0, c1); ok is false
 // when the plane does not stand on the road in front of the camera across
 // the whole band (its base line above the horizon, or behind the camera).
-func (c Camera) segment(p Plane, c0, c1 int, hzRow float64) (UprightSegment, bool) {
-	l := c.baseLine(p)
+func segment(c Camera, p Plane, c0, c1 int, hzRow float64) (UprightSegment, bool) {
+	l := baseLine(c, p)
 	seg := UprightSegment{Col0: c0, Col1: c1, Plane: p}
 	var ok0, ok1 bool
 	seg.BaseRow0, ok0 = rowOn(l, float64(c0)-0.5)
@@ -496,7 +496,7 @@ func (c Camera) segment(p Plane, c0, c1 int, hzRow float64) (UprightSegment, boo
 	}
 	// Depth of the base point at the band centre: the ray's road hit.
 	uc, vc := float64(c0+c1-1)/2, (seg.BaseRow0+seg.BaseRow1)/2
-	ki := c.kInv()
+	ki := c.KInv()
 	r := mul3v(ki, vec3{uc, vc, 1})
 	ng := c.GroundNormalCamera()
 	den := dot3(ng, r)
@@ -570,7 +570,7 @@ func (e *UprightEstimator) Explains(labels gocv.Mat, id int32, box image.Rectang
 		case k == 1:
 			ok = hzOK && vb < hzRow+tol
 		default:
-			r, on := rowOn(e.cam.baseLine(e.planes[k-2]), uc)
+			r, on := rowOn(baseLine(e.cam, e.planes[k-2]), uc)
 			ok = on && math.Abs(r-vb) <= tol
 		}
 		if ok {

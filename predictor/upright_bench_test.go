@@ -21,7 +21,7 @@ func streetModel(c Camera) UprightModel {
 	for c0 := 0; c0 < c.Width; c0 += DefaultUprightBandPx {
 		c1 := min(c0+DefaultUprightBandPx, c.Width)
 		for _, side := range []float64{1, -1} {
-			if seg, ok := c.segment(c.verticalPlane([3]float64{0, side, 0}, 4), c0, c1, hz); ok {
+			if seg, ok := segment(c, verticalPlane(c, [3]float64{0, side, 0}, 4), c0, c1, hz); ok {
 				seg.TopRow = float64(c.Height) / 4
 				m.Segments = append(m.Segments, seg)
 				break
@@ -55,7 +55,7 @@ func BenchmarkSceneVsBare1280x720(b *testing.B) {
 	defer bare.Close()
 	hm := gocv.NewMatWithSize(3, 3, gocv.MatTypeCV64F)
 	defer hm.Close()
-	if err := setMat3(&hm, c.RotationHomographyPlanar(1.2, 0.05, 0.02)); err != nil {
+	if err := setMat3(&hm, RotationHomographyPlanar(c, 1.2, 0.05, 0.02)); err != nil {
 		b.Fatal(err)
 	}
 	mo := filter.Motion{T0Us: 0, T1Us: 100_000, DxM: 1.2, DyM: 0.05, DyawRad: 0.02}
@@ -101,7 +101,7 @@ func BenchmarkUprightEstimate1280x720(b *testing.B) {
 	defer bare.Close()
 	hm := gocv.NewMatWithSize(3, 3, gocv.MatTypeCV64F)
 	defer hm.Close()
-	if err := setMat3(&hm, c.RotationHomographyPlanar(1.2, 0.05, 0.02)); err != nil {
+	if err := setMat3(&hm, RotationHomographyPlanar(c, 1.2, 0.05, 0.02)); err != nil {
 		b.Fatal(err)
 	}
 	mo := filter.Motion{T0Us: 0, T1Us: 33_333, DxM: 0.4}
@@ -149,7 +149,7 @@ func BenchmarkFillerTickVsBare1280x720(b *testing.B) {
 	defer bare.Close()
 	dst := gocv.NewMatWithSize(c.Height, c.Width, gocv.MatTypeCV8UC3)
 	defer dst.Close()
-	if err := setMat3(&hm, c.RotationHomographyPlanar(1.2, 0.05, 0.02)); err != nil {
+	if err := setMat3(&hm, RotationHomographyPlanar(c, 1.2, 0.05, 0.02)); err != nil {
 		b.Fatal(err)
 	}
 	var cb, ct, ce []time.Duration
@@ -199,10 +199,10 @@ func BenchmarkFillerTickVsBare1280x720(b *testing.B) {
 func streetPair(t testing.TB, c Camera) (prev, last gocv.Mat) {
 	t.Helper()
 	prev = texturedFrame(t, c.Width, c.Height, 1)
-	wall := c.verticalPlane([3]float64{0, 1, 0}, 4)
+	wall := verticalPlane(c, [3]float64{0, 1, 0}, 4)
 	hm := gocv.NewMatWithSize(3, 3, gocv.MatTypeCV64F)
 	defer hm.Close()
-	if err := setMat3(&hm, c.PlaneHomography(0.4, 0, 0, wall)); err != nil {
+	if err := setMat3(&hm, PlaneHomography(c, 0.4, 0, 0, wall)); err != nil {
 		t.Fatal(err)
 	}
 	last = gocv.NewMat()

@@ -60,7 +60,7 @@ func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM f
 	if err != nil {
 		return Synthesis{}, err
 	}
-	f := s.cam.FarHomographyPlanar(m.DxM, m.DyM, m.DyawRad, farDepthM)
+	f := FarHomographyPlanar(s.cam, m.DxM, m.DyM, m.DyawRad, farDepthM)
 	if !f.IsFinite() {
 		return Synthesis{}, fmt.Errorf("far-scene homography at depth %g m is not finite: %w", farDepthM, ErrSingular)
 	}
@@ -120,7 +120,7 @@ func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM f
 	// count needs no per-piece test.
 	const e = FillTolerancePx
 	for i, seg := range sc.order {
-		hf := c.PlaneHomography(m.DxM, m.DyM, m.DyawRad, seg.Plane)
+		hf := PlaneHomography(c, m.DxM, m.DyM, m.DyawRad, seg.Plane)
 		inv, err := hf.Inverse()
 		sc.inv = append(sc.inv, inv)
 		if err != nil || !hf.IsFinite() {

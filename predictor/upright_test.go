@@ -27,8 +27,8 @@ func TestPlaneHomographyMatchesGroundAndFar(t *testing.T) {
 		got  Homography
 		want Homography
 	}{
-		{"ground", c.PlaneHomography(dx, dy, yaw, Plane{c.GroundNormalCamera(), -c.HeightM}), c.GroundHomographyPlanar(dx, dy, yaw)},
-		{"far 20 m", c.PlaneHomography(dx, dy, yaw, Plane{[3]float64{0, 0, 1}, 20}), c.FarHomographyPlanar(dx, dy, yaw, 20)},
+		{"ground", PlaneHomography(c, dx, dy, yaw, Plane{c.GroundNormalCamera(), -c.HeightM}), GroundHomographyPlanar(c, dx, dy, yaw)},
+		{"far 20 m", PlaneHomography(c, dx, dy, yaw, Plane{[3]float64{0, 0, 1}, 20}), FarHomographyPlanar(c, dx, dy, yaw, 20)},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
 			for i := range tc.got {
@@ -50,9 +50,9 @@ func TestPlaneHomographyMatchesGroundAndFar(t *testing.T) {
 func TestWallHomographyMapsWallPoints(t *testing.T) {
 	c := smallCam()
 	const dx, dy, yaw = 1.1, 0.1, -0.03
-	p := c.verticalPlane([3]float64{0, 1, 0}, 4)
-	h := c.PlaneHomography(dx, dy, yaw, p)
-	base := c.baseLine(p)
+	p := verticalPlane(c, [3]float64{0, 1, 0}, 4)
+	h := PlaneHomography(c, dx, dy, yaw, p)
+	base := baseLine(c, p)
 	s, co := math.Sincos(yaw)
 	for _, pt := range [][3]float64{{8, 4, 0}, {12, 4, 2.5}, {20, 4, 0.7}, {30, 4, 6}} {
 		u0, v0, err := c.ProjectVehiclePointPinhole(pt)
@@ -86,7 +86,7 @@ func wallScene(t *testing.T, c Camera, m filter.Motion, p Plane) (prev, last goc
 	dx, dy, yaw := invertPlanar(m.DxM, m.DyM, m.DyawRad)
 	hm := gocv.NewMatWithSize(3, 3, gocv.MatTypeCV64F)
 	defer hm.Close()
-	if err := setMat3(&hm, c.PlaneHomography(dx, dy, yaw, p)); err != nil {
+	if err := setMat3(&hm, PlaneHomography(c, dx, dy, yaw, p)); err != nil {
 		t.Fatal(err)
 	}
 	prev = gocv.NewMat()
@@ -100,7 +100,7 @@ func wallScene(t *testing.T, c Camera, m filter.Motion, p Plane) (prev, last goc
 func TestUprightEstimateFindsWall(t *testing.T) {
 	c := uprightCam()
 	m := filter.Motion{T0Us: 0, T1Us: 100_000, DxM: 1.2}
-	wall := c.verticalPlane([3]float64{0, 1, 0}, 4)
+	wall := verticalPlane(c, [3]float64{0, 1, 0}, 4)
 	prev, last := wallScene(t, c, m, wall)
 	defer prev.Close()
 	defer last.Close()
@@ -116,7 +116,7 @@ func TestUprightEstimateFindsWall(t *testing.T) {
 	possible, right := 0, 0
 	hzRow, _ := c.Horizon().RowAt(0)
 	for c0 := 0; c0+16 <= c.Width; c0 += 16 {
-		seg, ok := c.segment(wall, c0, c0+16, hzRow)
+		seg, ok := segment(c, wall, c0, c0+16, hzRow)
 		if !ok || seg.BaseRow0 > float64(c.Height) {
 			continue // the wall cannot stand here, or its foot is below the image
 		}
@@ -144,16 +144,16 @@ func TestUprightEstimateFindsWall(t *testing.T) {
 func TestSynthesizeSceneWarpsWall(t *testing.T) {
 	c := uprightCam()
 	m := filter.Motion{T0Us: 0, T1Us: 100_000, DxM: 1.0}
-	wall := c.verticalPlane([3]float64{0, 1, 0}, 4)
+	wall := verticalPlane(c, [3]float64{0, 1, 0}, 4)
 	last := texturedFrame(t, c.Width, c.Height, 4)
 	defer last.Close()
-	hw := c.PlaneHomography(m.DxM, m.DyM, m.DyawRad, wall)
+	hw := PlaneHomography(c, m.DxM, m.DyM, m.DyawRad, wall)
 	truth := cvWarp(t, last, mustInverse(t, hw), c.Width, c.Height)
 	defer truth.Close()
 	hzRow, _ := c.Horizon().RowAt(0)
 	var model UprightModel
 	for c0 := 0; c0 < 96; c0 += 16 {
-		seg, ok := c.segment(wall, c0, c0+16, hzRow)
+		seg, ok := segment(c, wall, c0, c0+16, hzRow)
 		if !ok {
 			t.Fatalf("the wall cannot stand in band %d", c0)
 		}
@@ -262,7 +262,7 @@ func TestSynthesizeSceneOwnersBruteForce(t *testing.T) {
 			}
 			var own, above, below []quadMap
 			for _, seg := range segs {
-				hf := c.PlaneHomography(mo.DxM, mo.DyM, mo.DyawRad, seg.Plane)
+				hf := PlaneHomography(c, mo.DxM, mo.DyM, mo.DyawRad, seg.Plane)
 				x0, x1 := math.Max(float64(seg.Col0)-0.5, -e), math.Min(float64(seg.Col1)-0.5, float64(c.Width-1)+e)
 				top := math.Max(seg.TopRow, -e)
 				b0, b1 := math.Min(seg.BaseRow0, float64(c.Height-1)+e), math.Min(seg.BaseRow1, float64(c.Height-1)+e)

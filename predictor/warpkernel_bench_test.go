@@ -29,7 +29,7 @@ func BenchmarkWarpKernelVsBare1280x720(b *testing.B) {
 			defer bare.Close()
 			dst := gocv.NewMatWithSize(c.Height, c.Width, gocv.MatTypeCV8UC3)
 			defer dst.Close()
-			h := c.RotationHomographyPlanar(1.2, 0.05, 0.02)
+			h := RotationHomographyPlanar(c, 1.2, 0.05, 0.02)
 			m := gocv.NewMatWithSize(3, 3, gocv.MatTypeCV64F)
 			defer m.Close()
 			if err := setMat3(&m, h); err != nil {

@@ -10,7 +10,6 @@ import (
 	"stopgap/filter"
 	"stopgap/internal/lossmodel"
 	"stopgap/predictor"
-	"stopgap/stream/recording"
 )
 
 // SimOperator is a simulated driver for tests: a pure pursuit path follower
@@ -42,7 +41,6 @@ type SimOperator struct {
 type Course struct {
 	path      Path
 	cam       predictor.Camera
-	rcam      recording.Camera
 	durationS float64
 	speedMps  float64
 }
@@ -61,11 +59,11 @@ func NewCourse(road simdrive.Config) (*Course, error) {
 	if err != nil {
 		return nil, err
 	}
-	rcam, err := road.Camera()
+	cam, err := road.Camera()
 	if err != nil {
 		return nil, err
 	}
-	return &Course{path: Path{XM: rx, YM: ry}, cam: predictor.Camera(rcam), rcam: rcam, durationS: road.DurationS, speedMps: road.SpeedMps}, nil
+	return &Course{path: Path{XM: rx, YM: ry}, cam: cam, durationS: road.DurationS, speedMps: road.SpeedMps}, nil
 }
 
 // SimConfig describes a closed-loop simulated drive on a Course.

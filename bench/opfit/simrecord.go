@@ -2,12 +2,12 @@ package opfit
 
 import (
 	"bufio"
-	"encoding/json"
 	"fmt"
 	"os"
 	"path/filepath"
 	"strconv"
 
+	"stopgap/internal/camera"
 	"stopgap/stream/operator"
 	"stopgap/stream/recording"
 	"stopgap/stream/relay"
@@ -23,7 +23,7 @@ func (co *Course) WriteRecording(dir string, r SimResult) error {
 	if err := os.Mkdir(dir, 0o755); err != nil {
 		return err
 	}
-	cam, err := json.Marshal(co.rcam)
+	cam, err := camera.Marshal(co.cam)
 	if err != nil {
 		return err
 	}

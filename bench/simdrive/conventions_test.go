@@ -5,7 +5,6 @@ import (
 	"testing"
 
 	"stopgap/internal/cvref"
-	"stopgap/predictor"
 	"stopgap/stream/recording"
 )
 
@@ -52,7 +51,7 @@ func conventionRotation(pitchDeg, rollDeg float64) mat3 {
 
 // TestCameraModelsAgreeWithConventions projects the same world points through
 // the renderer's camera (simdrive), the predictor's camera
-// (predictor.Camera.ProjectVehiclePoint) and cv::projectPoints (OpenCV, the
+// (camera.Camera.ProjectVehiclePoint) and cv::projectPoints (OpenCV, the
 // reference) with a rotation built independently from the README's stated
 // conventions (conventionRotation); all three must agree to 1e-6 px, for
 // large pitch and roll of both signs, offsets, distortion and vehicle poses
@@ -79,7 +78,6 @@ func TestCameraModelsAgreeWithConventions(t *testing.T) {
 	for name, rc := range cams {
 		t.Run(name, func(t *testing.T) {
 			render := newPinhole(rc)
-			pcam := predictor.Camera(rc)
 			rvc := conventionRotation(rc.PitchDeg, rc.RollDeg)
 			k := [3][3]float64{{rc.Fx, 0, rc.Cx}, {0, rc.Fy, rc.Cy}, {0, 0, 1}}
 			dist := [5]float64{rc.K1, rc.K2, rc.P1, rc.P2, rc.K3}
@@ -107,7 +105,7 @@ func TestCameraModelsAgreeWithConventions(t *testing.T) {
 					if !ok {
 						t.Fatalf("pose %v point %v: behind the renderer's camera", p, v)
 					}
-					up, vp, err := pcam.ProjectVehiclePoint(v)
+					up, vp, err := rc.ProjectVehiclePoint(v)
 					if err != nil {
 						t.Fatalf("pose %v point %v: %v", p, v, err)
 					}
@@ -135,7 +133,7 @@ func TestCameraModelsAgreeWithConventions(t *testing.T) {
 	phi := rollDeg * math.Pi / 180
 	wantU, wantV := cx+f*aM*math.Cos(phi)/dM, cy-f*aM*math.Sin(phi)/dM // 443.1, 218.3
 	v := vec3{1.5 + dM, -aM, 1.4}
-	up, vp, err := predictor.Camera(rc).ProjectVehiclePoint(v)
+	up, vp, err := rc.ProjectVehiclePoint(v)
 	if err != nil {
 		t.Fatal(err)
 	}

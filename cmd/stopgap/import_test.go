@@ -13,6 +13,7 @@ import (
 	"stopgap/bench"
 	"stopgap/bench/simdrive"
 	"stopgap/filter"
+	"stopgap/internal/camera"
 	"stopgap/internal/lossmodel"
 	"stopgap/predictor"
 	"stopgap/stream/recording"
@@ -52,11 +53,11 @@ func TestImportRoundTripScores(t *testing.T) {
 	// The camera comes back exactly, the mount through /tf_static included
 	// (at 1280x720 a pitch of 4.999999999999999 instead of 5 already moves
 	// the fourth digit of the scores; this small drive would not show it).
-	ca, err := recording.ReadCameraFile(filepath.Join(drive, recording.CameraFile))
+	ca, err := camera.ReadFile(filepath.Join(drive, recording.CameraFile))
 	if err != nil {
 		t.Fatal(err)
 	}
-	cb, err := recording.ReadCameraFile(filepath.Join(imported, recording.CameraFile))
+	cb, err := camera.ReadFile(filepath.Join(imported, recording.CameraFile))
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -115,7 +116,7 @@ func TestCameraCommand(t *testing.T) {
 	if code := run(context.Background(), args, &so, &se); code != 0 {
 		t.Fatalf("exit %d: %s", code, se.String())
 	}
-	cam, err := recording.ReadCameraFile(out)
+	cam, err := camera.ReadFile(out)
 	if err != nil {
 		t.Fatal(err)
 	}

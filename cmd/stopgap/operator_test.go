@@ -84,7 +84,7 @@ func consoleCall(t *testing.T, method, url, token, body string) (int, string) {
 func TestRelayKeepsConsoleCutoffAcrossRestart(t *testing.T) {
 	dir := t.TempDir()
 	cam := filepath.Join(dir, "camera.json")
-	os.WriteFile(cam, []byte(`{"width": 160, "height": 90, "fx": 80, "fy": 80, "cx": 80, "cy": 45, "height_m": 1.4, "pitch_deg": 5}`), 0o644)
+	os.WriteFile(cam, []byte(`{"width": 160, "height": 90, "fx": 80, "fy": 80, "cx": 80, "cy": 45, "height_m": 1.4, "pitch_deg": 5, "roll_deg": 0, "x_offset_m": 1.5, "y_offset_m": 0}`), 0o644)
 	pol := filepath.Join(dir, "policy.json")
 	os.WriteFile(pol, []byte(`{"min_cutoff": 0.4, "max_cutoff": 0.9, "max_horizon_ms": 400}`), 0o644)
 	tok := filepath.Join(dir, "console.token")

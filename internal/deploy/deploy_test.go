@@ -21,6 +21,7 @@ import (
 	"sigs.k8s.io/yaml"
 
 	"stopgap/bench"
+	"stopgap/internal/camera"
 	"stopgap/stream/relay"
 )
 
@@ -191,8 +192,11 @@ func TestRelayManifests(t *testing.T) {
 		if cm.ConfigMap == nil || cm.ConfigMap.Name != cms[0].Name {
 			t.Errorf("volume camera does not mount the ConfigMap %s", cms[0].Name)
 		}
-		if _, ok := cms[0].Data["camera.json"]; !ok {
+		if js, ok := cms[0].Data["camera.json"]; !ok {
 			t.Error("the ConfigMap has no camera.json")
+		} else if _, err := camera.Decode("relay.yaml camera.json", []byte(js)); err != nil {
+			// The relay reads it with the one strict reader at start-up.
+			t.Errorf("the ConfigMap's camera.json would stop the relay: %v", err)
 		}
 		for flag, want := range map[string]string{
 			"--token-file=":         mounts["tokens"] + "/ingest",

@@ -11,10 +11,12 @@ import (
 	"path/filepath"
 	"regexp"
 	"runtime"
+	"slices"
 	"strings"
 	"testing"
 
 	"stopgap/internal/display"
+	"stopgap/internal/camera"
 	"stopgap/internal/vocab"
 )
 
@@ -226,5 +228,44 @@ func TestGuideAsksOnlyProjectCommands(t *testing.T) {
 		if !projectCommands[f[0]] {
 			t.Errorf("DEVELOPERS.md line %d asks for %q, which is not part of the project", i+1, f[0])
 		}
+	}
+}
+
+// TestCameraKeys: the README's recording format lists camera.json's required
+// and optional keys as the one reader (internal/camera) has them, in the
+// same order.
+func TestCameraKeys(t *testing.T) {
+	var row string
+	for _, line := range strings.Split(read(t, "README.md"), "\n") {
+		if strings.HasPrefix(line, "| `camera.json` |") {
+			row = line
+		}
+	}
+	if row == "" {
+		t.Fatal("README.md has no camera.json row in its recording format table")
+	}
+	req, opt, ok := strings.Cut(row, "Optional:")
+	if !ok {
+		t.Fatalf("the camera.json row does not say which keys are optional:\n%s", row)
+	}
+	_, req, ok = strings.Cut(req, "Required:")
+	if !ok {
+		t.Fatalf("the camera.json row does not say which keys are required:\n%s", row)
+	}
+	opt, _, _ = strings.Cut(opt, ".")
+	quoted := func(s string) []string {
+		var keys []string
+		for i, part := range strings.Split(s, "`") {
+			if i%2 == 1 && !strings.ContainsAny(part, " <>") {
+				keys = append(keys, part)
+			}
+		}
+		return keys
+	}
+	if got, want := quoted(req), camera.RequiredKeys(); !slices.Equal(got, want) {
+		t.Errorf("README's required camera.json keys %v, the reader's %v", got, want)
+	}
+	if got, want := quoted(opt), camera.OptionalKeys(); !slices.Equal(got, want) {
+		t.Errorf("README's optional camera.json keys %v, the reader's %v", got, want)
 	}
 }

@@ -28,6 +28,8 @@ var rules = []struct {
 	{"internal/lossmodel", []string{"stopgap/bench", "stopgap/predictor", "stopgap/stream/"}, "the link model is small and cgo-free"},
 	{"stream/ingest", []string{"stopgap/stream/whip", "stopgap/stream/rtpudp", "stopgap/stream/relay"}, "the ingest interface is neutral"},
 	{"filter", []string{"stopgap/predictor", "stopgap/bench", "stopgap/stream/"}, "the filter sits between stream and predictor"},
+	{"internal/camera", []string{"stopgap/predictor", "stopgap/stream/", "stopgap/bench", "stopgap/filter", "stopgap/internal/cvref"}, "the one camera type is shared by stream and predictor, so it depends on neither"},
+	{"stream/recording", []string{"stopgap/predictor", "stopgap/bench", "stopgap/internal/cvref"}, "the recording format stays cgo-free; it shares the camera type through internal/camera"},
 }
 
 // moduleRoot is the directory of go.mod, two levels above this file.

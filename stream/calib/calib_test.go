@@ -8,6 +8,7 @@ import (
 	"strings"
 	"testing"
 
+	"stopgap/internal/camera"
 	"stopgap/stream/recording"
 )
 
@@ -16,7 +17,7 @@ const openCVSample = "/usr/share/doc/opencv-doc/examples/data/left_intrinsics.ym
 
 // wantSample is the camera of openCVSample: the values as printed in the
 // file (camera_matrix and the five distortion_coefficients).
-var wantSample = recording.Camera{
+var wantSample = camera.Camera{
 	Width: 640, Height: 480,
 	Fx: 5.3591573396163199e+02, Fy: 5.3591573396163199e+02, Cx: 3.4228315473308373e+02, Cy: 2.3557082909788173e+02,
 	K1: -2.6637260909660682e-01, K2: -3.8588898922304653e-02, P1: 1.7831947042852964e-03, P2: -2.8122100441115472e-04, K3: 2.3839153080878486e-01,
@@ -26,13 +27,13 @@ func TestReadFile(t *testing.T) {
 	for _, tc := range []struct {
 		path   string
 		format Format
-		want   recording.Camera
+		want   camera.Camera
 	}{
 		{openCVSample, FormatOpenCVYAML, wantSample},
 		// Written by cv::FileStorage from the same file (testdata/opencv_convert.cpp).
 		{"testdata/left_intrinsics.xml", FormatOpenCVXML, wantSample},
 		// The layout of the ROS camera calibration tools (hand-written).
-		{"testdata/ros_camera_info.yaml", FormatROSYAML, recording.Camera{Width: 1280, Height: 720,
+		{"testdata/ros_camera_info.yaml", FormatROSYAML, camera.Camera{Width: 1280, Height: 720,
 			Fx: 905.5, Fy: 903.75, Cx: 641.25, Cy: 362.5, K1: -0.31, K2: 0.12, P1: 0.0004, P2: -0.0002}},
 	} {
 		t.Run(filepath.Base(tc.path), func(t *testing.T) {
@@ -123,14 +124,14 @@ func ExampleReadFile() {
 		fmt.Println(err)
 		return
 	}
-	cam.HeightM, cam.PitchDeg = 1.4, 5
+	cam.HeightM, cam.PitchDeg, cam.XOffsetM = 1.4, 5, 1.5
 	path := filepath.Join(os.TempDir(), "camera-example.json")
 	defer os.Remove(path)
 	if err := recording.WriteCameraFile(path, cam); err != nil {
 		fmt.Println(err)
 		return
 	}
-	back, err := recording.ReadCameraFile(path)
+	back, err := camera.ReadFile(path)
 	fmt.Println(format, back == cam, err)
 	// Output: OpenCV YAML true <nil>
 }

@@ -4,7 +4,7 @@ import (
 	"fmt"
 	"math"
 
-	"stopgap/stream/recording"
+	"stopgap/internal/camera"
 )
 
 // FromKD converts an image size, a row-major 3x3 camera matrix k and a
@@ -15,24 +15,25 @@ import (
 // name, "" included, when every coefficient is zero. It fails with
 // [ErrValue] for skew, a bad last row, a distortion our camera model does
 // not have (e.g. "equidistant", the fisheye model), or a camera that does
-// not pass recording.Camera.Validate; the error names the entry.
-func FromKD(width, height int, k [9]float64, model string, d []float64) (recording.Camera, string, error) {
+// not pass Camera.ValidateIntrinsics (the mount is not checked: a
+// calibration has none); the error names the entry.
+func FromKD(width, height int, k [9]float64, model string, d []float64) (camera.Camera, string, error) {
 	for i, v := range k {
 		if math.IsNaN(v) || math.IsInf(v, 0) {
-			return recording.Camera{}, "camera_matrix", fmt.Errorf("%w: element %d is %v", ErrValue, i, v)
+			return camera.Camera{}, "camera_matrix", fmt.Errorf("%w: element %d is %v", ErrValue, i, v)
 		}
 	}
 	if k[1] != 0 || k[3] != 0 || k[6] != 0 || k[7] != 0 || k[8] != 1 {
-		return recording.Camera{}, "camera_matrix", fmt.Errorf("%w: %v is not [fx 0 cx; 0 fy cy; 0 0 1]: skew or a last row other than 0 0 1 is not supported", ErrValue, k)
+		return camera.Camera{}, "camera_matrix", fmt.Errorf("%w: %v is not [fx 0 cx; 0 fy cy; 0 0 1]: skew or a last row other than 0 0 1 is not supported", ErrValue, k)
 	}
-	cam := recording.Camera{Width: width, Height: height, Fx: k[0], Fy: k[4], Cx: k[2], Cy: k[5]}
+	cam := camera.Camera{Width: width, Height: height, Fx: k[0], Fy: k[4], Cx: k[2], Cy: k[5]}
 	dist, err := brownConrady(model, d)
 	if err != nil {
-		return recording.Camera{}, "distortion_coefficients", err
+		return camera.Camera{}, "distortion_coefficients", err
 	}
 	cam.K1, cam.K2, cam.P1, cam.P2, cam.K3 = dist[0], dist[1], dist[2], dist[3], dist[4]
-	if err := cam.Validate(); err != nil {
-		return recording.Camera{}, "camera_matrix", fmt.Errorf("%w: %w", ErrValue, err)
+	if err := cam.ValidateIntrinsics(); err != nil {
+		return camera.Camera{}, "camera_matrix", fmt.Errorf("%w: %w", ErrValue, err)
 	}
 	return cam, "", nil
 }

@@ -1,6 +1,7 @@
 // Package calib reads a camera's intrinsics from the calibration files
-// teams already have and turns them into stopgap's camera.json (package
-// stopgap/stream/recording's Camera):
+// teams already have and turns them into stopgap's camera (package
+// stopgap/internal/camera's Camera, the content of camera.json) with a zero
+// mount, checked at the intrinsics level (Camera.ValidateIntrinsics):
 //
 //   - OpenCV FileStorage, YAML or XML, as OpenCV's calibration sample
 //     (samples/cpp/calibration.cpp) writes it: image_width, image_height,

@@ -7,12 +7,12 @@ import (
 	"strings"
 	"testing"
 
-	"stopgap/stream/recording"
+	"stopgap/internal/camera"
 )
 
 // writeAs renders cam in format with every number in its shortest exact
 // form, independently of the parser (the layouts of the package doc).
-func writeAs(format Format, cam recording.Camera) []byte {
+func writeAs(format Format, cam camera.Camera) []byte {
 	g := func(v float64) string { return strconv.FormatFloat(v, 'g', -1, 64) }
 	k := []string{g(cam.Fx), "0", g(cam.Cx), "0", g(cam.Fy), g(cam.Cy), "0", "0", "1"}
 	d := []string{g(cam.K1), g(cam.K2), g(cam.P1), g(cam.P2), g(cam.K3)}
@@ -40,7 +40,7 @@ func writeAs(format Format, cam recording.Camera) []byte {
 // FuzzParse feeds arbitrary files to the parser. Property (not enforced by
 // the parser itself): a file it accepts describes a camera that, written
 // out again in the same layout by writeAs, parses to the same camera, and
-// the camera passes recording.Camera.Validate.
+// the camera passes Camera.ValidateIntrinsics (a calibration has no mount).
 func FuzzParse(f *testing.F) {
 	for _, p := range []string{openCVSample, "testdata/left_intrinsics.xml", "testdata/ros_camera_info.yaml"} {
 		b, err := os.ReadFile(p)
@@ -59,7 +59,7 @@ func FuzzParse(f *testing.F) {
 			}
 			return
 		}
-		if err := cam.Validate(); err != nil {
+		if err := cam.ValidateIntrinsics(); err != nil {
 			t.Fatalf("accepted an invalid camera: %v", err)
 		}
 		again, format2, err := Parse("again", writeAs(format, cam))

@@ -13,7 +13,7 @@ import (
 
 	"go.yaml.in/yaml/v3"
 
-	"stopgap/stream/recording"
+	"stopgap/internal/camera"
 )
 
 // Format is the layout a calibration file was read from.
@@ -48,18 +48,18 @@ const maxFileBytes = 16 << 20
 const maxElems = 1 << 20
 
 // ReadFile reads the calibration file at path (see Parse).
-func ReadFile(path string) (recording.Camera, Format, error) {
+func ReadFile(path string) (camera.Camera, Format, error) {
 	f, err := os.Open(path)
 	if err != nil {
-		return recording.Camera{}, FormatInvalid, fmt.Errorf("calib: %w", err)
+		return camera.Camera{}, FormatInvalid, fmt.Errorf("calib: %w", err)
 	}
 	defer f.Close()
 	data, err := io.ReadAll(io.LimitReader(f, maxFileBytes+1))
 	if err != nil {
-		return recording.Camera{}, FormatInvalid, fmt.Errorf("calib: %w", err)
+		return camera.Camera{}, FormatInvalid, fmt.Errorf("calib: %w", err)
 	}
 	if len(data) > maxFileBytes {
-		return recording.Camera{}, FormatInvalid, &ParseError{File: path, Err: fmt.Errorf("%w: larger than %d bytes", ErrFormat, maxFileBytes)}
+		return camera.Camera{}, FormatInvalid, &ParseError{File: path, Err: fmt.Errorf("%w: larger than %d bytes", ErrFormat, maxFileBytes)}
 	}
 	return Parse(path, data)
 }
@@ -70,10 +70,10 @@ func ReadFile(path string) (recording.Camera, Format, error) {
 // its camera_matrix is an "!!opencv-matrix" node, ROS's otherwise. The
 // camera has a zero mount. Errors are [*ParseError] values naming the line
 // and key, wrapping [ErrFormat], [ErrMissing] or [ErrValue].
-func Parse(file string, data []byte) (recording.Camera, Format, error) {
+func Parse(file string, data []byte) (camera.Camera, Format, error) {
 	trimmed := bytes.TrimSpace(bytes.TrimPrefix(data, []byte{0xEF, 0xBB, 0xBF}))
 	if len(trimmed) == 0 {
-		return recording.Camera{}, FormatInvalid, &ParseError{File: file, Err: fmt.Errorf("%w: the file is empty", ErrFormat)}
+		return camera.Camera{}, FormatInvalid, &ParseError{File: file, Err: fmt.Errorf("%w: the file is empty", ErrFormat)}
 	}
 	if trimmed[0] == '<' {
 		cam, err := parseXML(file, data)
@@ -95,28 +95,28 @@ type fields struct {
 	model                 string
 }
 
-func (f *fields) camera(file string, format Format) (recording.Camera, error) {
+func (f *fields) camera(file string, format Format) (camera.Camera, error) {
 	if !f.haveW || !f.haveH {
-		return recording.Camera{}, &ParseError{File: file, Key: "image_width, image_height", Err: fmt.Errorf("%w: the image size is not in the file; add image_width and image_height (pixels) as the calibration tool wrote them", ErrMissing)}
+		return camera.Camera{}, &ParseError{File: file, Key: "image_width, image_height", Err: fmt.Errorf("%w: the image size is not in the file; add image_width and image_height (pixels) as the calibration tool wrote them", ErrMissing)}
 	}
 	if f.k == nil {
-		return recording.Camera{}, &ParseError{File: file, Key: "camera_matrix", Err: fmt.Errorf("%w: no camera_matrix; is this a camera calibration file?", ErrMissing)}
+		return camera.Camera{}, &ParseError{File: file, Key: "camera_matrix", Err: fmt.Errorf("%w: no camera_matrix; is this a camera calibration file?", ErrMissing)}
 	}
 	if len(f.k) != 9 {
-		return recording.Camera{}, &ParseError{File: file, Line: f.kLine, Key: "camera_matrix", Err: fmt.Errorf("%w: %d elements, want a 3x3 matrix", ErrValue, len(f.k))}
+		return camera.Camera{}, &ParseError{File: file, Line: f.kLine, Key: "camera_matrix", Err: fmt.Errorf("%w: %d elements, want a 3x3 matrix", ErrValue, len(f.k))}
 	}
 	if !f.haveD {
-		return recording.Camera{}, &ParseError{File: file, Key: "distortion_coefficients", Err: fmt.Errorf("%w: no distortion_coefficients; write zeros if the lens has no distortion", ErrMissing)}
+		return camera.Camera{}, &ParseError{File: file, Key: "distortion_coefficients", Err: fmt.Errorf("%w: no distortion_coefficients; write zeros if the lens has no distortion", ErrMissing)}
 	}
 	model := f.model
 	if format != FormatROSYAML {
 		model = "plumb_bob" // OpenCV's coefficient order
 	}
-	if f.width <= 0 || f.width > recording.MaxImageSide {
-		return recording.Camera{}, &ParseError{File: file, Line: f.widthLine, Key: "image_width", Err: fmt.Errorf("%w: %d pixels; want 1..%d", ErrValue, f.width, recording.MaxImageSide)}
+	if f.width <= 0 || f.width > camera.MaxImageSide {
+		return camera.Camera{}, &ParseError{File: file, Line: f.widthLine, Key: "image_width", Err: fmt.Errorf("%w: %d pixels; want 1..%d", ErrValue, f.width, camera.MaxImageSide)}
 	}
-	if f.height <= 0 || f.height > recording.MaxImageSide {
-		return recording.Camera{}, &ParseError{File: file, Line: f.heightLine, Key: "image_height", Err: fmt.Errorf("%w: %d pixels; want 1..%d", ErrValue, f.height, recording.MaxImageSide)}
+	if f.height <= 0 || f.height > camera.MaxImageSide {
+		return camera.Camera{}, &ParseError{File: file, Line: f.heightLine, Key: "image_height", Err: fmt.Errorf("%w: %d pixels; want 1..%d", ErrValue, f.height, camera.MaxImageSide)}
 	}
 	cam, key, err := FromKD(f.width, f.height, [9]float64(f.k), model, f.d)
 	if err != nil {
@@ -124,13 +124,13 @@ func (f *fields) camera(file string, format Format) (recording.Camera, error) {
 		if key == "distortion_coefficients" {
 			line = f.dLine
 		}
-		return recording.Camera{}, &ParseError{File: file, Line: line, Key: key, Err: err}
+		return camera.Camera{}, &ParseError{File: file, Line: line, Key: key, Err: err}
 	}
 	return cam, nil
 }
 
 // parseYAML reads either YAML layout.
-func parseYAML(file string, data []byte) (recording.Camera, Format, error) {
+func parseYAML(file string, data []byte) (camera.Camera, Format, error) {
 	format := FormatROSYAML
 	// OpenCV writes a "%YAML:1.0" directive that YAML 1.1/1.2 parsers do
 	// not accept (the colon); blank it out, keeping line numbers.
@@ -144,10 +144,10 @@ func parseYAML(file string, data []byte) (recording.Camera, Format, error) {
 	}
 	var doc yaml.Node
 	if err := yaml.Unmarshal(data, &doc); err != nil {
-		return recording.Camera{}, format, &ParseError{File: file, Err: fmt.Errorf("%w: %v", ErrFormat, err)}
+		return camera.Camera{}, format, &ParseError{File: file, Err: fmt.Errorf("%w: %v", ErrFormat, err)}
 	}
 	if doc.Kind != yaml.DocumentNode || len(doc.Content) != 1 || doc.Content[0].Kind != yaml.MappingNode {
-		return recording.Camera{}, format, &ParseError{File: file, Err: fmt.Errorf("%w: the top level is not a mapping of keys such as camera_matrix", ErrFormat)}
+		return camera.Camera{}, format, &ParseError{File: file, Err: fmt.Errorf("%w: the top level is not a mapping of keys such as camera_matrix", ErrFormat)}
 	}
 	top := doc.Content[0]
 	var f fields
@@ -180,9 +180,9 @@ func parseYAML(file string, data []byte) (recording.Camera, Format, error) {
 			var pe *ParseError
 			if errors.As(err, &pe) {
 				pe.File, pe.Key = file, key+pe.Key
-				return recording.Camera{}, format, pe
+				return camera.Camera{}, format, pe
 			}
-			return recording.Camera{}, format, &ParseError{File: file, Line: val.Line, Key: key, Err: err}
+			return camera.Camera{}, format, &ParseError{File: file, Line: val.Line, Key: key, Err: err}
 		}
 	}
 	cam, err := f.camera(file, format)
@@ -265,7 +265,7 @@ func parseNumber(s string) (float64, error) {
 // parseXML reads OpenCV's XML FileStorage: <opencv_storage> holding
 // <image_width>, <image_height> and matrices <name type_id="opencv-matrix">
 // with <rows>, <cols>, <dt> and whitespace-separated <data>.
-func parseXML(file string, data []byte) (recording.Camera, error) {
+func parseXML(file string, data []byte) (camera.Camera, error) {
 	dec := xml.NewDecoder(bytes.NewReader(data))
 	var f fields
 	depth := 0
@@ -284,7 +284,7 @@ func parseXML(file string, data []byte) (recording.Camera, error) {
 			break
 		}
 		if err != nil {
-			return recording.Camera{}, perr("", fmt.Errorf("%w: %v", ErrFormat, err))
+			return camera.Camera{}, perr("", fmt.Errorf("%w: %v", ErrFormat, err))
 		}
 		switch t := tok.(type) {
 		case xml.StartElement:
@@ -293,7 +293,7 @@ func parseXML(file string, data []byte) (recording.Camera, error) {
 			text.Reset()
 			if depth == 1 {
 				if t.Name.Local != "opencv_storage" {
-					return recording.Camera{}, perr(t.Name.Local, fmt.Errorf("%w: the root element is <%s>, want <opencv_storage>", ErrFormat, t.Name.Local))
+					return camera.Camera{}, perr(t.Name.Local, fmt.Errorf("%w: the root element is <%s>, want <opencv_storage>", ErrFormat, t.Name.Local))
 				}
 				sawRoot = true
 			}
@@ -301,11 +301,11 @@ func parseXML(file string, data []byte) (recording.Camera, error) {
 				mat.rows, mat.cols, mat.dt, mat.data, mat.line = -1, -1, "", "", line()
 			}
 			if depth > 3 {
-				return recording.Camera{}, perr(strings.Join(path[1:], "."), fmt.Errorf("%w: nested deeper than an opencv-matrix", ErrFormat))
+				return camera.Camera{}, perr(strings.Join(path[1:], "."), fmt.Errorf("%w: nested deeper than an opencv-matrix", ErrFormat))
 			}
 		case xml.CharData:
 			if text.Len()+len(t) > maxFileBytes {
-				return recording.Camera{}, perr("", fmt.Errorf("%w: text too long", ErrFormat))
+				return camera.Camera{}, perr("", fmt.Errorf("%w: text too long", ErrFormat))
 			}
 			text.Write(t)
 		case xml.EndElement:
@@ -347,7 +347,7 @@ func parseXML(file string, data []byte) (recording.Camera, error) {
 				}
 			}
 			if err != nil {
-				return recording.Camera{}, perr(key, err)
+				return camera.Camera{}, perr(key, err)
 			}
 			depth--
 			path = path[:len(path)-1]
@@ -355,7 +355,7 @@ func parseXML(file string, data []byte) (recording.Camera, error) {
 		}
 	}
 	if !sawRoot {
-		return recording.Camera{}, &ParseError{File: file, Err: fmt.Errorf("%w: no <opencv_storage> element", ErrFormat)}
+		return camera.Camera{}, &ParseError{File: file, Err: fmt.Errorf("%w: no <opencv_storage> element", ErrFormat)}
 	}
 	return f.camera(file, FormatOpenCVXML)
 }

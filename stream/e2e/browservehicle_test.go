@@ -20,7 +20,6 @@ import (
 
 	"gocv.io/x/gocv"
 
-	"stopgap/predictor"
 	"stopgap/stream/console/consoletest"
 	"stopgap/stream/recording"
 	"stopgap/stream/relay"
@@ -357,7 +356,7 @@ func startBrowserRig(t *testing.T, w, h int, driveS float64) *browserRig {
 	r.udpPort = pc.LocalAddr().(*net.UDPAddr).Port
 	pc.Close()
 	r.relay, err = relay.New(relay.Config{
-		FPS: 30, Camera: predictor.Camera(rec.Camera),
+		FPS: 30, Camera: rec.Camera,
 		IngestToken: ingestToken, ConsoleToken: consoleToken, Logger: quietLogger(),
 		Whip: whip.Config{Network: whip.Network{Interfaces: []string{ns.hostIf}, UDPPort: r.udpPort}},
 	})

@@ -16,7 +16,6 @@ import (
 	"github.com/pion/rtp"
 
 	"stopgap/bench/simdrive"
-	"stopgap/predictor"
 	"stopgap/stream/recording"
 	"stopgap/stream/relay"
 	"stopgap/stream/simvehicle"
@@ -213,7 +212,7 @@ func startRig(t testing.TB, o rigOptions) *rig {
 func relayConfig(rec *recording.Recording, recordDir string) (relay.Config, error) {
 	cfg := relay.Config{
 		FPS:          1e6 / float64(rec.Frames[1].CaptureUs-rec.Frames[0].CaptureUs),
-		Camera:       predictor.Camera(rec.Camera),
+		Camera:       rec.Camera,
 		IngestToken:  ingestToken,
 		ConsoleToken: consoleToken,
 		Whip:         whip.Config{Network: whip.Network{LoopbackOnly: true}},

@@ -174,7 +174,7 @@ func Run(ctx context.Context, cfg Config) error {
 	fps := 1e6 / float64(rec.Frames[1].CaptureUs-rec.Frames[0].CaptureUs)
 	rl, err := relay.New(relay.Config{
 		FPS:          fps,
-		Camera:       predictor.Camera(rec.Camera),
+		Camera:       rec.Camera,
 		RecordDir:    cfg.Record,
 		IngestToken:  ingestToken,
 		ConsoleToken: consoleToken,

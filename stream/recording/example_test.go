@@ -64,7 +64,7 @@ func ExampleParseError() {
 			log.Fatal(err)
 		}
 	}
-	write("camera.json", `{"width":640,"height":360,"fx":320,"fy":320,"cx":320,"cy":180}`)
+	write("camera.json", `{"width":640,"height":360,"fx":320,"fy":320,"cx":320,"cy":180,"height_m":1.4,"pitch_deg":5,"roll_deg":0,"x_offset_m":1.5,"y_offset_m":0}`)
 	write("frames.csv", "index,t_capture_us\n0,0\n1,0\n")
 	write("video.ivf", "DKIF")
 	write("telemetry.csv", "t_us,speed_mps,yaw_rate_rps\n")

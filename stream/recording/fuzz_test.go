@@ -85,42 +85,6 @@ func FuzzTelemetryCSV(f *testing.F) {
 	})
 }
 
-// FuzzCameraJSON feeds arbitrary bytes as camera.json: never panics, and an
-// accepted camera survives the round trip through the writer's encoding
-// (encodeCamera, what Create writes) and the reader with every field equal,
-// and the re-encoded file is a fixed point of that round trip.
-func FuzzCameraJSON(f *testing.F) {
-	f.Add([]byte(validCamera))
-	f.Add([]byte(`{"width":1,"height":1,"fx":1e-300,"fy":1,"cx":0,"cy":1}`))
-	f.Add([]byte(`{"width":1,"height":1,"fx":1,"fy":1,"cx":0,"cy":1,"fx":0}`))
-	f.Add([]byte(`[]`))
-	f.Add([]byte(`{"width":1e3}`))
-	f.Fuzz(func(t *testing.T, data []byte) {
-		cam, err := decodeCamera("camera.json", data)
-		if err != nil {
-			var pe *ParseError
-			if !errors.As(err, &pe) {
-				t.Fatalf("error %v is not a *ParseError", err)
-			}
-			return
-		}
-		js, err := encodeCamera(cam)
-		if err != nil {
-			t.Fatalf("accepted camera %+v cannot be written: %v", cam, err)
-		}
-		back, err := decodeCamera("camera.json", js)
-		if err != nil {
-			t.Fatalf("the writer's camera.json for %+v is refused by the reader: %v\n%s", cam, err, js)
-		}
-		if back != cam {
-			t.Fatalf("round trip changed the camera:\n read    %+v\n written %s\n re-read %+v", cam, js, back)
-		}
-		if js2, _ := encodeCamera(back); string(js2) != string(js) {
-			t.Fatalf("re-encoding is not stable:\n%s\n%s", js, js2)
-		}
-	})
-}
-
 // FuzzArrivalsCSV feeds arbitrary bytes as an arrivals file: accepted rows,
 // written back with every column and read again, are the same.
 func FuzzArrivalsCSV(f *testing.F) {

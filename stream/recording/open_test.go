@@ -19,7 +19,9 @@ const validCamera = `{
   "cy": 180,
   "height_m": 1.4,
   "pitch_deg": 5,
-  "x_offset_m": 1.2
+  "roll_deg": 0,
+  "x_offset_m": 1.2,
+  "y_offset_m": 0
 }
 `
 
@@ -245,12 +247,14 @@ func TestOpenErrors(t *testing.T) {
 		{"camera fy negative", map[string]string{CameraFile: cam(`"fy": 320`, `"fy": -1`)}, ErrCamera, CameraFile, 5, 3},
 		{"camera width zero", map[string]string{CameraFile: cam(`"width": 640`, `"width": 0`)}, ErrCamera, CameraFile, 2, 3},
 		{"camera height negative", map[string]string{CameraFile: cam(`"height": 360`, `"height": -360`)}, ErrCamera, CameraFile, 3, 3},
-		{"camera width fractional", map[string]string{CameraFile: cam(`"width": 640`, `"width": 640.5`)}, ErrCamera, CameraFile, 2, 17},
+		{"camera width fractional", map[string]string{CameraFile: cam(`"width": 640`, `"width": 640.5`)}, ErrCamera, CameraFile, 2, 12},
 		{"camera cx outside", map[string]string{CameraFile: cam(`"cx": 320`, `"cx": 641`)}, ErrCamera, CameraFile, 6, 3},
 		{"camera cy negative", map[string]string{CameraFile: cam(`"cy": 180`, `"cy": -0.5`)}, ErrCamera, CameraFile, 7, 3},
-		{"camera key missing", map[string]string{CameraFile: cam(`"cy": 180,`, ``)}, ErrCamera, CameraFile, 0, 0},
+		{"camera key missing", map[string]string{CameraFile: cam(`"cy": 180,`, ``)}, ErrCamera, CameraFile, 13, 1},
+		{"camera mount key missing", map[string]string{CameraFile: cam(`"roll_deg": 0,`, ``)}, ErrCamera, CameraFile, 13, 1},
+		{"camera height_m zero", map[string]string{CameraFile: cam(`"height_m": 1.4`, `"height_m": 0`)}, ErrCamera, CameraFile, 8, 3},
 		{"camera pitch 90", map[string]string{CameraFile: cam(`"pitch_deg": 5`, `"pitch_deg": 90`)}, ErrCamera, CameraFile, 9, 3},
-		{"camera trailing data", map[string]string{CameraFile: validCamera + "{}\n"}, ErrCamera, CameraFile, 12, 1},
+		{"camera trailing data", map[string]string{CameraFile: validCamera + "{}\n"}, ErrCamera, CameraFile, 14, 1},
 		{"camera empty", map[string]string{CameraFile: ""}, ErrCamera, CameraFile, 0, 0},
 
 		{"frames missing", map[string]string{FramesFile: deleted}, ErrMissingFile, FramesFile, 0, 0},

@@ -53,9 +53,10 @@ type Writer struct {
 
 // Create makes dir (and parents) if needed and starts a recording in it. It
 // fails with [ErrExists] if dir already holds camera.json or frames.csv. The
-// camera must pass [Camera.Validate].
+// camera must pass Camera.Validate (the complete level, mount included).
 func Create(dir string, cam Camera) (*Writer, error) {
-	if err := cam.Validate(); err != nil {
+	js, err := encodeCamera(cam)
+	if err != nil {
 		return nil, fmt.Errorf("recording: create %s: %w", dir, err)
 	}
 	if err := os.MkdirAll(dir, 0o755); err != nil {
@@ -69,10 +70,6 @@ func Create(dir string, cam Camera) (*Writer, error) {
 		}
 	}
 	w := &Writer{dir: dir, framesDir: filepath.Join(dir, FramesDir)}
-	js, err := encodeCamera(cam)
-	if err != nil {
-		return nil, fmt.Errorf("recording: create: %w", err)
-	}
 	if err := writeFileAtomic(dir, CameraFile, js); err != nil {
 		return nil, fmt.Errorf("recording: create: %w", err)
 	}

@@ -56,8 +56,8 @@ type Config struct {
 	// package documentation).
 	LatencyMs float64
 
-	// Camera is the vehicle camera (required; build it from camera.json via
-	// recording.Camera, e.g. predictor.Camera(rec.Camera)).
+	// Camera is the vehicle camera (required, complete with its mount): read
+	// it with ReadCameraFile, or take a recording's Camera as it is.
 	Camera predictor.Camera
 	// Policy gives MaxAgeMs (0 = predictor.DefaultMaxAgeMs). Its cutoff is
 	// ignored: each tick uses the console's Cutoff().

@@ -90,7 +90,7 @@ type recorder struct {
 }
 
 func newRecorder(cfg Config, met *metrics) (*recorder, error) {
-	w, err := recording.Create(cfg.RecordDir, recording.Camera(cfg.Camera))
+	w, err := recording.Create(cfg.RecordDir, cfg.Camera)
 	if err != nil {
 		return nil, fmt.Errorf("relay: recording: %w", err)
 	}

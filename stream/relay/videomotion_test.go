@@ -28,7 +28,7 @@ func TestVideoMotionFeedsFilter(t *testing.T) {
 	hm := gocv.NewMatWithSize(3, 3, gocv.MatTypeCV64F)
 	defer hm.Close()
 	frame := func(i int, dst *gocv.Mat) {
-		h := cam.GroundHomographyPlanar(stepM*float64(i), 0, 0)
+		h := predictor.GroundHomographyPlanar(cam, stepM*float64(i), 0, 0)
 		for r := range 3 {
 			for c := range 3 {
 				hm.SetDoubleAt(r, c, h[r][c])

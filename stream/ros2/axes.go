@@ -53,7 +53,7 @@ var vehicleToOptical = mat3{{0, -1, 0}, {0, 0, -1}, {1, 0, 0}}
 // axes for our mount angles: roll(φ)·pitch(θ)·vehicleToOptical, where
 // pitch rotates about the camera x axis so that θ > 0 tilts the optical axis
 // down, and roll turns the camera's right side down for φ > 0 (the
-// convention of package stopgap/stream/recording's Camera).
+// convention of package stopgap/internal/camera's Camera).
 func mountRotation(pitchDeg, rollDeg float64) mat3 {
 	st, ct := math.Sincos(pitchDeg * math.Pi / 180)
 	sf, cf := math.Sincos(rollDeg * math.Pi / 180)

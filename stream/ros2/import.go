@@ -19,6 +19,7 @@ import (
 
 	"github.com/foxglove/mcap/go/mcap"
 
+	"stopgap/internal/camera"
 	"stopgap/stream/calib"
 	"stopgap/stream/recording"
 )
@@ -65,8 +66,9 @@ type ImportOptions struct {
 	// Intrinsics, if not nil, is the camera (size, intrinsics, distortion;
 	// its mount is ignored), e.g. read from a calibration file with
 	// package stopgap/stream/calib; then no CameraInfo topic is read, and
-	// the camera frame for the mount is the images' header.frame_id.
-	Intrinsics *recording.Camera
+	// the camera frame for the mount is the images' header.frame_id. It is
+	// checked with Camera.ValidateIntrinsics before the mount is added.
+	Intrinsics *camera.Camera
 	// Mount, if not nil, is the camera mount; otherwise it is derived from
 	// the static transforms from BaseFrame to the camera's frame.
 	Mount *Mount
@@ -226,6 +228,9 @@ func Import(ctx context.Context, path, out string, opts ImportOptions) (ImportSu
 	switch {
 	case opts.Intrinsics != nil:
 		cam = *opts.Intrinsics
+		if err := cam.ValidateIntrinsics(); err != nil {
+			return sum, fmt.Errorf("ros2: %s: the given intrinsics: %w", path, err)
+		}
 	case info == nil:
 		return sum, fmt.Errorf("ros2: %s: %w: %s has no message", path, ErrTopic, sum.CameraInfoTopic)
 	default:
@@ -244,8 +249,9 @@ func Import(ctx context.Context, path, out string, opts ImportOptions) (ImportSu
 	}
 	cam.XOffsetM, cam.YOffsetM, cam.HeightM = mount.XOffsetM, mount.YOffsetM, mount.HeightM
 	cam.PitchDeg, cam.RollDeg = mount.PitchDeg, mount.RollDeg
+	// With its mount the camera is complete; a recording holds only such.
 	if err := cam.Validate(); err != nil {
-		return sum, fmt.Errorf("ros2: %s: %w", path, err)
+		return sum, fmt.Errorf("ros2: %s: camera with its mount: %w", path, err)
 	}
 	sum.Camera = cam
 	tel, sum.DroppedDuplicates = sortTelemetry(tel)
@@ -528,7 +534,7 @@ func frameBytes(typ string, data []byte, cam recording.Camera, pngBuf *bytes.Buf
 // encodings of REP 104's list that a colour camera sends.
 func rawImage(m *Image) (image.Image, error) {
 	w, h := int(m.Width), int(m.Height)
-	if w <= 0 || h <= 0 || w > recording.MaxImageSide || h > recording.MaxImageSide {
+	if w <= 0 || h <= 0 || w > camera.MaxImageSide || h > camera.MaxImageSide {
 		return nil, fmt.Errorf("size %dx%d out of range", w, h)
 	}
 	var ch int
@@ -573,7 +579,7 @@ func rawImage(m *Image) (image.Image, error) {
 // the calibration files' converter (calib.FromKD: K to fx fy cx cy, D to
 // OpenCV's k1 k2 p1 p2 k3). The mount is left zero.
 func cameraFromInfo(ci *CameraInfo) (recording.Camera, error) {
-	if ci.Width == 0 || ci.Height == 0 || ci.Width > recording.MaxImageSide || ci.Height > recording.MaxImageSide {
+	if ci.Width == 0 || ci.Height == 0 || ci.Width > camera.MaxImageSide || ci.Height > camera.MaxImageSide {
 		return recording.Camera{}, fmt.Errorf("%w: width %d, height %d: the camera info has no usable image size", ErrMessage, ci.Width, ci.Height)
 	}
 	if ci.BinningX > 1 || ci.BinningY > 1 {

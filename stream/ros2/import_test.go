@@ -13,6 +13,7 @@ import (
 	"strings"
 	"testing"
 
+	"stopgap/internal/camera"
 	"stopgap/stream/recording"
 )
 
@@ -351,6 +352,12 @@ func TestImportWithIntrinsics(t *testing.T) {
 	f.Close()
 	if _, err := Import(context.Background(), path, filepath.Join(t.TempDir(), "a"), ImportOptions{}); !errors.Is(err, ErrTopic) {
 		t.Fatalf("no CameraInfo and no intrinsics: err = %v, want ErrTopic", err)
+	}
+	// Given intrinsics are checked at the intrinsics level: a bad focal
+	// length is named before the mount is looked at.
+	bad := recording.Camera{Width: 4, Height: 2, Fx: 0, Fy: 3, Cx: 2, Cy: 1}
+	if _, err := Import(context.Background(), path, filepath.Join(t.TempDir(), "c"), ImportOptions{Intrinsics: &bad}); !errors.Is(err, camera.ErrInvalid) || !strings.Contains(err.Error(), "the given intrinsics: invalid camera: fx = 0") {
+		t.Fatalf("intrinsics with fx 0: err = %v, want camera.ErrInvalid naming fx", err)
 	}
 	in := recording.Camera{Width: 4, Height: 2, Fx: 3, Fy: 3, Cx: 2, Cy: 1, K1: 0.1, HeightM: 99}
 	sum, err := Import(context.Background(), path, filepath.Join(t.TempDir(), "b"), ImportOptions{Intrinsics: &in})
