@@ -15,8 +15,8 @@ import (
 	"strings"
 	"testing"
 
-	"stopgap/internal/display"
 	"stopgap/internal/camera"
+	"stopgap/internal/display"
 	"stopgap/internal/vocab"
 )
 
