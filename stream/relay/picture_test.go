@@ -206,3 +206,61 @@ func newTestFilter(t *testing.T) *filter.Filter {
 	}
 	return f
 }
+
+// BenchmarkDeferredFlush720p measures what a gap's first tick pays for the
+// frames that passed through unconverted: two 1280x720 I420 to BGR
+// conversions and the two copies into the Filler (deferred.flush), per op.
+func BenchmarkDeferredFlush720p(b *testing.B) {
+	cam := predictor.Camera{Width: 1280, Height: 720, Fx: 1000, Fy: 1000, Cx: 640, Cy: 360, HeightM: 1.4, PitchDeg: 5}
+	flt, err := filter.New(filter.Config{Model: filter.ModelCTRV})
+	if err != nil {
+		b.Fatal(err)
+	}
+	f, err := predictor.NewFiller(predictor.FillerConfig{Camera: cam, Policy: predictor.DefaultPolicy(), Motion: flt})
+	if err != nil {
+		b.Fatal(err)
+	}
+	defer f.Close()
+	var d deferred
+	defer d.close()
+	seq := movingSequence(b, 2, cam.Width, cam.Height)
+	pics := make([]picture, 2)
+	planes := make([]vp8.Image, 2)
+	for i, m := range seq {
+		px, err := m.DataPtrUint8()
+		if err == nil {
+			err = vp8.BGRToI420(&planes[i], px, cam.Width, cam.Height)
+		}
+		if err != nil {
+			b.Fatal(err)
+		}
+		m.Close()
+	}
+	us := int64(0)
+	op := func() {
+		b.StopTimer() // the decoder's work: planes into the pictures
+		for i := range pics {
+			if err := pics[i].img.Resize(cam.Width, cam.Height); err != nil {
+				b.Fatal(err)
+			}
+			copy(pics[i].img.Y, planes[i].Y)
+			copy(pics[i].img.U, planes[i].U)
+			copy(pics[i].img.V, planes[i].V)
+		}
+		b.StartTimer()
+		for i := range pics {
+			us += 33_333
+			held, have := f.LastCaptureUs()
+			d.add(&pics[i], us, held, have)
+		}
+		if err := d.flush(f, cam.Width, cam.Height); err != nil {
+			b.Fatal(err)
+		}
+	}
+	op() // warm-up: the deferred slots and the scratch get their buffers
+	b.ReportAllocs()
+	b.ResetTimer()
+	for range b.N {
+		op()
+	}
+}
