@@ -23,6 +23,7 @@ type assemblingPublisher struct {
 	frames []rtpvp8.Frame // data cloned
 	seqs   []uint16
 	errs   int
+	kf     chan time.Time
 }
 
 func (p *assemblingPublisher) WriteRTP(pkt *rtp.Packet) error {
@@ -35,13 +36,14 @@ func (p *assemblingPublisher) WriteRTP(pkt *rtp.Packet) error {
 	return nil
 }
 func (p *assemblingPublisher) SendTelemetry([]byte) error         { return nil }
-func (p *assemblingPublisher) KeyframeRequests() <-chan time.Time { return nil }
+func (p *assemblingPublisher) KeyframeRequests() <-chan time.Time { return p.kf }
 
 // TestEncodeOnceSendsTheStoredLoop plays three loops of a short drive
 // (0.4 s each, in real time: the link's delay line paces the packets) with
 // EncodeOnce: every frame decodes (no loss, no decode
-// error), each loop starts with a keyframe, loops 2 and 3 carry the
-// compressed frames of loop 1 byte for byte, and the RTP sequence numbers
+// error), each loop starts with a keyframe, a keyframe request is answered
+// within a frame or two, loops 2 and 3 carry the compressed frames of loop 1
+// byte for byte (but the keyframe that answered the request), and the RTP sequence numbers
 // and timestamps go on across the loops (consecutive; one frame period at
 // 90 kHz apart within a loop, at least that across the seam).
 func TestEncodeOnceSendsTheStoredLoop(t *testing.T) {
@@ -58,12 +60,16 @@ func TestEncodeOnceSendsTheStoredLoop(t *testing.T) {
 	defer dec.Close()
 	ctx, cancel := context.WithTimeout(context.Background(), 20*time.Second)
 	defer cancel()
-	pub := &assemblingPublisher{sink: decodeSink{dec: dec}}
+	pub := &assemblingPublisher{sink: decodeSink{dec: dec}, kf: make(chan time.Time, 1)}
+	const asked = n + 5 // a keyframe request after this many frames
 	pub.asm, err = rtpvp8.NewAssembler(rtpvp8.AssemblerConfig{}, rtpvp8.SinkFuncs{
 		Frame: func(f rtpvp8.Frame) {
 			pub.sink.OnFrame(f)
 			f.Data = bytes.Clone(f.Data)
 			pub.frames = append(pub.frames, f)
+			if len(pub.frames) == asked {
+				pub.kf <- time.Now()
+			}
 			if len(pub.frames) == 3*n {
 				cancel()
 			}
@@ -94,12 +100,21 @@ func TestEncodeOnceSendsTheStoredLoop(t *testing.T) {
 		}
 	}
 	step := uint32(90_000 / 30)
+	answer := -1 // the keyframe that answered the request
+	for i := asked; i < asked+3 && answer < 0; i++ {
+		if pub.frames[i].Keyframe && i%n != 0 {
+			answer = i
+		}
+	}
+	if answer < 0 {
+		t.Errorf("keyframe request after frame %d: no keyframe among the next three frames", asked-1)
+	}
 	for i := 0; i < 3*n; i++ {
 		f := pub.frames[i]
 		if i%n == 0 && !f.Keyframe {
 			t.Errorf("frame %d (loop %d starts): not a keyframe", i, i/n)
 		}
-		if i >= n && !bytes.Equal(f.Data, pub.frames[i%n].Data) {
+		if i >= n && i != answer && !bytes.Equal(f.Data, pub.frames[i%n].Data) {
 			t.Errorf("frame %d differs from frame %d of the first loop", i, i%n)
 		}
 		if i == 0 {

@@ -54,10 +54,14 @@ type Config struct {
 	// timestamps and sequence numbers: playback then costs the packetiser
 	// and the link only, as with a real vehicle, whose encoder runs on its
 	// own computer; what a benchmark measures beside it is the receiving
-	// side. A keyframe request is counted but cannot be answered at once:
-	// the next stored keyframe answers it (KeyframeInterval frames apart at
-	// most, and every loop starts with one). Stats.EncodeTotal and
-	// EncodeCPU count the encode in New.
+	// side. Every frame is also stored as a keyframe, made by a second
+	// encoder, which answers a keyframe request on the next frame, as a
+	// live encoder would; the stored inter frames after it were encoded
+	// against the inter frame it replaces, so the decoded picture differs
+	// from the encoder's by the two encodings' difference (no decode
+	// error) until the next stored keyframe (KeyframeInterval frames apart
+	// at most; every loop starts with one). Stats.EncodeTotal and
+	// EncodeCPU count the encoding in New.
 	EncodeOnce bool
 	// Clock is the vehicle clock (default SystemClock). It must be the
 	// Link's clock too.
@@ -147,6 +151,7 @@ type Vehicle struct {
 	startOnce sync.Once
 	start     time.Time
 	startCh   chan struct{}
+	keyWanted atomic.Bool // EncodeOnce: a keyframe request waits for the next frame
 
 	frames, skipped, late, keyframes, kfRequests, telemetryRows, loops atomic.Uint64
 	encodeNs, encodeCPUNs                                              atomic.Int64
@@ -231,10 +236,12 @@ func medianFramePeriodUs(fr []recording.Frame) int64 {
 	return d[len(d)/2]
 }
 
-// storedFrame is one frame of the loop EncodeOnce encoded.
+// storedFrame is one frame of the loop EncodeOnce encoded: as the
+// sequence's encoder made it (data, a keyframe if key) and as a keyframe
+// (keyData), which answers a keyframe request.
 type storedFrame struct {
-	data []byte
-	key  bool
+	data, keyData []byte
+	key           bool
 }
 
 // newEncoder returns the vehicle's VP8 encoder (Config's settings).
@@ -258,6 +265,11 @@ func (v *Vehicle) encodeLoop() error {
 		return err
 	}
 	defer enc.Close()
+	kenc, err := v.newEncoder()
+	if err != nil {
+		return err
+	}
+	defer kenc.Close()
 	ld := newFrameLoader(v.rec.Camera.Width, v.rec.Camera.Height)
 	img := &vp8.Image{}
 	v.stored = make([]storedFrame, len(v.rec.Frames))
@@ -277,13 +289,18 @@ func (v *Vehicle) encodeLoop() error {
 		cpu0, t0 := threadCPU(), time.Now()
 		var key bool
 		out, key, err = enc.Encode(out, img, v.relUs(fr.CaptureUs, 0))
+		if err == nil {
+			v.stored[i] = storedFrame{data: append([]byte(nil), out...), key: key}
+			kenc.ForceKeyframe()
+			out, _, err = kenc.Encode(out, img, v.relUs(fr.CaptureUs, 0))
+			v.stored[i].keyData = append([]byte(nil), out...)
+		}
 		v.encodeNs.Add(int64(time.Since(t0)))
 		v.encodeCPUNs.Add(int64(threadCPU() - cpu0))
 		runtime.UnlockOSThread()
 		if err != nil {
 			return fmt.Errorf("simvehicle: encoding frame %d of the loop: %w", i, err)
 		}
-		v.stored[i] = storedFrame{data: append([]byte(nil), out...), key: key}
 	}
 	return nil
 }
@@ -398,6 +415,8 @@ func (v *Vehicle) Run(ctx context.Context, pub Publisher) error {
 				v.kfRequests.Add(1)
 				if enc != nil {
 					enc.ForceKeyframe()
+				} else {
+					v.keyWanted.Store(true)
 				}
 			}
 		}
@@ -456,7 +475,12 @@ func (v *Vehicle) playFrames(ctx context.Context, enc *vp8.Encoder, pk *rtpvp8.P
 				if err := v.clock.WaitUntil(ctx, due); err != nil {
 					return err
 				}
-				v.sendFrame(i, n, rel, due, startUnixUs, v.stored[i].data, v.stored[i].key, 0, pk, &pkts)
+				sf := &v.stored[i]
+				data, key := sf.data, sf.key
+				if v.keyWanted.Swap(false) && !key {
+					data, key = sf.keyData, true
+				}
+				v.sendFrame(i, n, rel, due, startUnixUs, data, key, 0, pk, &pkts)
 				continue
 			}
 			if late {
