@@ -84,8 +84,12 @@ type Tick struct {
 // Buffers: the Filler owns the copy of the last real frame and its scratch
 // images (Close frees them). Every dst and Unlabelled is owned by the caller;
 // they are allocated only when their size or type differ from the camera's,
-// so reusing them makes the per-tick path allocation-free in OpenCV. Not safe
-// for concurrent use.
+// so reusing them makes the per-tick path allocation-free in OpenCV. Every
+// frame handed in (Live, Hold, HoldPrevious) is copied, so the caller may
+// reuse it at once; a caller that keeps real frames in another form may
+// hand them over later, with Hold, in capture order, as long as it does so
+// before the next gap tick (the relay converts frames that passed through
+// only when a gap needs them). Not safe for concurrent use.
 type Filler struct {
 	// Now is the clock for Tick.SynthDuration; nil means time.Now.
 	Now func() time.Time
@@ -223,11 +227,21 @@ func (f *Filler) now() time.Time {
 	return time.Now()
 }
 
+// LiveTick returns the tick of a real frame captured at captureUs that is
+// shown as it is: LIVE, confidence 1, age 0. Live returns it (with its
+// SynthDuration); a caller that shows a real frame without the Filler (the
+// relay passing the vehicle's packets through) reports it too.
+func LiveTick(captureUs int64) Tick {
+	return Tick{State: StateLive, TargetUs: captureUs, CaptureUs: captureUs, Confidence: 1}
+}
+
 // Live handles a real frame that arrived and is due: dst receives a copy,
 // unlabelled, and the frame is remembered for later gaps unless it is older
-// than the one already held (a late frame is shown but not kept).
+// than the one already held (a late frame is shown but not kept). A nil dst
+// receives nothing: the caller shows the frame by other means (the relay
+// forwards the vehicle's own packets) and the copy would be wasted.
 func (f *Filler) Live(frame gocv.Mat, captureUs int64, dst *gocv.Mat) (Tick, error) {
-	tick := Tick{State: StateLive, TargetUs: captureUs, CaptureUs: captureUs, Confidence: 1}
+	tick := LiveTick(captureUs)
 	if f.closed {
 		return tick, ErrClosed
 	}
@@ -235,12 +249,14 @@ func (f *Filler) Live(frame gocv.Mat, captureUs int64, dst *gocv.Mat) (Tick, err
 	if err := checkFrame("live frame", &frame, c.Width, c.Height); err != nil {
 		return tick, err
 	}
-	if !matUsable(dst) {
-		return tick, fmt.Errorf("destination is nil or a zero gocv.Mat; create it with gocv.NewMat(): %w", ErrFrameFormat)
+	if dst != nil && !matUsable(dst) {
+		return tick, fmt.Errorf("destination is a zero gocv.Mat; create it with gocv.NewMat(): %w", ErrFrameFormat)
 	}
 	start := f.now()
 	f.hold(frame, captureUs)
-	frame.CopyTo(dst)
+	if dst != nil {
+		frame.CopyTo(dst)
+	}
 	if f.Unlabelled != nil {
 		if !matUsable(f.Unlabelled) {
 			return tick, fmt.Errorf("Filler.Unlabelled is a zero gocv.Mat; create it with gocv.NewMat(): %w", ErrFrameFormat)

@@ -30,6 +30,12 @@ func publishVehicle(t testing.TB, rec *recording.Recording, base string, onFrame
 	if err != nil {
 		t.Fatal(err)
 	}
+	return veh, playVehicle(t, veh, base)
+}
+
+// playVehicle is publishVehicle for a vehicle made with simvehicle.New.
+func playVehicle(t testing.TB, veh *simvehicle.Vehicle, base string) (stop func()) {
+	t.Helper()
 	ctx, cancel := context.WithCancel(context.Background())
 	done := make(chan error, 1)
 	go func() {
@@ -52,7 +58,7 @@ func publishVehicle(t testing.TB, rec *recording.Recording, base string, onFrame
 	case <-time.After(15 * time.Second):
 		t.Fatal("vehicle did not start playing within 15 s")
 	}
-	return veh, stop
+	return stop
 }
 
 // completeLines counts the newline-terminated lines of a file after its

@@ -9,6 +9,7 @@ import (
 	"net"
 	"net/http"
 	"sync"
+	"sync/atomic"
 	"time"
 
 	"github.com/pion/ice/v4"
@@ -34,6 +35,9 @@ type viewer struct {
 	frameEnds []time.Time // arrival of each output frame's marker packet
 	keep      bool        // keep every video packet received (pkts)
 	pkts      []rtp.Packet
+	// onPacket, when set, sees every video packet on the track's
+	// goroutine, outside mu (the capacity run reassembles and decodes).
+	onPacket atomic.Pointer[func(*rtp.Packet)]
 }
 
 // dialViewer connects a viewer to the console at base with the console token.
@@ -90,6 +94,9 @@ func dialViewer(ctx context.Context, base, token string) (*viewer, error) {
 				v.pkts = append(v.pkts, *pkt.Clone())
 			}
 			v.mu.Unlock()
+			if fn := v.onPacket.Load(); fn != nil {
+				(*fn)(pkt)
+			}
 		}
 	})
 	offer, err := pc.CreateOffer(nil)

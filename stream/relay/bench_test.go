@@ -68,9 +68,10 @@ func BenchmarkTick720p(b *testing.B) {
 	captureOf := func(k int) int64 { return t0 + int64(math.Round(float64(k)*periodUs)) }
 	live := func(k int, img gocv.Mat) {
 		m := <-p.free
-		img.CopyTo(m)
+		img.CopyTo(&m.bgr)
+		m.hasBGR = true
 		c := captureOf(k)
-		p.onFrame(frameEvent{mat: m, captureUs: c, readyUs: c + 51_000, lastPktAt: time.Now(), vehicleClk: true})
+		p.onFrame(frameEvent{pic: m, captureUs: c, readyUs: c + 51_000, lastPktAt: time.Now(), vehicleClk: true})
 	}
 	report := func(b *testing.B) {
 		b.ReportMetric(float64(encBytes)/float64(encFrames)/1000, "kB/frame")
@@ -118,7 +119,7 @@ func BenchmarkTick720p(b *testing.B) {
 // right and 2 px down per frame. It fails if two consecutive frames are
 // nearly equal (mean absolute difference below 4 grey levels), so the
 // benchmark cannot silently encode a still picture.
-func movingSequence(b *testing.B, n, w, h int) []gocv.Mat {
+func movingSequence(b testing.TB, n, w, h int) []gocv.Mat {
 	b.Helper()
 	seq := make([]gocv.Mat, n)
 	for i := range seq {

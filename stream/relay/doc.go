@@ -16,6 +16,14 @@
 // The rule and its reasons are in package stopgap/stream/passthru.
 // Config.AlwaysTranscode encodes every frame instead.
 //
+// A frame that passed through is kept in the decoder's I420 form: the gap
+// filler needs it as BGR only if a gap follows, so the two newest such
+// frames are converted and handed to it on the first tick of a gap (or
+// before a frame the relay encodes, or a late one), in capture order, and
+// the filler then holds what it would have held had each been handed over
+// at once. With recording or video ego-motion on, every frame is converted
+// at once, since both read each one.
+//
 // # Display schedule
 //
 // The relay decides nothing about a tick itself: its display loop drives

@@ -6,8 +6,6 @@ import (
 	"sync"
 	"time"
 
-	"gocv.io/x/gocv"
-
 	"stopgap/filter"
 	"stopgap/stream/ingest"
 	"stopgap/stream/passthru"
@@ -18,11 +16,11 @@ import (
 )
 
 // frameEvent is one decoded frame handed from the ingest to the display loop.
-// mat belongs to the pipeline's pool; the display loop returns it.
+// pic belongs to the pipeline's pool; the display loop returns it.
 type frameEvent struct {
-	mat        *gocv.Mat
+	pic        *picture
 	captureUs  int64 // vehicle clock (or anchored, see vehicleClock)
-	readyUs    int64 // receiver clock: decoded and converted
+	readyUs    int64 // receiver clock: decoded (and converted to BGR if the ingest does that, see picture)
 	lastPktUs  int64 // receiver clock: arrival of the frame's last packet
 	readyAt    time.Time
 	lastPktAt  time.Time
@@ -51,7 +49,7 @@ type frameIngest struct {
 	mu  sync.Mutex // guards asm, dec, lastKeyReq, linkBack, anchor state
 	asm *rtpvp8.Assembler
 	dec *vp8.Decoder
-	img vp8.Image
+	img vp8.Image // decodes a frame no picture of the pool is free for
 
 	// lastKeyReq is when the latest keyframe request went out (one refused
 	// by the session's rate limit does not count: nothing was sent).
@@ -226,10 +224,28 @@ func (in *frameIngest) onLoss(l rtpvp8.Loss) {
 func (in *frameIngest) onFrame(f rtpvp8.Frame) {
 	p := in.p
 	fwd, fwdAt := in.forward(f)
+	// The decoder must see every frame (the next ones reference it); with
+	// no free picture the frame is decoded into the ingest's scratch and
+	// dropped after.
+	var pic *picture
+	select {
+	case pic = <-p.free:
+	default:
+	}
+	dst := &in.img
+	if pic != nil {
+		dst, pic.hasBGR = &pic.img, false
+	}
+	release := func() {
+		if pic != nil {
+			p.free <- pic
+		}
+	}
 	t0 := p.cfg.Now()
-	err := in.dec.Decode(f.Data, &in.img)
+	err := in.dec.Decode(f.Data, dst)
 	p.r.gate.Decoded(fwd, err == nil || errors.Is(err, vp8.ErrNotShown))
 	if err != nil {
+		release()
 		if errors.Is(err, vp8.ErrNotShown) {
 			return
 		}
@@ -248,35 +264,34 @@ func (in *frameIngest) onFrame(f rtpvp8.Frame) {
 		return
 	}
 	in.linkBack = false
-	if in.img.Width != p.cfg.Camera.Width || in.img.Height != p.cfg.Camera.Height {
+	if dst.Width != p.cfg.Camera.Width || dst.Height != p.cfg.Camera.Height {
+		release()
 		p.r.met.decodeErrors.Add(1)
-		p.log.Warn("decoded picture size differs from the camera; check camera.json", "width", in.img.Width, "height", in.img.Height, "err", ErrFrameSize)
+		p.log.Warn("decoded picture size differs from the camera; check camera.json", "width", dst.Width, "height", dst.Height, "err", ErrFrameSize)
 		return
 	}
-	var mat *gocv.Mat
-	select {
-	case mat = <-p.free:
-	default:
+	if pic == nil {
 		p.r.met.framesDropped.Add(1)
 		return
 	}
-	buf, err := mat.DataPtrUint8()
-	if err == nil {
-		err = vp8.I420ToBGR(buf, &in.img)
-	}
-	if err != nil {
-		p.free <- mat
-		p.r.met.decodeErrors.Add(1)
-		p.log.Warn("converting a decoded frame failed", "err", err)
-		return
+	// A frame the relay encodes (not passed through), or one the
+	// recording or the ego-motion reads, is converted now; one that passed
+	// through waits until a gap needs it (see deferred).
+	if !fwd || p.needBGR {
+		if err := pic.toBGR(); err != nil {
+			release()
+			p.r.met.decodeErrors.Add(1)
+			p.log.Warn("converting a decoded frame failed", "err", err)
+			return
+		}
 	}
 	ready := p.cfg.Now()
-	ev := frameEvent{mat: mat, readyAt: ready, readyUs: ready.UnixMicro(), lastPktAt: f.ArrivalLast,
+	ev := frameEvent{pic: pic, readyAt: ready, readyUs: ready.UnixMicro(), lastPktAt: f.ArrivalLast,
 		lastPktUs: f.ArrivalLast.UnixMicro(), decodeDur: ready.Sub(t0), forwarded: fwd, forwardedAt: fwdAt}
 	in.captureTime(f, &ev)
 	p.r.met.framesIn.Add(1)
 	p.r.met.decode.observe(ev.decodeDur)
-	p.frames <- ev // never blocks: at most len(pool) mats exist
+	p.frames <- ev // never blocks: at most len(pool) pictures exist
 }
 
 // forward offers the frame to the pass-through gate, which sends it to the

@@ -219,7 +219,7 @@ func (m *metrics) writeText(w io.Writer, active int, pt passthru.Stats) {
 	m.rtpDropped.write(w, p+"rtp_dropped_total", "reason", "RTP packets not used, by reason.")
 	gauge("active_sessions", "Ingest sessions being served now.", float64(active))
 	m.addedLatency.write(w, p+"added_latency_seconds", "Time from the last packet of a LIVE frame to its hand-over to the console: ForwardFrame when passed through, else WriteFrame excluding decode and encode.")
-	m.decode.write(w, p+"decode_seconds", "VP8 decode plus I420 to BGR conversion per frame.")
+	m.decode.write(w, p+"decode_seconds", "VP8 decode per frame, plus the I420 to BGR conversion for frames converted at once (not passed through, or recording or video ego-motion on).")
 	m.encode.write(w, p+"encode_seconds", "VP8 encode per output frame.")
 	m.synth.write(w, p+"synth_seconds", "Gap filler time per PREDICTED or STALE tick.")
 }

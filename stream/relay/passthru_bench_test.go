@@ -31,8 +31,11 @@ func threadCPU(b *testing.B) time.Duration {
 // LIVE 1280x720 frame, from its RTP packets to the console, once with
 // pass-through and once with always-transcode, in the same run: RTP
 // assembly, the pass-through gate and console.ForwardFrame (pass-through),
-// VP8 decode and I420 to BGR, the display loop's LIVE tick, and (transcode)
-// the VP8 encode and console.WriteFrame. The work runs on the benchmark's
+// VP8 decode, the display loop's LIVE tick, and (transcode) I420 to BGR,
+// the copy into the output frame, the VP8 encode and console.WriteFrame. A
+// frame that passed through is converted to BGR only when a gap follows
+// (see deferred; BenchmarkDeferredFlush720p measures that cost, paid on a
+// gap's first tick), so no conversion is counted here in that mode. The work runs on the benchmark's
 // goroutine, locked to one thread, so its CPU time is measured with
 // RUSAGE_THREAD and does not depend on what else the machine runs, unlike
 // the loopback benchmark's real-time figures. It reports:

@@ -29,10 +29,17 @@ type pipeline struct {
 	sess ingest.Session
 	in   *frameIngest
 
-	pool   []gocv.Mat
-	free   chan *gocv.Mat
+	pool   []picture
+	free   chan *picture
 	frames chan frameEvent
-	tel    chan telEvent
+	// needBGR: every decoded frame is converted to BGR by the ingest,
+	// because the recording or the video ego-motion reads each one; fixed
+	// at creation (read by the ingest goroutine too).
+	needBGR bool
+	// def holds the frames that passed through, not yet converted, until
+	// a gap needs them (see deferred).
+	def deferred
+	tel chan telEvent
 
 	flt    *filter.Filter
 	filler *predictor.Filler
@@ -94,11 +101,12 @@ func newPipeline(r *Relay, s ingest.Session) (*pipeline, error) {
 		}
 	}
 	p.out = gocv.NewMat()
-	p.pool = make([]gocv.Mat, cfg.FrameQueue)
-	p.free = make(chan *gocv.Mat, cfg.FrameQueue)
+	p.needBGR = r.rec != nil || p.ego != nil
+	p.pool = make([]picture, cfg.FrameQueue)
+	p.free = make(chan *picture, cfg.FrameQueue)
 	p.frames = make(chan frameEvent, cfg.FrameQueue)
 	for i := range p.pool {
-		p.pool[i] = gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8UC3)
+		p.pool[i].bgr = gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8UC3)
 		p.free <- &p.pool[i]
 	}
 	p.tel = make(chan telEvent, cfg.TelemetryQueue)
@@ -139,8 +147,9 @@ func (p *pipeline) close() {
 		p.ego.Close()
 	}
 	p.out.Close()
+	p.def.close()
 	for i := range p.pool {
-		p.pool[i].Close()
+		p.pool[i].bgr.Close()
 	}
 }
 
@@ -189,7 +198,7 @@ loop:
 	for {
 		select {
 		case ev := <-p.frames:
-			p.free <- ev.mat
+			p.free <- ev.pic
 			continue
 		default:
 		}
@@ -297,9 +306,11 @@ func (p *pipeline) feed(te telEvent) {
 
 // onFrame hands one decoded frame to the display clock, which fills the
 // ticks that became due first (Missing), and then shows it (LIVE) or holds
-// it for later gaps (late).
+// it for later gaps (late). A LIVE frame that passed through is kept
+// unconverted until a gap needs it (deferred); any other frame reaches the
+// Filler at once, after the deferred ones.
 func (p *pipeline) onFrame(ev frameEvent) {
-	defer func() { p.free <- ev.mat }()
+	defer func() { p.free <- ev.pic }()
 	if ev.hasShift {
 		p.shift(ev.shiftUs)
 	}
@@ -324,7 +335,9 @@ func (p *pipeline) onFrame(ev frameEvent) {
 		// shown. The recording keeps the arrival the display had
 		// (cadence.Frame.ArrivalUs), so the replay decides as it did.
 		p.r.met.lateFrames.Add(1)
-		if err := p.filler.Hold(*ev.mat, ev.captureUs); err != nil {
+		if err := p.handOver(ev.pic); err != nil {
+			p.log.Warn("holding a late frame failed", "err", err)
+		} else if err := p.filler.Hold(ev.pic.bgr, ev.captureUs); err != nil {
 			p.log.Warn("holding a late frame failed", "err", err)
 		}
 		p.log.Debug("late frame held, not shown", "tick", k, "late_us", ev.readyUs-v.Tick.DeadlineUs,
@@ -333,7 +346,7 @@ func (p *pipeline) onFrame(ev frameEvent) {
 		if v.ArrivalUs != ev.readyUs {
 			p.log.Debug("frame decoded in time reached the display after its tick was filled", "tick", k, "moved_us", v.ArrivalUs-ev.readyUs)
 		}
-		p.record(func(rc *recorder) { rc.frame(p.recIndex(k), ev.captureUs, v.ArrivalUs, ev.rtpTS, *ev.mat) })
+		p.record(func(rc *recorder) { rc.frame(p.recIndex(k), ev.captureUs, v.ArrivalUs, ev.rtpTS, ev.pic.bgr) })
 		return
 	}
 	if v.MovedOn {
@@ -341,14 +354,41 @@ func (p *pipeline) onFrame(ev frameEvent) {
 		p.r.met.framesMovedOn.Add(1)
 		p.log.Debug("frame shown on the open tick next to its own", "shown_on", k, "ready_before_deadline_us", v.Tick.DeadlineUs-ev.readyUs)
 	}
-	tick, err := p.filler.Live(*ev.mat, ev.captureUs, &p.out)
+	var tick predictor.Tick
+	var err error
+	switch {
+	case ev.forwarded && !ev.pic.hasBGR:
+		// Shown as the vehicle sent it: nothing to draw, and the BGR
+		// picture only if a gap comes.
+		held, have := p.filler.LastCaptureUs()
+		p.def.add(ev.pic, ev.captureUs, held, have)
+		tick = predictor.LiveTick(ev.captureUs)
+	case ev.forwarded:
+		if err = p.def.flush(p.filler, p.cfg.Camera.Width, p.cfg.Camera.Height); err == nil {
+			tick, err = p.filler.Live(ev.pic.bgr, ev.captureUs, nil)
+		}
+	default:
+		if err = p.handOver(ev.pic); err == nil {
+			tick, err = p.filler.Live(ev.pic.bgr, ev.captureUs, &p.out)
+		}
+	}
 	if err != nil {
 		p.log.Warn("showing a live frame failed", "err", err)
 		p.recordNotShown(v.Tick)
 		return
 	}
 	p.emit(v.Tick, ev.captureUs, tick, &ev)
-	p.record(func(rc *recorder) { rc.frame(p.recIndex(k), ev.captureUs, v.ArrivalUs, ev.rtpTS, *ev.mat) })
+	p.record(func(rc *recorder) { rc.frame(p.recIndex(k), ev.captureUs, v.ArrivalUs, ev.rtpTS, ev.pic.bgr) })
+}
+
+// handOver prepares the Filler for a frame it must see now: the deferred
+// frames go in first (they are older), and pc is converted to BGR if the
+// ingest left it as I420.
+func (p *pipeline) handOver(pc *picture) error {
+	if err := p.def.flush(p.filler, p.cfg.Camera.Width, p.cfg.Camera.Height); err != nil {
+		return err
+	}
+	return pc.toBGR()
 }
 
 // observeVideo gives the frame to the video ego-motion, if on, and its
@@ -359,7 +399,7 @@ func (p *pipeline) observeVideo(ev *frameEvent) {
 	if p.ego == nil {
 		return
 	}
-	est, ok, err := p.ego.Observe(*ev.mat, ev.captureUs)
+	est, ok, err := p.ego.Observe(ev.pic.bgr, ev.captureUs) // converted by the ingest (needBGR)
 	switch {
 	case errors.Is(err, predictor.ErrTimeOrder):
 		return
@@ -377,6 +417,9 @@ func (p *pipeline) observeVideo(ev *frameEvent) {
 // Missing fills tick t at its deadline with the tick's own policy (the
 // display clock's instruction, cadence.Handler).
 func (p *pipeline) Missing(t cadence.Tick) {
+	if err := p.def.flush(p.filler, p.cfg.Camera.Width, p.cfg.Camera.Height); err != nil {
+		p.log.Warn("the frames before a gap could not reach the gap filler", "tick", t.K, "err", err)
+	}
 	if err := p.filler.SetPolicy(t.Policy); err != nil {
 		// The clock hands only valid cutoffs; keep the check honest.
 		p.log.Warn("tick policy refused", "tick", t.K, "err", err)
@@ -429,6 +472,7 @@ func (p *pipeline) emit(t cadence.Tick, captureUs int64, tick predictor.Tick, ev
 	conf, age := finite(tick.Confidence), finite(tick.AgeMs)
 	p.r.met.tick(tick.State, age)
 	_, havePicture := p.filler.LastCaptureUs()
+	havePicture = havePicture || p.def.n > 0
 	pol := predictor.Policy{CutoffConfidence: cutoff, MaxAgeMs: p.cfg.Policy.MaxAgeMs}
 	p.sendMeta(tickMeta(tick, captureUs, pol, havePicture))
 	p.record(func(rc *recorder) { rc.tick(p.recIndex(t.K), captureUs, t.DeadlineUs, tick.State, age, conf, cutoff) })
@@ -568,6 +612,7 @@ func noPacketsMs(now, last time.Time) float64 {
 // the old timeline, so the filler starts over.
 func (p *pipeline) shift(d int64) {
 	p.clock.Shift(d)
+	p.def.drop()
 	if err := p.newFiller(); err != nil {
 		p.log.Error("recreating the gap filler failed", "err", err)
 	}

@@ -50,9 +50,10 @@ func TestVideoMotionFeedsFilter(t *testing.T) {
 		const t0 = 1_000_000_000
 		for i := range 8 {
 			m := <-p.free
-			frame(i, m)
+			frame(i, &m.bgr)
+			m.hasBGR = true
 			c := t0 + int64(i)*periodUs
-			p.onFrame(frameEvent{mat: m, captureUs: c, readyUs: c + 50_000, lastPktAt: time.Now(), vehicleClk: true})
+			p.onFrame(frameEvent{pic: m, captureUs: c, readyUs: c + 50_000, lastPktAt: time.Now(), vehicleClk: true})
 		}
 		st, err := p.flt.Predict(t0 + 7*periodUs)
 		if on {

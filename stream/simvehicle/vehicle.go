@@ -49,6 +49,20 @@ type Config struct {
 	// costs only the encoder's CPU. Otherwise each frame is decoded from its
 	// file just before it is due.
 	CacheFrames bool
+	// EncodeOnce encodes one loop of the drive in New (its first frame a
+	// keyframe) and sends the stored frames at every loop, with fresh RTP
+	// timestamps and sequence numbers: playback then costs the packetiser
+	// and the link only, as with a real vehicle, whose encoder runs on its
+	// own computer; what a benchmark measures beside it is the receiving
+	// side. Every frame is also stored as a keyframe, made by a second
+	// encoder, which answers a keyframe request on the next frame, as a
+	// live encoder would; the stored inter frames after it were encoded
+	// against the inter frame it replaces, so the decoded picture differs
+	// from the encoder's by the two encodings' difference (no decode
+	// error) until the next stored keyframe (KeyframeInterval frames apart
+	// at most; every loop starts with one). Stats.EncodeTotal and
+	// EncodeCPU count the encoding in New.
+	EncodeOnce bool
 	// Clock is the vehicle clock (default SystemClock). It must be the
 	// Link's clock too.
 	Clock Clock
@@ -90,8 +104,10 @@ type FrameInfo struct {
 type Stats struct {
 	// FramesEncoded counts frames encoded and handed to the link;
 	// FramesSkipped frames not encoded because playback was more than one
-	// frame period late (a real camera drops them too).
-	FramesEncoded, FramesSkipped uint64
+	// frame period late (a real camera drops them too). With
+	// Config.EncodeOnce no frame is skipped: FramesLate counts the stored
+	// frames handed to the link more than one frame period late.
+	FramesEncoded, FramesSkipped, FramesLate uint64
 	// Keyframes counts keyframes sent; KeyframeRequests the PLI/FIR
 	// requests received from the relay.
 	Keyframes, KeyframeRequests uint64
@@ -125,18 +141,20 @@ type Vehicle struct {
 	clock     Clock
 	log       *slog.Logger
 	cache     []*vp8.Image
-	t0Us      int64 // earliest recording time
-	loopUs    int64 // loop length in recording microseconds
-	periodUs  int64 // median frame interval
+	stored    []storedFrame // EncodeOnce: one loop, encoded in New
+	t0Us      int64         // earliest recording time
+	loopUs    int64         // loop length in recording microseconds
+	periodUs  int64         // median frame interval
 	rtpBase   uint32
 	firstSeq  uint16
 	ssrc      uint32
 	startOnce sync.Once
 	start     time.Time
 	startCh   chan struct{}
+	keyWanted atomic.Bool // EncodeOnce: a keyframe request waits for the next frame
 
-	frames, skipped, keyframes, kfRequests, telemetryRows, loops atomic.Uint64
-	encodeNs, encodeCPUNs                                        atomic.Int64
+	frames, skipped, late, keyframes, kfRequests, telemetryRows, loops atomic.Uint64
+	encodeNs, encodeCPUNs                                              atomic.Int64
 }
 
 // New checks cfg and prepares the vehicle (and with CacheFrames decodes
@@ -183,7 +201,11 @@ func New(cfg Config) (*Vehicle, error) {
 	v.rtpBase = binary.BigEndian.Uint32(rnd[0:4])
 	v.ssrc = binary.BigEndian.Uint32(rnd[4:8])
 	v.firstSeq = binary.BigEndian.Uint16(rnd[8:10])
-	if cfg.CacheFrames {
+	if cfg.EncodeOnce {
+		if err := v.encodeLoop(); err != nil {
+			return nil, err
+		}
+	} else if cfg.CacheFrames {
 		ld := newFrameLoader(rec.Camera.Width, rec.Camera.Height)
 		v.cache = make([]*vp8.Image, len(rec.Frames))
 		for i := range rec.Frames {
@@ -214,6 +236,75 @@ func medianFramePeriodUs(fr []recording.Frame) int64 {
 	return d[len(d)/2]
 }
 
+// storedFrame is one frame of the loop EncodeOnce encoded: as the
+// sequence's encoder made it (data, a keyframe if key) and as a keyframe
+// (keyData), which answers a keyframe request.
+type storedFrame struct {
+	data, keyData []byte
+	key           bool
+}
+
+// newEncoder returns the vehicle's VP8 encoder (Config's settings).
+func (v *Vehicle) newEncoder() (*vp8.Encoder, error) {
+	enc, err := vp8.NewEncoder(vp8.EncoderConfig{
+		Width: v.rec.Camera.Width, Height: v.rec.Camera.Height, BitrateBps: v.cfg.BitrateBps,
+		FrameRateHz: 1e6 / float64(v.periodUs), KeyframeInterval: v.cfg.KeyframeInterval,
+		CPUUsed: v.cfg.CPUUsed, Threads: v.cfg.Threads,
+	})
+	if err != nil {
+		return nil, fmt.Errorf("simvehicle: %w", err)
+	}
+	return enc, nil
+}
+
+// encodeLoop encodes every frame of the drive once, in order, the first as
+// a keyframe, with the timestamps of the first loop (Config.EncodeOnce).
+func (v *Vehicle) encodeLoop() error {
+	enc, err := v.newEncoder()
+	if err != nil {
+		return err
+	}
+	defer enc.Close()
+	kenc, err := v.newEncoder()
+	if err != nil {
+		return err
+	}
+	defer kenc.Close()
+	ld := newFrameLoader(v.rec.Camera.Width, v.rec.Camera.Height)
+	img := &vp8.Image{}
+	v.stored = make([]storedFrame, len(v.rec.Frames))
+	var out []byte
+	for i, fr := range v.rec.Frames {
+		p, err := v.rec.FramePath(i)
+		if err != nil {
+			return fmt.Errorf("%w: %w", ErrRecording, err)
+		}
+		if err := ld.load(img, p); err != nil {
+			return err
+		}
+		if i == 0 {
+			enc.ForceKeyframe()
+		}
+		runtime.LockOSThread()
+		cpu0, t0 := threadCPU(), time.Now()
+		var key bool
+		out, key, err = enc.Encode(out, img, v.relUs(fr.CaptureUs, 0))
+		if err == nil {
+			v.stored[i] = storedFrame{data: append([]byte(nil), out...), key: key}
+			kenc.ForceKeyframe()
+			out, _, err = kenc.Encode(out, img, v.relUs(fr.CaptureUs, 0))
+			v.stored[i].keyData = append([]byte(nil), out...)
+		}
+		v.encodeNs.Add(int64(time.Since(t0)))
+		v.encodeCPUNs.Add(int64(threadCPU() - cpu0))
+		runtime.UnlockOSThread()
+		if err != nil {
+			return fmt.Errorf("simvehicle: encoding frame %d of the loop: %w", i, err)
+		}
+	}
+	return nil
+}
+
 // Link returns the vehicle's link.
 func (v *Vehicle) Link() *Link { return v.link }
 
@@ -238,7 +329,7 @@ func (v *Vehicle) StartTime() time.Time {
 // Stats returns a snapshot of the counters.
 func (v *Vehicle) Stats() Stats {
 	return Stats{
-		FramesEncoded: v.frames.Load(), FramesSkipped: v.skipped.Load(),
+		FramesEncoded: v.frames.Load(), FramesSkipped: v.skipped.Load(), FramesLate: v.late.Load(),
 		Keyframes: v.keyframes.Load(), KeyframeRequests: v.kfRequests.Load(),
 		TelemetryRows: v.telemetryRows.Load(), Loops: v.loops.Load(),
 		EncodeTotal: time.Duration(v.encodeNs.Load()), EncodeCPU: time.Duration(v.encodeCPUNs.Load()), Link: v.link.Stats(),
@@ -287,15 +378,14 @@ func (v *Vehicle) Run(ctx context.Context, pub Publisher) error {
 	if !first {
 		return fmt.Errorf("%w: Run called twice", ErrConfig)
 	}
-	enc, err := vp8.NewEncoder(vp8.EncoderConfig{
-		Width: v.rec.Camera.Width, Height: v.rec.Camera.Height, BitrateBps: v.cfg.BitrateBps,
-		FrameRateHz: 1e6 / float64(v.periodUs), KeyframeInterval: v.cfg.KeyframeInterval,
-		CPUUsed: v.cfg.CPUUsed, Threads: v.cfg.Threads,
-	})
-	if err != nil {
-		return fmt.Errorf("simvehicle: %w", err)
+	var enc *vp8.Encoder // nil with EncodeOnce: the frames are stored
+	if v.stored == nil {
+		var err error
+		if enc, err = v.newEncoder(); err != nil {
+			return err
+		}
+		defer enc.Close()
 	}
-	defer enc.Close()
 	pk, err := rtpvp8.NewPacketizer(rtpvp8.PacketizerConfig{MTU: v.cfg.MTU, PayloadType: PayloadTypeVP8, SSRC: v.ssrc, FirstSeq: v.firstSeq})
 	if err != nil {
 		return fmt.Errorf("simvehicle: %w", err)
@@ -323,7 +413,11 @@ func (v *Vehicle) Run(ctx context.Context, pub Publisher) error {
 				return
 			case <-pub.KeyframeRequests():
 				v.kfRequests.Add(1)
-				enc.ForceKeyframe()
+				if enc != nil {
+					enc.ForceKeyframe()
+				} else {
+					v.keyWanted.Store(true)
+				}
 			}
 		}
 	}()
@@ -371,7 +465,25 @@ func (v *Vehicle) playFrames(ctx context.Context, enc *vp8.Encoder, pk *rtpvp8.P
 		for i, fr := range v.rec.Frames {
 			rel := v.relUs(fr.CaptureUs, n)
 			due := v.at(rel)
-			if late := v.clock.Now().Sub(due); late > time.Duration(v.periodUs)*time.Microsecond {
+			late := v.clock.Now().Sub(due) > time.Duration(v.periodUs)*time.Microsecond
+			if v.stored != nil {
+				// A stored frame is never skipped: the frames after it
+				// were encoded against it. It goes out late, counted.
+				if late {
+					v.late.Add(1)
+				}
+				if err := v.clock.WaitUntil(ctx, due); err != nil {
+					return err
+				}
+				sf := &v.stored[i]
+				data, key := sf.data, sf.key
+				if v.keyWanted.Swap(false) && !key {
+					data, key = sf.keyData, true
+				}
+				v.sendFrame(i, n, rel, due, startUnixUs, data, key, 0, pk, &pkts)
+				continue
+			}
+			if late {
 				v.skipped.Add(1)
 				v.recordOnboard(i, startUnixUs+rel, 0, false)
 				continue
@@ -406,35 +518,44 @@ func (v *Vehicle) playFrames(ctx context.Context, enc *vp8.Encoder, pk *rtpvp8.P
 				v.recordOnboard(i, startUnixUs+rel, 0, false)
 				continue
 			}
-			ts := v.rtpBase + uint32(rel*9/100) // 90 kHz: us * 90000 / 1e6
-			seq := pk.NextSeq()
-			pkts, err = pk.Packetize(pkts[:0], out, ts)
-			if err != nil {
-				v.log.Warn("packetize failed", "frame", i, "err", err)
-				v.recordOnboard(i, startUnixUs+rel, 0, false)
-				continue
-			}
-			v.recordOnboard(i, startUnixUs+rel, ts, true)
-			queued := 0
-			for j := range pkts {
-				if v.link.SendRTP(&pkts[j]) {
-					queued++
-				}
-			}
-			v.frames.Add(1)
-			if key {
-				v.keyframes.Add(1)
-			}
-			if v.cfg.OnFrame != nil {
-				v.cfg.OnFrame(FrameInfo{Index: i, Loop: n, CaptureUs: startUnixUs + rel, Capture: due,
-					RTPTimestamp: ts, FirstSeq: seq, Packets: len(pkts), Bytes: len(out), Keyframe: key,
-					EncodeDur: dur, PacketsQueued: queued})
-			}
+			v.sendFrame(i, n, rel, due, startUnixUs, out, key, dur, pk, &pkts)
 		}
 		if !v.cfg.Loop {
 			return nil
 		}
 		v.loops.Add(1)
+	}
+}
+
+// sendFrame packetises the encoded frame i of loop n (played at rel µs
+// since the start, due at due) with its RTP timestamp and hands the packets
+// to the link; pkts is the packet scratch.
+func (v *Vehicle) sendFrame(i, n int, rel int64, due time.Time, startUnixUs int64, out []byte, key bool, dur time.Duration,
+	pk *rtpvp8.Packetizer, pkts *[]rtp.Packet) {
+	ts := v.rtpBase + uint32(rel*9/100) // 90 kHz: us * 90000 / 1e6
+	seq := pk.NextSeq()
+	var err error
+	*pkts, err = pk.Packetize((*pkts)[:0], out, ts)
+	if err != nil {
+		v.log.Warn("packetize failed", "frame", i, "err", err)
+		v.recordOnboard(i, startUnixUs+rel, 0, false)
+		return
+	}
+	v.recordOnboard(i, startUnixUs+rel, ts, true)
+	queued := 0
+	for j := range *pkts {
+		if v.link.SendRTP(&(*pkts)[j]) {
+			queued++
+		}
+	}
+	v.frames.Add(1)
+	if key {
+		v.keyframes.Add(1)
+	}
+	if v.cfg.OnFrame != nil {
+		v.cfg.OnFrame(FrameInfo{Index: i, Loop: n, CaptureUs: startUnixUs + rel, Capture: due,
+			RTPTimestamp: ts, FirstSeq: seq, Packets: len(*pkts), Bytes: len(out), Keyframe: key,
+			EncodeDur: dur, PacketsQueued: queued})
 	}
 }
 
