@@ -253,6 +253,9 @@ func (in *frameIngest) onFrame(f rtpvp8.Frame) {
 		p.log.Warn("decoded picture size differs from the camera; check camera.json", "width", in.img.Width, "height", in.img.Height, "err", ErrFrameSize)
 		return
 	}
+	if fn := p.r.decoded.fn.Load(); fn != nil {
+		(*fn)(DecodedFrame{RTPTimestamp: f.RTPTimestamp, Forwarded: fwd, Image: &in.img})
+	}
 	var mat *gocv.Mat
 	select {
 	case mat = <-p.free:
