@@ -14,13 +14,18 @@ import (
 // TestBrowserOutage is the product's end-to-end check: relay and simulated
 // vehicle over loopback WebRTC, the operator page in real headless Chromium,
 // and a 1.5 s link outage. The page must show LIVE, then PREDICTED, then
-// STALE, then LIVE again, in that order, with the safety caution visible.
+// STALE, then LIVE again, in that order, with the safety caution visible;
+// and, across each switch between frames passed through from the vehicle
+// and frames of the relay's encoder, the pictures the page shows must be
+// the relay's within the tolerance of pixels_test.go.
 func TestBrowserOutage(t *testing.T) {
 	exe := consoletest.RequireChromium(t)
 	if testing.Short() {
 		t.Skip("browser end-to-end run takes about 15 s")
 	}
 	r := startRig(t, rigOptions{width: 320, height: 180, driveS: 8})
+	pics := tracePictures(r.relay)
+	defer pics.stop(r.relay)
 	waitFor(t, "the relay to show LIVE ticks", 10*time.Second, func() bool { return r.relay.Stats().TicksLive > 10 })
 
 	ctx, cancel := context.WithTimeout(context.Background(), 45*time.Second)
@@ -55,6 +60,7 @@ func TestBrowserOutage(t *testing.T) {
 	}
 
 	must(b.Open(r.relay.ConsoleURL(r.base), 10*time.Second))
+	must(startPageCapture(b))
 	must(b.WaitState("LIVE", 15*time.Second))
 	must(b.CheckCautionVisible())
 	time.Sleep(time.Second) // a stretch of LIVE before the cut
@@ -72,11 +78,17 @@ func TestBrowserOutage(t *testing.T) {
 	must(b.CheckCautionVisible())
 	shot("e2e-stale.png")
 	must(b.WaitState("LIVE", 10*time.Second))
+	passthru := egressMode() == "passthru"
+	if passthru {
+		waitFor(t, "pass-through to resume", 5*time.Second, func() bool { return pics.backOnVehicle(pixWindow) })
+	}
 
 	log, err := b.StateLog()
 	must(err)
 	t.Logf("page state log: %v", log)
 	checkOutageStates(t, log, cutMs, float64(outage.Milliseconds()))
+	pics.stop(r.relay)
+	reportSwitchPictures(t, checkSwitchPictures(t, b, pics), passthru)
 	st := r.relay.Stats()
 	t.Logf("relay %+v", st)
 	t.Logf("vehicle %+v", r.veh.Stats())
