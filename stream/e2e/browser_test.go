@@ -61,6 +61,15 @@ func TestBrowserOutage(t *testing.T) {
 
 	must(b.Open(r.relay.ConsoleURL(r.base), 10*time.Second))
 	must(startPageCapture(b))
+	// The pictures are compared at the end, also when a state check
+	// stopped the test early: a wrong picture is worth knowing then too.
+	// Both directions of switch must be verified only in a complete run.
+	passthru := egressMode() == "passthru"
+	complete := false
+	defer func() {
+		pics.stop(r.relay)
+		reportSwitchPictures(t, checkSwitchPictures(t, b, pics), passthru && complete)
+	}()
 	must(b.WaitState("LIVE", 15*time.Second))
 	must(b.CheckCautionVisible())
 	time.Sleep(time.Second) // a stretch of LIVE before the cut
@@ -78,17 +87,15 @@ func TestBrowserOutage(t *testing.T) {
 	must(b.CheckCautionVisible())
 	shot("e2e-stale.png")
 	must(b.WaitState("LIVE", 10*time.Second))
-	passthru := egressMode() == "passthru"
 	if passthru {
 		waitFor(t, "pass-through to resume", 5*time.Second, func() bool { return pics.backOnVehicle(pixWindow) })
 	}
+	complete = true
 
 	log, err := b.StateLog()
 	must(err)
 	t.Logf("page state log: %v", log)
 	checkOutageStates(t, log, cutMs, float64(outage.Milliseconds()))
-	pics.stop(r.relay)
-	reportSwitchPictures(t, checkSwitchPictures(t, b, pics), passthru)
 	st := r.relay.Stats()
 	t.Logf("relay %+v", st)
 	t.Logf("vehicle %+v", r.veh.Stats())

@@ -37,26 +37,41 @@ import (
 //
 // What the viewer shows: the page's <video>, drawn to a canvas in a
 // requestVideoFrameCallback, whose metadata.rtpTimestamp names the frame
-// (WICG video-rvfc). The canvas holds RGB; the luma is recovered with the
-// ITU-R BT.601 matrix in studio range (Y = 16 + (65.481 R + 128.553 G +
-// 24.966 B) / 255, BT.601-7 section 2.5.1 scaled to 8 bits), because a VP8
-// stream carries BT.601 YUV (RFC 6386 section 9.2: color space bit 0, the
-// only one defined) and the browser converts with the matrix of the
-// stream's colour space. The luma of Y'CbCr to R'G'B' and back is exact but
-// for 8-bit rounding and clipping of saturated colours, so the tolerance
-// below is a few levels; the BT.709 and full-range alternatives are
-// measured in the same run and logged beside it.
+// (WICG video-rvfc). The canvas holds R'G'B'; the luma is recovered with
+// the ITU-R BT.601 matrix in studio range (Kr 0.299, Kb 0.114, 219 levels
+// from 16: Y = 16 + (65.481 R + 128.553 G + 24.966 B) / 255; coefficients
+// as published in BT.601-7, written here from memory), because a VP8 stream
+// carries BT.601 YUV (RFC 6386 section 9.2: color space 0, the only one
+// defined) and the browser converts with that matrix. The BT.709 and
+// full-range alternatives are measured in the same run and logged beside
+// it: both fit worse. Clipped pixels are left out (see lumaDiff).
 
-// Pixel tolerance between the browser's picture and the relay's, on 8-bit
-// luma. Our choice from the conversion's error: rounding to 8 bits twice
-// (up to 1 level each way) plus clipping of out-of-gamut chroma on a few
-// pixels. A decoder that used a wrong reference differs by tens of levels
-// on the moving road (see the report of the deliberate breakages in the
-// commit history).
-const (
-	pixMaxMeanAbs = 2.0  // mean absolute luma difference, levels
-	pixMinPSNR    = 38.0 // dB, peak 255
-)
+// pixTolerance bounds the difference between the browser's picture and the
+// relay's, on 8-bit luma over the pixels the browser did not clip
+// (lumaDiff); at most pixMaxClipped of the pixels may be left out, so a
+// picture cannot pass by being saturated.
+type pixTolerance struct {
+	MaxMeanAbs float64 // mean absolute luma difference, levels
+	MinPSNR    float64 // dB, peak 255
+}
+
+// pixTol is the tolerance, our choice from what correct runs measured:
+// a keyframe the browser showed at once differed from the relay's picture
+// by 0.14 to 0.56 levels on average (the conversion's rounding), but other
+// frames by 0.7 to 2.4 (PSNR 35 to 42 dB, a few pixels up to 90 levels) at
+// edges in the picture: the browser's decoder post-processes its pictures
+// (Chromium's WebRTC VP8 decoder turns on libvpx's multi-frame quality
+// enhancement, which blends in the previous picture where the quality
+// drops; this is from memory of its source and not verified here), so a
+// plain libvpx decode is not bit-exact with what it shows.
+//
+// A decoder that used a reference from the other source differs by far
+// more (see the deliberate breakage in the commit history), as does the
+// picture of a neighbouring frame (6 to 12 levels at 30 fps on the
+// simulated drive).
+var pixTol = pixTolerance{MaxMeanAbs: 3.0, MinPSNR: 32}
+
+const pixMaxClipped = 0.5 // fraction of pixels with a channel at 0 or 255
 
 // pixWindow is how many frames from a switch on are compared: the switch
 // frame and those after it, within the same source.
@@ -297,38 +312,60 @@ var (
 	lumaBT601Full = lumaMatrix{"BT.601 full range", 0, 0.299, 0.587, 0.114}
 )
 
-// lumaDiff is how far a page picture's luma is from a reference.
+// lumaDiff is how far a page picture's luma is from a reference, over the
+// pixels where the browser's R'G'B' was not clipped: no channel at 0 or 255.
+// There the luma of Y'CbCr -> R'G'B' -> Y' is exact up to rounding,
+// whatever the chroma and however the browser upsampled it, because the
+// chroma terms of the inverse matrix add nothing to Y';
+// where a channel was clipped (saturated label colours next to black, whose
+// 4:2:0 chroma is shared) it is not. Both differences are measured against
+// the same reference; the check uses the unclipped one.
 type lumaDiff struct {
 	MeanAbs float64 // mean absolute difference, levels
 	PSNR    float64 // dB, peak 255 (+Inf when equal)
 	MaxAbs  float64 // largest absolute difference, levels
+	Clipped float64 // fraction of pixels left out (a channel at 0 or 255)
+	// AllMeanAbs is the mean absolute difference over every pixel,
+	// clipped ones included (logged, not checked).
+	AllMeanAbs float64
 }
 
 func (d lumaDiff) String() string {
-	return fmt.Sprintf("mean |dY| %.2f, PSNR %.1f dB, max |dY| %.0f", d.MeanAbs, d.PSNR, d.MaxAbs)
+	return fmt.Sprintf("mean |dY| %.2f, PSNR %.1f dB, max |dY| %.0f over %.0f %% of the pixels (all pixels: mean |dY| %.2f)",
+		d.MeanAbs, d.PSNR, d.MaxAbs, 100*(1-d.Clipped), d.AllMeanAbs)
 }
 
-// within reports whether d is inside the check's tolerance.
-func (d lumaDiff) within() bool { return d.MeanAbs <= pixMaxMeanAbs && d.PSNR >= pixMinPSNR }
+// within reports whether d is inside tolerance tol.
+func (d lumaDiff) within(tol pixTolerance) bool {
+	return d.Clipped <= pixMaxClipped && d.MeanAbs <= tol.MaxMeanAbs && d.PSNR >= tol.MinPSNR
+}
 
 // compareLuma compares p's luma (through m) with ref, w x h tight.
 func compareLuma(p pagePicture, ref []byte, m lumaMatrix) (lumaDiff, error) {
 	if len(ref) != p.W*p.H {
 		return lumaDiff{}, fmt.Errorf("page picture %dx%d, reference has %d samples", p.W, p.H, len(ref))
 	}
-	var sumAbs, sumSq, maxAbs float64
+	var sumAbs, sumSq, maxAbs, allAbs float64
+	n := 0
 	for i, r := range ref {
-		c := p.RGB[3*i:]
+		c := p.RGB[3*i : 3*i+3]
 		y := m.Offset + m.Kr*float64(c[0]) + m.Kg*float64(c[1]) + m.Kb*float64(c[2])
 		d := math.Abs(y - float64(r))
+		allAbs += d
+		if c[0] == 0 || c[0] == 255 || c[1] == 0 || c[1] == 255 || c[2] == 0 || c[2] == 255 {
+			continue
+		}
+		n++
 		sumAbs += d
 		sumSq += d * d
 		maxAbs = max(maxAbs, d)
 	}
-	n := float64(len(ref))
-	d := lumaDiff{MeanAbs: sumAbs / n, MaxAbs: maxAbs, PSNR: math.Inf(1)}
-	if sumSq > 0 {
-		d.PSNR = 10 * math.Log10(255*255/(sumSq/n))
+	d := lumaDiff{MaxAbs: maxAbs, PSNR: math.Inf(1), Clipped: 1 - float64(n)/float64(len(ref)), AllMeanAbs: allAbs / float64(len(ref))}
+	if n > 0 {
+		d.MeanAbs = sumAbs / float64(n)
+		if sumSq > 0 {
+			d.PSNR = 10 * math.Log10(255*255/(sumSq/float64(n)))
+		}
 	}
 	return d, nil
 }
@@ -437,15 +474,16 @@ func comparePicture(t *testing.T, b *consoletest.Browser, c *switchCheck, k int,
 	if err == nil {
 		var d lumaDiff
 		if d, err = compareLuma(p, refs[j], lumaBT601); err == nil {
-			if !d.within() {
+			tol := pixTol
+			if !d.within(tol) {
 				if n, nd, ok := nearNeighbour(p, refs, j); ok {
 					c.Mistimed++
 					t.Logf("pixels: the page's picture at RTP %d (%v from its own) is the relay's frame %+d (%v): drawn under the wrong timestamp, not compared", s.ts, d, n, nd)
 					return
 				}
 				writeMismatch(t, s.ts, p, refs[j])
-				c.Failures = append(c.Failures, fmt.Sprintf("frame +%d (RTP %d, %s): %v, tolerance mean |dY| <= %.1f and PSNR >= %.0f dB",
-					k, s.ts, s.src, d, pixMaxMeanAbs, pixMinPSNR))
+				c.Failures = append(c.Failures, fmt.Sprintf("frame +%d (RTP %d, %s, keyframe %v): %v, tolerance mean |dY| <= %.1f and PSNR >= %.0f dB",
+					k, s.ts, s.src, s.key, d, tol.MaxMeanAbs, tol.MinPSNR))
 				return
 			}
 			if c.FirstAt < 0 {
@@ -514,7 +552,7 @@ func nearNeighbour(p pagePicture, refs [][]byte, j int) (int, lumaDiff, bool) {
 		if n < 0 || n >= len(refs) || refs[n] == nil {
 			continue
 		}
-		if d, err := compareLuma(p, refs[n], lumaBT601); err == nil && d.within() {
+		if d, err := compareLuma(p, refs[n], lumaBT601); err == nil && d.within(pixTol) {
 			return n - j, d, true
 		}
 	}
