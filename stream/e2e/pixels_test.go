@@ -482,8 +482,8 @@ func comparePicture(t *testing.T, b *consoletest.Browser, c *switchCheck, k int,
 					return
 				}
 				writeMismatch(t, s.ts, p, refs[j])
-				c.Failures = append(c.Failures, fmt.Sprintf("frame +%d (RTP %d, %s, keyframe %v): %v, tolerance mean |dY| <= %.1f and PSNR >= %.0f dB",
-					k, s.ts, s.src, s.key, d, tol.MaxMeanAbs, tol.MinPSNR))
+				c.Failures = append(c.Failures, fmt.Sprintf("frame +%d (RTP %d, %s, keyframe %v): %v, tolerance mean |dY| <= %.1f and PSNR >= %.0f dB%s",
+					k, s.ts, s.src, s.key, d, tol.MaxMeanAbs, tol.MinPSNR, earlierMatch(p, refs, j)))
 				return
 			}
 			if c.FirstAt < 0 {
@@ -542,14 +542,16 @@ func reportSwitchPictures(t *testing.T, checks []switchCheck, requireBoth bool) 
 }
 
 // nearNeighbour reports whether p is, within the tolerance, the relay's
-// picture of a frame sent up to two frames before or after frame j, and
-// which one (the offset) with its difference. A page picture drawn after
-// the video element had moved on to a later frame (the frame callback and
-// the drawing race on a loaded machine) is such a picture; a wrong decode
-// is not, since it matches no picture the relay sent.
+// picture of one of the two frames sent after frame j, and which one (the
+// offset) with its difference. A page picture drawn after the video
+// element had moved on to a later frame (the frame callback and the drawing
+// race on a loaded machine) is such a picture. Earlier frames do not
+// count: a decoder that applied an inter frame to the other source's
+// reference shows a picture close to the last one before the switch, which
+// is exactly the failure this check is for.
 func nearNeighbour(p pagePicture, refs [][]byte, j int) (int, lumaDiff, bool) {
-	for _, n := range []int{j + 1, j - 1, j + 2, j - 2} {
-		if n < 0 || n >= len(refs) || refs[n] == nil {
+	for _, n := range []int{j + 1, j + 2} {
+		if n >= len(refs) || refs[n] == nil {
 			continue
 		}
 		if d, err := compareLuma(p, refs[n], lumaBT601); err == nil && d.within(pixTol) {
@@ -591,4 +593,19 @@ func writeMismatch(t *testing.T, ts uint32, p pagePicture, ref []byte) {
 		}
 	}
 	t.Logf("pixels: mismatch at RTP %d saved as %s", ts, filepath.Join(dir, fmt.Sprintf("pixels-%d-*.png", ts)))
+}
+
+// earlierMatch describes which of the two frames sent before frame j p is
+// the picture of, if any: the mark of a decoder that kept showing (or
+// barely changed) an earlier picture.
+func earlierMatch(p pagePicture, refs [][]byte, j int) string {
+	for _, n := range []int{j - 1, j - 2} {
+		if n < 0 || refs[n] == nil {
+			continue
+		}
+		if d, err := compareLuma(p, refs[n], lumaBT601); err == nil && d.within(pixTol) {
+			return fmt.Sprintf("; it is the relay's picture of frame %+d (%v)", n-j, d)
+		}
+	}
+	return ""
 }
