@@ -28,6 +28,7 @@ type Console struct {
 	eg      *egress
 	api     *webrtc.API
 	handler http.Handler
+	sent    sentTracer // TraceSent's function, read by every viewer's sink
 
 	mu       sync.Mutex
 	sessions map[string]*session

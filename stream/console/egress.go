@@ -16,8 +16,11 @@ import (
 //
 // A frame the relay encoded is data. A forwarded frame is parts, the
 // vehicle's packets, whose Data slices point into data, and ts, the
-// vehicle's RTP timestamp.
+// vehicle's RTP timestamp. num is the frame's number in the order frames
+// reached the egress (from 1) and key whether it is a keyframe.
 type sharedBuf struct {
+	num   uint64
+	key   bool
 	data  []byte
 	parts []rtpvp8.Part
 	ts    uint32
@@ -279,13 +282,14 @@ func (e *egress) queue(key bool, dur time.Duration, fill func(*sharedBuf)) error
 		e.mu.Unlock()
 		return ErrClosed
 	}
-	e.framesIn.Add(1)
+	num := e.framesIn.Add(1)
 	start := e.timelineNs
 	e.timelineNs += int64(dur)
 	if len(e.viewers) > 0 {
 		now := e.now()
 		buf := e.getBuf(nil)
 		fill(buf)
+		buf.num, buf.key = num, key
 		src := buf.source()
 		for _, v := range e.viewers {
 			if !key && !v.waitKey && v.last != src && v.last != vp8splice.SourceInvalid {

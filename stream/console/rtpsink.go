@@ -38,6 +38,11 @@ type rtpSink struct {
 	started bool
 	startNs int64 // timeline start of the last frame sent
 	pkts    []rtp.Packet
+
+	// viewer is the viewer's number and trace the console's TraceSent
+	// function (nil: no tracing), called after each frame's packets.
+	viewer uint64
+	trace  *sentTracer
 }
 
 // writeFrame sends the frame in b placed at startNs on the timeline. b is
@@ -63,5 +68,19 @@ func (s *rtpSink) writeFrame(b *sharedBuf, startNs, durNs int64) error {
 			firstErr = err
 		}
 	}
+	if s.trace != nil {
+		if fn := s.trace.fn.Load(); fn != nil && len(s.pkts) > 0 {
+			s.traceFrame(*fn, b)
+		}
+	}
 	return firstErr
+}
+
+// traceFrame reports the frame in b, just written as s.pkts, to fn.
+func (s *rtpSink) traceFrame(fn func(SentFrame), b *sharedBuf) {
+	f := SentFrame{Viewer: s.viewer, Num: b.num, RTPTimestamp: s.pkts[0].Timestamp, Source: b.source(), Keyframe: b.key, Frame: b.data}
+	if f.Source == vp8splice.SourceForwarded {
+		f.SourceRTPTimestamp = b.ts
+	}
+	fn(f)
 }

@@ -177,6 +177,8 @@ func (c *Console) setupSession(ctx context.Context, s *session, offer string) (s
 	s.sink = rtpSink{
 		splicer: vp8splice.Splicer{MTU: rtpMTU, FirstSeq: uint16(rand.Uint32()), FirstPictureID: uint16(rand.Uint32()) & 0x7fff},
 		out:     track,
+		viewer:  s.num,
+		trace:   &c.sent,
 	}
 	s.v = newViewer(s.num, s, c.cfg.VideoQueueFrames, c.cfg.MetaQueue)
 

@@ -14,13 +14,18 @@ import (
 // TestBrowserOutage is the product's end-to-end check: relay and simulated
 // vehicle over loopback WebRTC, the operator page in real headless Chromium,
 // and a 1.5 s link outage. The page must show LIVE, then PREDICTED, then
-// STALE, then LIVE again, in that order, with the safety caution visible.
+// STALE, then LIVE again, in that order, with the safety caution visible;
+// and, across each switch between frames passed through from the vehicle
+// and frames of the relay's encoder, the pictures the page shows must be
+// the relay's within the tolerance of pixels_test.go.
 func TestBrowserOutage(t *testing.T) {
 	exe := consoletest.RequireChromium(t)
 	if testing.Short() {
 		t.Skip("browser end-to-end run takes about 15 s")
 	}
 	r := startRig(t, rigOptions{width: 320, height: 180, driveS: 8})
+	pics := tracePictures(r.relay)
+	defer pics.stop(r.relay)
 	waitFor(t, "the relay to show LIVE ticks", 10*time.Second, func() bool { return r.relay.Stats().TicksLive > 10 })
 
 	ctx, cancel := context.WithTimeout(context.Background(), 45*time.Second)
@@ -55,6 +60,16 @@ func TestBrowserOutage(t *testing.T) {
 	}
 
 	must(b.Open(r.relay.ConsoleURL(r.base), 10*time.Second))
+	must(startPageCapture(b))
+	// The pictures are compared at the end, also when a state check
+	// stopped the test early: a wrong picture is worth knowing then too.
+	// Both directions of switch must be verified only in a complete run.
+	passthru := egressMode() == "passthru"
+	complete := false
+	defer func() {
+		pics.stop(r.relay)
+		reportSwitchPictures(t, checkSwitchPictures(t, b, pics), passthru && complete)
+	}()
 	must(b.WaitState("LIVE", 15*time.Second))
 	must(b.CheckCautionVisible())
 	time.Sleep(time.Second) // a stretch of LIVE before the cut
@@ -72,6 +87,10 @@ func TestBrowserOutage(t *testing.T) {
 	must(b.CheckCautionVisible())
 	shot("e2e-stale.png")
 	must(b.WaitState("LIVE", 10*time.Second))
+	if passthru {
+		waitFor(t, "pass-through to resume", 5*time.Second, func() bool { return pics.backOnVehicle(pixWindow) })
+	}
+	complete = true
 
 	log, err := b.StateLog()
 	must(err)

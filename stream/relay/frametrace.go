@@ -5,6 +5,7 @@ import (
 	"time"
 
 	"stopgap/internal/display"
+	"stopgap/stream/vp8"
 )
 
 // FrameTrace describes one output frame the relay sent to the console, for
@@ -46,4 +47,39 @@ func (r *Relay) TraceFrames(fn func(FrameTrace)) {
 		return
 	}
 	r.tracer.fn.Store(&fn)
+}
+
+// DecodedFrame is one vehicle frame as the relay's own decoder made it:
+// the picture a console viewer must show for that frame when it is passed
+// through. See TraceDecoded.
+type DecodedFrame struct {
+	// RTPTimestamp is the vehicle's RTP timestamp of the frame (90 kHz),
+	// console.SentFrame.SourceRTPTimestamp for a forwarded frame.
+	RTPTimestamp uint32
+	// Forwarded tells whether the frame was passed through to the console
+	// (before it was decoded).
+	Forwarded bool
+	// Image is the decoded picture (I420). It belongs to the relay's
+	// decoder and is valid only during the call.
+	Image *vp8.Image
+}
+
+// decodeTracer holds the function TraceDecoded installed, if any.
+type decodeTracer struct {
+	fn atomic.Pointer[func(DecodedFrame)]
+}
+
+// TraceDecoded makes the relay call fn for every vehicle frame its decoder
+// decoded (and found to have the camera's size), forwarded or not; fn ==
+// nil stops the calls. It is meant for tests that compare what a console
+// viewer shows with what the relay meant it to show. fn runs on the
+// ingest goroutine with the ingest locked: it must return quickly, must not
+// keep the image and must not call the Relay. Without a tracer the ingest
+// only loads a nil pointer.
+func (r *Relay) TraceDecoded(fn func(DecodedFrame)) {
+	if fn == nil {
+		r.decoded.fn.Store(nil)
+		return
+	}
+	r.decoded.fn.Store(&fn)
 }

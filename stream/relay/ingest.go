@@ -270,6 +270,9 @@ func (in *frameIngest) onFrame(f rtpvp8.Frame) {
 		p.log.Warn("decoded picture size differs from the camera; check camera.json", "width", dst.Width, "height", dst.Height, "err", ErrFrameSize)
 		return
 	}
+	if fn := p.r.decoded.fn.Load(); fn != nil {
+		(*fn)(DecodedFrame{RTPTimestamp: f.RTPTimestamp, Forwarded: fwd, Image: dst})
+	}
 	if pic == nil {
 		p.r.met.framesDropped.Add(1)
 		return

@@ -88,6 +88,7 @@ type Relay struct {
 	incoming chan ingest.Session
 	encPtsUs int64 // last encoder timestamp; used only by the serving goroutine
 	tracer   frameTracer
+	decoded  decodeTracer
 
 	mu          sync.Mutex
 	active      bool
