@@ -115,6 +115,14 @@ type Config struct {
 	Logger *slog.Logger
 	// Now is the receiver clock (default time.Now).
 	Now func() time.Time
+	// DrawOverdue draws every missing tick, however far behind its
+	// deadline the display loop is. By default (false) a tick whose
+	// deadline passed more than a period ago when it is filled is decided
+	// and recorded but not drawn (NOT_SHOWN, counted in Stats.Overruns):
+	// its picture would reach the viewer after its successor was due, and
+	// drawing it would keep a relay on a busy machine behind. A test whose
+	// Now runs faster than real time and fills ticks in batches sets it.
+	DrawOverdue bool
 	// NewTimer makes the display loop's deadline timer (default: a
 	// time.Timer). Tests inject a fake.
 	NewTimer func(d time.Duration) Timer

@@ -247,6 +247,8 @@ func testRelay(t testing.TB, clock *fakeClock, recordDir string) *Relay {
 		FPS: testFPS, Camera: testCamera(), RecordDir: recordDir,
 		IngestToken: testIngestToken, ConsoleToken: testConsoleToken,
 		Logger: quietLogger(), Now: clock.Now, NewTimer: newIdleTimer,
+		// The fake clock jumps ahead and the loop fills ticks in batches.
+		DrawOverdue: true,
 		// The fake vehicle runs faster than real time; room for every
 		// frame keeps the display loop from dropping any.
 		FrameQueue: 64,

@@ -132,7 +132,7 @@ const MetricPrefix = "stopgap_"
 type metrics struct {
 	framesIn, losses, keyframeRequests, keyframeRequestsFailed atomic.Uint64
 	ticks                                                      [len(display.States) + 1]atomic.Uint64 // by display.State
-	lateFrames, decodeErrors, framesDropped                    atomic.Uint64
+	lateFrames, decodeErrors, framesDropped, overruns          atomic.Uint64
 	framesMovedOn                                              atomic.Uint64
 	telemetryIn, recordErrors, sessions                        atomic.Uint64
 	telemetryRejected, rtpDropped                              labelled
@@ -180,6 +180,7 @@ func (m *metrics) writeText(w io.Writer, active int, pt passthru.Stats) {
 		fmt.Fprintf(w, "# HELP %s %s\n# TYPE %s gauge\n%s %g\n", name, help, name, name, v)
 	}
 	counter("frames_in", "Video frames received complete and decoded.", m.framesIn.Load())
+	counter("tick_overruns", "Ticks decided but not drawn (not_shown) because the display loop was more than a period behind their deadline: the machine is too busy for the relay.", m.overruns.Load())
 	fmt.Fprintf(w, "# HELP %[1]sticks_total Display ticks decided, by state.\n# TYPE %[1]sticks_total counter\n", p)
 	for _, st := range display.States {
 		fmt.Fprintf(w, "%sticks_total{state=%q} %d\n", p, strings.ToLower(st.String()), m.ticks[st].Load())

@@ -58,7 +58,7 @@ func TestDeferredConversionShowsTheSame(t *testing.T) {
 		{img: 10, k: 12}, {gap: true, k: 13}, {img: 11, k: 14}, {gap: true, k: 45}, // the last one STALE (age over the cap)
 	}
 	run := func(passThrough bool) [][]byte {
-		r, err := New(Config{Camera: cam, LatencyMs: 50, IngestToken: testIngestToken, ConsoleToken: testConsoleToken, Logger: quietLogger(),
+		r, err := New(Config{Camera: cam, LatencyMs: 50, IngestToken: testIngestToken, ConsoleToken: testConsoleToken, Logger: quietLogger(), DrawOverdue: true,
 			Whip: whip.Config{Network: whip.Network{LoopbackOnly: true}}})
 		if err != nil {
 			t.Fatal(err)

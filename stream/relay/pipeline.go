@@ -417,6 +417,21 @@ func (p *pipeline) observeVideo(ev *frameEvent) {
 // Missing fills tick t at its deadline with the tick's own policy (the
 // display clock's instruction, cadence.Handler).
 func (p *pipeline) Missing(t cadence.Tick) {
+	if late := p.cfg.Now().UnixMicro() - t.DeadlineUs; !p.cfg.DrawOverdue && float64(late) > p.clock.Grid().PeriodUs() {
+		// Overrun: the display loop is more than a period behind this
+		// tick's deadline, so the next tick is due as well and will be
+		// filled right after. A picture made for this one would reach
+		// the viewer after its successor was due: it is decided (and
+		// recorded) but not drawn, NOT_SHOWN. At most one overdue tick
+		// per catch-up is drawn, so a relay slowed by a busy machine
+		// catches up instead of spending each period on pictures of
+		// ticks already past (a PREDICTED tick at 1280x720 costs more
+		// than a period when two relays share a core).
+		p.r.met.overruns.Add(1)
+		p.log.Debug("tick not drawn: the display loop is behind", "tick", t.K, "after_deadline_us", late)
+		p.recordNotShown(t)
+		return
+	}
 	if err := p.def.flush(p.filler, p.cfg.Camera.Width, p.cfg.Camera.Height); err != nil {
 		p.log.Warn("the frames before a gap could not reach the gap filler", "tick", t.K, "err", err)
 	}

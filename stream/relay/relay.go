@@ -50,6 +50,9 @@ type Stats struct {
 	// shown); FramesDropped frames dropped because the display loop was
 	// behind.
 	LateFrames, FramesDropped uint64
+	// Overruns counts ticks decided but not drawn (NOT_SHOWN) because the
+	// display loop was more than a period behind their deadline.
+	Overruns uint64
 	// FramesMovedOn counts frames shown on the first open tick because
 	// their own tick was already handled (see the rule in slot.go).
 	FramesMovedOn uint64
@@ -218,7 +221,7 @@ func (r *Relay) Stats() Stats {
 		TicksNoPicture: m.ticks[display.StateNoPicture].Load(), TicksNotShown: m.ticks[display.StateNotShown].Load(),
 		Losses: m.losses.Load(), KeyframeRequests: m.keyframeRequests.Load(),
 		State: predictor.State(m.stateNow.Load()), PictureAgeMs: float64(m.pictureAge.Load()) / 1000,
-		LateFrames: m.lateFrames.Load(), FramesDropped: m.framesDropped.Load(), FramesMovedOn: m.framesMovedOn.Load(),
+		LateFrames: m.lateFrames.Load(), FramesDropped: m.framesDropped.Load(), Overruns: m.overruns.Load(), FramesMovedOn: m.framesMovedOn.Load(),
 		TelemetryIn: m.telemetryIn.Load(), TelemetryRejected: m.telemetryRejected.total(),
 		RecordErrors: m.recordErrors.Load(),
 		LatencyMs:    float64(lat) / 1000, LatencyKnown: known,

@@ -11,12 +11,14 @@ import (
 	"strconv"
 	"strings"
 	"testing"
+	"time"
 
 	"stopgap/bench"
 	"stopgap/predictor"
 	"stopgap/stream/cadence"
 	"stopgap/stream/console"
 	"stopgap/stream/recording"
+	"stopgap/stream/whip"
 )
 
 // readTicks returns the state column of the relay's shown.csv by tick.
@@ -401,5 +403,52 @@ func TestNoSenderReport(t *testing.T) {
 	}
 	if got := readTicks(t, dir); len(got) != 0 {
 		t.Errorf("recorded %d ticks without vehicle clock", len(got))
+	}
+}
+
+// TestOverdueTicksNotDrawn: a tick filled more than a period after its
+// deadline (a display loop behind on a busy machine: its successor is due
+// too) is decided and counted but not drawn, NOT_SHOWN; one filled less than
+// a period late is drawn. With DrawOverdue every tick is drawn.
+func TestOverdueTicksNotDrawn(t *testing.T) {
+	periodUs := int64(math.Floor(1e6 / testFPS)) // 33333 µs at 30 fps
+	now := time.Unix(1_000, 0)
+	cases := []struct {
+		name        string
+		lateUs      int64
+		drawOverdue bool
+		drawn       bool
+	}{
+		{"in time", 0, false, true},
+		{"half a period late", periodUs / 2, false, true},
+		{"just under a period late", periodUs - 1, false, true},
+		{"just over a period late", periodUs + 1, false, false},
+		{"three periods late", 3 * periodUs, false, false},
+		{"three periods late, DrawOverdue", 3 * periodUs, true, true},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			r, err := New(Config{FPS: testFPS, Camera: testCamera(), IngestToken: testIngestToken, ConsoleToken: testConsoleToken,
+				Logger: quietLogger(), Now: func() time.Time { return now }, DrawOverdue: c.drawOverdue,
+				Whip: whip.Config{Network: whip.Network{LoopbackOnly: true}}})
+			if err != nil {
+				t.Fatal(err)
+			}
+			defer r.shutdown()
+			p, err := newPipeline(r, newFakeVehicle(t, &fakeClock{}, 0, nil))
+			if err != nil {
+				t.Fatal(err)
+			}
+			defer p.close()
+			// No frame yet: a drawn tick is NO_PICTURE.
+			p.Missing(cadence.Tick{K: 0, TargetUs: 0, DeadlineUs: now.UnixMicro() - c.lateUs, Policy: predictor.DefaultPolicy()})
+			st := r.Stats()
+			if drawn := st.TicksNoPicture == 1; drawn != c.drawn || st.TicksNoPicture+st.TicksNotShown != 1 {
+				t.Errorf("%d µs late: stats %+v, want drawn %v", c.lateUs, st, c.drawn)
+			}
+			if wantOverruns := map[bool]uint64{true: 0, false: 1}[c.drawn]; st.Overruns != wantOverruns {
+				t.Errorf("%d overruns, want %d", st.Overruns, wantOverruns)
+			}
+		})
 	}
 }
