@@ -12,6 +12,7 @@ import (
 	"sort"
 
 	"stopgap/filter"
+	"stopgap/predictor"
 	"stopgap/stream/operator"
 	"stopgap/stream/recording"
 )
@@ -191,7 +192,10 @@ func EvalSources() []EvalSource {
 func (s EvalSource) apply(cfg ReplayConfig) ReplayConfig {
 	cfg.NoCommands = !s.Commands
 	cfg.Motion = s.Motion
-	cfg.exactMotion = s.Truth
+	cfg.truthMotion = nil
+	if s.Truth {
+		cfg.truthMotion = func(tr []recording.Truth) predictor.MotionSource { return exactMotion(tr) }
+	}
 	return cfg
 }
 
@@ -299,7 +303,7 @@ func closeExamples(es []Example) {
 // interpolated linearly between frames, with zero covariance.
 type exactMotion []recording.Truth
 
-// Relative implements predictor.EvalSource.
+// Relative implements predictor.MotionSource.
 func (m exactMotion) Relative(t0Us, t1Us int64) (filter.Motion, error) {
 	if len(m) == 0 {
 		return filter.Motion{}, fmt.Errorf("exact motion: no truth rows: %w", ErrReplayInput)
