@@ -65,7 +65,9 @@ func (rc *replayCommands) feed(flt *filter.Filter, deadlineUs int64, log *slog.L
 //     cfg.Filter.Actuator when its delay or a lag is set, else fitted from
 //     the whole drive's commands and telemetry (filter.FitActuator; the
 //     actuator is a property of the vehicle, so a fit over the drive is a
-//     calibration, not a look into each gap's future).
+//     calibration, not a look into each gap's future); a replay that
+//     ignores the telemetry (cfg.Motion.NoTelemetry) does not fit on it:
+//     without a configured actuator its commands are unused.
 //
 // The commands reach the filter at their recorded t_arrival_us (a station
 // next to the relay); their send time t_us is taken as on the vehicle clock
@@ -126,6 +128,11 @@ func loadCommands(cfg ReplayConfig, telemetry []recording.TelemetryRow, log *slo
 	}
 	act := fcfg.Actuator
 	if act.DelayUs == 0 && act.SteerLagS == 0 && act.SpeedLagS == 0 {
+		if cfg.Motion.NoTelemetry {
+			// The fit would read the telemetry this replay ignores.
+			fcfg.Model = cfg.Filter.Model
+			return notUsed("the actuator is fitted from telemetry, which this replay ignores; configure the delay and lags")
+		}
 		samples := make([]filter.Sample, len(telemetry))
 		for i, r := range telemetry {
 			samples[i] = SampleFromRow(r)

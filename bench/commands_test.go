@@ -2,12 +2,14 @@ package bench
 
 import (
 	"context"
+	"log/slog"
 	"path/filepath"
 	"strings"
 	"testing"
 
 	"stopgap/bench/simdrive"
 	"stopgap/filter"
+	"stopgap/stream/recording"
 )
 
 // motionTable formats rows for a log.
@@ -121,5 +123,41 @@ func TestEvalSourcesSmall(t *testing.T) {
 	if !(cmd.MisalignMrad <= tel.MisalignMrad/2) || !(cmd.GainDB >= tel.GainDB+0.3) || cmd.HarmRate > 0.05 {
 		t.Errorf("commands: %.2f mrad, gain %.2f dB, harm %.3f; telemetry only: %.2f mrad, gain %.2f dB",
 			cmd.MisalignMrad, cmd.GainDB, cmd.HarmRate, tel.MisalignMrad, tel.GainDB)
+	}
+}
+
+// TestCommandsWithoutTelemetry: a replay that ignores the telemetry never
+// fits the actuator on it: its commands are used only with a configured
+// actuator; a replay on telemetry fits it.
+func TestCommandsWithoutTelemetry(t *testing.T) {
+	drive := smallDrive(t, smallConfig())
+	rec, err := recording.Open(drive)
+	if err != nil {
+		t.Fatal(err)
+	}
+	known := filter.Actuator{DelayUs: 120_000, SteerLagS: 0.15, SpeedLagS: 0.6}
+	for _, tc := range []struct {
+		name         string
+		motion       MotionSources
+		act          filter.Actuator
+		used, fitted bool
+		model        filter.Model
+	}{
+		{"video, actuator to fit", MotionSources{NoTelemetry: true, Video: true}, filter.Actuator{}, false, false, filter.ModelCTRV},
+		{"video, actuator configured", MotionSources{NoTelemetry: true, Video: true}, known, true, false, filter.ModelBicycle},
+		{"telemetry, actuator to fit", MotionSources{}, filter.Actuator{}, true, true, filter.ModelBicycle},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			cfg := baseReplay(drive, "")
+			cfg.Motion = tc.motion
+			cfg.Filter = filter.Config{WheelbaseM: simdrive.DefaultWheelbaseM, Actuator: tc.act}
+			fcfg, cmds, use, err := loadCommands(cfg, rec.Telemetry, slog.New(slog.DiscardHandler))
+			if err != nil {
+				t.Fatal(err)
+			}
+			if use.Used != tc.used || use.Fitted != tc.fitted || fcfg.Model != tc.model || (cmds != nil) != tc.used {
+				t.Errorf("used %v (%s), fitted %v, model %v; want used %v, fitted %v, model %v", use.Used, use.Why, use.Fitted, fcfg.Model, tc.used, tc.fitted, tc.model)
+			}
+		})
 	}
 }
