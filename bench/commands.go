@@ -12,6 +12,7 @@ import (
 	"sort"
 
 	"stopgap/filter"
+	"stopgap/predictor"
 	"stopgap/stream/operator"
 	"stopgap/stream/recording"
 )
@@ -64,7 +65,9 @@ func (rc *replayCommands) feed(flt *filter.Filter, deadlineUs int64, log *slog.L
 //     cfg.Filter.Actuator when its delay or a lag is set, else fitted from
 //     the whole drive's commands and telemetry (filter.FitActuator; the
 //     actuator is a property of the vehicle, so a fit over the drive is a
-//     calibration, not a look into each gap's future).
+//     calibration, not a look into each gap's future); a replay that
+//     ignores the telemetry (cfg.Motion.NoTelemetry) does not fit on it:
+//     without a configured actuator its commands are unused.
 //
 // The commands reach the filter at their recorded t_arrival_us (a station
 // next to the relay); their send time t_us is taken as on the vehicle clock
@@ -125,6 +128,11 @@ func loadCommands(cfg ReplayConfig, telemetry []recording.TelemetryRow, log *slo
 	}
 	act := fcfg.Actuator
 	if act.DelayUs == 0 && act.SteerLagS == 0 && act.SpeedLagS == 0 {
+		if cfg.Motion.NoTelemetry {
+			// The fit would read the telemetry this replay ignores.
+			fcfg.Model = cfg.Filter.Model
+			return notUsed("the actuator is fitted from telemetry, which this replay ignores; configure the delay and lags")
+		}
 		samples := make([]filter.Sample, len(telemetry))
 		for i, r := range telemetry {
 			samples[i] = SampleFromRow(r)
@@ -147,37 +155,60 @@ func loadCommands(cfg ReplayConfig, telemetry []recording.TelemetryRow, log *slo
 	return fcfg, rc, use, nil
 }
 
-// EvalSource is one row of the motion-source evaluation: which inputs,
-// besides whatever telemetry arrives, drive the filter.
+// EvalSource is one row of the motion-source evaluation: which inputs
+// drive the filter.
 type EvalSource struct {
 	// Name labels the row.
 	Name string
 	// Commands: the operator's commands drive the bicycle model.
 	Commands bool
+	// Motion says which of the vehicle's telemetry and the video's
+	// ego-motion feed the filter; the zero value is telemetry alone. A row
+	// without telemetry (Motion.NoTelemetry) is replayed once: the
+	// telemetry link makes no difference to it.
+	Motion MotionSources
 	// Truth replaces the filter by the exact motion from truth.csv: the
 	// upper bound of any motion source for the predictor as it is (the
 	// telemetry link makes no difference to it).
 	Truth bool
 }
 
-// ExactMotionSource is the reference row of the evaluation on drives with a
-// truth.csv (see EvalSource.Truth).
-var ExactMotionSource = EvalSource{Name: "exact motion (bound)", Truth: true}
+// The rows of the evaluation (EvalSources) and its bound.
+var (
+	// TelemetryOnlySource is the vehicle's telemetry alone.
+	TelemetryOnlySource = EvalSource{Name: "telemetry only"}
+	// CommandsAddedSource adds the operator's commands to the telemetry.
+	CommandsAddedSource = EvalSource{Name: "commands added", Commands: true}
+	// VideoOnlySource is the video's ego-motion alone: no telemetry, no
+	// commands (a camera-only vehicle).
+	VideoOnlySource = EvalSource{Name: "video ego-motion only", Motion: MotionSources{NoTelemetry: true, Video: true}}
+	// AllSourcesSource is telemetry, the commands and the video's
+	// ego-motion together.
+	AllSourcesSource = EvalSource{Name: "all together", Commands: true, Motion: MotionSources{Video: true}}
+	// ExactMotionSource is the reference row of the evaluation on drives
+	// with a truth.csv (see EvalSource.Truth).
+	ExactMotionSource = EvalSource{Name: "exact motion (bound)", Truth: true}
+)
 
 // EvalSources returns the evaluation's rows, in order.
 func EvalSources() []EvalSource {
-	return []EvalSource{
-		{Name: "telemetry only"},
-		{Name: "commands added", Commands: true},
-	}
+	return []EvalSource{TelemetryOnlySource, CommandsAddedSource, VideoOnlySource, AllSourcesSource}
 }
 
 // apply returns cfg set up for source s.
 func (s EvalSource) apply(cfg ReplayConfig) ReplayConfig {
 	cfg.NoCommands = !s.Commands
-	cfg.exactMotion = s.Truth
+	cfg.Motion = s.Motion
+	cfg.truthMotion = nil
+	if s.Truth {
+		cfg.truthMotion = func(tr []recording.Truth) predictor.MotionSource { return exactMotion(tr) }
+	}
 	return cfg
 }
+
+// usesTelemetry reports whether the row's figures depend on the telemetry
+// link.
+func (s EvalSource) usesTelemetry() bool { return !s.Truth && !s.Motion.NoTelemetry }
 
 // TelemetryLinks returns the evaluation's two telemetry links: lost with
 // the video, and on its own channel (never lost).
@@ -187,8 +218,13 @@ func TelemetryLinks() []TelemetryLink {
 
 // EvalRow is one replay of the motion-source evaluation.
 type EvalRow struct {
-	Source    string        `json:"source"`
-	Telemetry TelemetryLink `json:"telemetry"`
+	Source string `json:"source"`
+	// Telemetry is the telemetry link of the row; nil when the row uses no
+	// telemetry (the video alone, the exact motion).
+	Telemetry *TelemetryLink `json:"telemetry,omitempty"`
+	// Motion names the sources that fed the filter (MotionSources.String;
+	// "-" for the exact motion).
+	Motion string `json:"motion"`
 	// Model is the filter's motion model.
 	Model string `json:"model"`
 	// HoldPSNRdB and ShownPSNRdB are the mean PSNR of hold and of what the
@@ -208,13 +244,17 @@ type EvalRow struct {
 	// exact motion (truth.csv) over the PREDICTED ticks, mrad (NaN without
 	// truth): how wrong the motion was, apart from the image synthesis.
 	MisalignMrad Float `json:"truth_misalign_mrad_mean"`
+	// VideoSamples counts the video's ego-motion estimates the filter
+	// accepted (0 unless the row uses the video).
+	VideoSamples int `json:"video_samples"`
 	// Commands is what the replay did with the commands.
 	Commands CommandsUse `json:"commands"`
 }
 
 // CompareEvalSources replays cfg (without writing a report) once per
-// source and per telemetry link and returns one row each, sources outer.
-// cfg.Telemetry and cfg.NoCommands are overridden.
+// source and per telemetry link (once for a source that uses no
+// telemetry) and returns one row each, sources outer. cfg.Telemetry,
+// cfg.Motion and cfg.NoCommands are overridden.
 func CompareEvalSources(ctx context.Context, cfg ReplayConfig, sources []EvalSource, links []TelemetryLink) ([]EvalRow, error) {
 	var rows []EvalRow
 	for _, src := range sources {
@@ -239,12 +279,20 @@ func CompareEvalSources(ctx context.Context, cfg ReplayConfig, sources []EvalSou
 			}
 			closeExamples(out.examples)
 			hold, shown := float64(sum.Methods.Hold.PSNRdBMean), float64(sum.Methods.Predicted.PSNRdBMean)
-			rows = append(rows, EvalRow{Source: src.Name, Telemetry: link, Model: sum.FilterModel,
+			row := EvalRow{Source: src.Name, Motion: sum.Motion.String(), Model: sum.FilterModel,
 				HoldPSNRdB: Float(hold), ShownPSNRdB: Float(shown), GainDB: Float(shown - hold),
 				Predicted: sum.PredictedOnly.Frames, Harm: sum.PredictedOnly.HarmPSNR,
 				HarmRate: Float(float64(sum.PredictedOnly.HarmPSNR) / float64(max(1, sum.PredictedOnly.Frames))),
-				Missing:  sum.TicksMissing, Commands: sum.Commands, MisalignMrad: Float(mis / float64(nm))})
+				Missing:  sum.TicksMissing, Commands: sum.Commands, MisalignMrad: Float(mis / float64(nm)),
+				VideoSamples: sum.VideoSamples}
 			if src.Truth {
+				row.Motion, row.Model = "-", "-"
+			}
+			if src.usesTelemetry() {
+				row.Telemetry = &link
+			}
+			rows = append(rows, row)
+			if !src.usesTelemetry() {
 				break // the link makes no difference
 			}
 		}
@@ -262,7 +310,7 @@ func closeExamples(es []Example) {
 // interpolated linearly between frames, with zero covariance.
 type exactMotion []recording.Truth
 
-// Relative implements predictor.EvalSource.
+// Relative implements predictor.MotionSource.
 func (m exactMotion) Relative(t0Us, t1Us int64) (filter.Motion, error) {
 	if len(m) == 0 {
 		return filter.Motion{}, fmt.Errorf("exact motion: no truth rows: %w", ErrReplayInput)
@@ -291,13 +339,17 @@ func (m exactMotion) at(tUs int64) [3]float64 {
 
 // WriteEvalTable writes rows as a plain-text table, one line per row.
 func WriteEvalTable(w io.Writer, rows []EvalRow) {
-	fmt.Fprintf(w, "%-20s %-20s %-8s %9s %9s %8s %10s %8s %9s\n", "source", "telemetry", "model", "hold dB", "shown dB", "gain dB", "predicted", "harm", "mis mrad")
+	fmt.Fprintf(w, "%-22s %-20s %-16s %-8s %9s %9s %8s %10s %8s %9s\n", "source", "telemetry", "motion", "model", "hold dB", "shown dB", "gain dB", "predicted", "harm", "mis mrad")
 	for _, r := range rows {
-		link := "lost with the video"
-		if r.Telemetry.Own {
+		link := "-"
+		switch {
+		case r.Telemetry == nil:
+		case r.Telemetry.Own:
 			link = "own channel"
+		default:
+			link = "lost with the video"
 		}
-		fmt.Fprintf(w, "%-20s %-20s %-8s %9.2f %9.2f %8.2f %10d %7.1f%% %9.2f\n", r.Source, link, r.Model,
+		fmt.Fprintf(w, "%-22s %-20s %-16s %-8s %9.2f %9.2f %8.2f %10d %7.1f%% %9.2f\n", r.Source, link, r.Motion, r.Model,
 			r.HoldPSNRdB, r.ShownPSNRdB, r.GainDB, r.Predicted, 100*r.HarmRate, r.MisalignMrad)
 	}
 }

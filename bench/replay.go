@@ -108,9 +108,10 @@ type ReplayConfig struct {
 	// Now is the clock for synthesis times; nil means time.Now.
 	Now func() time.Time
 
-	// exactMotion replaces the filter by the motion from truth.csv (the
-	// evaluation's upper bound, EvalSource.Truth).
-	exactMotion bool
+	// truthMotion, if set, replaces the filter by a motion source made
+	// from truth.csv: the exact motion (the evaluation's upper bound,
+	// EvalSource.Truth), or a reference that knows part of the truth.
+	truthMotion func(truth []recording.Truth) predictor.MotionSource
 }
 
 // Schedule is the display schedule of a replay: when each tick falls and
@@ -466,11 +467,11 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 	}
 
 	var motion predictor.MotionSource = flt
-	if cfg.exactMotion {
+	if cfg.truthMotion != nil {
 		if in.pairing != nil || len(rec.Truth) != len(captureUs) {
 			return Summary{}, fmt.Errorf("replay: the exact motion needs a truth.csv row for every frame: %w", ErrReplayInput)
 		}
-		motion = exactMotion(rec.Truth)
+		motion = cfg.truthMotion(rec.Truth)
 	}
 	r, err := newReplayer(cam, cfg.Policy, cfg.Confidence, motion, now)
 	if err != nil {

@@ -10,6 +10,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"strings"
 
 	"stopgap/bench"
 	"stopgap/bench/simdrive"
@@ -71,7 +72,7 @@ func (f *replayFlags) register(fs *flag.FlagSet) {
 	fs.Float64Var(&f.commandDelayMs, "command-delay-ms", 0, "uplink delay from the operator station to the vehicle's actuators, ms;\nwith --steer-lag-s and --speed-lag-s all 0 (default) the three are fitted from the drive")
 	fs.Float64Var(&f.steerLagS, "steer-lag-s", 0, "time constant of the steering actuator's first-order lag, s (see --command-delay-ms)")
 	fs.Float64Var(&f.speedLagS, "speed-lag-s", 0, "time constant of the speed's first-order lag, s (see --command-delay-ms)")
-	fs.BoolVar(&f.compareSources, "compare-sources", false, "also replay once per source of motion (telemetry only, commands added, and the exact motion\nwhen the drive has truth.csv) and per telemetry link, and print the table (sources.json in --out)")
+	fs.BoolVar(&f.compareSources, "compare-sources", false, evalSourcesHelp())
 	fs.Float64Var(&f.toleranceMrad, "tolerance-mrad", predictor.DefaultToleranceMrad, "misalignment within which a predicted frame counts as good, mrad: the confidence is the probability of that")
 }
 
@@ -191,6 +192,16 @@ func runReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 		return compareSources(ctx, cfg, out, stdout)
 	}
 	return nil
+}
+
+// evalSourcesHelp is the help of --compare-sources, naming its rows.
+func evalSourcesHelp() string {
+	var names []string
+	for _, s := range bench.EvalSources() {
+		names = append(names, s.Name)
+	}
+	return "also replay once per source of motion (" + strings.Join(names, ", ") + ",\nand " +
+		bench.ExactMotionSource.Name + " when the drive has truth.csv) and per telemetry link\n(once for a source without telemetry), and print the table (sources.json in --out)"
 }
 
 // compareSources runs the evaluation table on cfg's drive, prints it and

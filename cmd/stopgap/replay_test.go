@@ -2,7 +2,11 @@ package main
 
 import (
 	"bytes"
+	"context"
+	"encoding/json"
 	"math"
+	"os"
+	"path/filepath"
 	"strings"
 	"testing"
 
@@ -30,5 +34,51 @@ func TestPrintSummaryNoBareNaN(t *testing.T) {
 	}
 	if strings.Contains(out, "NaN") {
 		t.Errorf("a bare NaN in the summary:\n%s", out)
+	}
+}
+
+// TestReplayCompareSources: one replay with --compare-sources prints one
+// table with every source of motion (telemetry only, commands added, video
+// ego-motion only, all together, the exact motion) and writes the same rows
+// to sources.json: one per telemetry link, one for a source without
+// telemetry.
+func TestReplayCompareSources(t *testing.T) {
+	dir := t.TempDir()
+	drive, out := filepath.Join(dir, "drive"), filepath.Join(dir, "r")
+	var stdout, stderr bytes.Buffer
+	if c := run(context.Background(), []string{"simdrive", "--quiet", "--out", drive, "--width", "320", "--height", "180", "--duration-s", "4"}, &stdout, &stderr); c != 0 {
+		t.Fatalf("simdrive: %d %s", c, stderr.String())
+	}
+	stdout.Reset()
+	if c := run(context.Background(), []string{"replay", "--quiet", "--drive", drive, "--out", out, "--compare-sources"}, &stdout, &stderr); c != 0 {
+		t.Fatalf("replay --compare-sources: %d %s", c, stderr.String())
+	}
+	var want []string
+	for _, s := range append(bench.EvalSources(), bench.ExactMotionSource) {
+		want = append(want, s.Name)
+		if s.Name != bench.VideoOnlySource.Name && s.Name != bench.ExactMotionSource.Name {
+			want = append(want, s.Name) // lost with the video, own channel
+		}
+	}
+	table := stdout.String()[strings.Index(stdout.String(), "sources of motion, side by side"):]
+	for _, name := range want {
+		if !strings.Contains(table, name) {
+			t.Errorf("the table lacks %q:\n%s", name, table)
+		}
+	}
+	data, err := os.ReadFile(filepath.Join(out, "sources.json"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	var rows []bench.EvalRow
+	if err := json.Unmarshal(data, &rows); err != nil {
+		t.Fatal(err)
+	}
+	var got []string
+	for _, r := range rows {
+		got = append(got, r.Source)
+	}
+	if strings.Join(got, "|") != strings.Join(want, "|") {
+		t.Errorf("sources.json rows %q, want %q", got, want)
 	}
 }

@@ -18,6 +18,7 @@ import (
 	"stopgap/predictor"
 	"stopgap/stream/console"
 	"stopgap/stream/ingest"
+	"stopgap/stream/operator"
 	"stopgap/stream/passthru"
 	"stopgap/stream/vp8"
 	"stopgap/stream/whip"
@@ -346,6 +347,21 @@ func (r *Relay) AddCommand(c filter.Command) error {
 		return ErrNoSession
 	}
 	return flt.AddCommand(c)
+}
+
+// ControlsChannel returns the operator's command channel of this relay (an
+// operator.ControlsChannel, to serve at POST /api/controls): guarded by
+// Config.ConsoleToken, stamped with Config.Now, it hands every accepted
+// command to AddCommand (a command that arrives between sessions, or that
+// the filter refuses, is logged at debug level and dropped). known and log
+// are the channel's Known and Log (nil: any valid name, not recorded).
+func (r *Relay) ControlsChannel(known func(name string) bool, log *operator.ControlsWriter) *operator.ControlsChannel {
+	return &operator.ControlsChannel{Token: r.cfg.ConsoleToken, Now: r.cfg.Now, Known: known, Log: log,
+		Sink: func(c operator.Control) {
+			if err := r.AddCommand(c.Command()); err != nil {
+				r.log.Debug("operator command not used", "t_us", c.TUs, "err", err)
+			}
+		}}
 }
 
 func (r *Relay) setActive(a bool) {

@@ -108,20 +108,14 @@ func Serve(ctx context.Context, cfg Config) error {
 	handler := r.Handler()
 	// The operator station's commands: recorded beside the drive (see
 	// operator.ControlsFile) and the bicycle model's control input.
-	controls := &operator.ControlsChannel{Token: cfg.Relay.ConsoleToken, Now: time.Now, Known: cfg.KnownOperator,
-		Sink: func(c operator.Control) {
-			if err := r.AddCommand(c.Command()); err != nil {
-				log.Debug("operator command not used", "t_us", c.TUs, "err", err)
-			}
-		}}
+	var cw *operator.ControlsWriter
 	if cfg.Relay.RecordDir != "" {
-		cw, err := operator.CreateControls(cfg.Relay.RecordDir)
-		if err != nil {
+		if cw, err = operator.CreateControls(cfg.Relay.RecordDir); err != nil {
 			return fmt.Errorf("station: control log in %s: %w", cfg.Relay.RecordDir, err)
 		}
 		defer cw.Close()
-		controls.Log = cw
 	}
+	controls := r.ControlsChannel(cfg.KnownOperator, cw)
 	mux := http.NewServeMux()
 	mux.Handle("/api/controls", controls)
 	mux.Handle("/", handler)
