@@ -181,16 +181,25 @@ func (s *Scene) Render(i int, frame *gocv.Mat, g *Geometry) error {
 // followed along its ray to its surface (exact: the ground plane, a post's
 // or facade's plane, or a direction for the sky), projected into source's
 // camera, and compared with the surface source shows at the nearest pixel.
-func (s *Scene) Seen(dst []Visibility, target, source *Geometry) error {
+// If xy is not nil (len 2*Width*Height), it receives where each pixel's
+// point projects in source (x, y in pixels; meaningful where dst is Seen or
+// Hidden).
+func (s *Scene) Seen(dst []Visibility, xy []float32, target, source *Geometry) error {
 	w, h := s.cfg.Width, s.cfg.Height
-	if target.Width != w || target.Height != h || source.Width != w || source.Height != h || len(dst) != w*h {
-		return fmt.Errorf("simdrive: geometry %dx%d and %dx%d, %d visibilities, want %dx%d: %w",
-			target.Width, target.Height, source.Width, source.Height, len(dst), w, h, ErrConfig)
+	if target.Width != w || target.Height != h || source.Width != w || source.Height != h || len(dst) != w*h ||
+		(xy != nil && len(xy) != 2*w*h) {
+		return fmt.Errorf("simdrive: geometry %dx%d and %dx%d, %d visibilities, %d coordinates, want %dx%d: %w",
+			target.Width, target.Height, source.Width, source.Height, len(dst), len(xy), w, h, ErrConfig)
 	}
 	f := s.newFollower(target, source)
 	for v := 0; v < h; v++ {
 		for u := 0; u < w; u++ {
-			_, _, dst[v*w+u] = f.follow(u, v)
+			i := v*w + u
+			x, y, vis := f.follow(u, v)
+			dst[i] = vis
+			if xy != nil {
+				xy[2*i], xy[2*i+1] = float32(x), float32(y)
+			}
 		}
 	}
 	return nil

@@ -103,7 +103,7 @@ func TestSeenFollowsTheScene(t *testing.T) {
 	}
 	w, h := small.Width, small.Height
 	vis := make([]Visibility, w*h)
-	if err := sc.Seen(vis, &ga, &ga); err != nil {
+	if err := sc.Seen(vis, nil, &ga, &ga); err != nil {
 		t.Fatal(err)
 	}
 	for i, v := range vis {
