@@ -8,6 +8,7 @@ import (
 	"testing"
 
 	"stopgap/bench/simdrive"
+	"stopgap/filter"
 	"stopgap/internal/lossmodel"
 )
 
@@ -56,7 +57,8 @@ func TestErrorBudgetAddsUp(t *testing.T) {
 // and on the narrow street (--facade-setback-m 1). It reports, per drive,
 // the gain over hold, the gain scored over the pixels the held frame sees
 // only, and the gain if every seen region were right up to the codec
-// noise.
+// noise; and the gain and harm rate of the commands with telemetry lost
+// with the video.
 //
 //	go test ./bench -run '^$' -bench ErrorBudget -benchtime 1x
 func BenchmarkErrorBudget(b *testing.B) {
@@ -79,6 +81,14 @@ func BenchmarkErrorBudget(b *testing.B) {
 					b.Fatal(err)
 				}
 				b.Logf("\n%s", budgetTable(bud))
+				cfg.Filter = filter.Config{WheelbaseM: simdrive.DefaultWheelbaseM}
+				rows, err := CompareEvalSources(context.Background(), cfg, EvalSources()[1:2], []TelemetryLink{{}})
+				if err != nil {
+					b.Fatal(err)
+				}
+				b.Logf("\n%s", motionTable(rows))
+				b.ReportMetric(float64(rows[0].GainDB), "commands-lost-gain-dB")
+				b.ReportMetric(float64(rows[0].HarmRate), "commands-lost-harm")
 				b.ReportMetric(bud.GainDB, "gain-dB")
 				b.ReportMetric(bud.KnowableGainDB, "seen-only-gain-dB")
 				b.ReportMetric(bud.AllRightGainDB, "all-seen-right-gain-dB")
