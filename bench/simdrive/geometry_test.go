@@ -84,7 +84,9 @@ func TestSceneRendersTheDriveFrames(t *testing.T) {
 // TestSeenFollowsTheScene: every pixel of a frame is seen in the frame
 // itself at its own place; between frames 6 apart (200 ms), the raw colour
 // at the followed place of each seen pixel matches the pixel (the geometry
-// is the renderer's), and does not where the point was hidden.
+// is the renderer's: mean |difference| 5.28 grey levels, the resampling
+// of the two renders; 6.05 with every depth 2 % too far, 9.85 with 10 %),
+// and does not where the point was hidden.
 func TestSeenFollowsTheScene(t *testing.T) {
 	sc, err := NewScene(small)
 	if err != nil {
@@ -142,8 +144,8 @@ func TestSeenFollowsTheScene(t *testing.T) {
 	}
 	seen, hidden := sum[Seen]/float64(n[Seen]), sum[Hidden]/float64(max(1, n[Hidden]))
 	t.Logf("pixels %v; mean |diff| seen %.2f, hidden %.2f grey levels", n, seen, hidden)
-	if n[Seen] < w*h/2 || n[Hidden] == 0 || !(seen < 12) || !(hidden > 2*seen) {
-		t.Errorf("seen %d px with mean |diff| %.2f, hidden %d px with %.2f: want most pixels seen and matching (< 12), hidden ones at least twice as different",
+	if n[Seen] < w*h/2 || n[Hidden] == 0 || !(seen < 5.6) || !(hidden > 2*seen) {
+		t.Errorf("seen %d px with mean |diff| %.2f, hidden %d px with %.2f: want most pixels seen and matching (< 5.6), hidden ones at least twice as different",
 			n[Seen], seen, n[Hidden], hidden)
 	}
 }
