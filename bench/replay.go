@@ -112,6 +112,10 @@ type ReplayConfig struct {
 	// from truth.csv: the exact motion (the evaluation's upper bound,
 	// EvalSource.Truth), or a reference that knows part of the truth.
 	truthMotion func(truth []recording.Truth) predictor.MotionSource
+	// predicted, if set, is called on each scored PREDICTED tick k with
+	// the held frame's index, the frame shown before its label and the
+	// true and held frames, all borrowed for the call (ErrorBudget).
+	predicted func(k, held int, unlabelled, truth, heldImg gocv.Mat) error
 }
 
 // Schedule is the display schedule of a replay: when each tick falls and
@@ -479,6 +483,7 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 	}
 	defer r.Close()
 	r.captureUs = captureUs
+	r.predicted = cfg.predicted
 	if in.pairing == nil {
 		r.truth = rec.Truth
 		if r.marks, err = newMarkScorer(cfg.Drive); err != nil {
@@ -749,6 +754,8 @@ type replayer struct {
 	// marks scores the marks of things that moved against the drive's
 	// masks; nil without masks (or on a paired session's ticks).
 	marks *markScorer
+	// predicted is ReplayConfig.predicted.
+	predicted func(k, held int, unlabelled, truth, heldImg gocv.Mat) error
 }
 
 func newReplayer(cam predictor.Camera, pol predictor.Policy, cm predictor.ConfidenceModel, flt predictor.MotionSource, now func() time.Time) (*replayer, error) {
@@ -947,6 +954,11 @@ func (r *replayer) missing(t cadence.Tick, captureUs int64, last, beforeLast int
 	// What stopgap shows, before label and desaturation.
 	if row.Predicted, err = r.scorer.Score(r.unlabelled, truth); err != nil {
 		return TickRow{}, fmt.Errorf("scoring predicted: %w", err)
+	}
+	if r.predicted != nil && tick.State == predictor.StatePredicted {
+		if err := r.predicted(k, r.held, r.unlabelled, truth, held); err != nil {
+			return TickRow{}, err
+		}
 	}
 	// The rotation-only baseline always warps (it has no cutoff); without
 	// a usable motion it can only hold.

@@ -38,6 +38,10 @@ type renderer struct {
 	users  []*quad
 	movers gocv.Mat
 	zeros  gocv.Mat // 8UC1, all 0
+
+	// geom, if not nil, receives the surface id of every pixel
+	// (Scene.Render; see Geometry).
+	geom []int32
 }
 
 // drawItem is a quad to draw and its distance from the camera: a scene
@@ -138,6 +142,9 @@ func (r *renderer) render(p pose) {
 		r.frame.SetTo(gocv.NewScalar(0, 0, 0, 0))
 	}
 	r.renderSky()
+	if r.geom != nil {
+		r.writeGroundAndSky()
+	}
 	if r.movers.Ptr() != nil {
 		r.movers.SetTo(gocv.NewScalar(0, 0, 0, 0))
 	}
@@ -346,6 +353,13 @@ func (r *renderer) drawQuad(q *quad, rot mat3, t vec3, user bool) {
 	pv := gocv.NewPointsVectorFromPoints([][]image.Point{pts})
 	gocv.FillPolyWithParams(&m, pv, color.RGBA{B: 255}, gocv.Line8, 4, image.Point{})
 	pv.Close()
+	if r.geom != nil {
+		surf := q.surf
+		if user {
+			surf = SurfaceRoadUser
+		}
+		r.writeQuadGeometry([4]int{rect.Min.X, rect.Min.Y, rect.Max.X, rect.Max.Y}, surf)
+	}
 	dst := r.frame.Region(rect)
 	tmp.CopyToWithMask(&dst, m)
 	dst.Close()

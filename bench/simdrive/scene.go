@@ -70,7 +70,8 @@ type quad struct {
 	texH0    float64   // level-0 texture height in texels
 	offs     []float64 // per level: level-0 texel offset of the view's column 0 from the quad's left edge
 	centre   vec3
-	isMarker bool // test hook: not used by the generator
+	isMarker bool  // test hook: not used by the generator
+	surf     int32 // the surface it belongs to (scene.surfaces); 0 for a road user
 }
 
 // scene holds everything rendered: ground map, quads and the sky image.
@@ -86,6 +87,10 @@ type scene struct {
 	traffic      []roadUser
 	path         []pathSample
 	meanSpeedMps float64
+
+	// surfaces are the static surfaces by id (see Geometry): the sky, the
+	// ground, then one per post and one per facade (all its pieces).
+	surfaces []surface
 }
 
 // Close releases the OpenCV memory.
@@ -147,7 +152,8 @@ func samplePath(tr *trajectory, stepM float64) []pathSample {
 func buildScene(tr *trajectory, texelM float64, width, height int, cam pinhole, seed int64, setbackM float64) (*scene, error) {
 	rng := rand.New(rand.NewPCG(uint64(seed), 0x5ce7e))
 	path := samplePath(tr, 0.5)
-	sc := &scene{path: path}
+	sc := &scene{path: path, surfaces: []surface{SurfaceNone: {}, SurfaceSky: {class: ClassSky},
+		SurfaceGround: {class: ClassGround, n: vec3{0, 0, 1}}, SurfaceRoadUser: {class: ClassRoadUser}}}
 	if err := sc.buildGround(path, texelM, rng); err != nil {
 		sc.Close()
 		return nil, err
@@ -331,6 +337,7 @@ func (sc *scene) placePosts(path []pathSample) {
 			// The face spans across the road direction (along the normal).
 			q := quad{p0: base.sub(p.n.scale(postWM / 2)), ua: p.n, wM: postWM, hM: postHM,
 				texW0: 16, texH0: 110}
+			q.surf = sc.addSurface(ClassPost, q.p0, q.ua)
 			for _, l := range levels {
 				q.levels = append(q.levels, l.Region(image.Rect(0, 0, l.Cols(), l.Rows())))
 				q.offs = append(q.offs, 0)
@@ -383,12 +390,13 @@ func (sc *scene) addFacade(pa, pb vec3, heightM float64, rng *rand.Rand) {
 	sc.textures = append(sc.textures, levels[1:]...)
 	texW0, texH0 := float64(tex.Cols()), float64(tex.Rows())
 	n := int(math.Ceil(wM / maxSubQuadM))
+	surf := sc.addSurface(ClassFacade, pa, ua)
 	for i := 0; i < n; i++ {
 		a0, a1 := int(math.Round(texW0*float64(i)/float64(n))), int(math.Round(texW0*float64(i+1)/float64(n)))
 		q := quad{
 			p0: pa.add(ua.scale(float64(a0) / texW0 * wM)), ua: ua,
 			wM: float64(a1-a0) / texW0 * wM, hM: heightM,
-			texW0: float64(a1 - a0), texH0: texH0,
+			texW0: float64(a1 - a0), texH0: texH0, surf: surf,
 		}
 		for l, m := range levels {
 			x0, x1 := a0>>l, (a1+(1<<l)-1)>>l
