@@ -320,6 +320,12 @@ func (f *Filler) HoldPrevious(frame gocv.Mat, captureUs int64) error {
 	}
 	frame.CopyTo(&f.prev)
 	f.prevUs, f.havePrev = captureUs, true
+	// Kept older frames must be older than it (their buffers stay as
+	// spares).
+	for f.olderN > 0 && f.olderUs[f.olderN-1] >= captureUs {
+		f.olderN--
+	}
+	f.moversKnown = false
 	return nil
 }
 
@@ -403,11 +409,11 @@ func (f *Filler) HoldOlder(frame gocv.Mat, captureUs int64) error {
 		copy(f.older[f.olderN-k:], drop[:k])
 		f.olderN -= k
 	}
-	var buf gocv.Mat
+	f.moversKnown = false
 	if f.olderN == len(f.older) {
 		return nil // full of newer frames: the oldest kept is newer than the baseline needs
 	}
-	buf = f.older[f.olderN]
+	buf := f.older[f.olderN]
 	if buf.Ptr() == nil {
 		buf = gocv.NewMat()
 	}
@@ -416,7 +422,6 @@ func (f *Filler) HoldOlder(frame gocv.Mat, captureUs int64) error {
 	copy(f.olderUs[1:f.olderN+1], f.olderUs[:f.olderN])
 	f.older[0], f.olderUs[0] = buf, captureUs
 	f.olderN++
-	f.moversKnown = false
 	return nil
 }
 

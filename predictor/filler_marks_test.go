@@ -141,7 +141,8 @@ func TestFillerMoversHistory(t *testing.T) {
 
 // TestFillerHoldOlder: HoldOlder keeps a frame older than the frame before
 // the held one as the oldest, drops older ones, and refuses one out of
-// order or without held frames, changing nothing.
+// order or without held frames, changing nothing; HoldPrevious drops kept
+// frames not older than the new frame before last.
 func TestFillerHoldOlder(t *testing.T) {
 	c := uprightCam()
 	f, err := NewFiller(FillerConfig{Camera: c, Policy: DefaultPolicy(), Motion: &fakeMotion{}})
@@ -178,5 +179,12 @@ func TestFillerHoldOlder(t *testing.T) {
 	}
 	if got := f.olderUs[:f.olderN]; !slices.Equal(got, []int64{15, 20}) {
 		t.Errorf("older frames %v, want [15 20]", got)
+	}
+	// A frame before last older than some kept frames: they go.
+	if err := f.HoldPrevious(img, 18); err != nil {
+		t.Fatal(err)
+	}
+	if got := f.olderUs[:f.olderN]; !slices.Equal(got, []int64{15}) {
+		t.Errorf("older frames %v after HoldPrevious at 18, want [15]", got)
 	}
 }

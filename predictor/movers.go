@@ -137,10 +137,13 @@ type MoverModel struct {
 // road map below the horizon, the far map above it and each upright
 // segment's plane map over its segment (the vehicle's own motion), both
 // are compared in grey at reduced resolution, differences above Threshold
-// are cleaned (opening, closing) and grouped into connected regions. Each
-// region's apparent displacement is the shift (within ±8 low-resolution
-// pixels) that best matches its pixels between the two compensated frames;
-// its last known place is the region without the part it left.
+// are cleaned (opening, closing) and grouped into connected regions; a
+// region whose bottom is above the horizon is dropped (a road user stands
+// on the road). Each region's apparent displacement is the shift (up to
+// moverMaxSpeedWidthsPerS over the frames' interval) that best matches its
+// pixels against the older frame as a static upright surface standing at
+// the region's base would have moved; its last known place is the region
+// without the part it left.
 // It owns scratch images (Close frees them); not safe for concurrent use.
 type MoverDetector struct {
 	opts                         MoverOptions
