@@ -813,8 +813,8 @@ type replayDriver struct {
 	// older holds the frames handed to the clock before beforeLast, in
 	// capture order, the newest predictor.MoverHistory of them (the ones
 	// the live filler keeps for the movers' motion evidence).
-	older            []int
-	emit             func(TickRow) error
+	older []int
+	emit  func(TickRow) error
 	// onLive, if not nil, runs for each LIVE tick after its row (the
 	// lead's scores).
 	onLive func(k int) error
