@@ -9,6 +9,8 @@ import (
 	"gocv.io/x/gocv"
 
 	"stopgap/bench/simdrive"
+	"stopgap/predictor"
+	"stopgap/stream/recording"
 )
 
 // Regions of the error budget: what a pixel of the true frame shows, and

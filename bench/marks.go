@@ -156,14 +156,16 @@ func (s *markScorer) score(row *TickRow, f *predictor.Filler, cam predictor.Came
 		return err
 	}
 	// Where the predicted picture shows the moving things of the held
-	// frame: their mask warped as the held frame was (neutral fill where
-	// nothing maps is below the threshold).
+	// frame: their mask warped as the held frame was. A pixel counts when
+	// its value is above the neutral fill of pixels that nothing maps to
+	// (the warp leaves them predictor.NeutralGrey, which is not a mover):
+	// more than half covered by the mask where the rest is background.
 	gocv.CvtColor(s.held, &s.bgr, gocv.ColorGrayToBGR)
 	if _, err := f.WarpAsShown(s.bgr, m, &s.warped); err != nil {
 		return fmt.Errorf("warping the mask of moving things: %w", err)
 	}
 	gocv.CvtColor(s.warped, &s.truth, gocv.ColorBGRToGray)
-	gocv.Threshold(s.truth, &s.truth, 127.5, 255, gocv.ThresholdBinary)
+	gocv.Threshold(s.truth, &s.truth, predictor.NeutralGrey, 255, gocv.ThresholdBinary)
 	gocv.BitwiseOr(s.truth, s.target, &s.truth)
 
 	s.mk = ensureGray(s.mk, w, h)

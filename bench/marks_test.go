@@ -94,3 +94,56 @@ func TestReplayScoresMarks(t *testing.T) {
 		t.Errorf("masks of the wrong size: %v, want ErrReplayInput naming the file", err)
 	}
 }
+
+// TestMarkScorerIgnoresUnfilled: where the predicted picture has no source
+// (neutral grey, here on the side a turn uncovers) nothing moved; with masks
+// that hold no road user, no pixel counts as truly changed.
+func TestMarkScorerIgnoresUnfilled(t *testing.T) {
+	dir := t.TempDir()
+	const w, h = 160, 90
+	if err := os.Mkdir(filepath.Join(dir, simdrive.MoverMaskDir), 0o755); err != nil {
+		t.Fatal(err)
+	}
+	empty := gocv.NewMatWithSize(h, w, gocv.MatTypeCV8U)
+	defer empty.Close()
+	for i := range 2 {
+		if !gocv.IMWrite(simdrive.MoverMaskPath(dir, i), empty) {
+			t.Fatal("writing a mask")
+		}
+	}
+	s, err := newMarkScorer(dir)
+	if err != nil || s == nil {
+		t.Fatalf("scorer %v, err %v", s, err)
+	}
+	defer s.Close()
+	cam := predictor.Camera{Width: w, Height: h, Fx: 80, Fy: 80, Cx: 80, Cy: 45, HeightM: 1.4, PitchDeg: 5}
+	// Truth with a turn of 0.3 rad between the two frames.
+	truth := exactMotion{{CaptureUs: 0}, {CaptureUs: 100_000, XM: 1, YawRad: 0.3}}
+	f, err := predictor.NewFiller(predictor.FillerConfig{Camera: cam, Policy: predictor.DefaultPolicy(), Motion: truth})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	img := gocv.NewMatWithSizeFromScalar(gocv.NewScalar(30, 200, 60, 0), h, w, gocv.MatTypeCV8UC3)
+	defer img.Close()
+	if err := f.Hold(img, 0); err != nil {
+		t.Fatal(err)
+	}
+	m, err := truth.Relative(0, 100_000)
+	if err != nil {
+		t.Fatal(err)
+	}
+	warped := gocv.NewMat()
+	defer warped.Close()
+	syn, err := f.WarpAsShown(img, m, &warped)
+	if err != nil || syn.UnfilledFraction < 0.05 {
+		t.Fatalf("unfilled share %.3f (err %v): the check needs a warp that leaves pixels without source", syn.UnfilledFraction, err)
+	}
+	row := NewTickRow(1, 100_000, TickPredicted, 100)
+	if err := s.score(&row, f, cam, 0, 1, 100, m); err != nil {
+		t.Fatal(err)
+	}
+	if row.MarkChangedShare != 0 {
+		t.Errorf("changed share %.3f with empty masks, want 0 (unfilled pixels counted as a road user)", row.MarkChangedShare)
+	}
+}

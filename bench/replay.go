@@ -756,6 +756,8 @@ type replayer struct {
 	marks *markScorer
 	// predicted is ReplayConfig.predicted.
 	predicted func(k, held int, unlabelled, truth, heldImg gocv.Mat) error
+	// olderUs is holdNewest's scratch: capture times of the older frames.
+	olderUs []int64
 }
 
 func newReplayer(cam predictor.Camera, pol predictor.Policy, cm predictor.ConfidenceModel, flt predictor.MotionSource, now func() time.Time) (*replayer, error) {
@@ -813,7 +815,11 @@ type replayDriver struct {
 	// one before it, in capture order (-1: none), as the live relay's
 	// filler keeps them.
 	last, beforeLast int
-	emit             func(TickRow) error
+	// older holds the frames handed to the clock before beforeLast, in
+	// capture order, the newest predictor.MoverHistory of them (the ones
+	// the live filler keeps for the movers' motion evidence).
+	older []int
+	emit  func(TickRow) error
 	// onLive, if not nil, runs for each LIVE tick after its row (the
 	// lead's scores).
 	onLive func(k int) error
@@ -838,7 +844,7 @@ func (d *replayDriver) Missing(t cadence.Tick) {
 	if d.beforeMissing != nil {
 		d.beforeMissing(t.DeadlineUs)
 	}
-	row, err := d.r.missing(t, d.captureUs[t.K], d.last, d.beforeLast, d.frames, d.hasTruth)
+	row, err := d.r.missing(t, d.captureUs[t.K], d.last, d.beforeLast, d.older, d.frames, d.hasTruth)
 	if err != nil {
 		d.err = fmt.Errorf("tick %d (t_capture_us %d): %w", t.K, d.captureUs[t.K], err)
 		return
@@ -854,6 +860,12 @@ func (d *replayDriver) Missing(t cadence.Tick) {
 // late).
 func (d *replayDriver) frame(j int, v cadence.Frame) {
 	if j > d.last {
+		if d.beforeLast >= 0 {
+			if len(d.older) == predictor.MoverHistory {
+				d.older = append(d.older[:0], d.older[1:]...)
+			}
+			d.older = append(d.older, d.beforeLast)
+		}
 		d.last, d.beforeLast = j, d.last
 	}
 	k := v.Tick.K
@@ -876,13 +888,13 @@ func (d *replayDriver) frame(j int, v cadence.Frame) {
 }
 
 // missing fills and scores tick t, whose frame is not due-and-here, from
-// frame last (and beforeLast, the frame before it); captureUs is the row's
-// capture time.
-func (r *replayer) missing(t cadence.Tick, captureUs int64, last, beforeLast int, frames frameGetter, hasTruth []bool) (TickRow, error) {
+// frame last (and beforeLast, the frame before it, and older, the frames
+// before that); captureUs is the row's capture time.
+func (r *replayer) missing(t cadence.Tick, captureUs int64, last, beforeLast int, older []int, frames frameGetter, hasTruth []bool) (TickRow, error) {
 	k := t.K
 	r.truthImg, r.heldImg = gocv.Mat{}, gocv.Mat{}
 	r.shownValid = false
-	if err := r.holdNewest(frames, beforeLast, last); err != nil {
+	if err := r.holdNewest(frames, beforeLast, last, older); err != nil {
 		return TickRow{}, err
 	}
 	if err := r.filler.SetPolicy(t.Policy); err != nil {
@@ -997,8 +1009,10 @@ func (r *replayer) missing(t cadence.Tick, captureUs int64, last, beforeLast int
 }
 
 // holdNewest makes the filler hold frame last with beforeLast as the frame
-// before it (-1: none), loading them only if it does not hold them yet.
-func (r *replayer) holdNewest(frames frameGetter, beforeLast, last int) error {
+// before it (-1: none), loading them only if it does not hold them yet, and
+// the one of older (frames before beforeLast, in capture order) that the
+// movers compare last with.
+func (r *replayer) holdNewest(frames frameGetter, beforeLast, last int, older []int) error {
 	if last < 0 || last == r.held {
 		return nil
 	}
@@ -1011,14 +1025,30 @@ func (r *replayer) holdNewest(frames frameGetter, beforeLast, last int) error {
 		return fmt.Errorf("holding frame %d: %w", last, err)
 	}
 	r.held = last
-	if beforeLast < 0 || wasBefore {
-		return nil // the frame held before is the one before last
+	if beforeLast < 0 {
+		return nil
 	}
-	if img, err = frames.Get(beforeLast); err != nil {
+	if !wasBefore { // else the frame held before is the one before last
+		if img, err = frames.Get(beforeLast); err != nil {
+			return err
+		}
+		if err := r.filler.HoldPrevious(img, r.capture(beforeLast)); err != nil {
+			return fmt.Errorf("frame %d before frame %d: %w", beforeLast, last, err)
+		}
+	}
+	r.olderUs = r.olderUs[:0]
+	for _, j := range older {
+		r.olderUs = append(r.olderUs, r.capture(j))
+	}
+	k, ok := r.filler.MoverFrameWanted(r.capture(last), r.olderUs)
+	if !ok {
+		return nil
+	}
+	if img, err = frames.Get(older[k]); err != nil {
 		return err
 	}
-	if err := r.filler.HoldPrevious(img, r.capture(beforeLast)); err != nil {
-		return fmt.Errorf("frame %d before frame %d: %w", beforeLast, last, err)
+	if err := r.filler.HoldOlder(img, r.capture(older[k])); err != nil {
+		return fmt.Errorf("frame %d before frame %d: %w", older[k], beforeLast, err)
 	}
 	return nil
 }

@@ -29,7 +29,12 @@ func TestFillerTicksDoNotAllocate(t *testing.T) {
 	var tk Tick
 	newGap := func() {
 		gap += 1_000_000
-		if _, err = f.Live(prev, gap, &dst); err == nil {
+		// A real frame 200 ms before the held one: the movers compare
+		// with it (DefaultMoverBaselineMs).
+		if _, err = f.Live(prev, gap-166_667, &dst); err == nil {
+			_, err = f.Live(prev, gap, &dst)
+		}
+		if err == nil {
 			_, err = f.Live(last, gap+33_333, &dst)
 		}
 		if err == nil {
@@ -37,15 +42,15 @@ func TestFillerTicksDoNotAllocate(t *testing.T) {
 		}
 	}
 	steady := func() { tk, err = f.Missing(gap+166_666, &dst) }
-	for range 3 { // warm up
+	for range 3 { // warm up (and fill the older frames, MoverHistory)
 		newGap()
 		steady()
 	}
-	if err != nil || tk.State != StatePredicted || tk.Movers == 0 || tk.UprightSegments == 0 {
-		t.Fatalf("warm-up tick %+v %v: want PREDICTED with upright segments and marks", tk, err)
+	if err != nil || tk.State != StatePredicted || tk.Movers == 0 || tk.UprightSegments == 0 || f.moversFromUs != gap-166_667 {
+		t.Fatalf("warm-up tick %+v %v, movers against %d us: want PREDICTED with upright segments and marks made over the baseline", tk, err, f.moversFromUs)
 	}
 	if n := testing.AllocsPerRun(3, newGap); n != 0 || err != nil {
-		t.Errorf("a new gap (two live frames, first PREDICTED tick): %v allocations (err %v), want 0", n, err)
+		t.Errorf("a new gap (three live frames, first PREDICTED tick): %v allocations (err %v), want 0", n, err)
 	}
 	if n := testing.AllocsPerRun(5, steady); n != 0 || err != nil {
 		t.Errorf("the next tick of a gap: %v allocations (err %v), want 0", n, err)

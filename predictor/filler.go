@@ -132,6 +132,21 @@ type Filler struct {
 	moversKnown bool
 	// The movers as marked on the last tick (see placeMarks), reused.
 	marks []Mover
+
+	// Real frames older than prev, oldest first: older[:olderN] with
+	// their capture times; buffers beyond olderN are spares. A frame
+	// enters when it stops being prev (its buffer is swapped in, not
+	// copied) or through HoldOlder. The movers compare the held frame
+	// with the oldest within MoverOptions.BaselineMs, with the upright
+	// structure estimated over that baseline by longEst into longUp.
+	older   [MoverHistory]gocv.Mat
+	olderUs [MoverHistory]int64
+	olderN  int
+	longEst *UprightEstimator
+	longUp  UprightModel
+	// moversFromUs is the capture time of the frame the movers of the
+	// held frame were detected against.
+	moversFromUs int64
 }
 
 // NewFiller validates cfg and allocates the buffers.
@@ -175,6 +190,15 @@ func NewFiller(cfg FillerConfig) (*Filler, error) {
 		ue.Close()
 		return nil, err
 	}
+	le, err := NewUprightEstimator(cfg.Upright)
+	if err != nil { // validated above; kept for symmetry
+		s.Close()
+		l.Close()
+		d.Close()
+		ue.Close()
+		md.Close()
+		return nil, err
+	}
 	return &Filler{
 		cfg:        cfg,
 		synth:      s,
@@ -182,6 +206,7 @@ func NewFiller(cfg FillerConfig) (*Filler, error) {
 		depth:      d,
 		uprightEst: ue,
 		moverDet:   md,
+		longEst:    le,
 		last:       gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8UC3),
 		prev:       gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8UC3),
 		gray:       gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8U),
@@ -199,6 +224,12 @@ func (f *Filler) Close() error {
 	f.depth.Close()
 	f.uprightEst.Close()
 	f.moverDet.Close()
+	f.longEst.Close()
+	for i := range f.older {
+		if f.older[i].Ptr() != nil {
+			f.older[i].Close()
+		}
+	}
 	f.last.Close()
 	f.prev.Close()
 	f.gray.Close()
@@ -305,6 +336,12 @@ func (f *Filler) HoldPrevious(frame gocv.Mat, captureUs int64) error {
 	}
 	frame.CopyTo(&f.prev)
 	f.prevUs, f.havePrev = captureUs, true
+	// Kept older frames must be older than it (their buffers stay as
+	// spares).
+	for f.olderN > 0 && f.olderUs[f.olderN-1] >= captureUs {
+		f.olderN--
+	}
+	f.moversKnown = false
 	return nil
 }
 
@@ -319,13 +356,104 @@ func (f *Filler) hold(frame gocv.Mat, captureUs int64) {
 		return
 	}
 	if f.have && captureUs > f.lastUs {
-		// Keep the previous real frame for the far-depth estimate:
-		// swap the buffers, so this costs no extra copy.
+		// Keep the previous real frame for the far-depth estimate, and
+		// the one before it for the movers: swap the buffers, so this
+		// costs no extra copy.
+		if f.havePrev {
+			f.prev = f.pushOlder(f.prev, f.prevUs)
+		}
 		f.prev, f.last = f.last, f.prev
 		f.prevUs, f.havePrev = f.lastUs, true
 	}
 	frame.CopyTo(&f.last)
 	f.lastUs, f.have = captureUs, true
+}
+
+// pushOlder appends buf (a frame captured at us, newer than every kept
+// older frame) to the older frames, dropping the oldest when they are
+// full, and returns a spare buffer for the caller to keep in its place
+// (the dropped one, a spare, or a new empty Mat the first times).
+func (f *Filler) pushOlder(buf gocv.Mat, us int64) gocv.Mat {
+	if f.olderN == len(f.older) {
+		spare := f.older[0]
+		copy(f.older[:], f.older[1:])
+		copy(f.olderUs[:], f.olderUs[1:])
+		f.older[len(f.older)-1], f.olderUs[len(f.older)-1] = buf, us
+		return spare
+	}
+	spare := f.older[f.olderN]
+	if spare.Ptr() == nil {
+		spare = gocv.NewMat()
+	}
+	f.older[f.olderN], f.olderUs[f.olderN] = buf, us
+	f.olderN++
+	return spare
+}
+
+// HoldOlder gives the Filler a real frame older than the frame before the
+// held one, for the motion evidence of the movers (MoverOptions.BaselineMs),
+// as the oldest it keeps: kept frames older than it are dropped. A replay
+// that loads frames only when a gap needs them hands it the frame the live
+// path would compare with (see MoverFrameWanted). captureUs must be before the frame
+// before last's (ErrTargetBeforeFrame otherwise, and ErrNoFrame without
+// one); nothing changes on an error. frame is copied.
+func (f *Filler) HoldOlder(frame gocv.Mat, captureUs int64) error {
+	if f.closed {
+		return ErrClosed
+	}
+	if !f.have || !f.havePrev {
+		return fmt.Errorf("older frame at %d us without a held frame and one before it: %w", captureUs, ErrNoFrame)
+	}
+	if captureUs >= f.prevUs {
+		return fmt.Errorf("older frame at %d us, frame before last at %d us: %w", captureUs, f.prevUs, ErrTargetBeforeFrame)
+	}
+	c := f.cfg.Camera
+	if err := checkFrame("older frame", &frame, c.Width, c.Height); err != nil {
+		return err
+	}
+	// Drop the kept frames not newer than it (their buffers become
+	// spares beyond olderN), then insert it in time order.
+	k := 0
+	for k < f.olderN && f.olderUs[k] <= captureUs {
+		k++
+	}
+	if k > 0 {
+		var drop [MoverHistory]gocv.Mat
+		copy(drop[:], f.older[:k])
+		copy(f.older[:], f.older[k:f.olderN])
+		copy(f.olderUs[:], f.olderUs[k:f.olderN])
+		copy(f.older[f.olderN-k:], drop[:k])
+		f.olderN -= k
+	}
+	f.moversKnown = false
+	if f.olderN == len(f.older) {
+		return nil // full of newer frames: the oldest kept is newer than the baseline needs
+	}
+	buf := f.older[f.olderN]
+	if buf.Ptr() == nil {
+		buf = gocv.NewMat()
+	}
+	frame.CopyTo(&buf)
+	copy(f.older[1:f.olderN+1], f.older[:f.olderN])
+	copy(f.olderUs[1:f.olderN+1], f.olderUs[:f.olderN])
+	f.older[0], f.olderUs[0] = buf, captureUs
+	f.olderN++
+	return nil
+}
+
+// MoverFrameWanted returns which of the capture times us (increasing, the
+// real frames the display had before the frame before the held one, newest
+// last) the movers would compare the held frame (captured at lastUs) with,
+// as the live path keeps them: the oldest of the newest MoverHistory that
+// is at most the baseline older; ok is false when none is.
+func (f *Filler) MoverFrameWanted(lastUs int64, us []int64) (i int, ok bool) {
+	b := f.cfg.Movers.baselineUs()
+	for k := max(0, len(us)-MoverHistory); k < len(us); k++ {
+		if lastUs-us[k] <= b {
+			return k, true
+		}
+	}
+	return 0, false
 }
 
 // Missing fills a tick with no real frame using MethodGround. See MissingWith.
@@ -496,12 +624,34 @@ func (f *Filler) moverModel(farDepthM float64, up *UprightModel) *MoverModel {
 	}
 	if !f.moversKnown || f.moversFor != f.lastUs {
 		f.movers.Movers = f.movers.Movers[:0]
-		if m, err := f.cfg.Motion.Relative(f.prevUs, f.lastUs); err == nil {
+		// The oldest kept frame within the baseline, else the frame
+		// before the held one.
+		old, oldUs := f.prev, f.prevUs
+		for k := 0; k < f.olderN; k++ {
+			if f.lastUs-f.olderUs[k] <= f.cfg.Movers.baselineUs() {
+				old, oldUs = f.older[k], f.olderUs[k]
+				break
+			}
+		}
+		f.moversFromUs = oldUs
+		if m, err := f.cfg.Motion.Relative(oldUs, f.lastUs); err == nil {
 			var static *UprightEstimator
-			if _, ok := f.uprightEst.Residual(); ok && up != nil {
+			if oldUs != f.prevUs {
+				// The upright structure over the same baseline, for
+				// the compensation and the parallax check alike.
+				up, f.longUp.Segments = nil, f.longUp.Segments[:0]
+				if !f.cfg.Upright.Off {
+					if err := f.longEst.Estimate(old, f.last, f.cfg.Camera, m, farDepthM, &f.longUp); err == nil {
+						up = &f.longUp
+					}
+				}
+				if _, ok := f.longEst.Residual(); ok && up != nil {
+					static = f.longEst
+				}
+			} else if _, ok := f.uprightEst.Residual(); ok && up != nil {
 				static = f.uprightEst
 			}
-			if err := f.moverDet.Detect(f.prev, f.last, f.cfg.Camera, m, farDepthM, up, static, &f.movers); err != nil {
+			if err := f.moverDet.Detect(old, f.last, f.cfg.Camera, m, farDepthM, up, static, &f.movers); err != nil {
 				f.movers.Movers = f.movers.Movers[:0]
 			}
 		}

@@ -1,6 +1,10 @@
 package predictor
 
 import (
+	"errors"
+	"image"
+	"math"
+	"slices"
 	"testing"
 
 	"gocv.io/x/gocv"
@@ -47,5 +51,140 @@ func TestFillerPrepareChangesNothingShown(t *testing.T) {
 	gocv.AbsDiff(shown[0], shown[1], &d)
 	if n := gocv.CountNonZero(d.Reshape(1, 0)); n != 0 {
 		t.Errorf("%d bytes differ between the frames shown without and with Prepare", n)
+	}
+}
+
+// TestFillerMoversHistory: the movers compare the held frame with the
+// oldest real frame at most the baseline older, and a Filler fed every
+// frame (Live, as the relay) shows the same marks, byte for byte, as one
+// fed only the frames a gap needs (Hold, HoldPrevious and the frame
+// MoverFrameWanted picks through HoldOlder, as the replay).
+func TestFillerMoversHistory(t *testing.T) {
+	c := uprightCam()
+	const dtUs, n = 33_333, 9
+	base := texturedFrame(t, c.Width, c.Height, 7)
+	defer base.Close()
+	block := texturedFrame(t, 40, 50, 12)
+	defer block.Close()
+	frames := make([]gocv.Mat, n)
+	for i := range frames {
+		frames[i] = base.Clone()
+		defer frames[i].Close()
+		roi := frames[i].Region(image.Rect(120+2*i, 100, 160+2*i, 150)) // 60 px/s
+		block.CopyTo(&roi)
+		roi.Close()
+	}
+	target := int64(n-1)*dtUs + 100_000
+	var shown [2]gocv.Mat
+	var movers [2][]Mover
+	for v := range 2 {
+		f, err := NewFiller(FillerConfig{Camera: c, Policy: DefaultPolicy(), Motion: &fakeMotion{SigmaPerS: 0.01}})
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer f.Close()
+		shown[v] = gocv.NewMat()
+		defer shown[v].Close()
+		if v == 0 {
+			for i, fr := range frames {
+				if _, err := f.Live(fr, int64(i)*dtUs, &shown[v]); err != nil {
+					t.Fatal(err)
+				}
+			}
+			if got := f.olderUs[:f.olderN]; len(got) != MoverHistory || got[0] != dtUs {
+				t.Fatalf("older frames at %v us, want the %d before the frame before last", got, MoverHistory)
+			}
+		} else {
+			if err := f.Hold(frames[n-1], int64(n-1)*dtUs); err != nil {
+				t.Fatal(err)
+			}
+			if err := f.HoldPrevious(frames[n-2], int64(n-2)*dtUs); err != nil {
+				t.Fatal(err)
+			}
+			var us []int64
+			for i := range n - 2 {
+				us = append(us, int64(i)*dtUs)
+			}
+			k, ok := f.MoverFrameWanted(int64(n-1)*dtUs, us)
+			if !ok || k != 2 {
+				t.Fatalf("frame wanted %d (%v), want 2: the oldest at most %g ms before the held one", k, ok, DefaultMoverBaselineMs)
+			}
+			if err := f.HoldOlder(frames[k], us[k]); err != nil {
+				t.Fatal(err)
+			}
+		}
+		tk, err := f.Missing(target, &shown[v])
+		if err != nil || tk.State != StatePredicted || tk.Movers != 1 {
+			t.Fatalf("feed %d: tick %+v, err %v; want PREDICTED with one mark", v, tk, err)
+		}
+		movers[v] = append(movers[v], f.movers.Movers...)
+		if f.moversFromUs != 2*dtUs {
+			t.Errorf("feed %d: movers detected against the frame at %d us, want %d (the oldest at most %g ms older)", v, f.moversFromUs, 2*dtUs, DefaultMoverBaselineMs)
+		}
+	}
+	if movers[0][0] != movers[1][0] {
+		t.Errorf("mover fed every frame %+v, fed the gap's frames %+v", movers[0][0], movers[1][0])
+	}
+	// Over the 200 ms baseline the block moved 12 px (beyond the 8 px
+	// a two-frame search reaches): the apparent speed is measured to
+	// within a pixel over it.
+	if vx := movers[0][0].VxPxPerS; math.Abs(vx-60) > 1/0.2 {
+		t.Errorf("apparent speed %.1f px/s, want 60 ± 5", vx)
+	}
+	d := gocv.NewMat()
+	defer d.Close()
+	gocv.AbsDiff(shown[0], shown[1], &d)
+	if n := gocv.CountNonZero(d.Reshape(1, 0)); n != 0 {
+		t.Errorf("%d bytes differ between the two feeds", n)
+	}
+}
+
+// TestFillerHoldOlder: HoldOlder keeps a frame older than the frame before
+// the held one as the oldest, drops older ones, and refuses one out of
+// order or without held frames, changing nothing; HoldPrevious drops kept
+// frames not older than the new frame before last.
+func TestFillerHoldOlder(t *testing.T) {
+	c := uprightCam()
+	f, err := NewFiller(FillerConfig{Camera: c, Policy: DefaultPolicy(), Motion: &fakeMotion{}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	img := texturedFrame(t, c.Width, c.Height, 3)
+	defer img.Close()
+	dst := gocv.NewMat()
+	defer dst.Close()
+	if err := f.HoldOlder(img, 0); !errors.Is(err, ErrNoFrame) {
+		t.Errorf("before any frame: %v, want ErrNoFrame", err)
+	}
+	for i := range 5 {
+		if _, err := f.Live(img, int64(i)*10, &dst); err != nil {
+			t.Fatal(err)
+		}
+	}
+	// Held 40, before it 30; older 0, 10, 20.
+	if err := f.HoldOlder(img, 30); !errors.Is(err, ErrTargetBeforeFrame) {
+		t.Errorf("at the frame before last: %v, want ErrTargetBeforeFrame", err)
+	}
+	small := gocv.NewMatWithSize(10, 10, gocv.MatTypeCV8UC3)
+	defer small.Close()
+	if err := f.HoldOlder(small, 5); !errors.Is(err, ErrFrameFormat) {
+		t.Errorf("wrong size: %v, want ErrFrameFormat", err)
+	}
+	if got := f.olderUs[:f.olderN]; !slices.Equal(got, []int64{0, 10, 20}) {
+		t.Fatalf("older frames %v after refusals, want [0 10 20]", got)
+	}
+	if err := f.HoldOlder(img, 15); err != nil {
+		t.Fatal(err)
+	}
+	if got := f.olderUs[:f.olderN]; !slices.Equal(got, []int64{15, 20}) {
+		t.Errorf("older frames %v, want [15 20]", got)
+	}
+	// A frame before last older than some kept frames: they go.
+	if err := f.HoldPrevious(img, 18); err != nil {
+		t.Fatal(err)
+	}
+	if got := f.olderUs[:f.olderN]; !slices.Equal(got, []int64{15}) {
+		t.Errorf("older frames %v after HoldPrevious at 18, want [15]", got)
 	}
 }

@@ -118,8 +118,10 @@ func BenchmarkGapVsBare1280x720(b *testing.B) {
 	var tp, tfp []time.Duration // Prepare, and the first tick after it
 	// One gap untimed first, so the scratch slices have grown and
 	// allocs/op is the steady state.
-	for k, tUs := range []int64{-2_000_000, -2_000_000 + gapFramePeriodUs} {
-		if _, err := f.Live([]gocv.Mat{prev, last}[k], tUs, &dst); err != nil {
+	// Each gap's held frame has a real frame 200 ms before it (the movers'
+	// baseline, DefaultMoverBaselineMs), as on a live stream.
+	for k, tUs := range []int64{-2_000_000 - 5*gapFramePeriodUs, -2_000_000, -2_000_000 + gapFramePeriodUs} {
+		if _, err := f.Live([]gocv.Mat{prev, prev, last}[k], tUs, &dst); err != nil {
 			b.Fatal(err)
 		}
 	}
@@ -130,6 +132,9 @@ func BenchmarkGapVsBare1280x720(b *testing.B) {
 	b.ResetTimer()
 	for i := 0; i < b.N; i++ {
 		t0 := int64(i) * 1_000_000
+		if _, err := f.Live(prev, t0-5*gapFramePeriodUs, &dst); err != nil {
+			b.Fatal(err)
+		}
 		if _, err := f.Live(prev, t0, &dst); err != nil {
 			b.Fatal(err)
 		}

@@ -156,6 +156,9 @@ func BenchmarkFillerTickVsBare1280x720(b *testing.B) {
 	var tk Tick
 	// One gap untimed first, so the scratch slices have grown and
 	// allocs/op is the steady state (TestFillerTicksDoNotAllocate: 0).
+	// Each gap's held frame has a real frame 200 ms before it (the movers'
+	// baseline, DefaultMoverBaselineMs), as on a live stream.
+	f.Live(prev, -2_000_000-166_667, &dst)
 	f.Live(prev, -2_000_000, &dst)
 	f.Live(last, -2_000_000+33_333, &dst)
 	if _, err := f.Missing(-2_000_000+133_333, &dst); err != nil {
@@ -166,6 +169,7 @@ func BenchmarkFillerTickVsBare1280x720(b *testing.B) {
 	for i := 0; i < b.N; i++ {
 		if i%10 == 0 { // a new gap: new held frames, estimates redone
 			b.StopTimer()
+			f.Live(prev, int64(i)*1_000_000-166_667, &dst)
 			f.Live(prev, int64(i)*1_000_000, &dst)
 			f.Live(last, int64(i)*1_000_000+33_333, &dst)
 			b.StartTimer()

@@ -127,7 +127,7 @@ func TestUprightEstimateFindsWall(t *testing.T) {
 			possible, right := 0, 0
 			hzRow, _ := c.Horizon().RowAt(0)
 			for c0 := 0; c0+16 <= c.Width; c0 += 16 {
-				seg, ok := c.segment(wall, c0, c0+16, hzRow)
+				seg, ok := segment(c, wall, c0, c0+16, hzRow)
 				if !ok || seg.BaseRow0 > float64(c.Height) || seg.BaseRow1 < hzRow+3 {
 					continue // the wall cannot stand here, its foot is below the image or on the horizon
 				}
