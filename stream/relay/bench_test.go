@@ -32,7 +32,7 @@ func BenchmarkTick720p(b *testing.B) {
 	r, err := New(Config{Camera: cam, LatencyMs: 50, IngestToken: testIngestToken, ConsoleToken: testConsoleToken, Logger: quietLogger(),
 		// The benchmark fills ticks with deadlines of its own, far behind the clock.
 		DrawOverdue: true,
-		Whip: whip.Config{Network: whip.Network{LoopbackOnly: true}}})
+		Whip:        whip.Config{Network: whip.Network{LoopbackOnly: true}}})
 	if err != nil {
 		b.Fatal(err)
 	}

@@ -287,3 +287,23 @@ func runSession(t testing.TB, r *Relay, v *fakeVehicle) {
 		t.Fatalf("Run: %v", err)
 	}
 }
+
+// pipelineOnFakeVehicle builds a relay from cfg (with the test tokens, a
+// quiet logger and loopback-only WHIP) and a display pipeline for a fake
+// vehicle that sends nothing, for tests that drive the pipeline's methods
+// themselves. done closes both.
+func pipelineOnFakeVehicle(t testing.TB, cfg Config) (r *Relay, p *pipeline, done func()) {
+	t.Helper()
+	cfg.IngestToken, cfg.ConsoleToken, cfg.Logger = testIngestToken, testConsoleToken, quietLogger()
+	cfg.Whip = whip.Config{Network: whip.Network{LoopbackOnly: true}}
+	r, err := New(cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	p, err = newPipeline(r, newFakeVehicle(t, &fakeClock{}, 0, nil))
+	if err != nil {
+		r.shutdown()
+		t.Fatal(err)
+	}
+	return r, p, func() { p.close(); r.shutdown() }
+}

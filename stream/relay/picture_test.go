@@ -12,7 +12,6 @@ import (
 	"stopgap/predictor"
 	"stopgap/stream/cadence"
 	"stopgap/stream/vp8"
-	"stopgap/stream/whip"
 )
 
 // TestDeferredConversionShowsTheSame: frames that passed through reach the
@@ -58,17 +57,8 @@ func TestDeferredConversionShowsTheSame(t *testing.T) {
 		{img: 10, k: 12}, {gap: true, k: 13}, {img: 11, k: 14}, {gap: true, k: 45}, // the last one STALE (age over the cap)
 	}
 	run := func(passThrough bool) [][]byte {
-		r, err := New(Config{Camera: cam, LatencyMs: 50, IngestToken: testIngestToken, ConsoleToken: testConsoleToken, Logger: quietLogger(), DrawOverdue: true,
-			Whip: whip.Config{Network: whip.Network{LoopbackOnly: true}}})
-		if err != nil {
-			t.Fatal(err)
-		}
-		defer r.shutdown()
-		p, err := newPipeline(r, newFakeVehicle(t, &fakeClock{}, 0, nil))
-		if err != nil {
-			t.Fatal(err)
-		}
-		defer p.close()
+		r, p, done := pipelineOnFakeVehicle(t, Config{Camera: cam, LatencyMs: 50, DrawOverdue: true})
+		defer done()
 		for us := t0 - 500_000; us <= t0+46*periodUs; us += 10_000 {
 			if err := p.flt.Add(filter.Sample{TimeUs: us, SpeedMps: 8, YawRateRps: 0.2}); err != nil {
 				t.Fatal(err)

@@ -18,7 +18,6 @@ import (
 	"stopgap/stream/cadence"
 	"stopgap/stream/console"
 	"stopgap/stream/recording"
-	"stopgap/stream/whip"
 )
 
 // readTicks returns the state column of the relay's shown.csv by tick.
@@ -428,18 +427,9 @@ func TestOverdueTicksNotDrawn(t *testing.T) {
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
-			r, err := New(Config{FPS: testFPS, Camera: testCamera(), IngestToken: testIngestToken, ConsoleToken: testConsoleToken,
-				Logger: quietLogger(), Now: func() time.Time { return now }, DrawOverdue: c.drawOverdue,
-				Whip: whip.Config{Network: whip.Network{LoopbackOnly: true}}})
-			if err != nil {
-				t.Fatal(err)
-			}
-			defer r.shutdown()
-			p, err := newPipeline(r, newFakeVehicle(t, &fakeClock{}, 0, nil))
-			if err != nil {
-				t.Fatal(err)
-			}
-			defer p.close()
+			r, p, done := pipelineOnFakeVehicle(t, Config{FPS: testFPS, Camera: testCamera(),
+				Now: func() time.Time { return now }, DrawOverdue: c.drawOverdue})
+			defer done()
 			// No frame yet: a drawn tick is NO_PICTURE.
 			p.Missing(cadence.Tick{K: 0, TargetUs: 0, DeadlineUs: now.UnixMicro() - c.lateUs, Policy: predictor.DefaultPolicy()})
 			st := r.Stats()
