@@ -3,23 +3,14 @@ package predictor
 import (
 	"errors"
 	"math"
+	"stopgap/internal/camera/cameratest"
 	"testing"
 
 	"stopgap/internal/cvref"
 )
 
-// testCameras are made-up but plausible mounts with non-zero pitch, roll and
-// offsets so that every term of the geometry is exercised.
-func testCameras() map[string]Camera {
-	return map[string]Camera{
-		"hd-pitch-roll": {Width: 1280, Height: 720, Fx: 1000, Fy: 1010, Cx: 640.5, Cy: 360.2,
-			HeightM: 1.4, PitchDeg: 6, RollDeg: 2.5, XOffsetM: 1.8, YOffsetM: 0.3},
-		"vga-up-negroll": {Width: 640, Height: 480, Fx: 520, Fy: 530, Cx: 318, Cy: 245,
-			HeightM: 2.1, PitchDeg: -3, RollDeg: -4, XOffsetM: -0.5, YOffsetM: -0.4},
-		"level": {Width: 320, Height: 240, Fx: 300, Fy: 300, Cx: 160, Cy: 120,
-			HeightM: 1.2, XOffsetM: 1.0},
-	}
-}
+// testCameras are the shared test mounts (cameratest.Mounts).
+func testCameras() map[string]Camera { return cameratest.Mounts() }
 
 // TestProjectMatchesOpenCV compares our projection (with distortion) with
 // cv::projectPoints (OpenCV 4.6 calib3d, the reference implementation of the

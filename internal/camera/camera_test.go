@@ -1,8 +1,10 @@
-package camera
+package camera_test
 
 import (
 	"errors"
 	"math"
+	"stopgap/internal/camera"
+	"stopgap/internal/camera/cameratest"
 	"testing"
 )
 
@@ -11,18 +13,8 @@ import (
 // (predictor/camera_test.go, TestProjectMatchesOpenCV), with the
 // homographies built on this geometry.
 
-// testCameras are made-up but plausible mounts with non-zero pitch, roll and
-// offsets so that every term of the geometry is exercised.
-func testCameras() map[string]Camera {
-	return map[string]Camera{
-		"hd-pitch-roll": {Width: 1280, Height: 720, Fx: 1000, Fy: 1010, Cx: 640.5, Cy: 360.2,
-			HeightM: 1.4, PitchDeg: 6, RollDeg: 2.5, XOffsetM: 1.8, YOffsetM: 0.3},
-		"vga-up-negroll": {Width: 640, Height: 480, Fx: 520, Fy: 530, Cx: 318, Cy: 245,
-			HeightM: 2.1, PitchDeg: -3, RollDeg: -4, XOffsetM: -0.5, YOffsetM: -0.4},
-		"level": {Width: 320, Height: 240, Fx: 300, Fy: 300, Cx: 160, Cy: 120,
-			HeightM: 1.2, XOffsetM: 1.0},
-	}
-}
+// testCameras are the shared test mounts (cameratest.Mounts).
+func testCameras() map[string]camera.Camera { return cameratest.Mounts() }
 
 // TestRotationIsOrthonormal: R_cv must be a proper rotation (det +1, RᵀR = I).
 func TestRotationIsOrthonormal(t *testing.T) {
@@ -52,7 +44,7 @@ func TestRotationIsOrthonormal(t *testing.T) {
 // α = atan(h/L) below the horizontal; a camera pitched down by θ sees it
 // α - θ below its optical axis, so v = Cy + Fy·tan(α - θ) and u = Cx.
 func TestProjectClosedForm(t *testing.T) {
-	c := Camera{Width: 640, Height: 480, Fx: 500, Fy: 510, Cx: 320, Cy: 240,
+	c := camera.Camera{Width: 640, Height: 480, Fx: 500, Fy: 510, Cx: 320, Cy: 240,
 		HeightM: 1.5, PitchDeg: 8, XOffsetM: 2, YOffsetM: -0.7}
 	for _, l := range []float64{4, 10, 35} {
 		u, v, err := c.ProjectVehiclePoint([3]float64{c.XOffsetM + l, c.YOffsetM, 0})
@@ -71,7 +63,7 @@ func TestProjectClosedForm(t *testing.T) {
 		t.Errorf("left point at u=%g (err %v), want u < Cx", u, err)
 	}
 	// Points behind the camera have no pixel.
-	if _, _, err := c.ProjectVehiclePoint([3]float64{c.XOffsetM - 1, 0, 0}); !errors.Is(err, ErrBehindCamera) {
+	if _, _, err := c.ProjectVehiclePoint([3]float64{c.XOffsetM - 1, 0, 0}); !errors.Is(err, camera.ErrBehindCamera) {
 		t.Errorf("behind camera: got %v", err)
 	}
 }
