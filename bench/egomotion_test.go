@@ -140,13 +140,7 @@ func TestEgoMotionAgainstTruth(t *testing.T) {
 // 13.5 and 12.6 dB).
 func TestReplayPhotoDrivesVideoOnly(t *testing.T) {
 	const minGainDB = 5
-	for _, tc := range []struct {
-		photo  string
-		texelM float64
-	}{
-		{"aero1.jpg", 0.02},
-		{"graf1.png", 0.015},
-	} {
+	for _, tc := range photoDrives {
 		t.Run(tc.photo, func(t *testing.T) {
 			t.Parallel()
 			dir, _, poses := writePhotoDrive(t, filepath.Join(opencvData, tc.photo), tc.texelM, 150)

@@ -146,6 +146,16 @@ func writePhotoDrive(t *testing.T, photoPath string, texelM float64, frames int)
 	return dir, captureUs, poses
 }
 
+// photoDrives are the opencv-doc photographs the photo drives are made of,
+// each with the size of one texel on the ground, metres.
+var photoDrives = []struct {
+	photo  string
+	texelM float64
+}{
+	{"aero1.jpg", 0.02},
+	{"graf1.png", 0.015},
+}
+
 // TestReplayPhotoDrives is the prediction check on real imagery: drives over
 // a ground plane textured with real photographs from Debian's opencv-doc
 // (aero1.jpg, an aerial photograph; graf1.png, a photograph of a painted
@@ -159,13 +169,7 @@ func writePhotoDrive(t *testing.T, photoPath string, texelM float64, frames int)
 // predictor disagree on the geometry.
 func TestReplayPhotoDrives(t *testing.T) {
 	const minGainDB = 9 // the stated gain over hold, mean PSNR over missing ticks (measured: 12.0 and 12.5 dB)
-	for _, tc := range []struct {
-		photo  string
-		texelM float64
-	}{
-		{"aero1.jpg", 0.02},
-		{"graf1.png", 0.015},
-	} {
+	for _, tc := range photoDrives {
 		t.Run(tc.photo, func(t *testing.T) {
 			t.Parallel()
 			dir, captureUs, poses := writePhotoDrive(t, filepath.Join(opencvData, tc.photo), tc.texelM, 150)
