@@ -475,3 +475,51 @@ func TestScheduleFollowsCadence(t *testing.T) {
 		}
 	}
 }
+
+// TestRowPeriod: the replay's starting grid period from a recording's rows
+// (rowPeriodUs) is the sender's, also where the last rows hold frames the
+// display moved one tick on.
+func TestRowPeriod(t *testing.T) {
+	grid := func(n int, periodUs float64) []int64 {
+		c := make([]int64, n)
+		for i := range c {
+			c[i] = int64(float64(i) * periodUs)
+		}
+		return c
+	}
+	// Rows 0..42 on a 1e6/30 grid, then frame k on row k+1 (one tick on).
+	moved := grid(61, 1e6/30)
+	for i := 43; i < len(moved); i++ {
+		moved[i] = int64(float64(i-1) * 1e6 / 30)
+	}
+	// 33 and 34 ms steps, 1000/30 ms on average.
+	steps := make([]int64, 31)
+	for i := 1; i < len(steps); i++ {
+		steps[i] = steps[i-1] + 33_000
+		if i%3 != 0 {
+			steps[i] += 500
+		}
+		if i%3 == 1 {
+			steps[i] += 500
+		}
+	}
+	for _, c := range []struct {
+		name string
+		rows []int64
+		want float64
+	}{
+		{"one row", []int64{5}, 1e6 / 30},
+		{"exact grid", grid(40, 40_000), 40_000},
+		{"last rows one tick on", moved, 1e6 / 30},
+		{"33 and 34 ms steps", steps, float64(steps[30]) / 30},
+	} {
+		if got := rowPeriodUs(c.rows); math.Abs(got-c.want) > 1 {
+			t.Errorf("%s: rowPeriodUs = %.1f µs, want %.1f", c.name, got, c.want)
+		}
+	}
+	// What a mean from the first row to the last gives for the moved rows,
+	// for the record: the test above fails with it.
+	if naive := float64(moved[60]-moved[0]) / 60; math.Abs(naive-1e6/30) < 100 {
+		t.Errorf("the moved rows' end-to-end mean %.1f µs is close to the period: the case tests nothing", naive)
+	}
+}
