@@ -104,6 +104,10 @@ type Frame struct {
 	// one, by the capture-jitter rule (slot.go); Tick is the tick it is
 	// shown on, where a recording keeps it.
 	MovedOn bool
+	// Resumed: the frame is shown by the outage rule (slot.go), on the
+	// open tick after ticks that were STALE because the picture had
+	// passed the age cap. MovedOn is set too.
+	Resumed bool
 }
 
 // ClockStats counts what the Clock did.
@@ -115,6 +119,9 @@ type ClockStats struct {
 	// MovedOn counts LIVE frames shown on a tick next to their nearest
 	// one (the capture-jitter rule, slot.go).
 	MovedOn uint64
+	// Resumed counts frames of MovedOn shown by the outage rule
+	// (slot.go).
+	Resumed uint64
 	// TelemetryDropped counts samples later than HistoryUs.
 	TelemetryDropped uint64
 	// CutoffsRefused counts cutoff reads outside [0, 1].
@@ -154,6 +161,8 @@ type ClockStats struct {
 //     is shown LIVE on the open tick next to it if it is in time there
 //     and newer than everything decided; the display then runs at most one
 //     tick behind the nearest-tick mapping.
+//   - After an outage (slot.go): a late frame newer than a held picture
+//     that had passed the age cap is shown LIVE on the open tick.
 //   - Telemetry waits until the first tick whose deadline it arrived by is
 //     decided, and reaches the filter before that tick's decision. A sample
 //     later than the filter's history window after it was taken is
@@ -182,6 +191,11 @@ type Clock struct {
 	decidedCaptureUs int64
 
 	readyUs int64 // ready time of the newest frame handed in
+	// heldUs is the capture time of the newest frame handed in (shown or
+	// held), the picture a missing tick is filled from; held says there
+	// is one.
+	heldUs int64
+	held   bool
 	// decidedUs is the deadline tick next-1 was decided with (the
 	// estimate of L may have moved since).
 	decidedUs int64
@@ -347,7 +361,13 @@ func (c *Clock) frame(h Handler, k int, captureUs, readyUs int64) Frame {
 		}
 	}
 	nearest := k
-	k, show := slotFor(k, c.next, captureUs, c.TargetUs(k), c.decidedCaptureUs, c.next > 0)
+	resume := c.resumes(captureUs)
+	if c.held && captureUs > c.heldUs {
+		c.heldUs = captureUs
+	} else if !c.held {
+		c.heldUs, c.held = captureUs, true
+	}
+	k, show := slotFor(k, c.next, captureUs, c.TargetUs(k), c.decidedCaptureUs, c.next > 0, resume)
 	if !show {
 		c.stats.Late++
 		return Frame{Tick: Tick{K: k, TargetUs: c.TargetUs(k), DeadlineUs: c.DeadlineUs(k), Policy: c.pol}, ArrivalUs: arrival}
@@ -360,10 +380,27 @@ func (c *Clock) frame(h Handler, k int, captureUs, readyUs int64) Frame {
 	t := c.tick(k)
 	c.next, c.decidedUs, c.decidedCaptureUs = k+1, t.DeadlineUs, captureUs
 	c.feed(h, t.DeadlineUs)
+	resumed := resume && k > nearest
 	if k != nearest {
 		c.stats.MovedOn++
 	}
-	return Frame{Tick: t, Live: true, ArrivalUs: arrival, MovedOn: k != nearest}
+	if resumed {
+		c.stats.Resumed++
+	}
+	return Frame{Tick: t, Live: true, ArrivalUs: arrival, MovedOn: k != nearest, Resumed: resumed}
+}
+
+// resumes reports whether a frame captured at captureUs comes after an
+// outage (the outage rule, slot.go): tick next-1 was filled from a held
+// picture older than the age cap, and the frame is newer than that picture.
+// The age is the one the filler decides with (predictor.Tick.AgeMs): the
+// tick's target minus the held picture's capture time.
+func (c *Clock) resumes(captureUs int64) bool {
+	if !c.held || c.next == 0 || captureUs <= c.heldUs+JitterMarginUs {
+		return false
+	}
+	ageMs := float64(c.TargetUs(c.next-1)-c.heldUs) / 1000
+	return ageMs > c.pol.MaxAgeMs
 }
 
 // addLatency adds one (ready - capture) sample to the running median and

@@ -72,7 +72,9 @@ func TestClockLiveRule(t *testing.T) {
 // last filled deadline; frames are ready in the order they are handed in.
 func TestClockLateFrameArrival(t *testing.T) {
 	var h logHandler
-	c := newTestClock(t, ClockConfig{FixedLatency: true, LatencyUs: 50_000})
+	// The default age cap: the picture held at tick 3 is 300 ms old,
+	// within it, so the outage rule (slot.go) does not apply.
+	c := newTestClock(t, ClockConfig{FixedLatency: true, LatencyUs: 50_000, Policy: display.DefaultPolicy()})
 	c.Frame(&h, 0, 50_000)
 	c.Advance(&h, 350_001) // the display loop filled ticks 1..3
 	v := c.Frame(&h, 100_000, 140_000)

@@ -27,6 +27,19 @@ package cadence
 //     more than JitterMarginUs after the time of the last tick decided (the
 //     capture time of the frame shown on it, or its grid time if it was
 //     filled).
+//   - After an outage: a frame whose nearest tick was already decided is
+//     shown on the open tick if the picture the display held while it
+//     decided the tick before (the newest frame handed in so far) had
+//     passed the policy's age cap there, so that tick and every one since
+//     the cap was reached were STALE, and the frame is newer than that
+//     picture. A real picture that comes late beats a stale one: after a
+//     link outage the sender's first frame (a keyframe, large and paced
+//     out over several periods) is usually ready two or three ticks after
+//     its own, and holding it cost a period or two before the first LIVE
+//     tick (measured with a browser's WebRTC stack as the sender: the
+//     first LIVE tick 158-162 ms after the link returned in three runs of
+//     four). The frames after it that are still late are held as usual;
+//     the display is back on the grid with the first one in time.
 //   - Any other frame is late: held for later gaps, not shown. One further
 //     back would make the display wait more than one period for frames;
 //     one not newer than what was decided would take the display back in
@@ -68,8 +81,13 @@ const JitterMarginUs = 10
 // deadline has not passed), captureUs the frame's capture time, tickUs tick
 // k's grid time and decidedUs the time of tick next-1 as decided (the
 // capture time of the frame shown on it, or its grid time if it was
-// filled); started is false before any tick was decided.
-func slotFor(k, next int, captureUs, tickUs, decidedUs int64, started bool) (tick int, show bool) {
+// filled); started is false before any tick was decided. resume says the
+// picture held at tick next-1 was past the age cap and this frame is newer
+// than it (the outage rule).
+func slotFor(k, next int, captureUs, tickUs, decidedUs int64, started, resume bool) (tick int, show bool) {
+	if k < next && started && resume {
+		return next, true
+	}
 	if k == next+1 && started && captureUs < tickUs-JitterMarginUs {
 		return next, true
 	}

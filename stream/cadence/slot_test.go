@@ -69,6 +69,16 @@ func TestClockCaptureJitter(t *testing.T) {
 			ops: []slotOp{fr(600_000, 640_000)}, want: "miss 5; live 6"},
 		{name: "nearest to the tick after the open one, too late for the open tick: own tick", setup: onGrid(5),
 			ops: []slotOp{fr(560_000, 575_000)}, want: "miss 5; live 6"},
+		{name: "after an outage past the age cap: the first frame, late, on the open tick", setup: onGrid(5),
+			ops:  []slotOp{fr(1_500_000, 1_800_000), fr(1_600_000, 1_810_000), fr(1_800_000, 1_850_000)},
+			want: "miss 5; miss 6; miss 7; miss 8; miss 9; miss 10; miss 11; miss 12; miss 13; miss 14; miss 15; miss 16; miss 17; live 18 resumed; late 16; live 19 moved"},
+		{name: "after an outage as long as the age cap: late", setup: onGrid(5),
+			ops: []slotOp{fr(1_000_000, 1_300_000)}, want: "miss 5; miss 6; miss 7; miss 8; miss 9; miss 10; miss 11; miss 12; late 10"},
+		{name: "after an outage past the age cap, not newer than the held picture: late", setup: onGrid(5),
+			ops: []slotOp{fr(400_000+JitterMarginUs, 1_800_000)}, want: "miss 5; miss 6; miss 7; miss 8; miss 9; miss 10; miss 11; miss 12; miss 13; miss 14; miss 15; miss 16; miss 17; late 4"},
+		{name: "after an outage past the age cap, a recording's frame on its row (FrameAt)",
+			setup: []slotOp{frAt(0, 0, 50_000), frAt(1, 100_000, 150_000)},
+			ops:   []slotOp{frAt(18, 1_500_000, 1_800_000), frAt(19, 1_600_000, 1_810_000)}, want: "miss 2; miss 3; miss 4; miss 5; miss 6; miss 7; miss 8; miss 9; miss 10; miss 11; miss 12; miss 13; miss 14; miss 15; miss 16; miss 17; live 18; live 19"},
 		{name: "one tick ahead before any tick was decided (FrameAt)",
 			ops: []slotOp{frAt(1, 60_000, 100_000)}, want: "miss 0; live 1"},
 		{name: "a modelled link's frame k moves as a live frame would (FrameAt)",
@@ -96,6 +106,8 @@ func TestClockCaptureJitter(t *testing.T) {
 					switch {
 					case !v.Live:
 						h.log = append(h.log, fmt.Sprintf("late %d", v.Tick.K))
+					case v.Resumed:
+						h.log = append(h.log, fmt.Sprintf("live %d resumed", v.Tick.K))
 					case v.MovedOn:
 						h.log = append(h.log, fmt.Sprintf("live %d moved", v.Tick.K))
 					default:
@@ -116,9 +128,10 @@ func TestClockCaptureJitter(t *testing.T) {
 			if g := strings.Join(got, "; "); g != c.want {
 				t.Errorf("got  %q\nwant %q", g, c.want)
 			}
-			moved := uint64(strings.Count(c.want, "moved"))
-			if st := clk.Stats(); st.MovedOn != moved {
-				t.Errorf("Stats().MovedOn = %d, want %d", st.MovedOn, moved)
+			resumed := uint64(strings.Count(c.want, "resumed"))
+			moved := uint64(strings.Count(c.want, "moved")) + resumed
+			if st := clk.Stats(); st.MovedOn != moved || st.Resumed != resumed {
+				t.Errorf("Stats() MovedOn, Resumed = %d, %d; want %d, %d", st.MovedOn, st.Resumed, moved, resumed)
 			}
 		})
 	}

@@ -133,7 +133,7 @@ type metrics struct {
 	framesIn, losses, keyframeRequests, keyframeRequestsFailed atomic.Uint64
 	ticks                                                      [len(display.States) + 1]atomic.Uint64 // by display.State
 	lateFrames, decodeErrors, framesDropped, overruns          atomic.Uint64
-	framesMovedOn                                              atomic.Uint64
+	framesMovedOn, framesResumed                               atomic.Uint64
 	telemetryIn, recordErrors, sessions                        atomic.Uint64
 	telemetryRejected, rtpDropped                              labelled
 
@@ -211,7 +211,8 @@ func (m *metrics) writeText(w io.Writer, active int, pt passthru.Stats) {
 	counter("repair_cancelled", "Missing RTP packets no longer asked for because a keyframe was requested.", m.repairCancelled.Load())
 	gauge("repair_rtt_seconds", "Smoothed NACK-to-retransmission round trip of the latest session.", float64(m.repairRTTUs.Load())/1e6)
 	counter("late_frames", "Frames decoded after their display deadline (held, not shown).", m.lateFrames.Load())
-	counter("frames_moved_on", "Frames shown LIVE on the first open tick because their own tick was already handled (sender capture jitter).", m.framesMovedOn.Load())
+	counter("frames_moved_on", "Frames shown LIVE on the first open tick because their own tick was already handled (sender capture jitter, or the first frame after an outage).", m.framesMovedOn.Load())
+	counter("frames_resumed", "Frames of frames_moved_on shown late after an outage: the picture on screen had passed the age cap.", m.framesResumed.Load())
 	counter("frames_dropped", "Decoded frames dropped because the display loop was behind.", m.framesDropped.Load())
 	counter("telemetry_in", "Telemetry samples accepted by the filter.", m.telemetryIn.Load())
 	counter("record_errors", "Recording writes that failed.", m.recordErrors.Load())

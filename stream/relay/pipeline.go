@@ -350,9 +350,13 @@ func (p *pipeline) onFrame(ev frameEvent) {
 		return
 	}
 	if v.MovedOn {
-		// The capture-jitter rule (stream/cadence/slot.go).
+		// The capture-jitter and outage rules (stream/cadence/slot.go).
 		p.r.met.framesMovedOn.Add(1)
 		p.log.Debug("frame shown on the open tick next to its own", "shown_on", k, "ready_before_deadline_us", v.Tick.DeadlineUs-ev.readyUs)
+	}
+	if v.Resumed {
+		p.r.met.framesResumed.Add(1)
+		p.log.Info("first frame after an outage shown at once, though later than its own tick", "shown_on", k)
 	}
 	var tick predictor.Tick
 	var err error

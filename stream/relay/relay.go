@@ -57,6 +57,10 @@ type Stats struct {
 	// FramesMovedOn counts frames shown on the first open tick because
 	// their own tick was already handled (see the rule in slot.go).
 	FramesMovedOn uint64
+	// FramesResumed counts the frames of FramesMovedOn shown by the
+	// outage rule (slot.go): late, after the picture had passed the age
+	// cap.
+	FramesResumed uint64
 	// TelemetryIn counts samples accepted by the filter; TelemetryRejected
 	// those rejected by the decoder, the filter or a full queue.
 	TelemetryIn, TelemetryRejected uint64
@@ -222,7 +226,7 @@ func (r *Relay) Stats() Stats {
 		TicksNoPicture: m.ticks[display.StateNoPicture].Load(), TicksNotShown: m.ticks[display.StateNotShown].Load(),
 		Losses: m.losses.Load(), KeyframeRequests: m.keyframeRequests.Load(),
 		State: predictor.State(m.stateNow.Load()), PictureAgeMs: float64(m.pictureAge.Load()) / 1000,
-		LateFrames: m.lateFrames.Load(), FramesDropped: m.framesDropped.Load(), Overruns: m.overruns.Load(), FramesMovedOn: m.framesMovedOn.Load(),
+		LateFrames: m.lateFrames.Load(), FramesDropped: m.framesDropped.Load(), Overruns: m.overruns.Load(), FramesMovedOn: m.framesMovedOn.Load(), FramesResumed: m.framesResumed.Load(),
 		TelemetryIn: m.telemetryIn.Load(), TelemetryRejected: m.telemetryRejected.total(),
 		RecordErrors: m.recordErrors.Load(),
 		LatencyMs:    float64(lat) / 1000, LatencyKnown: known,

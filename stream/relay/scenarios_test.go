@@ -45,6 +45,7 @@ var decisionScenarios = []struct {
 	{name: "sender report late, first vehicle-clock frame very late", frames: 40, srFrom: 5, lateUs: map[int]int64{5: 70_000}},
 	{name: "cutoff changed mid-gap", frames: 45, drop: between(10, 32), cutoffFrom: map[int]float64{0: 0.3, 17: 0.999, 25: 0.05}},
 	{name: "gap longer than the age cap", frames: 50, drop: between(8, 40)},
+	{name: "outage past the age cap, first frame after it two ticks late", frames: 60, drop: between(8, 40), lateUs: map[int]int64{41: 75_000, 42: 50_000}},
 }
 
 func setCutoff(t *testing.T, r *Relay, c float64) {
