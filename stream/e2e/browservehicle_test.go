@@ -579,8 +579,9 @@ func TestAcceptBrowserVehicle(t *testing.T) {
 			}
 			return false
 		})
-		t.Logf("3 s outage: LIVE ticks while cut (after the first 150 ms): %d; first LIVE tick %v after the link returned; keyframe requests in the run %d",
-			endCut.TicksLive-inCut.TicksLive, first.Round(time.Millisecond), r.relay.Stats().KeyframeRequests-s0.KeyframeRequests)
+		sb := r.relay.Stats()
+		t.Logf("3 s outage: LIVE ticks while cut (after the first 150 ms): %d; first LIVE tick %v after the link returned; keyframe requests in the run %d; first frame after the outage shown late (frames_resumed) %d",
+			endCut.TicksLive-inCut.TicksLive, first.Round(time.Millisecond), sb.KeyframeRequests-s0.KeyframeRequests, sb.FramesResumed-endCut.FramesResumed)
 		if endCut.TicksLive != inCut.TicksLive {
 			t.Errorf("%d LIVE ticks while the link was cut", endCut.TicksLive-inCut.TicksLive)
 		}
