@@ -96,9 +96,29 @@ func Serve(ctx context.Context, cfg Config) error {
 	if err != nil {
 		return err
 	}
+	// release ends a relay that never ran: Run with an ended context
+	// closes the ingest, the console, the encoder and the recording.
+	release := func() {
+		ended, end := context.WithCancel(context.Background())
+		end()
+		if err := r.Run(ended); err != nil {
+			log.Warn("closing the relay after a failed start", "err", err)
+		}
+	}
+	// The operator station's commands: recorded beside the drive (see
+	// operator.ControlsFile) and the bicycle model's control input.
+	var cw *operator.ControlsWriter
+	if cfg.Relay.RecordDir != "" {
+		if cw, err = operator.CreateControls(cfg.Relay.RecordDir); err != nil {
+			release()
+			return fmt.Errorf("station: control log in %s: %w", cfg.Relay.RecordDir, err)
+		}
+		defer cw.Close()
+	}
 	ln, err := net.Listen("tcp", cfg.Listen)
 	if err != nil {
-		return fmt.Errorf("station: listen on %s: %w", cfg.Listen, err)
+		release()
+		return fmt.Errorf("station: listen on %s: %w; choose a free address or stop what holds it", cfg.Listen, err)
 	}
 	scheme := "http"
 	if cfg.useTLS() {
@@ -106,15 +126,6 @@ func Serve(ctx context.Context, cfg Config) error {
 	}
 	base := scheme + "://" + ln.Addr().String()
 	handler := r.Handler()
-	// The operator station's commands: recorded beside the drive (see
-	// operator.ControlsFile) and the bicycle model's control input.
-	var cw *operator.ControlsWriter
-	if cfg.Relay.RecordDir != "" {
-		if cw, err = operator.CreateControls(cfg.Relay.RecordDir); err != nil {
-			return fmt.Errorf("station: control log in %s: %w", cfg.Relay.RecordDir, err)
-		}
-		defer cw.Close()
-	}
 	controls := r.ControlsChannel(cfg.KnownOperator, cw)
 	mux := http.NewServeMux()
 	mux.Handle("/api/controls", controls)
