@@ -361,7 +361,7 @@ func (c *Clock) frame(h Handler, k int, captureUs, readyUs int64) Frame {
 		}
 	}
 	nearest := k
-	resume := c.resumes(captureUs)
+	resume := c.resumes(k, captureUs, readyUs)
 	if c.held && captureUs > c.heldUs {
 		c.heldUs = captureUs
 	} else if !c.held {
@@ -390,13 +390,15 @@ func (c *Clock) frame(h Handler, k int, captureUs, readyUs int64) Frame {
 	return Frame{Tick: t, Live: true, ArrivalUs: arrival, MovedOn: k != nearest, Resumed: resumed}
 }
 
-// resumes reports whether a frame captured at captureUs comes after an
-// outage (the outage rule, slot.go): tick next-1 was filled from a held
-// picture older than the age cap, and the frame is newer than that picture.
-// The age is the one the filler decides with (predictor.Tick.AgeMs): the
-// tick's target minus the held picture's capture time.
-func (c *Clock) resumes(captureUs int64) bool {
-	if !c.held || c.next == 0 || captureUs <= c.heldUs+JitterMarginUs {
+// resumes reports whether a frame whose nearest tick is k, captured at
+// captureUs and ready at readyUs, comes after an outage (the outage rule,
+// slot.go): tick next-1 was filled from a held picture older than the age
+// cap, the frame is newer than that picture, and it is at most
+// ResumeMaxLateUs later than its own tick's deadline. The age is the one the
+// filler decides with (predictor.Tick.AgeMs): the tick's target minus the
+// held picture's capture time.
+func (c *Clock) resumes(k int, captureUs, readyUs int64) bool {
+	if !c.held || c.next == 0 || captureUs <= c.heldUs+JitterMarginUs || readyUs-c.DeadlineUs(k) > ResumeMaxLateUs {
 		return false
 	}
 	ageMs := float64(c.TargetUs(c.next-1)-c.heldUs) / 1000

@@ -31,8 +31,9 @@ package cadence
 //     shown on the open tick if the picture the display held while it
 //     decided the tick before (the newest frame handed in so far) had
 //     passed the policy's age cap there, so that tick and every one since
-//     the cap was reached were STALE, and the frame is newer than that
-//     picture. A real picture that comes late beats a stale one: after a
+//     the cap was reached were STALE, the frame is newer than that
+//     picture, and it is at most ResumeMaxLateUs later than its own tick's
+//     deadline. A real picture that comes late beats a stale one: after a
 //     link outage the sender's first frame (a keyframe, large and paced
 //     out over several periods) is usually ready two or three ticks after
 //     its own, and holding it cost a period or two before the first LIVE
@@ -61,6 +62,15 @@ package cadence
 // the row of the tick it was shown on, where its replay (FrameAt) finds it
 // on the open tick and shows it unmoved; a modelled link's frame k starts
 // from tick k and moves as a live frame would.
+
+// ResumeMaxLateUs bounds how much later than its own tick's deadline a frame
+// shown by the outage rule may be ready: 100 ms, about three periods at
+// 30 fps, the time a browser's sender took to pace out its first keyframe
+// after an outage in our measurements (40-70 ms) with room to spare. A
+// frame later than that is held as before: a display loop far behind its
+// frames (a starved CPU) must not show pictures that old as LIVE. A design
+// choice of this project.
+const ResumeMaxLateUs = 100_000
 
 // JitterMarginUs is how far, µs, a frame's capture time must lie beyond a
 // tick's time for the capture-jitter rule to move the frame. It is larger

@@ -96,7 +96,7 @@ func TestOutage500ms(t *testing.T) {
 		// Frames captured in [cut + 5 ms, end - 15 ms] certainly had all their packets
 		// dropped (they go on the wire a few ms after capture); their ticks must be labelled.
 		lo, hi := cutAt.Add(5*time.Millisecond).UnixMicro(), endAt.Add(-15*time.Millisecond).UnixMicro()
-		n := 0
+		n, notShown := 0, 0
 		for _, f := range rec.Frames {
 			if f.CaptureUs < lo || f.CaptureUs > hi {
 				continue
@@ -104,6 +104,11 @@ func TestOutage500ms(t *testing.T) {
 			n++
 			switch s := ticks[f.Index]; s {
 			case "PREDICTED", "STALE":
+			case "NOT_SHOWN":
+				// The display loop was more than a period behind (a
+				// starved CPU): the tick was not drawn, and the console
+				// says so; it was not passed as live.
+				notShown++
 			case "":
 				t.Errorf("tick %d (capture %d us, in the cut) has no shown.csv row", f.Index, f.CaptureUs)
 			default:
@@ -114,7 +119,7 @@ func TestOutage500ms(t *testing.T) {
 		if n < want-1 {
 			t.Errorf("found %d ticks in the cut, want about %d: the recording's capture times do not match the vehicle's", n, want)
 		}
-		t.Logf("%d ticks inside the 500 ms cut, all labelled PREDICTED or STALE", n)
+		t.Logf("%d ticks inside the 500 ms cut, all labelled PREDICTED or STALE or, %d of them, NOT_SHOWN", n, notShown)
 	})
 
 	t.Run("keyframe request", func(t *testing.T) {
