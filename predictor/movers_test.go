@@ -297,3 +297,46 @@ func TestMarksOnMovingCamera(t *testing.T) {
 		t.Errorf("recall %.3f with %d movers, want >= 0.8", recall, len(f.movers.Movers))
 	}
 }
+
+// TestStaticAtBase: a region is the parallax of a static upright at its
+// base only when that upright explains its change clearly better than the
+// compensation did and its own shift adds little.
+func TestStaticAtBase(t *testing.T) {
+	const w, h = 40, 30
+	// A textured newer frame and a compensated older frame that matches it
+	// (cc 0) or is the texture shifted by 3 px (a misfit, cc large).
+	tex := func(x, y int) byte { return byte((x*37 + y*91 + (x*y)%13*17) % 251) }
+	b := make([]byte, w*h)
+	same := make([]byte, w*h)
+	misfit := make([]byte, w*h)
+	lab := make([]int32, w*h)
+	for y := 0; y < h; y++ {
+		for x := 0; x < w; x++ {
+			b[y*w+x], same[y*w+x], misfit[y*w+x] = tex(x, y), tex(x, y), tex(x+3, y)
+			if x >= 10 && x < 30 && y >= 5 && y < 25 {
+				lab[y*w+x] = 1
+			}
+		}
+	}
+	box := image.Rect(10, 5, 30, 25)
+	if cc := regionCost(misfit, b, lab, 1, w, h, box, affine{k: 1}, 0, 0); cc < 20 {
+		t.Fatalf("misfit residual %.1f, want a clear misfit (>= 20)", cc)
+	}
+	for _, tc := range []struct {
+		name   string
+		comp   []byte
+		c0, cb float64
+		want   bool
+	}{
+		{"static upright explains, own shift adds little", misfit, 5, 4.5, true},
+		{"static upright explains, own shift much better", misfit, 5, 2, false},
+		{"static upright no better than the compensation", misfit, 60, 55, false},
+		{"compensation already fits", same, 5, 5, false},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			if got := staticAtBase(tc.comp, b, lab, 1, w, h, box, tc.c0, tc.cb); got != tc.want {
+				t.Errorf("staticAtBase(c0 %.1f, cb %.1f) = %v, want %v", tc.c0, tc.cb, got, tc.want)
+			}
+		})
+	}
+}
