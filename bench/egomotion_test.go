@@ -2,6 +2,7 @@ package bench
 
 import (
 	"context"
+	"fmt"
 	"math"
 	"os"
 	"path/filepath"
@@ -32,7 +33,8 @@ type egoErrorStats struct {
 // speed and yaw rate over the interval, the number of pairs with an
 // estimate, and the mean normalised estimation error squared of speed and
 // of yaw rate against the estimate's own standard deviations (about 1 when
-// they are honest, below when cautious).
+// they are honest, below when cautious). STOPGAP_EGO_CSV=file also writes
+// every estimate beside the truth, one row per frame pair.
 func egoErrors(t *testing.T, dir string, truth func(i int) (x, y, yaw float64)) egoErrorStats {
 	t.Helper()
 	rec, err := recording.Open(dir)
@@ -46,6 +48,14 @@ func egoErrors(t *testing.T, dir string, truth func(i int) (x, y, yaw float64)) 
 	}
 	defer em.Close()
 	var st egoErrorStats
+	var csv *os.File
+	if path := os.Getenv("STOPGAP_EGO_CSV"); path != "" {
+		if csv, err = os.Create(path); err != nil {
+			t.Fatal(err)
+		}
+		defer csv.Close()
+		fmt.Fprintln(csv, "frame,t1_us,v_true,w_true,v_est,w_est,v_std,w_std,tracked,inliers,rms_px")
+	}
 	for i := range rec.Frames {
 		m := gocv.IMRead(filepath.Join(dir, rec.Frames[i].File), gocv.IMReadColor)
 		if m.Empty() {
@@ -78,6 +88,10 @@ func egoErrors(t *testing.T, dir string, truth func(i int) (x, y, yaw float64)) 
 		v := (dx*math.Cos(h) + dy*math.Sin(h)) / (tS * sc)
 		w := dyaw / tS
 		ev, ew := est.SpeedMps-v, est.YawRateRps-w
+		if csv != nil {
+			fmt.Fprintf(csv, "%d,%d,%.5f,%.6f,%.5f,%.6f,%.5f,%.6f,%d,%d,%.4f\n", i, est.T1Us, v, w, est.SpeedMps, est.YawRateRps,
+				est.SpeedStdMps, est.YawRateStdRps, est.Tracked, est.Inliers, est.RMSPx)
+		}
 		st.SpeedRMSMps += ev * ev
 		st.SpeedBiasMps += ev
 		st.YawRateBiasRps += ew
