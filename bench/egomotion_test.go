@@ -135,7 +135,7 @@ func TestEgoMotionAgainstTruth(t *testing.T) {
 		return tr.XM, tr.YM, tr.YawRad
 	})
 	t.Logf("%s: %+v", dir, st)
-	const maxSpeedRMS, maxYawRMS = 0.3, 0.04 // m/s, rad/s; measured 0.13 and 0.019 at 640x360
+	const maxSpeedRMS, maxYawRMS = 0.1, 0.025 // m/s, rad/s; measured 0.034 and 0.011 at 640x360
 	if st.Estimates < st.Pairs*9/10 || !(st.SpeedRMSMps <= maxSpeedRMS) || !(st.YawRateRMSRps <= maxYawRMS) {
 		t.Errorf("%d estimates of %d pairs, speed RMS %.3f m/s (max %.2f), yaw rate RMS %.4f rad/s (max %.2f)",
 			st.Estimates, st.Pairs, st.SpeedRMSMps, maxSpeedRMS, st.YawRateRMSRps, maxYawRMS)
@@ -150,8 +150,8 @@ func TestEgoMotionAgainstTruth(t *testing.T) {
 // homographies, known motion), replayed with the video as the only source
 // of motion (no telemetry at all): the estimates are checked against the
 // known speed and yaw rate, and the predicted frames must gain at least
-// 5 dB mean PSNR over hold (measured 12.3 and 12.1 dB; with telemetry
-// 13.5 and 12.6 dB).
+// 5 dB mean PSNR over hold (measured 12.45 and 12.91 dB, 27 of 29 missing
+// ticks PREDICTED each; with telemetry 13.5 and 12.6 dB).
 func TestReplayPhotoDrivesVideoOnly(t *testing.T) {
 	const minGainDB = 5
 	for _, tc := range photoDrives {
@@ -160,7 +160,7 @@ func TestReplayPhotoDrivesVideoOnly(t *testing.T) {
 			dir, _, poses := writePhotoDrive(t, filepath.Join(opencvData, tc.photo), tc.texelM, 150)
 			st := egoErrors(t, dir, func(i int) (float64, float64, float64) { return poses[i].x, poses[i].y, poses[i].yaw })
 			t.Logf("%s ego-motion against the known motion: %+v", tc.photo, st)
-			const maxSpeedRMS, maxYawRMS = 0.1, 0.03 // m/s, rad/s; measured 0.028/0.020 and 0.016/0.011
+			const maxSpeedRMS, maxYawRMS = 0.05, 0.02 // m/s, rad/s; measured 0.0074/0.0042 (aero1) and 0.0126/0.0084 (graf1)
 			if st.Estimates != st.Pairs || !(st.SpeedRMSMps <= maxSpeedRMS) || !(st.YawRateRMSRps <= maxYawRMS) {
 				t.Errorf("%d estimates of %d pairs, speed RMS %.3f m/s (max %.2f), yaw rate RMS %.4f rad/s (max %.2f)",
 					st.Estimates, st.Pairs, st.SpeedRMSMps, maxSpeedRMS, st.YawRateRMSRps, maxYawRMS)

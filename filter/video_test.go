@@ -129,3 +129,32 @@ func TestVideoSamplesHaveNoTurnTrend(t *testing.T) {
 		t.Errorf("telemetry track: heading %.6f with and without the trend; the ramp should change it", tel.DyawRad)
 	}
 }
+
+// TestVideoGapNoise: after a video sample the gap's heading variance
+// grows with Config.VideoGapYawAccelNoiseRps2, by the discrete white
+// noise model's τ⁴/4 term, while a telemetry track's gap ignores it.
+func TestVideoGapNoise(t *testing.T) {
+	heading := func(src Source, videoGap float64) float64 {
+		f := mustNew(t, Config{Model: ModelCTRV, VideoGapYawAccelNoiseRps2: videoGap})
+		for i := range 30 {
+			s := Sample{TimeUs: int64(i) * 33_333, SpeedMps: 6, YawRateRps: 0.2}
+			if src == SourceVideo {
+				s.Source, s.SpeedStdMps, s.YawRateStdRps = SourceVideo, 0.1, 0.01
+			}
+			mustAdd(t, f, s)
+		}
+		m, err := f.Relative(29*33_333, 29*33_333+400_000)
+		if err != nil {
+			t.Fatal(err)
+		}
+		return m.Cov[2][2]
+	}
+	const tau = 0.4
+	lo, hi := heading(SourceVideo, 0.1), heading(SourceVideo, 0.3)
+	if want := (0.3*0.3 - 0.1*0.1) * tau * tau * tau * tau / 4; math.Abs((hi-lo)-want) > 1e-9 {
+		t.Errorf("video track: heading variance %.6g with 0.3 rad/s², %.6g with 0.1; difference %.6g, want %.6g", hi, lo, hi-lo, want)
+	}
+	if a, b := heading(SourceTelemetry, 0.1), heading(SourceTelemetry, 0.3); a != b {
+		t.Errorf("telemetry track: heading variance %.6g and %.6g; the video's gap noise must not apply", a, b)
+	}
+}
