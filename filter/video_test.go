@@ -158,3 +158,29 @@ func TestVideoGapNoise(t *testing.T) {
 		t.Errorf("telemetry track: heading variance %.6g and %.6g; the video's gap noise must not apply", a, b)
 	}
 }
+
+// TestVideoSpeedTrend: over a gap after video samples whose speed ramps
+// at 2 m/s², the speed keeps changing at that rate (the forward motion
+// over 0.5 s grows by a·τ²/2 = 0.25 m against the speed held), and
+// VideoSpeedTrendOff holds it.
+func TestVideoSpeedTrend(t *testing.T) {
+	run := func(off bool) Motion {
+		f := mustNew(t, Config{Model: ModelCTRV, VideoSpeedTrendOff: off})
+		for i := range 30 {
+			ts := float64(i) / 30
+			mustAdd(t, f, Sample{TimeUs: int64(i) * 33_333, SpeedMps: 6 + 2*ts, Source: SourceVideo, SpeedStdMps: 0.02, YawRateStdRps: 0.005})
+		}
+		m, err := f.Relative(29*33_333, 29*33_333+500_000)
+		if err != nil {
+			t.Fatal(err)
+		}
+		return m
+	}
+	on, off := run(false), run(true)
+	if d := on.DxM - off.DxM; math.Abs(d-0.25) > 0.01 {
+		t.Errorf("forward motion %.4f m with the trend, %.4f m without: difference %.4f, want 0.25", on.DxM, off.DxM, d)
+	}
+	if d := on.SpeedMps - off.SpeedMps; math.Abs(d-1) > 0.02 {
+		t.Errorf("speed at the gap's end %.3f with the trend, %.3f without: difference %.3f, want 1 (2 m/s² for 0.5 s)", on.SpeedMps, off.SpeedMps, d)
+	}
+}
