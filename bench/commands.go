@@ -249,12 +249,20 @@ type EvalRow struct {
 	VideoSamples int `json:"video_samples"`
 	// Commands is what the replay did with the commands.
 	Commands CommandsUse `json:"commands"`
+	// Skipped, when not empty, says why the row has no figures: the
+	// source needs an input the drive lacks (a row with commands on a
+	// drive without a usable controls.csv). Its numbers are then NaN
+	// (null) or zero.
+	Skipped string `json:"skipped,omitempty"`
 }
 
 // CompareEvalSources replays cfg (without writing a report) once per
 // source and per telemetry link (once for a source that uses no
 // telemetry) and returns one row each, sources outer. cfg.Telemetry,
-// cfg.Motion and cfg.NoCommands are overridden.
+// cfg.Motion and cfg.NoCommands are overridden. A source with commands
+// on a drive whose commands cannot be used (none recorded, or no actuator
+// to drive them) gives one row with Skipped set to the reason, and the
+// other rows are still replayed.
 func CompareEvalSources(ctx context.Context, cfg ReplayConfig, sources []EvalSource, links []TelemetryLink) ([]EvalRow, error) {
 	var rows []EvalRow
 	for _, src := range sources {
@@ -267,7 +275,12 @@ func CompareEvalSources(ctx context.Context, cfg ReplayConfig, sources []EvalSou
 				return nil, fmt.Errorf("motion source %q: %w", src.Name, err)
 			}
 			if src.Commands && !sum.Commands.Used {
-				return nil, fmt.Errorf("motion source %q: commands not used (%s): %w", src.Name, sum.Commands.Why, ErrReplayInput)
+				closeExamples(out.examples)
+				nan := Float(math.NaN())
+				rows = append(rows, EvalRow{Source: src.Name, Motion: "-", Model: "-", HoldPSNRdB: nan, ShownPSNRdB: nan,
+					GainDB: nan, HarmRate: nan, MisalignMrad: nan, Commands: sum.Commands,
+					Skipped: "needs the operator's commands: " + sum.Commands.Why})
+				break // the link does not change what the drive lacks
 			}
 			var mis float64
 			nm := 0
@@ -337,7 +350,8 @@ func (m exactMotion) at(tUs int64) [3]float64 {
 	return [3]float64{a.XM + f*(b.XM-a.XM), a.YM + f*(b.YM-a.YM), a.YawRad + f*math.Remainder(b.YawRad-a.YawRad, 2*math.Pi)}
 }
 
-// WriteEvalTable writes rows as a plain-text table, one line per row.
+// WriteEvalTable writes rows as a plain-text table, one line per row; a
+// skipped row (EvalRow.Skipped) says why instead of giving figures.
 func WriteEvalTable(w io.Writer, rows []EvalRow) {
 	fmt.Fprintf(w, "%-22s %-20s %-16s %-8s %9s %9s %8s %10s %8s %9s\n", "source", "telemetry", "motion", "model", "hold dB", "shown dB", "gain dB", "predicted", "harm", "mis mrad")
 	for _, r := range rows {
@@ -348,6 +362,10 @@ func WriteEvalTable(w io.Writer, rows []EvalRow) {
 			link = "own channel"
 		default:
 			link = "lost with the video"
+		}
+		if r.Skipped != "" {
+			fmt.Fprintf(w, "%-22s %-20s skipped: %s\n", r.Source, link, r.Skipped)
+			continue
 		}
 		fmt.Fprintf(w, "%-22s %-20s %-16s %-8s %9.2f %9.2f %8.2f %10d %7.1f%% %9.2f\n", r.Source, link, r.Motion, r.Model,
 			r.HoldPSNRdB, r.ShownPSNRdB, r.GainDB, r.Predicted, 100*r.HarmRate, r.MisalignMrad)

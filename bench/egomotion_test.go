@@ -2,6 +2,7 @@ package bench
 
 import (
 	"context"
+	"fmt"
 	"math"
 	"os"
 	"path/filepath"
@@ -32,7 +33,8 @@ type egoErrorStats struct {
 // speed and yaw rate over the interval, the number of pairs with an
 // estimate, and the mean normalised estimation error squared of speed and
 // of yaw rate against the estimate's own standard deviations (about 1 when
-// they are honest, below when cautious).
+// they are honest, below when cautious). STOPGAP_EGO_CSV=file also writes
+// every estimate beside the truth, one row per frame pair.
 func egoErrors(t *testing.T, dir string, truth func(i int) (x, y, yaw float64)) egoErrorStats {
 	t.Helper()
 	rec, err := recording.Open(dir)
@@ -46,6 +48,14 @@ func egoErrors(t *testing.T, dir string, truth func(i int) (x, y, yaw float64)) 
 	}
 	defer em.Close()
 	var st egoErrorStats
+	var csv *os.File
+	if path := os.Getenv("STOPGAP_EGO_CSV"); path != "" {
+		if csv, err = os.Create(path); err != nil {
+			t.Fatal(err)
+		}
+		defer csv.Close()
+		fmt.Fprintln(csv, "frame,t1_us,v_true,w_true,v_est,w_est,v_std,w_std,tracked,inliers,rms_px")
+	}
 	for i := range rec.Frames {
 		m := gocv.IMRead(filepath.Join(dir, rec.Frames[i].File), gocv.IMReadColor)
 		if m.Empty() {
@@ -78,6 +88,10 @@ func egoErrors(t *testing.T, dir string, truth func(i int) (x, y, yaw float64)) 
 		v := (dx*math.Cos(h) + dy*math.Sin(h)) / (tS * sc)
 		w := dyaw / tS
 		ev, ew := est.SpeedMps-v, est.YawRateRps-w
+		if csv != nil {
+			fmt.Fprintf(csv, "%d,%d,%.5f,%.6f,%.5f,%.6f,%.5f,%.6f,%d,%d,%.4f\n", i, est.T1Us, v, w, est.SpeedMps, est.YawRateRps,
+				est.SpeedStdMps, est.YawRateStdRps, est.Tracked, est.Inliers, est.RMSPx)
+		}
 		st.SpeedRMSMps += ev * ev
 		st.SpeedBiasMps += ev
 		st.YawRateBiasRps += ew
@@ -121,7 +135,7 @@ func TestEgoMotionAgainstTruth(t *testing.T) {
 		return tr.XM, tr.YM, tr.YawRad
 	})
 	t.Logf("%s: %+v", dir, st)
-	const maxSpeedRMS, maxYawRMS = 0.3, 0.04 // m/s, rad/s; measured 0.13 and 0.019 at 640x360
+	const maxSpeedRMS, maxYawRMS = 0.1, 0.025 // m/s, rad/s; measured 0.034 and 0.011 at 640x360
 	if st.Estimates < st.Pairs*9/10 || !(st.SpeedRMSMps <= maxSpeedRMS) || !(st.YawRateRMSRps <= maxYawRMS) {
 		t.Errorf("%d estimates of %d pairs, speed RMS %.3f m/s (max %.2f), yaw rate RMS %.4f rad/s (max %.2f)",
 			st.Estimates, st.Pairs, st.SpeedRMSMps, maxSpeedRMS, st.YawRateRMSRps, maxYawRMS)
@@ -136,8 +150,8 @@ func TestEgoMotionAgainstTruth(t *testing.T) {
 // homographies, known motion), replayed with the video as the only source
 // of motion (no telemetry at all): the estimates are checked against the
 // known speed and yaw rate, and the predicted frames must gain at least
-// 5 dB mean PSNR over hold (measured 12.3 and 12.1 dB; with telemetry
-// 13.5 and 12.6 dB).
+// 5 dB mean PSNR over hold (measured 12.80 and 13.15 dB, 27 of 29 missing
+// ticks PREDICTED each; with telemetry 13.5 and 12.6 dB).
 func TestReplayPhotoDrivesVideoOnly(t *testing.T) {
 	const minGainDB = 5
 	for _, tc := range photoDrives {
@@ -146,7 +160,7 @@ func TestReplayPhotoDrivesVideoOnly(t *testing.T) {
 			dir, _, poses := writePhotoDrive(t, filepath.Join(opencvData, tc.photo), tc.texelM, 150)
 			st := egoErrors(t, dir, func(i int) (float64, float64, float64) { return poses[i].x, poses[i].y, poses[i].yaw })
 			t.Logf("%s ego-motion against the known motion: %+v", tc.photo, st)
-			const maxSpeedRMS, maxYawRMS = 0.1, 0.03 // m/s, rad/s; measured 0.028/0.020 and 0.016/0.011
+			const maxSpeedRMS, maxYawRMS = 0.05, 0.02 // m/s, rad/s; measured 0.0074/0.0042 (aero1) and 0.0126/0.0084 (graf1)
 			if st.Estimates != st.Pairs || !(st.SpeedRMSMps <= maxSpeedRMS) || !(st.YawRateRMSRps <= maxYawRMS) {
 				t.Errorf("%d estimates of %d pairs, speed RMS %.3f m/s (max %.2f), yaw rate RMS %.4f rad/s (max %.2f)",
 					st.Estimates, st.Pairs, st.SpeedRMSMps, maxSpeedRMS, st.YawRateRMSRps, maxYawRMS)

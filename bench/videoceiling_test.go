@@ -88,7 +88,9 @@ func TestHeldRateMotion(t *testing.T) {
 // estimate of the present motion can give the predictor as it is, every
 // tick PREDICTED), the same with the true yaw acceleration extrapolated (a
 // turn trend known exactly), and the exact motion. It reports each gain
-// over hold and the video's PREDICTED ticks; it requires nothing.
+// over hold and the video's PREDICTED ticks, and the video's gain with
+// every missing tick PREDICTED (cutoff 0: the estimate's motion alone,
+// whatever its confidence); it requires nothing.
 //
 //	go test ./bench -run '^$' -bench VideoOnlyCeiling -benchtime 1x
 func BenchmarkVideoOnlyCeiling(b *testing.B) {
@@ -113,6 +115,10 @@ func BenchmarkVideoOnlyCeiling(b *testing.B) {
 				return sum
 			}
 			row("video", func(c *ReplayConfig) { *c = VideoOnlySource.apply(*c) })
+			row("video-every-tick", func(c *ReplayConfig) {
+				*c = VideoOnlySource.apply(*c)
+				c.Policy.CutoffConfidence = 0
+			})
 			row("held-rate", func(c *ReplayConfig) {
 				c.NoCommands = true
 				c.truthMotion = func(tr []recording.Truth) predictor.MotionSource { return heldRateMotion{truth: tr} }

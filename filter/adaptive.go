@@ -103,3 +103,43 @@ func (k *kinematics) turnAccelCorrection(x *[StateDim]float64, dtS, accel, accel
 	}
 	return d
 }
+
+// maxVideoSpeedTrendMps2 bounds the video's speed trend: beyond it the
+// estimates are wrong rather than the vehicle that hard on its brakes.
+const maxVideoSpeedTrendMps2 = 8.0
+
+// videoSpeedTrend returns the least-squares slope (m/s²) of the speeds of
+// the video samples (SourceVideo) kept in the Config.VideoSpeedTrendWindowUs
+// ending at history entry last, clamped to ±maxVideoSpeedTrendMps2; ok is
+// false with fewer than four such samples. It does not allocate.
+func (f *Filter) videoSpeedTrend(last int) (accel float64, ok bool) {
+	if last < 0 || last >= f.hist.len() {
+		return 0, false
+	}
+	end := f.hist.at(last).s.TimeUs
+	var n, sx, sy, sxx, sxy float64
+	for j := last; j >= 0; j-- {
+		s := &f.hist.at(j).s
+		age := end - s.TimeUs
+		if age > f.cfg.VideoSpeedTrendWindowUs {
+			break
+		}
+		if s.Source != SourceVideo {
+			continue
+		}
+		x := float64(-age) * 1e-6
+		n++
+		sx += x
+		sy += s.SpeedMps
+		sxx += x * x
+		sxy += x * s.SpeedMps
+	}
+	if n < 4 {
+		return 0, false
+	}
+	a := (n*sxy - sx*sy) / (n*sxx - sx*sx)
+	if math.IsNaN(a) || math.IsInf(a, 0) {
+		return 0, false
+	}
+	return math.Max(-maxVideoSpeedTrendMps2, math.Min(maxVideoSpeedTrendMps2, a)), true
+}

@@ -108,7 +108,9 @@
 // video (predictor.EgoMotion) rather than measured on the vehicle: it
 // measures speed (h = v) and yaw rate (h as above, without the kinematic
 // term) with the sample's own SpeedStdMps and YawRateStdRps, and nothing
-// else. Video and telemetry samples can be mixed in one track.
+// else. Video and telemetry samples can be mixed in one track. A gap that
+// follows a video sample is extrapolated with
+// Config.VideoGapYawAccelNoiseRps2 instead of GapYawAccelNoiseRps2.
 //
 // # Time
 //

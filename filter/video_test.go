@@ -129,3 +129,58 @@ func TestVideoSamplesHaveNoTurnTrend(t *testing.T) {
 		t.Errorf("telemetry track: heading %.6f with and without the trend; the ramp should change it", tel.DyawRad)
 	}
 }
+
+// TestVideoGapNoise: after a video sample the gap's heading variance
+// grows with Config.VideoGapYawAccelNoiseRps2, by the discrete white
+// noise model's τ⁴/4 term, while a telemetry track's gap ignores it.
+func TestVideoGapNoise(t *testing.T) {
+	heading := func(src Source, videoGap float64) float64 {
+		f := mustNew(t, Config{Model: ModelCTRV, VideoGapYawAccelNoiseRps2: videoGap})
+		for i := range 30 {
+			s := Sample{TimeUs: int64(i) * 33_333, SpeedMps: 6, YawRateRps: 0.2}
+			if src == SourceVideo {
+				s.Source, s.SpeedStdMps, s.YawRateStdRps = SourceVideo, 0.1, 0.01
+			}
+			mustAdd(t, f, s)
+		}
+		m, err := f.Relative(29*33_333, 29*33_333+400_000)
+		if err != nil {
+			t.Fatal(err)
+		}
+		return m.Cov[2][2]
+	}
+	const tau = 0.4
+	lo, hi := heading(SourceVideo, 0.1), heading(SourceVideo, 0.3)
+	if want := (0.3*0.3 - 0.1*0.1) * tau * tau * tau * tau / 4; math.Abs((hi-lo)-want) > 1e-9 {
+		t.Errorf("video track: heading variance %.6g with 0.3 rad/s², %.6g with 0.1; difference %.6g, want %.6g", hi, lo, hi-lo, want)
+	}
+	if a, b := heading(SourceTelemetry, 0.1), heading(SourceTelemetry, 0.3); a != b {
+		t.Errorf("telemetry track: heading variance %.6g and %.6g; the video's gap noise must not apply", a, b)
+	}
+}
+
+// TestVideoSpeedTrend: over a gap after video samples whose speed ramps
+// at 2 m/s², the speed keeps changing at that rate (the forward motion
+// over 0.5 s grows by a·τ²/2 = 0.25 m against the speed held), and
+// VideoSpeedTrendOff holds it.
+func TestVideoSpeedTrend(t *testing.T) {
+	run := func(off bool) Motion {
+		f := mustNew(t, Config{Model: ModelCTRV, VideoSpeedTrendOff: off})
+		for i := range 30 {
+			ts := float64(i) / 30
+			mustAdd(t, f, Sample{TimeUs: int64(i) * 33_333, SpeedMps: 6 + 2*ts, Source: SourceVideo, SpeedStdMps: 0.02, YawRateStdRps: 0.005})
+		}
+		m, err := f.Relative(29*33_333, 29*33_333+500_000)
+		if err != nil {
+			t.Fatal(err)
+		}
+		return m
+	}
+	on, off := run(false), run(true)
+	if d := on.DxM - off.DxM; math.Abs(d-0.25) > 0.01 {
+		t.Errorf("forward motion %.4f m with the trend, %.4f m without: difference %.4f, want 0.25", on.DxM, off.DxM, d)
+	}
+	if d := on.SpeedMps - off.SpeedMps; math.Abs(d-1) > 0.02 {
+		t.Errorf("speed at the gap's end %.3f with the trend, %.3f without: difference %.3f, want 1 (2 m/s² for 0.5 s)", on.SpeedMps, off.SpeedMps, d)
+	}
+}

@@ -90,6 +90,11 @@ func TestEgoMotionInput(t *testing.T) {
 		{Camera: cam, MaxRangeM: math.NaN()},
 		{Camera: cam, WorkWidth: 16},
 		{Camera: cam, MaxRangeM: 1},
+		{Camera: cam, WindowPx: 12},
+		{Camera: cam, WindowPx: 3},
+		{Camera: cam, PyramidLevels: -1},
+		{Camera: cam, SideslipRad: math.Inf(1)},
+		{Camera: cam, SideslipFloorM: -0.1},
 	} {
 		if e, err := NewEgoMotion(cfg); err == nil {
 			e.Close()
@@ -189,4 +194,41 @@ func BenchmarkEgoMotionVsBare1280x720(b *testing.B) {
 	b.ReportMetric(float64(median(te))/float64(median(tw)), "ego/bare")
 	b.ReportMetric(float64(median(ce))/float64(median(cw)), "ego/bare-cpu")
 	b.ReportMetric(float64(estimates)/float64(b.N), "estimate-share")
+}
+
+// TestEgoMotionSideslipPrior: on a turning pair that follows its heading
+// (dy = dx·tan(dyaw/2)), the non-holonomic prior keeps the estimate within
+// the tolerances of TestEgoMotionRecoversGroundMotion and narrows the
+// fit's lateral and yaw variances against the free three-parameter fit of
+// the same points (NoSideslipPrior).
+func TestEgoMotionSideslipPrior(t *testing.T) {
+	cam := egoCam()
+	const dx, dyaw = 0.33, 0.03
+	dy := dx * math.Tan(dyaw/2)
+	a, b := groundPair(t, cam, dx, dy, dyaw)
+	defer a.Close()
+	defer b.Close()
+	fit := func(free bool) EgoEstimate {
+		e, err := NewEgoMotion(EgoMotionConfig{Camera: cam, Seed: 1, NoSideslipPrior: free})
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer e.Close()
+		if _, _, err := e.Observe(a, 0); err != nil {
+			t.Fatal(err)
+		}
+		est, ok, err := e.Observe(b, 33_333)
+		if err != nil || !ok {
+			t.Fatalf("free %v: ok %v err %v", free, ok, err)
+		}
+		return est
+	}
+	prior, free := fit(false), fit(true)
+	if math.Abs(prior.DxM-dx) > 0.02 || math.Abs(prior.DyM-dy) > 0.02 || math.Abs(prior.DyawRad-dyaw) > 2e-3 {
+		t.Errorf("with the prior: (%.4f, %.4f, %.5f), want (%.4f, %.4f, %.5f)", prior.DxM, prior.DyM, prior.DyawRad, dx, dy, dyaw)
+	}
+	if !(prior.Cov[1][1] < free.Cov[1][1]) || !(prior.Cov[2][2] < free.Cov[2][2]) {
+		t.Errorf("variances with the prior dy %.3g, dyaw %.3g; free fit %.3g, %.3g: want both smaller",
+			prior.Cov[1][1], prior.Cov[2][2], free.Cov[1][1], free.Cov[2][2])
+	}
 }

@@ -82,3 +82,54 @@ func TestReplayCompareSources(t *testing.T) {
 		t.Errorf("sources.json rows %q, want %q", got, want)
 	}
 }
+
+// TestReplayCompareSourcesWithoutCommands: on a drive without the
+// operator's commands (no controls.csv) --compare-sources still replays
+// every row that needs none (telemetry only on both links, the video
+// alone, the exact motion) and names each row it skipped with the reason,
+// in the table and in sources.json.
+func TestReplayCompareSourcesWithoutCommands(t *testing.T) {
+	dir := t.TempDir()
+	drive, out := filepath.Join(dir, "drive"), filepath.Join(dir, "r")
+	var stdout, stderr bytes.Buffer
+	if c := run(context.Background(), []string{"simdrive", "--quiet", "--no-commands", "--out", drive, "--width", "320", "--height", "180", "--duration-s", "4"}, &stdout, &stderr); c != 0 {
+		t.Fatalf("simdrive: %d %s", c, stderr.String())
+	}
+	if _, err := os.Stat(filepath.Join(drive, "controls.csv")); err == nil {
+		t.Fatal("the drive has a controls.csv; the test needs one without")
+	}
+	stdout.Reset()
+	if c := run(context.Background(), []string{"replay", "--quiet", "--drive", drive, "--out", out, "--compare-sources"}, &stdout, &stderr); c != 0 {
+		t.Fatalf("replay --compare-sources on a drive without commands: exit %d, %s", c, stderr.String())
+	}
+	data, err := os.ReadFile(filepath.Join(out, "sources.json"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	var rows []bench.EvalRow
+	if err := json.Unmarshal(data, &rows); err != nil {
+		t.Fatal(err)
+	}
+	var got []string
+	for _, r := range rows {
+		tag := r.Source
+		if r.Skipped != "" {
+			tag += " (skipped)"
+			if !strings.Contains(r.Skipped, "no commands recorded") {
+				t.Errorf("row %q skipped with %q, want the missing commands named", r.Source, r.Skipped)
+			}
+		} else if r.Predicted == 0 && r.Missing == 0 {
+			t.Errorf("row %q has no figures", r.Source)
+		}
+		got = append(got, tag)
+	}
+	want := []string{bench.TelemetryOnlySource.Name, bench.TelemetryOnlySource.Name, bench.CommandsAddedSource.Name + " (skipped)",
+		bench.VideoOnlySource.Name, bench.AllSourcesSource.Name + " (skipped)", bench.ExactMotionSource.Name}
+	if strings.Join(got, "|") != strings.Join(want, "|") {
+		t.Errorf("sources.json rows %q, want %q", got, want)
+	}
+	table := stdout.String()
+	if n := strings.Count(table, "skipped: needs the operator's commands"); n != 2 {
+		t.Errorf("the table names %d skipped rows, want 2:\n%s", n, table)
+	}
+}
