@@ -5,6 +5,9 @@ import (
 	"context"
 	"math"
 	"net/http"
+	"os"
+	"path/filepath"
+	"runtime/pprof"
 	"slices"
 	"strconv"
 	"strings"
@@ -105,6 +108,9 @@ func quantile(sorted []float64, q float64) float64 {
 //     plus the viewer's packet reads and both ends' SRTP;
 //   - kept-up: output frames received by the viewer / frames the vehicle sent.
 //
+// With STOPGAP_E2E_PROFILE_DIR set, a CPU profile of the process over each
+// mode's window is written there (loopback-<mode>.pprof).
+//
 // Targets: added-p99-ms below one frame period (33.3 ms); with
 // pass-through, fwd-p99-ms at most 2 ms and relay-cpu-cores at most a third
 // of mode=transcode's.
@@ -117,6 +123,41 @@ func BenchmarkLoopback1280x720(b *testing.B) {
 	if pt.relayCores > 0 && tc.relayCores > 0 {
 		b.Logf("pass-through / transcode in this run: relay CPU %.3f / %.3f cores = %.2f (target <= 0.33); LIVE added p99 %.2f ms (forwarding p99 %.2f ms) vs %.2f ms without the codec",
 			pt.relayCores, tc.relayCores, pt.relayCores/tc.relayCores, pt.addedP99, pt.fwdP99, tc.addedP99)
+	}
+}
+
+func modeName(transcode bool) string {
+	if transcode {
+		return "transcode"
+	}
+	return "passthru"
+}
+
+// profileSelf starts, when profileDirEnv is set, a CPU profile of this
+// process (relay, vehicle and viewer together) written to
+// $STOPGAP_E2E_PROFILE_DIR/<name>.pprof when the returned stop is called.
+// Without profileDirEnv it does nothing.
+func profileSelf(b *testing.B, name string) (stop func()) {
+	dir := os.Getenv(profileDirEnv)
+	if dir == "" {
+		return func() {}
+	}
+	path := filepath.Join(dir, name+".pprof")
+	f, err := os.Create(path)
+	if err != nil {
+		b.Fatal(err)
+	}
+	if err := pprof.StartCPUProfile(f); err != nil {
+		f.Close()
+		b.Logf("no CPU profile: %v", err) // one already runs (-test.cpuprofile)
+		return func() {}
+	}
+	return func() {
+		pprof.StopCPUProfile()
+		if err := f.Close(); err != nil {
+			b.Fatal(err)
+		}
+		b.Logf("CPU profile of the window: %s", path)
 	}
 }
 
@@ -159,11 +200,13 @@ func benchLoopback(b *testing.B, transcode bool) loopbackResult {
 		tr0 := len(traces)
 		traceMu.Unlock()
 		vs0 := r.veh.Stats()
+		stopProfile := profileSelf(b, "loopback-"+modeName(transcode))
 		cpu0, wall0 := cpuTime(b), time.Now()
 
 		time.Sleep(4 * time.Second)
 
 		cpu1, wall1 := cpuTime(b), time.Now()
+		stopProfile()
 		traceMu.Lock()
 		window := append([]relay.FrameTrace(nil), traces[tr0:]...)
 		traceMu.Unlock()
