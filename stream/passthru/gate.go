@@ -14,11 +14,11 @@ type Gate struct {
 	// (always-transcode). Set it before first use.
 	Off bool
 
-	mu       sync.Mutex
-	run      bool        // a run of forwarded frames is open
-	own      bool        // the display loop is encoding and writing its own frame
-	lastFwd  bool        // the last frame sent to the console was forwarded
-	wantKey  atomic.Bool // a viewer needs a keyframe: ask the vehicle (no lock: see ViewerWantsKeyframe)
+	mu      sync.Mutex
+	run     bool        // a run of forwarded frames is open
+	own     bool        // the display loop is encoding and writing its own frame
+	lastFwd bool        // the last frame sent to the console was forwarded
+	wantKey atomic.Bool // a viewer needs a keyframe: ask the vehicle (no lock: see ViewerWantsKeyframe)
 	// urgent: the next keyframe request should not wait for the caller's
 	// retry interval (see KeyframeUrgent).
 	urgent   atomic.Bool
