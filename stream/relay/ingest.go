@@ -34,6 +34,10 @@ type frameEvent struct {
 	// decode; the display loop sends its meta only.
 	forwarded   bool
 	forwardedAt time.Time
+	// superseded: set by the display loop for a LIVE frame that was not
+	// passed through while a newer vehicle keyframe was (pipeline.onFrame);
+	// it is not sent, only its meta.
+	superseded bool
 }
 
 // telEvent is one decoded telemetry sample.

@@ -134,6 +134,7 @@ type metrics struct {
 	ticks                                                      [len(display.States) + 1]atomic.Uint64 // by display.State
 	lateFrames, decodeErrors, framesDropped, overruns          atomic.Uint64
 	framesMovedOn                                              atomic.Uint64
+	framesSuperseded                                           atomic.Uint64
 	telemetryIn, recordErrors, sessions                        atomic.Uint64
 	telemetryRejected, rtpDropped                              labelled
 
@@ -213,6 +214,7 @@ func (m *metrics) writeText(w io.Writer, active int, pt passthru.Stats) {
 	gauge("repair_rtt_seconds", "Smoothed NACK-to-retransmission round trip of the latest session.", float64(m.repairRTTUs.Load())/1e6)
 	counter("late_frames", "Frames decoded after their display deadline (held, not shown).", m.lateFrames.Load())
 	counter("frames_moved_on", "Frames shown LIVE on the first open tick because their own tick was already handled (sender capture jitter).", m.framesMovedOn.Load())
+	counter("frames_superseded", "LIVE frames not sent because a newer vehicle keyframe had passed through to the console while they waited for the display loop (only their meta is sent).", m.framesSuperseded.Load())
 	counter("frames_dropped", "Decoded frames dropped because the display loop was behind.", m.framesDropped.Load())
 	counter("telemetry_in", "Telemetry samples accepted by the filter.", m.telemetryIn.Load())
 	counter("record_errors", "Recording writes that failed.", m.recordErrors.Load())
