@@ -1,8 +1,10 @@
 package predictor
 
 import (
+	"bytes"
 	"image"
 	"math"
+	"runtime"
 	"testing"
 	"time"
 
@@ -179,4 +181,72 @@ func BenchmarkGapVsBare1280x720(b *testing.B) {
 		b.ReportMetric(float64(median(tfp))/float64(mb), "prepared-first/bare")
 		b.ReportMetric(float64(median(tp))/float64(mb), "prepare/bare")
 	}
+}
+
+// TestFillerWarmChangesNothing: a Filler warmed before its first frame
+// shows, tick for tick and pixel for pixel, what a cold one shows over two
+// gaps (first and steady ticks, far depth, upright segments, marks), and
+// Warm after a real frame is a no-op. It logs the thread CPU time of each
+// Filler's first gap tick (the cost Warm moves to the Filler's creation).
+func TestFillerWarmChangesNothing(t *testing.T) {
+	cam := benchCam()
+	prev, last := gapScene(t, cam, gapSceneDepthM)
+	defer prev.Close()
+	defer last.Close()
+	warm, cold := gapFiller(t, cam), gapFiller(t, cam)
+	defer warm.Close()
+	defer cold.Close()
+	runtime.LockOSThread()
+	defer runtime.UnlockOSThread()
+	c0 := threadCPU()
+	if err := warm.Warm(); err != nil {
+		t.Fatal(err)
+	}
+	warmCPU := threadCPU() - c0
+	var firstCPU [2]time.Duration
+	dsts := [2]gocv.Mat{gocv.NewMat(), gocv.NewMat()}
+	defer dsts[0].Close()
+	defer dsts[1].Close()
+	for gap := range 2 {
+		t0 := int64(gap) * 1_000_000
+		for i, f := range []*Filler{warm, cold} {
+			for k, tUs := range []int64{t0 - 6*gapFramePeriodUs, t0, t0 + gapFramePeriodUs} {
+				if _, err := f.Live([]gocv.Mat{prev, prev, last}[k], tUs, nil); err != nil {
+					t.Fatal(err)
+				}
+			}
+			if gap == 0 && i == 0 {
+				if err := f.Warm(); err != nil { // holds a frame now: nothing to do
+					t.Fatal(err)
+				}
+			}
+		}
+		for tick := int64(2); tick <= 3; tick++ {
+			var got [2]Tick
+			for i, f := range []*Filler{warm, cold} {
+				c := threadCPU()
+				tk, err := f.Missing(t0+tick*gapFramePeriodUs, &dsts[i])
+				if gap == 0 && tick == 2 {
+					firstCPU[i] = threadCPU() - c
+				}
+				if err != nil {
+					t.Fatal(err)
+				}
+				tk.SynthDuration = 0
+				got[i] = tk
+			}
+			if got[0] != got[1] {
+				t.Errorf("gap %d tick %d: warmed %+v, cold %+v", gap, tick, got[0], got[1])
+			}
+			if got[0].State != StatePredicted || math.IsInf(got[0].FarDepthM, 0) {
+				t.Errorf("gap %d tick %d: %+v, want PREDICTED with a finite far depth (the case tests little otherwise)", gap, tick, got[0])
+			}
+			a, _ := dsts[0].DataPtrUint8()
+			b, _ := dsts[1].DataPtrUint8()
+			if !bytes.Equal(a, b) {
+				t.Errorf("gap %d tick %d: the warmed Filler's picture differs from the cold one's", gap, tick)
+			}
+		}
+	}
+	t.Logf("thread CPU at %dx%d: Warm %v; first gap tick warmed %v, cold %v", cam.Width, cam.Height, warmCPU, firstCPU[0], firstCPU[1])
 }

@@ -5,6 +5,9 @@ import (
 	"context"
 	"math"
 	"net/http"
+	"os"
+	"path/filepath"
+	"runtime/pprof"
 	"slices"
 	"strconv"
 	"strings"
@@ -105,6 +108,9 @@ func quantile(sorted []float64, q float64) float64 {
 //     plus the viewer's packet reads and both ends' SRTP;
 //   - kept-up: output frames received by the viewer / frames the vehicle sent.
 //
+// With STOPGAP_E2E_PROFILE_DIR set, a CPU profile of the process over each
+// mode's window is written there (loopback-<mode>.pprof).
+//
 // Targets: added-p99-ms below one frame period (33.3 ms); with
 // pass-through, fwd-p99-ms at most 2 ms and relay-cpu-cores at most a third
 // of mode=transcode's.
@@ -117,6 +123,41 @@ func BenchmarkLoopback1280x720(b *testing.B) {
 	if pt.relayCores > 0 && tc.relayCores > 0 {
 		b.Logf("pass-through / transcode in this run: relay CPU %.3f / %.3f cores = %.2f (target <= 0.33); LIVE added p99 %.2f ms (forwarding p99 %.2f ms) vs %.2f ms without the codec",
 			pt.relayCores, tc.relayCores, pt.relayCores/tc.relayCores, pt.addedP99, pt.fwdP99, tc.addedP99)
+	}
+}
+
+func modeName(transcode bool) string {
+	if transcode {
+		return "transcode"
+	}
+	return "passthru"
+}
+
+// profileSelf starts, when profileDirEnv is set, a CPU profile of this
+// process (relay, vehicle and viewer together) written to
+// $STOPGAP_E2E_PROFILE_DIR/<name>.pprof when the returned stop is called.
+// Without profileDirEnv it does nothing.
+func profileSelf(b *testing.B, name string) (stop func()) {
+	dir := os.Getenv(profileDirEnv)
+	if dir == "" {
+		return func() {}
+	}
+	path := filepath.Join(dir, name+".pprof")
+	f, err := os.Create(path)
+	if err != nil {
+		b.Fatal(err)
+	}
+	if err := pprof.StartCPUProfile(f); err != nil {
+		f.Close()
+		b.Logf("no CPU profile: %v", err) // one already runs (-test.cpuprofile)
+		return func() {}
+	}
+	return func() {
+		pprof.StopCPUProfile()
+		if err := f.Close(); err != nil {
+			b.Fatal(err)
+		}
+		b.Logf("CPU profile of the window: %s", path)
 	}
 }
 
@@ -159,11 +200,13 @@ func benchLoopback(b *testing.B, transcode bool) loopbackResult {
 		tr0 := len(traces)
 		traceMu.Unlock()
 		vs0 := r.veh.Stats()
+		stopProfile := profileSelf(b, "loopback-"+modeName(transcode))
 		cpu0, wall0 := cpuTime(b), time.Now()
 
 		time.Sleep(4 * time.Second)
 
 		cpu1, wall1 := cpuTime(b), time.Now()
+		stopProfile()
 		traceMu.Lock()
 		window := append([]relay.FrameTrace(nil), traces[tr0:]...)
 		traceMu.Unlock()
@@ -194,12 +237,16 @@ func benchLoopback(b *testing.B, transcode bool) loopbackResult {
 		}
 		offsetUs := modeOffsetUs(liveTicks, vframes)
 		var e2e, added, fwd []float64
-		live, unmatched, forwarded := 0, 0, 0
+		live, unmatched, forwarded, superseded := 0, 0, 0, 0
 		for i, tr := range window {
 			if tr.State != display.StateLive {
 				continue
 			}
 			live++
+			if tr.Superseded {
+				superseded++ // no frame sent: the viewer had a newer one
+				continue
+			}
 			if tr.Forwarded {
 				forwarded++
 				fwd = append(fwd, float64(tr.WrittenAt.Sub(tr.LastPacketAt).Microseconds())/1000)
@@ -258,8 +305,8 @@ func benchLoopback(b *testing.B, transcode bool) loopbackResult {
 		}
 		b.ReportMetric(framesOut/max(framesIn, 1), "kept-up")
 		b.ReportMetric(float64(live)/max(float64(len(window)), 1), "live-share")
-		b.Logf("window %v: vehicle frames %v, relay output frames %d (delivered to the viewer %d; LIVE %d, matched %d, unmatched %d), viewer frames %v, metas %d, vehicle skipped %d, tick time - capture time %.1f ms",
-			wall1.Sub(wall0).Round(time.Millisecond), framesIn, len(window), delivered, live, len(e2e), unmatched, framesOut,
+		b.Logf("window %v: vehicle frames %v, relay output frames %d (delivered to the viewer %d; LIVE %d, matched %d, unmatched %d, superseded %d), viewer frames %v, metas %d, vehicle skipped %d, tick time - capture time %.1f ms",
+			wall1.Sub(wall0).Round(time.Millisecond), framesIn, len(window), delivered, live, len(e2e), unmatched, superseded, framesOut,
 			len(metas)-len(metas0), vs1.FramesSkipped-vs0.FramesSkipped, float64(offsetUs)/1000)
 		b.Logf("relay %+v", r.relay.Stats())
 		if len(e2e) < 10 || len(e2e) < live/2 {
@@ -284,21 +331,28 @@ func benchLoopback(b *testing.B, transcode bool) loopbackResult {
 // It returns the arrival per trace and the number matched.
 func matchDeliveries(traces []relay.FrameTrace, ends []time.Time, period time.Duration) ([]time.Time, int) {
 	out := make([]time.Time, len(traces))
-	if len(traces) == 0 || len(ends) == 0 {
+	// A superseded tick sent no frame: it has no arrival to pair with.
+	var sent []int
+	for i, tr := range traces {
+		if !tr.Superseded {
+			sent = append(sent, i)
+		}
+	}
+	if len(sent) == 0 || len(ends) == 0 {
 		return out, 0
 	}
 	ok := func(d time.Duration) bool { return d >= -2*time.Millisecond && d < period }
 	j0, best := 0, time.Duration(math.MaxInt64)
 	for j, e := range ends {
-		if d := e.Sub(traces[0].WrittenAt); d.Abs() < best {
+		if d := e.Sub(traces[sent[0]].WrittenAt); d.Abs() < best {
 			j0, best = j, d.Abs()
 		}
 	}
 	bestO, bestN := 0, -1
 	for o := j0 - 2; o <= j0+2; o++ {
 		n := 0
-		for i, tr := range traces {
-			if j := i + o; j >= 0 && j < len(ends) && ok(ends[j].Sub(tr.WrittenAt)) {
+		for k, i := range sent {
+			if j := k + o; j >= 0 && j < len(ends) && ok(ends[j].Sub(traces[i].WrittenAt)) {
 				n++
 			}
 		}
@@ -306,8 +360,8 @@ func matchDeliveries(traces []relay.FrameTrace, ends []time.Time, period time.Du
 			bestO, bestN = o, n
 		}
 	}
-	for i, tr := range traces {
-		if j := i + bestO; j >= 0 && j < len(ends) && ok(ends[j].Sub(tr.WrittenAt)) {
+	for k, i := range sent {
+		if j := k + bestO; j >= 0 && j < len(ends) && ok(ends[j].Sub(traces[i].WrittenAt)) {
 			out[i] = ends[j]
 		}
 	}
@@ -349,6 +403,18 @@ func TestMatchDeliveries(t *testing.T) {
 	}
 	if n > 4 {
 		t.Errorf("with frame 6 dropped, %d frames matched, want at most 4", n)
+	}
+	// Tick 6 superseded: no frame was sent for it, so none arrives, and
+	// every other frame still pairs with its own arrival.
+	traces[6].Superseded = true
+	got, n = matchDeliveries(traces, dropped, period)
+	if n != 7 || !got[6].IsZero() {
+		t.Errorf("tick 6 superseded: %d matched, tick 6 paired with %v; want 7 and none", n, got[6])
+	}
+	for i := 2; i < 10; i++ {
+		if i != 6 && got[i].Sub(traces[i].WrittenAt) != 3*time.Millisecond {
+			t.Errorf("tick 6 superseded: frame %d paired with a delay of %v", i, got[i].Sub(traces[i].WrittenAt))
+		}
 	}
 }
 

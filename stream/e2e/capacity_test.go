@@ -151,42 +151,70 @@ func threadCPU() time.Duration {
 	return time.Duration(ru.Utime.Nano() + ru.Stime.Nano())
 }
 
-// relayDrops reads from a relay's /metrics what its queues dropped: decoded
-// frames the display loop was too far behind for, and RTP packets the
-// ingest queue had no room for.
-func relayDrops(ctx context.Context, base string) (uint64, error) {
+// relayCounters reads a relay's /metrics and returns every sample, labels
+// included in the name as exposed (e.g.
+// stopgap_ticks_total{state="live"}).
+func relayCounters(ctx context.Context, base string) (map[string]float64, error) {
 	req, err := http.NewRequestWithContext(ctx, http.MethodGet, base+"/metrics", nil)
 	if err != nil {
-		return 0, err
+		return nil, err
 	}
 	req.Header.Set("Authorization", "Bearer "+consoleToken)
 	resp, err := http.DefaultClient.Do(req)
 	if err != nil {
-		return 0, err
+		return nil, err
 	}
 	defer resp.Body.Close()
 	if resp.StatusCode != http.StatusOK {
-		return 0, fmt.Errorf("GET %s/metrics: %s", base, resp.Status)
+		return nil, fmt.Errorf("GET %s/metrics: %s", base, resp.Status)
 	}
-	var sum uint64
-	found := 0
+	out := map[string]float64{}
 	sc := bufio.NewScanner(resp.Body)
 	for sc.Scan() {
-		name, val, ok := strings.Cut(sc.Text(), " ")
-		if !ok || (name != relay.MetricPrefix+"frames_dropped_total" && name != relay.MetricPrefix+`rtp_dropped_total{reason="ingest_queue_full"}`) {
+		line := sc.Text()
+		if strings.HasPrefix(line, "#") {
 			continue
 		}
-		n, err := strconv.ParseUint(val, 10, 64)
-		if err != nil {
-			return 0, fmt.Errorf("%s/metrics: %s: %w", base, name, err)
+		i := strings.LastIndexByte(line, ' ')
+		if i < 0 {
+			continue
 		}
-		sum += n
-		found++
+		v, err := strconv.ParseFloat(line[i+1:], 64)
+		if err != nil {
+			return nil, fmt.Errorf("%s/metrics: %q: %w", base, line, err)
+		}
+		out[line[:i]] = v
 	}
-	if found == 0 {
-		return 0, fmt.Errorf("%s/metrics: no %sframes_dropped_total", base, relay.MetricPrefix)
+	return out, sc.Err()
+}
+
+// Relay metrics the capacity run reads. The drops are what its queues
+// dropped: decoded frames the display loop was too far behind for, and RTP
+// packets the ingest queue had no room for.
+var (
+	metricFramesDropped = relay.MetricPrefix + "frames_dropped_total"
+	metricIngestDropped = relay.MetricPrefix + `rtp_dropped_total{reason="ingest_queue_full"}`
+)
+
+// relayDrops returns what a relay's queues dropped (see metricFramesDropped).
+func relayDrops(m map[string]float64, base string) (uint64, error) {
+	d, ok := m[metricFramesDropped]
+	if !ok {
+		return 0, fmt.Errorf("%s/metrics: no %s", base, metricFramesDropped)
 	}
-	return sum, sc.Err()
+	return uint64(d + m[metricIngestDropped]), nil
+}
+
+// relayWork is what a relay did over the window, from its /metrics: why
+// its CPU went where it did (logged beside the figures).
+func relayWork(m0, m1 map[string]float64) string {
+	d := func(name string) float64 { return m1[relay.MetricPrefix+name] - m0[relay.MetricPrefix+name] }
+	return fmt.Sprintf("forwarded %.0f, encoded %.0f, superseded %.0f, ticks live/predicted/stale/not_shown %.0f/%.0f/%.0f/%.0f, late %.0f, dropped %.0f, pass-through stops loss/decode/own/size %.0f/%.0f/%.0f/%.0f, keyframes missed %.0f, keyframe requests %.0f",
+		d("frames_forwarded_total"), d("encode_seconds_count"), d("frames_superseded_total"),
+		d(`ticks_total{state="live"}`), d(`ticks_total{state="predicted"}`), d(`ticks_total{state="stale"}`), d(`ticks_total{state="not_shown"}`),
+		d("late_frames_total"), d("frames_dropped_total"),
+		d(`passthru_stops_total{reason="loss"}`), d(`passthru_stops_total{reason="decode-failed"}`), d(`passthru_stops_total{reason="own-frame"}`), d(`passthru_stops_total{reason="bad-size"}`),
+		d("passthru_keyframes_missed_total"), d("keyframe_requests_total"))
 }
 
 // BenchmarkCapacity1280x720 runs N vehicles at once, each with its own relay
@@ -223,7 +251,9 @@ func relayDrops(ctx context.Context, base string) (uint64, error) {
 //   - relay-rss-mb: mean resident memory of one relay process.
 //
 // The egress mode is STOPGAP_E2E_EGRESS (egress_test.go). The load average
-// at the start and end of the window is logged.
+// at the start and end of the window is logged. With STOPGAP_E2E_PROFILE_DIR
+// set, each relay process writes a CPU profile of the window there
+// (capacity-N<n>-relay<i>.pprof; read it with go tool pprof).
 func BenchmarkCapacity1280x720(b *testing.B) {
 	mode := requireEgress(b)
 	ns := []int{1, 2, 4}
@@ -328,7 +358,7 @@ func runCapacity(b *testing.B, rec *recording.Recording, drive string, n int, mo
 		streams[i] = s
 	}
 	for i, s := range streams {
-		s.relay = startChild(b, "relay", childDriveEnv+"="+drive)
+		s.relay = startChild(b, "relay", relayChildEnv(drive)...)
 		recv, err := newCapReceiver(decode)
 		if err != nil {
 			b.Fatal(err)
@@ -359,6 +389,7 @@ func runCapacity(b *testing.B, rec *recording.Recording, drive string, n int, mo
 		recv  capRecvStats
 		veh   simvehicle.Stats
 		drops uint64
+		met   map[string]float64
 	}
 	relayCPU := func() time.Duration {
 		var sum time.Duration
@@ -375,19 +406,30 @@ func runCapacity(b *testing.B, rec *recording.Recording, drive string, n int, mo
 		ms := make([]mark, n)
 		for i, s := range streams {
 			m, _ := s.view.snapshot()
-			d, err := relayDrops(ctx, s.relay.ready)
+			met, err := relayCounters(ctx, s.relay.ready)
 			if err != nil {
 				b.Fatal(err)
 			}
-			ms[i] = mark{metas: len(m), recv: s.recv.stats(), veh: s.veh.Stats(), drops: d}
+			d, err := relayDrops(met, s.relay.ready)
+			if err != nil {
+				b.Fatal(err)
+			}
+			ms[i] = mark{metas: len(m), recv: s.recv.stats(), veh: s.veh.Stats(), drops: d, met: met}
 		}
 		return ms
 	}
 	load0 := loadAvg()
 	marks := snap()
+	bases := make([]string, n)
+	for i, s := range streams {
+		bases[i] = s.relay.ready
+	}
+	const window = 6 * time.Second
+	profiled := profileRelays(b, fmt.Sprintf("capacity-N%d", n), bases, window)
 	rc0, self0, wall0 := relayCPU(), cpuTime(b), time.Now()
-	time.Sleep(6 * time.Second)
+	time.Sleep(window)
 	rc1, self1, wall1 := relayCPU(), cpuTime(b), time.Now()
+	profiled()
 	wall := wall1.Sub(wall0)
 	ends := snap()
 	load1 := loadAvg()
@@ -461,6 +503,7 @@ func runCapacity(b *testing.B, rec *recording.Recording, drive string, n int, mo
 		rss += float64(r) / float64(n)
 		b.Logf("stream %d: vehicle sent %v frames (%.3f late), viewer reassembled %d (%.3f of the ticks), %d lost, %d decode errors; relay dropped %d; %d ticks, %d LIVE (%.3f of the frames sent); kept up %v",
 			i, sent, late, got, delivered, losses, decErrs, dropped, len(window), live, liveShare, ok)
+		b.Logf("stream %d relay: %s", i, relayWork(m0.met, m1.met))
 	}
 	slices.Sort(lat)
 	relayCores := float64(rc1-rc0) / float64(wall)

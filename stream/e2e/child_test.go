@@ -5,14 +5,18 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"io"
+	"math"
 	"net"
 	"net/http"
+	"net/http/pprof"
 	"os"
 	"os/exec"
 	"os/signal"
 	"path/filepath"
 	"strconv"
 	"strings"
+	"sync"
 	"syscall"
 	"testing"
 	"time"
@@ -35,13 +39,24 @@ import (
 //	vehicle: publishes the drive in childDriveEnv (looped) to the relay at
 //	         childBaseEnv; prints "<childReadyPrefix>published" once the
 //	         session is connected.
+//
+// With childPprofEnv=1 a relay child also serves Go's profiles
+// (net/http/pprof) under /debug/pprof/ on its listener, so a benchmark can
+// take a CPU profile of one relay process over its measuring window
+// (profileRelays).
 const (
 	childRoleEnv     = "STOPGAP_E2E_CHILD"
 	childDriveEnv    = "STOPGAP_E2E_CHILD_DRIVE"
 	childRecordEnv   = "STOPGAP_E2E_CHILD_RECORD"
 	childBaseEnv     = "STOPGAP_E2E_CHILD_BASE"
+	childPprofEnv    = "STOPGAP_E2E_CHILD_PPROF"
 	childReadyPrefix = "STOPGAP_E2E_READY "
 )
+
+// profileDirEnv names a directory: the benchmarks that run relay child
+// processes then write a CPU profile of each relay over the measuring
+// window there (see profileRelays).
+const profileDirEnv = "STOPGAP_E2E_PROFILE_DIR"
 
 func TestMain(m *testing.M) {
 	if role := os.Getenv(childRoleEnv); role != "" {
@@ -84,7 +99,14 @@ func childRelay(ctx context.Context, rec *recording.Recording, recordDir string)
 	if err != nil {
 		return err
 	}
-	srv := &http.Server{Handler: r.Handler(), ReadHeaderTimeout: 5 * time.Second}
+	h := r.Handler()
+	if os.Getenv(childPprofEnv) == "1" {
+		mux := http.NewServeMux()
+		mux.HandleFunc("/debug/pprof/profile", pprof.Profile)
+		mux.Handle("/", h)
+		h = mux
+	}
+	srv := &http.Server{Handler: h, ReadHeaderTimeout: 5 * time.Second}
 	go srv.Serve(ln)
 	defer srv.Close()
 	fmt.Printf("%shttp://%s\n", childReadyPrefix, ln.Addr())
@@ -231,4 +253,57 @@ func procRSS(pid int) (int64, error) {
 	}
 	pages, err := strconv.ParseInt(f[1], 10, 64)
 	return pages * int64(os.Getpagesize()), err
+}
+
+// relayChildEnv is the environment of a relay child in a benchmark: the
+// drive, and the profile endpoint when profileDirEnv is set.
+func relayChildEnv(drive string) []string {
+	env := []string{childDriveEnv + "=" + drive}
+	if os.Getenv(profileDirEnv) != "" {
+		env = append(env, childPprofEnv+"=1")
+	}
+	return env
+}
+
+// profileRelays starts, when profileDirEnv is set, a CPU profile of each
+// relay child at base URL bases[i] over the next d, written to
+// $STOPGAP_E2E_PROFILE_DIR/<name>-relay<i>.pprof. The returned wait blocks
+// until every profile is written (a profile that fails is logged, not
+// fatal: it only explains the figures). Without profileDirEnv it does
+// nothing.
+func profileRelays(tb testing.TB, name string, bases []string, d time.Duration) (wait func()) {
+	dir := os.Getenv(profileDirEnv)
+	if dir == "" {
+		return func() {}
+	}
+	var wg sync.WaitGroup
+	for i, base := range bases {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			path := filepath.Join(dir, fmt.Sprintf("%s-relay%d.pprof", name, i))
+			url := fmt.Sprintf("%s/debug/pprof/profile?seconds=%d", base, int(math.Ceil(d.Seconds())))
+			resp, err := http.Get(url)
+			if err != nil {
+				tb.Logf("profile of relay %d: %v", i, err)
+				return
+			}
+			defer resp.Body.Close()
+			if resp.StatusCode != http.StatusOK {
+				tb.Logf("profile of relay %d: %s", i, resp.Status)
+				return
+			}
+			f, err := os.Create(path)
+			if err == nil {
+				_, err = io.Copy(f, resp.Body)
+				err = errors.Join(err, f.Close())
+			}
+			if err != nil {
+				tb.Logf("profile of relay %d: %v", i, err)
+				return
+			}
+			tb.Logf("CPU profile of relay %d over %v: %s", i, d, path)
+		}()
+	}
+	return wg.Wait
 }

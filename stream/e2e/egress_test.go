@@ -15,7 +15,7 @@ import (
 // re-encode every tick; relay.Config.AlwaysTranscode).
 const egressEnv = "STOPGAP_E2E_EGRESS"
 
-// egressMode returns the mode named by STOPGAP_E2E_EGRESS ("transcode" when
+// egressMode returns the mode named by STOPGAP_E2E_EGRESS ("passthru" when
 // unset: the relay's default).
 func egressMode() string {
 	if m := os.Getenv(egressEnv); m != "" {

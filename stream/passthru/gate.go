@@ -14,12 +14,16 @@ type Gate struct {
 	// (always-transcode). Set it before first use.
 	Off bool
 
-	mu       sync.Mutex
-	run      bool        // a run of forwarded frames is open
-	own      bool        // the display loop is encoding and writing its own frame
-	lastFwd  bool        // the last frame sent to the console was forwarded
-	wantKey  atomic.Bool // a viewer needs a keyframe: ask the vehicle (no lock: see ViewerWantsKeyframe)
+	mu      sync.Mutex
+	run     bool        // a run of forwarded frames is open
+	own     bool        // the display loop is encoding and writing its own frame
+	lastFwd bool        // the last frame sent to the console was forwarded
+	wantKey atomic.Bool // a viewer needs a keyframe: ask the vehicle (no lock: see ViewerWantsKeyframe)
+	// urgent: the next keyframe request should not wait for the caller's
+	// retry interval (see KeyframeUrgent).
+	urgent   atomic.Bool
 	forwards atomic.Uint64
+	missed   atomic.Uint64
 	stops    [stopReasonCount]atomic.Uint64
 }
 
@@ -84,7 +88,13 @@ func (g *Gate) Offer(f Frame, send Sender) bool {
 		g.stopLocked(StopBadSize)
 		return false
 	case g.own:
-		return false // the display loop is writing its own frame
+		// The display loop is writing its own frame. A keyframe lost
+		// this way answered the last request: ask again at once.
+		if f.Keyframe {
+			g.missed.Add(1)
+			g.urgent.Store(true)
+		}
+		return false
 	case !g.run && !f.Keyframe:
 		return false // transcoding until the vehicle's next keyframe
 	}
@@ -124,6 +134,12 @@ func (g *Gate) Lost() {
 func (g *Gate) BeginOwn() (forceKey bool) {
 	g.mu.Lock()
 	defer g.mu.Unlock()
+	if g.run {
+		// The vehicle's keyframe that opened this run may have come
+		// from a request made just before: the next one need not wait
+		// for the retry interval.
+		g.urgent.Store(true)
+	}
 	g.stopLocked(StopOwnFrame)
 	g.own = true
 	forceKey = g.lastFwd
@@ -158,6 +174,21 @@ func (g *Gate) WantKeyframe() bool {
 	return !g.run || (viewer && g.lastFwd)
 }
 
+// KeyframeUrgent reports whether the next keyframe request, while
+// WantKeyframe holds, should go out without waiting for the caller's retry
+// interval (the sender's own rate limit still applies): a vehicle keyframe
+// came while the display loop was encoding a frame of its own and could not
+// start a run, or the display loop ended an open run. In both cases the
+// vehicle answered the last request already, so the retry interval, meant
+// for requests that got no answer, would only keep the relay transcoding
+// longer (and each transcoded 1280x720 frame costs a VP8 encode). It stays
+// set until KeyframeRequested.
+func (g *Gate) KeyframeUrgent() bool { return !g.Off && g.urgent.Load() }
+
+// KeyframeRequested records that a keyframe request went out: the next one
+// waits for the retry interval again.
+func (g *Gate) KeyframeRequested() { g.urgent.Store(false) }
+
 // Forwarding reports whether a run of forwarded frames is open.
 func (g *Gate) Forwarding() bool {
 	g.mu.Lock()
@@ -169,12 +200,16 @@ func (g *Gate) Forwarding() bool {
 type Stats struct {
 	Forwarded uint64                  // frames forwarded
 	Stops     [stopReasonCount]uint64 // runs ended, by StopReason
+	// MissedKeyframes counts vehicle keyframes that could not start a
+	// run because the display loop was encoding a frame of its own.
+	MissedKeyframes uint64
 }
 
 // Stats returns the counters.
 func (g *Gate) Stats() Stats {
 	var s Stats
 	s.Forwarded = g.forwards.Load()
+	s.MissedKeyframes = g.missed.Load()
 	for i := range s.Stops {
 		s.Stops[i] = g.stops[i].Load()
 	}

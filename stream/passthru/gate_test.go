@@ -140,6 +140,43 @@ func TestGateOwnFrameBlocksForwarding(t *testing.T) {
 	}
 }
 
+// TestGateKeyframeUrgent: the next keyframe request skips the caller's
+// retry interval when a vehicle keyframe came while the display loop wrote
+// its own frame (counted as missed) or when the display loop ended an open
+// run, and waits again once a request went out; a filled tick with no run
+// open, or always-transcode, does not hurry anything.
+func TestGateKeyframeUrgent(t *testing.T) {
+	send := SenderFunc(func() error { return nil })
+	key := Frame{Keyframe: true, SizeOK: true}
+	tests := []struct {
+		name   string
+		off    bool
+		steps  func(g *Gate)
+		urgent bool
+		missed uint64
+	}{
+		{"nothing happened", false, func(g *Gate) {}, false, 0},
+		{"a filled tick before any run", false, func(g *Gate) { g.BeginOwn(); g.EndOwn() }, false, 0},
+		{"a filled tick ends a run", false, func(g *Gate) { g.Offer(key, send); g.BeginOwn(); g.EndOwn() }, true, 0},
+		{"a keyframe during an own frame", false, func(g *Gate) { g.BeginOwn(); g.Offer(key, send); g.EndOwn() }, true, 1},
+		{"an inter frame during an own frame", false, func(g *Gate) { g.BeginOwn(); g.Offer(Frame{}, send); g.EndOwn() }, false, 0},
+		{"answered by a request", false, func(g *Gate) { g.BeginOwn(); g.Offer(key, send); g.EndOwn(); g.KeyframeRequested() }, false, 1},
+		{"always-transcode", true, func(g *Gate) { g.BeginOwn(); g.Offer(key, send); g.EndOwn() }, false, 0},
+	}
+	for _, tc := range tests {
+		t.Run(tc.name, func(t *testing.T) {
+			g := &Gate{Off: tc.off}
+			tc.steps(g)
+			if got := g.KeyframeUrgent(); got != tc.urgent {
+				t.Errorf("KeyframeUrgent %v, want %v", got, tc.urgent)
+			}
+			if got := g.Stats().MissedKeyframes; got != tc.missed {
+				t.Errorf("missed keyframes %d, want %d", got, tc.missed)
+			}
+		})
+	}
+}
+
 func TestStopReasonString(t *testing.T) {
 	for r, want := range map[StopReason]string{StopInvalid: "invalid", StopLoss: "loss", StopDecodeFailed: "decode-failed", StopOwnFrame: "own-frame", StopBadSize: "bad-size", 99: "invalid"} {
 		if got := r.String(); got != want {

@@ -13,6 +13,9 @@
 // gap filler; the display loop sends only its meta. The relay's encoder makes
 // the PREDICTED and STALE frames, starting with a keyframe, and the LIVE ones
 // until the vehicle's next keyframe, from which frames pass through again.
+// A real frame still waiting to be encoded when a newer vehicle keyframe
+// has passed through is not encoded (superseded): its tick is LIVE and only
+// its meta goes out, since the console shows a newer real picture already.
 // The rule and its reasons are in package stopgap/stream/passthru.
 // Config.AlwaysTranscode encodes every frame instead.
 //

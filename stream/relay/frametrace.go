@@ -30,6 +30,11 @@ type FrameTrace struct {
 	Encode    time.Duration
 	WrittenAt time.Time
 	Forwarded bool
+	// Superseded: a LIVE tick whose frame was not sent at all, because a
+	// newer vehicle frame had passed through to the console while it waited
+	// for the display loop (Encode and WrittenAt are zero). Only its meta
+	// went out.
+	Superseded bool
 }
 
 // frameTracer holds the function TraceFrames installed, if any.

@@ -34,6 +34,10 @@ type frameEvent struct {
 	// decode; the display loop sends its meta only.
 	forwarded   bool
 	forwardedAt time.Time
+	// superseded: set by the display loop for a LIVE frame that was not
+	// passed through while a newer vehicle keyframe was (pipeline.onFrame);
+	// it is not sent, only its meta.
+	superseded bool
 }
 
 // telEvent is one decoded telemetry sample.
@@ -172,9 +176,12 @@ func (in *frameIngest) runTimers(ctx context.Context) {
 			in.requestKeyframeLocked(now, "link back, repeated")
 		case in.dec.NeedKeyframe() && now.Sub(in.lastKeyReq) >= in.p.cfg.KeyframeRetry:
 			in.requestKeyframeLocked(now, "retry")
-		case in.p.r.gate.WantKeyframe() && now.Sub(in.lastKeyReq) >= in.p.cfg.KeyframeRetry:
+		case in.p.r.gate.WantKeyframe() && (now.Sub(in.lastKeyReq) >= in.p.cfg.KeyframeRetry || in.p.r.gate.KeyframeUrgent()):
 			// Pass-through resumes on the vehicle's next keyframe, and a
-			// console viewer can only start on one.
+			// console viewer can only start on one. Urgent: the vehicle
+			// answered the last request, but its keyframe could not be
+			// used (passthru.Gate.KeyframeUrgent); until the next one
+			// every real frame costs the relay an encode.
 			in.requestKeyframeLocked(now, "pass-through")
 		}
 		in.mu.Unlock()
@@ -196,6 +203,7 @@ func linkBackRetry(retry time.Duration) time.Duration { return retry / 2 }
 // by the session's rate limit leaves lastKeyReq alone: the retry interval
 // counts from the last PLI that went out, so a refusal never postpones the
 // next attempt.
+// Any request sent also answers an urgent wish of the pass-through gate.
 func (in *frameIngest) requestKeyframeLocked(now time.Time, why string) {
 	if err := in.p.sess.RequestKeyframe(); err != nil {
 		in.p.r.met.keyframeRequestsFailed.Add(1)
@@ -206,6 +214,7 @@ func (in *frameIngest) requestKeyframeLocked(now time.Time, why string) {
 		return
 	}
 	in.lastKeyReq = now
+	in.p.r.gate.KeyframeRequested()
 	in.p.r.met.keyframeRequests.Add(1)
 	in.p.log.Debug("keyframe requested", "why", why)
 }

@@ -134,6 +134,7 @@ type metrics struct {
 	ticks                                                      [len(display.States) + 1]atomic.Uint64 // by display.State
 	lateFrames, decodeErrors, framesDropped, overruns          atomic.Uint64
 	framesMovedOn, framesResumed                               atomic.Uint64
+	framesSuperseded                                           atomic.Uint64
 	telemetryIn, recordErrors, sessions                        atomic.Uint64
 	telemetryRejected, rtpDropped                              labelled
 
@@ -200,6 +201,7 @@ func (m *metrics) writeText(w io.Writer, active int, pt passthru.Stats) {
 	for r := passthru.StopInvalid + 1; int(r) < len(pt.Stops); r++ {
 		fmt.Fprintf(w, "%spassthru_stops_total{reason=%q} %d\n", p, r.String(), pt.Stops[r])
 	}
+	counter("passthru_keyframes_missed", "Vehicle keyframes that could not start a run of passed-through frames because the relay was encoding a frame of its own (another keyframe is asked for at once).", pt.MissedKeyframes)
 	counter("losses", "Frame losses: assembler loss events and decode errors.", m.losses.Load())
 	counter("decode_errors", "Frames the VP8 decoder could not decode.", m.decodeErrors.Load())
 	counter("keyframe_requests", "Keyframe requests (RTCP PLI) sent to the vehicle.", m.keyframeRequests.Load())
@@ -213,6 +215,7 @@ func (m *metrics) writeText(w io.Writer, active int, pt passthru.Stats) {
 	counter("late_frames", "Frames decoded after their display deadline (held, not shown).", m.lateFrames.Load())
 	counter("frames_moved_on", "Frames shown LIVE on the first open tick because their own tick was already handled (sender capture jitter, or the first frame after an outage).", m.framesMovedOn.Load())
 	counter("frames_resumed", "Frames of frames_moved_on shown late after an outage: the picture on screen had passed the age cap.", m.framesResumed.Load())
+	counter("frames_superseded", "LIVE frames not sent because a newer vehicle keyframe had passed through to the console while they waited for the display loop (only their meta is sent).", m.framesSuperseded.Load())
 	counter("frames_dropped", "Decoded frames dropped because the display loop was behind.", m.framesDropped.Load())
 	counter("telemetry_in", "Telemetry samples accepted by the filter.", m.telemetryIn.Load())
 	counter("record_errors", "Recording writes that failed.", m.recordErrors.Load())

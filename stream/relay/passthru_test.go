@@ -5,6 +5,7 @@ import (
 	"math/rand/v2"
 	"sync"
 	"testing"
+	"time"
 
 	"stopgap/internal/display"
 	"stopgap/stream/passthru"
@@ -150,5 +151,102 @@ func TestPassThroughBadFrames(t *testing.T) {
 			}
 			t.Logf("unusable damaged frames %v of %v; LIVE ticks %d, passed through %d; gate %+v", unusable, bad, len(live), forwarded, st)
 		})
+	}
+}
+
+// TestSupersededFrameIsNotEncoded: after a gap the relay transcodes real
+// frames until the vehicle's next keyframe. On a busy machine that keyframe
+// can pass through while an older, not forwarded frame still waits for the
+// display loop. The older frame's tick stays LIVE, but it is not encoded:
+// it would reach the console after a newer picture and, as a frame of the
+// relay's own, end the run the keyframe opened, so the frames after it
+// would be transcoded too. Here frame 1 waits while keyframe 2 passes
+// through; frames 2 and 3 pass through, and only the gap's own frame ended
+// a run.
+func TestSupersededFrameIsNotEncoded(t *testing.T) {
+	r, p, done := pipelineOnFakeVehicle(t, Config{Camera: testCamera(), FPS: testFPS, LatencyMs: 50, FrameQueue: 4})
+	defer done()
+	enc, err := vp8.NewEncoder(vp8.EncoderConfig{Width: testW, Height: testH, FrameRateHz: testFPS, BitrateBps: 500_000})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer enc.Close()
+	pkz, err := rtpvp8.NewPacketizer(rtpvp8.PacketizerConfig{PayloadType: 96, SSRC: 0x1234})
+	if err != nil {
+		t.Fatal(err)
+	}
+	bgr := make([]byte, testW*testH*3)
+	var traces []FrameTrace
+	r.TraceFrames(func(tr FrameTrace) { traces = append(traces, tr) })
+	// push sends frame i (a keyframe if key) through the ingest and
+	// returns its event, ready in time for its tick.
+	push := func(i int, key bool) frameEvent {
+		t.Helper()
+		for j := range bgr {
+			bgr[j] = byte(j*7 + i*13)
+		}
+		if key {
+			enc.ForceKeyframe()
+		}
+		f, _, err := enc.EncodeBGR(nil, bgr, captureUs(i))
+		if err != nil {
+			t.Fatal(err)
+		}
+		pkts, err := pkz.Packetize(nil, f, rtpTS(i))
+		if err != nil {
+			t.Fatal(err)
+		}
+		p.in.mu.Lock()
+		defer p.in.mu.Unlock()
+		for j := range pkts {
+			if err := p.in.asm.Push(&pkts[j], time.UnixMicro(captureUs(i))); err != nil {
+				t.Fatal(err)
+			}
+		}
+		ev := <-p.frames
+		ev.readyUs = ev.captureUs + 51_000 // in time (latency 50 ms, allowance 20 ms)
+		return ev
+	}
+	p.onFrame(push(0, true))
+	if !r.gate.Forwarding() {
+		t.Fatal("the first keyframe did not open a run of forwarded frames")
+	}
+	// A gap: the display loop encodes a frame of its own.
+	if !r.gate.BeginOwn() {
+		t.Error("the gap's own frame after a forwarded one is not a keyframe")
+	}
+	r.gate.EndOwn()
+	ev1 := push(1, false) // transcoding until the next keyframe: not forwarded
+	ev2 := push(2, true)  // the vehicle's keyframe passes through meanwhile
+	if ev1.forwarded || !ev2.forwarded {
+		t.Fatalf("forwarded: frame 1 %v, keyframe 2 %v; want false, true", ev1.forwarded, ev2.forwarded)
+	}
+	encoded := r.met.encode.samples
+	p.onFrame(ev1)
+	p.onFrame(ev2)
+	p.onFrame(push(3, false))
+	if n := r.met.encode.samples - encoded; n != 0 {
+		t.Errorf("%d frames encoded after keyframe 2 passed through, want 0", n)
+	}
+	st := r.gate.Stats()
+	if st.Forwarded != 3 || st.Stops[passthru.StopOwnFrame] != 1 || !r.gate.Forwarding() {
+		t.Errorf("gate %+v, forwarding %v: want frames 0, 2, 3 forwarded and one run ended (the gap)", st, r.gate.Forwarding())
+	}
+	if got := r.met.framesSuperseded.Load(); got != 1 {
+		t.Errorf("frames_superseded %d, want 1", got)
+	}
+	want := []struct {
+		tick                  int
+		forwarded, superseded bool
+	}{{0, true, false}, {1, false, true}, {2, true, false}, {3, true, false}}
+	if len(traces) != len(want) {
+		t.Fatalf("%d traces, want %d: %+v", len(traces), len(want), traces)
+	}
+	for k, w := range want {
+		tr := traces[k]
+		if tr.State != display.StateLive || tr.TickUs != captureUs(w.tick) || tr.Forwarded != w.forwarded || tr.Superseded != w.superseded {
+			t.Errorf("trace %d: %v at %d us, forwarded %v, superseded %v; want LIVE at %d us, %v, %v",
+				k, tr.State, tr.TickUs, tr.Forwarded, tr.Superseded, captureUs(w.tick), w.forwarded, w.superseded)
+		}
 	}
 }

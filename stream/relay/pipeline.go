@@ -132,6 +132,13 @@ func (p *pipeline) newFiller() error {
 		return fmt.Errorf("relay: gap filler: %w", err)
 	}
 	f.Now = p.cfg.Now
+	// The gap filler's scratch is made now, not on the first gap's
+	// PREDICTED tick, which would otherwise pay for it (about 0.1 s of
+	// CPU at 1280x720, enough to make a busy relay late for the ticks
+	// after it). Nothing shown depends on it (predictor.Filler.Warm).
+	if err := f.Warm(); err != nil {
+		p.log.Warn("preparing the gap filler failed; the first gap will prepare it", "err", err)
+	}
 	p.filler = f
 	return nil
 }
@@ -361,6 +368,20 @@ func (p *pipeline) onFrame(ev frameEvent) {
 	var tick predictor.Tick
 	var err error
 	switch {
+	case !ev.forwarded && p.r.gate.Forwarding():
+		// Superseded: this frame was not passed through, but a newer
+		// vehicle keyframe was while it waited for the display loop (a
+		// busy machine), so the console shows a newer real picture
+		// already. Encoding this one would put an older picture after it
+		// and, as a frame of the relay's own, end the run the keyframe
+		// opened: every real frame until the next vehicle keyframe would
+		// be transcoded. The tick is LIVE as decided; only its meta goes
+		// out, and the Filler holds the frame for later gaps.
+		ev.superseded = true
+		p.r.met.framesSuperseded.Add(1)
+		if err = p.handOver(ev.pic); err == nil {
+			tick, err = p.filler.Live(ev.pic.bgr, ev.captureUs, nil)
+		}
 	case ev.forwarded && !ev.pic.hasBGR:
 		// Shown as the vehicle sent it: nothing to draw, and the BGR
 		// picture only if a gap comes.
@@ -468,14 +489,18 @@ func (p *pipeline) Missing(t cadence.Tick) {
 // t is the display clock's tick, whose cutoff is the one decided with and
 // recorded; captureUs is the frame's capture time (LIVE) or t's target.
 // A LIVE frame that passed through (ev.forwarded) was sent by the ingest
-// already: only its meta goes out here.
+// already, and a superseded one (ev.superseded, see onFrame) is not sent:
+// only their meta goes out here.
 func (p *pipeline) emit(t cadence.Tick, captureUs int64, tick predictor.Tick, ev *frameEvent) {
 	var encDur time.Duration
 	var writtenAt time.Time
 	trace := p.r.tracer.fn.Load()
-	if ev != nil && ev.forwarded {
+	switch {
+	case ev != nil && ev.forwarded:
 		writtenAt = ev.forwardedAt
-	} else {
+	case ev != nil && ev.superseded:
+		// No output frame (see onFrame).
+	default:
 		var ok bool
 		if encDur, ok = p.encodeOwn(t); !ok {
 			return
@@ -498,7 +523,7 @@ func (p *pipeline) emit(t cadence.Tick, captureUs int64, tick predictor.Tick, ev
 	if trace != nil {
 		tr := FrameTrace{Seq: p.meta.Seq, TickUs: captureUs, State: tick.State, Encode: encDur, WrittenAt: writtenAt}
 		if ev != nil {
-			tr.LastPacketAt, tr.Decode, tr.Forwarded = ev.lastPktAt, ev.decodeDur, ev.forwarded
+			tr.LastPacketAt, tr.Decode, tr.Forwarded, tr.Superseded = ev.lastPktAt, ev.decodeDur, ev.forwarded, ev.superseded
 		}
 		(*trace)(tr)
 	}

@@ -1,6 +1,13 @@
 package vp8
 
-import "fmt"
+// #cgo CFLAGS: -O3
+// #include "convert.h"
+import "C"
+
+import (
+	"fmt"
+	"unsafe"
+)
 
 // Image is an 8-bit planar YUV 4:2:0 picture (I420) in BT.601 limited range
 // ("studio swing": Y in 16..235, U and V in 16..240), the colour space of
@@ -98,17 +105,17 @@ func planeLen(stride, w, rows int) int { return stride*(rows-1) + w }
 // e.g. 65.481/255 = 0.256788 and 0.256788 * 65536 = 16829. The chroma
 // coefficient rows sum to exactly 0 so that grey maps to U = V = 128.
 const (
-	fixShift = 16
+	fixShift = C.SG_FIX_SHIFT
 	fixHalf  = 1 << (fixShift - 1)
 
-	yR, yG, yB = 16829, 33039, 6416
-	uR, uG, uB = -9714, -19070, 28784
-	vR, vG, vB = 28784, -24103, -4681
+	yR, yG, yB = C.SG_Y_R, C.SG_Y_G, C.SG_Y_B
+	uR, uG, uB = C.SG_U_R, C.SG_U_G, C.SG_U_B
+	vR, vG, vB = C.SG_V_R, C.SG_V_G, C.SG_V_B
 
 	// Inverse (same source, inverted): R = 1.164383 (Y-16) + 1.596027 (V-128),
 	// G = 1.164383 (Y-16) - 0.391762 (U-128) - 0.812968 (V-128),
 	// B = 1.164383 (Y-16) + 2.017232 (U-128).
-	cY, crV, cgU, cgV, cbU = 76309, 104597, 25675, 53279, 132201
+	cY, crV, cgU, cgV, cbU = C.SG_C_Y, C.SG_CR_V, C.SG_CG_U, C.SG_CG_V, C.SG_CB_U
 )
 
 // BGRToI420 converts a packed 8-bit BGR picture (OpenCV's default channel
@@ -134,80 +141,29 @@ func BGRToI420(dst *Image, bgr []byte, width, height int) error {
 }
 
 // bgrToI420 converts bgr (validated, exactly dst's size) into dst's planes,
-// which may have any valid strides (the encoder passes a view of C memory).
-// Full 2x2 blocks take a fast path; the odd last column and row reuse the
-// general block code. Both compute the same formulas.
+// which may have any valid strides (the encoder passes a view of C memory),
+// in C (convert.c).
 func bgrToI420(dst *Image, bgr []byte) {
-	w, h := dst.Width, dst.Height
-	rowBytes := w * 3
-	cw := (w + 1) / 2
-	for y := 0; y < h; y += 2 {
-		r0 := bgr[y*rowBytes : y*rowBytes+rowBytes]
-		y0 := dst.Y[y*dst.YStride : y*dst.YStride+w]
-		cy := y / 2
-		uRow := dst.U[cy*dst.UVStride : cy*dst.UVStride+cw]
-		vRow := dst.V[cy*dst.UVStride : cy*dst.UVStride+cw]
-		if y+1 >= h {
-			for cx := 0; cx < cw; cx++ {
-				bgrBlock(r0, r0, y0, y0, 1, uRow, vRow, cx, w)
-			}
-			continue
-		}
-		r1 := bgr[(y+1)*rowBytes : (y+1)*rowBytes+rowBytes]
-		y1 := dst.Y[(y+1)*dst.YStride : (y+1)*dst.YStride+w]
-		full := w / 2
-		for cx := 0; cx < full; cx++ {
-			x := cx * 2
-			i := x * 3
-			p := r0[i : i+6 : i+6]
-			q := r1[i : i+6 : i+6]
-			b0, g0, rr0 := int32(p[0]), int32(p[1]), int32(p[2])
-			b1, g1, rr1 := int32(p[3]), int32(p[4]), int32(p[5])
-			b2, g2, rr2 := int32(q[0]), int32(q[1]), int32(q[2])
-			b3, g3, rr3 := int32(q[3]), int32(q[4]), int32(q[5])
-			ya := y0[x : x+2 : x+2]
-			yb := y1[x : x+2 : x+2]
-			ya[0] = uint8((yR*rr0 + yG*g0 + yB*b0 + 16<<fixShift + fixHalf) >> fixShift)
-			ya[1] = uint8((yR*rr1 + yG*g1 + yB*b1 + 16<<fixShift + fixHalf) >> fixShift)
-			yb[0] = uint8((yR*rr2 + yG*g2 + yB*b2 + 16<<fixShift + fixHalf) >> fixShift)
-			yb[1] = uint8((yR*rr3 + yG*g3 + yB*b3 + 16<<fixShift + fixHalf) >> fixShift)
-			sb, sg, sr := b0+b1+b2+b3, g0+g1+g2+g3, rr0+rr1+rr2+rr3
-			uRow[cx] = uint8(divRound(uR*sr+uG*sg+uB*sb, 4<<fixShift) + 128)
-			vRow[cx] = uint8(divRound(vR*sr+vG*sg+vB*sb, 4<<fixShift) + 128)
-		}
-		if full < cw {
-			bgrBlock(r0, r1, y0, y1, 2, uRow, vRow, full, w)
-		}
-	}
+	C.sg_bgr_to_i420((*C.uint8_t)(unsafe.Pointer(&bgr[0])), C.int(dst.Width), C.int(dst.Height),
+		(*C.uint8_t)(unsafe.Pointer(&dst.Y[0])), C.int(dst.YStride),
+		(*C.uint8_t)(unsafe.Pointer(&dst.U[0])), (*C.uint8_t)(unsafe.Pointer(&dst.V[0])), C.int(dst.UVStride))
 }
 
-// bgrBlock converts the (up to) 2x2 block at chroma column cx from rows r0
-// and r1 (rows = 1 or 2) of a picture w pixels wide.
-func bgrBlock(r0, r1, y0, y1 []byte, rows int, uRow, vRow []byte, cx, w int) {
-	x := cx * 2
-	var sb, sg, sr, n int32
-	for dx := 0; dx < 2 && x+dx < w; dx++ {
-		i := (x + dx) * 3
-		b, g, r := int32(r0[i]), int32(r0[i+1]), int32(r0[i+2])
-		y0[x+dx] = uint8((yR*r + yG*g + yB*b + 16<<fixShift + fixHalf) >> fixShift)
-		sb, sg, sr, n = sb+b, sg+g, sr+r, n+1
-		if rows == 2 {
-			b, g, r = int32(r1[i]), int32(r1[i+1]), int32(r1[i+2])
-			y1[x+dx] = uint8((yR*r + yG*g + yB*b + 16<<fixShift + fixHalf) >> fixShift)
-			sb, sg, sr, n = sb+b, sg+g, sr+r, n+1
+// convertBuilds returns which builds of the C conversions this CPU can run
+// ("baseline", plus "avx2" when it has AVX2), and select makes the next
+// conversions use one of them (the tests run both).
+func convertBuilds() (builds []string, selectBuild func(name string)) {
+	builds = []string{"baseline"}
+	C.sg_convert_base_only = 0
+	if C.sg_convert_avx2() != 0 {
+		builds = append(builds, "avx2")
+	}
+	return builds, func(name string) {
+		C.sg_convert_base_only = 0
+		if name == "baseline" {
+			C.sg_convert_base_only = 1
 		}
 	}
-	den := n << fixShift
-	uRow[cx] = uint8(divRound(uR*sr+uG*sg+uB*sb, den) + 128)
-	vRow[cx] = uint8(divRound(vR*sr+vG*sg+vB*sb, den) + 128)
-}
-
-// divRound returns num/den rounded to nearest (den > 0).
-func divRound(num, den int32) int32 {
-	if num >= 0 {
-		return (num + den/2) / den
-	}
-	return -((-num + den/2) / den)
 }
 
 // I420ToBGR converts src into packed 8-bit BGR (3 bytes per pixel, rows
@@ -223,55 +179,10 @@ func I420ToBGR(dst []byte, src *Image) error {
 	if len(dst) < w*h*3 {
 		return fmt.Errorf("%w: BGR buffer has %d bytes, %dx%d needs %d", ErrImageSize, len(dst), w, h, w*h*3)
 	}
-	cw := src.ChromaWidth()
-	full := w / 2
-	for y := 0; y < h; y++ {
-		yRow := src.Y[y*src.YStride : y*src.YStride+w]
-		cy := y / 2
-		uRow := src.U[cy*src.UVStride : cy*src.UVStride+cw]
-		vRow := src.V[cy*src.UVStride : cy*src.UVStride+cw]
-		out := dst[y*w*3 : y*w*3+w*3]
-		for cx := 0; cx < full; cx++ {
-			d := int32(uRow[cx]) - 128
-			e := int32(vRow[cx]) - 128
-			rd := crV*e + fixHalf
-			gd := -cgU*d - cgV*e + fixHalf
-			bd := cbU*d + fixHalf
-			x := cx * 2
-			yy := yRow[x : x+2 : x+2]
-			o := out[x*3 : x*3+6 : x*3+6]
-			c := (int32(yy[0]) - 16) * cY
-			o[0] = clamp8((c + bd) >> fixShift)
-			o[1] = clamp8((c + gd) >> fixShift)
-			o[2] = clamp8((c + rd) >> fixShift)
-			c = (int32(yy[1]) - 16) * cY
-			o[3] = clamp8((c + bd) >> fixShift)
-			o[4] = clamp8((c + gd) >> fixShift)
-			o[5] = clamp8((c + rd) >> fixShift)
-		}
-		if full < cw { // odd width: last column
-			x := w - 1
-			d := int32(uRow[cw-1]) - 128
-			e := int32(vRow[cw-1]) - 128
-			c := (int32(yRow[x]) - 16) * cY
-			o := out[x*3 : x*3+3 : x*3+3]
-			o[0] = clamp8((c + cbU*d + fixHalf) >> fixShift)
-			o[1] = clamp8((c - cgU*d - cgV*e + fixHalf) >> fixShift)
-			o[2] = clamp8((c + crV*e + fixHalf) >> fixShift)
-		}
-	}
+	C.sg_i420_to_bgr((*C.uint8_t)(unsafe.Pointer(&src.Y[0])), C.int(src.YStride),
+		(*C.uint8_t)(unsafe.Pointer(&src.U[0])), (*C.uint8_t)(unsafe.Pointer(&src.V[0])), C.int(src.UVStride),
+		C.int(w), C.int(h), (*C.uint8_t)(unsafe.Pointer(&dst[0])))
 	return nil
-}
-
-// clamp8 clamps v to 0..255.
-func clamp8(v int32) uint8 {
-	if uint32(v) <= 255 {
-		return uint8(v)
-	}
-	if v < 0 {
-		return 0
-	}
-	return 255
 }
 
 // copyImage copies src's pixels into dst (sizes equal, both validated).

@@ -157,6 +157,17 @@ func refBGRToI420(m *Image, bgr []byte) {
 	}
 }
 
+// divRound returns num/den rounded to nearest, halves away from zero (den > 0).
+func divRound(num, den int32) int32 {
+	if num >= 0 {
+		return (num + den/2) / den
+	}
+	return -((-num + den/2) / den)
+}
+
+// clamp8 clamps v to 0..255.
+func clamp8(v int32) uint8 { return uint8(min(max(v, 0), 255)) }
+
 func refI420ToBGR(out []byte, m *Image) {
 	for y := 0; y < m.Height; y++ {
 		for x := 0; x < m.Width; x++ {
@@ -171,9 +182,23 @@ func refI420ToBGR(out []byte, m *Image) {
 	}
 }
 
+// TestConversionsMatchReference checks every build of the C conversions
+// (baseline, and AVX2 where the CPU has it) against the per-pixel
+// reference, bit for bit.
 func TestConversionsMatchReference(t *testing.T) {
+	builds, selectBuild := convertBuilds()
+	defer selectBuild("")
+	for _, build := range builds {
+		t.Run(build, func(t *testing.T) {
+			selectBuild(build)
+			testConversionsMatchReference(t)
+		})
+	}
+}
+
+func testConversionsMatchReference(t *testing.T) {
 	rng := rand.New(rand.NewPCG(3, 4))
-	for _, sz := range [][2]int{{1, 1}, {2, 2}, {3, 1}, {1, 3}, {5, 3}, {16, 9}, {17, 11}} {
+	for _, sz := range [][2]int{{1, 1}, {2, 2}, {3, 1}, {1, 3}, {5, 3}, {16, 9}, {17, 11}, {1280, 720}, {641, 361}} {
 		w, h := sz[0], sz[1]
 		t.Run(fmt.Sprintf("%dx%d", w, h), func(t *testing.T) {
 			bgr := make([]byte, w*h*3)
@@ -205,6 +230,59 @@ func TestConversionsMatchReference(t *testing.T) {
 			if !bytes.Equal(a, b) {
 				t.Fatal("I420ToBGR differs from the reference")
 			}
+			// Planes with padding between rows (a decoder's or the
+			// encoder's buffers): the same pixels both ways.
+			pad := padded(&got, 7, 5)
+			if err := I420ToBGR(a, pad); err != nil {
+				t.Fatal(err)
+			}
+			if !bytes.Equal(a, b) {
+				t.Fatal("I420ToBGR of padded planes differs from the reference")
+			}
+			bgrToI420(pad, bgr)
+			refBGRToI420(want, bgr)
+			if !samePixels(pad, want) {
+				t.Fatal("BGR to padded planes differs from the reference")
+			}
 		})
 	}
+}
+
+// padded returns a copy of m whose rows are ypad (Y) and uvpad (U, V) bytes
+// longer than the picture, the padding filled with 0xAA.
+func padded(m *Image, ypad, uvpad int) *Image {
+	cw, ch := m.ChromaWidth(), m.ChromaHeight()
+	p := &Image{Width: m.Width, Height: m.Height, YStride: m.Width + ypad, UVStride: cw + uvpad}
+	p.Y = bytes.Repeat([]byte{0xAA}, p.YStride*m.Height)
+	p.U = bytes.Repeat([]byte{0xAA}, p.UVStride*ch)
+	p.V = bytes.Repeat([]byte{0xAA}, p.UVStride*ch)
+	for y := range m.Height {
+		copy(p.Y[y*p.YStride:], m.Y[y*m.YStride:y*m.YStride+m.Width])
+	}
+	for y := range ch {
+		copy(p.U[y*p.UVStride:], m.U[y*m.UVStride:y*m.UVStride+cw])
+		copy(p.V[y*p.UVStride:], m.V[y*m.UVStride:y*m.UVStride+cw])
+	}
+	return p
+}
+
+// samePixels reports whether a and b hold the same picture, whatever their
+// strides, and a's row padding is untouched (0xAA).
+func samePixels(a, b *Image) bool {
+	cw, ch := a.ChromaWidth(), a.ChromaHeight()
+	for y := range a.Height {
+		r := a.Y[y*a.YStride : (y+1)*a.YStride]
+		if !bytes.Equal(r[:a.Width], b.Y[y*b.YStride:y*b.YStride+b.Width]) || bytes.Count(r[a.Width:], []byte{0xAA}) != a.YStride-a.Width {
+			return false
+		}
+	}
+	for y := range ch {
+		for _, pl := range [][2][]byte{{a.U, b.U}, {a.V, b.V}} {
+			r := pl[0][y*a.UVStride : (y+1)*a.UVStride]
+			if !bytes.Equal(r[:cw], pl[1][y*b.UVStride:y*b.UVStride+cw]) || bytes.Count(r[cw:], []byte{0xAA}) != a.UVStride-cw {
+				return false
+			}
+		}
+	}
+	return true
 }
