@@ -211,6 +211,21 @@ type UprightEstimator struct {
 	sums      [][]float64 // per hypothesis: band-major row sums of |diff|
 	pre       [][]float64 // per hypothesis: prefix sums down the current band
 	planes    []Plane
+	// hyps[i] is how planes[i] was made: its vehicle-frame normal and
+	// offset, and its neighbours in offset within the same family (same
+	// normal), -1 at the ends; for the refinement of the best plane.
+	hyps []planeHyp
+	// Scratch of Estimate, per plane for the current band.
+	cost []float64
+	segs []UprightSegment
+}
+
+// planeHyp is a vertical plane hypothesis {P : A·P = B} of vehicle
+// coordinates and its neighbours in B within its family.
+type planeHyp struct {
+	A            vec3
+	B            float64
+	lower, upper int
 }
 
 // NewUprightEstimator validates opts and returns an estimator.
@@ -312,11 +327,28 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 	if fronts == nil {
 		fronts = DefaultUprightFrontsM()
 	}
+	e.hyps = e.hyps[:0]
 	for _, y := range walls {
-		e.planes = append(e.planes, verticalPlane(cam, vec3{0, 1, 0}, y), verticalPlane(cam, vec3{0, -1, 0}, y))
+		e.hyps = append(e.hyps, planeHyp{A: vec3{0, 1, 0}, B: y}, planeHyp{A: vec3{0, -1, 0}, B: y})
 	}
 	for _, x := range fronts {
-		e.planes = append(e.planes, verticalPlane(cam, vec3{1, 0, 0}, x))
+		e.hyps = append(e.hyps, planeHyp{A: vec3{1, 0, 0}, B: x})
+	}
+	for i := range e.hyps {
+		hi := &e.hyps[i]
+		hi.lower, hi.upper = -1, -1
+		for j, hj := range e.hyps {
+			if hj.A != hi.A {
+				continue
+			}
+			if hj.B < hi.B && (hi.lower < 0 || hj.B > e.hyps[hi.lower].B) {
+				hi.lower = j
+			}
+			if hj.B > hi.B && (hi.upper < 0 || hj.B < e.hyps[hi.upper].B) {
+				hi.upper = j
+			}
+		}
+		e.planes = append(e.planes, verticalPlane(cam, hi.A, hi.B))
 	}
 	dx, dy, dyaw := invertPlanar(m.DxM, m.DyM, m.DyawRad)
 	nb := (cam.Width + bandPx - 1) / bandPx
@@ -451,9 +483,11 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 		hzLow := lowRow(hzRow)
 		none := far[hzLow] + road[h] - road[hzLow]
 		best, bestCost := -1, none*(1-gain)
-		var bestSeg UprightSegment
+		e.cost, e.segs = e.cost[:0], e.segs[:0]
 		for i, p := range e.planes {
+			e.cost = append(e.cost, math.Inf(1))
 			seg, ok := segment(cam, p, c0, c1, hzRow)
+			e.segs = append(e.segs, seg)
 			if !ok {
 				continue
 			}
@@ -470,19 +504,58 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 			if base-top < 2 {
 				continue
 			}
-			if c := tc + pk[base] + road[h] - road[base]; c < bestCost {
-				seg.TopRow = -0.5
-				if top > 0 {
-					seg.TopRow = float64(top)/sy - 0.5
-				}
-				best, bestCost, bestSeg = i, c, seg
+			e.segs[i].TopRow = -0.5
+			if top > 0 {
+				e.segs[i].TopRow = float64(top)/sy - 0.5
+			}
+			c := tc + pk[base] + road[h] - road[base]
+			e.cost[i] = c
+			if c < bestCost {
+				best, bestCost = i, c
 			}
 		}
 		if best >= 0 {
-			model.Segments = append(model.Segments, bestSeg)
+			model.Segments = append(model.Segments, e.refine(cam, best, c0, c1, hzRow))
 		}
 	}
 	return nil
+}
+
+// refine returns the segment of plane hypothesis best over columns
+// [c0, c1), its offset refined between its neighbours of the same family
+// by the vertex of the parabola through their three matching costs (e.cost)
+// against the inverse offset, to which the image motion of the plane's
+// points is proportional: a sub-step estimate between the discrete
+// hypotheses. The top row stays the best hypothesis's. Without both
+// neighbours standing in the band, or if the refined plane does not stand
+// across it, the hypothesis itself.
+func (e *UprightEstimator) refine(cam Camera, best, c0, c1 int, hzRow float64) UprightSegment {
+	seg := e.segs[best]
+	hp := e.hyps[best]
+	lo, hi := hp.lower, hp.upper
+	if lo < 0 || hi < 0 || math.IsInf(e.cost[lo], 1) || math.IsInf(e.cost[hi], 1) {
+		return seg
+	}
+	x0, x1, x2 := 1/e.hyps[lo].B, 1/hp.B, 1/e.hyps[hi].B
+	f0, f1, f2 := e.cost[lo], e.cost[best], e.cost[hi]
+	// Vertex of the parabola through (x0, f0), (x1, f1), (x2, f2), with
+	// f1 the least of the three (Press et al., "Numerical Recipes", 3rd
+	// ed., eq. 10.3.1, from memory).
+	num := (x1-x0)*(x1-x0)*(f1-f2) - (x1-x2)*(x1-x2)*(f1-f0)
+	den := (x1-x0)*(f1-f2) - (x1-x2)*(f1-f0)
+	if !(den != 0) {
+		return seg
+	}
+	x := x1 - 0.5*num/den
+	if !(x > math.Min(x0, x2) && x < math.Max(x0, x2)) {
+		return seg
+	}
+	r, ok := segment(cam, verticalPlane(cam, hp.A, 1/x), c0, c1, hzRow)
+	if !ok {
+		return seg
+	}
+	r.TopRow = seg.TopRow
+	return r
 }
 
 // segment builds the segment of plane p over columns [c0, c1); ok is false

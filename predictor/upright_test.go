@@ -124,7 +124,7 @@ func TestUprightEstimateFindsWall(t *testing.T) {
 			if err := e.Estimate(prev, last, c, m, math.Inf(1), &model); err != nil {
 				t.Fatal(err)
 			}
-			possible, right := 0, 0
+			possible, right, worst := 0, 0, 0.0
 			hzRow, _ := c.Horizon().RowAt(0)
 			for c0 := 0; c0+16 <= c.Width; c0 += 16 {
 				seg, ok := segment(c, wall, c0, c0+16, hzRow)
@@ -133,12 +133,16 @@ func TestUprightEstimateFindsWall(t *testing.T) {
 				}
 				possible++
 				for _, s := range model.Segments {
-					if s.Col0 == c0 && s.Plane == wall {
+					// The offset is refined between the hypotheses
+					// (UprightEstimator.refine): within 3 % of the
+					// planted one, which is itself a hypothesis.
+					if s.Col0 == c0 && s.Plane.Normal == wall.Normal && math.Abs(s.Plane.DistM/wall.DistM-1) < 0.03 {
 						right++
+						worst = math.Max(worst, math.Abs(s.Plane.DistM/wall.DistM-1))
 					}
 				}
 			}
-			t.Logf("%d segments; the planted wall in %d of %d bands where it stands in view", len(model.Segments), right, possible)
+			t.Logf("%d segments; the planted wall in %d of %d bands where it stands in view, offset within %.2f %%", len(model.Segments), right, possible, 100*worst)
 			if possible < 4 || float64(right) < 0.75*float64(possible) {
 				t.Errorf("the planted wall was found in %d of %d bands, want at least 75%%", right, possible)
 			}
