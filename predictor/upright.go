@@ -218,6 +218,7 @@ type UprightEstimator struct {
 	// Scratch of Estimate, per plane for the current band.
 	cost []float64
 	segs []UprightSegment
+	back [3]float64 // the motion from the newer frame back to the older (invertPlanar)
 }
 
 // planeHyp is a vertical plane hypothesis {P : A·P = B} of vehicle
@@ -351,6 +352,7 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 		e.planes = append(e.planes, verticalPlane(cam, hi.A, hi.B))
 	}
 	dx, dy, dyaw := invertPlanar(m.DxM, m.DyM, m.DyawRad)
+	e.back = [3]float64{dx, dy, dyaw}
 	nb := (cam.Width + bandPx - 1) / bandPx
 	nh := 2 + len(e.planes)
 	for len(e.sums) < nh {
@@ -515,47 +517,202 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 			}
 		}
 		if best >= 0 {
-			model.Segments = append(model.Segments, e.refine(cam, best, c0, c1, hzRow))
+			model.Segments = append(model.Segments, e.refine(cam, best, b, hzRow))
 		}
 	}
 	return nil
 }
 
-// refine returns the segment of plane hypothesis best over columns
-// [c0, c1), its offset refined between its neighbours of the same family
-// by the vertex of the parabola through their three matching costs (e.cost)
-// against the inverse offset, to which the image motion of the plane's
-// points is proportional: a sub-step estimate between the discrete
-// hypotheses. The top row stays the best hypothesis's. Without both
-// neighbours standing in the band, or if the refined plane does not stand
-// across it, the hypothesis itself.
-func (e *UprightEstimator) refine(cam Camera, best, c0, c1 int, hzRow float64) UprightSegment {
+// Steps of the refinement around the best hypothesis (design choices of
+// this project): the relative change of the foot point's distance, and
+// the turn of the plane about the vertical through it.
+const (
+	refineDepthStep = 0.03
+	refineYawStep   = 10 * math.Pi / 180
+)
+
+// refine returns the segment of plane hypothesis best over band b (columns
+// [c0, c1)): the plane through the foot point at the band's centre column,
+// refined in distance and in yaw by local search on the band's matching
+// cost (bandPlaneCost). First the offset, between the best hypothesis's
+// neighbours of the same family, by the vertex of the parabola through
+// their three costs (e.cost) against the inverse offset, to which the
+// image motion of the plane's points is proportional; then the foot
+// point's distance along its ray by ±refineDepthStep, and the plane's
+// yaw about the vertical through the foot point by ±refineYawStep and
+// twice that (facades are not all parallel or square to the direction of
+// travel: the road turns), each by the vertex of a parabola through the
+// costs around the least. A refined plane replaces the hypothesis only if
+// its cost is lower. The top row stays the best hypothesis's.
+func (e *UprightEstimator) refine(cam Camera, best, b int, hzRow float64) UprightSegment {
 	seg := e.segs[best]
 	hp := e.hyps[best]
-	lo, hi := hp.lower, hp.upper
-	if lo < 0 || hi < 0 || math.IsInf(e.cost[lo], 1) || math.IsInf(e.cost[hi], 1) {
-		return seg
+	c0, c1 := seg.Col0, seg.Col1
+	cur, curCost := seg, e.bandPlaneCost(cam, b, seg)
+	try := func(a vec3, off float64) (UprightSegment, float64, bool) {
+		if !(off > 0) {
+			return UprightSegment{}, 0, false
+		}
+		r, ok := segment(cam, verticalPlane(cam, a, off), c0, c1, hzRow)
+		if !ok {
+			return r, 0, false
+		}
+		r.TopRow = seg.TopRow
+		return r, e.bandPlaneCost(cam, b, r), true
 	}
-	x0, x1, x2 := 1/e.hyps[lo].B, 1/hp.B, 1/e.hyps[hi].B
-	f0, f1, f2 := e.cost[lo], e.cost[best], e.cost[hi]
-	// Vertex of the parabola through (x0, f0), (x1, f1), (x2, f2), with
-	// f1 the least of the three (Press et al., "Numerical Recipes", 3rd
-	// ed., eq. 10.3.1, from memory).
+	keep := func(r UprightSegment, c float64, ok bool) {
+		if ok && c < curCost {
+			cur, curCost = r, c
+		}
+	}
+	// 1. Offset between the neighbouring hypotheses.
+	if lo, hi := hp.lower, hp.upper; lo >= 0 && hi >= 0 && !math.IsInf(e.cost[lo], 1) && !math.IsInf(e.cost[hi], 1) {
+		if x, ok := parabolaVertex(1/e.hyps[lo].B, 1/hp.B, 1/e.hyps[hi].B, e.cost[lo], e.cost[best], e.cost[hi]); ok {
+			keep(try(hp.A, 1/x))
+		}
+	}
+	// The foot point at the band's centre column, vehicle coordinates.
+	foot, ok := e.footPoint(cam, cur)
+	if !ok {
+		return cur
+	}
+	a := vec3{cur.Plane.Normal[0], cur.Plane.Normal[1], cur.Plane.Normal[2]}
+	a = mul3v(transpose3(cam.RotationVehicleToCamera()), a) // back to vehicle axes
+	a[2] = 0
+	if n := math.Hypot(a[0], a[1]); n > 0 {
+		a[0], a[1] = a[0]/n, a[1]/n
+	} else {
+		return cur
+	}
+	ctr := cam.CentreVehicle()
+	// 2. The foot point's distance along its ray from the camera.
+	at := func(k float64) vec3 {
+		return vec3{ctr[0] + k*(foot[0]-ctr[0]), ctr[1] + k*(foot[1]-ctr[1]), 0}
+	}
+	var fs [3]float64
+	var rs [3]UprightSegment
+	var oks [3]bool
+	for i, k := range [3]float64{1 - refineDepthStep, 1, 1 + refineDepthStep} {
+		rs[i], fs[i], oks[i] = try(a, dot3(a, at(k)))
+	}
+	if oks[0] && oks[1] && oks[2] {
+		keep(rs[0], fs[0], true)
+		keep(rs[2], fs[2], true)
+		if x, ok := parabolaVertex(1/(1-refineDepthStep), 1, 1/(1+refineDepthStep), fs[0], fs[1], fs[2]); ok {
+			keep(try(a, dot3(a, at(1/x))))
+		}
+	}
+	if f2, ok := e.footPoint(cam, cur); ok {
+		foot = f2
+	}
+	// 3. The yaw about the vertical through the foot point.
+	rot := func(phi float64) vec3 {
+		sn, cs := math.Sincos(phi)
+		return vec3{cs*a[0] - sn*a[1], sn*a[0] + cs*a[1], 0}
+	}
+	var ys [5]float64
+	var yok [5]bool
+	ib := -1
+	for i := range ys {
+		phi := float64(i-2) * refineYawStep
+		r := rot(phi)
+		var sg UprightSegment
+		sg, ys[i], yok[i] = try(r, dot3(r, foot))
+		keep(sg, ys[i], yok[i])
+		if yok[i] && (ib < 0 || ys[i] < ys[ib]) {
+			ib = i
+		}
+	}
+	if ib > 0 && ib < 4 && yok[ib-1] && yok[ib+1] {
+		if x, ok := parabolaVertex(-1, 0, 1, ys[ib-1], ys[ib], ys[ib+1]); ok {
+			r := rot((float64(ib-2) + x) * refineYawStep)
+			keep(try(r, dot3(r, foot)))
+		}
+	}
+	return cur
+}
+
+// parabolaVertex returns the abscissa of the vertex of the parabola through
+// (x0, f0), (x1, f1), (x2, f2) when f1 is the least of the three and the
+// vertex lies strictly between x0 and x2 (Press et al., "Numerical
+// Recipes", 3rd ed., eq. 10.3.1, from memory).
+func parabolaVertex(x0, x1, x2, f0, f1, f2 float64) (float64, bool) {
+	if f1 > f0 || f1 > f2 {
+		return 0, false
+	}
 	num := (x1-x0)*(x1-x0)*(f1-f2) - (x1-x2)*(x1-x2)*(f1-f0)
 	den := (x1-x0)*(f1-f2) - (x1-x2)*(f1-f0)
 	if !(den != 0) {
-		return seg
+		return 0, false
 	}
 	x := x1 - 0.5*num/den
-	if !(x > math.Min(x0, x2) && x < math.Max(x0, x2)) {
-		return seg
+	return x, x > math.Min(x0, x2) && x < math.Max(x0, x2)
+}
+
+// footPoint returns where seg's base line meets the road at the band's
+// centre column, in vehicle coordinates.
+func (e *UprightEstimator) footPoint(cam Camera, seg UprightSegment) (vec3, bool) {
+	uc, vc := float64(seg.Col0+seg.Col1-1)/2, (seg.BaseRow0+seg.BaseRow1)/2
+	d := mul3v(transpose3(cam.RotationVehicleToCamera()), mul3v(cam.KInv(), vec3{uc, vc, 1}))
+	ctr := cam.CentreVehicle()
+	if !(d[2] < 0) {
+		return vec3{}, false
 	}
-	r, ok := segment(cam, verticalPlane(cam, hp.A, 1/x), c0, c1, hzRow)
-	if !ok {
-		return seg
+	t := -ctr[2] / d[2]
+	return vec3{ctr[0] + t*d[0], ctr[1] + t*d[1], 0}, true
+}
+
+// bandPlaneCost returns band b's matching cost with seg as its upright
+// surface, as Estimate sums it: the far map above the top row, seg's plane
+// from there to its base, the road below (the far and road sums from the
+// band's prefix sums, the plane's by bandCost).
+func (e *UprightEstimator) bandPlaneCost(cam Camera, b int, seg UprightSegment) float64 {
+	h := e.a.Rows()
+	lowRow := func(v float64) int { return int(math.Round(math.Min(math.Max(v*e.sy, 0), float64(h)))) }
+	top := 0
+	if seg.TopRow > -0.5 {
+		top = lowRow(seg.TopRow + 0.5)
 	}
-	r.TopRow = seg.TopRow
-	return r
+	base := lowRow((seg.BaseRow0 + seg.BaseRow1) / 2)
+	if base <= top {
+		return math.Inf(1)
+	}
+	hs := scaleHomography(PlaneHomography(cam, e.back[0], e.back[1], e.back[2], seg.Plane), e.sx, e.sy)
+	road, far := e.pre[0], e.pre[1]
+	return far[top] + e.bandCost(hs, e.bandLo[b], e.bandLo[b+1], top, base) + road[h] - road[base]
+}
+
+// bandCost returns the sum over the low-resolution pixels of columns
+// [x0, x1) and rows [y0, y1) of |older frame at hs(x, y) - newer frame|,
+// bilinear with the border replicated: the sums Estimate takes from its
+// warps, for one band and one plane.
+func (e *UprightEstimator) bandCost(hs Homography, x0, x1, y0, y1 int) float64 {
+	w, h := e.a.Cols(), e.a.Rows()
+	pa, err1 := e.a.DataPtrUint8()
+	pb, err2 := e.b.DataPtrUint8()
+	if err1 != nil || err2 != nil {
+		return math.Inf(1)
+	}
+	t := 0.0
+	for y := y0; y < y1; y++ {
+		for x := x0; x < x1; x++ {
+			fx, fy := float64(x), float64(y)
+			d := hs[2][0]*fx + hs[2][1]*fy + hs[2][2]
+			if !(d > 0) {
+				return math.Inf(1)
+			}
+			sx := (hs[0][0]*fx + hs[0][1]*fy + hs[0][2]) / d
+			sy := (hs[1][0]*fx + hs[1][1]*fy + hs[1][2]) / d
+			sx = math.Min(math.Max(sx, 0), float64(w-1))
+			sy = math.Min(math.Max(sy, 0), float64(h-1))
+			ix, iy := min(int(sx), w-2), min(int(sy), h-2)
+			ax, ay := sx-float64(ix), sy-float64(iy)
+			i := iy*w + ix
+			v := (1-ay)*((1-ax)*float64(pa[i])+ax*float64(pa[i+1])) + ay*((1-ax)*float64(pa[i+w])+ax*float64(pa[i+w+1]))
+			t += math.Abs(v - float64(pb[y*w+x]))
+		}
+	}
+	return t
 }
 
 // segment builds the segment of plane p over columns [c0, c1); ok is false
