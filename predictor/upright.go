@@ -520,7 +520,91 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 			model.Segments = append(model.Segments, e.refine(cam, best, b, hzRow))
 		}
 	}
+	joinSegments(cam, model.Segments)
 	return nil
+}
+
+// uprightJoinRatio is the largest relative difference of the distances of
+// two neighbouring segments' foot points at their shared column for which
+// they are taken for one surface and joined (a design choice of this
+// project: a few times the refinement's step).
+const uprightJoinRatio = 0.12
+
+// joinSegments makes neighbouring segments (sharing a band edge) whose
+// bases meet the road at nearly the same place there share that foot
+// point, each plane turned to pass through it: both planes then contain
+// the vertical line above it, which every motion maps alike, so the
+// surface stays whole in a predicted frame instead of opening a gap
+// between the two bands that the synthesis would mark as disoccluded.
+// segs are in band order; a segment whose plane would no longer stand on
+// the road keeps its own.
+func joinSegments(cam Camera, segs []UprightSegment) {
+	for i := 0; i+1 < len(segs); i++ {
+		l, r := &segs[i], &segs[i+1]
+		if l.Col1 != r.Col0 {
+			continue
+		}
+		u := float64(l.Col1) - 0.5
+		gl, ok1 := footAt(cam, u, l.BaseRow1)
+		gr, ok2 := footAt(cam, u, r.BaseRow0)
+		if !ok1 || !ok2 {
+			continue
+		}
+		ctr := cam.CentreVehicle()
+		dl, dr := math.Hypot(gl[0]-ctr[0], gl[1]-ctr[1]), math.Hypot(gr[0]-ctr[0], gr[1]-ctr[1])
+		if math.Abs(dl-dr) > uprightJoinRatio*math.Min(dl, dr) {
+			continue
+		}
+		row := (l.BaseRow1 + r.BaseRow0) / 2
+		if nl, ok := rebase(cam, *l, l.BaseRow0, row); ok {
+			*l = nl
+		}
+		if nr, ok := rebase(cam, *r, row, r.BaseRow1); ok {
+			*r = nr
+		}
+	}
+}
+
+// rebase returns seg with the vertical plane whose base passes through
+// rows row0 and row1 at its band's edges.
+func rebase(cam Camera, seg UprightSegment, row0, row1 float64) (UprightSegment, bool) {
+	g0, ok0 := footAt(cam, float64(seg.Col0)-0.5, row0)
+	g1, ok1 := footAt(cam, float64(seg.Col1)-0.5, row1)
+	if !ok0 || !ok1 {
+		return seg, false
+	}
+	dx, dy := g1[0]-g0[0], g1[1]-g0[1]
+	n := math.Hypot(dx, dy)
+	if !(n > 0) {
+		return seg, false
+	}
+	a := vec3{-dy / n, dx / n, 0}
+	b := dot3(a, g0)
+	if b < 0 {
+		a, b = vec3{-a[0], -a[1], 0}, -b
+	}
+	hz, ok := cam.Horizon().RowAt(float64(seg.Col0+seg.Col1-1) / 2)
+	if !ok || !(b > 0) {
+		return seg, false
+	}
+	r, ok := segment(cam, verticalPlane(cam, a, b), seg.Col0, seg.Col1, hz)
+	if !ok {
+		return seg, false
+	}
+	r.TopRow = seg.TopRow
+	return r, true
+}
+
+// footAt returns where the ray of pixel (u, v) meets the road, in vehicle
+// coordinates; ok is false at or above the horizon.
+func footAt(cam Camera, u, v float64) (vec3, bool) {
+	d := mul3v(transpose3(cam.RotationVehicleToCamera()), mul3v(cam.KInv(), vec3{u, v, 1}))
+	ctr := cam.CentreVehicle()
+	if !(d[2] < 0) {
+		return vec3{}, false
+	}
+	t := -ctr[2] / d[2]
+	return vec3{ctr[0] + t*d[0], ctr[1] + t*d[1], 0}, true
 }
 
 // Steps of the refinement around the best hypothesis (design choices of
@@ -652,14 +736,7 @@ func parabolaVertex(x0, x1, x2, f0, f1, f2 float64) (float64, bool) {
 // footPoint returns where seg's base line meets the road at the band's
 // centre column, in vehicle coordinates.
 func (e *UprightEstimator) footPoint(cam Camera, seg UprightSegment) (vec3, bool) {
-	uc, vc := float64(seg.Col0+seg.Col1-1)/2, (seg.BaseRow0+seg.BaseRow1)/2
-	d := mul3v(transpose3(cam.RotationVehicleToCamera()), mul3v(cam.KInv(), vec3{uc, vc, 1}))
-	ctr := cam.CentreVehicle()
-	if !(d[2] < 0) {
-		return vec3{}, false
-	}
-	t := -ctr[2] / d[2]
-	return vec3{ctr[0] + t*d[0], ctr[1] + t*d[1], 0}, true
+	return footAt(cam, float64(seg.Col0+seg.Col1-1)/2, (seg.BaseRow0+seg.BaseRow1)/2)
 }
 
 // bandPlaneCost returns band b's matching cost with seg as its upright

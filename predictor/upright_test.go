@@ -133,16 +133,19 @@ func TestUprightEstimateFindsWall(t *testing.T) {
 				}
 				possible++
 				for _, s := range model.Segments {
-					// The offset is refined between the hypotheses
-					// (UprightEstimator.refine): within 3 % of the
-					// planted one, which is itself a hypothesis.
-					if s.Col0 == c0 && s.Plane.Normal == wall.Normal && math.Abs(s.Plane.DistM/wall.DistM-1) < 0.03 {
+					// The plane is refined between the hypotheses and
+					// joined with its neighbours (UprightEstimator.refine,
+					// joinSegments): the depth of its foot at the band's
+					// centre within 3 % of the planted wall's (which is
+					// itself a hypothesis), its normal within 5 degrees.
+					ang := math.Acos(math.Min(1, dot3(s.Plane.Normal, wall.Normal))) * 180 / math.Pi
+					if dd := math.Abs(s.DepthM/seg.DepthM - 1); s.Col0 == c0 && ang < 5 && dd < 0.03 {
 						right++
-						worst = math.Max(worst, math.Abs(s.Plane.DistM/wall.DistM-1))
+						worst = math.Max(worst, dd)
 					}
 				}
 			}
-			t.Logf("%d segments; the planted wall in %d of %d bands where it stands in view, offset within %.2f %%", len(model.Segments), right, possible, 100*worst)
+			t.Logf("%d segments; the planted wall in %d of %d bands where it stands in view, foot depth within %.2f %%", len(model.Segments), right, possible, 100*worst)
 			if possible < 4 || float64(right) < 0.75*float64(possible) {
 				t.Errorf("the planted wall was found in %d of %d bands, want at least 75%%", right, possible)
 			}
