@@ -486,6 +486,7 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 		none := far[hzLow] + road[h] - road[hzLow]
 		best, bestCost := -1, none*(1-gain)
 		e.cost, e.segs = e.cost[:0], e.segs[:0]
+		textured := e.firstTexturedRow(bandLo[b], bandLo[b+1])
 		for i, p := range e.planes {
 			e.cost = append(e.cost, math.Inf(1))
 			seg, ok := segment(cam, p, c0, c1, hzRow)
@@ -498,7 +499,7 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 			pk := e.pre[2+i]
 			base := lowRow((seg.BaseRow0 + seg.BaseRow1) / 2)
 			top, tc := 0, math.Inf(1)
-			for y := 0; y <= base; y++ {
+			for y := min(textured, base); y <= base; y++ {
 				if c := far[y] - pk[y]; c < tc {
 					top, tc = y, c
 				}
@@ -605,6 +606,47 @@ func footAt(cam Camera, u, v float64) (vec3, bool) {
 	}
 	t := -ctr[2] / d[2]
 	return vec3{ctr[0] + t*d[0], ctr[1] + t*d[1], 0}, true
+}
+
+// uprightTextureGrey is the mean absolute grey-level step between
+// neighbouring low-resolution pixels (across and down) above which a row
+// of a band shows structure, not sky (a design choice of this project:
+// a clear or overcast sky changes by less than a level per pixel at a
+// quarter of 720p, a facade's grain and edges by several).
+const uprightTextureGrey = 3.0
+
+// firstTexturedRow returns the first row of columns [x0, x1) of the newer
+// low-resolution frame whose mean absolute step to its right and lower
+// neighbours exceeds uprightTextureGrey (the frame's height if none). An
+// upright segment starts no higher: above it the band is sky, which the
+// far map moves as well, and a plane reaching into it would make the
+// synthesis mark the sky it uncovers as disoccluded.
+func (e *UprightEstimator) firstTexturedRow(x0, x1 int) int {
+	w, h := e.b.Cols(), e.b.Rows()
+	pb, err := e.b.DataPtrUint8()
+	if err != nil || x1-x0 < 2 {
+		return 0
+	}
+	x1 = min(x1, w-1)
+	for y := 0; y+1 < h; y++ {
+		t := 0
+		for x := x0; x < x1; x++ {
+			i := y*w + x
+			t += absInt(int(pb[i+1])-int(pb[i])) + absInt(int(pb[i+w])-int(pb[i]))
+		}
+		if float64(t) > uprightTextureGrey*float64(x1-x0) {
+			return y
+		}
+	}
+	return h
+}
+
+// absInt returns |v|.
+func absInt(v int) int {
+	if v < 0 {
+		return -v
+	}
+	return v
 }
 
 // Steps of the refinement around the best hypothesis (design choices of
