@@ -184,9 +184,13 @@ type UprightModel struct {
 // scene above; or road below the horizon and the far scene above it), as a
 // plane sweep restricted to vertical planes, and keeps the hypothesis and
 // top row with the least sum of absolute differences if it beats the
-// road-and-far model by MinGain. The cost per gap is about one
-// low-resolution warp per hypothesis (42 by default), each restricted to the
-// bands and rows where its plane can stand.
+// road-and-far model by MinGain; the kept plane is then refined in
+// distance and yaw on the band's own cost (refine), neighbouring segments
+// that nearly meet are joined (joinSegments), and no segment reaches above
+// its band's first textured row (firstTexturedRow). The cost per gap is
+// about one low-resolution warp per hypothesis (50 by default), each
+// restricted to the bands and rows where its plane can stand, and about
+// ten band-sized evaluations per segment for the refinement.
 //
 // An estimator owns scratch images (Close frees them) and is not safe for
 // concurrent use.
