@@ -223,6 +223,11 @@ type UprightEstimator struct {
 	cost []float64
 	segs []UprightSegment
 	back [3]float64 // the motion from the newer frame back to the older (invertPlanar)
+	// coarse holds the last Estimate's segments as the discrete
+	// hypotheses chose them, before refine and joinSegments: the movers
+	// compensate with these (Filler.moverModel), as their thresholds were
+	// set on them.
+	coarse []UprightSegment
 }
 
 // planeHyp is a vertical plane hypothesis {P : A·P = B} of vehicle
@@ -280,6 +285,7 @@ func invertPlanar(dx, dy, yaw float64) (float64, float64, float64) {
 // MinBaselineM the model is left empty (no error).
 func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Motion, farDepthM float64, model *UprightModel) error {
 	model.Segments = model.Segments[:0]
+	e.coarse = e.coarse[:0]
 	e.haveRes = false
 	if err := CheckMotion(m); err != nil {
 		return err
@@ -522,6 +528,7 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 			}
 		}
 		if best >= 0 {
+			e.coarse = append(e.coarse, e.segs[best])
 			model.Segments = append(model.Segments, e.refine(cam, best, b, hzRow))
 		}
 	}
