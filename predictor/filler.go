@@ -137,13 +137,13 @@ type Filler struct {
 	// their capture times; buffers beyond olderN are spares. A frame
 	// enters when it stops being prev (its buffer is swapped in, not
 	// copied) or through HoldOlder. The movers compare the held frame
-	// with the oldest within MoverOptions.BaselineMs, with the upright
-	// structure estimated over that baseline by longEst into longUp.
+	// with the oldest within MoverOptions.BaselineMs (see
+	// comparisonFrame), and so does the upright estimate.
 	older   [MoverHistory]gocv.Mat
 	olderUs [MoverHistory]int64
 	olderN  int
-	longEst *UprightEstimator
-	longUp  UprightModel
+	// moverUp is the unrefined upright structure the movers use.
+	moverUp UprightModel
 	// moversFromUs is the capture time of the frame the movers of the
 	// held frame were detected against.
 	moversFromUs int64
@@ -190,15 +190,6 @@ func NewFiller(cfg FillerConfig) (*Filler, error) {
 		ue.Close()
 		return nil, err
 	}
-	le, err := NewUprightEstimator(cfg.Upright)
-	if err != nil { // validated above; kept for symmetry
-		s.Close()
-		l.Close()
-		d.Close()
-		ue.Close()
-		md.Close()
-		return nil, err
-	}
 	return &Filler{
 		cfg:        cfg,
 		synth:      s,
@@ -206,7 +197,6 @@ func NewFiller(cfg FillerConfig) (*Filler, error) {
 		depth:      d,
 		uprightEst: ue,
 		moverDet:   md,
-		longEst:    le,
 		last:       gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8UC3),
 		prev:       gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8UC3),
 		gray:       gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8U),
@@ -224,7 +214,6 @@ func (f *Filler) Close() error {
 	f.depth.Close()
 	f.uprightEst.Close()
 	f.moverDet.Close()
-	f.longEst.Close()
 	for i := range f.older {
 		if f.older[i].Ptr() != nil {
 			f.older[i].Close()
@@ -341,7 +330,7 @@ func (f *Filler) HoldPrevious(frame gocv.Mat, captureUs int64) error {
 	for f.olderN > 0 && f.olderUs[f.olderN-1] >= captureUs {
 		f.olderN--
 	}
-	f.moversKnown = false
+	f.moversKnown, f.uprightKnown = false, false
 	return nil
 }
 
@@ -425,7 +414,7 @@ func (f *Filler) HoldOlder(frame gocv.Mat, captureUs int64) error {
 		copy(f.older[f.olderN-k:], drop[:k])
 		f.olderN -= k
 	}
-	f.moversKnown = false
+	f.moversKnown, f.uprightKnown = false, false
 	if f.olderN == len(f.older) {
 		return nil // full of newer frames: the oldest kept is newer than the baseline needs
 	}
@@ -596,17 +585,35 @@ func (f *Filler) farDepthFor() float64 {
 	return d
 }
 
+// comparisonFrame returns the real frame the upright and mover estimates
+// compare the held frame with, and its capture time: the oldest kept frame
+// at most MoverOptions.BaselineMs older (see MoverFrameWanted), else the
+// frame before the held one. The longer baseline separates upright
+// surfaces 15-30 m away from the far scene, which the 33 ms between two
+// frames at 10 m/s barely moves apart at the estimate's resolution (a
+// tenth of a low-resolution pixel), and makes the parallax the upright
+// estimate measures proportionally larger than its noise.
+func (f *Filler) comparisonFrame() (gocv.Mat, int64) {
+	for k := 0; k < f.olderN; k++ {
+		if f.lastUs-f.olderUs[k] <= f.cfg.Movers.baselineUs() {
+			return f.older[k], f.olderUs[k]
+		}
+	}
+	return f.prev, f.prevUs
+}
+
 // uprightModel returns the upright structure of the held frame, estimated
-// once per held frame from the frame before it (see UprightEstimator); nil
-// when switched off or not estimable.
+// once per held frame from the comparison frame (see comparisonFrame and
+// UprightEstimator); nil when switched off or not estimable.
 func (f *Filler) uprightModel(farDepthM float64) *UprightModel {
 	if f.cfg.Upright.Off || !f.havePrev {
 		return nil
 	}
 	if !f.uprightKnown || f.uprightFor != f.lastUs {
 		f.upright.Segments = f.upright.Segments[:0]
-		if m, err := f.cfg.Motion.Relative(f.prevUs, f.lastUs); err == nil {
-			if err := f.uprightEst.Estimate(f.prev, f.last, f.cfg.Camera, m, farDepthM, &f.upright); err != nil {
+		old, oldUs := f.comparisonFrame()
+		if m, err := f.cfg.Motion.Relative(oldUs, f.lastUs); err == nil {
+			if err := f.uprightEst.Estimate(old, f.last, f.cfg.Camera, m, farDepthM, &f.upright); err != nil {
 				f.upright.Segments = f.upright.Segments[:0]
 			}
 		}
@@ -624,32 +631,23 @@ func (f *Filler) moverModel(farDepthM float64, up *UprightModel) *MoverModel {
 	}
 	if !f.moversKnown || f.moversFor != f.lastUs {
 		f.movers.Movers = f.movers.Movers[:0]
-		// The oldest kept frame within the baseline, else the frame
-		// before the held one.
-		old, oldUs := f.prev, f.prevUs
-		for k := 0; k < f.olderN; k++ {
-			if f.lastUs-f.olderUs[k] <= f.cfg.Movers.baselineUs() {
-				old, oldUs = f.older[k], f.olderUs[k]
-				break
-			}
-		}
+		// The upright structure up was estimated against the same
+		// frame (comparisonFrame), for the compensation and the parallax
+		// check alike.
+		old, oldUs := f.comparisonFrame()
 		f.moversFromUs = oldUs
 		if m, err := f.cfg.Motion.Relative(oldUs, f.lastUs); err == nil {
 			var static *UprightEstimator
-			if oldUs != f.prevUs {
-				// The upright structure over the same baseline, for
-				// the compensation and the parallax check alike.
-				up, f.longUp.Segments = nil, f.longUp.Segments[:0]
-				if !f.cfg.Upright.Off {
-					if err := f.longEst.Estimate(old, f.last, f.cfg.Camera, m, farDepthM, &f.longUp); err == nil {
-						up = &f.longUp
-					}
-				}
-				if _, ok := f.longEst.Residual(); ok && up != nil {
-					static = f.longEst
-				}
-			} else if _, ok := f.uprightEst.Residual(); ok && up != nil {
+			if _, ok := f.uprightEst.Residual(); ok && up != nil {
 				static = f.uprightEst
+			}
+			if up != nil {
+				// The segments as the hypotheses chose them, before
+				// their refinement: the movers' thresholds were set on
+				// those (with the refined ones, recall fell from 0.72
+				// to 0.67 on a simdrive --traffic drive).
+				f.moverUp.Segments = append(f.moverUp.Segments[:0], f.uprightEst.coarse...)
+				up = &f.moverUp
 			}
 			if err := f.moverDet.Detect(old, f.last, f.cfg.Camera, m, farDepthM, up, static, &f.movers); err != nil {
 				f.movers.Movers = f.movers.Movers[:0]

@@ -141,9 +141,6 @@ func (f *Filler) Warm() error {
 		if err := f.uprightEst.Estimate(f.prev, f.last, c, m, d, &f.upright); err == nil {
 			up = &f.upright
 		}
-		if err := f.longEst.Estimate(f.prev, f.last, c, m, d, &f.longUp); err != nil {
-			f.longUp.Segments = f.longUp.Segments[:0]
-		}
 	}
 	if !f.cfg.Movers.Off {
 		if err := f.moverDet.Detect(f.prev, f.last, c, m, d, up, f.uprightEst, &f.movers); err != nil {
@@ -154,7 +151,7 @@ func (f *Filler) Warm() error {
 	defer dst.Close()
 	_, err := f.synth.SynthesizeScene(f.last, m, d, up, &dst)
 	// Nothing estimated here belongs to a real frame.
-	f.upright.Segments, f.longUp.Segments, f.movers.Movers = f.upright.Segments[:0], f.longUp.Segments[:0], f.movers.Movers[:0]
+	f.upright.Segments, f.movers.Movers = f.upright.Segments[:0], f.movers.Movers[:0]
 	f.farKnown, f.uprightKnown, f.moversKnown = false, false, false
 	return err
 }

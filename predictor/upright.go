@@ -184,9 +184,13 @@ type UprightModel struct {
 // scene above; or road below the horizon and the far scene above it), as a
 // plane sweep restricted to vertical planes, and keeps the hypothesis and
 // top row with the least sum of absolute differences if it beats the
-// road-and-far model by MinGain. The cost per gap is about one
-// low-resolution warp per hypothesis (42 by default), each restricted to the
-// bands and rows where its plane can stand.
+// road-and-far model by MinGain; the kept plane is then refined in
+// distance and yaw on the band's own cost (refine), neighbouring segments
+// that nearly meet are joined (joinSegments), and no segment reaches above
+// its band's first textured row (firstTexturedRow). The cost per gap is
+// about one low-resolution warp per hypothesis (50 by default), each
+// restricted to the bands and rows where its plane can stand, and about
+// ten band-sized evaluations per segment for the refinement.
 //
 // An estimator owns scratch images (Close frees them) and is not safe for
 // concurrent use.
@@ -211,6 +215,27 @@ type UprightEstimator struct {
 	sums      [][]float64 // per hypothesis: band-major row sums of |diff|
 	pre       [][]float64 // per hypothesis: prefix sums down the current band
 	planes    []Plane
+	// hyps[i] is how planes[i] was made: its vehicle-frame normal and
+	// offset, and its neighbours in offset within the same family (same
+	// normal), -1 at the ends; for the refinement of the best plane.
+	hyps []planeHyp
+	// Scratch of Estimate, per plane for the current band.
+	cost []float64
+	segs []UprightSegment
+	back [3]float64 // the motion from the newer frame back to the older (invertPlanar)
+	// coarse holds the last Estimate's segments as the discrete
+	// hypotheses chose them, before refine and joinSegments: the movers
+	// compensate with these (Filler.moverModel), as their thresholds were
+	// set on them.
+	coarse []UprightSegment
+}
+
+// planeHyp is a vertical plane hypothesis {P : A·P = B} of vehicle
+// coordinates and its neighbours in B within its family.
+type planeHyp struct {
+	A            vec3
+	B            float64
+	lower, upper int
 }
 
 // NewUprightEstimator validates opts and returns an estimator.
@@ -260,6 +285,7 @@ func invertPlanar(dx, dy, yaw float64) (float64, float64, float64) {
 // MinBaselineM the model is left empty (no error).
 func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Motion, farDepthM float64, model *UprightModel) error {
 	model.Segments = model.Segments[:0]
+	e.coarse = e.coarse[:0]
 	e.haveRes = false
 	if err := CheckMotion(m); err != nil {
 		return err
@@ -312,13 +338,31 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 	if fronts == nil {
 		fronts = DefaultUprightFrontsM()
 	}
+	e.hyps = e.hyps[:0]
 	for _, y := range walls {
-		e.planes = append(e.planes, verticalPlane(cam, vec3{0, 1, 0}, y), verticalPlane(cam, vec3{0, -1, 0}, y))
+		e.hyps = append(e.hyps, planeHyp{A: vec3{0, 1, 0}, B: y}, planeHyp{A: vec3{0, -1, 0}, B: y})
 	}
 	for _, x := range fronts {
-		e.planes = append(e.planes, verticalPlane(cam, vec3{1, 0, 0}, x))
+		e.hyps = append(e.hyps, planeHyp{A: vec3{1, 0, 0}, B: x})
+	}
+	for i := range e.hyps {
+		hi := &e.hyps[i]
+		hi.lower, hi.upper = -1, -1
+		for j, hj := range e.hyps {
+			if hj.A != hi.A {
+				continue
+			}
+			if hj.B < hi.B && (hi.lower < 0 || hj.B > e.hyps[hi.lower].B) {
+				hi.lower = j
+			}
+			if hj.B > hi.B && (hi.upper < 0 || hj.B < e.hyps[hi.upper].B) {
+				hi.upper = j
+			}
+		}
+		e.planes = append(e.planes, verticalPlane(cam, hi.A, hi.B))
 	}
 	dx, dy, dyaw := invertPlanar(m.DxM, m.DyM, m.DyawRad)
+	e.back = [3]float64{dx, dy, dyaw}
 	nb := (cam.Width + bandPx - 1) / bandPx
 	nh := 2 + len(e.planes)
 	for len(e.sums) < nh {
@@ -451,9 +495,12 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 		hzLow := lowRow(hzRow)
 		none := far[hzLow] + road[h] - road[hzLow]
 		best, bestCost := -1, none*(1-gain)
-		var bestSeg UprightSegment
+		e.cost, e.segs = e.cost[:0], e.segs[:0]
+		textured := e.firstTexturedRow(bandLo[b], bandLo[b+1])
 		for i, p := range e.planes {
+			e.cost = append(e.cost, math.Inf(1))
 			seg, ok := segment(cam, p, c0, c1, hzRow)
+			e.segs = append(e.segs, seg)
 			if !ok {
 				continue
 			}
@@ -462,7 +509,7 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 			pk := e.pre[2+i]
 			base := lowRow((seg.BaseRow0 + seg.BaseRow1) / 2)
 			top, tc := 0, math.Inf(1)
-			for y := 0; y <= base; y++ {
+			for y := min(textured, base); y <= base; y++ {
 				if c := far[y] - pk[y]; c < tc {
 					top, tc = y, c
 				}
@@ -470,19 +517,332 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 			if base-top < 2 {
 				continue
 			}
-			if c := tc + pk[base] + road[h] - road[base]; c < bestCost {
-				seg.TopRow = -0.5
-				if top > 0 {
-					seg.TopRow = float64(top)/sy - 0.5
-				}
-				best, bestCost, bestSeg = i, c, seg
+			e.segs[i].TopRow = -0.5
+			if top > 0 {
+				e.segs[i].TopRow = float64(top)/sy - 0.5
+			}
+			c := tc + pk[base] + road[h] - road[base]
+			e.cost[i] = c
+			if c < bestCost {
+				best, bestCost = i, c
 			}
 		}
 		if best >= 0 {
-			model.Segments = append(model.Segments, bestSeg)
+			e.coarse = append(e.coarse, e.segs[best])
+			model.Segments = append(model.Segments, e.refine(cam, best, b, hzRow))
 		}
 	}
+	joinSegments(cam, model.Segments)
 	return nil
+}
+
+// uprightJoinRatio is the largest relative difference of the distances of
+// two neighbouring segments' foot points at their shared column for which
+// they are taken for one surface and joined (a design choice of this
+// project: a few times the refinement's step).
+const uprightJoinRatio = 0.12
+
+// joinSegments makes neighbouring segments (sharing a band edge) whose
+// bases meet the road at nearly the same place there share that foot
+// point, each plane turned to pass through it: both planes then contain
+// the vertical line above it, which every motion maps alike, so the
+// surface stays whole in a predicted frame instead of opening a gap
+// between the two bands that the synthesis would mark as disoccluded.
+// segs are in band order; a segment whose plane would no longer stand on
+// the road keeps its own.
+func joinSegments(cam Camera, segs []UprightSegment) {
+	for i := 0; i+1 < len(segs); i++ {
+		l, r := &segs[i], &segs[i+1]
+		if l.Col1 != r.Col0 {
+			continue
+		}
+		u := float64(l.Col1) - 0.5
+		gl, ok1 := footAt(cam, u, l.BaseRow1)
+		gr, ok2 := footAt(cam, u, r.BaseRow0)
+		if !ok1 || !ok2 {
+			continue
+		}
+		ctr := cam.CentreVehicle()
+		dl, dr := math.Hypot(gl[0]-ctr[0], gl[1]-ctr[1]), math.Hypot(gr[0]-ctr[0], gr[1]-ctr[1])
+		if math.Abs(dl-dr) > uprightJoinRatio*math.Min(dl, dr) {
+			continue
+		}
+		row := (l.BaseRow1 + r.BaseRow0) / 2
+		if nl, ok := rebase(cam, *l, l.BaseRow0, row); ok {
+			*l = nl
+		}
+		if nr, ok := rebase(cam, *r, row, r.BaseRow1); ok {
+			*r = nr
+		}
+	}
+}
+
+// rebase returns seg with the vertical plane whose base passes through
+// rows row0 and row1 at its band's edges.
+func rebase(cam Camera, seg UprightSegment, row0, row1 float64) (UprightSegment, bool) {
+	g0, ok0 := footAt(cam, float64(seg.Col0)-0.5, row0)
+	g1, ok1 := footAt(cam, float64(seg.Col1)-0.5, row1)
+	if !ok0 || !ok1 {
+		return seg, false
+	}
+	dx, dy := g1[0]-g0[0], g1[1]-g0[1]
+	n := math.Hypot(dx, dy)
+	if !(n > 0) {
+		return seg, false
+	}
+	a := vec3{-dy / n, dx / n, 0}
+	b := dot3(a, g0)
+	if b < 0 {
+		a, b = vec3{-a[0], -a[1], 0}, -b
+	}
+	hz, ok := cam.Horizon().RowAt(float64(seg.Col0+seg.Col1-1) / 2)
+	if !ok || !(b > 0) {
+		return seg, false
+	}
+	r, ok := segment(cam, verticalPlane(cam, a, b), seg.Col0, seg.Col1, hz)
+	if !ok {
+		return seg, false
+	}
+	r.TopRow = seg.TopRow
+	return r, true
+}
+
+// footAt returns where the ray of pixel (u, v) meets the road, in vehicle
+// coordinates; ok is false at or above the horizon.
+func footAt(cam Camera, u, v float64) (vec3, bool) {
+	d := mul3v(transpose3(cam.RotationVehicleToCamera()), mul3v(cam.KInv(), vec3{u, v, 1}))
+	ctr := cam.CentreVehicle()
+	if !(d[2] < 0) {
+		return vec3{}, false
+	}
+	t := -ctr[2] / d[2]
+	return vec3{ctr[0] + t*d[0], ctr[1] + t*d[1], 0}, true
+}
+
+// uprightTextureGrey is the mean absolute grey-level step between
+// neighbouring low-resolution pixels (across and down) above which a row
+// of a band shows structure, not sky (a design choice of this project:
+// a clear or overcast sky changes by less than a level per pixel at a
+// quarter of 720p, a facade's grain and edges by several).
+const uprightTextureGrey = 3.0
+
+// firstTexturedRow returns the first row of columns [x0, x1) of the newer
+// low-resolution frame whose mean absolute step to its right and lower
+// neighbours exceeds uprightTextureGrey (the frame's height if none). An
+// upright segment starts no higher: above it the band is sky, which the
+// far map moves as well, and a plane reaching into it would make the
+// synthesis mark the sky it uncovers as disoccluded.
+func (e *UprightEstimator) firstTexturedRow(x0, x1 int) int {
+	w, h := e.b.Cols(), e.b.Rows()
+	pb, err := e.b.DataPtrUint8()
+	if err != nil || x1-x0 < 2 {
+		return 0
+	}
+	x1 = min(x1, w-1)
+	for y := 0; y+1 < h; y++ {
+		t := 0
+		for x := x0; x < x1; x++ {
+			i := y*w + x
+			t += absInt(int(pb[i+1])-int(pb[i])) + absInt(int(pb[i+w])-int(pb[i]))
+		}
+		if float64(t) > uprightTextureGrey*float64(x1-x0) {
+			return y
+		}
+	}
+	return h
+}
+
+// absInt returns |v|.
+func absInt(v int) int {
+	if v < 0 {
+		return -v
+	}
+	return v
+}
+
+// Steps of the refinement around the best hypothesis (design choices of
+// this project): the relative change of the foot point's distance, and
+// the turn of the plane about the vertical through it.
+const (
+	refineDepthStep = 0.03
+	refineYawStep   = 10 * math.Pi / 180
+)
+
+// refine returns the segment of plane hypothesis best over band b (columns
+// [c0, c1)): the plane through the foot point at the band's centre column,
+// refined in distance and in yaw by local search on the band's matching
+// cost (bandPlaneCost). First the offset, between the best hypothesis's
+// neighbours of the same family, by the vertex of the parabola through
+// their three costs (e.cost) against the inverse offset, to which the
+// image motion of the plane's points is proportional; then the foot
+// point's distance along its ray by ±refineDepthStep, and the plane's
+// yaw about the vertical through the foot point by ±refineYawStep and
+// twice that (facades are not all parallel or square to the direction of
+// travel: the road turns), each by the vertex of a parabola through the
+// costs around the least. A refined plane replaces the hypothesis only if
+// its cost is lower. The top row stays the best hypothesis's.
+func (e *UprightEstimator) refine(cam Camera, best, b int, hzRow float64) UprightSegment {
+	seg := e.segs[best]
+	hp := e.hyps[best]
+	c0, c1 := seg.Col0, seg.Col1
+	cur, curCost := seg, e.bandPlaneCost(cam, b, seg)
+	try := func(a vec3, off float64) (UprightSegment, float64, bool) {
+		if !(off > 0) {
+			return UprightSegment{}, 0, false
+		}
+		r, ok := segment(cam, verticalPlane(cam, a, off), c0, c1, hzRow)
+		if !ok {
+			return r, 0, false
+		}
+		r.TopRow = seg.TopRow
+		return r, e.bandPlaneCost(cam, b, r), true
+	}
+	keep := func(r UprightSegment, c float64, ok bool) {
+		if ok && c < curCost {
+			cur, curCost = r, c
+		}
+	}
+	// 1. Offset between the neighbouring hypotheses.
+	if lo, hi := hp.lower, hp.upper; lo >= 0 && hi >= 0 && !math.IsInf(e.cost[lo], 1) && !math.IsInf(e.cost[hi], 1) {
+		if x, ok := parabolaVertex(1/e.hyps[lo].B, 1/hp.B, 1/e.hyps[hi].B, e.cost[lo], e.cost[best], e.cost[hi]); ok {
+			keep(try(hp.A, 1/x))
+		}
+	}
+	// The foot point at the band's centre column, vehicle coordinates.
+	foot, ok := e.footPoint(cam, cur)
+	if !ok {
+		return cur
+	}
+	a := vec3{cur.Plane.Normal[0], cur.Plane.Normal[1], cur.Plane.Normal[2]}
+	a = mul3v(transpose3(cam.RotationVehicleToCamera()), a) // back to vehicle axes
+	a[2] = 0
+	if n := math.Hypot(a[0], a[1]); n > 0 {
+		a[0], a[1] = a[0]/n, a[1]/n
+	} else {
+		return cur
+	}
+	ctr := cam.CentreVehicle()
+	// 2. The foot point's distance along its ray from the camera.
+	at := func(k float64) vec3 {
+		return vec3{ctr[0] + k*(foot[0]-ctr[0]), ctr[1] + k*(foot[1]-ctr[1]), 0}
+	}
+	var fs [3]float64
+	var rs [3]UprightSegment
+	var oks [3]bool
+	for i, k := range [3]float64{1 - refineDepthStep, 1, 1 + refineDepthStep} {
+		rs[i], fs[i], oks[i] = try(a, dot3(a, at(k)))
+	}
+	if oks[0] && oks[1] && oks[2] {
+		keep(rs[0], fs[0], true)
+		keep(rs[2], fs[2], true)
+		if x, ok := parabolaVertex(1/(1-refineDepthStep), 1, 1/(1+refineDepthStep), fs[0], fs[1], fs[2]); ok {
+			keep(try(a, dot3(a, at(1/x))))
+		}
+	}
+	if f2, ok := e.footPoint(cam, cur); ok {
+		foot = f2
+	}
+	// 3. The yaw about the vertical through the foot point.
+	rot := func(phi float64) vec3 {
+		sn, cs := math.Sincos(phi)
+		return vec3{cs*a[0] - sn*a[1], sn*a[0] + cs*a[1], 0}
+	}
+	var ys [5]float64
+	var yok [5]bool
+	ib := -1
+	for i := range ys {
+		phi := float64(i-2) * refineYawStep
+		r := rot(phi)
+		var sg UprightSegment
+		sg, ys[i], yok[i] = try(r, dot3(r, foot))
+		keep(sg, ys[i], yok[i])
+		if yok[i] && (ib < 0 || ys[i] < ys[ib]) {
+			ib = i
+		}
+	}
+	if ib > 0 && ib < 4 && yok[ib-1] && yok[ib+1] {
+		if x, ok := parabolaVertex(-1, 0, 1, ys[ib-1], ys[ib], ys[ib+1]); ok {
+			r := rot((float64(ib-2) + x) * refineYawStep)
+			keep(try(r, dot3(r, foot)))
+		}
+	}
+	return cur
+}
+
+// parabolaVertex returns the abscissa of the vertex of the parabola through
+// (x0, f0), (x1, f1), (x2, f2) when f1 is the least of the three and the
+// vertex lies strictly between x0 and x2 (Press et al., "Numerical
+// Recipes", 3rd ed., eq. 10.3.1, from memory).
+func parabolaVertex(x0, x1, x2, f0, f1, f2 float64) (float64, bool) {
+	if f1 > f0 || f1 > f2 {
+		return 0, false
+	}
+	num := (x1-x0)*(x1-x0)*(f1-f2) - (x1-x2)*(x1-x2)*(f1-f0)
+	den := (x1-x0)*(f1-f2) - (x1-x2)*(f1-f0)
+	if !(den != 0) {
+		return 0, false
+	}
+	x := x1 - 0.5*num/den
+	return x, x > math.Min(x0, x2) && x < math.Max(x0, x2)
+}
+
+// footPoint returns where seg's base line meets the road at the band's
+// centre column, in vehicle coordinates.
+func (e *UprightEstimator) footPoint(cam Camera, seg UprightSegment) (vec3, bool) {
+	return footAt(cam, float64(seg.Col0+seg.Col1-1)/2, (seg.BaseRow0+seg.BaseRow1)/2)
+}
+
+// bandPlaneCost returns band b's matching cost with seg as its upright
+// surface, as Estimate sums it: the far map above the top row, seg's plane
+// from there to its base, the road below (the far and road sums from the
+// band's prefix sums, the plane's by bandCost).
+func (e *UprightEstimator) bandPlaneCost(cam Camera, b int, seg UprightSegment) float64 {
+	h := e.a.Rows()
+	lowRow := func(v float64) int { return int(math.Round(math.Min(math.Max(v*e.sy, 0), float64(h)))) }
+	top := 0
+	if seg.TopRow > -0.5 {
+		top = lowRow(seg.TopRow + 0.5)
+	}
+	base := lowRow((seg.BaseRow0 + seg.BaseRow1) / 2)
+	if base <= top {
+		return math.Inf(1)
+	}
+	hs := scaleHomography(PlaneHomography(cam, e.back[0], e.back[1], e.back[2], seg.Plane), e.sx, e.sy)
+	road, far := e.pre[0], e.pre[1]
+	return far[top] + e.bandCost(hs, e.bandLo[b], e.bandLo[b+1], top, base) + road[h] - road[base]
+}
+
+// bandCost returns the sum over the low-resolution pixels of columns
+// [x0, x1) and rows [y0, y1) of |older frame at hs(x, y) - newer frame|,
+// bilinear with the border replicated: the sums Estimate takes from its
+// warps, for one band and one plane.
+func (e *UprightEstimator) bandCost(hs Homography, x0, x1, y0, y1 int) float64 {
+	w, h := e.a.Cols(), e.a.Rows()
+	pa, err1 := e.a.DataPtrUint8()
+	pb, err2 := e.b.DataPtrUint8()
+	if err1 != nil || err2 != nil {
+		return math.Inf(1)
+	}
+	t := 0.0
+	for y := y0; y < y1; y++ {
+		for x := x0; x < x1; x++ {
+			fx, fy := float64(x), float64(y)
+			d := hs[2][0]*fx + hs[2][1]*fy + hs[2][2]
+			if !(d > 0) {
+				return math.Inf(1)
+			}
+			sx := (hs[0][0]*fx + hs[0][1]*fy + hs[0][2]) / d
+			sy := (hs[1][0]*fx + hs[1][1]*fy + hs[1][2]) / d
+			sx = math.Min(math.Max(sx, 0), float64(w-1))
+			sy = math.Min(math.Max(sy, 0), float64(h-1))
+			ix, iy := min(int(sx), w-2), min(int(sy), h-2)
+			ax, ay := sx-float64(ix), sy-float64(iy)
+			i := iy*w + ix
+			v := (1-ay)*((1-ax)*float64(pa[i])+ax*float64(pa[i+1])) + ay*((1-ax)*float64(pa[i+w])+ax*float64(pa[i+w+1]))
+			t += math.Abs(v - float64(pb[y*w+x]))
+		}
+	}
+	return t
 }
 
 // segment builds the segment of plane p over columns [c0, c1); ok is false

@@ -309,3 +309,20 @@ func (r *renderer) writeQuadGeometry(rect [4]int, surf int32) {
 		}
 	}
 }
+
+// VehiclePlane returns, for scoring and diagnosis, the vertical plane of a
+// post's or facade's surface in the vehicle frame of frame i: the points
+// (x, y, z) of that frame's vehicle coordinates (ISO 8855) with
+// n[0] x + n[1] y = offM, n a horizontal unit vector. ok is false for the
+// sky, the ground, road users, unknown ids and frames out of range.
+func (s *Scene) VehiclePlane(i int, surface int32) (n [2]float64, offM float64, ok bool) {
+	if i < 0 || i >= s.cfg.frameCount() || surface < firstQuadSurface || int(surface) >= len(s.sc.surfaces) {
+		return n, 0, false
+	}
+	p := s.tr.PoseAt(s.cfg.captureUs(i))
+	sf := s.sc.surfaces[surface]
+	// World W = Rz(yaw) P + t, so n·W = off is (Rz(yaw)ᵀ n)·P = off - n·t.
+	c, sn := math.Cos(p.YawRad), math.Sin(p.YawRad)
+	n = [2]float64{c*sf.n[0] + sn*sf.n[1], -sn*sf.n[0] + c*sf.n[1]}
+	return n, sf.off - sf.n[0]*p.XM - sf.n[1]*p.YM, true
+}
