@@ -44,14 +44,16 @@ func (pc *picture) toBGR() error {
 }
 
 // deferred holds the newest real frames that passed through to the console
-// unconverted, oldest first: at most two, because the gap filler keeps only
-// the held frame and the one before it (predictor.Filler: the held frame
-// for the warp, the one before for the far-depth, upright and mover
-// estimates). flush hands them to the Filler (Hold) in order, converted to
-// BGR, before anything reads the Filler's frames: a gap tick, a frame the
-// relay encodes, a late frame. The Filler then holds what it would hold had
-// each frame been handed over as it came, at the cost of two conversions on
-// the first tick of a gap instead of one on every frame.
+// unconverted, oldest first: as many as the gap filler keeps
+// (predictor.Filler: the held frame for the warp, the one before it, and
+// predictor.MoverHistory older ones, among which the upright and mover
+// estimates take their comparison frame, up to 200 ms before the held
+// one). flush hands them to the Filler (Hold) in order, converted to BGR,
+// before anything reads the Filler's frames: a gap tick, a frame the relay
+// encodes, a late frame. The Filler then holds what it would hold had each
+// frame been handed over as it came (TestDeferredConversionShowsTheSame),
+// at the cost of up to eight conversions on the first tick of a gap after
+// a run of pass-through frames instead of one on every frame.
 //
 // Buffers: the I420 planes of a deferred frame are swapped in from the
 // picture that brought it (add), not copied, and the picture leaves with
@@ -60,7 +62,7 @@ func (pc *picture) toBGR() error {
 // allocated on the first flush.
 type deferred struct {
 	n      int // frames held: frames[:n]
-	frames [2]struct {
+	frames [predictor.MoverHistory + 2]struct {
 		img       vp8.Image
 		captureUs int64
 	}
@@ -82,7 +84,10 @@ func (d *deferred) add(pc *picture, captureUs, newestUs int64, haveNewest bool) 
 	case d.n > 0 && captureUs == newestUs:
 		d.n-- // replaced below
 	case d.n == len(d.frames):
-		d.frames[0], d.frames[1] = d.frames[1], d.frames[0]
+		// Drop the oldest; its buffers become the free slot.
+		oldest := d.frames[0]
+		copy(d.frames[:], d.frames[1:])
+		d.frames[len(d.frames)-1] = oldest
 		d.n--
 	}
 	f := &d.frames[d.n]

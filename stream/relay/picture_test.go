@@ -166,7 +166,7 @@ func TestDeferredKeepsTheFillersOrder(t *testing.T) {
 		wantKept []int64
 	}{
 		{"in order", 0, []int64{1, 2}, []int64{1, 2}},
-		{"only the newest two", 0, []int64{1, 2, 3, 4}, []int64{3, 4}},
+		{"only as many as the Filler keeps", 0, []int64{1, 2, 3, 4, 5, 6, 7, 8, 9, 10}, []int64{3, 4, 5, 6, 7, 8, 9, 10}},
 		{"same time replaces", 0, []int64{1, 2, 2}, []int64{1, 2}},
 		{"older than the newest is dropped", 0, []int64{1, 3, 2}, []int64{1, 3}},
 		{"older than the Filler's is dropped", 5, []int64{4, 6}, []int64{6}},
@@ -199,8 +199,9 @@ func newTestFilter(t *testing.T) *filter.Filter {
 }
 
 // BenchmarkDeferredFlush720p measures what a gap's first tick pays for the
-// frames that passed through unconverted: two 1280x720 I420 to BGR
-// conversions and the two copies into the Filler (deferred.flush), per op.
+// frames that passed through unconverted after a run of at least eight:
+// eight 1280x720 I420 to BGR conversions and the eight copies into the
+// Filler (deferred.flush), per op.
 func BenchmarkDeferredFlush720p(b *testing.B) {
 	cam := predictor.Camera{Width: 1280, Height: 720, Fx: 1000, Fy: 1000, Cx: 640, Cy: 360, HeightM: 1.4, PitchDeg: 5}
 	flt, err := filter.New(filter.Config{Model: filter.ModelCTRV})
@@ -214,9 +215,10 @@ func BenchmarkDeferredFlush720p(b *testing.B) {
 	defer f.Close()
 	var d deferred
 	defer d.close()
-	seq := movingSequence(b, 2, cam.Width, cam.Height)
-	pics := make([]picture, 2)
-	planes := make([]vp8.Image, 2)
+	n := len(d.frames)
+	seq := movingSequence(b, n, cam.Width, cam.Height)
+	pics := make([]picture, n)
+	planes := make([]vp8.Image, n)
 	for i, m := range seq {
 		px, err := m.DataPtrUint8()
 		if err == nil {
