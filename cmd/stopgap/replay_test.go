@@ -66,14 +66,7 @@ func TestReplayCompareSources(t *testing.T) {
 			t.Errorf("the table lacks %q:\n%s", name, table)
 		}
 	}
-	data, err := os.ReadFile(filepath.Join(out, "sources.json"))
-	if err != nil {
-		t.Fatal(err)
-	}
-	var rows []bench.EvalRow
-	if err := json.Unmarshal(data, &rows); err != nil {
-		t.Fatal(err)
-	}
+	rows := readSourceRows(t, out)
 	var got []string
 	for _, r := range rows {
 		got = append(got, r.Source)
@@ -102,14 +95,7 @@ func TestReplayCompareSourcesWithoutCommands(t *testing.T) {
 	if c := run(context.Background(), []string{"replay", "--quiet", "--drive", drive, "--out", out, "--compare-sources"}, &stdout, &stderr); c != 0 {
 		t.Fatalf("replay --compare-sources on a drive without commands: exit %d, %s", c, stderr.String())
 	}
-	data, err := os.ReadFile(filepath.Join(out, "sources.json"))
-	if err != nil {
-		t.Fatal(err)
-	}
-	var rows []bench.EvalRow
-	if err := json.Unmarshal(data, &rows); err != nil {
-		t.Fatal(err)
-	}
+	rows := readSourceRows(t, out)
 	var got []string
 	for _, r := range rows {
 		tag := r.Source
@@ -132,4 +118,19 @@ func TestReplayCompareSourcesWithoutCommands(t *testing.T) {
 	if n := strings.Count(table, "skipped: needs the operator's commands"); n != 2 {
 		t.Errorf("the table names %d skipped rows, want 2:\n%s", n, table)
 	}
+}
+
+// readSourceRows reads the rows of a --compare-sources run's sources.json in
+// out.
+func readSourceRows(t *testing.T, out string) []bench.EvalRow {
+	t.Helper()
+	data, err := os.ReadFile(filepath.Join(out, "sources.json"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	var rows []bench.EvalRow
+	if err := json.Unmarshal(data, &rows); err != nil {
+		t.Fatal(err)
+	}
+	return rows
 }
