@@ -594,10 +594,8 @@ func (f *Filler) farDepthFor() float64 {
 // tenth of a low-resolution pixel), and makes the parallax the upright
 // estimate measures proportionally larger than its noise.
 func (f *Filler) comparisonFrame() (gocv.Mat, int64) {
-	for k := 0; k < f.olderN; k++ {
-		if f.lastUs-f.olderUs[k] <= f.cfg.Movers.baselineUs() {
-			return f.older[k], f.olderUs[k]
-		}
+	if k, ok := f.MoverFrameWanted(f.lastUs, f.olderUs[:f.olderN]); ok {
+		return f.older[k], f.olderUs[k]
 	}
 	return f.prev, f.prevUs
 }

@@ -362,9 +362,7 @@ func (c *Clock) frame(h Handler, k int, captureUs, readyUs int64) Frame {
 	}
 	nearest := k
 	resume := c.resumes(k, captureUs, readyUs)
-	if c.held && captureUs > c.heldUs {
-		c.heldUs = captureUs
-	} else if !c.held {
+	if !c.held || captureUs > c.heldUs {
 		c.heldUs, c.held = captureUs, true
 	}
 	k, show := slotFor(k, c.next, captureUs, c.TargetUs(k), c.decidedCaptureUs, c.next > 0, resume)

@@ -40,7 +40,9 @@ package cadence
 //     tick (measured with a browser's WebRTC stack as the sender: the
 //     first LIVE tick 158-162 ms after the link returned in three runs of
 //     four). The frames after it that are still late are held as usual;
-//     the display is back on the grid with the first one in time.
+//     the next one whose nearest tick is the one just decided moves on
+//     (the rule above), so the display runs one tick behind until the
+//     sender leaves a period without a frame.
 //   - Any other frame is late: held for later gaps, not shown. One further
 //     back would make the display wait more than one period for frames;
 //     one not newer than what was decided would take the display back in
