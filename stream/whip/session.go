@@ -191,11 +191,9 @@ func (s *Session) Stats() ingest.Stats {
 	st.NACKPackets = s.counter.nackPackets.Load()
 	st.NACKedPackets = s.counter.nackedSeqs.Load()
 	st.PLIsSent = s.counter.plis.Load()
-	for _, v := range s.pc.GetStats() {
-		if p, ok := v.(webrtc.ICECandidatePairStats); ok && p.Nominated && p.CurrentRoundTripTime > 0 {
-			st.RTT = time.Duration(p.CurrentRoundTripTime * float64(time.Second))
-			st.HasRTT = true
-		}
+	if p, ok := selectedPairStats(s.pc); ok && p.CurrentRoundTripTime > 0 {
+		st.RTT = time.Duration(p.CurrentRoundTripTime * float64(time.Second))
+		st.HasRTT = true
 	}
 	if st.HasRTT {
 		s.repair.setICERTT(st.RTT)
@@ -405,4 +403,23 @@ func (s *Session) isDone() bool {
 	default:
 		return false
 	}
+}
+
+// selectedPairStats returns the statistics of the ICE candidate pair the session sends on. It asks the ICE
+// transport rather than PeerConnection.GetStats, which reads a field that a close started inside pion (the
+// peer's SCTP abort) writes without a lock: the race detector caught it in TestOtherDataChannelClosed.
+func selectedPairStats(pc *webrtc.PeerConnection) (webrtc.ICECandidatePairStats, bool) {
+	sctp := pc.SCTP()
+	if sctp == nil {
+		return webrtc.ICECandidatePairStats{}, false
+	}
+	dtls := sctp.Transport()
+	if dtls == nil {
+		return webrtc.ICECandidatePairStats{}, false
+	}
+	ice := dtls.ICETransport()
+	if ice == nil {
+		return webrtc.ICECandidatePairStats{}, false
+	}
+	return ice.GetSelectedCandidatePairStats()
 }
