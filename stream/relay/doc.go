@@ -70,8 +70,10 @@
 // assembler (repair failed) or a decode error makes the frame missing: the
 // decoder is told (Lost) and a keyframe request (RTCP PLI) is sent at once,
 // repeated every KeyframeRetry (200 ms, common receiver practice) while the
-// decoder waits for a keyframe, and sent at once on the first packet after a
-// silence of KeyframeRetry (the requests sent meanwhile were lost). The WebRTC read loop is never blocked: the
+// decoder waits for a keyframe, and sent at once when the link returns after a
+// silence of KeyframeRetry (the requests sent meanwhile were lost): on the
+// first video packet, or earlier on the sender's first packet of any other
+// kind (telemetry, RTCP) if its session can tell (inboundWatcher). The WebRTC read loop is never blocked: the
 // ingest queues are bounded and drop and count.
 //
 // # Recording

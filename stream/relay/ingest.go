@@ -63,6 +63,10 @@ type frameIngest struct {
 	// linkBackRetry (see runTimers).
 	linkBack    bool
 	lastArrival time.Time // arrival of the latest packet
+	// lastInbound is the session's last packet of any kind seen by the
+	// timer during the current video silence (backFromInbound); zero
+	// while video flows.
+	lastInbound time.Time
 	fwd         forwardSender
 	// The capture timeline: RTP timestamp refTS was captured at refUs
 	// (arrival-anchored until the first sender report, then on the
@@ -109,6 +113,13 @@ type repairSpanner interface {
 	RepairSpan() time.Duration
 }
 
+// inboundWatcher is implemented by an ingest session that knows when the
+// last packet of any kind arrived from the sender, not only video
+// (*whip.Session: RTCP and telemetry too).
+type inboundWatcher interface {
+	LastInbound() time.Time
+}
+
 func (in *frameIngest) close() { in.dec.Close() }
 
 // runRTP reads packets until the session or ctx ends.
@@ -127,9 +138,14 @@ func (in *frameIngest) runRTP(ctx context.Context) error {
 		// not ask for a gap after such a silence) or, if it was short, a
 		// keyframe is still the fastest way back; requests sent during the
 		// silence were probably lost with the link. So ask at once.
+		// If the sender's other packets announced the link's return
+		// (backFromInbound), the request went out already.
 		if !in.lastArrival.IsZero() && arrival.Sub(in.lastArrival) >= in.p.cfg.KeyframeRetry {
+			now := in.p.cfg.Now()
 			in.linkBack = true
-			in.requestKeyframeLocked(in.p.cfg.Now(), "link back")
+			if now.Sub(in.lastKeyReq) >= linkBackRetry(in.p.cfg.KeyframeRetry) {
+				in.requestKeyframeLocked(now, "link back")
+			}
 		}
 		in.lastArrival = arrival
 		if err := in.asm.Push(pkt, arrival); err != nil {
@@ -171,6 +187,9 @@ func (in *frameIngest) runTimers(ctx context.Context) {
 		// first packet after it needs: none is sent until packets resume.
 		silent := !in.lastArrival.IsZero() && now.Sub(in.lastArrival) >= in.p.cfg.KeyframeRetry
 		switch {
+		case silent && in.backFromInbound():
+			in.linkBack = true
+			in.requestKeyframeLocked(now, "link back, other packets first")
 		case silent:
 		case in.linkBack && now.Sub(in.lastKeyReq) >= linkBackRetry(in.p.cfg.KeyframeRetry):
 			in.requestKeyframeLocked(now, "link back, repeated")
@@ -184,9 +203,37 @@ func (in *frameIngest) runTimers(ctx context.Context) {
 			// every real frame costs the relay an encode.
 			in.requestKeyframeLocked(now, "pass-through")
 		}
+		wait := every
+		if silent {
+			wait = silentPoll
+		} else {
+			in.lastInbound = time.Time{}
+		}
 		in.mu.Unlock()
-		t.Reset(every)
+		t.Reset(wait)
 	}
+}
+
+// silentPoll is how often the expiry timer runs during a video silence, to
+// see the sender's other packets return (backFromInbound).
+const silentPoll = 5 * time.Millisecond
+
+// backFromInbound reports, during a video silence, whether the session saw
+// the sender's other packets (telemetry, RTCP) resume after a silence of
+// their own of at least the keyframe retry interval: the whole link was
+// down and is back. A vehicle sends telemetry more often than frames (50 Hz
+// against 30), so the keyframe request goes out before the first frame's
+// packets arrive. Other packets that never stopped (only the video did)
+// do not count.
+func (in *frameIngest) backFromInbound() bool {
+	w, ok := in.p.sess.(inboundWatcher)
+	if !ok {
+		return false
+	}
+	last := w.LastInbound()
+	prev := in.lastInbound
+	in.lastInbound = last
+	return !prev.IsZero() && last.Sub(prev) >= in.p.cfg.KeyframeRetry
 }
 
 // linkBackRetry is the keyframe request repeat interval while the link is

@@ -34,3 +34,49 @@ func TestKeyframeRetryClock(t *testing.T) {
 		t.Errorf("a failed request left lastKeyReq at %v, want %v", in.lastKeyReq, t1)
 	}
 }
+
+// inboundVehicle is a fake vehicle whose session reports its last packet
+// of any kind (inboundWatcher).
+type inboundVehicle struct {
+	*fakeVehicle
+	last time.Time
+}
+
+func (v *inboundVehicle) LastInbound() time.Time { return v.last }
+
+// TestBackFromInbound: during a video silence, the link counts as back when
+// the sender's other packets resume after a silence of their own of at
+// least the keyframe retry interval; other packets that kept flowing while
+// only the video stopped do not count, nor does the first look.
+func TestBackFromInbound(t *testing.T) {
+	clock := &fakeClock{}
+	r := testRelay(t, clock, "")
+	v := &inboundVehicle{fakeVehicle: newFakeVehicle(t, clock, 1, nil)}
+	in := &frameIngest{p: &pipeline{r: r, cfg: r.cfg, sess: v, log: quietLogger()}}
+	t0 := time.UnixMicro(5_000_000)
+	retry := r.cfg.KeyframeRetry
+	steps := []struct {
+		last time.Time
+		want bool
+		why  string
+	}{
+		{t0, false, "first look: nothing to compare with"},
+		{t0.Add(20 * time.Millisecond), false, "telemetry every 20 ms: never stopped"},
+		{t0.Add(40 * time.Millisecond), false, "still flowing"},
+		{t0.Add(40 * time.Millisecond), false, "nothing new"},
+		{t0.Add(40*time.Millisecond + retry - time.Millisecond), false, "a pause just under the retry interval"},
+		{t0.Add(3 * time.Second), true, "back after 3 s of nothing"},
+		{t0.Add(3*time.Second + 20*time.Millisecond), false, "flowing again"},
+	}
+	for i, s := range steps {
+		v.last = s.last
+		if got := in.backFromInbound(); got != s.want {
+			t.Errorf("step %d (%s): back %v, want %v", i, s.why, got, s.want)
+		}
+	}
+	// A session that cannot tell never reports the link back this way.
+	plain := &frameIngest{p: &pipeline{r: r, cfg: r.cfg, sess: v.fakeVehicle, log: quietLogger()}}
+	if plain.backFromInbound() {
+		t.Error("a session without LastInbound reported the link back")
+	}
+}
