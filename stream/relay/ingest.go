@@ -178,10 +178,9 @@ func (in *frameIngest) runTimers(ctx context.Context) {
 			in.requestKeyframeLocked(now, "retry")
 		case in.p.r.gate.WantKeyframe() && (now.Sub(in.lastKeyReq) >= in.p.cfg.KeyframeRetry || in.p.r.gate.KeyframeUrgent()):
 			// Pass-through resumes on the vehicle's next keyframe, and a
-			// console viewer can only start on one. Urgent: the vehicle
-			// answered the last request, but its keyframe could not be
-			// used (passthru.Gate.KeyframeUrgent); until the next one
-			// every real frame costs the relay an encode.
+			// console viewer can only start on one. Urgent: the display
+			// loop ended a run (passthru.Gate.KeyframeUrgent); until the
+			// next keyframe every real frame costs the relay an encode.
 			in.requestKeyframeLocked(now, "pass-through")
 		}
 		in.mu.Unlock()

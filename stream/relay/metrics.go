@@ -201,7 +201,7 @@ func (m *metrics) writeText(w io.Writer, active int, pt passthru.Stats) {
 	for r := passthru.StopInvalid + 1; int(r) < len(pt.Stops); r++ {
 		fmt.Fprintf(w, "%spassthru_stops_total{reason=%q} %d\n", p, r.String(), pt.Stops[r])
 	}
-	counter("passthru_keyframes_missed", "Vehicle keyframes that could not start a run of passed-through frames because the relay was encoding a frame of its own (another keyframe is asked for at once).", pt.MissedKeyframes)
+	counter("passthru_keyframes_waited", "Vehicle keyframes that waited for the relay to finish writing a frame of its own before they passed through.", pt.WaitedKeyframes)
 	counter("losses", "Frame losses: assembler loss events and decode errors.", m.losses.Load())
 	counter("decode_errors", "Frames the VP8 decoder could not decode.", m.decodeErrors.Load())
 	counter("keyframe_requests", "Keyframe requests (RTCP PLI) sent to the vehicle.", m.keyframeRequests.Load())
