@@ -28,8 +28,14 @@ const (
 	// the decoder waits for a keyframe (common receiver practice).
 	DefaultKeyframeRetry = 200 * time.Millisecond
 	// DefaultFrameQueue is how many decoded frames may wait for the display
-	// loop; beyond it frames are dropped and counted.
-	DefaultFrameQueue = 4
+	// loop; beyond it frames are dropped and counted. Eight frames are
+	// 267 ms at 30 fps: a gap's first PREDICTED tick (about 0.1 s of CPU
+	// at 1280x720, several times that in wall time when four relays share
+	// two cores) must not make the frames decoded meanwhile drop, since
+	// every dropped frame is a tick the relay fills itself, which ends
+	// pass-through and costs the next gap. Each waiting frame is an I420
+	// picture (1.4 MB at 1280x720) and, once converted, a BGR one.
+	DefaultFrameQueue = 8
 	// DefaultTelemetryQueue is how many telemetry samples may wait for the
 	// display loop; beyond it samples are dropped and counted.
 	DefaultTelemetryQueue = 256

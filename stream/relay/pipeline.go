@@ -106,8 +106,7 @@ func newPipeline(r *Relay, s ingest.Session) (*pipeline, error) {
 	p.free = make(chan *picture, cfg.FrameQueue)
 	p.frames = make(chan frameEvent, cfg.FrameQueue)
 	for i := range p.pool {
-		p.pool[i].bgr = gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8UC3)
-		p.free <- &p.pool[i]
+		p.free <- &p.pool[i] // BGR allocated on the picture's first conversion
 	}
 	p.tel = make(chan telEvent, cfg.TelemetryQueue)
 	if lat, final := p.clock.Latency(); final {
@@ -156,7 +155,7 @@ func (p *pipeline) close() {
 	p.out.Close()
 	p.def.close()
 	for i := range p.pool {
-		p.pool[i].bgr.Close()
+		p.pool[i].close()
 	}
 }
 
