@@ -126,8 +126,11 @@ type Config struct {
 	// deadline passed more than a period ago when it is filled is decided
 	// and recorded but not drawn (NOT_SHOWN, counted in Stats.Overruns):
 	// its picture would reach the viewer after its successor was due, and
-	// drawing it would keep a relay on a busy machine behind. A test whose
-	// Now runs faster than real time and fills ticks in batches sets it.
+	// drawing it would keep a relay on a busy machine behind. Nor is a
+	// tick without a frame drawn while a newer real frame already waits
+	// for the display loop (NOT_SHOWN, metric
+	// stopgap_ticks_not_drawn_frame_waiting_total). A test whose Now runs
+	// faster than real time and fills ticks in batches sets it.
 	DrawOverdue bool
 	// NewTimer makes the display loop's deadline timer (default: a
 	// time.Timer). Tests inject a fake.

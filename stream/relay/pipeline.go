@@ -456,6 +456,20 @@ func (p *pipeline) Missing(t cadence.Tick) {
 		p.recordNotShown(t)
 		return
 	}
+	if !p.cfg.DrawOverdue && len(p.frames) > 0 {
+		// Behind the vehicle: a real frame decoded since this catch-up
+		// began waits for the display loop (run drains the queue before
+		// every Advance, so the queue fills only while ticks are being
+		// filled). A picture for this tick (a gap's first PREDICTED tick
+		// costs about 0.1 s of CPU at 1280x720, and the relay's frame
+		// ends pass-through) would delay that frame and the ones after
+		// it, and on a busy machine make them late in turn: decided and
+		// recorded, not drawn (NOT_SHOWN, as an overrun).
+		p.r.met.framesWaiting.Add(1)
+		p.log.Debug("tick not drawn: a newer frame waits for the display loop", "tick", t.K, "waiting", len(p.frames))
+		p.recordNotShown(t)
+		return
+	}
 	if err := p.def.flush(p.filler, p.cfg.Camera.Width, p.cfg.Camera.Height); err != nil {
 		p.log.Warn("the frames before a gap could not reach the gap filler", "tick", t.K, "err", err)
 	}
