@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"sync"
+	"sync/atomic"
 	"time"
 
 	"stopgap/filter"
@@ -63,7 +64,12 @@ type frameIngest struct {
 	// linkBackRetry (see runTimers).
 	linkBack    bool
 	lastArrival time.Time // arrival of the latest packet
-	fwd         forwardSender
+	// lastArrivalNs is lastArrival in Unix nanoseconds (0: none yet), for
+	// the display loop's link statistics without in.mu: the ingest holds
+	// in.mu through each frame's decode, and every meta message waited
+	// for it.
+	lastArrivalNs atomic.Int64
+	fwd           forwardSender
 	// The capture timeline: RTP timestamp refTS was captured at refUs
 	// (arrival-anchored until the first sender report, then on the
 	// vehicle clock); later timestamps are unwrapped from it.
@@ -132,6 +138,7 @@ func (in *frameIngest) runRTP(ctx context.Context) error {
 			in.requestKeyframeLocked(in.p.cfg.Now(), "link back")
 		}
 		in.lastArrival = arrival
+		in.lastArrivalNs.Store(arrival.UnixNano())
 		if err := in.asm.Push(pkt, arrival); err != nil {
 			var pe *rtpvp8.PacketError
 			reason := "malformed"

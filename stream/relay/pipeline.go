@@ -629,9 +629,10 @@ func (p *pipeline) refreshLink() {
 	p.link.KeyframeRequests = p.r.met.keyframeRequests.Load()
 	p.link.FramesIn = p.r.met.framesIn.Load()
 	p.link.DelayMs = finite(p.lastDelayMs)
-	p.in.mu.Lock()
-	lastPkt := p.in.lastArrival
-	p.in.mu.Unlock()
+	var lastPkt time.Time
+	if ns := p.in.lastArrivalNs.Load(); ns != 0 {
+		lastPkt = time.Unix(0, ns)
+	}
 	p.link.NoPacketsMs = noPacketsMs(now, lastPkt)
 	if !p.lastStatsAt.IsZero() && now.Sub(p.lastStatsAt) < time.Second {
 		return
