@@ -30,6 +30,13 @@
 //     relay encodes a frame of its own waits until that frame is written,
 //     then starts the run.
 //
+// The relay never sends a frame of its own that shows an earlier instant
+// than the newest frame already forwarded ([Gate.BeginOwnShowing] refuses
+// it, and the run stays open): on a busy machine the vehicle's next frame
+// can pass through while the display loop still predicts the tick before
+// it, and the older picture, sent after the newer one, would stand on the
+// console's screen under the next LIVE tick's meta.
+//
 // Why not forward every packet the moment it arrives? The console's decoder
 // would get a frame before anyone knew whether it was whole, and a frame the
 // relay cannot decode could reach the operator's screen under a LIVE label.

@@ -22,12 +22,18 @@ type Gate struct {
 	// keyWaiting: a vehicle keyframe waits in Offer for the display
 	// loop's own frame to be written; the next BeginOwn waits for it.
 	keyWaiting bool
-	wantKey    atomic.Bool // a viewer needs a keyframe: ask the vehicle (no lock: see ViewerWantsKeyframe)
+	// newestFwdUs is the capture time of the newest frame forwarded
+	// (valid while haveFwdUs): an own frame showing an earlier instant is
+	// refused (BeginOwnShowing).
+	newestFwdUs int64
+	haveFwdUs   bool
+	wantKey     atomic.Bool // a viewer needs a keyframe: ask the vehicle (no lock: see ViewerWantsKeyframe)
 	// urgent: the next keyframe request should not wait for the caller's
 	// retry interval (see KeyframeUrgent).
 	urgent   atomic.Bool
 	forwards atomic.Uint64
 	waited   atomic.Uint64
+	refused  atomic.Uint64
 	stops    [stopReasonCount]atomic.Uint64
 }
 
@@ -60,6 +66,10 @@ type Frame struct {
 	Keyframe    bool
 	RefsMissing bool // frames were lost since the last keyframe
 	SizeOK      bool // a keyframe's picture size is the camera's (ignored for inter frames)
+	// CaptureUs is the frame's capture time on the display loop's
+	// timeline, if known (HasCapture); see BeginOwnShowing.
+	CaptureUs  int64
+	HasCapture bool
 }
 
 // Sender sends a frame the Gate lets through (the console's ForwardFrame).
@@ -123,7 +133,19 @@ func (g *Gate) Offer(f Frame, send Sender) bool {
 	}
 	g.run, g.lastFwd = true, true
 	g.forwards.Add(1)
+	if f.HasCapture && (!g.haveFwdUs || f.CaptureUs > g.newestFwdUs) {
+		g.newestFwdUs, g.haveFwdUs = f.CaptureUs, true
+	}
 	return true
+}
+
+// ForgetCaptureTimes forgets the capture time of the newest frame
+// forwarded: the display loop's timeline changed (a new session, or capture
+// times moved onto the vehicle clock), so it cannot be compared any more.
+func (g *Gate) ForgetCaptureTimes() {
+	g.mu.Lock()
+	g.haveFwdUs = false
+	g.mu.Unlock()
 }
 
 // Decoded reports the relay's decode of the last frame offered: a failure of
@@ -145,19 +167,40 @@ func (g *Gate) Lost() {
 	g.mu.Unlock()
 }
 
-// BeginOwn is called by the display loop before it encodes a frame of its
-// own; it ends the run (StopOwnFrame) and keeps forwarding off until
-// EndOwn. It reports whether the encoder must make this frame a keyframe:
-// the console's last frame was forwarded, so its decoder holds the vehicle's
-// references, not the relay encoder's.
+// BeginOwn is BeginOwnShowing for a frame whose instant is not compared
+// with the forwarded frames': it is never refused.
+func (g *Gate) BeginOwn() (forceKey bool) {
+	forceKey, _ = g.beginOwn(0, false)
+	return forceKey
+}
+
+// BeginOwnShowing is called by the display loop before it encodes a frame
+// of its own that shows the instant showsUs (a filled tick's target, or a
+// transcoded real frame's capture time, on the timeline of Frame.CaptureUs).
+// It refuses (ok false, nothing changed, no EndOwn due) when a frame
+// captured after showsUs was forwarded already: the console shows that
+// newer real picture, and an older picture sent after it would stand on
+// screen under the meta of the next LIVE tick. Otherwise it ends the run
+// (StopOwnFrame) and keeps forwarding off until EndOwn, and reports whether
+// the encoder must make this frame a keyframe: the console's last frame was
+// forwarded, so its decoder holds the vehicle's references, not the relay
+// encoder's.
 //
 // A vehicle keyframe waiting in Offer goes first (a send, microseconds).
-func (g *Gate) BeginOwn() (forceKey bool) {
+func (g *Gate) BeginOwnShowing(showsUs int64) (forceKey, ok bool) {
+	return g.beginOwn(showsUs, true)
+}
+
+func (g *Gate) beginOwn(showsUs int64, compare bool) (forceKey, ok bool) {
 	g.mu.Lock()
 	defer g.mu.Unlock()
 	g.initLocked()
 	for g.keyWaiting {
 		g.cond.Wait()
+	}
+	if compare && g.haveFwdUs && g.newestFwdUs > showsUs {
+		g.refused.Add(1)
+		return false, false
 	}
 	if g.run {
 		// The vehicle's keyframe that opened this run may have come
@@ -169,7 +212,7 @@ func (g *Gate) BeginOwn() (forceKey bool) {
 	g.own = true
 	forceKey = g.lastFwd
 	g.lastFwd = false
-	return forceKey
+	return forceKey, true
 }
 
 // EndOwn is called after the own frame was written (or given up).
@@ -236,6 +279,9 @@ type Stats struct {
 	// WaitedKeyframes counts vehicle keyframes that waited in Offer for
 	// the display loop to finish writing a frame of its own.
 	WaitedKeyframes uint64
+	// RefusedOwn counts own frames BeginOwnShowing refused: a newer real
+	// frame had been forwarded.
+	RefusedOwn uint64
 }
 
 // Stats returns the counters.
@@ -243,6 +289,7 @@ func (g *Gate) Stats() Stats {
 	var s Stats
 	s.Forwarded = g.forwards.Load()
 	s.WaitedKeyframes = g.waited.Load()
+	s.RefusedOwn = g.refused.Load()
 	for i := range s.Stops {
 		s.Stops[i] = g.stops[i].Load()
 	}

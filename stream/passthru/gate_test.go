@@ -232,3 +232,39 @@ func TestGateSendMayAskForKeyframe(t *testing.T) {
 		t.Fatal("Offer deadlocked when its send asked for a keyframe")
 	}
 }
+
+// TestGateRefusesOlderOwnFrame: an own frame showing an instant before the
+// newest forwarded frame's capture is refused, and changes nothing (the
+// run stays open, no keyframe forced, no EndOwn due); a later instant, a
+// frame without a time (BeginOwn) and any frame after ForgetCaptureTimes
+// are not.
+func TestGateRefusesOlderOwnFrame(t *testing.T) {
+	send := SenderFunc(func() error { return nil })
+	var g Gate
+	g.Offer(Frame{Keyframe: true, SizeOK: true, CaptureUs: 100, HasCapture: true}, send)
+	g.Offer(Frame{CaptureUs: 133, HasCapture: true}, send)
+	if force, ok := g.BeginOwnShowing(120); ok || force {
+		t.Errorf("own frame at 120 after a forwarded one at 133: ok %v force %v, want refused", ok, force)
+	}
+	if !g.Forwarding() || g.Stats().RefusedOwn != 1 {
+		t.Errorf("after a refusal: forwarding %v, stats %+v; want the run open, one refused", g.Forwarding(), g.Stats())
+	}
+	if !g.Offer(Frame{CaptureUs: 166, HasCapture: true}, send) {
+		t.Error("a refused own frame blocked forwarding")
+	}
+	if force, ok := g.BeginOwnShowing(200); !ok || !force {
+		t.Errorf("own frame at 200: ok %v force %v, want a keyframe", ok, force)
+	}
+	g.EndOwn()
+	g.Offer(Frame{Keyframe: true, SizeOK: true, CaptureUs: 233, HasCapture: true}, send)
+	if !g.BeginOwn() {
+		t.Error("BeginOwn refused or no keyframe")
+	}
+	g.EndOwn()
+	g.Offer(Frame{Keyframe: true, SizeOK: true, CaptureUs: 300, HasCapture: true}, send)
+	g.ForgetCaptureTimes()
+	if _, ok := g.BeginOwnShowing(0); !ok {
+		t.Error("refused after ForgetCaptureTimes")
+	}
+	g.EndOwn()
+}

@@ -129,8 +129,11 @@ type Config struct {
 	// drawing it would keep a relay on a busy machine behind. Nor is a
 	// tick without a frame drawn while a newer real frame already waits
 	// for the display loop (NOT_SHOWN, metric
-	// stopgap_ticks_not_drawn_frame_waiting_total). A test whose Now runs
-	// faster than real time and fills ticks in batches sets it.
+	// stopgap_ticks_not_drawn_frame_waiting_total), nor sent a frame of
+	// the relay's own that shows an earlier instant than a frame already
+	// passed through (passthru.Gate.BeginOwnShowing). A test whose Now
+	// runs faster than real time and fills ticks in batches sets it: its
+	// ingest runs ahead of the display loop by design.
 	DrawOverdue bool
 	// NewTimer makes the display loop's deadline timer (default: a
 	// time.Timer). Tests inject a fake.

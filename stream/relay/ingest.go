@@ -321,6 +321,7 @@ func (in *frameIngest) forward(f rtpvp8.Frame) (bool, time.Time) {
 	p := in.p
 	gf := passthru.Frame{Keyframe: f.Keyframe, RefsMissing: f.RefsMissing,
 		SizeOK: f.Width == p.cfg.Camera.Width && f.Height == p.cfg.Camera.Height}
+	gf.CaptureUs, gf.HasCapture = in.peekCaptureUs(f.RTPTimestamp)
 	in.fwd = forwardSender{in: in, parts: f.Parts, rtpTS: f.RTPTimestamp}
 	ok := p.r.gate.Offer(gf, &in.fwd)
 	if ok {
@@ -393,6 +394,22 @@ func (in *frameIngest) captureTime(f rtpvp8.Frame, ev *frameEvent) {
 	ev.captureUs = in.refUs + ticksToUs(ext)
 	ev.vehicleClk = in.onVehicle
 	ev.rtpTS = f.RTPTimestamp
+}
+
+// peekCaptureUs returns the capture time captureTime will give a frame
+// with RTP timestamp ts, without changing the timeline; ok is false before
+// the first frame and when this frame is the one that moves the timeline
+// onto the vehicle clock (the first sender report has come). in.mu is held.
+func (in *frameIngest) peekCaptureUs(ts uint32) (us int64, ok bool) {
+	if !in.haveAnchor {
+		return 0, false
+	}
+	if !in.onVehicle {
+		if _, sr := in.p.sess.SenderReport(); sr {
+			return 0, false
+		}
+	}
+	return in.refUs + ticksToUs(in.lastExt+int64(int32(ts-in.lastTS))), true
 }
 
 // ticksToUs converts 90 kHz ticks to microseconds, rounding to nearest.

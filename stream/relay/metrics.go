@@ -203,6 +203,7 @@ func (m *metrics) writeText(w io.Writer, active int, pt passthru.Stats) {
 	for r := passthru.StopInvalid + 1; int(r) < len(pt.Stops); r++ {
 		fmt.Fprintf(w, "%spassthru_stops_total{reason=%q} %d\n", p, r.String(), pt.Stops[r])
 	}
+	counter("passthru_own_refused", "Frames of the relay's own not sent because a newer real frame had passed through already (a filled tick becomes not_shown, a transcoded one superseded).", pt.RefusedOwn)
 	counter("passthru_keyframes_waited", "Vehicle keyframes that waited for the relay to finish writing a frame of its own before they passed through.", pt.WaitedKeyframes)
 	counter("losses", "Frame losses: assembler loss events and decode errors.", m.losses.Load())
 	counter("decode_errors", "Frames the VP8 decoder could not decode.", m.decodeErrors.Load())
