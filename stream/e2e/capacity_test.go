@@ -209,12 +209,13 @@ func relayDrops(m map[string]float64, base string) (uint64, error) {
 // its CPU went where it did (logged beside the figures).
 func relayWork(m0, m1 map[string]float64) string {
 	d := func(name string) float64 { return m1[relay.MetricPrefix+name] - m0[relay.MetricPrefix+name] }
-	return fmt.Sprintf("forwarded %.0f, encoded %.0f, superseded %.0f, ticks live/predicted/stale/not_shown %.0f/%.0f/%.0f/%.0f, late %.0f, dropped %.0f, pass-through stops loss/decode/own/size %.0f/%.0f/%.0f/%.0f, keyframes missed %.0f, keyframe requests %.0f",
+	return fmt.Sprintf("forwarded %.0f, encoded %.0f, superseded %.0f, ticks live/predicted/stale/not_shown %.0f/%.0f/%.0f/%.0f (not drawn: overrun %.0f, frame waiting %.0f), late %.0f, dropped %.0f, pass-through stops loss/decode/own/size %.0f/%.0f/%.0f/%.0f, keyframes waited %.0f, keyframe requests %.0f",
 		d("frames_forwarded_total"), d("encode_seconds_count"), d("frames_superseded_total"),
 		d(`ticks_total{state="live"}`), d(`ticks_total{state="predicted"}`), d(`ticks_total{state="stale"}`), d(`ticks_total{state="not_shown"}`),
+		d("tick_overruns_total"), d("ticks_not_drawn_frame_waiting_total"),
 		d("late_frames_total"), d("frames_dropped_total"),
 		d(`passthru_stops_total{reason="loss"}`), d(`passthru_stops_total{reason="decode-failed"}`), d(`passthru_stops_total{reason="own-frame"}`), d(`passthru_stops_total{reason="bad-size"}`),
-		d("passthru_keyframes_missed_total"), d("keyframe_requests_total"))
+		d("passthru_keyframes_waited_total"), d("keyframe_requests_total"))
 }
 
 // BenchmarkCapacity1280x720 runs N vehicles at once, each with its own relay
@@ -253,7 +254,8 @@ func relayWork(m0, m1 map[string]float64) string {
 // The egress mode is STOPGAP_E2E_EGRESS (egress_test.go). The load average
 // at the start and end of the window is logged. With STOPGAP_E2E_PROFILE_DIR
 // set, each relay process writes a CPU profile of the window there
-// (capacity-N<n>-relay<i>.pprof; read it with go tool pprof).
+// (capacity-N<n>-relay<i>.pprof, capacity-transcode-N<n>-relay<i>.pprof
+// with the transcode egress; read it with go tool pprof).
 func BenchmarkCapacity1280x720(b *testing.B) {
 	mode := requireEgress(b)
 	ns := []int{1, 2, 4}
@@ -329,7 +331,15 @@ func loadAvg() float64 {
 	return v
 }
 
-func runCapacity(b *testing.B, rec *recording.Recording, drive string, n int, mode string, decode bool) {
+// capacityResult is what one runCapacity measured.
+type capacityResult struct {
+	kept       int     // streams that kept up
+	relayCores float64 // CPU of all relay processes / wall time
+}
+
+// runCapacity runs n streams whose relay children use egress mode (see
+// egressEnv) and reports the figures BenchmarkCapacity1280x720 lists.
+func runCapacity(b *testing.B, rec *recording.Recording, drive string, n int, mode string, decode bool) capacityResult {
 	ctx, cancel := context.WithTimeout(context.Background(), 2*time.Minute)
 	defer cancel()
 	streams := make([]*capStream, n)
@@ -358,7 +368,7 @@ func runCapacity(b *testing.B, rec *recording.Recording, drive string, n int, mo
 		streams[i] = s
 	}
 	for i, s := range streams {
-		s.relay = startChild(b, "relay", relayChildEnv(drive)...)
+		s.relay = startChild(b, "relay", append(relayChildEnv(drive), egressEnv+"="+mode)...)
 		recv, err := newCapReceiver(decode)
 		if err != nil {
 			b.Fatal(err)
@@ -425,7 +435,11 @@ func runCapacity(b *testing.B, rec *recording.Recording, drive string, n int, mo
 		bases[i] = s.relay.ready
 	}
 	const window = 6 * time.Second
-	profiled := profileRelays(b, fmt.Sprintf("capacity-N%d", n), bases, window)
+	name := fmt.Sprintf("capacity-N%d", n)
+	if mode != "passthru" {
+		name = fmt.Sprintf("capacity-%s-N%d", mode, n)
+	}
+	profiled := profileRelays(b, name, bases, window)
 	rc0, self0, wall0 := relayCPU(), cpuTime(b), time.Now()
 	time.Sleep(window)
 	rc1, self1, wall1 := relayCPU(), cpuTime(b), time.Now()
@@ -521,4 +535,41 @@ func runCapacity(b *testing.B, rec *recording.Recording, drive string, n int, mo
 	b.ReportMetric(rss/(1<<20), "relay-rss-mb")
 	b.Logf("N=%d egress %s, viewers decode %v: window %v, %d LIVE latencies matched; load average %.2f at the start, %.2f at the end",
 		n, mode, decode, wall.Round(time.Millisecond), len(lat), load0, load1)
+	return capacityResult{kept: kept, relayCores: relayCores}
+}
+
+// BenchmarkRelayCPU1280x720 measures the relay's own CPU per 1280x720 30 fps
+// stream with LIVE frames passed through (mode=passthru) and with every
+// frame through the relay's encoder (mode=transcode), one after the other in
+// the same run: one stream each, the relay a child process whose CPU comes
+// from /proc/PID/stat, so the vehicle's packetising and SRTP and the
+// viewer's reads and decode (this process) are not counted as the relay's,
+// unlike in BenchmarkLoopback1280x720. Each mode is a runCapacity run with
+// N=1 (figures as in BenchmarkCapacity1280x720); the parent logs the ratio
+// of the relay's cores. Target: pass-through at most a third of transcode.
+// With STOPGAP_E2E_PROFILE_DIR set each relay writes a CPU profile
+// (capacity-N1-relay0.pprof, capacity-transcode-N1-relay0.pprof).
+func BenchmarkRelayCPU1280x720(b *testing.B) {
+	dir := b.TempDir()
+	drive := renderDrive(b, dir, 1280, 720, 3)
+	rec, err := recording.Open(drive)
+	if err != nil {
+		b.Fatal(err)
+	}
+	res := map[string]capacityResult{}
+	for _, mode := range []string{"passthru", "transcode"} {
+		if err := applyEgress(&relay.Config{}, mode); err != nil {
+			b.Fatal(err)
+		}
+		b.Run("mode="+mode, func(b *testing.B) {
+			for range b.N {
+				res[mode] = runCapacity(b, rec, drive, 1, mode, true)
+			}
+		})
+	}
+	pt, tc := res["passthru"], res["transcode"]
+	if pt.relayCores > 0 && tc.relayCores > 0 {
+		b.Logf("relay process CPU per stream, pass-through / transcode in this run: %.3f / %.3f cores = %.2f (target <= 0.33); kept up %d and %d of 1",
+			pt.relayCores, tc.relayCores, pt.relayCores/tc.relayCores, pt.kept, tc.kept)
+	}
 }

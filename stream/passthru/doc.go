@@ -25,10 +25,17 @@
 //   - a display tick is filled by the relay (PREDICTED or STALE, or a late
 //     frame): the relay's encoder takes over starting with a keyframe, and
 //     keeps encoding the real frames (transcoding) until the vehicle's next
-//     keyframe, which [Gate.WantKeyframe] asks for. A keyframe that arrives
-//     while the relay encodes a frame of its own cannot start a run; the
-//     next request then goes out at once ([Gate.KeyframeUrgent]) rather
-//     than after the caller's retry interval.
+//     keyframe, which [Gate.WantKeyframe] asks for (at once when a run
+//     ends, [Gate.KeyframeUrgent]). A keyframe that arrives while the
+//     relay encodes a frame of its own waits until that frame is written,
+//     then starts the run.
+//
+// The relay never sends a frame of its own that shows an earlier instant
+// than the newest frame already forwarded ([Gate.BeginOwnShowing] refuses
+// it, and the run stays open): on a busy machine the vehicle's next frame
+// can pass through while the display loop still predicts the tick before
+// it, and the older picture, sent after the newer one, would stand on the
+// console's screen under the next LIVE tick's meta.
 //
 // Why not forward every packet the moment it arrives? The console's decoder
 // would get a frame before anyone knew whether it was whole, and a frame the

@@ -2,6 +2,8 @@ package passthru
 
 import (
 	"errors"
+	"slices"
+	"sync"
 	"testing"
 	"time"
 )
@@ -126,25 +128,57 @@ func TestGate(t *testing.T) {
 }
 
 // TestGateOwnFrameBlocksForwarding: while the display loop writes its own
-// frame, not even a keyframe is forwarded (it would arrive at the console
-// between the relay's keyframe decision and its frame).
+// frame, no inter frame is forwarded, and a keyframe waits until EndOwn (it
+// would otherwise arrive at the console between the relay's keyframe
+// decision and its frame); it then starts the run, and the display loop's
+// next BeginOwn comes after its send.
 func TestGateOwnFrameBlocksForwarding(t *testing.T) {
 	var g Gate
+	var order []string
+	var mu sync.Mutex
+	note := func(s string) { mu.Lock(); order = append(order, s); mu.Unlock() }
 	g.BeginOwn()
-	if g.Offer(Frame{Keyframe: true, SizeOK: true}, SenderFunc(func() error { return nil })) {
-		t.Error("keyframe forwarded while an own frame is being written")
+	if g.Offer(Frame{}, SenderFunc(func() error { return nil })) {
+		t.Error("inter frame forwarded while an own frame is being written")
 	}
+	done := make(chan bool)
+	go func() {
+		done <- g.Offer(Frame{Keyframe: true, SizeOK: true}, SenderFunc(func() error { note("key sent"); return nil }))
+	}()
+	// Wait until the keyframe waits (counted), then end the own frame.
+	for deadline := time.Now().Add(5 * time.Second); g.Stats().WaitedKeyframes == 0; time.Sleep(time.Millisecond) {
+		if time.Now().After(deadline) {
+			t.Fatal("the keyframe never waited")
+		}
+	}
+	select {
+	case <-done:
+		t.Fatal("keyframe offer returned while an own frame is being written")
+	default:
+	}
+	note("own ended")
 	g.EndOwn()
-	if !g.Offer(Frame{Keyframe: true, SizeOK: true}, SenderFunc(func() error { return nil })) {
-		t.Error("keyframe not forwarded after EndOwn")
+	g.BeginOwn() // must come after the keyframe's send
+	note("own begun")
+	g.EndOwn()
+	select {
+	case ok := <-done:
+		if !ok {
+			t.Error("keyframe not forwarded after EndOwn")
+		}
+	case <-time.After(5 * time.Second):
+		t.Fatal("keyframe offer never returned")
+	}
+	want := []string{"own ended", "key sent", "own begun"}
+	if !slices.Equal(order, want) {
+		t.Errorf("order %v, want %v", order, want)
 	}
 }
 
 // TestGateKeyframeUrgent: the next keyframe request skips the caller's
-// retry interval when a vehicle keyframe came while the display loop wrote
-// its own frame (counted as missed) or when the display loop ended an open
-// run, and waits again once a request went out; a filled tick with no run
-// open, or always-transcode, does not hurry anything.
+// retry interval when the display loop ended an open run, and waits again
+// once a request went out; a filled tick with no run open, or
+// always-transcode, does not hurry anything.
 func TestGateKeyframeUrgent(t *testing.T) {
 	send := SenderFunc(func() error { return nil })
 	key := Frame{Keyframe: true, SizeOK: true}
@@ -153,15 +187,13 @@ func TestGateKeyframeUrgent(t *testing.T) {
 		off    bool
 		steps  func(g *Gate)
 		urgent bool
-		missed uint64
 	}{
-		{"nothing happened", false, func(g *Gate) {}, false, 0},
-		{"a filled tick before any run", false, func(g *Gate) { g.BeginOwn(); g.EndOwn() }, false, 0},
-		{"a filled tick ends a run", false, func(g *Gate) { g.Offer(key, send); g.BeginOwn(); g.EndOwn() }, true, 0},
-		{"a keyframe during an own frame", false, func(g *Gate) { g.BeginOwn(); g.Offer(key, send); g.EndOwn() }, true, 1},
-		{"an inter frame during an own frame", false, func(g *Gate) { g.BeginOwn(); g.Offer(Frame{}, send); g.EndOwn() }, false, 0},
-		{"answered by a request", false, func(g *Gate) { g.BeginOwn(); g.Offer(key, send); g.EndOwn(); g.KeyframeRequested() }, false, 1},
-		{"always-transcode", true, func(g *Gate) { g.BeginOwn(); g.Offer(key, send); g.EndOwn() }, false, 0},
+		{"nothing happened", false, func(g *Gate) {}, false},
+		{"a filled tick before any run", false, func(g *Gate) { g.BeginOwn(); g.EndOwn() }, false},
+		{"a filled tick ends a run", false, func(g *Gate) { g.Offer(key, send); g.BeginOwn(); g.EndOwn() }, true},
+		{"an inter frame during an own frame", false, func(g *Gate) { g.BeginOwn(); g.Offer(Frame{}, send); g.EndOwn() }, false},
+		{"answered by a request", false, func(g *Gate) { g.Offer(key, send); g.BeginOwn(); g.EndOwn(); g.KeyframeRequested() }, false},
+		{"always-transcode", true, func(g *Gate) { g.Offer(key, send); g.BeginOwn(); g.EndOwn() }, false},
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
@@ -169,9 +201,6 @@ func TestGateKeyframeUrgent(t *testing.T) {
 			tc.steps(g)
 			if got := g.KeyframeUrgent(); got != tc.urgent {
 				t.Errorf("KeyframeUrgent %v, want %v", got, tc.urgent)
-			}
-			if got := g.Stats().MissedKeyframes; got != tc.missed {
-				t.Errorf("missed keyframes %d, want %d", got, tc.missed)
 			}
 		})
 	}
@@ -202,4 +231,40 @@ func TestGateSendMayAskForKeyframe(t *testing.T) {
 	case <-time.After(5 * time.Second):
 		t.Fatal("Offer deadlocked when its send asked for a keyframe")
 	}
+}
+
+// TestGateRefusesOlderOwnFrame: an own frame showing an instant before the
+// newest forwarded frame's capture is refused, and changes nothing (the
+// run stays open, no keyframe forced, no EndOwn due); a later instant, a
+// frame without a time (BeginOwn) and any frame after ForgetCaptureTimes
+// are not.
+func TestGateRefusesOlderOwnFrame(t *testing.T) {
+	send := SenderFunc(func() error { return nil })
+	var g Gate
+	g.Offer(Frame{Keyframe: true, SizeOK: true, CaptureUs: 100, HasCapture: true}, send)
+	g.Offer(Frame{CaptureUs: 133, HasCapture: true}, send)
+	if force, ok := g.BeginOwnShowing(120); ok || force {
+		t.Errorf("own frame at 120 after a forwarded one at 133: ok %v force %v, want refused", ok, force)
+	}
+	if !g.Forwarding() || g.Stats().RefusedOwn != 1 {
+		t.Errorf("after a refusal: forwarding %v, stats %+v; want the run open, one refused", g.Forwarding(), g.Stats())
+	}
+	if !g.Offer(Frame{CaptureUs: 166, HasCapture: true}, send) {
+		t.Error("a refused own frame blocked forwarding")
+	}
+	if force, ok := g.BeginOwnShowing(200); !ok || !force {
+		t.Errorf("own frame at 200: ok %v force %v, want a keyframe", ok, force)
+	}
+	g.EndOwn()
+	g.Offer(Frame{Keyframe: true, SizeOK: true, CaptureUs: 233, HasCapture: true}, send)
+	if !g.BeginOwn() {
+		t.Error("BeginOwn refused or no keyframe")
+	}
+	g.EndOwn()
+	g.Offer(Frame{Keyframe: true, SizeOK: true, CaptureUs: 300, HasCapture: true}, send)
+	g.ForgetCaptureTimes()
+	if _, ok := g.BeginOwnShowing(0); !ok {
+		t.Error("refused after ForgetCaptureTimes")
+	}
+	g.EndOwn()
 }

@@ -70,6 +70,7 @@ func BenchmarkTick720p(b *testing.B) {
 	captureOf := func(k int) int64 { return t0 + int64(math.Round(float64(k)*periodUs)) }
 	live := func(k int, img gocv.Mat) {
 		m := <-p.free
+		m.allocBGR(img.Cols(), img.Rows())
 		img.CopyTo(&m.bgr)
 		m.hasBGR = true
 		c := captureOf(k)

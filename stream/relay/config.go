@@ -28,8 +28,14 @@ const (
 	// the decoder waits for a keyframe (common receiver practice).
 	DefaultKeyframeRetry = 200 * time.Millisecond
 	// DefaultFrameQueue is how many decoded frames may wait for the display
-	// loop; beyond it frames are dropped and counted.
-	DefaultFrameQueue = 4
+	// loop; beyond it frames are dropped and counted. Eight frames are
+	// 267 ms at 30 fps: a gap's first PREDICTED tick (about 0.1 s of CPU
+	// at 1280x720, several times that in wall time when four relays share
+	// two cores) must not make the frames decoded meanwhile drop, since
+	// every dropped frame is a tick the relay fills itself, which ends
+	// pass-through and costs the next gap. Each waiting frame is an I420
+	// picture (1.4 MB at 1280x720) and, once converted, a BGR one.
+	DefaultFrameQueue = 8
 	// DefaultTelemetryQueue is how many telemetry samples may wait for the
 	// display loop; beyond it samples are dropped and counted.
 	DefaultTelemetryQueue = 256
@@ -120,8 +126,14 @@ type Config struct {
 	// deadline passed more than a period ago when it is filled is decided
 	// and recorded but not drawn (NOT_SHOWN, counted in Stats.Overruns):
 	// its picture would reach the viewer after its successor was due, and
-	// drawing it would keep a relay on a busy machine behind. A test whose
-	// Now runs faster than real time and fills ticks in batches sets it.
+	// drawing it would keep a relay on a busy machine behind. Nor is a
+	// tick without a frame drawn while a newer real frame already waits
+	// for the display loop (NOT_SHOWN, metric
+	// stopgap_ticks_not_drawn_frame_waiting_total), nor sent a frame of
+	// the relay's own that shows an earlier instant than a frame already
+	// passed through (passthru.Gate.BeginOwnShowing). A test whose Now
+	// runs faster than real time and fills ticks in batches sets it: its
+	// ingest runs ahead of the display loop by design.
 	DrawOverdue bool
 	// NewTimer makes the display loop's deadline timer (default: a
 	// time.Timer). Tests inject a fake.

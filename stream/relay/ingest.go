@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"sync"
+	"sync/atomic"
 	"time"
 
 	"stopgap/filter"
@@ -67,7 +68,12 @@ type frameIngest struct {
 	// timer during the current video silence (backFromInbound); zero
 	// while video flows.
 	lastInbound time.Time
-	fwd         forwardSender
+	// lastArrivalNs is lastArrival in Unix nanoseconds (0: none yet), for
+	// the display loop's link statistics without in.mu: the ingest holds
+	// in.mu through each frame's decode, and every meta message waited
+	// for it.
+	lastArrivalNs atomic.Int64
+	fwd           forwardSender
 	// The capture timeline: RTP timestamp refTS was captured at refUs
 	// (arrival-anchored until the first sender report, then on the
 	// vehicle clock); later timestamps are unwrapped from it.
@@ -148,6 +154,7 @@ func (in *frameIngest) runRTP(ctx context.Context) error {
 			}
 		}
 		in.lastArrival = arrival
+		in.lastArrivalNs.Store(arrival.UnixNano())
 		if err := in.asm.Push(pkt, arrival); err != nil {
 			var pe *rtpvp8.PacketError
 			reason := "malformed"
@@ -197,10 +204,9 @@ func (in *frameIngest) runTimers(ctx context.Context) {
 			in.requestKeyframeLocked(now, "retry")
 		case in.p.r.gate.WantKeyframe() && (now.Sub(in.lastKeyReq) >= in.p.cfg.KeyframeRetry || in.p.r.gate.KeyframeUrgent()):
 			// Pass-through resumes on the vehicle's next keyframe, and a
-			// console viewer can only start on one. Urgent: the vehicle
-			// answered the last request, but its keyframe could not be
-			// used (passthru.Gate.KeyframeUrgent); until the next one
-			// every real frame costs the relay an encode.
+			// console viewer can only start on one. Urgent: the display
+			// loop ended a run (passthru.Gate.KeyframeUrgent); until the
+			// next keyframe every real frame costs the relay an encode.
 			in.requestKeyframeLocked(now, "pass-through")
 		}
 		wait := every
@@ -362,6 +368,7 @@ func (in *frameIngest) forward(f rtpvp8.Frame) (bool, time.Time) {
 	p := in.p
 	gf := passthru.Frame{Keyframe: f.Keyframe, RefsMissing: f.RefsMissing,
 		SizeOK: f.Width == p.cfg.Camera.Width && f.Height == p.cfg.Camera.Height}
+	gf.CaptureUs, gf.HasCapture = in.peekCaptureUs(f.RTPTimestamp)
 	in.fwd = forwardSender{in: in, parts: f.Parts, rtpTS: f.RTPTimestamp}
 	ok := p.r.gate.Offer(gf, &in.fwd)
 	if ok {
@@ -434,6 +441,22 @@ func (in *frameIngest) captureTime(f rtpvp8.Frame, ev *frameEvent) {
 	ev.captureUs = in.refUs + ticksToUs(ext)
 	ev.vehicleClk = in.onVehicle
 	ev.rtpTS = f.RTPTimestamp
+}
+
+// peekCaptureUs returns the capture time captureTime will give a frame
+// with RTP timestamp ts, without changing the timeline; ok is false before
+// the first frame and when this frame is the one that moves the timeline
+// onto the vehicle clock (the first sender report has come). in.mu is held.
+func (in *frameIngest) peekCaptureUs(ts uint32) (us int64, ok bool) {
+	if !in.haveAnchor {
+		return 0, false
+	}
+	if !in.onVehicle {
+		if _, sr := in.p.sess.SenderReport(); sr {
+			return 0, false
+		}
+	}
+	return in.refUs + ticksToUs(in.lastExt+int64(int32(ts-in.lastTS))), true
 }
 
 // ticksToUs converts 90 kHz ticks to microseconds, rounding to nearest.

@@ -133,6 +133,7 @@ type metrics struct {
 	framesIn, losses, keyframeRequests, keyframeRequestsFailed atomic.Uint64
 	ticks                                                      [len(display.States) + 1]atomic.Uint64 // by display.State
 	lateFrames, decodeErrors, framesDropped, overruns          atomic.Uint64
+	framesWaiting                                              atomic.Uint64 // ticks not drawn: a newer frame waited (pipeline.Missing)
 	framesMovedOn, framesResumed                               atomic.Uint64
 	framesSuperseded                                           atomic.Uint64
 	telemetryIn, recordErrors, sessions                        atomic.Uint64
@@ -182,6 +183,7 @@ func (m *metrics) writeText(w io.Writer, active int, pt passthru.Stats) {
 	}
 	counter("frames_in", "Video frames received complete and decoded.", m.framesIn.Load())
 	counter("tick_overruns", "Ticks decided but not drawn (not_shown) because the display loop was more than a period behind their deadline: the machine is too busy for the relay.", m.overruns.Load())
+	counter("ticks_not_drawn_frame_waiting", "Ticks without a frame decided but not drawn (not_shown) because a newer real frame already waited for the display loop: the machine is too busy for the relay.", m.framesWaiting.Load())
 	fmt.Fprintf(w, "# HELP %[1]sticks_total Display ticks decided, by state.\n# TYPE %[1]sticks_total counter\n", p)
 	for _, st := range display.States {
 		fmt.Fprintf(w, "%sticks_total{state=%q} %d\n", p, strings.ToLower(st.String()), m.ticks[st].Load())
@@ -201,7 +203,8 @@ func (m *metrics) writeText(w io.Writer, active int, pt passthru.Stats) {
 	for r := passthru.StopInvalid + 1; int(r) < len(pt.Stops); r++ {
 		fmt.Fprintf(w, "%spassthru_stops_total{reason=%q} %d\n", p, r.String(), pt.Stops[r])
 	}
-	counter("passthru_keyframes_missed", "Vehicle keyframes that could not start a run of passed-through frames because the relay was encoding a frame of its own (another keyframe is asked for at once).", pt.MissedKeyframes)
+	counter("passthru_own_refused", "Frames of the relay's own not sent because a newer real frame had passed through already (a filled tick becomes not_shown, a transcoded one superseded).", pt.RefusedOwn)
+	counter("passthru_keyframes_waited", "Vehicle keyframes that waited for the relay to finish writing a frame of its own before they passed through.", pt.WaitedKeyframes)
 	counter("losses", "Frame losses: assembler loss events and decode errors.", m.losses.Load())
 	counter("decode_errors", "Frames the VP8 decoder could not decode.", m.decodeErrors.Load())
 	counter("keyframe_requests", "Keyframe requests (RTCP PLI) sent to the vehicle.", m.keyframeRequests.Load())

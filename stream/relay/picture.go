@@ -11,7 +11,8 @@ import (
 
 // picture is one decoded frame on its way from the ingest to the display
 // loop: the decoder's I420 planes (img) and, once converted, the same
-// picture in BGR (bgr, valid while hasBGR). The pipeline's pool of pictures
+// picture in BGR (bgr, valid while hasBGR; allocated by the first toBGR).
+// The pipeline's pool of pictures
 // bounds the frames in flight: the ingest takes one from pipeline.free,
 // decodes into it and hands it over in a frameEvent; the display loop
 // returns it.
@@ -27,11 +28,30 @@ type picture struct {
 	hasBGR bool
 }
 
-// toBGR converts the I420 planes into bgr, once.
+// allocBGR allocates bgr at width x height unless it exists (the pool's
+// pictures all have the camera's size).
+func (pc *picture) allocBGR(width, height int) {
+	if pc.bgr.Ptr() == nil {
+		pc.bgr = gocv.NewMatWithSize(height, width, gocv.MatTypeCV8UC3)
+	}
+}
+
+// close frees bgr if it was allocated.
+func (pc *picture) close() {
+	if pc.bgr.Ptr() != nil {
+		pc.bgr.Close()
+	}
+}
+
+// toBGR converts the I420 planes into bgr, once. bgr is allocated on the
+// first conversion (the picture's size: the camera's, checked by the ingest)
+// and kept: a relay whose frames pass through converts few of them, so most
+// pictures of the pool never need one.
 func (pc *picture) toBGR() error {
 	if pc.hasBGR {
 		return nil
 	}
+	pc.allocBGR(pc.img.Width, pc.img.Height)
 	buf, err := pc.bgr.DataPtrUint8()
 	if err == nil {
 		err = vp8.I420ToBGR(buf, &pc.img)

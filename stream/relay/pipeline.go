@@ -106,10 +106,10 @@ func newPipeline(r *Relay, s ingest.Session) (*pipeline, error) {
 	p.free = make(chan *picture, cfg.FrameQueue)
 	p.frames = make(chan frameEvent, cfg.FrameQueue)
 	for i := range p.pool {
-		p.pool[i].bgr = gocv.NewMatWithSize(cfg.Camera.Height, cfg.Camera.Width, gocv.MatTypeCV8UC3)
-		p.free <- &p.pool[i]
+		p.free <- &p.pool[i] // BGR allocated on the picture's first conversion
 	}
 	p.tel = make(chan telEvent, cfg.TelemetryQueue)
+	r.gate.ForgetCaptureTimes() // a new session's timeline
 	if lat, final := p.clock.Latency(); final {
 		r.setLatency(lat, true)
 	}
@@ -156,7 +156,7 @@ func (p *pipeline) close() {
 	p.out.Close()
 	p.def.close()
 	for i := range p.pool {
-		p.pool[i].bgr.Close()
+		p.pool[i].close()
 	}
 }
 
@@ -457,6 +457,20 @@ func (p *pipeline) Missing(t cadence.Tick) {
 		p.recordNotShown(t)
 		return
 	}
+	if !p.cfg.DrawOverdue && len(p.frames) > 0 {
+		// Behind the vehicle: a real frame decoded since this catch-up
+		// began waits for the display loop (run drains the queue before
+		// every Advance, so the queue fills only while ticks are being
+		// filled). A picture for this tick (a gap's first PREDICTED tick
+		// costs about 0.1 s of CPU at 1280x720, and the relay's frame
+		// ends pass-through) would delay that frame and the ones after
+		// it, and on a busy machine make them late in turn: decided and
+		// recorded, not drawn (NOT_SHOWN, as an overrun).
+		p.r.met.framesWaiting.Add(1)
+		p.log.Debug("tick not drawn: a newer frame waits for the display loop", "tick", t.K, "waiting", len(p.frames))
+		p.recordNotShown(t)
+		return
+	}
 	if err := p.def.flush(p.filler, p.cfg.Camera.Width, p.cfg.Camera.Height); err != nil {
 		p.log.Warn("the frames before a gap could not reach the gap filler", "tick", t.K, "err", err)
 	}
@@ -501,15 +515,27 @@ func (p *pipeline) emit(t cadence.Tick, captureUs int64, tick predictor.Tick, ev
 	case ev != nil && ev.superseded:
 		// No output frame (see onFrame).
 	default:
-		var ok bool
-		if encDur, ok = p.encodeOwn(t); !ok {
+		var sent, refused bool
+		encDur, sent, refused = p.encodeOwn(t, captureUs)
+		switch {
+		case refused && ev != nil:
+			// A newer real frame passed through while this one waited
+			// (see encodeOwn): superseded, only its meta goes out.
+			ev.superseded = true
+			p.r.met.framesSuperseded.Add(1)
+		case refused:
+			p.log.Debug("tick not drawn: a newer real frame passed through already", "tick", t.K)
+			p.recordNotShown(t)
 			return
-		}
-		if trace != nil {
-			writtenAt = p.cfg.Now()
-		}
-		if ev != nil {
-			p.r.met.addedLatency.observe(p.cfg.Now().Sub(ev.lastPktAt) - ev.decodeDur - encDur)
+		case !sent:
+			return
+		default:
+			if trace != nil {
+				writtenAt = p.cfg.Now()
+			}
+			if ev != nil {
+				p.r.met.addedLatency.observe(p.cfg.Now().Sub(ev.lastPktAt) - ev.decodeDur - encDur)
+			}
 		}
 	}
 	cutoff := t.Policy.CutoffConfidence
@@ -529,18 +555,32 @@ func (p *pipeline) emit(t cadence.Tick, captureUs int64, tick predictor.Tick, ev
 	}
 }
 
-// encodeOwn encodes the output frame with the relay's encoder and writes it
-// to the console, under the pass-through gate (a frame of the relay's own
-// ends a run of forwarded frames and is then a keyframe). It returns the
-// encode time, or false if nothing was sent (tick t recorded as NOT_SHOWN).
-func (p *pipeline) encodeOwn(t cadence.Tick) (time.Duration, bool) {
+// encodeOwn encodes the output frame, which shows the instant showsUs (a
+// filled tick's target or a real frame's capture time), with the relay's
+// encoder and writes it to the console, under the pass-through gate (a
+// frame of the relay's own ends a run of forwarded frames and is then a
+// keyframe). It returns the encode time and whether the frame was sent;
+// refused: the gate refused it because a newer real frame passed through
+// already (passthru.Gate.BeginOwnShowing: on a busy machine the vehicle's
+// next frame can be forwarded while the display loop still predicts the
+// tick before it), nothing recorded. A frame neither sent nor refused
+// failed, and tick t is recorded as NOT_SHOWN.
+func (p *pipeline) encodeOwn(t cadence.Tick, showsUs int64) (encDur time.Duration, sent, refused bool) {
 	buf, err := p.out.DataPtrUint8()
 	if err != nil {
 		p.log.Warn("output frame unusable", "err", err)
 		p.recordNotShown(t)
-		return 0, false
+		return 0, false, false
 	}
-	if p.r.gate.BeginOwn() {
+	forceKey, ok := true, true
+	if p.cfg.DrawOverdue {
+		// Ticks filled in batches faster than real time: the ingest
+		// runs ahead of the display loop by design (Config.DrawOverdue).
+		forceKey = p.r.gate.BeginOwn()
+	} else if forceKey, ok = p.r.gate.BeginOwnShowing(showsUs); !ok {
+		return 0, false, true
+	}
+	if forceKey {
 		p.r.enc.ForceKeyframe()
 	}
 	defer p.r.gate.EndOwn()
@@ -551,11 +591,11 @@ func (p *pipeline) encodeOwn(t cadence.Tick) (time.Duration, bool) {
 	// clock or a new session starts).
 	p.r.encPtsUs += int64(math.Round(p.cfg.periodUs()))
 	frame, _, err := p.r.enc.EncodeBGR(p.encBuf[:0], buf, p.r.encPtsUs)
-	encDur := p.cfg.Now().Sub(t0)
+	encDur = p.cfg.Now().Sub(t0)
 	if err != nil {
 		p.log.Warn("encoding the output frame failed", "err", err)
 		p.recordNotShown(t)
-		return 0, false
+		return 0, false, false
 	}
 	p.encBuf = frame
 	p.r.met.encode.observe(encDur)
@@ -563,7 +603,7 @@ func (p *pipeline) encodeOwn(t cadence.Tick) (time.Duration, bool) {
 	if err := p.r.console.WriteFrame(frame, period); err != nil && !errors.Is(err, console.ErrClosed) {
 		p.log.Warn("console write failed", "err", err)
 	}
-	return encDur, true
+	return encDur, true, false
 }
 
 // tickMeta is the console's meta message for a tick put on screen, in the
@@ -616,9 +656,10 @@ func (p *pipeline) refreshLink() {
 	p.link.KeyframeRequests = p.r.met.keyframeRequests.Load()
 	p.link.FramesIn = p.r.met.framesIn.Load()
 	p.link.DelayMs = finite(p.lastDelayMs)
-	p.in.mu.Lock()
-	lastPkt := p.in.lastArrival
-	p.in.mu.Unlock()
+	var lastPkt time.Time
+	if ns := p.in.lastArrivalNs.Load(); ns != 0 {
+		lastPkt = time.Unix(0, ns)
+	}
 	p.link.NoPacketsMs = noPacketsMs(now, lastPkt)
 	if !p.lastStatsAt.IsZero() && now.Sub(p.lastStatsAt) < time.Second {
 		return
@@ -656,6 +697,7 @@ func noPacketsMs(now, last time.Time) float64 {
 // the old timeline, so the filler starts over.
 func (p *pipeline) shift(d int64) {
 	p.clock.Shift(d)
+	p.r.gate.ForgetCaptureTimes()
 	p.def.drop()
 	if err := p.newFiller(); err != nil {
 		p.log.Error("recreating the gap filler failed", "err", err)

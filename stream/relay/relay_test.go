@@ -408,36 +408,50 @@ func TestNoSenderReport(t *testing.T) {
 // TestOverdueTicksNotDrawn: a tick filled more than a period after its
 // deadline (a display loop behind on a busy machine: its successor is due
 // too) is decided and counted but not drawn, NOT_SHOWN; one filled less than
-// a period late is drawn. With DrawOverdue every tick is drawn.
+// a period late is drawn. So is a tick filled while a newer real frame
+// already waits in the display loop's queue (counted apart). With
+// DrawOverdue every tick is drawn.
 func TestOverdueTicksNotDrawn(t *testing.T) {
 	periodUs := int64(math.Floor(1e6 / testFPS)) // 33333 µs at 30 fps
 	now := time.Unix(1_000, 0)
 	cases := []struct {
 		name        string
 		lateUs      int64
+		waiting     bool // a decoded frame waits in the queue
 		drawOverdue bool
 		drawn       bool
 	}{
-		{"in time", 0, false, true},
-		{"half a period late", periodUs / 2, false, true},
-		{"just under a period late", periodUs - 1, false, true},
-		{"just over a period late", periodUs + 1, false, false},
-		{"three periods late", 3 * periodUs, false, false},
-		{"three periods late, DrawOverdue", 3 * periodUs, true, true},
+		{"in time", 0, false, false, true},
+		{"half a period late", periodUs / 2, false, false, true},
+		{"just under a period late", periodUs - 1, false, false, true},
+		{"just over a period late", periodUs + 1, false, false, false},
+		{"three periods late", 3 * periodUs, false, false, false},
+		{"three periods late, DrawOverdue", 3 * periodUs, false, true, true},
+		{"in time, a newer frame waiting", 0, true, false, false},
+		{"in time, a newer frame waiting, DrawOverdue", 0, true, true, true},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
 			r, p, done := pipelineOnFakeVehicle(t, Config{FPS: testFPS, Camera: testCamera(),
 				Now: func() time.Time { return now }, DrawOverdue: c.drawOverdue})
 			defer done()
+			if c.waiting {
+				p.frames <- frameEvent{pic: <-p.free, captureUs: 40_000, readyUs: now.UnixMicro()}
+				defer func() { p.free <- (<-p.frames).pic }()
+			}
 			// No frame yet: a drawn tick is NO_PICTURE.
 			p.Missing(cadence.Tick{K: 0, TargetUs: 0, DeadlineUs: now.UnixMicro() - c.lateUs, Policy: predictor.DefaultPolicy()})
 			st := r.Stats()
 			if drawn := st.TicksNoPicture == 1; drawn != c.drawn || st.TicksNoPicture+st.TicksNotShown != 1 {
 				t.Errorf("%d µs late: stats %+v, want drawn %v", c.lateUs, st, c.drawn)
 			}
-			if wantOverruns := map[bool]uint64{true: 0, false: 1}[c.drawn]; st.Overruns != wantOverruns {
-				t.Errorf("%d overruns, want %d", st.Overruns, wantOverruns)
+			overrun := !c.drawn && !c.waiting
+			if want := map[bool]uint64{true: 1, false: 0}[overrun]; st.Overruns != want {
+				t.Errorf("%d overruns, want %d", st.Overruns, want)
+			}
+			waited := !c.drawn && c.waiting
+			if got, want := r.met.framesWaiting.Load(), map[bool]uint64{true: 1, false: 0}[waited]; got != want {
+				t.Errorf("%d ticks not drawn for a waiting frame, want %d", got, want)
 			}
 		})
 	}

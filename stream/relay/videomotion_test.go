@@ -50,6 +50,7 @@ func TestVideoMotionFeedsFilter(t *testing.T) {
 		const t0 = 1_000_000_000
 		for i := range 8 {
 			m := <-p.free
+			m.allocBGR(cam.Width, cam.Height)
 			frame(i, &m.bgr)
 			m.hasBGR = true
 			c := t0 + int64(i)*periodUs
