@@ -340,3 +340,84 @@ func TestStaticAtBase(t *testing.T) {
 		})
 	}
 }
+
+// TestStaticSweep: a region whose newer pixels are the older frame as a
+// static upright standing at a row inside the region would have moved (a
+// post whose region reaches below its foot) is explained by the sweep, not
+// by an upright standing at the region's bottom; a region whose pixels
+// match no static upright is not.
+func TestStaticSweep(t *testing.T) {
+	c := uprightCam()
+	w, h := c.Width, c.Height
+	dx, dy, dyaw := invertPlanar(2, 0, 0) // the vehicle moved 2 m ahead
+	ua := uprightAt{back: GroundHomographyPlanar(c, dx, dy, dyaw), s: 1, sy: 1, hz: c.Horizon()}
+	tex := func(x, y int) byte { return byte((x*37 + y*91 + (x*y)%13*17) % 251) }
+	older := make([]byte, w*h)
+	for y := 0; y < h; y++ {
+		for x := 0; x < w; x++ {
+			older[y*w+x] = tex(x, y)
+		}
+	}
+	box := image.Rect(200, 100, 240, 160)
+	const foot = 130 // inside the region, 30 rows above its bottom
+	af, ok := ua.at(box.Min.X, box.Max.X, foot)
+	if !ok {
+		t.Fatalf("no upright map at row %d", foot)
+	}
+	lab := make([]int32, w*h)
+	post := make([]byte, w*h)  // newer frame: the static upright at foot
+	mover := make([]byte, w*h) // newer frame: texture matching no upright
+	for y := box.Min.Y; y < box.Max.Y; y++ {
+		for x := box.Min.X; x < box.Max.X; x++ {
+			lab[y*w+x] = 1
+			xx, yy := int(math.Round(af.k*float64(x)+af.ox)), int(math.Round(af.k*float64(y)+af.oy))
+			post[y*w+x] = older[yy*w+xx]
+			mover[y*w+x] = tex(x*3+7, y*5+1)
+		}
+	}
+	bottom, ok := ua.at(box.Min.X, box.Max.X, box.Max.Y)
+	if !ok {
+		t.Fatal("no upright map at the region's bottom")
+	}
+	for _, tc := range []struct {
+		name      string
+		newer     []byte
+		wantBelow float64 // the sweep's residual is below this
+		wantAbove float64 // ... and above this
+	}{
+		{"static upright with its foot inside", post, 1, -1},
+		{"nothing static", mover, math.Inf(1), 30},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			sw := staticSweep(older, tc.newer, lab, 1, w, h, box, ua)
+			if !(sw < tc.wantBelow && sw > tc.wantAbove) {
+				t.Errorf("staticSweep = %.1f, want in (%g, %g)", sw, tc.wantAbove, tc.wantBelow)
+			}
+		})
+	}
+	if c := leastNear(older, post, lab, 1, w, h, box, bottom); c < 20 {
+		t.Errorf("an upright at the region's bottom explains the post (residual %.1f), want >= 20: the test does not need the sweep", c)
+	}
+}
+
+// TestStaticInside: the sweep's decision (moverSweepGain,
+// moverSweepOwnGain).
+func TestStaticInside(t *testing.T) {
+	for _, tc := range []struct {
+		name       string
+		sw, cc, cb float64
+		want       bool
+	}{
+		{"static upright explains, own shift adds nothing", 10, 30, 10, true},
+		{"static upright explains, own shift a little better", 10, 30, 9.5, true},
+		{"static upright explains, own shift clearly better", 10, 30, 7, false},
+		{"static upright barely better than the compensation", 25, 30, 25, false},
+		{"no foot on the road", math.Inf(1), 30, 20, false},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			if got := staticInside(tc.sw, tc.cc, tc.cb); got != tc.want {
+				t.Errorf("staticInside(sw %.1f, cc %.1f, cb %.1f) = %v, want %v", tc.sw, tc.cc, tc.cb, got, tc.want)
+			}
+		})
+	}
+}
