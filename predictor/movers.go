@@ -99,19 +99,27 @@ type Mover struct {
 	// VxPxPerS, VyPxPerS is its apparent velocity in the image,
 	// full-resolution pixels per second, from the two frames.
 	VxPxPerS, VyPxPerS float64
+	// Shown is where the predicted picture shows the last known place
+	// (set by the Filler when it places the marks on a predicted frame;
+	// empty in the held frame's model): the synthesis moves the thing's
+	// pixels as static scene, and the road map smears a thing standing on
+	// the road away from where it would stand had it stopped. Zone
+	// includes it.
+	Shown image.Rectangle
 }
 
-// Zone returns where the mover could be ageMs after the held frame: the
-// bounding box of Box and Box moved by velocity · age, grown on every side
-// by a quarter of that displacement, or of DefaultMoverMinSpeedPxPerS · age
-// if that is more (the uncertainty of the speed and of its direction,
-// growing with the apparent speed; design choices).
+// Zone returns where the mover could be ageMs after the held frame, or is
+// shown: the bounding box of Box and Box moved by velocity · age, grown on
+// every side by a quarter of that displacement, or of
+// DefaultMoverMinSpeedPxPerS · age if that is more (the uncertainty of the
+// speed and of its direction, growing with the apparent speed; design
+// choices), joined with Shown.
 func (m Mover) Zone(ageMs float64) image.Rectangle {
 	a := ageMs / 1000
 	dx, dy := m.VxPxPerS*a, m.VyPxPerS*a
 	moved := m.Box.Add(image.Pt(int(math.Round(dx)), int(math.Round(dy))))
 	g := int(math.Ceil(0.25 * math.Max(math.Hypot(dx, dy), DefaultMoverMinSpeedPxPerS*a)))
-	return m.Box.Union(moved).Inset(-g)
+	return m.Box.Union(moved).Inset(-g).Union(m.Shown)
 }
 
 // moverMaxSpeedWidthsPerS bounds the apparent speed the shift search

@@ -421,3 +421,60 @@ func TestStaticInside(t *testing.T) {
 		})
 	}
 }
+
+// TestShownBox: the place the picture shows a held box at moves each of its
+// corners and edge midpoints with the map the synthesis uses there: the
+// road map below the horizon, an upright segment's plane over the segment
+// (here a plane facing the camera at 20 m, whose map is FarHomographyPlanar,
+// TestPlaneHomographyMatchesGroundAndFar), and Zone includes it.
+func TestShownBox(t *testing.T) {
+	c := uprightCam()
+	m := filter.Motion{T1Us: 200_000, DxM: 2, DyawRad: 0.02}
+	road := GroundHomographyPlanar(c, m.DxM, m.DyM, m.DyawRad)
+	far := FarHomographyPlanar(c, m.DxM, m.DyM, m.DyawRad, 20)
+	box := image.Rect(200, 110, 240, 150) // below the horizon
+	hz := c.Horizon()
+	for _, p := range []image.Point{box.Min, {box.Max.X - 1, box.Max.Y - 1}} {
+		if hz.SignedDistance(float64(p.X), float64(p.Y)) <= 0 {
+			t.Fatalf("box corner %v is not below the horizon", p)
+		}
+	}
+	// bounds returns the bounding box of the 3x3 points mapped by hm.
+	bounds := func(hm Homography) image.Rectangle {
+		var r image.Rectangle
+		for _, y := range []float64{110, 129.5, 149} {
+			for _, x := range []float64{200, 219.5, 239} {
+				u, v, ok := hm.Apply(x, y)
+				if !ok {
+					t.Fatalf("(%g,%g) does not map", x, y)
+				}
+				r = r.Union(image.Rect(int(math.Floor(u)), int(math.Floor(v)), int(math.Floor(u))+1, int(math.Floor(v))+1))
+			}
+		}
+		return r
+	}
+	facing := Plane{Normal: [3]float64{0, 0, 1}, DistM: 20}
+	for _, tc := range []struct {
+		name string
+		up   *UprightModel
+		want image.Rectangle
+	}{
+		{"road", nil, bounds(road)},
+		{"segment elsewhere", &UprightModel{Segments: []UprightSegment{{Col0: 0, Col1: 100, TopRow: -0.5, Plane: facing, BaseRow0: 170, BaseRow1: 170}}}, bounds(road)},
+		{"segment over the box", &UprightModel{Segments: []UprightSegment{{Col0: 190, Col1: 250, TopRow: 100, Plane: facing, BaseRow0: 160, BaseRow1: 160}}}, bounds(far)},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			got := shownBox(c, m, road, far, tc.up, box)
+			if got != tc.want {
+				t.Errorf("shownBox = %v, want %v", got, tc.want)
+			}
+			if got.Eq(box) {
+				t.Errorf("shownBox = the held box %v: the motion moved nothing", box)
+			}
+			mv := Mover{Box: box, Shown: got}
+			if z := mv.Zone(100); !got.In(z) || !box.In(z) {
+				t.Errorf("Zone(100) = %v, want it to hold Box %v and Shown %v", z, box, got)
+			}
+		})
+	}
+}
