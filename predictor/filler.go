@@ -510,13 +510,14 @@ func (f *Filler) MissingWith(method Method, targetUs int64, dst *gocv.Mat) (Tick
 
 	start := f.now()
 	var movers *MoverModel
+	var up *UprightModel
 	if tick.State == StatePredicted {
 		var syn Synthesis
 		if method == MethodRotation {
 			syn, err = f.synth.SynthesizeRotation(f.last, tick.Motion, dst)
 		} else {
 			tick.FarDepthM = f.farDepthFor()
-			up := f.uprightModel(tick.FarDepthM)
+			up = f.uprightModel(tick.FarDepthM)
 			syn, err = f.synth.SynthesizeScene(f.last, tick.Motion, tick.FarDepthM, up, dst)
 			tick.UprightSegments = syn.UprightSegments
 			movers = f.moverModel(tick.FarDepthM, up)
@@ -536,7 +537,7 @@ func (f *Filler) MissingWith(method Method, targetUs int64, dst *gocv.Mat) (Tick
 	}
 	tick.LabelFraction, err = f.label.Draw(dst, tick.State, tick.AgeMs, tick.Confidence)
 	if err == nil && movers != nil && len(movers.Movers) > 0 {
-		f.placeMarks(movers.Movers, tick.Motion, tick.FarDepthM)
+		f.placeMarks(movers.Movers, tick.Motion, tick.FarDepthM, up)
 		tick.Movers, err = f.label.DrawMovers(dst, f.marks, tick.AgeMs)
 	}
 	tick.SynthDuration = f.now().Sub(start)

@@ -12,15 +12,19 @@ import (
 
 // placeMarks writes into f.marks the movers of the held frame as they are
 // marked on a predicted frame made with motion m (held frame -> target):
-// each last known place moves with the static scene it stands on, so the
-// mark sits where the predicted picture shows the thing. A box whose
-// bottom edge is on the road (below the horizon) follows the road map of
-// its two bottom corners and is scaled by the change of their distance; one
-// above the horizon follows the far map of its centre. The apparent
-// velocity is scaled with the box. Lens distortion is ignored here (marks
-// are zones, not pixels). f.marks is reused: no allocation once it has
-// grown to the number of movers.
-func (f *Filler) placeMarks(movers []Mover, m filter.Motion, farDepthM float64) {
+// each last known place moves as a static upright standing where the thing
+// stands would, so the mark sits where the thing would be had it stopped.
+// A box whose bottom edge is on the road (below the horizon) follows the
+// road map of its two bottom corners and is scaled by the change of their
+// distance; one above the horizon follows the far map of its centre. The
+// apparent velocity is scaled with the box. The picture itself moves the
+// thing's pixels as static scene (the road map smears a thing standing on
+// the road), so each mark also keeps where the picture shows its held box
+// (Mover.Shown, shownBox, with the upright structure up the synthesis
+// used; nil for none). Lens distortion is ignored here (marks are zones,
+// not pixels). f.marks is reused: no allocation once it has grown to the
+// number of movers.
+func (f *Filler) placeMarks(movers []Mover, m filter.Motion, farDepthM float64, up *UprightModel) {
 	f.marks = f.marks[:0]
 	c := f.cfg.Camera
 	road := GroundHomographyPlanar(c, m.DxM, m.DyM, m.DyawRad)
@@ -50,7 +54,8 @@ func (f *Filler) placeMarks(movers []Mover, m filter.Motion, farDepthM float64) 
 		}
 		w, h := k*(x1-x0), k*float64(b.Dy())
 		box := image.Rect(int(math.Floor(ax)), int(math.Floor(ay-h)), int(math.Ceil(ax+w)), int(math.Ceil(ay)))
-		f.marks = append(f.marks, Mover{Box: box, VxPxPerS: k * mv.VxPxPerS, VyPxPerS: k * mv.VyPxPerS})
+		f.marks = append(f.marks, Mover{Box: box, VxPxPerS: k * mv.VxPxPerS, VyPxPerS: k * mv.VyPxPerS,
+			Shown: shownBox(c, m, road, far, up, b)})
 	}
 }
 
@@ -154,4 +159,52 @@ func (f *Filler) Warm() error {
 	f.upright.Segments, f.movers.Movers = f.upright.Segments[:0], f.movers.Movers[:0]
 	f.farKnown, f.uprightKnown, f.moversKnown = false, false, false
 	return err
+}
+
+// shownBox returns where the predicted picture made with motion m (held
+// frame -> target) shows the held frame's box b: the bounding box of its
+// corners and edge midpoints (3x3 points), each moved by the map the
+// synthesis moves the static scene there with: the plane of the upright
+// segment of up (nil for none) that holds the point, else the road map
+// road below the horizon and the far map far above it. A thing standing
+// on the road is smeared by the road map: its top moves as far road, its
+// foot as near road, so the picture shows it elsewhere than an upright at
+// its foot would stand. Empty if no point maps.
+func shownBox(c Camera, m filter.Motion, road, far Homography, up *UprightModel, b image.Rectangle) image.Rectangle {
+	hz := c.Horizon()
+	var out image.Rectangle
+	xs := [3]float64{float64(b.Min.X), float64(b.Min.X+b.Max.X-1) / 2, float64(b.Max.X - 1)}
+	ys := [3]float64{float64(b.Min.Y), float64(b.Min.Y+b.Max.Y-1) / 2, float64(b.Max.Y - 1)}
+	for _, y := range ys {
+		for _, x := range xs {
+			hm := far
+			if hz.SignedDistance(x, y) > 0 {
+				hm = road
+			}
+			if up != nil {
+				for _, seg := range up.Segments {
+					if x < float64(seg.Col0) || x >= float64(seg.Col1) || y < seg.TopRow {
+						continue
+					}
+					// The base line's row at x, as SynthesizeScene and
+					// MoverDetector interpolate it.
+					base := seg.BaseRow0 + (seg.BaseRow1-seg.BaseRow0)*(x-float64(seg.Col0)+0.5)/float64(seg.Col1-seg.Col0)
+					if y <= base {
+						hm = PlaneHomography(c, m.DxM, m.DyM, m.DyawRad, seg.Plane)
+						break
+					}
+				}
+			}
+			u, v, ok := hm.Apply(x, y)
+			// A point mapped beyond ten picture sizes (near the horizon
+			// of its plane) says nothing about the picture.
+			lim := 10 * float64(max(c.Width, c.Height))
+			if !ok || !(math.Abs(u) < lim && math.Abs(v) < lim) {
+				continue
+			}
+			px, py := int(math.Floor(u)), int(math.Floor(v))
+			out = out.Union(image.Rect(px, py, px+1, py+1))
+		}
+	}
+	return out
 }

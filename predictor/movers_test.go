@@ -340,3 +340,141 @@ func TestStaticAtBase(t *testing.T) {
 		})
 	}
 }
+
+// TestStaticSweep: a region whose newer pixels are the older frame as a
+// static upright standing at a row inside the region would have moved (a
+// post whose region reaches below its foot) is explained by the sweep, not
+// by an upright standing at the region's bottom; a region whose pixels
+// match no static upright is not.
+func TestStaticSweep(t *testing.T) {
+	c := uprightCam()
+	w, h := c.Width, c.Height
+	dx, dy, dyaw := invertPlanar(2, 0, 0) // the vehicle moved 2 m ahead
+	ua := uprightAt{back: GroundHomographyPlanar(c, dx, dy, dyaw), s: 1, sy: 1, hz: c.Horizon()}
+	tex := func(x, y int) byte { return byte((x*37 + y*91 + (x*y)%13*17) % 251) }
+	older := make([]byte, w*h)
+	for y := 0; y < h; y++ {
+		for x := 0; x < w; x++ {
+			older[y*w+x] = tex(x, y)
+		}
+	}
+	box := image.Rect(200, 100, 240, 160)
+	const foot = 130 // inside the region, 30 rows above its bottom
+	af, ok := ua.at(box.Min.X, box.Max.X, foot)
+	if !ok {
+		t.Fatalf("no upright map at row %d", foot)
+	}
+	lab := make([]int32, w*h)
+	post := make([]byte, w*h)  // newer frame: the static upright at foot
+	mover := make([]byte, w*h) // newer frame: texture matching no upright
+	for y := box.Min.Y; y < box.Max.Y; y++ {
+		for x := box.Min.X; x < box.Max.X; x++ {
+			lab[y*w+x] = 1
+			xx, yy := int(math.Round(af.k*float64(x)+af.ox)), int(math.Round(af.k*float64(y)+af.oy))
+			post[y*w+x] = older[yy*w+xx]
+			mover[y*w+x] = tex(x*3+7, y*5+1)
+		}
+	}
+	bottom, ok := ua.at(box.Min.X, box.Max.X, box.Max.Y)
+	if !ok {
+		t.Fatal("no upright map at the region's bottom")
+	}
+	for _, tc := range []struct {
+		name      string
+		newer     []byte
+		wantBelow float64 // the sweep's residual is below this
+		wantAbove float64 // ... and above this
+	}{
+		{"static upright with its foot inside", post, 1, -1},
+		{"nothing static", mover, math.Inf(1), 30},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			sw := staticSweep(older, tc.newer, lab, 1, w, h, box, ua)
+			if !(sw < tc.wantBelow && sw > tc.wantAbove) {
+				t.Errorf("staticSweep = %.1f, want in (%g, %g)", sw, tc.wantAbove, tc.wantBelow)
+			}
+		})
+	}
+	if c := leastNear(older, post, lab, 1, w, h, box, bottom); c < 20 {
+		t.Errorf("an upright at the region's bottom explains the post (residual %.1f), want >= 20: the test does not need the sweep", c)
+	}
+}
+
+// TestStaticInside: the sweep's decision (moverSweepGain,
+// moverSweepOwnGain).
+func TestStaticInside(t *testing.T) {
+	for _, tc := range []struct {
+		name       string
+		sw, cc, cb float64
+		want       bool
+	}{
+		{"static upright explains, own shift adds nothing", 10, 30, 10, true},
+		{"static upright explains, own shift a little better", 10, 30, 9.5, true},
+		{"static upright explains, own shift clearly better", 10, 30, 7, false},
+		{"static upright barely better than the compensation", 25, 30, 25, false},
+		{"no foot on the road", math.Inf(1), 30, 20, false},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			if got := staticInside(tc.sw, tc.cc, tc.cb); got != tc.want {
+				t.Errorf("staticInside(sw %.1f, cc %.1f, cb %.1f) = %v, want %v", tc.sw, tc.cc, tc.cb, got, tc.want)
+			}
+		})
+	}
+}
+
+// TestShownBox: the place the picture shows a held box at moves each of its
+// corners and edge midpoints with the map the synthesis uses there: the
+// road map below the horizon, an upright segment's plane over the segment
+// (here a plane facing the camera at 20 m, whose map is FarHomographyPlanar,
+// TestPlaneHomographyMatchesGroundAndFar), and Zone includes it.
+func TestShownBox(t *testing.T) {
+	c := uprightCam()
+	m := filter.Motion{T1Us: 200_000, DxM: 2, DyawRad: 0.02}
+	road := GroundHomographyPlanar(c, m.DxM, m.DyM, m.DyawRad)
+	far := FarHomographyPlanar(c, m.DxM, m.DyM, m.DyawRad, 20)
+	box := image.Rect(200, 110, 240, 150) // below the horizon
+	hz := c.Horizon()
+	for _, p := range []image.Point{box.Min, {box.Max.X - 1, box.Max.Y - 1}} {
+		if hz.SignedDistance(float64(p.X), float64(p.Y)) <= 0 {
+			t.Fatalf("box corner %v is not below the horizon", p)
+		}
+	}
+	// bounds returns the bounding box of the 3x3 points mapped by hm.
+	bounds := func(hm Homography) image.Rectangle {
+		var r image.Rectangle
+		for _, y := range []float64{110, 129.5, 149} {
+			for _, x := range []float64{200, 219.5, 239} {
+				u, v, ok := hm.Apply(x, y)
+				if !ok {
+					t.Fatalf("(%g,%g) does not map", x, y)
+				}
+				r = r.Union(image.Rect(int(math.Floor(u)), int(math.Floor(v)), int(math.Floor(u))+1, int(math.Floor(v))+1))
+			}
+		}
+		return r
+	}
+	facing := Plane{Normal: [3]float64{0, 0, 1}, DistM: 20}
+	for _, tc := range []struct {
+		name string
+		up   *UprightModel
+		want image.Rectangle
+	}{
+		{"road", nil, bounds(road)},
+		{"segment elsewhere", &UprightModel{Segments: []UprightSegment{{Col0: 0, Col1: 100, TopRow: -0.5, Plane: facing, BaseRow0: 170, BaseRow1: 170}}}, bounds(road)},
+		{"segment over the box", &UprightModel{Segments: []UprightSegment{{Col0: 190, Col1: 250, TopRow: 100, Plane: facing, BaseRow0: 160, BaseRow1: 160}}}, bounds(far)},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			got := shownBox(c, m, road, far, tc.up, box)
+			if got != tc.want {
+				t.Errorf("shownBox = %v, want %v", got, tc.want)
+			}
+			if got.Eq(box) {
+				t.Errorf("shownBox = the held box %v: the motion moved nothing", box)
+			}
+			mv := Mover{Box: box, Shown: got}
+			if z := mv.Zone(100); !got.In(z) || !box.In(z) {
+				t.Errorf("Zone(100) = %v, want it to hold Box %v and Shown %v", z, box, got)
+			}
+		})
+	}
+}
