@@ -72,8 +72,8 @@
 // repeated every KeyframeRetry (200 ms, common receiver practice) while the
 // decoder waits for a keyframe, and sent at once when the link returns after a
 // silence of KeyframeRetry (the requests sent meanwhile were lost): on the
-// first video packet, or earlier on the sender's first packet of any other
-// kind (telemetry, RTCP) if its session can tell (inboundWatcher). The WebRTC read loop is never blocked: the
+// first video packet, or earlier on the sender's first telemetry message
+// after a telemetry silence of its own. The WebRTC read loop is never blocked: the
 // ingest queues are bounded and drop and count.
 //
 // # Recording

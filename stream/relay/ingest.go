@@ -64,10 +64,10 @@ type frameIngest struct {
 	// linkBackRetry (see runTimers).
 	linkBack    bool
 	lastArrival time.Time // arrival of the latest packet
-	// lastInbound is the session's last packet of any kind seen by the
-	// timer during the current video silence (backFromInbound); zero
-	// while video flows.
-	lastInbound time.Time
+	// lastTelNs is the arrival of the sender's last telemetry message
+	// (Unix ns) as the timer saw it during the current video silence
+	// (backFromTelemetry); zero while video flows.
+	lastTelNs int64
 	// lastArrivalNs is lastArrival in Unix nanoseconds (0: none yet), for
 	// the display loop's link statistics without in.mu: the ingest holds
 	// in.mu through each frame's decode, and every meta message waited
@@ -119,13 +119,6 @@ type repairSpanner interface {
 	RepairSpan() time.Duration
 }
 
-// inboundWatcher is implemented by an ingest session that knows when the
-// last packet of any kind arrived from the sender, not only video
-// (*whip.Session: RTCP and telemetry too).
-type inboundWatcher interface {
-	LastInbound() time.Time
-}
-
 func (in *frameIngest) close() { in.dec.Close() }
 
 // runRTP reads packets until the session or ctx ends.
@@ -144,8 +137,8 @@ func (in *frameIngest) runRTP(ctx context.Context) error {
 		// not ask for a gap after such a silence) or, if it was short, a
 		// keyframe is still the fastest way back; requests sent during the
 		// silence were probably lost with the link. So ask at once.
-		// If the sender's other packets announced the link's return
-		// (backFromInbound), the request went out already.
+		// If the sender's telemetry announced the link's return
+		// (backFromTelemetry), the request went out already.
 		if !in.lastArrival.IsZero() && arrival.Sub(in.lastArrival) >= in.p.cfg.KeyframeRetry {
 			now := in.p.cfg.Now()
 			in.linkBack = true
@@ -194,9 +187,9 @@ func (in *frameIngest) runTimers(ctx context.Context) {
 		// first packet after it needs: none is sent until packets resume.
 		silent := !in.lastArrival.IsZero() && now.Sub(in.lastArrival) >= in.p.cfg.KeyframeRetry
 		switch {
-		case silent && in.backFromInbound():
+		case silent && in.backFromTelemetry():
 			in.linkBack = true
-			in.requestKeyframeLocked(now, "link back, other packets first")
+			in.requestKeyframeLocked(now, "link back, telemetry first")
 		case silent:
 		case in.linkBack && now.Sub(in.lastKeyReq) >= linkBackRetry(in.p.cfg.KeyframeRetry):
 			in.requestKeyframeLocked(now, "link back, repeated")
@@ -213,7 +206,7 @@ func (in *frameIngest) runTimers(ctx context.Context) {
 		if silent {
 			wait = silentPoll
 		} else {
-			in.lastInbound = time.Time{}
+			in.lastTelNs = 0
 		}
 		in.mu.Unlock()
 		t.Reset(wait)
@@ -221,25 +214,23 @@ func (in *frameIngest) runTimers(ctx context.Context) {
 }
 
 // silentPoll is how often the expiry timer runs during a video silence, to
-// see the sender's other packets return (backFromInbound).
+// see the sender's telemetry return (backFromTelemetry).
 const silentPoll = 5 * time.Millisecond
 
-// backFromInbound reports, during a video silence, whether the session saw
-// the sender's other packets (telemetry, RTCP) resume after a silence of
-// their own of at least the keyframe retry interval: the whole link was
-// down and is back. A vehicle sends telemetry more often than frames (50 Hz
-// against 30), so the keyframe request goes out before the first frame's
-// packets arrive. Other packets that never stopped (only the video did)
-// do not count.
-func (in *frameIngest) backFromInbound() bool {
-	w, ok := in.p.sess.(inboundWatcher)
-	if !ok {
-		return false
-	}
-	last := w.LastInbound()
-	prev := in.lastInbound
-	in.lastInbound = last
-	return !prev.IsZero() && last.Sub(prev) >= in.p.cfg.KeyframeRetry
+// backFromTelemetry reports, during a video silence, whether the sender's
+// telemetry resumed after a silence of its own of at least the keyframe
+// retry interval: the whole link was down and is back. A vehicle sends
+// telemetry more often than frames (50 Hz against 30), so the keyframe
+// request goes out before the first frame's packets arrive. Telemetry that
+// kept flowing while only the video stopped does not count. Only telemetry:
+// RTCP reports come about once a second, and one that got through during a
+// long outage would take the session's keyframe request rate limit from the
+// request the link's real return needs.
+func (in *frameIngest) backFromTelemetry() bool {
+	last := in.p.lastTelNs.Load()
+	prev := in.lastTelNs
+	in.lastTelNs = last
+	return prev != 0 && time.Duration(last-prev) >= in.p.cfg.KeyframeRetry
 }
 
 // linkBackRetry is the keyframe request repeat interval while the link is
@@ -478,6 +469,7 @@ func (p *pipeline) runTelemetry(ctx context.Context) {
 			if !ok {
 				return
 			}
+			p.lastTelNs.Store(tb.Arrival.UnixNano())
 			m, err := telemetry.Decode(tb.Data)
 			if err != nil {
 				p.r.met.telemetryRejected.inc("decode_" + telemetry.ReasonOf(err).String())

@@ -35,24 +35,16 @@ func TestKeyframeRetryClock(t *testing.T) {
 	}
 }
 
-// inboundVehicle is a fake vehicle whose session reports its last packet
-// of any kind (inboundWatcher).
-type inboundVehicle struct {
-	*fakeVehicle
-	last time.Time
-}
-
-func (v *inboundVehicle) LastInbound() time.Time { return v.last }
-
-// TestBackFromInbound: during a video silence, the link counts as back when
-// the sender's other packets resume after a silence of their own of at
-// least the keyframe retry interval; other packets that kept flowing while
-// only the video stopped do not count, nor does the first look.
-func TestBackFromInbound(t *testing.T) {
+// TestBackFromTelemetry: during a video silence, the link counts as back
+// when the sender's telemetry resumes after a silence of its own of at least
+// the keyframe retry interval; telemetry that kept flowing while only the
+// video stopped does not count, nor does the first look.
+func TestBackFromTelemetry(t *testing.T) {
 	clock := &fakeClock{}
 	r := testRelay(t, clock, "")
-	v := &inboundVehicle{fakeVehicle: newFakeVehicle(t, clock, 1, nil)}
-	in := &frameIngest{p: &pipeline{r: r, cfg: r.cfg, sess: v, log: quietLogger()}}
+	v := newFakeVehicle(t, clock, 1, nil)
+	p := &pipeline{r: r, cfg: r.cfg, sess: v, log: quietLogger()}
+	in := &frameIngest{p: p}
 	t0 := time.UnixMicro(5_000_000)
 	retry := r.cfg.KeyframeRetry
 	steps := []struct {
@@ -69,14 +61,16 @@ func TestBackFromInbound(t *testing.T) {
 		{t0.Add(3*time.Second + 20*time.Millisecond), false, "flowing again"},
 	}
 	for i, s := range steps {
-		v.last = s.last
-		if got := in.backFromInbound(); got != s.want {
+		p.lastTelNs.Store(s.last.UnixNano())
+		if got := in.backFromTelemetry(); got != s.want {
 			t.Errorf("step %d (%s): back %v, want %v", i, s.why, got, s.want)
 		}
 	}
-	// A session that cannot tell never reports the link back this way.
-	plain := &frameIngest{p: &pipeline{r: r, cfg: r.cfg, sess: v.fakeVehicle, log: quietLogger()}}
-	if plain.backFromInbound() {
-		t.Error("a session without LastInbound reported the link back")
+	// No telemetry at all: never back this way.
+	quiet := &frameIngest{p: &pipeline{r: r, cfg: r.cfg, sess: v, log: quietLogger()}}
+	for i := 0; i < 3; i++ {
+		if quiet.backFromTelemetry() {
+			t.Fatal("a session without telemetry reported the link back")
+		}
 	}
 }

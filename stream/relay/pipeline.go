@@ -8,6 +8,7 @@ import (
 	"math"
 	"sort"
 	"sync"
+	"sync/atomic"
 	"time"
 
 	"gocv.io/x/gocv"
@@ -28,6 +29,9 @@ type pipeline struct {
 	log  *slog.Logger
 	sess ingest.Session
 	in   *frameIngest
+	// lastTelNs is the arrival (Unix ns) of the latest telemetry message,
+	// read or not; the ingest's timer watches it during a video silence.
+	lastTelNs atomic.Int64
 
 	pool   []picture
 	free   chan *picture

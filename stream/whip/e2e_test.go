@@ -159,10 +159,6 @@ func TestPublishEndToEnd(t *testing.T) {
 	if !st.HasRTT || st.RTT <= 0 || st.RTT > 100*time.Millisecond {
 		t.Errorf("RTT %v (has %v)", st.RTT, st.HasRTT)
 	}
-	// The last packet of any kind came from the publisher moments ago (the packets were all read above).
-	if li := sess.LastInbound(); li.IsZero() || time.Since(li) < 0 || time.Since(li) > 5*time.Second {
-		t.Errorf("LastInbound %v, %v ago", li, time.Since(li))
-	}
 	if ps := pub.Stats(); ps.PacketsWritten != n || ps.KeyframeRequests != 1 {
 		t.Errorf("publisher stats %+v", ps)
 	}

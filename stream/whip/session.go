@@ -405,17 +405,6 @@ func (s *Session) isDone() bool {
 	}
 }
 
-// LastInbound returns when the last packet of any kind but ICE checks arrived from the sender on the
-// selected candidate pair: video, RTCP, telemetry (DTLS/SCTP). Zero before a pair is selected. The relay
-// polls it during a video silence: a sender whose telemetry resumes is back before its next frame is.
-func (s *Session) LastInbound() time.Time {
-	p, ok := selectedPairStats(s.pc)
-	if !ok || p.LastPacketReceivedTimestamp == 0 {
-		return time.Time{}
-	}
-	return p.LastPacketReceivedTimestamp.Time()
-}
-
 // selectedPairStats returns the statistics of the ICE candidate pair the session sends on. It asks the ICE
 // transport rather than PeerConnection.GetStats, which reads a field that a close started inside pion (the
 // peer's SCTP abort) writes without a lock: the race detector caught it in TestOtherDataChannelClosed.
