@@ -166,47 +166,9 @@ func TestPassThroughBadFrames(t *testing.T) {
 func TestSupersededFrameIsNotEncoded(t *testing.T) {
 	r, p, done := pipelineOnFakeVehicle(t, Config{Camera: testCamera(), FPS: testFPS, LatencyMs: 50, FrameQueue: 4})
 	defer done()
-	enc, err := vp8.NewEncoder(vp8.EncoderConfig{Width: testW, Height: testH, FrameRateHz: testFPS, BitrateBps: 500_000})
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer enc.Close()
-	pkz, err := rtpvp8.NewPacketizer(rtpvp8.PacketizerConfig{PayloadType: 96, SSRC: 0x1234})
-	if err != nil {
-		t.Fatal(err)
-	}
-	bgr := make([]byte, testW*testH*3)
 	var traces []FrameTrace
 	r.TraceFrames(func(tr FrameTrace) { traces = append(traces, tr) })
-	// push sends frame i (a keyframe if key) through the ingest and
-	// returns its event, ready in time for its tick.
-	push := func(i int, key bool) frameEvent {
-		t.Helper()
-		for j := range bgr {
-			bgr[j] = byte(j*7 + i*13)
-		}
-		if key {
-			enc.ForceKeyframe()
-		}
-		f, _, err := enc.EncodeBGR(nil, bgr, captureUs(i))
-		if err != nil {
-			t.Fatal(err)
-		}
-		pkts, err := pkz.Packetize(nil, f, rtpTS(i))
-		if err != nil {
-			t.Fatal(err)
-		}
-		p.in.mu.Lock()
-		defer p.in.mu.Unlock()
-		for j := range pkts {
-			if err := p.in.asm.Push(&pkts[j], time.UnixMicro(captureUs(i))); err != nil {
-				t.Fatal(err)
-			}
-		}
-		ev := <-p.frames
-		ev.readyUs = ev.captureUs + 51_000 // in time (latency 50 ms, allowance 20 ms)
-		return ev
-	}
+	push := framePusher(t, p)
 	p.onFrame(push(0, true))
 	if !r.gate.Forwarding() {
 		t.Fatal("the first keyframe did not open a run of forwarded frames")
@@ -261,21 +223,48 @@ func TestOlderOwnFrameRefused(t *testing.T) {
 	r, p, done := pipelineOnFakeVehicle(t, Config{Camera: testCamera(), FPS: testFPS, LatencyMs: 50, FrameQueue: 4,
 		Now: func() time.Time { return time.UnixMicro(nowUs) }})
 	defer done()
+	var traces []FrameTrace
+	r.TraceFrames(func(tr FrameTrace) { traces = append(traces, tr) })
+	push := framePusher(t, p)
+	p.onFrame(push(0, true))
+	ev2 := push(2, false) // passes through before tick 1 is filled
+	if !ev2.forwarded {
+		t.Fatal("frame 2 did not pass through")
+	}
+	encoded := r.met.encode.samples
+	// The display clock fills tick 1 first (14 ms after its deadline: no
+	// overrun), then shows frame 2.
+	nowUs = captureUs(2) + 51_000
+	p.onFrame(ev2)
+	if n := r.met.encode.samples - encoded; n != 0 {
+		t.Errorf("%d frames encoded for tick 1, want 0", n)
+	}
+	st := r.gate.Stats()
+	if st.RefusedOwn != 1 || st.Stops[passthru.StopOwnFrame] != 0 || !r.gate.Forwarding() {
+		t.Errorf("gate %+v, forwarding %v: want one own frame refused and the run open", st, r.gate.Forwarding())
+	}
+	if rs := r.Stats(); rs.TicksNotShown != 1 || rs.TicksLive != 2 {
+		t.Errorf("ticks: %d NOT_SHOWN, %d LIVE; want 1 and 2", rs.TicksNotShown, rs.TicksLive)
+	}
+	_ = traces
+}
+
+// framePusher returns push, which encodes frame i of a test pattern (a
+// keyframe if key), sends its packets through p's ingest and returns its
+// event, ready in time for its tick (latency 50 ms, allowance 20 ms).
+func framePusher(t *testing.T, p *pipeline) (push func(i int, key bool) frameEvent) {
+	t.Helper()
 	enc, err := vp8.NewEncoder(vp8.EncoderConfig{Width: testW, Height: testH, FrameRateHz: testFPS, BitrateBps: 500_000})
 	if err != nil {
 		t.Fatal(err)
 	}
-	defer enc.Close()
+	t.Cleanup(func() { enc.Close() })
 	pkz, err := rtpvp8.NewPacketizer(rtpvp8.PacketizerConfig{PayloadType: 96, SSRC: 0x1234})
 	if err != nil {
 		t.Fatal(err)
 	}
 	bgr := make([]byte, testW*testH*3)
-	var traces []FrameTrace
-	r.TraceFrames(func(tr FrameTrace) { traces = append(traces, tr) })
-	// push sends frame i (a keyframe if key) through the ingest and
-	// returns its event, ready in time for its tick.
-	push := func(i int, key bool) frameEvent {
+	return func(i int, key bool) frameEvent {
 		t.Helper()
 		for j := range bgr {
 			bgr[j] = byte(j*7 + i*13)
@@ -299,28 +288,7 @@ func TestOlderOwnFrameRefused(t *testing.T) {
 			}
 		}
 		ev := <-p.frames
-		ev.readyUs = ev.captureUs + 51_000 // in time (latency 50 ms, allowance 20 ms)
+		ev.readyUs = ev.captureUs + 51_000
 		return ev
 	}
-	p.onFrame(push(0, true))
-	ev2 := push(2, false) // passes through before tick 1 is filled
-	if !ev2.forwarded {
-		t.Fatal("frame 2 did not pass through")
-	}
-	encoded := r.met.encode.samples
-	// The display clock fills tick 1 first (14 ms after its deadline: no
-	// overrun), then shows frame 2.
-	nowUs = captureUs(2) + 51_000
-	p.onFrame(ev2)
-	if n := r.met.encode.samples - encoded; n != 0 {
-		t.Errorf("%d frames encoded for tick 1, want 0", n)
-	}
-	st := r.gate.Stats()
-	if st.RefusedOwn != 1 || st.Stops[passthru.StopOwnFrame] != 0 || !r.gate.Forwarding() {
-		t.Errorf("gate %+v, forwarding %v: want one own frame refused and the run open", st, r.gate.Forwarding())
-	}
-	if rs := r.Stats(); rs.TicksNotShown != 1 || rs.TicksLive != 2 {
-		t.Errorf("ticks: %d NOT_SHOWN, %d LIVE; want 1 and 2", rs.TicksNotShown, rs.TicksLive)
-	}
-	_ = traces
 }
