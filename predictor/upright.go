@@ -45,7 +45,7 @@ func DefaultUprightWallsM() []float64 {
 // DefaultUprightFrontsM returns the distances ahead of the vehicle origin of
 // the upright surfaces facing the vehicle (across the road) that the
 // estimate tries, metres.
-func DefaultUprightFrontsM() []float64 { return []float64{5, 6.5, 8, 10, 13, 17, 22, 30} }
+func DefaultUprightFrontsM() []float64 { return []float64{5, 6.5, 8, 10, 13, 17, 22, 30, 40, 55, 75} }
 
 // UprightOptions configures the upright-structure estimate of a Filler.
 // The zero value uses the defaults.
@@ -228,6 +228,13 @@ type UprightEstimator struct {
 	// compensate with these (Filler.moverModel), as their thresholds were
 	// set on them.
 	coarse []UprightSegment
+	// trimmed and pieces are the scratch of trimSegments.
+	trimmed []UprightSegment
+	pieces  []trimPiece
+	// fa and fb are the older and newer frames in grey at twice the
+	// estimate's resolution (fsx, fsy the scale), for refineFine.
+	fa, fb   gocv.Mat
+	fsx, fsy float64
 }
 
 // planeHyp is a vertical plane hypothesis {P : A·P = B} of vehicle
@@ -249,7 +256,7 @@ func NewUprightEstimator(opts UprightOptions) (*UprightEstimator, error) {
 // Close frees the scratch images. Safe to call more than once.
 func (e *UprightEstimator) Close() error {
 	if e.allocated {
-		for _, m := range []*gocv.Mat{&e.a, &e.b, &e.tmp, &e.warped, &e.diff, &e.hm, &e.minRes, &e.blur} {
+		for _, m := range []*gocv.Mat{&e.a, &e.b, &e.tmp, &e.warped, &e.diff, &e.hm, &e.minRes, &e.blur, &e.fa, &e.fb} {
 			m.Close()
 		}
 		for i := range e.hypRes {
@@ -309,7 +316,7 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 	h := max(8, int(math.Round(float64(cam.Height)*s)))
 	sy := float64(h) / float64(cam.Height)
 	if !e.allocated {
-		for _, p := range []*gocv.Mat{&e.a, &e.b, &e.tmp, &e.warped, &e.diff, &e.minRes, &e.blur} {
+		for _, p := range []*gocv.Mat{&e.a, &e.b, &e.tmp, &e.warped, &e.diff, &e.minRes, &e.blur, &e.fa, &e.fb} {
 			*p = gocv.NewMat()
 		}
 		e.hm = gocv.NewMatWithSize(3, 3, gocv.MatTypeCV64F)
@@ -320,6 +327,13 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 	gocv.CvtColor(e.tmp, &e.a, gocv.ColorBGRToGray)
 	gocv.Resize(last, &e.tmp, size, 0, 0, gocv.InterpolationArea)
 	gocv.CvtColor(e.tmp, &e.b, gocv.ColorBGRToGray)
+	fw := min(2*w, cam.Width)
+	fsize := image.Pt(fw, max(8, int(math.Round(float64(cam.Height)*float64(fw)/float64(cam.Width)))))
+	e.fsx, e.fsy = float64(fsize.X)/float64(cam.Width), float64(fsize.Y)/float64(cam.Height)
+	gocv.Resize(prev, &e.tmp, fsize, 0, 0, gocv.InterpolationArea)
+	gocv.CvtColor(e.tmp, &e.fa, gocv.ColorBGRToGray)
+	gocv.Resize(last, &e.tmp, fsize, 0, 0, gocv.InterpolationArea)
+	gocv.CvtColor(e.tmp, &e.fb, gocv.ColorBGRToGray)
 	e.haveRes = false
 	for _, p := range []*gocv.Mat{&e.warped, &e.diff, &e.minRes, &e.blur} { // full size: hypotheses write regions
 		if p.Rows() != h || p.Cols() != w || p.Type() != gocv.MatTypeCV8U {
@@ -529,11 +543,124 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 		}
 		if best >= 0 {
 			e.coarse = append(e.coarse, e.segs[best])
-			model.Segments = append(model.Segments, e.refine(cam, best, b, hzRow))
+			model.Segments = append(model.Segments, e.refineFine(cam, e.refine(cam, best, b, hzRow), hzRow))
 		}
 	}
 	joinSegments(cam, model.Segments)
+	e.trimmed = e.trimSegments(cam, model.Segments, farDepthM, e.trimmed[:0])
+	model.Segments = append(model.Segments[:0], e.trimmed...)
 	return nil
+}
+
+// trimPiece is one column piece of a segment in trimSegments: its
+// segment, its top row (low resolution), whether its plane stands there
+// (ok) and whether the plane matches it better than the background.
+type trimPiece struct {
+	seg      UprightSegment
+	top      int
+	ok, keep bool
+}
+
+// uprightSubPx is the width, at full resolution, of the column pieces
+// into which trimSegments cuts each segment (a design choice of this
+// project: two low-resolution columns at the default width, fine enough to
+// follow a roofline or a building's side edge within a few pixels).
+const uprightSubPx = 8
+
+// trimSegments appends to dst the part of each segment that its plane
+// explains, column piece by column piece (uprightSubPx wide): a piece
+// starts at its own first textured row (firstTexturedRow: the roofline,
+// not the band's) when that is below the band's top row, or above it if
+// the plane explains the rows between better than the far map; it is kept only if the segment's plane
+// matches it better than the road-and-far model over the same rows
+// (bandCost, ties going to the road and far model), or if it lies between
+// two kept pieces. A band's plane is
+// chosen on the whole band, so a building's side edge or roofline inside
+// the band leaves sky, grass or road in its quad; the synthesis would move
+// those with the plane and, worse, mark as disoccluded the scene the
+// background maps fetch from there, which the held frame does see.
+// Consecutive kept pieces of a segment with the same top row are merged
+// back into one segment (the same plane, so the same homography).
+func (e *UprightEstimator) trimSegments(cam Camera, segs []UprightSegment, farDepthM float64, dst []UprightSegment) []UprightSegment {
+	w, h := e.a.Cols(), e.a.Rows()
+	s, sy := e.sx, e.sy
+	lowRow := func(v float64) int { return int(math.Round(math.Min(math.Max(v*sy, 0), float64(h)))) }
+	lowCol := func(u int) int { return min(w, int(math.Round(float64(u)*s))) }
+	dx, dy, dyaw := e.back[0], e.back[1], e.back[2]
+	road := scaleHomography(GroundHomographyPlanar(cam, dx, dy, dyaw), s, sy)
+	far := scaleHomography(FarHomographyPlanar(cam, dx, dy, dyaw, farDepthM), s, sy)
+	hz := cam.Horizon()
+	for _, seg := range segs {
+		hs := scaleHomography(PlaneHomography(cam, dx, dy, dyaw, seg.Plane), s, sy)
+		hzRow, ok := hz.RowAt(float64(seg.Col0+seg.Col1-1) / 2)
+		if !ok || !hs.IsFinite() || !road.IsFinite() || !far.IsFinite() {
+			dst = append(dst, seg)
+			continue
+		}
+		hzLow := lowRow(hzRow)
+		top := 0
+		if seg.TopRow > -0.5 {
+			top = lowRow(seg.TopRow + 0.5)
+		}
+		// Decide every piece, then keep the dropped pieces between two
+		// kept ones: a piece of a facade that matches the plane no better
+		// than the background (plain wall) would otherwise open a gap in
+		// the facade that the synthesis marks as disoccluded.
+		np := (seg.Col1 - seg.Col0 + uprightSubPx - 1) / uprightSubPx
+		e.pieces = e.pieces[:0]
+		first, last := np, -1
+		for j := 0; j < np; j++ {
+			c0 := seg.Col0 + j*uprightSubPx
+			c1 := min(c0+uprightSubPx, seg.Col1)
+			x0, x1 := lowCol(c0), lowCol(c1)
+			sub, ok := segment(cam, seg.Plane, c0, c1, hzRow)
+			p := trimPiece{seg: sub, ok: ok && x1 > x0}
+			if p.ok {
+				tx := e.firstTexturedRow(x0, x1)
+				p.top = max(top, tx)
+				if tx < top && top <= hzLow && e.bandCost(hs, x0, x1, tx, top) <= e.bandCost(far, x0, x1, tx, top) {
+					// The band's top cuts this piece's roofline: the
+					// plane explains the piece up to its own first
+					// textured row.
+					p.top = tx
+				}
+				base := lowRow((sub.BaseRow0 + sub.BaseRow1) / 2)
+				p.ok = base-p.top >= 2
+				if p.ok {
+					bg := e.bandCost(far, x0, x1, p.top, min(base, max(p.top, hzLow))) +
+						e.bandCost(road, x0, x1, max(p.top, hzLow), base)
+					p.keep = e.bandCost(hs, x0, x1, p.top, base) < bg
+				}
+			}
+			if p.keep {
+				first, last = min(first, j), j
+			}
+			e.pieces = append(e.pieces, p)
+		}
+		open := false
+		for j, p := range e.pieces {
+			if !p.ok || !(p.keep || (j > first && j < last)) {
+				open = false
+				continue
+			}
+			sub, c0 := p.seg, p.seg.Col0
+			sub.TopRow = -0.5
+			if p.top > 0 {
+				sub.TopRow = float64(p.top)/sy - 0.5
+			}
+			if n := len(dst); open && dst[n-1].TopRow == sub.TopRow && dst[n-1].Col1 == c0 {
+				d := &dst[n-1]
+				d.Col1, d.BaseRow1 = sub.Col1, sub.BaseRow1
+				if m, ok := segment(cam, seg.Plane, d.Col0, d.Col1, hzRow); ok {
+					d.DepthM = m.DepthM
+				}
+				continue
+			}
+			dst = append(dst, sub)
+			open = true
+		}
+	}
+	return dst
 }
 
 // uprightJoinRatio is the largest relative difference of the distances of
@@ -769,6 +896,123 @@ func (e *UprightEstimator) refine(cam Camera, best, b int, hzRow float64) Uprigh
 	return cur
 }
 
+// Steps of the fine refinement (design choices of this project): a half
+// and a fifth of refine's, about the precision refine reaches at the
+// estimate's resolution.
+const (
+	fineDepthStep = 0.015
+	fineYawStep   = 4 * math.Pi / 180
+)
+
+// refineFine refines seg's plane again, in the distance of its foot point
+// and its yaw about the vertical through it (each by the vertex of a
+// parabola through three costs, as refine), on the band's matching cost
+// at twice the estimate's resolution (fineCost): at a quarter of 720p a
+// facade placed a quarter of a pixel off is a pixel off in the predicted
+// frame, which a window's edge shows. A refined plane replaces seg only if
+// its cost is lower.
+func (e *UprightEstimator) refineFine(cam Camera, seg UprightSegment, hzRow float64) UprightSegment {
+	fh := e.fb.Rows()
+	winEnd := min(fh, int(math.Ceil(math.Max(seg.BaseRow0, seg.BaseRow1)*e.fsy))+12)
+	cur, curCost := seg, e.fineCost(cam, seg, winEnd)
+	if math.IsInf(curCost, 1) {
+		return seg
+	}
+	try := func(a vec3, off float64) (UprightSegment, float64, bool) {
+		if !(off > 0) {
+			return UprightSegment{}, 0, false
+		}
+		r, ok := segment(cam, verticalPlane(cam, a, off), seg.Col0, seg.Col1, hzRow)
+		if !ok {
+			return r, 0, false
+		}
+		r.TopRow = seg.TopRow
+		c := e.fineCost(cam, r, winEnd)
+		return r, c, !math.IsInf(c, 1)
+	}
+	keep := func(r UprightSegment, c float64, ok bool) {
+		if ok && c < curCost {
+			cur, curCost = r, c
+		}
+	}
+	foot, ok := e.footPoint(cam, seg)
+	if !ok {
+		return seg
+	}
+	a := mul3v(transpose3(cam.RotationVehicleToCamera()), vec3{seg.Plane.Normal[0], seg.Plane.Normal[1], seg.Plane.Normal[2]})
+	a[2] = 0
+	n := math.Hypot(a[0], a[1])
+	if !(n > 0) {
+		return seg
+	}
+	a[0], a[1] = a[0]/n, a[1]/n
+	ctr := cam.CentreVehicle()
+	at := func(k float64) vec3 {
+		return vec3{ctr[0] + k*(foot[0]-ctr[0]), ctr[1] + k*(foot[1]-ctr[1]), 0}
+	}
+	var fs [3]float64
+	var oks [3]bool
+	for i, k := range [3]float64{1 - fineDepthStep, 1, 1 + fineDepthStep} {
+		var r UprightSegment
+		r, fs[i], oks[i] = try(a, dot3(a, at(k)))
+		keep(r, fs[i], oks[i])
+	}
+	if oks[0] && oks[1] && oks[2] {
+		if x, ok := parabolaVertex(1/(1-fineDepthStep), 1, 1/(1+fineDepthStep), fs[0], fs[1], fs[2]); ok {
+			keep(try(a, dot3(a, at(1/x))))
+		}
+	}
+	if f2, ok := e.footPoint(cam, cur); ok {
+		foot = f2
+	}
+	a = mul3v(transpose3(cam.RotationVehicleToCamera()), vec3{cur.Plane.Normal[0], cur.Plane.Normal[1], cur.Plane.Normal[2]})
+	a[2] = 0
+	if n := math.Hypot(a[0], a[1]); n > 0 {
+		a[0], a[1] = a[0]/n, a[1]/n
+	}
+	rot := func(phi float64) vec3 {
+		sn, cs := math.Sincos(phi)
+		return vec3{cs*a[0] - sn*a[1], sn*a[0] + cs*a[1], 0}
+	}
+	var ys [3]float64
+	var yok [3]bool
+	for i := range ys {
+		r := rot(float64(i-1) * fineYawStep)
+		var sg UprightSegment
+		sg, ys[i], yok[i] = try(r, dot3(r, foot))
+		keep(sg, ys[i], yok[i])
+	}
+	if yok[0] && yok[1] && yok[2] {
+		if x, ok := parabolaVertex(-1, 0, 1, ys[0], ys[1], ys[2]); ok {
+			r := rot(x * fineYawStep)
+			keep(try(r, dot3(r, foot)))
+		}
+	}
+	return cur
+}
+
+// fineCost returns band seg's matching cost at the fine resolution over
+// its rows from the top row to winEnd (fine rows): seg's plane down to
+// its base, the road below it. Rows below winEnd are left out: refineFine
+// compares planes whose bases lie above it, so they add the same to all.
+func (e *UprightEstimator) fineCost(cam Camera, seg UprightSegment, winEnd int) float64 {
+	fw, fh := e.fb.Cols(), e.fb.Rows()
+	row := func(v float64) int { return int(math.Round(math.Min(math.Max(v*e.fsy, 0), float64(fh)))) }
+	top := 0
+	if seg.TopRow > -0.5 {
+		top = row(seg.TopRow + 0.5)
+	}
+	base := min(row((seg.BaseRow0+seg.BaseRow1)/2), winEnd)
+	if base <= top {
+		return math.Inf(1)
+	}
+	x0 := min(fw, int(math.Round(float64(seg.Col0)*e.fsx)))
+	x1 := min(fw, int(math.Round(float64(seg.Col1)*e.fsx)))
+	hs := scaleHomography(PlaneHomography(cam, e.back[0], e.back[1], e.back[2], seg.Plane), e.fsx, e.fsy)
+	road := scaleHomography(GroundHomographyPlanar(cam, e.back[0], e.back[1], e.back[2]), e.fsx, e.fsy)
+	return sadOn(e.fa, e.fb, hs, x0, x1, top, base) + sadOn(e.fa, e.fb, road, x0, x1, base, winEnd)
+}
+
 // parabolaVertex returns the abscissa of the vertex of the parabola through
 // (x0, f0), (x1, f1), (x2, f2) when f1 is the least of the three and the
 // vertex lies strictly between x0 and x2 (Press et al., "Numerical
@@ -817,9 +1061,16 @@ func (e *UprightEstimator) bandPlaneCost(cam Camera, b int, seg UprightSegment) 
 // bilinear with the border replicated: the sums Estimate takes from its
 // warps, for one band and one plane.
 func (e *UprightEstimator) bandCost(hs Homography, x0, x1, y0, y1 int) float64 {
-	w, h := e.a.Cols(), e.a.Rows()
-	pa, err1 := e.a.DataPtrUint8()
-	pb, err2 := e.b.DataPtrUint8()
+	return sadOn(e.a, e.b, hs, x0, x1, y0, y1)
+}
+
+// sadOn returns the sum over the pixels of columns [x0, x1) and rows
+// [y0, y1) of b of |a at hs(x, y) - b|, bilinear with the border
+// replicated (a and b grey images of one size).
+func sadOn(a, b gocv.Mat, hs Homography, x0, x1, y0, y1 int) float64 {
+	w, h := a.Cols(), a.Rows()
+	pa, err1 := a.DataPtrUint8()
+	pb, err2 := b.DataPtrUint8()
 	if err1 != nil || err2 != nil {
 		return math.Inf(1)
 	}
