@@ -616,7 +616,9 @@ func (e *UprightEstimator) trimSegments(cam Camera, segs []UprightSegment, farDe
 			sub, ok := segment(cam, seg.Plane, c0, c1, hzRow)
 			p := trimPiece{seg: sub, ok: ok && x1 > x0}
 			if p.ok {
-				tx := e.firstTexturedRow(x0, x1)
+				// The first textured row differs from the row below
+				// it: a roofline is between the two.
+				tx := min(e.firstTexturedRow(x0, x1)+1, h)
 				p.top = max(top, tx)
 				if tx < top && top <= hzLow && e.bandCost(hs, x0, x1, tx, top) <= e.bandCost(far, x0, x1, tx, top) {
 					// The band's top cuts this piece's roofline: the
