@@ -228,9 +228,6 @@ type UprightEstimator struct {
 	// compensate with these (Filler.moverModel), as their thresholds were
 	// set on them.
 	coarse []UprightSegment
-	// trimmed and pieces are the scratch of trimSegments.
-	trimmed []UprightSegment
-	pieces  []trimPiece
 	// fa and fb are the older and newer frames in grey at twice the
 	// estimate's resolution (fsx, fsy the scale), for refineFine.
 	fa, fb   gocv.Mat
@@ -547,122 +544,7 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 		}
 	}
 	joinSegments(cam, model.Segments)
-	e.trimmed = e.trimSegments(cam, model.Segments, farDepthM, e.trimmed[:0])
-	model.Segments = append(model.Segments[:0], e.trimmed...)
 	return nil
-}
-
-// trimPiece is one column piece of a segment in trimSegments: its
-// segment, its top row (low resolution), whether its plane stands there
-// (ok) and whether the plane matches it better than the background.
-type trimPiece struct {
-	seg      UprightSegment
-	top      int
-	ok, keep bool
-}
-
-// uprightSubPx is the width, at full resolution, of the column pieces
-// into which trimSegments cuts each segment (a design choice of this
-// project: two low-resolution columns at the default width, fine enough to
-// follow a roofline or a building's side edge within a few pixels).
-const uprightSubPx = 8
-
-// trimSegments appends to dst the part of each segment that its plane
-// explains, column piece by column piece (uprightSubPx wide): a piece
-// starts at its own first textured row (firstTexturedRow: the roofline,
-// not the band's) when that is below the band's top row, or above it if
-// the plane explains the rows between better than the far map; it is kept only if the segment's plane
-// matches it better than the road-and-far model over the same rows
-// (bandCost, ties going to the road and far model), or if it lies between
-// two kept pieces. A band's plane is
-// chosen on the whole band, so a building's side edge or roofline inside
-// the band leaves sky, grass or road in its quad; the synthesis would move
-// those with the plane and, worse, mark as disoccluded the scene the
-// background maps fetch from there, which the held frame does see.
-// Consecutive kept pieces of a segment with the same top row are merged
-// back into one segment (the same plane, so the same homography).
-func (e *UprightEstimator) trimSegments(cam Camera, segs []UprightSegment, farDepthM float64, dst []UprightSegment) []UprightSegment {
-	w, h := e.a.Cols(), e.a.Rows()
-	s, sy := e.sx, e.sy
-	lowRow := func(v float64) int { return int(math.Round(math.Min(math.Max(v*sy, 0), float64(h)))) }
-	lowCol := func(u int) int { return min(w, int(math.Round(float64(u)*s))) }
-	dx, dy, dyaw := e.back[0], e.back[1], e.back[2]
-	road := scaleHomography(GroundHomographyPlanar(cam, dx, dy, dyaw), s, sy)
-	far := scaleHomography(FarHomographyPlanar(cam, dx, dy, dyaw, farDepthM), s, sy)
-	hz := cam.Horizon()
-	for _, seg := range segs {
-		hs := scaleHomography(PlaneHomography(cam, dx, dy, dyaw, seg.Plane), s, sy)
-		hzRow, ok := hz.RowAt(float64(seg.Col0+seg.Col1-1) / 2)
-		if !ok || !hs.IsFinite() || !road.IsFinite() || !far.IsFinite() {
-			dst = append(dst, seg)
-			continue
-		}
-		hzLow := lowRow(hzRow)
-		top := 0
-		if seg.TopRow > -0.5 {
-			top = lowRow(seg.TopRow + 0.5)
-		}
-		// Decide every piece, then keep the dropped pieces between two
-		// kept ones: a piece of a facade that matches the plane no better
-		// than the background (plain wall) would otherwise open a gap in
-		// the facade that the synthesis marks as disoccluded.
-		np := (seg.Col1 - seg.Col0 + uprightSubPx - 1) / uprightSubPx
-		e.pieces = e.pieces[:0]
-		first, last := np, -1
-		for j := 0; j < np; j++ {
-			c0 := seg.Col0 + j*uprightSubPx
-			c1 := min(c0+uprightSubPx, seg.Col1)
-			x0, x1 := lowCol(c0), lowCol(c1)
-			sub, ok := segment(cam, seg.Plane, c0, c1, hzRow)
-			p := trimPiece{seg: sub, ok: ok && x1 > x0}
-			if p.ok {
-				// The first textured row differs from the row below
-				// it: a roofline is between the two.
-				tx := min(e.firstTexturedRow(x0, x1)+1, h)
-				p.top = max(top, tx)
-				if tx < top && top <= hzLow && e.bandCost(hs, x0, x1, tx, top) <= e.bandCost(far, x0, x1, tx, top) {
-					// The band's top cuts this piece's roofline: the
-					// plane explains the piece up to its own first
-					// textured row.
-					p.top = tx
-				}
-				base := lowRow((sub.BaseRow0 + sub.BaseRow1) / 2)
-				p.ok = base-p.top >= 2
-				if p.ok {
-					bg := e.bandCost(far, x0, x1, p.top, min(base, max(p.top, hzLow))) +
-						e.bandCost(road, x0, x1, max(p.top, hzLow), base)
-					p.keep = e.bandCost(hs, x0, x1, p.top, base) < bg
-				}
-			}
-			if p.keep {
-				first, last = min(first, j), j
-			}
-			e.pieces = append(e.pieces, p)
-		}
-		open := false
-		for j, p := range e.pieces {
-			if !p.ok || !(p.keep || (j > first && j < last)) {
-				open = false
-				continue
-			}
-			sub, c0 := p.seg, p.seg.Col0
-			sub.TopRow = -0.5
-			if p.top > 0 {
-				sub.TopRow = float64(p.top)/sy - 0.5
-			}
-			if n := len(dst); open && dst[n-1].TopRow == sub.TopRow && dst[n-1].Col1 == c0 {
-				d := &dst[n-1]
-				d.Col1, d.BaseRow1 = sub.Col1, sub.BaseRow1
-				if m, ok := segment(cam, seg.Plane, d.Col0, d.Col1, hzRow); ok {
-					d.DepthM = m.DepthM
-				}
-				continue
-			}
-			dst = append(dst, sub)
-			open = true
-		}
-	}
-	return dst
 }
 
 // uprightJoinRatio is the largest relative difference of the distances of
