@@ -23,13 +23,13 @@ const (
 	// DefaultUprightMinGain is the share by which an upright hypothesis
 	// must lower a band's matching cost below the road-and-far model to be
 	// kept: it keeps textureless bands (where every hypothesis matches)
-	// on the simpler model. The error budget (bench.ErrorBudget, default
-	// drive, exact motion) gains 7.62, 7.68, 7.74 and 7.74 dB at 0.1,
-	// 0.05, 0.02 and 0.01 (far facades differ from the far plane by a few
-	// per cent of the cost only), but on the benchmark street
-	// (BenchmarkFillerTickVsBare1280x720) the segments grow from 24 to 34
-	// and 38 and a predicted frame from 1.01 to 1.18 and 1.19 bare warps,
-	// over the bound of one.
+	// on the simpler model. With fronts tried out to 140 m, the error
+	// budget (bench.ErrorBudget, default drive, exact motion) gained 7.62,
+	// 7.68, 7.74 and 7.74 dB at 0.1, 0.05, 0.02 and 0.01 (far facades
+	// differ from the far plane by a few per cent of the cost only), but
+	// on the benchmark street (BenchmarkFillerTickVsBare1280x720) the
+	// segments grew from 24 to 34 and 38 and a predicted frame from 1.01
+	// to 1.18 and 1.19 bare warps, over the bound of one.
 	DefaultUprightMinGain = 0.1
 	// DefaultUprightMinBaselineM is the least translation between the two
 	// frames for an estimate: 0.1 m moves a wall 4 m away by about 2.5% of
