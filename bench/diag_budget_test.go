@@ -28,14 +28,15 @@ import (
 // the exact geometry, ErrorBudget's ExactWarpMSE) by where the pixel is:
 // shown in NeutralGrey, in the horizon blend band, at the foot or top of
 // upright structure (another class within 12 px in its column), at the
-// image edges, by row. Every BUDGET_DIAG_STEP-th PREDICTED tick (default
-// 40) it writes three PNGs: truth, prediction and the error (grey 0, red
-// where the prediction is worse than the exact warp, green where better)
-// tinted by the class (road blue, posts green, facades teal, sky grey,
-// not seen full blue). The drive is
-// generated into the directory once and reused.
+// image edges, by row; the pixels the held frame does not see by whether
+// they are shown grey. Every BUDGET_DIAG_STEP-th PREDICTED tick (default
+// 40) it writes three PNGs: truth, prediction and the error (red where the
+// prediction is worse than the exact warp, green where better) over a tint
+// of the class (road blue, posts green, facades teal, sky grey, not seen
+// full blue). The drive is generated into the directory once and reused;
+// -count=1 keeps go test from replaying a cached result.
 //
-//	BUDGET_DIAG_OUT=/tmp/bdiag go test ./bench -run TestDiagBudget -v
+//	BUDGET_DIAG_OUT=/tmp/bdiag go test -count=1 ./bench -run TestDiagBudget -v
 func TestDiagBudget(t *testing.T) {
 	out := os.Getenv("BUDGET_DIAG_OUT")
 	if out == "" {
