@@ -5,10 +5,8 @@ import (
 	"fmt"
 	"image"
 	"math"
-	"os"
 	"path/filepath"
 	"sort"
-	"strconv"
 	"strings"
 	"testing"
 
@@ -38,33 +36,7 @@ import (
 //
 //	BUDGET_DIAG_OUT=/tmp/bdiag go test -count=1 ./bench -run TestDiagBudget -v
 func TestDiagBudget(t *testing.T) {
-	out := os.Getenv("BUDGET_DIAG_OUT")
-	if out == "" {
-		t.Skip("set BUDGET_DIAG_OUT to write the error-budget diagnosis")
-	}
-	step := 40
-	if v, err := strconv.Atoi(os.Getenv("BUDGET_DIAG_STEP")); err == nil && v > 0 {
-		step = v
-	}
-	cfg := simdrive.Config{}
-	if v, err := strconv.ParseFloat(os.Getenv("BUDGET_DIAG_SETBACK"), 64); err == nil {
-		cfg.FacadeSetbackM = v
-	}
-	drive := filepath.Join(out, "drive")
-	if _, err := os.Stat(filepath.Join(drive, "frames.csv")); err != nil {
-		if err := simdrive.Generate(context.Background(), cfg, drive, nil); err != nil {
-			t.Fatal(err)
-		}
-	}
-	rec, err := recording.Open(drive)
-	if err != nil {
-		t.Fatal(err)
-	}
-	sc, err := simdrive.NewScene(cfg)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer sc.Close()
+	out, step, rec, sc := diagDrive(t, "BUDGET_DIAG", 40, "error-budget diagnosis")
 	a := newBudgetAcc(sc)
 	defer a.Close()
 	cam := rec.Camera
@@ -85,8 +57,8 @@ func TestDiagBudget(t *testing.T) {
 	}
 	cls := make([]simdrive.Class, w*h)
 	tick := 0
-	rc := ReplayConfig{Drive: drive, Policy: predictor.DefaultPolicy()}
-	rc.Loss = baseReplay(drive, "").Loss
+	rc := ReplayConfig{Drive: rec.Dir, Policy: predictor.DefaultPolicy()}
+	rc.Loss = baseReplay(rec.Dir, "").Loss
 	rc.truthMotion = func(tr []recording.Truth) predictor.MotionSource { return exactMotion(tr) }
 	rc.Examples = -1
 	rc.predicted = func(k, held int, pred, truth, heldImg gocv.Mat) error {

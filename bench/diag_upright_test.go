@@ -36,33 +36,7 @@ import (
 //
 //	UPRIGHT_DIAG_OUT=/tmp/diag UPRIGHT_DIAG_BACK=6 go test ./bench -run TestDiagUpright -v
 func TestDiagUpright(t *testing.T) {
-	out := os.Getenv("UPRIGHT_DIAG_OUT")
-	if out == "" {
-		t.Skip("set UPRIGHT_DIAG_OUT to write the upright-model diagnosis")
-	}
-	step := 15
-	if v, err := strconv.Atoi(os.Getenv("UPRIGHT_DIAG_STEP")); err == nil && v > 0 {
-		step = v
-	}
-	cfg := simdrive.Config{}
-	if v, err := strconv.ParseFloat(os.Getenv("UPRIGHT_DIAG_SETBACK"), 64); err == nil {
-		cfg.FacadeSetbackM = v
-	}
-	drive := filepath.Join(out, "drive")
-	if _, err := os.Stat(filepath.Join(drive, "frames.csv")); err != nil {
-		if err := simdrive.Generate(context.Background(), cfg, drive, nil); err != nil {
-			t.Fatal(err)
-		}
-	}
-	rec, err := recording.Open(drive)
-	if err != nil {
-		t.Fatal(err)
-	}
-	sc, err := simdrive.NewScene(cfg)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer sc.Close()
+	out, step, rec, sc := diagDrive(t, "UPRIGHT_DIAG", 15, "upright-model diagnosis")
 	cam := rec.Camera
 	w, h := cam.Width, cam.Height
 	ex := exactMotion(rec.Truth)
@@ -306,4 +280,41 @@ func TestDiagUpright(t *testing.T) {
 		}
 		t.Logf("%-36s %7.1f%% %7.1f%% %8.1f %8.2f  %s", k, 100*c.n/tot.n, 100*c.sse/tot.sse, c.sse/c.n, c.disp/c.n, hs)
 	}
+}
+
+// diagDrive prepares an opt-in diagnosis: it skips t unless PREFIX_OUT names
+// a directory, reads the tick step PREFIX_STEP (default defStep) and
+// simdrive's FacadeSetbackM from PREFIX_SETBACK, generates the default drive
+// into PREFIX_OUT/drive once (it is reused after) and returns the directory,
+// the step, the recording and the drive's scene (closed when t ends).
+func diagDrive(t *testing.T, prefix string, defStep int, what string) (out string, step int, rec *recording.Recording, sc *simdrive.Scene) {
+	t.Helper()
+	out = os.Getenv(prefix + "_OUT")
+	if out == "" {
+		t.Skipf("set %s_OUT to write the %s", prefix, what)
+	}
+	step = defStep
+	if v, err := strconv.Atoi(os.Getenv(prefix + "_STEP")); err == nil && v > 0 {
+		step = v
+	}
+	cfg := simdrive.Config{}
+	if v, err := strconv.ParseFloat(os.Getenv(prefix+"_SETBACK"), 64); err == nil {
+		cfg.FacadeSetbackM = v
+	}
+	drive := filepath.Join(out, "drive")
+	if _, err := os.Stat(filepath.Join(drive, "frames.csv")); err != nil {
+		if err := simdrive.Generate(context.Background(), cfg, drive, nil); err != nil {
+			t.Fatal(err)
+		}
+	}
+	rec, err := recording.Open(drive)
+	if err != nil {
+		t.Fatal(err)
+	}
+	sc, err = simdrive.NewScene(cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { sc.Close() })
+	return out, step, rec, sc
 }
