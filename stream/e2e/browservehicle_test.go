@@ -591,14 +591,13 @@ func TestAcceptBrowserVehicle(t *testing.T) {
 		back := time.Now()
 		t.Logf("link back at %s", back.Format("15:04:05.000000"))
 		// Polled every millisecond: waitFor's 10 ms would add up to 10 ms to the figure.
-		var first time.Duration
 		for r.relay.Stats().TicksLive == endCut.TicksLive {
 			if time.Since(back) > 10*time.Second {
 				t.Fatal("no LIVE tick within 10 s of the link's return")
 			}
 			time.Sleep(time.Millisecond)
 		}
-		first = time.Since(back)
+		first := time.Since(back)
 		sb := r.relay.Stats()
 		t.Logf("3 s outage: LIVE ticks while cut (after the first 150 ms): %d; first LIVE tick %v after the link returned; keyframe requests in the run %d; first frame after the outage shown late (frames_resumed) %d",
 			endCut.TicksLive-inCut.TicksLive, first.Round(time.Millisecond), sb.KeyframeRequests-s0.KeyframeRequests, sb.FramesResumed-endCut.FramesResumed)

@@ -64,10 +64,10 @@ type frameIngest struct {
 	// linkBackRetry (see runTimers).
 	linkBack    bool
 	lastArrival time.Time // arrival of the latest packet
-	// lastTelNs is the arrival of the sender's last telemetry message
-	// (Unix ns) as the timer saw it during the current video silence
-	// (backFromTelemetry); zero while video flows.
-	lastTelNs int64
+	// telSeenNs is the arrival of the sender's last telemetry message
+	// (pipeline.lastTelNs) as the timer saw it during the current video
+	// silence (backFromTelemetry); zero while video flows.
+	telSeenNs int64
 	// lastArrivalNs is lastArrival in Unix nanoseconds (0: none yet), for
 	// the display loop's link statistics without in.mu: the ingest holds
 	// in.mu through each frame's decode, and every meta message waited
@@ -206,7 +206,7 @@ func (in *frameIngest) runTimers(ctx context.Context) {
 		if silent {
 			wait = silentPoll
 		} else {
-			in.lastTelNs = 0
+			in.telSeenNs = 0
 		}
 		in.mu.Unlock()
 		t.Reset(wait)
@@ -228,8 +228,8 @@ const silentPoll = 5 * time.Millisecond
 // request the link's real return needs.
 func (in *frameIngest) backFromTelemetry() bool {
 	last := in.p.lastTelNs.Load()
-	prev := in.lastTelNs
-	in.lastTelNs = last
+	prev := in.telSeenNs
+	in.telSeenNs = last
 	return prev != 0 && time.Duration(last-prev) >= in.p.cfg.KeyframeRetry
 }
 

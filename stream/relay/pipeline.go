@@ -576,13 +576,16 @@ func (p *pipeline) encodeOwn(t cadence.Tick, showsUs int64) (encDur time.Duratio
 		p.recordNotShown(t)
 		return 0, false, false
 	}
-	forceKey, ok := true, true
+	var forceKey bool
 	if p.cfg.DrawOverdue {
 		// Ticks filled in batches faster than real time: the ingest
 		// runs ahead of the display loop by design (Config.DrawOverdue).
 		forceKey = p.r.gate.BeginOwn()
-	} else if forceKey, ok = p.r.gate.BeginOwnShowing(showsUs); !ok {
-		return 0, false, true
+	} else {
+		var ok bool
+		if forceKey, ok = p.r.gate.BeginOwnShowing(showsUs); !ok {
+			return 0, false, true
+		}
 	}
 	if forceKey {
 		p.r.enc.ForceKeyframe()
