@@ -351,3 +351,96 @@ func TestDecodeAllocs(t *testing.T) {
 		t.Errorf("Decode allocates %v times per frame", allocs)
 	}
 }
+
+// TestDecoderWorkerSameResults feeds two decoders, one decoding on its
+// worker thread (DecoderConfig.Worker) and one in the caller's cgo call, the
+// same sequence: a clean stream, a loss, then truncated and bit-flipped
+// frames, a hidden frame and a recovery keyframe. Every call must give the
+// same error (or none) and the same picture, byte for byte.
+func TestDecoderWorkerSameResults(t *testing.T) {
+	s := smallStream(t)
+	var seq [][]byte
+	seq = append(seq, s.frames...)
+	seq = append(seq, nil) // nil: Lost
+	seq = append(seq, s.frames[1], s.frames[0])
+	for i := 1; i < 4; i++ {
+		f := s.frames[i]
+		seq = append(seq, f[:len(f)/2], s.frames[0])
+		for _, at := range []int{3, len(f) / 3, len(f) - 1} {
+			c := append([]byte(nil), f...)
+			c[at] ^= 0x81
+			seq = append(seq, c)
+		}
+		seq = append(seq, s.frames[0])
+	}
+	hidden := append([]byte(nil), s.frames[1]...)
+	hidden[0] &^= 0x10
+	seq = append(seq, hidden, s.frames[2], s.frames[6], s.frames[7])
+
+	plain := newTestDecoder(t, DecoderConfig{})
+	worker := newTestDecoder(t, DecoderConfig{Worker: true})
+	a, b := &Image{}, &Image{}
+	for i, f := range seq {
+		if f == nil {
+			plain.Lost()
+			worker.Lost()
+			continue
+		}
+		ea, eb := plain.Decode(f, a), worker.Decode(f, b)
+		if (ea == nil) != (eb == nil) || (ea != nil && ea.Error() != eb.Error()) {
+			t.Fatalf("call %d: in the caller %v, on the worker %v", i, ea, eb)
+		}
+		if !bytes.Equal(a.Y, b.Y) || !bytes.Equal(a.U, b.U) || !bytes.Equal(a.V, b.V) {
+			t.Fatalf("call %d: pictures differ", i)
+		}
+		if plain.NeedKeyframe() != worker.NeedKeyframe() {
+			t.Fatalf("call %d: NeedKeyframe %v in the caller, %v on the worker", i, plain.NeedKeyframe(), worker.NeedKeyframe())
+		}
+	}
+	if err := worker.Close(); err != nil {
+		t.Fatal(err)
+	}
+	if err := worker.Decode(s.frames[0], b); err != ErrClosed {
+		t.Errorf("Decode after Close: %v, want ErrClosed", err)
+	}
+}
+
+// TestDecoderWorkerAllocsAndLeaks: the worker's Decode allocates nothing
+// per frame, and Close stops the thread and returns its C memory (many
+// decoders made and closed leave the C heap where it was, within one
+// decoder's worth).
+func TestDecoderWorkerAllocsAndLeaks(t *testing.T) {
+	s := smallStream(t)
+	d := newTestDecoder(t, DecoderConfig{Worker: true})
+	out := &Image{}
+	if err := d.Decode(s.frames[0], out); err != nil {
+		t.Fatal(err)
+	}
+	i := 1
+	if allocs := testing.AllocsPerRun(4, func() {
+		if err := d.Decode(s.frames[i], out); err != nil {
+			t.Fatal(err)
+		}
+		i++
+	}); allocs != 0 {
+		t.Errorf("Decode on the worker allocates %v times per frame", allocs)
+	}
+	cycle := func() {
+		d, err := NewDecoderConfig(DecoderConfig{Worker: true})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if err := d.Decode(s.frames[0], out); err != nil {
+			t.Fatal(err)
+		}
+		d.Close()
+	}
+	cycle()
+	before := cMallocInUse()
+	for range 50 {
+		cycle()
+	}
+	if grew := cMallocInUse() - before; grew > 256<<10 {
+		t.Errorf("50 decoders with workers made and closed: C heap grew by %d bytes", grew)
+	}
+}
