@@ -88,10 +88,7 @@ type frameIngest struct {
 
 func newIngest(p *pipeline) (*frameIngest, error) {
 	in := &frameIngest{p: p}
-	// On the decoder's own thread: the RTP goroutine waits for each
-	// decode (about 2.3 ms at 1280x720) parked, not in a cgo call, which
-	// saves the Go runtime's polling of a busy P (vp8.DecoderConfig.Worker).
-	dec, err := vp8.NewDecoderConfig(vp8.DecoderConfig{MaxWidth: p.cfg.Camera.Width, MaxHeight: p.cfg.Camera.Height, Worker: true})
+	dec, err := vp8.NewDecoderConfig(vp8.DecoderConfig{MaxWidth: p.cfg.Camera.Width, MaxHeight: p.cfg.Camera.Height})
 	if err != nil {
 		return nil, err
 	}

@@ -6,7 +6,6 @@ import "C"
 
 import (
 	"fmt"
-	"os"
 	"sync"
 	"unsafe"
 )
@@ -42,15 +41,6 @@ type DecoderConfig struct {
 	AllowSizeChange bool
 	// Threads is the number of libvpx decoder threads. 0 means 1.
 	Threads int
-	// Worker runs each decode on a thread of the decoder's own (not a Go
-	// thread); Decode then waits for it through the Go netpoller (an
-	// eventfd) instead of sitting in a cgo call. Results are the same. A
-	// cgo call of milliseconds keeps a Go P busy, so the runtime's sysmon
-	// thread polls every 20 us throughout it; a live relay decoding a
-	// 1280x720 frame (about 2.3 ms) 30 times a second paid about 50
-	// sysmon wake-ups per frame for that (see DEVELOPERS.md, "The relay's
-	// own CPU"). Linux only (eventfd).
-	Worker bool
 }
 
 func (c DecoderConfig) withDefaults() (DecoderConfig, error) {
@@ -95,8 +85,6 @@ func (c DecoderConfig) withDefaults() (DecoderConfig, error) {
 type Decoder struct {
 	mu       sync.Mutex
 	c        *C.sg_dec
-	wake     *os.File // the worker's eventfd (DecoderConfig.Worker), nil without
-	ev       [8]byte  // its counter, read after each job
 	cfg      DecoderConfig
 	needKey  bool
 	dirty    bool // libvpx context may hold damaged state: recreate before next keyframe
@@ -120,37 +108,7 @@ func NewDecoderConfig(cfg DecoderConfig) (*Decoder, error) {
 	if c == nil {
 		return nil, &CodecError{Op: "init", Code: int(res), Message: vpxErrorString(res), Err: ErrCodec}
 	}
-	d := &Decoder{c: c, cfg: cfg, needKey: true}
-	if cfg.Worker {
-		fd := C.sg_dec_start_worker(c)
-		if fd < 0 {
-			C.sg_dec_free(c)
-			return nil, &CodecError{Op: "init", Message: "decoder thread not started", Detail: fmt.Sprintf("errno %d", -int(fd)), Err: ErrCodec}
-		}
-		// Non-blocking, so os.NewFile registers it with the netpoller.
-		d.wake = os.NewFile(uintptr(fd), "vp8-decoder-worker")
-	}
-	return d, nil
-}
-
-// decodeC decodes frame with libvpx, on the worker if there is one: the
-// frame is copied to C memory, the worker decodes it, and the calling
-// goroutine parks on the eventfd meanwhile (its thread and P are free for
-// other goroutines). d.mu is held.
-func (d *Decoder) decodeC(frame []byte) C.int {
-	p, n := (*C.uint8_t)(unsafe.Pointer(&frame[0])), C.size_t(len(frame))
-	if d.wake == nil {
-		return C.sg_dec_decode(d.c, p, n)
-	}
-	if code := C.sg_dec_submit(d.c, p, n); code != C.SG_QUEUED {
-		return code
-	}
-	for C.sg_dec_done(d.c) == 0 {
-		if _, err := d.wake.Read(d.ev[:]); err != nil {
-			break // sg_dec_wait below blocks until the job is done
-		}
-	}
-	return C.sg_dec_wait(d.c)
+	return &Decoder{c: c, cfg: cfg, needKey: true}, nil
 }
 
 // NeedKeyframe reports whether the decoder is waiting for a keyframe and
@@ -233,7 +191,7 @@ func (d *Decoder) decode(frame []byte, dst *Image) error {
 		}
 	}
 
-	code := d.decodeC(frame)
+	code := C.sg_dec_decode(d.c, (*C.uint8_t)(unsafe.Pointer(&frame[0])), C.size_t(len(frame)))
 	if code != 0 {
 		d.dirty = true
 		return d.codecError(code, key, ErrCodec)
@@ -307,10 +265,6 @@ func (d *Decoder) Close() error {
 	if d.c != nil {
 		C.sg_dec_free(d.c)
 		d.c = nil
-		if d.wake != nil {
-			d.wake.Close() // after the worker ended: it writes to the fd
-			d.wake = nil
-		}
 	}
 	return nil
 }

@@ -1,13 +1,9 @@
 // See vpxwrap.h.
 #include "vpxwrap.h"
 
-#include <errno.h>
 #include <malloc.h>
-#include <pthread.h>
 #include <stdlib.h>
 #include <string.h>
-#include <sys/eventfd.h>
-#include <unistd.h>
 #include <vpx/vp8cx.h>
 #include <vpx/vp8dx.h>
 #include <vpx/vpx_decoder.h>
@@ -25,18 +21,7 @@ struct sg_dec {
   size_t cap;
   int corrupt;
   vpx_image_t *img;
-  // The worker (sg_dec_start_worker): job and result are guarded by mu.
-  int worker;   // 1 once the thread runs
-  pthread_t th;
-  pthread_mutex_t mu;
-  pthread_cond_t cv;
-  int job;      // SG_JOB_*
-  size_t job_n; // bytes of buf to decode
-  int result;   // vpx_codec_err_t of the finished job
-  int efd;      // eventfd written once per finished job
 };
-
-enum { SG_JOB_NONE, SG_JOB_DECODE, SG_JOB_DONE, SG_JOB_QUIT };
 
 static const char *safe_str(const char *s) { return s ? s : ""; }
 
@@ -72,8 +57,7 @@ sg_dec *sg_dec_new(unsigned threads, int *res) {
   return d;
 }
 
-// copy_input puts n bytes of data and the zero padding into d->buf.
-static int copy_input(sg_dec *d, const uint8_t *data, size_t n) {
+int sg_dec_decode(sg_dec *d, const uint8_t *data, size_t n) {
   d->corrupt = 0;
   d->img = NULL;
   if (!d->inited) return VPX_CODEC_ERROR;
@@ -87,11 +71,6 @@ static int copy_input(sg_dec *d, const uint8_t *data, size_t n) {
   }
   memcpy(d->buf, data, n);
   memset(d->buf + n, 0, SG_PAD);
-  return VPX_CODEC_OK;
-}
-
-// decode_input decodes the first n bytes of d->buf (see sg_dec_decode).
-static int decode_input(sg_dec *d, size_t n) {
   vpx_codec_err_t e = vpx_codec_decode(&d->ctx, d->buf, (unsigned int)n, NULL, 0);
   if (e != VPX_CODEC_OK) return (int)e;
   int c = 0;
@@ -101,92 +80,6 @@ static int decode_input(sg_dec *d, size_t n) {
   vpx_codec_iter_t it = NULL;
   d->img = vpx_codec_get_frame(&d->ctx, &it);
   return VPX_CODEC_OK;
-}
-
-int sg_dec_decode(sg_dec *d, const uint8_t *data, size_t n) {
-  int r = copy_input(d, data, n);
-  if (r != VPX_CODEC_OK) return r;
-  return decode_input(d, n);
-}
-
-static void *worker_main(void *arg) {
-  sg_dec *d = arg;
-  pthread_mutex_lock(&d->mu);
-  for (;;) {
-    while (d->job != SG_JOB_DECODE && d->job != SG_JOB_QUIT) pthread_cond_wait(&d->cv, &d->mu);
-    if (d->job == SG_JOB_QUIT) break;
-    size_t n = d->job_n;
-    pthread_mutex_unlock(&d->mu);
-    int r = decode_input(d, n);
-    pthread_mutex_lock(&d->mu);
-    d->result = r;
-    d->job = SG_JOB_DONE;
-    pthread_cond_broadcast(&d->cv);
-    uint64_t one = 1;
-    // The eventfd counter cannot overflow here (one job at a time, each
-    // read by the waiter); a failed write leaves sg_dec_wait as the way
-    // to learn the result.
-    ssize_t w;
-    do {
-      w = write(d->efd, &one, sizeof one);
-    } while (w < 0 && errno == EINTR);
-  }
-  pthread_mutex_unlock(&d->mu);
-  return NULL;
-}
-
-int sg_dec_start_worker(sg_dec *d) {
-  if (d->worker) return d->efd;
-  int fd = eventfd(0, EFD_NONBLOCK | EFD_CLOEXEC);
-  if (fd < 0) return -errno;
-  if (pthread_mutex_init(&d->mu, NULL) != 0) {
-    close(fd);
-    return -ENOMEM;
-  }
-  if (pthread_cond_init(&d->cv, NULL) != 0) {
-    pthread_mutex_destroy(&d->mu);
-    close(fd);
-    return -ENOMEM;
-  }
-  d->efd = fd;
-  d->job = SG_JOB_NONE;
-  int e = pthread_create(&d->th, NULL, worker_main, d);
-  if (e != 0) {
-    pthread_cond_destroy(&d->cv);
-    pthread_mutex_destroy(&d->mu);
-    close(fd);
-    return -e;
-  }
-  d->worker = 1;
-  return fd;
-}
-
-int sg_dec_submit(sg_dec *d, const uint8_t *data, size_t n) {
-  if (!d->worker) return VPX_CODEC_ERROR;
-  int r = copy_input(d, data, n);
-  if (r != VPX_CODEC_OK) return r;
-  pthread_mutex_lock(&d->mu);
-  d->job_n = n;
-  d->job = SG_JOB_DECODE;
-  pthread_cond_signal(&d->cv);
-  pthread_mutex_unlock(&d->mu);
-  return SG_QUEUED;
-}
-
-int sg_dec_done(sg_dec *d) {
-  pthread_mutex_lock(&d->mu);
-  int done = d->job == SG_JOB_DONE;
-  pthread_mutex_unlock(&d->mu);
-  return done;
-}
-
-int sg_dec_wait(sg_dec *d) {
-  pthread_mutex_lock(&d->mu);
-  while (d->job == SG_JOB_DECODE) pthread_cond_wait(&d->cv, &d->mu);
-  int r = d->result;
-  d->job = SG_JOB_NONE;
-  pthread_mutex_unlock(&d->mu);
-  return r;
 }
 
 int sg_dec_corrupt(const sg_dec *d) { return d->corrupt; }
@@ -205,17 +98,6 @@ const char *sg_dec_error_detail(sg_dec *d) {
 
 void sg_dec_free(sg_dec *d) {
   if (!d) return;
-  if (d->worker) {
-    pthread_mutex_lock(&d->mu);
-    while (d->job == SG_JOB_DECODE) pthread_cond_wait(&d->cv, &d->mu);
-    d->job = SG_JOB_QUIT;
-    pthread_cond_broadcast(&d->cv);
-    pthread_mutex_unlock(&d->mu);
-    pthread_join(d->th, NULL);
-    pthread_cond_destroy(&d->cv);
-    pthread_mutex_destroy(&d->mu);
-    // d->efd belongs to the Go side, which closes it.
-  }
   if (d->inited) vpx_codec_destroy(&d->ctx);
   free(d->buf);
   free(d);

@@ -29,35 +29,6 @@ int sg_dec_reset(sg_dec *d);
 // per-frame call passes no Go pointers that would escape to the heap).
 int sg_dec_decode(sg_dec *d, const uint8_t *data, size_t n);
 
-// The worker: a thread of the decoder's own that runs the decode of
-// sg_dec_submit, so the caller's thread is free meanwhile. A Go caller waits
-// for the eventfd through its netpoller instead of sitting in a cgo call for
-// the whole decode (which keeps its P busy and the runtime's sysmon thread
-// polling every 20 us). One job at a time: after sg_dec_submit, nothing but
-// sg_dec_done and sg_dec_wait may touch the decoder until sg_dec_wait
-// returned.
-//
-// sg_dec_start_worker starts the thread and returns a non-blocking eventfd
-// (owned by the caller, who closes it after sg_dec_free) that is written
-// once per finished job, or -errno.
-int sg_dec_start_worker(sg_dec *d);
-
-// SG_QUEUED is sg_dec_submit's result for a job handed to the worker (no
-// vpx_codec_err_t is negative).
-#define SG_QUEUED (-1)
-
-// sg_dec_submit copies the frame as sg_dec_decode does and hands its decode
-// to the worker (SG_QUEUED); on a failure before that it returns the
-// vpx_codec_err_t.
-int sg_dec_submit(sg_dec *d, const uint8_t *data, size_t n);
-
-// sg_dec_done reports whether the submitted job finished.
-int sg_dec_done(sg_dec *d);
-
-// sg_dec_wait blocks until the submitted job finished and returns its
-// vpx_codec_err_t; the results are then read as after sg_dec_decode.
-int sg_dec_wait(sg_dec *d);
-
 // sg_dec_corrupt returns the VP8D_GET_FRAME_CORRUPTED flag of the last
 // successful sg_dec_decode.
 int sg_dec_corrupt(const sg_dec *d);
@@ -71,8 +42,7 @@ vpx_image_t *sg_dec_image(const sg_dec *d);
 const char *sg_dec_error(sg_dec *d);
 const char *sg_dec_error_detail(sg_dec *d);
 
-// sg_dec_free waits for a submitted job, stops the worker, destroys the
-// context and frees everything but the worker's eventfd. NULL is allowed.
+// sg_dec_free destroys the context and frees everything. NULL is allowed.
 void sg_dec_free(sg_dec *d);
 
 // sg_enc_params carries the encoder settings chosen on the Go side.
