@@ -2,7 +2,9 @@ package e2e
 
 import (
 	"bufio"
+	"cmp"
 	"context"
+	"maps"
 	"math"
 	"net/http"
 	"os"
@@ -17,8 +19,10 @@ import (
 	"time"
 
 	"stopgap/internal/display"
+	"stopgap/stream/console"
 	"stopgap/stream/relay"
 	"stopgap/stream/simvehicle"
+	"stopgap/stream/vp8splice"
 )
 
 // cpuTime returns the process's user + system CPU time (getrusage(2)).
@@ -77,8 +81,11 @@ func quantile(sorted []float64, q float64) float64 {
 // same run; the parent logs the ratios of the two. Each output frame is
 // traced in the relay (Relay.TraceFrames: its input's decode time, its encode
 // time, when it was written) and matched to its arrival at the viewer (the
-// marker packet of the output video frame) and, for LIVE frames, to the
-// vehicle frame it shows (RTP timestamp, wire filter). It reports:
+// marker packet of the output video frame) by identity: the console's
+// number and RTP timestamp of the frame (console.Console.TraceSent, see
+// matchDeliveries), so a frame lost or late on the way leaves only itself
+// unmatched; LIVE frames are matched to the vehicle frame they show (RTP
+// timestamp, wire filter). It reports:
 //
 //   - e2e-p50-ms, e2e-p99-ms: for LIVE frames, from the last packet of the
 //     input frame leaving the vehicle (wire filter) to the last packet of the
@@ -184,6 +191,13 @@ func benchLoopback(b *testing.B, transcode bool) loopbackResult {
 		traceMu.Unlock()
 	})
 	defer r.relay.TraceFrames(nil)
+	var sent []sentRecord // guarded by traceMu
+	r.relay.Console().TraceSent(func(f console.SentFrame) {
+		traceMu.Lock()
+		sent = append(sent, sentRecord{num: f.Num, ts: f.RTPTimestamp, srcTS: f.SourceRTPTimestamp, fwd: f.Source == vp8splice.SourceForwarded})
+		traceMu.Unlock()
+	})
+	defer r.relay.Console().TraceSent(nil)
 	waitFor(b, "the viewer to receive LIVE frames", 15*time.Second, func() bool {
 		m, f := v.snapshot()
 		return len(m) > 30 && len(f) > 30
@@ -211,6 +225,10 @@ func benchLoopback(b *testing.B, transcode bool) loopbackResult {
 		window := append([]relay.FrameTrace(nil), traces[tr0:]...)
 		traceMu.Unlock()
 		time.Sleep(200 * time.Millisecond) // let the window's last frames reach the viewer
+		traceMu.Lock()
+		sentWin := append([]sentRecord(nil), sent...)
+		traceMu.Unlock()
+		arrivals := v.arrivals()
 		m1 := scrapeMetrics(b, r.base)
 		metas, frames := v.snapshot()
 		vs1 := r.veh.Stats()
@@ -226,16 +244,33 @@ func benchLoopback(b *testing.B, transcode bool) loopbackResult {
 		}
 		r.mu.Unlock()
 
-		// Output frame -> its arrival at the viewer, then LIVE frames -> the
-		// vehicle frame they show (tick time - offset = capture time).
-		arrival, delivered := matchDeliveries(window, frames, period)
-		var liveTicks []int64
-		for _, tr := range window {
-			if tr.State == display.StateLive {
-				liveTicks = append(liveTicks, tr.TickUs)
+		// LIVE frames -> the vehicle frame they show (its RTP timestamp,
+		// FrameTrace.RTPTimestamp), then output frame -> its arrival at
+		// the viewer (by identity too: matchDeliveries).
+		byTS := make(map[uint32]int, len(vframes))
+		for j, f := range vframes {
+			byTS[f.ts] = j
+		}
+		vehicleFrame := make([]int, len(window)) // index in vframes, -1: none
+		srcTS, hasSrc := make([]uint32, len(window)), make([]bool, len(window))
+		var offsets []int64 // tick time - capture time, for the log
+		for i, tr := range window {
+			vehicleFrame[i] = -1
+			if tr.State != display.StateLive {
+				continue
+			}
+			if j, ok := byTS[tr.RTPTimestamp]; ok {
+				vehicleFrame[i] = j
+				srcTS[i], hasSrc[i] = tr.RTPTimestamp, true
+				offsets = append(offsets, tr.TickUs-vframes[j].captureUs)
 			}
 		}
-		offsetUs := modeOffsetUs(liveTicks, vframes)
+		slices.Sort(offsets)
+		var offsetUs int64
+		if len(offsets) > 0 {
+			offsetUs = offsets[len(offsets)/2]
+		}
+		arrival, delivered := matchDeliveries(window, srcTS, hasSrc, sentWin, arrivals, period)
 		var e2e, added, fwd []float64
 		live, unmatched, forwarded, superseded := 0, 0, 0, 0
 		for i, tr := range window {
@@ -251,13 +286,8 @@ func benchLoopback(b *testing.B, transcode bool) loopbackResult {
 				forwarded++
 				fwd = append(fwd, float64(tr.WrittenAt.Sub(tr.LastPacketAt).Microseconds())/1000)
 			}
-			best, bestD := -1, int64(math.MaxInt64)
-			for j, f := range vframes {
-				if d := abs64(tr.TickUs - offsetUs - f.captureUs); d < bestD {
-					best, bestD = j, d
-				}
-			}
-			if best < 0 || bestD > period.Microseconds()/4 || arrival[i].IsZero() {
+			best := vehicleFrame[i]
+			if best < 0 || arrival[i].IsZero() {
 				unmatched++
 				continue
 			}
@@ -305,7 +335,7 @@ func benchLoopback(b *testing.B, transcode bool) loopbackResult {
 		}
 		b.ReportMetric(framesOut/max(framesIn, 1), "kept-up")
 		b.ReportMetric(float64(live)/max(float64(len(window)), 1), "live-share")
-		b.Logf("window %v: vehicle frames %v, relay output frames %d (delivered to the viewer %d; LIVE %d, matched %d, unmatched %d, superseded %d), viewer frames %v, metas %d, vehicle skipped %d, tick time - capture time %.1f ms",
+		b.Logf("window %v: vehicle frames %v, relay output frames %d (delivered to the viewer %d; LIVE %d, matched %d, unmatched %d, superseded %d), viewer frames %v, metas %d, vehicle skipped %d, tick time - capture time (median) %.1f ms",
 			wall1.Sub(wall0).Round(time.Millisecond), framesIn, len(window), delivered, live, len(e2e), unmatched, superseded, framesOut,
 			len(metas)-len(metas0), vs1.FramesSkipped-vs0.FramesSkipped, float64(offsetUs)/1000)
 		b.Logf("relay %+v", r.relay.Stats())
@@ -319,102 +349,192 @@ func benchLoopback(b *testing.B, transcode bool) loopbackResult {
 	return res
 }
 
+// sentRecord is one video frame the console sent to the viewer
+// (console.Console.TraceSent).
+type sentRecord struct {
+	num   uint64 // console.SentFrame.Num: every frame the console got, in order
+	ts    uint32 // its RTP timestamp in the viewer's stream
+	srcTS uint32 // the vehicle's RTP timestamp of a forwarded frame
+	fwd   bool   // forwarded (passed through), not encoded by the relay
+}
+
 // matchDeliveries pairs the relay's output frames (traces, in the order
-// written) with the viewer's frame arrivals (ends, in the order received).
-// The console sends every frame in order, so trace i is viewer frame i + o
-// for one offset o (the viewer joined mid-stream); o is the candidate, near
-// the arrival closest to the first trace, under which most frames arrive
-// within [-2 ms, period) of being written (the write returns after the
-// packets left, so an arrival may precede it slightly). A pair outside that
-// range is left zero: a frame lost or dropped on the way shifts every later
-// pair by a period and shows up as unmatched rather than as a wrong delay.
-// It returns the arrival per trace and the number matched.
-func matchDeliveries(traces []relay.FrameTrace, ends []time.Time, period time.Duration) ([]time.Time, int) {
+// written) with their arrival at the viewer by identity, not by their order
+// among the viewer's arrivals (a frame lost, late or not traced shifted
+// every later pair of that pairing). The console's record of each frame it
+// sent (sent) gives the frame's RTP timestamp in the viewer's stream, and
+// arrivals (the viewer's, by that timestamp) its arrival:
+//
+//   - a frame that passed through is the console record that carries the
+//     vehicle's RTP timestamp of the trace's frame (srcTS[i], valid where
+//     hasSrc[i]; FrameTrace.RTPTimestamp);
+//   - the relay's own frames reach the console in the order the display
+//     loop writes them, which is the order of their traces: the k-th
+//     encoded trace is encoded record k+o, o being the candidate near the
+//     first one under which most frames arrive within [-2 ms, period) of
+//     being written (the write returns after the packets left, so an
+//     arrival may precede it slightly).
+//
+// Superseded ticks sent nothing. A pair whose arrival is more than 2 ms
+// before the write is left zero. It returns the arrival per trace and the
+// number matched.
+func matchDeliveries(traces []relay.FrameTrace, srcTS []uint32, hasSrc []bool, sent []sentRecord, arrivals map[uint32]time.Time, period time.Duration) ([]time.Time, int) {
 	out := make([]time.Time, len(traces))
-	// A superseded tick sent no frame: it has no arrival to pair with.
-	var sent []int
+	bySrc := map[uint32]sentRecord{}
+	var enc []sentRecord
+	for _, r := range sent {
+		if r.fwd {
+			bySrc[r.srcTS] = r
+		} else {
+			enc = append(enc, r)
+		}
+	}
+	slices.SortFunc(enc, func(a, b sentRecord) int { return cmp.Compare(a.num, b.num) })
+	var encIdx []int // traces of the relay's own frames
 	for i, tr := range traces {
-		if !tr.Superseded {
-			sent = append(sent, i)
+		switch {
+		case tr.Superseded:
+		case tr.Forwarded:
+			if r, ok := bySrc[srcTS[i]]; ok && hasSrc[i] {
+				out[i] = arrivals[r.ts]
+			}
+		default:
+			encIdx = append(encIdx, i)
 		}
 	}
-	if len(sent) == 0 || len(ends) == 0 {
-		return out, 0
-	}
-	ok := func(d time.Duration) bool { return d >= -2*time.Millisecond && d < period }
-	j0, best := 0, time.Duration(math.MaxInt64)
-	for j, e := range ends {
-		if d := e.Sub(traces[sent[0]].WrittenAt); d.Abs() < best {
-			j0, best = j, d.Abs()
+	if len(encIdx) > 0 && len(enc) > 0 {
+		inRange := func(k, o int) (time.Time, bool) {
+			j := k + o
+			if j < 0 || j >= len(enc) {
+				return time.Time{}, false
+			}
+			at, ok := arrivals[enc[j].ts]
+			d := at.Sub(traces[encIdx[k]].WrittenAt)
+			return at, ok && d >= -2*time.Millisecond && d < period
 		}
-	}
-	bestO, bestN := 0, -1
-	for o := j0 - 2; o <= j0+2; o++ {
-		n := 0
-		for k, i := range sent {
-			if j := k + o; j >= 0 && j < len(ends) && ok(ends[j].Sub(traces[i].WrittenAt)) {
-				n++
+		first := traces[encIdx[0]].WrittenAt
+		near, best := 0, time.Duration(math.MaxInt64)
+		for j, r := range enc {
+			if at, ok := arrivals[r.ts]; ok && at.Sub(first).Abs() < best {
+				near, best = j, at.Sub(first).Abs()
 			}
 		}
-		if n > bestN {
-			bestO, bestN = o, n
+		bestO, bestN := 0, -1
+		for o := near - 3; o <= near+3; o++ {
+			n := 0
+			for k := range encIdx {
+				if _, ok := inRange(k, o); ok {
+					n++
+				}
+			}
+			if n > bestN {
+				bestO, bestN = o, n
+			}
+		}
+		for k, i := range encIdx {
+			if j := k + bestO; j >= 0 && j < len(enc) {
+				out[i] = arrivals[enc[j].ts]
+			}
 		}
 	}
-	for k, i := range sent {
-		if j := k + bestO; j >= 0 && j < len(ends) && ok(ends[j].Sub(traces[i].WrittenAt)) {
-			out[i] = ends[j]
+	matched := 0
+	for i := range out {
+		if !out[i].IsZero() && out[i].Sub(traces[i].WrittenAt) < -2*time.Millisecond {
+			out[i] = time.Time{}
+		}
+		if !out[i].IsZero() {
+			matched++
 		}
 	}
-	return out, bestN
+	return out, matched
 }
 
 // TestMatchDeliveries checks the pairing on made-up timelines: frames
-// written every 33 ms and arriving 3 ms later, with the viewer having missed
-// the first two; a frame dropped on the way makes the frames after it
-// unmatched, not mismatched.
+// written every 33 ms and arriving 3 ms later, the viewer having joined
+// after the first two, for forwarded and for encoded frames. A frame lost
+// on the way leaves only itself unmatched (the pairing by order this
+// replaced shifted every later pair), and so does a forwarded frame with no
+// trace (late); a superseded tick sent nothing.
 func TestMatchDeliveries(t *testing.T) {
 	const period = 33 * time.Millisecond
 	t0 := time.Unix(2000, 0)
-	var traces []relay.FrameTrace
-	var ends []time.Time
-	for i := range 10 {
-		w := t0.Add(time.Duration(i) * period)
-		traces = append(traces, relay.FrameTrace{Seq: uint64(i + 1), WrittenAt: w})
-		if i >= 2 {
-			ends = append(ends, w.Add(3*time.Millisecond))
+	for _, forwarded := range []bool{true, false} {
+		var traces []relay.FrameTrace
+		var src []uint32
+		var has []bool
+		var sent []sentRecord
+		arrivals := map[uint32]time.Time{}
+		for i := range 10 {
+			w := t0.Add(time.Duration(i) * period)
+			traces = append(traces, relay.FrameTrace{Seq: uint64(i + 1), WrittenAt: w, Forwarded: forwarded})
+			src = append(src, uint32(1000+3000*i))
+			has = append(has, true)
+			if i >= 2 {
+				// The console's numbering started long before the window.
+				r := sentRecord{num: uint64(500 + i), ts: uint32(77 + 3000*i), fwd: forwarded}
+				if forwarded {
+					r.srcTS = src[i]
+				}
+				sent = append(sent, r)
+				arrivals[r.ts] = w.Add(3 * time.Millisecond)
+			}
 		}
-	}
-	got, n := matchDeliveries(traces, ends, period)
-	if n != 8 || !got[0].IsZero() || !got[1].IsZero() {
-		t.Fatalf("all delivered: %d matched, first two %v %v; want 8, zero, zero", n, got[0], got[1])
-	}
-	for i := 2; i < 10; i++ {
-		if d := got[i].Sub(traces[i].WrittenAt); d != 3*time.Millisecond {
-			t.Errorf("frame %d: delay %v, want 3ms", i, d)
+		check := func(what string, got []time.Time, n, wantN int, skip ...int) {
+			t.Helper()
+			if n != wantN {
+				t.Errorf("forwarded %v, %s: %d matched, want %d", forwarded, what, n, wantN)
+			}
+			for i := range traces {
+				want := 3 * time.Millisecond
+				if i < 2 || slices.Contains(skip, i) {
+					if !got[i].IsZero() {
+						t.Errorf("forwarded %v, %s: frame %d paired, want none", forwarded, what, i)
+					}
+					continue
+				}
+				if d := got[i].Sub(traces[i].WrittenAt); d != want {
+					t.Errorf("forwarded %v, %s: frame %d delay %v, want %v", forwarded, what, i, d, want)
+				}
+			}
 		}
-	}
-	// Frame 6 never reaches the viewer.
-	dropped := append(append([]time.Time(nil), ends[:4]...), ends[5:]...)
-	got, n = matchDeliveries(traces, dropped, period)
-	for i := 2; i < 10; i++ {
-		if !got[i].IsZero() && got[i].Sub(traces[i].WrittenAt) != 3*time.Millisecond {
-			t.Errorf("with frame 6 dropped, frame %d paired with a delay of %v", i, got[i].Sub(traces[i].WrittenAt))
+		got, n := matchDeliveries(traces, src, has, sent, arrivals, period)
+		check("all delivered", got, n, 8)
+		// Frame 6 never reaches the viewer.
+		lost := maps.Clone(arrivals)
+		delete(lost, uint32(77+3000*6))
+		got, n = matchDeliveries(traces, src, has, sent, lost, period)
+		check("frame 6 lost", got, n, 7, 6)
+		// Tick 5 superseded: it sent no frame, so the console numbered
+		// the frames after it one lower.
+		sup := slices.Clone(traces)
+		sup[5].Superseded = true
+		var sentSup []sentRecord
+		arrSup := map[uint32]time.Time{}
+		for _, r := range sent {
+			k := int(r.num) - 500
+			switch {
+			case k == 5:
+				continue
+			case k > 5:
+				r.num--
+			}
+			sentSup = append(sentSup, r)
+			arrSup[r.ts] = arrivals[r.ts]
 		}
-	}
-	if n > 4 {
-		t.Errorf("with frame 6 dropped, %d frames matched, want at most 4", n)
-	}
-	// Tick 6 superseded: no frame was sent for it, so none arrives, and
-	// every other frame still pairs with its own arrival.
-	traces[6].Superseded = true
-	got, n = matchDeliveries(traces, dropped, period)
-	if n != 7 || !got[6].IsZero() {
-		t.Errorf("tick 6 superseded: %d matched, tick 6 paired with %v; want 7 and none", n, got[6])
-	}
-	for i := 2; i < 10; i++ {
-		if i != 6 && got[i].Sub(traces[i].WrittenAt) != 3*time.Millisecond {
-			t.Errorf("tick 6 superseded: frame %d paired with a delay of %v", i, got[i].Sub(traces[i].WrittenAt))
+		got, n = matchDeliveries(sup, src, has, sentSup, arrSup, period)
+		check("tick 5 superseded", got, n, 7, 5)
+		if !forwarded {
+			continue
 		}
+		// A late vehicle frame passes through but gets no LIVE tick, so no
+		// trace: the console's frame 504 (vehicle frame 4) has no trace,
+		// and the frames after it still pair with their own arrivals.
+		noTrace := slices.Clone(traces)
+		noTrace[4] = relay.FrameTrace{WrittenAt: noTrace[4].WrittenAt, Forwarded: true}
+		has4 := slices.Clone(has)
+		has4[4] = false
+		got, n = matchDeliveries(noTrace, src, has4, sent, arrivals, period)
+		check("frame 4 not traced", got, n, 7, 4)
 	}
 }
 

@@ -33,8 +33,12 @@ type viewer struct {
 	mu        sync.Mutex
 	metas     []metaEvent
 	frameEnds []time.Time // arrival of each output frame's marker packet
-	keep      bool        // keep every video packet received (pkts)
-	pkts      []rtp.Packet
+	// endByTS is the first marker packet's arrival per RTP timestamp of
+	// the console's stream: a frame's identity, for pairing arrivals with
+	// what the console sent (console.SentFrame.RTPTimestamp).
+	endByTS map[uint32]time.Time
+	keep    bool // keep every video packet received (pkts)
+	pkts    []rtp.Packet
 	// onPacket, when set, sees every video packet on the track's
 	// goroutine, outside mu (the capacity run reassembles and decodes).
 	onPacket atomic.Pointer[func(*rtp.Packet)]
@@ -56,7 +60,7 @@ func dialViewer(ctx context.Context, base, token string) (*viewer, error) {
 	if err != nil {
 		return nil, err
 	}
-	v := &viewer{pc: pc}
+	v := &viewer{pc: pc, endByTS: map[uint32]time.Time{}}
 	if _, err := pc.AddTransceiverFromKind(webrtc.RTPCodecTypeVideo,
 		webrtc.RTPTransceiverInit{Direction: webrtc.RTPTransceiverDirectionRecvonly}); err != nil {
 		pc.Close()
@@ -87,6 +91,9 @@ func dialViewer(ctx context.Context, base, token string) (*viewer, error) {
 				at := time.Now()
 				v.mu.Lock()
 				v.frameEnds = append(v.frameEnds, at)
+				if _, seen := v.endByTS[pkt.Timestamp]; !seen {
+					v.endByTS[pkt.Timestamp] = at
+				}
 				v.mu.Unlock()
 			}
 			v.mu.Lock()
@@ -141,6 +148,18 @@ func dialViewer(ctx context.Context, base, token string) (*viewer, error) {
 }
 
 func (v *viewer) Close() error { return v.pc.Close() }
+
+// arrivals returns a copy of endByTS: when the viewer received the last
+// packet of the frame with each RTP timestamp.
+func (v *viewer) arrivals() map[uint32]time.Time {
+	v.mu.Lock()
+	defer v.mu.Unlock()
+	out := make(map[uint32]time.Time, len(v.endByTS))
+	for ts, at := range v.endByTS {
+		out[ts] = at
+	}
+	return out
+}
 
 // snapshot returns copies of what the viewer has received.
 func (v *viewer) snapshot() ([]metaEvent, []time.Time) {

@@ -22,6 +22,10 @@ type FrameTrace struct {
 	// BGR). Set for LIVE frames, zero for filled ticks.
 	LastPacketAt time.Time
 	Decode       time.Duration
+	// RTPTimestamp is the vehicle's RTP timestamp (90 kHz) of the input
+	// frame of a LIVE tick (zero for filled ticks): the frame's identity
+	// on the vehicle's side.
+	RTPTimestamp uint32
 	// Encode is the egress VP8 encode time of this output frame, and
 	// WrittenAt when console.WriteFrame returned for it (its packets are
 	// then queued to the operator's connection). For a frame that passed

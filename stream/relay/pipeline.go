@@ -554,6 +554,7 @@ func (p *pipeline) emit(t cadence.Tick, captureUs int64, tick predictor.Tick, ev
 		tr := FrameTrace{Seq: p.meta.Seq, TickUs: captureUs, State: tick.State, Encode: encDur, WrittenAt: writtenAt}
 		if ev != nil {
 			tr.LastPacketAt, tr.Decode, tr.Forwarded, tr.Superseded = ev.lastPktAt, ev.decodeDur, ev.forwarded, ev.superseded
+			tr.RTPTimestamp = ev.rtpTS
 		}
 		(*trace)(tr)
 	}
