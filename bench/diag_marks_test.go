@@ -21,9 +21,11 @@ import (
 // TestDiagMarks shows where the marks of things that moved miss and where
 // they mark nothing, when MARKS_DIAG_OUT names a directory (skipped
 // otherwise). It generates simdrive's street with traffic at 640x360
-// (MARKS_DIAG_SEED, default 1) into the directory once, replays it with
-// the Gilbert-Elliott loss at MARKS_DIAG_LOSS (default 0.1), 200 ms bursts
-// and loss seed MARKS_DIAG_LOSS_SEED (default 1), and for every PREDICTED
+// (MARKS_DIAG_SEED, default 1) into the directory once (or takes the drive
+// MARKS_DIAG_DRIVE names), replays it as stopgap replay does with its
+// defaults but the Gilbert-Elliott loss at MARKS_DIAG_LOSS (default 0.1),
+// 200 ms bursts and loss seed MARKS_DIAG_LOSS_SEED (default 1; the seed 1
+// drive gives the figures of README, "Marks"), and for every PREDICTED
 // tick up to MarkAgeLimitMs writes a PNG of the picture shown with the
 // moving things' masks tinted (green where they truly are, blue where the
 // picture shows them) and each mark's zone (red), last known place
@@ -76,10 +78,11 @@ func TestDiagMarks(t *testing.T) {
 	rc.Overwrite = true
 	rc.Loss = lossmodel.Config{Model: lossmodel.GilbertElliott, LossRate: envF("MARKS_DIAG_LOSS", 0.1), BurstMs: 200,
 		Seed: uint64(envF("MARKS_DIAG_LOSS_SEED", 1))}
-	// As stopgap replay's defaults.
+	// As stopgap replay's defaults (its flags' default values).
 	rc.Telemetry.Seed = rc.Loss.Seed
 	rc.Confidence = predictor.ConfidenceModel{ToleranceMrad: 10}
 	rc.AllowanceMs = DefaultAllowanceMs
+	rc.Filter.WheelbaseM = 2.7
 	rc.Examples = -1
 	shownMask, img, tint := gocv.NewMat(), gocv.NewMat(), gocv.NewMat()
 	defer shownMask.Close()
