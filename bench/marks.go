@@ -204,6 +204,33 @@ func (s *markScorer) score(row *TickRow, f *predictor.Filler, cam predictor.Came
 	return nil
 }
 
+// markedTick is what the scoring of one PREDICTED tick's marks saw, for
+// a diagnosis (ReplayConfig.marked). The images are the scorer's and the
+// replay's, borrowed for the call.
+type markedTick struct {
+	// K is the tick, Held the held frame's index, AgeMs the picture age.
+	K, Held int
+	AgeMs   float64
+	// Shown is the picture the operator saw (labelled, marks drawn).
+	Shown gocv.Mat
+	// Changed is the truly changed pixels (Target or ShownMask, outside
+	// the label), Marked the marked pixels; Target the moving things'
+	// mask of the true frame, ShownMask the held frame's mask warped as the
+	// held frame was (before the label is masked out of either).
+	Changed, Marked, Target, ShownMask gocv.Mat
+	// Marks are the marks as placed on the tick (predictor.Filler.Marks).
+	Marks []predictor.Mover
+	// Inner is the area inside the label's border.
+	Inner image.Rectangle
+}
+
+// tick returns the markedTick of the tick score was just called for.
+func (s *markScorer) tick(f *predictor.Filler, held, k int, ageMs float64, shown gocv.Mat) markedTick {
+	inner, _ := f.LabelArea()
+	return markedTick{K: k, Held: held, AgeMs: ageMs, Shown: shown, Changed: s.truth, Marked: s.mk,
+		Target: s.target, ShownMask: s.warped, Marks: f.Marks(), Inner: inner}
+}
+
 // ensureGray returns m if it is a w x h CV_8U image, else a new one (m is
 // closed).
 func ensureGray(m gocv.Mat, w, h int) gocv.Mat {

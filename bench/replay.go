@@ -117,6 +117,9 @@ type ReplayConfig struct {
 	// the held frame's index, the frame shown before its label and the
 	// true and held frames, all borrowed for the call (ErrorBudget).
 	predicted func(k, held int, unlabelled, truth, heldImg gocv.Mat) error
+	// marked, if set, is called on each PREDICTED tick whose marks were
+	// scored, with what the scoring saw (TestDiagMarks).
+	marked func(d markedTick) error
 }
 
 // Schedule is the display schedule of a replay: when each tick falls and
@@ -521,6 +524,7 @@ func replayDrive(ctx context.Context, cfg ReplayConfig, out *replayOutput) (Summ
 	defer r.Close()
 	r.captureUs = captureUs
 	r.predicted = cfg.predicted
+	r.marked = cfg.marked
 	if in.pairing == nil {
 		r.truth = rec.Truth
 		if r.marks, err = newMarkScorer(cfg.Drive); err != nil {
@@ -793,6 +797,8 @@ type replayer struct {
 	marks *markScorer
 	// predicted is ReplayConfig.predicted.
 	predicted func(k, held int, unlabelled, truth, heldImg gocv.Mat) error
+	// marked is ReplayConfig.marked.
+	marked func(d markedTick) error
 	// olderUs is holdNewest's scratch: capture times of the older frames.
 	olderUs []int64
 }
@@ -979,6 +985,11 @@ func (r *replayer) missing(t cadence.Tick, captureUs int64, last, beforeLast int
 		if r.marks != nil && r.held >= 0 {
 			if err := r.marks.score(&row, r.filler, r.cam, r.held, k, tick.AgeMs, tick.Motion); err != nil {
 				return TickRow{}, err
+			}
+			if r.marked != nil {
+				if err := r.marked(r.marks.tick(r.filler, r.held, k, tick.AgeMs, r.shown)); err != nil {
+					return TickRow{}, err
+				}
 			}
 		}
 	}

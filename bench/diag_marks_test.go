@@ -1,0 +1,172 @@
+package bench
+
+import (
+	"context"
+	"fmt"
+	"image"
+	"image/color"
+	"os"
+	"path/filepath"
+	"sort"
+	"strconv"
+	"testing"
+
+	"gocv.io/x/gocv"
+
+	"stopgap/bench/simdrive"
+	"stopgap/internal/lossmodel"
+	"stopgap/predictor"
+)
+
+// TestDiagMarks shows where the marks of things that moved miss and where
+// they mark nothing, when MARKS_DIAG_OUT names a directory (skipped
+// otherwise). It generates simdrive's street with traffic at 640x360
+// (MARKS_DIAG_SEED, default 1) into the directory once (or takes the drive
+// MARKS_DIAG_DRIVE names), replays it as stopgap replay does with its
+// defaults but the Gilbert-Elliott loss at MARKS_DIAG_LOSS (default 0.1),
+// 200 ms bursts and loss seed MARKS_DIAG_LOSS_SEED (default 1; the seed 1
+// drive gives the figures of README, "Marks"), and for every PREDICTED
+// tick up to MarkAgeLimitMs writes a PNG of the picture shown with the
+// moving things' masks tinted (green where they truly are, blue where the
+// picture shows them) and each mark's zone (red), last known place
+// (yellow) and shown place (magenta) outlined, and one line per mark to
+// marks.csv: its zone's area and how much of it truly changed, its last
+// known place's and its shown place's. The log lists the marks that cost
+// most precision (zone area not truly changed, summed over their gap's
+// ticks) and the share of the marked area in marks of which under 5 %
+// truly changed. -count=1 keeps go test from replaying a cached result.
+//
+//	MARKS_DIAG_OUT=/tmp/mdiag go test -count=1 ./bench -run TestDiagMarks -v
+func TestDiagMarks(t *testing.T) {
+	out := os.Getenv("MARKS_DIAG_OUT")
+	if out == "" {
+		t.Skip("set MARKS_DIAG_OUT to write the diagnosis of the marks")
+	}
+	envF := func(k string, def float64) float64 {
+		if v, err := strconv.ParseFloat(os.Getenv(k), 64); err == nil {
+			return v
+		}
+		return def
+	}
+	seed := int64(envF("MARKS_DIAG_SEED", 1))
+	if err := os.MkdirAll(out, 0o755); err != nil {
+		t.Fatal(err)
+	}
+	drive := os.Getenv("MARKS_DIAG_DRIVE")
+	if drive == "" {
+		drive = filepath.Join(out, fmt.Sprintf("drive-seed%d", seed))
+	}
+	if _, err := os.Stat(filepath.Join(drive, "frames.csv")); err != nil {
+		cfg := simdrive.Config{Width: 640, Height: 360, Traffic: true, Seed: seed}
+		if err := simdrive.Generate(context.Background(), cfg, drive, nil); err != nil {
+			t.Fatal(err)
+		}
+	}
+	csvf, err := os.Create(filepath.Join(out, "marks.csv"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer csvf.Close()
+	fmt.Fprintln(csvf, "held,tick,age_ms,mark,zone_px,zone_changed_px,box_px,box_changed_px,shown_px,shown_changed_px")
+	type key struct{ held, mark int }
+	type cost struct{ area, changed int }
+	costs := map[key]*cost{}
+	var marked, hit int
+	inZero := 0
+
+	rc := baseReplay(drive, filepath.Join(out, "replay"))
+	rc.Overwrite = true
+	rc.Loss = lossmodel.Config{Model: lossmodel.GilbertElliott, LossRate: envF("MARKS_DIAG_LOSS", 0.1), BurstMs: 200,
+		Seed: uint64(envF("MARKS_DIAG_LOSS_SEED", 1))}
+	// As stopgap replay's defaults (its flags' default values).
+	rc.Telemetry.Seed = rc.Loss.Seed
+	rc.Confidence = predictor.ConfidenceModel{ToleranceMrad: 10}
+	rc.AllowanceMs = DefaultAllowanceMs
+	rc.Filter.WheelbaseM = 2.7
+	rc.Examples = -1
+	shownMask, img, tint := gocv.NewMat(), gocv.NewMat(), gocv.NewMat()
+	defer shownMask.Close()
+	defer img.Close()
+	defer tint.Close()
+	rc.marked = func(d markedTick) error {
+		if d.AgeMs > MarkAgeLimitMs {
+			return nil
+		}
+		w, h := d.Changed.Cols(), d.Changed.Rows()
+		gocv.CvtColor(d.ShownMask, &shownMask, gocv.ColorBGRToGray)
+		gocv.Threshold(shownMask, &shownMask, predictor.NeutralGrey, 255, gocv.ThresholdBinary)
+		count := func(m gocv.Mat, r image.Rectangle) int {
+			r = r.Intersect(image.Rect(0, 0, w, h))
+			if r.Empty() {
+				return 0
+			}
+			roi := m.Region(r)
+			defer roi.Close()
+			return gocv.CountNonZero(roi)
+		}
+		for i, mv := range d.Marks {
+			z, b, s := mv.Zone(d.AgeMs).Intersect(d.Inner), mv.Box.Intersect(d.Inner), mv.Shown.Intersect(d.Inner)
+			za, zc := z.Dx()*z.Dy(), count(d.Changed, z)
+			fmt.Fprintf(csvf, "%d,%d,%.0f,%d,%d,%d,%d,%d,%d,%d\n", d.Held, d.K, d.AgeMs, i, za, zc,
+				b.Dx()*b.Dy(), count(d.Changed, b), s.Dx()*s.Dy(), count(d.Changed, s))
+			c := costs[key{d.Held, i}]
+			if c == nil {
+				c = &cost{}
+				costs[key{d.Held, i}] = c
+			}
+			c.area += za
+			c.changed += zc
+		}
+		and := gocv.NewMat()
+		gocv.BitwiseAnd(d.Changed, d.Marked, &and)
+		marked += gocv.CountNonZero(d.Marked)
+		hit += gocv.CountNonZero(and)
+		and.Close()
+
+		d.Shown.CopyTo(&img)
+		d.Shown.CopyTo(&tint)
+		green := gocv.NewMatWithSizeFromScalar(gocv.NewScalar(0, 255, 0, 0), h, w, gocv.MatTypeCV8UC3)
+		green.CopyToWithMask(&tint, d.Target)
+		green.SetTo(gocv.NewScalar(255, 0, 0, 0))
+		green.CopyToWithMask(&tint, shownMask)
+		green.Close()
+		gocv.AddWeighted(img, 0.5, tint, 0.5, 0, &img)
+		for _, mv := range d.Marks {
+			gocv.Rectangle(&img, mv.Zone(d.AgeMs), color.RGBA{R: 255}, 1)
+			gocv.Rectangle(&img, mv.Box, color.RGBA{R: 255, G: 255}, 1)
+			gocv.Rectangle(&img, mv.Shown, color.RGBA{R: 255, B: 255}, 1)
+		}
+		if !gocv.IMWrite(filepath.Join(out, fmt.Sprintf("tick_%04d_held_%04d.png", d.K, d.Held)), img) {
+			return fmt.Errorf("writing tick %d's picture failed", d.K)
+		}
+		return nil
+	}
+	if _, err := Replay(context.Background(), rc); err != nil {
+		t.Fatal(err)
+	}
+	keys := make([]key, 0, len(costs))
+	for k, c := range costs {
+		keys = append(keys, k)
+		if c.changed < c.area/20 {
+			inZero += c.area
+		}
+	}
+	sort.Slice(keys, func(i, j int) bool {
+		ci, cj := costs[keys[i]], costs[keys[j]]
+		return ci.area-ci.changed > cj.area-cj.changed
+	})
+	if marked == 0 {
+		t.Fatal("no tick was marked")
+	}
+	zoneSum := 0
+	for _, c := range costs {
+		zoneSum += c.area
+	}
+	t.Logf("marked %d px, %d truly changed (precision %.3f); %.2f of the zones' area in marks of which under 5 %% truly changed",
+		marked, hit, float64(hit)/float64(marked), float64(inZero)/float64(max(1, zoneSum)))
+	for _, k := range keys[:min(10, len(keys))] {
+		c := costs[k]
+		t.Logf("held %4d mark %d: zone %7d px over its ticks, %6d truly changed (%.2f)", k.held, k.mark, c.area, c.changed,
+			float64(c.changed)/float64(max(1, c.area)))
+	}
+}
