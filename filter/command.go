@@ -222,8 +222,12 @@ func (f *Filter) commandSteps(t0Us, dtUs int64, ctl *Sample, wrap bool) {
 }
 
 // commandStep predicts f.kf over dtUs (> 0) with command c in effect.
-// Over a gap (Relative past the newest sample) the yaw also turns at the
-// slip rate the telemetry showed (slipTrend), held.
+// In Relative the yaw also turns at the slip rate the telemetry showed up
+// to the step's start (slipTrend): between kept samples as over a gap,
+// since the yaw-rate measurements correct the road-wheel angle only
+// weakly (KinematicNoiseRps) and the integrated heading would otherwise
+// miss the slip over every interval Relative spans, the upright
+// estimate's 200 ms baseline between real frames included.
 //
 // The road-wheel angle follows its lag exactly, δ' = δc + (δ − δc)·e with
 // e = exp(−dt/SteerLagS); the pose advances with the mean angle over the
