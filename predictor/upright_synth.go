@@ -247,44 +247,73 @@ func (s *Synthesizer) hiddenRange(dv bgrView, gi, fi Homography, tops []float32,
 	return bg, n
 }
 
+// greyRow is one BGR row of NeutralGrey as wide as the widest frame, the
+// source greyRange copies from.
+var greyRow = func() []byte {
+	b := make([]byte, 3*MaxImageSide)
+	for i := range b {
+		b[i] = NeutralGrey
+	}
+	return b
+}()
+
 // greyRange paints columns [x0, x1) of row v NeutralGrey.
 func greyRange(dv bgrView, v, x0, x1 int) {
-	row := dv.Pix[v*dv.Stride:]
-	for j := 3 * x0; j < 3*x1; j++ {
-		row[j] = NeutralGrey
-	}
+	copy(dv.Pix[v*dv.Stride+3*x0:v*dv.Stride+3*x1], greyRow)
 }
 
 // hiddenPiece is hiddenRange over columns [x0, x1) of row v that one map m
-// (gi or fi) serves. The sources of a row's pixels lie on one straight
-// segment of the source frame, so a piece whose sources are all at or
-// below (all above) every top of the columns they span is decided whole;
-// only the others are decided pixel by pixel, the map evaluated
-// incrementally along the row.
+// (gi or fi) serves (see rowMap.decide).
 func (s *Synthesizer) hiddenPiece(dv bgrView, gi, fi, m Homography, tops []float32, v, x0, x1 int, bg []int32) ([]int32, int) {
+	fv := float64(v)
+	rm := rowMap{m[0][0], m[0][1]*fv + m[0][2], m[1][0], m[1][1]*fv + m[1][2], m[2][0], m[2][1]*fv + m[2][2]}
+	return s.decideHidden(dv, gi, fi, &rm, tops, v, x0, x1, bg)
+}
+
+// rowMap is a map restricted to one row: source x = (ax u + bx) / (aw u +
+// bw), y = (ay u + by) / (aw u + bw).
+type rowMap struct{ ax, bx, ay, by, aw, bw float64 }
+
+// src returns the source of column u (ok false behind the camera).
+func (r *rowMap) src(u int) (x, y float64, ok bool) {
+	fu := float64(u)
+	d := r.aw*fu + r.bw
+	if !(d > 0) {
+		return 0, 0, false
+	}
+	return (r.ax*fu + r.bx) / d, (r.ay*fu + r.by) / d, true
+}
+
+// hiddenAt reports whether column u fetches at or below its source
+// column's top (a source outside the frame counts as hidden).
+func (r *rowMap) hiddenAt(tops []float32, u int) bool {
+	x, y, ok := r.src(u)
+	if !ok {
+		return true
+	}
+	c := int(math.Round(x))
+	return c < 0 || c >= len(tops) || !(y < float64(tops[c]))
+}
+
+// hiddenPieceMinPx is the length below which decideHidden decides pixel by
+// pixel instead of halving a piece.
+const hiddenPieceMinPx = 8
+
+// decideHidden decides columns [x0, x1) of row v under map r. The sources
+// of a row's pixels lie on one straight segment of the source frame, so a
+// piece whose sources are all at or below (all above) every top of the
+// columns they span is decided whole; other pieces are halved, and short
+// ones decided pixel by pixel.
+func (s *Synthesizer) decideHidden(dv bgrView, gi, fi Homography, r *rowMap, tops []float32, v, x0, x1 int, bg []int32) ([]int32, int) {
 	if x0 >= x1 {
 		return bg, 0
 	}
-	fv := float64(v)
-	// Numerators and denominator of the map, linear in u.
-	ax, bx := m[0][0], m[0][1]*fv+m[0][2]
-	ay, by := m[1][0], m[1][1]*fv+m[1][2]
-	aw, bw := m[2][0], m[2][1]*fv+m[2][2]
-	w := len(tops)
-	src := func(u int) (x, y float64, ok bool) {
-		fu := float64(u)
-		d := aw*fu + bw
-		if !(d > 0) {
-			return 0, 0, false
-		}
-		return (ax*fu + bx) / d, (ay*fu + by) / d, true
-	}
-	xa, ya, oka := src(x0)
-	xb, yb, okb := src(x1 - 1)
+	xa, ya, oka := r.src(x0)
+	xb, yb, okb := r.src(x1 - 1)
 	if oka && okb {
 		c0 := int(math.Round(math.Min(xa, xb)))
 		c1 := int(math.Round(math.Max(xa, xb)))
-		if c0 >= 0 && c1 < w {
+		if c0 >= 0 && c1 < len(tops) {
 			lo, hi := tops[c0], tops[c0]
 			for _, t := range tops[c0 : c1+1] {
 				lo, hi = min(lo, t), max(hi, t)
@@ -298,19 +327,17 @@ func (s *Synthesizer) hiddenPiece(dv bgrView, gi, fi, m Homography, tops []float
 			}
 		}
 	}
-	hidden := func(u int) bool {
-		x, y, ok := src(u)
-		if !ok {
-			return true
-		}
-		c := int(math.Round(x))
-		return c < 0 || c >= w || !(y < float64(tops[c]))
+	if x1-x0 > hiddenPieceMinPx {
+		mid := (x0 + x1) / 2
+		bg, n0 := s.decideHidden(dv, gi, fi, r, tops, v, x0, mid, bg)
+		bg, n1 := s.decideHidden(dv, gi, fi, r, tops, v, mid, x1, bg)
+		return bg, n0 + n1
 	}
 	n := 0
 	for u := x0; u < x1; {
-		hd := hidden(u)
+		hd := r.hiddenAt(tops, u)
 		e := u + 1
-		for e < x1 && hidden(e) == hd {
+		for e < x1 && r.hiddenAt(tops, e) == hd {
 			e++
 		}
 		if hd {
