@@ -66,6 +66,33 @@ func TestCommandMotionMatchesArc(t *testing.T) {
 	}
 }
 
+// TestCommandMotionCarriesSlip: telemetry at 100 Hz of a vehicle driving
+// straight on commands whose gyro shows a steady 0.01 rad/s the steering
+// does not explain (tyre slip); Relative over an interval covered by those
+// samples, and over a gap after them, turns the yaw by that rate, as the
+// samples' own yaw rates integrate to (within 2 %), not by the commands'
+// zero alone.
+func TestCommandMotionCarriesSlip(t *testing.T) {
+	const slip = 0.01
+	f := commandFilter(t, Actuator{})
+	f.AddCommand(Command{TimeUs: 1, SteerRad: 0, SpeedMps: 10, HasSpeed: true})
+	for us := int64(0); us <= 1_000_000; us += 10_000 {
+		if err := f.Add(Sample{TimeUs: us, SpeedMps: 10, YawRateRps: slip, SteerRad: 0, HasSteer: true}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	for _, iv := range [][2]int64{{500_000, 1_000_000}, {1_000_000, 1_300_000}} {
+		m, err := f.Relative(iv[0], iv[1])
+		if err != nil {
+			t.Fatal(err)
+		}
+		want := slip * float64(iv[1]-iv[0]) * 1e-6
+		if math.Abs(m.DyawRad-want) > 0.02*want {
+			t.Errorf("Relative(%d, %d): yaw change %.6f, want %.6f", iv[0], iv[1], m.DyawRad, want)
+		}
+	}
+}
+
 // TestAddCommandRejects: NaN, out-of-range values and times that do not
 // increase are rejected, counted per reason and leave the filter unchanged.
 func TestAddCommandRejects(t *testing.T) {

@@ -359,8 +359,9 @@ type Filter struct {
 	// gapCtl is the control of a gap after a video sample with the
 	// video's speed trend as its acceleration (Relative).
 	gapCtl Sample
-	// gapSlipRps is the yaw rate the commands do not explain, carried
-	// over a gap by Relative (slipTrend); 0 otherwise.
+	// gapSlipRps is the yaw rate the commands do not explain (slipTrend
+	// of the newest sample applied), which Relative's command-driven steps
+	// add to the yaw, between kept samples and over a gap; 0 otherwise.
 	gapSlipRps float64
 
 	// Scratch, owned by the Filter.
@@ -562,10 +563,14 @@ func (f *Filter) Relative(t0Us, t1Us int64) (Motion, error) {
 		if e.s.TimeUs > t1Us {
 			break
 		}
+		if f.commandsUsable() {
+			f.gapSlipRps = f.slipTrend(applied)
+		}
 		f.step(cur, diffUs(e.s.TimeUs, cur), ctl, false)
 		f.update(&e.s)
 		cur, ctl, applied = e.s.TimeUs, &e.s, j
 	}
+	f.gapSlipRps = 0
 	if f.cfg.Model == ModelCTRV && !f.cfg.TurnAdaptOff {
 		base := f.kin.turnNoise
 		gapNoise := f.cfg.GapYawAccelNoiseRps2

@@ -54,7 +54,10 @@
 // estimated per held frame by UprightEstimator): vertical planes standing on
 // the road, one per column band, each warped with its own plane-induced
 // homography K (R + t nᵀ/d) K⁻¹, nearer ones in front; pixels uncovered
-// behind them are NeutralGrey, not invented.
+// behind them are NeutralGrey, not invented. A segment's surface starts,
+// column by column, at the first row of the held frame that shows
+// structure (UprightModel.Tops), so sky beside a roofline or beside a
+// building's edge inside a band is moved with the far scene, not marked.
 //
 // # Confidence and policy
 //

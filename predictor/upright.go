@@ -189,6 +189,15 @@ type UprightSegment struct {
 // scene only.
 type UprightModel struct {
 	Segments []UprightSegment
+	// Tops holds, per column of the held frame, the first row its
+	// segment's surface covers: the segment's TopRow, or lower where the
+	// column shows no structure yet (sky beside a roofline or beside a
+	// building's edge inside the band). The synthesis marks as disoccluded
+	// only what the road or far map would fetch from a segment at or below
+	// its column's top; sky above it is moved with the far scene. Nil (or
+	// shorter than the frame's width) means every column starts at its
+	// segment's TopRow.
+	Tops []float32
 }
 
 // UprightEstimator finds the upright structure of the newer of two real
@@ -560,7 +569,59 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 		}
 	}
 	joinSegments(cam, model.Segments)
+	e.columnTops(cam, model)
 	return nil
+}
+
+// columnTops writes model.Tops: for each column of each segment, the first
+// row at or below the segment's TopRow where the newer frame at twice the
+// estimate's resolution shows structure (the mean absolute step to the
+// right and lower neighbours over three columns above uprightTextureGrey,
+// the band test of firstTexturedRow on one column), else the segment's
+// lower base row; the top edge of that low-resolution row, so a sky row
+// next to a roofline still counts as covered. Columns without a segment
+// get -0.5 (never consulted: the synthesis asks only where a segment's
+// source quad is).
+func (e *UprightEstimator) columnTops(cam Camera, model *UprightModel) {
+	w := cam.Width
+	model.Tops = slices.Grow(model.Tops[:0], w)[:w]
+	for i := range model.Tops {
+		model.Tops[i] = -0.5
+	}
+	pb, err := e.fb.DataPtrUint8()
+	fw, fh := e.fb.Cols(), e.fb.Rows()
+	if err != nil || fw < 3 || fh < 2 {
+		for _, seg := range model.Segments {
+			for u := max(0, seg.Col0); u < min(w, seg.Col1); u++ {
+				model.Tops[u] = float32(seg.TopRow)
+			}
+		}
+		return
+	}
+	for _, seg := range model.Segments {
+		y0 := max(0, int(math.Floor((seg.TopRow+0.5)*e.fsy)))
+		yb := min(fh-1, int(math.Ceil((math.Min(seg.BaseRow0, seg.BaseRow1)+0.5)*e.fsy)))
+		xf := -1
+		top := float32(seg.TopRow)
+		for u := max(0, seg.Col0); u < min(w, seg.Col1); u++ {
+			if x := min(fw-1, int(float64(u)*e.fsx)); x != xf {
+				xf = x
+				y := y0
+				for ; y < yb; y++ {
+					t := 0
+					for xx := max(0, xf-1); xx <= min(fw-2, xf+1); xx++ {
+						i := y*fw + xx
+						t += absInt(int(pb[i+1])-int(pb[i])) + absInt(int(pb[i+fw])-int(pb[i]))
+					}
+					if float64(t) > 3*uprightTextureGrey {
+						break
+					}
+				}
+				top = float32(math.Max(seg.TopRow, float64(y)/e.fsy-0.5))
+			}
+			model.Tops[u] = top
+		}
+	}
 }
 
 // uprightJoinRatio is the largest relative difference of the distances of

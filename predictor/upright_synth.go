@@ -170,11 +170,9 @@ func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM f
 					unfilled += s.countSplitRange(gi, fi, v, u, next-1)
 					sc.piece[0] = append(sc.piece[0], int32(u), int32(next))
 				case spans[top].kind == spanHidden:
-					unfilled += next - u
-					row := dv.Pix[v*dv.Stride:]
-					for j := 3 * u; j < 3*next; j++ {
-						row[j] = NeutralGrey
-					}
+					var n int
+					sc.piece[0], n = s.hiddenRange(dv, gi, fi, model.Tops, v, u, next, sc.piece[0])
+					unfilled += n
 				default:
 					k := spans[top].kind
 					sc.piece[1+k] = append(sc.piece[1+k], int32(u), int32(next))
@@ -210,6 +208,148 @@ func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM f
 	out.UnfilledFraction = float64(unfilled) / float64(w*h)
 	out.UprightSegments = len(sc.order)
 	return out, nil
+}
+
+// hiddenRange decides the columns [x0, x1) of row v, where the road or far
+// map (gi on and below the horizon, fi above it, as countSplitRange)
+// fetches from an upright segment's source quad: the pixels whose source
+// lies at or below its column's top (tops, UprightModel.Tops) were hidden
+// behind the surface and are painted NeutralGrey; the others fetch sky or
+// far scene above the surface's top in its column and are appended to bg
+// as background pieces. It returns bg and the unfilled count of the range
+// (the grey pixels and the background's pixels without a source). With
+// tops shorter than the frame's width the whole range is grey.
+func (s *Synthesizer) hiddenRange(dv bgrView, gi, fi Homography, tops []float32, v, x0, x1 int, bg []int32) ([]int32, int) {
+	if len(tops) < s.cam.Width {
+		greyRange(dv, v, x0, x1)
+		return bg, x1 - x0
+	}
+	if gi == fi {
+		return s.hiddenPiece(dv, gi, fi, fi, tops, v, x0, x1, bg)
+	}
+	hz := s.horizon
+	glo, ghi := halfLine(hz.A, hz.B*float64(v)+hz.C, x0, x1-1)
+	if glo > ghi {
+		return s.hiddenPiece(dv, gi, fi, fi, tops, v, x0, x1, bg)
+	}
+	n := 0
+	var k int
+	if glo > x0 {
+		bg, k = s.hiddenPiece(dv, gi, fi, fi, tops, v, x0, glo, bg)
+		n += k
+	}
+	bg, k = s.hiddenPiece(dv, gi, fi, gi, tops, v, glo, ghi+1, bg)
+	n += k
+	if ghi+1 < x1 {
+		bg, k = s.hiddenPiece(dv, gi, fi, fi, tops, v, ghi+1, x1, bg)
+		n += k
+	}
+	return bg, n
+}
+
+// greyRow is one BGR row of NeutralGrey as wide as the widest frame, the
+// source greyRange copies from.
+var greyRow = func() []byte {
+	b := make([]byte, 3*MaxImageSide)
+	for i := range b {
+		b[i] = NeutralGrey
+	}
+	return b
+}()
+
+// greyRange paints columns [x0, x1) of row v NeutralGrey.
+func greyRange(dv bgrView, v, x0, x1 int) {
+	copy(dv.Pix[v*dv.Stride+3*x0:v*dv.Stride+3*x1], greyRow)
+}
+
+// hiddenPiece is hiddenRange over columns [x0, x1) of row v that one map m
+// (gi or fi) serves (see rowMap.decide).
+func (s *Synthesizer) hiddenPiece(dv bgrView, gi, fi, m Homography, tops []float32, v, x0, x1 int, bg []int32) ([]int32, int) {
+	fv := float64(v)
+	rm := rowMap{m[0][0], m[0][1]*fv + m[0][2], m[1][0], m[1][1]*fv + m[1][2], m[2][0], m[2][1]*fv + m[2][2]}
+	return s.decideHidden(dv, gi, fi, &rm, tops, v, x0, x1, bg)
+}
+
+// rowMap is a map restricted to one row: source x = (ax u + bx) / (aw u +
+// bw), y = (ay u + by) / (aw u + bw).
+type rowMap struct{ ax, bx, ay, by, aw, bw float64 }
+
+// src returns the source of column u (ok false behind the camera).
+func (r *rowMap) src(u int) (x, y float64, ok bool) {
+	fu := float64(u)
+	d := r.aw*fu + r.bw
+	if !(d > 0) {
+		return 0, 0, false
+	}
+	return (r.ax*fu + r.bx) / d, (r.ay*fu + r.by) / d, true
+}
+
+// hiddenAt reports whether column u fetches at or below its source
+// column's top (a source outside the frame counts as hidden).
+func (r *rowMap) hiddenAt(tops []float32, u int) bool {
+	x, y, ok := r.src(u)
+	if !ok {
+		return true
+	}
+	c := int(math.Round(x))
+	return c < 0 || c >= len(tops) || !(y < float64(tops[c]))
+}
+
+// hiddenPieceMinPx is the length below which decideHidden decides pixel by
+// pixel instead of halving a piece.
+const hiddenPieceMinPx = 8
+
+// decideHidden decides columns [x0, x1) of row v under map r. The sources
+// of a row's pixels lie on one straight segment of the source frame, so a
+// piece whose sources are all at or below (all above) every top of the
+// columns they span is decided whole; other pieces are halved, and short
+// ones decided pixel by pixel.
+func (s *Synthesizer) decideHidden(dv bgrView, gi, fi Homography, r *rowMap, tops []float32, v, x0, x1 int, bg []int32) ([]int32, int) {
+	if x0 >= x1 {
+		return bg, 0
+	}
+	xa, ya, oka := r.src(x0)
+	xb, yb, okb := r.src(x1 - 1)
+	if oka && okb {
+		c0 := int(math.Round(math.Min(xa, xb)))
+		c1 := int(math.Round(math.Max(xa, xb)))
+		if c0 >= 0 && c1 < len(tops) {
+			lo, hi := tops[c0], tops[c0]
+			for _, t := range tops[c0 : c1+1] {
+				lo, hi = min(lo, t), max(hi, t)
+			}
+			switch {
+			case math.Min(ya, yb) >= float64(hi):
+				greyRange(dv, v, x0, x1)
+				return bg, x1 - x0
+			case math.Max(ya, yb) < float64(lo):
+				return append(bg, int32(x0), int32(x1)), s.countSplitRange(gi, fi, v, x0, x1-1)
+			}
+		}
+	}
+	if x1-x0 > hiddenPieceMinPx {
+		mid := (x0 + x1) / 2
+		bg, n0 := s.decideHidden(dv, gi, fi, r, tops, v, x0, mid, bg)
+		bg, n1 := s.decideHidden(dv, gi, fi, r, tops, v, mid, x1, bg)
+		return bg, n0 + n1
+	}
+	n := 0
+	for u := x0; u < x1; {
+		hd := r.hiddenAt(tops, u)
+		e := u + 1
+		for e < x1 && r.hiddenAt(tops, e) == hd {
+			e++
+		}
+		if hd {
+			greyRange(dv, v, u, e)
+			n += e - u
+		} else {
+			n += s.countSplitRange(gi, fi, v, u, e-1)
+			bg = append(bg, int32(u), int32(e))
+		}
+		u = e
+	}
+	return bg, n
 }
 
 // warpBackground warps the background pieces (rowptr, spans over all rows):

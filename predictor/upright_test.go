@@ -243,14 +243,33 @@ func inQuad(q [4][2]float64, x, y float64) bool {
 // under a segment's own map lies in that segment's (clipped) source quad
 // shows the nearest such segment; else, if the far map sends it into a
 // segment's part above the horizon or the road map into its part below,
-// it is disoccluded (exactly NeutralGrey, unfilled); else the road and far
-// warp's rule applies. The unfilled count must match exactly.
+// it is disoccluded (exactly NeutralGrey, unfilled) unless that map's
+// source lies above its column's top (UprightModel.Tops); else the road and
+// far warp's rule applies. The unfilled count must match exactly, without
+// column tops and with tops below the segments' TopRow on many columns.
 func TestSynthesizeSceneOwnersBruteForce(t *testing.T) {
 	c := uprightCam()
 	model := streetModel(c)
 	if len(model.Segments) < 6 {
 		t.Fatalf("only %d segments in the test street", len(model.Segments))
 	}
+	t.Run("segment tops", func(t *testing.T) { checkSceneOwners(t, c, model) })
+	tops := make([]float32, c.Width)
+	for _, seg := range model.Segments {
+		for u := max(0, seg.Col0); u < min(c.Width, seg.Col1); u++ {
+			// Every third column of 8 starts 40 rows lower; others at the top.
+			tops[u] = float32(seg.TopRow)
+			if u/8%3 == 0 {
+				tops[u] += 40
+			}
+		}
+	}
+	model.Tops = tops
+	t.Run("column tops", func(t *testing.T) { checkSceneOwners(t, c, model) })
+}
+
+// checkSceneOwners is TestSynthesizeSceneOwnersBruteForce for one model.
+func checkSceneOwners(t *testing.T, c Camera, model UprightModel) {
 	src := noiseFrame(t, c.Width, c.Height, 5)
 	defer src.Close()
 	s, err := NewSynthesizer(c, SynthOptions{})
@@ -298,7 +317,7 @@ func TestSynthesizeSceneOwnersBruteForce(t *testing.T) {
 				x, y, ok := qm.inv.Apply(u, v)
 				return ok && inQuad(qm.q, x, y)
 			}
-			unfilled, hidden, onSeg := 0, 0, 0
+			unfilled, hidden, onSeg, lowered := 0, 0, 0, 0
 			for v := 0; v < c.Height; v++ {
 				for u := 0; u < c.Width; u++ {
 					fu, fv := float64(u), float64(v)
@@ -321,6 +340,17 @@ func TestSynthesizeSceneOwnersBruteForce(t *testing.T) {
 					for k := range above {
 						isHidden = isHidden || hits(above[k], fu, fv) || hits(below[k], fu, fv)
 					}
+					if isHidden && len(model.Tops) == c.Width {
+						m := fi
+						if hz.SignedDistance(fu, fv) >= 0 {
+							m = gi
+						}
+						x, y, ok := m.Apply(fu, fv)
+						if k := int(math.Round(x)); ok && k >= 0 && k < c.Width && y < float64(model.Tops[k]) {
+							isHidden = false
+							lowered++
+						}
+					}
 					if isHidden {
 						hidden++
 						unfilled++
@@ -339,10 +369,63 @@ func TestSynthesizeSceneOwnersBruteForce(t *testing.T) {
 					}
 				}
 			}
-			t.Logf("%d segments: %d pixels on segments, %d disoccluded, %d unfilled (count %d)", syn.UprightSegments, onSeg, hidden, unfilled, syn.UnfilledPixels)
+			t.Logf("%d segments: %d pixels on segments, %d disoccluded, %d above their column's top, %d unfilled (count %d)", syn.UprightSegments, onSeg, hidden, lowered, unfilled, syn.UnfilledPixels)
+			if len(model.Tops) == c.Width && lowered == 0 {
+				t.Errorf("no pixel fetched from above a lowered column top: the case is not exercised")
+			}
 			if onSeg == 0 || syn.UnfilledPixels != unfilled {
 				t.Errorf("unfilled count %d, per-pixel recount %d (%d on segments)", syn.UnfilledPixels, unfilled, onSeg)
 			}
 		})
+	}
+}
+
+// TestColumnTops: in a band whose left half is a textured facade up to row
+// 40 and whose right half is smooth sky down to the horizon (row 120)
+// with textured ground below, each column's top is where its structure
+// starts (within one half-resolution row, at or above it), never above
+// the segment's TopRow.
+func TestColumnTops(t *testing.T) {
+	c := uprightCam()
+	const fsx, fsy = 0.5, 0.5
+	fw, fh := int(float64(c.Width)*fsx), int(float64(c.Height)*fsy)
+	fb := gocv.NewMatWithSize(fh, fw, gocv.MatTypeCV8U)
+	defer fb.Close()
+	pb, err := fb.DataPtrUint8()
+	if err != nil {
+		t.Fatal(err)
+	}
+	const col0, col1, roof, horizon = 64, 96, 40, 120
+	for y := 0; y < fh; y++ {
+		for x := 0; x < fw; x++ {
+			u, v := float64(x)/fsx, float64(y)/fsy
+			g := 180 + y/8 // sky: a gentle gradient
+			switch {
+			case v >= horizon || (u < 80 && v >= roof):
+				g = 60 + (x*37+y*91)%70 // grain of a facade or of the ground
+			}
+			pb[y*fw+x] = uint8(g)
+		}
+	}
+	e := &UprightEstimator{fb: fb, fsx: fsx, fsy: fsy}
+	model := UprightModel{Segments: []UprightSegment{{Col0: col0, Col1: col1, TopRow: 20, BaseRow0: 170, BaseRow1: 170}}}
+	e.columnTops(c, &model)
+	if len(model.Tops) != c.Width {
+		t.Fatalf("%d tops, want %d", len(model.Tops), c.Width)
+	}
+	for u := col0; u < col1; u++ {
+		want := float64(roof)
+		if u >= 80 {
+			want = horizon
+		}
+		if u == 78 || u == 79 || u == 80 || u == 81 {
+			continue // the three-column window straddles the edge
+		}
+		if got := float64(model.Tops[u]); got > want || got < want-2/fsy-1 || got < 20 {
+			t.Errorf("column %d: top %.1f, want within %.0f px above %.0f (and below the segment's top 20)", u, got, 2/fsy+1, want)
+		}
+	}
+	if model.Tops[0] != -0.5 || model.Tops[c.Width-1] != -0.5 {
+		t.Errorf("columns without a segment: tops %v and %v, want -0.5", model.Tops[0], model.Tops[c.Width-1])
 	}
 }
