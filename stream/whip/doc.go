@@ -50,7 +50,9 @@
 // Interfaces limits gathering to named interfaces; NAT1To1IPs announces a public address; UDPPort (or a
 // caller's UDPMux) puts every session on one UDP port. Multicast DNS candidates are always off. No STUN or
 // TURN is used. The answer offers transport-wide congestion control feedback, so a browser sender can
-// estimate its bandwidth from the start. A vehicle that vanishes without DELETE is
+// estimate its bandwidth from the start; it goes every [FeedbackInterval], and at once for the first
+// packet after a silence of [FeedbackResumeSilence] (an outage), so the sender's pacer and encoder,
+// held back while no feedback came, recover without waiting for the next interval. A vehicle that vanishes without DELETE is
 // noticed by ICE consent checks: with pion's defaults (keepalive 2 s) the connection turns disconnected after
 // 5 s and failed after 25 s, and a failed connection ends the session (EndFailed). The relay should not wait
 // for that: missing video is its own, faster signal.

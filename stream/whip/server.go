@@ -22,6 +22,7 @@ import (
 	"github.com/pion/ice/v4"
 	"github.com/pion/interceptor"
 	"github.com/pion/interceptor/pkg/report"
+	"github.com/pion/interceptor/pkg/twcc"
 	"github.com/pion/webrtc/v4"
 
 	"stopgap/stream/ingest"
@@ -436,7 +437,8 @@ func (s *Server) reserve(remote, host string) (*Session, error) {
 // newPeerConnection builds a PeerConnection with its own API: a MediaEngine with only VP8 video and the
 // interceptors, in this order: the RTCP counter (so it sees the NACKs the repairer writes), the repairer
 // (NACKs at once and at the measured round trip, capped per packet), and the RTCP receiver-report
-// interceptor, then the transport-wide congestion control feedback.
+// interceptor, then the transport-wide congestion control feedback and, last, the one that times it
+// (resumeFeedback: it must see a packet after the feedback generator has).
 func (s *Server) newPeerConnection(counter *rtcpCounter, repair *repairer) (*webrtc.PeerConnection, error) {
 	me, err := newMediaEngine()
 	if err != nil {
@@ -452,13 +454,17 @@ func (s *Server) newPeerConnection(counter *rtcpCounter, repair *repairer) (*web
 	reg.Add(rr)
 	// Transport-wide congestion control feedback (draft-holmer-rmcat-transport-wide-cc-extensions-01):
 	// the answer offers the transport-cc header extension and feedback, and the interceptor reports
-	// every packet's arrival time (pion default: every 100 ms). It feeds the sender's own bandwidth
+	// every packet's arrival time every FeedbackInterval, and at once for the first packet after a
+	// silence (resumeFeedback). It feeds the sender's own bandwidth
 	// estimator, which is what a browser uses first; without it the browser starts low and ramps for tens
 	// of seconds. Receiver-side estimates (REMB) are the older alternative, and pion has no REMB
 	// estimator to generate them.
-	if err := webrtc.ConfigureTWCCSender(me, reg); err != nil {
+	fb := newResumeFeedback(s.cfg.Clock)
+	if err := webrtc.ConfigureTWCCSenderWithOptions(me, reg,
+		twcc.SendInterval(FeedbackInterval), twcc.SendTicker(fb.ticker)); err != nil {
 		return nil, fmt.Errorf("whip: congestion control feedback: %w", err)
 	}
+	reg.Add(fb)
 	api := webrtc.NewAPI(webrtc.WithMediaEngine(me), webrtc.WithInterceptorRegistry(reg),
 		webrtc.WithSettingEngine(newSettingEngine(s.cfg.Network, s.cfg.Logger)))
 	pc, err := api.NewPeerConnection(webrtc.Configuration{})
