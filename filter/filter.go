@@ -63,6 +63,12 @@ func (s Source) String() string {
 	return "invalid"
 }
 
+// DefaultWheelbaseM is the wheelbase the command line offers when none is given: a mid-size passenger
+// car's (common practice; a value from memory). The simulated vehicle (simdrive) has it too, so a replay
+// of a simulated drive with the defaults models the vehicle that drove it. Config.WheelbaseM has no
+// default of its own: zero means no wheelbase (see its doc).
+const DefaultWheelbaseM = 2.7
+
 // Config configures a Filter. Zero numeric fields take the documented
 // defaults; negative or non-finite values are rejected by New. Noise values
 // are one standard deviation. The defaults are common-practice values for

@@ -83,7 +83,7 @@ type SimConfig struct {
 const (
 	simStepUs      = 25_000 / 3 // 8333 us, about 1/120 s
 	simStepsPerFr  = 4
-	simWheelbaseM  = 2.7
+	simWheelbaseM  = filter.DefaultWheelbaseM
 	simMaxSteerRad = 0.5
 )
 

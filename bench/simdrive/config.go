@@ -3,6 +3,8 @@ package simdrive
 import (
 	"fmt"
 	"math"
+
+	"stopgap/filter"
 )
 
 // Config describes a simulated drive. Zero fields take the documented
@@ -85,7 +87,7 @@ const (
 	DefaultYawRateSigma  = 0.002
 	DefaultAccelSigma    = 0.05
 	DefaultSteerSigma    = 0.002
-	DefaultWheelbaseM    = 2.7
+	DefaultWheelbaseM    = filter.DefaultWheelbaseM
 	DefaultJPEGQuality   = 92
 	DefaultGroundTexelM  = 0.05
 	DefaultCameraHeightM = 1.4

@@ -8,6 +8,7 @@ import (
 	"time"
 
 	"stopgap/bench/opfit"
+	"stopgap/filter"
 	"stopgap/stream/operator"
 )
 
@@ -18,7 +19,7 @@ func runOperatorFit(fs *flag.FlagSet, args []string, storePath, policyPath *stri
 	reactionMs := fs.Float64("reaction-ms", opfit.DefaultReactionMs, "assumed delay from a picture to the operator's response, ms")
 	recoveryMs := fs.Float64("recovery-ms", opfit.DefaultRecoveryMs, "how long after a gap its consequences are counted, ms")
 	lookaheadM := fs.Float64("lookahead-m", 10, "lookahead of the pure pursuit reference follower, m")
-	wheelbaseM := fs.Float64("wheelbase-m", 2.7, "vehicle wheelbase, m")
+	wheelbaseM := fs.Float64("wheelbase-m", filter.DefaultWheelbaseM, "vehicle wheelbase, m")
 	bootstrap := fs.Int("bootstrap", opfit.DefaultBootstrap, "bootstrap resamplings for the interval")
 	run := fs.String("run", "", "name of this fit run, recorded with the proposal (default fit-<UTC time>)")
 	if len(args) == 0 || strings.HasPrefix(args[0], "-") {

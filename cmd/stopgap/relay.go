@@ -54,7 +54,7 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	fs.Float64Var(&latencyMs, "latency-ms", 0, "nominal capture-to-arrival latency, ms (0 = estimate over the first frames of each session)")
 	fs.StringVar(&model, "model", "ctrv", "motion model of the filter: ctrv or bicycle (bicycle: the operator's commands sent to /api/controls are its control input)")
 	videoMotion := fs.Bool("video-motion", false, "also estimate the vehicle's motion from the video itself (for a vehicle that sends no telemetry); costs about one warp per frame")
-	fs.Float64Var(&wheelbaseM, "wheelbase-m", 2.7, "wheelbase for the bicycle model and steering telemetry, m")
+	fs.Float64Var(&wheelbaseM, "wheelbase-m", filter.DefaultWheelbaseM, "wheelbase for the bicycle model and steering telemetry, m")
 	var act filter.Actuator
 	var cmdDelayMs float64
 	fs.Float64Var(&cmdDelayMs, "command-delay-ms", 0, "uplink delay from the operator station to the vehicle's actuators, ms (fit it with stopgap replay on a recorded drive)")

@@ -58,7 +58,7 @@ func (f *replayFlags) register(fs *flag.FlagSet) {
 	fs.Float64Var(&f.maxAgeMs, "max-age-ms", pol.MaxAgeMs, "cap on the picture age of a predicted frame, ms: past it a missing frame is STALE")
 	fs.Float64Var(&f.allowanceMs, "allowance-ms", bench.DefaultAllowanceMs, allowanceUsage)
 	fs.StringVar(&f.model, "model", "", "motion model of the filter: ctrv or bicycle; empty: the bicycle driven by the operator's commands\nwhen the drive has them (controls.csv), else ctrv")
-	fs.Float64Var(&f.wheelbaseM, "wheelbase-m", 2.7, "wheelbase for the bicycle model and steering telemetry, m")
+	fs.Float64Var(&f.wheelbaseM, "wheelbase-m", filter.DefaultWheelbaseM, "wheelbase for the bicycle model and steering telemetry, m")
 	fs.IntVar(&f.examples, "examples", bench.DefaultExamples, "how many example ticks the report shows side by side")
 	fs.BoolVar(&f.overwrite, "overwrite", false, "replace an existing non-empty --out directory")
 	fs.BoolVar(&f.quiet, "quiet", false, "no progress bar")
