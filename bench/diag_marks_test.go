@@ -82,7 +82,6 @@ func TestDiagMarks(t *testing.T) {
 	rc.Telemetry.Seed = rc.Loss.Seed
 	rc.Confidence = predictor.ConfidenceModel{ToleranceMrad: 10}
 	rc.AllowanceMs = DefaultAllowanceMs
-	rc.Filter.WheelbaseM = 2.7
 	rc.Examples = -1
 	shownMask, img, tint := gocv.NewMat(), gocv.NewMat(), gocv.NewMat()
 	defer shownMask.Close()

@@ -13,6 +13,7 @@ import (
 	"time"
 
 	"stopgap/bench/simdrive"
+	"stopgap/filter"
 	"stopgap/internal/lossmodel"
 	"stopgap/predictor"
 	"stopgap/stream/recording"
@@ -34,11 +35,15 @@ func smallConfig() simdrive.Config {
 	return simdrive.Config{Width: 320, Height: 180, DurationS: 4, Seed: 3}
 }
 
+// baseReplay is the replay `stopgap replay` runs with its defaults (the
+// default loss, policy and wheelbase, the model decided by the drive's
+// commands), so the tests check what the command does.
 func baseReplay(drive, out string) ReplayConfig {
 	return ReplayConfig{
 		Drive: drive, Out: out,
 		Loss:   lossmodel.Config{Model: lossmodel.GilbertElliott, LossRate: 0.1, BurstMs: 200, Seed: 1},
 		Policy: predictor.DefaultPolicy(),
+		Filter: filter.Config{WheelbaseM: filter.DefaultWheelbaseM},
 	}
 }
 
