@@ -78,10 +78,9 @@ func TestDiagMarks(t *testing.T) {
 	rc.Overwrite = true
 	rc.Loss = lossmodel.Config{Model: lossmodel.GilbertElliott, LossRate: envF("MARKS_DIAG_LOSS", 0.1), BurstMs: 200,
 		Seed: uint64(envF("MARKS_DIAG_LOSS_SEED", 1))}
-	// As stopgap replay's defaults (its flags' default values).
+	// As stopgap replay (its zero confidence model and allowance are the
+	// command's defaults already).
 	rc.Telemetry.Seed = rc.Loss.Seed
-	rc.Confidence = predictor.ConfidenceModel{ToleranceMrad: 10}
-	rc.AllowanceMs = DefaultAllowanceMs
 	rc.Examples = -1
 	shownMask, img, tint := gocv.NewMat(), gocv.NewMat(), gocv.NewMat()
 	defer shownMask.Close()
