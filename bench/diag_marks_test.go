@@ -33,8 +33,10 @@ import (
 // marks.csv: its zone's area and how much of it truly changed, its last
 // known place's and its shown place's. The log lists the marks that cost
 // most precision (zone area not truly changed, summed over their gap's
-// ticks) and the share of the marked area in marks of which under 5 %
-// truly changed. -count=1 keeps go test from replaying a cached result.
+// ticks), the share of the marked area in marks of which under 5 %
+// truly changed, and the recall of where the things truly are and of where
+// the picture shows them, apart, with the share of their pixels in road
+// users (connected parts of the mask) that no mark touches. -count=1 keeps go test from replaying a cached result.
 //
 //	MARKS_DIAG_OUT=/tmp/mdiag go test -count=1 ./bench -run TestDiagMarks -v
 func TestDiagMarks(t *testing.T) {
@@ -72,6 +74,8 @@ func TestDiagMarks(t *testing.T) {
 	type cost struct{ area, changed int }
 	costs := map[key]*cost{}
 	var marked, hit int
+	var partPx, partHit [2]int // where the things are, where they are shown
+	var partUnmarked [2]int    // of them in road users no mark touches
 	inZero := 0
 
 	rc := baseReplay(drive, filepath.Join(out, "replay"))
@@ -114,6 +118,37 @@ func TestDiagMarks(t *testing.T) {
 			}
 			c.area += za
 			c.changed += zc
+		}
+		// Recall of where the things truly are and of where the
+		// picture shows them, apart (inside the label's border).
+		for k, m := range []gocv.Mat{d.Target, shownMask} {
+			part, both := gocv.NewMat(), gocv.NewMat()
+			gocv.BitwiseAnd(m, d.Changed, &part)
+			gocv.BitwiseAnd(part, d.Marked, &both)
+			partPx[k] += gocv.CountNonZero(part)
+			partHit[k] += gocv.CountNonZero(both)
+			// Road users no mark touches at all (the detection missed
+			// them), as against the parts of marked ones left out.
+			labels, stats, cents := gocv.NewMat(), gocv.NewMat(), gocv.NewMat()
+			n := gocv.ConnectedComponentsWithStats(part, &labels, &stats, &cents)
+			hitIn := make([]bool, n)
+			for y := 0; y < h; y++ {
+				for x := 0; x < w; x++ {
+					if l := labels.GetIntAt(y, x); l > 0 && d.Marked.GetUCharAt(y, x) != 0 {
+						hitIn[l] = true
+					}
+				}
+			}
+			for i := 1; i < n; i++ {
+				if !hitIn[i] {
+					partUnmarked[k] += int(stats.GetIntAt(i, int(gocv.CC_STAT_AREA)))
+				}
+			}
+			labels.Close()
+			stats.Close()
+			cents.Close()
+			part.Close()
+			both.Close()
 		}
 		and := gocv.NewMat()
 		gocv.BitwiseAnd(d.Changed, d.Marked, &and)
@@ -162,6 +197,10 @@ func TestDiagMarks(t *testing.T) {
 	}
 	t.Logf("marked %d px, %d truly changed (precision %.3f); %.2f of the zones' area in marks of which under 5 %% truly changed",
 		marked, hit, float64(hit)/float64(marked), float64(inZero)/float64(max(1, zoneSum)))
+	for k, name := range []string{"where the things are", "where the picture shows them"} {
+		t.Logf("%s: %d px, recall %.3f; %.3f of the pixels in road users no mark touches", name, partPx[k],
+			float64(partHit[k])/float64(max(1, partPx[k])), float64(partUnmarked[k])/float64(max(1, partPx[k])))
+	}
 	for _, k := range keys[:min(10, len(keys))] {
 		c := costs[k]
 		t.Logf("held %4d mark %d: zone %7d px over its ticks, %6d truly changed (%.2f)", k.held, k.mark, c.area, c.changed,
