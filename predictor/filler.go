@@ -567,7 +567,9 @@ func (f *Filler) WarpHeld(m filter.Motion, dst *gocv.Mat) (Synthesis, float64, e
 }
 
 // farDepthFor returns the far-scene depth for the held frame, estimating it
-// once per held frame from the frame before it (see FarDepthEstimator).
+// once per held frame from the comparison frame (see comparisonFrame and
+// FarDepthEstimator): over the 33 ms to the frame before it, the far scene
+// moves too little at the sweep's 160 px to tell its depths apart.
 // Without a previous frame, a usable motion between the two, or with the
 // estimate switched off, the far scene is at infinity.
 func (f *Filler) farDepthFor() float64 {
@@ -576,8 +578,9 @@ func (f *Filler) farDepthFor() float64 {
 	}
 	d := math.Inf(1)
 	if !f.cfg.FarDepth.Off && f.havePrev {
-		if m, err := f.cfg.Motion.Relative(f.prevUs, f.lastUs); err == nil {
-			if est, err := f.depth.Estimate(f.prev, f.last, f.cfg.Camera, m); err == nil {
+		old, oldUs := f.comparisonFrame()
+		if m, err := f.cfg.Motion.Relative(oldUs, f.lastUs); err == nil {
+			if est, err := f.depth.Estimate(old, f.last, f.cfg.Camera, m); err == nil {
 				d = est
 			}
 		}
