@@ -216,7 +216,8 @@ type UprightModel struct {
 // distance and yaw on the band's own cost (refine) and again, with finer
 // steps, at twice the resolution (refineFine), neighbouring segments
 // that nearly meet are joined (joinSegments), and no segment reaches above
-// its band's first textured row (firstTexturedRow). The cost per gap is
+// its band's first textured row (firstTexturedRow). A farther surface seen
+// above a segment's top gets a segment of its own (stacked). The cost per gap is
 // about one low-resolution warp per hypothesis (57 by default), each
 // restricted to the bands and rows where its plane can stand, about ten
 // band-sized evaluations per segment for the refinement and eight at
