@@ -108,8 +108,9 @@ type Filler struct {
 	gray   gocv.Mat
 	closed bool
 
-	// The real frame before last, for the far-depth estimate, and the
-	// estimate made for the held frame (valid while farFor == lastUs).
+	// The real frame before last (the comparison frame when no older one
+	// is kept), and the far-depth estimate made for the held frame (valid
+	// while farFor == lastUs).
 	prev     gocv.Mat
 	prevUs   int64
 	havePrev bool
@@ -304,7 +305,8 @@ func (f *Filler) Hold(frame gocv.Mat, captureUs int64) error {
 }
 
 // HoldPrevious gives the Filler the real frame before the held one (the
-// far-depth, upright and mover estimates compare the two) without changing
+// far-depth, upright and mover estimates compare the held frame with it
+// when no older frame is kept; see comparisonFrame) without changing
 // the held frame: a replay that loads frames only when a gap needs them
 // hands it the two newest it has. captureUs must be before the held frame's;
 // otherwise, or before any held frame, it returns an error wrapping
@@ -345,8 +347,8 @@ func (f *Filler) hold(frame gocv.Mat, captureUs int64) {
 		return
 	}
 	if f.have && captureUs > f.lastUs {
-		// Keep the previous real frame for the far-depth estimate, and
-		// the one before it for the movers: swap the buffers, so this
+		// Keep the previous real frame, and the ones before it for the
+		// comparison frame (comparisonFrame): swap the buffers, so this
 		// costs no extra copy.
 		if f.havePrev {
 			f.prev = f.pushOlder(f.prev, f.prevUs)
