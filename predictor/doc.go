@@ -53,7 +53,9 @@
 // SynthesizeScene adds the held frame's upright structure (UprightModel,
 // estimated per held frame by UprightEstimator): vertical planes standing on
 // the road, one per column band, each warped with its own plane-induced
-// homography K (R + t nᵀ/d) K⁻¹, nearer ones in front; pixels uncovered
+// homography K (R + t nᵀ/d) K⁻¹, nearer ones in front (and, where a
+// farther facade shows above a band's segment, a second, stacked one, seen
+// down to the nearer one's top); pixels uncovered
 // behind them are NeutralGrey, not invented. A segment's surface starts,
 // column by column, at the first row of the held frame that shows
 // structure (UprightModel.Tops), so sky beside a roofline or beside a

@@ -108,8 +108,9 @@ type Filler struct {
 	gray   gocv.Mat
 	closed bool
 
-	// The real frame before last, for the far-depth estimate, and the
-	// estimate made for the held frame (valid while farFor == lastUs).
+	// The real frame before last (the comparison frame when no older one
+	// is kept), and the far-depth estimate made for the held frame (valid
+	// while farFor == lastUs).
 	prev     gocv.Mat
 	prevUs   int64
 	havePrev bool
@@ -304,7 +305,8 @@ func (f *Filler) Hold(frame gocv.Mat, captureUs int64) error {
 }
 
 // HoldPrevious gives the Filler the real frame before the held one (the
-// far-depth, upright and mover estimates compare the two) without changing
+// far-depth, upright and mover estimates compare the held frame with it
+// when no older frame is kept; see comparisonFrame) without changing
 // the held frame: a replay that loads frames only when a gap needs them
 // hands it the two newest it has. captureUs must be before the held frame's;
 // otherwise, or before any held frame, it returns an error wrapping
@@ -345,8 +347,8 @@ func (f *Filler) hold(frame gocv.Mat, captureUs int64) {
 		return
 	}
 	if f.have && captureUs > f.lastUs {
-		// Keep the previous real frame for the far-depth estimate, and
-		// the one before it for the movers: swap the buffers, so this
+		// Keep the previous real frame, and the ones before it for the
+		// comparison frame (comparisonFrame): swap the buffers, so this
 		// costs no extra copy.
 		if f.havePrev {
 			f.prev = f.pushOlder(f.prev, f.prevUs)
@@ -567,7 +569,9 @@ func (f *Filler) WarpHeld(m filter.Motion, dst *gocv.Mat) (Synthesis, float64, e
 }
 
 // farDepthFor returns the far-scene depth for the held frame, estimating it
-// once per held frame from the frame before it (see FarDepthEstimator).
+// once per held frame from the comparison frame (see comparisonFrame and
+// FarDepthEstimator): over the 33 ms to the frame before it, the far scene
+// moves too little at the sweep's 160 px to tell its depths apart.
 // Without a previous frame, a usable motion between the two, or with the
 // estimate switched off, the far scene is at infinity.
 func (f *Filler) farDepthFor() float64 {
@@ -576,8 +580,9 @@ func (f *Filler) farDepthFor() float64 {
 	}
 	d := math.Inf(1)
 	if !f.cfg.FarDepth.Off && f.havePrev {
-		if m, err := f.cfg.Motion.Relative(f.prevUs, f.lastUs); err == nil {
-			if est, err := f.depth.Estimate(f.prev, f.last, f.cfg.Camera, m); err == nil {
+		old, oldUs := f.comparisonFrame()
+		if m, err := f.cfg.Motion.Relative(oldUs, f.lastUs); err == nil {
+			if est, err := f.depth.Estimate(old, f.last, f.cfg.Camera, m); err == nil {
 				d = est
 			}
 		}

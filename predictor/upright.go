@@ -169,6 +169,11 @@ type UprightSegment struct {
 	// TopRow is the row of the surface's top edge in the held frame
 	// (-0.5: the image's top edge).
 	TopRow float64
+	// ClipRow, when positive, is the row from which a nearer segment of
+	// the same band hides this one in the held frame: a farther facade
+	// seen above a nearer one's top (stacked), its surface shown from
+	// TopRow down to ClipRow only. 0: down to its base line.
+	ClipRow float64
 	// Plane in the held frame's camera coordinates.
 	Plane Plane
 	// BaseRow0 and BaseRow1 are the base line's rows at the band's edges
@@ -211,7 +216,8 @@ type UprightModel struct {
 // distance and yaw on the band's own cost (refine) and again, with finer
 // steps, at twice the resolution (refineFine), neighbouring segments
 // that nearly meet are joined (joinSegments), and no segment reaches above
-// its band's first textured row (firstTexturedRow). The cost per gap is
+// its band's first textured row (firstTexturedRow). A farther surface seen
+// above a segment's top gets a segment of its own (stacked). The cost per gap is
 // about one low-resolution warp per hypothesis (57 by default), each
 // restricted to the bands and rows where its plane can stand, about ten
 // band-sized evaluations per segment for the refinement and eight at
@@ -253,6 +259,8 @@ type UprightEstimator struct {
 	// compensate with these (Filler.moverModel), as their thresholds were
 	// set on them.
 	coarse []UprightSegment
+	// stack holds the last Estimate's stacked segments (stacked).
+	stack []UprightSegment
 	// fa and fb are the older and newer frames in grey at twice the
 	// estimate's resolution (fsx, fsy the scale), for refineFine.
 	fa, fb   gocv.Mat
@@ -315,6 +323,7 @@ func invertPlanar(dx, dy, yaw float64) (float64, float64, float64) {
 func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Motion, farDepthM float64, model *UprightModel) error {
 	model.Segments = model.Segments[:0]
 	e.coarse = e.coarse[:0]
+	e.stack = e.stack[:0]
 	e.haveRes = false
 	if err := CheckMotion(m); err != nil {
 		return err
@@ -565,12 +574,113 @@ func (e *UprightEstimator) Estimate(prev, last gocv.Mat, cam Camera, m filter.Mo
 		}
 		if best >= 0 {
 			e.coarse = append(e.coarse, e.segs[best])
-			model.Segments = append(model.Segments, e.refineFine(cam, e.refine(cam, best, b, hzRow), hzRow))
+			near := e.refineFine(cam, e.refine(cam, best, b, hzRow), hzRow)
+			model.Segments = append(model.Segments, near)
+			if up, ok := e.stacked(cam, near, best, b, textured, gain, hzRow); ok {
+				e.stack = append(e.stack, up)
+			}
 		}
 	}
 	joinSegments(cam, model.Segments)
+	model.Segments = append(model.Segments, e.stack...)
 	e.columnTops(cam, model)
 	return nil
+}
+
+// stacked returns the farther surface seen above the top of band
+// segment near (plane hypothesis best) in the newer frame, if one of the
+// plane hypotheses standing behind near matches the rows between the
+// band's first textured row and near's top better than the far scene by
+// the share gain: a taller building behind a lower one, whose front the
+// far map would move as if it were at the far scene's depth. Its top is
+// the best as for a band's segment; it is shown down to near's top
+// (ClipRow) and keeps its hypothesis's plane (the refinement's costs run
+// down to a plane's base, which near hides), refined on those rows alone
+// (refineStacked).
+func (e *UprightEstimator) stacked(cam Camera, near UprightSegment, best, b, textured int, gain, hzRow float64) (UprightSegment, bool) {
+	h := len(e.pre[0]) - 1
+	sy := e.sy
+	nearTop := int(math.Round(math.Min(math.Max((near.TopRow+0.5)*sy, 0), float64(h))))
+	if nearTop-textured < 2 {
+		return UprightSegment{}, false
+	}
+	far := e.pre[1]
+	found, bestCost := -1, 0.0
+	var top int
+	for i := range e.planes {
+		seg := e.segs[i]
+		if i == best || math.IsInf(e.cost[i], 1) || !(seg.DepthM > near.DepthM*1.15) {
+			continue
+		}
+		pk := e.pre[2+i]
+		for y := textured; y+2 <= nearTop; y++ {
+			c := far[y] + pk[nearTop] - pk[y]
+			if found < 0 || c < bestCost {
+				found, bestCost, top = i, c, y
+			}
+		}
+	}
+	if found < 0 || bestCost > far[nearTop]-gain*(far[nearTop]-far[top]) {
+		return UprightSegment{}, false
+	}
+	up := e.segs[found]
+	up.TopRow = -0.5
+	if top > 0 {
+		up.TopRow = float64(top)/sy - 0.5
+	}
+	up.ClipRow = float64(nearTop)/sy - 0.5
+	return e.refineStacked(cam, up, found, b, top, nearTop, hzRow), true
+}
+
+// refineStacked refines stacked segment seg (plane hypothesis best) on the
+// low-resolution rows [y0, y1) of band b it is seen on: its offset between
+// the neighbouring hypotheses of its family by the vertex of the parabola
+// through their costs against the inverse offset (as refine), then its yaw
+// about the vertical through its foot point by ±refineYawStep, each kept
+// only if it lowers the cost.
+func (e *UprightEstimator) refineStacked(cam Camera, seg UprightSegment, best, b, y0, y1 int, hzRow float64) UprightSegment {
+	cost := func(r UprightSegment) float64 {
+		hs := scaleHomography(PlaneHomography(cam, e.back[0], e.back[1], e.back[2], r.Plane), e.sx, e.sy)
+		return e.bandCost(hs, e.bandLo[b], e.bandLo[b+1], y0, y1)
+	}
+	cur, curCost := seg, cost(seg)
+	try := func(a vec3, off float64) {
+		if !(off > 0) {
+			return
+		}
+		r, ok := segment(cam, verticalPlane(cam, a, off), seg.Col0, seg.Col1, hzRow)
+		if !ok {
+			return
+		}
+		r.TopRow, r.ClipRow = seg.TopRow, seg.ClipRow
+		if c := cost(r); c < curCost {
+			cur, curCost = r, c
+		}
+	}
+	rows := func(k int) float64 { return e.pre[2+k][y1] - e.pre[2+k][y0] }
+	hp := e.hyps[best]
+	if lo, hi := hp.lower, hp.upper; lo >= 0 && hi >= 0 && !math.IsInf(e.cost[lo], 1) && !math.IsInf(e.cost[hi], 1) {
+		if x, ok := parabolaVertex(1/e.hyps[lo].B, 1/hp.B, 1/e.hyps[hi].B, rows(lo), rows(best), rows(hi)); ok {
+			try(hp.A, 1/x)
+		}
+	}
+	foot, ok := e.footPoint(cam, cur)
+	if !ok {
+		return cur
+	}
+	a := mul3v(transpose3(cam.RotationVehicleToCamera()), vec3{cur.Plane.Normal[0], cur.Plane.Normal[1], cur.Plane.Normal[2]})
+	a[2] = 0
+	n := math.Hypot(a[0], a[1])
+	if !(n > 0) {
+		return cur
+	}
+	a[0], a[1] = a[0]/n, a[1]/n
+	for _, phi := range [...]float64{-refineYawStep, refineYawStep} {
+		sn, cs := math.Sincos(phi)
+		r := vec3{cs*a[0] - sn*a[1], sn*a[0] + cs*a[1], 0}
+		try(r, dot3(r, foot))
+	}
+	return cur
 }
 
 // columnTops writes model.Tops: for each column of each segment, the first
@@ -600,7 +710,11 @@ func (e *UprightEstimator) columnTops(cam Camera, model *UprightModel) {
 	}
 	for _, seg := range model.Segments {
 		y0 := max(0, int(math.Floor((seg.TopRow+0.5)*e.fsy)))
-		yb := min(fh-1, int(math.Ceil((math.Min(seg.BaseRow0, seg.BaseRow1)+0.5)*e.fsy)))
+		bot := math.Min(seg.BaseRow0, seg.BaseRow1)
+		if seg.ClipRow > 0 {
+			bot = math.Min(bot, seg.ClipRow)
+		}
+		yb := min(fh-1, int(math.Ceil((bot+0.5)*e.fsy)))
 		xf := -1
 		top := float32(seg.TopRow)
 		for u := max(0, seg.Col0); u < min(w, seg.Col1); u++ {
@@ -619,7 +733,11 @@ func (e *UprightEstimator) columnTops(cam Camera, model *UprightModel) {
 				}
 				top = float32(math.Max(seg.TopRow, float64(y)/e.fsy-0.5))
 			}
-			model.Tops[u] = top
+			if seg.ClipRow > 0 {
+				model.Tops[u] = min(model.Tops[u], top) // a stacked segment comes after its band's
+			} else {
+				model.Tops[u] = top
+			}
 		}
 	}
 }

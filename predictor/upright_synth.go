@@ -109,10 +109,19 @@ func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM f
 		r0, _ := hz.RowAt(x0)
 		r1, _ := hz.RowAt(x1)
 		split := math.Max(math.Max(r0, r1)+1, seg.TopRow)
-		if split > seg.TopRow {
-			paint(f, [4][2]float64{{x0, seg.TopRow}, {x1, seg.TopRow}, {x1, split}, {x0, split}}, spanHidden)
+		if fs := split; split > seg.TopRow {
+			if seg.ClipRow > 0 {
+				fs = math.Min(fs, seg.ClipRow)
+			}
+			paint(f, [4][2]float64{{x0, seg.TopRow}, {x1, seg.TopRow}, {x1, fs}, {x0, fs}}, spanHidden)
 		}
-		paint(g, [4][2]float64{{x0, split}, {x1, split}, {x1, seg.BaseRow1}, {x0, seg.BaseRow0}}, spanHidden)
+		b0, b1 := seg.BaseRow0, seg.BaseRow1
+		if seg.ClipRow > 0 {
+			b0, b1 = math.Min(b0, seg.ClipRow), math.Min(b1, seg.ClipRow)
+		}
+		if b0 > split || b1 > split {
+			paint(g, [4][2]float64{{x0, split}, {x1, split}, {x1, b1}, {x0, b0}}, spanHidden)
+		}
 	}
 	// 2. Segments, far to near. Each quad is clipped to the source
 	// rectangle of Warp's "has a source" test, so every pixel centre of
@@ -129,6 +138,9 @@ func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM f
 		x0, x1 := math.Max(float64(seg.Col0)-0.5, -e), math.Min(float64(seg.Col1)-0.5, float64(w-1)+e)
 		top := math.Max(seg.TopRow, -e)
 		b0, b1 := math.Min(seg.BaseRow0, float64(h-1)+e), math.Min(seg.BaseRow1, float64(h-1)+e)
+		if seg.ClipRow > 0 {
+			b0, b1 = math.Min(b0, seg.ClipRow), math.Min(b1, seg.ClipRow)
+		}
 		paint(hf, [4][2]float64{{x0, top}, {x1, top}, {x1, b1}, {x0, b0}}, int32(i))
 	}
 	// 3. Visible pieces per row (sweep over the span edges: the span

@@ -266,6 +266,27 @@ func TestSynthesizeSceneOwnersBruteForce(t *testing.T) {
 	}
 	model.Tops = tops
 	t.Run("column tops", func(t *testing.T) { checkSceneOwners(t, c, model) })
+	// Stacked segments: behind every other segment, a front twice as far
+	// standing above it, seen from 40 rows above its top down to its top.
+	model.Tops = nil
+	var stacked []UprightSegment
+	for i, seg := range model.Segments {
+		if i%2 == 1 {
+			continue
+		}
+		hzRow, _ := c.Horizon().RowAt(float64(seg.Col0+seg.Col1-1) / 2)
+		up, ok := segment(c, verticalPlane(c, vec3{1, 0, 0}, 2*seg.DepthM), seg.Col0, seg.Col1, hzRow)
+		if !ok {
+			continue
+		}
+		up.TopRow, up.ClipRow = seg.TopRow-40, seg.TopRow
+		stacked = append(stacked, up)
+	}
+	if len(stacked) < 2 {
+		t.Fatalf("only %d stacked segments in the test street", len(stacked))
+	}
+	model.Segments = append(model.Segments, stacked...)
+	t.Run("stacked", func(t *testing.T) { checkSceneOwners(t, c, model) })
 }
 
 // checkSceneOwners is TestSynthesizeSceneOwnersBruteForce for one model.
@@ -304,14 +325,21 @@ func checkSceneOwners(t *testing.T, c Camera, model UprightModel) {
 				hf := PlaneHomography(c, mo.DxM, mo.DyM, mo.DyawRad, seg.Plane)
 				x0, x1 := math.Max(float64(seg.Col0)-0.5, -e), math.Min(float64(seg.Col1)-0.5, float64(c.Width-1)+e)
 				top := math.Max(seg.TopRow, -e)
-				b0, b1 := math.Min(seg.BaseRow0, float64(c.Height-1)+e), math.Min(seg.BaseRow1, float64(c.Height-1)+e)
+				// A stacked segment is seen down to its ClipRow only.
+				clip := func(r float64) float64 {
+					if seg.ClipRow > 0 {
+						return math.Min(r, seg.ClipRow)
+					}
+					return r
+				}
+				b0, b1 := clip(math.Min(seg.BaseRow0, float64(c.Height-1)+e)), clip(math.Min(seg.BaseRow1, float64(c.Height-1)+e))
 				own = append(own, quadMap{[4][2]float64{{x0, top}, {x1, top}, {x1, b1}, {x0, b0}}, mustInverse(t, hf)})
 				ux0, ux1 := float64(seg.Col0)-0.5, float64(seg.Col1)-0.5
 				r0, _ := hz.RowAt(ux0)
 				r1, _ := hz.RowAt(ux1)
 				split := math.Max(math.Max(r0, r1)+1, seg.TopRow)
-				above = append(above, quadMap{[4][2]float64{{ux0, seg.TopRow}, {ux1, seg.TopRow}, {ux1, split}, {ux0, split}}, fi})
-				below = append(below, quadMap{[4][2]float64{{ux0, split}, {ux1, split}, {ux1, seg.BaseRow1}, {ux0, seg.BaseRow0}}, gi})
+				above = append(above, quadMap{[4][2]float64{{ux0, seg.TopRow}, {ux1, seg.TopRow}, {ux1, clip(split)}, {ux0, clip(split)}}, fi})
+				below = append(below, quadMap{[4][2]float64{{ux0, split}, {ux1, split}, {ux1, math.Max(split, clip(seg.BaseRow1))}, {ux0, math.Max(split, clip(seg.BaseRow0))}}, gi})
 			}
 			hits := func(qm quadMap, u, v float64) bool {
 				x, y, ok := qm.inv.Apply(u, v)
