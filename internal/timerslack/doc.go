@@ -38,7 +38,8 @@
 // environment variable EnvVar, when set to a whole number of nanoseconds,
 // replaces Default (50000 is the kernel's usual default; 0 leaves the slack
 // the process inherited, for example from systemd's TimerSlackNSec=). Any
-// other value is ignored and Default applies; Current reports what the
+// other value is ignored (a warning on the default logger says so) and
+// Default applies; Current reports what the
 // calling thread has. On other systems the package does nothing.
 package timerslack
 
