@@ -183,7 +183,16 @@ func (p *pipeline) run(ctx context.Context) error {
 loop:
 	for {
 		p.r.beat(p.cfg.Now())
-		p.armTimer(timer)
+		// Once ticks are due, a telemetry sample does not wake the loop:
+		// the display clock would only hold it until the tick it arrived
+		// before (cadence.Clock.Telemetry), so the samples queued are
+		// handed over before each frame and each tick instead, in arrival
+		// order, which is before any decision made after they arrived.
+		// Before the first frame each one is given to the filter at once.
+		tel := p.tel
+		if p.armTimer(timer) {
+			tel = nil
+		}
 		select {
 		case <-ctx.Done():
 			err = ctx.Err()
@@ -194,8 +203,9 @@ loop:
 			p.drain()
 			break loop
 		case ev := <-p.frames:
+			p.drainTelemetry()
 			p.onFrame(ev)
-		case te := <-p.tel:
+		case te := <-tel:
 			p.onTelemetry(te)
 		case <-timer.C():
 			p.drain()
@@ -255,13 +265,27 @@ func (p *pipeline) drain() {
 	}
 }
 
-// armTimer sets the timer to the deadline of the next unresolved tick.
-func (p *pipeline) armTimer(t Timer) {
+// drainTelemetry hands every queued telemetry sample to the display clock,
+// in arrival order.
+func (p *pipeline) drainTelemetry() {
+	for {
+		select {
+		case te := <-p.tel:
+			p.onTelemetry(te)
+		default:
+			return
+		}
+	}
+}
+
+// armTimer sets the timer to the deadline of the next unresolved tick and
+// reports whether there is one (false before the first frame).
+func (p *pipeline) armTimer(t Timer) bool {
 	t.Stop()
 	next, ok := p.clock.NextDeadlineUs()
 	if !ok {
 		t.Reset(IdleWake) // wake anyway: the liveness probe watches the loop
-		return
+		return false
 	}
 	// One microsecond after the deadline: Advance fills ticks whose
 	// deadline has passed, and a frame ready at the deadline is in time.
@@ -270,6 +294,7 @@ func (p *pipeline) armTimer(t Timer) {
 		d = 0
 	}
 	t.Reset(d)
+	return true
 }
 
 // onTelemetry hands one sample to the display clock, which gives it to the

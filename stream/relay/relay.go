@@ -15,6 +15,10 @@ import (
 
 	"stopgap/filter"
 	"stopgap/internal/display"
+	// The relay process's threads sleep with a timer slack of half a
+	// millisecond: the Go runtime's monitor thread otherwise wakes every
+	// 70 us around each frame's decode (see the package's documentation).
+	_ "stopgap/internal/timerslack"
 	"stopgap/predictor"
 	"stopgap/stream/console"
 	"stopgap/stream/ingest"
