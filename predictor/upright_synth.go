@@ -14,6 +14,9 @@ import (
 // segment in the source. Other span kinds are segment draw indices (0..).
 const spanHidden = -1
 
+// spanNone is below every span kind: no span covers the piece.
+const spanNone = -2
+
 // uprightScratch holds the per-frame buffers of SynthesizeScene, owned by
 // the Synthesizer and grown once for the camera and the segment count.
 type uprightScratch struct {
@@ -23,6 +26,7 @@ type uprightScratch struct {
 	order  []UprightSegment
 	events []int64 // span edges of a row: pos<<32 | span<<1 | start
 	active []int32
+	byCol  []int32 // draw indices in order of UprightSegment.Col0
 	// Visible pieces in compressed sparse rows: index 0 the background,
 	// 1+k segment k in draw order.
 	ptr   [][]int32
@@ -89,7 +93,23 @@ func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM f
 	}
 	sc.order = append(sc.order[:0], model.Segments...)
 	sortFarToNear(sc.order)
-	sc.inv = sc.inv[:0]
+	// Quads are painted segment by segment in column order, so that each
+	// row's span edges come nearly sorted (sortEvents); which span shows is
+	// decided by kind, not by paint order (see step 3).
+	n := len(sc.order)
+	sc.byCol = sc.byCol[:0]
+	for i := range n {
+		sc.byCol = append(sc.byCol, int32(i))
+	}
+	for i := 1; i < n; i++ { // stable insertion by Col0: a few dozen segments
+		for j := i; j > 0 && sc.order[sc.byCol[j-1]].Col0 > sc.order[sc.byCol[j]].Col0; j-- {
+			sc.byCol[j-1], sc.byCol[j] = sc.byCol[j], sc.byCol[j-1]
+		}
+	}
+	if cap(sc.inv) < n {
+		sc.inv = make([]Homography, n)
+	}
+	sc.inv = sc.inv[:n]
 	paint := func(hm Homography, quad [4][2]float64, kind int32) {
 		r0, r1, ok := quadSpans(hm, quad, w, h, sc.quad)
 		if !ok {
@@ -102,46 +122,46 @@ func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM f
 		}
 	}
 	hz := s.horizon
-	// 1. Where the background would fetch segment pixels: the road map's
-	// image of the part below the horizon, the far map's above it.
-	for _, seg := range sc.order {
+	const e = FillTolerancePx
+	for _, i := range sc.byCol {
+		seg := &sc.order[i]
+		// 1. Where the background would fetch the segment's pixels: the
+		// road map's image of the part below the horizon, the far map's
+		// above it.
 		x0, x1 := float64(seg.Col0)-0.5, float64(seg.Col1)-0.5
 		r0, _ := hz.RowAt(x0)
 		r1, _ := hz.RowAt(x1)
-		split := math.Max(math.Max(r0, r1)+1, seg.TopRow)
+		split := max(max(r0, r1)+1, seg.TopRow)
 		if fs := split; split > seg.TopRow {
 			if seg.ClipRow > 0 {
-				fs = math.Min(fs, seg.ClipRow)
+				fs = min(fs, seg.ClipRow)
 			}
 			paint(f, [4][2]float64{{x0, seg.TopRow}, {x1, seg.TopRow}, {x1, fs}, {x0, fs}}, spanHidden)
 		}
 		b0, b1 := seg.BaseRow0, seg.BaseRow1
 		if seg.ClipRow > 0 {
-			b0, b1 = math.Min(b0, seg.ClipRow), math.Min(b1, seg.ClipRow)
+			b0, b1 = min(b0, seg.ClipRow), min(b1, seg.ClipRow)
 		}
 		if b0 > split || b1 > split {
 			paint(g, [4][2]float64{{x0, split}, {x1, split}, {x1, b1}, {x0, b0}}, spanHidden)
 		}
-	}
-	// 2. Segments, far to near. Each quad is clipped to the source
-	// rectangle of Warp's "has a source" test, so every pixel centre of
-	// its image has a source (up to rounding at the quad's edges) and the
-	// count needs no per-piece test.
-	const e = FillTolerancePx
-	for i, seg := range sc.order {
+		// 2. The segment itself. Its quad is clipped to the source
+		// rectangle of Warp's "has a source" test, so every pixel centre
+		// of its image has a source (up to rounding at the quad's edges)
+		// and the count needs no per-piece test.
 		hf := PlaneHomography(c, m.DxM, m.DyM, m.DyawRad, seg.Plane)
 		inv, err := hf.Inverse()
-		sc.inv = append(sc.inv, inv)
+		sc.inv[i] = inv
 		if err != nil || !hf.IsFinite() {
 			continue
 		}
-		x0, x1 := math.Max(float64(seg.Col0)-0.5, -e), math.Min(float64(seg.Col1)-0.5, float64(w-1)+e)
-		top := math.Max(seg.TopRow, -e)
-		b0, b1 := math.Min(seg.BaseRow0, float64(h-1)+e), math.Min(seg.BaseRow1, float64(h-1)+e)
+		x0, x1 = max(float64(seg.Col0)-0.5, -e), min(float64(seg.Col1)-0.5, float64(w-1)+e)
+		top := max(seg.TopRow, -e)
+		b0, b1 = min(seg.BaseRow0, float64(h-1)+e), min(seg.BaseRow1, float64(h-1)+e)
 		if seg.ClipRow > 0 {
-			b0, b1 = math.Min(b0, seg.ClipRow), math.Min(b1, seg.ClipRow)
+			b0, b1 = min(b0, seg.ClipRow), min(b1, seg.ClipRow)
 		}
-		paint(hf, [4][2]float64{{x0, top}, {x1, top}, {x1, b1}, {x0, b0}}, int32(i))
+		paint(hf, [4][2]float64{{x0, top}, {x1, top}, {x1, b1}, {x0, b0}}, i)
 	}
 	// 3. Visible pieces per row (sweep over the span edges: the span
 	// painted last among those covering a piece shows), the exact count,
@@ -163,7 +183,7 @@ func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM f
 		for k, sp := range spans {
 			ev = append(ev, int64(sp.lo)<<32|int64(k)<<1|1, int64(sp.hi)<<32|int64(k)<<1)
 		}
-		slices.Sort(ev)
+		sortEvents(ev)
 		sc.events = ev
 		act := sc.active[:0]
 		u := 0
@@ -173,21 +193,23 @@ func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM f
 				next = min(w, int(ev[i]>>32))
 			}
 			if next > u {
-				top := int32(-1)
+				// The nearest segment shows (the highest draw index);
+				// under no segment, a disocclusion span hides the
+				// background.
+				top := int32(spanNone)
 				for _, k := range act {
-					top = max(top, k)
+					top = max(top, spans[k].kind)
 				}
-				switch {
-				case top < 0:
+				switch top {
+				case spanNone:
 					unfilled += s.countSplitRange(gi, fi, v, u, next-1)
 					sc.piece[0] = append(sc.piece[0], int32(u), int32(next))
-				case spans[top].kind == spanHidden:
+				case spanHidden:
 					var n int
 					sc.piece[0], n = s.hiddenRange(dv, gi, fi, model.Tops, v, u, next, sc.piece[0])
 					unfilled += n
 				default:
-					k := spans[top].kind
-					sc.piece[1+k] = append(sc.piece[1+k], int32(u), int32(next))
+					sc.piece[1+top] = append(sc.piece[1+top], int32(u), int32(next))
 				}
 				u = next
 			}
@@ -220,6 +242,32 @@ func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM f
 	out.UnfilledFraction = float64(unfilled) / float64(w*h)
 	out.UprightSegments = len(sc.order)
 	return out, nil
+}
+
+// sortEventsBudget is the number of element moves sortEvents spends on
+// insertion before it hands the row to slices.Sort.
+const sortEventsBudget = 256
+
+// sortEvents sorts a row's span edges in increasing order. The keys are
+// distinct (each holds its span's index), so the order is the same whatever
+// the algorithm: insertion, which is fastest on the short and nearly
+// ordered rows that painting segments in column order gives, and
+// slices.Sort once a row turns out to need more than sortEventsBudget moves.
+func sortEvents(ev []int64) {
+	moves := 0
+	for i := 1; i < len(ev); i++ {
+		x := ev[i]
+		j := i
+		for j > 0 && ev[j-1] > x {
+			ev[j] = ev[j-1]
+			j--
+		}
+		ev[j] = x
+		if moves += i - j; moves > sortEventsBudget {
+			slices.Sort(ev)
+			return
+		}
+	}
 }
 
 // hiddenRange decides the columns [x0, x1) of row v, where the road or far
@@ -323,18 +371,18 @@ func (s *Synthesizer) decideHidden(dv bgrView, gi, fi Homography, r *rowMap, top
 	xa, ya, oka := r.src(x0)
 	xb, yb, okb := r.src(x1 - 1)
 	if oka && okb {
-		c0 := int(math.Round(math.Min(xa, xb)))
-		c1 := int(math.Round(math.Max(xa, xb)))
+		c0 := int(math.Round(min(xa, xb)))
+		c1 := int(math.Round(max(xa, xb)))
 		if c0 >= 0 && c1 < len(tops) {
 			lo, hi := tops[c0], tops[c0]
 			for _, t := range tops[c0 : c1+1] {
 				lo, hi = min(lo, t), max(hi, t)
 			}
 			switch {
-			case math.Min(ya, yb) >= float64(hi):
+			case min(ya, yb) >= float64(hi):
 				greyRange(dv, v, x0, x1)
 				return bg, x1 - x0
-			case math.Max(ya, yb) < float64(lo):
+			case max(ya, yb) < float64(lo):
 				return append(bg, int32(x0), int32(x1)), s.countSplitRange(gi, fi, v, x0, x1-1)
 			}
 		}
@@ -452,10 +500,10 @@ func quadSpans(hm Homography, q [4][2]float64, w, h int, spans []int32) (r0, r1 
 			return 0, 0, false
 		}
 		p[i] = [2]float64{x, y}
-		ymin, ymax = math.Min(ymin, y), math.Max(ymax, y)
+		ymin, ymax = min(ymin, y), max(ymax, y)
 	}
-	r0 = int(math.Max(0, math.Ceil(ymin)))
-	r1 = int(math.Min(float64(h), math.Floor(ymax)+1))
+	r0 = int(max(0, math.Ceil(ymin)))
+	r1 = int(min(float64(h), math.Floor(ymax)+1))
 	for v := r0; v < r1; v++ {
 		fv := float64(v)
 		lo, hi := math.Inf(1), math.Inf(-1)
@@ -463,17 +511,17 @@ func quadSpans(hm Homography, q [4][2]float64, w, h int, spans []int32) (r0, r1 
 			a, b := p[i], p[(i+1)%4]
 			if (a[1] > fv) == (b[1] > fv) {
 				if a[1] == fv {
-					lo, hi = math.Min(lo, a[0]), math.Max(hi, a[0])
+					lo, hi = min(lo, a[0]), max(hi, a[0])
 				}
 				continue
 			}
 			x := a[0] + (fv-a[1])*(b[0]-a[0])/(b[1]-a[1])
-			lo, hi = math.Min(lo, x), math.Max(hi, x)
+			lo, hi = min(lo, x), max(hi, x)
 		}
 		l, r := int32(0), int32(0)
 		if lo <= hi {
-			l = int32(math.Max(0, math.Ceil(lo)))
-			r = int32(math.Min(float64(w), math.Floor(hi)+1))
+			l = int32(max(0, math.Ceil(lo)))
+			r = int32(min(float64(w), math.Floor(hi)+1))
 			if l > r {
 				l = r
 			}
