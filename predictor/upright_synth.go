@@ -3,6 +3,7 @@ package predictor
 import (
 	"fmt"
 	"math"
+	"math/bits"
 	"slices"
 
 	"gocv.io/x/gocv"
@@ -27,6 +28,7 @@ type uprightScratch struct {
 	events []int64 // span edges of a row: pos<<32 | span<<1 | start
 	active []int32
 	byCol  []int32 // draw indices in order of UprightSegment.Col0
+	tops   topsTable
 	// Visible pieces in compressed sparse rows: index 0 the background,
 	// 1+k segment k in draw order.
 	ptr   [][]int32
@@ -174,6 +176,9 @@ func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM f
 	for k := 0; k < nk; k++ {
 		sc.ptr[k] = append(sc.ptr[k][:0], 0)
 		sc.piece[k] = sc.piece[k][:0]
+	}
+	if len(model.Tops) >= w {
+		sc.tops.build(model.Tops)
 	}
 	unfilled := 0
 	for v := 0; v < h; v++ {
@@ -330,6 +335,51 @@ func (s *Synthesizer) hiddenPiece(dv bgrView, gi, fi, m Homography, tops []float
 	return s.decideHidden(dv, gi, fi, &rm, tops, v, x0, x1, bg)
 }
 
+// topsTable answers the least and the greatest of UprightModel.Tops over a
+// column range in constant time: a sparse table (level j holds the minima
+// and maxima over the 2^j columns from each column), rebuilt only when the
+// tops change, so once per gap. The answers are those of a scan: min and
+// max are exact and order-free, NaN included.
+type topsTable struct {
+	key    []float32   // the tops the levels were built from
+	lo, hi [][]float32 // level j, column c: over columns [c, c+2^j)
+}
+
+// build makes the table answer for tops (a copy is kept to see changes).
+func (t *topsTable) build(tops []float32) {
+	if len(t.key) == len(tops) && slices.EqualFunc(t.key, tops, func(a, b float32) bool {
+		return math.Float32bits(a) == math.Float32bits(b)
+	}) && len(t.lo) > 0 {
+		return
+	}
+	t.key = append(t.key[:0], tops...)
+	n := len(tops)
+	levels := bits.Len(uint(n))
+	for len(t.lo) < levels {
+		t.lo, t.hi = append(t.lo, nil), append(t.hi, nil)
+	}
+	t.lo, t.hi = t.lo[:levels], t.hi[:levels]
+	t.lo[0] = append(t.lo[0][:0], tops...)
+	t.hi[0] = append(t.hi[0][:0], tops...)
+	for j := 1; j < levels; j++ {
+		half, m := 1<<(j-1), n-1<<j+1
+		lo, hi := t.lo[j][:0], t.hi[j][:0]
+		for c := range m {
+			lo = append(lo, min(t.lo[j-1][c], t.lo[j-1][c+half]))
+			hi = append(hi, max(t.hi[j-1][c], t.hi[j-1][c+half]))
+		}
+		t.lo[j], t.hi[j] = lo, hi
+	}
+}
+
+// span returns the least and the greatest top of columns [c0, c1]
+// (0 <= c0 <= c1 < len(tops)).
+func (t *topsTable) span(c0, c1 int) (lo, hi float32) {
+	j := bits.Len(uint(c1-c0+1)) - 1
+	c2 := c1 - 1<<j + 1
+	return min(t.lo[j][c0], t.lo[j][c2]), max(t.hi[j][c0], t.hi[j][c2])
+}
+
 // rowMap is a map restricted to one row: source x = (ax u + bx) / (aw u +
 // bw), y = (ay u + by) / (aw u + bw).
 type rowMap struct{ ax, bx, ay, by, aw, bw float64 }
@@ -374,10 +424,7 @@ func (s *Synthesizer) decideHidden(dv bgrView, gi, fi Homography, r *rowMap, top
 		c0 := int(math.Round(min(xa, xb)))
 		c1 := int(math.Round(max(xa, xb)))
 		if c0 >= 0 && c1 < len(tops) {
-			lo, hi := tops[c0], tops[c0]
-			for _, t := range tops[c0 : c1+1] {
-				lo, hi = min(lo, t), max(hi, t)
-			}
+			lo, hi := s.up.tops.span(c0, c1)
 			switch {
 			case min(ya, yb) >= float64(hi):
 				greyRange(dv, v, x0, x1)
