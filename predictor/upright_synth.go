@@ -29,6 +29,7 @@ type uprightScratch struct {
 	active []int32
 	byCol  []int32 // draw indices in order of UprightSegment.Col0
 	tops   topsTable
+	count  rowCount
 	// Visible pieces in compressed sparse rows: index 0 the background,
 	// 1+k segment k in draw order.
 	ptr   [][]int32
@@ -180,6 +181,7 @@ func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM f
 	if len(model.Tops) >= w {
 		sc.tops.build(model.Tops)
 	}
+	sc.count.ok = false
 	unfilled := 0
 	for v := 0; v < h; v++ {
 		spans := sc.rows[v]
@@ -507,28 +509,49 @@ func (s *Synthesizer) warpBackground(dv, sv bgrView, gi, fi Homography, rowptr, 
 
 // countSplitRange counts the unfilled pixels of columns [x0, x1] of row v
 // of the background warp (ground map gi on and below the horizon, far map
-// fi above it), as countSplit does for whole rows.
+// fi above it), as countSplit does for whole rows. The row's sets (horizon
+// split, validRow of each map) are worked out on its first call and kept
+// in s.up.count for the next pieces of the same row; SynthesizeScene resets
+// them for each frame, as gi and fi change.
 func (s *Synthesizer) countSplitRange(gi, fi Homography, v, x0, x1 int) int {
 	if x0 > x1 {
 		return 0
 	}
-	w, h := s.cam.Width, s.cam.Height
+	rc := &s.up.count
+	if !rc.ok || rc.v != v {
+		w, h := s.cam.Width, s.cam.Height
+		hz := s.horizon
+		rc.v, rc.ok = v, true
+		rc.glo, rc.ghi = halfLine(hz.A, hz.B*float64(v)+hz.C, 0, w-1)
+		rc.f = newValidRow(fi, v, w, h)
+		if gi != fi {
+			rc.g = newValidRow(gi, v, w, h)
+		}
+	}
 	if gi == fi {
-		return (x1 - x0 + 1) - validCount(fi, v, x0, x1, w, h)
+		return (x1 - x0 + 1) - rc.f.count(x0, x1)
 	}
-	hz := s.horizon
-	glo, ghi := halfLine(hz.A, hz.B*float64(v)+hz.C, x0, x1)
+	glo, ghi := max(x0, rc.glo), min(x1, rc.ghi)
 	if glo > ghi {
-		return (x1 - x0 + 1) - validCount(fi, v, x0, x1, w, h)
+		return (x1 - x0 + 1) - rc.f.count(x0, x1)
 	}
-	n := (ghi - glo + 1) - validCount(gi, v, glo, ghi, w, h)
+	n := (ghi - glo + 1) - rc.g.count(glo, ghi)
 	if glo > x0 {
-		n += (glo - x0) - validCount(fi, v, x0, glo-1, w, h)
+		n += (glo - x0) - rc.f.count(x0, glo-1)
 	}
 	if ghi < x1 {
-		n += (x1 - ghi) - validCount(fi, v, ghi+1, x1, w, h)
+		n += (x1 - ghi) - rc.f.count(ghi+1, x1)
 	}
 	return n
+}
+
+// rowCount is countSplitRange's record of one row: the ground columns
+// [glo, ghi] of the horizon split and the validRow of each map.
+type rowCount struct {
+	v        int
+	ok       bool // false: nothing recorded for this frame
+	glo, ghi int
+	g, f     validRow
 }
 
 // quadSpans maps the convex source quadrilateral q (pixel coordinates, in

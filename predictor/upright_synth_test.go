@@ -51,3 +51,35 @@ func sameTop(a, b float32) bool {
 	}
 	return math.Float32bits(a) == math.Float32bits(b)
 }
+
+// TestValidRowMatchesValidCount checks that counting on a row's validRow
+// gives validCount's answer for every sub-range, on random homographies
+// (some sending part of the row behind the camera) and the identity.
+func TestValidRowMatchesValidCount(t *testing.T) {
+	rng := rand.New(rand.NewPCG(3, 4))
+	const w, h = 37, 23
+	maps := []Homography{{{1, 0, 0}, {0, 1, 0}, {0, 0, 1}}}
+	for len(maps) < 200 {
+		var m Homography
+		for i := range 3 {
+			for j := range 3 {
+				m[i][j] = rng.NormFloat64()
+			}
+		}
+		m[0][2], m[1][2] = 20*rng.NormFloat64(), 20*rng.NormFloat64()
+		m[2][0], m[2][1] = 0.05*m[2][0], 0.05*m[2][1]
+		maps = append(maps, m)
+	}
+	for _, m := range maps {
+		for v := 0; v < h; v++ {
+			r := newValidRow(m, v, w, h)
+			for x0 := 0; x0 < w; x0++ {
+				for x1 := x0 - 1; x1 < w; x1++ {
+					if got, want := r.count(x0, x1), validCount(m, v, x0, x1, w, h); got != want {
+						t.Fatalf("H=%v row %d [%d, %d]: validRow %d, validCount %d", m, v, x0, x1, got, want)
+					}
+				}
+			}
+		}
+	}
+}
