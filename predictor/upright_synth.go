@@ -519,28 +519,23 @@ func (s *Synthesizer) countSplitRange(gi, fi Homography, v, x0, x1 int) int {
 	}
 	rc := &s.up.count
 	if !rc.ok || rc.v != v {
-		w, h := s.cam.Width, s.cam.Height
 		hz := s.horizon
-		rc.v, rc.ok = v, true
-		rc.glo, rc.ghi = halfLine(hz.A, hz.B*float64(v)+hz.C, 0, w-1)
-		rc.f = newValidRow(fi, v, w, h)
-		if gi != fi {
-			rc.g = newValidRow(gi, v, w, h)
-		}
+		*rc = rowCount{v: v, ok: true}
+		rc.glo, rc.ghi = halfLine(hz.A, hz.B*float64(v)+hz.C, 0, s.cam.Width-1)
 	}
 	if gi == fi {
-		return (x1 - x0 + 1) - rc.f.count(x0, x1)
+		return (x1 - x0 + 1) - rc.far(fi, s.cam).count(x0, x1)
 	}
 	glo, ghi := max(x0, rc.glo), min(x1, rc.ghi)
 	if glo > ghi {
-		return (x1 - x0 + 1) - rc.f.count(x0, x1)
+		return (x1 - x0 + 1) - rc.far(fi, s.cam).count(x0, x1)
 	}
-	n := (ghi - glo + 1) - rc.g.count(glo, ghi)
+	n := (ghi - glo + 1) - rc.ground(gi, s.cam).count(glo, ghi)
 	if glo > x0 {
-		n += (glo - x0) - rc.f.count(x0, glo-1)
+		n += (glo - x0) - rc.far(fi, s.cam).count(x0, glo-1)
 	}
 	if ghi < x1 {
-		n += (x1 - ghi) - rc.f.count(ghi+1, x1)
+		n += (x1 - ghi) - rc.far(fi, s.cam).count(ghi+1, x1)
 	}
 	return n
 }
@@ -552,6 +547,23 @@ type rowCount struct {
 	ok       bool // false: nothing recorded for this frame
 	glo, ghi int
 	g, f     validRow
+	gok, fok bool // g, f worked out (on first use)
+}
+
+// ground returns the row's validRow under the ground map gi.
+func (rc *rowCount) ground(gi Homography, c Camera) validRow {
+	if !rc.gok {
+		rc.g, rc.gok = newValidRow(gi, rc.v, c.Width, c.Height), true
+	}
+	return rc.g
+}
+
+// far returns the row's validRow under the far map fi.
+func (rc *rowCount) far(fi Homography, c Camera) validRow {
+	if !rc.fok {
+		rc.f, rc.fok = newValidRow(fi, rc.v, c.Width, c.Height), true
+	}
+	return rc.f
 }
 
 // quadSpans maps the convex source quadrilateral q (pixel coordinates, in
