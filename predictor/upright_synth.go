@@ -166,9 +166,9 @@ func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM f
 		}
 		paint(hf, [4][2]float64{{x0, top}, {x1, top}, {x1, b1}, {x0, b0}}, i)
 	}
-	// 3. Visible pieces per row (sweep over the span edges: the span
-	// painted last among those covering a piece shows), the exact count,
-	// and the grey of hidden pieces.
+	// 3. Visible pieces per row (sweep over the span edges: of the spans
+	// covering a piece, the nearest segment's shows, else a disocclusion
+	// span's), the exact count, and the grey of hidden pieces.
 	nk := 1 + len(sc.order)
 	for len(sc.ptr) < nk {
 		sc.ptr = append(sc.ptr, nil)
