@@ -22,6 +22,7 @@ const spanNone = -2
 // the Synthesizer and grown once for the camera and the segment count.
 type uprightScratch struct {
 	quad   []int32   // 2 per row: one quad's row spans
+	xs     []float64 // 2 per row: quadSpans's scratch
 	rows   [][]cspan // per row: painted spans in paint order
 	inv    []Homography
 	order  []UprightSegment
@@ -89,6 +90,7 @@ func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM f
 	sc := &s.up
 	if len(sc.quad) != 2*h {
 		sc.quad = make([]int32, 2*h)
+		sc.xs = make([]float64, 2*h)
 		sc.rows = make([][]cspan, h)
 	}
 	for v := range sc.rows {
@@ -114,7 +116,7 @@ func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM f
 	}
 	sc.inv = sc.inv[:n]
 	paint := func(hm Homography, quad [4][2]float64, kind int32) {
-		r0, r1, ok := quadSpans(hm, quad, w, h, sc.quad)
+		r0, r1, ok := quadSpans(hm, quad, w, h, sc.quad, sc.xs)
 		if !ok {
 			return
 		}
@@ -572,8 +574,15 @@ func (rc *rowCount) far(fi Homography, c Camera) validRow {
 // pixel centres inside the image quadrilateral, clipped to [0, w) (lo == hi
 // when none) into spans[2v], spans[2v+1]. ok is false, writing nothing, if
 // a corner maps to infinity or behind the camera (the image would not be a
-// bounded convex quadrilateral).
-func quadSpans(hm Homography, q [4][2]float64, w, h int, spans []int32) (r0, r1 int, ok bool) {
+// bounded convex quadrilateral). xs is scratch of at least 2h values.
+//
+// A row's bounds are the least and the greatest of the crossings of the
+// edges that straddle it (one end's y above the row's, the other's on it or
+// below) and of the corners lying exactly on it. Each edge visits only the
+// rows it can straddle, each tested exactly, so a tall, thin quad costs two
+// crossings per row; the crossing is the same expression on the same
+// values as in a plain per-row pass over all four edges.
+func quadSpans(hm Homography, q [4][2]float64, w, h int, spans []int32, xs []float64) (r0, r1 int, ok bool) {
 	var p [4][2]float64
 	ymin, ymax := math.Inf(1), math.Inf(-1)
 	for i, c := range q {
@@ -586,29 +595,42 @@ func quadSpans(hm Homography, q [4][2]float64, w, h int, spans []int32) (r0, r1 
 	}
 	r0 = int(max(0, math.Ceil(ymin)))
 	r1 = int(min(float64(h), math.Floor(ymax)+1))
+	if r1 <= r0 {
+		return r0, r0, true
+	}
+	lo, hi := xs[:h], xs[h:2*h]
 	for v := r0; v < r1; v++ {
-		fv := float64(v)
-		lo, hi := math.Inf(1), math.Inf(-1)
-		for i := 0; i < 4; i++ {
-			a, b := p[i], p[(i+1)%4]
+		lo[v], hi[v] = math.Inf(1), math.Inf(-1)
+	}
+	for i := 0; i < 4; i++ {
+		a, b := p[i], p[(i+1)%4]
+		// Rows that may straddle the edge: between its ends' y, one
+		// row of slack each way; the exact test decides.
+		va := max(r0, int(math.Floor(min(a[1], b[1])))-1)
+		vb := min(r1, int(math.Ceil(max(a[1], b[1])))+2)
+		for v := va; v < vb; v++ {
+			fv := float64(v)
 			if (a[1] > fv) == (b[1] > fv) {
-				if a[1] == fv {
-					lo, hi = min(lo, a[0]), max(hi, a[0])
-				}
 				continue
 			}
 			x := a[0] + (fv-a[1])*(b[0]-a[0])/(b[1]-a[1])
-			lo, hi = min(lo, x), max(hi, x)
+			lo[v], hi[v] = min(lo[v], x), max(hi[v], x)
 		}
+		// Corner a on a row, where edge i does not straddle that row.
+		if v := int(a[1]); float64(v) == a[1] && v >= r0 && v < r1 && (b[1] > a[1]) == false {
+			lo[v], hi[v] = min(lo[v], a[0]), max(hi[v], a[0])
+		}
+	}
+	for v := r0; v < r1; v++ {
 		l, r := int32(0), int32(0)
-		if lo <= hi {
-			l = int32(max(0, math.Ceil(lo)))
-			r = int32(min(float64(w), math.Floor(hi)+1))
+		if lo[v] <= hi[v] {
+			l = int32(max(0, math.Ceil(lo[v])))
+			r = int32(min(float64(w), math.Floor(hi[v])+1))
 			if l > r {
 				l = r
 			}
 		}
 		spans[2*v], spans[2*v+1] = l, r
 	}
-	return r0, max(r0, r1), true
+	return r0, r1, true
 }
