@@ -343,6 +343,50 @@ func validCount(inv Homography, v, x0, x1, sw, sh int) int {
 	return n
 }
 
+// validRow is the set validCount counts, for a whole row at once: the
+// columns [lo, hi] (lo > hi when none) less those of [blo, bhi], where the
+// ray points behind the source camera. Each bound is halfLine's, exact per
+// pixel, so a sub-range's count equals validCount of that sub-range.
+type validRow struct{ lo, hi, blo, bhi int }
+
+// newValidRow is validCount's set for row v over columns [0, sw-1].
+func newValidRow(inv Homography, v, sw, sh int) validRow {
+	fv := float64(v)
+	wa, wc := inv[2][0], inv[2][1]*fv+inv[2][2]
+	xa, xc := inv[0][0], inv[0][1]*fv+inv[0][2]
+	ya, yc := inv[1][0], inv[1][1]*fv+inv[1][2]
+	const e = FillTolerancePx
+	mw, mh := float64(sw-1)+e, float64(sh-1)+e
+	r := validRow{lo: 0, hi: sw - 1, blo: 0, bhi: -1}
+	cons := [...][2]float64{
+		{xa + e*wa, xc + e*wc},
+		{mw*wa - xa, mw*wc - xc},
+		{ya + e*wa, yc + e*wc},
+		{mh*wa - ya, mh*wc - yc},
+	}
+	for _, k := range cons {
+		r.lo, r.hi = halfLine(k[0], k[1], r.lo, r.hi)
+		if r.lo > r.hi {
+			return validRow{lo: 0, hi: -1, blo: 0, bhi: -1}
+		}
+	}
+	r.blo, r.bhi = halfLine(-wa, -wc, r.lo, r.hi)
+	return r
+}
+
+// count is validCount over columns [x0, x1] of the row.
+func (r validRow) count(x0, x1 int) int {
+	lo, hi := max(x0, r.lo), min(x1, r.hi)
+	if lo > hi {
+		return 0
+	}
+	n := hi - lo + 1
+	if b0, b1 := max(lo, r.blo), min(hi, r.bhi); b0 <= b1 {
+		n -= b1 - b0 + 1
+	}
+	return n
+}
+
 // countSplit counts unfilled pixels when the frame is split at the horizon:
 // columns with signed distance >= 0 use the ground map gi, the others the
 // far map fi (both inverse maps).

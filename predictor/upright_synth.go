@@ -3,6 +3,7 @@ package predictor
 import (
 	"fmt"
 	"math"
+	"math/bits"
 	"slices"
 
 	"gocv.io/x/gocv"
@@ -14,15 +15,22 @@ import (
 // segment in the source. Other span kinds are segment draw indices (0..).
 const spanHidden = -1
 
+// spanNone is below every span kind: no span covers the piece.
+const spanNone = -2
+
 // uprightScratch holds the per-frame buffers of SynthesizeScene, owned by
 // the Synthesizer and grown once for the camera and the segment count.
 type uprightScratch struct {
 	quad   []int32   // 2 per row: one quad's row spans
+	xs     []float64 // 2 per row: quadSpans's scratch
 	rows   [][]cspan // per row: painted spans in paint order
 	inv    []Homography
 	order  []UprightSegment
 	events []int64 // span edges of a row: pos<<32 | span<<1 | start
 	active []int32
+	byCol  []int32 // draw indices in order of UprightSegment.Col0
+	tops   topsTable
+	count  rowCount
 	// Visible pieces in compressed sparse rows: index 0 the background,
 	// 1+k segment k in draw order.
 	ptr   [][]int32
@@ -82,6 +90,7 @@ func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM f
 	sc := &s.up
 	if len(sc.quad) != 2*h {
 		sc.quad = make([]int32, 2*h)
+		sc.xs = make([]float64, 2*h)
 		sc.rows = make([][]cspan, h)
 	}
 	for v := range sc.rows {
@@ -89,9 +98,25 @@ func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM f
 	}
 	sc.order = append(sc.order[:0], model.Segments...)
 	sortFarToNear(sc.order)
-	sc.inv = sc.inv[:0]
+	// Quads are painted segment by segment in column order, so that each
+	// row's span edges come nearly sorted (sortEvents); which span shows is
+	// decided by kind, not by paint order (see step 3).
+	n := len(sc.order)
+	sc.byCol = sc.byCol[:0]
+	for i := range n {
+		sc.byCol = append(sc.byCol, int32(i))
+	}
+	for i := 1; i < n; i++ { // stable insertion by Col0: a few dozen segments
+		for j := i; j > 0 && sc.order[sc.byCol[j-1]].Col0 > sc.order[sc.byCol[j]].Col0; j-- {
+			sc.byCol[j-1], sc.byCol[j] = sc.byCol[j], sc.byCol[j-1]
+		}
+	}
+	if cap(sc.inv) < n {
+		sc.inv = make([]Homography, n)
+	}
+	sc.inv = sc.inv[:n]
 	paint := func(hm Homography, quad [4][2]float64, kind int32) {
-		r0, r1, ok := quadSpans(hm, quad, w, h, sc.quad)
+		r0, r1, ok := quadSpans(hm, quad, w, h, sc.quad, sc.xs)
 		if !ok {
 			return
 		}
@@ -102,50 +127,50 @@ func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM f
 		}
 	}
 	hz := s.horizon
-	// 1. Where the background would fetch segment pixels: the road map's
-	// image of the part below the horizon, the far map's above it.
-	for _, seg := range sc.order {
+	const e = FillTolerancePx
+	for _, i := range sc.byCol {
+		seg := &sc.order[i]
+		// 1. Where the background would fetch the segment's pixels: the
+		// road map's image of the part below the horizon, the far map's
+		// above it.
 		x0, x1 := float64(seg.Col0)-0.5, float64(seg.Col1)-0.5
 		r0, _ := hz.RowAt(x0)
 		r1, _ := hz.RowAt(x1)
-		split := math.Max(math.Max(r0, r1)+1, seg.TopRow)
+		split := max(max(r0, r1)+1, seg.TopRow)
 		if fs := split; split > seg.TopRow {
 			if seg.ClipRow > 0 {
-				fs = math.Min(fs, seg.ClipRow)
+				fs = min(fs, seg.ClipRow)
 			}
 			paint(f, [4][2]float64{{x0, seg.TopRow}, {x1, seg.TopRow}, {x1, fs}, {x0, fs}}, spanHidden)
 		}
 		b0, b1 := seg.BaseRow0, seg.BaseRow1
 		if seg.ClipRow > 0 {
-			b0, b1 = math.Min(b0, seg.ClipRow), math.Min(b1, seg.ClipRow)
+			b0, b1 = min(b0, seg.ClipRow), min(b1, seg.ClipRow)
 		}
 		if b0 > split || b1 > split {
 			paint(g, [4][2]float64{{x0, split}, {x1, split}, {x1, b1}, {x0, b0}}, spanHidden)
 		}
-	}
-	// 2. Segments, far to near. Each quad is clipped to the source
-	// rectangle of Warp's "has a source" test, so every pixel centre of
-	// its image has a source (up to rounding at the quad's edges) and the
-	// count needs no per-piece test.
-	const e = FillTolerancePx
-	for i, seg := range sc.order {
+		// 2. The segment itself. Its quad is clipped to the source
+		// rectangle of Warp's "has a source" test, so every pixel centre
+		// of its image has a source (up to rounding at the quad's edges)
+		// and the count needs no per-piece test.
 		hf := PlaneHomography(c, m.DxM, m.DyM, m.DyawRad, seg.Plane)
 		inv, err := hf.Inverse()
-		sc.inv = append(sc.inv, inv)
+		sc.inv[i] = inv
 		if err != nil || !hf.IsFinite() {
 			continue
 		}
-		x0, x1 := math.Max(float64(seg.Col0)-0.5, -e), math.Min(float64(seg.Col1)-0.5, float64(w-1)+e)
-		top := math.Max(seg.TopRow, -e)
-		b0, b1 := math.Min(seg.BaseRow0, float64(h-1)+e), math.Min(seg.BaseRow1, float64(h-1)+e)
+		x0, x1 = max(float64(seg.Col0)-0.5, -e), min(float64(seg.Col1)-0.5, float64(w-1)+e)
+		top := max(seg.TopRow, -e)
+		b0, b1 = min(seg.BaseRow0, float64(h-1)+e), min(seg.BaseRow1, float64(h-1)+e)
 		if seg.ClipRow > 0 {
-			b0, b1 = math.Min(b0, seg.ClipRow), math.Min(b1, seg.ClipRow)
+			b0, b1 = min(b0, seg.ClipRow), min(b1, seg.ClipRow)
 		}
-		paint(hf, [4][2]float64{{x0, top}, {x1, top}, {x1, b1}, {x0, b0}}, int32(i))
+		paint(hf, [4][2]float64{{x0, top}, {x1, top}, {x1, b1}, {x0, b0}}, i)
 	}
-	// 3. Visible pieces per row (sweep over the span edges: the span
-	// painted last among those covering a piece shows), the exact count,
-	// and the grey of hidden pieces.
+	// 3. Visible pieces per row (sweep over the span edges: of the spans
+	// covering a piece, the nearest segment's shows, else a disocclusion
+	// span's), the exact count, and the grey of hidden pieces.
 	nk := 1 + len(sc.order)
 	for len(sc.ptr) < nk {
 		sc.ptr = append(sc.ptr, nil)
@@ -155,6 +180,10 @@ func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM f
 		sc.ptr[k] = append(sc.ptr[k][:0], 0)
 		sc.piece[k] = sc.piece[k][:0]
 	}
+	if len(model.Tops) >= w {
+		sc.tops.build(model.Tops)
+	}
+	sc.count.ok = false
 	unfilled := 0
 	for v := 0; v < h; v++ {
 		spans := sc.rows[v]
@@ -163,7 +192,7 @@ func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM f
 		for k, sp := range spans {
 			ev = append(ev, int64(sp.lo)<<32|int64(k)<<1|1, int64(sp.hi)<<32|int64(k)<<1)
 		}
-		slices.Sort(ev)
+		sortEvents(ev)
 		sc.events = ev
 		act := sc.active[:0]
 		u := 0
@@ -173,21 +202,23 @@ func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM f
 				next = min(w, int(ev[i]>>32))
 			}
 			if next > u {
-				top := int32(-1)
+				// The nearest segment shows (the highest draw index);
+				// under no segment, a disocclusion span hides the
+				// background.
+				top := int32(spanNone)
 				for _, k := range act {
-					top = max(top, k)
+					top = max(top, spans[k].kind)
 				}
-				switch {
-				case top < 0:
+				switch top {
+				case spanNone:
 					unfilled += s.countSplitRange(gi, fi, v, u, next-1)
 					sc.piece[0] = append(sc.piece[0], int32(u), int32(next))
-				case spans[top].kind == spanHidden:
+				case spanHidden:
 					var n int
 					sc.piece[0], n = s.hiddenRange(dv, gi, fi, model.Tops, v, u, next, sc.piece[0])
 					unfilled += n
 				default:
-					k := spans[top].kind
-					sc.piece[1+k] = append(sc.piece[1+k], int32(u), int32(next))
+					sc.piece[1+top] = append(sc.piece[1+top], int32(u), int32(next))
 				}
 				u = next
 			}
@@ -220,6 +251,32 @@ func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM f
 	out.UnfilledFraction = float64(unfilled) / float64(w*h)
 	out.UprightSegments = len(sc.order)
 	return out, nil
+}
+
+// sortEventsBudget is the number of element moves sortEvents spends on
+// insertion before it hands the row to slices.Sort.
+const sortEventsBudget = 256
+
+// sortEvents sorts a row's span edges in increasing order. The keys are
+// distinct (each holds its span's index), so the order is the same whatever
+// the algorithm: insertion, which is fastest on the short and nearly
+// ordered rows that painting segments in column order gives, and
+// slices.Sort once a row turns out to need more than sortEventsBudget moves.
+func sortEvents(ev []int64) {
+	moves := 0
+	for i := 1; i < len(ev); i++ {
+		x := ev[i]
+		j := i
+		for j > 0 && ev[j-1] > x {
+			ev[j] = ev[j-1]
+			j--
+		}
+		ev[j] = x
+		if moves += i - j; moves > sortEventsBudget {
+			slices.Sort(ev)
+			return
+		}
+	}
 }
 
 // hiddenRange decides the columns [x0, x1) of row v, where the road or far
@@ -282,6 +339,51 @@ func (s *Synthesizer) hiddenPiece(dv bgrView, gi, fi, m Homography, tops []float
 	return s.decideHidden(dv, gi, fi, &rm, tops, v, x0, x1, bg)
 }
 
+// topsTable answers the least and the greatest of UprightModel.Tops over a
+// column range in constant time: a sparse table (level j holds the minima
+// and maxima over the 2^j columns from each column), rebuilt only when the
+// tops change, so once per gap. The answers are those of a scan: min and
+// max are exact and order-free, NaN included.
+type topsTable struct {
+	key    []float32   // the tops the levels were built from
+	lo, hi [][]float32 // level j, column c: over columns [c, c+2^j)
+}
+
+// build makes the table answer for tops (a copy is kept to see changes).
+func (t *topsTable) build(tops []float32) {
+	if len(t.key) == len(tops) && slices.EqualFunc(t.key, tops, func(a, b float32) bool {
+		return math.Float32bits(a) == math.Float32bits(b)
+	}) && len(t.lo) > 0 {
+		return
+	}
+	t.key = append(t.key[:0], tops...)
+	n := len(tops)
+	levels := bits.Len(uint(n))
+	for len(t.lo) < levels {
+		t.lo, t.hi = append(t.lo, nil), append(t.hi, nil)
+	}
+	t.lo, t.hi = t.lo[:levels], t.hi[:levels]
+	t.lo[0] = append(t.lo[0][:0], tops...)
+	t.hi[0] = append(t.hi[0][:0], tops...)
+	for j := 1; j < levels; j++ {
+		half, m := 1<<(j-1), n-1<<j+1
+		lo, hi := t.lo[j][:0], t.hi[j][:0]
+		for c := range m {
+			lo = append(lo, min(t.lo[j-1][c], t.lo[j-1][c+half]))
+			hi = append(hi, max(t.hi[j-1][c], t.hi[j-1][c+half]))
+		}
+		t.lo[j], t.hi[j] = lo, hi
+	}
+}
+
+// span returns the least and the greatest top of columns [c0, c1]
+// (0 <= c0 <= c1 < len(tops)).
+func (t *topsTable) span(c0, c1 int) (lo, hi float32) {
+	j := bits.Len(uint(c1-c0+1)) - 1
+	c2 := c1 - 1<<j + 1
+	return min(t.lo[j][c0], t.lo[j][c2]), max(t.hi[j][c0], t.hi[j][c2])
+}
+
 // rowMap is a map restricted to one row: source x = (ax u + bx) / (aw u +
 // bw), y = (ay u + by) / (aw u + bw).
 type rowMap struct{ ax, bx, ay, by, aw, bw float64 }
@@ -323,18 +425,15 @@ func (s *Synthesizer) decideHidden(dv bgrView, gi, fi Homography, r *rowMap, top
 	xa, ya, oka := r.src(x0)
 	xb, yb, okb := r.src(x1 - 1)
 	if oka && okb {
-		c0 := int(math.Round(math.Min(xa, xb)))
-		c1 := int(math.Round(math.Max(xa, xb)))
+		c0 := int(math.Round(min(xa, xb)))
+		c1 := int(math.Round(max(xa, xb)))
 		if c0 >= 0 && c1 < len(tops) {
-			lo, hi := tops[c0], tops[c0]
-			for _, t := range tops[c0 : c1+1] {
-				lo, hi = min(lo, t), max(hi, t)
-			}
+			lo, hi := s.up.tops.span(c0, c1)
 			switch {
-			case math.Min(ya, yb) >= float64(hi):
+			case min(ya, yb) >= float64(hi):
 				greyRange(dv, v, x0, x1)
 				return bg, x1 - x0
-			case math.Max(ya, yb) < float64(lo):
+			case max(ya, yb) < float64(lo):
 				return append(bg, int32(x0), int32(x1)), s.countSplitRange(gi, fi, v, x0, x1-1)
 			}
 		}
@@ -412,28 +511,61 @@ func (s *Synthesizer) warpBackground(dv, sv bgrView, gi, fi Homography, rowptr, 
 
 // countSplitRange counts the unfilled pixels of columns [x0, x1] of row v
 // of the background warp (ground map gi on and below the horizon, far map
-// fi above it), as countSplit does for whole rows.
+// fi above it), as countSplit does for whole rows. The row's sets (horizon
+// split, validRow of each map) are worked out on its first call and kept
+// in s.up.count for the next pieces of the same row; SynthesizeScene resets
+// them for each frame, as gi and fi change.
 func (s *Synthesizer) countSplitRange(gi, fi Homography, v, x0, x1 int) int {
 	if x0 > x1 {
 		return 0
 	}
-	w, h := s.cam.Width, s.cam.Height
+	rc := &s.up.count
+	if !rc.ok || rc.v != v {
+		hz := s.horizon
+		*rc = rowCount{v: v, ok: true}
+		rc.glo, rc.ghi = halfLine(hz.A, hz.B*float64(v)+hz.C, 0, s.cam.Width-1)
+	}
 	if gi == fi {
-		return (x1 - x0 + 1) - validCount(fi, v, x0, x1, w, h)
+		return (x1 - x0 + 1) - rc.far(fi, s.cam).count(x0, x1)
 	}
-	hz := s.horizon
-	glo, ghi := halfLine(hz.A, hz.B*float64(v)+hz.C, x0, x1)
+	glo, ghi := max(x0, rc.glo), min(x1, rc.ghi)
 	if glo > ghi {
-		return (x1 - x0 + 1) - validCount(fi, v, x0, x1, w, h)
+		return (x1 - x0 + 1) - rc.far(fi, s.cam).count(x0, x1)
 	}
-	n := (ghi - glo + 1) - validCount(gi, v, glo, ghi, w, h)
+	n := (ghi - glo + 1) - rc.ground(gi, s.cam).count(glo, ghi)
 	if glo > x0 {
-		n += (glo - x0) - validCount(fi, v, x0, glo-1, w, h)
+		n += (glo - x0) - rc.far(fi, s.cam).count(x0, glo-1)
 	}
 	if ghi < x1 {
-		n += (x1 - ghi) - validCount(fi, v, ghi+1, x1, w, h)
+		n += (x1 - ghi) - rc.far(fi, s.cam).count(ghi+1, x1)
 	}
 	return n
+}
+
+// rowCount is countSplitRange's record of one row: the ground columns
+// [glo, ghi] of the horizon split and the validRow of each map.
+type rowCount struct {
+	v        int
+	ok       bool // false: nothing recorded for this frame
+	glo, ghi int
+	g, f     validRow
+	gok, fok bool // g, f worked out (on first use)
+}
+
+// ground returns the row's validRow under the ground map gi.
+func (rc *rowCount) ground(gi Homography, c Camera) validRow {
+	if !rc.gok {
+		rc.g, rc.gok = newValidRow(gi, rc.v, c.Width, c.Height), true
+	}
+	return rc.g
+}
+
+// far returns the row's validRow under the far map fi.
+func (rc *rowCount) far(fi Homography, c Camera) validRow {
+	if !rc.fok {
+		rc.f, rc.fok = newValidRow(fi, rc.v, c.Width, c.Height), true
+	}
+	return rc.f
 }
 
 // quadSpans maps the convex source quadrilateral q (pixel coordinates, in
@@ -442,8 +574,15 @@ func (s *Synthesizer) countSplitRange(gi, fi Homography, v, x0, x1 int) int {
 // pixel centres inside the image quadrilateral, clipped to [0, w) (lo == hi
 // when none) into spans[2v], spans[2v+1]. ok is false, writing nothing, if
 // a corner maps to infinity or behind the camera (the image would not be a
-// bounded convex quadrilateral).
-func quadSpans(hm Homography, q [4][2]float64, w, h int, spans []int32) (r0, r1 int, ok bool) {
+// bounded convex quadrilateral). xs is scratch of at least 2h values.
+//
+// A row's bounds are the least and the greatest of the crossings of the
+// edges that straddle it (one end's y above the row's, the other's on it or
+// below) and of the corners lying exactly on it. Each edge visits only the
+// rows it can straddle, each tested exactly, so a tall, thin quad costs two
+// crossings per row; the crossing is the same expression on the same
+// values as in a plain per-row pass over all four edges.
+func quadSpans(hm Homography, q [4][2]float64, w, h int, spans []int32, xs []float64) (r0, r1 int, ok bool) {
 	var p [4][2]float64
 	ymin, ymax := math.Inf(1), math.Inf(-1)
 	for i, c := range q {
@@ -452,33 +591,46 @@ func quadSpans(hm Homography, q [4][2]float64, w, h int, spans []int32) (r0, r1 
 			return 0, 0, false
 		}
 		p[i] = [2]float64{x, y}
-		ymin, ymax = math.Min(ymin, y), math.Max(ymax, y)
+		ymin, ymax = min(ymin, y), max(ymax, y)
 	}
-	r0 = int(math.Max(0, math.Ceil(ymin)))
-	r1 = int(math.Min(float64(h), math.Floor(ymax)+1))
+	r0 = int(max(0, math.Ceil(ymin)))
+	r1 = int(min(float64(h), math.Floor(ymax)+1))
+	if r1 <= r0 {
+		return r0, r0, true
+	}
+	lo, hi := xs[:h], xs[h:2*h]
 	for v := r0; v < r1; v++ {
-		fv := float64(v)
-		lo, hi := math.Inf(1), math.Inf(-1)
-		for i := 0; i < 4; i++ {
-			a, b := p[i], p[(i+1)%4]
+		lo[v], hi[v] = math.Inf(1), math.Inf(-1)
+	}
+	for i := 0; i < 4; i++ {
+		a, b := p[i], p[(i+1)%4]
+		// Rows that may straddle the edge: between its ends' y, one
+		// row of slack each way; the exact test decides.
+		va := max(r0, int(math.Floor(min(a[1], b[1])))-1)
+		vb := min(r1, int(math.Ceil(max(a[1], b[1])))+2)
+		for v := va; v < vb; v++ {
+			fv := float64(v)
 			if (a[1] > fv) == (b[1] > fv) {
-				if a[1] == fv {
-					lo, hi = math.Min(lo, a[0]), math.Max(hi, a[0])
-				}
 				continue
 			}
 			x := a[0] + (fv-a[1])*(b[0]-a[0])/(b[1]-a[1])
-			lo, hi = math.Min(lo, x), math.Max(hi, x)
+			lo[v], hi[v] = min(lo[v], x), max(hi[v], x)
 		}
+		// Corner a on a row, where edge i does not straddle that row.
+		if v := int(a[1]); float64(v) == a[1] && v >= r0 && v < r1 && (b[1] > a[1]) == false {
+			lo[v], hi[v] = min(lo[v], a[0]), max(hi[v], a[0])
+		}
+	}
+	for v := r0; v < r1; v++ {
 		l, r := int32(0), int32(0)
-		if lo <= hi {
-			l = int32(math.Max(0, math.Ceil(lo)))
-			r = int32(math.Min(float64(w), math.Floor(hi)+1))
+		if lo[v] <= hi[v] {
+			l = int32(max(0, math.Ceil(lo[v])))
+			r = int32(min(float64(w), math.Floor(hi[v])+1))
 			if l > r {
 				l = r
 			}
 		}
 		spans[2*v], spans[2*v+1] = l, r
 	}
-	return r0, max(r0, r1), true
+	return r0, r1, true
 }
