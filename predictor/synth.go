@@ -304,6 +304,24 @@ func halfLine(a, c float64, lo, hi int) (int, int) {
 	}
 }
 
+// rowConstraints returns, for row v, the four conditions of validCount other
+// than w > 0 as pairs (a, c) meaning a u + c >= 0, and w = wa u + wc.
+func rowConstraints(inv Homography, v, sw, sh int) (cons [4][2]float64, wa, wc float64) {
+	fv := float64(v)
+	wa, wc = inv[2][0], inv[2][1]*fv+inv[2][2]
+	xa, xc := inv[0][0], inv[0][1]*fv+inv[0][2]
+	ya, yc := inv[1][0], inv[1][1]*fv+inv[1][2]
+	const e = FillTolerancePx
+	mw, mh := float64(sw-1)+e, float64(sh-1)+e
+	cons = [4][2]float64{
+		{xa + e*wa, xc + e*wc},
+		{mw*wa - xa, mw*wc - xc},
+		{ya + e*wa, yc + e*wc},
+		{mh*wa - ya, mh*wc - yc},
+	}
+	return cons, wa, wc
+}
+
 // validCount counts the integer columns u in [x0, x1] of row v whose centre
 // inv maps into the source rectangle [-e, sw-1+e] x [-e, sh-1+e] with w > 0
 // (e = FillTolerancePx). In homogeneous form every condition is linear in u:
@@ -315,19 +333,8 @@ func validCount(inv Homography, v, x0, x1, sw, sh int) int {
 	if x0 > x1 {
 		return 0
 	}
-	fv := float64(v)
-	wa, wc := inv[2][0], inv[2][1]*fv+inv[2][2]
-	xa, xc := inv[0][0], inv[0][1]*fv+inv[0][2]
-	ya, yc := inv[1][0], inv[1][1]*fv+inv[1][2]
-	const e = FillTolerancePx
-	mw, mh := float64(sw-1)+e, float64(sh-1)+e
+	cons, wa, wc := rowConstraints(inv, v, sw, sh)
 	lo, hi := x0, x1
-	cons := [...][2]float64{
-		{xa + e*wa, xc + e*wc},
-		{mw*wa - xa, mw*wc - xc},
-		{ya + e*wa, yc + e*wc},
-		{mh*wa - ya, mh*wc - yc},
-	}
 	for _, k := range cons {
 		lo, hi = halfLine(k[0], k[1], lo, hi)
 		if lo > hi {
@@ -351,19 +358,8 @@ type validRow struct{ lo, hi, blo, bhi int }
 
 // newValidRow is validCount's set for row v over columns [0, sw-1].
 func newValidRow(inv Homography, v, sw, sh int) validRow {
-	fv := float64(v)
-	wa, wc := inv[2][0], inv[2][1]*fv+inv[2][2]
-	xa, xc := inv[0][0], inv[0][1]*fv+inv[0][2]
-	ya, yc := inv[1][0], inv[1][1]*fv+inv[1][2]
-	const e = FillTolerancePx
-	mw, mh := float64(sw-1)+e, float64(sh-1)+e
+	cons, wa, wc := rowConstraints(inv, v, sw, sh)
 	r := validRow{lo: 0, hi: sw - 1, blo: 0, bhi: -1}
-	cons := [...][2]float64{
-		{xa + e*wa, xc + e*wc},
-		{mw*wa - xa, mw*wc - xc},
-		{ya + e*wa, yc + e*wc},
-		{mh*wa - ya, mh*wc - yc},
-	}
 	for _, k := range cons {
 		r.lo, r.hi = halfLine(k[0], k[1], r.lo, r.hi)
 		if r.lo > r.hi {

@@ -568,6 +568,22 @@ func (rc *rowCount) far(fi Homography, c Camera) validRow {
 	return rc.f
 }
 
+// projectQuad maps the corners of q with hm; ok is false if one maps to
+// infinity, behind the camera or beyond 1e7 px (the image would not be a
+// bounded convex quadrilateral). ymin and ymax bound the mapped corners' rows.
+func projectQuad(hm Homography, q [4][2]float64) (p [4][2]float64, ymin, ymax float64, ok bool) {
+	ymin, ymax = math.Inf(1), math.Inf(-1)
+	for i, c := range q {
+		x, y, ok := hm.Apply(c[0], c[1])
+		if !ok || math.Abs(x) > 1e7 || math.Abs(y) > 1e7 {
+			return p, 0, 0, false
+		}
+		p[i] = [2]float64{x, y}
+		ymin, ymax = min(ymin, y), max(ymax, y)
+	}
+	return p, ymin, ymax, true
+}
+
 // quadSpans maps the convex source quadrilateral q (pixel coordinates, in
 // order around it) with the forward homography hm and writes, for each
 // destination row v in the returned range [r0, r1), the columns [lo, hi) of
@@ -583,15 +599,9 @@ func (rc *rowCount) far(fi Homography, c Camera) validRow {
 // crossings per row; the crossing is the same expression on the same
 // values as in a plain per-row pass over all four edges.
 func quadSpans(hm Homography, q [4][2]float64, w, h int, spans []int32, xs []float64) (r0, r1 int, ok bool) {
-	var p [4][2]float64
-	ymin, ymax := math.Inf(1), math.Inf(-1)
-	for i, c := range q {
-		x, y, ok := hm.Apply(c[0], c[1])
-		if !ok || math.Abs(x) > 1e7 || math.Abs(y) > 1e7 {
-			return 0, 0, false
-		}
-		p[i] = [2]float64{x, y}
-		ymin, ymax = min(ymin, y), max(ymax, y)
+	p, ymin, ymax, ok := projectQuad(hm, q)
+	if !ok {
+		return 0, 0, false
 	}
 	r0 = int(max(0, math.Ceil(ymin)))
 	r1 = int(min(float64(h), math.Floor(ymax)+1))

@@ -94,15 +94,9 @@ func TestValidRowMatchesValidCount(t *testing.T) {
 // a corner maps to infinity or behind the camera (the image would not be a
 // bounded convex quadrilateral).
 func quadSpansPerRow(hm Homography, q [4][2]float64, w, h int, spans []int32) (r0, r1 int, ok bool) {
-	var p [4][2]float64
-	ymin, ymax := math.Inf(1), math.Inf(-1)
-	for i, c := range q {
-		x, y, ok := hm.Apply(c[0], c[1])
-		if !ok || math.Abs(x) > 1e7 || math.Abs(y) > 1e7 {
-			return 0, 0, false
-		}
-		p[i] = [2]float64{x, y}
-		ymin, ymax = min(ymin, y), max(ymax, y)
+	p, ymin, ymax, ok := projectQuad(hm, q)
+	if !ok {
+		return 0, 0, false
 	}
 	r0 = int(max(0, math.Ceil(ymin)))
 	r1 = int(min(float64(h), math.Floor(ymax)+1))
