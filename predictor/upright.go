@@ -668,13 +668,10 @@ func (e *UprightEstimator) refineStacked(cam Camera, seg UprightSegment, best, b
 	if !ok {
 		return cur
 	}
-	a := mul3v(transpose3(cam.RotationVehicleToCamera()), vec3{cur.Plane.Normal[0], cur.Plane.Normal[1], cur.Plane.Normal[2]})
-	a[2] = 0
-	n := math.Hypot(a[0], a[1])
-	if !(n > 0) {
+	a, ok := horizontalNormal(cam, cur)
+	if !ok {
 		return cur
 	}
-	a[0], a[1] = a[0]/n, a[1]/n
 	for _, phi := range [...]float64{-refineYawStep, refineYawStep} {
 		sn, cs := math.Sincos(phi)
 		r := vec3{cs*a[0] - sn*a[1], sn*a[0] + cs*a[1], 0}
@@ -1021,13 +1018,10 @@ func (e *UprightEstimator) refineFine(cam Camera, seg UprightSegment, hzRow floa
 	if !ok {
 		return seg
 	}
-	a := mul3v(transpose3(cam.RotationVehicleToCamera()), vec3{seg.Plane.Normal[0], seg.Plane.Normal[1], seg.Plane.Normal[2]})
-	a[2] = 0
-	n := math.Hypot(a[0], a[1])
-	if !(n > 0) {
+	a, ok := horizontalNormal(cam, seg)
+	if !ok {
 		return seg
 	}
-	a[0], a[1] = a[0]/n, a[1]/n
 	ctr := cam.CentreVehicle()
 	at := func(k float64) vec3 {
 		return vec3{ctr[0] + k*(foot[0]-ctr[0]), ctr[1] + k*(foot[1]-ctr[1]), 0}
@@ -1047,11 +1041,7 @@ func (e *UprightEstimator) refineFine(cam Camera, seg UprightSegment, hzRow floa
 	if f2, ok := e.footPoint(cam, cur); ok {
 		foot = f2
 	}
-	a = mul3v(transpose3(cam.RotationVehicleToCamera()), vec3{cur.Plane.Normal[0], cur.Plane.Normal[1], cur.Plane.Normal[2]})
-	a[2] = 0
-	if n := math.Hypot(a[0], a[1]); n > 0 {
-		a[0], a[1] = a[0]/n, a[1]/n
-	}
+	a, _ = horizontalNormal(cam, cur)
 	rot := func(phi float64) vec3 {
 		sn, cs := math.Sincos(phi)
 		return vec3{cs*a[0] - sn*a[1], sn*a[0] + cs*a[1], 0}
@@ -1110,6 +1100,20 @@ func parabolaVertex(x0, x1, x2, f0, f1, f2 float64) (float64, bool) {
 	}
 	x := x1 - 0.5*num/den
 	return x, x > math.Min(x0, x2) && x < math.Max(x0, x2)
+}
+
+// horizontalNormal returns seg's plane normal in vehicle coordinates with
+// its vertical part dropped, of unit length; ok is false (and the vector
+// not scaled) when nothing horizontal is left.
+func horizontalNormal(cam Camera, seg UprightSegment) (a vec3, ok bool) {
+	a = mul3v(transpose3(cam.RotationVehicleToCamera()), vec3{seg.Plane.Normal[0], seg.Plane.Normal[1], seg.Plane.Normal[2]})
+	a[2] = 0
+	n := math.Hypot(a[0], a[1])
+	if !(n > 0) {
+		return a, false
+	}
+	a[0], a[1] = a[0]/n, a[1]/n
+	return a, true
 }
 
 // footPoint returns where seg's base line meets the road at the band's
