@@ -257,3 +257,30 @@ func BenchmarkDeferredFlush720p(b *testing.B) {
 		op()
 	}
 }
+
+// TestDrainDoesNotAllocate: the display loop's drain, which runs before
+// every tick, allocates nothing once its buffer has grown (here with
+// telemetry queued, as it is between ticks now that samples do not wake
+// the loop).
+func TestDrainDoesNotAllocate(t *testing.T) {
+	clock := &fakeClock{}
+	r := testRelay(t, clock, "")
+	v := newFakeVehicle(t, clock, 1, nil)
+	p, err := newPipeline(r, v)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer p.close()
+	us := int64(1_000_000)
+	queue := func() {
+		for range 5 {
+			us += 20_000
+			p.tel <- telEvent{sample: filter.Sample{TimeUs: us, SpeedMps: 5}, arrivalUs: us + 30_000}
+		}
+		p.drain()
+	}
+	queue() // warm-up: the buffer grows
+	if n := testing.AllocsPerRun(10, queue); n != 0 {
+		t.Errorf("drain of five telemetry samples: %v allocations, want 0", n)
+	}
+}

@@ -1,12 +1,13 @@
 package relay
 
 import (
+	"cmp"
 	"context"
 	"errors"
 	"fmt"
 	"log/slog"
 	"math"
-	"sort"
+	"slices"
 	"sync"
 	"sync/atomic"
 	"time"
@@ -44,6 +45,8 @@ type pipeline struct {
 	// a gap needs them (see deferred).
 	def deferred
 	tel chan telEvent
+	// drained is drain's buffer (display loop only).
+	drained []drainItem
 
 	flt    *filter.Filter
 	filler *predictor.Filler
@@ -236,33 +239,40 @@ loop:
 }
 
 // drain processes every queued frame and telemetry event in time order.
+// It runs before every tick; p.drained is its reused buffer, so it does not
+// allocate once that has grown to the queues' depth.
 func (p *pipeline) drain() {
-	type item struct {
-		ts int64
-		f  *frameEvent
-		t  *telEvent
-	}
-	var items []item
+	items := p.drained[:0]
 	for {
 		select {
 		case ev := <-p.frames:
-			items = append(items, item{ts: ev.readyUs, f: &ev})
+			items = append(items, drainItem{ts: ev.readyUs, isFrame: true, f: ev})
 			continue
 		case te := <-p.tel:
-			items = append(items, item{ts: te.arrivalUs, t: &te})
+			items = append(items, drainItem{ts: te.arrivalUs, t: te})
 			continue
 		default:
 		}
 		break
 	}
-	sort.SliceStable(items, func(i, j int) bool { return items[i].ts < items[j].ts })
+	slices.SortStableFunc(items, func(a, b drainItem) int { return cmp.Compare(a.ts, b.ts) })
 	for _, it := range items {
-		if it.f != nil {
-			p.onFrame(*it.f)
+		if it.isFrame {
+			p.onFrame(it.f)
 		} else {
-			p.onTelemetry(*it.t)
+			p.onTelemetry(it.t)
 		}
 	}
+	clear(items) // drop the pictures' pointers
+	p.drained = items[:0]
+}
+
+// drainItem is a queued frame (isFrame) or telemetry sample, at its time.
+type drainItem struct {
+	ts      int64
+	isFrame bool
+	f       frameEvent
+	t       telEvent
 }
 
 // drainTelemetry hands every queued telemetry sample to the display clock,
