@@ -184,6 +184,15 @@ type UprightSegment struct {
 	DepthM float64
 }
 
+// clip returns row, or ClipRow if the segment is stacked and row lies below
+// it: the lowest row of the segment shown at or above row.
+func (s *UprightSegment) clip(row float64) float64 {
+	if s.ClipRow > 0 {
+		return min(row, s.ClipRow)
+	}
+	return row
+}
+
 // UprightModel is the upright structure of the held frame, column band by
 // band: a column model in the spirit of the stixel world (Badino, Franke
 // and Pfeiffer, "The Stixel World - A Compact Medium Level Representation of
@@ -707,10 +716,7 @@ func (e *UprightEstimator) columnTops(cam Camera, model *UprightModel) {
 	}
 	for _, seg := range model.Segments {
 		y0 := max(0, int(math.Floor((seg.TopRow+0.5)*e.fsy)))
-		bot := math.Min(seg.BaseRow0, seg.BaseRow1)
-		if seg.ClipRow > 0 {
-			bot = math.Min(bot, seg.ClipRow)
-		}
+		bot := seg.clip(math.Min(seg.BaseRow0, seg.BaseRow1))
 		yb := min(fh-1, int(math.Ceil((bot+0.5)*e.fsy)))
 		xf := -1
 		top := float32(seg.TopRow)

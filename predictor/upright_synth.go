@@ -1,6 +1,7 @@
 package predictor
 
 import (
+	"cmp"
 	"fmt"
 	"math"
 	"math/bits"
@@ -106,11 +107,7 @@ func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM f
 	for i := range n {
 		sc.byCol = append(sc.byCol, int32(i))
 	}
-	for i := 1; i < n; i++ { // stable insertion by Col0: a few dozen segments
-		for j := i; j > 0 && sc.order[sc.byCol[j-1]].Col0 > sc.order[sc.byCol[j]].Col0; j-- {
-			sc.byCol[j-1], sc.byCol[j] = sc.byCol[j], sc.byCol[j-1]
-		}
-	}
+	slices.SortStableFunc(sc.byCol, func(a, b int32) int { return cmp.Compare(sc.order[a].Col0, sc.order[b].Col0) })
 	if cap(sc.inv) < n {
 		sc.inv = make([]Homography, n)
 	}
@@ -137,16 +134,11 @@ func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM f
 		r0, _ := hz.RowAt(x0)
 		r1, _ := hz.RowAt(x1)
 		split := max(max(r0, r1)+1, seg.TopRow)
-		if fs := split; split > seg.TopRow {
-			if seg.ClipRow > 0 {
-				fs = min(fs, seg.ClipRow)
-			}
+		if split > seg.TopRow {
+			fs := seg.clip(split)
 			paint(f, [4][2]float64{{x0, seg.TopRow}, {x1, seg.TopRow}, {x1, fs}, {x0, fs}}, spanHidden)
 		}
-		b0, b1 := seg.BaseRow0, seg.BaseRow1
-		if seg.ClipRow > 0 {
-			b0, b1 = min(b0, seg.ClipRow), min(b1, seg.ClipRow)
-		}
+		b0, b1 := seg.clip(seg.BaseRow0), seg.clip(seg.BaseRow1)
 		if b0 > split || b1 > split {
 			paint(g, [4][2]float64{{x0, split}, {x1, split}, {x1, b1}, {x0, b0}}, spanHidden)
 		}
@@ -162,10 +154,7 @@ func (s *Synthesizer) SynthesizeScene(src gocv.Mat, m filter.Motion, farDepthM f
 		}
 		x0, x1 = max(float64(seg.Col0)-0.5, -e), min(float64(seg.Col1)-0.5, float64(w-1)+e)
 		top := max(seg.TopRow, -e)
-		b0, b1 = min(seg.BaseRow0, float64(h-1)+e), min(seg.BaseRow1, float64(h-1)+e)
-		if seg.ClipRow > 0 {
-			b0, b1 = min(b0, seg.ClipRow), min(b1, seg.ClipRow)
-		}
+		b0, b1 = seg.clip(min(seg.BaseRow0, float64(h-1)+e)), seg.clip(min(seg.BaseRow1, float64(h-1)+e))
 		paint(hf, [4][2]float64{{x0, top}, {x1, top}, {x1, b1}, {x0, b0}}, i)
 	}
 	// 3. Visible pieces per row (sweep over the span edges: of the spans
