@@ -1,10 +1,6 @@
 package timerslack
 
-import (
-	"log/slog"
-	"os"
-	"strconv"
-)
+import "strconv"
 
 // maxSlackNs is the largest value EnvVar may give (one second); the C
 // constructor refuses larger ones the same way.
@@ -22,15 +18,4 @@ func parseEnv(v string) (ns uint64, ok bool) {
 		return 0, false
 	}
 	return n, true
-}
-
-// init says once, on the default logger, when EnvVar holds a value the C
-// constructor ignored: the constructor runs before any logger exists.
-func init() {
-	if v, set := os.LookupEnv(EnvVar); set && v != "" {
-		if _, ok := parseEnv(v); !ok {
-			slog.Warn("timer slack setting ignored: want a whole number of nanoseconds from 0 to 1000000000; the default applies",
-				"env", EnvVar, "value", v, "default_ns", Default)
-		}
-	}
 }

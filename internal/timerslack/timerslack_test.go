@@ -65,12 +65,17 @@ func TestEveryThread(t *testing.T) {
 				env = append(env, EnvVar+"="+c.env)
 			}
 			if c.name == "zero keeps the inherited" {
-				// Make the inherited value known: the child's parent
-				// is this process, whose threads have Default or
-				// what EnvVar said; read this thread's.
+				// The child inherits the slack of the thread that
+				// starts it: give this one a value neither Default nor
+				// the kernel's, so that keeping it shows.
 				runtime.LockOSThread()
 				defer runtime.UnlockOSThread()
-				c.want = Current()
+				was := Current()
+				c.want = 123_000
+				if err := setCurrent(c.want); err != nil {
+					t.Fatal(err)
+				}
+				defer setCurrent(was)
 			}
 			cmd.Env = env
 			out, err := cmd.CombinedOutput()
