@@ -682,8 +682,7 @@ func (e *UprightEstimator) refineStacked(cam Camera, seg UprightSegment, best, b
 		return cur
 	}
 	for _, phi := range [...]float64{-refineYawStep, refineYawStep} {
-		sn, cs := math.Sincos(phi)
-		r := vec3{cs*a[0] - sn*a[1], sn*a[0] + cs*a[1], 0}
+		r := yawed(a, phi)
 		try(r, dot3(r, foot))
 	}
 	return cur
@@ -952,16 +951,12 @@ func (e *UprightEstimator) refine(cam Camera, best, b int, hzRow float64) Uprigh
 		foot = f2
 	}
 	// 3. The yaw about the vertical through the foot point.
-	rot := func(phi float64) vec3 {
-		sn, cs := math.Sincos(phi)
-		return vec3{cs*a[0] - sn*a[1], sn*a[0] + cs*a[1], 0}
-	}
 	var ys [5]float64
 	var yok [5]bool
 	ib := -1
 	for i := range ys {
 		phi := float64(i-2) * refineYawStep
-		r := rot(phi)
+		r := yawed(a, phi)
 		var sg UprightSegment
 		sg, ys[i], yok[i] = try(r, dot3(r, foot))
 		keep(sg, ys[i], yok[i])
@@ -971,7 +966,7 @@ func (e *UprightEstimator) refine(cam Camera, best, b int, hzRow float64) Uprigh
 	}
 	if ib > 0 && ib < 4 && yok[ib-1] && yok[ib+1] {
 		if x, ok := parabolaVertex(-1, 0, 1, ys[ib-1], ys[ib], ys[ib+1]); ok {
-			r := rot((float64(ib-2) + x) * refineYawStep)
+			r := yawed(a, (float64(ib-2)+x)*refineYawStep)
 			keep(try(r, dot3(r, foot)))
 		}
 	}
@@ -1048,21 +1043,17 @@ func (e *UprightEstimator) refineFine(cam Camera, seg UprightSegment, hzRow floa
 		foot = f2
 	}
 	a, _ = horizontalNormal(cam, cur)
-	rot := func(phi float64) vec3 {
-		sn, cs := math.Sincos(phi)
-		return vec3{cs*a[0] - sn*a[1], sn*a[0] + cs*a[1], 0}
-	}
 	var ys [3]float64
 	var yok [3]bool
 	for i := range ys {
-		r := rot(float64(i-1) * fineYawStep)
+		r := yawed(a, float64(i-1)*fineYawStep)
 		var sg UprightSegment
 		sg, ys[i], yok[i] = try(r, dot3(r, foot))
 		keep(sg, ys[i], yok[i])
 	}
 	if yok[0] && yok[1] && yok[2] {
 		if x, ok := parabolaVertex(-1, 0, 1, ys[0], ys[1], ys[2]); ok {
-			r := rot(x * fineYawStep)
+			r := yawed(a, x*fineYawStep)
 			keep(try(r, dot3(r, foot)))
 		}
 	}
@@ -1120,6 +1111,13 @@ func horizontalNormal(cam Camera, seg UprightSegment) (a vec3, ok bool) {
 	}
 	a[0], a[1] = a[0]/n, a[1]/n
 	return a, true
+}
+
+// yawed returns the horizontal direction a turned by phi about the
+// vertical.
+func yawed(a vec3, phi float64) vec3 {
+	sn, cs := math.Sincos(phi)
+	return vec3{cs*a[0] - sn*a[1], sn*a[0] + cs*a[1], 0}
 }
 
 // footPoint returns where seg's base line meets the road at the band's
