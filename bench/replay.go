@@ -1092,18 +1092,6 @@ func (r *replayer) holdNewest(frames frameGetter, beforeLast, last int, older []
 	if !ok {
 		return nil
 	}
-	// The frame the movers follow a region into (between the two they
-	// compare), if it is not the frame before last: handed over first,
-	// as HoldOlder drops kept frames older than the one it is given.
-	r.olderUs = append(r.olderUs, r.capture(beforeLast))
-	if t, ok := predictor.MoverTrackFrameWanted(r.capture(last), r.olderUs[k], r.olderUs); ok && t < len(older) {
-		if img, err = frames.Get(older[t]); err != nil {
-			return err
-		}
-		if err := r.filler.HoldOlder(img, r.capture(older[t])); err != nil {
-			return fmt.Errorf("frame %d before frame %d: %w", older[t], beforeLast, err)
-		}
-	}
 	if img, err = frames.Get(older[k]); err != nil {
 		return err
 	}

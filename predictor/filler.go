@@ -148,7 +148,6 @@ type Filler struct {
 	// moversFromUs is the capture time of the frame the movers of the
 	// held frame were detected against.
 	moversFromUs int64
-	trackUs      []int64 // scratch of trackFrame
 }
 
 // NewFiller validates cfg and allocates the buffers.
@@ -448,43 +447,6 @@ func (f *Filler) MoverFrameWanted(lastUs int64, us []int64) (i int, ok bool) {
 	return 0, false
 }
 
-// MoverTrackFrameWanted returns which of the capture times us (increasing,
-// the real frames before the held one, captured at lastUs, the frame
-// before last among them) the movers follow a region into (TrackFrame):
-// the one nearest the middle between the comparison frame (captured at
-// oldUs) and the held one, strictly between them; ok is false when none
-// is.
-func MoverTrackFrameWanted(lastUs, oldUs int64, us []int64) (i int, ok bool) {
-	best := int64(math.MaxInt64)
-	for k, u := range us {
-		if u <= oldUs || u >= lastUs {
-			continue
-		}
-		if d := abs64(2*u - oldUs - lastUs); d < best {
-			i, ok, best = k, true, d
-		}
-	}
-	return i, ok
-}
-
-func abs64(v int64) int64 {
-	if v < 0 {
-		return -v
-	}
-	return v
-}
-
-// trackFrame returns which kept frame the movers follow a region into:
-// an index into older, or olderN for the frame before last.
-func (f *Filler) trackFrame(oldUs int64) (int, bool) {
-	us := append(f.trackUs[:0], f.olderUs[:f.olderN]...)
-	if f.havePrev {
-		us = append(us, f.prevUs)
-	}
-	f.trackUs = us
-	return MoverTrackFrameWanted(f.lastUs, oldUs, us)
-}
-
 // Missing fills a tick with no real frame using MethodGround. See MissingWith.
 func (f *Filler) Missing(targetUs int64, dst *gocv.Mat) (Tick, error) {
 	return f.MissingWith(MethodGround, targetUs, dst)
@@ -691,17 +653,7 @@ func (f *Filler) moverModel(farDepthM float64, up *UprightModel) *MoverModel {
 				f.moverUp.Segments = append(f.moverUp.Segments[:0], f.uprightEst.coarse...)
 				up = &f.moverUp
 			}
-			var tf TrackFrame
-			if k, ok := f.trackFrame(oldUs); ok {
-				fr, us := f.prev, f.prevUs
-				if k < f.olderN {
-					fr, us = f.older[k], f.olderUs[k]
-				}
-				if mm, err := f.cfg.Motion.Relative(us, f.lastUs); err == nil {
-					tf = TrackFrame{Frame: fr, Motion: mm}
-				}
-			}
-			if err := f.moverDet.DetectTracked(old, f.last, tf, f.cfg.Camera, m, farDepthM, up, static, &f.movers); err != nil {
+			if err := f.moverDet.Detect(old, f.last, f.cfg.Camera, m, farDepthM, up, static, &f.movers); err != nil {
 				f.movers.Movers = f.movers.Movers[:0]
 			}
 		}

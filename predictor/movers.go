@@ -282,8 +282,6 @@ type MoverModel struct {
 type MoverDetector struct {
 	opts                         MoverOptions
 	a, b, tmp, comp, w, diff, hm gocv.Mat
-	mid, lab, raw                gocv.Mat // the track's frame, the held frame in Lab, the changed pixels
-	grow                         growScratch
 	labels, stats, cents, kern   gocv.Mat
 	close                        gocv.Mat // closing element joining a thing's edges
 	allocated                    bool
@@ -298,7 +296,7 @@ func NewMoverDetector(opts MoverOptions) (*MoverDetector, error) {
 }
 
 func (d *MoverDetector) scratch() []*gocv.Mat {
-	return []*gocv.Mat{&d.a, &d.b, &d.tmp, &d.comp, &d.w, &d.diff, &d.hm, &d.labels, &d.stats, &d.cents, &d.kern, &d.close, &d.mid, &d.lab, &d.raw}
+	return []*gocv.Mat{&d.a, &d.b, &d.tmp, &d.comp, &d.w, &d.diff, &d.hm, &d.labels, &d.stats, &d.cents, &d.kern, &d.close}
 }
 
 // Close frees the scratch images. Safe to call more than once.
@@ -322,23 +320,6 @@ func (d *MoverDetector) Close() error {
 // parallax of posts and other structure the model does not keep is not
 // motion).
 func (d *MoverDetector) Detect(prev, last gocv.Mat, cam Camera, m filter.Motion, farDepthM float64, up *UprightModel, static *UprightEstimator, model *MoverModel) error {
-	return d.DetectTracked(prev, last, TrackFrame{}, cam, m, farDepthM, up, static, model)
-}
-
-// TrackFrame is a real frame between the two a MoverDetector compares
-// (Frame, captured at Motion.T0Us; Motion its vehicle motion to the newer
-// frame). The zero value is none.
-type TrackFrame struct {
-	Frame  gocv.Mat
-	Motion filter.Motion
-}
-
-// DetectTracked is Detect with a real frame between the two compared
-// (mid; none if its Frame is nil): the last known place of a region whose
-// shift puts it at least moverTrackMinPx from a static upright in mid is
-// tightened to the thing's body, grown by colour from its pixels seen
-// moving in both comparisons (see growScratch.extent).
-func (d *MoverDetector) DetectTracked(prev, last gocv.Mat, mid TrackFrame, cam Camera, m filter.Motion, farDepthM float64, up *UprightModel, static *UprightEstimator, model *MoverModel) error {
 	model.Movers = model.Movers[:0]
 	if err := CheckMotion(m); err != nil {
 		return err
@@ -370,20 +351,6 @@ func (d *MoverDetector) DetectTracked(prev, last gocv.Mat, mid TrackFrame, cam C
 	gocv.CvtColor(d.tmp, &d.a, gocv.ColorBGRToGray)
 	gocv.Resize(last, &d.tmp, size, 0, 0, gocv.InterpolationArea)
 	gocv.CvtColor(d.tmp, &d.b, gocv.ColorBGRToGray)
-	haveMid := false
-	var midUa uprightAt
-	var midFrac float64
-	if mid.Frame.Ptr() != nil && !mid.Frame.Empty() && m.T1Us > m.T0Us && mid.Motion.T0Us > m.T0Us && mid.Motion.T0Us < m.T1Us {
-		if err := CheckMotion(mid.Motion); err == nil && checkFrame("track frame", &mid.Frame, cam.Width, cam.Height) == nil {
-			gocv.Resize(mid.Frame, &d.mid, size, 0, 0, gocv.InterpolationArea)
-			gocv.CvtColor(d.mid, &d.mid, gocv.ColorBGRToGray)
-			mx, my, myaw := invertPlanar(mid.Motion.DxM, mid.Motion.DyM, mid.Motion.DyawRad)
-			midUa = uprightAt{back: GroundHomographyPlanar(cam, mx, my, myaw), s: 0, sy: 0, hz: cam.Horizon()}
-			midFrac = float64(m.T1Us-mid.Motion.T0Us) / float64(m.T1Us-m.T0Us)
-			haveMid = true
-			gocv.CvtColor(d.tmp, &d.lab, gocv.ColorBGRToLab) // d.tmp is last, downscaled
-		}
-	}
 
 	// Compensated older frame in the newer one's geometry (inverse maps
 	// newer -> older, as UprightEstimator).
@@ -459,9 +426,6 @@ func (d *MoverDetector) DetectTracked(prev, last gocv.Mat, mid TrackFrame, cam C
 	gocv.AbsDiff(d.comp, d.b, &d.diff)
 	thr := cmp0(o.Threshold, DefaultMoverThreshold)
 	gocv.Threshold(d.diff, &d.diff, float32(thr), 255, gocv.ThresholdBinary)
-	if haveMid {
-		d.diff.CopyTo(&d.raw)
-	}
 	gocv.MorphologyEx(d.diff, &d.diff, gocv.MorphOpen, d.kern)
 	gocv.Dilate(d.diff, &d.diff, d.kern)
 	gocv.Dilate(d.diff, &d.diff, d.kern)
@@ -476,19 +440,6 @@ func (d *MoverDetector) DetectTracked(prev, last gocv.Mat, mid TrackFrame, cam C
 	}
 	back := GroundHomographyPlanar(cam, dx, dy, dyaw) // newer -> older, full resolution
 	ua := uprightAt{back: back, s: s, sy: sy, hz: hz}
-	midUa.s, midUa.sy = s, sy
-	var midp, labp, rawp []byte
-	if haveMid {
-		if midp, err = d.mid.DataPtrUint8(); err != nil {
-			return fmt.Errorf("mover scratch: %w", err)
-		}
-		if labp, err = d.lab.DataPtrUint8(); err != nil {
-			return fmt.Errorf("mover scratch: %w", err)
-		}
-		if rawp, err = d.raw.DataPtrUint8(); err != nil {
-			return fmt.Errorf("mover scratch: %w", err)
-		}
-	}
 	bp, err := d.b.DataPtrUint8()
 	if err != nil {
 		return fmt.Errorf("mover scratch: %w", err)
@@ -556,22 +507,6 @@ func (d *MoverDetector) DetectTracked(prev, last gocv.Mat, mid TrackFrame, cam C
 			ly1 -= sy0
 		} else if sy0 < 0 && -sy0 < bh/2 {
 			ly0 -= sy0
-		}
-		if haveMid && onBase {
-			px, py := int(math.Round(float64(sx)*midFrac)), int(math.Round(float64(sy0)*midFrac))
-			if afm, ok := midUa.at(rbox.Min.X, rbox.Max.X, rbox.Max.Y); ok && max(abs(px), abs(py)) >= moverTrackMinPx {
-				moving := movingTwice(midp, bp, w, h, afm, px, py, thr)
-				if ex, ok := d.grow.extent(labp, rawp, src, bp, cp, lab, int32(i), w, h, rbox, af, sx, sy0, thr, moving); ok {
-					// Tighter sides and top; the foot stays (the body
-					// rarely reaches the wheels and the shadow, and the
-					// mark is placed by its foot).
-					cur := image.Rect(lx0, ly0, lx1, ly1)
-					ex.Max.Y = cur.Max.Y
-					if in := ex.Intersect(cur); !in.Empty() {
-						lx0, ly0, lx1, ly1 = in.Min.X, in.Min.Y, in.Max.X, in.Max.Y
-					}
-				}
-			}
 		}
 		var vx, vy float64
 		if dt > 0 {

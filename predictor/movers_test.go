@@ -74,13 +74,7 @@ func TestMoversOnVtest(t *testing.T) {
 	var model MoverModel
 	movers := 0
 	for i := 4; i+maxK < len(frames); i += 6 {
-		// The frame between them, as the Filler follows a region into it
-		// (MoverTrackFrameWanted), when the baseline spans one.
-		var mid TrackFrame
-		if base >= 2 {
-			mid = TrackFrame{Frame: frames[i-base/2], Motion: filter.Motion{T0Us: int64(base-base/2) * dtUs, T1Us: int64(base) * dtUs}}
-		}
-		if err := det.DetectTracked(frames[i-base], frames[i], mid, cam, filter.Motion{T1Us: int64(base) * dtUs}, math.Inf(1), nil, nil, &model); err != nil {
+		if err := det.Detect(frames[i-base], frames[i], cam, filter.Motion{T1Us: int64(base) * dtUs}, math.Inf(1), nil, nil, &model); err != nil {
 			t.Fatal(err)
 		}
 		movers += len(model.Movers)
