@@ -113,3 +113,34 @@ type RepairStats struct {
 	RTT        time.Duration
 	RTTSamples uint64
 }
+
+// Arrival is one RTP packet an ingest queued for its consumer, with its receiver-clock arrival time.
+type Arrival struct {
+	Packet *rtp.Packet
+	At     time.Time
+}
+
+// ReadQueued is Session.ReadRTP over an ingest's packet queue q: it returns the next queued packet,
+// blocking until one is queued, ctx ends (ctx.Err()), or done is closed; packets still queued then are
+// returned first, after which it returns closed (the ingest's own error wrapping ErrSessionClosed).
+// A packet queued before done closed is never lost to the race between the two.
+func ReadQueued(ctx context.Context, q <-chan Arrival, done <-chan struct{}, closed error) (*rtp.Packet, time.Time, error) {
+	select {
+	case a := <-q:
+		return a.Packet, a.At, nil
+	default:
+	}
+	select {
+	case a := <-q:
+		return a.Packet, a.At, nil
+	case <-ctx.Done():
+		return nil, time.Time{}, ctx.Err()
+	case <-done:
+		select {
+		case a := <-q:
+			return a.Packet, a.At, nil
+		default:
+			return nil, time.Time{}, closed
+		}
+	}
+}

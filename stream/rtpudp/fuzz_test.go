@@ -46,7 +46,7 @@ func FuzzDatagram(f *testing.F) {
 		s.mu.Unlock()
 		for range len(s.rtpq) {
 			a := <-s.rtpq
-			if _, err := a.pkt.Marshal(); err != nil {
+			if _, err := a.Packet.Marshal(); err != nil {
 				t.Fatalf("a queued packet does not marshal again: %v", err)
 			}
 		}

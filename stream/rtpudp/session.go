@@ -80,12 +80,6 @@ type Counts struct {
 	TelemetryForwarded, TelemetryQueueFull, TelemetryOversize uint64
 }
 
-// arrival is one queued RTP packet.
-type arrival struct {
-	pkt *rtp.Packet
-	at  time.Time
-}
-
 // The relay reads every ingest through one interface.
 var _ ingest.Session = (*Session)(nil)
 
@@ -100,7 +94,7 @@ type Session struct {
 
 	rtpConn, telConn *net.UDPConn
 
-	rtpq    chan arrival
+	rtpq    chan ingest.Arrival
 	telq    chan ingest.TelemetryBytes
 	done    chan struct{}
 	started chan struct{}
@@ -180,7 +174,7 @@ func newSession(cfg Config) (*Session, error) {
 		cfg: cfg, allow: srcs, log: cfg.Logger,
 		id:      hex.EncodeToString(rb[:8]),
 		ownSSRC: binary.BigEndian.Uint32(rb[8:]),
-		rtpq:    make(chan arrival, cfg.RTPQueue),
+		rtpq:    make(chan ingest.Arrival, cfg.RTPQueue),
 		telq:    make(chan ingest.TelemetryBytes, cfg.TelemetryQueue),
 		done:    make(chan struct{}),
 		started: make(chan struct{}),
@@ -263,24 +257,7 @@ func (s *Session) end(r EndReason) {
 // packet and its payload belong to the caller. Packets come in arrival
 // order; reordering, gaps and duplicates are left to the depacketiser.
 func (s *Session) ReadRTP(ctx context.Context) (*rtp.Packet, time.Time, error) {
-	select {
-	case a := <-s.rtpq:
-		return a.pkt, a.at, nil
-	default:
-	}
-	select {
-	case a := <-s.rtpq:
-		return a.pkt, a.at, nil
-	case <-ctx.Done():
-		return nil, time.Time{}, ctx.Err()
-	case <-s.done:
-		select {
-		case a := <-s.rtpq:
-			return a.pkt, a.at, nil
-		default:
-			return nil, time.Time{}, ErrSessionClosed
-		}
-	}
+	return ingest.ReadQueued(ctx, s.rtpq, s.done, ErrSessionClosed)
 }
 
 // Telemetry returns the channel of raw telemetry datagrams with their
@@ -469,7 +446,7 @@ func (s *Session) handleRTP(b []byte, from netip.AddrPort, now time.Time) {
 	s.peer, s.havePeer = from, true
 	s.lastActivity = now
 	select {
-	case s.rtpq <- arrival{pkt: pkt, at: now}:
+	case s.rtpq <- ingest.Arrival{Packet: pkt, At: now}:
 		s.cnt.RTPPackets++
 	default:
 		s.cnt.RTPQueueFull++

@@ -401,7 +401,7 @@ func (s *Server) reserve(remote, host string) (*Session, error) {
 		log:     s.cfg.Logger.With("session", id[:8]),
 		counter: &rtcpCounter{},
 		repair:  newRepairer(&s.cfg),
-		rtpq:    make(chan rtpArrival, s.cfg.RTPQueue),
+		rtpq:    make(chan ingest.Arrival, s.cfg.RTPQueue),
 		telq:    make(chan ingest.TelemetryBytes, s.cfg.TelemetryQueue),
 		done:    make(chan struct{}),
 	}

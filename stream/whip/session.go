@@ -18,12 +18,6 @@ import (
 	"stopgap/stream/rtpstats"
 )
 
-// rtpArrival is one queued packet.
-type rtpArrival struct {
-	pkt     *rtp.Packet
-	arrival time.Time
-}
-
 // The relay reads every ingest through one interface.
 var _ ingest.Session = (*Session)(nil)
 
@@ -41,7 +35,7 @@ type Session struct {
 	log     *slog.Logger
 	cfg     *Config
 
-	rtpq chan rtpArrival
+	rtpq chan ingest.Arrival
 	telq chan ingest.TelemetryBytes
 	done chan struct{}
 
@@ -93,24 +87,7 @@ func (s *Session) EndReason() EndReason {
 // queued packets are never evicted. Order is arrival order: late retransmissions and reordered packets
 // come out as they arrived, so the consumer must reorder by sequence number (with wrap) itself.
 func (s *Session) ReadRTP(ctx context.Context) (*rtp.Packet, time.Time, error) {
-	select {
-	case a := <-s.rtpq:
-		return a.pkt, a.arrival, nil
-	default:
-	}
-	select {
-	case a := <-s.rtpq:
-		return a.pkt, a.arrival, nil
-	case <-ctx.Done():
-		return nil, time.Time{}, ctx.Err()
-	case <-s.done:
-		select {
-		case a := <-s.rtpq:
-			return a.pkt, a.arrival, nil
-		default:
-			return nil, time.Time{}, ErrSessionClosed
-		}
-	}
+	return ingest.ReadQueued(ctx, s.rtpq, s.done, ErrSessionClosed)
 }
 
 // Telemetry returns the channel of telemetry messages from the data channel labelled TelemetryLabel. It is
@@ -315,7 +292,7 @@ func (s *Session) readRTP(track *webrtc.TrackRemote) {
 		s.rx.Add(pkt.SequenceNumber, pkt.Timestamp, len(pkt.Payload), now)
 		s.mu.Unlock()
 		select {
-		case s.rtpq <- rtpArrival{pkt: pkt, arrival: now}:
+		case s.rtpq <- ingest.Arrival{Packet: pkt, At: now}:
 		default:
 			s.rtpDropped.Add(1)
 		}
