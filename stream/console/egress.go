@@ -52,12 +52,9 @@ type videoItem struct {
 	durNs   int64
 }
 
-// viewerSink is what a viewer sends to. sendVideo is called from the
-// viewer's video goroutine, sendMeta from its meta goroutine or directly by
-// the writer of the message (egress.writeMeta); neither is called
-// concurrently with itself. The frame and the byte slices are only valid
-// during the call. sendMeta must not block: it hands the message to the
-// data channel's own queue.
+// viewerSink is what a viewer sends to. sendVideo and sendMeta are called
+// from the viewer's own goroutines, never concurrently with themselves; the
+// frame and the byte slices are only valid during the call.
 type viewerSink interface {
 	sendVideo(frame *sharedBuf, startNs, durNs int64) error
 	sendMeta(msg []byte) error
@@ -75,13 +72,6 @@ type viewer struct {
 	waitKey    bool             // drop delta frames until the next keyframe
 	lastKeyReq time.Time        // last keyframe request made for this viewer
 	last       vp8splice.Source // source of the last frame queued
-
-	// metaMu serialises sendMeta between the meta goroutine and a
-	// direct send by writeMeta; metaPending counts the messages queued in
-	// metaQ or being sent, so a direct send happens only when nothing is
-	// ahead of it.
-	metaMu      sync.Mutex
-	metaPending atomic.Int32
 
 	sent, dropped, skipped, metaSent, metaDropped, sendErrors atomic.Uint64
 }
@@ -107,29 +97,14 @@ func (v *viewer) start() {
 	go func() {
 		defer v.wg.Done()
 		for b := range v.metaQ {
-			v.metaMu.Lock()
-			v.sendMetaLocked(b.data)
-			v.metaMu.Unlock()
+			if err := v.sink.sendMeta(b.data); err != nil {
+				v.metaDropped.Add(1)
+			} else {
+				v.metaSent.Add(1)
+			}
 			b.release()
 		}
 	}()
-}
-
-// sendMetaLocked sends one meta message and counts it; v.metaMu is held.
-// The message is no longer pending once it returns.
-func (v *viewer) sendMetaLocked(msg []byte) {
-	if err := v.sink.sendMeta(msg); err != nil {
-		v.metaDropped.Add(1)
-	} else {
-		v.metaSent.Add(1)
-	}
-	v.metaPending.Add(-1)
-}
-
-// waitMeta returns when no direct meta send to v is in progress.
-func (v *viewer) waitMeta() {
-	v.metaMu.Lock()
-	defer v.metaMu.Unlock()
 }
 
 // Stats are cumulative egress counters.
@@ -232,8 +207,6 @@ func (e *egress) remove(v *viewer) {
 		return
 	}
 	v.wg.Wait()
-	// A direct meta send that started before the removal is counted too.
-	v.waitMeta()
 	e.mu.Lock()
 	e.gone.FramesSent += v.sent.Load()
 	e.gone.FramesDropped += v.dropped.Load()
@@ -358,61 +331,31 @@ func (e *egress) queue(key bool, dur time.Duration, fill func(*sharedBuf)) error
 	return nil
 }
 
-// maxDirectMeta is how many viewers writeMeta sends a message to itself,
-// at most; the others get it through their meta goroutines. It bounds the
-// caller's work per message.
-const maxDirectMeta = 4
-
-// writeMeta encodes m once and sends it to every viewer. A viewer with
-// nothing queued or being sent gets it directly, on the caller's goroutine
-// after the egress lock is released: sendMeta only hands the message to
-// the data channel's queue (SCTP sends it from its own goroutine), and
-// this saves waking the viewer's meta goroutine for every message. Others
-// get it queued behind what they have, in order; a full queue drops it.
+// writeMeta encodes m once and queues it for every viewer.
 func (e *egress) writeMeta(m *Meta) error {
 	e.mu.Lock()
+	defer e.mu.Unlock()
 	if e.closed {
-		e.mu.Unlock()
 		return ErrClosed
 	}
 	out, err := m.AppendJSON(e.lastMeta[:0])
 	if err != nil {
-		e.mu.Unlock()
 		return err
 	}
 	e.lastMeta = out
 	e.metaIn.Add(1)
 	if len(e.viewers) == 0 {
-		e.mu.Unlock()
 		return nil
 	}
 	buf := e.getBuf(out)
-	var direct [maxDirectMeta]*viewer
-	n := 0
 	for _, v := range e.viewers {
-		if n < len(direct) && v.metaPending.Load() == 0 {
-			// Nothing ahead of this message: the meta goroutine holds
-			// metaMu at most until it has counted its last message.
-			v.metaPending.Add(1)
-			v.metaMu.Lock()
-			direct[n] = v
-			n++
-			continue
-		}
 		buf.refs.Add(1)
-		v.metaPending.Add(1)
 		select {
 		case v.metaQ <- buf:
 		default:
-			v.metaPending.Add(-1)
 			buf.refs.Add(-1)
 			v.metaDropped.Add(1)
 		}
-	}
-	e.mu.Unlock()
-	for _, v := range direct[:n] {
-		v.sendMetaLocked(buf.data)
-		v.metaMu.Unlock()
 	}
 	buf.release()
 	return nil

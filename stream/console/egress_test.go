@@ -3,7 +3,6 @@ package console
 import (
 	"bytes"
 	"errors"
-	"slices"
 	"sync"
 	"testing"
 	"time"
@@ -55,10 +54,6 @@ type fakeSink struct {
 	block   chan struct{} // if set, sendVideo waits for it to close
 	entered chan struct{} // if set, signalled when sendVideo starts
 	got     chan struct{}
-	// metaBlock, if set, makes the first sendMeta signal metaEntered
-	// and wait for metaBlock to close.
-	metaBlock, metaEntered chan struct{}
-	metaCalls              int
 }
 
 func newFakeSink() *fakeSink { return &fakeSink{got: make(chan struct{}, 1000)} }
@@ -80,14 +75,6 @@ func (s *fakeSink) sendVideo(b *sharedBuf, startNs, durNs int64) error {
 }
 
 func (s *fakeSink) sendMeta(msg []byte) error {
-	s.mu.Lock()
-	s.metaCalls++
-	first := s.metaCalls == 1
-	s.mu.Unlock()
-	if first && s.metaBlock != nil {
-		s.metaEntered <- struct{}{}
-		<-s.metaBlock
-	}
 	s.mu.Lock()
 	s.metas = append(s.metas, string(msg))
 	s.mu.Unlock()
@@ -237,75 +224,6 @@ func TestEgressMetaFanOut(t *testing.T) {
 	}
 	if last, ok := e.appendLastMeta(nil); !ok || string(last) != string(want) {
 		t.Errorf("last meta = %s", last)
-	}
-}
-
-// TestEgressMetaSentDirectly: a viewer with nothing queued gets a meta
-// message on the writer's goroutine, before writeMeta returns (no hand-off
-// to its meta goroutine).
-func TestEgressMetaSentDirectly(t *testing.T) {
-	e := newEgress(time.Now, time.Second, nil)
-	sink := newFakeSink()
-	v := newViewer(1, sink, 8, 8)
-	e.add(v)
-	defer e.remove(v)
-	m := sampleMeta()
-	for i := range 3 {
-		m.Seq = uint64(i)
-		if err := e.writeMeta(&m); err != nil {
-			t.Fatal(err)
-		}
-		sink.mu.Lock()
-		n := len(sink.metas)
-		sink.mu.Unlock()
-		if n != i+1 {
-			t.Fatalf("after writeMeta %d the viewer has %d messages, want %d", i, n, i+1)
-		}
-	}
-}
-
-// TestEgressMetaOrderBehindDirectSend: while a direct send is in progress
-// (here stuck in the sink), later messages queue behind it and reach the
-// viewer in order, none lost; a viewer removed meanwhile counts them all.
-func TestEgressMetaOrderBehindDirectSend(t *testing.T) {
-	e := newEgress(time.Now, time.Second, nil)
-	sink := newFakeSink()
-	sink.metaBlock, sink.metaEntered = make(chan struct{}), make(chan struct{}, 1)
-	v := newViewer(1, sink, 8, 8)
-	e.add(v)
-	m := sampleMeta()
-	done := make(chan error, 1)
-	go func() {
-		m1 := m
-		m1.Seq = 1
-		done <- e.writeMeta(&m1) // sent directly, stuck in the sink
-	}()
-	<-sink.metaEntered
-	for seq := uint64(2); seq <= 4; seq++ {
-		m.Seq = seq
-		if err := e.writeMeta(&m); err != nil { // queued behind message 1
-			t.Fatal(err)
-		}
-	}
-	time.Sleep(20 * time.Millisecond) // the meta goroutine would send now if nothing held it
-	close(sink.metaBlock)
-	if err := <-done; err != nil {
-		t.Fatal(err)
-	}
-	e.remove(v)
-	var seqs []uint64
-	for _, msg := range sink.metas {
-		got, err := ParseMeta([]byte(msg))
-		if err != nil {
-			t.Fatal(err)
-		}
-		seqs = append(seqs, got.Seq)
-	}
-	if want := []uint64{1, 2, 3, 4}; !slices.Equal(seqs, want) {
-		t.Errorf("viewer got messages %v, want %v", seqs, want)
-	}
-	if st := e.stats(); st.MetaSent != 4 || st.MetaDropped != 0 {
-		t.Errorf("stats: sent %d dropped %d, want 4 and 0", st.MetaSent, st.MetaDropped)
 	}
 }
 
