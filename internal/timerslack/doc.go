@@ -19,23 +19,17 @@
 // a relay, the monitor thread took about a fifth of the process's CPU, most
 // of it in the kernel switching to and from its sleeps.
 //
-// With a slack of Default each of those sleeps lasts about a millisecond
-// instead of about 70 us, so the monitor checks some fourteen times less
-// often while the process is busy. What the checks are for stays: a
-// processor held by a goroutine in a long system call or cgo call is
-// handed to other goroutines (now within about a millisecond instead of
-// about 70 us, which matters only when every processor is taken), a
+// With a slack of Default each of those sleeps lasts about half a
+// millisecond instead of about 70 us, so the monitor checks some seven
+// times less often while the process is busy. What the checks are for stays:
+// a processor held by a goroutine in a long system call or cgo call is
+// handed to other goroutines (now within about half a millisecond instead
+// of about 70 us, which matters only when every processor is taken), a
 // goroutine running for 10 ms is preempted, and the network is polled if
 // nobody did for 10 ms. Every other timed sleep of the process may end up
 // to Default later too: the Go runtime waits for its timers in epoll with a
-// millisecond timeout already, so a display tick can come up to about a
-// millisecond later (3 % of a period at 30 fps); and an idle thread that
-// would take a goroutine just made runnable on a busy processor sleeps
-// 3 us first (runqgrab in the runtime), which becomes up to Default: the
-// goroutine then waits until its processor is free or that sleep ends.
-// Nothing waits on a timer on the path of a frame that passes through.
-// DEVELOPERS.md (Capacity and faults) has the measurements, and why 1 ms
-// rather than the 0.5 ms of earlier versions.
+// millisecond timeout already, so a display tick can come that much later;
+// nothing waits on a timer on the path of a frame that passes through.
 //
 // # Setting it
 //
@@ -49,9 +43,9 @@
 // calling thread has. On other systems the package does nothing.
 package timerslack
 
-// Default is the timer slack the package sets, in nanoseconds: one
+// Default is the timer slack the package sets, in nanoseconds: half a
 // millisecond (see the package documentation for why and what it delays).
-const Default = 1_000_000
+const Default = 500_000
 
 // EnvVar names the environment variable that replaces Default: a whole
 // number of nanoseconds, 0 to leave the inherited slack.

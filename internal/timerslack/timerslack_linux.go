@@ -8,7 +8,7 @@ package timerslack
 #include <sys/prctl.h>
 
 // Keep in step with Default and EnvVar in doc.go (TestDefaultMatchesC).
-#define SG_TIMERSLACK_DEFAULT_NS 1000000UL
+#define SG_TIMERSLACK_DEFAULT_NS 500000UL
 #define SG_TIMERSLACK_ENV "STOPGAP_TIMER_SLACK_NS"
 
 static unsigned long sg_timerslack_default(void) { return SG_TIMERSLACK_DEFAULT_NS; }

@@ -15,8 +15,8 @@ import (
 
 	"stopgap/filter"
 	"stopgap/internal/display"
-	// The relay process's threads sleep with a timer slack of a millisecond
-	// (timerslack.Default): the Go runtime's monitor thread otherwise wakes every
+	// The relay process's threads sleep with a timer slack of half a
+	// millisecond: the Go runtime's monitor thread otherwise wakes every
 	// 70 us around each frame's decode (see the package's documentation).
 	_ "stopgap/internal/timerslack"
 	"stopgap/predictor"
