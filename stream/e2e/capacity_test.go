@@ -261,7 +261,12 @@ func relayWork(m0, m1 map[string]float64) string {
 //     the viewer receiving that tick's meta message: loopback both ways,
 //     RTP assembly, the pass-through or decode-encode path, the display
 //     schedule, SRTP and SCTP;
-//   - relay-rss-mb: mean resident memory of one relay process.
+//   - relay-rss-mb: mean resident memory of one relay process;
+//   - relay-switches-per-frame: the relays' thread switches (voluntary and
+//     not, every thread, /proc/PID/task/TID/status) over the window per
+//     frame the vehicles sent: the Go runtime's hand-offs between
+//     goroutines and threads, which cost CPU in the kernel and the
+//     scheduler and count less on the machine's load than CPU time does.
 //
 // The egress mode is STOPGAP_E2E_EGRESS (egress_test.go). The load average
 // at the start and end of the window is logged. With STOPGAP_E2E_PROFILE_DIR
@@ -345,8 +350,9 @@ func loadAvg() float64 {
 
 // capacityResult is what one runCapacity measured.
 type capacityResult struct {
-	kept       int     // streams that kept up
-	relayCores float64 // CPU of all relay processes / wall time
+	kept             int     // streams that kept up
+	relayCores       float64 // CPU of all relay processes / wall time
+	switchesPerFrame float64 // the relays' thread switches per frame the vehicles sent
 }
 
 // runCapacity runs n streams whose relay children use egress mode (see
@@ -424,6 +430,17 @@ func runCapacity(b *testing.B, rec *recording.Recording, drive string, n int, mo
 		}
 		return sum
 	}
+	relaySwitches := func() int64 {
+		var sum int64
+		for _, s := range streams {
+			c, err := procSwitches(s.relay.pid())
+			if err != nil {
+				b.Fatal(err)
+			}
+			sum += c
+		}
+		return sum
+	}
 	snap := func() []mark {
 		ms := make([]mark, n)
 		for i, s := range streams {
@@ -452,9 +469,9 @@ func runCapacity(b *testing.B, rec *recording.Recording, drive string, n int, mo
 		name = fmt.Sprintf("capacity-%s-N%d", mode, n)
 	}
 	profiled := profileRelays(b, name, bases, window)
-	rc0, self0, wall0 := relayCPU(), cpuTime(b), time.Now()
+	sw0, rc0, self0, wall0 := relaySwitches(), relayCPU(), cpuTime(b), time.Now()
 	time.Sleep(window)
-	rc1, self1, wall1 := relayCPU(), cpuTime(b), time.Now()
+	rc1, self1, wall1, sw1 := relayCPU(), cpuTime(b), time.Now(), relaySwitches()
 	profiled()
 	wall := wall1.Sub(wall0)
 	ends := snap()
@@ -467,10 +484,12 @@ func runCapacity(b *testing.B, rec *recording.Recording, drive string, n int, mo
 	var drops uint64
 	var rss float64
 	var decodeCPU time.Duration
+	var framesSent float64
 	for i, s := range streams {
 		metas, _ := s.view.snapshot()
 		m0, m1 := marks[i], ends[i]
 		sent := float64(m1.veh.FramesEncoded - m0.veh.FramesEncoded)
+		framesSent += sent
 		late := float64(m1.veh.FramesLate-m0.veh.FramesLate) / max(sent, 1)
 		got := m1.recv.frames - m0.recv.frames
 		losses, decErrs := m1.recv.losses-m0.recv.losses, m1.recv.decodeErrs-m0.recv.decodeErrs
@@ -539,6 +558,7 @@ func runCapacity(b *testing.B, rec *recording.Recording, drive string, n int, mo
 	b.ReportMetric(float64(drops), "relay-drops")
 	b.ReportMetric(relayCores, "relay-cores")
 	b.ReportMetric(relayCores/float64(n), "relay-cores-per-stream")
+	b.ReportMetric(float64(sw1-sw0)/max(framesSent, 1), "relay-switches-per-frame")
 	b.ReportMetric(float64(self1-self0)/float64(wall), "veh-viewer-cores")
 	b.ReportMetric(float64(decodeCPU)/float64(wall), "viewer-decode-cores")
 	b.ReportMetric(quantile(lat, 0.5), "live-added-p50-ms")
@@ -546,8 +566,12 @@ func runCapacity(b *testing.B, rec *recording.Recording, drive string, n int, mo
 	b.ReportMetric(rss/(1<<20), "relay-rss-mb")
 	b.Logf("N=%d egress %s, viewers decode %v: window %v, %d LIVE latencies matched; load average %.2f at the start, %.2f at the end",
 		n, mode, decode, wall.Round(time.Millisecond), len(lat), load0, load1)
-	return capacityResult{kept: kept, relayCores: relayCores}
+	return capacityResult{kept: kept, relayCores: relayCores, switchesPerFrame: float64(sw1-sw0) / max(framesSent, 1)}
 }
+
+// relayCPURoundsEnv is the number of rounds BenchmarkRelayCPU1280x720 runs
+// (default 1): each round one pass-through run and then one transcode run.
+const relayCPURoundsEnv = "STOPGAP_RELAYCPU_ROUNDS"
 
 // BenchmarkRelayCPU1280x720 measures the relay's own CPU per 1280x720 30 fps
 // stream with LIVE frames passed through (mode=passthru) and with every
@@ -558,29 +582,65 @@ func runCapacity(b *testing.B, rec *recording.Recording, drive string, n int, mo
 // unlike in BenchmarkLoopback1280x720. Each mode is a runCapacity run with
 // N=1 (figures as in BenchmarkCapacity1280x720); the parent logs the ratio
 // of the relay's cores. Target: pass-through at most a third of transcode.
+//
+// With STOPGAP_RELAYCPU_ROUNDS=k the pair runs k times, the modes
+// alternating (passthru, transcode, passthru, ...; the second and later
+// runs of a mode are named mode=passthru#01 and so on): each round's ratio
+// is logged, and the median of the k ratios with the median cores of each
+// mode. What each run measures is the same; alternating spreads a change
+// of the machine's load over both modes.
 // With STOPGAP_E2E_PROFILE_DIR set each relay writes a CPU profile
 // (capacity-N1-relay0.pprof, capacity-transcode-N1-relay0.pprof).
 func BenchmarkRelayCPU1280x720(b *testing.B) {
+	rounds := 1
+	if v := os.Getenv(relayCPURoundsEnv); v != "" {
+		n, err := strconv.Atoi(v)
+		if err != nil || n < 1 {
+			b.Fatalf("%s=%q: want a number of rounds >= 1", relayCPURoundsEnv, v)
+		}
+		rounds = n
+	}
 	dir := b.TempDir()
 	drive := renderDrive(b, dir, 1280, 720, capacityDriveS)
 	rec, err := recording.Open(drive)
 	if err != nil {
 		b.Fatal(err)
 	}
-	res := map[string]capacityResult{}
-	for _, mode := range []string{"passthru", "transcode"} {
-		if err := applyEgress(&relay.Config{}, mode); err != nil {
-			b.Fatal(err)
-		}
-		b.Run("mode="+mode, func(b *testing.B) {
-			for range b.N {
-				res[mode] = runCapacity(b, rec, drive, 1, mode, true)
+	var ratios, ptCores, tcCores []float64
+	for round := 1; round <= rounds; round++ {
+		res := map[string]capacityResult{}
+		for _, mode := range []string{"passthru", "transcode"} {
+			if err := applyEgress(&relay.Config{}, mode); err != nil {
+				b.Fatal(err)
 			}
-		})
+			b.Run("mode="+mode, func(b *testing.B) {
+				for range b.N {
+					res[mode] = runCapacity(b, rec, drive, 1, mode, true)
+				}
+			})
+		}
+		pt, tc := res["passthru"], res["transcode"]
+		if pt.relayCores > 0 && tc.relayCores > 0 {
+			b.Logf("round %d of %d: relay process CPU per stream, pass-through / transcode: %.3f / %.3f cores = %.2f (target <= 0.33); thread switches per frame %.1f / %.1f; kept up %d and %d of 1",
+				round, rounds, pt.relayCores, tc.relayCores, pt.relayCores/tc.relayCores, pt.switchesPerFrame, tc.switchesPerFrame, pt.kept, tc.kept)
+			ratios = append(ratios, pt.relayCores/tc.relayCores)
+			ptCores = append(ptCores, pt.relayCores)
+			tcCores = append(tcCores, tc.relayCores)
+		}
 	}
-	pt, tc := res["passthru"], res["transcode"]
-	if pt.relayCores > 0 && tc.relayCores > 0 {
-		b.Logf("relay process CPU per stream, pass-through / transcode in this run: %.3f / %.3f cores = %.2f (target <= 0.33); kept up %d and %d of 1",
-			pt.relayCores, tc.relayCores, pt.relayCores/tc.relayCores, pt.kept, tc.kept)
+	if len(ratios) > 1 {
+		b.Logf("%d rounds: pass-through / transcode ratio median %.2f (%.2f to %.2f); median cores %.3f / %.3f",
+			len(ratios), median(ratios), slices.Min(ratios), slices.Max(ratios), median(ptCores), median(tcCores))
 	}
+}
+
+// median returns the median of xs (the mean of the middle two for an even
+// count); xs is not changed. xs must not be empty.
+func median(xs []float64) float64 {
+	s := slices.Sorted(slices.Values(xs))
+	n := len(s)
+	if n%2 == 1 {
+		return s[n/2]
+	}
+	return (s[n/2-1] + s[n/2]) / 2
 }

@@ -255,6 +255,40 @@ func procRSS(pid int) (int64, error) {
 	return pages * int64(os.Getpagesize()), err
 }
 
+// procSwitches returns the context switches of every thread of a process
+// (proc(5): voluntary_ctxt_switches and nonvoluntary_ctxt_switches in
+// /proc/PID/task/TID/status, summed). A thread that ended is no longer
+// counted; the relay's threads live as long as the process.
+func procSwitches(pid int) (int64, error) {
+	dir := filepath.Join("/proc", strconv.Itoa(pid), "task")
+	tasks, err := os.ReadDir(dir)
+	if err != nil {
+		return 0, err
+	}
+	var sum int64
+	for _, t := range tasks {
+		b, err := os.ReadFile(filepath.Join(dir, t.Name(), "status"))
+		if errors.Is(err, os.ErrNotExist) {
+			continue // the thread ended meanwhile
+		}
+		if err != nil {
+			return 0, err
+		}
+		for _, line := range strings.Split(string(b), "\n") {
+			k, v, ok := strings.Cut(line, ":")
+			if !ok || (k != "voluntary_ctxt_switches" && k != "nonvoluntary_ctxt_switches") {
+				continue
+			}
+			n, err := strconv.ParseInt(strings.TrimSpace(v), 10, 64)
+			if err != nil {
+				return 0, fmt.Errorf("%s/%s/status: %q: %w", dir, t.Name(), line, err)
+			}
+			sum += n
+		}
+	}
+	return sum, nil
+}
+
 // relayChildEnv is the environment of a relay child in a benchmark: the
 // drive, and the profile endpoint when profileDirEnv is set.
 func relayChildEnv(drive string) []string {
