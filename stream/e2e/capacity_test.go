@@ -419,21 +419,11 @@ func runCapacity(b *testing.B, rec *recording.Recording, drive string, n int, mo
 		drops uint64
 		met   map[string]float64
 	}
-	relayCPU := func() time.Duration {
-		var sum time.Duration
-		for _, s := range streams {
-			c, err := procCPU(s.relay.pid())
-			if err != nil {
-				b.Fatal(err)
-			}
-			sum += c
-		}
-		return sum
-	}
-	relaySwitches := func() int64 {
+	// sumRelays adds up one /proc figure over the relay processes.
+	sumRelays := func(read func(pid int) (int64, error)) int64 {
 		var sum int64
 		for _, s := range streams {
-			c, err := procSwitches(s.relay.pid())
+			c, err := read(s.relay.pid())
 			if err != nil {
 				b.Fatal(err)
 			}
@@ -441,6 +431,13 @@ func runCapacity(b *testing.B, rec *recording.Recording, drive string, n int, mo
 		}
 		return sum
 	}
+	relayCPU := func() time.Duration {
+		return time.Duration(sumRelays(func(pid int) (int64, error) {
+			c, err := procCPU(pid)
+			return int64(c), err
+		}))
+	}
+	relaySwitches := func() int64 { return sumRelays(procSwitches) }
 	snap := func() []mark {
 		ms := make([]mark, n)
 		for i, s := range streams {
