@@ -73,7 +73,9 @@
 // decoder waits for a keyframe, and sent at once when the link returns after a
 // silence of KeyframeRetry (the requests sent meanwhile were lost): on the
 // first video packet, or earlier on the sender's first telemetry message
-// after a telemetry silence of its own. The WebRTC read loop is never blocked: the
+// after a telemetry silence of its own. No repeat goes out while a keyframe
+// that began arriving after the last request is still being assembled
+// (rtpvp8.Assembler.KeyframeArriving). The WebRTC read loop is never blocked: the
 // ingest queues are bounded and drop and count.
 //
 // # Recording

@@ -186,22 +186,7 @@ func (in *frameIngest) runTimers(ctx context.Context) {
 		// (whip.Config.MinKeyframeInterval) that the request made on the
 		// first packet after it needs: none is sent until packets resume.
 		silent := !in.lastArrival.IsZero() && now.Sub(in.lastArrival) >= in.p.cfg.KeyframeRetry
-		switch {
-		case silent && in.backFromTelemetry():
-			in.linkBack = true
-			in.requestKeyframeLocked(now, "link back, telemetry first")
-		case silent:
-		case in.linkBack && now.Sub(in.lastKeyReq) >= linkBackRetry(in.p.cfg.KeyframeRetry):
-			in.requestKeyframeLocked(now, "link back, repeated")
-		case in.dec.NeedKeyframe() && now.Sub(in.lastKeyReq) >= in.p.cfg.KeyframeRetry:
-			in.requestKeyframeLocked(now, "retry")
-		case in.p.r.gate.WantKeyframe() && (now.Sub(in.lastKeyReq) >= in.p.cfg.KeyframeRetry || in.p.r.gate.KeyframeUrgent()):
-			// Pass-through resumes on the vehicle's next keyframe, and a
-			// console viewer can only start on one. Urgent: the display
-			// loop ended a run (passthru.Gate.KeyframeUrgent); until the
-			// next keyframe every real frame costs the relay an encode.
-			in.requestKeyframeLocked(now, "pass-through")
-		}
+		in.timerRequestsLocked(now, silent)
 		wait := every
 		if silent {
 			wait = silentPoll
@@ -210,6 +195,35 @@ func (in *frameIngest) runTimers(ctx context.Context) {
 		}
 		in.mu.Unlock()
 		t.Reset(wait)
+	}
+}
+
+// timerRequestsLocked sends the keyframe requests the expiry timer owes at
+// now (in.mu held): none during a video silence unless the sender's
+// telemetry says the link is back; after it, repeats every linkBackRetry;
+// else a retry while the decoder needs a keyframe, or one the pass-through
+// gate wants.
+func (in *frameIngest) timerRequestsLocked(now time.Time, silent bool) {
+	// A keyframe that began arriving after the last request is its
+	// answer on its way (a sender paces its packets out over tens of
+	// milliseconds): asking again would only make the sender encode and
+	// pace out a second one behind it. Given up, it stops counting.
+	answering := in.asm.KeyframeArriving(in.lastKeyReq)
+	switch {
+	case silent && in.backFromTelemetry():
+		in.linkBack = true
+		in.requestKeyframeLocked(now, "link back, telemetry first")
+	case silent:
+	case in.linkBack && !answering && now.Sub(in.lastKeyReq) >= linkBackRetry(in.p.cfg.KeyframeRetry):
+		in.requestKeyframeLocked(now, "link back, repeated")
+	case in.dec.NeedKeyframe() && !answering && now.Sub(in.lastKeyReq) >= in.p.cfg.KeyframeRetry:
+		in.requestKeyframeLocked(now, "retry")
+	case in.p.r.gate.WantKeyframe() && (now.Sub(in.lastKeyReq) >= in.p.cfg.KeyframeRetry || in.p.r.gate.KeyframeUrgent()):
+		// Pass-through resumes on the vehicle's next keyframe, and a
+		// console viewer can only start on one. Urgent: the display
+		// loop ended a run (passthru.Gate.KeyframeUrgent); until the
+		// next keyframe every real frame costs the relay an encode.
+		in.requestKeyframeLocked(now, "pass-through")
 	}
 }
 

@@ -4,6 +4,9 @@ import (
 	"testing"
 	"time"
 
+	"github.com/pion/rtp"
+
+	"stopgap/stream/rtpvp8"
 	"stopgap/stream/whip"
 )
 
@@ -72,5 +75,53 @@ func TestBackFromTelemetry(t *testing.T) {
 		if quiet.backFromTelemetry() {
 			t.Fatal("a session without telemetry reported the link back")
 		}
+	}
+}
+
+// TestNoRepeatWhileKeyframeArrives: after the link came back, the timer
+// repeats the keyframe request every linkBackRetry, but not while a
+// keyframe that began arriving after the request is still being
+// assembled: that is the answer on its way, and a repeat would make the
+// sender encode and pace out a second one behind it.
+func TestNoRepeatWhileKeyframeArrives(t *testing.T) {
+	t0 := time.UnixMicro(2_000_000)
+	due := t0.Add(linkBackRetry(DefaultKeyframeRetry) + 10*time.Millisecond)
+	for _, tc := range []struct {
+		name     string
+		keyStart bool // the first two packets of a keyframe arrived after the request
+		want     int  // requests the timer sends at due
+	}{
+		{"nothing arriving: repeat", false, 1},
+		{"keyframe arriving: wait", true, 0},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			clock := &fakeClock{}
+			r := testRelay(t, clock, "")
+			v := newFakeVehicle(t, clock, 1, nil)
+			in, err := newIngest(&pipeline{r: r, cfg: r.cfg, sess: v, log: quietLogger()})
+			if err != nil {
+				t.Fatal(err)
+			}
+			defer in.close()
+			in.linkBack, in.lastKeyReq = true, t0
+			if tc.keyStart {
+				for i, data := range [][]byte{{0x10, 0, 0, 0x9d, 0x01, 0x2a, 64, 0, 48, 0}, {1, 2, 3, 4}} {
+					d := rtpvp8.Descriptor{Start: i == 0}
+					buf := make([]byte, d.MarshalSize())
+					if _, err := d.MarshalTo(buf); err != nil {
+						t.Fatal(err)
+					}
+					pkt := &rtp.Packet{Header: rtp.Header{Version: 2, SequenceNumber: uint16(100 + i), Timestamp: 9000, PayloadType: 96},
+						Payload: append(buf, data...)}
+					if err := in.asm.Push(pkt, t0.Add(40*time.Millisecond)); err != nil {
+						t.Fatal(err)
+					}
+				}
+			}
+			in.timerRequestsLocked(due, false)
+			if len(v.keyReqs) != tc.want {
+				t.Errorf("requests at %v after the last one: %d, want %d", due.Sub(t0), len(v.keyReqs), tc.want)
+			}
+		})
 	}
 }

@@ -451,10 +451,15 @@ type Assembler struct {
 	oldStreak int   // consecutive too-old media packets
 
 	needKey bool
-	lostTS  uint32 // timestamp of the last frame reported lost
-	lostOK  bool
-	prevTS  uint32 // timestamp of the last frame delivered
-	prevOK  bool
+	// keyExt and keyAt: the first packet of the newest keyframe seen
+	// starting (keyOK), and its arrival (KeyframeArriving).
+	keyExt int64
+	keyAt  time.Time
+	keyOK  bool
+	lostTS uint32 // timestamp of the last frame reported lost
+	lostOK bool
+	prevTS uint32 // timestamp of the last frame delivered
+	prevOK bool
 
 	// Scan cache for the frame at head: positions before scanPos are
 	// present and checked, their VP8 data totals scanSize octets.
@@ -509,6 +514,16 @@ func (a *Assembler) Config() AssemblerConfig { return a.cfg }
 
 // Stats returns a copy of the counters.
 func (a *Assembler) Stats() Stats { return a.stats }
+
+// KeyframeArriving reports whether the first packet of a keyframe arrived
+// after since and that keyframe is still being assembled: neither
+// delivered nor given up. A receiver that asked for a keyframe at since
+// need not ask again while the answer is on its way (a sender paces a
+// keyframe's many packets out over tens of milliseconds); if a hole in it
+// cannot be repaired, the keyframe is given up and this turns false.
+func (a *Assembler) KeyframeArriving(since time.Time) bool {
+	return a.keyOK && a.keyExt >= a.head && a.keyAt.After(since)
+}
 
 // NeedKeyframe reports whether the decoder needs a keyframe: none has been
 // delivered yet, or a loss was reported since the last one. A receiver uses
@@ -598,6 +613,9 @@ func (a *Assembler) Push(pkt *rtp.Packet, arrival time.Time) error {
 	if ext > a.newest {
 		a.newest = ext
 	}
+	if d.Start && d.PartitionID == 0 && isKeyframeStart(s) && (!a.keyOK || ext > a.keyExt) {
+		a.keyExt, a.keyAt, a.keyOK = ext, arrival, true
+	}
 	a.stats.Accepted++
 	a.advance(arrival)
 	return nil
@@ -627,6 +645,7 @@ func (a *Assembler) start(seq uint16) {
 	a.committed = false
 	a.lostOK = false
 	a.prevOK = false
+	a.keyOK = false
 	a.newest = 1<<32 + int64(seq)
 	a.head = a.newest
 	a.scanHead = -1

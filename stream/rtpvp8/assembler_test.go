@@ -574,3 +574,40 @@ func TestPushDoesNotAllocate(t *testing.T) {
 		t.Errorf("%d frames, %d losses", s.Frames, s.Losses)
 	}
 }
+
+// TestKeyframeArriving: a keyframe whose first packet arrived after the
+// request counts as arriving until it is delivered or given up (a hole
+// repaired in vain); an inter frame, a keyframe that began before the
+// request, and a delivered one do not. (A keyframe still open at the
+// newest packet has no deadline of its own: the relay's silence rule
+// covers a sender that stops.)
+func TestKeyframeArriving(t *testing.T) {
+	at := func(ms int) time.Time { return t0.Add(time.Duration(ms) * time.Millisecond) }
+	key := frame(10, 3000, 4, true, 50)
+	tests := []struct {
+		name  string
+		steps []tp
+		since time.Time
+		want  bool
+	}{
+		{"nothing yet", nil, at(0), false},
+		{"keyframe half in", key[:2], at(0), true},
+		{"keyframe half in, asked after its start", key[:2], at(60), false},
+		{"keyframe delivered", key, at(0), false},
+		{"inter frame half in", frame(10, 3000, 4, false, 50)[:2], at(0), false},
+		{"keyframe with a hole, given up", cat(key[:2], key[3:], frame(14, 6000, 2, false, 60), []tp{{expire: true, atMs: 5000}}), at(0), false},
+		{"keyframe with a hole, waited for", cat(key[:2], key[3:], frame(14, 6000, 2, false, 60)), at(0), true},
+	}
+	for _, tc := range tests {
+		t.Run(tc.name, func(t *testing.T) {
+			cfg := AssemblerConfig{RepairWait: 100 * time.Millisecond}
+			a, _, errs := run(t, cfg, cat(frame(1, 0, 3, true, 0), tc.steps))
+			if len(errs) > 0 {
+				t.Fatal(errs)
+			}
+			if got := a.KeyframeArriving(tc.since); got != tc.want {
+				t.Errorf("KeyframeArriving = %v, want %v", got, tc.want)
+			}
+		})
+	}
+}
