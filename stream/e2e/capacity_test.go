@@ -604,6 +604,9 @@ func BenchmarkRelayCPU1280x720(b *testing.B) {
 		b.Fatal(err)
 	}
 	var ratios, ptCores, tcCores []float64
+	// median is the nearest-rank median (quantile at 0.5: the lower middle
+	// for an even count of rounds).
+	median := func(xs []float64) float64 { return quantile(slices.Sorted(slices.Values(xs)), 0.5) }
 	for round := 1; round <= rounds; round++ {
 		res := map[string]capacityResult{}
 		for _, mode := range []string{"passthru", "transcode"} {
@@ -629,15 +632,4 @@ func BenchmarkRelayCPU1280x720(b *testing.B) {
 		b.Logf("%d rounds: pass-through / transcode ratio median %.2f (%.2f to %.2f); median cores %.3f / %.3f",
 			len(ratios), median(ratios), slices.Min(ratios), slices.Max(ratios), median(ptCores), median(tcCores))
 	}
-}
-
-// median returns the median of xs (the mean of the middle two for an even
-// count); xs is not changed. xs must not be empty.
-func median(xs []float64) float64 {
-	s := slices.Sorted(slices.Values(xs))
-	n := len(s)
-	if n%2 == 1 {
-		return s[n/2]
-	}
-	return (s[n/2-1] + s[n/2]) / 2
 }

@@ -2,7 +2,6 @@ package e2e
 
 import (
 	"math"
-	"slices"
 	"testing"
 )
 
@@ -72,24 +71,5 @@ func TestCompareLuma(t *testing.T) {
 	}
 	if _, err := compareLuma(page, ref[:5], lumaBT601); err == nil {
 		t.Error("reference of the wrong size accepted")
-	}
-}
-
-func TestMedian(t *testing.T) {
-	for _, c := range []struct {
-		in   []float64
-		want float64
-	}{
-		{[]float64{0.4}, 0.4},
-		{[]float64{0.3, 0.5, 0.1}, 0.3},
-		{[]float64{0.4, 0.2, 0.3, 0.1}, 0.25},
-	} {
-		in := slices.Clone(c.in)
-		if got := median(in); got != c.want {
-			t.Errorf("median(%v) = %v, want %v", c.in, got, c.want)
-		}
-		if !slices.Equal(in, c.in) {
-			t.Errorf("median changed its input: %v, was %v", in, c.in)
-		}
 	}
 }
