@@ -483,3 +483,88 @@ func TestShownBox(t *testing.T) {
 		})
 	}
 }
+
+// TestRoadUserTopRow: the row roadUserTopRow gives for a foot seen at a
+// pixel is where the camera model (camera.ProjectVehiclePointPinhole, whose
+// projection is checked against OpenCV's projectPoints in camera_test.go)
+// projects the point moverRoadUserHeightM above that foot standing on the
+// pavement, moverKerbM above the road; and there is none for a pixel at or
+// above the horizon.
+func TestRoadUserTopRow(t *testing.T) {
+	for name, c := range testCameras() {
+		for _, p := range [][2]float64{{4, 0}, {8, 2.5}, {15, -3}, {40, 1}} {
+			foot := [3]float64{p[0], p[1], moverKerbM}
+			head := [3]float64{p[0], p[1], moverKerbM + moverRoadUserHeightM}
+			u, v, err := c.ProjectVehiclePointPinhole(foot)
+			if err != nil {
+				t.Fatal(err)
+			}
+			_, want, err := c.ProjectVehiclePointPinhole(head)
+			if err != nil {
+				t.Fatal(err)
+			}
+			got, ok := roadUserTopRow(c, u, v)
+			if !ok || math.Abs(got-want) > 1e-6 {
+				t.Errorf("%s, foot %v m at (%.1f, %.1f): top row %.6f (ok %v), want %.6f", name, foot, u, v, got, ok, want)
+			}
+		}
+		hz := c.Horizon()
+		r, _ := hz.RowAt(c.Cx)
+		for _, v := range []float64{r, r - 20} {
+			if got, ok := roadUserTopRow(c, c.Cx, v); ok {
+				t.Errorf("%s: top row %.1f for a foot at row %.1f (horizon %.1f), want none", name, got, v, r)
+			}
+		}
+	}
+}
+
+// TestMoverCutAtRoadUserHeight: a block that appeared between two frames of
+// a still camera, standing on the road and reaching far above the height of
+// any road user at its foot's distance, is marked from its foot up to that
+// height only; the same block with its foot at the picture's bottom (where
+// a near thing's foot may be cut off) keeps its whole height.
+func TestMoverCutAtRoadUserHeight(t *testing.T) {
+	c := uprightCam()
+	for _, tc := range []struct {
+		name      string
+		blk       image.Rectangle
+		wantTopAt bool // the box's top at the road user's height, else the block's
+	}{
+		{"foot on the road", image.Rect(150, 20, 190, 150), true},
+		{"foot cut off", image.Rect(150, 2, 190, c.Height), false},
+	} {
+		prev := texturedFrame(t, c.Width, c.Height, 7)
+		last := prev.Clone()
+		roi := last.Region(tc.blk)
+		roi.SetTo(gocv.NewScalar(20, 220, 40, 0))
+		roi.Close()
+		d, err := NewMoverDetector(MoverOptions{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		var model MoverModel
+		m := filter.Motion{T0Us: 0, T1Us: 200_000, Cov: [3][3]float64{{1e-4, 0, 0}, {0, 1e-4, 0}, {0, 0, 1e-6}}}
+		err = d.Detect(prev, last, c, m, math.Inf(1), nil, nil, &model)
+		d.Close()
+		prev.Close()
+		last.Close()
+		if err != nil {
+			t.Fatal(err)
+		}
+		if len(model.Movers) != 1 {
+			t.Fatalf("%s: %d movers, want 1", tc.name, len(model.Movers))
+		}
+		box := model.Movers[0].Box
+		want := float64(tc.blk.Min.Y)
+		if tc.wantTopAt {
+			top, ok := roadUserTopRow(c, float64(tc.blk.Min.X+tc.blk.Max.X)/2, float64(tc.blk.Max.Y)-0.5)
+			if !ok {
+				t.Fatal("no road user top for the block's foot")
+			}
+			want = top
+		}
+		if math.Abs(float64(box.Min.Y)-want) > 2 || box.Max.Y < tc.blk.Max.Y-2 {
+			t.Errorf("%s: box %v, want its top at row %.1f (block %v) and its foot kept", tc.name, box, want, tc.blk)
+		}
+	}
+}
