@@ -520,8 +520,8 @@ func TestRoadUserTopRow(t *testing.T) {
 
 // TestMoverCutAtRoadUserHeight: a block that appeared between two frames of
 // a still camera, standing on the road and reaching far above the height of
-// any road user at its foot's distance, is marked from its foot up to that
-// height only; the same block with its foot at the picture's bottom (where
+// any road user at its foot's distance (its foot taken moverFootSlackPx
+// below its region), is marked from its foot up to that height only; the same block with its foot at the picture's bottom (where
 // a near thing's foot may be cut off) keeps its whole height.
 func TestMoverCutAtRoadUserHeight(t *testing.T) {
 	c := uprightCam()
@@ -557,7 +557,8 @@ func TestMoverCutAtRoadUserHeight(t *testing.T) {
 		box := model.Movers[0].Box
 		want := float64(tc.blk.Min.Y)
 		if tc.wantTopAt {
-			top, ok := roadUserTopRow(c, float64(tc.blk.Min.X+tc.blk.Max.X)/2, float64(tc.blk.Max.Y)-0.5)
+			// The detector's scale is 1 on this 320 px camera.
+			top, ok := roadUserTopRow(c, float64(tc.blk.Min.X+tc.blk.Max.X)/2, float64(tc.blk.Max.Y+moverFootSlackPx)-0.5)
 			if !ok {
 				t.Fatal("no road user top for the block's foot")
 			}
