@@ -36,7 +36,8 @@ import (
 // ticks), the share of the marked area in marks of which under 5 %
 // truly changed, and the recall of where the things truly are and of where
 // the picture shows them, apart, with the share of their pixels in road
-// users (connected parts of the mask) that no mark touches. -count=1 keeps go test from replaying a cached result.
+// users (connected parts of the mask) that no mark touches, and the gaps
+// (by held frame) whose truly changed pixels the marks miss most. -count=1 keeps go test from replaying a cached result.
 //
 //	MARKS_DIAG_OUT=/tmp/mdiag go test -count=1 ./bench -run TestDiagMarks -v
 func TestDiagMarks(t *testing.T) {
@@ -74,6 +75,7 @@ func TestDiagMarks(t *testing.T) {
 	type cost struct{ area, changed int }
 	costs := map[key]*cost{}
 	var marked, hit int
+	missed := map[int]int{}    // truly changed pixels no mark holds, per held frame
 	var partPx, partHit [2]int // where the things are, where they are shown
 	var partUnmarked [2]int    // of them in road users no mark touches
 	inZero := 0
@@ -154,6 +156,7 @@ func TestDiagMarks(t *testing.T) {
 		gocv.BitwiseAnd(d.Changed, d.Marked, &and)
 		marked += gocv.CountNonZero(d.Marked)
 		hit += gocv.CountNonZero(and)
+		missed[d.Held] += gocv.CountNonZero(d.Changed) - gocv.CountNonZero(and)
 		and.Close()
 
 		d.Shown.CopyTo(&img)
@@ -205,5 +208,16 @@ func TestDiagMarks(t *testing.T) {
 		c := costs[k]
 		t.Logf("held %4d mark %d: zone %7d px over its ticks, %6d truly changed (%.2f)", k.held, k.mark, c.area, c.changed,
 			float64(c.changed)/float64(max(1, c.area)))
+	}
+	// The gaps whose truly changed pixels the marks miss most.
+	helds, missSum := make([]int, 0, len(missed)), 0
+	for j, n := range missed {
+		helds = append(helds, j)
+		missSum += n
+	}
+	sort.Slice(helds, func(a, b int) bool { return missed[helds[a]] > missed[helds[b]] })
+	for _, j := range helds[:min(8, len(helds))] {
+		t.Logf("held %4d: %6d truly changed px missed over its ticks (%.2f of all missed)", j, missed[j],
+			float64(missed[j])/float64(max(1, missSum)))
 	}
 }

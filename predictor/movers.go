@@ -129,6 +129,31 @@ func (m Mover) Zone(ageMs float64) image.Rectangle {
 // 0.29 -> 0.24 at 0.75); design choice.
 const moverMaxSpeedWidthsPerS = 0.25
 
+// The shift search looks within moverNearPx low-resolution pixels first and
+// takes a farther shift only if it matches clearly better (by a fifth:
+// a far match in plain or repeating texture is easily found by chance).
+// When the near search's best lies at its bound, the cost still falls
+// toward larger shifts and the near result is not a minimum: a farther
+// shift is then taken when it is better by moverBoundGain (a twentieth).
+// On simdrive --traffic seeds 1 to 4 the regions this concerns are near
+// cars passing beside the vehicle and clusters near the picture's side
+// (their best near shift was 9 px, the near search's reach). Design
+// choices.
+const (
+	moverNearPx    = 8
+	moverBoundGain = 0.95
+)
+
+// moverCutMaxPx bounds the part of a region cut off as the part the thing
+// left (its trailing part), low-resolution pixels: the near search's reach
+// and its refinement. A farther shift sets the apparent speed (and so the
+// zone), not the cut: the region's trailing part is what the compensation
+// of the older frame left (the road map smears a near thing's body), not the
+// shift at the base's scale, and cutting by a farther shift took the rear
+// of a long van passing close beside the vehicle (simdrive --traffic, seed
+// 3, held frame 331). Design choice.
+const moverCutMaxPx = moverNearPx + 1
+
 // moverClosePx is the closing that joins a thing's changed edges into one
 // region, low-resolution pixels. 9 joined too much clutter with the 200 ms
 // baseline (regions spanning half the picture on our street with traffic);
@@ -556,15 +581,17 @@ func (d *MoverDetector) Detect(prev, last gocv.Mat, cam Camera, m filter.Motion,
 				}
 			}
 		}
-		if sx > 0 && sx < bw/2 { // moved left: drop the right end
-			lx1 -= sx
-		} else if sx < 0 && -sx < bw/2 {
-			lx0 -= sx
+		// The part it left is cut by at most moverCutMaxPx.
+		cx, cy := max(-moverCutMaxPx, min(moverCutMaxPx, sx)), max(-moverCutMaxPx, min(moverCutMaxPx, sy0))
+		if cx > 0 && cx < bw/2 { // moved left: drop the right end
+			lx1 -= cx
+		} else if cx < 0 && -cx < bw/2 {
+			lx0 -= cx
 		}
-		if sy0 > 0 && sy0 < bh/2 {
-			ly1 -= sy0
-		} else if sy0 < 0 && -sy0 < bh/2 {
-			ly0 -= sy0
+		if cy > 0 && cy < bh/2 {
+			ly1 -= cy
+		} else if cy < 0 && -cy < bh/2 {
+			ly0 -= cy
 		}
 		var vx, vy float64
 		if dt > 0 {
@@ -614,7 +641,9 @@ func regionCost(c, b []byte, lab []int32, id int32, w, h int, box image.Rectangl
 // bestShift returns the shift (dx, dy), in low-resolution pixels, within
 // ±r that minimises regionCost: how far the region's content moved between
 // the two frames (against what af predicts); and the cost at no shift (c0)
-// and at the shift returned (cb).
+// and at the shift returned (cb). The near shifts (within moverNearPx) are
+// searched first, a farther one is taken only if it matches better by the
+// gains of moverBoundGain's comment.
 func bestShift(c, b []byte, lab []int32, id int32, w, h int, box image.Rectangle, af affine, r int) (dx, dy int, c0, cb float64) {
 	// Shifts searched on a grid of g = max(2, radius/8) px, then refined
 	// by 1 px within g-1 of the best.
@@ -640,11 +669,16 @@ func bestShift(c, b []byte, lab []int32, id int32, w, h int, box image.Rectangle
 		return bx, by, bc
 	}
 	// The near shifts first; a farther one only if it matches clearly
-	// better (by a fifth: a far match in plain or repeating texture is
-	// easily found by chance).
-	bx, by, bc := search(min(r, 8))
-	if r > 8 {
-		if fx, fy, fc := search(r); fc < 0.8*bc {
+	// better, or a little better when the near best lies at the near
+	// search's bound (see moverBoundGain).
+	n := min(r, moverNearPx)
+	bx, by, bc := search(n)
+	if r > n {
+		gain := 0.8
+		if abs(bx) >= n || abs(by) >= n {
+			gain = moverBoundGain
+		}
+		if fx, fy, fc := search(r); fc < gain*bc {
 			bx, by, bc = fx, fy, fc
 		}
 	}

@@ -569,3 +569,60 @@ func TestMoverCutAtRoadUserHeight(t *testing.T) {
 		}
 	}
 }
+
+// TestBestShiftAtNearBound: when the near search's best shift lies at its
+// bound, a farther shift that matches better by less than a fifth (but
+// more than moverBoundGain asks) is taken; when the near best lies inside,
+// or the farther shift is no better, the near result stays.
+func TestBestShiftAtNearBound(t *testing.T) {
+	const w, h = 64, 30
+	// The older frame: a ramp across (3 grey levels a column) and rows
+	// that differ without a period (a vertical shift does not match).
+	older := func(x, y int) int { return 3*x + (y*y)%47 }
+	// The newer frame over the region is the older one shifted by shift
+	// columns, with ±10 grey levels of alternating noise: the cost at a
+	// shift d is then max(10, 3|shift-d|), so at the near search's
+	// reach (9) it is 12 for a true shift of 13, and 10 from 10 on (10/12
+	// = 0.83: better, but not by a fifth).
+	box := image.Rect(10, 5, 40, 25)
+	frames := func(shift int) (c, b []byte, lab []int32) {
+		c, b, lab = make([]byte, w*h), make([]byte, w*h), make([]int32, w*h)
+		for y := 0; y < h; y++ {
+			for x := 0; x < w; x++ {
+				c[y*w+x] = byte(older(x, y))
+				if image.Pt(x, y).In(box) {
+					n := 10
+					if (x+y)%2 == 1 {
+						n = -10
+					}
+					b[y*w+x], lab[y*w+x] = byte(older(x+shift, y)+n), 1
+				}
+			}
+		}
+		return c, b, lab
+	}
+	if older(w-1, h-1) > 255 {
+		t.Fatal("the test's ramp overflows a byte")
+	}
+	for _, tc := range []struct {
+		name         string
+		shift, r     int
+		wantX, wantY int
+	}{
+		// Near best at 9 (cost 12), farther from 10 on (cost 10).
+		{"near best at its bound, farther a little better", 13, 16, 10, 0},
+		// Without a farther search the near best stays.
+		{"no farther search", 13, 8, 9, 0},
+		// The near best is inside the near search (cost 10 at 4 to 10,
+		// the first found kept): no farther one is taken.
+		{"near best inside", 7, 16, 4, 0},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			c, b, lab := frames(tc.shift)
+			dx, dy, _, _ := bestShift(c, b, lab, 1, w, h, box, affine{k: 1}, tc.r)
+			if dx != tc.wantX || dy != tc.wantY {
+				t.Errorf("bestShift = (%d, %d), want (%d, %d)", dx, dy, tc.wantX, tc.wantY)
+			}
+		})
+	}
+}
