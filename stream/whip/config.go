@@ -175,12 +175,12 @@ const (
 	DefaultMaxTelemetryBytes      = 16 << 10
 )
 
-// DefaultSenderStartKbps is the default Config.SenderStartKbps: about the estimate a Chromium sender's own
-// start-up probing reaches in its first second on a link that carries it (2.65 to 3.95 Mbit/s in 13 of 14
-// measured sessions, 1.22 in the other), and at most what a vehicle camera's VP8 stream is allowed (the
-// sender caps its target at its encoder's maximum, 1.7 Mbit/s at 640x360). Started there, the sender's
-// estimate stood at 4.8 to 5.4 Mbit/s after a second in every measured session instead of ramping slowly
-// from a low start; on a slower uplink it backs off within about 2 s (DEVELOPERS.md, outage record).
+// DefaultSenderStartKbps is the default Config.SenderStartKbps: below the estimate a Chromium sender's
+// own start-up probing reached in its first second on a link that carries it (2.65 to 3.95 Mbit/s in 27
+// of 28 measured sessions, 1.22 in the other, which then climbed 0.1 to 0.2 Mbit/s a second), and above
+// what its encoder sends (1.7 Mbit/s at 640x360). Started there, the estimate stood at 4.5 to 6.2 Mbit/s
+// after a second in all 28; on a 1 Mbit/s uplink it fell below 1 Mbit/s within about 2 s, as it did from
+// the browser's own start (DEVELOPERS.md, acceptance runs of the live path).
 const DefaultSenderStartKbps = 2500
 
 // SenderStartOwn as Config.SenderStartKbps leaves the answer without a start bitrate: the sender starts
