@@ -176,10 +176,10 @@ const (
 )
 
 // DefaultSenderStartKbps is the default Config.SenderStartKbps: below the estimate a Chromium sender's
-// own start-up probing reached in its first second on a link that carries it (2.65 to 3.95 Mbit/s in 27
-// of 28 measured sessions, 1.22 in the other, which then climbed 0.1 to 0.2 Mbit/s a second), and above
-// what its encoder sends (1.7 Mbit/s at 640x360). Started there, the estimate stood at 4.5 to 6.2 Mbit/s
-// after a second in all 28; on a 1 Mbit/s uplink it fell below 1 Mbit/s within about 2 s, as it did from
+// own start-up probing reached in its first second on a link that carries it (2.65 to 3.95 Mbit/s in 38
+// of 40 measured sessions, 1.22 and 1.24 in the others, which then climbed 0.1 Mbit/s a second), and
+// above what its encoder sends (1.7 Mbit/s at 640x360). Started there, the estimate stood at 4.5 to 6.6
+// Mbit/s after a second in all 40; on a 1 Mbit/s uplink it fell below 1 Mbit/s within about 2 s, as it did from
 // the browser's own start (DEVELOPERS.md, acceptance runs of the live path).
 const DefaultSenderStartKbps = 2500
 
