@@ -38,6 +38,8 @@ func TestRunExitCodes(t *testing.T) {
 		{"replay with the old --loss-rate warns and still works", []string{"replay", "--quiet", "--drive", drive, "--out", filepath.Join(dir, "r3"), "--loss-rate", "0.3", "--burst-ms", "100"}, 0,
 			"--loss-rate is deprecated and will be removed; use --frame-loss-rate", "report: "},
 		{"demo with the old --link-loss warns", []string{"demo", "--link-loss", "0.02", "-h"}, 0, "use --packet-loss-rate", ""},
+		{"relay help names the sender's start bitrate", []string{"relay", "-h"}, 0, "-sender-start-kbps", ""},
+		{"relay negative start bitrate", []string{"relay", "--camera", "camera.json", "--sender-start-kbps", "-5"}, 2, "--sender-start-kbps wants kbit/s", ""},
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {

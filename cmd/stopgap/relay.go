@@ -34,7 +34,7 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		storePath, policyPath                                  string
 		iceLoopback, alwaysTranscode                           bool
 		iceInterfaces, icePublicIPs                            string
-		iceUDPPort                                             int
+		iceUDPPort, senderStartKbps                            int
 	)
 	fs.StringVar(&listen, "listen", "127.0.0.1:8443", "`address` to serve WHIP ingest, the console, /healthz and /metrics on")
 	fs.StringVar(&certFile, "tls-cert", "", "TLS certificate `file` (PEM); with --tls-key serves HTTPS (required off loopback)")
@@ -68,6 +68,7 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	fs.StringVar(&iceInterfaces, "ice-interfaces", "", "comma-separated network interface `names` to offer ICE candidates on (default all but loopback)")
 	fs.StringVar(&icePublicIPs, "ice-public-ip", "", "comma-separated public `IPs` to announce instead of the host addresses (a relay behind a static 1:1 NAT)")
 	fs.IntVar(&iceUDPPort, "ice-udp-port", 0, "one UDP `port` for the media of all vehicle sessions (0 = a random port per session)")
+	fs.IntVar(&senderStartKbps, "sender-start-kbps", whip.DefaultSenderStartKbps, "bitrate, kbit/s, the answer asks a browser-based vehicle sender to start its congestion control from (it backs off from there on a weaker link; 0 = the sender's own, a few hundred kbit/s)")
 	fs.BoolVar(&logJSON, "log-json", true, "write logs as JSON")
 	fs.BoolVar(&verbose, "v", false, "verbose logs")
 	fs.Usage = func() {
@@ -91,6 +92,13 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	if minCutoff != -1 || maxCutoff != -1 {
 		fmt.Fprintln(stderr, "stopgap relay: --min-cutoff and --max-cutoff moved to the administrator's policy file (min_cutoff, max_cutoff); give it with --policy")
 		return errUsage
+	}
+	switch {
+	case senderStartKbps < 0:
+		fmt.Fprintln(stderr, "stopgap relay: --sender-start-kbps wants kbit/s, or 0 for the sender's own start")
+		return errUsage
+	case senderStartKbps == 0:
+		senderStartKbps = whip.SenderStartOwn
 	}
 	if (certFile == "") != (keyFile == "") {
 		fmt.Fprintln(stderr, "stopgap relay: give both --tls-cert and --tls-key, or neither")
@@ -158,7 +166,7 @@ func runRelay(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		RecordDir:   recordDir, IngestToken: ingestTok, ConsoleToken: consoleTok,
 		Console: cc, Logger: log, AlwaysTranscode: alwaysTranscode,
 		Whip: whip.Config{Network: whip.Network{IncludeLoopback: iceLoopback, Interfaces: splitList(iceInterfaces),
-			NAT1To1IPs: splitList(icePublicIPs), UDPPort: iceUDPPort}},
+			NAT1To1IPs: splitList(icePublicIPs), UDPPort: iceUDPPort}, SenderStartKbps: senderStartKbps},
 	}
 	sc.IngestTokenGenerated, sc.ConsoleTokenGenerated = ingestGen, consoleGen
 	sc.KnownOperator = func(name string) bool {

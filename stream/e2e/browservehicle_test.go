@@ -134,6 +134,7 @@ type netns struct {
 	t                      *testing.T
 	name, router, hostIf   string
 	browserSide            string // the router's end of the link to the browser
+	hostSide               string // the router's end of the link to the host
 	hostIP, routerIP, nsIP string
 	mu                     sync.Mutex
 	rules                  [][]string // iptables rules in place, to delete
@@ -154,9 +155,10 @@ func newNetns(t *testing.T) *netns {
 	id := os.Getpid() % 100000
 	sub := fmt.Sprintf("10.213.%d.", id%250)
 	n := &netns{t: t, name: fmt.Sprintf("sgv%d", id), router: fmt.Sprintf("sgr%d", id), hostIf: fmt.Sprintf("sgh%d", id),
-		hostIP: sub + "1", routerIP: sub + "2", nsIP: sub + "6", browserSide: fmt.Sprintf("sgc%d", id)}
-	rb, rv := fmt.Sprintf("sgb%d", id), n.browserSide // router's ends: to the host, to the browser
-	bn := fmt.Sprintf("sgn%d", id)                    // browser's end
+		hostIP: sub + "1", routerIP: sub + "2", nsIP: sub + "6", browserSide: fmt.Sprintf("sgc%d", id),
+		hostSide: fmt.Sprintf("sgb%d", id)}
+	rb, rv := n.hostSide, n.browserSide // router's ends: to the host, to the browser
+	bn := fmt.Sprintf("sgn%d", id)      // browser's end
 	if err := run("ip", "netns", "add", n.router); err != nil {
 		t.Skipf("browser-vehicle test: cannot create a network namespace: %v", err)
 	}
@@ -307,6 +309,18 @@ func (n *netns) cut(port int) {
 	n.addRule("FORWARD", "-p", "udp", "-m", "multiport", "--ports", strconv.Itoa(port), "-j", "DROP")
 }
 
+// limitUplink limits what the router forwards from the browser to the host
+// to kbit kbit/s, with a queue of at most 300 ms (a token bucket, tbf, on
+// the router's end of the link to the host): a slow uplink with a deep
+// buffer, as cellular links have. It stays until the namespace is deleted.
+func (n *netns) limitUplink(kbit int) {
+	n.t.Helper()
+	if err := run("ip", "netns", "exec", n.router, "tc", "qdisc", "add", "dev", n.hostSide, "root", "tbf",
+		"rate", strconv.Itoa(kbit)+"kbit", "burst", "16kb", "latency", "300ms"); err != nil {
+		n.t.Skipf("browser-vehicle test: cannot limit the link (tc with the tbf queueing discipline): %v", err)
+	}
+}
+
 // writeY4M writes the drive's frames as a 4:2:0 Y4M file for Chromium's fake
 // camera.
 func writeY4M(t *testing.T, rec *recording.Recording, path string) {
@@ -333,6 +347,22 @@ func writeY4M(t *testing.T, rec *recording.Recording, path string) {
 	if err := w.Flush(); err != nil {
 		t.Fatal(err)
 	}
+}
+
+// senderStartKbps is whip.Config.SenderStartKbps for the browser rig from
+// STOPGAP_E2E_START_KBPS (unset: the default; -1: the browser's own start),
+// to compare sessions with and without a start bitrate in the answer.
+func senderStartKbps(t *testing.T) int {
+	v := os.Getenv("STOPGAP_E2E_START_KBPS")
+	if v == "" {
+		return 0
+	}
+	k, err := strconv.Atoi(v)
+	if err != nil {
+		t.Fatalf("STOPGAP_E2E_START_KBPS=%q: want kbit/s, or -1 for the browser's own start", v)
+	}
+	t.Logf("sender start bitrate in the answer: %d kbit/s (-1: the browser's own)", k)
+	return k
 }
 
 // browserRig is the relay on the host end of the veth pair and the page
@@ -374,7 +404,8 @@ func startBrowserRig(t *testing.T, w, h int, driveS float64) *browserRig {
 	r.relay, err = relay.New(relay.Config{
 		FPS: 30, Camera: rec.Camera,
 		IngestToken: ingestToken, ConsoleToken: consoleToken, Logger: quietLogger(),
-		Whip: whip.Config{Network: whip.Network{Interfaces: []string{ns.hostIf}, UDPPort: r.udpPort}},
+		Whip: whip.Config{Network: whip.Network{Interfaces: []string{ns.hostIf}, UDPPort: r.udpPort},
+			SenderStartKbps: senderStartKbps(t)},
 	})
 	if err != nil {
 		t.Fatal(err)
@@ -580,9 +611,12 @@ func TestAcceptBrowserVehicle(t *testing.T) {
 		defer stop()
 		r.waitSession(s0, 20*time.Second)
 		time.Sleep(4 * time.Second)
+		beforeCut := r.relay.Stats()
 		r.ns.cut(r.udpPort)
 		cutAt := time.Now()
-		t.Logf("link cut at %s", cutAt.Format("15:04:05.000000"))
+		bl, bt := ticks(s0, beforeCut)
+		t.Logf("link cut at %s; the session's ticks before it: %d of %d LIVE (%.1f%%)",
+			cutAt.Format("15:04:05.000000"), bl, bt, 100*share(bl, bt))
 		time.Sleep(150 * time.Millisecond)
 		inCut := r.relay.Stats()
 		time.Sleep(3*time.Second - time.Since(cutAt))
@@ -609,4 +643,43 @@ func TestAcceptBrowserVehicle(t *testing.T) {
 		}
 		r.waitIdle(20 * time.Second)
 	})
+}
+
+// TestAcceptBrowserWeakUplink shows what the sender's start bitrate
+// (whip.Config.SenderStartKbps, STOPGAP_E2E_START_KBPS) costs on an uplink
+// slower than it: Chromium publishes through a link limited to
+// STOPGAP_E2E_UPLINK_KBIT kbit/s (default 1000) with a 300 ms queue from its
+// first packet on (set STOPGAP_ACCEPT=1; about 25 s). It logs the share of
+// LIVE ticks in the session's first 5 s and in the 5 s after, and the
+// keyframe requests; with STOPGAP_E2E_VEHICLE_STATS=1 the browser's
+// estimate and target over time. The session must settle: at least 90 % of
+// the ticks LIVE in its second 5 s.
+func TestAcceptBrowserWeakUplink(t *testing.T) {
+	requireAccept(t)
+	kbit := 1000
+	if v := os.Getenv("STOPGAP_E2E_UPLINK_KBIT"); v != "" {
+		var err error
+		if kbit, err = strconv.Atoi(v); err != nil || kbit <= 0 {
+			t.Fatalf("STOPGAP_E2E_UPLINK_KBIT=%q: want kbit/s", v)
+		}
+	}
+	r := startBrowserRig(t, 640, 360, 6)
+	r.ns.limitUplink(kbit)
+	s0 := r.relay.Stats()
+	stop := r.session(14)
+	defer stop()
+	r.waitSession(s0, 20*time.Second)
+	time.Sleep(5 * time.Second)
+	s5 := r.relay.Stats()
+	time.Sleep(5 * time.Second)
+	s10 := r.relay.Stats()
+	fl, ft := ticks(s0, s5)
+	nl, nt := ticks(s5, s10)
+	t.Logf("uplink %d kbit/s: first 5 s %d of %d ticks LIVE (%.1f%%), keyframe requests %d; next 5 s %d of %d LIVE (%.1f%%), keyframe requests %d",
+		kbit, fl, ft, 100*share(fl, ft), s5.KeyframeRequests-s0.KeyframeRequests, nl, nt, 100*share(nl, nt),
+		s10.KeyframeRequests-s5.KeyframeRequests)
+	if share(nl, nt) < 0.90 {
+		t.Errorf("uplink %d kbit/s: %.1f%% LIVE in the session's second 5 s < 90%%: the sender did not settle below the link's rate", kbit, 100*share(nl, nt))
+	}
+	r.waitIdle(20 * time.Second)
 }

@@ -131,6 +131,11 @@ type Config struct {
 	MaxNACKGap int
 	// ReceiverReportInterval is the RTCP receiver report interval (default 1 s).
 	ReceiverReportInterval time.Duration
+	// SenderStartKbps is the bitrate, in kbit/s, the answer asks the vehicle's sender to start its
+	// congestion control from (StartBitrateParam on the VP8 fmtp line; Chromium-based senders honour
+	// it, others ignore it). Default DefaultSenderStartKbps; SenderStartOwn leaves the sender's own
+	// start (Chromium's is a few hundred kbit/s). The sender still backs off from it on a weaker link.
+	SenderStartKbps int
 
 	// RTPQueue is the capacity, in packets, of each session's RTP queue (default 1024, about 1 s of 8 Mbit/s
 	// video). When the consumer falls behind, new packets are dropped and counted; queued ones are kept.
@@ -170,6 +175,21 @@ const (
 	DefaultMaxTelemetryBytes      = 16 << 10
 )
 
+// DefaultSenderStartKbps is the default Config.SenderStartKbps: below the estimate a Chromium sender's
+// own start-up probing reached in its first second on a link that carries it (2.65 to 3.95 Mbit/s in 38
+// of 40 measured sessions, 1.22 and 1.24 in the others, which then climbed 0.1 Mbit/s a second), and
+// above what its encoder sends (1.7 Mbit/s at 640x360). Started there, the estimate stood at 4.5 to 6.6
+// Mbit/s after a second in all 40; on a 1 Mbit/s uplink it fell below 1 Mbit/s within about 2 s, as it did from
+// the browser's own start (DEVELOPERS.md, acceptance runs of the live path).
+const DefaultSenderStartKbps = 2500
+
+// SenderStartOwn as Config.SenderStartKbps leaves the answer without a start bitrate: the sender starts
+// from its own.
+const SenderStartOwn = -1
+
+// maxSenderStartKbps bounds Config.SenderStartKbps: more than any vehicle uplink this is made for.
+const maxSenderStartKbps = 100_000
+
 // ICE consent freshness (RFC 7675) of a connected session: the stack sends a consent check (STUN binding
 // request) every ConsentCheckInterval; without any response for DisconnectedAfter the path is reported
 // disconnected, and ConsentExpiry after the last response consent has expired and the session ends
@@ -196,6 +216,10 @@ func (c Config) withDefaults() (Config, error) {
 		c.MaxTelemetryBytes < 0 || c.NACKMinInterval < 0 || c.RepairWindow < 0 || c.MaxNACKGap < 0 {
 		return c, fmt.Errorf("%w: negative value in whip.Config; use 0 for the default", ErrBadConfig)
 	}
+	if c.SenderStartKbps < SenderStartOwn || c.SenderStartKbps > maxSenderStartKbps {
+		return c, fmt.Errorf("%w: SenderStartKbps %d, want 1..%d kbit/s (0 = the default, %d = the sender's own)",
+			ErrBadConfig, c.SenderStartKbps, maxSenderStartKbps, SenderStartOwn)
+	}
 	if err := c.Network.validate(); err != nil {
 		return c, err
 	}
@@ -209,6 +233,7 @@ func (c Config) withDefaults() (Config, error) {
 	def(&c.RTPQueue, DefaultRTPQueue)
 	def(&c.TelemetryQueue, DefaultTelemetryQueue)
 	def(&c.MaxTelemetryBytes, DefaultMaxTelemetryBytes)
+	def(&c.SenderStartKbps, DefaultSenderStartKbps)
 	if c.ICETimeout == 0 {
 		c.ICETimeout = DefaultICETimeout
 	}

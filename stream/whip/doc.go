@@ -52,7 +52,10 @@
 // TURN is used. The answer offers transport-wide congestion control feedback, so a browser sender can
 // estimate its bandwidth from the start; it goes every [FeedbackInterval], and at once for the first
 // packet after a silence of [FeedbackResumeSilence] (an outage), so the sender's pacer and encoder,
-// held back while no feedback came, recover without waiting for the next interval. A vehicle that vanishes without DELETE is
+// held back while no feedback came, recover without waiting for the next interval. The answer also asks the
+// sender to start its estimate at [Config].SenderStartKbps ([StartBitrateParam] on the VP8 fmtp line, read by
+// Chromium-based senders), so a sender whose own start-up probing comes out low does not ramp for seconds
+// from there. A vehicle that vanishes without DELETE is
 // noticed by ICE consent checks: with pion's defaults (keepalive 2 s) the connection turns disconnected after
 // 5 s and failed after 25 s, and a failed connection ends the session (EndFailed). The relay should not wait
 // for that: missing video is its own, faster signal.

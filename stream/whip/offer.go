@@ -2,6 +2,7 @@ package whip
 
 import (
 	"fmt"
+	"slices"
 	"strings"
 
 	"github.com/pion/sdp/v3"
@@ -74,21 +75,8 @@ func hasRTPProto(protos []string) bool {
 
 // offersVP8 reports whether an m-line maps one of its payload formats to VP8/90000 via a=rtpmap.
 func offersVP8(md *sdp.MediaDescription) bool {
-	formats := make(map[string]bool, len(md.MediaName.Formats))
-	for _, f := range md.MediaName.Formats {
-		formats[f] = true
-	}
-	for _, a := range md.Attributes {
-		if a.Key != "rtpmap" {
-			continue
-		}
-		pt, enc, ok := strings.Cut(a.Value, " ")
-		if !ok || !formats[pt] {
-			continue
-		}
-		name, rest, _ := strings.Cut(enc, "/")
-		rate, _, _ := strings.Cut(rest, "/")
-		if strings.EqualFold(name, "VP8") && rate == "90000" {
+	for _, pt := range vp8PayloadTypes(md) {
+		if slices.Contains(md.MediaName.Formats, pt) {
 			return true
 		}
 	}

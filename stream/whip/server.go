@@ -503,6 +503,15 @@ func (sess *Session) negotiate(ctx context.Context, offer []byte) (string, error
 	if ld == nil {
 		return "", errors.New("no local description after gathering")
 	}
+	// The start bitrate is for the sender only: the stack refuses a local description that differs from
+	// the answer it made, so it goes into the copy that is sent.
+	if k := sess.cfg.SenderStartKbps; k > 0 {
+		sent, err := withStartBitrate(ld.SDP, k)
+		if err != nil {
+			return "", fmt.Errorf("set the sender's start bitrate: %w", err)
+		}
+		return sent, nil
+	}
 	return ld.SDP, nil
 }
 
