@@ -3,6 +3,7 @@ package whip
 import (
 	"errors"
 	"net/http"
+	"reflect"
 	"strconv"
 	"strings"
 	"testing"
@@ -130,4 +131,85 @@ func TestSenderStartKbpsValidation(t *testing.T) {
 			t.Errorf("SenderStartKbps %d: err %v, want ErrBadConfig", k, err)
 		}
 	}
+}
+
+// FuzzWithStartBitrate: the answer's edit never panics; on any description the SDP library reads and
+// writes back readably, the edited one reads too, the first fmtp line of every VP8 payload type of a video
+// section carries the parameter exactly once with the value asked, and the other sections are unchanged.
+// (The answer is the stack's, but it copies the offer's format parameters, which the sender chose.)
+func FuzzWithStartBitrate(f *testing.F) {
+	const head = "v=0\r\no=- 1 2 IN IP4 127.0.0.1\r\ns=-\r\nt=0 0\r\n"
+	f.Add(head+"m=video 9 UDP/TLS/RTP/SAVPF 96 97\r\nc=IN IP4 0.0.0.0\r\na=rtpmap:96 VP8/90000\r\n"+
+		"a=rtpmap:97 rtx/90000\r\na=fmtp:97 apt=96\r\n", 2500)
+	f.Add(head+"m=video 9 UDP/TLS/RTP/SAVPF 96\r\nc=IN IP4 0.0.0.0\r\na=rtpmap:96 VP8/90000\r\n"+
+		"a=fmtp:96 max-fr=30; x-google-start-bitrate=300;;\r\n"+
+		"m=audio 9 UDP/TLS/RTP/SAVPF 111\r\nc=IN IP4 0.0.0.0\r\na=rtpmap:111 opus/48000/2\r\n", 1)
+	f.Add(head+"m=video 9 RTP/AVP 100 101\r\na=rtpmap:100 vp8/90000\r\na=rtpmap:101 VP8/90000/1\r\n"+
+		"a=fmtp:100\r\na=fmtp:101 x-google-start-bitrate\r\n", 100000)
+	f.Add("not sdp", 2500)
+	f.Fuzz(func(t *testing.T, desc string, kbps int) {
+		got, err := withStartBitrate(desc, kbps)
+		var in sdp.SessionDescription
+		if in.Unmarshal([]byte(desc)) != nil {
+			if err == nil {
+				t.Fatalf("no error for a description that does not parse:\n%q", desc)
+			}
+			return
+		}
+		// The description as the library writes and reads it back, unedited; where that is not what
+		// it read (a stray CR inside a line), what the edit did cannot be told from the round trip.
+		var rt sdp.SessionDescription
+		b, merr := in.Marshal()
+		if merr != nil || rt.Unmarshal(b) != nil {
+			return
+		}
+		if b2, merr := rt.Marshal(); merr != nil || string(b2) != string(b) || !reflect.DeepEqual(&rt, &in) {
+			return
+		}
+		if err != nil {
+			t.Fatalf("error %v for a description that parses:\n%q", err, desc)
+		}
+		var out sdp.SessionDescription
+		if err := out.Unmarshal([]byte(got)); err != nil {
+			t.Fatalf("edited answer does not parse: %v\n%q\n->\n%q", err, desc, got)
+		}
+		if len(out.MediaDescriptions) != len(rt.MediaDescriptions) {
+			t.Fatalf("%d sections, want %d", len(out.MediaDescriptions), len(rt.MediaDescriptions))
+		}
+		param := StartBitrateParam + "=" + strconv.Itoa(kbps)
+		for i, md := range out.MediaDescriptions {
+			if md == nil || md.MediaName.Media != "video" {
+				if !reflect.DeepEqual(md, rt.MediaDescriptions[i]) {
+					t.Fatalf("section %d (not video) changed:\n%+v\n->\n%+v", i, rt.MediaDescriptions[i], md)
+				}
+				continue
+			}
+			for _, pt := range vp8PayloadTypes(md) {
+				var first string
+				found := false
+				for _, a := range md.Attributes {
+					if p, v, _ := strings.Cut(a.Value, " "); a.Key == "fmtp" && p == pt {
+						first, found = v, true
+						break
+					}
+				}
+				if !found {
+					t.Fatalf("VP8 payload type %q has no fmtp line:\n%s", pt, got)
+				}
+				n := 0
+				for _, fp := range strings.Split(first, ";") {
+					k, _, _ := strings.Cut(strings.TrimSpace(fp), "=")
+					if strings.EqualFold(k, StartBitrateParam) {
+						n++
+						if strings.TrimSpace(fp) != param {
+							t.Fatalf("payload type %q: %q, want %q", pt, fp, param)
+						}
+					}
+				}
+				if n != 1 {
+					t.Fatalf("payload type %q: parameter %d times in %q", pt, n, first)
+				}
+			}
+		}
+	})
 }
