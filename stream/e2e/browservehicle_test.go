@@ -376,6 +376,11 @@ type browserRig struct {
 	udpPort int
 	y4m     string
 	w, h    int
+	// recordDir is the relay's recording with STOPGAP_E2E_RECORD=1, else "".
+	recordDir string
+	// stopRelay stops the relay, which closes its recording; the rig's
+	// cleanup calls it too (only the first call acts).
+	stopRelay func()
 
 	mu   sync.Mutex
 	logs []string
@@ -401,8 +406,11 @@ func startBrowserRig(t *testing.T, w, h int, driveS float64) *browserRig {
 	}
 	r.udpPort = pc.LocalAddr().(*net.UDPAddr).Port
 	pc.Close()
+	if os.Getenv("STOPGAP_E2E_RECORD") == "1" {
+		r.recordDir = filepath.Join(dir, "relay-recording")
+	}
 	r.relay, err = relay.New(relay.Config{
-		FPS: 30, Camera: rec.Camera,
+		FPS: 30, Camera: rec.Camera, RecordDir: r.recordDir,
 		IngestToken: ingestToken, ConsoleToken: consoleToken, Logger: quietLogger(),
 		Whip: whip.Config{Network: whip.Network{Interfaces: []string{ns.hostIf}, UDPPort: r.udpPort},
 			SenderStartKbps: senderStartKbps(t)},
@@ -432,11 +440,17 @@ func startBrowserRig(t *testing.T, w, h int, driveS float64) *browserRig {
 	ctx, cancel := context.WithCancel(context.Background())
 	done := make(chan error, 1)
 	go func() { done <- r.relay.Run(ctx) }()
+	var stopOnce sync.Once
+	r.stopRelay = func() {
+		stopOnce.Do(func() {
+			cancel()
+			if err := <-done; err != nil {
+				t.Errorf("relay: %v", err)
+			}
+		})
+	}
 	t.Cleanup(func() {
-		cancel()
-		if err := <-done; err != nil {
-			t.Errorf("relay: %v", err)
-		}
+		r.stopRelay()
 		srv.Close()
 		if t.Failed() || os.Getenv("STOPGAP_E2E_VEHICLE_STATS") != "" {
 			r.mu.Lock()
@@ -542,7 +556,9 @@ func TestBrowserVehicle(t *testing.T) {
 // and the first LIVE tick after a 3 s outage. Thresholds are the issue's:
 // clean >= 99.5%, first 5 s >= 90%, 5% loss >= 90%, LIVE within 150 ms of
 // the link returning and no LIVE tick while it is cut (after the frames in
-// flight, 150 ms).
+// flight, 150 ms). With STOPGAP_E2E_RECORD=1 the relay records the whole
+// run, and at the end its recording is replayed (checkReplayAgreement): the
+// replay must reach the relay's state on the ticks of every session.
 func TestAcceptBrowserVehicle(t *testing.T) {
 	requireAccept(t)
 	w, h := 640, 360
@@ -643,6 +659,14 @@ func TestAcceptBrowserVehicle(t *testing.T) {
 		}
 		r.waitIdle(20 * time.Second)
 	})
+
+	if r.recordDir != "" {
+		t.Run("replay agreement", func(t *testing.T) {
+			cutoff := r.relay.Console().Cutoff()
+			r.stopRelay() // closes the recording
+			checkReplayAgreement(t, r.recordDir, cutoff, "e2e-browser-recording")
+		})
+	}
 }
 
 // TestAcceptBrowserWeakUplink shows what the sender's start bitrate

@@ -138,78 +138,7 @@ func TestOutage500ms(t *testing.T) {
 	})
 
 	t.Run("replay agreement", func(t *testing.T) {
-		out := filepath.Join(t.TempDir(), "replay")
-		pol := predictor.DefaultPolicy()
-		pol.CutoffConfidence = cutoff
-		_, err := bench.Replay(context.Background(), bench.ReplayConfig{
-			Drive: r.recordDir, Out: out, ArrivalsFile: filepath.Join(r.recordDir, "arrivals.csv"),
-			Policy: pol, AllowanceMs: relay.DefaultAllowanceMs, Examples: -1, Logger: quietLogger(),
-		})
-		if err != nil {
-			t.Fatalf("bench.Replay on the relay's recording: %v", err)
-		}
-		replayed := readTicks(t, filepath.Join(out, bench.TicksFile))
-		var both, same, liveSame, skipped int
-		var diffs []string
-		for k, ls := range ticks {
-			rs, ok := replayed[k]
-			if !ok {
-				continue
-			}
-			if ls == display.StateNotShown.String() {
-				skipped++
-				continue
-			}
-			both++
-			if ls == rs {
-				same++
-			} else if len(diffs) < 10 {
-				diffs = append(diffs, fmt.Sprintf("tick %d live %s replay %s", k, ls, rs))
-			}
-			if (ls == "LIVE") == (rs == "LIVE") {
-				liveSame++
-			}
-		}
-		if both == 0 {
-			t.Fatal("no tick in both the relay's shown.csv and the replay's ticks.csv")
-		}
-		agree, liveAgree := float64(same)/float64(both), float64(liveSame)/float64(both)
-		t.Logf("replay vs live over %d ticks (%d NOT_SHOWN left out): state agreement %.1f%%, LIVE/not-LIVE agreement %.1f%%; first differences %v",
-			both, skipped, 100*agree, 100*liveAgree, diffs)
-		if t.Failed() || agree < 0.95 || liveAgree < 0.98 {
-			arr, err := recording.ReadArrivals(filepath.Join(r.recordDir, "arrivals.csv"))
-			if err == nil {
-				byIdx := map[int]recording.Arrival{}
-				for _, a := range arr {
-					byIdx[a.Index] = a
-				}
-				for k := range ticks {
-					if rs, ok := replayed[k]; ok && rs != ticks[k] {
-						a := byIdx[k]
-						t.Logf("tick %d: live %s, replay %s; capture %d, arrived %v at %+d us after deadline (deadline recorded %v)",
-							k, ticks[k], rs, rec.Frames[k].CaptureUs, a.Arrived, a.ArrivalUs-a.DeadlineUs, a.HasDeadline)
-					}
-				}
-			}
-			t.Logf("live ticks %d, replayed ticks %d, recorded frames %d", len(ticks), len(replayed), len(rec.Frames))
-			keep := filepath.Join(consoletest.ArtifactDir(t), "e2e-outage-recording")
-			_ = os.MkdirAll(keep, 0o755)
-			for _, name := range []string{"arrivals.csv", "frames.csv", relay.ShownFile, "telemetry.csv"} {
-				if data, err := os.ReadFile(filepath.Join(r.recordDir, name)); err == nil {
-					_ = os.WriteFile(filepath.Join(keep, name), data, 0o644)
-				}
-			}
-			if data, err := os.ReadFile(filepath.Join(out, bench.TicksFile)); err == nil {
-				_ = os.WriteFile(filepath.Join(keep, "replay-ticks.csv"), data, 0o644)
-			}
-			t.Logf("relay recording CSVs and the replay's ticks.csv kept in %s", keep)
-		}
-		if liveAgree < 0.98 {
-			t.Errorf("LIVE/not-LIVE agreement %.1f%%, want >= 98%%", 100*liveAgree)
-		}
-		if agree < 0.95 {
-			t.Errorf("state agreement %.1f%%, want >= 95%%", 100*agree)
-		}
+		checkReplayAgreement(t, r.recordDir, cutoff, "e2e-outage-recording")
 	})
 }
 
@@ -285,5 +214,93 @@ func TestKeyframeRequestDelay(t *testing.T) {
 				t.Errorf("resume %v, delay %v; want %v, %v", resume.Sub(t0), pli.Sub(resume), 512*time.Millisecond, tc.want)
 			}
 		})
+	}
+}
+
+// checkReplayAgreement replays a relay's recording (closed) with bench.Replay,
+// its recorded arrivals and the operator's cutoff, and wants the replay's
+// per-tick states to be the relay's (shown.csv): at least 95 % the same
+// state and 98 % the same LIVE or not, over the ticks in both that the relay
+// did not leave NOT_SHOWN. On a miss it logs each differing tick and keeps
+// the recording's CSVs and the replay's ticks in the artifact directory
+// named artifact.
+func checkReplayAgreement(t *testing.T, recordDir string, cutoff float64, artifact string) {
+	t.Helper()
+	rec, err := recording.Open(recordDir)
+	if err != nil {
+		t.Fatalf("relay recording: %v", err)
+	}
+	ticks := readTicks(t, filepath.Join(recordDir, relay.ShownFile))
+	out := filepath.Join(t.TempDir(), "replay")
+	pol := predictor.DefaultPolicy()
+	pol.CutoffConfidence = cutoff
+	_, err = bench.Replay(context.Background(), bench.ReplayConfig{
+		Drive: recordDir, Out: out, ArrivalsFile: filepath.Join(recordDir, "arrivals.csv"),
+		Policy: pol, AllowanceMs: relay.DefaultAllowanceMs, Examples: -1, Logger: quietLogger(),
+	})
+	if err != nil {
+		t.Fatalf("bench.Replay on the relay's recording: %v", err)
+	}
+	replayed := readTicks(t, filepath.Join(out, bench.TicksFile))
+	var both, same, liveSame, skipped int
+	var diffs []string
+	for k, ls := range ticks {
+		rs, ok := replayed[k]
+		if !ok {
+			continue
+		}
+		if ls == display.StateNotShown.String() {
+			skipped++
+			continue
+		}
+		both++
+		if ls == rs {
+			same++
+		} else if len(diffs) < 10 {
+			diffs = append(diffs, fmt.Sprintf("tick %d live %s replay %s", k, ls, rs))
+		}
+		if (ls == "LIVE") == (rs == "LIVE") {
+			liveSame++
+		}
+	}
+	if both == 0 {
+		t.Fatal("no tick in both the relay's shown.csv and the replay's ticks.csv")
+	}
+	agree, liveAgree := float64(same)/float64(both), float64(liveSame)/float64(both)
+	t.Logf("replay vs live over %d ticks (%d NOT_SHOWN left out): state agreement %.1f%%, LIVE/not-LIVE agreement %.1f%%; first differences %v",
+		both, skipped, 100*agree, 100*liveAgree, diffs)
+	if t.Failed() || agree < 0.95 || liveAgree < 0.98 {
+		arr, err := recording.ReadArrivals(filepath.Join(recordDir, "arrivals.csv"))
+		if err == nil {
+			byIdx := map[int]recording.Arrival{}
+			for _, a := range arr {
+				byIdx[a.Index] = a
+			}
+			for k := range ticks {
+				if rs, ok := replayed[k]; ok && rs != ticks[k] {
+					a := byIdx[k]
+					t.Logf("tick %d: live %s, replay %s; capture %d, arrived %v at %+d us after deadline (deadline recorded %v)",
+						k, ticks[k], rs, rec.Frames[k].CaptureUs, a.Arrived, a.ArrivalUs-a.DeadlineUs, a.HasDeadline)
+				}
+			}
+		}
+		t.Logf("live ticks %d, replayed ticks %d, recorded frames %d", len(ticks), len(replayed), len(rec.Frames))
+		keep := filepath.Join(consoletest.ArtifactDir(t), artifact)
+		_ = os.MkdirAll(keep, 0o755)
+		for _, name := range []string{"arrivals.csv", "frames.csv", relay.ShownFile, "telemetry.csv"} {
+			if data, err := os.ReadFile(filepath.Join(recordDir, name)); err == nil {
+				_ = os.WriteFile(filepath.Join(keep, name), data, 0o644)
+			}
+		}
+		if data, err := os.ReadFile(filepath.Join(out, bench.TicksFile)); err == nil {
+			_ = os.WriteFile(filepath.Join(keep, "replay-ticks.csv"), data, 0o644)
+		}
+		t.Logf("relay recording CSVs and the replay's ticks.csv kept in %s", keep)
+	}
+	if liveAgree < 0.98 {
+		t.Errorf("LIVE/not-LIVE agreement %.1f%%, want >= 98%%", 100*liveAgree)
+	}
+	if agree < 0.95 {
+		t.Errorf("state agreement %.1f%%, want >= 95%%", 100*agree)
 	}
 }
