@@ -558,7 +558,8 @@ func TestBrowserVehicle(t *testing.T) {
 // the link returning and no LIVE tick while it is cut (after the frames in
 // flight, 150 ms). With STOPGAP_E2E_RECORD=1 the relay records the whole
 // run, and at the end its recording is replayed (checkReplayAgreement): the
-// replay must reach the relay's state on the ticks of every session.
+// replay's states must be the relay's on the ticks of every session (its
+// thresholds).
 func TestAcceptBrowserVehicle(t *testing.T) {
 	requireAccept(t)
 	w, h := 640, 360
