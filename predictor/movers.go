@@ -130,17 +130,19 @@ func (m Mover) Zone(ageMs float64) image.Rectangle {
 const moverMaxSpeedWidthsPerS = 0.25
 
 // The shift search looks within moverNearPx low-resolution pixels first and
-// takes a farther shift only if it matches clearly better (by a fifth:
-// a far match in plain or repeating texture is easily found by chance).
-// When the near search's best lies at its bound, the cost still falls
-// toward larger shifts and the near result is not a minimum: a farther
-// shift is then taken when it is better by moverBoundGain (a twentieth).
+// takes a farther shift only if its cost is below moverFarGain times the
+// near best's (better by a fifth: a far match in plain or repeating texture
+// is easily found by chance). When the near search's best lies at its
+// bound, the cost still falls toward larger shifts and the near result is
+// not a minimum: a farther shift is then taken below moverBoundGain times
+// it (better by a twentieth).
 // On simdrive --traffic seeds 1 to 4 the regions this concerns are near
 // cars passing beside the vehicle and clusters near the picture's side
 // (their best near shift was 9 px, the near search's reach). Design
 // choices.
 const (
 	moverNearPx    = 8
+	moverFarGain   = 0.8
 	moverBoundGain = 0.95
 )
 
@@ -642,8 +644,8 @@ func regionCost(c, b []byte, lab []int32, id int32, w, h int, box image.Rectangl
 // ±r that minimises regionCost: how far the region's content moved between
 // the two frames (against what af predicts); and the cost at no shift (c0)
 // and at the shift returned (cb). The near shifts (within moverNearPx) are
-// searched first, a farther one is taken only if it matches better by the
-// gains of moverBoundGain's comment.
+// searched first, a farther one is taken only if it matches better
+// (moverFarGain, or moverBoundGain when the near best lies at its bound).
 func bestShift(c, b []byte, lab []int32, id int32, w, h int, box image.Rectangle, af affine, r int) (dx, dy int, c0, cb float64) {
 	// Shifts searched on a grid of g = max(2, radius/8) px, then refined
 	// by 1 px within g-1 of the best.
@@ -674,7 +676,7 @@ func bestShift(c, b []byte, lab []int32, id int32, w, h int, box image.Rectangle
 	n := min(r, moverNearPx)
 	bx, by, bc := search(n)
 	if r > n {
-		gain := 0.8
+		gain := moverFarGain
 		if abs(bx) >= n || abs(by) >= n {
 			gain = moverBoundGain
 		}
