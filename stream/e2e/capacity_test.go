@@ -206,6 +206,10 @@ func relayCounters(ctx context.Context, base string) (map[string]float64, error)
 var (
 	metricFramesDropped = relay.MetricPrefix + "frames_dropped_total"
 	metricIngestDropped = relay.MetricPrefix + `rtp_dropped_total{reason="ingest_queue_full"}`
+	// metricGoroutinesCreated counts the goroutines a relay process started:
+	// per frame, the libraries' per-message goroutines (a figure the
+	// machine's load does not move, unlike CPU time).
+	metricGoroutinesCreated = relay.MetricPrefix + "process_goroutines_created_total"
 )
 
 // relayDrops returns what a relay's queues dropped (see metricFramesDropped).
@@ -262,6 +266,9 @@ func relayWork(m0, m1 map[string]float64) string {
 //     RTP assembly, the pass-through or decode-encode path, the display
 //     schedule, SRTP and SCTP;
 //   - relay-rss-mb: mean resident memory of one relay process;
+//   - relay-goroutines-per-frame: goroutines the relays started over the
+//     window per frame the vehicles sent (their /metrics), the libraries'
+//     per-message goroutines among them;
 //   - relay-switches-per-frame: the relays' thread switches (voluntary and
 //     not, every thread, /proc/PID/task/TID/status) over the window per
 //     frame the vehicles sent: the Go runtime's hand-offs between
@@ -353,6 +360,9 @@ type capacityResult struct {
 	kept             int     // streams that kept up
 	relayCores       float64 // CPU of all relay processes / wall time
 	switchesPerFrame float64 // the relays' thread switches per frame the vehicles sent
+	// goroutinesPerFrame is the goroutines the relays started per frame the
+	// vehicles sent.
+	goroutinesPerFrame float64
 }
 
 // runCapacity runs n streams whose relay children use egress mode (see
@@ -481,10 +491,11 @@ func runCapacity(b *testing.B, rec *recording.Recording, drive string, n int, mo
 	var drops uint64
 	var rss float64
 	var decodeCPU time.Duration
-	var framesSent float64
+	var framesSent, goroutines float64
 	for i, s := range streams {
 		metas, _ := s.view.snapshot()
 		m0, m1 := marks[i], ends[i]
+		goroutines += m1.met[metricGoroutinesCreated] - m0.met[metricGoroutinesCreated]
 		sent := float64(m1.veh.FramesEncoded - m0.veh.FramesEncoded)
 		framesSent += sent
 		late := float64(m1.veh.FramesLate-m0.veh.FramesLate) / max(sent, 1)
@@ -556,6 +567,7 @@ func runCapacity(b *testing.B, rec *recording.Recording, drive string, n int, mo
 	b.ReportMetric(relayCores, "relay-cores")
 	b.ReportMetric(relayCores/float64(n), "relay-cores-per-stream")
 	b.ReportMetric(float64(sw1-sw0)/max(framesSent, 1), "relay-switches-per-frame")
+	b.ReportMetric(goroutines/max(framesSent, 1), "relay-goroutines-per-frame")
 	b.ReportMetric(float64(self1-self0)/float64(wall), "veh-viewer-cores")
 	b.ReportMetric(float64(decodeCPU)/float64(wall), "viewer-decode-cores")
 	b.ReportMetric(quantile(lat, 0.5), "live-added-p50-ms")
@@ -563,7 +575,7 @@ func runCapacity(b *testing.B, rec *recording.Recording, drive string, n int, mo
 	b.ReportMetric(rss/(1<<20), "relay-rss-mb")
 	b.Logf("N=%d egress %s, viewers decode %v: window %v, %d LIVE latencies matched; load average %.2f at the start, %.2f at the end",
 		n, mode, decode, wall.Round(time.Millisecond), len(lat), load0, load1)
-	return capacityResult{kept: kept, relayCores: relayCores, switchesPerFrame: float64(sw1-sw0) / max(framesSent, 1)}
+	return capacityResult{kept: kept, relayCores: relayCores, switchesPerFrame: float64(sw1-sw0) / max(framesSent, 1), goroutinesPerFrame: goroutines / max(framesSent, 1)}
 }
 
 // relayCPURoundsEnv is the number of rounds BenchmarkRelayCPU1280x720 runs
@@ -621,8 +633,8 @@ func BenchmarkRelayCPU1280x720(b *testing.B) {
 		}
 		pt, tc := res["passthru"], res["transcode"]
 		if pt.relayCores > 0 && tc.relayCores > 0 {
-			b.Logf("round %d of %d: relay process CPU per stream, pass-through / transcode: %.3f / %.3f cores = %.2f (target <= 0.33); thread switches per frame %.1f / %.1f; kept up %d and %d of 1",
-				round, rounds, pt.relayCores, tc.relayCores, pt.relayCores/tc.relayCores, pt.switchesPerFrame, tc.switchesPerFrame, pt.kept, tc.kept)
+			b.Logf("round %d of %d: relay process CPU per stream, pass-through / transcode: %.3f / %.3f cores = %.2f (target <= 0.33); thread switches per frame %.1f / %.1f; goroutines started per frame %.1f / %.1f; kept up %d and %d of 1",
+				round, rounds, pt.relayCores, tc.relayCores, pt.relayCores/tc.relayCores, pt.switchesPerFrame, tc.switchesPerFrame, pt.goroutinesPerFrame, tc.goroutinesPerFrame, pt.kept, tc.kept)
 			ratios = append(ratios, pt.relayCores/tc.relayCores)
 			ptCores = append(ptCores, pt.relayCores)
 			tcCores = append(tcCores, tc.relayCores)

@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"io"
 	"math"
+	rtmetrics "runtime/metrics"
 	"sort"
 	"strings"
 	"sync"
@@ -230,4 +231,39 @@ func (m *metrics) writeText(w io.Writer, active int, pt passthru.Stats) {
 	m.decode.write(w, p+"decode_seconds", "VP8 decode per frame, plus the I420 to BGR conversion for frames converted at once (not passed through, or recording or video ego-motion on).")
 	m.encode.write(w, p+"encode_seconds", "VP8 encode per output frame.")
 	m.synth.write(w, p+"synth_seconds", "Gap filler time per PREDICTED or STALE tick.")
+	writeRuntime(w)
+}
+
+// runtimeSeries are the Go runtime's own figures the exposition carries:
+// what the relay's process costs the machine besides its codec work (every
+// goroutine started and every OS thread is scheduling work; see DEVELOPERS,
+// the relay's CPU record). Each maps a runtime/metrics name to ours.
+var runtimeSeries = []struct {
+	runtimeName, name, help string
+	counter                 bool
+}{
+	{"/sched/goroutines:goroutines", "process_goroutines", "Goroutines in the relay's process now.", false},
+	{"/sched/goroutines-created:goroutines", "process_goroutines_created", "Goroutines started since the process started (a per-message goroutine of a library shows here as a steady rate).", true},
+	{"/sched/threads/total:threads", "process_threads", "OS threads of the relay's process now.", false},
+	{"/gc/cycles/total:gc-cycles", "process_gc_cycles", "Garbage collections since the process started.", true},
+}
+
+// writeRuntime writes runtimeSeries; a series the running Go does not know is
+// left out rather than written as zero.
+func writeRuntime(w io.Writer) {
+	samples := make([]rtmetrics.Sample, len(runtimeSeries))
+	for i, s := range runtimeSeries {
+		samples[i].Name = s.runtimeName
+	}
+	rtmetrics.Read(samples)
+	for i, s := range runtimeSeries {
+		if samples[i].Value.Kind() != rtmetrics.KindUint64 {
+			continue
+		}
+		name, typ := MetricPrefix+s.name, "gauge"
+		if s.counter {
+			name, typ = name+"_total", "counter"
+		}
+		fmt.Fprintf(w, "# HELP %s %s\n# TYPE %s %s\n%s %d\n", name, s.help, name, typ, name, samples[i].Value.Uint64())
+	}
 }

@@ -59,6 +59,8 @@ func TestMetricNames(t *testing.T) {
 		`stopgap_ticks_total{state="no_picture"} 1` + "\n",
 		`stopgap_ticks_total{state="not_shown"} 0` + "\n",
 		`stopgap_frame_state{state="no_picture"} 0` + "\n",
+		"stopgap_process_goroutines_created_total ",
+		"stopgap_process_threads ",
 	} {
 		if !strings.Contains(text, want) {
 			t.Errorf("exposition lacks %q", want)
