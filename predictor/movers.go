@@ -595,6 +595,13 @@ func (d *MoverDetector) Detect(prev, last gocv.Mat, cam Camera, m filter.Motion,
 		} else if cy < 0 && -cy < bh/2 {
 			ly0 -= cy
 		}
+		// Moving toward a side of the picture within its own width of it,
+		// the thing may reach beyond the region to that side.
+		if sx > 0 && lx0 < bw {
+			lx0 = bodyToSide(bp, w, lx0, lx1, ly0, ly1, -1, thr)
+		} else if sx < 0 && w-lx1 < bw {
+			lx1 = bodyToSide(bp, w, lx0, lx1, ly0, ly1, 1, thr)
+		}
 		var vx, vy float64
 		if dt > 0 {
 			vx, vy = -float64(sx)/s/dt, -float64(sy0)/sy/dt
@@ -604,6 +611,45 @@ func (d *MoverDetector) Detect(prev, last gocv.Mat, cam Camera, m filter.Motion,
 		model.Movers = append(model.Movers, Mover{Box: box, VxPxPerS: vx, VyPxPerS: vy})
 	}
 	return nil
+}
+
+// bodyToSide returns how far toward the picture's side dir (-1 left, +1
+// right) a thing whose last known place spans columns x0 to x1 (exclusive)
+// and rows y0 to y1 (exclusive) of the newer frame b (w pixels wide, grey)
+// reaches: the new x0 for dir -1, x1 for +1. A uniformly coloured body
+// changes only at its ends, and a near one moving toward the side may have
+// its leading end outside the picture (a van passing close beside the
+// vehicle at the picture's edge), so its region holds only its trailing
+// end; the columns beyond the region whose mean grey over the rows stays
+// within thr of the region's leading column are taken as the same body.
+// The Detector asks only for a thing moving toward that side whose region
+// lies within its own width of it.
+func bodyToSide(b []byte, w, x0, x1, y0, y1, dir, thr int) int {
+	if y1 <= y0 || x1 <= x0 {
+		if dir < 0 {
+			return x0
+		}
+		return x1
+	}
+	mean := func(x int) float64 {
+		sum := 0
+		for y := y0; y < y1; y++ {
+			sum += int(b[y*w+x])
+		}
+		return float64(sum) / float64(y1-y0)
+	}
+	if dir < 0 {
+		ref, x := mean(x0), x0-1
+		for x >= 0 && math.Abs(mean(x)-ref) <= float64(thr) {
+			x--
+		}
+		return x + 1
+	}
+	ref, x := mean(x1-1), x1
+	for x < w && math.Abs(mean(x)-ref) <= float64(thr) {
+		x++
+	}
+	return x
 }
 
 // affine maps a low-resolution pixel (x, y) of the newer frame to

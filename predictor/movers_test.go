@@ -626,3 +626,42 @@ func TestBestShiftAtNearBound(t *testing.T) {
 		})
 	}
 }
+
+// TestBodyToSide: the last known place of a thing moving toward a side
+// reaches over the columns that look like its region's leading column, up
+// to the side or to where the picture changes.
+func TestBodyToSide(t *testing.T) {
+	const w, h = 40, 10
+	// Background 100, a body of grey 180 from column 5 to 24 (rows 2 to
+	// 7); the region is columns 15 to 30, its leading side the body.
+	img := func(bodyFrom int) []byte {
+		b := make([]byte, w*h)
+		for y := 0; y < h; y++ {
+			for x := 0; x < w; x++ {
+				b[y*w+x] = 100
+				if x >= bodyFrom && x < 25 && y >= 2 && y < 8 {
+					b[y*w+x] = 180
+				}
+			}
+		}
+		return b
+	}
+	for _, tc := range []struct {
+		name     string
+		bodyFrom int
+		x0, x1   int
+		dir      int
+		want     int
+	}{
+		{"body ends inside the picture", 5, 15, 30, -1, 5},
+		{"body reaches the picture's side", 0, 15, 30, -1, 0},
+		{"toward the right over background only", 5, 10, 30, 1, w},
+		{"leading column unlike its neighbour", 5, 25, 30, -1, 25},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			if got := bodyToSide(img(tc.bodyFrom), w, tc.x0, tc.x1, 2, 8, tc.dir, 20); got != tc.want {
+				t.Errorf("bodyToSide = %d, want %d", got, tc.want)
+			}
+		})
+	}
+}
