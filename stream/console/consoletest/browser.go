@@ -23,6 +23,8 @@ import (
 
 	"github.com/chromedp/cdproto/runtime"
 	"github.com/chromedp/chromedp"
+
+	"stopgap/stream/console"
 )
 
 // DefaultChromium is where Debian's chromium package installs the browser.
@@ -283,8 +285,9 @@ func (b *Browser) WaitFunc(cond func() (ok bool, seen string, err error), what s
 }
 
 // StateChange is one entry of the page's window.__stateLog: the displayed
-// state changed to State (reason given for UNKNOWN) at TMs milliseconds of
-// the page clock (performance.now()).
+// state, or the reason given for UNKNOWN (one of console.UnknownReasons),
+// changed to State and Reason at TMs milliseconds of the page clock
+// (performance.now()).
 type StateChange struct {
 	State  string  `json:"state"`
 	Reason string  `json:"reason"`
@@ -337,15 +340,25 @@ func (b *Browser) Close() error {
 	return fmt.Errorf("consoletest: remove %s: %w", b.userDir, err)
 }
 
+// IsStall reports whether c is a STATE UNKNOWN entry that a stall caused
+// (console.IsStall: reason "meta-silent", "video-frozen" or "status-late").
+func IsStall(c StateChange) bool {
+	return c.State == Unknown && console.IsStall(c.Reason)
+}
+
+// Unknown is the page's data-state while it shows STATE UNKNOWN.
+const Unknown = "UNKNOWN"
+
 // WithoutStalls returns the states of log with the STATE UNKNOWN entries that a
-// stall caused (reason "meta-silent" or "video-frozen", not the first
-// entry) removed and repeated states merged, plus the removed entries. A
-// loaded machine can hold up frames for more than 500 ms, and the page then
-// rightly shows STATE UNKNOWN; tests that check the order of the relay's states
-// use this and bound the number of stalls separately.
+// stall caused (IsStall, not the first entry) removed and repeated states
+// merged, plus the removed entries. A loaded machine can hold up status
+// messages past a LIVE status's limit (console.StatusLateAfterMs) or frames
+// for more than 500 ms, and the page then rightly shows STATE UNKNOWN; tests
+// that check the order of the relay's states use this and bound the number
+// of stalls separately.
 func WithoutStalls(log []StateChange) (states []string, stalls []StateChange) {
 	for i, c := range log {
-		if i > 0 && c.State == "UNKNOWN" && (c.Reason == "meta-silent" || c.Reason == "video-frozen") {
+		if i > 0 && IsStall(c) {
 			stalls = append(stalls, c)
 			continue
 		}

@@ -19,6 +19,9 @@ func TestWithoutStalls(t *testing.T) {
 			[]string{"UNKNOWN", "LIVE", "STALE"}, 1},
 		{"stall across a change", []StateChange{{State: "LIVE"}, {State: "UNKNOWN", Reason: "meta-silent"}, {State: "PREDICTED"}},
 			[]string{"LIVE", "PREDICTED"}, 1},
+		{"late status after LIVE, then silence", []StateChange{{State: "UNKNOWN", Reason: "connecting"}, {State: "LIVE"},
+			{State: "UNKNOWN", Reason: "status-late"}, {State: "UNKNOWN", Reason: "meta-silent"}, {State: "PREDICTED"}},
+			[]string{"UNKNOWN", "LIVE", "PREDICTED"}, 2},
 		{"other UNKNOWN reasons stay", []StateChange{{State: "LIVE"}, {State: "UNKNOWN", Reason: "bad-state"}, {State: "LIVE"}},
 			[]string{"LIVE", "UNKNOWN", "LIVE"}, 0},
 	}
