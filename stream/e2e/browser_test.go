@@ -3,6 +3,7 @@ package e2e
 import (
 	"context"
 	"fmt"
+	"math"
 	"path/filepath"
 	"strings"
 	"testing"
@@ -41,6 +42,9 @@ func TestBrowserOutage(t *testing.T) {
 		if t.Failed() {
 			for _, l := range b.ConsoleLog() {
 				t.Log("page:", l)
+			}
+			if log, err := b.StateLog(); err == nil {
+				t.Logf("page state log: %v", log)
 			}
 		}
 	}()
@@ -125,9 +129,11 @@ func (w testWriter) Write(p []byte) (int, error) {
 // removed (consoletest.IsStall) and with NOT_SHOWN entries removed: a tick
 // the relay decided but did not draw (an overrun of a busy machine) leaves
 // the picture before it on screen, so the state shown is still the one
-// before. Stalls are counted and more than two fail, except a late status
-// between the cut and the end of the outage: that one is the page doing its
-// job on a cut link.
+// before. Stalls of more than 500 ms (meta-silent, video-frozen) are counted
+// and more than two fail. A late status between the cut and the end of the
+// outage is the page doing its job on a cut link; elsewhere it is a busy
+// machine's late or lost status message, reported, and a failure only if
+// the page showed it more than half the time outside the outage.
 func checkOutageStates(t *testing.T, log []consoletest.StateChange, cutMs, outageMs float64) {
 	t.Helper()
 	problems, notes := outageStates(log, cutMs, outageMs)
@@ -144,14 +150,27 @@ func checkOutageStates(t *testing.T, log []consoletest.StateChange, cutMs, outag
 func outageStates(log []consoletest.StateChange, cutMs, outageMs float64) (problems, notes []string) {
 	fail := func(format string, args ...any) { problems = append(problems, fmt.Sprintf(format, args...)) }
 	live := display.StateLive.String()
+	if len(log) == 0 {
+		return []string{"the page's state log is empty"}, nil
+	}
 	var clean []consoletest.StateChange
-	stalls, lateAtCut, notShown := 0, 0, 0
+	stalls, lateAtCut, late, notShown := 0, 0, 0, 0
+	lateMs, firstLiveMs := 0.0, math.NaN()
 	for i, c := range log {
+		if c.State == live && math.IsNaN(firstLiveMs) {
+			firstLiveMs = c.TMs
+		}
 		if i > 0 && consoletest.IsStall(c) {
-			if c.Reason == console.ReasonStatusLate && c.TMs >= cutMs && c.TMs <= cutMs+outageMs {
-				lateAtCut++
-			} else {
+			switch {
+			case c.Reason != console.ReasonStatusLate:
 				stalls++
+			case c.TMs >= cutMs && c.TMs <= cutMs+outageMs:
+				lateAtCut++
+			default:
+				late++
+				if i+1 < len(log) {
+					lateMs += log[i+1].TMs - c.TMs
+				}
 			}
 			continue
 		}
@@ -163,6 +182,12 @@ func outageStates(log []consoletest.StateChange, cutMs, outageMs float64) (probl
 	}
 	if stalls > 2 {
 		fail("%d STATE UNKNOWN stalls in one short run", stalls)
+	}
+	// A late status outside the outage (the relay behind on a busy machine,
+	// a status message lost) shows STATE UNKNOWN for a moment, rightly; a
+	// page that did so most of the time would be useless.
+	if span := log[len(log)-1].TMs - firstLiveMs - outageMs; late > 0 && lateMs > span/2 {
+		fail("STATE UNKNOWN (status-late) for %.0f of %.0f ms outside the outage (%d times): more than half the time", lateMs, span, late)
 	}
 	// stateAt is the relay's state at ms as the page showed it, stalls and
 	// NOT_SHOWN left out; shownAt is what the page displayed, stalls and all.
@@ -220,7 +245,7 @@ func outageStates(log []consoletest.StateChange, cutMs, outageMs float64) (probl
 			fail("LIVE at page time %.0f ms, inside the outage (%.0f..%.0f ms)", c.TMs, cutMs, cutMs+outageMs)
 		}
 	}
-	notes = append(notes, fmt.Sprintf("states from the cut on: %v (late status at the cut: %d, other stalls: %d, NOT_SHOWN ticks: %d)",
-		seq, lateAtCut, stalls, notShown))
+	notes = append(notes, fmt.Sprintf("states from the cut on: %v (late status at the cut: %d; elsewhere: %d, %.0f ms; "+
+		"other stalls: %d; NOT_SHOWN ticks: %d)", seq, lateAtCut, late, lateMs, stalls, notShown))
 	return problems, notes
 }
