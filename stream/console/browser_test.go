@@ -289,19 +289,36 @@ func TestBrowserConsole(t *testing.T) {
 	}
 	log, err := b.StateLog()
 	must(err)
-	// Exactly this order. A machine loaded enough to hold status messages up
-	// past a LIVE status's limit (100 ms here) or frames for more than 500 ms
-	// makes the page show STATE UNKNOWN in between, which is right; those are
-	// reported, and more than two fail the test.
+	// Exactly this order. A machine loaded enough to hold frames or status
+	// messages up for more than 500 ms makes the page show STATE UNKNOWN in
+	// between, which is right; those are reported, and more than two fail
+	// the test. One that holds a status message up past a LIVE status's
+	// limit (100 ms here) makes it show STATE UNKNOWN (status-late) for a
+	// moment, rightly too; that fails only if it lasted more than half the
+	// time from the first LIVE on.
 	got, stalls := consoletest.WithoutStalls(log)
 	if want := []string{"UNKNOWN", "NO_PICTURE", "LIVE", "PREDICTED", "STALE", "NOT_SHOWN", "LIVE"}; !slices.Equal(got, want) {
 		t.Fatalf("state log %v, want exactly %v (%+v)", got, want, log)
 	}
 	if len(stalls) > 0 {
-		t.Logf("stalls during steady streaming (machine load): %+v (log %+v)", stalls, log)
+		t.Logf("stalls during steady streaming (machine load): %+v", stalls)
 	}
-	if len(stalls) > 2 {
-		t.Errorf("page showed STATE UNKNOWN %d times while frames and status flowed", len(stalls))
+	long := 0
+	for _, s := range stalls {
+		if s.Reason != console.ReasonStatusLate {
+			long++
+		}
+	}
+	if long > 2 {
+		t.Errorf("page showed STATE UNKNOWN %d times for 500 ms while frames and status flowed", long)
+	}
+	var nowMs float64
+	must(b.Eval("performance.now()", &nowMs))
+	// the order above has a LIVE
+	firstLive := log[slices.IndexFunc(log, func(c consoletest.StateChange) bool { return c.State == "LIVE" })].TMs
+	isLate := func(c consoletest.StateChange) bool { return c.Reason == console.ReasonStatusLate }
+	if late := consoletest.ShownMs(log, isLate, firstLive, nowMs); late > (nowMs-firstLive)/2 {
+		t.Errorf("page showed STATE UNKNOWN (status-late) for %.0f of %.0f ms while status came every tick", late, nowMs-firstLive)
 	}
 
 	checkStatusLate(t, b, p)
@@ -441,10 +458,11 @@ func TestBrowserConsole(t *testing.T) {
 }
 
 // checkStatusLate: the page computes a LIVE status's limit as
-// console.StatusLateAfterMs does; status messages every 2 ticks (a lost
-// frame or a lost message) do not flicker the banner, and every 4 ticks
-// (133 ms, past the 100 ms limit at 30 fps) they do, each time. It leaves
-// the pump sending every tick, LIVE.
+// console.StatusLateAfterMs does; status messages every 2 ticks (67 ms: a
+// lost frame or a lost message) do not flicker the banner more than
+// messages every tick do in the same run (what the machine's load causes),
+// and every 4 ticks (133 ms, past the 100 ms limit at 30 fps) they do, at
+// nearly every gap. It leaves the pump sending every tick, LIVE.
 func checkStatusLate(t *testing.T, b *consoletest.Browser, p *pump) {
 	t.Helper()
 	for _, c := range []struct {
@@ -486,11 +504,14 @@ func checkStatusLate(t *testing.T, b *consoletest.Browser, p *pump) {
 		}
 		return n
 	}
-	// 2 ticks: 67 ms between status messages, a third under the limit.
-	if n := lateIn(2, 3*time.Second); n > 1 {
-		t.Errorf("status every 2 ticks (67 ms) for 3 s: the banner flickered to STATE UNKNOWN (status-late) %d times", n)
-	} else if n == 1 {
-		t.Logf("status every 2 ticks for 3 s: one status-late (machine load)")
+	// 2 ticks: 67 ms between status messages, a third under the limit;
+	// against every tick for as long, just before.
+	n1 := lateIn(1, 3*time.Second)
+	n2 := lateIn(2, 3*time.Second)
+	t.Logf("status-late in 3 s: %d with status every tick, %d every 2 ticks", n1, n2)
+	if n2 > n1+2 {
+		t.Errorf("status every 2 ticks (67 ms) for 3 s: the banner flickered to STATE UNKNOWN (status-late) %d times, "+
+			"against %d with status every tick", n2, n1)
 	}
 	// 4 ticks: 133 ms, a third over; 15 gaps in 2 s, nearly all seen late.
 	if n := lateIn(4, 2*time.Second); n < 10 {

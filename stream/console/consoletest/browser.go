@@ -369,3 +369,20 @@ func WithoutStalls(log []StateChange) (states []string, stalls []StateChange) {
 	}
 	return states, stalls
 }
+
+// ShownMs returns how long, in ms of the page clock, the page showed an
+// entry of log for which match is true between fromMs and toMs: each entry
+// lasts until the next one, the last until toMs.
+func ShownMs(log []StateChange, match func(StateChange) bool, fromMs, toMs float64) float64 {
+	total := 0.0
+	for i, c := range log {
+		end := toMs
+		if i+1 < len(log) {
+			end = min(log[i+1].TMs, toMs)
+		}
+		if start := max(c.TMs, fromMs); match(c) && end > start {
+			total += end - start
+		}
+	}
+	return total
+}
