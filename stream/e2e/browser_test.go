@@ -155,7 +155,8 @@ func outageStates(log []consoletest.StateChange, cutMs, outageMs float64) (probl
 	}
 	var clean []consoletest.StateChange
 	stalls, lateAtCut, late, notShown := 0, 0, 0, 0
-	lateMs, firstLiveMs := 0.0, math.NaN()
+	firstLiveMs := math.NaN()
+	atCut := func(c consoletest.StateChange) bool { return c.TMs >= cutMs && c.TMs <= cutMs+outageMs }
 	for i, c := range log {
 		if c.State == live && math.IsNaN(firstLiveMs) {
 			firstLiveMs = c.TMs
@@ -164,13 +165,10 @@ func outageStates(log []consoletest.StateChange, cutMs, outageMs float64) (probl
 			switch {
 			case c.Reason != console.ReasonStatusLate:
 				stalls++
-			case c.TMs >= cutMs && c.TMs <= cutMs+outageMs:
+			case atCut(c):
 				lateAtCut++
 			default:
 				late++
-				if i+1 < len(log) {
-					lateMs += log[i+1].TMs - c.TMs
-				}
 			}
 			continue
 		}
@@ -186,7 +184,11 @@ func outageStates(log []consoletest.StateChange, cutMs, outageMs float64) (probl
 	// A late status outside the outage (the relay behind on a busy machine,
 	// a status message lost) shows STATE UNKNOWN for a moment, rightly; a
 	// page that did so most of the time would be useless.
-	if span := log[len(log)-1].TMs - firstLiveMs - outageMs; late > 0 && lateMs > span/2 {
+	endMs := log[len(log)-1].TMs
+	lateMs := consoletest.ShownMs(log, func(c consoletest.StateChange) bool {
+		return c.Reason == console.ReasonStatusLate && !atCut(c)
+	}, firstLiveMs, endMs)
+	if span := endMs - firstLiveMs - outageMs; late > 0 && lateMs > span/2 {
 		fail("STATE UNKNOWN (status-late) for %.0f of %.0f ms outside the outage (%d times): more than half the time", lateMs, span, late)
 	}
 	// stateAt is the relay's state at ms as the page showed it, stalls and
