@@ -87,9 +87,14 @@ func TestBrowserOutage(t *testing.T) {
 	o, err := r.link.OutageNow(outage)
 	must(err)
 	t.Logf("outage %v from page time %.0f ms", o, cutMs)
-	must(b.WaitState("PREDICTED", 2*time.Second))
+	// From the state log, not the displayed state: on a busy relay a
+	// PREDICTED tick can be followed within the millisecond by a NOT_SHOWN
+	// one, which keeps the predicted picture on screen under its own banner.
+	pred, err := b.WaitLogged("PREDICTED", cutMs, 2*time.Second)
+	must(err)
 	shot("e2e-predicted.png")
-	must(b.WaitState("STALE", 3*time.Second))
+	_, err = b.WaitLogged("STALE", pred.TMs, 3*time.Second)
+	must(err)
 	must(b.CheckCautionVisible())
 	shot("e2e-stale.png")
 	must(b.WaitState("LIVE", 10*time.Second))
@@ -235,11 +240,15 @@ func outageStates(log []consoletest.StateChange, cutMs, outageMs float64) (probl
 	if s := at(log, cutMs+150); s.State == live {
 		fail("still LIVE 150 ms into the outage: a frozen picture passed as live")
 	}
-	for _, c := range log {
-		if c.TMs > cutMs && c.State != live {
-			notes = append(notes, fmt.Sprintf("first state shown after the cut that is not LIVE: %s %s, %.0f ms after the cut",
-				c.State, c.Reason, c.TMs-cutMs))
-			break
+	if s := at(log, cutMs); s.State != live {
+		notes = append(notes, fmt.Sprintf("shown at the cut: %s %s, not LIVE (a busy machine)", s.State, s.Reason))
+	} else {
+		for _, c := range log {
+			if c.TMs > cutMs && c.State != live {
+				notes = append(notes, fmt.Sprintf("LIVE at the cut; first state shown after it that is not LIVE: %s %s, %.0f ms after the cut",
+					c.State, c.Reason, c.TMs-cutMs))
+				break
+			}
 		}
 	}
 	for _, c := range clean {

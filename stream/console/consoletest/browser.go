@@ -294,6 +294,35 @@ type StateChange struct {
 	TMs    float64 `json:"t_ms"`
 }
 
+// WaitLogged polls the page's state log every 20 ms until it has an entry
+// of the given state at or after sinceMs (page clock) and returns the first
+// such entry. Unlike WaitState it sees a state the page showed only for a
+// moment (a PREDICTED tick followed in the same millisecond by a NOT_SHOWN
+// one on a busy relay), which polling the displayed state can miss. The
+// error wraps ErrTimeout and gives the log's entries since sinceMs.
+func (b *Browser) WaitLogged(state string, sinceMs float64, timeout time.Duration) (StateChange, error) {
+	var found StateChange
+	err := b.WaitFunc(func() (bool, string, error) {
+		log, err := b.StateLog()
+		if err != nil {
+			return false, "", err
+		}
+		var since []StateChange
+		for _, c := range log {
+			if c.TMs < sinceMs {
+				continue
+			}
+			if c.State == state {
+				found = c
+				return true, "", nil
+			}
+			since = append(since, c)
+		}
+		return false, fmt.Sprintf("%v", since), nil
+	}, fmt.Sprintf("%s in the state log from page time %.0f ms", state, sinceMs), timeout)
+	return found, err
+}
+
 // StateLog returns the page's state log.
 func (b *Browser) StateLog() ([]StateChange, error) {
 	var log []StateChange
