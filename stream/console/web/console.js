@@ -29,7 +29,9 @@
 //
 // For tests: <body data-state="LIVE|PREDICTED|STALE|NO_PICTURE|NOT_SHOWN|UNKNOWN" data-reason=...>
 // and window.__stateLog, one {state, reason, t_ms} entry per change of the
-// displayed state or of its reason (t_ms on performance.now()).
+// displayed state or of its reason (t_ms on performance.now());
+// window.__console.statusLateAfterMs(period_ms) is the page's limit for a
+// LIVE status, which a test compares with the Go side's.
 "use strict";
 (() => {
   const META_SILENCE_MS = 500;
