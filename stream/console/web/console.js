@@ -31,7 +31,9 @@
 // and window.__stateLog, one {state, reason, t_ms} entry per change of the
 // displayed state or of its reason (t_ms on performance.now());
 // window.__console.statusLateAfterMs(period_ms) is the page's limit for a
-// LIVE status, which a test compares with the Go side's.
+// LIVE status, which a test compares with the Go side's, and
+// window.__console.metaTimes the arrival times of the last (up to 600)
+// status messages.
 "use strict";
 (() => {
   const META_SILENCE_MS = 500;
@@ -56,7 +58,9 @@
 
   const stateLog = [];
   window.__stateLog = stateLog;
-  window.__console = { meta: null, lastMetaMs: null, statusLateAfterMs: statusLateAfterMs };
+  // metaTimes: when the last status messages came (page clock), for tests.
+  const metaTimes = [];
+  window.__console = { meta: null, lastMetaMs: null, metaTimes: metaTimes, statusLateAfterMs: statusLateAfterMs };
 
   let token = takeToken();
   let shown = "";
@@ -270,6 +274,8 @@
     }
     window.__console.meta = m;
     window.__console.lastMetaMs = lastMetaAt;
+    metaTimes.push(lastMetaAt);
+    if (metaTimes.length > 600) metaTimes.splice(0, 100);
     // A LIVE status expires on this page's clock: look again the moment it
     // does, not at the next watchdog round (WATCH_MS later at worst).
     clearTimeout(lateTimer);
