@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"io"
 	"log/slog"
+	"math"
 	"net"
 	"net/http"
 	"os"
@@ -51,24 +52,26 @@ func readIVF(path string) ([][]byte, error) {
 }
 
 // pump plays the clip in a loop at 30 fps and sends one meta message per
-// frame with the state the test sets. Keyframe requests restart the clip at
-// its next keyframe (every 10th frame).
+// frame (or per metaEvery frames) with the state the test sets. Keyframe
+// requests restart the clip at its next keyframe (every 10th frame).
 type pump struct {
-	c       *console.Console
-	frames  [][]byte
-	state   atomic.Int32 // display.State
-	video   atomic.Bool
-	meta    atomic.Bool
-	silent  atomic.Bool // the link reports no packets for 1200 ms
-	wantKey atomic.Bool
-	stop    chan struct{}
-	done    chan struct{}
-	errs    atomic.Int64
+	c         *console.Console
+	frames    [][]byte
+	state     atomic.Int32 // display.State
+	video     atomic.Bool
+	meta      atomic.Bool
+	metaEvery atomic.Int32 // send meta on every metaEvery-th tick only; 0 or 1: every tick
+	silent    atomic.Bool  // the link reports no packets for 1200 ms
+	wantKey   atomic.Bool
+	stop      chan struct{}
+	done      chan struct{}
+	errs      atomic.Int64
 }
 
 func (p *pump) run() {
 	defer close(p.done)
 	const period = time.Second / 30
+	const periodMs = 1000.0 / 30
 	tk := time.NewTicker(period)
 	defer tk.Stop()
 	idx, seq := 0, uint64(0)
@@ -103,13 +106,13 @@ func (p *pump) run() {
 			age, conf = 0, 0 // no picture on screen from this tick: no age (Meta.Validate)
 		}
 		seq++
-		if p.meta.Load() {
+		if every := uint64(max(1, p.metaEvery.Load())); p.meta.Load() && seq%every == 0 {
 			link := console.LinkStats{LossPct: 7.5, JitterMs: 14, DelayMs: 92, KeyframeRequests: 4, FramesIn: seq}
 			if p.silent.Load() {
 				link.LossPct, link.JitterMs, link.NoPacketsMs = 0, 0, 1200
 			}
 			err := p.c.WriteMeta(console.Meta{
-				Seq: seq, TimeUs: int64(seq) * 33333, State: st, AgeMs: age, MaxAgeMs: 3000, Why: why, Confidence: conf,
+				Seq: seq, TimeUs: int64(seq) * 33333, State: st, AgeMs: age, MaxAgeMs: 3000, PeriodMs: periodMs, Why: why, Confidence: conf,
 				Cutoff: p.c.Cutoff(), Profile: p.c.Profile(), Link: link,
 			})
 			if err != nil {
@@ -121,8 +124,10 @@ func (p *pump) run() {
 
 // TestBrowserConsole drives the real page in headless Chromium over
 // WebRTC on loopback: state sequence (NO_PICTURE first, as a session
-// starts), banners, caution, no picture age without a picture, silence and
-// frozen picture detection, cutoff limits, screenshots.
+// starts), banners, caution, no picture age without a picture, a LIVE
+// status expiring on the page's clock (status-late) and not flickering at
+// ordinary gaps, silence and frozen picture detection, cutoff limits,
+// screenshots.
 func TestBrowserConsole(t *testing.T) {
 	exe := consoletest.RequireChromium(t)
 	frames, err := readIVF("testdata/drive320.ivf")
@@ -284,9 +289,13 @@ func TestBrowserConsole(t *testing.T) {
 	}
 	log, err := b.StateLog()
 	must(err)
-	// Exactly this order. A machine loaded enough to hold frames up for more
-	// than 500 ms makes the page show STATE UNKNOWN in between, which is right;
-	// those are reported, and more than two fail the test.
+	// Exactly this order. A machine loaded enough to hold frames or status
+	// messages up for more than 500 ms makes the page show STATE UNKNOWN in
+	// between, which is right; those are reported, and more than two fail
+	// the test. One that holds a status message up past a LIVE status's
+	// limit (100 ms here) makes it show STATE UNKNOWN (status-late) for a
+	// moment, rightly too; that fails only if it lasted more than half the
+	// time from the first LIVE on.
 	got, stalls := consoletest.WithoutStalls(log)
 	if want := []string{"UNKNOWN", "NO_PICTURE", "LIVE", "PREDICTED", "STALE", "NOT_SHOWN", "LIVE"}; !slices.Equal(got, want) {
 		t.Fatalf("state log %v, want exactly %v (%+v)", got, want, log)
@@ -294,26 +303,70 @@ func TestBrowserConsole(t *testing.T) {
 	if len(stalls) > 0 {
 		t.Logf("stalls during steady streaming (machine load): %+v", stalls)
 	}
-	if len(stalls) > 2 {
-		t.Errorf("page showed STATE UNKNOWN %d times while frames and status flowed", len(stalls))
+	long := 0
+	for _, s := range stalls {
+		if s.Reason != console.ReasonStatusLate {
+			long++
+		}
+	}
+	if long > 2 {
+		t.Errorf("page showed STATE UNKNOWN %d times for 500 ms while frames and status flowed", long)
+	}
+	var nowMs float64
+	must(b.Eval("performance.now()", &nowMs))
+	// the order above has a LIVE
+	firstLive := log[slices.IndexFunc(log, func(c consoletest.StateChange) bool { return c.State == "LIVE" })].TMs
+	isLate := func(c consoletest.StateChange) bool { return c.Reason == console.ReasonStatusLate }
+	if late := consoletest.ShownMs(log, isLate, firstLive, nowMs); late > (nowMs-firstLive)/2 {
+		t.Errorf("page showed STATE UNKNOWN (status-late) for %.0f of %.0f ms while status came every tick", late, nowMs-firstLive)
 	}
 
-	// Meta silence: the page itself must say STATE UNKNOWN after 500 ms.
+	checkStatusLate(t, b, p)
+
+	// Status stops after LIVE: the page itself must say STATE UNKNOWN, first
+	// because the LIVE status is late (console.StatusLateAfterMs of its
+	// period, 100 ms at 30 fps), then because the channel is silent (500 ms).
+	lateMs := console.StatusLateAfterMs(1000.0 / 30)
 	p.meta.Store(false)
-	must(b.WaitAttr("data-reason", "meta-silent", 3*time.Second))
+	var late struct{ Reason, Banner string }
+	must(b.WaitFunc(func() (bool, string, error) {
+		err := b.Eval(`({Reason: document.body.dataset.reason,
+			Banner: document.getElementById("banner").innerText.replace(/\s+/g, " ").trim()})`, &late)
+		return late.Reason == console.ReasonStatusLate, fmt.Sprintf("%+v", late), err
+	}, "reason status-late", 3*time.Second))
+	if !regexp.MustCompile(`^STATE UNKNOWN — no status for \d+ ms after a live frame; treat the picture as unknown$`).MatchString(late.Banner) {
+		t.Errorf("status-late banner %q", late.Banner)
+	}
+	must(b.WaitAttr("data-reason", console.ReasonMetaSilent, 3*time.Second))
 	if st, _ := b.State(); st != "UNKNOWN" {
 		t.Errorf("state %s with reason meta-silent", st)
 	}
 	log, _ = b.StateLog()
-	// on the page's own clock: not before 500 ms of silence, and promptly
-	// after (the watchdog runs every 50 ms; 1.5 s leaves room for a loaded CI)
+	// on the page's own clock: not before the limits, and promptly after
+	// (the page looks again at a LIVE status's limit and runs its watchdog
+	// every 50 ms; 100 ms and 1 s of room for a loaded CI)
 	var lastMetaMs float64
 	must(b.Eval("window.__console.lastMetaMs", &lastMetaMs))
-	if e := log[len(log)-1]; e.State == "UNKNOWN" && e.Reason == "meta-silent" {
-		if d := e.TMs - lastMetaMs; d < 500 || d > 1500 {
-			t.Errorf("STATE UNKNOWN shown %.0f ms after the last status message, want 500..1500", d)
-		} else {
-			t.Logf("STATE UNKNOWN shown %.0f ms after the last status message", d)
+	when := map[string]float64{}
+	for _, e := range log {
+		if e.State == "UNKNOWN" && e.TMs >= lastMetaMs {
+			if _, ok := when[e.Reason]; !ok {
+				when[e.Reason] = e.TMs - lastMetaMs
+			}
+		}
+	}
+	for _, w := range []struct {
+		reason   string
+		from, to float64
+	}{{console.ReasonStatusLate, lateMs, lateMs + 100}, {console.ReasonMetaSilent, console.MetaSilenceMs, console.MetaSilenceMs + 1000}} {
+		d, ok := when[w.reason]
+		switch {
+		case !ok:
+			t.Errorf("no %s in the state log after the last status message (%+v)", w.reason, log)
+		case d < w.from || d > w.to:
+			t.Errorf("STATE UNKNOWN (%s) shown %.0f ms after the last status message, want %.0f..%.0f", w.reason, d, w.from, w.to)
+		default:
+			t.Logf("STATE UNKNOWN (%s) shown %.0f ms after the last status message", w.reason, d)
 		}
 	}
 	banner, _ = b.BannerText()
@@ -401,6 +454,112 @@ func TestBrowserConsole(t *testing.T) {
 	}
 	if errs := pageErrors(b.ConsoleLog()); len(errs) > 0 {
 		t.Errorf("page errors: %v", errs)
+	}
+}
+
+// checkStatusLate: the page computes a LIVE status's limit as
+// console.StatusLateAfterMs does; status messages every 2 ticks (67 ms: a
+// lost frame or a lost message) do not flicker the banner, but for gaps
+// that the machine's load made longer than the limit; and every 4 ticks
+// (133 ms, past the 100 ms limit at 30 fps) they do, at every gap. It
+// leaves the pump sending every tick, LIVE.
+func checkStatusLate(t *testing.T, b *consoletest.Browser, p *pump) {
+	t.Helper()
+	for _, c := range []struct {
+		js     string  // period_ms as the page may get it
+		period float64 // as Go has it (null or a string: not given, 0)
+	}{
+		{"0", 0}, {"-1", -1}, {"1000/240", 1000.0 / 240}, {"1000/60", 1000.0 / 60}, {"1000/30", 1000.0 / 30}, {"40", 40},
+		{"1000/15", 1000.0 / 15}, {"100", 100}, {"200", 200}, {"1e12", 1e12}, {"null", 0}, {`"33"`, 0},
+	} {
+		var page float64
+		if err := b.Eval("window.__console.statusLateAfterMs("+c.js+")", &page); err != nil {
+			t.Fatal(err)
+		}
+		if want := console.StatusLateAfterMs(c.period); math.Abs(page-want) > 1e-9 {
+			t.Errorf("page: a LIVE status with period_ms %s stays good %v ms, console.StatusLateAfterMs says %v", c.js, page, want)
+		}
+	}
+
+	// Status every `every` ticks for d: how many times the page showed
+	// status-late, and the gaps between status messages as they reached
+	// the page (the machine's load lengthens some).
+	limit := console.StatusLateAfterMs(1000.0 / 30)
+	lateIn := func(every int32, d time.Duration) (flickers int, gaps []float64) {
+		t.Helper()
+		if err := b.WaitState("LIVE", 5*time.Second); err != nil {
+			t.Fatal(err)
+		}
+		var fromMs, toMs float64
+		if err := b.Eval("performance.now()", &fromMs); err != nil {
+			t.Fatal(err)
+		}
+		p.metaEvery.Store(every)
+		time.Sleep(d)
+		if err := b.Eval("performance.now()", &toMs); err != nil {
+			t.Fatal(err)
+		}
+		p.metaEvery.Store(1)
+		time.Sleep(300 * time.Millisecond) // the gap that ends after toMs
+		var times []float64
+		log, err := b.StateLog()
+		if err == nil {
+			err = b.Eval("window.__console.metaTimes", &times)
+		}
+		if err != nil {
+			t.Fatal(err)
+		}
+		// a flicker at t belongs to the gap from t - limit on
+		for _, e := range log {
+			if e.Reason == console.ReasonStatusLate && e.TMs >= fromMs && e.TMs <= toMs {
+				flickers++
+			}
+		}
+		for k := 1; k < len(times); k++ {
+			if a := times[k-1]; a >= fromMs-limit && a <= toMs {
+				gaps = append(gaps, times[k]-a)
+			}
+		}
+		return flickers, gaps
+	}
+	over := func(gaps []float64) (n int) {
+		for _, g := range gaps {
+			if g > limit {
+				n++
+			}
+		}
+		return n
+	}
+	median := func(gaps []float64) float64 {
+		s := slices.Sorted(slices.Values(gaps))
+		if len(s) == 0 {
+			return math.NaN()
+		}
+		return s[len(s)/2]
+	}
+	// 2 ticks: 67 ms between status messages, a third under the limit. The
+	// page may show status-late only for a gap that really exceeded the
+	// limit as the messages reached it (the machine's doing, counted).
+	n2, g2 := lateIn(2, 3*time.Second)
+	t.Logf("status every 2 ticks for 3 s: %d gaps, median %.0f ms, %d over the %.0f ms limit; status-late shown %d times",
+		len(g2), median(g2), over(g2), limit, n2)
+	if m := median(g2); !(m > 55 && m < 80) {
+		t.Errorf("status every 2 ticks: median gap %.0f ms at the page, want about 67", m)
+	}
+	if n2 > over(g2) {
+		t.Errorf("status every 2 ticks (67 ms): the banner flickered to STATE UNKNOWN (status-late) %d times, "+
+			"but only %d gaps were longer than %.0f ms", n2, over(g2), limit)
+	}
+	// 4 ticks: 133 ms, a third over: every such gap shows status-late.
+	n4, g4 := lateIn(4, 2*time.Second)
+	t.Logf("status every 4 ticks for 2 s: %d gaps, median %.0f ms, %d over the limit; status-late shown %d times",
+		len(g4), median(g4), over(g4), n4)
+	if over(g4) < 10 || n4 < over(g4)-1 {
+		t.Errorf("status every 4 ticks (133 ms) for 2 s: status-late shown %d times for %d gaps over %.0f ms, want one per gap (about 15)",
+			n4, over(g4), limit)
+	}
+	if err := b.WaitState("LIVE", 5*time.Second); err != nil {
+		t.Fatal(err)
 	}
 }
 

@@ -19,7 +19,8 @@
 //
 //   - one VP8 video track (RTP clock 90 kHz), and
 //   - a data channel labelled "meta" carrying one JSON text message per output
-//     frame (see [Meta] for the fields and units).
+//     frame (see [Meta] for the fields and units), with the relay's display
+//     tick period, so the page knows how soon the next one is due.
 //
 // The "meta" channel is pre-negotiated: both sides create it with
 // negotiated=true, id=0, ordered=false, maxRetransmits=0, so the offer must
@@ -66,8 +67,20 @@
 // Predicted frames move the static scene only; anything that moved during the
 // gap (a pedestrian, a braking car) is not in them. The page says so
 // permanently, frames each state unmistakably, and shows STATE UNKNOWN
-// when the meta channel is silent for more than 500 ms or the picture stops
-// changing, so a frozen picture never looks live.
+// (reasons: [UnknownReasons]) when the meta channel is silent for more than
+// [MetaSilenceMs], the picture stops changing for more than [VideoFreezeMs],
+// or a LIVE status gets no newer one in time, so a frozen picture never
+// looks live.
+//
+// LIVE claims that the picture is current, so the page lets the claim
+// expire on its own clock: [StatusLateAfterMs] of the status's tick period
+// ([Meta.PeriodMs]) after a LIVE status, 3 periods within [100, 300] ms
+// (100 ms at 30 fps), it shows STATE UNKNOWN, reason [ReasonStatusLate],
+// until a newer status comes. On a cut link that covers the time until the
+// relay decides the next tick (PREDICTED), which is one period plus the
+// display clock's allowance normally and more on a busy relay. The reasons
+// for the limits, and why PREDICTED and STALE do not expire so, are beside
+// the constants ([StatusLateIntervals]).
 //
 // This package uses no cgo: frames arrive already VP8-encoded.
 //

@@ -215,7 +215,7 @@ func TestEgressMetaFanOut(t *testing.T) {
 	}
 	e.remove(va)
 	e.remove(vb)
-	want, _ := (&Meta{Seq: 2, TimeUs: 27066666, State: display.StatePredicted, AgeMs: 133.5, Confidence: 0.81, Cutoff: 0.6,
+	want, _ := (&Meta{Seq: 2, TimeUs: 27066666, State: display.StatePredicted, AgeMs: 133.5, PeriodMs: sampleMeta().PeriodMs, Confidence: 0.81, Cutoff: 0.6,
 		Profile: "city", Link: sampleMeta().Link}).AppendJSON(nil)
 	for _, s := range []*fakeSink{a, b} {
 		if len(s.metas) != 3 || s.metas[2] != string(want) {

@@ -37,7 +37,7 @@ func Example() {
 	if err := c.WriteFrame(vp8, time.Second/30); err != nil {
 		fmt.Println(err)
 	}
-	err = c.WriteMeta(console.Meta{Seq: 1, TimeUs: 33333, State: display.StatePredicted, AgeMs: 120,
+	err = c.WriteMeta(console.Meta{Seq: 1, TimeUs: 33333, State: display.StatePredicted, AgeMs: 120, PeriodMs: 1000.0 / 30,
 		Confidence: 0.8, Cutoff: c.Cutoff(), Profile: c.Profile()})
 	if err != nil {
 		fmt.Println(err)
@@ -52,6 +52,20 @@ func Example() {
 	// cutoff 0.95 is outside the administrator's limits [0.3, 0.9]; choose a value in that range or ask the administrator to change the limits
 	// city 0.6
 	// http://127.0.0.1:8088/#token=TOKEN
+}
+
+// ExampleStatusLateAfterMs: how long the page keeps showing LIVE after a
+// LIVE status with no newer one, for a few camera rates (Meta.PeriodMs).
+func ExampleStatusLateAfterMs() {
+	for _, fps := range []float64{60, 30, 15, 5} {
+		fmt.Printf("%2.0f fps: STATE UNKNOWN (%s) %.0f ms after the last LIVE status\n",
+			fps, console.ReasonStatusLate, console.StatusLateAfterMs(1000/fps))
+	}
+	// Output:
+	// 60 fps: STATE UNKNOWN (status-late) 100 ms after the last LIVE status
+	// 30 fps: STATE UNKNOWN (status-late) 100 ms after the last LIVE status
+	// 15 fps: STATE UNKNOWN (status-late) 200 ms after the last LIVE status
+	//  5 fps: STATE UNKNOWN (status-late) 300 ms after the last LIVE status
 }
 
 func ptr[T any](v T) *T { return &v }

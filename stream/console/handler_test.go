@@ -2,9 +2,12 @@ package console
 
 import (
 	"encoding/json"
+	"fmt"
 	"html"
 	"net/http"
 	"net/http/httptest"
+	"regexp"
+	"slices"
 	"strconv"
 	"strings"
 	"testing"
@@ -289,6 +292,43 @@ func TestPageSaysSharedWords(t *testing.T) {
 	for _, s := range display.States {
 		if want := `body[data-state="` + s.String() + `"]`; !strings.Contains(css, want) {
 			t.Errorf("console.css has no style for %s", want)
+		}
+	}
+	checkPageReasons(t, js)
+}
+
+// checkPageReasons: the page's reasons for STATE UNKNOWN are exactly
+// UnknownReasons, in order; it gives only those (every `reason = "..."` is
+// one), has a banner text for each (`case "...":`), and its watchdog limits
+// are this package's.
+func checkPageReasons(t *testing.T, js string) {
+	t.Helper()
+	var quoted []string
+	for _, r := range UnknownReasons {
+		quoted = append(quoted, strconv.Quote(r))
+		if !strings.Contains(js, "case "+strconv.Quote(r)+":") {
+			t.Errorf("console.js has no banner text (case %q:) for the reason %s", r, r)
+		}
+	}
+	if want := "const REASONS = [" + strings.Join(quoted, ", ") + "];"; !strings.Contains(js, want) {
+		t.Errorf("console.js lacks %s", want)
+	}
+	var given []string
+	for _, m := range regexp.MustCompile(`reason = "([^"]+)"`).FindAllStringSubmatch(js, -1) {
+		given = append(given, m[1])
+	}
+	slices.Sort(given)
+	want := slices.Sorted(slices.Values(UnknownReasons))
+	if !slices.Equal(given, want) {
+		t.Errorf("console.js gives the reasons %v (reason = \"...\"), want each of console.UnknownReasons once: %v", given, want)
+	}
+	for _, want := range []string{
+		fmt.Sprintf("const META_SILENCE_MS = %d;", MetaSilenceMs),
+		fmt.Sprintf("const VIDEO_FREEZE_MS = %d;", VideoFreezeMs),
+		fmt.Sprintf("const STATUS_LATE = { intervals: %d, min_ms: %d, max_ms: %d };", StatusLateIntervals, StatusLateMinMs, StatusLateMaxMs),
+	} {
+		if !strings.Contains(js, want) {
+			t.Errorf("console.js lacks %s", want)
 		}
 	}
 }

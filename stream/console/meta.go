@@ -16,7 +16,7 @@ import (
 // Meta describes one output frame. It is sent as one JSON text message on the
 // "meta" data channel, for example:
 //
-//	{"seq":812,"t_us":27066666,"state":"PREDICTED","age_ms":133,"max_age_ms":800,
+//	{"seq":812,"t_us":27066666,"state":"PREDICTED","age_ms":133,"max_age_ms":800,"period_ms":33.3,
 //	 "why":"","confidence":0.81,"cutoff":0.6,"profile":"city","link":{"loss_pct":4.2,"jitter_ms":11,
 //	 "delay_ms":84,"keyframe_requests":3,"frames_in":790,"no_packets_ms":0}}
 type Meta struct {
@@ -39,6 +39,13 @@ type Meta struct {
 	// MaxAgeMs is the cap on the picture age: past it a missing frame is
 	// STALE whatever the confidence, milliseconds.
 	MaxAgeMs float64 `json:"max_age_ms"`
+	// PeriodMs is the display clock's tick period when this tick was
+	// decided, milliseconds (the relay's grid, which follows the sender's
+	// capture cadence): the relay decides one tick, and sends one message,
+	// about this often. The page takes from it how long a LIVE status stays
+	// good without a newer one (StatusLateAfterMs). 0: not given (the page
+	// then uses StatusLateMinMs).
+	PeriodMs float64 `json:"period_ms"`
 	// Why says why a STALE frame is STALE, one of the words of
 	// predictor.StaleReason ("no-motion", "age-over-cap", "low-confidence",
 	// or "no-picture" for a STALE tick with no real frame held); "" for
@@ -72,9 +79,9 @@ type LinkStats struct {
 // two frames of a slow camera and than a keyframe request's round trip (our choice).
 const NoPacketsAfterMs = 250
 
-// Validate reports ErrBadMeta for an invalid State, a NaN/Inf number, or a
-// picture age other than 0 for a state that has no picture on screen
-// (NO_PICTURE, NOT_SHOWN).
+// Validate reports ErrBadMeta for an invalid State, a NaN/Inf number, a
+// negative tick period, or a picture age other than 0 for a state that has
+// no picture on screen (NO_PICTURE, NOT_SHOWN).
 func (m *Meta) Validate() error {
 	if !m.State.Valid() {
 		return fmt.Errorf("%w: state %d is not one of display.States", ErrBadMeta, int(m.State))
@@ -86,13 +93,16 @@ func (m *Meta) Validate() error {
 		name string
 		v    float64
 	}{
-		{"age_ms", m.AgeMs}, {"max_age_ms", m.MaxAgeMs}, {"confidence", m.Confidence}, {"cutoff", m.Cutoff},
+		{"age_ms", m.AgeMs}, {"max_age_ms", m.MaxAgeMs}, {"period_ms", m.PeriodMs}, {"confidence", m.Confidence}, {"cutoff", m.Cutoff},
 		{"link.loss_pct", m.Link.LossPct}, {"link.jitter_ms", m.Link.JitterMs}, {"link.delay_ms", m.Link.DelayMs},
 		{"link.no_packets_ms", m.Link.NoPacketsMs},
 	} {
 		if math.IsNaN(f.v) || math.IsInf(f.v, 0) {
 			return fmt.Errorf("%w: %s is %v; send a finite number", ErrBadMeta, f.name, f.v)
 		}
+	}
+	if m.PeriodMs < 0 {
+		return fmt.Errorf("%w: period_ms %v; send the display tick period (> 0), or 0 if it is not known", ErrBadMeta, m.PeriodMs)
 	}
 	return nil
 }
@@ -114,6 +124,8 @@ func (m *Meta) AppendJSON(dst []byte) ([]byte, error) {
 	dst = appendFloat(dst, m.AgeMs)
 	dst = append(dst, `,"max_age_ms":`...)
 	dst = appendFloat(dst, m.MaxAgeMs)
+	dst = append(dst, `,"period_ms":`...)
+	dst = appendFloat(dst, m.PeriodMs)
 	dst = append(dst, `,"why":`...)
 	dst = appendJSONString(dst, m.Why)
 	dst = append(dst, `,"confidence":`...)

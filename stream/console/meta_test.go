@@ -13,7 +13,7 @@ import (
 
 func sampleMeta() Meta {
 	return Meta{
-		Seq: 812, TimeUs: 27066666, State: display.StatePredicted, AgeMs: 133.5, Confidence: 0.81,
+		Seq: 812, TimeUs: 27066666, State: display.StatePredicted, AgeMs: 133.5, PeriodMs: 1000.0 / 30, Confidence: 0.81,
 		Cutoff: 0.6, Profile: "city",
 		Link: LinkStats{LossPct: 4.2, JitterMs: 11.25, DelayMs: 84, KeyframeRequests: 3, FramesIn: 790},
 	}
@@ -31,6 +31,8 @@ func TestMetaAppendJSONRoundTrip(t *testing.T) {
 		{"not shown", func(m *Meta) { m.State = display.StateNotShown; m.Confidence = 0; m.AgeMs = 0 }},
 		{"tiny and huge numbers", func(m *Meta) { m.AgeMs = 1e-9; m.Link.DelayMs = 1e300; m.TimeUs = math.MinInt64 }},
 		{"max counters", func(m *Meta) { m.Seq = math.MaxUint64; m.Link.FramesIn = math.MaxUint64 }},
+		{"period not given", func(m *Meta) { m.PeriodMs = 0 }},
+		{"slow camera", func(m *Meta) { m.PeriodMs = 250 }},
 		{"link silent", func(m *Meta) { m.Link.NoPacketsMs = 1250.5; m.Link.LossPct = 0; m.Link.JitterMs = 0 }},
 		{"quote and backslash", func(m *Meta) { m.Profile = `a"b\c` }},
 		{"control chars", func(m *Meta) { m.Profile = "a\nb\tc\x00\x1f" }},
@@ -91,6 +93,9 @@ func TestMetaInvalid(t *testing.T) {
 		{"-Inf loss", func(m *Meta) { m.Link.LossPct = math.Inf(-1) }},
 		{"NaN jitter", func(m *Meta) { m.Link.JitterMs = math.NaN() }},
 		{"NaN delay", func(m *Meta) { m.Link.DelayMs = math.NaN() }},
+		{"NaN period", func(m *Meta) { m.PeriodMs = math.NaN() }},
+		{"Inf period", func(m *Meta) { m.PeriodMs = math.Inf(1) }},
+		{"negative period", func(m *Meta) { m.PeriodMs = -33.3 }},
 	}
 	for _, tc := range cases {
 		t.Run(tc.name, func(t *testing.T) {
@@ -180,6 +185,8 @@ func TestParseMetaErrors(t *testing.T) {
 		{"unknown field", strings.Replace(string(good), `{"seq"`, `{"extra":1,"seq"`, 1), `"extra"`, false},
 		{"two objects", string(good) + "{}", "data after the JSON object", false},
 		{"age for NO_PICTURE", withState(`"NO_PICTURE"`), "age_ms 133.5 for NO_PICTURE", false},
+		{"negative period", strings.Replace(string(good), `"period_ms":`, `"period_ms":-`, 1), "period_ms -33.3", false},
+		{"period as string", strings.Replace(string(good), `"period_ms":33.333333333333336`, `"period_ms":"33"`, 1), `"period_ms"`, false},
 		{"array", "[]", "", false},
 	}
 	for _, tc := range cases {

@@ -3,12 +3,14 @@ package e2e
 import (
 	"context"
 	"fmt"
+	"math"
 	"path/filepath"
 	"strings"
 	"testing"
 	"time"
 
 	"stopgap/internal/display"
+	"stopgap/stream/console"
 	"stopgap/stream/console/consoletest"
 )
 
@@ -40,6 +42,9 @@ func TestBrowserOutage(t *testing.T) {
 		if t.Failed() {
 			for _, l := range b.ConsoleLog() {
 				t.Log("page:", l)
+			}
+			if log, err := b.StateLog(); err == nil {
+				t.Logf("page state log: %v", log)
 			}
 		}
 	}()
@@ -82,9 +87,14 @@ func TestBrowserOutage(t *testing.T) {
 	o, err := r.link.OutageNow(outage)
 	must(err)
 	t.Logf("outage %v from page time %.0f ms", o, cutMs)
-	must(b.WaitState("PREDICTED", 2*time.Second))
+	// From the state log, not the displayed state: on a busy relay a
+	// PREDICTED tick can be followed within the millisecond by a NOT_SHOWN
+	// one, which keeps the predicted picture on screen under its own banner.
+	pred, err := b.WaitLogged("PREDICTED", cutMs, 2*time.Second)
+	must(err)
 	shot("e2e-predicted.png")
-	must(b.WaitState("STALE", 3*time.Second))
+	_, err = b.WaitLogged("STALE", pred.TMs, 3*time.Second)
+	must(err)
 	must(b.CheckCautionVisible())
 	shot("e2e-stale.png")
 	must(b.WaitState("LIVE", 10*time.Second))
@@ -114,18 +124,57 @@ func (w testWriter) Write(p []byte) (int, error) {
 // (page clock) lasting outageMs: LIVE before the cut; then PREDICTED before
 // STALE; STALE during the outage; LIVE again after it; and never LIVE from
 // 150 ms after the cut (frames in flight and the 20 ms allowance are over by
-// then) to the end of the outage. UNKNOWN entries caused by stalls of a
-// loaded machine are removed first (consoletest.WithoutStalls) and counted,
-// and so are NOT_SHOWN entries: a tick the relay decided but did not draw
-// (an overrun of a busy machine) leaves the picture before it on screen, so
-// the state shown is still the one before.
+// then) to the end of the outage.
+//
+// "Never LIVE" reads the state the page displayed, STATE UNKNOWN included:
+// a LIVE status expires on the page's clock (reason "status-late",
+// console.StatusLateAfterMs), so when the relay's first PREDICTED tick is
+// late the page shows STATE UNKNOWN in between, which is not LIVE. The
+// order of the relay's states is read with the stalls of a loaded machine
+// removed (consoletest.IsStall) and with NOT_SHOWN entries removed: a tick
+// the relay decided but did not draw (an overrun of a busy machine) leaves
+// the picture before it on screen, so the state shown is still the one
+// before. Stalls of more than 500 ms (meta-silent, video-frozen) are counted
+// and more than two fail. A late status between the cut and the end of the
+// outage is the page doing its job on a cut link; elsewhere it is a busy
+// machine's late or lost status message, reported, and a failure only if
+// the page showed it more than half the time outside the outage.
 func checkOutageStates(t *testing.T, log []consoletest.StateChange, cutMs, outageMs float64) {
 	t.Helper()
+	problems, notes := outageStates(log, cutMs, outageMs)
+	for _, n := range notes {
+		t.Log(n)
+	}
+	for _, p := range problems {
+		t.Error(p)
+	}
+}
+
+// outageStates is checkOutageStates' verdict: what is wrong, and what is
+// worth logging.
+func outageStates(log []consoletest.StateChange, cutMs, outageMs float64) (problems, notes []string) {
+	fail := func(format string, args ...any) { problems = append(problems, fmt.Sprintf(format, args...)) }
+	live := display.StateLive.String()
+	if len(log) == 0 {
+		return []string{"the page's state log is empty"}, nil
+	}
 	var clean []consoletest.StateChange
-	stalls, notShown := 0, 0
+	stalls, lateAtCut, late, notShown := 0, 0, 0, 0
+	firstLiveMs := math.NaN()
+	atCut := func(c consoletest.StateChange) bool { return c.TMs >= cutMs && c.TMs <= cutMs+outageMs }
 	for i, c := range log {
-		if c.State == "UNKNOWN" && i > 0 && (c.Reason == "meta-silent" || c.Reason == "video-frozen") {
-			stalls++
+		if c.State == live && math.IsNaN(firstLiveMs) {
+			firstLiveMs = c.TMs
+		}
+		if i > 0 && consoletest.IsStall(c) {
+			switch {
+			case c.Reason != console.ReasonStatusLate:
+				stalls++
+			case atCut(c):
+				lateAtCut++
+			default:
+				late++
+			}
 			continue
 		}
 		if c.State == display.StateNotShown.String() {
@@ -135,28 +184,41 @@ func checkOutageStates(t *testing.T, log []consoletest.StateChange, cutMs, outag
 		clean = append(clean, c)
 	}
 	if stalls > 2 {
-		t.Errorf("%d STATE UNKNOWN stalls in one short run", stalls)
+		fail("%d STATE UNKNOWN stalls in one short run", stalls)
 	}
-	stateAt := func(ms float64) string {
-		s := ""
-		for _, c := range clean {
+	// A late status outside the outage (the relay behind on a busy machine,
+	// a status message lost) shows STATE UNKNOWN for a moment, rightly; a
+	// page that did so most of the time would be useless.
+	endMs := log[len(log)-1].TMs
+	lateMs := consoletest.ShownMs(log, func(c consoletest.StateChange) bool {
+		return c.Reason == console.ReasonStatusLate && !atCut(c)
+	}, firstLiveMs, endMs)
+	if span := endMs - firstLiveMs - outageMs; late > 0 && lateMs > span/2 {
+		fail("STATE UNKNOWN (status-late) for %.0f of %.0f ms outside the outage (%d times): more than half the time", lateMs, span, late)
+	}
+	// stateAt is the relay's state at ms as the page showed it, stalls and
+	// NOT_SHOWN left out; shownAt is what the page displayed, stalls and all.
+	at := func(log []consoletest.StateChange, ms float64) consoletest.StateChange {
+		var s consoletest.StateChange
+		for _, c := range log {
 			if c.TMs <= ms {
-				s = c.State
+				s = c
 			}
 		}
 		return s
 	}
-	if s := stateAt(cutMs); s != "LIVE" && s != "PREDICTED" {
-		t.Errorf("state at the cut %q, want LIVE (or PREDICTED from a late frame)", s)
+	stateAt := func(ms float64) string { return at(clean, ms).State }
+	if s := stateAt(cutMs); s != live && s != "PREDICTED" {
+		fail("state at the cut %q, want LIVE (or PREDICTED from a late frame)", s)
 	}
 	sawLiveBefore := false
 	for _, c := range clean {
-		if c.TMs < cutMs && c.State == "LIVE" {
+		if c.TMs < cutMs && c.State == live {
 			sawLiveBefore = true
 		}
 	}
 	if !sawLiveBefore {
-		t.Error("no LIVE before the cut")
+		fail("no LIVE before the cut")
 	}
 	// order after the cut: PREDICTED (or already PREDICTED at the cut), then STALE, then LIVE
 	seq := []string{stateAt(cutMs)}
@@ -165,7 +227,7 @@ func checkOutageStates(t *testing.T, log []consoletest.StateChange, cutMs, outag
 			seq = append(seq, c.State)
 		}
 	}
-	want := []string{"PREDICTED", "STALE", "LIVE"}
+	want := []string{"PREDICTED", "STALE", live}
 	j := 0
 	for _, s := range seq {
 		if j < len(want) && s == want[j] {
@@ -173,15 +235,28 @@ func checkOutageStates(t *testing.T, log []consoletest.StateChange, cutMs, outag
 		}
 	}
 	if j < len(want) {
-		t.Errorf("states from the cut on %v do not contain PREDICTED, STALE, LIVE in that order", seq)
+		fail("states from the cut on %v do not contain PREDICTED, STALE, LIVE in that order", seq)
 	}
-	if s := stateAt(cutMs + 150); s == "LIVE" {
-		t.Errorf("still LIVE 150 ms into the outage: a frozen picture passed as live")
+	if s := at(log, cutMs+150); s.State == live {
+		fail("still LIVE 150 ms into the outage: a frozen picture passed as live")
 	}
-	for _, c := range clean {
-		if c.State == "LIVE" && c.TMs > cutMs+150 && c.TMs < cutMs+outageMs {
-			t.Errorf("LIVE at page time %.0f ms, inside the outage (%.0f..%.0f ms)", c.TMs, cutMs, cutMs+outageMs)
+	if s := at(log, cutMs); s.State != live {
+		notes = append(notes, fmt.Sprintf("shown at the cut: %s %s, not LIVE (a busy machine)", s.State, s.Reason))
+	} else {
+		for _, c := range log {
+			if c.TMs > cutMs && c.State != live {
+				notes = append(notes, fmt.Sprintf("LIVE at the cut; first state shown after it that is not LIVE: %s %s, %.0f ms after the cut",
+					c.State, c.Reason, c.TMs-cutMs))
+				break
+			}
 		}
 	}
-	t.Logf("states from the cut on: %v (stalls removed: %d, NOT_SHOWN ticks: %d)", seq, stalls, notShown)
+	for _, c := range clean {
+		if c.State == live && c.TMs > cutMs+150 && c.TMs < cutMs+outageMs {
+			fail("LIVE at page time %.0f ms, inside the outage (%.0f..%.0f ms)", c.TMs, cutMs, cutMs+outageMs)
+		}
+	}
+	notes = append(notes, fmt.Sprintf("states from the cut on: %v (late status at the cut: %d; elsewhere: %d, %.0f ms; "+
+		"other stalls: %d; NOT_SHOWN ticks: %d)", seq, lateAtCut, late, lateMs, stalls, notShown))
+	return problems, notes
 }

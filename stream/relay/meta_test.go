@@ -2,6 +2,8 @@ package relay
 
 import (
 	"errors"
+	"net/http"
+	"net/http/httptest"
 	"testing"
 
 	"stopgap/internal/display"
@@ -49,5 +51,32 @@ func TestTickMetaStates(t *testing.T) {
 	ns.AgeMs = 33
 	if err := ns.Validate(); !errors.Is(err, console.ErrBadMeta) {
 		t.Errorf("NOT_SHOWN with an age accepted")
+	}
+}
+
+// TestSendMetaPeriod: every status message carries the display clock's
+// tick period, the spacing the page expects statuses at (a LIVE status
+// expires after a few of them, console.StatusLateAfterMs), for a camera
+// that is not the default 30 fps too.
+func TestSendMetaPeriod(t *testing.T) {
+	r, p, done := pipelineOnFakeVehicle(t, Config{Camera: testCamera(), FPS: 25})
+	defer done()
+	p.sendMeta(notShownMeta(cadence.Tick{K: 1, TargetUs: 40_000, Policy: predictor.Policy{CutoffConfidence: 0.6}}, 800))
+	req := httptest.NewRequest("GET", "/api/meta", nil)
+	req.Header.Set("Authorization", "Bearer "+testConsoleToken)
+	rec := httptest.NewRecorder()
+	r.console.ServeHTTP(rec, req)
+	if rec.Code != http.StatusOK {
+		t.Fatalf("GET /api/meta: %d %s", rec.Code, rec.Body)
+	}
+	m, err := console.ParseMeta(rec.Body.Bytes())
+	if err != nil {
+		t.Fatal(err)
+	}
+	if m.PeriodMs != 40 {
+		t.Errorf("period_ms %v at 25 fps, want 40", m.PeriodMs)
+	}
+	if got := console.StatusLateAfterMs(m.PeriodMs); got != 120 {
+		t.Errorf("a LIVE status at 25 fps stays good for %v ms, want 3 periods, 120", got)
 	}
 }

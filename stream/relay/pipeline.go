@@ -669,12 +669,16 @@ func notShownMeta(t cadence.Tick, maxAgeMs float64) console.Meta {
 	return console.Meta{TimeUs: t.TargetUs, State: display.StateNotShown, MaxAgeMs: maxAgeMs, Cutoff: t.Policy.CutoffConfidence}
 }
 
-// sendMeta numbers m one after the previous meta message, adds the profile
-// and the link statistics, and writes it to the console: one message per
-// decided tick, so the page always knows what the tick put on screen.
+// sendMeta numbers m one after the previous meta message, adds the profile,
+// the display clock's tick period and the link statistics, and writes it to
+// the console: one message per decided tick, so the page always knows what
+// the tick put on screen, and how soon to expect the next one (a LIVE
+// status expires on the page's clock after a few periods,
+// console.StatusLateAfterMs).
 func (p *pipeline) sendMeta(m console.Meta) {
 	p.refreshLink()
 	m.Seq, m.Profile, m.Link = p.meta.Seq+1, p.r.console.Profile(), p.link
+	m.PeriodMs = p.clock.Grid().PeriodUs() / 1000
 	p.meta = m
 	if err := p.r.console.WriteMeta(p.meta); err != nil && !errors.Is(err, console.ErrClosed) {
 		p.log.Warn("console meta failed", "err", err)

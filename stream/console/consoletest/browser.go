@@ -23,6 +23,8 @@ import (
 
 	"github.com/chromedp/cdproto/runtime"
 	"github.com/chromedp/chromedp"
+
+	"stopgap/stream/console"
 )
 
 // DefaultChromium is where Debian's chromium package installs the browser.
@@ -283,12 +285,42 @@ func (b *Browser) WaitFunc(cond func() (ok bool, seen string, err error), what s
 }
 
 // StateChange is one entry of the page's window.__stateLog: the displayed
-// state changed to State (reason given for UNKNOWN) at TMs milliseconds of
-// the page clock (performance.now()).
+// state, or the reason given for UNKNOWN (one of console.UnknownReasons),
+// changed to State and Reason at TMs milliseconds of the page clock
+// (performance.now()).
 type StateChange struct {
 	State  string  `json:"state"`
 	Reason string  `json:"reason"`
 	TMs    float64 `json:"t_ms"`
+}
+
+// WaitLogged polls the page's state log every 20 ms until it has an entry
+// of the given state at or after sinceMs (page clock) and returns the first
+// such entry. Unlike WaitState it sees a state the page showed only for a
+// moment (a PREDICTED tick followed in the same millisecond by a NOT_SHOWN
+// one on a busy relay), which polling the displayed state can miss. The
+// error wraps ErrTimeout and gives the log's entries since sinceMs.
+func (b *Browser) WaitLogged(state string, sinceMs float64, timeout time.Duration) (StateChange, error) {
+	var found StateChange
+	err := b.WaitFunc(func() (bool, string, error) {
+		log, err := b.StateLog()
+		if err != nil {
+			return false, "", err
+		}
+		var since []StateChange
+		for _, c := range log {
+			if c.TMs < sinceMs {
+				continue
+			}
+			if c.State == state {
+				found = c
+				return true, "", nil
+			}
+			since = append(since, c)
+		}
+		return false, fmt.Sprintf("%v", since), nil
+	}, fmt.Sprintf("%s in the state log from page time %.0f ms", state, sinceMs), timeout)
+	return found, err
 }
 
 // StateLog returns the page's state log.
@@ -337,15 +369,25 @@ func (b *Browser) Close() error {
 	return fmt.Errorf("consoletest: remove %s: %w", b.userDir, err)
 }
 
+// IsStall reports whether c is a STATE UNKNOWN entry that a stall caused
+// (console.IsStall: reason "meta-silent", "video-frozen" or "status-late").
+func IsStall(c StateChange) bool {
+	return c.State == Unknown && console.IsStall(c.Reason)
+}
+
+// Unknown is the page's data-state while it shows STATE UNKNOWN.
+const Unknown = "UNKNOWN"
+
 // WithoutStalls returns the states of log with the STATE UNKNOWN entries that a
-// stall caused (reason "meta-silent" or "video-frozen", not the first
-// entry) removed and repeated states merged, plus the removed entries. A
-// loaded machine can hold up frames for more than 500 ms, and the page then
-// rightly shows STATE UNKNOWN; tests that check the order of the relay's states
-// use this and bound the number of stalls separately.
+// stall caused (IsStall, not the first entry) removed and repeated states
+// merged, plus the removed entries. A loaded machine can hold up status
+// messages past a LIVE status's limit (console.StatusLateAfterMs) or frames
+// for more than 500 ms, and the page then rightly shows STATE UNKNOWN; tests
+// that check the order of the relay's states use this and bound the number
+// of stalls separately.
 func WithoutStalls(log []StateChange) (states []string, stalls []StateChange) {
 	for i, c := range log {
-		if i > 0 && c.State == "UNKNOWN" && (c.Reason == "meta-silent" || c.Reason == "video-frozen") {
+		if i > 0 && IsStall(c) {
 			stalls = append(stalls, c)
 			continue
 		}
@@ -355,4 +397,21 @@ func WithoutStalls(log []StateChange) (states []string, stalls []StateChange) {
 		states = append(states, c.State)
 	}
 	return states, stalls
+}
+
+// ShownMs returns how long, in ms of the page clock, the page showed an
+// entry of log for which match is true between fromMs and toMs: each entry
+// lasts until the next one, the last until toMs.
+func ShownMs(log []StateChange, match func(StateChange) bool, fromMs, toMs float64) float64 {
+	total := 0.0
+	for i, c := range log {
+		end := toMs
+		if i+1 < len(log) {
+			end = min(log[i+1].TMs, toMs)
+		}
+		if start := max(c.TMs, fromMs); match(c) && end > start {
+			total += end - start
+		}
+	}
+	return total
 }

@@ -4,8 +4,20 @@
 // pre-negotiated data channel "meta", id 0, unordered, no retransmissions)
 // and mirrors each frame's state in a banner and a coloured frame. It shows
 // STATE UNKNOWN itself when status messages stop for more than
-// META_SILENCE_MS or the picture stops changing for more than
-// VIDEO_FREEZE_MS, so a frozen picture never looks live.
+// META_SILENCE_MS ("meta-silent"), the picture stops changing for more than
+// VIDEO_FREEZE_MS ("video-frozen"), or a LIVE status gets no newer one
+// within STATUS_LATE's limit ("status-late"), so a frozen picture never
+// looks live.
+//
+// LIVE claims the picture is current, so the claim expires on this page's
+// clock: STATUS_LATE.intervals tick periods (the status's period_ms, the
+// relay's display tick period) after the LIVE status came, clamped to
+// [STATUS_LATE.min_ms, STATUS_LATE.max_ms] (the floor when the status gives
+// no period). A cut link thus shows STATE UNKNOWN before the relay's next
+// tick says PREDICTED, if that tick is late. PREDICTED and STALE do not
+// expire this way: they already say the picture is not live. The limits,
+// the reasons and their reasoning live in the Go package
+// (stream/console/unknown.go); a test holds this page to them.
 //
 // The bearer token comes from the URL fragment (#token=...), is kept in
 // sessionStorage and removed from the address bar.
@@ -17,11 +29,19 @@
 //
 // For tests: <body data-state="LIVE|PREDICTED|STALE|NO_PICTURE|NOT_SHOWN|UNKNOWN" data-reason=...>
 // and window.__stateLog, one {state, reason, t_ms} entry per change of the
-// displayed state.
+// displayed state or of its reason (t_ms on performance.now());
+// window.__console.statusLateAfterMs(period_ms) is the page's limit for a
+// LIVE status, which a test compares with the Go side's, and
+// window.__console.metaTimes the arrival times of the last (up to 600)
+// status messages.
 "use strict";
 (() => {
   const META_SILENCE_MS = 500;
   const VIDEO_FREEZE_MS = 500;
+  // How long a LIVE status stays good without a newer one (console.StatusLateAfterMs).
+  const STATUS_LATE = { intervals: 3, min_ms: 100, max_ms: 300 };
+  // Why the page shows STATE UNKNOWN (body data-reason), as console.UnknownReasons.
+  const REASONS = ["connecting", "no-status", "meta-silent", "video-frozen", "status-late", "bad-state"];
   const WATCH_MS = 50;
   const RECONNECT_MS = 2000;
   // The relay's states, spelled and ordered as display.State (a test
@@ -38,10 +58,14 @@
 
   const stateLog = [];
   window.__stateLog = stateLog;
-  window.__console = { meta: null, lastMetaMs: null };
+  // metaTimes: when the last status messages came (page clock), for tests.
+  const metaTimes = [];
+  window.__console = { meta: null, lastMetaMs: null, metaTimes: metaTimes, statusLateAfterMs: statusLateAfterMs };
 
   let token = takeToken();
   let shown = "";
+  let shownReason = "";
+  let lateTimer = 0;
   let last = null;
   let lastPicture = null; // the newest status of a tick that showed a picture
   let lastPictureAt = -Infinity;
@@ -94,17 +118,33 @@
 
   // ---- state display ----
 
+  // statusLateAfterMs is how long a LIVE status with tick period periodMs
+  // stays good without a newer one: STATUS_LATE.intervals periods, clamped
+  // to [min_ms, max_ms]; min_ms when no usable period is given.
+  function statusLateAfterMs(periodMs) {
+    if (typeof periodMs !== "number" || !(periodMs > 0) || !isFinite(periodMs)) return STATUS_LATE.min_ms;
+    return Math.min(Math.max(STATUS_LATE.intervals * periodMs, STATUS_LATE.min_ms), STATUS_LATE.max_ms);
+  }
+
+  // currentForMs is how long status m describes the present: a LIVE one
+  // until it is late, any other until the channel counts as silent.
+  const currentForMs = (m) => m.state === "LIVE" ? statusLateAfterMs(m.period_ms) : META_SILENCE_MS;
+
   function evaluate() {
     const now = performance.now();
     const metaAge = now - lastMetaAt;
     let state = "UNKNOWN";
     let reason = "";
-    if (!last) {
-      reason = (pc && pc.connectionState === "connected") ? "no-status" : "connecting";
+    if (!last && pc && pc.connectionState === "connected") {
+      reason = "no-status";
+    } else if (!last) {
+      reason = "connecting";
     } else if (metaAge > META_SILENCE_MS) {
       reason = "meta-silent";
     } else if (videoFrames > 0 && now - lastVideoAt > VIDEO_FREEZE_MS) {
       reason = "video-frozen";
+    } else if (last.state === "LIVE" && metaAge > statusLateAfterMs(last.period_ms)) {
+      reason = "status-late";
     } else if (STATES.includes(last.state)) {
       state = last.state;
     } else {
@@ -133,20 +173,22 @@
   // pictureAge returns the age of the real picture on screen: {ms, atLeast},
   // null when there is no picture (no real frame since the session began or
   // since the relay's last NO_PICTURE). It is exact from a current status of
-  // a state with a picture; otherwise (NOT_SHOWN, status silent) a lower
-  // bound: that status's age plus the time since it came, on this page's
-  // clock.
+  // a state with a picture (currentForMs); otherwise (NOT_SHOWN, status late
+  // or silent) a lower bound: that status's age plus the time since it came,
+  // on this page's clock.
   function pictureAge(now) {
     if (!lastPicture) return null;
-    if (lastPicture === last && now - lastMetaAt <= META_SILENCE_MS) return { ms: last.age_ms, atLeast: false };
+    if (lastPicture === last && now - lastMetaAt <= currentForMs(last)) return { ms: last.age_ms, atLeast: false };
     return { ms: lastPicture.age_ms + (now - lastPictureAt), atLeast: true };
   }
 
   const ageMs = (a) => (a.atLeast ? "≥ " : "") + int(a.ms) + " ms";
 
   function show(state, reason, now, metaAge) {
-    if (state !== shown) {
+    if (state !== shown || reason !== shownReason) {
+      if (state === "UNKNOWN" && !REASONS.includes(reason)) console.error("stopgap console: unlisted reason " + reason);
       shown = state;
+      shownReason = reason;
       stateLog.push({ state: state, reason: reason, t_ms: Math.round(now) });
       body.dataset.state = state;
     }
@@ -185,6 +227,9 @@
           case "meta-silent":
             detail = "— no status from the relay for " + int(metaAge) + " ms; treat the picture as unknown";
             break;
+          case "status-late":
+            detail = "— no status for " + int(metaAge) + " ms after a live frame; treat the picture as unknown";
+            break;
           case "video-frozen":
             detail = "— the picture stopped changing " + int(now - lastVideoAt) + " ms ago; treat it as unknown";
             break;
@@ -194,6 +239,7 @@
           case "no-status":
             detail = "— connected, waiting for the first status message";
             break;
+          case "connecting":
           default:
             detail = "— connecting to the relay; treat any picture as unknown";
         }
@@ -228,6 +274,12 @@
     }
     window.__console.meta = m;
     window.__console.lastMetaMs = lastMetaAt;
+    metaTimes.push(lastMetaAt);
+    if (metaTimes.length > 600) metaTimes.splice(0, 100);
+    // A LIVE status expires on this page's clock: look again the moment it
+    // does, not at the next watchdog round (WATCH_MS later at worst).
+    clearTimeout(lateTimer);
+    if (m.state === "LIVE") lateTimer = setTimeout(evaluate, statusLateAfterMs(m.period_ms) + 1);
     setText("v-conf", fix(m.confidence, 2));
     setText("v-cutoff", fix(m.cutoff, 2));
     setText("v-profile", typeof m.profile === "string" ? m.profile : "—");
@@ -290,6 +342,7 @@
   async function connect() {
     hangUp();
     // a new connection may reach a restarted relay whose seq starts again
+    clearTimeout(lateTimer);
     last = null;
     lastPicture = null;
     lastSeq = -1;
