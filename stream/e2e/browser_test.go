@@ -82,11 +82,17 @@ func TestBrowserOutage(t *testing.T) {
 	shot("e2e-live.png")
 
 	const outage = 1500 * time.Millisecond
-	var cutMs float64 // page clock (performance.now) when the link was cut
+	// The cut lies between two readings of the page clock (performance.now):
+	// cutMs just before it and cutDoneMs just after. Each reading is a round
+	// trip to the browser, which a loaded machine stretches, so the checks
+	// take the earlier one where the cut may have come early (LIVE before
+	// it) and the later one where it may have come late (LIVE after it).
+	var cutMs, cutDoneMs float64
 	must(b.Eval("performance.now()", &cutMs))
 	o, err := r.link.OutageNow(outage)
 	must(err)
-	t.Logf("outage %v from page time %.0f ms", o, cutMs)
+	must(b.Eval("performance.now()", &cutDoneMs))
+	t.Logf("outage %v from page time %.0f..%.0f ms", o, cutMs, cutDoneMs)
 	// From the state log, not the displayed state: on a busy relay a
 	// PREDICTED tick can be followed within the millisecond by a NOT_SHOWN
 	// one, which keeps the predicted picture on screen under its own banner.
@@ -106,7 +112,7 @@ func TestBrowserOutage(t *testing.T) {
 	log, err := b.StateLog()
 	must(err)
 	t.Logf("page state log: %v", log)
-	checkOutageStates(t, log, cutMs, float64(outage.Milliseconds()))
+	checkOutageStates(t, log, cutMs, cutDoneMs, float64(outage.Milliseconds()))
 	st := r.relay.Stats()
 	t.Logf("relay %+v", st)
 	t.Logf("vehicle %+v", r.veh.Stats())
@@ -120,11 +126,13 @@ func (w testWriter) Write(p []byte) (int, error) {
 	return len(p), nil
 }
 
-// checkOutageStates checks the page's state log around a link cut at cutMs
-// (page clock) lasting outageMs: LIVE before the cut; then PREDICTED before
-// STALE; STALE during the outage; LIVE again after it; and never LIVE from
-// 150 ms after the cut (frames in flight and the 20 ms allowance are over by
-// then) to the end of the outage.
+// checkOutageStates checks the page's state log around a link cut made
+// between page times cutMs and cutDoneMs (page clock, read just before and
+// just after the cut) and lasting outageMs: LIVE before the cut (before
+// cutMs); then PREDICTED before STALE; STALE during the outage; LIVE again
+// after it; and never LIVE from 150 ms after the cut (after cutDoneMs; frames
+// in flight and the 20 ms allowance are over by then) to the end of the
+// outage.
 //
 // "Never LIVE" reads the state the page displayed, STATE UNKNOWN included:
 // a LIVE status expires on the page's clock (reason "status-late",
@@ -139,9 +147,9 @@ func (w testWriter) Write(p []byte) (int, error) {
 // outage is the page doing its job on a cut link; elsewhere it is a busy
 // machine's late or lost status message, reported, and a failure only if
 // the page showed it more than half the time outside the outage.
-func checkOutageStates(t *testing.T, log []consoletest.StateChange, cutMs, outageMs float64) {
+func checkOutageStates(t *testing.T, log []consoletest.StateChange, cutMs, cutDoneMs, outageMs float64) {
 	t.Helper()
-	problems, notes := outageStates(log, cutMs, outageMs)
+	problems, notes := outageStates(log, cutMs, cutDoneMs, outageMs)
 	for _, n := range notes {
 		t.Log(n)
 	}
@@ -152,7 +160,7 @@ func checkOutageStates(t *testing.T, log []consoletest.StateChange, cutMs, outag
 
 // outageStates is checkOutageStates' verdict: what is wrong, and what is
 // worth logging.
-func outageStates(log []consoletest.StateChange, cutMs, outageMs float64) (problems, notes []string) {
+func outageStates(log []consoletest.StateChange, cutMs, cutDoneMs, outageMs float64) (problems, notes []string) {
 	fail := func(format string, args ...any) { problems = append(problems, fmt.Sprintf(format, args...)) }
 	live := display.StateLive.String()
 	if len(log) == 0 {
@@ -161,7 +169,7 @@ func outageStates(log []consoletest.StateChange, cutMs, outageMs float64) (probl
 	var clean []consoletest.StateChange
 	stalls, lateAtCut, late, notShown := 0, 0, 0, 0
 	firstLiveMs := math.NaN()
-	atCut := func(c consoletest.StateChange) bool { return c.TMs >= cutMs && c.TMs <= cutMs+outageMs }
+	atCut := func(c consoletest.StateChange) bool { return c.TMs >= cutMs && c.TMs <= cutDoneMs+outageMs }
 	for i, c := range log {
 		if c.State == live && math.IsNaN(firstLiveMs) {
 			firstLiveMs = c.TMs
@@ -237,7 +245,7 @@ func outageStates(log []consoletest.StateChange, cutMs, outageMs float64) (probl
 	if j < len(want) {
 		fail("states from the cut on %v do not contain PREDICTED, STALE, LIVE in that order", seq)
 	}
-	if s := at(log, cutMs+150); s.State == live {
+	if s := at(log, cutDoneMs+150); s.State == live {
 		fail("still LIVE 150 ms into the outage: a frozen picture passed as live")
 	}
 	if s := at(log, cutMs); s.State != live {
@@ -252,7 +260,7 @@ func outageStates(log []consoletest.StateChange, cutMs, outageMs float64) (probl
 		}
 	}
 	for _, c := range clean {
-		if c.State == live && c.TMs > cutMs+150 && c.TMs < cutMs+outageMs {
+		if c.State == live && c.TMs > cutDoneMs+150 && c.TMs < cutMs+outageMs {
 			fail("LIVE at page time %.0f ms, inside the outage (%.0f..%.0f ms)", c.TMs, cutMs, cutMs+outageMs)
 		}
 	}

@@ -55,7 +55,7 @@ func TestOutageStates(t *testing.T) {
 	}
 	for _, tc := range cases {
 		t.Run(tc.name, func(t *testing.T) {
-			problems, notes := outageStates(tc.log, 1000, 1500)
+			problems, notes := outageStates(tc.log, 1000, 1000, 1500)
 			switch {
 			case tc.want == "" && len(problems) > 0:
 				t.Errorf("problems %q, want none (notes %q)", problems, notes)
@@ -63,5 +63,29 @@ func TestOutageStates(t *testing.T) {
 				t.Errorf("problems %q, want one saying %q", problems, tc.want)
 			}
 		})
+	}
+}
+
+// TestOutageStatesSlowCut: the cut was read on the page clock at 1000 ms
+// before it and at 1040 ms after it (a slow round trip to the browser), so
+// the link may have been cut as late as 1040 ms: LIVE is wrong only from
+// 1190 ms on.
+func TestOutageStatesSlowCut(t *testing.T) {
+	type sc = consoletest.StateChange
+	log := func(predictedMs float64) []sc {
+		return []sc{{State: "UNKNOWN", Reason: "connecting", TMs: 10}, {State: "LIVE", TMs: 400},
+			{State: "PREDICTED", TMs: predictedMs}, {State: "STALE", TMs: 1900}, {State: "LIVE", TMs: 2600}}
+	}
+	for _, tc := range []struct {
+		predictedMs float64
+		want        string
+	}{{1160, ""}, {1185, ""}, {1200, "still LIVE 150 ms"}} {
+		problems, notes := outageStates(log(tc.predictedMs), 1000, 1040, 1500)
+		switch {
+		case tc.want == "" && len(problems) > 0:
+			t.Errorf("PREDICTED at %.0f ms: problems %q, want none (notes %q)", tc.predictedMs, problems, notes)
+		case tc.want != "" && (len(problems) != 1 || !strings.Contains(problems[0], tc.want)):
+			t.Errorf("PREDICTED at %.0f ms: problems %q, want one saying %q", tc.predictedMs, problems, tc.want)
+		}
 	}
 }
