@@ -13,6 +13,7 @@ import (
 	"path/filepath"
 	"regexp"
 	"slices"
+	"strconv"
 	"strings"
 	"sync"
 	"sync/atomic"
@@ -322,6 +323,35 @@ func TestBrowserConsole(t *testing.T) {
 	}
 
 	checkStatusLate(t, b, p)
+
+	// Status stops on a STALE tick: the state stays (it claims no current
+	// picture) but the picture's age becomes a lower bound that keeps
+	// growing once the status is older than a tick's limit.
+	p.state.Store(int32(display.StateStale))
+	must(b.WaitState("STALE", 3*time.Second))
+	p.meta.Store(false)
+	staleRe := regexp.MustCompile(`^STALE — picture age ≥ (\d+) ms; `)
+	var ages []int
+	must(b.WaitFunc(func() (bool, string, error) {
+		banner, err := b.BannerText()
+		m := staleRe.FindStringSubmatch(banner)
+		if m != nil {
+			n, _ := strconv.Atoi(m[1])
+			if len(ages) == 0 || ages[len(ages)-1] != n {
+				ages = append(ages, n)
+			}
+		}
+		return len(ages) >= 2, banner, err
+	}, "STALE with a growing lower-bound picture age", 3*time.Second))
+	if st, _ := b.State(); st != "STALE" {
+		t.Errorf("state %s while a STALE status is late, want STALE", st)
+	}
+	if ages[1] <= ages[0] {
+		t.Errorf("lower-bound picture age %v does not grow", ages)
+	}
+	p.meta.Store(true)
+	p.state.Store(int32(display.StateLive))
+	must(b.WaitState("LIVE", 3*time.Second))
 
 	// Status stops after LIVE: the page itself must say STATE UNKNOWN, first
 	// because the LIVE status is late (console.StatusLateAfterMs of its

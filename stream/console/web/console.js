@@ -172,13 +172,15 @@
 
   // pictureAge returns the age of the real picture on screen: {ms, atLeast},
   // null when there is no picture (no real frame since the session began or
-  // since the relay's last NO_PICTURE). It is exact from a current status of
-  // a state with a picture (currentForMs); otherwise (NOT_SHOWN, status late
-  // or silent) a lower bound: that status's age plus the time since it came,
-  // on this page's clock.
+  // since the relay's last NO_PICTURE). It is exact from a status of a state
+  // with a picture no older than a LIVE status may get (statusLateAfterMs of
+  // its period), whatever its state: a PREDICTED or STALE picture ages too
+  // while no newer status comes. Otherwise (NOT_SHOWN, status late or
+  // silent) it is a lower bound: that status's age plus the time since it
+  // came, on this page's clock.
   function pictureAge(now) {
     if (!lastPicture) return null;
-    if (lastPicture === last && now - lastMetaAt <= currentForMs(last)) return { ms: last.age_ms, atLeast: false };
+    if (lastPicture === last && now - lastMetaAt <= statusLateAfterMs(last.period_ms)) return { ms: last.age_ms, atLeast: false };
     return { ms: lastPicture.age_ms + (now - lastPictureAt), atLeast: true };
   }
 
