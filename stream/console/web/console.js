@@ -126,10 +126,6 @@
     return Math.min(Math.max(STATUS_LATE.intervals * periodMs, STATUS_LATE.min_ms), STATUS_LATE.max_ms);
   }
 
-  // currentForMs is how long status m describes the present: a LIVE one
-  // until it is late, any other until the channel counts as silent.
-  const currentForMs = (m) => m.state === "LIVE" ? statusLateAfterMs(m.period_ms) : META_SILENCE_MS;
-
   function evaluate() {
     const now = performance.now();
     const metaAge = now - lastMetaAt;
