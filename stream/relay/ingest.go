@@ -62,7 +62,9 @@ type frameIngest struct {
 	// linkBack is set when packets resume after a silence and cleared by
 	// the next decoded frame; meanwhile requests repeat every
 	// linkBackRetry (see runTimers).
-	linkBack    bool
+	linkBack bool
+	// ptBackoff spaces the requests made for pass-through alone.
+	ptBackoff   passThroughBackoff
 	lastArrival time.Time // arrival of the latest packet
 	// telSeenNs is the arrival of the sender's last telemetry message
 	// (pipeline.lastTelNs) as the timer saw it during the current video
@@ -218,12 +220,26 @@ func (in *frameIngest) timerRequestsLocked(now time.Time, silent bool) {
 		in.requestKeyframeLocked(now, "link back, repeated")
 	case in.dec.NeedKeyframe() && !answering && now.Sub(in.lastKeyReq) >= in.p.cfg.KeyframeRetry:
 		in.requestKeyframeLocked(now, "retry")
-	case in.p.r.gate.WantKeyframe() && (now.Sub(in.lastKeyReq) >= in.p.cfg.KeyframeRetry || in.p.r.gate.KeyframeUrgent()):
+	case in.p.r.gate.WantKeyframe() && !answering:
 		// Pass-through resumes on the vehicle's next keyframe, and a
 		// console viewer can only start on one. Urgent: the display
 		// loop ended a run (passthru.Gate.KeyframeUrgent); until the
 		// next keyframe every real frame costs the relay an encode.
-		in.requestKeyframeLocked(now, "pass-through")
+		// While no run is open the requests are spaced
+		// (passThroughBackoff); a viewer's, with a run open, are not.
+		retry := in.p.cfg.KeyframeRetry
+		if in.p.r.gate.Forwarding() {
+			if now.Sub(in.lastKeyReq) >= retry {
+				in.requestKeyframeLocked(now, "pass-through, viewer")
+			}
+			return
+		}
+		if in.ptBackoff.due(now, in.lastKeyReq, retry, in.p.r.gate.KeyframeUrgent()) {
+			in.requestKeyframeLocked(now, "pass-through")
+			if in.lastKeyReq.Equal(now) {
+				in.ptBackoff.sent(retry)
+			}
+		}
 	}
 }
 
@@ -376,6 +392,7 @@ func (in *frameIngest) forward(f rtpvp8.Frame) (bool, time.Time) {
 	gf.CaptureUs, gf.HasCapture = in.peekCaptureUs(f.RTPTimestamp)
 	in.fwd = forwardSender{in: in, parts: f.Parts, rtpTS: f.RTPTimestamp}
 	ok := p.r.gate.Offer(gf, &in.fwd)
+	in.ptBackoff.forwarded(ok, in.fwd.at)
 	if ok {
 		p.r.met.addedLatency.observe(in.fwd.at.Sub(f.ArrivalLast))
 	}
