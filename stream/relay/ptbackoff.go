@@ -8,10 +8,11 @@ import "time"
 //   - ptCalm, 1 s (30 frames at 30 fps): a run of forwarded frames that
 //     lasted this long shows the link carries the vehicle's stream; its end
 //     (one loss, say) asks for the next keyframe at once, as before.
-//   - ptBackoffMax, 16 keyframe retries (3.2 s at the default 200 ms):
-//     while runs keep ending sooner, at most one request per that long; a
-//     640x360 keyframe of about 30 kB every 3.2 s is under a tenth of a
-//     1 Mbit/s uplink.
+//   - ptBackoffFactor, 16 keyframe retries (3.2 s at the default 200 ms):
+//     while runs keep ending sooner, at most one request per that long, so
+//     pass-through's keyframes take a small share of even a slow uplink,
+//     and a relay on a link that got better transcodes at most that much
+//     longer than it must.
 const (
 	ptCalm          = time.Second
 	ptBackoffFactor = 16
