@@ -1,6 +1,7 @@
 package relay
 
 import (
+	"fmt"
 	"testing"
 	"time"
 )
@@ -59,5 +60,63 @@ func TestPassThroughBackoff(t *testing.T) {
 	last = last.Add(retry)
 	if b.due(last.Add(retry), last, retry, true) || !b.due(last.Add(2*retry), last, retry, false) {
 		t.Fatal("after a calm run used up: want spacing 2 retries, urgency ignored")
+	}
+}
+
+// TestPassThroughRequestsSpaced drives the ingest's keyframe requests with
+// the expiry timer's 20 ms steps while pass-through waits for a keyframe:
+// after a one-frame run the requests are spaced 400, 800, 1600 and then
+// 3200 ms apart (every 200 ms before the spacing: 50 in 10 s); after a run
+// of more than ptCalm its end asks at once.
+func TestPassThroughRequestsSpaced(t *testing.T) {
+	nowUs := captureUs(0)
+	r, p, done := pipelineOnFakeVehicle(t, Config{Camera: testCamera(), FPS: testFPS, LatencyMs: 50, FrameQueue: 64,
+		Now: func() time.Time { return time.UnixMicro(nowUs) }})
+	defer done()
+	v := p.sess.(*fakeVehicle)
+	requests := func() int { v.mu.Lock(); defer v.mu.Unlock(); return len(v.keyReqs) }
+	push := framePusher(t, p)
+	tickTimer := func(d time.Duration) (at []int64) {
+		t.Helper()
+		start := nowUs
+		for end := nowUs + d.Microseconds(); nowUs < end; nowUs += 20_000 {
+			n := requests()
+			p.in.mu.Lock()
+			p.in.timerRequestsLocked(time.UnixMicro(nowUs), false)
+			p.in.mu.Unlock()
+			if requests() > n {
+				at = append(at, (nowUs-start)/1000)
+			}
+		}
+		return at
+	}
+
+	ev := push(0, true)
+	if !ev.forwarded {
+		t.Fatal("the first keyframe did not pass through")
+	}
+	// The display loop ends the one-frame run with a frame of its own.
+	r.gate.BeginOwn()
+	r.gate.EndOwn()
+	got := tickTimer(10 * time.Second)
+	want := []int64{0, 400, 1200, 2800, 6000, 9200}
+	if fmt.Sprint(got) != fmt.Sprint(want) {
+		t.Fatalf("pass-through requests at %v ms, want %v", got, want)
+	}
+
+	// A run of 40 frames (1.3 s): when it ends, the next request goes out
+	// at once, then one retry interval later.
+	for i := 1; i <= 40; i++ {
+		nowUs += 33_333
+		if ev := push(i, i == 1); !ev.forwarded {
+			t.Fatalf("frame %d did not pass through", i)
+		}
+	}
+	r.gate.BeginOwn()
+	r.gate.EndOwn()
+	got = tickTimer(time.Second)
+	want = []int64{0, 200, 600}
+	if fmt.Sprint(got) != fmt.Sprint(want) {
+		t.Fatalf("after a calm run: requests at %v ms, want %v", got, want)
 	}
 }
