@@ -51,7 +51,7 @@ type telEvent struct {
 // own goroutine; only the mutex-guarded parts are touched from the expiry timer.
 type frameIngest struct {
 	p   *pipeline
-	mu  sync.Mutex // guards asm, dec, lastKeyReq, linkBack, anchor state
+	mu  sync.Mutex // guards asm, dec, lastKeyReq, linkBack, ptBackoff, anchor state
 	asm *rtpvp8.Assembler
 	dec *vp8.Decoder
 	img vp8.Image // decodes a frame no picture of the pool is free for
