@@ -225,13 +225,20 @@ func relayDrops(m map[string]float64, base string) (uint64, error) {
 // its CPU went where it did (logged beside the figures).
 func relayWork(m0, m1 map[string]float64) string {
 	d := func(name string) float64 { return m1[relay.MetricPrefix+name] - m0[relay.MetricPrefix+name] }
+	// keyframe requests are counted by reason: their sum.
+	var keyReqs float64
+	for k, v := range m1 {
+		if strings.HasPrefix(k, relay.MetricPrefix+"keyframe_requests_total{") {
+			keyReqs += v - m0[k]
+		}
+	}
 	return fmt.Sprintf("forwarded %.0f, encoded %.0f, superseded %.0f, ticks live/predicted/stale/not_shown %.0f/%.0f/%.0f/%.0f (not drawn: overrun %.0f, frame waiting %.0f), late %.0f, dropped %.0f, pass-through stops loss/decode/own/size %.0f/%.0f/%.0f/%.0f, keyframes waited %.0f, keyframe requests %.0f",
 		d("frames_forwarded_total"), d("encode_seconds_count"), d("frames_superseded_total"),
 		d(`ticks_total{state="live"}`), d(`ticks_total{state="predicted"}`), d(`ticks_total{state="stale"}`), d(`ticks_total{state="not_shown"}`),
 		d("tick_overruns_total"), d("ticks_not_drawn_frame_waiting_total"),
 		d("late_frames_total"), d("frames_dropped_total"),
 		d(`passthru_stops_total{reason="loss"}`), d(`passthru_stops_total{reason="decode-failed"}`), d(`passthru_stops_total{reason="own-frame"}`), d(`passthru_stops_total{reason="bad-size"}`),
-		d("passthru_keyframes_waited_total"), d("keyframe_requests_total"))
+		d("passthru_keyframes_waited_total"), keyReqs)
 }
 
 // BenchmarkCapacity1280x720 runs N vehicles at once, each with its own relay

@@ -145,7 +145,7 @@ func (in *frameIngest) runRTP(ctx context.Context) error {
 			now := in.p.cfg.Now()
 			in.linkBack = true
 			if now.Sub(in.lastKeyReq) >= linkBackRetry(in.p.cfg.KeyframeRetry) {
-				in.requestKeyframeLocked(now, "link back")
+				in.requestKeyframeLocked(now, keyLinkBack)
 			}
 		}
 		in.lastArrival = arrival
@@ -214,12 +214,12 @@ func (in *frameIngest) timerRequestsLocked(now time.Time, silent bool) {
 	switch {
 	case silent && in.backFromTelemetry():
 		in.linkBack = true
-		in.requestKeyframeLocked(now, "link back, telemetry first")
+		in.requestKeyframeLocked(now, keyLinkBackTelemetry)
 	case silent:
 	case in.linkBack && !answering && now.Sub(in.lastKeyReq) >= linkBackRetry(in.p.cfg.KeyframeRetry):
-		in.requestKeyframeLocked(now, "link back, repeated")
+		in.requestKeyframeLocked(now, keyLinkBackRepeat)
 	case in.dec.NeedKeyframe() && !answering && now.Sub(in.lastKeyReq) >= in.p.cfg.KeyframeRetry:
-		in.requestKeyframeLocked(now, "retry")
+		in.requestKeyframeLocked(now, keyRetry)
 	case in.p.r.gate.WantKeyframe() && !answering:
 		// Pass-through resumes on the vehicle's next keyframe, and a
 		// console viewer can only start on one. Urgent: the display
@@ -230,12 +230,12 @@ func (in *frameIngest) timerRequestsLocked(now time.Time, silent bool) {
 		retry := in.p.cfg.KeyframeRetry
 		if in.p.r.gate.Forwarding() {
 			if now.Sub(in.lastKeyReq) >= retry {
-				in.requestKeyframeLocked(now, "pass-through, viewer")
+				in.requestKeyframeLocked(now, keyViewer)
 			}
 			return
 		}
 		if in.ptBackoff.due(now, in.lastKeyReq, retry, in.p.r.gate.KeyframeUrgent()) {
-			in.requestKeyframeLocked(now, "pass-through")
+			in.requestKeyframeLocked(now, keyPassThrough)
 			if in.lastKeyReq.Equal(now) {
 				in.ptBackoff.sent(retry)
 			}
@@ -278,10 +278,10 @@ func linkBackRetry(retry time.Duration) time.Duration { return retry / 2 }
 // counts from the last PLI that went out, so a refusal never postpones the
 // next attempt.
 // Any request sent also answers an urgent wish of the pass-through gate.
-func (in *frameIngest) requestKeyframeLocked(now time.Time, why string) {
+func (in *frameIngest) requestKeyframeLocked(now time.Time, why keyframeReason) {
 	if err := in.p.sess.RequestKeyframe(); err != nil {
 		in.p.r.met.keyframeRequestsFailed.Add(1)
-		in.p.log.Debug("keyframe request not sent", "why", why, "err", err)
+		in.p.log.Debug("keyframe request not sent", "why", why.String(), "err", err)
 		if !errors.Is(err, whip.ErrKeyframeRateLimited) {
 			in.lastKeyReq = now
 		}
@@ -289,8 +289,8 @@ func (in *frameIngest) requestKeyframeLocked(now time.Time, why string) {
 	}
 	in.lastKeyReq = now
 	in.p.r.gate.KeyframeRequested()
-	in.p.r.met.keyframeRequests.Add(1)
-	in.p.log.Debug("keyframe requested", "why", why)
+	in.p.r.met.keyframeRequests[why].Add(1)
+	in.p.log.Debug("keyframe requested", "why", why.String())
 }
 
 // onLoss is called by the assembler (in.mu held).
@@ -299,7 +299,7 @@ func (in *frameIngest) onLoss(l rtpvp8.Loss) {
 	in.p.r.met.losses.Add(1)
 	in.dec.Lost()
 	in.p.log.Debug("frame loss", "reason", l.Reason.String(), "missing_packets", l.Missing)
-	in.requestKeyframeLocked(in.p.cfg.Now(), "loss")
+	in.requestKeyframeLocked(in.p.cfg.Now(), keyLoss)
 }
 
 // onFrame forwards a complete frame to the console if the pass-through gate
@@ -342,7 +342,7 @@ func (in *frameIngest) onFrame(f rtpvp8.Frame) {
 		// A rejected inter frame while waiting needs no new request unless
 		// the last one is old; a real decode error asks at once.
 		if !errors.Is(err, vp8.ErrNeedKeyframe) || t0.Sub(in.lastKeyReq) >= p.cfg.KeyframeRetry {
-			in.requestKeyframeLocked(t0, "decode")
+			in.requestKeyframeLocked(t0, keyDecode)
 		}
 		return
 	}

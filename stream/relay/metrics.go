@@ -131,14 +131,15 @@ const MetricPrefix = "stopgap_"
 // metrics are the relay's counters, histograms and gauges. Safe for
 // concurrent use.
 type metrics struct {
-	framesIn, losses, keyframeRequests, keyframeRequestsFailed atomic.Uint64
-	ticks                                                      [len(display.States) + 1]atomic.Uint64 // by display.State
-	lateFrames, decodeErrors, framesDropped, overruns          atomic.Uint64
-	framesWaiting                                              atomic.Uint64 // ticks not drawn: a newer frame waited (pipeline.Missing)
-	framesMovedOn, framesResumed                               atomic.Uint64
-	framesSuperseded                                           atomic.Uint64
-	telemetryIn, recordErrors, sessions                        atomic.Uint64
-	telemetryRejected, rtpDropped                              labelled
+	framesIn, losses, keyframeRequestsFailed          atomic.Uint64
+	keyframeRequests                                  [keyReasonCount]atomic.Uint64          // by keyframeReason
+	ticks                                             [len(display.States) + 1]atomic.Uint64 // by display.State
+	lateFrames, decodeErrors, framesDropped, overruns atomic.Uint64
+	framesWaiting                                     atomic.Uint64 // ticks not drawn: a newer frame waited (pipeline.Missing)
+	framesMovedOn, framesResumed                      atomic.Uint64
+	framesSuperseded                                  atomic.Uint64
+	telemetryIn, recordErrors, sessions               atomic.Uint64
+	telemetryRejected, rtpDropped                     labelled
 
 	// Loss repair (see ingest.RepairStats), summed over sessions; repairRTTUs
 	// is the latest session's round-trip estimate.
@@ -150,6 +151,15 @@ type metrics struct {
 	pictureAge atomic.Int64
 
 	addedLatency, decode, encode, synth *histogram
+}
+
+// keyframeRequestsSent returns the keyframe requests sent, every reason.
+func (m *metrics) keyframeRequestsSent() uint64 {
+	var n uint64
+	for i := range m.keyframeRequests {
+		n += m.keyframeRequests[i].Load()
+	}
+	return n
 }
 
 func newMetrics() *metrics {
@@ -208,7 +218,10 @@ func (m *metrics) writeText(w io.Writer, active int, pt passthru.Stats) {
 	counter("passthru_keyframes_waited", "Vehicle keyframes that waited for the relay to finish writing a frame of its own before they passed through.", pt.WaitedKeyframes)
 	counter("losses", "Frame losses: assembler loss events and decode errors.", m.losses.Load())
 	counter("decode_errors", "Frames the VP8 decoder could not decode.", m.decodeErrors.Load())
-	counter("keyframe_requests", "Keyframe requests (RTCP PLI) sent to the vehicle.", m.keyframeRequests.Load())
+	fmt.Fprintf(w, "# HELP %[1]skeyframe_requests_total Keyframe requests (RTCP PLI) sent to the vehicle, by reason.\n# TYPE %[1]skeyframe_requests_total counter\n", p)
+	for r := keyReasonInvalid + 1; r < keyReasonCount; r++ {
+		fmt.Fprintf(w, "%skeyframe_requests_total{reason=%q} %d\n", p, r.String(), m.keyframeRequests[r].Load())
+	}
 	counter("keyframe_requests_failed", "Keyframe requests that could not be sent (no track yet, rate limit, closed session).", m.keyframeRequestsFailed.Load())
 	counter("repair_gaps", "Missing RTP packets asked for with a NACK (each once).", m.repairGaps.Load())
 	counter("repair_repaired", "Missing RTP packets that arrived after all (retransmission or reordering).", m.repairRepaired.Load())

@@ -2,6 +2,7 @@ package relay
 
 import (
 	"bufio"
+	"os"
 	"strings"
 	"testing"
 
@@ -18,6 +19,8 @@ func TestMetricNames(t *testing.T) {
 	m := newMetrics()
 	m.decodeErrors.Add(2)
 	m.keyframeRequestsFailed.Add(3)
+	m.keyframeRequests[keyPassThrough].Add(4)
+	m.keyframeRequests[keyLoss].Add(1)
 	m.tick(display.StateNoPicture, 0)
 	m.tick(display.StatePredicted, 133.4)
 	m.tick(display.StatePredicted, 133.4)
@@ -51,6 +54,9 @@ func TestMetricNames(t *testing.T) {
 	for _, want := range []string{
 		"stopgap_decode_errors_total 2\n",
 		"stopgap_keyframe_requests_failed_total 3\n",
+		`stopgap_keyframe_requests_total{reason="pass-through"} 4` + "\n",
+		`stopgap_keyframe_requests_total{reason="loss"} 1` + "\n",
+		`stopgap_keyframe_requests_total{reason="viewer"} 0` + "\n",
 		`stopgap_frame_state{state="predicted"} 1` + "\n",
 		`stopgap_frame_state{state="live"} 0` + "\n",
 		"stopgap_picture_age_seconds 0.1334\n",
@@ -85,5 +91,41 @@ func TestMetricNotShownKeepsAge(t *testing.T) {
 		if !strings.Contains(b.String(), want) {
 			t.Errorf("exposition lacks %q", want)
 		}
+	}
+}
+
+// TestKeyframeReasonNames: every reason has its own label value, and
+// keyframeRequestsSent counts every reason.
+func TestKeyframeReasonNames(t *testing.T) {
+	m := newMetrics()
+	seen := map[string]keyframeReason{}
+	for r := keyReasonInvalid + 1; r < keyReasonCount; r++ {
+		name := r.String()
+		if name == "" || name == "invalid" || strings.ToLower(name) != name || strings.ContainsAny(name, " ,_") {
+			t.Errorf("reason %d has label value %q, want lower-case words joined by hyphens", r, name)
+		}
+		if o, dup := seen[name]; dup {
+			t.Errorf("reasons %d and %d share the label value %q", o, r, name)
+		}
+		seen[name] = r
+		m.keyframeRequests[r].Add(uint64(r))
+	}
+	if got, want := m.keyframeRequestsSent(), uint64((keyReasonCount-1)*keyReasonCount/2); got != want {
+		t.Errorf("keyframeRequestsSent %d, want %d", got, want)
+	}
+	if got := keyReasonCount.String(); got != "invalid" {
+		t.Errorf("out-of-range reason reads %q, want invalid", got)
+	}
+	// The README lists them, in this order.
+	var names []string
+	for r := keyReasonInvalid + 1; r < keyReasonCount; r++ {
+		names = append(names, r.String())
+	}
+	readme, err := os.ReadFile("../../README.md")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if want := `stopgap_keyframe_requests_total{reason="` + strings.Join(names, "|") + `"}`; !strings.Contains(string(readme), want) {
+		t.Errorf("README.md lacks %s", want)
 	}
 }

@@ -700,7 +700,7 @@ func (p *pipeline) recordNotShown(t cadence.Tick) {
 // refreshLink updates the link statistics about once per second.
 func (p *pipeline) refreshLink() {
 	now := p.cfg.Now()
-	p.link.KeyframeRequests = p.r.met.keyframeRequests.Load()
+	p.link.KeyframeRequests = p.r.met.keyframeRequestsSent()
 	p.link.FramesIn = p.r.met.framesIn.Load()
 	p.link.DelayMs = finite(p.lastDelayMs)
 	var lastPkt time.Time

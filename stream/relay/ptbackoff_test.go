@@ -103,6 +103,9 @@ func TestPassThroughRequestsSpaced(t *testing.T) {
 	if fmt.Sprint(got) != fmt.Sprint(want) {
 		t.Fatalf("pass-through requests at %v ms, want %v", got, want)
 	}
+	if n := r.met.keyframeRequests[keyPassThrough].Load(); n != uint64(len(want)) {
+		t.Errorf("metrics count %d pass-through requests, want %d", n, len(want))
+	}
 
 	// A run of 40 frames (1.3 s): when it ends, the next request goes out
 	// at once, then one retry interval later.

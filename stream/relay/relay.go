@@ -228,7 +228,7 @@ func (r *Relay) Stats() Stats {
 		TicksLive: m.ticks[display.StateLive].Load(), TicksPredicted: m.ticks[display.StatePredicted].Load(),
 		TicksStale:     m.ticks[display.StateStale].Load() + m.ticks[display.StateNoPicture].Load(),
 		TicksNoPicture: m.ticks[display.StateNoPicture].Load(), TicksNotShown: m.ticks[display.StateNotShown].Load(),
-		Losses: m.losses.Load(), KeyframeRequests: m.keyframeRequests.Load(),
+		Losses: m.losses.Load(), KeyframeRequests: m.keyframeRequestsSent(),
 		State: predictor.State(m.stateNow.Load()), PictureAgeMs: float64(m.pictureAge.Load()) / 1000,
 		LateFrames: m.lateFrames.Load(), FramesDropped: m.framesDropped.Load(), Overruns: m.overruns.Load(), FramesMovedOn: m.framesMovedOn.Load(), FramesResumed: m.framesResumed.Load(),
 		TelemetryIn: m.telemetryIn.Load(), TelemetryRejected: m.telemetryRejected.total(),
