@@ -26,7 +26,7 @@ const (
 // frame) queued the frames behind it past their ticks, the ticks without a
 // frame ended the run its keyframe opened, and the next request went out
 // 200 ms later: measured with a browser sender on a 1 Mbit/s uplink with a
-// 300 ms queue, 55 of 64 requests in 10 s were these, and the session's
+// 300 ms queue, 55 of the 64 requests one session logged were these, and its
 // second 5 s were 28 % LIVE. So after a run shorter than ptCalm (or none)
 // the interval doubles with every such request, up to ptBackoffFactor
 // retry intervals, and a run that lasts ptCalm sets it back.
