@@ -22,8 +22,8 @@ const (
 // can pass through again (passthru.Gate.WantKeyframe while no run is open).
 // Those requests are not needed to show the picture: while no run is open
 // the relay transcodes every real frame. On an uplink that the sender's
-// stream only just fits, each requested keyframe (several times a delta
-// frame) queued the frames behind it past their ticks, the ticks without a
+// stream only just fits, each requested keyframe (usually several times a
+// delta frame; not measured here) queued the frames behind it past their ticks, the ticks without a
 // frame ended the run its keyframe opened, and the next request went out
 // 200 ms later: measured with a browser sender on a 1 Mbit/s uplink with a
 // 300 ms queue, 55 of the 64 requests one session logged were these, and its
