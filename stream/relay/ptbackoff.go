@@ -23,13 +23,14 @@ const (
 // Those requests are not needed to show the picture: while no run is open
 // the relay transcodes every real frame. On an uplink that the sender's
 // stream only just fits, each requested keyframe (usually several times a
-// delta frame; not measured here) queued the frames behind it past their ticks, the ticks without a
-// frame ended the run its keyframe opened, and the next request went out
-// 200 ms later: measured with a browser sender on a 1 Mbit/s uplink with a
-// 300 ms queue, 55 of the 64 requests one session logged were these, and its
-// second 5 s were 28 % LIVE. So after a run shorter than ptCalm (or none)
-// the interval doubles with every such request, up to ptBackoffFactor
-// retry intervals, and a run that lasts ptCalm sets it back.
+// delta frame; not measured here) queued the frames behind it past their
+// ticks, the ticks without a frame ended the run its keyframe opened, and
+// the next request went out 200 ms later: measured with a browser sender on
+// a 1 Mbit/s uplink with a 300 ms queue, 55 of the 64 requests one session
+// logged were these, and its second 5 s were 28 % LIVE. So after a run
+// shorter than ptCalm (or none) the interval doubles with every such
+// request, up to ptBackoffFactor retry intervals, and a run that lasts
+// ptCalm sets it back.
 //
 // The ingest's decoder, link-back and loss requests, which the picture
 // does need, and a console viewer's wish while frames pass through, are
