@@ -14,6 +14,7 @@ import (
 	"strconv"
 	"strings"
 	"sync"
+	"sync/atomic"
 	"syscall"
 	"testing"
 	"time"
@@ -148,11 +149,19 @@ func run(args ...string) error {
 	return nil
 }
 
+// netnsSeq numbers the test networks of this process: the kernel removes a
+// deleted namespace's links after the delete returns, so a second test of
+// the same run that took the same names found them still there ("File
+// exists") and was skipped.
+var netnsSeq atomic.Int32
+
 // newNetns creates both namespaces and their links; t.Cleanup deletes them
 // (the veth pairs, and the host's route through hostIf, go with them).
 func newNetns(t *testing.T) *netns {
 	t.Helper()
-	id := os.Getpid() % 100000
+	// Names and the /30 subnets differ by process and, for up to ten
+	// networks, within one.
+	id := (os.Getpid()*10 + int(netnsSeq.Add(1)-1)%10) % 100000
 	sub := fmt.Sprintf("10.213.%d.", id%250)
 	n := &netns{t: t, name: fmt.Sprintf("sgv%d", id), router: fmt.Sprintf("sgr%d", id), hostIf: fmt.Sprintf("sgh%d", id),
 		hostIP: sub + "1", routerIP: sub + "2", nsIP: sub + "6", browserSide: fmt.Sprintf("sgc%d", id),
