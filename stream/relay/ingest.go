@@ -236,6 +236,8 @@ func (in *frameIngest) timerRequestsLocked(now time.Time, silent bool) {
 		}
 		if in.ptBackoff.due(now, in.lastKeyReq, retry, in.p.r.gate.KeyframeUrgent()) {
 			in.requestKeyframeLocked(now, keyPassThrough)
+			// lastKeyReq moved: the request counts as made (sent, or
+			// failed other than by the session's rate limit).
 			if in.lastKeyReq.Equal(now) {
 				in.ptBackoff.sent(retry)
 			}

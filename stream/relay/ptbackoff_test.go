@@ -26,7 +26,7 @@ func TestPassThroughBackoff(t *testing.T) {
 	want := []time.Duration{400, 800, 1600, 3200, 3200}
 	for i, w := range want {
 		b.sent(retry)
-		last = at(int(time.Duration(i+1) * 10 * time.Second / time.Millisecond))
+		last = at((i + 1) * 10_000) // well apart: only the spacing counts
 		w *= time.Millisecond
 		if b.due(last.Add(w-time.Millisecond), last, retry, true) || !b.due(last.Add(w), last, retry, false) {
 			t.Fatalf("request %d: want spacing %v", i+2, w)
