@@ -562,8 +562,8 @@ func runCapacity(b *testing.B, rec *recording.Recording, drive string, n int, mo
 		// vehicle's frame counter compared two intervals: the counter is
 		// read after the window's end, by up to N relays' metrics fetches,
 		// and a frame's meta arrives a few ms after the frame; at N=4 that
-		// made a stream whose every frame passed through and was shown LIVE
-		// 2 frames short of 99 %.
+		// put a stream whose every frame passed through, with no late or
+		// unshown tick in its relay's counters, 2 frames short of 99 %.
 		shown := map[int64]bool{}
 		for _, m := range metas[m0.metas:] {
 			if m.meta.State != display.StateLive {
