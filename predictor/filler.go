@@ -539,7 +539,7 @@ func (f *Filler) MissingWith(method Method, targetUs int64, dst *gocv.Mat) (Tick
 	}
 	tick.LabelFraction, err = f.label.Draw(dst, tick.State, tick.AgeMs, tick.Confidence)
 	if err == nil && movers != nil && len(movers.Movers) > 0 {
-		f.placeMarks(movers.Movers, tick.Motion, tick.FarDepthM, up)
+		f.marks = f.placeMarks(f.marks[:0], movers.Movers, tick.Motion, tick.FarDepthM, up)
 		tick.Movers, err = f.label.DrawMovers(dst, f.marks, tick.AgeMs)
 	}
 	tick.SynthDuration = f.now().Sub(start)

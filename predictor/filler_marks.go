@@ -10,22 +10,21 @@ import (
 	"stopgap/filter"
 )
 
-// placeMarks writes into f.marks the movers of the held frame as they are
-// marked on a predicted frame made with motion m (held frame -> target):
-// each last known place moves as a static upright standing where the thing
-// stands would, so the mark sits where the thing would be had it stopped.
-// A box whose bottom edge is on the road (below the horizon) follows the
-// road map of its two bottom corners and is scaled by the change of their
-// distance; one above the horizon follows the far map of its centre. The
-// apparent velocity is scaled with the box. The picture itself moves the
-// thing's pixels as static scene (the road map smears a thing standing on
-// the road), so each mark also keeps where the picture shows its held box
-// (Mover.Shown, shownBox, with the upright structure up the synthesis
-// used; nil for none). Lens distortion is ignored here (marks are zones,
-// not pixels). f.marks is reused: no allocation once it has grown to the
-// number of movers.
-func (f *Filler) placeMarks(movers []Mover, m filter.Motion, farDepthM float64, up *UprightModel) {
-	f.marks = f.marks[:0]
+// placeMarks appends to dst the movers of the held frame as they are
+// marked on a predicted frame made with motion m (held frame -> target)
+// and returns it: each last known place moves as a static upright standing
+// where the thing stands would, so the mark sits where the thing would be
+// had it stopped. A box whose bottom edge is on the road (below the
+// horizon) follows the road map of its two bottom corners and is scaled by
+// the change of their distance; one above the horizon follows the far map
+// of its centre. The apparent velocity is scaled with the box. The picture
+// itself moves the thing's pixels as static scene (the road map smears a
+// thing standing on the road), so each mark also keeps where the picture
+// shows its held box (Mover.Shown, shownBox, with the upright structure up
+// the synthesis used; nil for none). Lens distortion is ignored here
+// (marks are zones, not pixels). Ticks pass f.marks[:0]: no allocation
+// once it has grown to the number of movers.
+func (f *Filler) placeMarks(dst, movers []Mover, m filter.Motion, farDepthM float64, up *UprightModel) []Mover {
 	c := f.cfg.Camera
 	road := GroundHomographyPlanar(c, m.DxM, m.DyM, m.DyawRad)
 	far := FarHomographyPlanar(c, m.DxM, m.DyM, m.DyawRad, farDepthM)
@@ -54,9 +53,40 @@ func (f *Filler) placeMarks(movers []Mover, m filter.Motion, farDepthM float64, 
 		}
 		w, h := k*(x1-x0), k*float64(b.Dy())
 		box := image.Rect(int(math.Floor(ax)), int(math.Floor(ay-h)), int(math.Ceil(ax+w)), int(math.Ceil(ay)))
-		f.marks = append(f.marks, Mover{Box: box, VxPxPerS: k * mv.VxPxPerS, VyPxPerS: k * mv.VyPxPerS,
+		dst = append(dst, Mover{Box: box, VxPxPerS: k * mv.VxPxPerS, VyPxPerS: k * mv.VyPxPerS,
 			Shown: shownBox(c, m, road, far, up, b)})
 	}
+	return dst
+}
+
+// HeldMovers returns the movers found in the held frame (held-frame
+// pixels, Shown empty) for the gap the last PREDICTED tick belongs to, or
+// nil when none were found or no gap's estimates have been made for the
+// held frame. The slice is the Filler's and is valid until its next call.
+func (f *Filler) HeldMovers() []Mover {
+	if !f.moversKnown || f.moversFor != f.lastUs || len(f.movers.Movers) == 0 {
+		return nil
+	}
+	return f.movers.Movers
+}
+
+// PlaceMarks appends to dst the held-frame movers ms as a PREDICTED tick
+// with motion m (held frame -> target) would mark them, with the far depth
+// and upright structure estimated for the held frame, and returns it.
+// PlaceMarks(nil, f.HeldMovers(), tick.Motion) is what f.Marks() holds
+// after that tick; a diagnosis passes boxes of its own (for example the
+// true places of the road users of a simulated drive) to see how marks
+// placed from them would score. It fails with ErrNoFrame before the first
+// real frame.
+func (f *Filler) PlaceMarks(dst, ms []Mover, m filter.Motion) ([]Mover, error) {
+	if f.closed {
+		return dst, ErrClosed
+	}
+	if !f.have {
+		return dst, ErrNoFrame
+	}
+	d := f.farDepthFor()
+	return f.placeMarks(dst, ms, m, d, f.uprightModel(d)), nil
 }
 
 // Marks returns the movers as marked on the last tick, in its pixels

@@ -8,6 +8,8 @@ import (
 	"testing"
 
 	"gocv.io/x/gocv"
+
+	"stopgap/filter"
 )
 
 // TestFillerPrepareChangesNothingShown: a gap's first PREDICTED frame is
@@ -186,5 +188,21 @@ func TestFillerHoldOlder(t *testing.T) {
 	}
 	if got := f.olderUs[:f.olderN]; !slices.Equal(got, []int64{15}) {
 		t.Errorf("older frames %v after HoldPrevious at 18, want [15]", got)
+	}
+}
+
+// Before any frame PlaceMarks has nothing to place against and HeldMovers
+// holds nothing.
+func TestPlaceMarksBeforeFrame(t *testing.T) {
+	f, err := NewFiller(FillerConfig{Camera: uprightCam(), Policy: DefaultPolicy(), Motion: &fakeMotion{SigmaPerS: 0.01}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	if got := f.HeldMovers(); got != nil {
+		t.Errorf("HeldMovers before any frame: %v, want nil", got)
+	}
+	if _, err := f.PlaceMarks(nil, []Mover{{Box: image.Rect(10, 10, 20, 20)}}, filter.Motion{}); !errors.Is(err, ErrNoFrame) {
+		t.Errorf("PlaceMarks before any frame: %v, want ErrNoFrame", err)
 	}
 }

@@ -5,6 +5,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"slices"
 	"testing"
 
 	"gocv.io/x/gocv"
@@ -266,6 +267,12 @@ func TestMarksOnMovingCamera(t *testing.T) {
 		tk, err := f.Missing(target, &dst)
 		if err != nil || tk.State != StatePredicted {
 			t.Fatalf("tick at %d us: %+v %v", target, tk, err)
+		}
+		// The marks are the held frame's movers placed by PlaceMarks, the
+		// one path a diagnosis uses to place boxes of its own.
+		placed, err := f.PlaceMarks(nil, f.HeldMovers(), tk.Motion)
+		if err != nil || len(placed) == 0 || !slices.Equal(placed, f.Marks()) {
+			t.Fatalf("tick at %d us: PlaceMarks of the held movers gives %v (%v), the tick marked %v", target, placed, err, f.Marks())
 		}
 		now := block(target)
 		for y := in.Min.Y; y < in.Max.Y; y++ {
