@@ -80,14 +80,7 @@ func TestDiagMarks(t *testing.T) {
 	var partUnmarked [2]int    // of them in road users no mark touches
 	inZero := 0
 
-	rc := baseReplay(drive, filepath.Join(out, "replay"))
-	rc.Overwrite = true
-	rc.Loss = lossmodel.Config{Model: lossmodel.GilbertElliott, LossRate: envF("MARKS_DIAG_LOSS", 0.1), BurstMs: 200,
-		Seed: uint64(envF("MARKS_DIAG_LOSS_SEED", 1))}
-	// As stopgap replay (its zero confidence model and allowance are the
-	// command's defaults already).
-	rc.Telemetry.Seed = rc.Loss.Seed
-	rc.Examples = -1
+	rc := diagMarksReplay(drive, filepath.Join(out, "replay"), envF("MARKS_DIAG_LOSS", 0.1), uint64(envF("MARKS_DIAG_LOSS_SEED", 1)))
 	shownMask, img, tint := gocv.NewMat(), gocv.NewMat(), gocv.NewMat()
 	defer shownMask.Close()
 	defer img.Close()
@@ -220,4 +213,18 @@ func TestDiagMarks(t *testing.T) {
 		t.Logf("held %4d: %6d truly changed px missed over its ticks (%.2f of all missed)", j, missed[j],
 			float64(missed[j])/float64(max(1, missSum)))
 	}
+}
+
+// diagMarksReplay is the replay of drive into out that the diagnoses of
+// the marks run: as stopgap replay with its defaults (its zero confidence
+// model and allowance are the command's defaults already), but
+// Gilbert-Elliott loss at lossRate with 200 ms bursts and seed lossSeed,
+// and no example frames.
+func diagMarksReplay(drive, out string, lossRate float64, lossSeed uint64) ReplayConfig {
+	rc := baseReplay(drive, out)
+	rc.Overwrite = true
+	rc.Loss = lossmodel.Config{Model: lossmodel.GilbertElliott, LossRate: lossRate, BurstMs: 200, Seed: lossSeed}
+	rc.Telemetry.Seed = rc.Loss.Seed
+	rc.Examples = -1
+	return rc
 }

@@ -220,15 +220,23 @@ type markedTick struct {
 	Changed, Marked, Target, ShownMask gocv.Mat
 	// Marks are the marks as placed on the tick (predictor.Filler.Marks).
 	Marks []predictor.Mover
-	// Inner is the area inside the label's border.
-	Inner image.Rectangle
+	// Inner is the area inside the label's border, Text the label's text
+	// box within it (both left out of Changed and Marked).
+	Inner, Text image.Rectangle
+	// HeldMask is the moving things' mask of the held frame; Motion the
+	// tick's motion (held frame -> tick) and Filler the replay's, for
+	// placing boxes of a diagnosis's own (predictor.Filler.PlaceMarks).
+	HeldMask gocv.Mat
+	Motion   filter.Motion
+	Filler   *predictor.Filler
 }
 
 // tick returns the markedTick of the tick score was just called for.
-func (s *markScorer) tick(f *predictor.Filler, held, k int, ageMs float64, shown gocv.Mat) markedTick {
-	inner, _ := f.LabelArea()
+func (s *markScorer) tick(f *predictor.Filler, held, k int, ageMs float64, shown gocv.Mat, m filter.Motion) markedTick {
+	inner, text := f.LabelArea()
 	return markedTick{K: k, Held: held, AgeMs: ageMs, Shown: shown, Changed: s.truth, Marked: s.mk,
-		Target: s.target, ShownMask: s.warped, Marks: f.Marks(), Inner: inner}
+		Target: s.target, ShownMask: s.warped, Marks: f.Marks(), Inner: inner, Text: text,
+		HeldMask: s.held, Motion: m, Filler: f}
 }
 
 // ensureGray returns m if it is a w x h CV_8U image, else a new one (m is

@@ -987,7 +987,7 @@ func (r *replayer) missing(t cadence.Tick, captureUs int64, last, beforeLast int
 				return TickRow{}, err
 			}
 			if r.marked != nil {
-				if err := r.marked(r.marks.tick(r.filler, r.held, k, tick.AgeMs, r.shown)); err != nil {
+				if err := r.marked(r.marks.tick(r.filler, r.held, k, tick.AgeMs, r.shown, tick.Motion)); err != nil {
 					return TickRow{}, err
 				}
 			}
