@@ -60,9 +60,9 @@ func (f *Filler) placeMarks(dst, movers []Mover, m filter.Motion, farDepthM floa
 }
 
 // HeldMovers returns the movers found in the held frame (held-frame
-// pixels, Shown empty) for the gap the last PREDICTED tick belongs to, or
-// nil when none were found or no gap's estimates have been made for the
-// held frame. The slice is the Filler's and is valid until its next call.
+// pixels, Shown empty), as the gap's first PREDICTED tick or Prepare found
+// them, or nil when none were found or neither has run for the held frame.
+// The slice is the Filler's and is valid until its next call.
 func (f *Filler) HeldMovers() []Mover {
 	if !f.moversKnown || f.moversFor != f.lastUs || len(f.movers.Movers) == 0 {
 		return nil
